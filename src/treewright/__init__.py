@@ -1,0 +1,1 @@
+"""treewright: unsupervised grammar induction on CPU PyTorch."""

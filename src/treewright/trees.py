@@ -1,0 +1,124 @@
+"""Constituency trees: the one tree type shared by corpora, decoders, evaluation and export.
+
+A `Tree` has a label and a list of children; a child is either a `Tree` or a word (`str`).
+Spans are half-open word intervals `(i, j)`, 0-based, as in the inside chart.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Iterator, Union
+
+Child = Union["Tree", str]
+
+
+@dataclass
+class Tree:
+    label: str
+    children: list[Child] = field(default_factory=list)
+
+    def leaves(self) -> list[str]:
+        out: list[str] = []
+        stack: list[Child] = [self]
+        while stack:  # iterative: trees from strangers may nest thousands deep
+            node = stack.pop()
+            if isinstance(node, str):
+                out.append(node)
+            else:
+                stack.extend(reversed(node.children))
+        return out
+
+    def __len__(self) -> int:
+        return len(self.leaves())
+
+    def is_preterminal(self) -> bool:
+        return len(self.children) == 1 and isinstance(self.children[0], str)
+
+    def labeled_spans(self) -> list[tuple[int, int, str]]:
+        """Every constituent as (start, end, label), preterminals included, in pre-order."""
+        out: list[tuple[int, int, str]] = []
+
+        def walk(node: Tree, start: int) -> int:
+            entry = len(out)
+            out.append((start, start, node.label))
+            pos = start
+            for child in node.children:
+                pos = pos + 1 if isinstance(child, str) else walk(child, pos)
+            out[entry] = (start, pos, node.label)
+            return pos
+
+        walk(self, 0)
+        return out
+
+    def subtrees(self) -> Iterator["Tree"]:
+        stack: list[Tree] = [self]
+        while stack:
+            node = stack.pop()
+            yield node
+            stack.extend(c for c in reversed(node.children) if isinstance(c, Tree))
+
+    def to_string(self) -> str:
+        """The bracketed notation, on one line: (S (NP (D the) (N ferry)) (V left))."""
+        parts: list[str] = []
+
+        def walk(node: Child) -> None:
+            if isinstance(node, str):
+                parts.append(escape_token(node))
+                return
+            parts.append("(" + escape_token(node.label))
+            for child in node.children:
+                parts.append(" ")
+                walk(child)
+            parts.append(")")
+
+        walk(self)
+        return "".join(parts)
+
+    def __str__(self) -> str:
+        return self.to_string()
+
+
+_ESCAPES = {"(": "-LRB-", ")": "-RRB-"}
+
+
+def escape_token(token: str) -> str:
+    """Brackets inside words or labels are written as the trade's -LRB-/-RRB- (common practice)."""
+    for raw, esc in _ESCAPES.items():
+        token = token.replace(raw, esc)
+    return token
+
+
+def tree_from_spans(words: list[str], spans: list[tuple[int, int, str]]) -> Tree:
+    """Build a tree from nested labeled spans given in any order.
+
+    Spans of width one become preterminals over their word; words not covered by a width-one
+    span hang directly under their smallest enclosing span. Raises ValueError if two spans cross
+    or if the whole-sentence span (0, n) is missing.
+    """
+    n = len(words)
+    ordered = sorted(set(spans), key=lambda s: (s[0], -(s[1] - s[0])))
+    if not ordered or ordered[0][:2] != (0, n):
+        raise ValueError("spans must include the whole sentence (0, n)")
+    root = Tree(ordered[0][2])
+    # Pre-order walk with an explicit stack of open constituents: (end, node, next word to place).
+    stack: list[list] = [[n, root, 0]]
+
+    def close_top() -> None:
+        end, node, pos = stack.pop()
+        node.children.extend(words[pos:end])
+        stack[-1][2] = end
+
+    for start, end, label in ordered[1:]:
+        while stack[-1][0] <= start:
+            close_top()
+        parent_end, parent, pos = stack[-1]
+        if end > parent_end or start < pos:
+            raise ValueError(f"span ({start}, {end}) crosses another span")
+        parent.children.extend(words[pos:start])
+        node = Tree(label)
+        parent.children.append(node)
+        stack.append([end, node, start])
+    while len(stack) > 1:
+        close_top()
+    stack[0][1].children.extend(words[stack[0][2]:n])
+    return root
