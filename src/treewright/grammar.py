@@ -1,0 +1,316 @@
+"""A PCFG in Chomsky normal form: symbols, rule log-probabilities, and the grammar text format.
+
+Symbol layout (the engine relies on it): nonterminals first, then preterminals, so a child index
+`c < NT` is a nonterminal and `c >= NT` the preterminal `c - NT`.
+
+- `root`    (NT,)       log p(start -> A): the distribution over the tree's top symbol.
+- `binary`  (NT, S, S)  log p(A -> B C), S = NT + T.
+- `lexical` (S, V)      log p(X -> w). Preterminal rows sum to one on their own; a nonterminal row
+                        is -inf unless the grammar lets that symbol emit words too (general CNF),
+                        in which case its binary and lexical rules sum to one together.
+
+The induction layout (disjoint nonterminals and preterminals) is the special case where every
+nonterminal lexical row is -inf.
+
+Grammar text format (ours; see the README):
+
+    # comments run to the end of the line
+    @start S                 the start symbol (required)
+    @unknown "<unk>"         the word that stands for every unknown word (optional)
+    S -> NP VP 1.0           binary rule
+    NP -> "stars" 0.18       lexical rule; terminals are double-quoted, \\" and \\\\ escape
+    ROOT -> S 0.7            unary rules only from the start symbol: they give the root
+                             distribution (then the start symbol has no other rules)
+
+Probabilities are printed with 17 significant digits, so load, save, load is exact in float64.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import torch
+
+from treewright.errors import InputError
+from treewright.vocab import Vocabulary
+
+NEG_INF = float("-inf")
+
+
+@dataclass
+class Grammar:
+    nonterminals: list[str]
+    preterminals: list[str]
+    vocab: Vocabulary
+    root: torch.Tensor     # (NT,) log-probs
+    binary: torch.Tensor   # (NT, S, S) log-probs
+    lexical: torch.Tensor  # (S, V) log-probs
+    start: str = "ROOT"
+
+    def __post_init__(self) -> None:
+        nt, s, v = len(self.nonterminals), self.num_symbols, len(self.vocab)
+        assert self.root.shape == (nt,), self.root.shape
+        assert self.binary.shape == (nt, s, s), self.binary.shape
+        assert self.lexical.shape == (s, v), self.lexical.shape
+
+    @property
+    def num_symbols(self) -> int:
+        return len(self.nonterminals) + len(self.preterminals)
+
+    @property
+    def symbols(self) -> list[str]:
+        return self.nonterminals + self.preterminals
+
+    @property
+    def nonterminals_emit(self) -> bool:
+        """True for general CNF, where some nonterminal also has lexical rules."""
+        nt = len(self.nonterminals)
+        return bool(torch.isfinite(self.lexical[:nt]).any())
+
+    @property
+    def root_is_symbol(self) -> bool:
+        """True when the start symbol is itself a nonterminal (textbook S -> NP VP) rather than
+        a separate symbol whose unary rules give the root distribution."""
+        return self.start in self.nonterminals
+
+    def to(self, dtype: torch.dtype) -> "Grammar":
+        return Grammar(self.nonterminals, self.preterminals, self.vocab, self.root.to(dtype),
+                       self.binary.to(dtype), self.lexical.to(dtype), self.start)
+
+    def normalization_error(self) -> float:
+        """Largest |1 - sum of probabilities| over all left-hand sides and the root."""
+        nt = len(self.nonterminals)
+        sums = [self.root.exp().sum().unsqueeze(0)]
+        rows = self.binary.exp().flatten(1).sum(1) + self.lexical[:nt].exp().sum(1)
+        sums.append(rows)
+        sums.append(self.lexical[nt:].exp().sum(1))
+        return float((torch.cat(sums) - 1).abs().max())
+
+    # ---- the text format -------------------------------------------------------------------
+
+    def to_text(self) -> str:
+        lines = [f"@start {self.start}"]
+        if self.vocab.unk is not None:
+            lines.append(f"@unknown {quote(self.vocab.unk)}")
+        names = self.symbols
+        if not self.root_is_symbol:
+            for a in range(len(self.nonterminals)):
+                if self.root[a] > NEG_INF:
+                    lines.append(f"{self.start} -> {names[a]} {format_prob(self.root[a])}")
+        binary = self.binary.double()
+        lexical = self.lexical.double()
+        for a, lhs in enumerate(names):
+            if a < len(self.nonterminals):
+                for b, c in torch.nonzero(torch.isfinite(binary[a])).tolist():
+                    lines.append(f"{lhs} -> {names[b]} {names[c]} {format_prob(binary[a, b, c])}")
+            for w in torch.nonzero(torch.isfinite(lexical[a])).flatten().tolist():
+                lines.append(f"{lhs} -> {quote(self.vocab.words[w])} {format_prob(lexical[a, w])}")
+        return "\n".join(lines) + "\n"
+
+    def save(self, path: str | Path) -> None:
+        from treewright.safeio import atomic_write_text
+        atomic_write_text(Path(path), self.to_text())
+
+
+def format_prob(logp: torch.Tensor | float) -> str:
+    return repr(math.exp(float(logp)))
+
+
+def quote(word: str) -> str:
+    return '"' + word.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+_TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|[^\s"]+')
+
+
+def _unquote(token: str) -> str:
+    return re.sub(r"\\(.)", r"\1", token[1:-1])
+
+
+def load_grammar(path: str | Path, renormalize: bool = False, tolerance: float = 1e-6) -> Grammar:
+    """Read a grammar file. Raises InputError naming the file and line for a malformed rule, a
+    probability outside [0, 1], or a left-hand side whose probabilities do not sum to one
+    (unless `renormalize`, which rescales each left-hand side instead)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("no such grammar file", path=str(path)) from None
+    except UnicodeDecodeError as err:
+        raise InputError(f"not UTF-8 text (byte {err.start})", path=str(path)) from None
+    return parse_grammar(text, source=str(path), renormalize=renormalize, tolerance=tolerance)
+
+
+def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False,
+                  tolerance: float = 1e-6) -> Grammar:
+    start: str | None = None
+    unk: str | None = None
+    # (lhs, rhs tuple, probability, line); rhs items are ("sym", name) or ("word", w)
+    rules: list[tuple[str, tuple[tuple[str, str], ...], float, int]] = []
+    for lineno, raw in enumerate(text.lstrip("\ufeff").splitlines(), start=1):
+        line = _strip_comment(raw).strip()
+        if not line:
+            continue
+        where = dict(path=source, line=lineno)
+        if line.startswith("@"):
+            parts = line.split(None, 1)
+            if parts[0] == "@start" and len(parts) == 2 and _TOKEN.fullmatch(parts[1]) \
+                    and not parts[1].startswith('"'):
+                start = parts[1]
+            elif parts[0] == "@unknown" and len(parts) == 2 and parts[1].startswith('"') \
+                    and _TOKEN.fullmatch(parts[1]):
+                unk = _unquote(parts[1])
+            else:
+                raise InputError(f"unknown or malformed directive {raw.strip()!r} "
+                                 "(expected '@start SYMBOL' or '@unknown \"WORD\"')", **where)
+            continue
+        tokens = _TOKEN.findall(line)
+        if "".join(tokens) != re.sub(r"\s+", "", line) or len(tokens) < 4 or tokens[1] != "->":
+            raise InputError(f"malformed rule {raw.strip()!r} "
+                             "(expected 'LHS -> RHS probability')", **where)
+        lhs, rhs_tokens, prob_text = tokens[0], tokens[2:-1], tokens[-1]
+        if lhs.startswith('"'):
+            raise InputError("the left-hand side must be a symbol, not a quoted word", **where)
+        try:
+            prob = float(prob_text)
+        except ValueError:
+            raise InputError(f"the last item {prob_text!r} is not a probability", **where) from None
+        if not (0.0 <= prob <= 1.0):  # also rejects NaN
+            raise InputError(f"probability {prob_text} is outside [0, 1]", **where)
+        rhs = tuple(("word", _unquote(t)) if t.startswith('"') else ("sym", t)
+                    for t in rhs_tokens)
+        kinds = [k for k, _ in rhs]
+        if kinds not in (["word"], ["sym", "sym"], ["sym"]):
+            raise InputError("a rule must be binary (A -> B C), lexical (A -> \"w\") or, from the "
+                             "start symbol only, unary (START -> A)", **where)
+        rules.append((lhs, rhs, prob, lineno))
+    if start is None:
+        raise InputError("the grammar declares no start symbol (add a line '@start SYMBOL')",
+                         path=source)
+    if not rules:
+        raise InputError("the grammar has no rules", path=source)
+    return _build(rules, start, unk, source, renormalize, tolerance)
+
+
+def _strip_comment(line: str) -> str:
+    # A '#' inside a quoted terminal is part of the word.
+    out, in_quote, escaped = [], False, False
+    for ch in line:
+        if in_quote:
+            out.append(ch)
+            if escaped:
+                escaped = False
+            elif ch == "\\":
+                escaped = True
+            elif ch == '"':
+                in_quote = False
+        elif ch == "#":
+            break
+        else:
+            in_quote = ch == '"'
+            out.append(ch)
+    return "".join(out)
+
+
+def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
+    first_line: dict[str, int] = {}
+    has_binary, has_lexical, has_unary = set(), set(), set()
+    words: dict[str, None] = {}
+    for lhs, rhs, _, line in rules:
+        first_line.setdefault(lhs, line)
+        if rhs[0][0] == "word":
+            has_lexical.add(lhs)
+            words.setdefault(rhs[0][1])
+        elif len(rhs) == 2:
+            has_binary.add(lhs)
+        else:
+            has_unary.add(lhs)
+            if lhs != start:
+                raise InputError(f"unary rule from {lhs}: only the start symbol {start} may have "
+                                 "unary rules (they give the root distribution)",
+                                 path=source, line=line)
+    root_is_symbol = start not in has_unary
+    if not root_is_symbol and start in has_binary | has_lexical:
+        raise InputError(f"the start symbol {start} has unary rules and other rules; give it "
+                         "either unary rules to the top symbols or ordinary rules, not both",
+                         path=source, line=first_line[start])
+    nonterminals = sorted(has_binary, key=first_line.get)
+    preterminals = sorted(has_lexical - has_binary, key=first_line.get)
+    if root_is_symbol and start not in has_binary:
+        if start in has_lexical:  # a one-word language: the start symbol only emits
+            nonterminals.append(start)
+            preterminals.remove(start)
+        else:
+            raise InputError(f"the start symbol {start} has no rules", path=source)
+    names = nonterminals + preterminals
+    index = {name: i for i, name in enumerate(names)}
+    for lhs, rhs, _, line in rules:
+        for kind, name in rhs:
+            if kind == "sym" and name not in index:
+                raise InputError(f"symbol {name} is used but has no rules of its own",
+                                 path=source, line=line)
+            if kind == "sym" and len(rhs) == 1 and name not in nonterminals:
+                raise InputError(f"the start symbol may only rewrite to nonterminals (symbols "
+                                 f"with binary rules); {name} has none", path=source, line=line)
+    if unk is not None:
+        words.setdefault(unk)
+    vocab = Vocabulary(list(words), unk=unk)
+    nt, s, v = len(nonterminals), len(names), len(vocab)
+    root = torch.zeros(nt, dtype=torch.float64)
+    binary = torch.zeros(nt, s, s, dtype=torch.float64)
+    lexical = torch.zeros(s, v, dtype=torch.float64)
+    seen: dict[tuple, int] = {}
+    for lhs, rhs, prob, line in rules:
+        key = (lhs,) + rhs
+        if key in seen:
+            raise InputError(f"rule repeated (first given on line {seen[key]})",
+                             path=source, line=line)
+        seen[key] = line
+        if rhs[0][0] == "word":
+            lexical[index[lhs], vocab.index[rhs[0][1]]] = prob
+        elif len(rhs) == 2:
+            binary[index[lhs], index[rhs[0][1]], index[rhs[1][1]]] = prob
+        else:
+            root[index[rhs[0][1]]] = prob
+    if root_is_symbol:
+        root[index[start]] = 1.0
+    # Normalisation per left-hand side: nonterminal rows cover binary and lexical rules together.
+    totals = {start: float(root.sum())} if not root_is_symbol else {}
+    for name in names:
+        i = index[name]
+        total = float(lexical[i].sum()) + (float(binary[i].sum()) if i < nt else 0.0)
+        totals[name] = total
+    for name, total in totals.items():
+        if abs(total - 1.0) > tolerance:
+            if not renormalize or total == 0.0:
+                raise InputError(f"the rules of {name} sum to {total!r}, not 1 (pass renormalize "
+                                 "to rescale them)", path=source, line=first_line[name])
+            if name == start and not root_is_symbol:
+                root /= total
+            else:
+                i = index[name]
+                lexical[i] /= total
+                if i < nt:
+                    binary[i] /= total
+    _check_productive(nonterminals, binary, lexical, root, source)
+    return Grammar(nonterminals, preterminals, vocab, root.log(), binary.log(), lexical.log(),
+                   start)
+
+
+def _check_productive(nonterminals, binary, lexical, root, source) -> None:
+    """Refuse a grammar in which no tree from the start symbol reaches words: such a grammar
+    would give every sentence probability zero, which is never what the author meant."""
+    nt, s = len(nonterminals), binary.shape[1]
+    productive = lexical.gt(0).any(1)  # (S,)
+    while True:
+        pairs = productive[:, None] & productive[None, :]
+        grown = productive.clone()
+        grown[:nt] |= (binary.gt(0) & pairs).flatten(1).any(1)
+        if bool((grown == productive).all()):
+            break
+        productive = grown
+    if not bool((root.gt(0) & productive[:nt]).any()):
+        raise InputError("no tree from the start symbol ever reaches a word", path=source)
