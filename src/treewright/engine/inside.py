@@ -50,6 +50,10 @@ class Chart:
         """(NT,) log inside scores of the nonterminals over one span (for samplers/tests)."""
         return self.by_start[start, b, width].log() + self.scale_start[start, b, width]
 
+    def log_term(self, pos: int, b: int) -> Tensor:
+        """(T,) log scores of the preterminals over the word at `pos`."""
+        return self.term[pos, b].log() + self.term_scale[pos, b]
+
 
 def _log_scale(values: Tensor) -> tuple[Tensor, Tensor]:
     """Split `values` (..., K) >= 0 into values / max and log max; all-zero rows get scale -inf."""
