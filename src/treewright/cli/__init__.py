@@ -1,0 +1,55 @@
+"""The `treewright` command line: one small module per command, each a thin layer over the
+library (`add_arguments(parser)` and `run(args) -> int`)."""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from treewright.errors import InputError
+
+# name -> (module, one-line summary). Modules are imported only when their command runs.
+COMMANDS = {
+    "score": ("treewright.cli.score", "log-probability of each sentence under a grammar"),
+    "parse": ("treewright.cli.parse", "the best tree of each sentence"),
+    "sample": ("treewright.cli.sample", "draw sentences with their trees from a grammar"),
+}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="treewright",
+        description="Induce, refine, evaluate and export probabilistic context-free grammars.",
+        epilog="Run 'treewright COMMAND --help' for a command's options and examples.")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name, (module_name, summary) in COMMANDS.items():
+        module = importlib.import_module(module_name)
+        cmd = sub.add_parser(name, help=summary, description=summary,
+                             epilog=getattr(module, "EXAMPLES", None),
+                             formatter_class=argparse.RawDescriptionHelpFormatter)
+        module.add_arguments(cmd)
+        cmd.set_defaults(run=module.run)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return 2
+    try:
+        return int(args.run(args) or 0)
+    except InputError as err:
+        print(f"treewright {args.command}: {err}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print(f"treewright {args.command}: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,5 @@
+import sys
+
+from treewright.cli import main
+
+sys.exit(main())

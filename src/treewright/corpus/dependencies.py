@@ -1,0 +1,198 @@
+"""CoNLL-U sentences as constituency trees: each word's subtree yield becomes a constituent.
+
+Heads are 1-based word indices with 0 for the root, as in the CoNLL-U HEAD column, given as a
+list `heads[i]` for word i+1. In a projective tree every subtree yield is a contiguous span and the
+spans nest, so they form a constituency tree over the words (common practice).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Iterable, Iterator
+
+from conllu.exceptions import ParseException
+from conllu.parser import DEFAULT_FIELDS, parse_line
+
+from treewright.errors import InputError
+from treewright.trees import Tree, tree_from_spans
+
+
+@dataclass
+class DependencySentence:
+    """The syntactic words of one CoNLL-U sentence (multiword-token lines and empty nodes
+    left out), with the line where its block starts."""
+    words: list[str]
+    upos: list[str]
+    heads: list[int]
+    line: int
+
+
+def _children(heads: list[int]) -> list[list[int]]:
+    """children[h] lists the dependents of h (0 = root), in word order."""
+    children: list[list[int]] = [[] for _ in range(len(heads) + 1)]
+    for dep, head in enumerate(heads, start=1):
+        children[head].append(dep)
+    return children
+
+
+def check_tree(heads: list[int]) -> str | None:
+    """None if `heads` is a tree rooted at 0, else a sentence saying what is wrong."""
+    n = len(heads)
+    for dep, head in enumerate(heads, start=1):
+        if not 0 <= head <= n:
+            return f"word {dep} has head {head}, outside 0..{n}"
+        if head == dep:
+            return f"word {dep} is its own head"
+    # Every word must reach the root; follow heads with a visited mark (no recursion).
+    state = [0] * (n + 1)  # 0 unseen, 1 on the current path, 2 reaches the root
+    state[0] = 2
+    for start in range(1, n + 1):
+        path = []
+        node = start
+        while state[node] == 0:
+            state[node] = 1
+            path.append(node)
+            node = heads[node - 1]
+        if state[node] == 1:
+            return f"the heads of words {sorted(path[path.index(node):])} form a cycle"
+        for p in path:
+            state[p] = 2
+    return None
+
+
+def subtree_spans(heads: list[int]) -> list[tuple[int, int]]:
+    """For each word (0-based i), the (min, max+1) of its subtree yield, 0-based half-open."""
+    n = len(heads)
+    lo = list(range(n + 1))
+    hi = list(range(n + 1))
+    children = _children(heads)
+    order, stack = [], [0]
+    while stack:  # pre-order from the root; reversed, children come before their heads
+        node = stack.pop()
+        order.append(node)
+        stack.extend(children[node])
+    for node in reversed(order):
+        for child in children[node]:
+            lo[node] = min(lo[node], lo[child])
+            hi[node] = max(hi[node], hi[child])
+    return [(lo[w] - 1, hi[w]) for w in range(1, n + 1)]
+
+
+def _preorder(children: list[list[int]]) -> list[int]:
+    order, stack = [], [0]
+    while stack:
+        node = stack.pop()
+        order.append(node)
+        stack.extend(reversed(children[node]))
+    return order
+
+
+def nonprojective_arcs(heads: list[int]) -> list[int]:
+    """Dependents (1-based) whose arc is non-projective: some word strictly between head and
+    dependent is not dominated by the head. Empty for a projective tree; the root 0 stands left
+    of every word and dominates all of them."""
+    n = len(heads)
+    children = _children(heads)
+    # Pre-order entry numbers and subtree sizes: h dominates w iff
+    # enter[h] <= enter[w] < enter[h] + size[h].
+    order = _preorder(children)
+    enter = [0] * (n + 1)
+    for rank, node in enumerate(order):
+        enter[node] = rank
+    size = [1] * (n + 1)
+    for node in reversed(order):
+        for child in children[node]:
+            size[node] += size[child]
+    bad = []
+    for dep, head in enumerate(heads, start=1):
+        low, high = enter[head], enter[head] + size[head]
+        if any(not low <= enter[w] < high for w in range(min(head, dep) + 1, max(head, dep))):
+            bad.append(dep)
+    return bad
+
+
+def lift_to_projective(heads: list[int]) -> list[int]:
+    """A projective tree made from `heads` by lifting: while some arc is non-projective, the
+    shortest one is re-attached to its head's head (Nivre and Nilsson 2005, "Pseudo-Projective
+    Dependency Parsing"). Arcs from the root are always projective, so this ends."""
+    heads = list(heads)
+    while True:
+        bad = nonprojective_arcs(heads)
+        if not bad:
+            return heads
+        dep = min(bad, key=lambda d: (abs(heads[d - 1] - d), d))
+        heads[dep - 1] = heads[heads[dep - 1] - 1]
+
+
+def dependency_to_tree(words: list[str], upos: list[str], heads: list[int],
+                       phrase_labels: str = "upos", fixed_label: str = "X") -> Tree:
+    """The constituency tree whose constituents are the subtree yields of a projective tree.
+
+    Each word is a preterminal labeled by its UPOS; each word with dependents also heads a
+    phrase over its yield, labeled by its UPOS (`phrase_labels="upos"`) or `fixed_label`. When
+    several words attach to the root, a `fixed_label` phrase spans the whole sentence.
+    Raises ValueError if `heads` is not projective (the spans would cross).
+    """
+    n = len(words)
+    spans: list[tuple[int, int, str]] = [(i, i + 1, upos[i]) for i in range(n)]
+    for i, (lo, hi) in enumerate(subtree_spans(heads)):
+        if hi - lo > 1:
+            spans.append((lo, hi, upos[i] if phrase_labels == "upos" else fixed_label))
+    if not any(s[0] == 0 and s[1] == n and s[1] - s[0] > 1 for s in spans) and n > 1:
+        spans.append((0, n, fixed_label))
+    return tree_from_spans(words, spans)
+
+
+def iter_conllu_blocks(lines: Iterable[tuple[int, str]], path: str
+                       ) -> Iterator[DependencySentence | InputError]:
+    """Yield each sentence block of a CoNLL-U file, or an InputError for a malformed one.
+
+    Multiword-token lines (ids like 3-4) and empty nodes (ids like 5.1) are left out; the
+    syntactic words remain. Ids must run 1..n in order and heads must form a tree.
+    """
+    block: list[tuple[int, str]] = []
+    for number, text in lines:
+        if text.strip():
+            block.append((number, text))
+        elif block:
+            yield _parse_block(block, path)
+            block = []
+    if block:
+        yield _parse_block(block, path)
+
+
+def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence | InputError:
+    words: list[str] = []
+    upos: list[str] = []
+    heads: list[int] = []
+    head_lines: list[int] = []
+    first = block[0][0]
+    for number, text in block:
+        if text.startswith("#"):
+            continue
+        fields = text.split("\t")
+        if len(fields) != len(DEFAULT_FIELDS):
+            return InputError(f"a CoNLL-U word line needs {len(DEFAULT_FIELDS)} tab-separated "
+                              f"fields, found {len(fields)}", path, number, 1)
+        try:
+            token = parse_line(text, DEFAULT_FIELDS)
+        except ParseException as err:
+            return InputError(f"cannot read this CoNLL-U line ({err})", path, number, 1)
+        ident = token["id"]
+        if not isinstance(ident, int):
+            continue  # a multiword-token range or an empty node: not a syntactic word
+        if ident != len(words) + 1:
+            return InputError(f"word id {ident} out of order (expected {len(words) + 1})",
+                              path, number, 1)
+        if not isinstance(token["head"], int):
+            return InputError(f"word {ident} has no head", path, number, 1)
+        words.append(token["form"])
+        upos.append(token["upos"] or "_")
+        heads.append(token["head"])
+        head_lines.append(number)
+    if not words:
+        return InputError("a CoNLL-U block with comments but no words", path, first, 1)
+    problem = check_tree(heads)
+    if problem is not None:
+        return InputError(f"not a dependency tree: {problem}", path, first, 1)
+    return DependencySentence(words, upos, heads, first)

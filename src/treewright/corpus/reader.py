@@ -1,0 +1,237 @@
+"""One interface for every corpus kind: `read_corpus` for a file that fits in memory,
+`CorpusStream` for one that does not.
+
+    corpus = read_corpus("train.conllu", options=ReadOptions(max_length=40))
+    print(corpus.report.format())
+
+    stream = CorpusStream("huge.txt", fmt="text")
+    for chunk in stream.chunks(10_000):   # never more than one chunk in memory
+        ...
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections import Counter
+from dataclasses import replace
+from typing import Iterator
+
+from treewright.errors import InputError
+from treewright.trees import Tree
+from treewright.vocab import Vocabulary
+from treewright.corpus.brackets import clean_tree, iter_bracket_records, preterminal_tags
+from treewright.corpus.dependencies import (dependency_to_tree, iter_conllu_blocks,
+                                            lift_to_projective, nonprojective_arcs)
+from treewright.corpus.lines import check_readable, iter_lines
+from treewright.corpus.types import Corpus, ReadOptions, ReadReport, Sentence, SkippedRecord
+
+FORMATS = ("text", "brackets", "conllu")
+_CONLLU_EXTENSIONS = (".conllu", ".conll")
+_DIGIT = re.compile(r"\d")
+
+
+def _is_unknown(token: str, vocabulary: Vocabulary) -> bool:
+    """True if `token` is encoded as the unknown token (a literal UNK in the data included)."""
+    index = vocabulary.index.get(token)
+    return index is None or index == vocabulary.unk_id
+
+
+def detect_format(path: str | os.PathLike) -> str:
+    """'conllu' for a .conllu/.conll file, 'brackets' if the first non-space character is '(',
+    else 'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
+    name = check_readable(path)
+    if name.lower().endswith(_CONLLU_EXTENSIONS):
+        return "conllu"
+    for _, text in iter_lines(name):
+        stripped = text.lstrip()
+        if stripped:
+            return "brackets" if stripped.startswith("(") else "text"
+    return "text"
+
+
+class CorpusStream:
+    """Sentences of one file, read lazily: iterate for `Sentence`s, or use `chunks(size)`.
+
+    Each pass starts a fresh `report`, complete once the pass ends. Too-long sentences are kept
+    in `set_aside` (and counted); everything else unused is counted and listed in the report.
+    `fmt` is "auto" (see `detect_format`), "text", "brackets" or "conllu".
+    """
+
+    def __init__(self, path: str | os.PathLike, fmt: str = "auto",
+                 options: ReadOptions | None = None):
+        self.options = options if options is not None else ReadOptions()
+        self.options.validate()
+        self.path = check_readable(path)
+        if fmt == "auto":
+            fmt = detect_format(self.path)
+        if fmt not in FORMATS:
+            raise ValueError(f"fmt must be 'auto' or one of {FORMATS}, got {fmt!r}")
+        self.fmt = fmt
+        self.report = ReadReport(sources=[self.path], fmt=fmt)
+        self.set_aside: list[Sentence] = []
+
+    def __iter__(self) -> Iterator[Sentence]:
+        self.report = ReadReport(sources=[self.path], fmt=self.fmt)
+        self.set_aside = []
+        vocabulary = self.options.vocabulary
+        unknown = 0
+        records = {"text": self._text, "brackets": self._brackets, "conllu": self._conllu}
+        for sentence in records[self.fmt]():
+            if sentence is None:
+                continue
+            self.report.sentences_used += 1
+            self.report.tokens += len(sentence.tokens)
+            if vocabulary is not None:
+                unknown += sum(_is_unknown(t, vocabulary) for t in sentence.tokens)
+            yield sentence
+        if vocabulary is not None:
+            self.report.vocab_size = len(vocabulary)
+            self.report.unk_rate = unknown / self.report.tokens if self.report.tokens else 0.0
+
+    def chunks(self, size: int) -> Iterator[list[Sentence]]:
+        """The used sentences in lists of at most `size`, in file order."""
+        if size < 1:
+            raise ValueError(f"chunk size must be >= 1, got {size}")
+        chunk: list[Sentence] = []
+        for sentence in self:
+            chunk.append(sentence)
+            if len(chunk) == size:
+                yield chunk
+                chunk = []
+        if chunk:
+            yield chunk
+
+    def count_tokens(self) -> Counter:
+        """Token counts over the used sentences (one pass), for `Vocabulary.from_counts`."""
+        counts: Counter = Counter()
+        for sentence in self:
+            counts.update(sentence.tokens)
+        return counts
+
+    # -- one generator per format; each yields a Sentence or None (counted as skipped) --
+
+    def _skip(self, reason: str, line: int, column: int | None = None,
+              message: str = "") -> None:
+        self.report.add_skip(SkippedRecord(reason, self.path, line, column, message))
+
+    def _bad(self, error: InputError) -> None:
+        if not self.options.skip_bad:
+            raise error
+        self._skip("malformed", error.line or 0, error.column, error.reason)
+
+    def _normalise(self, word: str) -> str:
+        if self.options.lowercase:
+            word = word.lower()
+        if self.options.normalize_digits:
+            word = _DIGIT.sub("0", word)
+        return word
+
+    def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
+                heads: list[int] | None = None) -> Sentence | None:
+        """Apply tag mode and the length limits; count the sentence if it goes unused."""
+        if self.options.tag_mode:
+            if tags is None:
+                self._skip("no_tags", line, message="some word has no preterminal tag")
+                return None
+            tokens = list(tags)
+        else:
+            tokens = [self._normalise(w) for w in words]
+        sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
+                            line=line, heads=heads)
+        n = len(tokens)
+        if n == 0:
+            self._skip("empty", line)
+            return None
+        if n < self.options.min_length:
+            self._skip("too_short", line, message=f"{n} tokens < min_length "
+                       f"{self.options.min_length}")
+            return None
+        if self.options.max_length is not None and n > self.options.max_length:
+            self._skip("too_long", line, message=f"{n} tokens > max_length "
+                       f"{self.options.max_length}")
+            self.set_aside.append(sentence)
+            return None
+        return sentence
+
+    def _text(self) -> Iterator[Sentence | None]:
+        punct = self.options.punct_words
+        for number, text in iter_lines(self.path):
+            self.report.sentences_read += 1
+            words = [w for w in text.split() if w not in punct]
+            tags = list(words) if self.options.tag_mode else None
+            yield self._finish(words, tags, None, number)
+
+    def _brackets(self) -> Iterator[Sentence | None]:
+        for record in iter_bracket_records(iter_lines(self.path), self.path):
+            self.report.sentences_read += 1
+            if record.error is not None:
+                self._bad(record.error)
+                yield None
+                continue
+            tree = clean_tree(record.tree, self.options)
+            if tree is None:
+                self._skip("empty", record.line, record.column, "nothing left after removals")
+                yield None
+                continue
+            yield self._finish(tree.leaves(), preterminal_tags(tree), tree, record.line)
+
+    def _conllu(self) -> Iterator[Sentence | None]:
+        options = self.options
+        for block in iter_conllu_blocks(iter_lines(self.path), self.path):
+            self.report.sentences_read += 1
+            if isinstance(block, InputError):
+                self._bad(block)
+                yield None
+                continue
+            heads = block.heads
+            if nonprojective_arcs(heads):
+                self.report.nonprojective += 1
+                if options.nonprojective == "skip":
+                    self._skip("nonprojective", block.line)
+                    yield None
+                    continue
+                heads = lift_to_projective(heads)
+                self.report.projectivised += 1
+            tree = dependency_to_tree(block.words, block.upos, heads, options.dependency_labels,
+                                      options.fixed_label)
+            yield self._finish(block.words, block.upos, tree, block.line, heads=block.heads)
+
+
+def read_corpus(path: str | os.PathLike, fmt: str = "auto",
+                options: ReadOptions | None = None) -> Corpus:
+    """Read a whole corpus file into memory, with its vocabulary and report.
+
+    fmt: "auto" (default; see `detect_format`), "text", "brackets" or "conllu".
+    The vocabulary is `options.vocabulary` if given, else built from the used sentences'
+    tokens with `min_count` and `max_vocab`. Raises InputError for a missing, empty or
+    non-UTF-8 file, a malformed record (unless `skip_bad`), or a file with no usable sentence.
+    """
+    stream = CorpusStream(path, fmt, options)
+    sentences = list(stream)
+    report = stream.report
+    if not sentences:
+        detail = ", ".join(f"{count} {reason}" for reason, count
+                           in sorted(report.skipped_by_reason.items())) or "none"
+        raise InputError(f"no usable sentence ({report.sentences_read} read; skipped: "
+                         f"{detail})", path=stream.path)
+    vocabulary = stream.options.vocabulary
+    if vocabulary is None:
+        counts: Counter = Counter()
+        for sentence in sentences:
+            counts.update(sentence.tokens)
+        vocabulary = Vocabulary.from_counts(counts, min_count=stream.options.min_count,
+                                            max_size=stream.options.max_vocab)
+        unknown = sum(c for w, c in counts.items() if _is_unknown(w, vocabulary))
+        report.vocab_size = len(vocabulary)
+        report.unk_rate = unknown / report.tokens
+    return Corpus(sentences=sentences, vocabulary=vocabulary, report=report,
+                  set_aside=stream.set_aside)
+
+
+def write_skip_log(report: ReadReport, path: str | os.PathLike) -> int:
+    """Write one line per skipped record of `report` to `path` (UTF-8); returns the count."""
+    with open(path, "w", encoding="utf-8") as handle:
+        for record in report.skipped:
+            handle.write(record.format() + "\n")
+    return len(report.skipped)

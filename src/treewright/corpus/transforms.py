@@ -1,0 +1,138 @@
+"""Tree transforms with exact inverses: binarization (with markovization) and unary collapsing.
+
+    unbinarize(binarize(t, ...)) == t        expand_unary(collapse_unary(t, ...)) == t
+
+Reserved characters (chosen because no treebank tag set uses them; a label that already holds one
+makes the transform raise ValueError instead of producing a tree it could not undo):
+
+- `UNARY_SEP` "¦" (U+00A6, broken bar) joins a collapsed unary chain: (S (VP ...)) -> (S¦VP ...).
+- `PARENT_SEP` "ˆ" (U+02C6, modifier circumflex) adds ancestors for vertical markovization
+  (parent annotation, Johnson 1998, "PCFG Models of Linguistic Tree Representations"):
+  NP under S becomes NPˆS at v=2, NPˆSˆROOT at v=3.
+- `BIN_MARK` "¤" (U+00A4, currency sign) starts every intermediate node made by binarization,
+  followed by the (annotated) parent label and its horizontal context: "¤NP¤DT¤JJ". Undoing
+  only needs the mark; the context is there to split (or merge) grammar symbols.
+
+All transforms are iterative, so trees thousands of levels deep are fine.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+from treewright.trees import Child, Tree
+from treewright.corpus.walk import rebuild
+
+UNARY_SEP = "\u00a6"
+PARENT_SEP = "\u02c6"
+BIN_MARK = "\u00a4"
+
+
+def _check_labels(tree: Tree, reserved: str, action: str) -> None:
+    for node in tree.subtrees():
+        if any(ch in node.label for ch in reserved):
+            raise ValueError(f"cannot {action}: label {node.label!r} already contains a reserved "
+                             f"character ({', '.join(repr(c) for c in reserved)})")
+
+
+def _child_label(child: Child) -> str:
+    # A word child adds an empty entry to the context: words are not grammar symbols.
+    return "" if isinstance(child, str) else child.label
+
+
+def binarize(tree: Tree, factor: Literal["right", "left"] = "right",
+             horizontal: int | None = None, vertical: int = 1) -> Tree:
+    """A binary-branching copy of `tree` (nodes with more than two children are factored).
+
+    factor: "right" nests new nodes to the right, X -> c0 (¤X c1 ... ck); "left" to the left,
+        X -> (¤X c0 ... ck-1) ck.
+    horizontal: the horizontal markovization order h, the number of the original children's
+        labels an intermediate node remembers (the first h it covers when right-factored, the
+        last h when left-factored); None (default) remembers all of them, 0 none.
+    vertical: the vertical order v; every phrase below the root (preterminals excluded) is
+        annotated with its v-1 nearest ancestors' labels. 1 (default) adds nothing.
+    """
+    if factor not in ("right", "left"):
+        raise ValueError(f"factor must be 'right' or 'left', got {factor!r}")
+    if horizontal is not None and horizontal < 0:
+        raise ValueError(f"horizontal must be >= 0 or None, got {horizontal}")
+    if vertical < 1:
+        raise ValueError(f"vertical must be >= 1, got {vertical}")
+    _check_labels(tree, PARENT_SEP + BIN_MARK, "binarize")
+
+    annotated: dict[int, str] = {}
+    stack: list[tuple[Tree, tuple[str, ...]]] = [(tree, ())]
+    while stack:  # top-down: each node learns its ancestors' original labels
+        node, ancestors = stack.pop()
+        label = node.label
+        if ancestors and not node.is_preterminal():
+            label = PARENT_SEP.join((label,) + ancestors[:vertical - 1])
+        annotated[id(node)] = label
+        below = (node.label,) + ancestors
+        stack.extend((c, below) for c in node.children if isinstance(c, Tree))
+
+    def context(base: str, labels: list[str]) -> str:
+        if horizontal is not None:
+            labels = labels[:horizontal] if factor == "right" else labels[len(labels) - horizontal:]
+        return BIN_MARK.join([BIN_MARK + base] + labels)
+
+    def visit(node: Tree, kids: list[Child]) -> list[Child]:
+        label = annotated[id(node)]
+        if len(kids) <= 2:
+            return [Tree(label, kids)]
+        names = [_child_label(c) for c in node.children]
+        if factor == "right":
+            inner = Tree(context(label, names[-2:]), kids[-2:])
+            for i in range(len(kids) - 3, 0, -1):
+                inner = Tree(context(label, names[i:]), [kids[i], inner])
+            return [Tree(label, [kids[0], inner])]
+        inner = Tree(context(label, names[:2]), kids[:2])
+        for i in range(2, len(kids) - 1):
+            inner = Tree(context(label, names[:i + 1]), [inner, kids[i]])
+        return [Tree(label, [inner, kids[-1]])]
+
+    return rebuild(tree, visit)[0]  # type: ignore[return-value]
+
+
+def unbinarize(tree: Tree) -> Tree:
+    """Undo `binarize`: splice out every node whose label starts with BIN_MARK and drop the
+    parent annotation (everything from the first PARENT_SEP)."""
+    if tree.label.startswith(BIN_MARK):
+        raise ValueError(f"the root {tree.label!r} is an intermediate binarization node")
+
+    def visit(node: Tree, kids: list[Child]) -> list[Child]:
+        if node.label.startswith(BIN_MARK):
+            return kids
+        return [Tree(node.label.split(PARENT_SEP, 1)[0], kids)]
+
+    return rebuild(tree, visit)[0]  # type: ignore[return-value]
+
+
+def collapse_unary(tree: Tree, keep_preterminals: bool = True) -> Tree:
+    """Join every chain of single-child phrases into one node labeled "A¦B¦C".
+
+    keep_preterminals: True (default) leaves a preterminal out of the chain, so (NP (N ferry))
+    stays as it is and tags remain visible; False gives (NP¦N ferry).
+    """
+    _check_labels(tree, UNARY_SEP, "collapse unary chains")
+
+    def visit(node: Tree, kids: list[Child]) -> list[Child]:
+        if len(kids) == 1 and isinstance(kids[0], Tree):
+            child = kids[0]
+            if not (keep_preterminals and child.is_preterminal()):
+                return [Tree(node.label + UNARY_SEP + child.label, child.children)]
+        return [Tree(node.label, kids)]
+
+    return rebuild(tree, visit)[0]  # type: ignore[return-value]
+
+
+def expand_unary(tree: Tree) -> Tree:
+    """Undo `collapse_unary`: a label "A¦B¦C" becomes the chain A -> B -> C."""
+    def visit(node: Tree, kids: list[Child]) -> list[Child]:
+        names = node.label.split(UNARY_SEP)
+        out = Tree(names[-1], kids)
+        for name in reversed(names[:-1]):
+            out = Tree(name, [out])
+        return [out]
+
+    return rebuild(tree, visit)[0]  # type: ignore[return-value]
