@@ -1,0 +1,32 @@
+"""Corpora: raw text, bracketed trees and CoNLL-U read into one `Sentence` type, tree
+transforms with exact inverses, and seeded splits and length-bucketed batches.
+
+Entry points: `read_corpus` (whole file) and `CorpusStream` (chunks of a file larger than memory),
+both taking `ReadOptions`; `Corpus.report` (a `ReadReport`) says what was used and what was not.
+"""
+
+from treewright.corpus.batching import Split, cubic_cost, length_batches, split_indices
+from treewright.corpus.brackets import (BracketRecord, clean_tree, iter_bracket_records,
+                                        parse_brackets, preterminal_tags, strip_label)
+from treewright.corpus.dependencies import (DependencySentence, check_tree, dependency_to_tree,
+                                            iter_conllu_blocks, lift_to_projective,
+                                            nonprojective_arcs, subtree_spans)
+from treewright.corpus.lines import iter_lines
+from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, read_corpus,
+                                      write_skip_log)
+from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binarize,
+                                          collapse_unary, expand_unary, unbinarize)
+from treewright.corpus.types import (PTB_PUNCT_LABELS, REASONS, Corpus, ReadOptions, ReadReport,
+                                     Sentence, SkippedRecord)
+from treewright.corpus.walk import depth, trees_equal
+
+__all__ = [
+    "BIN_MARK", "BracketRecord", "Corpus", "CorpusStream", "DependencySentence", "FORMATS",
+    "PARENT_SEP", "PTB_PUNCT_LABELS", "REASONS", "ReadOptions", "ReadReport", "Sentence",
+    "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
+    "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format",
+    "expand_unary", "iter_bracket_records", "iter_conllu_blocks", "iter_lines",
+    "length_batches", "lift_to_projective", "nonprojective_arcs", "parse_brackets",
+    "preterminal_tags", "read_corpus", "split_indices", "strip_label", "subtree_spans",
+    "trees_equal", "unbinarize", "write_skip_log",
+]
