@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import random
 import statistics
-from dataclasses import asdict, dataclass, field, fields
-from typing import Callable, Sequence, Union
+from dataclasses import asdict, dataclass, fields
+from typing import Sequence, Union
 
 from treewright.errors import InputError
 from treewright.evaluation.spans import (Bracketing, LabeledSpan, Span, binary_upper_bound,
