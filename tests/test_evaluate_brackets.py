@@ -339,3 +339,13 @@ def test_output_dict_and_table():
     assert model_row.split()[1] == "53.3"  # 8/15 as a percentage
     for title in ("left-branching", "right-branching", "random binary", "binary upper bound", "Conventions"):
         assert title in table
+
+
+def test_evaluation_imports_no_torch_and_no_reference_libraries():
+    # Layering rule of the project: evaluation sits below training and the CLI and uses only numpy.
+    import subprocess
+    import sys
+    code = ("import sys, treewright.evaluation; "
+            "print(sorted(m for m in ('torch', 'sklearn', 'nltk', 'treewright.cli') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
