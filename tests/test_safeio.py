@@ -193,7 +193,7 @@ class WritesMarker:
         self.marker = str(marker)
 
     def __reduce__(self):
-        return (exec, (f"open({self.marker!r}, 'w').write('code ran')",))
+        return (exec, (f"import pathlib; pathlib.Path({self.marker!r}).write_text('code ran')",))
 
 
 def test_pickle_payload_files_are_refused_and_run_no_code(tmp_path):
