@@ -185,7 +185,9 @@ class ConfigError(InputError):
 def load_config(cls: type[T], path: str | Path | None = None,
                 overrides: Sequence[str] = ()) -> T:
     """Build a `cls` instance from its defaults, the YAML file at `path` (if any) and dotted
-    `key=value` overrides (later ones win), checked as a whole.
+    `key=value` overrides (later ones win), checked as a whole. An override replaces the whole
+    value at its key (`train={lr: 0.1}` replaces the file's train section; `train.lr=0.1`
+    changes one option).
 
     Raises ConfigError listing every problem, or InputError when the file cannot be read or is
     not YAML.
@@ -314,7 +316,8 @@ def _walk_nodes(node: yaml.Node | None, key: str, source: str, collected: _Colle
 
 
 def _note_origins(value: Any, key: str, source: str, collected: _Collected) -> None:
-    collected.origins[key] = (source, None)
+    if key:
+        collected.origins[key] = (source, None)
     if isinstance(value, dict):
         for name, item in value.items():
             _note_origins(item, f"{key}.{name}" if key else str(name), source, collected)
