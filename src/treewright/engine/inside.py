@@ -7,22 +7,29 @@ written by hand inside a `torch.autograd.Function`; `engine.reference` gives the
 plain autograd and the tests hold the two together.
 
 Why the layout looks the way it does (it is what makes the pass run near the matrix-multiply
-throughput of a small CPU):
+throughput of a small CPU; `scripts/bench_inside.py` measures it):
 
 - Cells hold *scaled probabilities*: each cell's vector over symbols is divided by its maximum,
   and the log of that maximum is kept beside it as the cell's scale. Sums over split points and
   rules are then plain matrix products, with no exp/log per element. The scales are constants for
-  the gradient, which is exact because they cancel in log Z.
+  the gradient, which is exact because they cancel in log Z. The nonterminal and preterminal
+  vectors of one word share one scale, so every split point of a span (whatever the kind of its
+  children) has its weight read from one strided slice of the scale tables.
 - Two copies of the chart, `by_start[i, b, w]` = cell (i, i+w) and `by_end[j, b, N-w]` = cell
   (j-w, j), make every read for one span width a strided slice: for width w the left children of
   all spans are `by_start[0:P, :, u]` and the right children `by_end[w:N+1, :, N-w+u]`. Putting
   the span dimension first lets span x batch merge into one batch dimension without a copy.
 - Children are split into blocks by kind. Nonterminal pairs go through one batched matrix product
-  over split points and one product with the rules reshaped to (NT, NT*NT). A preterminal child
+  over split points and one product with the rules reshaped to (NT*NT, NT). A preterminal child
   occurs only at a sentence edge of the span (its width is one), so its rules are folded into
-  per-position (NT, NT) matrices once per batch. Preterminal pairs occur only at width two.
+  per-position matrices once per batch, and each span needs one row-vector product per edge.
+- The nonterminal axis is padded with zero symbols to a multiple of 8 (30 -> 32): the matrix
+  kernels of the CPU run markedly faster on such sizes, and the zero rows change no sum.
+- The backward keeps what the forward computed (split sums, split weights, cell maxima) and
+  gathers the per-position rule gradients into two buffers, folded by one product at the end.
 
-Shapes: B sentences, N = longest length, NT nonterminals, T preterminals, P = N - w + 1 spans.
+Shapes: B sentences, N = longest length, NT nonterminals, T preterminals, P = N - w + 1 spans,
+Q = NT padded.
 """
 
 from __future__ import annotations
@@ -33,279 +40,298 @@ import torch
 from torch import Tensor
 
 NEG_INF = float("-inf")
+PAD_MULTIPLE = 8  # see the module docstring: why the nonterminal axis is padded
 
 
 @dataclass
 class Chart:
-    """The filled inside chart of one batch (scaled probabilities and their log scales)."""
-    by_start: Tensor    # (N+1, B, N+1, NT)  cell (i, i+w) at [i, :, w]
-    by_end: Tensor      # (N+1, B, N+1, NT)  cell (j-w, j) at [j, :, N-w]
+    """The filled inside chart of one batch (scaled probabilities and their log scales).
+
+    The nonterminal axis of `by_start`/`by_end` is padded to Q >= NT with zero symbols; use
+    `log_inside` (which drops the padding) rather than reading the tensors directly.
+    """
+    by_start: Tensor    # (N+1, B, N+1, Q)  cell (i, i+w) at [i, :, w]
+    by_end: Tensor      # (N+1, B, N+1, Q)  cell (j-w, j) at [j, :, N-w]
     scale_start: Tensor  # (N+1, B, N+1)
     scale_end: Tensor    # (N+1, B, N+1)
     term: Tensor        # (N, B, T) scaled preterminal probabilities
-    term_scale: Tensor  # (N, B)
+    term_scale: Tensor  # (N, B) log scale of each word (shared by its width-one cells)
     min_width: int      # narrowest nonterminal span: 1 if nonterminals emit words, else 2
+    num_nt: int         # NT, the unpadded number of nonterminals
 
     def log_inside(self, start: int, width: int, b: int) -> Tensor:
         """(NT,) log inside scores of the nonterminals over one span (for samplers/tests)."""
-        return self.by_start[start, b, width].log() + self.scale_start[start, b, width]
+        return self.by_start[start, b, width, :self.num_nt].log() + self.scale_start[start, b, width]
 
     def log_term(self, pos: int, b: int) -> Tensor:
         """(T,) log scores of the preterminals over the word at `pos`."""
         return self.term[pos, b].log() + self.term_scale[pos, b]
 
 
-def _log_scale(values: Tensor) -> tuple[Tensor, Tensor]:
-    """Split `values` (..., K) >= 0 into values / max and log max; all-zero rows get scale -inf."""
-    peak = values.amax(-1)
-    positive = peak > 0
-    safe = torch.where(positive, peak, torch.ones_like(peak))
-    return values / safe.unsqueeze(-1), torch.where(positive, safe.log(), NEG_INF)
+@dataclass
+class _Rules:
+    """Probability-space rule blocks, nonterminal axes padded to Q (zeros)."""
+    nn: Tensor      # (Q*Q, Q)      [(B, C), A] = p(A -> B C), both children nonterminal
+    right: Tensor   # (T, (Q+T)*Q)  [c, (X, A)] = p(A -> X c), X a nonterminal or a preterminal
+    left: Tensor    # (T, Q*Q)      [b, (C, A)] = p(A -> b C)
 
 
-def _finite(x: Tensor) -> Tensor:
-    """-inf -> 0, so that exp(a - max) never becomes exp(-inf + inf)."""
-    return torch.where(torch.isfinite(x), x, torch.zeros_like(x))
+def _padded(nt: int) -> int:
+    return -(-nt // PAD_MULTIPLE) * PAD_MULTIPLE
 
 
-def _combine(parts: list[tuple[Tensor, Tensor]], pot: Tensor | None):
-    """Sum (value, log scale) parts of shape ((P, B, NT), (P, B)) into one scaled cell vector.
-
-    Returns (scaled values, log scale, [weight of each part]) where weight_k = exp(scale_k -
-    scale), the factor by which part k's values entered the result (the backward needs it).
-    """
-    top = torch.stack([s for _, s in parts]).amax(0)
-    top_f = _finite(top)
-    total = None
-    for values, scale in parts:
-        term = values * torch.exp(scale - top_f).unsqueeze(-1)
-        total = term if total is None else total + term
-    scaled, peak = _log_scale(total)
-    scale = top_f + peak
-    scale = torch.where(torch.isfinite(top), scale, NEG_INF)
-    if pot is not None:
-        scale = scale + pot
-    alive = torch.isfinite(scale)
-    weights = [torch.where(alive, torch.exp(s + (pot if pot is not None else 0) - _finite(scale)),
-                           torch.zeros_like(scale)) for _, s in parts]
-    return scaled, scale, weights
-
-
-def _rule_blocks(binary: Tensor, nt: int):
-    """Probability-space rule blocks. binary: (NT, S, S) log-probs."""
+def _rule_blocks(binary: Tensor, q: int) -> _Rules:
+    """binary: (NT, S, S) log-probs -> the padded probability blocks used by the passes."""
+    nt, s, _ = binary.shape
+    t = s - nt
     rules = binary.exp()
-    return (rules[:, :nt, :nt].reshape(nt, nt * nt),   # (NT, NT*NT)   A -> B C, both nonterminal
-            rules[:, :nt, nt:],                         # (NT, NT, T)   A -> B c
-            rules[:, nt:, :nt],                         # (NT, T, NT)   A -> b C
-            rules[:, nt:, nt:])                         # (NT, T, T)    A -> b c
+    nn = binary.new_zeros(q, q, q)
+    nn[:nt, :nt, :nt] = rules[:, :nt, :nt].permute(1, 2, 0)
+    right = binary.new_zeros(t, q + t, q)
+    right[:, :nt, :nt] = rules[:, :nt, nt:].permute(2, 1, 0)
+    right[:, q:, :nt] = rules[:, nt:, nt:].permute(2, 1, 0)
+    left = binary.new_zeros(t, q, q)
+    left[:, :nt, :nt] = rules[:, nt:, :nt].permute(1, 2, 0)
+    return _Rules(nn.view(q * q, q), right.view(t, (q + t) * q), left.view(t, q * q))
 
 
-def inside_chart(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None = None,
-                 span_pot: Tensor | None = None, keep: bool = False):
-    """Fill the inside chart for a batch. See `log_partition` for the argument shapes.
+@dataclass
+class _Saved:
+    """What the forward keeps for the backward, per width w (index w - 2)."""
+    split_sums: list   # (P*B, Q*Q) weighted sums over nonterminal splits, or None
+    weights: list      # (P, B, w-1) weight of split u (at u-1) relative to the span's top
+    peaks: list        # (P*B,) the maximum each cell was divided by
+    right_mats: Tensor  # (N, B, Q+T, Q) [pos][X, A] = sum_c p(A -> X c) t[pos, c]
+    left_mats: Tensor   # (N, B, Q, Q)   [pos][C, A] = sum_b p(A -> b C) t[pos, b]
 
-    Returns the Chart, and when `keep` also what the backward needs (split sums per width).
-    """
+
+def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
+          span_pot: Tensor | None, keep: bool):
+    """Fill the inside chart; with `keep` also return the `_Saved` state for the backward."""
     B, N, T = terminal.shape
     NT = binary.shape[0]
-    dtype = terminal.dtype
-    r_nn, r_np, r_pn, r_pp = _rule_blocks(binary, NT)
+    Q = _padded(NT)
+    rules = _rule_blocks(binary, Q)
     min_w = 1 if nt_terminal is not None else 2
 
-    term_sc, term_scale = _log_scale(terminal.transpose(0, 1).exp())  # (N, B, T), (N, B)
-    term_sc = term_sc.contiguous()
-    # Preterminal children folded into per-position matrices: right_mats[pos, b][A, B] =
-    # sum_c p(A -> B c) t[pos, c]; left_mats[pos, b][A, C] = sum_b p(A -> b C) t[pos, b].
-    right_mats = (term_sc.view(N * B, T) @ r_np.permute(2, 0, 1).reshape(T, NT * NT)
-                  ).view(N, B, NT, NT)
-    left_mats = (term_sc.view(N * B, T) @ r_pn.permute(1, 0, 2).reshape(T, NT * NT)
-                 ).view(N, B, NT, NT)
+    # One scale per word, shared by its preterminal and nonterminal vectors.
+    word_scale = terminal.amax(-1)                                   # (B, N)
+    if nt_terminal is not None:
+        word_scale = torch.maximum(word_scale, nt_terminal.amax(-1))
+    shift = word_scale.nan_to_num(neginf=0.0).unsqueeze(-1)          # finite, for the exp
+    term_sc = (terminal - shift).exp_().transpose(0, 1).contiguous()  # (N, B, T)
+    term_scale = word_scale.t().contiguous()                         # (N, B)
 
-    by_start = terminal.new_zeros(N + 1, B, N + 1, NT)
-    by_end = terminal.new_zeros(N + 1, B, N + 1, NT)
+    # Preterminal children folded into per-position matrices (row-vector form, see _Rules).
+    flat = term_sc.view(N * B, T)
+    right_mats = (flat @ rules.right).view(N, B, Q + T, Q)
+    left_mats = (flat @ rules.left).view(N, B, Q, Q)
+
+    by_start = terminal.new_zeros(N + 1, B, N + 1, Q)
+    by_end = terminal.new_zeros(N + 1, B, N + 1, Q)
     scale_start = terminal.new_full((N + 1, B, N + 1), NEG_INF)
     scale_end = terminal.new_full((N + 1, B, N + 1), NEG_INF)
+    scale_start[0:N, :, 1] = term_scale
+    scale_end[1:N + 1, :, N - 1] = term_scale
     if nt_terminal is not None:
-        cells, sc = _log_scale(nt_terminal.transpose(0, 1).exp())  # (N, B, NT)
-        by_start[0:N, :, 1] = cells
-        by_end[1:N + 1, :, N - 1] = cells
-        scale_start[0:N, :, 1] = sc
-        scale_end[1:N + 1, :, N - 1] = sc
+        cells = (nt_terminal - shift).exp_().transpose(0, 1)         # (N, B, NT)
+        by_start[0:N, :, 1, :NT] = cells
+        by_end[1:N + 1, :, N - 1, :NT] = cells
 
-    saved = []
+    saved = _Saved([], [], [], right_mats, left_mats)
     for w in range(2, N + 1):
         P = N - w + 1
-        parts = []
+        PB = P * B
+        # Split u puts cell (i, i+u) left of cell (i+u, i+w); its weight is the product of the
+        # two children's scales relative to the largest product over the span's splits.
+        pair = scale_start[0:P, :, 1:w] + scale_end[w:N + 1, :, N - w + 1:N]   # (P, B, w-1)
+        top = pair.amax(-1).nan_to_num_(neginf=0.0)                           # (P, B)
+        weight = (pair - top.unsqueeze(-1)).exp_()
+        total = None
         split_sums = None
         lo, hi = min_w, w - min_w  # left widths whose both children are nonterminals
         if hi >= lo:
             K = hi - lo + 1
-            left = by_start[0:P, :, lo:hi + 1]                    # (P, B, K, NT)
-            right = by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]  # (P, B, K, NT)
-            pair_scale = scale_start[0:P, :, lo:hi + 1] + scale_end[w:N + 1, :, N - w + lo:N - w + hi + 1]
-            top = pair_scale.amax(-1)                              # (P, B)
-            weight = torch.exp(pair_scale - _finite(top).unsqueeze(-1))  # (P, B, K)
-            left_w = (left * weight.unsqueeze(-1)).view(P * B, K, NT)
-            split_sums = torch.bmm(left_w.transpose(1, 2), right.reshape(P * B, K, NT))
-            values = (split_sums.view(P * B, NT * NT) @ r_nn.t()).view(P, B, NT)
-            parts.append((values, top))
+            left = by_start[0:P, :, lo:hi + 1] * weight[..., lo - 1:hi, None]  # (P, B, K, Q)
+            right = by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]              # (P, B, K, Q)
+            split_sums = torch.bmm(left.view(PB, K, Q).transpose(1, 2),
+                                   right.reshape(PB, K, Q)).view(PB, Q * Q)
+            total = (split_sums @ rules.nn).view(PB, 1, Q)
         if w - 1 >= min_w:
-            left = by_start[0:P, :, w - 1]                         # (P, B, NT), right child c
-            values = torch.bmm(right_mats[w - 1:N].reshape(P * B, NT, NT),
-                               left.reshape(P * B, NT, 1)).view(P, B, NT)
-            parts.append((values, scale_start[0:P, :, w - 1] + term_scale[w - 1:N]))
-            right = by_end[w:N + 1, :, N - w + 1]                  # (P, B, NT), left child b
-            values = torch.bmm(left_mats[0:P].reshape(P * B, NT, NT),
-                               right.reshape(P * B, NT, 1)).view(P, B, NT)
-            parts.append((values, term_scale[0:P] + scale_end[w:N + 1, :, N - w + 1]))
+            # A -> B c: left child (i, i+w-1), preterminal c over word i+w-1.
+            vec = by_start[0:P, :, w - 1] * weight[..., w - 2:w - 1]            # (P, B, Q)
+            mats = right_mats[w - 1:N, :, :Q].reshape(PB, Q, Q)
+            total = _add_rowvec(total, vec.view(PB, 1, Q), mats)
+            # A -> b C: preterminal b over word i, right child (i+1, i+w).
+            vec = by_end[w:N + 1, :, N - w + 1] * weight[..., 0:1]
+            total = _add_rowvec(total, vec.view(PB, 1, Q), left_mats[0:P].view(PB, Q, Q))
         if w == 2:
-            pairs = term_sc[0:P, :, :, None] * term_sc[1:N, :, None, :]  # (P, B, T, T)
-            values = (pairs.view(P * B, T * T) @ r_pp.reshape(NT, T * T).t()).view(P, B, NT)
-            parts.append((values, term_scale[0:P] + term_scale[1:N]))
-        pot = None if span_pot is None else span_pot[:, 0:P, w].t()   # (P, B)
-        cells, scale, weights = _combine(parts, pot)
+            # A -> b c over words i and i+1.
+            vec = term_sc[0:P] * weight[..., 0:1]                               # (P, B, T)
+            mats = right_mats[1:N, :, Q:].reshape(PB, T, Q)
+            total = _add_rowvec(total, vec.view(PB, 1, T), mats)
+        total = total.view(PB, Q)
+        peak = total.amax(-1)                                                  # (P*B,)
+        cells = (total / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)  # a dead span (0/0) stays 0
+        scale = top + peak.log().view(P, B)                     # log 0 = -inf marks it dead
+        if span_pot is not None:
+            scale = scale + span_pot[:, 0:P, w].t()
+        cells = cells.view(P, B, Q)
         by_start[0:P, :, w] = cells
         by_end[w:N + 1, :, N - w] = cells
         scale_start[0:P, :, w] = scale
         scale_end[w:N + 1, :, N - w] = scale
         if keep:
-            saved.append((split_sums, weights))
-    chart = Chart(by_start, by_end, scale_start, scale_end, term_sc, term_scale, min_w)
-    return (chart, saved, right_mats, left_mats) if keep else chart
+            saved.split_sums.append(split_sums)
+            saved.weights.append(weight)
+            saved.peaks.append(peak)
+    chart = Chart(by_start, by_end, scale_start, scale_end, term_sc, term_scale, min_w, NT)
+    return chart, (saved if keep else None), rules
+
+
+def _add_rowvec(total: Tensor | None, vec: Tensor, mats: Tensor) -> Tensor:
+    """total + vec @ mats for (M, 1, K) row vectors and (M, K, Q) matrices."""
+    return torch.bmm(vec, mats) if total is None else torch.baddbmm(total, vec, mats)
+
+
+def inside_chart(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None = None,
+                 span_pot: Tensor | None = None) -> Chart:
+    """Fill the inside chart for a batch (no gradient). See `log_partition` for the shapes."""
+    with torch.no_grad():
+        return _fill(binary, terminal, nt_terminal, span_pot, keep=False)[0]
 
 
 def _root_scores(chart: Chart, root: Tensor, lengths: Tensor):
-    """log Z per sentence and the root cells. root: (B, NT) log-probs."""
-    B = root.shape[0]
+    """log Z per sentence, the root cells (B, Q), padded root probabilities and their sums."""
+    B, NT = root.shape
     idx = torch.arange(B)
-    top = chart.by_start[0, idx, lengths]        # (B, NT)
+    top = chart.by_start[0, idx, lengths]        # (B, Q)
     top_scale = chart.scale_start[0, idx, lengths]
-    pi = root.exp()
+    pi = root.new_zeros(B, top.shape[-1])
+    pi[:, :NT] = root.exp()
     total = (pi * top).sum(-1)
-    return total.log() + top_scale, top, pi, total
+    return total.log() + top_scale, top, top_scale, pi, total
 
 
 class _LogPartition(torch.autograd.Function):
     @staticmethod
     def forward(ctx, root, binary, terminal, nt_terminal, span_pot, lengths):
         with torch.no_grad():
-            chart, saved, right_mats, left_mats = inside_chart(
-                binary, terminal, nt_terminal, span_pot, keep=True)
-            logz, top, pi, total = _root_scores(chart, root, lengths)
-        ctx.save_for_backward(root, binary, lengths)
-        ctx.state = (chart, saved, right_mats, left_mats, top, pi, total,
+            chart, saved, rules = _fill(binary, terminal, nt_terminal, span_pot, keep=True)
+            logz, top, top_scale, pi, total = _root_scores(chart, root, lengths)
+        ctx.save_for_backward(binary, lengths)
+        ctx.state = (chart, saved, rules, top, top_scale, pi, total,
                      nt_terminal is not None, span_pot is not None)
         return logz
 
     @staticmethod
     def backward(ctx, grad_logz):
-        root, binary, lengths = ctx.saved_tensors
-        chart, saved, right_mats, left_mats, top, pi, total, nt_emits, has_pot = ctx.state
-        ctx.state = None
+        binary, lengths = ctx.saved_tensors
+        state = ctx.state
+        ctx.state = None  # free the chart as soon as the gradient is taken
         with torch.no_grad():
-            grads = _outside(root, binary, lengths, chart, saved, right_mats, left_mats,
-                             top, pi, total, grad_logz, nt_emits, has_pot)
+            grads = _outside(binary, lengths, *state, grad_logz)
         return grads + (None,)
 
 
-def _outside(root, binary, lengths, chart, saved, right_mats, left_mats, top, pi, total,
-             grad_logz, nt_emits, has_pot):
+def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, top_scale, pi,
+             total, nt_emits, has_pot, grad_logz):
     """Adjoints of log Z with respect to every scaled chart cell, from the widest span down.
 
     adj(cell)[A] = d log Z / d scaled_inside(cell)[A]; adj * scaled_inside is the posterior
-    marginal of A over that span, a number in [0, 1], so nothing here needs rescaling.
+    marginal of A over that span, a number in [0, 1], so nothing here needs rescaling. A cell is
+    its raw sum divided by its peak, so the raw sum's adjoint is adj / peak.
     """
-    N1, B, _, NT = chart.by_start.shape
+    N1, B, _, Q = chart.by_start.shape
     N = N1 - 1
     T = chart.term.shape[-1]
-    r_nn, r_np, r_pn, r_pp = _rule_blocks(binary, NT)
+    NT = binary.shape[0]
     idx = torch.arange(B)
-    ok = total > 0
-    g = torch.where(ok, grad_logz / torch.where(ok, total, torch.ones_like(total)),
-                    torch.zeros_like(total))                        # (B,)
-    grad_root = pi * top * g[:, None]                                # (B, NT) d/d log pi
+    ok = (total > 0) & torch.isfinite(top_scale)  # unparseable sentences get zero gradients
+    g_root = torch.where(ok, grad_logz / torch.where(ok, total, torch.ones_like(total)),
+                         torch.zeros_like(total))                       # (B,)
+    grad_root = (pi * top * g_root[:, None])[:, :NT]                    # (B, NT) d/d log pi
     adj_start = torch.zeros_like(chart.by_start)
     adj_end = torch.zeros_like(chart.by_end)
-    adj_start[0, idx, lengths] = pi * g[:, None]
+    adj_start[0, idx, lengths] = pi * g_root[:, None]
 
-    grad_nn = binary.new_zeros(NT, NT * NT)
-    grad_pp = binary.new_zeros(NT, T * T)
-    grad_right_mats = torch.zeros_like(right_mats)
-    grad_left_mats = torch.zeros_like(left_mats)
-    adj_term = torch.zeros_like(chart.term)                          # (N, B, T)
+    grad_nn = torch.zeros_like(rules.nn)                                # (Q*Q, Q)
+    # Weighted outer adjoints of the row-vector products, laid out like the chart cells they
+    # multiply, so one batched product per kind folds them into per-position matrix gradients.
+    adj_np = torch.zeros_like(chart.by_end[0:N])    # [pos, b, N-w+1]: child (pos-w+1, pos)
+    adj_pn = torch.zeros_like(chart.by_start[1:N + 1])  # [pos, b, w-1]: child (pos+1, pos+w)
+    grad_right_pp = None
+    adj_term = torch.zeros_like(chart.term)                             # (N, B, T)
     grad_pot = chart.term.new_zeros(B, N + 1, N + 1) if has_pot else None
     min_w = chart.min_width
     for w in range(N, 1, -1):
         P = N - w + 1
-        split_sums, weights = saved[w - 2]
-        adj = adj_start[0:P, :, w] + adj_end[w:N + 1, :, N - w]      # (P, B, NT)
+        PB = P * B
+        split_sums, weight, peak = saved.split_sums[w - 2], saved.weights[w - 2], saved.peaks[w - 2]
+        adj = adj_start[0:P, :, w] + adj_end[w:N + 1, :, N - w]         # (P, B, Q)
         if grad_pot is not None:
             grad_pot[:, 0:P, w] = (adj * chart.by_start[0:P, :, w]).sum(-1).t()
-        k = 0
+        g = (adj.view(PB, Q) / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)  # d/d raw sum
         lo, hi = min_w, w - min_w
         if hi >= lo:
             K = hi - lo + 1
-            g_nn = (adj * weights[k].unsqueeze(-1)).view(P * B, NT)
-            k += 1
-            grad_nn += g_nn.t() @ split_sums.view(P * B, NT * NT)
-            g_pairs = (g_nn @ r_nn).view(P * B, NT, NT)              # d/d split_sums
+            grad_nn.addmm_(split_sums.t(), g)
+            g_pairs = (g @ rules.nn.t()).view(PB, Q, Q)                 # d/d split_sums
+            w_k = weight[..., lo - 1:hi, None]                          # (P, B, K, 1)
             left = chart.by_start[0:P, :, lo:hi + 1]
             right = chart.by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]
-            pair_scale = chart.scale_start[0:P, :, lo:hi + 1] + \
-                chart.scale_end[w:N + 1, :, N - w + lo:N - w + hi + 1]
-            weight = torch.exp(pair_scale - _finite(pair_scale.amax(-1)).unsqueeze(-1))
-            weight = weight.view(P * B, K, 1)
-            left_w = left.reshape(P * B, K, NT) * weight
-            g_left = torch.bmm(right.reshape(P * B, K, NT), g_pairs.transpose(1, 2)) * weight
+            left_w = (left * w_k).view(PB, K, Q)
+            g_left = torch.bmm(right.reshape(PB, K, Q), g_pairs.transpose(1, 2))
             g_right = torch.bmm(left_w, g_pairs)
-            adj_start[0:P, :, lo:hi + 1] += g_left.view(P, B, K, NT)
-            adj_end[w:N + 1, :, N - w + lo:N - w + hi + 1] += g_right.view(P, B, K, NT)
+            adj_start[0:P, :, lo:hi + 1] += g_left.view(P, B, K, Q) * w_k
+            adj_end[w:N + 1, :, N - w + lo:N - w + hi + 1] += g_right.view(P, B, K, Q)
         if w - 1 >= min_w:
-            g_np = adj * weights[k].unsqueeze(-1)                    # (P, B, NT)
-            k += 1
-            left = chart.by_start[0:P, :, w - 1]
-            mats = right_mats[w - 1:N].reshape(P * B, NT, NT)
+            g_np = (g.view(P, B, Q) * weight[..., w - 2:w - 1])
+            mats = saved.right_mats[w - 1:N, :, :Q].reshape(PB, Q, Q)
             adj_start[0:P, :, w - 1] += torch.bmm(
-                mats.transpose(1, 2), g_np.reshape(P * B, NT, 1)).view(P, B, NT)
-            grad_right_mats[w - 1:N] += g_np.unsqueeze(-1) * left.unsqueeze(-2)
-            g_pn = adj * weights[k].unsqueeze(-1)
-            k += 1
-            right = chart.by_end[w:N + 1, :, N - w + 1]
-            mats = left_mats[0:P].reshape(P * B, NT, NT)
+                g_np.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, Q)
+            adj_np[w - 1:N, :, N - w + 1] = g_np
+            g_pn = (g.view(P, B, Q) * weight[..., 0:1])
+            mats = saved.left_mats[0:P].view(PB, Q, Q)
             adj_end[w:N + 1, :, N - w + 1] += torch.bmm(
-                mats.transpose(1, 2), g_pn.reshape(P * B, NT, 1)).view(P, B, NT)
-            grad_left_mats[0:P] += g_pn.unsqueeze(-1) * right.unsqueeze(-2)
+                g_pn.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, Q)
+            adj_pn[0:P, :, w - 1] = g_pn
         if w == 2:
-            g_pp = (adj * weights[k].unsqueeze(-1)).view(P * B, NT)
-            a, b_ = chart.term[0:P], chart.term[1:N]                 # (P, B, T)
-            pairs = (a[:, :, :, None] * b_[:, :, None, :]).view(P * B, T * T)
-            grad_pp += g_pp.t() @ pairs
-            g_pairs = (g_pp @ r_pp.reshape(NT, T * T)).view(P, B, T, T)
-            adj_term[0:P] += (g_pairs * b_[:, :, None, :]).sum(-1)
-            adj_term[1:N] += (g_pairs * a[:, :, :, None]).sum(-2)
+            g_pp = (g.view(P, B, Q) * weight[..., 0:1])                 # (P, B, Q)
+            mats = saved.right_mats[1:N, :, Q:].reshape(PB, T, Q)
+            adj_term[0:P] += torch.bmm(g_pp.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, T)
+            grad_right_pp = chart.term[0:P].unsqueeze(-1) * g_pp.unsqueeze(-2)  # (P, B, T, Q)
+
+    # Per-position matrix gradients: [pos, b][X, A] = sum over spans of child[X] * g[A].
+    grad_right_mats = torch.zeros_like(saved.right_mats)                # (N, B, Q+T, Q)
+    grad_right_mats[:, :, :Q] = torch.bmm(
+        chart.by_end[0:N].view(N * B, N + 1, Q).transpose(1, 2),
+        adj_np.view(N * B, N + 1, Q)).view(N, B, Q, Q)
+    if grad_right_pp is not None:
+        grad_right_mats[1:N, :, Q:] = grad_right_pp
+    grad_left_mats = torch.bmm(
+        chart.by_start[1:N + 1].view(N * B, N + 1, Q).transpose(1, 2),
+        adj_pn.view(N * B, N + 1, Q))                                   # (N*B, Q, Q)
 
     # Fold the per-position matrices back into rules and preterminal cells.
     term_flat = chart.term.view(N * B, T)
-    gr = grad_right_mats.view(N * B, NT * NT)
-    gl = grad_left_mats.view(N * B, NT * NT)
-    w_np = r_np.permute(2, 0, 1).reshape(T, NT * NT)
-    w_pn = r_pn.permute(1, 0, 2).reshape(T, NT * NT)
-    adj_term += (gr @ w_np.t() + gl @ w_pn.t()).view(N, B, T)
-    grad_np = (term_flat.t() @ gr).view(T, NT, NT).permute(1, 2, 0)   # (NT, NT, T)
-    grad_pn = (term_flat.t() @ gl).view(T, NT, NT).permute(1, 0, 2)   # (NT, T, NT)
+    gr = grad_right_mats.view(N * B, (Q + T) * Q)
+    gl = grad_left_mats.view(N * B, Q * Q)
+    adj_term += (gr @ rules.right.t()).addmm_(gl, rules.left.t()).view(N, B, T)
+    grad_right = (term_flat.t() @ gr).view(T, Q + T, Q)                # [c, X, A]
+    grad_left = (term_flat.t() @ gl).view(T, Q, Q)                     # [b, C, A]
 
-    rules = binary.exp()
-    grad_rules = torch.empty_like(binary)
-    grad_rules[:, :NT, :NT] = grad_nn.view(NT, NT, NT)
-    grad_rules[:, :NT, NT:] = grad_np
-    grad_rules[:, NT:, :NT] = grad_pn
-    grad_rules[:, NT:, NT:] = grad_pp.view(NT, T, T)
-    grad_binary = grad_rules * rules                                  # d/d log p = p * d/dp
-    grad_terminal = (adj_term * chart.term).transpose(0, 1)           # (B, N, T)
+    grad_rules = torch.empty_like(binary)                              # (NT, S, S)
+    grad_rules[:, :NT, :NT] = grad_nn.view(Q, Q, Q)[:NT, :NT, :NT].permute(2, 0, 1)
+    grad_rules[:, :NT, NT:] = grad_right[:, :NT, :NT].permute(2, 1, 0)
+    grad_rules[:, NT:, NT:] = grad_right[:, Q:, :NT].permute(2, 1, 0)
+    grad_rules[:, NT:, :NT] = grad_left[:, :NT, :NT].permute(2, 0, 1)
+    grad_binary = grad_rules * binary.exp()                            # d/d log p = p * d/dp
+    grad_terminal = (adj_term * chart.term).transpose(0, 1)            # (B, N, T)
     grad_nt_terminal = None
     if nt_emits:
         adj1 = adj_start[0:N, :, 1] + adj_end[1:N + 1, :, N - 1]
-        grad_nt_terminal = (adj1 * chart.by_start[0:N, :, 1]).transpose(0, 1)
+        grad_nt_terminal = (adj1 * chart.by_start[0:N, :, 1])[..., :NT].transpose(0, 1)
     return grad_root, grad_binary, grad_terminal, grad_nt_terminal, grad_pot
 
 
