@@ -342,6 +342,15 @@ def test_dump_then_load_gives_an_equal_config(tmp_path):
     assert load_config(RunSchema, write(tmp_path, text)) == cfg
 
 
+@pytest.mark.parametrize("name", ["\x85", "a\u2028b", "harbour \u00e9\u2029", " ", "1e-3",
+                                  "null", "line\nbreak", "\t"])
+def test_awkward_strings_survive_the_dump(tmp_path, name):
+    # YAML 1.1 treats NEL/LS/PS as line breaks and `null` as the null value; a saved text
+    # option must still read back as exactly the same string (found by the property below).
+    cfg = RunSchema(name=name)
+    assert load_config(RunSchema, write(tmp_path, dump_config_yaml(cfg))).name == name
+
+
 @settings(max_examples=60, deadline=None)
 @given(lr=st.floats(min_value=1e-300, max_value=1e300),
        scale=st.floats(min_value=0, max_value=1),

@@ -573,7 +573,15 @@ def _represent_list(dumper: yaml.SafeDumper, value: list) -> yaml.Node:
     return dumper.represent_sequence("tag:yaml.org,2002:seq", value, flow_style=flat)
 
 
+def _represent_str(dumper: yaml.SafeDumper, value: str) -> yaml.Node:
+    # With allow_unicode, PyYAML writes YAML's extra line breaks (NEL, LS, PS) raw inside
+    # single quotes, where reading folds them into spaces; double quotes escape them instead.
+    style = '"' if any(c in value for c in "\x85\u2028\u2029") else None
+    return dumper.represent_scalar(_STR_TAG, value, style=style)
+
+
 _ConfigDumper.add_representer(list, _represent_list)
+_ConfigDumper.add_representer(str, _represent_str)
 
 
 def dump_config_yaml(cfg: Any, header: str | None = None) -> str:
