@@ -14,7 +14,6 @@ from __future__ import annotations
 import os
 import re
 from collections import Counter
-from dataclasses import replace
 from typing import Iterator
 
 from treewright.errors import InputError
