@@ -1,0 +1,202 @@
+"""The typed schema of a training run: every option with its default and allowed values.
+
+`load_train_config(path, overrides)` reads a YAML file over these defaults, applies dotted
+`key=value` overrides, and checks everything (field types and ranges, then the rules that tie
+options together) before any work starts. `describe_config(TrainConfig)` lists every option.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal, Sequence
+
+from treewright.config import (ConfigError, ConfigProblem, config_from_dict, load_config,
+                               option)
+
+METHODS = ("em", "online_em", "map_em", "vb", "gradient")
+
+
+@dataclass
+class DataConfig:
+    train: Path = option(doc="Training corpus (raw text, bracketed trees or CoNLL-U).")
+    dev: Path | None = option(None, "Held-out corpus: dev likelihood picks the best restart; "
+                                    "with gold trees (brackets, CoNLL-U) dev bracket F1 is "
+                                    "reported too.")
+    format: Literal["auto", "text", "brackets", "conllu"] = option(
+        "auto", "Corpus format of both files; auto looks at the first lines.")
+    lowercase: bool = option(False, "Lowercase words before building the vocabulary.")
+    tag_mode: bool = option(False, "Induce over POS tags instead of words (bracketed trees: "
+                                   "preterminal labels; CoNLL-U: UPOS).")
+    min_count: int = option(1, "Words seen fewer times in training share the unknown-word "
+                               "token.", range="[1, inf)")
+    max_vocab: int | None = option(None, "Largest vocabulary, unknown token included.",
+                                   range="[2, inf)")
+    max_length: int | None = option(40, "Training sentences longer than this are set aside "
+                                        "(counted in the log), since the inside pass costs n^3.",
+                                    range="[1, inf)")
+
+
+@dataclass
+class ModelConfig:
+    parameterization: Literal["tabular", "neural"] = option(
+        "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
+                   "(Kim, Dyer & Rush 2019), gradient training only.")
+    nonterminals: int = option(30, "Number of nonterminals (ignored with a warm start).",
+                               range="[1, inf)")
+    preterminals: int = option(60, "Number of preterminals (ignored with a warm start).",
+                               range="[1, inf)")
+    init_scale: float = option(1.0, "Std of the normal logits of a random tabular start; 0 "
+                                    "gives the uniform grammar.", range="[0, inf)")
+    embedding_dim: int = option(256, "Neural: symbol embedding and hidden size.",
+                                range="[1, inf)")
+    residual_blocks: int = option(2, "Neural: residual blocks in the root and word networks.",
+                                  range="[0, inf)")
+    warm_start: Path | None = option(None, "Start from this hand-written grammar (grammar text "
+                                           "format) instead of at random; tabular only.")
+    warm_start_mix: float = option(0.0, "Weight of the uniform distribution mixed into every "
+                                        "rule of the warm start; 0 keeps its zeros at zero.",
+                                   range="[0, 1)")
+
+
+@dataclass
+class MethodConfig:
+    method: Literal["em", "online_em", "map_em", "vb", "gradient"] = option(
+        "em", "em: batch inside-outside EM; online_em: stepwise EM (Liang & Klein 2009); "
+              "map_em: EM with a symmetric Dirichlet prior; vb: mean-field variational Bayes "
+              "(Kurihara & Sato 2004); gradient: Adam on the log marginal likelihood.")
+    epochs: int = option(30, "Passes over the training data (one EM or VB iteration each).",
+                         range="[1, inf)")
+    batch_size: int = option(32, "Sentences per inside-outside call; also the minibatch of "
+                                 "online EM and of gradient steps.", range="[1, inf)")
+    dtype: Literal["float32", "float64"] = option(
+        "float32", "Arithmetic precision; float64 makes resumed runs bit-identical and is "
+                   "what the exactness tests use.")
+    seed: int = option(0, "Seeds the initialisation and the data order of restart 0; restart "
+                          "r uses seed + r.", range="[0, inf)")
+    restarts: int = option(1, "Independent random starts; the one with the best dev "
+                              "likelihood (training likelihood without a dev set) is kept.",
+                           range="[1, inf)")
+    tolerance: float = option(0.0, "EM/VB: stop a restart once the objective per word "
+                                   "improves by less than this; 0 runs every epoch.",
+                              range="[0, inf)")
+    shuffle: bool = option(True, "Online EM and gradient: visit batches in a fresh seeded "
+                                 "order each epoch.")
+
+
+@dataclass
+class PriorConfig:
+    concentration: float = option(
+        1.0, "alpha of the symmetric Dirichlet prior on every rule distribution. map_em: "
+             "the MAP estimate, p ~ count + alpha - 1 (alpha >= 1; alpha = 1 is maximum "
+             "likelihood); online_em applies the same M-step to its running counts. vb: the prior of mean-field VB; alpha < 1 favours sparse grammars.",
+        range="(0, inf)")
+
+
+@dataclass
+class OnlineConfig:
+    stepsize_power: float = option(0.7, "Stepwise EM step size (t + 2)^-power over minibatch "
+                                        "updates t (Liang & Klein 2009 use 0.5 < power <= 1).",
+                                   range="(0.5, 1]")
+
+
+@dataclass
+class OptimizerConfig:
+    lr: float = option(0.01, "Peak learning rate of Adam.", range="(0, inf)")
+    beta1: float = option(0.75, "Adam beta1 (Kim et al. 2019 use 0.75).", range="[0, 1)")
+    beta2: float = option(0.999, "Adam beta2.", range="[0, 1)")
+    grad_clip: float | None = option(3.0, "Largest gradient norm (rescaled above it); null "
+                                          "turns clipping off.", range="(0, inf)")
+    warmup_steps: int = option(0, "Steps of linear warm-up from 0 to lr.", range="[0, inf)")
+    schedule: Literal["constant", "cosine", "linear"] = option(
+        "constant", "Decay after warm-up down to min_lr_ratio * lr at the last step.")
+    min_lr_ratio: float = option(0.1, "Final learning rate as a fraction of lr.",
+                                 range="[0, 1]")
+
+
+@dataclass
+class ConstraintsConfig:
+    train_brackets: bool = option(
+        False, "Use the brackets of the training trees as partial constraints: no tree may "
+               "cross them (Pereira & Schabes 1992). Needs a bracketed or CoNLL-U corpus; a "
+               "flat node leaves its inside unconstrained.")
+
+
+@dataclass
+class CurriculumConfig:
+    start_length: int | None = option(None, "Train first on sentences of at most this many "
+                                            "words; null trains on all lengths at once.",
+                                      range="[1, inf)")
+    increment: int = option(5, "Raise the length cap by this much ...", range="[1, inf)")
+    every_epochs: int = option(1, "... every this many epochs.", range="[1, inf)")
+
+
+@dataclass
+class OutputConfig:
+    run_dir: Path | None = option(None, "Run folder; null uses runs/<config file name>.")
+    checkpoint_every_steps: int | None = option(
+        None, "Online EM and gradient: also checkpoint every this many steps (always at "
+              "the end of an epoch).", range="[1, inf)")
+    log_every_steps: int = option(10, "Online EM and gradient: log step metrics this often.",
+                                  range="[1, inf)")
+    tensorboard: bool = option(True, "Write TensorBoard event files.")
+    progress: bool = option(True, "Show progress with ETA on standard error: a bar on a "
+                                  "terminal, plain lines otherwise.")
+    stdout_metrics: bool = option(True, "Print each epoch's metrics on standard output.")
+
+
+@dataclass
+class TrainConfig:
+    data: DataConfig = option(doc="Corpora and vocabulary.")
+    model: ModelConfig = option(ModelConfig(), "Grammar size and parameterization.")
+    train: MethodConfig = option(MethodConfig(), "Learning method and schedule.")
+    prior: PriorConfig = option(PriorConfig(), "Dirichlet prior (map_em, vb).")
+    online: OnlineConfig = option(OnlineConfig(), "Stepwise EM.")
+    optimizer: OptimizerConfig = option(OptimizerConfig(), "Adam (gradient method).")
+    constraints: ConstraintsConfig = option(ConstraintsConfig(), "Partial brackets.")
+    curriculum: CurriculumConfig = option(CurriculumConfig(), "Sentence-length curriculum.")
+    output: OutputConfig = option(OutputConfig(), "Run folder and logging.")
+
+
+def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
+    """Rules that tie options together, all reported at once (ConfigError)."""
+    problems = []
+
+    def bad(key: str, message: str) -> None:
+        problems.append(ConfigProblem(key, message, source))
+
+    method = cfg.train.method
+    if cfg.model.parameterization == "neural" and method != "gradient":
+        bad("train.method", f"the neural parameterization trains only with 'gradient', not "
+                            f"{method!r}")
+    if cfg.model.parameterization == "neural" and cfg.model.warm_start is not None:
+        bad("model.warm_start", "a warm start sets tabular parameters; use "
+                                "model.parameterization=tabular")
+    if method == "em" and cfg.prior.concentration != 1:
+        bad("prior.concentration", "plain em is maximum likelihood (alpha = 1); use "
+                                   "train.method=map_em or vb for a Dirichlet prior")
+    if method == "gradient" and cfg.prior.concentration != 1:
+        bad("prior.concentration", "gradient training has no prior; leave alpha at 1")
+    if method in ("map_em", "online_em") and cfg.prior.concentration < 1:
+        bad("prior.concentration", f"{method} needs alpha >= 1 (the Dirichlet mode exists only "
+                                   f"then); got {cfg.prior.concentration}; use vb for "
+                                   f"sparse priors")
+    if cfg.model.warm_start is not None and cfg.train.restarts > 1 and cfg.model.warm_start_mix \
+            == 0:
+        bad("train.restarts", "restarts from the same warm start with no mixing are identical")
+    if problems:
+        raise ConfigError(problems, path=source)
+
+
+def load_train_config(path: str | Path | None, overrides: Sequence[str] = ()) -> TrainConfig:
+    """The checked config from defaults, the YAML file and overrides (ConfigError lists every
+    problem)."""
+    cfg = load_config(TrainConfig, path, overrides)
+    check_combinations(cfg, None if path is None else str(path))
+    return cfg
+
+
+def train_config_from_dict(data: dict, source: str) -> TrainConfig:
+    cfg = config_from_dict(TrainConfig, data, source)
+    check_combinations(cfg, source)
+    return cfg

@@ -1,0 +1,119 @@
+"""The E-step: expected rule counts of a batch of sentences, from the engine's posteriors.
+
+Sentences are held as word-id tensors; the terminal scores the engine needs are gathered from the
+lexical rules, and lexical expected counts are the terminal marginals scattered back to word ids.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Sequence
+
+import torch
+from torch import Tensor
+
+from treewright import engine
+from treewright.params.tabular import RuleTensors
+
+NEG_INF = float("-inf")
+
+
+@dataclass
+class Batch:
+    """Sentences of one engine call."""
+    indices: list[int]          # positions in the training (or dev) sentence list
+    ids: Tensor                 # (B, N) word ids; padding is id 0
+    lengths: Tensor             # (B,)
+    span_pot: Tensor | None     # (B, N+1, N+1) 0 or -inf per span [start, width]; None: free
+
+    @property
+    def words(self) -> int:
+        return int(self.lengths.sum())
+
+
+def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
+               brackets: Sequence[Sequence[tuple[int, int]]] | None, dtype: torch.dtype) -> Batch:
+    """A `Batch` of the given sentences; `brackets` (per sentence, spans (i, j)) forbid every span
+    that crosses one of them (Pereira & Schabes 1992)."""
+    lengths = torch.tensor([len(sentence_ids[i]) for i in indices])
+    n = int(lengths.max())
+    ids = torch.zeros(len(indices), n, dtype=torch.long)
+    for b, i in enumerate(indices):
+        ids[b, :len(sentence_ids[i])] = torch.tensor(sentence_ids[i], dtype=torch.long)
+    span_pot = None
+    if brackets is not None and any(brackets[i] for i in indices):
+        span_pot = torch.zeros(len(indices), n + 1, n + 1, dtype=dtype)
+        for b, i in enumerate(indices):
+            for start, end in brackets[i]:
+                span_pot[b] = span_pot[b].masked_fill(crossing_mask(start, end, n), NEG_INF)
+    return Batch(list(indices), ids, lengths, span_pot)
+
+
+def crossing_mask(a: int, b: int, n: int) -> Tensor:
+    """(n+1, n+1) [start, width]: True for spans (i, i+width) that cross the bracket (a, b), that
+    is overlap it without either containing the other."""
+    start = torch.arange(n + 1)[:, None]
+    end = start + torch.arange(n + 1)[None, :]
+    return ((start < a) & (a < end) & (end < b)) | ((a < start) & (start < b) & (b < end))
+
+
+def terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
+    """(B, N, T) log p(preterminal -> word at position) from lexical (T, V) and ids (B, N)."""
+    return lexical[:, ids].permute(1, 2, 0)
+
+
+@dataclass
+class ExpectedCounts:
+    """Expected rule counts summed over sentences, with the log-likelihood they came with."""
+    root: Tensor        # (NT,)
+    binary: Tensor      # (NT, S, S)
+    lexical: Tensor     # (T, V)
+    loglik: float       # sum of log Z over the parsed sentences
+    words: int          # words of the parsed sentences
+    sentences: int      # parsed sentences
+    unparsed: int       # sentences with no tree under the rules (log Z = -inf)
+
+    def scaled(self, factor: float) -> "ExpectedCounts":
+        return ExpectedCounts(self.root * factor, self.binary * factor, self.lexical * factor,
+                              self.loglik, self.words, self.sentences, self.unparsed)
+
+
+def zero_counts(rules: RuleTensors) -> ExpectedCounts:
+    return ExpectedCounts(torch.zeros_like(rules.root), torch.zeros_like(rules.binary),
+                          torch.zeros_like(rules.lexical), 0.0, 0, 0, 0)
+
+
+class DivergedError(RuntimeError):
+    """A NaN or +inf appeared where a log-likelihood or parameter should be."""
+
+
+def batch_counts(rules: RuleTensors, batch: Batch) -> ExpectedCounts:
+    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
+    terminal = terminal_scores(rules.lexical, batch.ids)                 # (B, N, T)
+    post = engine.posteriors(rules.root, rules.binary, terminal, batch.lengths,
+                             span_pot=batch.span_pot)
+    logz = post.logz                                                       # (B,)
+    if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
+        raise DivergedError("the log-likelihood of a batch is NaN or infinite")
+    parsed = torch.isfinite(logz)
+    mask = torch.arange(batch.ids.shape[1])[None, :] < batch.lengths[:, None]   # (B, N)
+    lexical = torch.zeros_like(rules.lexical)                               # (T, V)
+    lexical.index_add_(1, batch.ids[mask], post.terminal[mask].T.to(lexical.dtype))
+    return ExpectedCounts(post.root.sum(0), post.binary, lexical,
+                          float(logz[parsed].sum()), int(batch.lengths[parsed].sum()),
+                          int(parsed.sum()), int((~parsed).sum()))
+
+
+def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
+    return ExpectedCounts(total.root + part.root, total.binary + part.binary,
+                          total.lexical + part.lexical, total.loglik + part.loglik,
+                          total.words + part.words, total.sentences + part.sentences,
+                          total.unparsed + part.unparsed)
+
+
+def sentence_logliks(rules: RuleTensors, batch: Batch) -> Tensor:
+    """(B,) log p(sentence) under `rules`, no gradient."""
+    with torch.no_grad():
+        terminal = terminal_scores(rules.lexical, batch.ids)
+        return engine.log_partition(rules.root, rules.binary, terminal, batch.lengths,
+                                    span_pot=None)

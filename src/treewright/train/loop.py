@@ -1,0 +1,675 @@
+"""The training loop: one run folder, several restarts, every method of the config.
+
+Order of one run (top to bottom below): read the corpora and build the batches; for each restart,
+initialise (seeded) and run the epochs of its method; after each epoch evaluate on dev, log and
+checkpoint; at the end keep the restart with the best dev likelihood as `grammar.pcfg`.
+
+Run folder::
+
+    config.yaml        the resolved config (every option)
+    train.log          what was read, set aside and decided, in words
+    metrics.jsonl      one JSON object per logged step (tracking.JsonlLogger)
+    tensorboard/       TensorBoard event files
+    checkpoint.ckpt    the last checkpoint (safeio container, written atomically)
+    restart-<r>.pcfg   the final grammar of each finished restart
+    grammar.pcfg       the best restart's grammar (the result)
+    result.json        per-restart scores and which restart was kept
+
+Resuming reads `checkpoint.ckpt` and continues at the recorded position. Everything random is a
+pure function of (seed, restart, epoch), so the position (restart, epoch, batch) plus the
+parameters, the method's statistics and Adam's moments is the whole state; in float64 a resumed
+run ends with the same bits as one that was never interrupted.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TextIO
+
+import torch
+
+from treewright import engine
+from treewright.config import config_to_dict, dump_config_yaml
+from treewright.corpus import ReadOptions, length_batches, read_corpus
+from treewright.decode import mbr_spans
+from treewright.errors import InputError
+from treewright.evaluation import evaluate_brackets, spans_to_tree
+from treewright.grammar import load_grammar
+from treewright.params import NeuralParams, TabularParams, symbol_names, tabular_from_grammar
+from treewright.params.tabular import RuleTensors
+from treewright.safeio import atomic_write_text, check_writable, load_checkpoint, save_checkpoint
+from treewright.tracking import JsonlLogger, MultiLogger, Progress, StdoutLogger, \
+    TensorBoardLogger
+from treewright.trees import Tree
+from treewright.train import updates
+from treewright.train.config import TrainConfig, train_config_from_dict
+from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
+                                    batch_counts, make_batch, sentence_logliks, terminal_scores,
+                                    zero_counts)
+from treewright.train.metrics import rule_entropies, unigram_logprobs
+from treewright.train.schedule import learning_rate
+
+CHECKPOINT = "checkpoint.ckpt"
+CHECKPOINT_VERSION = 1
+EM_FAMILY = ("em", "map_em", "vb")
+
+
+class TrainingDiverged(RuntimeError):
+    """Training met a NaN or infinite loss; the last good checkpoint is left as it was."""
+
+
+# ---------------------------------------------------------------------------------------------
+# Data
+
+
+@dataclass
+class TrainData:
+    """Word ids of the training and dev sentences, and what the trainer needs beside them."""
+    vocab: object
+    train_ids: list[list[int]]
+    brackets: list[list[tuple[int, int]]] | None     # per training sentence, when constrained
+    dev_ids: list[list[int]]
+    dev_words: list[list[str]]
+    dev_trees: list[Tree] | None
+    notes: list[str]
+
+
+def _brackets_of(tree: Tree) -> list[tuple[int, int]]:
+    n = len(tree.leaves())
+    return sorted({(i, j) for i, j, _ in tree.labeled_spans() if j - i >= 2 and (i, j) != (0, n)})
+
+
+def load_data(cfg: TrainConfig) -> TrainData:
+    """Read the corpora of `cfg.data` (InputError on bad files), encode them with the training
+    vocabulary, and collect the partial brackets when `constraints.train_brackets` asks."""
+    d = cfg.data
+    options = ReadOptions(lowercase=d.lowercase, tag_mode=d.tag_mode, max_length=d.max_length,
+                          min_count=d.min_count, max_vocab=d.max_vocab)
+    train = read_corpus(d.train, d.format, options)
+    notes = ["training corpus: " + train.report.format().replace("\n", "; ")]
+    vocab = train.vocabulary
+    brackets = None
+    if cfg.constraints.train_brackets:
+        if any(s.tree is None for s in train.sentences):
+            raise InputError("constraints.train_brackets needs trees in the training corpus "
+                             "(bracketed trees or CoNLL-U)", path=str(d.train))
+        brackets = [_brackets_of(s.tree) for s in train.sentences]
+        notes.append(f"partial brackets: {sum(map(len, brackets))} over "
+                     f"{len(brackets)} sentences")
+    dev_ids: list[list[int]] = []
+    dev_words: list[list[str]] = []
+    dev_trees = None
+    if d.dev is not None:
+        dev = read_corpus(d.dev, d.format, ReadOptions(
+            lowercase=d.lowercase, tag_mode=d.tag_mode, max_length=d.max_length,
+            vocabulary=vocab))
+        notes.append("dev corpus: " + dev.report.format().replace("\n", "; "))
+        dev_ids = [dev.encode(s) for s in dev.sentences]
+        dev_words = [list(s.words) for s in dev.sentences]
+        if all(s.tree is not None for s in dev.sentences):
+            dev_trees = [s.tree for s in dev.sentences]
+    return TrainData(vocab, [train.encode(s) for s in train.sentences], brackets, dev_ids,
+                     dev_words, dev_trees, notes)
+
+
+# ---------------------------------------------------------------------------------------------
+# State
+
+
+@dataclass
+class Position:
+    """Where the run is: the next (restart, epoch, batch) to run, and what has accumulated."""
+    restart: int = 0
+    epoch: int = 0
+    batch: int = 0
+    step: int = 0                    # updates over the whole run (the metrics' x axis)
+    restart_step: int = 0            # updates within this restart (online EM's t)
+    epoch_sums: dict = field(default_factory=lambda: {"loglik": 0.0, "words": 0,
+                                                       "sentences": 0, "unparsed": 0})
+    previous_objective: float | None = None
+    finished: list = field(default_factory=list)   # per finished restart: scores, grammar file
+    metrics_bytes: int = 0
+
+    def to_meta(self) -> dict:
+        return dict(self.__dict__)
+
+    @classmethod
+    def from_meta(cls, meta: dict) -> "Position":
+        return cls(**meta)
+
+
+def _dtype(cfg: TrainConfig) -> torch.dtype:
+    return torch.float64 if cfg.train.dtype == "float64" else torch.float32
+
+
+class Trainer:
+    """Trains `cfg` into `run_dir`. `run(max_steps)` may stop early (after `max_steps` updates
+    of this session, with a checkpoint) and a new Trainer with `resume=True` continues.
+
+    Fitted state after `run`: `best_restart_`, `results_` (per restart), `grammar_path_`.
+    """
+
+    def __init__(self, cfg: TrainConfig, run_dir: str | Path, resume: bool = False,
+                 stream: TextIO | None = None, config_source: str | None = None):
+        self.cfg = cfg
+        self.run_dir = Path(run_dir)
+        self.resume = resume
+        self.stream = sys.stderr if stream is None else stream
+        self.config_source = config_source
+        self.dtype = _dtype(cfg)
+
+    # ---- setting up -------------------------------------------------------------------------
+
+    def _open(self) -> tuple[Position, dict[str, torch.Tensor]]:
+        check_writable(self.run_dir)
+        ckpt = self.run_dir / CHECKPOINT
+        tensors: dict[str, torch.Tensor] = {}
+        if self.resume:
+            tensors, meta = load_checkpoint(ckpt)
+            if meta.get("version") != CHECKPOINT_VERSION:
+                raise InputError(f"checkpoint version {meta.get('version')} is not "
+                                 f"{CHECKPOINT_VERSION}", path=str(ckpt))
+            position = Position.from_meta(meta["position"])
+            metrics = self.run_dir / "metrics.jsonl"
+            # Lines logged after the checkpoint belong to steps that will run again.
+            if metrics.exists():
+                with open(metrics, "r+b") as f:
+                    f.truncate(position.metrics_bytes)
+        else:
+            if ckpt.exists():
+                raise InputError("the run folder already holds a checkpoint; continue it with "
+                                 "--resume or choose another output.run_dir",
+                                 path=str(self.run_dir))
+            atomic_write_text(self.run_dir / "config.yaml", dump_config_yaml(
+                self.cfg, header=f"Resolved training config"
+                                 f"{' from ' + self.config_source if self.config_source else ''}"
+                                 f"; every option, defaults included."))
+            position = Position()
+        return position, tensors
+
+    def _note(self, text: str) -> None:
+        with open(self.run_dir / "train.log", "a", encoding="utf-8") as f:
+            f.write(f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}\n")
+        self.stream.write(text + "\n")
+        self.stream.flush()
+
+    def _names(self) -> tuple[list[str], list[str]]:
+        if self.warm is not None:
+            return list(self.warm.nonterminals), list(self.warm.preterminals)
+        return symbol_names(self.cfg.model.nonterminals, self.cfg.model.preterminals)
+
+    def _new_model(self, restart: int) -> torch.nn.Module:
+        m = self.cfg.model
+        gen = torch.Generator().manual_seed(self.cfg.train.seed + restart)
+        v = len(self.data.vocab)
+        if self.warm is not None:
+            model = tabular_from_grammar(self.warm, self.data.vocab, m.warm_start_mix,
+                                         dtype=self.dtype, source=str(m.warm_start))
+            return model
+        if m.parameterization == "neural":
+            return NeuralParams(m.nonterminals, m.preterminals, v, m.embedding_dim,
+                                m.residual_blocks, gen, self.dtype)
+        return TabularParams(m.nonterminals, m.preterminals, v, m.init_scale, gen, self.dtype)
+
+    # ---- batches ----------------------------------------------------------------------------
+
+    def length_cap(self, epoch: int) -> int | None:
+        """The curriculum's length cap at `epoch` (None: no cap)."""
+        c = self.cfg.curriculum
+        if c.start_length is None:
+            return None
+        return c.start_length + c.increment * (epoch // c.every_epochs)
+
+    def epoch_plan(self, restart: int, epoch: int) -> list[list[int]]:
+        """Training sentence indices of each batch of `epoch`, in the order they run. A pure
+        function of (config, restart, epoch): this is what makes resume exact."""
+        cap = self.length_cap(epoch)
+        ids = self.data.train_ids
+        keep = [i for i in range(len(ids)) if cap is None or len(ids[i]) <= cap]
+        shuffle = self.cfg.train.shuffle and self.cfg.train.method not in EM_FAMILY
+        seed = (self.cfg.train.seed + restart) * 100_003 + epoch
+        groups = length_batches([len(ids[i]) for i in keep], self.cfg.train.batch_size,
+                                shuffle=shuffle, seed=seed)
+        return [[keep[k] for k in g] for g in groups]
+
+    def _batch(self, indices: list[int]) -> Batch:
+        return make_batch(indices, self.data.train_ids, self.data.brackets, self.dtype)
+
+    # ---- evaluation -------------------------------------------------------------------------
+
+    def current_rules(self) -> RuleTensors:
+        """The grammar as it stands (VB: the posterior mean), without gradient."""
+        with torch.no_grad():
+            if self.cfg.train.method == "vb" and "vb.root" in self.stats:
+                return updates.vb_mean(self._stat_rules("vb"))
+            return RuleTensors(*(x.detach() for x in self.model.rules()))
+
+    def evaluate_dev(self, rules: RuleTensors) -> dict[str, float]:
+        """Dev log-likelihood per word, perplexity, and bracket F1 of MBR trees (with gold)."""
+        data = self.data
+        if not data.dev_ids:
+            return {}
+        total, words, unparsed = 0.0, 0, 0
+        predicted: list[Tree | None] = [None] * len(data.dev_ids)
+        for group in length_batches([len(s) for s in data.dev_ids], self.cfg.train.batch_size):
+            batch = make_batch(group, data.dev_ids, None, self.dtype)
+            if data.dev_trees is None:
+                logz = sentence_logliks(rules, batch)
+            else:
+                post = engine.posteriors(rules.root, rules.binary,
+                                         terminal_scores(rules.lexical, batch.ids),
+                                         batch.lengths)
+                logz = post.logz
+                for b, i in enumerate(group):
+                    spans = mbr_spans(post.spans[b], len(data.dev_ids[i]))
+                    predicted[i] = spans_to_tree(data.dev_words[i], spans)
+            ok = torch.isfinite(logz)
+            total += float(logz[ok].sum())
+            words += int(batch.lengths[ok].sum())
+            unparsed += int((~ok).sum())
+        out = {"dev/loglik_per_word": total / words if words else float("nan"),
+               "dev/unparsed": unparsed}
+        out["dev/perplexity"] = math.exp(-out["dev/loglik_per_word"]) if words else float("nan")
+        if data.dev_trees is not None:
+            scores = evaluate_brackets(predicted, data.dev_trees).systems["model"]
+            for name in ("sentence_f1", "corpus_f1"):
+                value = getattr(scores, name)
+                out[f"dev/{name}"] = float("nan") if value is None else value
+        return out
+
+    # ---- state of the method ----------------------------------------------------------------
+
+    def _stat_rules(self, prefix: str) -> RuleTensors:
+        return RuleTensors(*(self.stats[f"{prefix}.{k}"] for k in updates.KINDS))
+
+    def _set_stats(self, prefix: str, rules: RuleTensors) -> None:
+        for k, x in zip(updates.KINDS, rules):
+            self.stats[f"{prefix}.{k}"] = x
+
+    def _init_method(self) -> None:
+        self.stats: dict[str, torch.Tensor] = {}
+        self.optimizer = None
+        method = self.cfg.train.method
+        if method == "online_em":
+            # mu starts as the initial distributions themselves (rows summing to one), so a
+            # symbol the first minibatch does not reach keeps its initial distribution.
+            self._set_stats("mu", RuleTensors(*(x.exp() for x in self.current_rules())))
+        if method == "gradient":
+            o = self.cfg.optimizer
+            self.optimizer = torch.optim.Adam(self.model.parameters(), lr=o.lr,
+                                              betas=(o.beta1, o.beta2))
+
+    def _state_tensors(self) -> dict[str, torch.Tensor]:
+        tensors = {f"model.{k}": v for k, v in self.model.state_dict().items()}
+        tensors.update({f"stats.{k}": v for k, v in self.stats.items()})
+        if self.optimizer is not None:
+            for index, state in self.optimizer.state_dict()["state"].items():
+                for key, value in state.items():
+                    tensors[f"adam.{index}.{key}"] = torch.as_tensor(value)
+        return tensors
+
+    def _load_state(self, tensors: dict[str, torch.Tensor]) -> None:
+        self.model.load_state_dict({k[6:]: v for k, v in tensors.items()
+                                    if k.startswith("model.")})
+        self.stats = {k[6:]: v for k, v in tensors.items() if k.startswith("stats.")}
+        if self.optimizer is not None:
+            state: dict[int, dict] = {}
+            for key, value in tensors.items():
+                if key.startswith("adam."):
+                    _, index, name = key.split(".", 2)
+                    state.setdefault(int(index), {})[name] = value
+            groups = self.optimizer.state_dict()["param_groups"]
+            self.optimizer.load_state_dict({"state": state, "param_groups": groups})
+
+    def checkpoint(self, position: Position) -> None:
+        self.loggers.flush_jsonl()
+        position.metrics_bytes = (self.run_dir / "metrics.jsonl").stat().st_size \
+            if (self.run_dir / "metrics.jsonl").exists() else 0
+        save_checkpoint(self.run_dir / CHECKPOINT, self._state_tensors(),
+                        {"version": CHECKPOINT_VERSION, "config": config_to_dict(self.cfg),
+                         "position": position.to_meta()})
+
+    # ---- one update of each method ----------------------------------------------------------
+
+    def _em_epoch(self, plan: list[list[int]], progress: Progress | None) -> dict[str, float]:
+        """One iteration of batch EM, MAP-EM or VB over the epoch's sentences."""
+        method, alpha = self.cfg.train.method, self.cfg.prior.concentration
+        has_posterior = method == "vb" and "vb.root" in self.stats
+        rules = updates.vb_log_weights(self._stat_rules("vb")) if has_posterior \
+            else self.current_rules()
+        total = zero_counts(rules)
+        for group in plan:
+            total = add_counts(total, batch_counts(rules, self._batch(group)))
+            if progress is not None:
+                progress.update(len(group))
+        out = self._sums_metrics(_tally(total.loglik, total.words, total.sentences,
+                                        total.unparsed))
+        previous = self.current_rules()
+        if method == "em":
+            self.model.set_log_probs(updates.maximum_likelihood(total, previous))
+        elif method == "map_em":
+            self.model.set_log_probs(updates.dirichlet_map(total, alpha, previous))
+        else:
+            if has_posterior:
+                # ELBO = sum log Z~ - KL(q(theta) || prior), with q(z) optimal for q(theta)
+                # (Kurihara & Sato 2004); computed before q(theta) moves.
+                elbo = total.loglik - updates.dirichlet_kl(self._stat_rules("vb"), alpha)
+                out["train/elbo"] = elbo
+                out["train/elbo_per_word"] = elbo / max(total.words, 1)
+            self._set_stats("vb", updates.vb_posterior(total, alpha))
+            self.model.set_log_probs(updates.vb_mean(self._stat_rules("vb")))
+        self._check_finite()
+        return out
+
+    def _online_step(self, group: list[int], position: Position) -> dict[str, float]:
+        rules = self.current_rules()
+        counts = batch_counts(rules, self._batch(group))
+        rate = updates.stepwise_rate(position.restart_step, self.cfg.online.stepsize_power)
+        scale = len(self.data.train_ids) / len(group)
+        mu = updates.stepwise_update(self._stat_rules("mu"), counts, scale, rate)
+        self._set_stats("mu", mu)
+        # The M-step reads the running statistics as if they were one corpus's counts.
+        statistics = ExpectedCounts(mu.root, mu.binary, mu.lexical, 0.0, 0, 0, 0)
+        self.model.set_log_probs(updates.dirichlet_map(statistics, self.cfg.prior.concentration,
+                                                       rules))
+        self._check_finite()
+        return _tally(counts.loglik, counts.words, counts.sentences, counts.unparsed)
+
+    def _gradient_step(self, group: list[int], position: Position, total_steps: int
+                       ) -> tuple[dict[str, float], dict[str, float]]:
+        o = self.cfg.optimizer
+        batch = self._batch(group)
+        rules = self.model.rules()
+        logz = engine.log_partition(rules.root, rules.binary,
+                                    terminal_scores(rules.lexical, batch.ids), batch.lengths,
+                                    span_pot=batch.span_pot)                 # (B,)
+        if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
+            raise DivergedError("the log-likelihood of a batch is NaN or infinite")
+        parsed = torch.isfinite(logz)
+        words = int(batch.lengths[parsed].sum())
+        loss = -logz[parsed].sum() / max(words, 1)
+        self.optimizer.zero_grad()
+        loss.backward()
+        params = [p for p in self.model.parameters() if p.grad is not None]
+        if o.grad_clip is not None:
+            norm = float(torch.nn.utils.clip_grad_norm_(params, o.grad_clip))
+        else:
+            norm = float(torch.linalg.vector_norm(torch.stack(
+                [torch.linalg.vector_norm(p.grad) for p in params])))
+        if not math.isfinite(norm):
+            raise DivergedError("the gradient norm is NaN or infinite")
+        lr = learning_rate(position.restart_step, total_steps, o.lr, o.warmup_steps,
+                           o.schedule, o.min_lr_ratio)
+        for group_ in self.optimizer.param_groups:
+            group_["lr"] = lr
+        self.optimizer.step()
+        self._check_finite()
+        tally = _tally(float(logz[parsed].sum().detach()), words, int(parsed.sum()),
+                       int((~parsed).sum()))
+        return tally, {"lr": lr, "grad_norm": norm}
+
+    def _check_finite(self) -> None:
+        for name, p in self.model.named_parameters():
+            if bool(torch.isnan(p).any()) or bool((p == float("inf")).any()):
+                raise DivergedError(f"parameter {name} became NaN or infinite")
+
+    @staticmethod
+    def _sums_metrics(sums: dict) -> dict[str, float]:
+        """Epoch metrics from summed log-likelihood, words, sentences, unparsed. For batch EM
+        and VB the likelihood is that of the grammar before the epoch's update; for online EM
+        and gradient training it is summed over the minibatches as the grammar moved."""
+        words = sums["words"]
+        per_word = sums["loglik"] / words if words else float("nan")
+        return {"train/loglik_per_word": per_word,
+                "train/perplexity": math.exp(-per_word) if words else float("nan"),
+                "train/sentences": sums["sentences"], "train/unparsed": sums["unparsed"]}
+
+    # ---- the run ----------------------------------------------------------------------------
+
+    def run(self, max_steps: int | None = None) -> bool:
+        """Train until done (returns True) or until `max_steps` updates ran in this session
+        (returns False, after a checkpoint). Raises TrainingDiverged on NaN/inf."""
+        position, tensors = self._open()
+        self.data = load_data(self.cfg)
+        self.warm = None
+        if self.cfg.model.warm_start is not None:
+            self.warm = load_grammar(self.cfg.model.warm_start, renormalize=True)
+        self.nonterminals, self.preterminals = self._names()
+        if not self.resume:
+            self._note(f"treewright train: method {self.cfg.train.method}, "
+                       f"{self.cfg.model.parameterization} parameters, "
+                       f"{len(self.nonterminals)} nonterminals, {len(self.preterminals)} "
+                       f"preterminals, vocabulary {len(self.data.vocab)}")
+            for note in self.data.notes:
+                self._note(note)
+        else:
+            self._note(f"resuming at restart {position.restart}, epoch {position.epoch}, "
+                       f"batch {position.batch}")
+        self.loggers = _Loggers(self.run_dir, self.cfg)
+        try:
+            if not self.resume and self.data.dev_ids:
+                baseline = unigram_logprobs(self.data.train_ids, self.data.dev_ids,
+                                            len(self.data.vocab))
+                words = sum(map(len, self.data.dev_ids))
+                self.loggers.log({"baseline/unigram_dev_loglik_per_word":
+                                  sum(baseline) / words}, 0)
+            session = [0]
+            for restart in range(position.restart, self.cfg.train.restarts):
+                self.model = self._new_model(restart)
+                self._init_method()
+                # A checkpoint taken between restarts holds the finished restart's state.
+                if tensors and position.restart_step > 0:
+                    self._load_state(tensors)
+                tensors = {}
+                if not self._run_restart(restart, position, session, max_steps):
+                    return False
+                self._finish_restart(restart, position)
+            self._finish_run(position)
+            return True
+        finally:
+            self.loggers.close()
+
+    def _run_restart(self, restart: int, position: Position, session: list[int],
+                     max_steps: int | None) -> bool:
+        cfg = self.cfg
+        method = cfg.train.method
+        plans = [self.epoch_plan(restart, e) for e in range(cfg.train.epochs)]
+        total_steps = sum(map(len, plans))
+        while position.epoch < cfg.train.epochs:
+            epoch = position.epoch
+            plan = plans[epoch]
+            started = time.monotonic()
+            progress = None
+            if cfg.output.progress:
+                progress = Progress(sum(map(len, plan)), f"restart {restart} epoch {epoch}",
+                                    stream=self.stream)
+            try:
+                if method in EM_FAMILY:
+                    metrics = self._guard(lambda: self._em_epoch(plan, progress), position)
+                    position.step += 1
+                    position.restart_step += 1
+                    session[0] += 1
+                else:
+                    metrics = self._minibatch_epoch(plan, position, session, max_steps,
+                                                    total_steps, progress)
+                    if metrics is None:
+                        return False
+            finally:
+                if progress is not None:
+                    progress.close()
+            elapsed = max(time.monotonic() - started, 1e-9)
+            metrics["sentences_per_second"] = sum(map(len, plan)) / elapsed
+            metrics.update(self.evaluate_dev(self.current_rules()))
+            metrics.update(rule_entropies(self.current_rules(), self.nonterminals,
+                                          self.preterminals))
+            cap = self.length_cap(epoch)
+            metrics.update({"restart": restart, "epoch": epoch,
+                            "length_cap": cap if cap is not None else -1})
+            self.loggers.log_epoch(metrics, position.step)
+            objective = metrics.get("train/elbo_per_word", metrics["train/loglik_per_word"])
+            converged = (method in EM_FAMILY and cfg.train.tolerance > 0
+                         and position.previous_objective is not None
+                         and objective - position.previous_objective < cfg.train.tolerance
+                         and self.length_cap(epoch + 1) == cap)
+            position.previous_objective = objective
+            position.epoch = cfg.train.epochs if converged else epoch + 1
+            position.batch = 0
+            position.epoch_sums = Position().epoch_sums
+            self.checkpoint(position)
+            if converged:
+                self._note(f"restart {restart}: converged after epoch {epoch} (objective per "
+                           f"word improved by less than {cfg.train.tolerance})")
+            if max_steps is not None and session[0] >= max_steps and \
+                    position.epoch < cfg.train.epochs:
+                return False
+        return True
+
+    def _minibatch_epoch(self, plan, position: Position, session: list[int],
+                         max_steps: int | None, total_steps: int, progress) -> dict | None:
+        out = self.cfg.output
+        sums = position.epoch_sums
+        for k in range(position.batch, len(plan)):
+            group = plan[k]
+            if self.cfg.train.method == "online_em":
+                tally = self._guard(lambda: self._online_step(group, position), position)
+                extra: dict[str, float] = {}
+            else:
+                tally, extra = self._guard(
+                    lambda: self._gradient_step(group, position, total_steps), position)
+            for key, value in tally.items():
+                sums[key] += value
+            position.step += 1
+            position.restart_step += 1
+            position.batch = k + 1
+            session[0] += 1
+            if progress is not None:
+                progress.update(len(group))
+            if position.step % out.log_every_steps == 0:
+                step_metrics = {"step/loglik_per_word": tally["loglik"] / max(tally["words"], 1),
+                                **extra}
+                if self.cfg.train.method == "online_em":
+                    step_metrics["step/stepsize"] = updates.stepwise_rate(
+                        position.restart_step - 1, self.cfg.online.stepsize_power)
+                self.loggers.log(step_metrics, position.step)
+            last = k + 1 == len(plan)
+            every = out.checkpoint_every_steps
+            stop = max_steps is not None and session[0] >= max_steps
+            if not last and (stop or (every is not None and position.step % every == 0)):
+                self.checkpoint(position)
+            if stop and not last:
+                return None
+        return self._sums_metrics(sums)
+
+    def _guard(self, fn, position: Position):
+        try:
+            return fn()
+        except DivergedError as err:
+            ckpt = self.run_dir / CHECKPOINT
+            where = f"the last good checkpoint is {ckpt}" if ckpt.exists() else \
+                "no checkpoint had been written yet"
+            message = (f"training stopped at restart {position.restart}, epoch "
+                       f"{position.epoch}, step {position.step + 1}: {err}; {where}, "
+                       f"untouched. Lower optimizer.lr, set optimizer.grad_clip, or use "
+                       f"train.dtype=float64.")
+            self._note(message)
+            raise TrainingDiverged(message) from None
+
+    def _finish_restart(self, restart: int, position: Position) -> None:
+        rules = self.current_rules()
+        grammar = self._to_grammar(rules)
+        name = f"restart-{restart}.pcfg"
+        grammar.save(self.run_dir / name)
+        dev = self.evaluate_dev(rules)
+        train_ll = position.previous_objective
+        position.finished.append({"restart": restart, "grammar": name,
+                                  "dev_loglik_per_word": dev.get("dev/loglik_per_word"),
+                                  "final_objective_per_word": train_ll})
+        self._note(f"restart {restart} finished: dev log-likelihood per word "
+                   f"{dev.get('dev/loglik_per_word')}, training objective per word {train_ll}")
+        position.restart = restart + 1
+        position.epoch = position.batch = position.restart_step = 0
+        position.previous_objective = None
+        self.checkpoint(position)
+
+    def _to_grammar(self, rules: RuleTensors):
+        from treewright.params.tabular import rules_to_grammar
+        start = self.warm.start if self.warm is not None else "ROOT"
+        return rules_to_grammar(rules, self.nonterminals, self.preterminals, self.data.vocab,
+                                start)
+
+    def _finish_run(self, position: Position) -> None:
+        def key(r: dict) -> float:
+            value = r["dev_loglik_per_word"] if self.data.dev_ids else \
+                r["final_objective_per_word"]
+            return float("-inf") if value is None or math.isnan(value) else value
+
+        best = max(position.finished, key=key)
+        # Copy the bytes rather than re-render: the result is exactly the restart's file.
+        shutil.copyfile(self.run_dir / best["grammar"], self.run_dir / "grammar.pcfg")
+        result = {"best_restart": best["restart"], "selected_by": "dev log-likelihood"
+                  if self.data.dev_ids else "training objective",
+                  "restarts": position.finished}
+        atomic_write_text(self.run_dir / "result.json", json.dumps(result, indent=2) + "\n")
+        self._note(f"kept restart {best['restart']}; grammar written to "
+                   f"{self.run_dir / 'grammar.pcfg'}")
+        self.best_restart_ = best["restart"]
+        self.results_ = position.finished
+        self.grammar_path_ = self.run_dir / "grammar.pcfg"
+
+
+def _tally(loglik: float, words: int, sentences: int, unparsed: int) -> dict:
+    return {"loglik": loglik, "words": words, "sentences": sentences, "unparsed": unparsed}
+
+
+class _Loggers:
+    """metrics.jsonl and TensorBoard get everything; stdout gets each epoch's headline numbers."""
+
+    HEADLINE = ("restart", "epoch", "train/loglik_per_word", "train/perplexity",
+                "train/elbo_per_word", "dev/loglik_per_word", "dev/perplexity",
+                "dev/sentence_f1", "sentences_per_second")
+
+    def __init__(self, run_dir: Path, cfg: TrainConfig):
+        self.jsonl = JsonlLogger(run_dir / "metrics.jsonl")
+        loggers = [self.jsonl]
+        if cfg.output.tensorboard:
+            loggers.append(TensorBoardLogger(run_dir / "tensorboard"))
+        self.all = MultiLogger(loggers)
+        self.stdout = StdoutLogger() if cfg.output.stdout_metrics else None
+
+    def log(self, metrics: dict, step: int) -> None:
+        self.all.log(metrics, step)
+
+    def log_epoch(self, metrics: dict, step: int) -> None:
+        self.all.log(metrics, step)
+        if self.stdout is not None:
+            self.stdout.log({k: metrics[k] for k in self.HEADLINE if k in metrics}, step)
+
+    def flush_jsonl(self) -> None:
+        self.jsonl.file.flush()
+
+    def close(self) -> None:
+        self.all.close()
+
+
+def train(cfg: TrainConfig, run_dir: str | Path, stream: TextIO | None = None,
+          config_source: str | None = None) -> Trainer:
+    """Train a fresh run into `run_dir` and return the fitted Trainer."""
+    trainer = Trainer(cfg, run_dir, stream=stream, config_source=config_source)
+    trainer.run()
+    return trainer
+
+
+def resume(run_dir: str | Path, stream: TextIO | None = None,
+           max_steps: int | None = None) -> tuple[Trainer, bool]:
+    """Continue the run in `run_dir` from its checkpoint (config taken from the checkpoint)."""
+    ckpt = Path(run_dir) / CHECKPOINT
+    _, meta = load_checkpoint(ckpt)
+    cfg = train_config_from_dict(meta["config"], str(ckpt))
+    trainer = Trainer(cfg, run_dir, resume=True, stream=stream)
+    return trainer, trainer.run(max_steps)

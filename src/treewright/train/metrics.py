@@ -1,0 +1,45 @@
+"""Numbers reported during training: rule entropies and the unigram baseline."""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from typing import Sequence
+
+import torch
+
+from treewright.params.tabular import RuleTensors
+
+
+def _entropy_rows(logp: torch.Tensor) -> torch.Tensor:
+    """(R,) entropy in nats of each row of log-probabilities (R, K); 0 log 0 = 0."""
+    p = logp.exp()
+    return -(p * logp.masked_fill(p == 0, 0.0)).sum(1)
+
+
+def rule_entropies(rules: RuleTensors, nonterminals: Sequence[str],
+                   preterminals: Sequence[str]) -> dict[str, float]:
+    """Entropy (nats) of every symbol's rule distribution, with mean and max per kind:
+    `entropy/root`, `entropy/binary_mean`, `entropy/binary_max`, `entropy/lexical_mean`,
+    `entropy/lexical_max`, and `entropy/binary/<symbol>`, `entropy/lexical/<symbol>`."""
+    with torch.no_grad():
+        root = _entropy_rows(rules.root.double()[None])[0]
+        binary = _entropy_rows(rules.binary.double().flatten(1))
+        lexical = _entropy_rows(rules.lexical.double())
+    out = {"entropy/root": float(root),
+           "entropy/binary_mean": float(binary.mean()), "entropy/binary_max": float(binary.max()),
+           "entropy/lexical_mean": float(lexical.mean()),
+           "entropy/lexical_max": float(lexical.max())}
+    out.update({f"entropy/binary/{name}": float(h) for name, h in zip(nonterminals, binary)})
+    out.update({f"entropy/lexical/{name}": float(h) for name, h in zip(preterminals, lexical)})
+    return out
+
+
+def unigram_logprobs(train_ids: Sequence[Sequence[int]], eval_ids: Sequence[Sequence[int]],
+                     vocab_size: int) -> list[float]:
+    """Per-sentence log-probability under an add-one (Laplace) unigram model estimated on
+    `train_ids` over `vocab_size` word types (common practice as the baseline an induced
+    grammar has to beat)."""
+    counts = Counter(w for s in train_ids for w in s)
+    total = sum(counts.values()) + vocab_size
+    return [sum(math.log((counts[w] + 1) / total) for w in s) for s in eval_ids]
