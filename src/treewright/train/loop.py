@@ -354,6 +354,11 @@ class Trainer:
         if method == "em":
             self.model.set_log_probs(updates.maximum_likelihood(total, previous))
         elif method == "map_em":
+            # The objective MAP-EM climbs: log p(x | theta) + log p(theta), the prior's
+            # normalising constant left out.
+            log_prior = (alpha - 1) * sum(float(x.sum()) for x in previous)
+            out["train/log_posterior"] = total.loglik + log_prior
+            out["train/log_posterior_per_word"] = out["train/log_posterior"] / max(total.words, 1)
             self.model.set_log_probs(updates.dirichlet_map(total, alpha, previous))
         else:
             if has_posterior:
@@ -481,6 +486,11 @@ class Trainer:
         method = cfg.train.method
         plans = [self.epoch_plan(restart, e) for e in range(cfg.train.epochs)]
         total_steps = sum(map(len, plans))
+        if position.restart_step == 0 and position.epoch == 0 and self.data.dev_ids:
+            # The starting point, so every run shows what training gained over it.
+            start = self.evaluate_dev(self.current_rules())
+            self.loggers.log({"restart": restart, **{k.replace("dev/", "init/dev_"): v
+                                                     for k, v in start.items()}}, position.step)
         while position.epoch < cfg.train.epochs:
             epoch = position.epoch
             plan = plans[epoch]
@@ -512,7 +522,8 @@ class Trainer:
             metrics.update({"restart": restart, "epoch": epoch,
                             "length_cap": cap if cap is not None else -1})
             self.loggers.log_epoch(metrics, position.step)
-            objective = metrics.get("train/elbo_per_word", metrics["train/loglik_per_word"])
+            objective = metrics.get("train/elbo_per_word", metrics.get(
+                "train/log_posterior_per_word", metrics["train/loglik_per_word"]))
             converged = (method in EM_FAMILY and cfg.train.tolerance > 0
                          and position.previous_objective is not None
                          and objective - position.previous_objective < cfg.train.tolerance
