@@ -283,7 +283,7 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
             left_w = (left * w_k).view(PB, K, Q)
             g_left = torch.bmm(right.reshape(PB, K, Q), g_pairs.transpose(1, 2))
             g_right = torch.bmm(left_w, g_pairs)
-            adj_start[0:P, :, lo:hi + 1] += g_left.view(P, B, K, Q) * w_k
+            adj_start[0:P, :, lo:hi + 1].addcmul_(g_left.view(P, B, K, Q), w_k)
             adj_end[w:N + 1, :, N - w + lo:N - w + hi + 1] += g_right.view(P, B, K, Q)
         if w - 1 >= min_w:
             g_np = (g.view(P, B, Q) * weight[..., w - 2:w - 1])
@@ -303,11 +303,14 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
             grad_right_pp = chart.term[0:P].unsqueeze(-1) * g_pp.unsqueeze(-2)  # (P, B, T, Q)
 
     # Per-position matrix gradients: [pos, b][X, A] = sum over spans of child[X] * g[A].
-    grad_right_mats = torch.zeros_like(saved.right_mats)                # (N, B, Q+T, Q)
+    grad_right_mats = torch.empty_like(saved.right_mats)                # (N, B, Q+T, Q)
+    grad_right_mats[0, :, Q:] = 0.0  # no preterminal pair ends at word 0
     grad_right_mats[:, :, :Q] = torch.bmm(
         chart.by_end[0:N].view(N * B, N + 1, Q).transpose(1, 2),
         adj_np.view(N * B, N + 1, Q)).view(N, B, Q, Q)
-    if grad_right_pp is not None:
+    if grad_right_pp is None:
+        grad_right_mats[:, :, Q:] = 0.0
+    else:
         grad_right_mats[1:N, :, Q:] = grad_right_pp
     grad_left_mats = torch.bmm(
         chart.by_start[1:N + 1].view(N * B, N + 1, Q).transpose(1, 2),
