@@ -1,0 +1,227 @@
+"""Decoders against brute force: every binary bracketing, every labeling, every tree.
+
+References: exhaustive enumeration of the trees of small seeded grammars (brute force) gives
+p(tree, sentence) for every tree; labeled span marginals, anchored coarse-rule posteriors, the
+MBR objective and the max-rule-product objective (Petrov & Klein 2007, section 3) are computed
+from that list directly, with no inside or outside pass.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections import defaultdict
+from functools import lru_cache
+
+import pytest
+import torch
+
+from treewright import inference
+from treewright.decode import (coarse_name, decode, max_rule_product, mbr_decode, mbr_spans,
+                               sentence_tables, tree_logprob_summed)
+from treewright.grammar import Grammar
+from treewright.trees import Tree
+from treewright.vocab import Vocabulary
+
+
+def make_grammar(nonterminals, preterminals, num_words, seed, nt_emit=False) -> Grammar:
+    """A normalized random grammar over words w0.. (seeded)."""
+    gen = torch.Generator().manual_seed(seed)
+    nt, t = len(nonterminals), len(preterminals)
+    s = nt + t
+    dt = torch.float64
+    binary = torch.rand(nt, s, s, generator=gen, dtype=dt) + 0.05
+    lexical = torch.rand(s, num_words, generator=gen, dtype=dt) + 0.05
+    if not nt_emit:
+        lexical[:nt] = 0.0
+    totals = binary.flatten(1).sum(1) + lexical[:nt].sum(1)
+    binary = binary / totals[:, None, None]
+    lexical[:nt] = lexical[:nt] / totals[:, None]
+    lexical[nt:] = lexical[nt:] / lexical[nt:].sum(1, keepdim=True)
+    root = torch.rand(nt, generator=gen, dtype=dt) + 0.1
+    root = root / root.sum()
+    return Grammar(list(nonterminals), list(preterminals),
+                   Vocabulary([f"w{i}" for i in range(num_words)], unk=None),
+                   root.log(), binary.log(), lexical.log(), start="TOP")
+
+
+@lru_cache(maxsize=None)
+def bracketings(i: int, j: int) -> tuple:
+    """Every binary bracketing of words i..j as a tuple of spans (i, k, j) of internal nodes."""
+    if j - i == 1:
+        return ((),)
+    out = []
+    for k in range(i + 1, j):
+        for left in bracketings(i, k):
+            for right in bracketings(k, j):
+                out.append(((i, k, j),) + left + right)
+    return tuple(out)
+
+
+def all_trees(g: Grammar, words):
+    """(probability, binary nodes [(i, k, j, A, B, C)], word labels, top) of every fine tree."""
+    symbols = g.symbols
+    nt = len(g.nonterminals)
+    ids = g.vocab.encode(words)
+    n = len(words)
+    emitters = [x for x in range(len(symbols)) if bool(torch.isfinite(g.lexical[x]).any())]
+    leaf_choices = [x for x in emitters if x < nt] if n == 1 else emitters
+    for brackets in bracketings(0, n):
+        for internal in itertools.product(range(nt), repeat=len(brackets)):
+            for leaves in itertools.product(leaf_choices, repeat=n):
+                label = {(i, i + 1): leaves[i] for i in range(n)}
+                label.update({(i, j): a for (i, _, j), a in zip(brackets, internal)})
+                logp = float(g.root[label[(0, n)]])
+                nodes = []
+                for (i, k, j) in brackets:
+                    a, b, c = label[(i, j)], label[(i, k)], label[(k, j)]
+                    logp += float(g.binary[a, b, c])
+                    nodes.append((i, k, j, a, b, c))
+                logp += sum(float(g.lexical[leaves[i], ids[i]]) for i in range(n))
+                if logp > -math.inf:
+                    yield math.exp(logp), nodes, leaves, label[(0, n)]
+
+
+REFINED = make_grammar(["S@0", "S@1", "X@0"], ["P@0", "P@1", "Q@0"], 3, seed=7)
+SENTENCES = [["w0", "w1"], ["w2", "w0", "w1"], ["w1", "w2", "w0", "w1"]]
+
+
+def test_mbr_spans_matches_every_bracketing():
+    # Brute force: the best sum over all binary bracketings of n <= 7 words, on random scores.
+    gen = torch.Generator().manual_seed(3)
+    for n in range(2, 8):
+        scores = torch.rand(n + 1, n + 1, generator=gen, dtype=torch.float64)
+        best = max(sum(float(scores[i, j - i]) for i, _, j in b) for b in bracketings(0, n))
+        spans = mbr_spans(scores, n)
+        assert len(spans) == n - 1  # a binary tree of n words has n-1 wider spans (fact of trade)
+        assert sum(float(scores[i, j - i]) for i, j in spans) == pytest.approx(best, abs=1e-12)
+        assert (0, n) in spans
+
+
+def test_label_marginals_match_enumeration():
+    # Brute force: p(symbol over span | sentence) summed over the trees that contain it.
+    g = make_grammar(["A", "B"], ["P", "R"], 3, seed=1, nt_emit=True)
+    words = ["w2", "w0", "w1", "w0"]
+    tables = sentence_tables(g, [words])[0]
+    expect = defaultdict(float)
+    total = 0.0
+    for p, nodes, leaves, _ in all_trees(g, words):
+        total += p
+        for i, _, j, a, _, _ in nodes:
+            expect[(i, j, a)] += p
+        for i, x in enumerate(leaves):
+            expect[(i, i + 1, x)] += p
+    assert tables.logz == pytest.approx(math.log(total), abs=1e-10)
+    marg = tables.label_marginals()
+    n = len(words)
+    for i in range(n):
+        for j in range(i + 1, n + 1):
+            for x in range(g.num_symbols):
+                assert float(marg[i, j - i, x]) == pytest.approx(expect[(i, j, x)] / total,
+                                                                abs=1e-10)
+
+
+def test_mbr_tree_maximizes_expected_correct_spans():
+    # Brute force: span marginals from the tree list; the best bracketing's summed marginals.
+    g = make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5)
+    for words in SENTENCES:
+        n = len(words)
+        span_p = defaultdict(float)
+        total = 0.0
+        for p, nodes, _, _ in all_trees(g, words):
+            total += p
+            for i, _, j, *_ in nodes:
+                span_p[(i, j)] += p
+        best = max(sum(span_p[(i, j)] / total for i, _, j in b) for b in bracketings(0, n))
+        result = decode(g, [words], "mbr")[0]
+        assert result.score == pytest.approx(best, abs=1e-10)
+        tree_spans = {(i, j) for i, j, _ in result.tree.labeled_spans() if j - i >= 2}
+        assert sum(span_p[s] for s in tree_spans) / total == pytest.approx(best, abs=1e-10)
+        assert result.tree.leaves() == words
+        # The tree's probability is the grammar's own (inference.tree_logprob, another route).
+        assert result.tree_logprob == pytest.approx(inference.tree_logprob(g, result.tree))
+    assert [t.to_string() for t in mbr_decode(g, SENTENCES)] == \
+        [d.tree.to_string() for d in decode(g, SENTENCES, "mbr")]
+
+
+def test_viterbi_decoder_is_the_most_probable_tree():
+    # Brute force: the maximum of p(tree, sentence) over the tree list.
+    g = make_grammar(["A", "B"], ["P", "R"], 3, seed=2)
+    for words in SENTENCES:
+        best = max(p for p, *_ in all_trees(g, words))
+        total = sum(p for p, *_ in all_trees(g, words))
+        result = decode(g, [words], "viterbi")[0]
+        assert result.tree_logprob == pytest.approx(math.log(best), abs=1e-10)
+        assert result.posterior == pytest.approx(best / total, abs=1e-10)
+
+
+def coarse_objective(g, words):
+    """Brute force max-rule-product: anchored coarse-rule posteriors from the tree list, then
+    the best coarse tree over every bracketing and coarse labeling."""
+    symbols = g.symbols
+    nt = len(g.nonterminals)
+    cname = [coarse_name(s) for s in symbols]
+    n = len(words)
+    rule_q = defaultdict(float)   # (i, k, j, a, b, c) coarse
+    word_q = defaultdict(float)   # (i, x) coarse
+    top_q = defaultdict(float)
+    total = 0.0
+    for p, nodes, leaves, top in all_trees(g, words):
+        total += p
+        for i, k, j, a, b, c in nodes:
+            rule_q[(i, k, j, cname[a], cname[b], cname[c])] += p
+        for i, x in enumerate(leaves):
+            word_q[(i, cname[x])] += p
+        top_q[cname[top]] += p
+    parents = sorted({cname[a] for a in range(nt)})
+    everyone = sorted(set(cname))
+    best, best_tree = -math.inf, None
+    for brackets in bracketings(0, n):
+        for internal in itertools.product(parents, repeat=len(brackets)):
+            for leaves in itertools.product(everyone, repeat=n):
+                label = {(i, i + 1): leaves[i] for i in range(n)}
+                label.update({(i, j): a for (i, _, j), a in zip(brackets, internal)})
+                q = top_q[label[(0, n)]] / total
+                for i, k, j in brackets:
+                    q *= rule_q[(i, k, j, label[(i, j)], label[(i, k)], label[(k, j)])] / total
+                for i in range(n):
+                    q *= word_q[(i, leaves[i])] / total
+                if q > best:
+                    best, best_tree = q, sorted((i, j, a) for (i, j), a in label.items())
+    return math.log(best), best_tree
+
+
+def test_max_rule_product_matches_enumeration():
+    for words in SENTENCES:
+        expect_value, expect_spans = coarse_objective(REFINED, words)
+        tables = sentence_tables(REFINED, [words])[0]
+        spans, value = max_rule_product(REFINED, tables, len(words))
+        assert value == pytest.approx(expect_value, abs=1e-9)
+        assert sorted(spans) == expect_spans
+        result = decode(REFINED, [words], "max-rule-product")[0]
+        assert all("@" not in label for _, _, label in result.tree.labeled_spans())
+
+
+def test_summed_tree_probability_over_refinements():
+    # Brute force: sum p(fine tree) over the fine trees whose coarse image is the decoded tree.
+    cname = [coarse_name(s) for s in REFINED.symbols]
+    for words in SENTENCES:
+        tree = decode(REFINED, [words], "max-rule-product")[0].tree
+        target = sorted(tree.labeled_spans())
+        total = 0.0
+        for p, nodes, leaves, _ in all_trees(REFINED, words):
+            spans = [(i, j, cname[a]) for i, _, j, a, _, _ in nodes]
+            spans += [(i, i + 1, cname[x]) for i, x in enumerate(leaves)]
+            if sorted(spans) == target:
+                total += p
+        assert tree_logprob_summed(REFINED, tree) == pytest.approx(math.log(total), abs=1e-10)
+
+
+def test_unparseable_sentence_is_reported_not_dropped():
+    g = make_grammar(["A"], ["P"], 2, seed=0)
+    g.lexical[1, 1] = -math.inf  # the only preterminal can no longer emit w1
+    out = decode(g, [["w0", "w1"], ["w0", "w0"]], "mbr")
+    assert out[0].tree is None and out[0].log_likelihood == -math.inf and out[0].posterior == 0
+    assert out[1].tree == Tree("A", [Tree("P", ["w0"]), Tree("P", ["w0"])])
+    with pytest.raises(ValueError, match="unknown decoder"):
+        decode(g, [["w0"]], "best")
