@@ -582,12 +582,11 @@ class Trainer:
             return fn()
         except DivergedError as err:
             ckpt = self.run_dir / CHECKPOINT
-            where = f"the last good checkpoint is {ckpt}" if ckpt.exists() else \
-                "no checkpoint had been written yet"
+            where = f"the last good checkpoint, {ckpt}, is left as it was" if ckpt.exists() \
+                else "no checkpoint had been written yet"
             message = (f"training stopped at restart {position.restart}, epoch "
-                       f"{position.epoch}, step {position.step + 1}: {err}; {where}, "
-                       f"untouched. Lower optimizer.lr, set optimizer.grad_clip, or use "
-                       f"train.dtype=float64.")
+                       f"{position.epoch}, step {position.step + 1}: {err}; {where}. Lower "
+                       f"optimizer.lr, set optimizer.grad_clip, or use train.dtype=float64.")
             self._note(message)
             raise TrainingDiverged(message) from None
 
