@@ -1,4 +1,4 @@
-"""treewright parse: the most probable tree of each sentence."""
+"""treewright parse: one tree per sentence, by a chosen decoder."""
 
 from __future__ import annotations
 
@@ -6,41 +6,63 @@ import argparse
 
 EXAMPLES = """examples:
   treewright parse examples/astronomers.pcfg sentences.txt
+  treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr --scores
   echo "astronomers saw stars with ears" | treewright parse examples/astronomers.pcfg - --scores
 
+decoders:
+  viterbi           the most probable tree (the default)
+  mbr               the binary tree maximizing the summed posterior span marginals, each span
+                    labeled with its most probable symbol (the usual decoder for induced grammars)
+  max-rule-product  for refined grammars (symbols NAME@k): the tree of coarse symbols maximizing
+                    the product of posterior coarse-rule marginals
+
 One bracketed tree per input line. A sentence with no parse prints '(NOPARSE w1 w2 ...)' so the
-output keeps one line per sentence, and the reason goes to standard error.
+output keeps one line per sentence, and the reason goes to standard error. With --scores each line
+gets a tab, log p(tree, sentence), a tab and p(tree | sentence); with --objective, a third tab and
+the decoder's own objective (log p(tree), expected correct spans, or log rule-posterior product).
 """
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
+    from treewright.decode import DECODERS
+
     p.add_argument("grammar", help="grammar file (the treewright grammar text format)")
     p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
+    p.add_argument("--decoder", choices=DECODERS, default="viterbi",
+                   help="how to choose the tree (default: viterbi)")
     p.add_argument("--scores", action="store_true",
-                   help="append a tab and the tree's log-probability to each line")
+                   help="append the tree's log-probability and its posterior to each line")
+    p.add_argument("--objective", action="store_true",
+                   help="append the decoder's objective value to each line")
+    p.add_argument("--batch-size", type=int, default=16)
 
 
 def run(args) -> int:
     import sys
 
     from treewright.cli.common import read_sentences
+    from treewright.decode import decode
     from treewright.grammar import load_grammar
-    from treewright.inference import viterbi_parse
 
     grammar = load_grammar(args.grammar)
     lines = read_sentences(args.text)
+    results = decode(grammar, [w for _, w in lines], args.decoder, args.batch_size)
     unparsed = 0
-    for (line, words), (tree, logp) in zip(lines, viterbi_parse(grammar, [w for _, w in lines])):
-        if tree is None:
+    for (line, words), result in zip(lines, results):
+        if result.tree is None:
             unparsed += 1
             unknown = [w for w in words if w not in grammar.vocab]
             why = f"unknown words {unknown}" if unknown else "no tree covers it"
             where = "<stdin>" if args.text == "-" else args.text
             print(f"{where}, line {line}: no parse ({why})", file=sys.stderr)
-            text = "(NOPARSE " + " ".join(words) + ")"
+            fields = ["(NOPARSE " + " ".join(words) + ")"]
         else:
-            text = tree.to_string()
-        print(f"{text}\t{logp!r}" if args.scores else text)
+            fields = [result.tree.to_string()]
+        if args.scores:
+            fields += [repr(result.tree_logprob), repr(result.posterior)]
+        if args.objective:
+            fields.append(repr(result.score))
+        print("\t".join(fields))
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
     return 0
