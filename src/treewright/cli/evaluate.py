@@ -1,0 +1,98 @@
+"""treewright evaluate: bracket F1 of predicted trees against gold, beside the baselines."""
+
+from __future__ import annotations
+
+import argparse
+
+EXAMPLES = """examples:
+  treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr > dev.pred
+  treewright evaluate dev.pred dev.trees
+  treewright evaluate dev.pred dev.conllu --json scores.json --max-length 10
+  treewright evaluate dev.pred dev.trees --grammar runs/demo/grammar.pcfg --text test.txt
+
+PRED holds one bracketed tree per line, as `treewright parse` writes them ('(NOPARSE ...)' lines
+count as trees without brackets). GOLD holds bracketed trees or CoNLL-U (dependency subtrees
+become the gold spans). The left-branching, right-branching, random and binary upper-bound trees
+are always scored beside the model on the same sentences. Tags (many-to-one, V-measure) are
+scored when both sides have preterminals/tags. Inputs that do not match stop with an error that
+names the first mismatching line.
+"""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("pred", help="predicted bracketed trees, one per line")
+    p.add_argument("gold", help="gold trees: bracketed trees or CoNLL-U")
+    p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
+    p.add_argument("--json", metavar="PATH",
+                   help="also write every score and convention as JSON ('-': stdout, no table)")
+    p.add_argument("--grammar", help="grammar file, for the held-out likelihood of --text")
+    p.add_argument("--text", help="raw text, one sentence per line, scored under --grammar")
+    p.add_argument("--no-tags", action="store_true", help="skip the tag evaluation")
+    conv = p.add_argument_group("bracket conventions (defaults: the usual unsupervised setup)")
+    conv.add_argument("--include-whole-span", action="store_true",
+                      help="count the whole-sentence span (default: not counted)")
+    conv.add_argument("--keep-punctuation", action="store_true",
+                      help="score punctuation words too (default: removed from both sides)")
+    conv.add_argument("--punctuation-tags", metavar="T1,T2",
+                      help="gold tags that mark punctuation (default: PUNCT and the Penn ones)")
+    conv.add_argument("--punctuation-tokens", metavar="W1,W2",
+                      help="punctuation tokens, used for gold sentences without tags")
+    conv.add_argument("--max-length", type=int, metavar="N",
+                      help="only sentences of at most N words after punctuation removal")
+    conv.add_argument("--empty-sentences", choices=("skip", "one"), default="skip",
+                      help="a sentence with no span on either side: leave out of the means "
+                           "(skip) or count as F1 = 1 (one)")
+    conv.add_argument("--labeled", choices=("auto", "yes", "no"), default="auto",
+                      help="labeled scores; auto: when every predicted label is a gold label")
+    conv.add_argument("--length-buckets", metavar="10,20,...", default="10,20,30,40",
+                      help="upper edges of the sentence-length buckets")
+    conv.add_argument("--random-draws", type=int, default=10,
+                      help="draws averaged by the random baseline (default 10)")
+    conv.add_argument("--random-seed", type=int, default=0)
+
+
+def conventions_from_args(args):
+    from treewright.errors import InputError
+    from treewright.evaluation import BracketConventions
+
+    def words(text):
+        return frozenset(x for x in text.split(",") if x)
+
+    try:
+        buckets = tuple(int(x) for x in args.length_buckets.split(",") if x)
+    except ValueError:
+        raise InputError(f"--length-buckets wants integers like 10,20,30, not "
+                         f"{args.length_buckets!r}") from None
+    extra = {}
+    if args.punctuation_tags is not None:
+        extra["punctuation_tags"] = words(args.punctuation_tags)
+    if args.punctuation_tokens is not None:
+        extra["punctuation_tokens"] = words(args.punctuation_tokens)
+    return BracketConventions(
+        include_whole_span=args.include_whole_span, remove_punctuation=not args.keep_punctuation,
+        max_length=args.max_length, empty_sentences=args.empty_sentences,
+        labeled={"auto": None, "yes": True, "no": False}[args.labeled],
+        length_buckets=buckets, random_draws=args.random_draws, random_seed=args.random_seed,
+        **extra)
+
+
+def run(args) -> int:
+    from treewright.cli.common import dumps
+    from treewright.errors import InputError
+    from treewright.report.scoring import evaluate_files
+    from treewright.safeio import atomic_write_text
+
+    if (args.grammar is None) != (args.text is None):
+        raise InputError("--grammar and --text go together (the text is scored under the grammar)")
+    report = evaluate_files(args.pred, args.gold, conventions_from_args(args),
+                            gold_format=args.gold_format, grammar_path=args.grammar,
+                            text_path=args.text, tags=not args.no_tags)
+    text = dumps(report.to_dict())
+    if args.json == "-":
+        print(text)
+        return 0
+    print(report.format_table())
+    if args.json is not None:
+        from pathlib import Path
+        atomic_write_text(Path(args.json), text + "\n")
+    return 0

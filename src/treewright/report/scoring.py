@@ -1,0 +1,197 @@
+"""Evaluation from files: predicted trees against gold trees, tags and held-out likelihood.
+
+This wires the metric functions of `treewright.evaluation` to the corpus readers. Brackets use
+`evaluate_brackets` (the function training uses for dev F1), so the baselines are always scored
+beside the model on the same sentences. Tags are scored when both sides have them; held-out
+likelihood when a grammar and a text file are given. Every sentence read is evaluated or
+counted: a sentence the reader would skip, or a predicted/gold pair whose words differ, stops
+with an `InputError` naming the file and line.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Sequence
+
+from treewright.corpus import ReadOptions, Sentence, read_corpus
+from treewright.errors import InputError
+from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracketing,
+                                   LikelihoodScores, TagScores, evaluate_brackets, evaluate_tags,
+                                   heldout_likelihood, preterminal_labels)
+from treewright.trees import Tree, escape_token
+
+# The label `treewright parse` writes over a sentence it could not parse.
+NOPARSE = "NOPARSE"
+
+# Predicted trees are read as written: induced labels are never function-tag-stripped.
+PRED_OPTIONS = ReadOptions(remove_empty=False, strip_function_tags=False)
+# Gold CoNLL-U sentences that are not projective are lifted rather than skipped, so that every
+# gold sentence stays aligned with its prediction (the count is reported).
+GOLD_OPTIONS = ReadOptions(nonprojective="lift")
+
+
+@dataclass
+class EvaluationReport:
+    """Everything `treewright evaluate` reports. Notes say why a part is missing."""
+    brackets: BracketEvaluation
+    tags: TagScores | None = None
+    tags_note: str = ""
+    likelihood: LikelihoodScores | None = None
+    likelihood_note: str = ""
+    counts: dict[str, int] = field(default_factory=dict)
+    sources: dict[str, str | None] = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {"sources": dict(self.sources), "counts": dict(self.counts),
+                "brackets": self.brackets.to_dict(),
+                "tags": None if self.tags is None else self.tags.to_dict(),
+                "tags_note": self.tags_note,
+                "likelihood": None if self.likelihood is None else self.likelihood.to_dict(),
+                "likelihood_note": self.likelihood_note}
+
+    def format_table(self) -> str:
+        lines = [f"{k}: {v}" for k, v in self.sources.items() if v is not None]
+        lines += [f"{k}: {v}" for k, v in self.counts.items()]
+        lines += ["", self.brackets.format_table(), "", "Tags"]
+        if self.tags is None:
+            lines.append(f"  {self.tags_note}")
+        else:
+            t = self.tags
+            lines.append(f"  many-to-one {100 * t.many_to_one:.1f}%, V-measure {100 * t.v_measure:.1f}%"
+                         f" (homogeneity {100 * t.homogeneity:.1f}%, completeness "
+                         f"{100 * t.completeness:.1f}%), {t.tokens} tokens, {t.induced_labels} "
+                         f"induced labels, {t.gold_labels} gold tags")
+            if self.tags_note:
+                lines.append(f"  {self.tags_note}")
+        lines += ["", "Held-out likelihood"]
+        if self.likelihood is None:
+            lines.append(f"  {self.likelihood_note}")
+        else:
+            s = self.likelihood
+            lines.append(f"  {s.logprob_per_word:.4f} nats per word, perplexity {s.perplexity:.2f}, "
+                         f"{s.sentences} sentences, {s.total_words} words, "
+                         f"{s.zero_probability_sentences} of probability zero")
+        return "\n".join(lines)
+
+
+def read_all(path: str | Path, fmt: str, options: ReadOptions, role: str) -> list[Sentence]:
+    """Every sentence of a file, or InputError naming the first record the reader skipped
+    (a skipped record would shift every later sentence against the other file)."""
+    corpus = read_corpus(path, fmt, options)
+    skipped = corpus.report.skipped
+    if skipped or corpus.set_aside:
+        first = skipped[0] if skipped else corpus.set_aside[0]
+        reason = getattr(first, "reason", "too_long")
+        raise InputError(f"{role} sentence cannot be evaluated ({reason})", path=str(path),
+                         line=first.line)
+    return corpus.sentences
+
+
+def comparable(tree: Tree) -> Bracketing:
+    """The tree's brackets with every word in its bracketed-file form, so that a CoNLL-U "("
+    and the "-LRB-" a bracketed file must write for it compare equal (common practice)."""
+    b = Bracketing.from_tree(tree)
+    return Bracketing(tuple(escape_token(w) for w in b.words), b.spans, b.tags)
+
+
+def check_aligned(pred: Sequence[Sentence], gold: Sequence[Sentence], pred_path: str,
+                  gold_path: str) -> None:
+    """InputError at the first line where the predicted and gold sentences differ (words are
+    compared in their bracketed-file form, see `comparable`)."""
+    for p, g in zip(pred, gold):
+        pw, gw = [escape_token(w) for w in p.words], [escape_token(w) for w in g.words]
+        if pw != gw:
+            position = next((k for k, (a, b) in enumerate(zip(pw, gw)) if a != b),
+                            min(len(pw), len(gw)))
+            what = (f"word {position + 1} is {pw[position]!r}, gold has "
+                    f"{gw[position]!r}") if position < min(len(pw), len(gw)) \
+                else f"{len(pw)} words, gold has {len(gw)}"
+            raise InputError(f"predicted sentence differs from gold ({what}; gold: {gold_path}, "
+                             f"line {g.line})", path=pred_path, line=p.line)
+    if len(pred) != len(gold):
+        longer, role, path = (pred, "predicted", pred_path) if len(pred) > len(gold) else \
+            (gold, "gold", gold_path)
+        extra = longer[min(len(pred), len(gold))]
+        raise InputError(f"{len(pred)} predicted sentences but {len(gold)} gold ones; the first "
+                         f"{role} sentence without a partner starts here", path=path,
+                         line=extra.line)
+
+
+def _tag_scores(pred: Sequence[Sentence], gold: Sequence[Sentence]):
+    """Tag scores over the sentences where both sides tag every word, and a note on the rest."""
+    induced, reference, without = [], [], 0
+    for p, g in zip(pred, gold):
+        try:
+            labels = preterminal_labels(p.tree) if p.tree is not None else None
+        except ValueError:
+            labels = None
+        if labels is None or g.tags is None or p.tree.label == NOPARSE:
+            without += 1
+            continue
+        induced.append(labels)
+        reference.append(g.tags)
+    if not induced:
+        return None, "not computed: the predictions or the gold have no preterminals/tags"
+    note = f"{without} sentences without tags on one side were left out" if without else ""
+    return evaluate_tags(induced, reference), note
+
+
+def heldout_from_files(grammar_path: str | Path, text_path: str | Path) -> LikelihoodScores:
+    """Per-word log-likelihood and perplexity of a raw-text file under a grammar file."""
+    from treewright.grammar import load_grammar
+    from treewright.inference import score
+
+    grammar = load_grammar(grammar_path)
+    sentences = read_all(text_path, "text", ReadOptions(), "text")
+    scores = score(grammar, [s.words for s in sentences])
+    return heldout_likelihood([s.logprob for s in scores], [len(s.words) for s in scores],
+                              path=str(text_path))
+
+
+def evaluate_files(pred_path: str | Path, gold_path: str | Path,
+                   conventions: BracketConventions | None = None, *, gold_format: str = "auto",
+                   grammar_path: str | Path | None = None, text_path: str | Path | None = None,
+                   tags: bool = True) -> EvaluationReport:
+    """Score a bracketed-tree file against a gold file (bracketed trees or CoNLL-U).
+
+    grammar_path and text_path, given together, add the held-out likelihood of the text.
+    tags: score induced preterminals against gold tags when both sides have them.
+    """
+    pred = read_all(pred_path, "brackets", PRED_OPTIONS, "predicted")
+    gold_corpus = read_corpus(gold_path, gold_format, GOLD_OPTIONS)
+    if gold_corpus.report.skipped:
+        first = gold_corpus.report.skipped[0]
+        raise InputError(f"gold sentence cannot be evaluated ({first.reason})",
+                         path=str(gold_path), line=first.line)
+    gold = gold_corpus.sentences
+    missing_tree = next((g for g in gold if g.tree is None), None)
+    if missing_tree is not None:
+        raise InputError("gold has no tree (give bracketed trees or CoNLL-U)",
+                         path=str(gold_path), line=missing_tree.line)
+    check_aligned(pred, gold, str(pred_path), str(gold_path))
+    brackets = evaluate_brackets([comparable(p.tree) for p in pred],
+                                 [comparable(g.tree) for g in gold], conventions,
+                                 pred_path=str(pred_path), gold_path=str(gold_path))
+    counts = {"sentences": len(gold),
+              "unparsed_predictions": sum(p.tree.label == NOPARSE for p in pred),
+              "gold_projectivised": gold_corpus.report.projectivised}
+    report = EvaluationReport(brackets, counts=counts,
+                              sources={"predicted": str(pred_path), "gold": str(gold_path),
+                                       "grammar": None if grammar_path is None else str(grammar_path),
+                                       "text": None if text_path is None else str(text_path)})
+    if tags:
+        report.tags, report.tags_note = _tag_scores(pred, gold)
+    else:
+        report.tags_note = "not requested"
+    if grammar_path is not None and text_path is not None:
+        report.likelihood = heldout_from_files(grammar_path, text_path)
+    else:
+        report.likelihood_note = "not computed: give both --grammar and --text"
+    return report
+
+
+def finite_or_none(value: float | None) -> float | None:
+    """JSON-friendly number: None for a missing, infinite or NaN value."""
+    return None if value is None or not math.isfinite(value) else value
