@@ -17,6 +17,7 @@ import pytest
 import torch
 
 from treewright.engine.inside import inside_chart, log_partition
+from treewright.engine.lowrank import dense_binary, lowrank_log_partition
 from treewright.engine.reference import reference_inside
 
 
@@ -149,3 +150,58 @@ def test_benchmark_quick_run_writes_its_json(tmp_path):
     assert all(row["fwd_s"] > 0 and row["fb_s"] > 0 for row in result["dense"])
     assert result["precision"]["logz_rel_err"] < 1e-5
     assert len(result["scaling"]["fwd_s"]) == len(result["scaling"]["n"])
+
+
+def random_lowrank(nt, t, rank, seed, dtype=torch.float64):
+    gen = torch.Generator().manual_seed(seed)
+    s = nt + t
+    u = torch.randn(nt, rank, generator=gen, dtype=dtype).log_softmax(1)
+    v = torch.randn(s, rank, generator=gen, dtype=dtype).log_softmax(0)
+    w = torch.randn(s, rank, generator=gen, dtype=dtype).log_softmax(0)
+    return u, v, w
+
+
+def test_lowrank_rules_are_normalised():
+    # Yang, Zhao & Tu 2021: row-normalised U and column-normalised V, W give sum_{B,C} p = 1.
+    u, v, w = random_lowrank(4, 5, 6, seed=1)
+    totals = dense_binary(u, v, w).exp().sum((1, 2))
+    torch.testing.assert_close(totals, torch.ones(4, dtype=torch.float64))
+
+
+@pytest.mark.parametrize("nt_emit", [False, True])
+@pytest.mark.parametrize("use_pot", [False, True])
+def test_lowrank_matches_reference_on_the_implied_dense_rules(nt_emit, use_pot):
+    # Reference: reference_inside on dense_binary(u, v, w), gradients by autograd through both.
+    root, _, terminal, lengths, nt_terminal, span_pot = random_problem(
+        3, 4, batch=3, n=6, nt_emit=nt_emit, seed=21)
+    u, v, w = random_lowrank(3, 4, 5, seed=22)
+    if not use_pot:
+        span_pot = None
+    leaves = [x.clone().requires_grad_() if x is not None else None
+              for x in (root, u, v, w, terminal, nt_terminal, span_pot)]
+    refs = [x.clone().requires_grad_() if x is not None else None
+            for x in (root, u, v, w, terminal, nt_terminal, span_pot)]
+    z = lowrank_log_partition(leaves[0], leaves[1], leaves[2], leaves[3], leaves[4], lengths,
+                              leaves[5], leaves[6])
+    z_ref = reference_inside(refs[0], dense_binary(refs[1], refs[2], refs[3]), refs[4],
+                             lengths, refs[5], refs[6])
+    factor = torch.arange(1, 4, dtype=torch.float64)
+    (z * factor).sum().backward()
+    (z_ref * factor).sum().backward()
+    torch.testing.assert_close(z.detach(), z_ref.detach(), rtol=1e-10, atol=1e-10)
+    for leaf, ref in zip(leaves, refs):
+        if leaf is not None:
+            torch.testing.assert_close(leaf.grad, ref.grad, rtol=1e-9, atol=1e-10)
+
+
+def test_lowrank_forbidden_root_span_gives_minus_infinity_and_zero_gradients():
+    # Fact of the trade (common practice): no parse -> -inf, finite zero gradients.
+    root, _, terminal, _, _, _ = random_problem(3, 4, batch=2, n=4, nt_emit=False, seed=8)
+    u, v, w = (x.requires_grad_() for x in random_lowrank(3, 4, 5, seed=9))
+    span_pot = torch.zeros(2, 5, 5, dtype=torch.float64)
+    span_pot[0, 0, 4] = float("-inf")
+    z = lowrank_log_partition(root, u, v, w, terminal, torch.tensor([4, 4]), span_pot=span_pot)
+    z[0].backward()
+    assert z[0] == float("-inf") and torch.isfinite(z[1])
+    for x in (u, v, w):
+        assert (x.grad == 0).all()

@@ -354,6 +354,12 @@ def log_partition(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tenso
 
     Sentences with no parse get -inf (and zero gradients), never NaN.
     """
+    root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
+    return _LogPartition.apply(root, binary, terminal, nt_terminal, span_pot, lengths)
+
+
+def prepare_inputs(root: Tensor, terminal: Tensor, lengths, nt_terminal: Tensor | None):
+    """Check lengths, expand a shared root to (B, NT), and pad the words past each length."""
     B, N, _ = terminal.shape
     if root.dim() == 1:
         root = root.expand(B, -1)
@@ -367,4 +373,4 @@ def log_partition(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tenso
         terminal = terminal.masked_fill(pad[..., None], 0.0)
         if nt_terminal is not None:
             nt_terminal = nt_terminal.masked_fill(pad[..., None], 0.0)
-    return _LogPartition.apply(root, binary, terminal, nt_terminal, span_pot, lengths)
+    return root, terminal, lengths, nt_terminal

@@ -1,0 +1,202 @@
+"""The inside pass for low-rank binary rules, for grammars with hundreds of symbols.
+
+Yang, Zhao & Tu 2021, "PCFGs Can Do Better: Inducing Probabilistic Context-Free Grammars with
+Many Symbols" (TD-PCFG): the rule tensor is a sum of R rank-one terms,
+
+    p(A -> B C) = sum_r U[A, r] V[B, r] W[C, r],
+
+with each row of U a distribution over r and each column of V and W a distribution over the
+child symbols (all S = NT + T of them), so every p(A -> . .) sums to one. The inside score of a
+span then never needs the (NT, S, S) tensor: each cell is projected once onto the rank space
+(left role V^T x, right role W^T x), a split point costs R multiplications, and a span's
+nonterminal scores are U times the rank vector summed over its splits. Cost per sentence is
+O(n^3 R + n^2 R (NT + S)) instead of O(n^3 S^2 + n^2 S^2 NT).
+
+The cells use the scaled probabilities of `engine.inside` (each cell divided by its maximum,
+the log of which is kept as a scale that the gradient treats as a constant), and the same two
+chart copies (by start, by end) so that all left children of one width, and all right
+children, are one strided slice each. The chart holds the rank projections of the cells, not
+the cells. The backward is written by hand: autograd over per-width slices spends its time
+zero-filling and stacking, not multiplying.
+
+Shapes: B sentences, N longest length, NT nonterminals, T preterminals, R rank, P = N - w + 1.
+"""
+
+from __future__ import annotations
+
+import torch
+from torch import Tensor
+
+from treewright.engine.inside import prepare_inputs
+
+NEG_INF = float("-inf")
+
+
+def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
+    """The (NT, S, S) rule log-probabilities that log-space factors u, v, w imply."""
+    return torch.logsumexp(u[:, None, None, :] + v[None, :, None, :] + w[None, None, :, :], -1)
+
+
+def lowrank_log_partition(root: Tensor, u: Tensor, v: Tensor, w: Tensor, terminal: Tensor,
+                          lengths: Tensor, nt_terminal: Tensor | None = None,
+                          span_pot: Tensor | None = None) -> Tensor:
+    """log Z per sentence, (B,), differentiable with respect to every tensor argument.
+
+    root        (NT,) or (B, NT)  log p(top symbol)
+    u           (NT, R)           log U, each row normalised over r
+    v, w        (S, R)            log V, log W, each column normalised over the S child symbols
+                                  (nonterminals first, then preterminals)
+    terminal, lengths, nt_terminal, span_pot: as in `engine.inside.log_partition`.
+    Sentences with no parse get -inf (and zero gradients).
+    """
+    root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
+    return _LowRank.apply(root, u, v, w, terminal, nt_terminal, span_pot, lengths)
+
+
+class _LowRank(torch.autograd.Function):
+    @staticmethod
+    def forward(ctx, root, u, v, w, terminal, nt_terminal, span_pot, lengths):
+        with torch.no_grad():
+            state = _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths)
+        ctx.state = state
+        ctx.shapes = (nt_terminal is not None, span_pot is not None)
+        return state["logz"]
+
+    @staticmethod
+    def backward(ctx, grad_logz):
+        state, (nt_emits, has_pot) = ctx.state, ctx.shapes
+        ctx.state = None
+        with torch.no_grad():
+            grads = _outside(state, grad_logz, nt_emits, has_pot)
+        return grads + (None,)
+
+
+def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
+    B, N, T = terminal.shape
+    NT, R = u.shape
+    U, V, W = u.exp(), v.exp(), w.exp()
+    # One scale per word, shared by its preterminal and nonterminal vectors.
+    word_scale = terminal.amax(-1)                                    # (B, N)
+    if nt_terminal is not None:
+        word_scale = torch.maximum(word_scale, nt_terminal.amax(-1))
+    shift = word_scale.nan_to_num(neginf=0.0).unsqueeze(-1)
+    words = (terminal - shift).exp().transpose(0, 1).contiguous()    # (N, B, T)
+    nts = None if nt_terminal is None else \
+        (nt_terminal - shift).exp().transpose(0, 1).contiguous()      # (N, B, NT)
+
+    # Rank projections: left role by start, [i, b, width] = V^T cell (i, i+width); right role
+    # by end, [j, b, N-width] = W^T cell (j-width, j).
+    # Only written cells are ever read, so the projections need no zero fill.
+    left_proj = terminal.new_empty(N + 1, B, N + 1, R)
+    right_proj = terminal.new_empty(N + 1, B, N + 1, R)
+    scale_start = terminal.new_full((N + 1, B, N + 1), NEG_INF)
+    scale_end = terminal.new_full((N + 1, B, N + 1), NEG_INF)
+    one_l = words @ V[NT:]                                            # (N, B, R)
+    one_r = words @ W[NT:]
+    if nts is not None:
+        one_l += nts @ V[:NT]
+        one_r += nts @ W[:NT]
+    left_proj[0:N, :, 1] = one_l
+    right_proj[1:N + 1, :, N - 1] = one_r
+    scale_start[0:N, :, 1] = word_scale.t()
+    scale_end[1:N + 1, :, N - 1] = word_scale.t()
+
+    cells_by_width, rank_sums_by_width, weights, peaks = [None, None], [None, None], [None, None], \
+        [None, None]
+    top_cells = terminal.new_zeros(N + 1, B, NT)   # cell (0, width), for the root
+    top_scales = terminal.new_full((N + 1, B), NEG_INF)
+    if nts is not None:
+        top_cells[1] = nts[0]
+        top_scales[1] = word_scale[:, 0]
+    for width in range(2, N + 1):
+        P = N - width + 1
+        pair = scale_start[0:P, :, 1:width] + scale_end[width:N + 1, :, N - width + 1:N]
+        top = pair.amax(-1).nan_to_num_(neginf=0.0)                   # (P, B)
+        weight = (pair - top.unsqueeze(-1)).exp_()                    # (P, B, K)
+        K = width - 1
+        pairs = left_proj[0:P, :, 1:width] * right_proj[width:N + 1, :, N - width + 1:N]
+        rank_sums = torch.bmm(weight.view(P * B, 1, K), pairs.view(P * B, K, R)).view(P, B, R)
+        total = rank_sums @ U.t()                                     # (P, B, NT)
+        peak = total.amax(-1)
+        cells = (total / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)     # a dead span stays 0
+        scale = top + peak.log()                                      # log 0 = -inf: dead
+        if span_pot is not None:
+            scale = scale + span_pot[:, 0:P, width].t()
+        left_proj[0:P, :, width] = cells @ V[:NT]
+        right_proj[width:N + 1, :, N - width] = cells @ W[:NT]
+        scale_start[0:P, :, width] = scale
+        scale_end[width:N + 1, :, N - width] = scale
+        top_cells[width] = cells[0]
+        top_scales[width] = scale[0]
+        cells_by_width.append(cells)
+        rank_sums_by_width.append(rank_sums)
+        weights.append(weight)
+        peaks.append(peak)
+    idx = torch.arange(B)
+    tops, top_scale = top_cells[lengths, idx], top_scales[lengths, idx]  # (B, NT), (B,)
+    pi = root.exp()
+    total = (pi * tops).sum(-1)
+    ok = (total > 0) & torch.isfinite(top_scale)
+    logz = torch.where(ok, total.log() + top_scale, torch.full_like(total, NEG_INF))
+    return {"logz": logz, "U": U, "V": V, "W": W, "words": words, "nts": nts,
+            "left_proj": left_proj, "right_proj": right_proj, "cells": cells_by_width,
+            "rank_sums": rank_sums_by_width, "weights": weights, "peaks": peaks,
+            "pi": pi, "tops": tops, "total": total, "ok": ok, "lengths": lengths}
+
+
+def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
+    """Adjoints from the widest span down; see `engine.inside._outside` for the conventions."""
+    U, V, W, words = st["U"], st["V"], st["W"], st["words"]
+    N, B, T = words.shape
+    NT, R = U.shape
+    lengths, ok, total, pi = st["lengths"], st["ok"], st["total"], st["pi"]
+    g_root = torch.where(ok, grad_logz / torch.where(ok, total, torch.ones_like(total)),
+                         torch.zeros_like(total))                     # (B,)
+    grad_root = pi * st["tops"] * g_root[:, None]
+    adj_top = words.new_zeros(N + 1, B, NT)                           # adjoint of cell (0, w)
+    adj_top[lengths, torch.arange(B)] = pi * g_root[:, None]
+    adj_left = torch.zeros_like(st["left_proj"])
+    adj_right = torch.zeros_like(st["right_proj"])
+    grad_U, grad_V, grad_W = torch.zeros_like(U), torch.zeros_like(V), torch.zeros_like(W)
+    grad_pot = words.new_zeros(B, N + 1, N + 1) if has_pot else None
+    left_proj, right_proj = st["left_proj"], st["right_proj"]
+    for width in range(N, 1, -1):
+        P = N - width + 1
+        cells, rank_sums = st["cells"][width], st["rank_sums"][width]
+        weight, peak = st["weights"][width], st["peaks"][width]
+        a_l = adj_left[0:P, :, width]                                 # (P, B, R)
+        a_r = adj_right[width:N + 1, :, N - width]
+        adj = a_l @ V[:NT].t() + a_r @ W[:NT].t()                     # (P, B, NT)
+        adj[0] += adj_top[width]
+        grad_V[:NT] += cells.reshape(-1, NT).t() @ a_l.reshape(-1, R)
+        grad_W[:NT] += cells.reshape(-1, NT).t() @ a_r.reshape(-1, R)
+        if grad_pot is not None:
+            grad_pot[:, 0:P, width] = (adj * cells).sum(-1).t()
+        g = (adj / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)           # d/d raw sum
+        grad_U += g.view(-1, NT).t() @ rank_sums.view(-1, R)
+        g_rank = (g @ U).unsqueeze(2)                                 # (P, B, 1, R)
+        w_k = weight.unsqueeze(-1)                                    # (P, B, K, 1)
+        rights = right_proj[width:N + 1, :, N - width + 1:N]
+        adj_left[0:P, :, 1:width].addcmul_(g_rank * rights, w_k)
+        adj_right[width:N + 1, :, N - width + 1:N].addcmul_(
+            g_rank * left_proj[0:P, :, 1:width], w_k)
+    # Width one.
+    a_l = adj_left[0:N, :, 1].reshape(N * B, R)
+    a_r = adj_right[1:N + 1, :, N - 1].reshape(N * B, R)
+    flat = words.view(N * B, T)
+    grad_V[NT:] += flat.t() @ a_l
+    grad_W[NT:] += flat.t() @ a_r
+    adj_words = (a_l @ V[NT:].t() + a_r @ W[NT:].t()).view(N, B, T)
+    grad_terminal = (adj_words * words).transpose(0, 1)
+    grad_nt_terminal = None
+    if nt_emits:
+        nts = st["nts"]
+        flat = nts.view(N * B, NT)
+        grad_V[:NT] += flat.t() @ a_l
+        grad_W[:NT] += flat.t() @ a_r
+        adj_nts = (a_l @ V[:NT].t() + a_r @ W[:NT].t()).view(N, B, NT)
+        adj_nts[0] += adj_top[1]
+        grad_nt_terminal = (adj_nts * nts).transpose(0, 1)
+    # d/d log x = x * d/dx for every factor.
+    return (grad_root, grad_U * U, grad_V * V, grad_W * W, grad_terminal, grad_nt_terminal,
+            grad_pot)
