@@ -1,0 +1,106 @@
+"""treewright export: write a grammar (or a corpus parsed with it) in another format."""
+
+from __future__ import annotations
+
+import argparse
+
+FORMATS = ("text", "json", "listing", "brackets", "conllu")
+
+EXAMPLES = """examples:
+  treewright export runs/harbour --to json --out harbour.json
+  treewright export runs/harbour --to text --out harbour.pcfg --prune-threshold 1e-4 \\
+      --train train.txt --heldout dev.txt
+  treewright export harbour.pcfg --to listing --out harbour.txt --corpus dev.txt --top 5
+  treewright export harbour.pcfg --to conllu --corpus dev.txt --out dev.conllu --rename names.txt
+
+formats:
+  text      the grammar text format (loads back with identical scores)
+  json      the JSON export: symbols, vocabulary, every rule, and the run's settings and data
+            summary when the source is a run folder (see the README for its fields)
+  listing   per symbol its entropy, top rules or words, and usage on --corpus if given
+  brackets  the Viterbi tree of each --corpus sentence, one bracketed tree per line
+  conllu    the --corpus sentences as CoNLL-U, the induced preterminal of each word in the
+            --tag-column column (XPOS by default), the tree in a '# induced_tree' comment
+
+The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg).
+Pruning (--prune-threshold / --prune-top) comes first, then renaming (--rename: 'OLD NEW' per
+line, '#' comments); the pruning report goes to standard error.
+"""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("source", help="grammar file (text or JSON export) or training run folder")
+    p.add_argument("--to", required=True, choices=FORMATS, help="output format")
+    p.add_argument("--out", required=True, help="output file ('-': standard output)")
+    p.add_argument("--corpus", help="raw text, one sentence per line: the sentences to parse "
+                                    "(brackets, conllu) or to count usage on (listing)")
+    p.add_argument("--rename", metavar="FILE", help="symbol renaming file ('OLD NEW' per line)")
+    p.add_argument("--threshold", type=float, default=None,
+                   help="listing: show rules with at least this probability (default 0.01)")
+    p.add_argument("--top", type=int, default=None,
+                   help="listing: at most this many rules per symbol (default 10; 0: no cap)")
+    p.add_argument("--tag-column", choices=("XPOS", "UPOS"), default="XPOS",
+                   help="conllu: the column that carries the induced preterminal")
+    p.add_argument("--prune-threshold", type=float, default=None,
+                   help="drop rules below this probability and renormalise")
+    p.add_argument("--prune-top", type=int, default=None,
+                   help="keep at most this many rules per left-hand side and renormalise")
+    p.add_argument("--train", help="pruning: training text whose Viterbi trees keep their rules")
+    p.add_argument("--heldout", help="pruning: held-out text scored before and after")
+
+
+def run(args) -> int:
+    import sys
+
+    from treewright.cli.common import read_sentences
+    from treewright.errors import InputError
+    from treewright.export import load_renaming, open_grammar, prune, rename_grammar
+    from treewright.export.jsonformat import grammar_json_text
+    from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
+                                           format_listing, summarize)
+    from treewright.export.parses import parse_corpus, to_brackets, to_conllu
+    from treewright.safeio import atomic_write_text
+
+    if args.to in ("brackets", "conllu") and args.corpus is None:
+        raise InputError(f"--to {args.to} needs --corpus (the sentences to parse)")
+    source = open_grammar(args.source)
+    grammar = source.grammar
+    if args.prune_threshold is not None or args.prune_top is not None:
+        train = [w for _, w in read_sentences(args.train)] if args.train else None
+        heldout = [w for _, w in read_sentences(args.heldout)] if args.heldout else None
+        try:
+            grammar, report = prune(grammar, args.prune_threshold or 0.0, args.prune_top,
+                                    train, heldout)
+        except ValueError as err:
+            raise InputError(str(err)) from None
+        print(report.format(), file=sys.stderr)
+    mapping = load_renaming(args.rename, grammar) if args.rename else {}
+    named = rename_grammar(grammar, mapping)
+    lines = read_sentences(args.corpus) if args.corpus else None
+
+    if args.to == "json":
+        text = grammar_json_text(named, source.training)
+    elif args.to == "text":
+        text = named.to_text()
+    elif args.to == "listing":
+        threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
+        top = DEFAULT_TOP if args.top is None else (args.top or None)
+        counts = expected_counts(grammar, [w for _, w in lines]) if lines else None
+        note = None if counts is None else (
+            f"expected counts over {counts.sentences} sentences of {args.corpus} "
+            f"({counts.unparsed} without a parse)")
+        text = format_listing(named, summarize(named, counts, threshold, top), threshold, top,
+                              note)
+    else:
+        parsed = parse_corpus(grammar, lines, mapping)
+        unparsed = sum(1 for p in parsed if p.tree is None)
+        if unparsed:
+            print(f"{unparsed} of {len(parsed)} sentences had no parse (kept in the output)",
+                  file=sys.stderr)
+        text = to_brackets(parsed) if args.to == "brackets" else to_conllu(parsed,
+                                                                           args.tag_column)
+    if args.out == "-":
+        sys.stdout.write(text)
+    else:
+        atomic_write_text(args.out, text)
+    return 0

@@ -1,0 +1,70 @@
+"""treewright inspect: a grammar's symbols in the terminal, or one symbol in full."""
+
+from __future__ import annotations
+
+import argparse
+
+EXAMPLES = """examples:
+  treewright inspect runs/harbour
+  treewright inspect harbour.pcfg --corpus dev.txt --top 5 --threshold 0.05
+  treewright inspect harbour.pcfg --symbol N3 --corpus dev.txt --examples 20
+
+Without --symbol: per symbol its entropy (bits), its most probable rules (preterminals: words)
+above --threshold, at most --top of them, and with --corpus its expected count there.
+With --symbol: every rule of that symbol, and with --corpus the spans where it is most
+probable (one-word spans: the posterior of the symbol over the word; wider spans: where the
+Viterbi trees use it, with the posterior that the span is a constituent).
+"""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("grammar", help="grammar file (text or JSON export) or training run folder")
+    p.add_argument("--corpus", help="raw text, one sentence per line, for usage and examples")
+    p.add_argument("--symbol", help="show this symbol in full (a name after --rename)")
+    p.add_argument("--threshold", type=float, default=None,
+                   help="show rules with at least this probability (default 0.01)")
+    p.add_argument("--top", type=int, default=None,
+                   help="at most this many rules per symbol (default 10; 0: no cap)")
+    p.add_argument("--examples", type=int, default=10, help="--symbol: example spans to show")
+    p.add_argument("--rename", metavar="FILE", help="symbol renaming file ('OLD NEW' per line)")
+
+
+def run(args) -> int:
+    from treewright.cli.common import read_sentences
+    from treewright.errors import InputError
+    from treewright.export import load_renaming, open_grammar, rename_grammar
+    from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
+                                           format_listing, format_symbol, summarize,
+                                           symbol_examples)
+
+    grammar = open_grammar(args.grammar).grammar
+    mapping = load_renaming(args.rename, grammar) if args.rename else {}
+    named = rename_grammar(grammar, mapping)
+    lines = read_sentences(args.corpus) if args.corpus else None
+    sentences = [w for _, w in lines] if lines else None
+    counts = expected_counts(named, sentences) if sentences else None
+    if args.symbol is None:
+        threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
+        top = DEFAULT_TOP if args.top is None else (args.top or None)
+        note = None if counts is None else (
+            f"expected counts over {counts.sentences} sentences of {args.corpus} "
+            f"({counts.unparsed} without a parse)")
+        print(format_listing(named, summarize(named, counts, threshold, top), threshold, top,
+                             note), end="")
+        return 0
+    known = named.symbols + ([] if named.root_is_symbol else [named.start])
+    if args.symbol not in known:
+        raise InputError(f"the grammar has no symbol {args.symbol} (it has "
+                         f"{', '.join(known)})", path=args.grammar)
+    summary = next(s for s in summarize(named, counts, 0.0, None) if s.name == args.symbol)
+    print("\n".join(format_symbol(summary)))
+    if sentences and args.symbol in named.symbols:
+        examples = symbol_examples(named, sentences, args.symbol, args.examples)
+        print(f"\nexample spans from {args.corpus} (highest posterior first):")
+        for e in examples:
+            mark = "viterbi" if e.in_viterbi else "       "
+            print(f"  {e.posterior:.4f}  {mark}  line {lines[e.sentence][0]} "
+                  f"[{e.start}:{e.end}]  {' '.join(e.words)}")
+        if not examples:
+            print("  (none: the symbol is used nowhere in this corpus)")
+    return 0

@@ -1,0 +1,171 @@
+"""Where a grammar comes from: a grammar text file, a JSON export, or a training run folder.
+
+A run folder (see `treewright.train.loop`) is recognised by its `grammar.pcfg`; its
+`config.yaml` and data summary are read as the grammar's training record.
+"""
+
+from __future__ import annotations
+
+import datetime
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterator
+
+import yaml
+
+from treewright.errors import InputError
+from treewright.grammar import Grammar, load_grammar
+
+RUN_GRAMMAR = "grammar.pcfg"
+RUN_CONFIG = "config.yaml"
+# A run folder's data summary: `data_summary.json` when the trainer writes one; otherwise the
+# corpus lines of `train.log` ("training corpus: ...", "dev corpus: ...") are the summary.
+RUN_DATA_SUMMARY = "data_summary.json"
+RUN_LOG = "train.log"
+RUN_RESULT = "result.json"
+_LOG_SUMMARY_PREFIXES = ("training corpus:", "dev corpus:", "partial brackets:")
+
+
+@dataclass
+class GrammarSource:
+    """A grammar and what is known of how it was made.
+
+    grammar_path: the file the rules were read from.
+    run_dir: the training run folder, or None for a bare grammar file.
+    training: None for a bare grammar file; for a run folder a dict with "config" (config.yaml
+        as data, or None when absent), "data_summary" (see RUN_DATA_SUMMARY, or None) and
+        "result" (result.json as data, or None). A JSON export carries its own record.
+    """
+    grammar: Grammar
+    grammar_path: Path
+    run_dir: Path | None
+    training: dict | None
+
+
+def resolve_grammar_path(path: str | Path) -> tuple[Path, Path | None]:
+    """(grammar file, run folder or None) for a grammar file or a run folder."""
+    path = Path(path)
+    if path.is_dir():
+        grammar_path = path / RUN_GRAMMAR
+        if not grammar_path.is_file():
+            raise InputError(f"a run folder must hold {RUN_GRAMMAR} (the run has not finished, "
+                             "or this is not a run folder)", path=str(path))
+        return grammar_path, path
+    if not path.exists():
+        raise InputError("no such grammar file or run folder", path=str(path))
+    return path, None
+
+
+def is_json_export(path: Path) -> bool:
+    """True when the file's first non-blank character is '{' (a JSON export)."""
+    with open(path, "rb") as f:
+        head = f.read(4096).lstrip(b"\xef\xbb\xbf \t\r\n")
+    return head.startswith(b"{")
+
+
+def open_grammar(path: str | Path) -> GrammarSource:
+    """Read a grammar text file, a JSON export or a run folder (InputError naming the file)."""
+    from treewright.export.jsonformat import load_grammar_export
+
+    grammar_path, run_dir = resolve_grammar_path(path)
+    if is_json_export(grammar_path):
+        export = load_grammar_export(grammar_path)
+        return GrammarSource(export.grammar, grammar_path, None, export.training)
+    grammar = load_grammar(grammar_path)
+    training = read_training_record(run_dir) if run_dir is not None else None
+    return GrammarSource(grammar, grammar_path, run_dir, training)
+
+
+def load(path: str | Path) -> Grammar:
+    """The grammar of a grammar text file, a JSON export or a run folder."""
+    return open_grammar(path).grammar
+
+
+def read_training_record(run_dir: Path) -> dict:
+    """The settings and data summary of a run folder (see `GrammarSource.training`)."""
+    config = None
+    config_path = run_dir / RUN_CONFIG
+    if config_path.is_file():
+        try:
+            config = yaml.safe_load(config_path.read_text(encoding="utf-8"))
+        except yaml.YAMLError as err:
+            raise InputError(f"config.yaml is not valid YAML ({err})",
+                             path=str(config_path)) from None
+        config = _plain(config)
+    summary: Any = None
+    summary_path = run_dir / RUN_DATA_SUMMARY
+    if summary_path.is_file():
+        summary = _read_json(summary_path)
+    elif (run_dir / RUN_LOG).is_file():
+        lines = (run_dir / RUN_LOG).read_text(encoding="utf-8", errors="replace").splitlines()
+        # Log lines start with a timestamp "YYYY-MM-DD HH:MM:SS "; the text follows it.
+        texts = [line.split(" ", 2)[2] if line.count(" ") >= 2 else line for line in lines]
+        kept = [t for t in texts if t.startswith(_LOG_SUMMARY_PREFIXES)]
+        summary = kept or None
+    result = _read_json(run_dir / RUN_RESULT) if (run_dir / RUN_RESULT).is_file() else None
+    return {"config": config, "data_summary": summary, "result": result}
+
+
+def _read_json(path: Path) -> Any:
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as err:
+        raise InputError(f"not valid JSON ({err})", path=str(path)) from None
+
+
+def _plain(value: Any) -> Any:
+    """YAML data as JSON data: dates become ISO strings, non-finite floats strings, keys str."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, (datetime.date, datetime.datetime)):
+        return value.isoformat()
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    return value
+
+
+# ---- rules as records --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Rule:
+    """One rule. kind: "root" (start -> A, the root distribution), "binary" (A -> B C) or
+    "lexical" (A -> word). rhs holds symbol names, or the one word of a lexical rule."""
+    lhs: str
+    rhs: tuple[str, ...]
+    prob: float
+    kind: str
+
+    def __str__(self) -> str:
+        from treewright.grammar import quote
+        rhs = quote(self.rhs[0]) if self.kind == "lexical" else " ".join(self.rhs)
+        return f"{self.lhs} -> {rhs} {self.prob!r}"
+
+
+def iter_rules(grammar: Grammar) -> Iterator[Rule]:
+    """Every rule of nonzero probability, in the order of the grammar text format: the root
+    rules (when the start symbol is not itself a nonterminal), then per symbol its binary rules
+    and its lexical rules. prob is exp of the stored log-probability, as the text format writes
+    it, so the numbers are the ones a saved file holds."""
+    import torch
+
+    names = grammar.symbols
+    nt = len(grammar.nonterminals)
+    if not grammar.root_is_symbol:
+        root = grammar.root.double()
+        for a in range(nt):
+            if root[a] > -math.inf:
+                yield Rule(grammar.start, (names[a],), math.exp(float(root[a])), "root")
+    binary = grammar.binary.double()
+    lexical = grammar.lexical.double()
+    words = grammar.vocab.words
+    for a, lhs in enumerate(names):
+        if a < nt:
+            for b, c in torch.nonzero(torch.isfinite(binary[a])).tolist():
+                yield Rule(lhs, (names[b], names[c]), math.exp(float(binary[a, b, c])), "binary")
+        for w in torch.nonzero(torch.isfinite(lexical[a])).flatten().tolist():
+            yield Rule(lhs, (words[w],), math.exp(float(lexical[a, w])), "lexical")
