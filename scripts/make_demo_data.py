@@ -130,7 +130,7 @@ TENSES = [("ik", "past", 0.75), ("esh", "future", 0.25)]
 # ---- the phrase rules ------------------------------------------------------------------------
 # (lhs, left, right, probability in units). S is the start symbol. Recursion runs through
 # CL (adverbial and complement clauses), VP (adjunct stacking) and NP (possessors, relative
-# clauses); the probabilities keep it subcritical, so trees stay small (mean about 9 tokens).
+# clauses); the probabilities keep it subcritical, so trees stay small (mean 8.6 tokens).
 
 PHRASE_RULES: list[tuple[str, str, str, int]] = [
     ("S", "CL", "PUNCT", 1_000_000),       # an entry is a clause and its final mark
