@@ -37,17 +37,27 @@ class Tree:
     def labeled_spans(self) -> list[tuple[int, int, str]]:
         """Every constituent as (start, end, label), preterminals included, in pre-order."""
         out: list[tuple[int, int, str]] = []
-
-        def walk(node: Tree, start: int) -> int:
-            entry = len(out)
-            out.append((start, start, node.label))
-            pos = start
-            for child in node.children:
-                pos = pos + 1 if isinstance(child, str) else walk(child, pos)
-            out[entry] = (start, pos, node.label)
-            return pos
-
-        walk(self, 0)
+        # Iterative walk (deep trees from strangers must not hit the recursion limit): each
+        # frame is (node, index of its entry in `out`, next child, position).
+        stack: list[list] = [[self, 0, 0, 0]]
+        out.append((0, 0, self.label))
+        while stack:
+            frame = stack[-1]
+            node, entry, k, pos = frame
+            if k == len(node.children):
+                start = out[entry][0]
+                out[entry] = (start, pos, node.label)
+                stack.pop()
+                if stack:
+                    stack[-1][3] = pos
+                continue
+            frame[2] = k + 1
+            child = node.children[k]
+            if isinstance(child, str):
+                frame[3] = pos + 1
+            else:
+                out.append((pos, pos, child.label))
+                stack.append([child, len(out) - 1, 0, pos])
         return out
 
     def subtrees(self) -> Iterator["Tree"]:
@@ -60,23 +70,24 @@ class Tree:
     def to_string(self) -> str:
         """The bracketed notation, on one line: (S (NP (D the) (N ferry)) (V left))."""
         parts: list[str] = []
-
-        def walk(node: Child) -> None:
-            if isinstance(node, str):
-                parts.append(escape_token(node))
-                return
-            parts.append("(" + escape_token(node.label))
-            for child in node.children:
-                parts.append(" ")
-                walk(child)
-            parts.append(")")
-
-        walk(self)
+        stack: list = [self]
+        while stack:  # iterative, for the same reason as labeled_spans
+            node = stack.pop()
+            if node is _CLOSE:
+                parts.append(")")
+            elif isinstance(node, str):
+                parts.append(" " + escape_token(node))
+            else:
+                parts.append((" (" if parts else "(") + escape_token(node.label))
+                stack.append(_CLOSE)
+                stack.extend(reversed(node.children))
         return "".join(parts)
 
     def __str__(self) -> str:
         return self.to_string()
 
+
+_CLOSE = object()  # marks the end of a node in the iterative writer
 
 _ESCAPES = {"(": "-LRB-", ")": "-RRB-"}
 

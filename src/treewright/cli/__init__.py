@@ -14,6 +14,9 @@ COMMANDS = {
     "score": ("treewright.cli.score", "log-probability of each sentence under a grammar"),
     "parse": ("treewright.cli.parse", "the best tree of each sentence"),
     "sample": ("treewright.cli.sample", "draw sentences with their trees from a grammar"),
+    "export": ("treewright.cli.export", "write a grammar or parsed text in another format"),
+    "inspect": ("treewright.cli.inspect", "a grammar's symbols, rules and usage in the terminal"),
+    "compare": ("treewright.cli.compare", "two grammars' likelihood, brackets and symbol matching"),
 }
 
 
