@@ -6,6 +6,7 @@
   inline SVG (the `treewright report` command).
 """
 
+from treewright.report.html import build_report, write_report
 from treewright.report.scoring import EvaluationReport, evaluate_files
 
-__all__ = ["EvaluationReport", "evaluate_files"]
+__all__ = ["EvaluationReport", "build_report", "evaluate_files", "write_report"]

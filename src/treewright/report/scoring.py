@@ -10,7 +10,6 @@ with an `InputError` naming the file and line.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
@@ -191,7 +190,3 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
         report.likelihood_note = "not computed: give both --grammar and --text"
     return report
 
-
-def finite_or_none(value: float | None) -> float | None:
-    """JSON-friendly number: None for a missing, infinite or NaN value."""
-    return None if value is None or not math.isfinite(value) else value

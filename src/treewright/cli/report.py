@@ -1,0 +1,49 @@
+"""treewright report: one self-contained HTML page about a training run."""
+
+from __future__ import annotations
+
+import argparse
+
+EXAMPLES = """examples:
+  treewright report runs/em_demo
+  treewright report runs/em_demo --gold data/demo/dev.trees --out em_demo.html
+  treewright report runs/em_demo --text data/demo/test.txt --heatmap-sentence 3
+
+The page (default RUN/report.html) holds the likelihood, perplexity and dev F1 curves, F1 by
+sentence length beside the baselines, label recall, each symbol's most probable rules and words,
+example trees (predicted beside gold) and a span-posterior heat map. Figures are inline SVG: the
+page needs no network and runs no script. What the run folder lacks is named on the page.
+Without --gold the run's dev corpus is used when it has trees.
+"""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    from treewright.decode import DECODERS
+
+    p.add_argument("run", help="run folder (config.yaml, metrics.jsonl, grammar.pcfg)")
+    p.add_argument("--gold", help="gold trees (bracketed or CoNLL-U) to parse and score")
+    p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
+    p.add_argument("--text", help="raw sentences for examples and the heat map (without --gold)")
+    p.add_argument("--grammar", help="grammar file (default: RUN/grammar.pcfg)")
+    p.add_argument("--decoder", choices=DECODERS, default="mbr",
+                   help="how example and evaluation trees are chosen (default: mbr)")
+    p.add_argument("--examples", type=int, default=3, help="example sentences drawn (default 3)")
+    p.add_argument("--max-example-words", type=int, default=20,
+                   help="longest example sentence drawn (default 20)")
+    p.add_argument("--heatmap-sentence", type=int, default=1,
+                   help="1-based sentence of the heat map (default 1)")
+    p.add_argument("--max-sentences", type=int,
+                   help="parse only the first N gold/text sentences (the page says so)")
+    p.add_argument("--out", help="output file (default RUN/report.html)")
+
+
+def run(args) -> int:
+    from treewright.report.html import write_report
+
+    path = write_report(args.run, args.out, gold=args.gold, text=args.text,
+                        grammar_path=args.grammar, decoder=args.decoder,
+                        examples=args.examples, max_example_words=args.max_example_words,
+                        heatmap_sentence=args.heatmap_sentence, gold_format=args.gold_format,
+                        max_sentences=args.max_sentences)
+    print(path)
+    return 0
