@@ -1,0 +1,31 @@
+"""Split-merge refinement of a PCFG with latent subcategories (Petrov, Barrett, Thibaux & Klein
+2006, "Learning Accurate, Compact, and Interpretable Tree Annotation"; latent annotations after
+Matsuzaki, Miyao & Tsujii 2005).
+
+Two starting points share one refiner: a treebank (the coarse grammar by count ratios, then EM
+on the observed trees, `tree_cycle`) and raw text (an induced grammar, then inside-outside over
+sentences, `text_cycle`). `refine(cfg, run_dir)` runs either from a config.
+"""
+
+from treewright.refine.config import RefineConfig, load_refine_config
+from treewright.refine.latent import (LatentGrammar, coarse_name, fine_name, latent_from_grammar,
+                                      normalize)
+from treewright.refine.run import (CycleSettings, RefineResult, cnf_tree, em_on_text,
+                                   em_on_trees, estimate_coarse, labeled_f1, map_words, refine,
+                                   text_cycle, tree_cycle)
+from treewright.refine.signatures import UNKNOWN, WordClasses, signature
+from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
+from treewright.refine.summary import subcategory_summary, summary_text
+from treewright.refine.text import text_estep, text_loglik, viterbi_coarse_trees
+from treewright.refine.trees import TreeEStep, TreeSet, tree_estep, tree_inside, tree_loglik, \
+    tree_set
+
+__all__ = [
+    "CycleSettings", "LatentGrammar", "RefineConfig", "RefineResult", "TreeEStep", "TreeSet",
+    "UNKNOWN", "WordClasses", "cnf_tree", "coarse_name", "em_on_text", "em_on_trees",
+    "estimate_coarse", "fine_name", "labeled_f1", "latent_from_grammar", "load_refine_config",
+    "map_words", "merge", "merge_losses", "merge_plan", "normalize", "refine", "signature",
+    "smooth", "split", "subcategory_summary", "summary_text", "text_cycle", "text_estep",
+    "text_loglik", "tree_cycle", "tree_estep", "tree_inside", "tree_loglik", "tree_set",
+    "viterbi_coarse_trees",
+]

@@ -1,0 +1,395 @@
+"""A refinement run: data in, N split-merge cycles, metrics, grammars and summaries out.
+
+Run folder (like training's): config.yaml (resolved), refine.log, metrics.jsonl, tensorboard/,
+coarse.pcfg (the unrefined start), cycle-<c>.pcfg and summary-<c>.txt per cycle, and the result
+grammar.pcfg with summary.txt and summary.json beside it.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Sequence, TextIO
+
+import torch
+
+from treewright.config import dump_config_yaml
+from treewright.corpus import (ReadOptions, binarize, collapse_unary, expand_unary, read_corpus,
+                               split_indices, unbinarize)
+from treewright.errors import InputError
+from treewright.grammar import parse_grammar
+from treewright.refine.config import RefineConfig
+from treewright.refine.latent import LatentGrammar, latent_from_grammar, normalize
+from treewright.refine.signatures import UNKNOWN, WordClasses
+from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
+from treewright.refine.summary import subcategory_summary, summary_text
+from treewright.refine.text import text_estep, text_loglik, viterbi_coarse_trees
+from treewright.refine.trees import TreeSet, tree_estep, tree_loglik, tree_set
+from treewright.safeio import atomic_write_text
+from treewright.tracking import open_loggers
+from treewright.trees import Tree
+
+
+# ---- preparing trees ------------------------------------------------------------------------
+
+def cnf_tree(tree: Tree, factor: str = "right", horizontal: int | None = 1,
+             vertical: int = 1) -> Tree:
+    """Binarize (markovized) and collapse unary chains: the coarse tree form refinement uses."""
+    return collapse_unary(binarize(tree, factor, horizontal, vertical))
+
+
+def map_words(tree: Tree, classes: Callable[[str], str]) -> Tree:
+    """A copy of `tree` with every word replaced by `classes(word)`."""
+    stack = [(tree, Tree(tree.label))]
+    top = stack[0][1]
+    while stack:
+        old, new = stack.pop()
+        for child in old.children:
+            if isinstance(child, Tree):
+                copy = Tree(child.label)
+                new.children.append(copy)
+                stack.append((child, copy))
+            else:
+                new.children.append(classes(child))
+    return top
+
+
+def estimate_coarse(trees: Sequence[Tree], start: str = "ROOT") -> LatentGrammar:
+    """The coarse maximum-likelihood grammar of CNF trees (count ratios), one subcategory per
+    symbol. Uses the training layer's supervised estimator (relative frequencies)."""
+    from treewright.train.supervised import estimate_from_trees
+    return latent_from_grammar(estimate_from_trees(list(trees), start=start, unk=UNKNOWN))
+
+
+def from_coarse_trees(tree: Tree) -> Tree:
+    """Undo the CNF transforms of `cnf_tree` (labels already coarse)."""
+    return unbinarize(expand_unary(tree))
+
+
+# ---- one cycle --------------------------------------------------------------------------------
+
+@dataclass
+class CycleSettings:
+    em_iterations: int = 20
+    smoothed_iterations: int = 5
+    merge_fraction: float = 0.5
+    perturbation: float = 0.01
+    smooth_nonterminal: float = 0.01
+    smooth_preterminal: float = 0.1
+
+
+def em_on_trees(lg: LatentGrammar, ts: TreeSet, iterations: int,
+                smoothing: tuple[float, float] | None = None) -> tuple[LatentGrammar, list[float]]:
+    """EM over the subcategories of fixed trees; returns the grammar and the training
+    log-likelihood before each iteration's M-step."""
+    history = []
+    for _ in range(iterations):
+        e = tree_estep(lg, ts)
+        history.append(float(e.loglik.sum()))
+        lg = normalize(lg, e.binary, e.lexical, e.root)
+        if smoothing is not None:
+            lg = smooth(lg, *smoothing)
+    return lg, history
+
+
+def tree_cycle(lg: LatentGrammar, ts: TreeSet, s: CycleSettings, generator: torch.Generator
+               ) -> LatentGrammar:
+    """One split-merge cycle on observed trees (Petrov et al. 2006): split, EM, merge, then EM
+    with smoothing."""
+    lg = split(lg, s.perturbation, generator)
+    lg, _ = em_on_trees(lg, ts, s.em_iterations)
+    e = tree_estep(lg, ts)
+    lg = merge(lg, merge_plan(lg, merge_losses(lg, ts, e), s.merge_fraction), e)
+    lg = smooth(lg, s.smooth_nonterminal, s.smooth_preterminal)
+    lg, _ = em_on_trees(lg, ts, s.smoothed_iterations,
+                        (s.smooth_nonterminal, s.smooth_preterminal))
+    return lg
+
+
+def em_on_text(lg: LatentGrammar, ids, iterations: int, batch_size: int,
+               smoothing: tuple[float, float] | None = None):
+    history = []
+    for _ in range(iterations):
+        e = text_estep(lg, ids, batch_size)
+        history.append(e.loglik)
+        lg = normalize(lg, e.binary, e.lexical, e.root)
+        if smoothing is not None:
+            lg = smooth(lg, *smoothing)
+    return lg, history
+
+
+def text_cycle(lg: LatentGrammar, ids, words, s: CycleSettings, generator: torch.Generator,
+               batch_size: int = 32) -> LatentGrammar:
+    """One cycle from raw text. The merge losses are estimated on each sentence's most probable
+    coarse tree (the paper's per-node estimate needs nodes; these stand in for the unseen
+    trees); the merged rules take the full inside-outside counts."""
+    lg = split(lg, s.perturbation, generator)
+    lg, _ = em_on_text(lg, ids, s.em_iterations, batch_size)
+    trees = viterbi_coarse_trees(lg, words)
+    ts = tree_set(lg, trees)
+    losses = merge_losses(lg, ts, tree_estep(lg, ts))
+    counts = text_estep(lg, ids, batch_size)
+    lg = merge(lg, merge_plan(lg, losses, s.merge_fraction),
+               counts=(counts.binary, counts.lexical, counts.root))
+    lg = smooth(lg, s.smooth_nonterminal, s.smooth_preterminal)
+    lg, _ = em_on_text(lg, ids, s.smoothed_iterations, batch_size,
+                       (s.smooth_nonterminal, s.smooth_preterminal))
+    return lg
+
+
+# ---- evaluation -------------------------------------------------------------------------------
+
+def labeled_f1(pred: Sequence[Tree | None], gold: Sequence[Tree]) -> dict[str, float]:
+    """Labeled bracket precision, recall and F1 (micro-averaged over the corpus) of phrase
+    spans (width >= 2, preterminals excluded), counted as multisets of (start, end, label)
+    (the usual labeled bracket score; common practice). A missing parse contributes no
+    predicted brackets."""
+    from collections import Counter
+
+    match = n_pred = n_gold = 0
+    for p, g in zip(pred, gold):
+        gs = Counter(s for s in g.labeled_spans() if s[1] - s[0] >= 2)
+        ps = Counter(s for s in p.labeled_spans() if s[1] - s[0] >= 2) if p is not None \
+            else Counter()
+        match += sum((gs & ps).values())
+        n_pred += sum(ps.values())
+        n_gold += sum(gs.values())
+    precision = match / n_pred if n_pred else 0.0
+    recall = match / n_gold if n_gold else 0.0
+    f1 = 2 * precision * recall / (precision + recall) if precision + recall else 0.0
+    return {"precision": precision, "recall": recall, "f1": f1}
+
+
+def parse_heldout(lg: LatentGrammar, words: Sequence[Sequence[str]],
+                  decoder: str = "max-rule-product") -> list[Tree | None]:
+    """Coarse trees (CNF transforms undone) by the coarse max-rule-product decoder, or by the
+    best fine tree with its labels projected ("viterbi")."""
+    from treewright.decode import decode
+    from treewright.refine.text import project_labels
+
+    fine = lg.to_grammar(torch.float64)
+    out: list[Tree | None] = []
+    for result in decode(fine, words, decoder):
+        out.append(None if result.tree is None
+                   else from_coarse_trees(project_labels(result.tree)))
+    return out
+
+
+# ---- the run ----------------------------------------------------------------------------------
+
+@dataclass
+class RefineResult:
+    grammar: LatentGrammar
+    grammar_path: Path
+    metrics: list[dict] = field(default_factory=list)
+
+
+class _Log:
+    def __init__(self, run_dir: Path, stream: TextIO | None):
+        self.path = run_dir / "refine.log"
+        self.lines: list[str] = []
+        self.stream = stream
+
+    def note(self, text: str) -> None:
+        self.lines.append(text)
+        atomic_write_text(self.path, "\n".join(self.lines) + "\n")
+        if self.stream is not None:
+            print(text, file=self.stream)
+
+
+def _read(path: Path, fmt: str, max_length: int | None) -> tuple[list, str]:
+    corpus = read_corpus(path, fmt, ReadOptions(max_length=max_length))
+    return corpus.sentences, corpus.report.format().replace("\n", "; ")
+
+
+def _held_out(cfg: RefineConfig, sentences: list) -> tuple[list, list, str]:
+    d = cfg.data
+    if d.dev is not None:
+        dev, report = _read(d.dev, d.format, d.max_length)
+        return sentences, dev, f"held-out corpus: {report}"
+    parts = split_indices(len(sentences), dev=d.heldout_fraction, test=0.0, seed=cfg.refine.seed)
+    return ([sentences[i] for i in parts.train], [sentences[i] for i in parts.dev],
+            f"held out {len(parts.dev)} of {len(sentences)} training sentences "
+            f"(fraction {d.heldout_fraction}, seed {cfg.refine.seed})")
+
+
+def _subcategory_counts(lg: LatentGrammar) -> dict[str, int]:
+    return {f"subcategories/{s}": int(n) for s, n in zip(lg.symbols, lg.splits.tolist())}
+
+
+def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,
+           config_source: str | None = None) -> RefineResult:
+    """Run the refinement `cfg` describes into `run_dir` (created if needed)."""
+    run_dir = Path(run_dir)
+    run_dir.mkdir(parents=True, exist_ok=True)
+    header = f"resolved config of treewright refine {config_source or ''}".rstrip()
+    atomic_write_text(run_dir / "config.yaml", dump_config_yaml(cfg, header))
+    log = _Log(run_dir, stream)
+    backends = (["stdout"] if cfg.output.stdout_metrics else []) + ["jsonl"] + \
+        (["tensorboard"] if cfg.output.tensorboard else [])
+    loggers = open_loggers(run_dir, backends, stream)
+    try:
+        if cfg.data.start == "treebank":
+            return _refine_treebank(cfg, run_dir, log, loggers)
+        return _refine_text(cfg, run_dir, log, loggers)
+    finally:
+        loggers.close()
+
+
+def _settings(cfg: RefineConfig) -> CycleSettings:
+    r = cfg.refine
+    return CycleSettings(r.em_iterations, r.smoothed_iterations, r.merge_fraction,
+                         r.perturbation, r.smooth_nonterminal, r.smooth_preterminal)
+
+
+def _save(lg: LatentGrammar, run_dir: Path, name: str) -> Path:
+    path = run_dir / name
+    lg.to_grammar(torch.float64).save(path)
+    return path
+
+
+def _write_summary(lg, usage, run_dir: Path, stem: str, top: int) -> None:
+    summary = subcategory_summary(lg, usage, top)
+    atomic_write_text(run_dir / f"{stem}.txt", summary_text(summary))
+    atomic_write_text(run_dir / f"{stem}.json", json.dumps(summary, indent=1, ensure_ascii=False)
+                      + "\n")
+
+
+def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> RefineResult:
+    d, form = cfg.data, cfg.tree_form
+    sentences, report = _read(d.train, d.format, d.max_length)
+    log.note(f"training corpus: {report}")
+    if any(s.tree is None for s in sentences):
+        raise InputError("the treebank start needs trees (bracketed trees or CoNLL-U)",
+                         path=str(d.train))
+    train, dev, note = _held_out(cfg, sentences)
+    log.note(note)
+
+    def usable(part: list, name: str) -> list[Tree]:
+        trees, one_word = [], 0
+        for s in part:
+            t = cnf_tree(s.tree, form.factor, form.horizontal, form.vertical)
+            if t.is_preterminal():
+                one_word += 1  # a one-word tree has no phrase for the root to rewrite to
+            else:
+                trees.append(t)
+        if one_word:
+            log.note(f"{name}: {one_word} one-word sentences set aside (no phrase node)")
+        return trees
+
+    train_trees, dev_trees = usable(train, "training"), usable(dev, "held-out")
+    classes = WordClasses.fit((w for t in train_trees for w in t.leaves()), d.rare_count,
+                              d.signature_min_count)
+    train_mapped = [map_words(t, classes) for t in train_trees]
+    dev_mapped = [map_words(t, classes) for t in dev_trees]
+    lg = estimate_coarse(train_mapped)
+    log.note(f"coarse grammar: {len(lg.symbols)} symbols, {len(lg.rules)} binary and "
+             f"{len(lg.words)} word rules; {len(classes.known)} known words, "
+             f"{len(classes.signatures)} signature classes")
+    ts_train = tree_set(lg, train_mapped)
+    ts_dev = tree_set(lg, dev_mapped)
+    if ts_dev.dropped:
+        log.note(f"held-out: {len(ts_dev.dropped)} of {len(dev_mapped)} trees use a coarse rule "
+                 f"unseen in training and are left out of the held-out likelihood, e.g. "
+                 f"tree {ts_dev.dropped[0][0] + 1}: {ts_dev.dropped[0][1]}")
+    f1_count = min(len(dev_trees), cfg.output.f1_max_sentences or len(dev_trees))
+    f1_words = [t.leaves() for t in dev_mapped[:f1_count]]
+    f1_gold = [from_coarse_trees(t) for t in dev_mapped[:f1_count]]
+    settings = _settings(cfg)
+    generator = torch.Generator().manual_seed(cfg.refine.seed)
+    result = RefineResult(lg, run_dir / "grammar.pcfg")
+    _save(lg, run_dir, "coarse.pcfg")
+
+    def report_cycle(cycle: int, lg: LatentGrammar, seconds: float) -> None:
+        e = tree_estep(lg, ts_train)
+        dev_ll = float(tree_loglik(lg, ts_dev).sum()) if ts_dev.num_trees else float("nan")
+        metrics: dict = {"cycle": cycle, "fine_symbols": lg.num_fine(),
+                         "train/loglik": float(e.loglik.sum()),
+                         "train/loglik_per_word": float(e.loglik.sum()) / ts_train.words,
+                         "heldout/loglik": dev_ll,
+                         "heldout/loglik_per_word": dev_ll / max(ts_dev.words, 1),
+                         "heldout/trees": ts_dev.num_trees,
+                         "heldout/trees_left_out": len(ts_dev.dropped),
+                         "seconds": seconds}
+        if cfg.output.parse_f1 and f1_words:
+            scores = labeled_f1(parse_heldout(lg, f1_words, cfg.output.f1_decoder), f1_gold)
+            metrics.update({f"heldout/labeled_{k}": v for k, v in scores.items()})
+        metrics.update(_subcategory_counts(lg))
+        loggers.log(metrics, cycle)
+        result.metrics.append(metrics)
+        usage = torch.zeros(len(lg.symbols), lg.width, dtype=e.inside.dtype)
+        usage.index_add_(0, ts_train.symbol, e.inside * e.outside)
+        stem = "summary" if cycle == cfg.refine.cycles else f"summary-{cycle}"
+        _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
+
+    report_cycle(0, lg, 0.0)
+    for cycle in range(1, cfg.refine.cycles + 1):
+        began = time.perf_counter()
+        lg = tree_cycle(lg, ts_train, settings, generator)
+        seconds = time.perf_counter() - began
+        _save(lg, run_dir, f"cycle-{cycle}.pcfg")
+        report_cycle(cycle, lg, seconds)
+    result.grammar = lg
+    _save(lg, run_dir, "grammar.pcfg")
+    log.note(f"refined grammar: {result.grammar_path}")
+    return result
+
+
+def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> RefineResult:
+    d = cfg.data
+    assert d.grammar is not None
+    path = Path(d.grammar)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("no such grammar file", path=str(path)) from None
+    lg = latent_from_grammar(parse_grammar(text, source=str(path)))
+    sentences, report = _read(d.train, d.format, d.max_length)
+    log.note(f"training corpus: {report}")
+    train, dev, note = _held_out(cfg, sentences)
+    log.note(note)
+    vocab = lg.vocab
+
+    def as_words(part) -> tuple[list[list[str]], list[list[int]]]:
+        words = [[w if w in vocab else (vocab.unk or w) for w in s.tokens] for s in part]
+        return words, [vocab.encode(w) for w in words]
+
+    train_words, train_ids = as_words(train)
+    dev_words, dev_ids = as_words(dev)
+    n_train_words = sum(map(len, train_ids))
+    n_dev_words = sum(map(len, dev_ids))
+    settings = _settings(cfg)
+    generator = torch.Generator().manual_seed(cfg.refine.seed)
+    result = RefineResult(lg, run_dir / "grammar.pcfg")
+    _save(lg, run_dir, "coarse.pcfg")
+
+    def report_cycle(cycle: int, lg: LatentGrammar, seconds: float) -> None:
+        e = text_estep(lg, train_ids, cfg.refine.batch_size)
+        dev_ll, dev_unparsed = text_loglik(lg, dev_ids, cfg.refine.batch_size)
+        metrics: dict = {"cycle": cycle, "fine_symbols": lg.num_fine(),
+                         "train/loglik": e.loglik,
+                         "train/loglik_per_word": e.loglik / max(n_train_words, 1),
+                         "train/unparsed": e.unparsed,
+                         "heldout/loglik": dev_ll,
+                         "heldout/loglik_per_word": dev_ll / max(n_dev_words, 1),
+                         "heldout/unparsed": dev_unparsed, "seconds": seconds}
+        metrics.update(_subcategory_counts(lg))
+        loggers.log(metrics, cycle)
+        result.metrics.append(metrics)
+        usage = lg.lhs_totals(e.binary, e.lexical)
+        stem = "summary" if cycle == cfg.refine.cycles else f"summary-{cycle}"
+        _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
+
+    report_cycle(0, lg, 0.0)
+    for cycle in range(1, cfg.refine.cycles + 1):
+        began = time.perf_counter()
+        lg = text_cycle(lg, train_ids, train_words, settings, generator, cfg.refine.batch_size)
+        seconds = time.perf_counter() - began
+        _save(lg, run_dir, f"cycle-{cycle}.pcfg")
+        report_cycle(cycle, lg, seconds)
+    result.grammar = lg
+    _save(lg, run_dir, "grammar.pcfg")
+    log.note(f"refined grammar: {result.grammar_path}")
+    return result
