@@ -72,7 +72,8 @@ def from_coarse_trees(tree: Tree) -> Tree:
 
 @dataclass
 class CycleSettings:
-    em_iterations: int = 20
+    """One cycle's settings; the defaults are those of `refine.config.CycleConfig`."""
+    em_iterations: int = 50
     smoothed_iterations: int = 5
     merge_fraction: float = 0.5
     perturbation: float = 0.01

@@ -84,9 +84,10 @@ def merge_plan(lg: LatentGrammar, losses: Tensor, fraction: float) -> Tensor:
 
 def merge(lg: LatentGrammar, plan: Tensor, estep: TreeEStep | None = None,
           counts: tuple[Tensor, Tensor, Tensor] | None = None) -> LatentGrammar:
-    """Merge the planned pairs: the merged subcategory's rules are the count-weighted average of
-    the two (the expected counts added, then renormalized), and as a child it stands for both
-    (their probabilities added). `counts` (binary, lexical, root blocks) default to those of
+    """Merge the planned pairs (Petrov et al. 2006, section 2.2): as a parent, the merged
+    subcategory's rule probabilities are the average of the two weighted by their relative
+    frequencies; as a child it stands for both (their probabilities add). The frequencies come
+    from the expected counts (binary, lexical, root blocks) of `counts`, by default those of
     `estep`. Subcategories are renumbered 0..n-1 per symbol; K shrinks to the new maximum."""
     if counts is None:
         assert estep is not None
@@ -110,21 +111,16 @@ def merge(lg: LatentGrammar, plan: Tensor, estep: TreeEStep | None = None,
     valid = lg.valid.to(lg.binary.dtype)
     proj = torch.zeros(S, K, new_k, dtype=lg.binary.dtype)                  # (S, K, K')
     proj.scatter_(2, target[:, :, None], valid[:, :, None])
+    # (S, K, K') parent weights: each subcategory's share of its merged group's uses (equal
+    # shares where the group was never used).
+    uses = lg.lhs_totals(counts[0], counts[1])[:, :, None] * proj + 1e-300 * proj
+    share = uses / uses.sum(1, keepdim=True).clamp(min=1e-300)
     A, B, C = lg.rules.unbind(1)
     X = lg.words[:, 0]
-
-    def project(binary: Tensor, lexical: Tensor, root: Tensor):
-        b = torch.einsum("rabc,rax,rby,rcz->rxyz", binary, proj[A], proj[B], proj[C])
-        return b, torch.einsum("la,lax->lx", lexical, proj[X]), \
-            torch.einsum("ua,uax->ux", root, proj[lg.tops])
-
-    # Probabilities of rows with no counts: the children's halves add, the parent's average.
-    avg = proj / proj.sum(1, keepdim=True).clamp(min=1)
-    fallback_b = torch.einsum("rabc,rax,rby,rcz->rxyz", lg.binary, avg[A], proj[B], proj[C])
-    fallback_l = torch.einsum("la,lax->lx", lg.lexical, avg[X])
-    fallback_r = torch.einsum("ua,uax->ux", lg.root, proj[lg.tops])
-    shrunk = lg.with_params(fallback_b, fallback_l, fallback_r, torch.tensor(new_splits))
-    return normalize(shrunk, *project(*counts))
+    binary = torch.einsum("rabc,rax,rby,rcz->rxyz", lg.binary, share[A], proj[B], proj[C])
+    lexical = torch.einsum("la,lax->lx", lg.lexical, share[X])
+    root = torch.einsum("ua,uax->ux", lg.root, proj[lg.tops])
+    return lg.with_params(binary, lexical, root, torch.tensor(new_splits))
 
 
 def smooth(lg: LatentGrammar, nonterminal_weight: float, preterminal_weight: float
