@@ -51,9 +51,14 @@ FULL_SCALING = [5, 10, 15, 20, 30, 40, 50, 60]
 QUICK_SCALING = [4, 6, 8]
 
 
-def best_time(fn, repeats: int) -> float:
-    """Minimum wall time of `repeats` calls after one warm-up call."""
-    fn()
+def progress(message: str) -> None:
+    print(message, file=sys.stderr, flush=True)
+
+
+def best_time(fn, repeats: int, warm_up: bool = True) -> float:
+    """Minimum wall time of `repeats` calls, after one warm-up call unless told otherwise."""
+    if warm_up:
+        fn()
     best = math.inf
     for _ in range(repeats):
         start = time.perf_counter()
@@ -143,7 +148,10 @@ def probe(spec: list[str]) -> None:
 def time_reference(nt: int, t: int, n: int, repeats: int) -> float:
     root, binary, terminal, lengths = random_grammar(nt, t, n, BATCH)
     with torch.no_grad():
-        return best_time(lambda: reference_inside(root, binary, terminal, lengths), repeats)
+        # The reference takes about a minute at n = 20 on a busy machine: one call, no warm-up
+        # (it has no caches to warm).
+        return best_time(lambda: reference_inside(root, binary, terminal, lengths), repeats,
+                         warm_up=False)
 
 
 def random_lowrank(nt: int, t: int, rank: int, n: int, batch: int, seed: int = 0):
@@ -203,16 +211,21 @@ def main(argv: list[str] | None = None) -> int:
     gflops = matmul_gflops(repeats)
     rows = []
     for cfg in dense:
+        progress(f"dense NT={cfg.nt} T={cfg.t} n={cfg.n}")
         fwd, fb = time_dense(cfg, repeats)
         rows.append({**asdict(cfg), "fwd_s": fwd, "fb_s": fb})
+    progress("scaling")
     scaling = [time_dense(Dense(small.nt, small.t, n, None, None), repeats)[0] for n in scaling_ns]
-    ref_fwd = time_reference(small.nt, small.t, ref_n, max(1, repeats // 2))
+    progress("reference")
+    ref_fwd = time_reference(small.nt, small.t, ref_n, 1)
     fast_ref_fwd = time_dense(Dense(small.nt, small.t, ref_n, None, None), repeats)[0]
+    progress("low-rank")
     lowrank_fb = time_lowrank(*lowrank_cfg, repeats)
     small_fb = time_dense(Dense(small.nt, small.t, lowrank_cfg[3], None, None), repeats)[1]
     gflops = max(gflops, matmul_gflops(repeats))
     result["matmul_gflops"] = gflops
 
+    progress("memory and precision")
     idle = run_probe(["idle"])
     for row in rows:
         work = dense_work(row["nt"], row["t"], row["n"]) * BATCH

@@ -99,6 +99,7 @@ def _rule_blocks(binary: Tensor, q: int) -> _Rules:
 class _Saved:
     """What the forward keeps for the backward, per width w (index w - 2)."""
     split_sums: list   # (P*B, Q*Q) weighted sums over nonterminal splits, or None
+    left_children: list  # (P*B, K, Q) weighted left children of those splits, or None
     weights: list      # (P, B, w-1) weight of split u (at u-1) relative to the span's top
     peaks: list        # (P*B,) the maximum each cell was divided by
     right_mats: Tensor  # (N, B, Q+T, Q) [pos][X, A] = sum_c p(A -> X c) t[pos, c]
@@ -138,7 +139,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
         by_start[0:N, :, 1, :NT] = cells
         by_end[1:N + 1, :, N - 1, :NT] = cells
 
-    saved = _Saved([], [], [], right_mats, left_mats)
+    saved = _Saved([], [], [], [], right_mats, left_mats)
     for w in range(2, N + 1):
         P = N - w + 1
         PB = P * B
@@ -148,14 +149,14 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
         top = pair.amax(-1).nan_to_num_(neginf=0.0)                           # (P, B)
         weight = (pair - top.unsqueeze(-1)).exp_()
         total = None
-        split_sums = None
+        split_sums = left = None
         lo, hi = min_w, w - min_w  # left widths whose both children are nonterminals
         if hi >= lo:
             K = hi - lo + 1
-            left = by_start[0:P, :, lo:hi + 1] * weight[..., lo - 1:hi, None]  # (P, B, K, Q)
+            left = (by_start[0:P, :, lo:hi + 1] * weight[..., lo - 1:hi, None]
+                    ).view(PB, K, Q)
             right = by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]              # (P, B, K, Q)
-            split_sums = torch.bmm(left.view(PB, K, Q).transpose(1, 2),
-                                   right.reshape(PB, K, Q)).view(PB, Q * Q)
+            split_sums = torch.bmm(left.transpose(1, 2), right.reshape(PB, K, Q)).view(PB, Q * Q)
             total = (split_sums @ rules.nn).view(PB, 1, Q)
         if w - 1 >= min_w:
             # A -> B c: left child (i, i+w-1), preterminal c over word i+w-1.
@@ -183,6 +184,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
         scale_end[w:N + 1, :, N - w] = scale
         if keep:
             saved.split_sums.append(split_sums)
+            saved.left_children.append(left)
             saved.weights.append(weight)
             saved.peaks.append(peak)
     chart = Chart(by_start, by_end, scale_start, scale_end, term_sc, term_scale, min_w, NT)
@@ -278,9 +280,8 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
             grad_nn.addmm_(split_sums.t(), g)
             g_pairs = (g @ rules.nn.t()).view(PB, Q, Q)                 # d/d split_sums
             w_k = weight[..., lo - 1:hi, None]                          # (P, B, K, 1)
-            left = chart.by_start[0:P, :, lo:hi + 1]
             right = chart.by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]
-            left_w = (left * w_k).view(PB, K, Q)
+            left_w = saved.left_children[w - 2]
             g_left = torch.bmm(right.reshape(PB, K, Q), g_pairs.transpose(1, 2))
             g_right = torch.bmm(left_w, g_pairs)
             adj_start[0:P, :, lo:hi + 1].addcmul_(g_left.view(P, B, K, Q), w_k)
