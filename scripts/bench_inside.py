@@ -2,7 +2,7 @@
 
     .venv/bin/python scripts/bench_inside.py                 # full run, writes bench_inside.json
     .venv/bin/python scripts/bench_inside.py --quick         # smoke run on tiny sizes
-    .venv/bin/python scripts/bench_inside.py --json out.json --repeats 9
+    .venv/bin/python scripts/bench_inside.py --json out.json --repeats 9 --threads 1
 
 Throughput ratio = dense work / time / (1024 x 1024 float32 matmul GFLOP/s of this process).
 Dense work per sentence: for each width w and each of the n-w+1 spans, 2(w-1)S^2 flops for the
@@ -190,8 +190,13 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help="tiny sizes, for a smoke run")
     parser.add_argument("--repeats", type=int, default=None,
                         help="timed repeats per measurement (default 5, quick 2)")
+    parser.add_argument("--threads", type=int, default=None,
+                        help="torch threads (default: torch's choice); 1 gives steadier ratios "
+                             "when other programs load the CPU")
     parser.add_argument("--probe", nargs="+", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
+    if args.threads:
+        torch.set_num_threads(args.threads)
     if args.probe:
         if args.probe[0] != "idle":
             probe(args.probe)
