@@ -134,7 +134,11 @@ def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path
     if grammar_file.exists():
         found.grammar = load_grammar(grammar_file)
     else:
-        found.missing.append(f"{grammar_file.name} (the trained grammar: rules, parses, heat map)")
+        finished = sorted(p.name for p in run.glob("restart-*.pcfg"))
+        hint = f"; finished restarts can be shown with --grammar: {', '.join(finished)}" \
+            if finished else ""
+        found.missing.append(f"{grammar_file.name} (the trained grammar: rules, parses, heat "
+                             f"map){hint}")
     options = _read_options(found.config)
     if gold is None:
         dev = (found.config.get("data") or {}).get("dev")

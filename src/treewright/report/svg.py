@@ -186,7 +186,7 @@ def tree_svg(tree: Tree, title: str = "") -> str:
         xs = [x_of[id(c)] if isinstance(c, Tree) else word_x[(id(node), k)]
               for k, c in enumerate(node.children)]
         x_of[id(node)] = sum(xs) / len(xs) if xs else cursor
-    width, height = int(cursor + 8), int(word_y + 14)
+    width, height = int(cursor + 28), int(word_y + 14)  # room for a label over the last word
     parts = [f'<svg xmlns="http://www.w3.org/2000/svg" class="tree" width="{width}" '
              f'height="{height}" viewBox="0 0 {width} {height}" role="img">']
     if title:
