@@ -124,6 +124,7 @@ def quote(word: str) -> str:
 
 
 _TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|[^\s"]+')
+_TOKENS = re.compile(r'(?:\s*(?:"(?:[^"\\]|\\.)*"|[^\s"]+))+\s*')
 
 
 def _unquote(token: str) -> str:
@@ -168,10 +169,13 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                                  "(expected '@start SYMBOL' or '@unknown \"WORD\"')", **where)
             continue
         tokens = _TOKEN.findall(line)
-        if "".join(tokens) != re.sub(r"\s+", "", line) or len(tokens) < 4 or tokens[1] != "->":
+        if not _TOKENS.fullmatch(line) or len(tokens) < 4 or tokens[1] != "->":
             raise InputError(f"malformed rule {raw.strip()!r} "
                              "(expected 'LHS -> RHS probability')", **where)
         lhs, rhs_tokens, prob_text = tokens[0], tokens[2:-1], tokens[-1]
+        if any(t.startswith("'") for t in rhs_tokens):
+            raise InputError(f"malformed rule {raw.strip()!r}: terminals are written in double "
+                             "quotes", **where)
         if lhs.startswith('"'):
             raise InputError("the left-hand side must be a symbol, not a quoted word", **where)
         try:

@@ -11,12 +11,19 @@ from treewright.errors import InputError
 
 # name -> (module, one-line summary). Modules are imported only when their command runs.
 COMMANDS = {
+    "train": ("treewright.cli.train", "induce a grammar as a config says, into a run folder"),
+    "validate": ("treewright.cli.validate", "check a training config and do nothing else"),
+    "refine": ("treewright.cli.refine",
+               "split-merge refinement of a grammar's symbols into subcategories"),
     "score": ("treewright.cli.score", "log-probability of each sentence under a grammar"),
     "parse": ("treewright.cli.parse", "the best tree of each sentence"),
     "sample": ("treewright.cli.sample", "draw sentences with their trees from a grammar"),
     "export": ("treewright.cli.export", "write a grammar or parsed text in another format"),
     "inspect": ("treewright.cli.inspect", "a grammar's symbols, rules and usage in the terminal"),
     "compare": ("treewright.cli.compare", "two grammars' likelihood, brackets and symbol matching"),
+    "evaluate": ("treewright.cli.evaluate",
+                 "bracket F1 of predicted trees against gold, beside the baselines"),
+    "report": ("treewright.cli.report", "one self-contained HTML page about a training run"),
 }
 
 

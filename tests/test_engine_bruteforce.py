@@ -1,0 +1,118 @@
+"""The engine against brute-force enumeration of every tree (independent reference: the
+definitions of log Z, the best tree and posterior expectations, computed tree by tree)."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+import torch
+from scipy.stats import chisquare
+
+from _brute import summary
+from _grammars import random_grammar
+from treewright import engine
+from treewright.inference import encode, tree_logprob, spans_to_tree
+from treewright.engine.reference import reference_inside
+
+CASES = [  # (nonterminals, preterminals, sentence length, nonterminals emit words)
+    (2, 2, 2, False), (2, 2, 4, False), (2, 2, 5, False), (2, 1, 7, False),
+    (2, 2, 3, True), (2, 1, 4, True), (3, 2, 4, False),
+]
+
+
+def _sentence(grammar, n, seed):
+    gen = torch.Generator().manual_seed(seed)
+    v = len(grammar.vocab)
+    return [grammar.vocab.words[int(i)] for i in torch.randint(v, (n,), generator=gen)]
+
+
+def _inputs(grammar, words):
+    enc = encode(grammar, [words], torch.float64)
+    return grammar.root, grammar.binary, enc.terminal, enc.lengths, enc.nt_terminal
+
+
+@pytest.mark.parametrize("nt,t,n,nt_emit", CASES)
+def test_log_z_counts_spans_and_viterbi_match_enumeration(nt, t, n, nt_emit):
+    grammar = random_grammar(nt, t, 3, seed=10 * n + nt, nt_emit=nt_emit)
+    words = _sentence(grammar, n, seed=n)
+    brute = summary(grammar, words)
+    args = _inputs(grammar, words)
+
+    post = engine.posteriors(*args)
+    assert float(post.logz[0]) == pytest.approx(brute["logz"], rel=1e-10)
+    assert float(reference_inside(*args)[0]) == pytest.approx(brute["logz"], rel=1e-10)
+    torch.testing.assert_close(post.binary, brute["counts"], atol=1e-10, rtol=1e-8)
+    torch.testing.assert_close(post.spans[0], brute["spans"], atol=1e-10, rtol=1e-8)
+    nt_ = len(grammar.nonterminals)
+    torch.testing.assert_close(post.terminal[0], brute["term"][:, nt_:], atol=1e-10, rtol=1e-8)
+    if nt_emit:
+        torch.testing.assert_close(post.nt_terminal[0], brute["term"][:, :nt_],
+                                   atol=1e-10, rtol=1e-8)
+
+    (score, spans), = engine.viterbi(*args)
+    best_lp, best_spans, _ = brute["best"]
+    assert score == pytest.approx(best_lp, rel=1e-10)
+    assert sorted(spans) == sorted(best_spans)
+    # Fact of the trade (common practice): a tree's probability is the product of its rules'.
+    tree = spans_to_tree(grammar, words, spans)
+    assert tree_logprob(grammar, tree) == pytest.approx(score, rel=1e-10)
+
+
+def test_batched_sentences_of_different_lengths_match_one_at_a_time():
+    grammar = random_grammar(3, 2, 4, seed=3)
+    sentences = [_sentence(grammar, n, seed=n) for n in (5, 2, 4, 3)]
+    enc = encode(grammar, sentences, torch.float64)
+    batch = engine.log_partition(grammar.root, grammar.binary, enc.terminal, enc.lengths)
+    for k, words in enumerate(sentences):
+        assert float(batch[k]) == pytest.approx(summary(grammar, words)["logz"], rel=1e-10)
+
+
+def test_zero_probability_rule_rules_out_every_tree_that_uses_it():
+    # Fact of the trade (common practice): a zero-probability rule removes exactly the trees
+    # that use it; brute force over the remaining trees gives the new log Z.
+    grammar = random_grammar(2, 2, 3, seed=5)
+    words = _sentence(grammar, 5, seed=2)
+    grammar.binary[0, 2, 3] = -math.inf
+    brute = summary(grammar, words)
+    assert all(("bin", 0, 2, 3) not in rules for _, _, rules in brute["trees"])
+    post = engine.posteriors(*_inputs(grammar, words))
+    assert float(post.logz[0]) == pytest.approx(brute["logz"], rel=1e-10)
+    assert float(post.binary[0, 2, 3]) == 0.0
+
+
+def test_partial_brackets_restrict_the_sum_to_compatible_trees():
+    # Pereira & Schabes (1992): with a forbidden span, log Z sums only the trees without it.
+    grammar = random_grammar(2, 2, 3, seed=8)
+    words = _sentence(grammar, 5, seed=4)
+    brute = summary(grammar, words)
+    kept = [lp for lp, spans, _ in brute["trees"] if (1, 4) not in {(i, j) for i, j, _ in spans}]
+    pot = torch.zeros(1, 6, 6, dtype=torch.float64)
+    pot[0, 1, 3] = -math.inf
+    args = _inputs(grammar, words)
+    logz = engine.log_partition(*args[:4], span_pot=pot)
+    assert float(logz[0]) == pytest.approx(float(torch.logsumexp(torch.tensor(kept, dtype=torch.float64), 0)),
+                                           rel=1e-10)
+
+
+def test_sampler_tree_frequencies_match_the_exact_posterior():
+    # Chi-square goodness of fit of 6,000 draws against the enumerated posterior (fixed seed).
+    grammar = random_grammar(2, 1, 2, seed=21)
+    words = _sentence(grammar, 4, seed=1)
+    brute = summary(grammar, words)
+    exact = {tuple(sorted(spans)): math.exp(lp - brute["logz"]) for lp, spans, _ in brute["trees"]}
+    draws = 6000
+    gen = torch.Generator().manual_seed(0)
+    args = _inputs(grammar, words)
+    trees = engine.sample_trees(*args[:4], num_samples=draws, generator=gen)[0]
+    observed = {key: 0 for key in exact}
+    for spans in trees:
+        observed[tuple(sorted(spans))] += 1  # a KeyError here would be a tree that cannot exist
+    keys = sorted(exact, key=exact.get, reverse=True)
+    big = [k for k in keys if exact[k] * draws >= 5]
+    small = [k for k in keys if exact[k] * draws < 5]
+    obs = [observed[k] for k in big] + ([sum(observed[k] for k in small)] if small else [])
+    exp = [exact[k] * draws for k in big] + ([sum(exact[k] for k in small) * draws]
+                                             if small else [])
+    assert len(big) >= 10
+    assert chisquare(obs, exp).pvalue > 0.001

@@ -1,0 +1,84 @@
+"""The grammar text format: exact round trips and clear errors naming file and line."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+import torch
+
+from _grammars import random_grammar
+from treewright.errors import InputError
+from treewright.grammar import load_grammar, parse_grammar
+from treewright.inference import score
+
+
+def test_round_trip_is_exact_in_float64(tmp_path):
+    for nt_emit in (False, True):
+        g = random_grammar(3, 4, 5, seed=7, nt_emit=nt_emit, sparsity=0.3)
+        path = tmp_path / "g.pcfg"
+        g.save(path)
+        back = load_grammar(path)
+        assert back.to_text() == g.to_text()
+        # Same symbols in the same order and bit-identical probabilities, so identical scores.
+        assert back.symbols == g.symbols
+        for a, b in ((g.root, back.root), (g.binary, back.binary), (g.lexical, back.lexical)):
+            assert torch.equal(a.exp(), b.exp())
+        sents = [["w0", "w1", "w2"], ["w3", "w4"]]
+        assert [s.logprob for s in score(g, sents, dtype=torch.float64)] == \
+            [s.logprob for s in score(back, sents, dtype=torch.float64)]
+
+
+def test_each_left_hand_side_sums_to_one():
+    # Fact of the trade (common practice): each left-hand side's probabilities sum to one.
+    g = random_grammar(4, 3, 6, seed=2, nt_emit=True)
+    assert g.normalization_error() < 1e-12
+
+
+def test_comments_quotes_and_unknown_token():
+    g = parse_grammar('@start S  # top\n@unknown "<unk>"\nS -> A A 1.0\n'
+                      'A -> "a#b" 0.5 # a word with a hash\nA -> "say \\"hi\\"" 0.25\n'
+                      'A -> "<unk>" 0.25\n')
+    assert set(g.vocab.words) == {"a#b", 'say "hi"', "<unk>"}
+    (s,) = score(g, [["a#b", "never-seen"]], dtype=torch.float64)
+    assert s.logprob == pytest.approx(math.log(0.5 * 0.25))
+    assert s.unknown == ["never-seen"]
+
+
+@pytest.mark.parametrize("text,line,fragment", [
+    ("@start S\nS -> A A 1.0\nA -> 'a' 1.0\n", 3, "malformed rule"),
+    ("@start S\nS -> A A 1.0\nA -> \"a\" 1.2\n", 3, "outside [0, 1]"),
+    ("@start S\nS -> A A 1.0\nA -> \"a\" -0.1\nA -> \"b\" 1.1\n", 3, "outside [0, 1]"),
+    ("@start S\nS -> A A 1.0\nA -> \"a\" nan\n", 3, "outside [0, 1]"),
+    ("@start S\nS -> A A 1.0\nA -> \"a\" 0.5\nA -> \"b\" 0.4\n", 3, "sum to 0.9"),
+    ("@start S\nS -> A B 1.0\nA -> \"a\" 1.0\n", 2, "B is used but has no rules"),
+    ("@start S\nS -> A A 1.0\nA -> B\nA -> \"a\" 1.0\n", 3, "malformed rule"),
+    ("@start S\nS -> A A 0.5\nS -> A 0.5\nA -> \"a\" 1.0\n", 2, "unary rules and other"),
+    ("@begin S\n", 1, "unknown or malformed directive"),
+    ("@start S\nS -> A A 1.0\nA -> \"a\" 0.5\nA -> \"a\" 0.5\n", 4, "rule repeated"),
+])
+def test_malformed_grammars_name_the_line(text, line, fragment):
+    with pytest.raises(InputError) as err:
+        parse_grammar(text, source="g.pcfg")
+    assert err.value.line == line
+    assert fragment in str(err.value)
+    assert str(err.value).startswith(f"g.pcfg, line {line}: ")
+
+
+def test_renormalize_rescales_instead_of_refusing():
+    g = parse_grammar('@start S\nS -> A A 2.0e-1\nA -> "a" 0.5\nA -> "b" 0.3\n',
+                      renormalize=True)
+    assert g.normalization_error() < 1e-12
+    assert math.exp(float(g.lexical[1, 0])) == pytest.approx(0.5 / 0.8)
+
+
+def test_grammar_without_a_path_to_words_is_refused():
+    with pytest.raises(InputError, match="no tree from the start symbol ever reaches a word"):
+        parse_grammar("@start S\nS -> S S 1.0\nA -> \"a\" 1.0\n")
+
+
+def test_missing_start_and_missing_file(tmp_path):
+    with pytest.raises(InputError, match="no start symbol"):
+        parse_grammar('S -> A A 1.0\nA -> "a" 1.0\n')
+    with pytest.raises(InputError, match="no such grammar file"):
+        load_grammar(tmp_path / "absent.pcfg")
