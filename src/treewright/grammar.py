@@ -23,10 +23,17 @@ Grammar text format (ours; see the README):
                              distribution (then the start symbol has no other rules)
 
 Probabilities are printed with 17 significant digits, so load, save, load is exact in float64.
+
+A saved grammar is sealed: its first line is `@format 1` and its last line is
+`# checksum sha256:HEX`, the SHA-256 of every line before it (joined with "\n", so a change of
+line endings alone is not an edit). A file whose checksum no longer matches, or that has
+`@format` but lost its checksum line (a truncated save), is refused. A hand-written file has
+neither line and loads as it is; to accept hand edits to a saved file, delete both lines.
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
 import re
 from dataclasses import dataclass
@@ -38,6 +45,8 @@ from treewright.errors import InputError
 from treewright.vocab import Vocabulary
 
 NEG_INF = float("-inf")
+FORMAT_VERSION = 1
+CHECKSUM_PREFIX = "# checksum sha256:"
 
 
 @dataclass
@@ -92,7 +101,8 @@ class Grammar:
     # ---- the text format -------------------------------------------------------------------
 
     def to_text(self) -> str:
-        lines = [f"@start {self.start}"]
+        """The grammar in the text format, sealed with `@format` and a checksum line."""
+        lines = [f"@format {FORMAT_VERSION}", f"@start {self.start}"]
         if self.vocab.unk is not None:
             lines.append(f"@unknown {quote(self.vocab.unk)}")
         names = self.symbols
@@ -108,6 +118,7 @@ class Grammar:
                     lines.append(f"{lhs} -> {names[b]} {names[c]} {format_prob(binary[a, b, c])}")
             for w in torch.nonzero(torch.isfinite(lexical[a])).flatten().tolist():
                 lines.append(f"{lhs} -> {quote(self.vocab.words[w])} {format_prob(lexical[a, w])}")
+        lines.append(CHECKSUM_PREFIX + _digest(lines))
         return "\n".join(lines) + "\n"
 
     def save(self, path: str | Path) -> None:
@@ -125,6 +136,31 @@ def quote(word: str) -> str:
 
 _TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|[^\s"]+')
 _TOKENS = re.compile(r'(?:\s*(?:"(?:[^"\\]|\\.)*"|[^\s"]+))+\s*')
+
+
+def _digest(lines: list[str]) -> str:
+    return hashlib.sha256("\n".join(lines).encode("utf-8")).hexdigest()
+
+
+def _check_seal(lines: list[str], source: str) -> None:
+    """Refuse a saved grammar that was edited or truncated (see the module docstring)."""
+    accept = ("to accept the file as it is now, delete its '# checksum' line and its "
+              "'@format' line")
+    seals = [k for k, line in enumerate(lines) if line.startswith(CHECKSUM_PREFIX)]
+    if not seals:
+        for k, line in enumerate(lines):
+            if line.split(None, 1)[:1] == ["@format"]:
+                raise InputError("the grammar was saved by treewright ('@format') but its closing "
+                                 "checksum line is missing: the file was truncated or the line "
+                                 f"was removed; {accept}", path=source, line=k + 1)
+        return
+    k = seals[-1]
+    if any(line.strip() for line in lines[k + 1:]):
+        raise InputError("text follows the checksum line: the file was edited after it was "
+                         f"saved; {accept}", path=source, line=k + 1)
+    if lines[k][len(CHECKSUM_PREFIX):].strip() != _digest(lines[:k]):
+        raise InputError("the grammar's checksum does not match its rules: the file was edited "
+                         f"or truncated after it was saved; {accept}", path=source, line=k + 1)
 
 
 def _unquote(token: str) -> str:
@@ -151,7 +187,9 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
     unk: str | None = None
     # (lhs, rhs tuple, probability, line); rhs items are ("sym", name) or ("word", w)
     rules: list[tuple[str, tuple[tuple[str, str], ...], float, int]] = []
-    for lineno, raw in enumerate(text.lstrip("\ufeff").splitlines(), start=1):
+    lines = text.lstrip("\ufeff").splitlines()
+    _check_seal(lines, source)
+    for lineno, raw in enumerate(lines, start=1):
         line = _strip_comment(raw).strip()
         if not line:
             continue
@@ -164,9 +202,15 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
             elif parts[0] == "@unknown" and len(parts) == 2 and parts[1].startswith('"') \
                     and _TOKEN.fullmatch(parts[1]):
                 unk = _unquote(parts[1])
+            elif parts[0] == "@format" and len(parts) == 2:
+                if parts[1].strip() != str(FORMAT_VERSION):
+                    raise InputError(f"grammar format version {parts[1].strip()!r} is not "
+                                     f"supported (this treewright reads {FORMAT_VERSION})",
+                                     **where)
             else:
                 raise InputError(f"unknown or malformed directive {raw.strip()!r} "
-                                 "(expected '@start SYMBOL' or '@unknown \"WORD\"')", **where)
+                                 "(expected '@start SYMBOL', '@unknown \"WORD\"' or "
+                                 "'@format 1')", **where)
             continue
         tokens = _TOKEN.findall(line)
         if not _TOKENS.fullmatch(line) or len(tokens) < 4 or tokens[1] != "->":
