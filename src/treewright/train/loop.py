@@ -25,8 +25,9 @@ from __future__ import annotations
 
 import json
 import math
-import shutil
+import signal
 import sys
+import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -43,7 +44,8 @@ from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.grammar import load_grammar
 from treewright.params import NeuralParams, TabularParams, symbol_names, tabular_from_grammar
 from treewright.params.tabular import RuleTensors
-from treewright.safeio import atomic_write_text, check_writable, load_checkpoint, save_checkpoint
+from treewright.safeio import (atomic_write_bytes, atomic_write_text, check_writable,
+                              load_checkpoint, save_checkpoint)
 from treewright.tracking import JsonlLogger, MultiLogger, Progress, StdoutLogger, \
     TensorBoardLogger
 from treewright.trees import Tree
@@ -441,6 +443,7 @@ class Trainer:
         """Train until done (returns True) or until `max_steps` updates ran in this session
         (returns False, after a checkpoint). Raises TrainingDiverged on NaN/inf."""
         position, tensors = self._open()
+        self.interrupted_ = False
         self.data = load_data(self.cfg)
         self.warm = None
         if self.cfg.model.warm_start is not None:
@@ -457,6 +460,7 @@ class Trainer:
             self._note(f"resuming at restart {position.restart}, epoch {position.epoch}, "
                        f"batch {position.batch}")
         self.loggers = _Loggers(self.run_dir, self.cfg)
+        previous_handler = self._catch_sigint()
         try:
             if not self.resume and self.data.dev_ids:
                 baseline = unigram_logprobs(self.data.train_ids, self.data.dev_ids,
@@ -478,7 +482,26 @@ class Trainer:
             self._finish_run(position)
             return True
         finally:
+            if previous_handler is not None:
+                signal.signal(signal.SIGINT, previous_handler)
             self.loggers.close()
+
+    def _catch_sigint(self):
+        """Make Ctrl-C stop at the next step boundary, after a checkpoint (`interrupted_` is
+        then True and `run` returns False); a second Ctrl-C interrupts at once. Returns the
+        handler to restore, or None off the main thread, where signals cannot be caught."""
+        if threading.current_thread() is not threading.main_thread():
+            return None
+
+        def request_stop(signum, frame):
+            if self.interrupted_:
+                raise KeyboardInterrupt
+            self.interrupted_ = True
+            self.stream.write("\ninterrupt: stopping after this step with a checkpoint "
+                              "(Ctrl-C again to stop at once)\n")
+            self.stream.flush()
+
+        return signal.signal(signal.SIGINT, request_stop)
 
     def _run_restart(self, restart: int, position: Position, session: list[int],
                      max_steps: int | None) -> bool:
@@ -536,7 +559,7 @@ class Trainer:
             if converged:
                 self._note(f"restart {restart}: converged after epoch {epoch} (objective per "
                            f"word improved by less than {cfg.train.tolerance})")
-            if max_steps is not None and session[0] >= max_steps and \
+            if (self.interrupted_ or max_steps is not None and session[0] >= max_steps) and \
                     position.epoch < cfg.train.epochs:
                 return False
         return True
@@ -570,7 +593,7 @@ class Trainer:
                 self.loggers.log(step_metrics, position.step)
             last = k + 1 == len(plan)
             every = out.checkpoint_every_steps
-            stop = max_steps is not None and session[0] >= max_steps
+            stop = self.interrupted_ or max_steps is not None and session[0] >= max_steps
             if not last and (stop or (every is not None and position.step % every == 0)):
                 self.checkpoint(position)
             if stop and not last:
@@ -620,8 +643,10 @@ class Trainer:
             return float("-inf") if value is None or math.isnan(value) else value
 
         best = max(position.finished, key=key)
-        # Copy the bytes rather than re-render: the result is exactly the restart's file.
-        shutil.copyfile(self.run_dir / best["grammar"], self.run_dir / "grammar.pcfg")
+        # Copy the bytes rather than re-render: the result is exactly the restart's file. Written
+        # atomically, so a kill mid-copy never leaves a half-written grammar.pcfg.
+        atomic_write_bytes(self.run_dir / "grammar.pcfg",
+                           (self.run_dir / best["grammar"]).read_bytes())
         result = {"best_restart": best["restart"], "selected_by": "dev log-likelihood"
                   if self.data.dev_ids else "training objective",
                   "restarts": position.finished}
