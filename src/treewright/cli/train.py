@@ -16,7 +16,8 @@ is checked before training starts ('treewright validate CONFIG' does only that, 
 The run folder (output.run_dir, default runs/<config name>) receives config.yaml (the resolved
 config), train.log, metrics.jsonl, tensorboard/, checkpoint.ckpt, restart-<r>.pcfg and the
 result, grammar.pcfg. --resume continues from checkpoint.ckpt with the saved config; in float64
-it ends with exactly the grammar an uninterrupted run gives.
+it ends with exactly the grammar an uninterrupted run gives. Ctrl-C stops at the next step
+with a checkpoint and prints the --resume command (a second Ctrl-C stops at once).
 """
 
 
@@ -48,5 +49,10 @@ def run(args) -> int:
     except TrainingDiverged as err:
         print(f"treewright train: {err}", file=sys.stderr)
         return 1
+    if not hasattr(trainer, "grammar_path_"):  # Ctrl-C: stopped after a checkpoint
+        print(f"treewright train: interrupted; the checkpoint {trainer.run_dir / 'checkpoint.ckpt'}"
+              f" holds the run so far. Continue it with: treewright train --resume "
+              f"{trainer.run_dir}", file=sys.stderr)
+        return 130
     print(trainer.grammar_path_)
     return 0
