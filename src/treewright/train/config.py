@@ -146,6 +146,16 @@ class OutputConfig:
 
 
 @dataclass
+class DistributedConfig:
+    timeout_seconds: float = option(
+        60.0, "Several workers: a worker whose heartbeat (one a second) has stopped this long "
+              "ends the job with an error naming its rank.", range="(0, inf)")
+    collective_timeout_seconds: float = option(
+        1800.0, "Several workers: the longest wait at one all-reduce; must exceed the slowest "
+                "worker's E-step of one update (an EM epoch's share).", range="(0, inf)")
+
+
+@dataclass
 class TrainConfig:
     data: DataConfig = option(doc="Corpora and vocabulary.")
     model: ModelConfig = option(ModelConfig(), "Grammar size and parameterization.")
@@ -156,6 +166,8 @@ class TrainConfig:
     constraints: ConstraintsConfig = option(ConstraintsConfig(), "Partial brackets.")
     curriculum: CurriculumConfig = option(CurriculumConfig(), "Sentence-length curriculum.")
     output: OutputConfig = option(OutputConfig(), "Run folder and logging.")
+    distributed: DistributedConfig = option(DistributedConfig(), "Data-parallel workers "
+                                            "(train --workers N, or torchrun).")
 
 
 def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:

@@ -51,6 +51,7 @@ from treewright.tracking import JsonlLogger, MultiLogger, Progress, StdoutLogger
 from treewright.trees import Tree
 from treewright.train import updates
 from treewright.train.config import TrainConfig, train_config_from_dict
+from treewright.train.distributed import LocalWorld
 from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
                                     batch_counts, make_batch, sentence_logliks, terminal_scores,
                                     zero_counts)
@@ -158,8 +159,11 @@ class Trainer:
     """
 
     def __init__(self, cfg: TrainConfig, run_dir: str | Path, resume: bool = False,
-                 stream: TextIO | None = None, config_source: str | None = None):
+                 stream: TextIO | None = None, config_source: str | None = None,
+                 world: LocalWorld | None = None):
         self.cfg = cfg
+        # The data-parallel group (train.distributed); only its rank 0 writes the run folder.
+        self.world = LocalWorld() if world is None else world
         self.run_dir = Path(run_dir)
         self.resume = resume
         self.stream = sys.stderr if stream is None else stream
@@ -180,7 +184,7 @@ class Trainer:
             position = Position.from_meta(meta["position"])
             metrics = self.run_dir / "metrics.jsonl"
             # Lines logged after the checkpoint belong to steps that will run again.
-            if metrics.exists():
+            if metrics.exists() and self.world.is_main:
                 with open(metrics, "r+b") as f:
                     f.truncate(position.metrics_bytes)
         else:
@@ -188,14 +192,17 @@ class Trainer:
                 raise InputError("the run folder already holds a checkpoint; continue it with "
                                  "--resume or choose another output.run_dir",
                                  path=str(self.run_dir))
-            atomic_write_text(self.run_dir / "config.yaml", dump_config_yaml(
-                self.cfg, header=f"Resolved training config"
-                                 f"{' from ' + self.config_source if self.config_source else ''}"
-                                 f"; every option, defaults included."))
+            if self.world.is_main:
+                atomic_write_text(self.run_dir / "config.yaml", dump_config_yaml(
+                    self.cfg, header=f"Resolved training config"
+                    f"{' from ' + self.config_source if self.config_source else ''}"
+                    f"; every option, defaults included."))
             position = Position()
         return position, tensors
 
     def _note(self, text: str) -> None:
+        if not self.world.is_main:
+            return
         with open(self.run_dir / "train.log", "a", encoding="utf-8") as f:
             f.write(f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}\n")
         self.stream.write(text + "\n")
@@ -330,6 +337,8 @@ class Trainer:
             self.optimizer.load_state_dict({"state": state, "param_groups": groups})
 
     def checkpoint(self, position: Position) -> None:
+        if not self.world.is_main:
+            return
         self.loggers.flush_jsonl()
         position.metrics_bytes = (self.run_dir / "metrics.jsonl").stat().st_size \
             if (self.run_dir / "metrics.jsonl").exists() else 0
@@ -346,10 +355,11 @@ class Trainer:
         rules = updates.vb_log_weights(self._stat_rules("vb")) if has_posterior \
             else self.current_rules()
         total = zero_counts(rules)
-        for group in plan:
+        for group in self.world.shard_epoch(plan, self.data.train_ids, self.cfg.train.batch_size):
             total = add_counts(total, batch_counts(rules, self._batch(group)))
             if progress is not None:
                 progress.update(len(group))
+        total = self.world.sum_counts(total)
         out = self._sums_metrics(_tally(total.loglik, total.words, total.sentences,
                                         total.unparsed))
         previous = self.current_rules()
@@ -376,7 +386,9 @@ class Trainer:
 
     def _online_step(self, group: list[int], position: Position) -> dict[str, float]:
         rules = self.current_rules()
-        counts = batch_counts(rules, self._batch(group))
+        mine = self.world.shard_batch(group, self.data.train_ids)
+        counts = self.world.sum_counts(batch_counts(rules, self._batch(mine)) if mine
+                                       else zero_counts(rules))
         rate = updates.stepwise_rate(position.restart_step, self.cfg.online.stepsize_power)
         scale = len(self.data.train_ids) / len(group)
         mu = updates.stepwise_update(self._stat_rules("mu"), counts, scale, rate)
@@ -391,18 +403,30 @@ class Trainer:
     def _gradient_step(self, group: list[int], position: Position, total_steps: int
                        ) -> tuple[dict[str, float], dict[str, float]]:
         o = self.cfg.optimizer
-        batch = self._batch(group)
+        mine = self.world.shard_batch(group, self.data.train_ids)
         rules = self.model.rules()
-        logz = engine.log_partition(rules.root, rules.binary,
-                                    terminal_scores(rules.lexical, batch.ids), batch.lengths,
-                                    span_pot=batch.span_pot)                 # (B,)
+        if mine:
+            batch = self._batch(mine)
+            logz = engine.log_partition(rules.root, rules.binary,
+                                        terminal_scores(rules.lexical, batch.ids),
+                                        batch.lengths, span_pot=batch.span_pot)  # (B,)
+        else:
+            batch = None
+            logz = rules.root.new_zeros(0)   # a worker dealt nothing still joins the all-reduce
         if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
             raise DivergedError("the log-likelihood of a batch is NaN or infinite")
         parsed = torch.isfinite(logz)
-        words = int(batch.lengths[parsed].sum())
+        # The loss is divided by the words of the whole minibatch over all workers.
+        loglik, words, sentences, unparsed = self.world.sum_values(
+            [float(logz[parsed].sum().detach()), 0 if batch is None else
+             int(batch.lengths[parsed].sum()), int(parsed.sum()), int((~parsed).sum())])
+        words = int(words)
         loss = -logz[parsed].sum() / max(words, 1)
         self.optimizer.zero_grad()
-        loss.backward()
+        if batch is not None:
+            loss.backward()
+        if self.world.size > 1:
+            self.world.sum_gradients(list(self.model.parameters()))
         params = [p for p in self.model.parameters() if p.grad is not None]
         if o.grad_clip is not None:
             norm = float(torch.nn.utils.clip_grad_norm_(params, o.grad_clip))
@@ -417,8 +441,7 @@ class Trainer:
             group_["lr"] = lr
         self.optimizer.step()
         self._check_finite()
-        tally = _tally(float(logz[parsed].sum().detach()), words, int(parsed.sum()),
-                       int((~parsed).sum()))
+        tally = _tally(loglik, words, int(sentences), int(unparsed))
         return tally, {"lr": lr, "grad_norm": norm}
 
     def _check_finite(self) -> None:
@@ -459,7 +482,7 @@ class Trainer:
         else:
             self._note(f"resuming at restart {position.restart}, epoch {position.epoch}, "
                        f"batch {position.batch}")
-        self.loggers = _Loggers(self.run_dir, self.cfg)
+        self.loggers = _Loggers(self.run_dir, self.cfg, enabled=self.world.is_main)
         previous_handler = self._catch_sigint()
         try:
             if not self.resume and self.data.dev_ids:
@@ -519,7 +542,7 @@ class Trainer:
             plan = plans[epoch]
             started = time.monotonic()
             progress = None
-            if cfg.output.progress:
+            if cfg.output.progress and self.world.is_main:
                 progress = Progress(sum(map(len, plan)), f"restart {restart} epoch {epoch}",
                                     stream=self.stream)
             try:
@@ -617,7 +640,8 @@ class Trainer:
         rules = self.current_rules()
         grammar = self._to_grammar(rules)
         name = f"restart-{restart}.pcfg"
-        grammar.save(self.run_dir / name)
+        if self.world.is_main:
+            grammar.save(self.run_dir / name)
         dev = self.evaluate_dev(rules)
         train_ll = position.previous_objective
         position.finished.append({"restart": restart, "grammar": name,
@@ -643,6 +667,11 @@ class Trainer:
             return float("-inf") if value is None or math.isnan(value) else value
 
         best = max(position.finished, key=key)
+        self.best_restart_ = best["restart"]
+        self.results_ = position.finished
+        self.grammar_path_ = self.run_dir / "grammar.pcfg"
+        if not self.world.is_main:
+            return
         # Copy the bytes rather than re-render: the result is exactly the restart's file. Written
         # atomically, so a kill mid-copy never leaves a half-written grammar.pcfg.
         atomic_write_bytes(self.run_dir / "grammar.pcfg",
@@ -653,9 +682,6 @@ class Trainer:
         atomic_write_text(self.run_dir / "result.json", json.dumps(result, indent=2) + "\n")
         self._note(f"kept restart {best['restart']}; grammar written to "
                    f"{self.run_dir / 'grammar.pcfg'}")
-        self.best_restart_ = best["restart"]
-        self.results_ = position.finished
-        self.grammar_path_ = self.run_dir / "grammar.pcfg"
 
 
 def _tally(loglik: float, words: int, sentences: int, unparsed: int) -> dict:
@@ -669,13 +695,14 @@ class _Loggers:
                 "train/elbo_per_word", "dev/loglik_per_word", "dev/perplexity",
                 "dev/sentence_f1", "sentences_per_second")
 
-    def __init__(self, run_dir: Path, cfg: TrainConfig):
-        self.jsonl = JsonlLogger(run_dir / "metrics.jsonl")
-        loggers = [self.jsonl]
-        if cfg.output.tensorboard:
+    def __init__(self, run_dir: Path, cfg: TrainConfig, enabled: bool = True):
+        # Disabled (workers other than rank 0): every call is a no-op.
+        self.jsonl = JsonlLogger(run_dir / "metrics.jsonl") if enabled else None
+        loggers = [self.jsonl] if enabled else []
+        if cfg.output.tensorboard and enabled:
             loggers.append(TensorBoardLogger(run_dir / "tensorboard"))
         self.all = MultiLogger(loggers)
-        self.stdout = StdoutLogger() if cfg.output.stdout_metrics else None
+        self.stdout = StdoutLogger() if cfg.output.stdout_metrics and enabled else None
 
     def log(self, metrics: dict, step: int) -> None:
         self.all.log(metrics, step)
@@ -686,25 +713,33 @@ class _Loggers:
             self.stdout.log({k: metrics[k] for k in self.HEADLINE if k in metrics}, step)
 
     def flush_jsonl(self) -> None:
-        self.jsonl.file.flush()
+        if self.jsonl is not None:
+            self.jsonl.file.flush()
 
     def close(self) -> None:
         self.all.close()
 
 
 def train(cfg: TrainConfig, run_dir: str | Path, stream: TextIO | None = None,
-          config_source: str | None = None) -> Trainer:
-    """Train a fresh run into `run_dir` and return the fitted Trainer."""
-    trainer = Trainer(cfg, run_dir, stream=stream, config_source=config_source)
+          config_source: str | None = None, world: LocalWorld | None = None) -> Trainer:
+    """Train a fresh run into `run_dir` and return the fitted Trainer (`world`: this
+    process's data-parallel group, see train.distributed; default one process)."""
+    trainer = Trainer(cfg, run_dir, stream=stream, config_source=config_source, world=world)
     trainer.run()
     return trainer
 
 
 def resume(run_dir: str | Path, stream: TextIO | None = None,
-           max_steps: int | None = None) -> tuple[Trainer, bool]:
-    """Continue the run in `run_dir` from its checkpoint (config taken from the checkpoint)."""
+           max_steps: int | None = None, world: LocalWorld | None = None
+           ) -> tuple[Trainer, bool]:
+    """Continue the run in `run_dir` from its checkpoint (config taken from the checkpoint),
+    with any number of workers (`world`)."""
+    trainer = Trainer(saved_config(run_dir), run_dir, resume=True, stream=stream, world=world)
+    return trainer, trainer.run(max_steps)
+
+
+def saved_config(run_dir: str | Path) -> TrainConfig:
+    """The config stored in the checkpoint of the run in `run_dir`."""
     ckpt = Path(run_dir) / CHECKPOINT
     _, meta = load_checkpoint(ckpt)
-    cfg = train_config_from_dict(meta["config"], str(ckpt))
-    trainer = Trainer(cfg, run_dir, resume=True, stream=stream)
-    return trainer, trainer.run(max_steps)
+    return train_config_from_dict(meta["config"], str(ckpt))

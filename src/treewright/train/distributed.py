@@ -1,0 +1,301 @@
+"""Data-parallel training on torch.distributed (gloo backend, CPU), one process per worker.
+
+Every worker holds the whole grammar and reads the whole corpus; what is split is the work:
+
+- batch EM, MAP-EM and VB: the epoch's sentences are dealt to the workers balanced by inside
+  cost (n^3); each runs the E-step on its share, and the expected counts with the
+  log-likelihood are summed by one all-reduce per update, after which every worker applies the
+  same M-step and so holds the same grammar;
+- online EM: each minibatch is dealt the same way, and its counts summed before the update;
+- gradient training: each minibatch is dealt the same way, the workers' gradients of the summed
+  log-likelihood are summed by an explicit all-reduce, and every worker takes the same Adam
+  step (the loss is divided by the global word count, so the step equals a single process's).
+
+The deal is a pure function of the sentence lengths, so each sentence is used exactly once per
+epoch across the workers and every run with the same config sees the same shards.
+
+Processes are started by torchrun (`torch.distributed.run`), which sets RANK, WORLD_SIZE,
+MASTER_ADDR and MASTER_PORT; `treewright train CONFIG --workers N` runs that same launcher for
+N local processes on loopback (`launch_local`). Only rank 0 writes the run folder.
+
+A dead peer must end the job, not hang it: the process group gets a timeout (the longest wait at
+one all-reduce), and a watchdog thread in every worker beats a counter in the launcher's
+key-value store every second and watches the others'; a worker not heard from for
+`distributed.timeout_seconds` ends the job with a message naming its rank.
+"""
+
+from __future__ import annotations
+
+import datetime
+import os
+import socket
+import sys
+import threading
+import time
+from dataclasses import dataclass
+from typing import Mapping, Sequence
+
+import torch
+import torch.distributed as dist
+
+from treewright.corpus import cubic_cost, length_batches
+from treewright.train.estep import ExpectedCounts
+
+HEARTBEAT_SECONDS = 1.0          # how often each worker beats; far below any sensible timeout
+EXIT_PEER_LOST = 3               # exit code of a worker ended by its watchdog
+
+
+class WorkerLost(RuntimeError):
+    """A peer worker died or stopped answering; the message names its rank when known."""
+
+
+# ---------------------------------------------------------------------------------------------
+# Sharding
+
+
+def balanced_shards(indices: Sequence[int], lengths: Sequence[int] | Mapping[int, int],
+                    parts: int) -> list[list[int]]:
+    """Deal `indices` (sentence lengths `lengths[i]`) to `parts` workers so that the summed
+    inside cost n^3 is balanced: longest-processing-time-first (Graham 1969), costliest sentence
+    first (ties: lower index), each to the least-loaded worker (ties: lower rank). Its largest
+    load is at most 4/3 of the best possible. Every index lands in exactly one shard; each
+    shard keeps the order of `indices`. Deterministic."""
+    if parts < 1:
+        raise ValueError(f"parts must be >= 1, got {parts}")
+    owner: dict[int, int] = {}
+    loads = [0] * parts
+    for i in sorted(indices, key=lambda i: (-cubic_cost(lengths[i]), i)):
+        part = min(range(parts), key=lambda p: (loads[p], p))
+        owner[i] = part
+        loads[part] += cubic_cost(lengths[i])
+    shards: list[list[int]] = [[] for _ in range(parts)]
+    for i in indices:
+        shards[owner[i]].append(i)
+    return shards
+
+
+# ---------------------------------------------------------------------------------------------
+# Worlds: what the trainer calls, the same with one process or many
+
+
+class LocalWorld:
+    """One process: every call is the identity, so the single-process trainer is unchanged."""
+    rank = 0
+    size = 1
+
+    @property
+    def is_main(self) -> bool:
+        """True on the worker that writes the run folder (rank 0)."""
+        return self.rank == 0
+
+    def shard_epoch(self, plan: list[list[int]], sentences: Sequence[Sequence[int]],
+                    batch_size: int) -> list[list[int]]:
+        """This worker's batches (of at most `batch_size`) of an EM epoch whose batches are
+        `plan`, indices into `sentences` (word ids)."""
+        return plan
+
+    def shard_batch(self, group: list[int], sentences: Sequence[Sequence[int]]) -> list[int]:
+        """This worker's part of one minibatch (may be empty when the batch is small)."""
+        return group
+
+    def sum_counts(self, counts: ExpectedCounts) -> ExpectedCounts:
+        """Expected counts and tallies summed over the workers."""
+        return counts
+
+    def sum_values(self, values: Sequence[float]) -> list[float]:
+        """Scalars summed over the workers (float64)."""
+        return list(values)
+
+    def sum_gradients(self, params: Sequence[torch.Tensor]) -> None:
+        """Replace each parameter's gradient by its sum over the workers (None counts as 0)."""
+
+    def close(self, failed: bool = False) -> None:
+        """Leave the group (a no-op for one process)."""
+
+
+class GlooWorld(LocalWorld):
+    """A member of a torch.distributed gloo group set up from torchrun's environment.
+
+    `timeout_seconds`: a peer silent this long ends the job (watchdog). `collective_seconds`:
+    the longest wait at one all-reduce (init_process_group's timeout), which must exceed the
+    slowest worker's E-step of one update.
+    """
+
+    def __init__(self, timeout_seconds: float, collective_seconds: float):
+        self.rank = int(os.environ["RANK"])
+        self.size = int(os.environ["WORLD_SIZE"])
+        self.timeout_seconds = timeout_seconds
+        dist.init_process_group("gloo", timeout=datetime.timedelta(seconds=collective_seconds))
+        self.watchdog = Watchdog(self.rank, self.size, timeout_seconds)
+        self.watchdog.start()
+
+    def shard_epoch(self, plan, sentences, batch_size):
+        indices = [i for group in plan for i in group]
+        lengths = {i: len(sentences[i]) for i in indices}
+        mine = balanced_shards(indices, lengths, self.size)[self.rank]
+        batches = length_batches([lengths[i] for i in mine], batch_size)
+        return [[mine[k] for k in batch] for batch in batches]
+
+    def shard_batch(self, group, sentences):
+        lengths = {i: len(sentences[i]) for i in group}
+        return balanced_shards(group, lengths, self.size)[self.rank]
+
+    def sum_counts(self, counts):
+        # One all-reduce: every tensor and tally packed in float64, so float32 runs sum their
+        # log-likelihood and word counts exactly too.
+        parts = (counts.root, counts.binary, counts.lexical)
+        tallies = torch.tensor([counts.loglik, counts.words, counts.sentences, counts.unparsed],
+                               dtype=torch.float64)
+        flat = torch.cat([x.reshape(-1).to(torch.float64) for x in parts] + [tallies])
+        self._all_reduce(flat)
+        out, offset = [], 0
+        for x in parts:
+            out.append(flat[offset:offset + x.numel()].reshape(x.shape).to(x.dtype))
+            offset += x.numel()
+        loglik, words, sentences, unparsed = flat[offset:].tolist()
+        return ExpectedCounts(*out, loglik, int(words), int(sentences), int(unparsed))
+
+    def sum_values(self, values):
+        flat = torch.tensor(list(values), dtype=torch.float64)
+        self._all_reduce(flat)
+        return flat.tolist()
+
+    def sum_gradients(self, params):
+        grads = [torch.zeros_like(p) if p.grad is None else p.grad for p in params]
+        flat = torch.cat([g.reshape(-1) for g in grads])
+        self._all_reduce(flat)
+        offset = 0
+        for p, g in zip(params, grads):
+            p.grad = flat[offset:offset + g.numel()].reshape(g.shape).clone()
+            offset += g.numel()
+
+    def _all_reduce(self, tensor: torch.Tensor) -> None:
+        try:
+            dist.all_reduce(tensor)
+        except (RuntimeError, dist.DistError) as err:
+            raise WorkerLost(self.watchdog.explain(err)) from None
+
+    def close(self, failed: bool = False) -> None:
+        """Tell the peers this worker ended on purpose (so its silence is no alarm), leave."""
+        self.watchdog.finish()
+        if not failed:
+            dist.destroy_process_group()
+
+
+class Watchdog(threading.Thread):
+    """Beats this worker's counter in the launcher's store every HEARTBEAT_SECONDS and ends the
+    process (exit code EXIT_PEER_LOST) once a peer's counter has not moved for
+    `timeout_seconds`, or the store itself is unreachable that long. A peer that finished marks
+    itself done and is no longer watched."""
+
+    def __init__(self, rank: int, size: int, timeout_seconds: float):
+        super().__init__(name="treewright-watchdog", daemon=True)
+        self.rank, self.size, self.timeout_seconds = rank, size, timeout_seconds
+        self.address = f"{os.environ['MASTER_ADDR']}:{os.environ['MASTER_PORT']}"
+        store = dist.TCPStore(os.environ["MASTER_ADDR"], int(os.environ["MASTER_PORT"]),
+                              is_master=False,
+                              timeout=datetime.timedelta(seconds=timeout_seconds))
+        self.store = dist.PrefixStore("treewright/watchdog/", store)
+        self.stopped = threading.Event()
+        self.lost: str | None = None
+        self.found = threading.Event()
+
+    def run(self) -> None:
+        now = time.monotonic()
+        beats = {r: -1 for r in range(self.size) if r != self.rank}
+        heard = {r: now for r in beats}
+        store_ok = now
+        while not self.stopped.wait(HEARTBEAT_SECONDS):
+            now = time.monotonic()
+            try:
+                self.store.add(f"beat/{self.rank}", 1)
+                for r in list(beats):
+                    if self.store.check([f"done/{r}"]):
+                        del beats[r]
+                        continue
+                    value = self.store.add(f"beat/{r}", 0)
+                    if value != beats[r]:
+                        beats[r], heard[r] = value, now
+                    elif now - heard[r] > self.timeout_seconds:
+                        self._fail(f"worker rank {r} has not been heard from for "
+                                   f"{self.timeout_seconds:g} s (it died or hangs)")
+                store_ok = now
+            except (RuntimeError, dist.DistError):
+                if now - store_ok > self.timeout_seconds:
+                    self._fail(f"the launcher's store at {self.address} has not answered for "
+                               f"{self.timeout_seconds:g} s (the launcher or its machine is "
+                               f"gone)")
+
+    def _fail(self, reason: str) -> None:
+        self.lost = reason
+        self.found.set()
+        print(f"treewright train: rank {self.rank}: {reason}; ending this worker",
+              file=sys.stderr, flush=True)
+        # The main thread may be blocked inside an all-reduce that would wait for the whole
+        # collective timeout; leave at once instead.
+        os._exit(EXIT_PEER_LOST)
+
+    def explain(self, err: BaseException) -> str:
+        """Why an all-reduce failed, naming the lost rank once the heartbeats show it."""
+        first = str(err).strip().splitlines()[0] if str(err).strip() else type(err).__name__
+        self.found.wait(self.timeout_seconds + 2 * HEARTBEAT_SECONDS)
+        who = self.lost or "a peer worker is gone"
+        return f"rank {self.rank}: an all-reduce failed ({first}): {who}"
+
+    def finish(self) -> None:
+        try:
+            self.store.set(f"done/{self.rank}", "1")
+        except (RuntimeError, dist.DistError):
+            pass  # the store is gone with the launcher; nobody is left to warn
+        self.stopped.set()
+
+
+@dataclass
+class Launch:
+    """What `launch_local` ran: the exit code, and the failed worker's rank when one failed."""
+    returncode: int
+    failed_rank: int | None = None
+    message: str = ""
+
+
+def free_port() -> int:
+    """A TCP port on 127.0.0.1 that is free now (the OS picks it)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def launch_local(workers: int, module_args: Sequence[str]) -> Launch:
+    """Run `python -m treewright <module_args>` in `workers` processes on this machine through
+    torchrun's own entry point (static rendezvous on 127.0.0.1, a free port, no restarts: a
+    failed worker stops the others and the job)."""
+    from torch.distributed.elastic.multiprocessing.errors import ChildFailedError
+    from torch.distributed.run import get_args_parser, run
+
+    args = get_args_parser().parse_args([
+        "--nnodes", "1", "--nproc-per-node", str(workers), "--node-rank", "0",
+        "--master-addr", "127.0.0.1", "--master-port", str(free_port()),
+        "--max-restarts", "0", "--monitor-interval", "0.2", "-m", "treewright",
+        *module_args])
+    try:
+        run(args)
+    except ChildFailedError as err:
+        rank, failure = err.get_first_failure()
+        how = f"exit code {failure.exitcode}"
+        if failure.exitcode < 0:
+            how = f"killed by {failure.signal_name()}"
+        elif failure.exitcode == EXIT_PEER_LOST:
+            how = "ended by its watchdog after losing a peer"
+        return Launch(1, rank, f"worker rank {rank} (pid {failure.pid}) failed: {how}; the "
+                               f"other workers were stopped")
+    return Launch(0)
+
+
+def world_from_env(timeout_seconds: float, collective_seconds: float) -> LocalWorld:
+    """A GlooWorld when torchrun started this process (RANK and WORLD_SIZE set), else the
+    LocalWorld. Sets one torch thread per worker unless OMP_NUM_THREADS says otherwise."""
+    if "RANK" not in os.environ or "WORLD_SIZE" not in os.environ:
+        return LocalWorld()
+    if "OMP_NUM_THREADS" not in os.environ:
+        torch.set_num_threads(1)
+    return GlooWorld(timeout_seconds, collective_seconds)
