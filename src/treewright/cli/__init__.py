@@ -11,6 +11,7 @@ from treewright.errors import InputError
 
 # name -> (module, one-line summary). Modules are imported only when their command runs.
 COMMANDS = {
+    "demo": ("treewright.cli.demo", "the whole job on the embedded demo corpus"),
     "train": ("treewright.cli.train", "induce a grammar as a config says, into a run folder"),
     "validate": ("treewright.cli.validate", "check a training config and do nothing else"),
     "refine": ("treewright.cli.refine",

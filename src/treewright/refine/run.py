@@ -360,7 +360,6 @@ def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> Refine
     train_words, train_ids = as_words(train)
     dev_words, dev_ids = as_words(dev)
     n_train_words = sum(map(len, train_ids))
-    n_dev_words = sum(map(len, dev_ids))
     settings = _settings(cfg)
     generator = torch.Generator().manual_seed(cfg.refine.seed)
     result = RefineResult(lg, run_dir / "grammar.pcfg")
@@ -368,13 +367,13 @@ def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> Refine
 
     def report_cycle(cycle: int, lg: LatentGrammar, seconds: float) -> None:
         e = text_estep(lg, train_ids, cfg.refine.batch_size)
-        dev_ll, dev_unparsed = text_loglik(lg, dev_ids, cfg.refine.batch_size)
+        dev_ll, dev_unparsed, dev_words = text_loglik(lg, dev_ids, cfg.refine.batch_size)
         metrics: dict = {"cycle": cycle, "fine_symbols": lg.num_fine(),
                          "train/loglik": e.loglik,
                          "train/loglik_per_word": e.loglik / max(n_train_words, 1),
                          "train/unparsed": e.unparsed,
                          "heldout/loglik": dev_ll,
-                         "heldout/loglik_per_word": dev_ll / max(n_dev_words, 1),
+                         "heldout/loglik_per_word": dev_ll / max(dev_words, 1),
                          "heldout/unparsed": dev_unparsed, "seconds": seconds}
         metrics.update(_subcategory_counts(lg))
         loggers.log(metrics, cycle)

@@ -71,11 +71,12 @@ def text_estep(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int 
 
 
 def text_loglik(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int = 32
-                ) -> tuple[float, int]:
-    """(log-likelihood of the sentences that parse, number that do not)."""
+                ) -> tuple[float, int, int]:
+    """(log-likelihood of the sentences that parse, number that do not, words of those that
+    parse); per-word figures divide by the last, so unparsed sentences do not flatter them."""
     fine = lg.to_grammar(torch.float64)
     nt_f = len(fine.nonterminals)
-    total, unparsed = 0.0, 0
+    total, unparsed, words = 0.0, 0, 0
     with torch.no_grad():
         for batch in length_batches([list(s) for s in ids], batch_size):
             _, scores, lengths = _batch_inputs(fine, [ids[i] for i in batch])
@@ -85,7 +86,8 @@ def text_loglik(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int
             ok = torch.isfinite(logz)
             total += float(logz[ok].sum())
             unparsed += int((~ok).sum())
-    return total, unparsed
+            words += int(lengths[ok].sum())
+    return total, unparsed, words
 
 
 def viterbi_coarse_trees(lg: LatentGrammar, words: Sequence[Sequence[str]]) -> list[Tree]:
