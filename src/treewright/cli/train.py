@@ -8,6 +8,9 @@ EXAMPLES = """examples:
   treewright train configs/em_demo.yaml
   treewright train configs/vb_demo.yaml prior.concentration=0.1 output.run_dir=runs/vb-sparse
   treewright train --resume runs/em_demo
+  treewright train configs/em_demo.yaml --workers 2
+  torchrun --nnodes 2 --node-rank 0 --nproc-per-node 2 --master-addr HOST --master-port 29500 \
+      -m treewright train configs/em_demo.yaml
 
 Overrides are dotted key=value pairs read as YAML scalars; they win over the file. Every option
 is checked before training starts ('treewright validate CONFIG' does only that, and
@@ -18,6 +21,13 @@ config), train.log, metrics.jsonl, tensorboard/, checkpoint.ckpt, restart-<r>.pc
 result, grammar.pcfg. --resume continues from checkpoint.ckpt with the saved config; in float64
 it ends with exactly the grammar an uninterrupted run gives. Ctrl-C stops at the next step
 with a checkpoint and prints the --resume command (a second Ctrl-C stops at once).
+
+--workers N starts N worker processes on this machine (torchrun's launcher, gloo on loopback);
+each runs the E-step or gradient of its share of every update, and the grammar after each update
+is the one a single process computes (up to summation order). Under torchrun (any number of
+machines) the same command runs as one worker of the job. Only rank 0 writes the run folder; a
+run may be resumed with any number of workers. A worker that dies ends the job with its rank
+named (distributed.timeout_seconds).
 """
 
 
@@ -25,30 +35,60 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", nargs="?", help="YAML config file")
     p.add_argument("overrides", nargs="*", metavar="key=value", help="dotted config overrides")
     p.add_argument("--resume", metavar="RUN", help="continue the run in this folder")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="train with N local worker processes (torchrun on 127.0.0.1)")
 
 
 def run(args) -> int:
+    import os
     import sys
     from pathlib import Path
 
     from treewright.errors import InputError
     from treewright.train import TrainingDiverged, load_train_config, resume, train
+    from treewright.train.distributed import WorkerLost, launch_local, world_from_env
+    from treewright.train.loop import saved_config
 
+    if args.resume is not None:
+        if args.config is not None or args.overrides:
+            raise InputError("--resume takes the config saved in the run folder; give no "
+                             "config file or overrides with it")
+        cfg = saved_config(args.resume)
+        run_dir = Path(args.resume)
+    else:
+        if args.config is None:
+            raise InputError("give a config file (or --resume RUN)")
+        cfg = load_train_config(args.config, args.overrides)
+        run_dir = cfg.output.run_dir or Path("runs") / Path(args.config).stem
+    if args.workers is not None and "RANK" not in os.environ:
+        if args.workers < 1:
+            raise InputError(f"--workers must be at least 1, got {args.workers}")
+        # The config was checked above, once; each worker re-reads it the same way.
+        own = ["--resume", args.resume] if args.resume is not None else \
+            [args.config, *args.overrides]
+        launched = launch_local(args.workers, ["train", *own])
+        if launched.returncode != 0:
+            print(f"treewright train: {launched.message}. Continue from the last checkpoint "
+                  f"with: treewright train --resume {run_dir} --workers {args.workers}",
+                  file=sys.stderr)
+        return launched.returncode
+    world = world_from_env(cfg.distributed.timeout_seconds,
+                           cfg.distributed.collective_timeout_seconds)
     try:
         if args.resume is not None:
-            if args.config is not None or args.overrides:
-                raise InputError("--resume takes the config saved in the run folder; give no "
-                                 "config file or overrides with it")
-            trainer, _ = resume(args.resume)
+            trainer, _ = resume(run_dir, world=world)
         else:
-            if args.config is None:
-                raise InputError("give a config file (or --resume RUN)")
-            cfg = load_train_config(args.config, args.overrides)
-            run_dir = cfg.output.run_dir or Path("runs") / Path(args.config).stem
-            trainer = train(cfg, run_dir, config_source=args.config)
-    except TrainingDiverged as err:
+            trainer = train(cfg, run_dir, config_source=args.config, world=world)
+    except (TrainingDiverged, WorkerLost) as err:
+        world.close(failure=str(err))
         print(f"treewright train: {err}", file=sys.stderr)
         return 1
+    except BaseException as err:
+        world.close(failure=f"{type(err).__name__}: {err}")
+        raise
+    world.close()
+    if not world.is_main:
+        return 0
     if not hasattr(trainer, "grammar_path_"):  # Ctrl-C: stopped after a checkpoint
         print(f"treewright train: interrupted; the checkpoint {trainer.run_dir / 'checkpoint.ckpt'}"
               f" holds the run so far. Continue it with: treewright train --resume "

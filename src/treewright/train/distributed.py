@@ -109,8 +109,9 @@ class LocalWorld:
     def sum_gradients(self, params: Sequence[torch.Tensor]) -> None:
         """Replace each parameter's gradient by its sum over the workers (None counts as 0)."""
 
-    def close(self, failed: bool = False) -> None:
-        """Leave the group (a no-op for one process)."""
+    def close(self, failure: str | None = None) -> None:
+        """Leave the group (a no-op for one process); `failure` says why this worker stops
+        early, for its peers' message."""
 
 
 class GlooWorld(LocalWorld):
@@ -175,10 +176,11 @@ class GlooWorld(LocalWorld):
         except (RuntimeError, dist.DistError) as err:
             raise WorkerLost(self.watchdog.explain(err)) from None
 
-    def close(self, failed: bool = False) -> None:
-        """Tell the peers this worker ended on purpose (so its silence is no alarm), leave."""
-        self.watchdog.finish()
-        if not failed:
+    def close(self, failure: str | None = None) -> None:
+        """Tell the peers this worker ended, on purpose (its silence is then no alarm) or with
+        `failure` (they end too, naming this rank and the reason), and leave the group."""
+        self.watchdog.finish(failure)
+        if failure is None:
             dist.destroy_process_group()
 
 
@@ -210,6 +212,9 @@ class Watchdog(threading.Thread):
             try:
                 self.store.add(f"beat/{self.rank}", 1)
                 for r in list(beats):
+                    if self.store.check([f"failed/{r}"]):
+                        why = self.store.get(f"failed/{r}").decode("utf-8", "replace")
+                        self._fail(f"worker rank {r} failed: {why}")
                     if self.store.check([f"done/{r}"]):
                         del beats[r]
                         continue
@@ -242,9 +247,12 @@ class Watchdog(threading.Thread):
         who = self.lost or "a peer worker is gone"
         return f"rank {self.rank}: an all-reduce failed ({first}): {who}"
 
-    def finish(self) -> None:
+    def finish(self, failure: str | None = None) -> None:
         try:
-            self.store.set(f"done/{self.rank}", "1")
+            if failure is None:
+                self.store.set(f"done/{self.rank}", "1")
+            else:
+                self.store.set(f"failed/{self.rank}", failure)
         except (RuntimeError, dist.DistError):
             pass  # the store is gone with the launcher; nobody is left to warn
         self.stopped.set()
