@@ -134,6 +134,7 @@ def quote(word: str) -> str:
     return '"' + word.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
 _TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|[^\s"]+')
 _TOKENS = re.compile(r'(?:\s*(?:"(?:[^"\\]|\\.)*"|[^\s"]+))+\s*')
 
@@ -187,7 +188,9 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
     unk: str | None = None
     # (lhs, rhs tuple, probability, line); rhs items are ("sym", name) or ("word", w)
     rules: list[tuple[str, tuple[tuple[str, str], ...], float, int]] = []
-    lines = text.lstrip("\ufeff").splitlines()
+    # Only \n, \r\n and \r end a line (str.splitlines also splits at \v, \f and others, and
+    # would number lines differently from an editor).
+    lines = _LINE_BREAK.split(text.lstrip("\ufeff"))
     _check_seal(lines, source)
     for lineno, raw in enumerate(lines, start=1):
         line = _strip_comment(raw).strip()

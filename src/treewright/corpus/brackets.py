@@ -121,7 +121,9 @@ def _unwrap(frame: _Frame, path: str) -> Tree | InputError:
 def parse_brackets(text: str, path: str = "<string>") -> list[Tree]:
     """Every tree in `text` (no clean-up); raises InputError at the first malformed one."""
     out = []
-    for record in iter_bracket_records(enumerate(text.splitlines(), start=1), path):
+    # Lines end at \n, \r\n or \r only, numbered as `iter_lines` and an editor number them.
+    lines = enumerate(re.split(r"\r\n|\r|\n", text), start=1)
+    for record in iter_bracket_records(lines, path):
         if record.error is not None:
             raise record.error
         out.append(record.tree)
