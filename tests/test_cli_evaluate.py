@@ -122,3 +122,9 @@ def test_unparsed_predictions_are_counted(tmp_path):
     # Hand-worked: the flat tree predicts no span, gold has (0,2): recall 0.
     assert scores["brackets"]["systems"]["model"]["corpus_recall"] == 0.0
     assert scores["tags"] is None
+
+
+def test_parse_command_offers_exactly_the_library_decoders():
+    from treewright.cli.parse import DECODER_NAMES
+    from treewright.decode import DECODERS
+    assert tuple(DECODER_NAMES) == tuple(DECODERS)

@@ -23,12 +23,15 @@ the decoder's own objective (log p(tree), expected correct spans, or log rule-po
 """
 
 
-def add_arguments(p: argparse.ArgumentParser) -> None:
-    from treewright.decode import DECODERS
+# The names of treewright.decode.DECODERS, written out so that `--help` need not import torch
+# (tests/test_cli_evaluate.py checks that the two agree).
+DECODER_NAMES = ("viterbi", "mbr", "max-rule-product")
 
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar file (the treewright grammar text format)")
     p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
-    p.add_argument("--decoder", choices=DECODERS, default="viterbi",
+    p.add_argument("--decoder", choices=DECODER_NAMES, default="viterbi",
                    help="how to choose the tree (default: viterbi)")
     p.add_argument("--scores", action="store_true",
                    help="append the tree's log-probability and its posterior to each line")
