@@ -80,3 +80,23 @@ def test_readme_quick_start_has_exactly_two_commands_and_ci_runs_the_test_one():
     ci = (ROOT / ".ci" / "run").read_text()
     assert commands[1][0] in ci
     assert "treewright demo" in commands[0][0]
+
+
+def test_readme_data_examples_load(tmp_path):
+    # The three five-line examples of "Using your own data", in order: raw text, bracketed
+    # trees, CoNLL-U; each must load through the one documented reader.
+    from treewright.corpus import read_corpus
+
+    section = README.split("## Using your own data", 1)[1].split("\n## ", 1)[0]
+    blocks = re.findall(r"```text\n(.*?)```", section, re.S)
+    assert len(blocks) == 3
+    expected = {"example.txt": 5, "example.trees": 3, "example.conllu": 1}
+    for block, (name, count) in zip(blocks, expected.items()):
+        path = tmp_path / name
+        path.write_text(block, encoding="utf-8")
+        corpus = read_corpus(path)
+        assert len(corpus.sentences) == count, name
+        assert corpus.report.sentences_read == count
+    trees = read_corpus(tmp_path / "example.trees").sentences
+    # Function tags and the unlabeled root wrapper are handled (common practice).
+    assert trees[1].tree.label == "S" and trees[1].tree.children[0].label == "NP"
