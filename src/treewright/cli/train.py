@@ -83,6 +83,14 @@ def run(args) -> int:
         world.close(failure=str(err))
         print(f"treewright train: {err}", file=sys.stderr)
         return 1
+    except OSError as err:
+        # A full disk or a folder that stopped being writable mid-run: checkpoints are written
+        # atomically, so the last good one is still whole.
+        world.close(failure=f"{type(err).__name__}: {err}")
+        print(f"treewright train: cannot write {err.filename or 'a file'}: {err.strerror}; the "
+              f"last checkpoint written is left as it was. Make room, then continue with: "
+              f"treewright train --resume {run_dir}", file=sys.stderr)
+        return 1
     except BaseException as err:
         world.close(failure=f"{type(err).__name__}: {err}")
         raise
