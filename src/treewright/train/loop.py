@@ -489,8 +489,17 @@ class Trainer:
                 baseline = unigram_logprobs(self.data.train_ids, self.data.dev_ids,
                                             len(self.data.vocab))
                 words = sum(map(len, self.data.dev_ids))
-                self.loggers.log({"baseline/unigram_dev_loglik_per_word":
-                                  sum(baseline) / words}, 0)
+                start = {"baseline/unigram_dev_loglik_per_word": sum(baseline) / words}
+                if self.data.dev_trees is not None:
+                    # The branching baselines on the dev trees, once, so that every dev F1
+                    # printed later can be read beside them.
+                    systems = evaluate_brackets(None, self.data.dev_trees).systems
+                    for name in ("left_branching", "right_branching", "random_binary"):
+                        start[f"baseline/dev_{name}_sentence_f1"] = systems[name].sentence_f1
+                    self._note("dev sentence F1 of the baselines: " + ", ".join(
+                        f"{name.replace('_', '-')} {systems[name].sentence_f1:.3f}"
+                        for name in ("left_branching", "right_branching", "random_binary")))
+                self.loggers.log(start, 0)
             session = [0]
             for restart in range(position.restart, self.cfg.train.restarts):
                 self.model = self._new_model(restart)
