@@ -35,6 +35,10 @@ class DataConfig:
     max_length: int | None = option(40, "Training sentences longer than this are set aside "
                                         "(counted in the log), since the inside pass costs n^3.",
                                     range="[1, inf)")
+    stream_chunk: int | None = option(
+        None, "Online EM: read the training corpus in chunks of this many sentences on every "
+              "pass instead of holding it in memory, so memory stays flat as the corpus grows; "
+              "minibatches are formed (and shuffled) within a chunk.", range="[1, inf)")
 
 
 @dataclass
@@ -196,6 +200,12 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.model.warm_start is not None and cfg.train.restarts > 1 and cfg.model.warm_start_mix \
             == 0:
         bad("train.restarts", "restarts from the same warm start with no mixing are identical")
+    if cfg.data.stream_chunk is not None and method != "online_em":
+        bad("data.stream_chunk", f"streaming reads the corpus chunk by chunk for online_em "
+                                 f"minibatches; {method!r} needs the whole corpus at once")
+    if cfg.data.stream_chunk is not None and cfg.constraints.train_brackets:
+        bad("constraints.train_brackets", "partial brackets need the whole corpus in memory; "
+                                          "leave data.stream_chunk null")
     if problems:
         raise ConfigError(problems, path=source)
 

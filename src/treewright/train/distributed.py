@@ -22,24 +22,35 @@ A dead peer must end the job, not hang it: the process group gets a timeout (the
 one all-reduce), and a watchdog thread in every worker beats a counter in the launcher's
 key-value store every second and watches the others'; a worker not heard from for
 `distributed.timeout_seconds` ends the job with a message naming its rank.
+
+Streaming (`data.stream_chunk`, online EM): `StreamedCorpus` holds the word ids of one chunk of
+the file at a time and `StreamPlan` forms each epoch's minibatches chunk by chunk, so a worker's
+memory stays flat as the corpus grows; every worker streams the file and takes its share of
+each minibatch.
 """
 
 from __future__ import annotations
 
+import bisect
 import datetime
+import math
 import os
 import socket
 import sys
 import threading
 import time
+from collections import Counter
+from collections.abc import Sequence as SequenceABC
 from dataclasses import dataclass
-from typing import Mapping, Sequence
+from typing import Iterator, Mapping, Sequence
 
 import torch
 import torch.distributed as dist
 
-from treewright.corpus import cubic_cost, length_batches
+from treewright.corpus import CorpusStream, ReadOptions, cubic_cost, length_batches
+from treewright.errors import InputError
 from treewright.train.estep import ExpectedCounts
+from treewright.vocab import Vocabulary
 
 HEARTBEAT_SECONDS = 1.0          # how often each worker beats; far below any sensible timeout
 EXIT_PEER_LOST = 3               # exit code of a worker ended by its watchdog
@@ -307,3 +318,117 @@ def world_from_env(timeout_seconds: float, collective_seconds: float) -> LocalWo
     if "OMP_NUM_THREADS" not in os.environ:
         torch.set_num_threads(1)
     return GlooWorld(timeout_seconds, collective_seconds)
+
+
+# ---------------------------------------------------------------------------------------------
+# Streaming
+
+
+class StreamedCorpus(SequenceABC):
+    """Word ids of a training file read in chunks of `chunk_size` used sentences: a sequence of
+    `len` N whose item i is loaded with its chunk (one chunk in memory at a time; reading on
+    in file order is cheap, going back re-reads the file from the start).
+
+    Construction makes one counting pass: the vocabulary (from `options`, or built from the
+    token counts with min_count and max_vocab), the report, and per chunk a histogram of
+    sentence lengths, from which every epoch's plan is sized without reading words.
+    """
+
+    def __init__(self, path, fmt: str, options: ReadOptions, chunk_size: int):
+        self.options, self.chunk_size = options, chunk_size
+        self.stream = CorpusStream(path, fmt, options)
+        counts: Counter = Counter()
+        self.histograms: list[Counter] = []      # per chunk: sentence length -> sentences
+        for chunk in self.stream.chunks(chunk_size):
+            for sentence in chunk:
+                counts.update(sentence.tokens)
+            self.histograms.append(Counter(len(sentence) for sentence in chunk))
+        self.report = self.stream.report
+        if not self.histograms:
+            raise InputError(f"no usable sentence ({self.report.sentences_read} read)",
+                             path=self.stream.path)
+        self.vocabulary = options.vocabulary or Vocabulary.from_counts(
+            counts, min_count=options.min_count, max_size=options.max_vocab)
+        index, unk_id = self.vocabulary.index, self.vocabulary.unk_id
+        unknown = sum(c for w, c in counts.items() if index.get(w, unk_id) == unk_id)
+        self.report.vocab_size = len(self.vocabulary)
+        self.report.unk_rate = unknown / self.report.tokens if self.report.tokens else 0.0
+        self.size = sum(sum(h.values()) for h in self.histograms)
+        self._chunks: Iterator | None = None
+        self._next_chunk = 0
+        self.loaded: tuple[int, list[list[int]]] = (-1, [])   # (chunk index, its word ids)
+
+    def __len__(self) -> int:
+        return self.size
+
+    def __getitem__(self, i: int) -> list[int]:
+        c, j = divmod(i, self.chunk_size)
+        return self.chunk(c)[j]
+
+    def __iter__(self) -> Iterator[list[int]]:
+        """Every sentence's ids in file order, in one pass of its own."""
+        for chunk in CorpusStream(self.stream.path, self.stream.fmt, self.options).chunks(
+                self.chunk_size):
+            for sentence in chunk:
+                yield self.vocabulary.encode(sentence.tokens)
+
+    def chunk(self, c: int) -> list[list[int]]:
+        """Word ids of chunk `c` (0-based), read now unless it is the one held."""
+        if self.loaded[0] == c:
+            return self.loaded[1]
+        if self._chunks is None or c < self._next_chunk:
+            self._chunks, self._next_chunk = self.stream.chunks(self.chunk_size), 0
+        self.loaded = (-1, [])      # let the old chunk go before reading the next
+        while self._next_chunk <= c:
+            sentences = next(self._chunks)
+            self._next_chunk += 1
+        self.loaded = (c, [self.vocabulary.encode(s.tokens) for s in sentences])
+        return self.loaded[1]
+
+    def epoch_plan(self, cap: int | None, batch_size: int, shuffle: bool, seed: int
+                   ) -> "StreamPlan":
+        return StreamPlan(self, cap, batch_size, shuffle, seed)
+
+
+class StreamPlan(SequenceABC):
+    """An epoch's minibatches over a StreamedCorpus (global sentence indices), formed within
+    each chunk in file order: `length_batches` of the chunk's sentences of at most `cap` words,
+    shuffled (when `shuffle`) with seed + chunk * 1_000_003, so a corpus of one chunk gets the
+    very batches of the in-memory plan. Sized from the histograms; a batch is built when asked
+    for, reading its chunk."""
+
+    def __init__(self, corpus: StreamedCorpus, cap: int | None, batch_size: int,
+                 shuffle: bool, seed: int):
+        self.corpus, self.cap, self.batch_size = corpus, cap, batch_size
+        self.shuffle, self.seed = shuffle, seed
+        kept = [sum(n for length, n in h.items() if cap is None or length <= cap)
+                for h in corpus.histograms]
+        # length_batches with only a sentence limit cuts ceil(kept / batch_size) batches.
+        counts = [math.ceil(k / batch_size) for k in kept]
+        self.starts = [0]
+        for n in counts:
+            self.starts.append(self.starts[-1] + n)
+        self.sentences = sum(kept)
+        self._groups: tuple[int, list[list[int]]] = (-1, [])
+
+    def __len__(self) -> int:
+        return self.starts[-1]
+
+    def __getitem__(self, k: int) -> list[int]:
+        if not 0 <= k < len(self):
+            raise IndexError(k)
+        c = bisect.bisect_right(self.starts, k) - 1
+        if self._groups[0] != c:
+            ids = self.corpus.chunk(c)
+            keep = [j for j in range(len(ids)) if self.cap is None or len(ids[j]) <= self.cap]
+            offset = c * self.corpus.chunk_size
+            groups = length_batches([len(ids[j]) for j in keep], self.batch_size,
+                                    shuffle=self.shuffle, seed=self.seed + c * 1_000_003)
+            assert len(groups) == self.starts[c + 1] - self.starts[c]
+            self._groups = (c, [[offset + keep[g] for g in group] for group in groups])
+        return self._groups[1][k - self.starts[c]]
+
+
+def plan_sentences(plan: Sequence[Sequence[int]]) -> int:
+    """Sentences in an epoch's plan (a StreamPlan says without reading its chunks)."""
+    return plan.sentences if isinstance(plan, StreamPlan) else sum(map(len, plan))

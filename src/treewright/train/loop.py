@@ -51,7 +51,7 @@ from treewright.tracking import JsonlLogger, MultiLogger, Progress, StdoutLogger
 from treewright.trees import Tree
 from treewright.train import updates
 from treewright.train.config import TrainConfig, train_config_from_dict
-from treewright.train.distributed import LocalWorld
+from treewright.train.distributed import LocalWorld, StreamedCorpus, plan_sentences
 from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
                                     batch_counts, make_batch, sentence_logliks, terminal_scores,
                                     zero_counts)
@@ -75,7 +75,7 @@ class TrainingDiverged(RuntimeError):
 class TrainData:
     """Word ids of the training and dev sentences, and what the trainer needs beside them."""
     vocab: object
-    train_ids: list[list[int]]
+    train_ids: list[list[int]] | StreamedCorpus   # StreamedCorpus with data.stream_chunk
     brackets: list[list[tuple[int, int]]] | None     # per training sentence, when constrained
     dev_ids: list[list[int]]
     dev_words: list[list[str]]
@@ -94,7 +94,10 @@ def load_data(cfg: TrainConfig) -> TrainData:
     d = cfg.data
     options = ReadOptions(lowercase=d.lowercase, tag_mode=d.tag_mode, max_length=d.max_length,
                           min_count=d.min_count, max_vocab=d.max_vocab)
-    train = read_corpus(d.train, d.format, options)
+    if d.stream_chunk is not None:
+        train = StreamedCorpus(d.train, d.format, options, d.stream_chunk)
+    else:
+        train = read_corpus(d.train, d.format, options)
     notes = ["training corpus: " + train.report.format().replace("\n", "; ")]
     vocab = train.vocabulary
     brackets = None
@@ -117,8 +120,9 @@ def load_data(cfg: TrainConfig) -> TrainData:
         dev_words = [list(s.words) for s in dev.sentences]
         if all(s.tree is not None for s in dev.sentences):
             dev_trees = [s.tree for s in dev.sentences]
-    return TrainData(vocab, [train.encode(s) for s in train.sentences], brackets, dev_ids,
-                     dev_words, dev_trees, notes)
+    train_ids = train if d.stream_chunk is not None else \
+        [train.encode(s) for s in train.sentences]
+    return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -240,9 +244,11 @@ class Trainer:
         function of (config, restart, epoch): this is what makes resume exact."""
         cap = self.length_cap(epoch)
         ids = self.data.train_ids
-        keep = [i for i in range(len(ids)) if cap is None or len(ids[i]) <= cap]
         shuffle = self.cfg.train.shuffle and self.cfg.train.method not in EM_FAMILY
         seed = (self.cfg.train.seed + restart) * 100_003 + epoch
+        if isinstance(ids, StreamedCorpus):
+            return ids.epoch_plan(cap, self.cfg.train.batch_size, shuffle, seed)
+        keep = [i for i in range(len(ids)) if cap is None or len(ids[i]) <= cap]
         groups = length_batches([len(ids[i]) for i in keep], self.cfg.train.batch_size,
                                 shuffle=shuffle, seed=seed)
         return [[keep[k] for k in g] for g in groups]
@@ -552,7 +558,7 @@ class Trainer:
             started = time.monotonic()
             progress = None
             if cfg.output.progress and self.world.is_main:
-                progress = Progress(sum(map(len, plan)), f"restart {restart} epoch {epoch}",
+                progress = Progress(plan_sentences(plan), f"restart {restart} epoch {epoch}",
                                     stream=self.stream)
             try:
                 if method in EM_FAMILY:
@@ -569,7 +575,7 @@ class Trainer:
                 if progress is not None:
                     progress.close()
             elapsed = max(time.monotonic() - started, 1e-9)
-            metrics["sentences_per_second"] = sum(map(len, plan)) / elapsed
+            metrics["sentences_per_second"] = plan_sentences(plan) / elapsed
             metrics.update(self.evaluate_dev(self.current_rules()))
             metrics.update(rule_entropies(self.current_rules(), self.nonterminals,
                                           self.preterminals))
