@@ -5,26 +5,24 @@ from __future__ import annotations
 import json
 import math
 import sys
-from pathlib import Path
 
 from treewright.errors import InputError
 
 
 def read_sentences(path: str) -> list[tuple[int, list[str]]]:
-    """(line number, tokens) of every non-blank line of a raw-text file ('-' reads stdin)."""
+    """(line number, tokens) of every non-blank line of a raw-text file ('-' reads stdin).
+
+    Lines are numbered as the corpus readers number them (\n, \r\n and a lone \r end a line),
+    so a message about line k means the same line everywhere."""
     if path == "-":
-        text = sys.stdin.read()
         name = "<stdin>"
+        text = sys.stdin.read().lstrip("\ufeff").replace("\r\n", "\n").replace("\r", "\n")
+        numbered = list(enumerate(text.split("\n"), start=1))
     else:
+        from treewright.corpus import iter_lines
         name = path
-        try:
-            text = Path(path).read_bytes().decode("utf-8")
-        except FileNotFoundError:
-            raise InputError("no such file", path=path) from None
-        except UnicodeDecodeError as err:
-            line = Path(path).read_bytes()[:err.start].count(b"\n") + 1
-            raise InputError("not UTF-8 text", path=path, line=line) from None
-    out = [(k, line.split()) for k, line in enumerate(text.lstrip("\ufeff").splitlines(), 1)]
+        numbered = list(iter_lines(path))
+    out = [(k, line.split()) for k, line in numbered]
     out = [(k, words) for k, words in out if words]
     if not out:
         raise InputError("no sentences (the input is empty or blank)", path=name)
