@@ -1,0 +1,178 @@
+"""The pieces of scripts/bench_induction.py on tiny data: punctuation removal against the
+treebank's own dependency heads, the lean statistic, the split, and a smoke run whose baseline
+row is recomputed by brute force."""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+import sys
+import sysconfig
+from pathlib import Path
+
+import conllu
+import pytest
+import torch
+
+from treewright.evaluation import Bracketing, left_branching, right_branching
+
+REPO = Path(__file__).resolve().parents[1]
+_spec = importlib.util.spec_from_file_location("bench_induction",
+                                               REPO / "scripts" / "bench_induction.py")
+bench = importlib.util.module_from_spec(_spec)
+sys.modules["bench_induction"] = bench   # dataclasses look their module up while building
+_spec.loader.exec_module(bench)
+
+WEB = Path(sysconfig.get_paths()["purelib"]) / "data" / "web.conllu"
+needs_treebank = pytest.mark.skipif(not WEB.exists(), reason="turkish-treebanks not installed")
+
+
+def _yields_without_punct(tokenlist) -> tuple[list[str], set[tuple[int, int]]] | None:
+    """Brute force from the raw heads (read by the `conllu` library, the reference): every
+    word's subtree yield, punctuation words removed, as spans of width >= 2 over the kept words;
+    None for a non-projective sentence (a yield with a gap)."""
+    words = [t for t in tokenlist if isinstance(t["id"], int)]
+    heads = {t["id"]: t["head"] for t in words}
+    kept = [t["id"] for t in words if t["upos"] != "PUNCT"]
+    position = {word_id: k for k, word_id in enumerate(kept)}
+    spans = set()
+    for t in words:
+        below = {t["id"]}
+        for other in heads:           # walk each word up to the root: is t an ancestor?
+            node = other
+            while node != 0:
+                if node == t["id"]:
+                    below.add(other)
+                    break
+                node = heads[node]
+        if max(below) - min(below) + 1 != len(below):
+            return None
+        inside = [position[i] for i in sorted(below) if i in position]
+        if len(inside) >= 2:
+            spans.add((inside[0], inside[-1] + 1))
+    n = len(kept)
+    if n >= 2:
+        spans.add((0, n))             # the reader adds a whole-sentence phrase when needed
+    return [t["form"].lower() for t in words if t["upos"] != "PUNCT"], spans
+
+
+@needs_treebank
+def test_punctuation_removal_matches_dependency_yields():
+    # Reference: the conllu library's parse of the same file and a brute-force descendant walk.
+    tokens, gold, counts = bench.read_treebank(WEB, "tokens", sentences=60)
+    with open(WEB, encoding="utf-8") as handle:
+        reference = [s for _, s in zip(range(60), conllu.parse_incr(handle))]
+    checked = 0
+    for toks, g, ref in zip(tokens, gold, reference):
+        expected = _yields_without_punct(ref)
+        if expected is None:
+            continue
+        words, spans = expected
+        assert toks == [bench.clean_token(w) for w in words]
+        assert {(i, j) for i, j in g.unlabeled() if j - i >= 2} == spans
+        checked += 1
+    assert checked >= 50
+    assert counts["used"] == 60
+
+
+@needs_treebank
+def test_tag_mode_reads_upos_without_punct():
+    tokens, gold, _ = bench.read_treebank(WEB, "tags", sentences=20)
+    with open(WEB, encoding="utf-8") as handle:
+        reference = [s for _, s in zip(range(20), conllu.parse_incr(handle))]
+    for toks, ref in zip(tokens, reference):
+        # Reference: the UPOS column read by the conllu library, PUNCT dropped.
+        assert toks == [t["upos"] for t in ref if isinstance(t["id"], int)
+                        and t["upos"] != "PUNCT"]
+        assert "PUNCT" not in toks
+
+
+def test_lean_of_branching_trees():
+    # Fact of the definitions: every non-whole span of a left-branching tree starts at word 0,
+    # every one of a right-branching tree ends at the last word.
+    words = tuple("abcdef")
+    left = Bracketing.from_spans(words, left_branching(6))
+    right = Bracketing.from_spans(words, right_branching(6))
+    assert bench.lean([left], [left]) == {"left_share": 1.0, "right_share": 0.0}
+    assert bench.lean([right], [right]) == {"left_share": 0.0, "right_share": 1.0}
+    # Brute force on a hand-made tree: spans (0,2), (2,5), (3,5) of 5 words -> 1 left, 1 right.
+    mixed = Bracketing.from_spans(tuple("abcde"), [(0, 5), (0, 2), (2, 5), (3, 5)])
+    assert bench.lean([mixed], [mixed]) == {"left_share": 1 / 3, "right_share": 2 / 3}
+
+
+def test_lean_ignores_gold_punctuation():
+    # The final '.' (tagged PUNCT in gold) is dropped first, so (0, 3) becomes the whole sentence
+    # and is not counted; (1, 3) then ends at the last word.
+    words = ("a", "b", "c", ".")
+    gold = Bracketing.from_spans(words, [(0, 4), (0, 3)], tags=("N", "V", "N", "PUNCT"))
+    pred = Bracketing.from_spans(words, [(0, 4), (0, 3), (1, 3)])
+    assert bench.lean([pred], [gold]) == {"left_share": 0.0, "right_share": 1.0}
+
+
+def test_without_punctuation_remaps_spans():
+    # Brute force by hand: "x , y z" with spans (0,4), (2,4); dropping "," gives (0,3), (1,3).
+    gold = Bracketing.from_spans(("x", ",", "y", "z"), [(0, 4), (2, 4)],
+                                 tags=("N", "PUNCT", "N", "V"))
+    tokens, kept = bench.without_punctuation(gold, list(gold.tags), ["x", ",", "y z", "w"])
+    assert tokens == ["x", "y_z", "w"]
+    assert kept.unlabeled() == {(0, 3), (1, 3)}
+    assert kept.tags == ("N", "N", "V")
+
+
+def _brute_sentence_f1(pred_spans, gold_spans):
+    """Mean per-sentence F1 over sentences with any counted span (common practice: whole span
+    and single words excluded, empty sentences skipped)."""
+    scores = []
+    for p, g in zip(pred_spans, gold_spans):
+        if not p and not g:
+            continue
+        scores.append(2 * len(p & g) / (len(p) + len(g)))
+    return sum(scores) / len(scores)
+
+
+def test_smoke_run_writes_results(tmp_path):
+    result = bench.main(["--smoke", "--methods", "em", "--out", str(tmp_path)])
+    saved = json.loads((tmp_path / "results.json").read_text())
+    assert saved["summary"]["em"]["demo-test"]["seeds"] == [0]
+    assert "| em |" in saved["tables"]["demo-test"]
+    # The right-branching row recomputed by brute force from the demo test trees.
+    from treewright.corpus import read_corpus
+    from treewright.demo import demo_data_dir
+    golds, preds = [], []
+    for s in read_corpus(demo_data_dir() / "test.trees", "brackets").sentences:
+        b = Bracketing.from_tree(s.tree)
+        drop = [i for i, t in enumerate(b.tags) if t == "PUNCT"]
+        b = b.remove_words(drop)
+        n = len(b.words)
+        if n > 8:                     # --smoke scores sentences of at most 8 words
+            continue
+        golds.append({(i, j) for i, j in b.unlabeled() if j - i >= 2 and (i, j) != (0, n)})
+        preds.append({(i, j) for i, j in right_branching(n) if (i, j) != (0, n)})
+    reported = result["baselines"]["demo-test"]["right_branching"]["sentence_f1"]
+    assert reported == pytest.approx(_brute_sentence_f1(preds, golds))
+    # The generating grammar must parse every scored test sentence (it generated them).
+    assert result["ceiling"]["demo-test"]["unparsed"] == 0
+
+
+def test_fast_scoring_matches_library_decode():
+    # Reference: the library's own MBR decoder and inside scores on the demo generating grammar.
+    from treewright.corpus import read_corpus
+    from treewright.decode import decode
+    from treewright.demo import demo_data_dir
+    from treewright.grammar import load_grammar
+    from treewright.inference import score
+    grammar = load_grammar(demo_data_dir() / "grammar.pcfg")
+    sentences = [list(s.tokens) for s in
+                 read_corpus(demo_data_dir() / "test.trees", "brackets").sentences[:12]]
+    sentences.append(["no-such-word", "."])            # unparsable: no unknown-word rule
+    spans, logprobs = bench.mbr_and_likelihood(grammar, sentences, batch_size=5)
+    for words, got, lp, d, ref in zip(sentences, spans, logprobs, decode(grammar, sentences),
+                                      score(grammar, sentences, dtype=torch.float64)):
+        if d.tree is None:
+            assert got is None and lp == float("-inf") and not ref.parsed
+            continue
+        n = len(words)
+        want = {(i, j) for i, j in Bracketing.from_tree(d.tree).unlabeled() if j - i >= 2}
+        assert set(got) == want and len(got) == max(n - 1, 0)
+        assert lp == pytest.approx(ref.logprob, abs=1e-9)
+    assert spans[-1] is None
