@@ -153,3 +153,16 @@ def test_two_workers_match_the_single_process_for_every_method(tmp_path, extra, 
     # Batch size 16 over 2 workers, and batches of 90 % 16 = 10 at the end of an epoch, so
     # shards of unequal size; the last check is the gradient's Adam steps in lockstep.
     _assert_same_run(_single(tmp_path, **extra), _workers(tmp_path, 2, **extra), key)
+
+
+def test_bad_worker_counts_and_streaming_combinations_are_refused(tmp_path):
+    from treewright.config import ConfigError
+    config = tmp_path / "config.yaml"
+    config.write_text("{}\n")
+    done = _cli(["--workers", 0, config, *_overrides(tmp_path, "zero")])
+    assert done.returncode == 1 and "--workers must be at least 1, got 0" in done.stderr
+    assert not (tmp_path / "zero").exists()          # refused before any work
+    # Streaming feeds online EM's minibatches; batch EM needs the whole corpus per update.
+    with pytest.raises(ConfigError) as info:
+        load_train_config(None, _overrides(tmp_path, "em", **{"data.stream_chunk": 10}))
+    assert [p.key for p in info.value.problems] == ["data.stream_chunk"]
