@@ -365,7 +365,10 @@ class Trainer:
             total = add_counts(total, batch_counts(rules, self._batch(group)))
             if progress is not None:
                 progress.update(len(group))
+        mine = total.sentences + total.unparsed
         total = self.world.sum_counts(total)
+        if progress is not None:      # the other workers' sentences, known once summed
+            progress.update(total.sentences + total.unparsed - mine)
         out = self._sums_metrics(_tally(total.loglik, total.words, total.sentences,
                                         total.unparsed))
         previous = self.current_rules()
