@@ -10,10 +10,10 @@ three ways: 1 process with 1 thread, 2 worker processes (`--workers 2`) with 1 t
 1 process with 2 threads. The figure is the median over epochs of the run's own
 `sentences_per_second` (E-step, all-reduce and M-step; rank 0's clock).
 
-Memory: online EM (10 nonterminals, 20 preterminals), one epoch, over --memory-sentences sentences of 1..10 words held in memory
-(the default), then over ten times as many, in memory and streamed (data.stream_chunk) with 1
-and 2 workers. The figure is each process's peak resident set (VmHWM from /proc, Linux), the
-largest over the launcher and its workers.
+Memory: online EM (10 nonterminals, 20 preterminals), one epoch, over --memory-sentences
+sentences of 1..10 words held in memory (the default), then over ten times as many, in memory
+and streamed (data.stream_chunk) with 1 and 2 workers. The figure is each process's peak
+resident set (VmHWM from /proc, Linux), the largest over the launcher and its workers.
 
 Sentences are random word ids (the inside pass costs the same whatever the words are), seeded.
 Prints measured figures and ratios only; asserts nothing.
