@@ -136,7 +136,6 @@ class GlooWorld(LocalWorld):
     def __init__(self, timeout_seconds: float, collective_seconds: float):
         self.rank = int(os.environ["RANK"])
         self.size = int(os.environ["WORLD_SIZE"])
-        self.timeout_seconds = timeout_seconds
         dist.init_process_group("gloo", timeout=datetime.timedelta(seconds=collective_seconds))
         self.watchdog = Watchdog(self.rank, self.size, timeout_seconds)
         self.watchdog.start()
