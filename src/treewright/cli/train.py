@@ -9,8 +9,8 @@ EXAMPLES = """examples:
   treewright train configs/vb_demo.yaml prior.concentration=0.1 output.run_dir=runs/vb-sparse
   treewright train --resume runs/em_demo
   treewright train configs/em_demo.yaml --workers 2
-  torchrun --nnodes 2 --node-rank 0 --nproc-per-node 2 --master-addr HOST --master-port 29500 \
-      -m treewright train configs/em_demo.yaml
+  torchrun --nnodes 2 --node-rank R --nproc-per-node 2 --master-addr HOST0 \\
+      --master-port 29500 -m treewright train configs/em_demo.yaml   # R = 0, 1 per machine
 
 Overrides are dotted key=value pairs read as YAML scalars; they win over the file. Every option
 is checked before training starts ('treewright validate CONFIG' does only that, and
