@@ -90,11 +90,23 @@ class TabularParams(nn.Module):
         return rules_to_grammar(self.rules(), nonterminals, preterminals, vocab, start)
 
 
+def _renormalize(rows: torch.Tensor) -> torch.Tensor:
+    """Log-probability rows rescaled to sum to one; a row with no finite entry stays as it is."""
+    alive = torch.isfinite(rows).any(1, keepdim=True)
+    return torch.where(alive, rows.log_softmax(1), rows)
+
+
 def rules_to_grammar(rules: RuleTensors, nonterminals: list[str], preterminals: list[str],
                      vocab: Vocabulary, start: str = "ROOT") -> Grammar:
-    """A `Grammar` (detached copies) from induction-layout rules."""
+    """A `Grammar` (detached float64 copies) from induction-layout rules.
+
+    Each distribution is renormalised in float64: rules computed in float32 sum to one only to
+    about 1e-6, and a saved grammar must load back under the format's sum-to-one check."""
     nt = len(nonterminals)
-    root, binary, lexical = (x.detach().clone() for x in rules)
+    root, binary, lexical = (x.detach().double() for x in rules)
+    root = _renormalize(root[None])[0]
+    binary = _renormalize(binary.flatten(1)).view_as(binary)
+    lexical = _renormalize(lexical)
     full_lexical = torch.cat([lexical.new_full((nt, lexical.shape[1]), float("-inf")), lexical])
     return Grammar(list(nonterminals), list(preterminals), vocab, root, binary, full_lexical,
                    start)

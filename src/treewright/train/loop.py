@@ -588,10 +588,15 @@ class Trainer:
             self.loggers.log_epoch(metrics, position.step)
             objective = metrics.get("train/elbo_per_word", metrics.get(
                 "train/log_posterior_per_word", metrics["train/loglik_per_word"]))
-            converged = (method in EM_FAMILY and cfg.train.tolerance > 0
+            # Only objectives of the same kind over the same sentences compare: VB's first
+            # epoch reports a log-likelihood (no ELBO yet), and a curriculum step changes the
+            # data, so neither counts as "improved by less than the tolerance".
+            comparable = (epoch >= (2 if method == "vb" else 1)
+                          and self.length_cap(epoch - 1) == cap
+                          and self.length_cap(epoch + 1) == cap)
+            converged = (method in EM_FAMILY and cfg.train.tolerance > 0 and comparable
                          and position.previous_objective is not None
-                         and objective - position.previous_objective < cfg.train.tolerance
-                         and self.length_cap(epoch + 1) == cap)
+                         and objective - position.previous_objective < cfg.train.tolerance)
             position.previous_objective = objective
             position.epoch = cfg.train.epochs if converged else epoch + 1
             position.batch = 0
