@@ -191,7 +191,7 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
     print("\nOn your own text (one sentence per line), the same job is:\n"
           "  treewright train configs/em_demo.yaml data.train=YOUR.txt data.dev=YOUR_DEV.txt "
           "output.run_dir=runs/mine\n"
-          "  treewright parse runs/mine YOUR_TEST.txt --decoder mbr > pred.trees\n"
+          "  treewright parse runs/mine/grammar.pcfg YOUR_TEST.txt --decoder mbr > pred.trees\n"
           "  treewright evaluate pred.trees GOLD.trees      (bracketed trees or CoNLL-U)\n"
           "  treewright report runs/mine --gold GOLD.trees", file=stream)
     return result
