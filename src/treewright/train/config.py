@@ -76,6 +76,10 @@ class MethodConfig:
     dtype: Literal["float32", "float64"] = option(
         "float32", "Arithmetic precision; float64 makes resumed runs bit-identical and is "
                    "what the exactness tests use.")
+    memory_budget_mb: float | None = option(
+        None, "Memory for one inside-outside call (chart and gradient, estimated by "
+              "treewright.engine.memory): batches are cut to fit, and a sentence that alone "
+              "needs more is set aside and reported. null: no budget.", range="(0, inf)")
     seed: int = option(0, "Seeds the initialisation and the data order of restart 0; restart "
                           "r uses seed + r.", range="[0, inf)")
     restarts: int = option(1, "Independent random starts; the one with the best dev "

@@ -24,6 +24,7 @@ run ends with the same bits as one that was never interrupted.
 from __future__ import annotations
 
 import json
+import functools
 import math
 import signal
 import sys
@@ -36,6 +37,7 @@ from typing import TextIO
 import torch
 
 from treewright import engine
+from treewright.engine.memory import inside_outside_bytes
 from treewright.config import config_to_dict, dump_config_yaml
 from treewright.corpus import ReadOptions, length_batches, read_corpus
 from treewright.decode import mbr_spans
@@ -248,10 +250,33 @@ class Trainer:
         seed = (self.cfg.train.seed + restart) * 100_003 + epoch
         if isinstance(ids, StreamedCorpus):
             return ids.epoch_plan(cap, self.cfg.train.batch_size, shuffle, seed)
-        keep = [i for i in range(len(ids)) if cap is None or len(ids[i]) <= cap]
+        keep = [i for i in range(len(ids)) if (cap is None or len(ids[i]) <= cap)
+                and len(ids[i]) <= self.budget_length]
         groups = length_batches([len(ids[i]) for i in keep], self.cfg.train.batch_size,
+                                max_cost=self.budget_bytes, cost=self.sentence_bytes,
                                 shuffle=shuffle, seed=seed)
         return [[keep[k] for k in g] for g in groups]
+
+    # The memory budget: per-sentence cost of one inside-outside call, the budget in bytes, and
+    # the longest sentence that fits it alone (longer ones are set aside at the start).
+    def sentence_bytes(self, length: int) -> float:
+        m = self.cfg.model
+        return inside_outside_bytes(1, length, m.nonterminals, m.preterminals,
+                                    torch.finfo(self.dtype).bits // 8)
+
+    @property
+    def budget_bytes(self) -> float | None:
+        mb = self.cfg.train.memory_budget_mb
+        return None if mb is None else mb * 2 ** 20
+
+    @functools.cached_property
+    def budget_length(self) -> float:
+        if self.budget_bytes is None:
+            return math.inf
+        length = 0
+        while length < 100_000 and self.sentence_bytes(length + 1) <= self.budget_bytes:
+            length += 1
+        return length
 
     def _batch(self, indices: list[int]) -> Batch:
         return make_batch(indices, self.data.train_ids, self.data.brackets, self.dtype)
@@ -272,7 +297,13 @@ class Trainer:
             return {}
         total, words, unparsed = 0.0, 0, 0
         predicted: list[Tree | None] = [None] * len(data.dev_ids)
-        for group in length_batches([len(s) for s in data.dev_ids], self.cfg.train.batch_size):
+        fits = [i for i, s in enumerate(data.dev_ids) if len(s) <= self.budget_length]
+        for i in set(range(len(data.dev_ids))) - set(fits):
+            predicted[i] = Tree("X", list(data.dev_words[i]))  # not parsed: no brackets
+        for part in length_batches([len(data.dev_ids[i]) for i in fits],
+                                   self.cfg.train.batch_size, max_cost=self.budget_bytes,
+                                   cost=self.sentence_bytes):
+            group = [fits[k] for k in part]
             batch = make_batch(group, data.dev_ids, None, self.dtype)
             if data.dev_trees is None:
                 logz = sentence_logliks(rules, batch)
@@ -289,7 +320,7 @@ class Trainer:
             words += int(batch.lengths[ok].sum())
             unparsed += int((~ok).sum())
         out = {"dev/loglik_per_word": total / words if words else float("nan"),
-               "dev/unparsed": unparsed}
+               "dev/unparsed": unparsed, "dev/over_memory_budget": len(data.dev_ids) - len(fits)}
         out["dev/perplexity"] = math.exp(-out["dev/loglik_per_word"]) if words else float("nan")
         if data.dev_trees is not None:
             scores = evaluate_brackets(predicted, data.dev_trees).systems["model"]
@@ -509,6 +540,14 @@ class Trainer:
                         f"{name.replace('_', '-')} {systems[name].sentence_f1:.3f}"
                         for name in ("left_branching", "right_branching", "random_binary")))
                 self.loggers.log(start, 0)
+            if self.budget_bytes is not None and not isinstance(self.data.train_ids,
+                                                                StreamedCorpus):
+                over = [i for i, s in enumerate(self.data.train_ids)
+                        if len(s) > self.budget_length]
+                self._note(f"memory budget {self.cfg.train.memory_budget_mb} MB: sentences of "
+                           f"up to {self.budget_length} words fit; {len(over)} longer training "
+                           "sentences set aside" + (f" (first at index {over[0]})" if over
+                                                    else ""))
             session = [0]
             for restart in range(position.restart, self.cfg.train.restarts):
                 self.model = self._new_model(restart)
