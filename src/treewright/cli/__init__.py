@@ -40,7 +40,7 @@ def build_parser() -> argparse.ArgumentParser:
                              epilog=getattr(module, "EXAMPLES", None),
                              formatter_class=argparse.RawDescriptionHelpFormatter)
         module.add_arguments(cmd)
-        cmd.set_defaults(run=module.run)
+        cmd.set_defaults(_handler=module.run)  # not "run": commands may take a RUN argument
     return parser
 
 
@@ -51,7 +51,7 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return int(args.run(args) or 0)
+        return int(args._handler(args) or 0)
     except InputError as err:
         print(f"treewright {args.command}: {err}", file=sys.stderr)
         return 1
