@@ -80,3 +80,15 @@ def test_a_bad_grammar_gives_one_line_with_file_and_line(tmp_path):
     out = run_cli("score", str(bad), "-", stdin="a b\n")
     assert out.returncode == 1
     assert out.stderr.strip() == f"treewright score: {bad}, line 3: probability 1.5 is outside [0, 1]"
+
+
+def test_core_commands_read_a_json_export_as_well_as_the_text_format(tmp_path):
+    # Reuse: the same scores from the grammar text file and from its JSON export (exact, as the
+    # JSON keeps every probability's float64 value).
+    from treewright.export import save_grammar_json
+
+    save_grammar_json(load_grammar(GRAMMAR), tmp_path / "g.json")
+    text = run_cli("score", str(GRAMMAR), "-", stdin=" ".join(SENTENCE) + "\n")
+    json_ = run_cli("score", str(tmp_path / "g.json"), "-", stdin=" ".join(SENTENCE) + "\n")
+    assert json_.returncode == 0, json_.stderr
+    assert json_.stdout == text.stdout

@@ -29,7 +29,7 @@ DECODER_NAMES = ("viterbi", "mbr", "max-rule-product")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("grammar", help="grammar file (the treewright grammar text format)")
+    p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
     p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
     p.add_argument("--decoder", choices=DECODER_NAMES, default="viterbi",
                    help="how to choose the tree (default: viterbi)")
@@ -45,7 +45,7 @@ def run(args) -> int:
 
     from treewright.cli.common import read_sentences
     from treewright.decode import decode
-    from treewright.grammar import load_grammar
+    from treewright.export import load as load_grammar  # text, JSON export or run folder
 
     grammar = load_grammar(args.grammar)
     lines = read_sentences(args.text)

@@ -11,7 +11,7 @@ EXAMPLES = """examples:
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("grammar", help="grammar file (the treewright grammar text format)")
+    p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
     p.add_argument("-n", type=int, default=10, help="number of sentences (default 10)")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--max-words", type=int, default=60,
@@ -20,7 +20,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
-    from treewright.grammar import load_grammar
+    from treewright.export import load as load_grammar  # text, JSON export or run folder
     from treewright.inference import generate
 
     grammar = load_grammar(args.grammar)

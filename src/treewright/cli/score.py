@@ -15,7 +15,7 @@ the summary: total log-likelihood, per-word cross-entropy and perplexity over pa
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("grammar", help="grammar file (the treewright grammar text format)")
+    p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
     p.add_argument("text", help="raw text, one sentence per line, whitespace tokens ('-': stdin)")
     p.add_argument("--batch-size", type=int, default=64)
     p.add_argument("--float64", action="store_true", help="compute in double precision")
@@ -25,7 +25,7 @@ def run(args) -> int:
     import torch
 
     from treewright.cli.common import dumps, read_sentences
-    from treewright.grammar import load_grammar
+    from treewright.export import load as load_grammar  # text, JSON export or run folder
     from treewright.inference import corpus_summary, score
 
     grammar = load_grammar(args.grammar)
