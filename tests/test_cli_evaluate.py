@@ -16,7 +16,7 @@ from treewright.errors import InputError
 from treewright.trees import Tree
 
 ROOT = Path(__file__).resolve().parent.parent
-TEXTBOOK = ROOT / "examples" / "astronomers.pcfg"
+TEXTBOOK = ROOT / "src" / "treewright" / "data" / "examples" / "astronomers.pcfg"
 
 
 def run(module, argv) -> int:

@@ -19,7 +19,7 @@ MARKER = "(this exact code is run by tests/test_export_api.py):\n"
 
 def test_notebook_example_runs_and_prints_the_textbook_numbers(monkeypatch):
     code = textwrap.dedent(treewright.export.__doc__.split(MARKER, 1)[1])
-    monkeypatch.chdir(REPO)  # the example names examples/astronomers.pcfg relative to the repo
+    monkeypatch.chdir(REPO)  # the example names src/treewright/data/examples/astronomers.pcfg relative to the repo
     out = io.StringIO()
     with redirect_stdout(out):
         exec(compile(code, "README example", "exec"), {})
@@ -34,5 +34,5 @@ def test_notebook_example_runs_and_prints_the_textbook_numbers(monkeypatch):
     assert tree == "(S (NP astronomers) (VP (V saw) (NP (NP stars) (PP (P with) (NP ears)))))"
     assert float(logprob) == pytest.approx(math.log(0.0009072))
     assert lines[3].rsplit(" ", 1)[0] == "(S (NP astronomers) (VP (V saw) (NP ears)))"
-    # The binary rules below probability one, read off examples/astronomers.pcfg.
+    # The binary rules below probability one, read off src/treewright/data/examples/astronomers.pcfg.
     assert sorted(lines[4:]) == ["NP -> NP PP 0.4", "VP -> V NP 0.7", "VP -> VP PP 0.3"]

@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 
 EXAMPLES = """examples:
-  treewright parse examples/astronomers.pcfg sentences.txt
+  treewright parse src/treewright/data/examples/astronomers.pcfg sentences.txt
   treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr --scores
-  echo "astronomers saw stars with ears" | treewright parse examples/astronomers.pcfg - --scores
+  echo "astronomers saw stars with ears" | treewright parse src/treewright/data/examples/astronomers.pcfg - --scores
 
 decoders:
   viterbi           the most probable tree (the default)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 EXAMPLES = """examples:
-  treewright sample examples/astronomers.pcfg -n 5 --seed 1
+  treewright sample src/treewright/data/examples/astronomers.pcfg -n 5 --seed 1
   treewright sample grammar.pcfg -n 1000 --words-only > synthetic.txt
 """
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 
 EXAMPLES = """examples:
-  treewright score examples/astronomers.pcfg sentences.txt
-  echo "astronomers saw stars with ears" | treewright score examples/astronomers.pcfg -
+  treewright score src/treewright/data/examples/astronomers.pcfg sentences.txt
+  echo "astronomers saw stars with ears" | treewright score src/treewright/data/examples/astronomers.pcfg -
 
 Each sentence gives one JSON line: {"line", "tokens", "logprob", "unknown"}; logprob is the
 natural log of the sum over all trees, null when the sentence has no parse. The last line is

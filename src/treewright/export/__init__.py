@@ -11,7 +11,7 @@ Notebook use (this exact code is run by tests/test_export_api.py):
     from treewright.export import load, iter_rules
     from treewright.inference import score, viterbi_parse
 
-    grammar = load("examples/astronomers.pcfg")      # a grammar file, a JSON export or a run folder
+    grammar = load("src/treewright/data/examples/astronomers.pcfg")      # a grammar file, a JSON export or a run folder
     sentences = [line.split() for line in ["astronomers saw stars with ears",
                                            "astronomers saw ears"]]
     for result in score(grammar, sentences):
