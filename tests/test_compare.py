@@ -19,7 +19,8 @@ from treewright.export.compare import match_symbols
 from treewright.grammar import Grammar, load_grammar, parse_grammar
 from treewright.inference import generate
 
-ASTRONOMERS = Path(__file__).resolve().parents[1] / "src" / "treewright" / "data" / "examples" / "astronomers.pcfg"
+ASTRONOMERS = (Path(__file__).resolve().parents[1] / "src" / "treewright" / "data"
+              / "examples" / "astronomers.pcfg")
 
 # The textbook grammar with NP -> NP PP made rarer (0.1) and the freed 0.3 given to telescopes.
 ASTRONOMERS_VP_ATTACH = """\

@@ -23,7 +23,8 @@ from treewright.export.rename import check_renaming, parse_renaming
 from treewright.grammar import load_grammar, parse_grammar
 from treewright.inference import generate, score, viterbi_parse
 
-ASTRONOMERS = Path(__file__).resolve().parents[1] / "src" / "treewright" / "data" / "examples" / "astronomers.pcfg"
+ASTRONOMERS = (Path(__file__).resolve().parents[1] / "src" / "treewright" / "data"
+              / "examples" / "astronomers.pcfg")
 
 VELMAR = """\
 @start ROOT

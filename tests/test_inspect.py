@@ -12,7 +12,8 @@ from treewright.cli import main
 from treewright.export import symbol_examples
 from treewright.grammar import load_grammar
 
-ASTRONOMERS = Path(__file__).resolve().parents[1] / "src" / "treewright" / "data" / "examples" / "astronomers.pcfg"
+ASTRONOMERS = (Path(__file__).resolve().parents[1] / "src" / "treewright" / "data"
+              / "examples" / "astronomers.pcfg")
 SENTENCES = ["astronomers saw stars with ears", "astronomers saw ears"]
 
 

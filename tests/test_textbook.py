@@ -16,7 +16,8 @@ import torch
 from treewright.grammar import load_grammar
 from treewright.inference import posterior_samples, score, tree_logprob, viterbi_parse
 
-GRAMMAR = Path(__file__).resolve().parent.parent / "src" / "treewright" / "data" / "examples" / "astronomers.pcfg"
+GRAMMAR = (Path(__file__).resolve().parent.parent / "src" / "treewright" / "data"
+          / "examples" / "astronomers.pcfg")
 SENTENCE = "astronomers saw stars with ears".split()
 
 
