@@ -138,8 +138,8 @@ def main() -> None:
         # A small grammar here: the figure is about the corpus, not the rule tensors.
         online = [*common, "model.nonterminals=10", "model.preterminals=20",
                   "train.method=online_em", "train.epochs=1"]
-        print(f"\nOnline EM, one epoch, sentences of 1..10 words: peak resident memory of the "
-              f"largest process (launcher or worker)")
+        print("\nOnline EM, one epoch, sentences of 1..10 words: peak resident memory of the "
+              "largest process (launcher or worker)")
         rows = [("in memory (default)", small, [], None),
                 ("in memory (default)", large, [], None),
                 ("streamed, 1 process", large, [f"data.stream_chunk={args.chunk}"], None),

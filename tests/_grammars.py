@@ -9,11 +9,13 @@ from treewright.vocab import Vocabulary
 
 
 def random_grammar(nt: int, t: int, v: int, seed: int, nt_emit: bool = False,
-                   sparsity: float = 0.0) -> Grammar:
+                   sparsity: float = 0.0, names: tuple[list[str], list[str]] | None = None
+                   ) -> Grammar:
     """A normalised grammar with names N0.. (nonterminals), P0.. (preterminals), words w0..
 
     `nt_emit` gives nonterminals lexical rules too (general CNF); `sparsity` zeroes that
-    fraction of binary rules (keeping at least one per left-hand side)."""
+    fraction of binary rules (keeping at least one per left-hand side); `names` gives the
+    nonterminal and preterminal names instead of N0.. and P0..."""
     gen = torch.Generator().manual_seed(seed)
     s = nt + t
     dt = torch.float64
@@ -31,6 +33,8 @@ def random_grammar(nt: int, t: int, v: int, seed: int, nt_emit: bool = False,
     lexical[:nt] = lexical[:nt] / totals[:, None]
     lexical[nt:] = lexical[nt:] / lexical[nt:].sum(1, keepdim=True)
     root = root / root.sum()
-    return Grammar([f"N{i}" for i in range(nt)], [f"P{i}" for i in range(t)],
+    nonterminals, preterminals = names or ([f"N{i}" for i in range(nt)],
+                                           [f"P{i}" for i in range(t)])
+    return Grammar(list(nonterminals), list(preterminals),
                    Vocabulary([f"w{i}" for i in range(v)], unk=None),
                    root.log(), binary.log(), lexical.log(), start="TOP")

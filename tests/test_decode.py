@@ -19,30 +19,15 @@ import torch
 from treewright import inference
 from treewright.decode import (coarse_name, decode, max_rule_product, mbr_decode, mbr_spans,
                                sentence_tables, tree_logprob_summed)
+from _grammars import random_grammar
 from treewright.grammar import Grammar
 from treewright.trees import Tree
-from treewright.vocab import Vocabulary
 
 
 def make_grammar(nonterminals, preterminals, num_words, seed, nt_emit=False) -> Grammar:
-    """A normalized random grammar over words w0.. (seeded)."""
-    gen = torch.Generator().manual_seed(seed)
-    nt, t = len(nonterminals), len(preterminals)
-    s = nt + t
-    dt = torch.float64
-    binary = torch.rand(nt, s, s, generator=gen, dtype=dt) + 0.05
-    lexical = torch.rand(s, num_words, generator=gen, dtype=dt) + 0.05
-    if not nt_emit:
-        lexical[:nt] = 0.0
-    totals = binary.flatten(1).sum(1) + lexical[:nt].sum(1)
-    binary = binary / totals[:, None, None]
-    lexical[:nt] = lexical[:nt] / totals[:, None]
-    lexical[nt:] = lexical[nt:] / lexical[nt:].sum(1, keepdim=True)
-    root = torch.rand(nt, generator=gen, dtype=dt) + 0.1
-    root = root / root.sum()
-    return Grammar(list(nonterminals), list(preterminals),
-                   Vocabulary([f"w{i}" for i in range(num_words)], unk=None),
-                   root.log(), binary.log(), lexical.log(), start="TOP")
+    """A normalized random grammar over words w0.. (seeded), with the given symbol names."""
+    return random_grammar(len(nonterminals), len(preterminals), num_words, seed,
+                          nt_emit=nt_emit, names=(nonterminals, preterminals))
 
 
 @lru_cache(maxsize=None)

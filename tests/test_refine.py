@@ -20,7 +20,7 @@ from treewright.grammar import parse_grammar
 from treewright.inference import generate, score
 from treewright.refine import (CycleSettings, RefineConfig, cnf_tree, em_on_text, em_on_trees,
                                estimate_coarse, latent_from_grammar, merge, merge_losses,
-                               merge_plan, normalize, split, text_cycle, text_estep,
+                               normalize, split, text_cycle, text_estep,
                                text_loglik, tree_cycle, tree_estep, tree_loglik, tree_set)
 from treewright.refine.text import project_labels
 from treewright.trees import Tree

@@ -354,7 +354,7 @@ def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
 def _check_productive(nonterminals, binary, lexical, root, source) -> None:
     """Refuse a grammar in which no tree from the start symbol reaches words: such a grammar
     would give every sentence probability zero, which is never what the author meant."""
-    nt, s = len(nonterminals), binary.shape[1]
+    nt = len(nonterminals)
     productive = lexical.gt(0).any(1)  # (S,)
     while True:
         pairs = productive[:, None] & productive[None, :]

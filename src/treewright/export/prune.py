@@ -86,7 +86,7 @@ def prune(grammar: Grammar, threshold: float = 0.0, top_k: int | None = None,
         raise ValueError(f"threshold must be in [0, 1], not {threshold}")
     if top_k is not None and top_k < 1:
         raise ValueError(f"top_k must be at least 1, not {top_k}")
-    nt, s, v = len(grammar.nonterminals), grammar.num_symbols, len(grammar.vocab)
+    nt, s = len(grammar.nonterminals), grammar.num_symbols
     root_keep = torch.isfinite(grammar.root)
     binary_keep = torch.isfinite(grammar.binary)
     lexical_keep = torch.isfinite(grammar.lexical)

@@ -239,6 +239,23 @@ def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,
         loggers.close()
 
 
+def _run_cycles(cfg: RefineConfig, lg: LatentGrammar, cycle_step, report_cycle, run_dir: Path,
+                log: _Log, result: RefineResult) -> RefineResult:
+    """Report the unrefined grammar, then run and report each split-merge cycle; both starting
+    points share this, and differ only in `cycle_step` (one cycle on trees or on text)."""
+    report_cycle(0, lg, 0.0)
+    for cycle in range(1, cfg.refine.cycles + 1):
+        began = time.perf_counter()
+        lg = cycle_step(lg)
+        seconds = time.perf_counter() - began
+        _save(lg, run_dir, f"cycle-{cycle}.pcfg")
+        report_cycle(cycle, lg, seconds)
+    result.grammar = lg
+    _save(lg, run_dir, "grammar.pcfg")
+    log.note(f"refined grammar: {result.grammar_path}")
+    return result
+
+
 def _settings(cfg: RefineConfig) -> CycleSettings:
     r = cfg.refine
     return CycleSettings(r.em_iterations, r.smoothed_iterations, r.merge_fraction,
@@ -325,17 +342,8 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> Re
         stem = "summary" if cycle == cfg.refine.cycles else f"summary-{cycle}"
         _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
 
-    report_cycle(0, lg, 0.0)
-    for cycle in range(1, cfg.refine.cycles + 1):
-        began = time.perf_counter()
-        lg = tree_cycle(lg, ts_train, settings, generator)
-        seconds = time.perf_counter() - began
-        _save(lg, run_dir, f"cycle-{cycle}.pcfg")
-        report_cycle(cycle, lg, seconds)
-    result.grammar = lg
-    _save(lg, run_dir, "grammar.pcfg")
-    log.note(f"refined grammar: {result.grammar_path}")
-    return result
+    return _run_cycles(cfg, lg, lambda g: tree_cycle(g, ts_train, settings, generator),
+                       report_cycle, run_dir, log, result)
 
 
 def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> RefineResult:
@@ -382,14 +390,6 @@ def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> Refine
         stem = "summary" if cycle == cfg.refine.cycles else f"summary-{cycle}"
         _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
 
-    report_cycle(0, lg, 0.0)
-    for cycle in range(1, cfg.refine.cycles + 1):
-        began = time.perf_counter()
-        lg = text_cycle(lg, train_ids, train_words, settings, generator, cfg.refine.batch_size)
-        seconds = time.perf_counter() - began
-        _save(lg, run_dir, f"cycle-{cycle}.pcfg")
-        report_cycle(cycle, lg, seconds)
-    result.grammar = lg
-    _save(lg, run_dir, "grammar.pcfg")
-    log.note(f"refined grammar: {result.grammar_path}")
-    return result
+    return _run_cycles(cfg, lg, lambda g: text_cycle(g, train_ids, train_words, settings,
+                                                     generator, cfg.refine.batch_size),
+                       report_cycle, run_dir, log, result)
