@@ -41,6 +41,7 @@ from torch import Tensor
 
 NEG_INF = float("-inf")
 PAD_MULTIPLE = 8  # see the module docstring: why the nonterminal axis is padded
+CHUNK_BYTES = 2 ** 20  # split sums processed per chunk of spans (about one core's L2 cache)
 
 
 @dataclass
@@ -71,9 +72,10 @@ class Chart:
 @dataclass
 class _Rules:
     """Probability-space rule blocks, nonterminal axes padded to Q (zeros)."""
-    nn: Tensor      # (Q*Q, Q)      [(B, C), A] = p(A -> B C), both children nonterminal
-    right: Tensor   # (T, (Q+T)*Q)  [c, (X, A)] = p(A -> X c), X a nonterminal or a preterminal
-    left: Tensor    # (T, Q*Q)      [b, (C, A)] = p(A -> b C)
+    nn: Tensor      # (Q*Q, Q)  [(B, C), A] = p(A -> B C), both children nonterminal
+    right: Tensor   # (T, Q*Q)  [c, (B, A)] = p(A -> B c)
+    left: Tensor    # (T, Q*Q)  [b, (C, A)] = p(A -> b C)
+    pair: Tensor    # (T, T*Q)  [c, (b, A)] = p(A -> b c), both children preterminal
 
 
 def _padded(nt: int) -> int:
@@ -87,12 +89,14 @@ def _rule_blocks(binary: Tensor, q: int) -> _Rules:
     rules = binary.exp()
     nn = binary.new_zeros(q, q, q)
     nn[:nt, :nt, :nt] = rules[:, :nt, :nt].permute(1, 2, 0)
-    right = binary.new_zeros(t, q + t, q)
+    right = binary.new_zeros(t, q, q)
     right[:, :nt, :nt] = rules[:, :nt, nt:].permute(2, 1, 0)
-    right[:, q:, :nt] = rules[:, nt:, nt:].permute(2, 1, 0)
     left = binary.new_zeros(t, q, q)
     left[:, :nt, :nt] = rules[:, nt:, :nt].permute(1, 2, 0)
-    return _Rules(nn.view(q * q, q), right.view(t, (q + t) * q), left.view(t, q * q))
+    pair = binary.new_zeros(t, t, q)
+    pair[:, :, :nt] = rules[:, nt:, nt:].permute(2, 1, 0)
+    return _Rules(nn.view(q * q, q), right.view(t, q * q), left.view(t, q * q),
+                  pair.view(t, t * q))
 
 
 @dataclass
@@ -102,8 +106,9 @@ class _Saved:
     left_children: list  # (P*B, K, Q) weighted left children of those splits, or None
     weights: list      # (P, B, w-1) weight of split u (at u-1) relative to the span's top
     peaks: list        # (P*B,) the maximum each cell was divided by
-    right_mats: Tensor  # (N, B, Q+T, Q) [pos][X, A] = sum_c p(A -> X c) t[pos, c]
+    right_mats: Tensor  # (N, B, Q, Q)   [pos][B, A] = sum_c p(A -> B c) t[pos, c]
     left_mats: Tensor   # (N, B, Q, Q)   [pos][C, A] = sum_b p(A -> b C) t[pos, b]
+    pair_mats: Tensor   # (N-1, B, T, Q) [pos-1][b, A] = sum_c p(A -> b c) t[pos, c]
 
 
 def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
@@ -124,9 +129,12 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
     term_scale = word_scale.t().contiguous()                         # (N, B)
 
     # Preterminal children folded into per-position matrices (row-vector form, see _Rules).
+    # The preterminal-pair matrices are kept apart: they serve width two only, and leaving them
+    # out of the matrices read at every width keeps those small enough to stay in cache.
     flat = term_sc.view(N * B, T)
-    right_mats = (flat @ rules.right).view(N, B, Q + T, Q)
+    right_mats = (flat @ rules.right).view(N, B, Q, Q)
     left_mats = (flat @ rules.left).view(N, B, Q, Q)
+    pair_mats = (flat[B:] @ rules.pair).view(N - 1, B, T, Q)
 
     by_start = terminal.new_zeros(N + 1, B, N + 1, Q)
     by_end = terminal.new_zeros(N + 1, B, N + 1, Q)
@@ -139,7 +147,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
         by_start[0:N, :, 1, :NT] = cells
         by_end[1:N + 1, :, N - 1, :NT] = cells
 
-    saved = _Saved([], [], [], [], right_mats, left_mats)
+    saved = _Saved([], [], [], [], right_mats, left_mats, pair_mats) if keep else None
     for w in range(2, N + 1):
         P = N - w + 1
         PB = P * B
@@ -156,12 +164,12 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
             left = (by_start[0:P, :, lo:hi + 1] * weight[..., lo - 1:hi, None]
                     ).view(PB, K, Q)
             right = by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]              # (P, B, K, Q)
-            split_sums = torch.bmm(left.transpose(1, 2), right.reshape(PB, K, Q)).view(PB, Q * Q)
-            total = (split_sums @ rules.nn).view(PB, 1, Q)
+            split_sums, total = _split_products(left, right.reshape(PB, K, Q), rules.nn, keep)
+            total = total.view(PB, 1, Q)
         if w - 1 >= min_w:
             # A -> B c: left child (i, i+w-1), preterminal c over word i+w-1.
             vec = by_start[0:P, :, w - 1] * weight[..., w - 2:w - 1]            # (P, B, Q)
-            mats = right_mats[w - 1:N, :, :Q].reshape(PB, Q, Q)
+            mats = right_mats[w - 1:N].view(PB, Q, Q)
             total = _add_rowvec(total, vec.view(PB, 1, Q), mats)
             # A -> b C: preterminal b over word i, right child (i+1, i+w).
             vec = by_end[w:N + 1, :, N - w + 1] * weight[..., 0:1]
@@ -169,8 +177,9 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
         if w == 2:
             # A -> b c over words i and i+1.
             vec = term_sc[0:P] * weight[..., 0:1]                               # (P, B, T)
-            mats = right_mats[1:N, :, Q:].reshape(PB, T, Q)
-            total = _add_rowvec(total, vec.view(PB, 1, T), mats)
+            total = _add_rowvec(total, vec.view(PB, 1, T), pair_mats.view(PB, T, Q))
+            if not keep:
+                del pair_mats
         total = total.view(PB, Q)
         peak = total.amax(-1)                                                  # (P*B,)
         cells = (total / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)  # a dead span (0/0) stays 0
@@ -188,7 +197,30 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
             saved.weights.append(weight)
             saved.peaks.append(peak)
     chart = Chart(by_start, by_end, scale_start, scale_end, term_sc, term_scale, min_w, NT)
-    return chart, (saved if keep else None), rules
+    return chart, saved, rules
+
+
+def _span_chunk(q: int) -> int:
+    """Spans per chunk so that a chunk's Q x Q split sums fit in a core's L2 cache."""
+    return max(1, CHUNK_BYTES // (4 * q * q))
+
+
+def _split_products(left: Tensor, right: Tensor, nn: Tensor, keep: bool):
+    """Split sums left^T right per span (M, Q, Q) and their product with the rules (M, Q).
+
+    Done in chunks of spans, so that each chunk's split sums are multiplied by the rules while
+    they are still in cache; with `keep` the sums are written into one tensor for the backward.
+    """
+    M, _, Q = left.shape
+    chunk = _span_chunk(Q)
+    total = left.new_empty(M, Q)
+    sums = left.new_empty(M, Q, Q) if keep else None
+    lt = left.transpose(1, 2)
+    for c0 in range(0, M, chunk):
+        c1 = min(M, c0 + chunk)
+        part = torch.bmm(lt[c0:c1], right[c0:c1], out=sums[c0:c1] if keep else None)
+        torch.mm(part.view(c1 - c0, Q * Q), nn, out=total[c0:c1])
+    return (sums.view(M, Q * Q) if keep else None), total
 
 
 def _add_rowvec(total: Tensor | None, vec: Tensor, mats: Tensor) -> Tensor:
@@ -262,7 +294,7 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     # multiply, so one batched product per kind folds them into per-position matrix gradients.
     adj_np = torch.zeros_like(chart.by_end[0:N])    # [pos, b, N-w+1]: child (pos-w+1, pos)
     adj_pn = torch.zeros_like(chart.by_start[1:N + 1])  # [pos, b, w-1]: child (pos+1, pos+w)
-    grad_right_pp = None
+    grad_pair_mats = None
     adj_term = torch.zeros_like(chart.term)                             # (N, B, T)
     grad_pot = chart.term.new_zeros(B, N + 1, N + 1) if has_pot else None
     min_w = chart.min_width
@@ -278,17 +310,15 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         if hi >= lo:
             K = hi - lo + 1
             grad_nn.addmm_(split_sums.t(), g)
-            g_pairs = (g @ rules.nn.t()).view(PB, Q, Q)                 # d/d split_sums
             w_k = weight[..., lo - 1:hi, None]                          # (P, B, K, 1)
             right = chart.by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]
-            left_w = saved.left_children[w - 2]
-            g_left = torch.bmm(right.reshape(PB, K, Q), g_pairs.transpose(1, 2))
-            g_right = torch.bmm(left_w, g_pairs)
+            g_left, g_right = _split_adjoints(g, rules.nn, right.reshape(PB, K, Q),
+                                              saved.left_children[w - 2])
             adj_start[0:P, :, lo:hi + 1].addcmul_(g_left.view(P, B, K, Q), w_k)
             adj_end[w:N + 1, :, N - w + lo:N - w + hi + 1] += g_right.view(P, B, K, Q)
         if w - 1 >= min_w:
             g_np = (g.view(P, B, Q) * weight[..., w - 2:w - 1])
-            mats = saved.right_mats[w - 1:N, :, :Q].reshape(PB, Q, Q)
+            mats = saved.right_mats[w - 1:N].view(PB, Q, Q)
             adj_start[0:P, :, w - 1] += torch.bmm(
                 g_np.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, Q)
             adj_np[w - 1:N, :, N - w + 1] = g_np
@@ -299,36 +329,36 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
             adj_pn[0:P, :, w - 1] = g_pn
         if w == 2:
             g_pp = (g.view(P, B, Q) * weight[..., 0:1])                 # (P, B, Q)
-            mats = saved.right_mats[1:N, :, Q:].reshape(PB, T, Q)
+            mats = saved.pair_mats.view(PB, T, Q)
             adj_term[0:P] += torch.bmm(g_pp.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, T)
-            grad_right_pp = chart.term[0:P].unsqueeze(-1) * g_pp.unsqueeze(-2)  # (P, B, T, Q)
+            grad_pair_mats = chart.term[0:P].unsqueeze(-1) * g_pp.unsqueeze(-2)  # (P, B, T, Q)
 
     # Per-position matrix gradients: [pos, b][X, A] = sum over spans of child[X] * g[A].
-    grad_right_mats = torch.empty_like(saved.right_mats)                # (N, B, Q+T, Q)
-    grad_right_mats[0, :, Q:] = 0.0  # no preterminal pair ends at word 0
-    grad_right_mats[:, :, :Q] = torch.bmm(
+    grad_right_mats = torch.bmm(
         chart.by_end[0:N].view(N * B, N + 1, Q).transpose(1, 2),
-        adj_np.view(N * B, N + 1, Q)).view(N, B, Q, Q)
-    if grad_right_pp is None:
-        grad_right_mats[:, :, Q:] = 0.0
-    else:
-        grad_right_mats[1:N, :, Q:] = grad_right_pp
+        adj_np.view(N * B, N + 1, Q))                                   # (N*B, Q, Q)
     grad_left_mats = torch.bmm(
         chart.by_start[1:N + 1].view(N * B, N + 1, Q).transpose(1, 2),
         adj_pn.view(N * B, N + 1, Q))                                   # (N*B, Q, Q)
 
     # Fold the per-position matrices back into rules and preterminal cells.
     term_flat = chart.term.view(N * B, T)
-    gr = grad_right_mats.view(N * B, (Q + T) * Q)
+    gr = grad_right_mats.view(N * B, Q * Q)
     gl = grad_left_mats.view(N * B, Q * Q)
     adj_term += (gr @ rules.right.t()).addmm_(gl, rules.left.t()).view(N, B, T)
-    grad_right = (term_flat.t() @ gr).view(T, Q + T, Q)                # [c, X, A]
+    grad_right = (term_flat.t() @ gr).view(T, Q, Q)                    # [c, B, A]
     grad_left = (term_flat.t() @ gl).view(T, Q, Q)                     # [b, C, A]
+    if grad_pair_mats is None:
+        grad_pair = rules.pair.new_zeros(T, T, Q)
+    else:
+        gp = grad_pair_mats.view((N - 1) * B, T * Q)
+        adj_term[1:N] += (gp @ rules.pair.t()).view(N - 1, B, T)
+        grad_pair = (term_flat[B:].t() @ gp).view(T, T, Q)             # [c, b, A]
 
     grad_rules = torch.empty_like(binary)                              # (NT, S, S)
     grad_rules[:, :NT, :NT] = grad_nn.view(Q, Q, Q)[:NT, :NT, :NT].permute(2, 0, 1)
     grad_rules[:, :NT, NT:] = grad_right[:, :NT, :NT].permute(2, 1, 0)
-    grad_rules[:, NT:, NT:] = grad_right[:, Q:, :NT].permute(2, 1, 0)
+    grad_rules[:, NT:, NT:] = grad_pair[:, :, :NT].permute(2, 1, 0)
     grad_rules[:, NT:, :NT] = grad_left[:, :NT, :NT].permute(2, 0, 1)
     grad_binary = grad_rules * binary.exp()                            # d/d log p = p * d/dp
     grad_terminal = (adj_term * chart.term).transpose(0, 1)            # (B, N, T)
@@ -337,6 +367,22 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         adj1 = adj_start[0:N, :, 1] + adj_end[1:N + 1, :, N - 1]
         grad_nt_terminal = (adj1 * chart.by_start[0:N, :, 1])[..., :NT].transpose(0, 1)
     return grad_root, grad_binary, grad_terminal, grad_nt_terminal, grad_pot
+
+
+def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor):
+    """Adjoints of the left (M, K, Q) and right (M, K, Q) children of the split sums, given the
+    adjoint g (M, Q) of their product with the rules; in chunks of spans, as in the forward."""
+    M, K, Q = right.shape
+    chunk = _span_chunk(Q)
+    g_left = right.new_empty(M, K, Q)
+    g_right = right.new_empty(M, K, Q)
+    nn_t = nn.t()
+    for c0 in range(0, M, chunk):
+        c1 = min(M, c0 + chunk)
+        g_pairs = (g[c0:c1] @ nn_t).view(c1 - c0, Q, Q)                # d/d split sums
+        torch.bmm(right[c0:c1], g_pairs.transpose(1, 2), out=g_left[c0:c1])
+        torch.bmm(left[c0:c1], g_pairs, out=g_right[c0:c1])
+    return g_left, g_right
 
 
 def log_partition(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
@@ -356,7 +402,14 @@ def log_partition(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tenso
     Sentences with no parse get -inf (and zero gradients), never NaN.
     """
     root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
-    return _LogPartition.apply(root, binary, terminal, nt_terminal, span_pot, lengths)
+    inputs = (root, binary, terminal, nt_terminal, span_pot)
+    if torch.is_grad_enabled() and any(x is not None and x.requires_grad for x in inputs):
+        return _LogPartition.apply(root, binary, terminal, nt_terminal, span_pot, lengths)
+    # No gradient wanted: fill without keeping the backward's state, so that each width's
+    # temporaries are freed (and their memory reused) as soon as the next width starts.
+    with torch.no_grad():
+        chart, _, _ = _fill(binary, terminal, nt_terminal, span_pot, keep=False)
+        return _root_scores(chart, root, lengths)[0]
 
 
 def prepare_inputs(root: Tensor, terminal: Tensor, lengths, nt_terminal: Tensor | None):
