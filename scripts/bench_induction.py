@@ -44,6 +44,7 @@ from pathlib import Path
 
 import torch
 
+from treewright.allocator import tune_allocator
 from treewright import engine
 from treewright.corpus import ReadOptions, length_batches, read_corpus, split_indices
 from treewright.decode import mbr_spans
@@ -403,6 +404,7 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
 
 def main(argv: list[str] | None = None) -> dict:
     args = parse_args(argv)
+    tune_allocator()
     torch.set_num_threads(args.threads)
     args.out.mkdir(parents=True, exist_ok=True)
     if args.data == "turkish":

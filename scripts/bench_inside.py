@@ -27,6 +27,7 @@ from dataclasses import asdict, dataclass
 
 import torch
 
+from treewright.allocator import tune_allocator
 from treewright.engine.inside import log_partition
 from treewright.engine.lowrank import lowrank_log_partition
 from treewright.engine.reference import reference_inside
@@ -195,6 +196,7 @@ def main(argv: list[str] | None = None) -> int:
                              "when other programs load the CPU")
     parser.add_argument("--probe", nargs="+", help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
+    tuned = tune_allocator()
     if args.threads:
         torch.set_num_threads(args.threads)
     if args.probe:
@@ -212,7 +214,7 @@ def main(argv: list[str] | None = None) -> int:
 
     result = {"date": datetime.date.today().isoformat(), "torch": torch.__version__,
               "threads": torch.get_num_threads(), "batch": BATCH, "quick": args.quick,
-              "repeats": repeats}
+              "repeats": repeats, "allocator_tuned": tuned}
     gflops = matmul_gflops(repeats)
     rows = []
     for cfg in dense:

@@ -17,6 +17,7 @@ from pathlib import Path
 
 import torch
 
+from treewright.allocator import tune_allocator
 from treewright.corpus import ReadOptions, read_corpus
 from treewright.refine import (CycleSettings, WordClasses, cnf_tree, estimate_coarse, map_words,
                                tree_cycle, tree_loglik, tree_set)
@@ -32,6 +33,7 @@ def main() -> None:
     parser.add_argument("--sentences", type=int, default=3000)
     parser.add_argument("--cycles", type=int, default=2)
     args = parser.parse_args()
+    tune_allocator()
     trees = []
     for path in treebank_files():
         corpus = read_corpus(path, "conllu", ReadOptions(skip_bad=True, max_length=40))

@@ -18,6 +18,7 @@ import time
 
 import torch
 
+from treewright.allocator import tune_allocator
 from treewright.corpus import length_batches
 from treewright.params import NeuralParams, TabularParams
 from treewright.train import updates
@@ -32,6 +33,7 @@ def peak_mib() -> float:
 
 
 def main() -> None:
+    tune_allocator()
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--sentences", type=int, default=10_000)
     p.add_argument("--max-length", type=int, default=30)

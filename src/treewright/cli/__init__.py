@@ -7,6 +7,7 @@ import argparse
 import importlib
 import sys
 
+from treewright.allocator import tune_allocator
 from treewright.errors import InputError
 
 # name -> (module, one-line summary). Modules are imported only when their command runs.
@@ -50,6 +51,7 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return 2
+    tune_allocator()  # a one-off process: keep freed tensor memory mapped (engine/allocator.py)
     try:
         return int(args._handler(args) or 0)
     except InputError as err:

@@ -76,6 +76,7 @@ class _Rules:
     right: Tensor   # (T, Q*Q)  [c, (B, A)] = p(A -> B c)
     left: Tensor    # (T, Q*Q)  [b, (C, A)] = p(A -> b C)
     pair: Tensor    # (T, T*Q)  [c, (b, A)] = p(A -> b c), both children preterminal
+    prob: Tensor    # (NT, S, S) the unpadded probabilities, reused by the backward
 
 
 def _padded(nt: int) -> int:
@@ -96,7 +97,7 @@ def _rule_blocks(binary: Tensor, q: int) -> _Rules:
     pair = binary.new_zeros(t, t, q)
     pair[:, :, :nt] = rules[:, nt:, nt:].permute(2, 1, 0)
     return _Rules(nn.view(q * q, q), right.view(t, q * q), left.view(t, q * q),
-                  pair.view(t, t * q))
+                  pair.view(t, t * q), rules)
 
 
 @dataclass
@@ -360,7 +361,7 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     grad_rules[:, :NT, NT:] = grad_right[:, :NT, :NT].permute(2, 1, 0)
     grad_rules[:, NT:, NT:] = grad_pair[:, :, :NT].permute(2, 1, 0)
     grad_rules[:, NT:, :NT] = grad_left[:, :NT, :NT].permute(2, 0, 1)
-    grad_binary = grad_rules * binary.exp()                            # d/d log p = p * d/dp
+    grad_binary = grad_rules.mul_(rules.prob)                          # d/d log p = p * d/dp
     grad_terminal = (adj_term * chart.term).transpose(0, 1)            # (B, N, T)
     grad_nt_terminal = None
     if nt_emits:
