@@ -7,12 +7,15 @@ Every parameterization is a `torch.nn.Module` with
 - `to_grammar(nonterminals, preterminals, vocab, start)`, the current rules as a `Grammar`.
 
 `tabular.TabularParams` holds one logit per rule (EM writes log-probabilities into it directly);
-`neural.NeuralParams` computes the rules from symbol embeddings (Kim, Dyer & Rush 2019).
+`neural.NeuralParams` computes the rules from symbol embeddings (Kim, Dyer & Rush 2019);
+`lowrank.LowRankParams` computes low-rank factors of the binary rules (Yang, Zhao & Tu 2021) and
+returns `LowRankRules`, whose dense `binary` is formed only on request.
 """
 
 from treewright.params.tabular import (RuleTensors, TabularParams, symbol_names,
                                        tabular_from_grammar)
 from treewright.params.neural import NeuralParams
+from treewright.params.lowrank import LowRankParams, LowRankRules
 
-__all__ = ["NeuralParams", "RuleTensors", "TabularParams", "symbol_names",
-           "tabular_from_grammar"]
+__all__ = ["LowRankParams", "LowRankRules", "NeuralParams", "RuleTensors", "TabularParams",
+           "symbol_names", "tabular_from_grammar"]

@@ -30,7 +30,7 @@ class ResidualBlock(nn.Module):
         return x + torch.relu(self.second(torch.relu(self.first(x))))
 
 
-def _mlp(dim: int, blocks: int, out: int) -> nn.Sequential:
+def mlp(dim: int, blocks: int, out: int) -> nn.Sequential:
     return nn.Sequential(nn.Linear(dim, dim), *[ResidualBlock(dim) for _ in range(blocks)],
                          nn.Linear(dim, out))
 
@@ -55,9 +55,9 @@ class NeuralParams(nn.Module):
         self.start_embedding = nn.Parameter(torch.empty(1, dim))           # (1, d)
         self.nonterminal_embeddings = nn.Parameter(torch.empty(nonterminals, dim))  # (NT, d)
         self.preterminal_embeddings = nn.Parameter(torch.empty(preterminals, dim))  # (T, d)
-        self.root_net = _mlp(dim, blocks, nonterminals)
+        self.root_net = mlp(dim, blocks, nonterminals)
         self.binary_net = nn.Linear(dim, s * s)
-        self.lexical_net = _mlp(dim, blocks, vocab_size)
+        self.lexical_net = mlp(dim, blocks, vocab_size)
         self.to(dtype)
         self._initialise(generator)
 

@@ -43,19 +43,23 @@ class DataConfig:
 
 @dataclass
 class ModelConfig:
-    parameterization: Literal["tabular", "neural"] = option(
+    parameterization: Literal["tabular", "neural", "lowrank"] = option(
         "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
-                   "(Kim, Dyer & Rush 2019), gradient training only.")
+                   "(Kim, Dyer & Rush 2019); lowrank: binary rules as a sum of model.rank "
+                   "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols. "
+                   "neural and lowrank train with 'gradient' only.")
     nonterminals: int = option(30, "Number of nonterminals (ignored with a warm start).",
                                range="[1, inf)")
     preterminals: int = option(60, "Number of preterminals (ignored with a warm start).",
                                range="[1, inf)")
     init_scale: float = option(1.0, "Std of the normal logits of a random tabular start; 0 "
                                     "gives the uniform grammar.", range="[0, inf)")
-    embedding_dim: int = option(256, "Neural: symbol embedding and hidden size.",
+    embedding_dim: int = option(256, "Neural and lowrank: symbol embedding and hidden size.",
                                 range="[1, inf)")
-    residual_blocks: int = option(2, "Neural: residual blocks in the root and word networks.",
-                                  range="[0, inf)")
+    residual_blocks: int = option(2, "Neural and lowrank: residual blocks in the root and word "
+                                     "networks.", range="[0, inf)")
+    rank: int = option(200, "Lowrank: number of rank-one terms of the binary rule tensor.",
+                       range="[1, inf)")
     warm_start: Path | None = option(None, "Start from this hand-written grammar (grammar text "
                                            "format) instead of at random; tabular only.")
     warm_start_mix: float = option(0.0, "Weight of the uniform distribution mixed into every "
@@ -186,10 +190,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         problems.append(ConfigProblem(key, message, source))
 
     method = cfg.train.method
-    if cfg.model.parameterization == "neural" and method != "gradient":
-        bad("train.method", f"the neural parameterization trains only with 'gradient', not "
-                            f"{method!r}")
-    if cfg.model.parameterization == "neural" and cfg.model.warm_start is not None:
+    if cfg.model.parameterization in ("neural", "lowrank") and method != "gradient":
+        bad("train.method", f"the {cfg.model.parameterization} parameterization trains only "
+                            f"with 'gradient', not {method!r}")
+    if cfg.model.parameterization in ("neural", "lowrank") and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
     if method == "em" and cfg.prior.concentration != 1:

@@ -13,6 +13,8 @@ import torch
 from torch import Tensor
 
 from treewright import engine
+from treewright.engine.lowrank import lowrank_log_partition
+from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
 
 NEG_INF = float("-inf")
@@ -111,9 +113,31 @@ def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
                           total.unparsed + part.unparsed)
 
 
-def sentence_logliks(rules: RuleTensors, batch: Batch) -> Tensor:
+def sentence_logliks(rules: RuleTensors | LowRankRules, batch: Batch) -> Tensor:
     """(B,) log p(sentence) under `rules`, no gradient."""
     with torch.no_grad():
         terminal = terminal_scores(rules.lexical, batch.ids)
-        return engine.log_partition(rules.root, rules.binary, terminal, batch.lengths,
-                                    span_pot=None)
+        return log_partition_of(rules, terminal, batch.lengths)
+
+
+def log_partition_of(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor,
+                     span_pot: Tensor | None = None) -> Tensor:
+    """(B,) log Z under dense or factored rules, through the matching engine kernel."""
+    if isinstance(rules, LowRankRules):
+        return lowrank_log_partition(rules.root, rules.u, rules.v, rules.w, terminal, lengths,
+                                     span_pot=span_pot)
+    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
+
+
+def span_posteriors(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor
+                    ) -> tuple[Tensor, Tensor]:
+    """log Z (B,) and the posterior span marginals (B, N+1, N+1), [b, start, width], as the
+    gradient of log Z with respect to a zero span potential (Eisner 2016)."""
+    B, N, _ = terminal.shape
+    pot = terminal.new_zeros(B, N + 1, N + 1, requires_grad=True)
+    with torch.enable_grad():
+        detached = type(rules)(*(x.detach() for x in rules))
+        logz = log_partition_of(detached, terminal.detach(), lengths, span_pot=pot)
+        ok = torch.isfinite(logz)
+        (spans,) = torch.autograd.grad(torch.where(ok, logz, torch.zeros_like(logz)).sum(), pot)
+    return logz.detach(), spans

@@ -44,7 +44,8 @@ from treewright.decode import mbr_spans
 from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.grammar import load_grammar
-from treewright.params import NeuralParams, TabularParams, symbol_names, tabular_from_grammar
+from treewright.params import (LowRankParams, LowRankRules, NeuralParams, TabularParams,
+                               symbol_names, tabular_from_grammar)
 from treewright.params.tabular import RuleTensors
 from treewright.safeio import (atomic_write_bytes, atomic_write_text, check_writable,
                               load_checkpoint, save_checkpoint)
@@ -55,7 +56,8 @@ from treewright.train import updates
 from treewright.train.config import TrainConfig, train_config_from_dict
 from treewright.train.distributed import LocalWorld, StreamedCorpus, plan_sentences
 from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
-                                    batch_counts, make_batch, sentence_logliks, terminal_scores,
+                                    batch_counts, log_partition_of, make_batch,
+                                    sentence_logliks, span_posteriors, terminal_scores,
                                     zero_counts)
 from treewright.train.metrics import rule_entropies, unigram_logprobs
 from treewright.train.schedule import learning_rate
@@ -230,6 +232,9 @@ class Trainer:
         if m.parameterization == "neural":
             return NeuralParams(m.nonterminals, m.preterminals, v, m.embedding_dim,
                                 m.residual_blocks, gen, self.dtype)
+        if m.parameterization == "lowrank":
+            return LowRankParams(m.nonterminals, m.preterminals, v, m.rank, m.embedding_dim,
+                                 m.residual_blocks, gen, self.dtype)
         return TabularParams(m.nonterminals, m.preterminals, v, m.init_scale, gen, self.dtype)
 
     # ---- batches ----------------------------------------------------------------------------
@@ -283,12 +288,14 @@ class Trainer:
 
     # ---- evaluation -------------------------------------------------------------------------
 
-    def current_rules(self) -> RuleTensors:
-        """The grammar as it stands (VB: the posterior mean), without gradient."""
+    def current_rules(self) -> RuleTensors | LowRankRules:
+        """The grammar as it stands (VB: the posterior mean), without gradient; factored for
+        the low-rank parameterization."""
         with torch.no_grad():
             if self.cfg.train.method == "vb" and "vb.root" in self.stats:
                 return updates.vb_mean(self._stat_rules("vb"))
-            return RuleTensors(*(x.detach() for x in self.model.rules()))
+            rules = self.model.rules()
+            return type(rules)(*(x.detach() for x in rules))
 
     def evaluate_dev(self, rules: RuleTensors) -> dict[str, float]:
         """Dev log-likelihood per word, perplexity, and bracket F1 of MBR trees (with gold)."""
@@ -308,12 +315,11 @@ class Trainer:
             if data.dev_trees is None:
                 logz = sentence_logliks(rules, batch)
             else:
-                post = engine.posteriors(rules.root, rules.binary,
-                                         terminal_scores(rules.lexical, batch.ids),
-                                         batch.lengths)
-                logz = post.logz
+                logz, marginals = span_posteriors(rules, terminal_scores(rules.lexical,
+                                                                         batch.ids),
+                                                  batch.lengths)
                 for b, i in enumerate(group):
-                    spans = mbr_spans(post.spans[b], len(data.dev_ids[i]))
+                    spans = mbr_spans(marginals[b], len(data.dev_ids[i]))
                     predicted[i] = spans_to_tree(data.dev_words[i], spans)
             ok = torch.isfinite(logz)
             total += float(logz[ok].sum())
@@ -447,9 +453,8 @@ class Trainer:
         rules = self.model.rules()
         if mine:
             batch = self._batch(mine)
-            logz = engine.log_partition(rules.root, rules.binary,
-                                        terminal_scores(rules.lexical, batch.ids),
-                                        batch.lengths, span_pot=batch.span_pot)  # (B,)
+            logz = log_partition_of(rules, terminal_scores(rules.lexical, batch.ids),
+                                    batch.lengths, span_pot=batch.span_pot)  # (B,)
         else:
             batch = None
             logz = rules.root.new_zeros(0)   # a worker dealt nothing still joins the all-reduce
@@ -619,7 +624,7 @@ class Trainer:
             elapsed = max(time.monotonic() - started, 1e-9)
             metrics["sentences_per_second"] = plan_sentences(plan) / elapsed
             metrics.update(self.evaluate_dev(self.current_rules()))
-            metrics.update(rule_entropies(self.current_rules(), self.nonterminals,
+            metrics.update(rule_entropies(_dense(self.current_rules()), self.nonterminals,
                                           self.preterminals))
             cap = self.length_cap(epoch)
             metrics.update({"restart": restart, "epoch": epoch,
@@ -716,10 +721,10 @@ class Trainer:
         position.previous_objective = None
         self.checkpoint(position)
 
-    def _to_grammar(self, rules: RuleTensors):
+    def _to_grammar(self, rules: RuleTensors | LowRankRules):
         from treewright.params.tabular import rules_to_grammar
         start = self.warm.start if self.warm is not None else "ROOT"
-        return rules_to_grammar(rules, self.nonterminals, self.preterminals, self.data.vocab,
+        return rules_to_grammar(_dense(rules), self.nonterminals, self.preterminals, self.data.vocab,
                                 start)
 
     def _finish_run(self, position: Position) -> None:
@@ -744,6 +749,11 @@ class Trainer:
         atomic_write_text(self.run_dir / "result.json", json.dumps(result, indent=2) + "\n")
         self._note(f"kept restart {best['restart']}; grammar written to "
                    f"{self.run_dir / 'grammar.pcfg'}")
+
+
+def _dense(rules: RuleTensors | LowRankRules) -> RuleTensors:
+    """Dense rule tensors (the low-rank factors multiplied out; NT * S^2 of memory)."""
+    return rules.dense() if isinstance(rules, LowRankRules) else rules
 
 
 def _tally(loglik: float, words: int, sentences: int, unparsed: int) -> dict:
