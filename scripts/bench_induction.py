@@ -55,11 +55,10 @@ from treewright.train import load_train_config, train
 
 REPO = Path(__file__).resolve().parents[1]
 CONFIGS = REPO / "configs"
-METHODS = ("em", "vb", "gradient", "neural")
+METHODS = ("em", "vb", "gradient", "neural", "lowrank")
 # Rows the issue asks for that no training parameterization implements yet; listed in the table
 # so a reader sees the gap rather than a missing row.
-NOT_IMPLEMENTED = {"lowrank": "low-rank binary rules (Yang, Zhao & Tu 2021)",
-                   "compound": "compound PCFG (Kim, Dyer & Rush 2019)"}
+NOT_IMPLEMENTED = {"compound": "compound PCFG (Kim, Dyer & Rush 2019)"}
 PUNCT_UPOS = "PUNCT"
 BASELINES = ("left_branching", "right_branching", "random_binary", "binary_upper_bound")
 
@@ -267,7 +266,7 @@ def gold_lean(ev: EvalSet) -> dict:
 
 def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: Path) -> dict:
     """Train one (method, seed) and score it on every eval set."""
-    nt, pt = args.symbols
+    nt, pt = args.lowrank_symbols if method == "lowrank" else args.symbols
     overrides = [f"data.train={data_files['train']}", f"data.dev={data_files['dev']}",
                  "data.format=text", f"data.max_length={args.max_length}",
                  f"data.min_count={args.min_count}", f"model.nonterminals={nt}",
@@ -368,6 +367,9 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
                    "likelihood kept")
     p.add_argument("--symbols", default=None, help="NONTERMINALS,PRETERMINALS (default: "
                    "10,20 on demo, 30,60 on turkish)")
+    p.add_argument("--lowrank-symbols", default=None, help="NONTERMINALS,PRETERMINALS of the "
+                   "lowrank row, which exists to afford many symbols (default: 4 times "
+                   "--symbols)")
     p.add_argument("--max-length", type=int, default=15, help="training sentences longer "
                    "than this (tokens after punctuation removal) are set aside")
     p.add_argument("--eval-max-length", type=int, default=None, help="score only sentences "
@@ -399,6 +401,8 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     args.seeds = [int(s) for s in args.seeds.split(",") if s]
     default_symbols = "10,20" if args.data == "demo" else "30,60"
     args.symbols = tuple(int(x) for x in (args.symbols or default_symbols).split(","))
+    args.lowrank_symbols = tuple(int(x) for x in args.lowrank_symbols.split(",")) \
+        if args.lowrank_symbols else tuple(4 * x for x in args.symbols)
     return args
 
 
@@ -438,7 +442,8 @@ def main(argv: list[str] | None = None) -> dict:
     result = {"command": command, "date": started.isoformat(timespec="seconds"),
               "data": args.data, "mode": args.mode, "methods": args.methods,
               "seeds": args.seeds, "epochs": args.epochs, "restarts": args.restarts,
-              "symbols": list(args.symbols), "max_length": args.max_length,
+              "symbols": list(args.symbols), "lowrank_symbols": list(args.lowrank_symbols),
+              "max_length": args.max_length,
               "eval_max_length": args.eval_max_length, "counts": data.counts,
               "runs": runs, "summary": summary, "baselines": baselines, "ceiling": ceiling,
               "gold_lean": gold_leans, "tables": tables}

@@ -154,6 +154,17 @@ def test_smoke_run_writes_results(tmp_path):
     assert result["ceiling"]["demo-test"]["unparsed"] == 0
 
 
+def test_smoke_run_of_the_lowrank_row(tmp_path):
+    result = bench.main(["--smoke", "--methods", "lowrank", "--lowrank-symbols", "5,8",
+                         "--override", "model.rank=6", "--out", str(tmp_path)])
+    saved = json.loads((tmp_path / "results.json").read_text())
+    assert saved["lowrank_symbols"] == [5, 8]
+    e = result["summary"]["lowrank"]["demo-test"]
+    assert 0.0 <= e["sentence_f1"][0] <= 100.0
+    assert "| lowrank |" in saved["tables"]["demo-test"]
+    assert "lowrank | not run" not in saved["tables"]["demo-test"]
+
+
 def test_fast_scoring_matches_library_decode():
     # Reference: the library's own MBR decoder and inside scores on the demo generating grammar.
     from treewright.corpus import read_corpus
