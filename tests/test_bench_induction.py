@@ -76,6 +76,31 @@ def test_punctuation_removal_matches_dependency_yields():
 
 
 @needs_treebank
+def test_the_corpus_reader_drops_tagged_words_like_the_dependency_yields():
+    # The training option data.drop_tags (ReadOptions.punct_labels on CoNLL-U). Reference: the
+    # conllu library's parse and the brute-force descendant walk above.
+    from treewright.corpus import ReadOptions, read_corpus
+    corpus = read_corpus(WEB, "conllu", ReadOptions(punct_labels=frozenset({"PUNCT"}),
+                                                     lowercase=True))
+    with open(WEB, encoding="utf-8") as handle:
+        reference = [s for _, s in zip(range(80), conllu.parse_incr(handle))]
+    checked = 0
+    for ref in reference:
+        expected = _yields_without_punct(ref)
+        if expected is None:
+            continue
+        words, spans = expected
+        # The reader skips non-projective sentences, so match by tokens, not by position.
+        matches = [s for s in corpus.sentences[:120] if s.tokens == words]
+        assert matches, words
+        got = Bracketing.from_tree(matches[0].tree)
+        assert {(i, j) for i, j in got.unlabeled() if j - i >= 2} == spans
+        assert "PUNCT" not in matches[0].tags
+        checked += 1
+    assert checked >= 70
+
+
+@needs_treebank
 def test_tag_mode_reads_upos_without_punct():
     tokens, gold, _ = bench.read_treebank(WEB, "tags", sentences=20)
     with open(WEB, encoding="utf-8") as handle:

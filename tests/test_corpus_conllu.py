@@ -190,3 +190,38 @@ def test_malformed_conllu_names_file_and_line(tmp_path, text, line, words):
     # Nothing goes missing: one used, one listed as malformed at the right line.
     assert corpus.report.sentences_read == 2 and corpus.report.sentences_used == 1
     assert [(r.reason, r.line) for r in corpus.report.skipped] == [("malformed", line + 2)]
+
+
+def test_dropping_tagged_words_renumbers_heads_or_gives_them_up(tmp_path):
+    # Hand-made sentences (an invented language): 1 <- 2 -> 3(PUNCT) with 2 the root, and
+    # 1 <- 2(PUNCT) -> 3 with the punctuation as the root.
+    from treewright.corpus import ReadOptions, read_corpus
+    text = ("1\tvel\tvel\tNOUN\t_\t_\t2\tnsubj\t_\t_\n"
+            "2\tdoran\tdoran\tVERB\t_\t_\t0\troot\t_\t_\n"
+            "3\t.\t.\tPUNCT\t_\t_\t2\tpunct\t_\t_\n\n"
+            "1\tsel\tsel\tNOUN\t_\t_\t2\tdep\t_\t_\n"
+            "2\tka\tka\tPUNCT\t_\t_\t0\troot\t_\t_\n"
+            "3\tmor\tmor\tVERB\t_\t_\t2\tdep\t_\t_\n\n")
+    path = tmp_path / "two.conllu"
+    path.write_text(text)
+    corpus = read_corpus(path, "conllu", ReadOptions(punct_labels=frozenset({"PUNCT"})))
+    first, second = corpus.sentences
+    assert first.words == ["vel", "doran"] and first.heads == [2, 0]   # renumbered by hand
+    assert second.words == ["sel", "mor"] and second.tags == ["NOUN", "VERB"]
+    assert second.heads is None        # both words hung from the removed one: none invented
+
+
+def test_training_option_drop_tags_reaches_train_and_dev(tmp_path):
+    from treewright.train import load_train_config
+    from treewright.train.loop import load_data
+    text = ("1\tvel\tvel\tNOUN\t_\t_\t2\tnsubj\t_\t_\n"
+            "2\tdoran\tdoran\tVERB\t_\t_\t0\troot\t_\t_\n"
+            "3\t.\t.\tPUNCT\t_\t_\t2\tpunct\t_\t_\n\n")
+    path = tmp_path / "one.conllu"
+    path.write_text(text)
+    cfg = load_train_config(None, [f"data.train={path}", f"data.dev={path}",
+                                   "data.drop_tags=PUNCT, SYM"])
+    data = load_data(cfg)
+    assert "." not in data.vocab.index
+    assert data.dev_words == [["vel", "doran"]]
+    assert data.dev_trees[0].leaves() == ["vel", "doran"]

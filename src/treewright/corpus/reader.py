@@ -194,7 +194,37 @@ class CorpusStream:
                 self.report.projectivised += 1
             tree = dependency_to_tree(block.words, block.upos, heads, options.dependency_labels,
                                       options.fixed_label)
-            yield self._finish(block.words, block.upos, tree, block.line, heads=block.heads)
+            words, upos, kept_heads = block.words, block.upos, block.heads
+            if options.punct_labels and any(t in options.punct_labels for t in upos):
+                # Removed from the constituency tree, as for bracketed trees; the dependency
+                # heads survive only when no removed word has a dependent.
+                tree = clean_tree(tree, options)
+                if tree is None:
+                    self._skip("empty", block.line, message="nothing left after removals")
+                    yield None
+                    continue
+                kept_heads = _heads_without(block.heads, [t in options.punct_labels
+                                                          for t in upos])
+                words, upos = tree.leaves(), preterminal_tags(tree)
+            yield self._finish(words, upos, tree, block.line, heads=kept_heads)
+
+
+def _heads_without(heads: list[int], drop: list[bool]) -> list[int] | None:
+    """1-based heads (0 = root) after removing the words marked in `drop`, renumbered; None
+    when a removed word heads a kept one (the arcs would have to be invented)."""
+    new_id, count = {0: 0}, 0
+    for i, gone in enumerate(drop, start=1):
+        if not gone:
+            count += 1
+            new_id[i] = count
+    kept = []
+    for i, (h, gone) in enumerate(zip(heads, drop), start=1):
+        if gone:
+            continue
+        if h not in new_id:
+            return None
+        kept.append(new_id[h])
+    return kept
 
 
 def read_corpus(path: str | os.PathLike, fmt: str = "auto",

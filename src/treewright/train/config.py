@@ -28,6 +28,11 @@ class DataConfig:
     lowercase: bool = option(False, "Lowercase words before building the vocabulary.")
     tag_mode: bool = option(False, "Induce over POS tags instead of words (bracketed trees: "
                                    "preterminal labels; CoNLL-U: UPOS).")
+    drop_tags: str | None = option(None, "Comma-separated tags whose words are removed from "
+                                         "training and dev sentences and trees, e.g. PUNCT "
+                                         "(CoNLL-U: UPOS; bracketed trees: preterminal "
+                                         "labels); the usual convention before scoring "
+                                         "induced trees.")
     min_count: int = option(1, "Words seen fewer times in training share the unknown-word "
                                "token.", range="[1, inf)")
     max_vocab: int | None = option(None, "Largest vocabulary, unknown token included.",
