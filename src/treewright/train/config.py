@@ -140,6 +140,22 @@ class ConstraintsConfig:
 
 
 @dataclass
+class BiasConfig:
+    right_edge: float = option(
+        0.0, "Structural bias (after Smith & Eisner 2006): log-weight added during training to "
+             "every span that ends at a sentence's last word without starting at its first. "
+             "Negative values steer the search away from right-branching trees, as fits a "
+             "head-final language; 0 is no bias.")
+    left_edge: float = option(
+        0.0, "The mirror image: log-weight of every span that starts at a sentence's first "
+             "word without ending at its last (negative for head-initial languages).")
+    anneal_epochs: int = option(
+        0, "Scale the bias linearly from full strength at epoch 0 down to zero at this epoch, "
+           "so that the end of training is unbiased; 0 keeps it for the whole run.",
+        range="[0, inf)")
+
+
+@dataclass
 class CurriculumConfig:
     start_length: int | None = option(None, "Train first on sentences of at most this many "
                                             "words; null trains on all lengths at once.",
@@ -182,6 +198,7 @@ class TrainConfig:
     optimizer: OptimizerConfig = option(OptimizerConfig(), "Adam (gradient method).")
     constraints: ConstraintsConfig = option(ConstraintsConfig(), "Partial brackets.")
     curriculum: CurriculumConfig = option(CurriculumConfig(), "Sentence-length curriculum.")
+    bias: BiasConfig = option(BiasConfig(), "Structural bias on spans at the sentence edges.")
     output: OutputConfig = option(OutputConfig(), "Run folder and logging.")
     distributed: DistributedConfig = option(DistributedConfig(), "Data-parallel workers "
                                             "(train --workers N, or torchrun).")

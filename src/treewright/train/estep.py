@@ -51,6 +51,21 @@ def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
     return Batch(list(indices), ids, lengths, span_pot)
 
 
+def edge_bias(lengths: Tensor, n: int, right_edge: float, left_edge: float,
+              dtype: torch.dtype) -> Tensor:
+    """(B, n+1, n+1) [start, width] log-potentials of the structural bias: `right_edge` on spans
+    (i, len) with i > 0, `left_edge` on spans (0, j) with j < len (widths >= 2; the whole
+    sentence and single words are never biased)."""
+    start = torch.arange(n + 1)[None, :, None]
+    width = torch.arange(n + 1)[None, None, :]
+    end = start + width
+    length = lengths[:, None, None]
+    inner = (width >= 2) & (end <= length) & (width < length)
+    pot = torch.zeros(len(lengths), n + 1, n + 1, dtype=dtype)
+    pot = pot.masked_fill(inner & (end == length), right_edge)
+    return pot.masked_fill(inner & (start == 0), left_edge)
+
+
 def crossing_mask(a: int, b: int, n: int) -> Tensor:
     """(n+1, n+1) [start, width]: True for spans (i, i+width) that cross the bracket (a, b), that
     is overlap it without either containing the other."""

@@ -56,7 +56,7 @@ from treewright.train import updates
 from treewright.train.config import TrainConfig, train_config_from_dict
 from treewright.train.distributed import LocalWorld, StreamedCorpus, plan_sentences
 from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
-                                    batch_counts, log_partition_of, make_batch,
+                                    batch_counts, edge_bias, log_partition_of, make_batch,
                                     sentence_logliks, span_posteriors, terminal_scores,
                                     zero_counts)
 from treewright.train.metrics import rule_entropies, unigram_logprobs
@@ -178,6 +178,7 @@ class Trainer:
         self.stream = sys.stderr if stream is None else stream
         self.config_source = config_source
         self.dtype = _dtype(cfg)
+        self.epoch_ = 0  # the epoch being trained (the structural bias depends on it)
 
     # ---- setting up -------------------------------------------------------------------------
 
@@ -285,7 +286,20 @@ class Trainer:
         return length
 
     def _batch(self, indices: list[int]) -> Batch:
-        return make_batch(indices, self.data.train_ids, self.data.brackets, self.dtype)
+        batch = make_batch(indices, self.data.train_ids, self.data.brackets, self.dtype)
+        scale = self.bias_scale(self.epoch_)
+        b = self.cfg.bias
+        if scale > 0 and (b.right_edge != 0 or b.left_edge != 0):
+            pot = edge_bias(batch.lengths, int(batch.ids.shape[1]), scale * b.right_edge,
+                            scale * b.left_edge, self.dtype)
+            batch.span_pot = pot if batch.span_pot is None else batch.span_pot + pot
+        return batch
+
+    def bias_scale(self, epoch: int) -> float:
+        """Strength of the structural bias at `epoch`: 1, falling linearly to 0 at
+        `bias.anneal_epochs` (Smith & Eisner 2006 anneal theirs the same way)."""
+        n = self.cfg.bias.anneal_epochs
+        return 1.0 if n == 0 else max(0.0, 1.0 - epoch / n)
 
     # ---- evaluation -------------------------------------------------------------------------
 
@@ -602,6 +616,7 @@ class Trainer:
                                                      for k, v in start.items()}}, position.step)
         while position.epoch < cfg.train.epochs:
             epoch = position.epoch
+            self.epoch_ = epoch
             plan = plans[epoch]
             started = time.monotonic()
             progress = None
@@ -638,6 +653,7 @@ class Trainer:
             # data, so neither counts as "improved by less than the tolerance".
             comparable = (epoch >= (2 if method == "vb" else 1)
                           and self.length_cap(epoch - 1) == cap
+                          and self.bias_scale(epoch - 1) == self.bias_scale(epoch)
                           and self.length_cap(epoch + 1) == cap)
             converged = (method in EM_FAMILY and cfg.train.tolerance > 0 and comparable
                          and position.previous_objective is not None
