@@ -24,7 +24,9 @@ def _cfg(tmp_path, run, with_dev=True, **extra):
       "optimizer.warmup_steps": 2, "train.restarts": 2}, 5),
     ({"train.method": "online_em"}, 4),
     ({"train.method": "vb", "prior.concentration": 0.5, "train.restarts": 2}, 2),
-], ids=["gradient", "online_em", "vb"])
+    ({"train.method": "gradient", "model.parameterization": "compound", "model.latent_dim": 3,
+      "model.embedding_dim": 8, "optimizer.lr": 0.05}, 5),
+], ids=["gradient", "online_em", "vb", "compound"])
 def test_resumed_run_is_bit_identical_to_an_uninterrupted_one(tmp_path, extra, session):
     # Each session stops after `session` updates, mid-epoch for the minibatch methods and
     # across a restart boundary for gradient and vb.

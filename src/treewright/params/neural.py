@@ -30,9 +30,12 @@ class ResidualBlock(nn.Module):
         return x + torch.relu(self.second(torch.relu(self.first(x))))
 
 
-def mlp(dim: int, blocks: int, out: int) -> nn.Sequential:
-    return nn.Sequential(nn.Linear(dim, dim), *[ResidualBlock(dim) for _ in range(blocks)],
-                         nn.Linear(dim, out))
+def mlp(dim: int, blocks: int, out: int, hidden: int | None = None) -> nn.Sequential:
+    """Linear(dim -> hidden), `blocks` residual blocks, Linear(hidden -> out); hidden = dim
+    unless given."""
+    hidden = dim if hidden is None else hidden
+    return nn.Sequential(nn.Linear(dim, hidden), *[ResidualBlock(hidden) for _ in range(blocks)],
+                         nn.Linear(hidden, out))
 
 
 class NeuralParams(nn.Module):

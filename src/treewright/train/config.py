@@ -48,11 +48,13 @@ class DataConfig:
 
 @dataclass
 class ModelConfig:
-    parameterization: Literal["tabular", "neural", "lowrank"] = option(
+    parameterization: Literal["tabular", "neural", "lowrank", "compound"] = option(
         "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
                    "(Kim, Dyer & Rush 2019); lowrank: binary rules as a sum of model.rank "
-                   "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols. "
-                   "neural and lowrank train with 'gradient' only.")
+                   "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols; "
+                   "compound: neural rules that also read a per-sentence latent vector, trained "
+                   "by amortized variational inference (Kim, Dyer & Rush 2019). All but tabular "
+                   "train with 'gradient' only.")
     nonterminals: int = option(30, "Number of nonterminals (ignored with a warm start).",
                                range="[1, inf)")
     preterminals: int = option(60, "Number of preterminals (ignored with a warm start).",
@@ -65,6 +67,8 @@ class ModelConfig:
                                      "networks.", range="[0, inf)")
     rank: int = option(200, "Lowrank: number of rank-one terms of the binary rule tensor.",
                        range="[1, inf)")
+    latent_dim: int = option(64, "Compound: size of the per-sentence latent vector.",
+                             range="[1, inf)")
     warm_start: Path | None = option(None, "Start from this hand-written grammar (grammar text "
                                            "format) instead of at random; tabular only.")
     warm_start_mix: float = option(0.0, "Weight of the uniform distribution mixed into every "
@@ -212,10 +216,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         problems.append(ConfigProblem(key, message, source))
 
     method = cfg.train.method
-    if cfg.model.parameterization in ("neural", "lowrank") and method != "gradient":
+    if cfg.model.parameterization != "tabular" and method != "gradient":
         bad("train.method", f"the {cfg.model.parameterization} parameterization trains only "
                             f"with 'gradient', not {method!r}")
-    if cfg.model.parameterization in ("neural", "lowrank") and cfg.model.warm_start is not None:
+    if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
     if method == "em" and cfg.prior.concentration != 1:

@@ -14,6 +14,7 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.engine.lowrank import lowrank_log_partition
+from treewright.params.compound import CompoundRules
 from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
 
@@ -142,6 +143,42 @@ def log_partition_of(rules: RuleTensors | LowRankRules, terminal: Tensor, length
         return lowrank_log_partition(rules.root, rules.u, rules.v, rules.w, terminal, lengths,
                                      span_pot=span_pot)
     return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
+
+
+def sentence_terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
+    """(B, N, T) from per-sentence lexical rules (B, T, V) and ids (B, N)."""
+    B, T, _ = lexical.shape
+    return torch.gather(lexical, 2, ids[:, None, :].expand(B, T, ids.shape[1])).transpose(1, 2)
+
+
+def compound_log_partition(rules: CompoundRules, ids: Tensor, lengths: Tensor,
+                           span_pot: Tensor | None = None) -> Tensor:
+    """(B,) log p(x_b | z_b) with each sentence's own rules: one engine call per sentence, over
+    its own length (the rule tensors differ, so sentences cannot share a call)."""
+    terminal = sentence_terminal_scores(rules.lexical, ids)              # (B, N, T)
+    out = []
+    for b in range(ids.shape[0]):
+        n = int(lengths[b])
+        pot = None if span_pot is None else span_pot[b:b + 1, :n + 1, :n + 1]
+        out.append(engine.log_partition(rules.root[b], rules.binary[b], terminal[b:b + 1, :n],
+                                        lengths[b:b + 1], span_pot=pot))
+    return torch.cat(out)
+
+
+def compound_span_posteriors(rules: CompoundRules, ids: Tensor, lengths: Tensor
+                             ) -> tuple[Tensor, Tensor]:
+    """log p(x_b | z_b) (B,) and span marginals (B, N+1, N+1), sentence by sentence."""
+    B, N = ids.shape
+    terminal = sentence_terminal_scores(rules.lexical, ids).detach()
+    logz = terminal.new_empty(B)
+    spans = terminal.new_zeros(B, N + 1, N + 1)
+    for b in range(B):
+        n = int(lengths[b])
+        post = engine.posteriors(rules.root[b].detach(), rules.binary[b].detach(),
+                                 terminal[b:b + 1, :n], lengths[b:b + 1])
+        logz[b] = post.logz[0]
+        spans[b, :n + 1, :n + 1] = post.spans[0]
+    return logz, spans
 
 
 def span_posteriors(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor

@@ -44,8 +44,8 @@ from treewright.decode import mbr_spans
 from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.grammar import load_grammar
-from treewright.params import (LowRankParams, LowRankRules, NeuralParams, TabularParams,
-                               symbol_names, tabular_from_grammar)
+from treewright.params import (CompoundParams, LowRankParams, LowRankRules, NeuralParams,
+                               TabularParams, symbol_names, tabular_from_grammar)
 from treewright.params.tabular import RuleTensors
 from treewright.safeio import (atomic_write_bytes, atomic_write_text, check_writable,
                               load_checkpoint, save_checkpoint)
@@ -56,7 +56,9 @@ from treewright.train import updates
 from treewright.train.config import TrainConfig, train_config_from_dict
 from treewright.train.distributed import LocalWorld, StreamedCorpus, plan_sentences
 from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
-                                    batch_counts, edge_bias, log_partition_of, make_batch,
+                                    batch_counts, compound_log_partition,
+                                    compound_span_posteriors, edge_bias, log_partition_of,
+                                    make_batch,
                                     sentence_logliks, span_posteriors, terminal_scores,
                                     zero_counts)
 from treewright.train.metrics import rule_entropies, unigram_logprobs
@@ -143,7 +145,8 @@ class Position:
     step: int = 0                    # updates over the whole run (the metrics' x axis)
     restart_step: int = 0            # updates within this restart (online EM's t)
     epoch_sums: dict = field(default_factory=lambda: {"loglik": 0.0, "words": 0,
-                                                       "sentences": 0, "unparsed": 0})
+                                                       "sentences": 0, "unparsed": 0,
+                                                       "kl": 0.0})
     previous_objective: float | None = None
     finished: list = field(default_factory=list)   # per finished restart: scores, grammar file
     metrics_bytes: int = 0
@@ -234,6 +237,9 @@ class Trainer:
         if m.parameterization == "neural":
             return NeuralParams(m.nonterminals, m.preterminals, v, m.embedding_dim,
                                 m.residual_blocks, gen, self.dtype)
+        if m.parameterization == "compound":
+            return CompoundParams(m.nonterminals, m.preterminals, v, m.latent_dim,
+                                  m.embedding_dim, m.residual_blocks, gen, self.dtype)
         if m.parameterization == "lowrank":
             return LowRankParams(m.nonterminals, m.preterminals, v, m.rank, m.embedding_dim,
                                  m.residual_blocks, gen, self.dtype)
@@ -327,7 +333,18 @@ class Trainer:
                                    cost=self.sentence_bytes):
             group = [fits[k] for k in part]
             batch = make_batch(group, data.dev_ids, None, self.dtype)
-            if data.dev_trees is None:
+            if isinstance(self.model, CompoundParams):
+                # Each sentence's grammar at the mean of q(z | x); the score is the ELBO with
+                # z at that mean (the KL term of the sample-free bound).
+                with torch.no_grad():
+                    crules = self.model.sentence_rules(batch.ids, batch.lengths)
+                logz, marginals = compound_span_posteriors(crules, batch.ids, batch.lengths)
+                logz = logz - crules.kl
+                if data.dev_trees is not None:
+                    for b, i in enumerate(group):
+                        spans = mbr_spans(marginals[b], len(data.dev_ids[i]))
+                        predicted[i] = spans_to_tree(data.dev_words[i], spans)
+            elif data.dev_trees is None:
                 logz = sentence_logliks(rules, batch)
             else:
                 logz, marginals = span_posteriors(rules, terminal_scores(rules.lexical,
@@ -465,23 +482,38 @@ class Trainer:
                        ) -> tuple[dict[str, float], dict[str, float]]:
         o = self.cfg.optimizer
         mine = self.world.shard_batch(group, self.data.train_ids)
-        rules = self.model.rules()
+        compound = isinstance(self.model, CompoundParams)
+        rules = None if compound else self.model.rules()
+        kl = None
         if mine:
             batch = self._batch(mine)
-            logz = log_partition_of(rules, terminal_scores(rules.lexical, batch.ids),
-                                    batch.lengths, span_pot=batch.span_pot)  # (B,)
+            if compound:
+                # One reparameterized sample per sentence, drawn from a generator seeded by the
+                # step, so that a resumed run draws the same samples.
+                gen = torch.Generator().manual_seed(
+                    (self.cfg.train.seed + 1) * 1_000_003 + position.step)
+                crules = self.model.sentence_rules(batch.ids, batch.lengths, gen)
+                logz = compound_log_partition(crules, batch.ids, batch.lengths, batch.span_pot)
+                kl = crules.kl
+            else:
+                logz = log_partition_of(rules, terminal_scores(rules.lexical, batch.ids),
+                                        batch.lengths, span_pot=batch.span_pot)  # (B,)
         else:
             batch = None
-            logz = rules.root.new_zeros(0)   # a worker dealt nothing still joins the all-reduce
+            # A worker dealt nothing still joins the all-reduce.
+            logz = next(self.model.parameters()).new_zeros(0)
         if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
             raise DivergedError("the log-likelihood of a batch is NaN or infinite")
         parsed = torch.isfinite(logz)
         # The loss is divided by the words of the whole minibatch over all workers.
-        loglik, words, sentences, unparsed = self.world.sum_values(
+        kl_sum = kl[parsed].sum() if kl is not None else logz.new_zeros(())
+        loglik, words, sentences, unparsed, kl_total = self.world.sum_values(
             [float(logz[parsed].sum().detach()), 0 if batch is None else
-             int(batch.lengths[parsed].sum()), int(parsed.sum()), int((~parsed).sum())])
+             int(batch.lengths[parsed].sum()), int(parsed.sum()), int((~parsed).sum()),
+             float(kl_sum.detach())])
         words = int(words)
-        loss = -logz[parsed].sum() / max(words, 1)
+        # Compound: the negative ELBO, log p(x | z) - KL(q || prior), per word.
+        loss = -(logz[parsed].sum() - kl_sum) / max(words, 1)
         self.optimizer.zero_grad()
         if batch is not None:
             loss.backward()
@@ -501,7 +533,7 @@ class Trainer:
             group_["lr"] = lr
         self.optimizer.step()
         self._check_finite()
-        tally = _tally(loglik, words, int(sentences), int(unparsed))
+        tally = _tally(loglik, words, int(sentences), int(unparsed), kl_total)
         return tally, {"lr": lr, "grad_norm": norm}
 
     def _check_finite(self) -> None:
@@ -516,9 +548,15 @@ class Trainer:
         and gradient training it is summed over the minibatches as the grammar moved."""
         words = sums["words"]
         per_word = sums["loglik"] / words if words else float("nan")
-        return {"train/loglik_per_word": per_word,
-                "train/perplexity": math.exp(-per_word) if words else float("nan"),
-                "train/sentences": sums["sentences"], "train/unparsed": sums["unparsed"]}
+        out = {"train/loglik_per_word": per_word,
+               "train/perplexity": math.exp(-per_word) if words else float("nan"),
+               "train/sentences": sums["sentences"], "train/unparsed": sums["unparsed"]}
+        if sums.get("kl") and words:
+            # Compound: train/loglik_per_word is log p(x | z) at the sampled z; the ELBO
+            # subtracts the KL term.
+            out["train/kl_per_word"] = sums["kl"] / words
+            out["train/elbo_per_word"] = (sums["loglik"] - sums["kl"]) / words
+        return out
 
     # ---- the run ----------------------------------------------------------------------------
 
@@ -684,7 +722,7 @@ class Trainer:
                 tally, extra = self._guard(
                     lambda: self._gradient_step(group, position, total_steps), position)
             for key, value in tally.items():
-                sums[key] += value
+                sums[key] = sums.get(key, 0) + value
             position.step += 1
             position.restart_step += 1
             position.batch = k + 1
@@ -773,8 +811,9 @@ def _dense(rules: RuleTensors | LowRankRules) -> RuleTensors:
     return rules.dense() if isinstance(rules, LowRankRules) else rules
 
 
-def _tally(loglik: float, words: int, sentences: int, unparsed: int) -> dict:
-    return {"loglik": loglik, "words": words, "sentences": sentences, "unparsed": unparsed}
+def _tally(loglik: float, words: int, sentences: int, unparsed: int, kl: float = 0.0) -> dict:
+    return {"loglik": loglik, "words": words, "sentences": sentences, "unparsed": unparsed,
+            "kl": kl}
 
 
 class _Loggers:

@@ -1,0 +1,137 @@
+"""The compound PCFG of Kim, Dyer & Rush (2019), "Compound Probabilistic Context-Free Grammars
+for Grammar Induction" (section 3).
+
+Each sentence has a latent vector z ~ N(0, I). The rule distributions are those of the neural
+PCFG (`params.neural`) with z appended to every network's input, so the grammar varies from
+sentence to sentence while the symbols' embeddings are shared. Training maximizes the evidence
+lower bound
+
+    ELBO(x) = E_q(z|x)[log p(x | z)] - KL(q(z|x) || N(0, I)),
+
+with q a diagonal Gaussian from an inference network (a bidirectional LSTM over the word
+embeddings, pooled over positions) and one reparameterized sample per sentence (amortized
+variational inference). log p(x | z) is the inside pass over that sentence's own rules.
+
+Decoding and dev scores use z = the posterior mean of q; the grammar written to a file is the
+one at z = 0, the prior's mean (a plain PCFG, exportable like any other).
+
+The paper's networks are larger (latent 64, word embeddings and LSTM 512; from memory) and
+pool by max; here the sizes follow `embedding_dim`, and pooling is the mean over the words.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import torch
+from torch import Tensor, nn
+
+from treewright.grammar import Grammar
+from treewright.params.neural import mlp
+from treewright.params.tabular import RuleTensors, rules_to_grammar
+from treewright.vocab import Vocabulary
+
+
+class CompoundRules(NamedTuple):
+    """Per-sentence rule log-probabilities, with each sentence's KL term."""
+    root: Tensor     # (B, NT)
+    binary: Tensor   # (B, NT, S, S)
+    lexical: Tensor  # (B, T, V)
+    kl: Tensor       # (B,) KL(q(z|x) || N(0, I)) in nats
+
+    def sentence(self, b: int) -> RuleTensors:
+        return RuleTensors(self.root[b], self.binary[b], self.lexical[b])
+
+
+def gaussian_kl(mean: Tensor, logvar: Tensor) -> Tensor:
+    """KL(N(mean, diag exp(logvar)) || N(0, I)) per row, summed over the last axis."""
+    return 0.5 * (mean.pow(2) + logvar.exp() - 1.0 - logvar).sum(-1)
+
+
+class CompoundParams(nn.Module):
+    """Neural PCFG whose networks also read a per-sentence latent vector.
+
+    nonterminals, preterminals, vocab_size: NT, T, V.
+    latent_dim: size of z (the paper: 64).
+    dim, blocks: embedding/hidden size and residual blocks, as in `NeuralParams`.
+    """
+
+    def __init__(self, nonterminals: int, preterminals: int, vocab_size: int,
+                 latent_dim: int = 64, dim: int = 256, blocks: int = 2,
+                 generator: torch.Generator | None = None, dtype: torch.dtype = torch.float32):
+        super().__init__()
+        s = nonterminals + preterminals
+        self.nonterminals, self.preterminals, self.vocab_size = nonterminals, preterminals, \
+            vocab_size
+        self.latent_dim = latent_dim
+        self.start_embedding = nn.Parameter(torch.empty(1, dim))
+        self.nonterminal_embeddings = nn.Parameter(torch.empty(nonterminals, dim))
+        self.preterminal_embeddings = nn.Parameter(torch.empty(preterminals, dim))
+        self.root_net = mlp(dim + latent_dim, blocks, nonterminals, hidden=dim)
+        self.binary_net = nn.Linear(dim + latent_dim, s * s)
+        self.lexical_net = mlp(dim + latent_dim, blocks, vocab_size, hidden=dim)
+        # The inference network q(z | x).
+        self.word_embeddings = nn.Embedding(vocab_size, dim)
+        self.encoder = nn.LSTM(dim, dim, batch_first=True, bidirectional=True)
+        self.posterior = nn.Linear(2 * dim, 2 * latent_dim)
+        self.to(dtype)
+        self._initialise(generator)
+
+    @torch.no_grad()
+    def _initialise(self, generator: torch.Generator | None) -> None:
+        # Xavier-uniform for matrices, zeros for biases, drawn in a fixed order (as NeuralParams).
+        for _, p in self.named_parameters():
+            if p.dim() >= 2:
+                bound = (6.0 / (p.shape[0] + p.shape[1])) ** 0.5
+                p.copy_((torch.rand(p.shape, generator=generator, dtype=torch.float64) * 2 - 1)
+                        * bound)
+            else:
+                p.zero_()
+
+    @property
+    def sizes(self) -> tuple[int, int, int]:
+        return self.nonterminals, self.preterminals, self.vocab_size
+
+    def encode(self, ids: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
+        """Mean and log-variance (B, latent) of q(z | x) for word ids (B, N)."""
+        hidden, _ = self.encoder(self.word_embeddings(ids))              # (B, N, 2d)
+        mask = (torch.arange(ids.shape[1])[None, :] < lengths[:, None]).to(hidden.dtype)
+        pooled = (hidden * mask[..., None]).sum(1) / lengths[:, None].to(hidden.dtype)
+        mean, logvar = self.posterior(pooled).chunk(2, -1)
+        return mean, logvar
+
+    def rules_at(self, z: Tensor) -> tuple[Tensor, Tensor, Tensor]:
+        """Root (B, NT), binary (B, NT, S, S) and lexical (B, T, V) log-probabilities at z."""
+        B, nt, t = z.shape[0], self.nonterminals, self.preterminals
+        s = nt + t
+
+        def with_z(emb: Tensor) -> Tensor:                             # (K, d) -> (B, K, d+z)
+            return torch.cat([emb.expand(B, -1, -1), z[:, None, :].expand(-1, emb.shape[0], -1)],
+                             -1)
+
+        root = torch.log_softmax(self.root_net(with_z(self.start_embedding))[:, 0], -1)
+        binary = torch.log_softmax(self.binary_net(with_z(self.nonterminal_embeddings)), -1)
+        lexical = torch.log_softmax(self.lexical_net(with_z(self.preterminal_embeddings)), -1)
+        return root, binary.view(B, nt, s, s), lexical
+
+    def sentence_rules(self, ids: Tensor, lengths: Tensor,
+                       generator: torch.Generator | None = None) -> CompoundRules:
+        """Rules for each sentence at one reparameterized sample z ~ q(z | x); with no
+        generator, at the posterior mean (for decoding and dev scores)."""
+        mean, logvar = self.encode(ids, lengths)
+        if generator is None:
+            z = mean
+        else:
+            noise = torch.randn(mean.shape, generator=generator, dtype=torch.float64)
+            z = mean + (0.5 * logvar).exp() * noise.to(mean.dtype)
+        return CompoundRules(*self.rules_at(z), gaussian_kl(mean, logvar))
+
+    def rules(self) -> RuleTensors:
+        """The grammar at z = 0, the prior's mean."""
+        root, binary, lexical = self.rules_at(self.start_embedding.new_zeros(1, self.latent_dim))
+        return RuleTensors(root[0], binary[0], lexical[0])
+
+    def to_grammar(self, nonterminals: list[str], preterminals: list[str], vocab: Vocabulary,
+                   start: str = "ROOT") -> Grammar:
+        with torch.no_grad():
+            return rules_to_grammar(self.rules(), nonterminals, preterminals, vocab, start)
