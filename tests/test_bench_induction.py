@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import importlib.util
 import json
+import math
 import sys
 import sysconfig
 from pathlib import Path
@@ -187,7 +188,17 @@ def test_smoke_run_of_the_lowrank_row(tmp_path):
     e = result["summary"]["lowrank"]["demo-test"]
     assert 0.0 <= e["sentence_f1"][0] <= 100.0
     assert "| lowrank |" in saved["tables"]["demo-test"]
-    assert "lowrank | not run" not in saved["tables"]["demo-test"]
+    assert "not run" not in saved["tables"]["demo-test"]
+
+
+def test_smoke_run_of_the_compound_row(tmp_path):
+    result = bench.main(["--smoke", "--methods", "compound", "--override", "model.latent_dim=4",
+                         "--override", "model.embedding_dim=16", "--out", str(tmp_path)])
+    e = result["summary"]["compound"]["demo-test"]
+    assert 0.0 <= e["sentence_f1"][0] <= 100.0
+    run = result["runs"][0]["scores"]["demo-test"]
+    # Every scored sentence is parsed: the demo's unknown-word token covers unseen words.
+    assert run["unparsed"] == 0 and math.isfinite(run["perplexity"])
 
 
 def test_fast_scoring_matches_library_decode():
