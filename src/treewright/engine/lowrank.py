@@ -101,8 +101,15 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     scale_start[0:N, :, 1] = word_scale.t()
     scale_end[1:N + 1, :, N - 1] = word_scale.t()
 
-    cells_by_width, rank_sums_by_width, weights, peaks = [None, None], [None, None], [None, None], \
-        [None, None]
+    # Every width's cells and rank sums in one buffer each, rows [offset[w], offset[w+1]) for
+    # width w, so that the backward takes the factor gradients in one product per factor.
+    offsets = [0, 0, 0]
+    for width in range(2, N + 1):
+        offsets.append(offsets[-1] + (N - width + 1) * B)
+    cells_all = terminal.new_empty(offsets[-1], NT)
+    rank_sums_all = terminal.new_empty(offsets[-1], R)
+    vw = torch.cat([V[:NT], W[:NT]], 1)            # (NT, 2R): both roles in one product
+    weights, peaks = [None, None], [None, None]
     top_cells = terminal.new_zeros(N + 1, B, NT)   # cell (0, width), for the root
     top_scales = terminal.new_full((N + 1, B), NEG_INF)
     if nts is not None:
@@ -115,21 +122,23 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
         weight = (pair - top.unsqueeze(-1)).exp_()                    # (P, B, K)
         K = width - 1
         pairs = left_proj[0:P, :, 1:width] * right_proj[width:N + 1, :, N - width + 1:N]
-        rank_sums = torch.bmm(weight.view(P * B, 1, K), pairs.view(P * B, K, R)).view(P, B, R)
+        rows = slice(offsets[width], offsets[width + 1])
+        rank_sums = torch.bmm(weight.view(P * B, 1, K), pairs.view(P * B, K, R),
+                              out=rank_sums_all[rows].view(P * B, 1, R)).view(P, B, R)
         total = rank_sums @ U.t()                                     # (P, B, NT)
         peak = total.amax(-1)
-        cells = (total / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)     # a dead span stays 0
+        cells = torch.div(total, peak.unsqueeze(-1), out=cells_all[rows].view(P, B, NT))
+        cells.nan_to_num_(nan=0.0)                                    # a dead span stays 0
         scale = top + peak.log()                                      # log 0 = -inf: dead
         if span_pot is not None:
             scale = scale + span_pot[:, 0:P, width].t()
-        left_proj[0:P, :, width] = cells @ V[:NT]
-        right_proj[width:N + 1, :, N - width] = cells @ W[:NT]
+        proj = cells @ vw                                             # (P, B, 2R)
+        left_proj[0:P, :, width] = proj[..., :R]
+        right_proj[width:N + 1, :, N - width] = proj[..., R:]
         scale_start[0:P, :, width] = scale
         scale_end[width:N + 1, :, N - width] = scale
         top_cells[width] = cells[0]
         top_scales[width] = scale[0]
-        cells_by_width.append(cells)
-        rank_sums_by_width.append(rank_sums)
         weights.append(weight)
         peaks.append(peak)
     idx = torch.arange(B)
@@ -139,8 +148,9 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     ok = (total > 0) & torch.isfinite(top_scale)
     logz = torch.where(ok, total.log() + top_scale, torch.full_like(total, NEG_INF))
     return {"logz": logz, "U": U, "V": V, "W": W, "words": words, "nts": nts,
-            "left_proj": left_proj, "right_proj": right_proj, "cells": cells_by_width,
-            "rank_sums": rank_sums_by_width, "weights": weights, "peaks": peaks,
+            "left_proj": left_proj, "right_proj": right_proj, "cells": cells_all,
+            "rank_sums": rank_sums_all, "offsets": offsets, "vw": vw, "weights": weights,
+            "peaks": peaks,
             "pi": pi, "tops": tops, "total": total, "ok": ok, "lengths": lengths}
 
 
@@ -160,26 +170,34 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
     grad_U, grad_V, grad_W = torch.zeros_like(U), torch.zeros_like(V), torch.zeros_like(W)
     grad_pot = words.new_zeros(B, N + 1, N + 1) if has_pot else None
     left_proj, right_proj = st["left_proj"], st["right_proj"]
+    offsets, vw = st["offsets"], st["vw"]
+    # Per-width adjoints of the projections (left role, right role) and of the raw sums, in
+    # the row layout of the forward's buffers; the factor gradients are one product each.
+    adj_proj_all = words.new_empty(offsets[-1], 2 * R)
+    g_all = words.new_empty(offsets[-1], NT)
     for width in range(N, 1, -1):
         P = N - width + 1
-        cells, rank_sums = st["cells"][width], st["rank_sums"][width]
+        rows = slice(offsets[width], offsets[width + 1])
+        cells = st["cells"][rows].view(P, B, NT)
         weight, peak = st["weights"][width], st["peaks"][width]
-        a_l = adj_left[0:P, :, width]                                 # (P, B, R)
-        a_r = adj_right[width:N + 1, :, N - width]
-        adj = a_l @ V[:NT].t() + a_r @ W[:NT].t()                     # (P, B, NT)
+        a_lr = adj_proj_all[rows].view(P, B, 2 * R)
+        a_lr[..., :R] = adj_left[0:P, :, width]
+        a_lr[..., R:] = adj_right[width:N + 1, :, N - width]
+        adj = a_lr @ vw.t()                                           # (P, B, NT)
         adj[0] += adj_top[width]
-        grad_V[:NT] += cells.reshape(-1, NT).t() @ a_l.reshape(-1, R)
-        grad_W[:NT] += cells.reshape(-1, NT).t() @ a_r.reshape(-1, R)
         if grad_pot is not None:
             grad_pot[:, 0:P, width] = (adj * cells).sum(-1).t()
-        g = (adj / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)           # d/d raw sum
-        grad_U += g.view(-1, NT).t() @ rank_sums.view(-1, R)
-        g_rank = (g @ U).unsqueeze(2)                                 # (P, B, 1, R)
-        w_k = weight.unsqueeze(-1)                                    # (P, B, K, 1)
-        rights = right_proj[width:N + 1, :, N - width + 1:N]
-        adj_left[0:P, :, 1:width].addcmul_(g_rank * rights, w_k)
-        adj_right[width:N + 1, :, N - width + 1:N].addcmul_(
-            g_rank * left_proj[0:P, :, 1:width], w_k)
+        g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
+        g.nan_to_num_(nan=0.0)                                        # d/d raw sum
+        # One (P, B, K, R) temporary serves both children: weight x rank adjoint.
+        g_split = (g @ U).unsqueeze(2) * weight.unsqueeze(-1)         # (P, B, K, R)
+        adj_left[0:P, :, 1:width].addcmul_(g_split, right_proj[width:N + 1, :, N - width + 1:N])
+        adj_right[width:N + 1, :, N - width + 1:N].addcmul_(g_split, left_proj[0:P, :, 1:width])
+    if offsets[-1]:
+        grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
+        grad_V[:NT] += grad_vw[:, :R]
+        grad_W[:NT] += grad_vw[:, R:]
+        grad_U += g_all.t() @ st["rank_sums"]
     # Width one.
     a_l = adj_left[0:N, :, 1].reshape(N * B, R)
     a_r = adj_right[1:N + 1, :, N - 1].reshape(N * B, R)
