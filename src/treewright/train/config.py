@@ -93,8 +93,9 @@ class MethodConfig:
         None, "Memory for one inside-outside call (chart and gradient, estimated by "
               "treewright.engine.memory): batches are cut to fit, and a sentence that alone "
               "needs more is set aside and reported. null: no budget.", range="(0, inf)")
-    seed: int = option(0, "Seeds the initialisation and the data order of restart 0; restart "
-                          "r uses seed + r.", range="[0, inf)")
+    seed: int = option(0, "Seeds the initialisation and the data order; every (seed, "
+                          "restart) pair has its own random stream, so runs with different "
+                          "seeds share no restart.", range="[0, inf)")
     restarts: int = option(1, "Independent random starts; the one with the best dev "
                               "likelihood (training likelihood without a dev set) is kept.",
                            range="[1, inf)")

@@ -228,7 +228,7 @@ class Trainer:
 
     def _new_model(self, restart: int) -> torch.nn.Module:
         m = self.cfg.model
-        gen = torch.Generator().manual_seed(self.cfg.train.seed + restart)
+        gen = torch.Generator().manual_seed(restart_seed(self.cfg.train.seed, restart))
         v = len(self.data.vocab)
         if self.warm is not None:
             model = tabular_from_grammar(self.warm, self.data.vocab, m.warm_start_mix,
@@ -260,7 +260,7 @@ class Trainer:
         cap = self.length_cap(epoch)
         ids = self.data.train_ids
         shuffle = self.cfg.train.shuffle and self.cfg.train.method not in EM_FAMILY
-        seed = (self.cfg.train.seed + restart) * 100_003 + epoch
+        seed = restart_seed(self.cfg.train.seed, restart) * 100_003 + epoch
         if isinstance(ids, StreamedCorpus):
             return ids.epoch_plan(cap, self.cfg.train.batch_size, shuffle, seed)
         keep = [i for i in range(len(ids)) if (cap is None or len(ids[i]) <= cap)
@@ -491,7 +491,7 @@ class Trainer:
                 # One reparameterized sample per sentence, drawn from a generator seeded by the
                 # step, so that a resumed run draws the same samples.
                 gen = torch.Generator().manual_seed(
-                    (self.cfg.train.seed + 1) * 1_000_003 + position.step)
+                    restart_seed(self.cfg.train.seed, 0) * 7_919 + 1 + position.step)
                 crules = self.model.sentence_rules(batch.ids, batch.lengths, gen)
                 logz = compound_log_partition(crules, batch.ids, batch.lengths, batch.span_pot)
                 kl = crules.kl
@@ -804,6 +804,13 @@ class Trainer:
         atomic_write_text(self.run_dir / "result.json", json.dumps(result, indent=2) + "\n")
         self._note(f"kept restart {best['restart']}; grammar written to "
                    f"{self.run_dir / 'grammar.pcfg'}")
+
+
+def restart_seed(seed: int, restart: int) -> int:
+    """The random stream of one restart of one run seed. Distinct for every (seed, restart), so
+    that runs with neighbouring seeds never share a start (seed + restart would: seed 0's
+    restart 1 would be seed 1's restart 0)."""
+    return seed * 1_000_003 + restart
 
 
 def _dense(rules: RuleTensors | LowRankRules) -> RuleTensors:
