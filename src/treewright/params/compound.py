@@ -27,7 +27,7 @@ import torch
 from torch import Tensor, nn
 
 from treewright.grammar import Grammar
-from treewright.params.neural import mlp
+from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
 from treewright.vocab import Vocabulary
 
@@ -48,7 +48,7 @@ def gaussian_kl(mean: Tensor, logvar: Tensor) -> Tensor:
     return 0.5 * (mean.pow(2) + logvar.exp() - 1.0 - logvar).sum(-1)
 
 
-class CompoundParams(nn.Module):
+class CompoundParams(EmbeddingParams):
     """Neural PCFG whose networks also read a per-sentence latent vector.
 
     nonterminals, preterminals, vocab_size: NT, T, V.
@@ -76,21 +76,6 @@ class CompoundParams(nn.Module):
         self.posterior = nn.Linear(2 * dim, 2 * latent_dim)
         self.to(dtype)
         self._initialise(generator)
-
-    @torch.no_grad()
-    def _initialise(self, generator: torch.Generator | None) -> None:
-        # Xavier-uniform for matrices, zeros for biases, drawn in a fixed order (as NeuralParams).
-        for _, p in self.named_parameters():
-            if p.dim() >= 2:
-                bound = (6.0 / (p.shape[0] + p.shape[1])) ** 0.5
-                p.copy_((torch.rand(p.shape, generator=generator, dtype=torch.float64) * 2 - 1)
-                        * bound)
-            else:
-                p.zero_()
-
-    @property
-    def sizes(self) -> tuple[int, int, int]:
-        return self.nonterminals, self.preterminals, self.vocab_size
 
     def encode(self, ids: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
         """Mean and log-variance (B, latent) of q(z | x) for word ids (B, N)."""

@@ -24,7 +24,7 @@ import torch
 from torch import Tensor, nn
 
 from treewright.grammar import Grammar
-from treewright.params.neural import mlp
+from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
 from treewright.vocab import Vocabulary
 
@@ -68,7 +68,7 @@ def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
     return out + cu[:, :, None]
 
 
-class LowRankParams(nn.Module):
+class LowRankParams(EmbeddingParams):
     """Neural low-rank PCFG: U, V, W, root and words from embeddings.
 
     nonterminals, preterminals, vocab_size: NT, T, V.
@@ -96,21 +96,6 @@ class LowRankParams(nn.Module):
         self.lexical_net = mlp(dim, blocks, vocab_size)
         self.to(dtype)
         self._initialise(generator)
-
-    @torch.no_grad()
-    def _initialise(self, generator: torch.Generator | None) -> None:
-        # Xavier-uniform for matrices, zeros for biases, drawn in a fixed order (as NeuralParams).
-        for _, p in self.named_parameters():
-            if p.dim() >= 2:
-                bound = (6.0 / (p.shape[0] + p.shape[1])) ** 0.5
-                p.copy_((torch.rand(p.shape, generator=generator, dtype=torch.float64) * 2 - 1)
-                        * bound)
-            else:
-                p.zero_()
-
-    @property
-    def sizes(self) -> tuple[int, int, int]:
-        return self.nonterminals, self.preterminals, self.vocab_size
 
     def rules(self) -> LowRankRules:
         nt = self.nonterminals

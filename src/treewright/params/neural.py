@@ -38,7 +38,33 @@ def mlp(dim: int, blocks: int, out: int, hidden: int | None = None) -> nn.Sequen
                          nn.Linear(hidden, out))
 
 
-class NeuralParams(nn.Module):
+class EmbeddingParams(nn.Module):
+    """What the embedding-based parameterizations share: their sizes and their initialisation.
+    Subclasses set `nonterminals`, `preterminals` and `vocab_size`."""
+
+    nonterminals: int
+    preterminals: int
+    vocab_size: int
+
+    @torch.no_grad()
+    def _initialise(self, generator: torch.Generator | None) -> None:
+        # Xavier-uniform for matrices, zeros for biases (as in the paper's released setup, from
+        # memory); drawn in a fixed order from `generator`.
+        for _, p in self.named_parameters():
+            if p.dim() >= 2:
+                fan_in, fan_out = p.shape[1], p.shape[0]
+                bound = (6.0 / (fan_in + fan_out)) ** 0.5
+                p.copy_((torch.rand(p.shape, generator=generator, dtype=torch.float64) * 2 - 1)
+                        * bound)
+            else:
+                p.zero_()
+
+    @property
+    def sizes(self) -> tuple[int, int, int]:
+        return self.nonterminals, self.preterminals, self.vocab_size
+
+
+class NeuralParams(EmbeddingParams):
     """Rule distributions computed from symbol embeddings.
 
     nonterminals, preterminals, vocab_size: NT (default in configs 30), T (60), V.
@@ -63,23 +89,6 @@ class NeuralParams(nn.Module):
         self.lexical_net = mlp(dim, blocks, vocab_size)
         self.to(dtype)
         self._initialise(generator)
-
-    @torch.no_grad()
-    def _initialise(self, generator: torch.Generator | None) -> None:
-        # Xavier-uniform for matrices, zeros for biases (as in the paper's released setup, from
-        # memory); drawn in a fixed order from `generator`.
-        for name, p in self.named_parameters():
-            if p.dim() >= 2:
-                fan_in, fan_out = p.shape[1], p.shape[0]
-                bound = (6.0 / (fan_in + fan_out)) ** 0.5
-                p.copy_((torch.rand(p.shape, generator=generator, dtype=torch.float64) * 2 - 1)
-                        * bound)
-            else:
-                p.zero_()
-
-    @property
-    def sizes(self) -> tuple[int, int, int]:
-        return self.nonterminals, self.preterminals, self.vocab_size
 
     def rules(self) -> RuleTensors:
         nt = self.nonterminals
