@@ -58,9 +58,8 @@ from treewright.train.distributed import LocalWorld, StreamedCorpus, plan_senten
 from treewright.train.estep import (Batch, DivergedError, ExpectedCounts, add_counts,
                                     batch_counts, compound_log_partition,
                                     compound_span_posteriors, edge_bias, log_partition_of,
-                                    make_batch,
-                                    sentence_logliks, span_posteriors, terminal_scores,
-                                    zero_counts)
+                                    make_batch, sentence_logliks, span_posteriors,
+                                    terminal_scores, zero_counts)
 from treewright.train.metrics import rule_entropies, unigram_logprobs
 from treewright.train.schedule import learning_rate
 
