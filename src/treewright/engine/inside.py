@@ -15,18 +15,21 @@ throughput of a small CPU; `scripts/bench_inside.py` measures it):
   the gradient, which is exact because they cancel in log Z. The nonterminal and preterminal
   vectors of one word share one scale, so every split point of a span (whatever the kind of its
   children) has its weight read from one strided slice of the scale tables.
-- Two copies of the chart, `by_start[i, b, w]` = cell (i, i+w) and `by_end[j, b, N-w]` = cell
-  (j-w, j), make every read for one span width a strided slice: for width w the left children of
-  all spans are `by_start[0:P, :, u]` and the right children `by_end[w:N+1, :, N-w+u]`. Putting
-  the span dimension first lets span x batch merge into one batch dimension without a copy.
+- One chart, `by_start[i, b, w]` = cell (i, i+w), serves every read for one span width as a
+  strided view without a copy: the left children of all spans are the slice
+  `by_start[0:P, :, u]`, and the right children, cells (i+u, i+w), sit at offsets linear in both
+  i and u (see `right_children`). Putting the span dimension first lets span x batch merge into
+  one batch dimension without a copy.
 - Children are split into blocks by kind. Nonterminal pairs go through one batched matrix product
   over split points and one product with the rules reshaped to (NT*NT, NT). A preterminal child
   occurs only at a sentence edge of the span (its width is one), so its rules are folded into
   per-position matrices once per batch, and each span needs one row-vector product per edge.
 - The nonterminal axis is padded with zero symbols to a multiple of 8 (30 -> 32): the matrix
   kernels of the CPU run markedly faster on such sizes, and the zero rows change no sum.
-- The backward keeps what the forward computed (split sums, split weights, cell maxima) and
-  gathers the per-position rule gradients into two buffers, folded by one product at the end.
+- The backward keeps the split weights, the weighted left children and the cell maxima, and
+  recomputes each chunk's split sums while they are in cache (on this machine's 2 MiB L2 that is
+  faster than reading them back from memory). It gathers the per-position rule gradients into
+  two buffers, folded by one product at the end.
 
 Shapes: B sentences, N = longest length, NT nonterminals, T preterminals, P = N - w + 1 spans,
 Q = NT padded.
@@ -48,13 +51,11 @@ CHUNK_BYTES = 2 ** 20  # split sums processed per chunk of spans (about one core
 class Chart:
     """The filled inside chart of one batch (scaled probabilities and their log scales).
 
-    The nonterminal axis of `by_start`/`by_end` is padded to Q >= NT with zero symbols; use
+    The nonterminal axis of `by_start` is padded to Q >= NT with zero symbols; use
     `log_inside` (which drops the padding) rather than reading the tensors directly.
     """
     by_start: Tensor    # (N+1, B, N+1, Q)  cell (i, i+w) at [i, :, w]
-    by_end: Tensor      # (N+1, B, N+1, Q)  cell (j-w, j) at [j, :, N-w]
     scale_start: Tensor  # (N+1, B, N+1)
-    scale_end: Tensor    # (N+1, B, N+1)
     term: Tensor        # (N, B, T) scaled preterminal probabilities
     term_scale: Tensor  # (N, B) log scale of each word (shared by its width-one cells)
     min_width: int      # narrowest nonterminal span: 1 if nonterminals emit words, else 2
@@ -103,7 +104,6 @@ def _rule_blocks(binary: Tensor, q: int) -> _Rules:
 @dataclass
 class _Saved:
     """What the forward keeps for the backward, per width w (index w - 2)."""
-    split_sums: list   # (P*B, Q*Q) weighted sums over nonterminal splits, or None
     left_children: list  # (P*B, K, Q) weighted left children of those splits, or None
     weights: list      # (P, B, w-1) weight of split u (at u-1) relative to the span's top
     peaks: list        # (P*B,) the maximum each cell was divided by
@@ -138,34 +138,29 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
     pair_mats = (flat[B:] @ rules.pair).view(N - 1, B, T, Q)
 
     by_start = terminal.new_zeros(N + 1, B, N + 1, Q)
-    by_end = terminal.new_zeros(N + 1, B, N + 1, Q)
     scale_start = terminal.new_full((N + 1, B, N + 1), NEG_INF)
-    scale_end = terminal.new_full((N + 1, B, N + 1), NEG_INF)
     scale_start[0:N, :, 1] = term_scale
-    scale_end[1:N + 1, :, N - 1] = term_scale
     if nt_terminal is not None:
-        cells = (nt_terminal - shift).exp_().transpose(0, 1)         # (N, B, NT)
-        by_start[0:N, :, 1, :NT] = cells
-        by_end[1:N + 1, :, N - 1, :NT] = cells
+        by_start[0:N, :, 1, :NT] = (nt_terminal - shift).exp_().transpose(0, 1)
 
-    saved = _Saved([], [], [], [], right_mats, left_mats, pair_mats) if keep else None
+    saved = _Saved([], [], [], right_mats, left_mats, pair_mats) if keep else None
     for w in range(2, N + 1):
         P = N - w + 1
         PB = P * B
         # Split u puts cell (i, i+u) left of cell (i+u, i+w); its weight is the product of the
         # two children's scales relative to the largest product over the span's splits.
-        pair = scale_start[0:P, :, 1:w] + scale_end[w:N + 1, :, N - w + 1:N]   # (P, B, w-1)
+        pair = scale_start[0:P, :, 1:w] + right_children(scale_start, w, 1, w - 1)  # (P, B, w-1)
         top = pair.amax(-1).nan_to_num_(neginf=0.0)                           # (P, B)
         weight = (pair - top.unsqueeze(-1)).exp_()
         total = None
-        split_sums = left = None
+        left = None
         lo, hi = min_w, w - min_w  # left widths whose both children are nonterminals
         if hi >= lo:
             K = hi - lo + 1
             left = (by_start[0:P, :, lo:hi + 1] * weight[..., lo - 1:hi, None]
                     ).view(PB, K, Q)
-            right = by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]              # (P, B, K, Q)
-            split_sums, total = _split_products(left, right.reshape(PB, K, Q), rules.nn, keep)
+            right = right_children(by_start, w, lo, hi).view(PB, K, Q)
+            total = _split_products(left, right, rules.nn)
             total = total.view(PB, 1, Q)
         if w - 1 >= min_w:
             # A -> B c: left child (i, i+w-1), preterminal c over word i+w-1.
@@ -173,7 +168,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
             mats = right_mats[w - 1:N].view(PB, Q, Q)
             total = _add_rowvec(total, vec.view(PB, 1, Q), mats)
             # A -> b C: preterminal b over word i, right child (i+1, i+w).
-            vec = by_end[w:N + 1, :, N - w + 1] * weight[..., 0:1]
+            vec = by_start[1:P + 1, :, w - 1] * weight[..., 0:1]
             total = _add_rowvec(total, vec.view(PB, 1, Q), left_mats[0:P].view(PB, Q, Q))
         if w == 2:
             # A -> b c over words i and i+1.
@@ -189,16 +184,37 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
             scale = scale + span_pot[:, 0:P, w].t()
         cells = cells.view(P, B, Q)
         by_start[0:P, :, w] = cells
-        by_end[w:N + 1, :, N - w] = cells
         scale_start[0:P, :, w] = scale
-        scale_end[w:N + 1, :, N - w] = scale
         if keep:
-            saved.split_sums.append(split_sums)
             saved.left_children.append(left)
             saved.weights.append(weight)
             saved.peaks.append(peak)
-    chart = Chart(by_start, by_end, scale_start, scale_end, term_sc, term_scale, min_w, NT)
+    chart = Chart(by_start, scale_start, term_sc, term_scale, min_w, NT)
     return chart, saved, rules
+
+
+def right_children(chart: Tensor, w: int, u0: int, u1: int) -> Tensor:
+    """The right children of every span of width w, for splits u0..u1, as a strided view.
+
+    chart is laid out by start, (N+1, B, N+1, ...) with cell (i, i+v) at [i, :, v]. Split u of
+    span (i, i+w) has right child (i+u, i+w), stored at [i+u, :, w-u]: its offset is
+    i*s0 + w*s2 + u*(s0 - s2), linear in both i and u, so the result, (P, B, u1-u0+1, ...) with
+    [i, b, k] = cell (i+u0+k, i+w), needs no copy. Within one width these cells are distinct,
+    so the view may also be written to (the outside pass adds adjoints through it).
+    """
+    s = chart.stride()
+    size = (chart.shape[0] - w, chart.shape[1], u1 - u0 + 1) + tuple(chart.shape[3:])
+    stride = (s[0], s[1], s[0] - s[2]) + tuple(s[3:])
+    return chart.as_strided(size, stride, chart.storage_offset() + u0 * s[0] + (w - u0) * s[2])
+
+
+def _by_end(by_start: Tensor) -> Tensor:
+    """A copy of the chart laid out by end: [j, :, N-w] = cell (j-w, j), zeros elsewhere."""
+    N = by_start.shape[0] - 1
+    by_end = torch.zeros_like(by_start)
+    for w in range(1, N + 1):
+        by_end[w:N + 1, :, N - w] = by_start[0:N + 1 - w, :, w]
+    return by_end
 
 
 def _span_chunk(q: int) -> int:
@@ -206,22 +222,23 @@ def _span_chunk(q: int) -> int:
     return max(1, CHUNK_BYTES // (4 * q * q))
 
 
-def _split_products(left: Tensor, right: Tensor, nn: Tensor, keep: bool):
-    """Split sums left^T right per span (M, Q, Q) and their product with the rules (M, Q).
+def _split_products(left: Tensor, right: Tensor, nn: Tensor) -> Tensor:
+    """The product of the split sums left^T right of each span (Q, Q) with the rules: (M, Q).
 
     Done in chunks of spans, so that each chunk's split sums are multiplied by the rules while
-    they are still in cache; with `keep` the sums are written into one tensor for the backward.
+    they are still in cache. The backward recomputes them the same way rather than keeping
+    them: reading M * Q * Q stored numbers back from main memory is slower than one more small
+    batched product per chunk.
     """
     M, _, Q = left.shape
     chunk = _span_chunk(Q)
     total = left.new_empty(M, Q)
-    sums = left.new_empty(M, Q, Q) if keep else None
     lt = left.transpose(1, 2)
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
-        part = torch.bmm(lt[c0:c1], right[c0:c1], out=sums[c0:c1] if keep else None)
+        part = torch.bmm(lt[c0:c1], right[c0:c1])
         torch.mm(part.view(c1 - c0, Q * Q), nn, out=total[c0:c1])
-    return (sums.view(M, Q * Q) if keep else None), total
+    return total
 
 
 def _add_rowvec(total: Tensor | None, vec: Tensor, mats: Tensor) -> Tensor:
@@ -287,13 +304,12 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
                          torch.zeros_like(total))                       # (B,)
     grad_root = (pi * top * g_root[:, None])[:, :NT]                    # (B, NT) d/d log pi
     adj_start = torch.zeros_like(chart.by_start)
-    adj_end = torch.zeros_like(chart.by_end)
     adj_start[0, idx, lengths] = pi * g_root[:, None]
 
     grad_nn = torch.zeros_like(rules.nn)                                # (Q*Q, Q)
     # Weighted outer adjoints of the row-vector products, laid out like the chart cells they
     # multiply, so one batched product per kind folds them into per-position matrix gradients.
-    adj_np = torch.zeros_like(chart.by_end[0:N])    # [pos, b, N-w+1]: child (pos-w+1, pos)
+    adj_np = torch.zeros_like(chart.by_start[0:N])  # [pos, b, N-w+1]: child (pos-w+1, pos)
     adj_pn = torch.zeros_like(chart.by_start[1:N + 1])  # [pos, b, w-1]: child (pos+1, pos+w)
     grad_pair_mats = None
     adj_term = torch.zeros_like(chart.term)                             # (N, B, T)
@@ -302,21 +318,20 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     for w in range(N, 1, -1):
         P = N - w + 1
         PB = P * B
-        split_sums, weight, peak = saved.split_sums[w - 2], saved.weights[w - 2], saved.peaks[w - 2]
-        adj = adj_start[0:P, :, w] + adj_end[w:N + 1, :, N - w]         # (P, B, Q)
+        weight, peak = saved.weights[w - 2], saved.peaks[w - 2]
+        adj = adj_start[0:P, :, w]                                      # (P, B, Q)
         if grad_pot is not None:
             grad_pot[:, 0:P, w] = (adj * chart.by_start[0:P, :, w]).sum(-1).t()
         g = (adj.view(PB, Q) / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)  # d/d raw sum
         lo, hi = min_w, w - min_w
         if hi >= lo:
             K = hi - lo + 1
-            grad_nn.addmm_(split_sums.t(), g)
             w_k = weight[..., lo - 1:hi, None]                          # (P, B, K, 1)
-            right = chart.by_end[w:N + 1, :, N - w + lo:N - w + hi + 1]
-            g_left, g_right = _split_adjoints(g, rules.nn, right.reshape(PB, K, Q),
-                                              saved.left_children[w - 2])
+            right = right_children(chart.by_start, w, lo, hi)
+            g_left, g_right = _split_adjoints(g, rules.nn, right.view(PB, K, Q),
+                                              saved.left_children[w - 2], grad_nn)
             adj_start[0:P, :, lo:hi + 1].addcmul_(g_left.view(P, B, K, Q), w_k)
-            adj_end[w:N + 1, :, N - w + lo:N - w + hi + 1] += g_right.view(P, B, K, Q)
+            right_children(adj_start, w, lo, hi).add_(g_right.view(P, B, K, Q))
         if w - 1 >= min_w:
             g_np = (g.view(P, B, Q) * weight[..., w - 2:w - 1])
             mats = saved.right_mats[w - 1:N].view(PB, Q, Q)
@@ -325,7 +340,7 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
             adj_np[w - 1:N, :, N - w + 1] = g_np
             g_pn = (g.view(P, B, Q) * weight[..., 0:1])
             mats = saved.left_mats[0:P].view(PB, Q, Q)
-            adj_end[w:N + 1, :, N - w + 1] += torch.bmm(
+            adj_start[1:P + 1, :, w - 1] += torch.bmm(
                 g_pn.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, Q)
             adj_pn[0:P, :, w - 1] = g_pn
         if w == 2:
@@ -336,7 +351,7 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
 
     # Per-position matrix gradients: [pos, b][X, A] = sum over spans of child[X] * g[A].
     grad_right_mats = torch.bmm(
-        chart.by_end[0:N].view(N * B, N + 1, Q).transpose(1, 2),
+        _by_end(chart.by_start)[0:N].reshape(N * B, N + 1, Q).transpose(1, 2),
         adj_np.view(N * B, N + 1, Q))                                   # (N*B, Q, Q)
     grad_left_mats = torch.bmm(
         chart.by_start[1:N + 1].view(N * B, N + 1, Q).transpose(1, 2),
@@ -365,21 +380,28 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     grad_terminal = (adj_term * chart.term).transpose(0, 1)            # (B, N, T)
     grad_nt_terminal = None
     if nt_emits:
-        adj1 = adj_start[0:N, :, 1] + adj_end[1:N + 1, :, N - 1]
+        adj1 = adj_start[0:N, :, 1]
         grad_nt_terminal = (adj1 * chart.by_start[0:N, :, 1])[..., :NT].transpose(0, 1)
     return grad_root, grad_binary, grad_terminal, grad_nt_terminal, grad_pot
 
 
-def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor):
+def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, grad_nn: Tensor):
     """Adjoints of the left (M, K, Q) and right (M, K, Q) children of the split sums, given the
-    adjoint g (M, Q) of their product with the rules; in chunks of spans, as in the forward."""
+    adjoint g (M, Q) of their product with the rules; adds the rules' gradient to grad_nn.
+
+    In chunks of spans, as in the forward: each chunk's split sums are recomputed and used
+    while they are in cache.
+    """
     M, K, Q = right.shape
     chunk = _span_chunk(Q)
     g_left = right.new_empty(M, K, Q)
     g_right = right.new_empty(M, K, Q)
     nn_t = nn.t()
+    lt = left.transpose(1, 2)
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
+        sums = torch.bmm(lt[c0:c1], right[c0:c1]).view(c1 - c0, Q * Q)
+        grad_nn.addmm_(sums.t(), g[c0:c1])
         g_pairs = (g[c0:c1] @ nn_t).view(c1 - c0, Q, Q)                # d/d split sums
         torch.bmm(right[c0:c1], g_pairs.transpose(1, 2), out=g_left[c0:c1])
         torch.bmm(left[c0:c1], g_pairs, out=g_right[c0:c1])
