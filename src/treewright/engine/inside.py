@@ -104,7 +104,6 @@ def _rule_blocks(binary: Tensor, q: int) -> _Rules:
 @dataclass
 class _Saved:
     """What the forward keeps for the backward, per width w (index w - 2)."""
-    left_children: list  # (P*B, K, Q) weighted left children of those splits, or None
     weights: list      # (P, B, w-1) weight of split u (at u-1) relative to the span's top
     peaks: list        # (P*B,) the maximum each cell was divided by
     right_mats: Tensor  # (N, B, Q, Q)   [pos][B, A] = sum_c p(A -> B c) t[pos, c]
@@ -143,7 +142,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
     if nt_terminal is not None:
         by_start[0:N, :, 1, :NT] = (nt_terminal - shift).exp_().transpose(0, 1)
 
-    saved = _Saved([], [], [], right_mats, left_mats, pair_mats) if keep else None
+    saved = _Saved([], [], right_mats, left_mats, pair_mats) if keep else None
     for w in range(2, N + 1):
         P = N - w + 1
         PB = P * B
@@ -153,14 +152,13 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
         top = pair.amax(-1).nan_to_num_(neginf=0.0)                           # (P, B)
         weight = (pair - top.unsqueeze(-1)).exp_()
         total = None
-        left = None
         lo, hi = min_w, w - min_w  # left widths whose both children are nonterminals
         if hi >= lo:
             K = hi - lo + 1
-            left = (by_start[0:P, :, lo:hi + 1] * weight[..., lo - 1:hi, None]
-                    ).view(PB, K, Q)
-            right = right_children(by_start, w, lo, hi).view(PB, K, Q)
-            total = _split_products(left, right, rules.nn)
+            total = _split_products(by_start[0:P, :, lo:hi + 1].view(PB, K, Q),
+                                    weight[..., lo - 1:hi].reshape(PB, K, 1),
+                                    right_children(by_start, w, lo, hi).view(PB, K, Q),
+                                    rules.nn)
             total = total.view(PB, 1, Q)
         if w - 1 >= min_w:
             # A -> B c: left child (i, i+w-1), preterminal c over word i+w-1.
@@ -178,15 +176,13 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
                 del pair_mats
         total = total.view(PB, Q)
         peak = total.amax(-1)                                                  # (P*B,)
-        cells = (total / peak.unsqueeze(-1)).nan_to_num_(nan=0.0)  # a dead span (0/0) stays 0
+        cells = by_start[0:P, :, w].view(PB, Q)
+        torch.div(total, peak.unsqueeze(-1), out=cells).nan_to_num_(nan=0.0)  # dead (0/0): 0
         scale = top + peak.log().view(P, B)                     # log 0 = -inf marks it dead
         if span_pot is not None:
             scale = scale + span_pot[:, 0:P, w].t()
-        cells = cells.view(P, B, Q)
-        by_start[0:P, :, w] = cells
         scale_start[0:P, :, w] = scale
         if keep:
-            saved.left_children.append(left)
             saved.weights.append(weight)
             saved.peaks.append(peak)
     chart = Chart(by_start, scale_start, term_sc, term_scale, min_w, NT)
@@ -222,21 +218,22 @@ def _span_chunk(q: int) -> int:
     return max(1, CHUNK_BYTES // (4 * q * q))
 
 
-def _split_products(left: Tensor, right: Tensor, nn: Tensor) -> Tensor:
-    """The product of the split sums left^T right of each span (Q, Q) with the rules: (M, Q).
+def _split_products(left: Tensor, weight: Tensor, right: Tensor, nn: Tensor) -> Tensor:
+    """The split sums of each span, sum_k weight_k left_k^T right_k (Q, Q), times the rules.
 
-    Done in chunks of spans, so that each chunk's split sums are multiplied by the rules while
-    they are still in cache. The backward recomputes them the same way rather than keeping
-    them: reading M * Q * Q stored numbers back from main memory is slower than one more small
-    batched product per chunk.
+    left and right (M, K, Q) are the children (views into the chart), weight (M, K, 1) the split
+    weights; returns (M, Q). Done in chunks of spans, so that each chunk's weighted children
+    and split sums are made and used while they are in cache. The backward recomputes them the
+    same way rather than keeping them: reading stored copies back from main memory is slower
+    than one more elementwise product and small batched product per chunk.
     """
     M, _, Q = left.shape
     chunk = _span_chunk(Q)
     total = left.new_empty(M, Q)
-    lt = left.transpose(1, 2)
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
-        part = torch.bmm(lt[c0:c1], right[c0:c1])
+        weighted = left[c0:c1] * weight[c0:c1]
+        part = torch.bmm(weighted.transpose(1, 2), right[c0:c1])
         torch.mm(part.view(c1 - c0, Q * Q), nn, out=total[c0:c1])
     return total
 
@@ -326,12 +323,10 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         lo, hi = min_w, w - min_w
         if hi >= lo:
             K = hi - lo + 1
-            w_k = weight[..., lo - 1:hi, None]                          # (P, B, K, 1)
-            right = right_children(chart.by_start, w, lo, hi)
-            g_left, g_right = _split_adjoints(g, rules.nn, right.view(PB, K, Q),
-                                              saved.left_children[w - 2], grad_nn)
-            adj_start[0:P, :, lo:hi + 1].addcmul_(g_left.view(P, B, K, Q), w_k)
-            right_children(adj_start, w, lo, hi).add_(g_right.view(P, B, K, Q))
+            _split_adjoints(g, rules.nn, right_children(chart.by_start, w, lo, hi).view(PB, K, Q),
+                            chart.by_start[0:P, :, lo:hi + 1].view(PB, K, Q),
+                            weight[..., lo - 1:hi].reshape(PB, K, 1), grad_nn, adj_start[0:P, :, lo:hi + 1].view(PB, K, Q),
+                            right_children(adj_start, w, lo, hi).view(PB, K, Q))
         if w - 1 >= min_w:
             g_np = (g.view(P, B, Q) * weight[..., w - 2:w - 1])
             mats = saved.right_mats[w - 1:N].view(PB, Q, Q)
@@ -385,27 +380,27 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     return grad_root, grad_binary, grad_terminal, grad_nt_terminal, grad_pot
 
 
-def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, grad_nn: Tensor):
-    """Adjoints of the left (M, K, Q) and right (M, K, Q) children of the split sums, given the
-    adjoint g (M, Q) of their product with the rules; adds the rules' gradient to grad_nn.
+def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, weight: Tensor,
+                    grad_nn: Tensor, adj_left: Tensor, adj_right: Tensor) -> None:
+    """Back through the split sums of one width, in chunks of spans as in the forward.
 
-    In chunks of spans, as in the forward: each chunk's split sums are recomputed and used
-    while they are in cache.
+    g (M, Q) is the adjoint of the product of the split sums with the rules; right and left
+    (M, K, Q) the children and weight (M, K, 1) the split weights, as in `_split_products`. Adds
+    the rules' gradient to grad_nn and the children's adjoints to adj_left and adj_right (views
+    into the adjoint chart). Each chunk's weighted children and split sums are recomputed, and
+    its adjoints added, while they are in cache.
     """
     M, K, Q = right.shape
     chunk = _span_chunk(Q)
-    g_left = right.new_empty(M, K, Q)
-    g_right = right.new_empty(M, K, Q)
     nn_t = nn.t()
-    lt = left.transpose(1, 2)
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
-        sums = torch.bmm(lt[c0:c1], right[c0:c1]).view(c1 - c0, Q * Q)
+        weighted = left[c0:c1] * weight[c0:c1]
+        sums = torch.bmm(weighted.transpose(1, 2), right[c0:c1]).view(c1 - c0, Q * Q)
         grad_nn.addmm_(sums.t(), g[c0:c1])
         g_pairs = (g[c0:c1] @ nn_t).view(c1 - c0, Q, Q)                # d/d split sums
-        torch.bmm(right[c0:c1], g_pairs.transpose(1, 2), out=g_left[c0:c1])
-        torch.bmm(left[c0:c1], g_pairs, out=g_right[c0:c1])
-    return g_left, g_right
+        adj_left[c0:c1].addcmul_(torch.bmm(right[c0:c1], g_pairs.transpose(1, 2)), weight[c0:c1])
+        adj_right[c0:c1] += torch.bmm(weighted, g_pairs)
 
 
 def log_partition(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
