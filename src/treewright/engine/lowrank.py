@@ -30,6 +30,12 @@ from torch import Tensor
 from treewright.engine.inside import prepare_inputs
 
 NEG_INF = float("-inf")
+CHUNK_BYTES = 2 ** 20  # per-split temporaries are made in chunks of spans of about this size
+
+
+def _span_chunk(floats_per_span: int) -> int:
+    """Spans per chunk so that a chunk's (spans, B, K, R) temporary fits in a core's L2."""
+    return max(1, CHUNK_BYTES // (4 * floats_per_span))
 
 
 def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
@@ -121,10 +127,16 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
         top = pair.amax(-1).nan_to_num_(neginf=0.0)                   # (P, B)
         weight = (pair - top.unsqueeze(-1)).exp_()                    # (P, B, K)
         K = width - 1
-        pairs = left_proj[0:P, :, 1:width] * right_proj[width:N + 1, :, N - width + 1:N]
         rows = slice(offsets[width], offsets[width + 1])
-        rank_sums = torch.bmm(weight.view(P * B, 1, K), pairs.view(P * B, K, R),
-                              out=rank_sums_all[rows].view(P * B, 1, R)).view(P, B, R)
+        rank_sums = rank_sums_all[rows].view(P, B, R)
+        step = _span_chunk(B * K * R)
+        for p0 in range(0, P, step):  # chunks of spans, so that each product stays in cache
+            p1 = min(P, p0 + step)
+            pairs = (left_proj[p0:p1, :, 1:width]
+                     * right_proj[width + p0:width + p1, :, N - width + 1:N])
+            M = (p1 - p0) * B
+            torch.bmm(weight[p0:p1].reshape(M, 1, K), pairs.view(M, K, R),
+                      out=rank_sums[p0:p1].view(M, 1, R))
         total = rank_sums @ U.t()                                     # (P, B, NT)
         peak = total.amax(-1)
         cells = torch.div(total, peak.unsqueeze(-1), out=cells_all[rows].view(P, B, NT))
@@ -165,8 +177,12 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
     grad_root = pi * st["tops"] * g_root[:, None]
     adj_top = words.new_zeros(N + 1, B, NT)                           # adjoint of cell (0, w)
     adj_top[lengths, torch.arange(B)] = pi * g_root[:, None]
-    adj_left = torch.zeros_like(st["left_proj"])
-    adj_right = torch.zeros_like(st["right_proj"])
+    # Only the cells of the chart's triangle are ever read or written, so only they are zeroed.
+    adj_left = torch.empty_like(st["left_proj"])
+    adj_right = torch.empty_like(st["right_proj"])
+    for width in range(1, N + 1):
+        adj_left[0:N + 1 - width, :, width].zero_()
+        adj_right[width:N + 1, :, N - width].zero_()
     grad_U, grad_V, grad_W = torch.zeros_like(U), torch.zeros_like(V), torch.zeros_like(W)
     grad_pot = words.new_zeros(B, N + 1, N + 1) if has_pot else None
     left_proj, right_proj = st["left_proj"], st["right_proj"]
@@ -189,10 +205,15 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
             grad_pot[:, 0:P, width] = (adj * cells).sum(-1).t()
         g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
         g.nan_to_num_(nan=0.0)                                        # d/d raw sum
-        # One (P, B, K, R) temporary serves both children: weight x rank adjoint.
-        g_split = (g @ U).unsqueeze(2) * weight.unsqueeze(-1)         # (P, B, K, R)
-        adj_left[0:P, :, 1:width].addcmul_(g_split, right_proj[width:N + 1, :, N - width + 1:N])
-        adj_right[width:N + 1, :, N - width + 1:N].addcmul_(g_split, left_proj[0:P, :, 1:width])
+        g_rank = g @ U                                                # (P, B, R)
+        step = _span_chunk(B * (width - 1) * R)
+        for p0 in range(0, P, step):
+            p1 = min(P, p0 + step)
+            # One temporary serves both children: weight x rank adjoint, (p1-p0, B, K, R).
+            g_split = g_rank[p0:p1].unsqueeze(2) * weight[p0:p1].unsqueeze(-1)
+            ends = slice(width + p0, width + p1)
+            adj_left[p0:p1, :, 1:width].addcmul_(g_split, right_proj[ends, :, N - width + 1:N])
+            adj_right[ends, :, N - width + 1:N].addcmul_(g_split, left_proj[p0:p1, :, 1:width])
     if offsets[-1]:
         grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
         grad_V[:NT] += grad_vw[:, :R]
