@@ -13,10 +13,10 @@ nonterminal scores are U times the rank vector summed over its splits. Cost per 
 O(n^3 R + n^2 R (NT + S)) instead of O(n^3 S^2 + n^2 S^2 NT).
 
 The cells use the scaled probabilities of `engine.inside` (each cell divided by its maximum,
-the log of which is kept as a scale that the gradient treats as a constant), and the same two
-chart copies (by start, by end) so that all left children of one width, and all right
-children, are one strided slice each. The chart holds the rank projections of the cells, not
-the cells. The backward is written by hand: autograd over per-width slices spends its time
+the log of which is kept as a scale that the gradient treats as a constant). The charts hold
+the rank projections of the cells, not the cells: the left-role projections indexed by start
+and the right-role projections by end, so that all left children of one width, and all right
+children, are one strided slice each. The backward is written by hand: autograd over per-width slices spends its time
 zero-filling and stacking, not multiplying.
 
 Shapes: B sentences, N longest length, NT nonterminals, T preterminals, R rank, P = N - w + 1.
