@@ -1,16 +1,21 @@
 """How much memory one inside-outside call needs, so that callers can size batches to a budget.
 
-The count follows `engine.inside`: the two chart copies and their two adjoint copies, each
-(N+1, B, N+1, NT'); what the backward reuses from the forward: the split sums, about N^2/2
-matrices of NT' x NT' per sentence, and the weighted left children, about N^3/6 vectors of NT';
-and the per-position rule matrices with their gradients, 4 x (N, B, NT', NT'), where
-NT' is NT padded to a multiple of 8. Temporaries and the allocator's slack are covered by a
-factor of 2, checked against measured peaks by tests/test_train_memory.py.
+The count follows `engine.inside`: the chart and its adjoint, the backward's copy of the chart
+laid out by end and its two per-position adjoint buffers, five arrays of (N+1, B, N+1, NT') in
+all; the split weights the backward reuses, about N^3/6 numbers per sentence; the per-position
+rule matrices with their gradients, 4 x (N, B, NT', NT'); and the preterminal-pair matrices with
+their gradients, 2 x (N, B, T, NT'), where NT' is NT padded to a multiple of 8. The split sums
+and weighted children are made in chunks of about `CHUNK_BYTES` each, a fixed cost. Temporaries
+and the allocator's slack are covered by a factor of 2, checked against measured peaks by
+tests/test_train_memory.py.
 """
 
 from __future__ import annotations
 
+from treewright.engine.inside import CHUNK_BYTES
+
 SLACK = 2.0
+CHUNKS_IN_FLIGHT = 6  # backward: weighted children, split sums, their adjoints, two products
 
 
 def inside_outside_bytes(batch: int, length: int, nonterminals: int, preterminals: int,
@@ -19,10 +24,10 @@ def inside_outside_bytes(batch: int, length: int, nonterminals: int, preterminal
     to `length` words."""
     nt = -(-nonterminals // 8) * 8
     n1 = length + 1
-    charts = 4 * n1 * n1 * nt
-    split_sums = (length * length // 2 + 1) * nt * nt
-    left_children = (length ** 3 // 6 + 1) * nt
+    charts = 5 * n1 * n1 * nt
+    weights = length ** 3 // 6 + length * length
     edge_mats = 4 * length * nt * nt
+    pair_mats = 2 * length * preterminals * nt
     terminals = 3 * length * preterminals
-    return int(SLACK * itemsize * batch * (charts + split_sums + left_children + edge_mats
-                                                + terminals))
+    per_sentence = charts + weights + edge_mats + pair_mats + terminals
+    return int(SLACK * (itemsize * batch * per_sentence + CHUNKS_IN_FLIGHT * CHUNK_BYTES))
