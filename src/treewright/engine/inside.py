@@ -6,8 +6,8 @@ and Forward-Backward Algorithms Are Just Backprop"). The outside pass below is t
 written by hand inside a `torch.autograd.Function`; `engine.reference` gives the same numbers by
 plain autograd and the tests hold the two together.
 
-Why the layout looks the way it does (it is what makes the pass run near the matrix-multiply
-throughput of a small CPU; `scripts/bench_inside.py` measures it):
+Why the layout looks the way it does (on a small CPU the pass is bound by memory traffic and
+per-operation overhead rather than arithmetic; `scripts/bench_inside.py` measures it):
 
 - Cells hold *scaled probabilities*: each cell's vector over symbols is divided by its maximum,
   and the log of that maximum is kept beside it as the cell's scale. Sums over split points and
