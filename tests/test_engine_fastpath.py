@@ -75,6 +75,40 @@ def test_per_sentence_root_distribution_matches_reference():
         torch.testing.assert_close(g, g_ref)
 
 
+@pytest.mark.parametrize("nt,t", [(3, 4), (9, 5)])
+@pytest.mark.parametrize("nt_emit", [False, True])
+def test_rules_per_sentence_match_reference_sentence_by_sentence(nt, t, nt_emit):
+    # Reference: reference_inside run on each sentence alone, with that sentence's own rules,
+    # over its own length (so padding of the shorter sentences is checked too).
+    root, _, terminal, lengths, nt_terminal, span_pot = random_problem(
+        nt, t, batch=4, n=7, nt_emit=nt_emit, seed=nt * 10 + t + 1)
+    gen = torch.Generator().manual_seed(nt + t)
+    s = nt + t
+    binary = torch.randn(4, nt, s * s, generator=gen, dtype=torch.float64).log_softmax(-1)
+    binary = binary.view(4, nt, s, s)
+    root_b = root.expand(4, -1).contiguous()
+    z, grads = value_and_grads(log_partition, root_b, binary, terminal, lengths, nt_terminal,
+                               span_pot)
+    for b in range(4):
+        n = int(lengths[b])
+        one = (root_b[b], binary[b], terminal[b:b + 1, :n], lengths[b:b + 1],
+               None if nt_terminal is None else nt_terminal[b:b + 1, :n],
+               span_pot[b:b + 1, :n + 1, :n + 1])
+        z_ref, grads_ref = value_and_grads(reference_inside, *one)
+        torch.testing.assert_close(z[b:b + 1], z_ref, rtol=1e-10, atol=1e-10)
+        # value_and_grads weights sentence b by b + 1; the lone reference sentence by 1.
+        mine = [grads[0][b], grads[1][b], grads[2][b, :n]]
+        if nt_terminal is not None:
+            mine.append(grads[3][b, :n])
+        mine.append(grads[-1][b, :n + 1, :n + 1])
+        for g, g_ref in zip(mine, grads_ref):
+            if g_ref is None:  # the reference leaves unused inputs (a one-word span) ungraded
+                g_ref = torch.zeros_like(g)
+            torch.testing.assert_close(g / (b + 1), g_ref.squeeze(0), rtol=1e-9, atol=1e-10)
+        # Padding past a sentence's length gets no gradient.
+        assert not grads[2][b, n:].any()
+
+
 @pytest.mark.parametrize("n", [2, 3, 5, 8])
 def test_counts_binary_trees_when_every_score_is_one(n):
     # Brute force / fact of combinatorics (common practice): with one symbol of each kind and all

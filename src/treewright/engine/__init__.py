@@ -24,7 +24,8 @@ class Posteriors:
     """Expected counts and marginals of one batch, summed over sentences where noted."""
     logz: Tensor                 # (B,)
     root: Tensor                 # (B, NT)  p(top symbol | sentence)
-    binary: Tensor               # (NT, S, S) expected rule counts, summed over the batch
+    binary: Tensor               # (NT, S, S) expected rule counts, summed over the batch;
+                                 # (B, NT, S, S), per sentence, when the rules are per sentence
     terminal: Tensor             # (B, N, T) p(preterminal at position | sentence)
     nt_terminal: Tensor | None   # (B, N, NT) for grammars whose nonterminals emit words
     spans: Tensor                # (B, N+1, N+1) p(span [start, width] is a constituent)

@@ -72,33 +72,71 @@ class Chart:
 
 @dataclass
 class _Rules:
-    """Probability-space rule blocks, nonterminal axes padded to Q (zeros)."""
+    """Probability-space rule blocks, nonterminal axes padded to Q (zeros).
+
+    With rules per sentence (`per_sentence`) every block has a leading sentence axis (B, ...).
+    """
     nn: Tensor      # (Q*Q, Q)  [(B, C), A] = p(A -> B C), both children nonterminal
     right: Tensor   # (T, Q*Q)  [c, (B, A)] = p(A -> B c)
     left: Tensor    # (T, Q*Q)  [b, (C, A)] = p(A -> b C)
     pair: Tensor    # (T, T*Q)  [c, (b, A)] = p(A -> b c), both children preterminal
     prob: Tensor    # (NT, S, S) the unpadded probabilities, reused by the backward
+    per_sentence: bool
 
 
 def _padded(nt: int) -> int:
     return -(-nt // PAD_MULTIPLE) * PAD_MULTIPLE
 
 
+def _last3(x: Tensor, order: tuple[int, int, int]) -> Tensor:
+    """Permute the last three axes of x, keeping any leading (sentence) axis in place."""
+    lead = x.dim() - 3
+    return x.permute(*range(lead), *(lead + o for o in order))
+
+
 def _rule_blocks(binary: Tensor, q: int) -> _Rules:
-    """binary: (NT, S, S) log-probs -> the padded probability blocks used by the passes."""
-    nt, s, _ = binary.shape
+    """binary: (NT, S, S) or per sentence (B, NT, S, S) log-probs -> the padded probability
+    blocks used by the passes."""
+    nt, s, _ = binary.shape[-3:]
+    lead = binary.shape[:-3]
     t = s - nt
     rules = binary.exp()
-    nn = binary.new_zeros(q, q, q)
-    nn[:nt, :nt, :nt] = rules[:, :nt, :nt].permute(1, 2, 0)
-    right = binary.new_zeros(t, q, q)
-    right[:, :nt, :nt] = rules[:, :nt, nt:].permute(2, 1, 0)
-    left = binary.new_zeros(t, q, q)
-    left[:, :nt, :nt] = rules[:, nt:, :nt].permute(1, 2, 0)
-    pair = binary.new_zeros(t, t, q)
-    pair[:, :, :nt] = rules[:, nt:, nt:].permute(2, 1, 0)
-    return _Rules(nn.view(q * q, q), right.view(t, q * q), left.view(t, q * q),
-                  pair.view(t, t * q), rules)
+    nn = binary.new_zeros(*lead, q, q, q)
+    nn[..., :nt, :nt, :nt] = _last3(rules[..., :, :nt, :nt], (1, 2, 0))
+    right = binary.new_zeros(*lead, t, q, q)
+    right[..., :, :nt, :nt] = _last3(rules[..., :, :nt, nt:], (2, 1, 0))
+    left = binary.new_zeros(*lead, t, q, q)
+    left[..., :, :nt, :nt] = _last3(rules[..., :, nt:, :nt], (1, 2, 0))
+    pair = binary.new_zeros(*lead, t, t, q)
+    pair[..., :nt] = _last3(rules[..., :, nt:, nt:], (2, 1, 0))
+    return _Rules(nn.view(*lead, q * q, q), right.view(*lead, t, q * q),
+                  left.view(*lead, t, q * q), pair.view(*lead, t, t * q), rules, bool(lead))
+
+
+def _fold(vectors: Tensor, mats: Tensor) -> Tensor:
+    """(M, B, K) vectors times (K, X) rule matrices, or per sentence (B, K, X): (M, B, X)."""
+    if mats.dim() == 2:
+        M, B, K = vectors.shape
+        return (vectors.reshape(M * B, K) @ mats).view(M, B, -1)
+    return torch.bmm(vectors.transpose(0, 1), mats).transpose(0, 1).contiguous()
+
+
+def _gather(vectors: Tensor, grads: Tensor, per_sentence: bool) -> Tensor:
+    """The rule-matrix gradient of `_fold` for (M, B, K) vectors and (M, B, X) gradients: summed
+    over M and B, (K, X), or over M only, (B, K, X), when the rules are per sentence."""
+    M, B, K = vectors.shape
+    if not per_sentence:
+        return vectors.reshape(M * B, K).t() @ grads.reshape(M * B, -1)
+    return torch.bmm(vectors.permute(1, 2, 0), grads.transpose(0, 1))
+
+
+def _unfold(grads: Tensor, mats: Tensor) -> Tensor:
+    """The vectors' gradient of `_fold`: (M, B, X) gradients times the (K, X) or (B, K, X)
+    rule matrices transposed: (M, B, K)."""
+    if mats.dim() == 2:
+        M, B, X = grads.shape
+        return (grads.reshape(M * B, X) @ mats.t()).view(M, B, -1)
+    return torch.bmm(grads.transpose(0, 1), mats.transpose(1, 2)).transpose(0, 1)
 
 
 @dataclass
@@ -115,7 +153,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
           span_pot: Tensor | None, keep: bool):
     """Fill the inside chart; with `keep` also return the `_Saved` state for the backward."""
     B, N, T = terminal.shape
-    NT = binary.shape[0]
+    NT = binary.shape[-3]
     Q = _padded(NT)
     rules = _rule_blocks(binary, Q)
     min_w = 1 if nt_terminal is not None else 2
@@ -131,10 +169,9 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
     # Preterminal children folded into per-position matrices (row-vector form, see _Rules).
     # The preterminal-pair matrices are kept apart: they serve width two only, and leaving them
     # out of the matrices read at every width keeps those small enough to stay in cache.
-    flat = term_sc.view(N * B, T)
-    right_mats = (flat @ rules.right).view(N, B, Q, Q)
-    left_mats = (flat @ rules.left).view(N, B, Q, Q)
-    pair_mats = (flat[B:] @ rules.pair).view(N - 1, B, T, Q)
+    right_mats = _fold(term_sc, rules.right).view(N, B, Q, Q)
+    left_mats = _fold(term_sc, rules.left).view(N, B, Q, Q)
+    pair_mats = _fold(term_sc[1:], rules.pair).view(N - 1, B, T, Q)
 
     by_start = terminal.new_zeros(N + 1, B, N + 1, Q)
     scale_start = terminal.new_full((N + 1, B, N + 1), NEG_INF)
@@ -228,14 +265,28 @@ def _split_products(left: Tensor, weight: Tensor, right: Tensor, nn: Tensor) -> 
     than one more elementwise product and small batched product per chunk.
     """
     M, _, Q = left.shape
-    chunk = _span_chunk(Q)
+    chunk = _chunk_rows(Q, nn)
     total = left.new_empty(M, Q)
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
         weighted = left[c0:c1] * weight[c0:c1]
-        part = torch.bmm(weighted.transpose(1, 2), right[c0:c1])
-        torch.mm(part.view(c1 - c0, Q * Q), nn, out=total[c0:c1])
+        part = torch.bmm(weighted.transpose(1, 2), right[c0:c1]).view(c1 - c0, Q * Q)
+        if nn.dim() == 2:
+            torch.mm(part, nn, out=total[c0:c1])
+        else:  # rules per sentence: rows are (span, sentence), so one product per sentence
+            B = nn.shape[0]
+            per = torch.bmm(part.view(-1, B, Q * Q).transpose(0, 1), nn)  # (B, spans, Q)
+            total[c0:c1].view(-1, B, Q).copy_(per.transpose(0, 1))
     return total
+
+
+def _chunk_rows(q: int, nn: Tensor) -> int:
+    """Rows (span x sentence) per chunk; a whole number of spans when rules are per sentence."""
+    chunk = _span_chunk(q)
+    if nn.dim() == 3:
+        B = nn.shape[0]
+        chunk = max(1, chunk // B) * B
+    return chunk
 
 
 def _add_rowvec(total: Tensor | None, vec: Tensor, mats: Tensor) -> Tensor:
@@ -294,7 +345,7 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     N1, B, _, Q = chart.by_start.shape
     N = N1 - 1
     T = chart.term.shape[-1]
-    NT = binary.shape[0]
+    NT = binary.shape[-3]
     idx = torch.arange(B)
     ok = (total > 0) & torch.isfinite(top_scale)  # unparseable sentences get zero gradients
     g_root = torch.where(ok, grad_logz / torch.where(ok, total, torch.ones_like(total)),
@@ -323,9 +374,11 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         lo, hi = min_w, w - min_w
         if hi >= lo:
             K = hi - lo + 1
-            _split_adjoints(g, rules.nn, right_children(chart.by_start, w, lo, hi).view(PB, K, Q),
+            _split_adjoints(g, rules.nn,
+                            right_children(chart.by_start, w, lo, hi).view(PB, K, Q),
                             chart.by_start[0:P, :, lo:hi + 1].view(PB, K, Q),
-                            weight[..., lo - 1:hi].reshape(PB, K, 1), grad_nn, adj_start[0:P, :, lo:hi + 1].view(PB, K, Q),
+                            weight[..., lo - 1:hi].reshape(PB, K, 1), grad_nn,
+                            adj_start[0:P, :, lo:hi + 1].view(PB, K, Q),
                             right_children(adj_start, w, lo, hi).view(PB, K, Q))
         if w - 1 >= min_w:
             g_np = (g.view(P, B, Q) * weight[..., w - 2:w - 1])
@@ -352,25 +405,27 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         chart.by_start[1:N + 1].view(N * B, N + 1, Q).transpose(1, 2),
         adj_pn.view(N * B, N + 1, Q))                                   # (N*B, Q, Q)
 
-    # Fold the per-position matrices back into rules and preterminal cells.
-    term_flat = chart.term.view(N * B, T)
-    gr = grad_right_mats.view(N * B, Q * Q)
-    gl = grad_left_mats.view(N * B, Q * Q)
-    adj_term += (gr @ rules.right.t()).addmm_(gl, rules.left.t()).view(N, B, T)
-    grad_right = (term_flat.t() @ gr).view(T, Q, Q)                    # [c, B, A]
-    grad_left = (term_flat.t() @ gl).view(T, Q, Q)                     # [b, C, A]
+    # Fold the per-position matrices back into rules and preterminal cells (per sentence when
+    # the rules are: `lead` is () or (B,)).
+    lead, per = binary.shape[:-3], rules.per_sentence
+    gr = grad_right_mats.view(N, B, Q * Q)
+    gl = grad_left_mats.view(N, B, Q * Q)
+    adj_term += _unfold(gr, rules.right) + _unfold(gl, rules.left)
+    grad_right = _gather(chart.term, gr, per).view(*lead, T, Q, Q)     # [c, B, A]
+    grad_left = _gather(chart.term, gl, per).view(*lead, T, Q, Q)      # [b, C, A]
     if grad_pair_mats is None:
-        grad_pair = rules.pair.new_zeros(T, T, Q)
+        grad_pair = rules.pair.new_zeros(*lead, T, T, Q)
     else:
-        gp = grad_pair_mats.view((N - 1) * B, T * Q)
-        adj_term[1:N] += (gp @ rules.pair.t()).view(N - 1, B, T)
-        grad_pair = (term_flat[B:].t() @ gp).view(T, T, Q)             # [c, b, A]
+        gp = grad_pair_mats.view(N - 1, B, T * Q)
+        adj_term[1:N] += _unfold(gp, rules.pair)
+        grad_pair = _gather(chart.term[1:], gp, per).view(*lead, T, T, Q)  # [c, b, A]
 
-    grad_rules = torch.empty_like(binary)                              # (NT, S, S)
-    grad_rules[:, :NT, :NT] = grad_nn.view(Q, Q, Q)[:NT, :NT, :NT].permute(2, 0, 1)
-    grad_rules[:, :NT, NT:] = grad_right[:, :NT, :NT].permute(2, 1, 0)
-    grad_rules[:, NT:, NT:] = grad_pair[:, :, :NT].permute(2, 1, 0)
-    grad_rules[:, NT:, :NT] = grad_left[:, :NT, :NT].permute(2, 0, 1)
+    grad_rules = torch.empty_like(binary)                              # (..., NT, S, S)
+    grad_rules[..., :NT, :NT] = _last3(grad_nn.view(*lead, Q, Q, Q)[..., :NT, :NT, :NT],
+                                       (2, 0, 1))
+    grad_rules[..., :NT, NT:] = _last3(grad_right[..., :NT, :NT], (2, 1, 0))
+    grad_rules[..., NT:, NT:] = _last3(grad_pair[..., :NT], (2, 1, 0))
+    grad_rules[..., NT:, :NT] = _last3(grad_left[..., :NT, :NT], (2, 0, 1))
     grad_binary = grad_rules.mul_(rules.prob)                          # d/d log p = p * d/dp
     grad_terminal = (adj_term * chart.term).transpose(0, 1)            # (B, N, T)
     grad_nt_terminal = None
@@ -391,14 +446,21 @@ def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, weight: 
     its adjoints added, while they are in cache.
     """
     M, K, Q = right.shape
-    chunk = _span_chunk(Q)
-    nn_t = nn.t()
+    chunk = _chunk_rows(Q, nn)
+    nn_t = nn.transpose(-1, -2)
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
         weighted = left[c0:c1] * weight[c0:c1]
         sums = torch.bmm(weighted.transpose(1, 2), right[c0:c1]).view(c1 - c0, Q * Q)
-        grad_nn.addmm_(sums.t(), g[c0:c1])
-        g_pairs = (g[c0:c1] @ nn_t).view(c1 - c0, Q, Q)                # d/d split sums
+        if nn.dim() == 2:
+            grad_nn.addmm_(sums.t(), g[c0:c1])
+            g_pairs = (g[c0:c1] @ nn_t).view(c1 - c0, Q, Q)            # d/d split sums
+        else:  # rules per sentence, as in `_split_products`
+            B = nn.shape[0]
+            s_b = sums.view(-1, B, Q * Q).transpose(0, 1)               # (B, spans, Q*Q)
+            g_b = g[c0:c1].view(-1, B, Q).transpose(0, 1)               # (B, spans, Q)
+            grad_nn.baddbmm_(s_b.transpose(1, 2), g_b)
+            g_pairs = torch.bmm(g_b, nn_t).transpose(0, 1).reshape(c1 - c0, Q, Q)
         adj_left[c0:c1].addcmul_(torch.bmm(right[c0:c1], g_pairs.transpose(1, 2)), weight[c0:c1])
         adj_right[c0:c1] += torch.bmm(weighted, g_pairs)
 
@@ -408,7 +470,8 @@ def log_partition(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tenso
     """log Z = log sum over all trees of p(tree, sentence), per sentence, differentiable.
 
     root        (NT,) or (B, NT)  log p(top symbol)
-    binary      (NT, S, S)        log p(A -> B C); children: nonterminals first, then preterminals
+    binary      (NT, S, S)        log p(A -> B C); children: nonterminals first, then preterminals;
+                or (B, NT, S, S)  rules per sentence (compound grammars), one batch all the same
     terminal    (B, N, T)         log p(preterminal -> word at position)
     lengths     (B,) int64        sentence lengths (positions past a length are ignored)
     nt_terminal (B, N, NT)        log p(nonterminal -> word), for grammars in which nonterminals

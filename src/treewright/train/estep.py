@@ -153,32 +153,18 @@ def sentence_terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
 
 def compound_log_partition(rules: CompoundRules, ids: Tensor, lengths: Tensor,
                            span_pot: Tensor | None = None) -> Tensor:
-    """(B,) log p(x_b | z_b) with each sentence's own rules: one engine call per sentence, over
-    its own length (the rule tensors differ, so sentences cannot share a call)."""
+    """(B,) log p(x_b | z_b), each sentence under its own rules, in one engine call."""
     terminal = sentence_terminal_scores(rules.lexical, ids)              # (B, N, T)
-    out = []
-    for b in range(ids.shape[0]):
-        n = int(lengths[b])
-        pot = None if span_pot is None else span_pot[b:b + 1, :n + 1, :n + 1]
-        out.append(engine.log_partition(rules.root[b], rules.binary[b], terminal[b:b + 1, :n],
-                                        lengths[b:b + 1], span_pot=pot))
-    return torch.cat(out)
+    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
 
 
 def compound_span_posteriors(rules: CompoundRules, ids: Tensor, lengths: Tensor
                              ) -> tuple[Tensor, Tensor]:
-    """log p(x_b | z_b) (B,) and span marginals (B, N+1, N+1), sentence by sentence."""
-    B, N = ids.shape
+    """log p(x_b | z_b) (B,) and span marginals (B, N+1, N+1), each sentence under its own
+    rules, in one engine call."""
     terminal = sentence_terminal_scores(rules.lexical, ids).detach()
-    logz = terminal.new_empty(B)
-    spans = terminal.new_zeros(B, N + 1, N + 1)
-    for b in range(B):
-        n = int(lengths[b])
-        post = engine.posteriors(rules.root[b].detach(), rules.binary[b].detach(),
-                                 terminal[b:b + 1, :n], lengths[b:b + 1])
-        logz[b] = post.logz[0]
-        spans[b, :n + 1, :n + 1] = post.spans[0]
-    return logz, spans
+    post = engine.posteriors(rules.root.detach(), rules.binary.detach(), terminal, lengths)
+    return post.logz, post.spans
 
 
 def span_posteriors(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor
