@@ -103,6 +103,41 @@ def test_lowrank_trains_end_to_end_and_its_grammar_file_scores_like_the_model(tm
     assert math.isclose(file_scores[0], float(mine[0]), rel_tol=1e-8)
 
 
+def test_a_grammar_over_the_rule_cap_is_saved_with_each_symbols_most_probable_rules(tmp_path):
+    # Reference: the model's own dense rules, ranked by Python's sorted() per nonterminal, and
+    # the kept mass summed in a plain loop.
+    train_path, _ = write_corpus(tmp_path / "data", train=40, dev=0)
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, None, **{"train.method": "gradient",
+                                       "model.parameterization": "lowrank", "model.rank": 4,
+                                       "model.embedding_dim": 8, "train.epochs": 1,
+                                       "output.max_saved_rules": 30}))
+    trainer = train(cfg, tmp_path / "run")
+    grammar = load_grammar(trainer.grammar_path_)
+    dense = trainer.current_rules().binary.double().exp()         # (NT, S, S) = (3, 8, 8)
+    nt, s, _ = dense.shape
+    names = grammar.nonterminals + grammar.preterminals
+    assert nt * s * s > 30
+    log = (tmp_path / "run" / "train.log").read_text()
+    assert "more than output.max_saved_rules (30); saved each nonterminal's 10 most" in log
+    removed = []
+    for a in range(nt):
+        ranked = sorted(((float(dense[a, b, c]), b, c) for b in range(s) for c in range(s)),
+                        reverse=True)
+        top = ranked[:10]
+        kept = {(b, c) for _, b, c in top}
+        saved = {(b, c) for b in range(s) for c in range(s)
+                 if math.isfinite(float(grammar.binary[a, b, c]))}
+        assert saved == kept, names[a]
+        mass = sum(p for p, _, _ in top)
+        removed.append(1.0 - mass)
+        for p, b, c in top:                                    # renormalised over what is kept
+            assert math.isclose(math.exp(float(grammar.binary[a, b, c])), p / mass,
+                                rel_tol=1e-9)
+    worst = max(range(nt), key=lambda a: removed[a])
+    assert f"at most {removed[worst]:.4g}, {names[worst]})" in log
+
+
 def test_lowrank_refuses_em(tmp_path):
     from treewright.errors import InputError
     with pytest.raises(InputError, match="train.method"):

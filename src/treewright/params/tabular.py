@@ -96,6 +96,23 @@ def _renormalize(rows: torch.Tensor) -> torch.Tensor:
     return torch.where(alive, rows.log_softmax(1), rows)
 
 
+def keep_most_probable(binary: torch.Tensor, per_symbol: int
+                       ) -> tuple[torch.Tensor, torch.Tensor]:
+    """binary (NT, S, S) log-probabilities with all but each nonterminal's `per_symbol` most
+    probable rules set to -inf (ties: the first in row-major order of (B, C)), and the
+    probability mass (NT,) float64 that this leaves out. Renormalising is left to the caller
+    (`rules_to_grammar` does it)."""
+    nt = binary.shape[0]
+    flat = binary.detach().reshape(nt, -1)
+    total = flat.double().logsumexp(1).exp()
+    if per_symbol >= flat.shape[1]:
+        return binary, torch.zeros(nt, dtype=torch.float64)
+    top = flat.topk(per_symbol, dim=1, sorted=False)
+    kept = torch.full_like(flat, float("-inf")).scatter_(1, top.indices, top.values)
+    removed = (total - top.values.double().exp().sum(1)).clamp(min=0.0)
+    return kept.view_as(binary), removed
+
+
 def rules_to_grammar(rules: RuleTensors, nonterminals: list[str], preterminals: list[str],
                      vocab: Vocabulary, start: str = "ROOT") -> Grammar:
     """A `Grammar` (detached float64 copies) from induction-layout rules.

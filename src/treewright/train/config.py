@@ -181,6 +181,12 @@ class OutputConfig:
     progress: bool = option(True, "Show progress with ETA on standard error: a bar on a "
                                   "terminal, plain lines otherwise.")
     stdout_metrics: bool = option(True, "Print each epoch's metrics on standard output.")
+    max_saved_rules: int | None = option(
+        5_000_000, "A grammar with more binary rules than this (NT x S^2, as low-rank models "
+                   "with hundreds of symbols have) is saved with only each nonterminal's "
+                   "max_saved_rules / NT most probable binary rules, renormalised; train.log "
+                   "reports the probability mass left out. The checkpoint keeps the full "
+                   "model. null: always save every rule.", range="[1, inf)")
 
 
 @dataclass

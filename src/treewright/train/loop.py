@@ -759,8 +759,8 @@ class Trainer:
 
     def _finish_restart(self, restart: int, position: Position) -> None:
         rules = self.current_rules()
-        grammar = self._to_grammar(rules)
         name = f"restart-{restart}.pcfg"
+        grammar = self._to_grammar(rules, name)
         if self.world.is_main:
             grammar.save(self.run_dir / name)
         dev = self.evaluate_dev(rules)
@@ -775,10 +775,25 @@ class Trainer:
         position.previous_objective = None
         self.checkpoint(position)
 
-    def _to_grammar(self, rules: RuleTensors | LowRankRules):
-        from treewright.params.tabular import rules_to_grammar
+    def _to_grammar(self, rules: RuleTensors | LowRankRules, name: str = "the grammar"):
+        """The rules as a `Grammar` to save, capped at `output.max_saved_rules` binary rules."""
+        from treewright.params.tabular import keep_most_probable, rules_to_grammar
         start = self.warm.start if self.warm is not None else "ROOT"
-        return rules_to_grammar(_dense(rules), self.nonterminals, self.preterminals, self.data.vocab,
+        dense = _dense(rules)
+        limit = self.cfg.output.max_saved_rules
+        nt = len(self.nonterminals)
+        if limit is not None and dense.binary.numel() > limit:
+            per_symbol = max(1, limit // nt)
+            binary, removed = keep_most_probable(dense.binary, per_symbol)
+            dense = RuleTensors(dense.root, binary, dense.lexical)
+            worst = int(removed.argmax())
+            self._note(f"{name}: the model has {dense.binary.numel():,} binary rules, more than "
+                       f"output.max_saved_rules ({limit:,}); saved each nonterminal's "
+                       f"{per_symbol:,} most probable, renormalised, leaving out probability "
+                       f"mass {float(removed.mean()):.4g} per nonterminal on average (at most "
+                       f"{float(removed[worst]):.4g}, {self.nonterminals[worst]}); the checkpoint "
+                       "keeps the full model")
+        return rules_to_grammar(dense, self.nonterminals, self.preterminals, self.data.vocab,
                                 start)
 
     def _finish_run(self, position: Position) -> None:
