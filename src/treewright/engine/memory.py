@@ -19,9 +19,11 @@ CHUNKS_IN_FLIGHT = 6  # backward: weighted children, split sums, their adjoints,
 
 
 def inside_outside_bytes(batch: int, length: int, nonterminals: int, preterminals: int,
-                         itemsize: int = 4) -> int:
+                         itemsize: int = 4, rules_per_sentence: bool = False) -> int:
     """Estimated peak bytes of `log_partition` forward and backward for `batch` sentences padded
-    to `length` words."""
+    to `length` words. With `rules_per_sentence` (compound grammars) each sentence also has its
+    own rule tensor, probabilities and gradient (3 x NT x S^2) and padded rule blocks with their
+    gradients (2 x (NT'^3 + 2 T NT'^2 + T^2 NT'))."""
     nt = -(-nonterminals // 8) * 8
     n1 = length + 1
     charts = 5 * n1 * n1 * nt
@@ -30,4 +32,8 @@ def inside_outside_bytes(batch: int, length: int, nonterminals: int, preterminal
     pair_mats = 2 * length * preterminals * nt
     terminals = 3 * length * preterminals
     per_sentence = charts + weights + edge_mats + pair_mats + terminals
+    if rules_per_sentence:
+        s = nonterminals + preterminals
+        t = preterminals
+        per_sentence += 3 * nonterminals * s * s + 2 * (nt ** 3 + 2 * t * nt * nt + t * t * nt)
     return int(SLACK * (itemsize * batch * per_sentence + CHUNKS_IN_FLIGHT * CHUNK_BYTES))

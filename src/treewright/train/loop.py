@@ -274,7 +274,8 @@ class Trainer:
     def sentence_bytes(self, length: int) -> float:
         m = self.cfg.model
         return inside_outside_bytes(1, length, m.nonterminals, m.preterminals,
-                                    torch.finfo(self.dtype).bits // 8)
+                                    torch.finfo(self.dtype).bits // 8,
+                                    rules_per_sentence=m.parameterization == "compound")
 
     @property
     def budget_bytes(self) -> float | None:
