@@ -100,3 +100,19 @@ def test_memory_stays_flat_when_the_corpus_grows_tenfold(tmp_path):
         finally:
             tracemalloc.stop()
     assert whole_peak(large) > 5 * whole_peak(small)
+
+
+def test_a_streamed_corpus_counts_its_too_long_sentences_without_holding_them(tmp_path):
+    # Reference: the file itself, its lines counted by length here.
+    lines = [" ".join(["fen"] * (3 + k % 4)) for k in range(60)]          # 3-6 words
+    lines += [" ".join(["marrow"] * (30 + k % 5)) for k in range(400)]    # 30-34 words
+    path = tmp_path / "train.txt"
+    path.write_text("\n".join(lines) + "\n")
+    long_lines = sum(1 for line in lines if len(line.split()) > 10)
+    streamed = StreamedCorpus(path, "text", ReadOptions(max_length=10), chunk_size=25)
+    assert len(streamed) == len(lines) - long_lines == 60
+    assert streamed.report.skipped_by_reason == {"too_long": long_lines}
+    assert streamed.stream.set_aside == []
+    assert [len(ids) for ids in streamed] == [3 + k % 4 for k in range(60)]
+    # The in-memory reader still keeps them, for the reports that quote them.
+    assert len(read_corpus(path, "text", ReadOptions(max_length=10)).set_aside) == long_lines

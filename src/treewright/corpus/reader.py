@@ -53,12 +53,14 @@ class CorpusStream:
     """Sentences of one file, read lazily: iterate for `Sentence`s, or use `chunks(size)`.
 
     Each pass starts a fresh `report`, complete once the pass ends. Too-long sentences are kept
-    in `set_aside` (and counted); everything else unused is counted and listed in the report.
-    `fmt` is "auto" (see `detect_format`), "text", "brackets" or "conllu".
+    in `set_aside` (and counted) unless `keep_set_aside` is false, as for corpora streamed
+    because they are larger than memory; everything else unused is counted and listed in the
+    report. `fmt` is "auto" (see `detect_format`), "text", "brackets" or "conllu".
     """
 
     def __init__(self, path: str | os.PathLike, fmt: str = "auto",
-                 options: ReadOptions | None = None):
+                 options: ReadOptions | None = None, keep_set_aside: bool = True):
+        self.keep_set_aside = keep_set_aside
         self.options = options if options is not None else ReadOptions()
         self.options.validate()
         self.path = check_readable(path)
@@ -149,7 +151,8 @@ class CorpusStream:
         if self.options.max_length is not None and n > self.options.max_length:
             self._skip("too_long", line, message=f"{n} tokens > max_length "
                        f"{self.options.max_length}")
-            self.set_aside.append(sentence)
+            if self.keep_set_aside:
+                self.set_aside.append(sentence)
             return None
         return sentence
 

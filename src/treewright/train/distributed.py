@@ -335,7 +335,9 @@ class StreamedCorpus(SequenceABC):
 
     def __init__(self, path, fmt: str, options: ReadOptions, chunk_size: int):
         self.options, self.chunk_size = options, chunk_size
-        self.stream = CorpusStream(path, fmt, options)
+        # Too-long sentences are counted in the report, not held: the corpus is streamed
+        # because it may not fit in memory.
+        self.stream = CorpusStream(path, fmt, options, keep_set_aside=False)
         counts: Counter = Counter()
         self.histograms: list[Counter] = []      # per chunk: sentence length -> sentences
         for chunk in self.stream.chunks(chunk_size):
@@ -366,8 +368,8 @@ class StreamedCorpus(SequenceABC):
 
     def __iter__(self) -> Iterator[list[int]]:
         """Every sentence's ids in file order, in one pass of its own."""
-        for chunk in CorpusStream(self.stream.path, self.stream.fmt, self.options).chunks(
-                self.chunk_size):
+        for chunk in CorpusStream(self.stream.path, self.stream.fmt, self.options,
+                                  keep_set_aside=False).chunks(self.chunk_size):
             for sentence in chunk:
                 yield self.vocabulary.encode(sentence.tokens)
 
