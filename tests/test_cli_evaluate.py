@@ -112,6 +112,33 @@ def test_parse_then_evaluate_with_heldout_likelihood(tmp_path, capsys):
         run(evaluate_cmd, [pred, pred, "--grammar", TEXTBOOK])
 
 
+def test_a_run_trained_on_lowercased_words_parses_capitalised_input(tmp_path, capsys):
+    # Published worked example (Manning & Schuetze 1999, ch. 11; values from memory), as above,
+    # but written with capitals and given through a run folder whose config.yaml says the
+    # training corpus was lowercased: the words are lowercased for the grammar, the printed tree
+    # keeps them as written, and the published probabilities come out.
+    from treewright.cli import score as score_cmd
+    run_dir = tmp_path / "run"
+    run_dir.mkdir()
+    (run_dir / "grammar.pcfg").write_bytes(TEXTBOOK.read_bytes())
+    (run_dir / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
+    text = write(tmp_path / "s.txt", "Astronomers saw STARS with ears\n")
+    assert run(parse_cmd, [run_dir, text, "--decoder", "mbr", "--scores"]) == 0
+    captured = capsys.readouterr()
+    assert "lowercasing the input words" in captured.err
+    tree_text, logp, posterior = captured.out.strip().split("\t")
+    assert "Astronomers" in tree_text and "STARS" in tree_text and "stars" not in tree_text
+    assert math.exp(float(logp)) == pytest.approx(0.0009072, rel=1e-9)
+    assert float(posterior) == pytest.approx(0.0009072 / 0.0015876, rel=1e-9)
+    assert run(score_cmd, [run_dir, text, "--float64"]) == 0
+    first = json.loads(capsys.readouterr().out.splitlines()[0])
+    assert math.exp(first["logprob"]) == pytest.approx(0.0015876, rel=1e-9)
+    # The bare grammar file records no training settings: the capitals stay, and do not parse.
+    assert run(parse_cmd, [TEXTBOOK, text]) == 0
+    captured = capsys.readouterr()
+    assert captured.out.startswith("(NOPARSE Astronomers") and "unknown words" in captured.err
+
+
 def test_unparsed_predictions_are_counted(tmp_path):
     gold = write(tmp_path / "gold.trees", "(S (A (x a) (x b)) (x c))\n")
     pred = write(tmp_path / "pred.trees", Tree("NOPARSE", ["a", "b", "c"]).to_string() + "\n")

@@ -29,6 +29,36 @@ def read_sentences(path: str) -> list[tuple[int, list[str]]]:
     return out
 
 
+def as_trained(source, lines: list[tuple[int, list[str]]]) -> list[list[str]]:
+    """The words of `lines` normalised as the grammar's training corpus was.
+
+    source: an `export.GrammarSource`. A run folder or JSON export records its training config;
+    with `data.lowercase` the words are lowercased (as the corpus readers do), and a note goes
+    to standard error. A bare grammar file records nothing, so its words are taken as written.
+    """
+    config = (source.training or {}).get("config")
+    data = config.get("data") if isinstance(config, dict) else None
+    if not (isinstance(data, dict) and data.get("lowercase")):
+        return [words for _, words in lines]
+    print("lowercasing the input words, as the grammar's training run did (data.lowercase)",
+          file=sys.stderr)
+    return [[w.lower() for w in words] for _, words in lines]
+
+
+def with_words(tree, words: list[str]):
+    """A copy of `tree` whose leaves, left to right, are `words` (same count)."""
+    from treewright.trees import Tree
+    it = iter(words)
+
+    def copy(node):
+        if isinstance(node, str):
+            return next(it)
+        return Tree(node.label, [copy(child) for child in node.children])
+
+    # Decoded trees are binary, so their depth is at most the sentence length.
+    return copy(tree)
+
+
 def dumps(obj) -> str:
     """JSON with -inf/nan written as null (strict JSON has no infinities)."""
     def clean(x):

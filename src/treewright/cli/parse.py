@@ -43,24 +43,26 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import read_sentences
+    from treewright.cli.common import as_trained, read_sentences, with_words
     from treewright.decode import decode
-    from treewright.export import load as load_grammar  # text, JSON export or run folder
+    from treewright.export import open_grammar  # text, JSON export or run folder
 
-    grammar = load_grammar(args.grammar)
+    source = open_grammar(args.grammar)
+    grammar = source.grammar
     lines = read_sentences(args.text)
-    results = decode(grammar, [w for _, w in lines], args.decoder, args.batch_size)
+    inputs = as_trained(source, lines)
+    results = decode(grammar, inputs, args.decoder, args.batch_size)
     unparsed = 0
-    for (line, words), result in zip(lines, results):
+    for (line, words), normalised, result in zip(lines, inputs, results):
         if result.tree is None:
             unparsed += 1
-            unknown = [w for w in words if w not in grammar.vocab]
+            unknown = [w for w in normalised if w not in grammar.vocab]
             why = f"unknown words {unknown}" if unknown else "no tree covers it"
             where = "<stdin>" if args.text == "-" else args.text
             print(f"{where}, line {line}: no parse ({why})", file=sys.stderr)
             fields = ["(NOPARSE " + " ".join(words) + ")"]
         else:
-            fields = [result.tree.to_string()]
+            fields = [with_words(result.tree, words).to_string()]  # the words as written
         if args.scores:
             fields += [repr(result.tree_logprob), repr(result.posterior)]
         if args.objective:

@@ -24,14 +24,15 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import torch
 
-    from treewright.cli.common import dumps, read_sentences
-    from treewright.export import load as load_grammar  # text, JSON export or run folder
+    from treewright.cli.common import as_trained, dumps, read_sentences
+    from treewright.export import open_grammar  # text, JSON export or run folder
     from treewright.inference import corpus_summary, score
 
-    grammar = load_grammar(args.grammar)
+    source = open_grammar(args.grammar)
+    grammar = source.grammar
     lines = read_sentences(args.text)
     dtype = torch.float64 if args.float64 else torch.float32
-    scores = score(grammar, [w for _, w in lines], args.batch_size, dtype)
+    scores = score(grammar, as_trained(source, lines), args.batch_size, dtype)
     for (line, _), s in zip(lines, scores):
         print(dumps({"line": line, "tokens": s.words, "logprob": s.logprob,
                      "parsed": s.parsed, "unknown": s.unknown}))
