@@ -39,6 +39,29 @@ def test_estimate_covers_the_measured_peak(batch, length, nt, t, per_sentence):
                                             rules_per_sentence=per_sentence) / 2 ** 20
 
 
+@pytest.mark.parametrize("batch,length,nt,t,rank", [(8, 30, 60, 120, 100), (4, 20, 250, 500, 500)])
+def test_lowrank_estimate_covers_the_measured_peak(batch, length, nt, t, rank):
+    # As above, for the low-rank kernel (engine.lowrank) and its own estimate.
+    code = (
+        "import resource, torch\n"
+        "from treewright.engine.lowrank import lowrank_log_partition\n"
+        f"B, N, NT, T, R = {batch}, {length}, {nt}, {t}, {rank}\n"
+        "S = NT + T\n"
+        "root = torch.randn(NT).log_softmax(0)\n"
+        "u = torch.randn(NT, R).log_softmax(1).requires_grad_()\n"
+        "v = torch.randn(S, R).log_softmax(0).requires_grad_()\n"
+        "w = torch.randn(S, R).log_softmax(0).requires_grad_()\n"
+        "term = torch.randn(B, N, T)\n"
+        "base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "lowrank_log_partition(root, u, v, w, term, torch.full((B,), N)).sum().backward()\n"
+        "print((resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - base) / 1024)\n")
+    measured = _peak_mib(code)
+    estimate = inside_outside_bytes(batch, length, nt, t, rank=rank) / 2 ** 20
+    # Covers the peak, but not by more than the slack and the fixed chunk allowance: a budget
+    # must not shrink low-rank batches for nothing.
+    assert measured <= estimate <= 4 * measured + 12   # 12 MiB: twice the chunk allowance
+
+
 def test_training_with_200_word_sentences_stays_under_the_budget(tmp_path):
     words = [f"w{i}" for i in range(12)]
     lines = [" ".join(words[(k + j) % 12] for j in range(3 + k % 6)) for k in range(60)]

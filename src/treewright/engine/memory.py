@@ -19,11 +19,17 @@ CHUNKS_IN_FLIGHT = 6  # backward: weighted children, split sums, their adjoints,
 
 
 def inside_outside_bytes(batch: int, length: int, nonterminals: int, preterminals: int,
-                         itemsize: int = 4, rules_per_sentence: bool = False) -> int:
+                         itemsize: int = 4, rules_per_sentence: bool = False,
+                         rank: int | None = None) -> int:
     """Estimated peak bytes of `log_partition` forward and backward for `batch` sentences padded
     to `length` words. With `rules_per_sentence` (compound grammars) each sentence also has its
     own rule tensor, probabilities and gradient (3 x NT x S^2) and padded rule blocks with their
-    gradients (2 x (NT'^3 + 2 T NT'^2 + T^2 NT'))."""
+    gradients (2 x (NT'^3 + 2 T NT'^2 + T^2 NT')). With `rank`, the estimate is that of
+    `engine.lowrank` instead (see `_lowrank_floats`)."""
+    if rank is not None:
+        per_sentence, fixed = _lowrank_floats(length, nonterminals, preterminals, rank)
+        return int(SLACK * (itemsize * (batch * per_sentence + fixed)
+                            + CHUNKS_IN_FLIGHT * CHUNK_BYTES))
     nt = -(-nonterminals // 8) * 8
     n1 = length + 1
     charts = 5 * n1 * n1 * nt
@@ -37,3 +43,19 @@ def inside_outside_bytes(batch: int, length: int, nonterminals: int, preterminal
         t = preterminals
         per_sentence += 3 * nonterminals * s * s + 2 * (nt ** 3 + 2 * t * nt * nt + t * t * nt)
     return int(SLACK * (itemsize * batch * per_sentence + CHUNKS_IN_FLIGHT * CHUNK_BYTES))
+
+
+def _lowrank_floats(length: int, nonterminals: int, preterminals: int, rank: int
+                    ) -> tuple[int, int]:
+    """(numbers per sentence, numbers per call) of `engine.lowrank` forward and backward.
+
+    Per sentence: the two projection charts and their adjoints, 4 x (N+1)^2 x R; every span's
+    cell and rank sum with their adjoints (the backward also keeps both projections'
+    adjoints), about N^2/2 x (2 NT + 3 R); the split weights, N^3/6; the words, 3 N T. Per
+    call: the factors, their exponentials and gradients, 8 x S x R.
+    """
+    n1 = length + 1
+    spans = length * length // 2 + 1
+    per_sentence = (4 * n1 * n1 * rank + spans * (2 * nonterminals + 3 * rank)
+                    + length ** 3 // 6 + 3 * length * preterminals)
+    return per_sentence, 8 * (nonterminals + preterminals) * rank

@@ -275,7 +275,8 @@ class Trainer:
         m = self.cfg.model
         return inside_outside_bytes(1, length, m.nonterminals, m.preterminals,
                                     torch.finfo(self.dtype).bits // 8,
-                                    rules_per_sentence=m.parameterization == "compound")
+                                    rules_per_sentence=m.parameterization == "compound",
+                                    rank=m.rank if m.parameterization == "lowrank" else None)
 
     @property
     def budget_bytes(self) -> float | None:
