@@ -65,6 +65,21 @@ def test_normalisation_and_vocabulary(tmp_path):
     assert capped.vocabulary.words == ["salt", "gulls", UNK]
 
 
+def test_turkic_case_rules_lowercase_dotted_and_dotless_i(tmp_path):
+    # Reference: Unicode's SpecialCasing.txt, the "tr" and "az" conditional mappings (from
+    # memory): U+0049 I -> U+0131 dotless i, U+0130 dotted capital I -> U+0069 i. The default
+    # (language-independent) mappings are I -> i and U+0130 -> i + U+0307 combining dot above.
+    path = write(tmp_path, ["IŞIK İNCİ ile Ilık su"])
+    turkic = read_corpus(path, options=ReadOptions(lowercase=True, case_rules="turkic"))
+    assert turkic.sentences[0].tokens == ["\u0131\u015f\u0131k", "inci", "ile",
+                                          "\u0131l\u0131k", "su"]
+    plain = read_corpus(path, options=ReadOptions(lowercase=True))
+    assert plain.sentences[0].tokens == ["i\u015fik", "i\u0307nci\u0307", "ile", "il\u0131k",
+                                         "su"]
+    with pytest.raises(ValueError, match="case_rules"):
+        ReadOptions(case_rules="klingon").validate()
+
+
 def test_given_vocabulary_gives_the_unknown_rate(tmp_path):
     train = read_corpus(write(tmp_path, ["a b c", "a b"], "train.txt"))
     test = read_corpus(write(tmp_path, ["a z", "z z b"], "test.txt"),

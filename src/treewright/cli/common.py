@@ -40,9 +40,12 @@ def as_trained(source, lines: list[tuple[int, list[str]]]) -> list[list[str]]:
     data = config.get("data") if isinstance(config, dict) else None
     if not (isinstance(data, dict) and data.get("lowercase")):
         return [words for _, words in lines]
-    print("lowercasing the input words, as the grammar's training run did (data.lowercase)",
-          file=sys.stderr)
-    return [[w.lower() for w in words] for _, words in lines]
+    from treewright.corpus import CASE_RULES, lowercase
+    rules = data.get("case_rules", "default")
+    rules = rules if rules in CASE_RULES else "default"
+    print("lowercasing the input words, as the grammar's training run did (data.lowercase, "
+          f"{rules} case rules)", file=sys.stderr)
+    return [[lowercase(w, rules) for w in words] for _, words in lines]
 
 
 def with_words(tree, words: list[str]):

@@ -23,7 +23,8 @@ from treewright.corpus.brackets import clean_tree, iter_bracket_records, preterm
 from treewright.corpus.dependencies import (dependency_to_tree, iter_conllu_blocks,
                                             lift_to_projective, nonprojective_arcs)
 from treewright.corpus.lines import check_readable, iter_lines
-from treewright.corpus.types import Corpus, ReadOptions, ReadReport, Sentence, SkippedRecord
+from treewright.corpus.types import (Corpus, ReadOptions, ReadReport, Sentence, SkippedRecord,
+                                     lowercase)
 
 FORMATS = ("text", "brackets", "conllu")
 _CONLLU_EXTENSIONS = (".conllu", ".conll")
@@ -123,7 +124,7 @@ class CorpusStream:
 
     def _normalise(self, word: str) -> str:
         if self.options.lowercase:
-            word = word.lower()
+            word = lowercase(word, self.options.case_rules)
         if self.options.normalize_digits:
             word = _DIGIT.sub("0", word)
         return word

@@ -13,6 +13,18 @@ from treewright.trees import Tree
 from treewright.vocab import Vocabulary
 
 Format = Literal["auto", "text", "brackets", "conllu"]
+CaseRules = Literal["default", "turkic"]
+CASE_RULES = ("default", "turkic")
+
+
+def lowercase(word: str, rules: str = "default") -> str:
+    """`word` in lower case. "default" follows Unicode's language-independent mapping (Python's
+    str.lower: I -> i, and dotted capital I, U+0130, -> i + combining dot above); "turkic"
+    follows the Turkish and Azerbaijani rules of Unicode's SpecialCasing.txt: I -> dotless
+    i (U+0131) and U+0130 -> i."""
+    if rules == "turkic":
+        word = word.replace("I", "\u0131").replace("\u0130", "i")
+    return word.lower()
 
 # Preterminal labels treated as punctuation in the Penn Treebank tag set (from memory; the usual
 # list in unsupervised-parsing evaluation). Pass it as `ReadOptions.punct_labels` to drop them.
@@ -27,6 +39,7 @@ class ReadOptions:
     """
     # Token normalisation applies to words only; tags are case-significant and never changed.
     lowercase: bool = False
+    case_rules: CaseRules = "default"   # how `lowercase` maps capitals (see `lowercase`)
     # Replace every decimal digit by "0" so numbers share statistics (common practice).
     normalize_digits: bool = False
     # Tag mode: the model's tokens are POS tags instead of words. Raw text: the file's tokens are
@@ -76,6 +89,8 @@ class ReadOptions:
             problems.append(f"min_count must be >= 1, got {self.min_count}")
         if self.max_vocab is not None and self.max_vocab < 1:
             problems.append(f"max_vocab must be >= 1, got {self.max_vocab}")
+        if self.case_rules not in CASE_RULES:
+            problems.append(f"case_rules must be one of {CASE_RULES}, got {self.case_rules!r}")
         if self.nonprojective not in ("skip", "lift"):
             problems.append(f"nonprojective must be 'skip' or 'lift', got {self.nonprojective!r}")
         if self.dependency_labels not in ("upos", "fixed"):

@@ -26,6 +26,10 @@ class DataConfig:
     format: Literal["auto", "text", "brackets", "conllu"] = option(
         "auto", "Corpus format of both files; auto looks at the first lines.")
     lowercase: bool = option(False, "Lowercase words before building the vocabulary.")
+    case_rules: Literal["default", "turkic"] = option(
+        "default", "How lowercase maps capitals: default follows Unicode's language-independent "
+                   "rules (I becomes i, and dotted İ becomes i plus a combining dot); turkic "
+                   "those of Turkish and Azerbaijani (I becomes ı, İ becomes i).")
     tag_mode: bool = option(False, "Induce over POS tags instead of words (bracketed trees: "
                                    "preterminal labels; CoNLL-U: UPOS).")
     drop_tags: str | None = option(None, "Comma-separated tags whose words are removed from "

@@ -98,8 +98,9 @@ def load_data(cfg: TrainConfig) -> TrainData:
     vocabulary, and collect the partial brackets when `constraints.train_brackets` asks."""
     d = cfg.data
     drop = frozenset(t.strip() for t in (d.drop_tags or "").split(",") if t.strip())
-    options = ReadOptions(lowercase=d.lowercase, tag_mode=d.tag_mode, max_length=d.max_length,
-                          min_count=d.min_count, max_vocab=d.max_vocab, punct_labels=drop)
+    options = ReadOptions(lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
+                          max_length=d.max_length, min_count=d.min_count,
+                          max_vocab=d.max_vocab, punct_labels=drop)
     if d.stream_chunk is not None:
         train = StreamedCorpus(d.train, d.format, options, d.stream_chunk)
     else:
@@ -119,8 +120,8 @@ def load_data(cfg: TrainConfig) -> TrainData:
     dev_trees = None
     if d.dev is not None:
         dev = read_corpus(d.dev, d.format, ReadOptions(
-            lowercase=d.lowercase, tag_mode=d.tag_mode, max_length=d.max_length,
-            vocabulary=vocab, punct_labels=drop))
+            lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
+            max_length=d.max_length, vocabulary=vocab, punct_labels=drop))
         notes.append("dev corpus: " + dev.report.format().replace("\n", "; "))
         dev_ids = [dev.encode(s) for s in dev.sentences]
         dev_words = [list(s.words) for s in dev.sentences]
