@@ -21,8 +21,8 @@ from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, Corp
 from treewright.corpus.walk import depth, trees_equal
 
 __all__ = [
-    "BIN_MARK", "BracketRecord", "CASE_RULES", "Corpus", "CorpusStream", "DependencySentence", "FORMATS",
-    "PARENT_SEP", "PTB_PUNCT_LABELS", "REASONS", "ReadOptions", "ReadReport", "Sentence",
+    "BIN_MARK", "BracketRecord", "CASE_RULES", "Corpus", "CorpusStream", "DependencySentence",
+    "FORMATS", "PARENT_SEP", "PTB_PUNCT_LABELS", "REASONS", "ReadOptions", "ReadReport", "Sentence",
     "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
     "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format",
     "expand_unary", "iter_bracket_records", "iter_conllu_blocks", "iter_lines",
