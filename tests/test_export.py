@@ -387,3 +387,22 @@ def test_prune_cli_reports_heldout_before_and_after(velmar, tmp_path):
     assert "probability mass removed" in err
     pruned = load(tmp_path / "p.json")
     assert math.isclose(pruned.normalization_error(), 0.0, abs_tol=1e-12)
+
+
+def test_export_and_inspect_read_text_as_the_run_was_trained(tmp_path):
+    # Published worked example (Manning & Schuetze 1999, ch. 11; from memory): the Viterbi tree
+    # of "astronomers saw stars with ears" attaches "with ears" to "stars" (p = 0.0009072). The
+    # input is written in capitals and read through a run folder trained with data.lowercase.
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "grammar.pcfg").write_bytes(ASTRONOMERS.read_bytes())
+    (run / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
+    text = write_lines(tmp_path / "s.txt", [["Astronomers", "SAW", "stars", "with", "Ears"]])
+    out = tmp_path / "p.trees"
+    code, _, err = run_cli("export", run, "--to", "brackets", "--corpus", text, "--out", out)
+    assert code == 0 and "lowercasing the input words" in err
+    tree = out.read_text().split("\n")[0]
+    assert tree.split() == ("(S (NP Astronomers) (VP (V SAW) (NP (NP stars) (PP (P with) "
+                            "(NP Ears)))))").split()
+    code, listing, _ = run_cli("inspect", run, "--corpus", text, "--top", "2")
+    assert code == 0 and "without a parse" in listing and "(0 without a parse)" in listing

@@ -67,6 +67,26 @@ class Tree:
             yield node
             stack.extend(c for c in reversed(node.children) if isinstance(c, Tree))
 
+    def with_leaves(self, words: list[str]) -> "Tree":
+        """A copy whose leaves, left to right, are `words` (as many as the tree has)."""
+        words = list(words)
+        if len(words) != len(self):
+            raise ValueError(f"{len(words)} words for a tree of {len(self)} leaves")
+        it = iter(words)
+        root = Tree(self.label, [None] * len(self.children))
+        # Pre-order with an explicit stack (children pushed in reverse), so leaves come off it
+        # left to right; iterative, for the same reason as labeled_spans.
+        stack: list = [(child, root, k) for k, child in reversed(list(enumerate(self.children)))]
+        while stack:
+            node, parent, k = stack.pop()
+            if isinstance(node, str):
+                parent.children[k] = next(it)
+                continue
+            copy = Tree(node.label, [None] * len(node.children))
+            parent.children[k] = copy
+            stack.extend((child, copy, j) for j, child in reversed(list(enumerate(node.children))))
+        return root
+
     def to_string(self) -> str:
         """The bracketed notation, on one line: (S (NP (D the) (N ferry)) (V left))."""
         parts: list[str] = []

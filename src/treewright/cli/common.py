@@ -29,37 +29,32 @@ def read_sentences(path: str) -> list[tuple[int, list[str]]]:
     return out
 
 
-def as_trained(source, lines: list[tuple[int, list[str]]]) -> list[list[str]]:
-    """The words of `lines` normalised as the grammar's training corpus was.
+def training_normaliser(source):
+    """How the grammar's training run normalised its words, as a function, or None.
 
     source: an `export.GrammarSource`. A run folder or JSON export records its training config;
-    with `data.lowercase` the words are lowercased (as the corpus readers do), and a note goes
-    to standard error. A bare grammar file records nothing, so its words are taken as written.
+    with `data.lowercase` the words were lowercased (by `data.case_rules`), and a note goes to
+    standard error. A bare grammar file records nothing, so its words are taken as written.
     """
     config = (source.training or {}).get("config")
     data = config.get("data") if isinstance(config, dict) else None
     if not (isinstance(data, dict) and data.get("lowercase")):
-        return [words for _, words in lines]
+        return None
     from treewright.corpus import CASE_RULES, lowercase
     rules = data.get("case_rules", "default")
     rules = rules if rules in CASE_RULES else "default"
     print("lowercasing the input words, as the grammar's training run did (data.lowercase, "
           f"{rules} case rules)", file=sys.stderr)
-    return [[lowercase(w, rules) for w in words] for _, words in lines]
+    return lambda word: lowercase(word, rules)
 
 
-def with_words(tree, words: list[str]):
-    """A copy of `tree` whose leaves, left to right, are `words` (same count)."""
-    from treewright.trees import Tree
-    it = iter(words)
-
-    def copy(node):
-        if isinstance(node, str):
-            return next(it)
-        return Tree(node.label, [copy(child) for child in node.children])
-
-    # Decoded trees are binary, so their depth is at most the sentence length.
-    return copy(tree)
+def as_trained(source, lines: list[tuple[int, list[str]]]) -> list[list[str]]:
+    """The words of `lines` normalised as the grammar's training corpus was (see
+    `training_normaliser`)."""
+    normalise = training_normaliser(source)
+    if normalise is None:
+        return [words for _, words in lines]
+    return [[normalise(w) for w in words] for _, words in lines]
 
 
 def dumps(obj) -> str:

@@ -52,7 +52,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import read_sentences
+    from treewright.cli.common import read_sentences, training_normaliser
     from treewright.errors import InputError
     from treewright.export import load_renaming, open_grammar, prune, rename_grammar
     from treewright.export.jsonformat import grammar_json_text
@@ -65,9 +65,16 @@ def run(args) -> int:
         raise InputError(f"--to {args.to} needs --corpus (the sentences to parse)")
     source = open_grammar(args.source)
     grammar = source.grammar
+    uses_text = args.corpus or ((args.prune_threshold is not None or args.prune_top is not None)
+                                and (args.train or args.heldout))
+    normalise = training_normaliser(source) if uses_text else None
+
+    def sentences(path):
+        return [[normalise(x) for x in w] if normalise else w for _, w in read_sentences(path)]
+
     if args.prune_threshold is not None or args.prune_top is not None:
-        train = [w for _, w in read_sentences(args.train)] if args.train else None
-        heldout = [w for _, w in read_sentences(args.heldout)] if args.heldout else None
+        train = sentences(args.train) if args.train else None
+        heldout = sentences(args.heldout) if args.heldout else None
         try:
             grammar, report = prune(grammar, args.prune_threshold or 0.0, args.prune_top,
                                     train, heldout)
@@ -85,14 +92,14 @@ def run(args) -> int:
     elif args.to == "listing":
         threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
         top = DEFAULT_TOP if args.top is None else (args.top or None)
-        counts = expected_counts(grammar, [w for _, w in lines]) if lines else None
+        counts = expected_counts(grammar, sentences(args.corpus)) if lines else None
         note = None if counts is None else (
             f"expected counts over {counts.sentences} sentences of {args.corpus} "
             f"({counts.unparsed} without a parse)")
         text = format_listing(named, summarize(named, counts, threshold, top), threshold, top,
                               note)
     else:
-        parsed = parse_corpus(grammar, lines, mapping)
+        parsed = parse_corpus(grammar, lines, mapping, normalise)
         unparsed = sum(1 for p in parsed if p.tree is None)
         if unparsed:
             print(f"{unparsed} of {len(parsed)} sentences had no parse (kept in the output)",

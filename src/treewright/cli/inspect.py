@@ -30,18 +30,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
-    from treewright.cli.common import read_sentences
+    from treewright.cli.common import as_trained, read_sentences
     from treewright.errors import InputError
     from treewright.export import load_renaming, open_grammar, rename_grammar
     from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
                                            format_listing, format_symbol, summarize,
                                            symbol_examples)
 
-    grammar = open_grammar(args.grammar).grammar
+    source = open_grammar(args.grammar)
+    grammar = source.grammar
     mapping = load_renaming(args.rename, grammar) if args.rename else {}
     named = rename_grammar(grammar, mapping)
     lines = read_sentences(args.corpus) if args.corpus else None
-    sentences = [w for _, w in lines] if lines else None
+    sentences = as_trained(source, lines) if lines else None
     counts = expected_counts(named, sentences) if sentences else None
     if args.symbol is None:
         threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
@@ -64,7 +65,7 @@ def run(args) -> int:
         for e in examples:
             mark = "viterbi" if e.in_viterbi else "       "
             print(f"  {e.posterior:.4f}  {mark}  line {lines[e.sentence][0]} "
-                  f"[{e.start}:{e.end}]  {' '.join(e.words)}")
+                  f"[{e.start}:{e.end}]  {' '.join(lines[e.sentence][1][e.start:e.end])}")
         if not examples:
             print("  (none: the symbol is used nowhere in this corpus)")
     return 0

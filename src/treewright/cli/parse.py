@@ -43,7 +43,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import as_trained, read_sentences, with_words
+    from treewright.cli.common import as_trained, read_sentences
     from treewright.decode import decode
     from treewright.export import open_grammar  # text, JSON export or run folder
 
@@ -62,7 +62,7 @@ def run(args) -> int:
             print(f"{where}, line {line}: no parse ({why})", file=sys.stderr)
             fields = ["(NOPARSE " + " ".join(words) + ")"]
         else:
-            fields = [with_words(result.tree, words).to_string()]  # the words as written
+            fields = [result.tree.with_leaves(words).to_string()]  # the words as written
         if args.scores:
             fields += [repr(result.tree_logprob), repr(result.posterior)]
         if args.objective:

@@ -16,7 +16,7 @@ bracketed tree) or `parse = none`.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
+from typing import Callable, Sequence
 
 from treewright.grammar import Grammar
 from treewright.inference import viterbi_parse
@@ -37,13 +37,20 @@ class ParsedSentence:
 
 
 def parse_corpus(grammar: Grammar, lines: Sequence[tuple[int, list[str]]],
-                 mapping: dict[str, str] | None = None) -> list[ParsedSentence]:
-    """Viterbi trees of (line number, words) pairs, labels renamed by `mapping` if given."""
+                 mapping: dict[str, str] | None = None,
+                 normalise: Callable[[str], str] | None = None) -> list[ParsedSentence]:
+    """Viterbi trees of (line number, words) pairs, labels renamed by `mapping` if given.
+
+    normalise: applied to each word before it is looked up in the grammar (as the training
+    corpus was normalised, e.g. lowercased); the trees keep the words as written."""
     from treewright.export.rename import rename_tree
 
-    results = viterbi_parse(grammar, [w for _, w in lines])
+    lookup = [[normalise(x) for x in w] if normalise else list(w) for _, w in lines]
+    results = viterbi_parse(grammar, lookup)
     out = []
     for (line, words), (tree, logp) in zip(lines, results):
+        if tree is not None and normalise:
+            tree = tree.with_leaves(words)
         if tree is not None and mapping:
             tree = rename_tree(tree, mapping)
         out.append(ParsedSentence(line, list(words), tree, logp))
