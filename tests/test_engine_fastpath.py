@@ -109,6 +109,15 @@ def test_rules_per_sentence_match_reference_sentence_by_sentence(nt, t, nt_emit)
         assert not grads[2][b, n:].any()
 
 
+def test_viterbi_and_sampling_refuse_rules_per_sentence():
+    from treewright.engine import sample_trees, viterbi
+    root, binary, terminal, lengths, _, _ = random_problem(3, 4, 2, 4, False, seed=3)
+    per_sentence = binary.expand(2, -1, -1, -1)
+    for fn in (viterbi, sample_trees):
+        with pytest.raises(ValueError, match="per sentence"):
+            fn(root, per_sentence, terminal, lengths)
+
+
 @pytest.mark.parametrize("n", [2, 3, 5, 8])
 def test_counts_binary_trees_when_every_score_is_one(n):
     # Brute force / fact of combinatorics (common practice): with one symbol of each kind and all

@@ -26,6 +26,9 @@ def sample_trees(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor
     when the sentence has no parse.
     """
     B, N, T = terminal.shape
+    if binary.dim() != 3:
+        raise ValueError("sample_trees takes one grammar for the batch, binary (NT, S, S); rules "
+                         "per sentence are supported by log_partition only")
     NT = binary.shape[0]
     if root.dim() == 1:
         root = root.expand(B, -1)

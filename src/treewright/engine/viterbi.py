@@ -37,6 +37,9 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
     one-word spans included, or None when the sentence has no parse.
     """
     B, N, T = terminal.shape
+    if binary.dim() != 3:
+        raise ValueError("viterbi takes one grammar for the batch, binary (NT, S, S); rules "
+                         "per sentence are supported by log_partition only")
     NT = binary.shape[0]
     if root.dim() == 1:
         root = root.expand(B, -1)
