@@ -26,10 +26,12 @@ per-operation overhead rather than arithmetic; `scripts/bench_inside.py` measure
   per-position matrices once per batch, and each span needs one row-vector product per edge.
 - The nonterminal axis is padded with zero symbols to a multiple of 8 (30 -> 32): the matrix
   kernels of the CPU run markedly faster on such sizes, and the zero rows change no sum.
-- The backward keeps the split weights, the weighted left children and the cell maxima, and
-  recomputes each chunk's split sums while they are in cache (on this machine's 2 MiB L2 that is
-  faster than reading them back from memory). It gathers the per-position rule gradients into
-  two buffers, folded by one product at the end.
+- The backward keeps the split weights and the cell maxima, and recomputes each chunk's weighted
+  children and split sums while they are in cache (on this machine's 2 MiB L2 that is faster
+  than reading them back from memory). It gathers the per-position rule gradients into two
+  buffers, folded by one product at the end.
+- Rules may also be given per sentence, (B, NT, S, S), as compound grammars need: the folds and
+  the rule products then become one product per sentence, the rest is unchanged.
 
 Shapes: B sentences, N = longest length, NT nonterminals, T preterminals, P = N - w + 1 spans,
 Q = NT padded.
