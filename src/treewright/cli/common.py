@@ -36,13 +36,11 @@ def training_normaliser(source):
     with `data.lowercase` the words were lowercased (by `data.case_rules`), and a note goes to
     standard error. A bare grammar file records nothing, so its words are taken as written.
     """
+    from treewright.corpus import lowercase, run_case_rules
     config = (source.training or {}).get("config")
-    data = config.get("data") if isinstance(config, dict) else None
-    if not (isinstance(data, dict) and data.get("lowercase")):
+    rules = run_case_rules(config.get("data") if isinstance(config, dict) else None)
+    if rules is None:
         return None
-    from treewright.corpus import CASE_RULES, lowercase
-    rules = data.get("case_rules", "default")
-    rules = rules if rules in CASE_RULES else "default"
     print("lowercasing the input words, as the grammar's training run did (data.lowercase, "
           f"{rules} case rules)", file=sys.stderr)
     return lambda word: lowercase(word, rules)

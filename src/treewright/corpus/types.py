@@ -26,6 +26,15 @@ def lowercase(word: str, rules: str = "default") -> str:
         word = word.replace("I", "\u0131").replace("\u0130", "i")
     return word.lower()
 
+
+def run_case_rules(data) -> str | None:
+    """The case rules by which a training run's `data` config section (as read from its
+    config.yaml) lowercased the words, or None when it kept them as written."""
+    if not (isinstance(data, dict) and data.get("lowercase")):
+        return None
+    rules = data.get("case_rules", "default")
+    return rules if rules in CASE_RULES else "default"
+
 # Preterminal labels treated as punctuation in the Penn Treebank tag set (from memory; the usual
 # list in unsupervised-parsing evaluation). Pass it as `ReadOptions.punct_labels` to drop them.
 PTB_PUNCT_LABELS = frozenset({",", ".", ":", "``", "''", "-LRB-", "-RRB-", "#", "$"})

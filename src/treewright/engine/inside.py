@@ -76,14 +76,13 @@ class Chart:
 class _Rules:
     """Probability-space rule blocks, nonterminal axes padded to Q (zeros).
 
-    With rules per sentence (`per_sentence`) every block has a leading sentence axis (B, ...).
+    With rules per sentence every block has a leading sentence axis (B, ...).
     """
     nn: Tensor      # (Q*Q, Q)  [(B, C), A] = p(A -> B C), both children nonterminal
     right: Tensor   # (T, Q*Q)  [c, (B, A)] = p(A -> B c)
     left: Tensor    # (T, Q*Q)  [b, (C, A)] = p(A -> b C)
     pair: Tensor    # (T, T*Q)  [c, (b, A)] = p(A -> b c), both children preterminal
     prob: Tensor    # (NT, S, S) the unpadded probabilities, reused by the backward
-    per_sentence: bool
 
 
 def _padded(nt: int) -> int:
@@ -112,7 +111,7 @@ def _rule_blocks(binary: Tensor, q: int) -> _Rules:
     pair = binary.new_zeros(*lead, t, t, q)
     pair[..., :nt] = _last3(rules[..., :, nt:, nt:], (2, 1, 0))
     return _Rules(nn.view(*lead, q * q, q), right.view(*lead, t, q * q),
-                  left.view(*lead, t, q * q), pair.view(*lead, t, t * q), rules, bool(lead))
+                  left.view(*lead, t, q * q), pair.view(*lead, t, t * q), rules)
 
 
 def _fold(vectors: Tensor, mats: Tensor) -> Tensor:
@@ -409,7 +408,8 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
 
     # Fold the per-position matrices back into rules and preterminal cells (per sentence when
     # the rules are: `lead` is () or (B,)).
-    lead, per = binary.shape[:-3], rules.per_sentence
+    lead = binary.shape[:-3]
+    per = bool(lead)
     gr = grad_right_mats.view(N, B, Q * Q)
     gl = grad_left_mats.view(N, B, Q * Q)
     adj_term += _unfold(gr, rules.right) + _unfold(gl, rules.left)

@@ -16,8 +16,8 @@ The cells use the scaled probabilities of `engine.inside` (each cell divided by 
 the log of which is kept as a scale that the gradient treats as a constant). The charts hold
 the rank projections of the cells, not the cells: the left-role projections indexed by start
 and the right-role projections by end, so that all left children of one width, and all right
-children, are one strided slice each. The backward is written by hand: autograd over per-width slices spends its time
-zero-filling and stacking, not multiplying.
+children, are one strided slice each. The backward is written by hand: autograd over per-width
+slices spends its time zero-filling and stacking, not multiplying.
 
 Shapes: B sentences, N longest length, NT nonterminals, T preterminals, R rank, P = N - w + 1.
 """
@@ -27,10 +27,9 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import prepare_inputs
+from treewright.engine.inside import CHUNK_BYTES, prepare_inputs
 
 NEG_INF = float("-inf")
-CHUNK_BYTES = 2 ** 20  # per-split temporaries are made in chunks of spans of about this size
 
 
 def _span_chunk(floats_per_span: int) -> int:

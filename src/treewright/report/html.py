@@ -19,7 +19,7 @@ from typing import Sequence
 import torch
 import yaml
 
-from treewright.corpus import CASE_RULES, ReadOptions, Sentence, read_corpus
+from treewright.corpus import ReadOptions, Sentence, read_corpus, run_case_rules
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.trees import Tree, tree_from_spans
@@ -99,9 +99,8 @@ def _number(value) -> float | None:
 def _read_options(config: dict) -> ReadOptions:
     """Token options of the run's data section, so gold/text tokens match the grammar's words."""
     data = config.get("data") or {}
-    rules = data.get("case_rules", "default")
-    return ReadOptions(lowercase=bool(data.get("lowercase", False)),
-                       case_rules=rules if rules in CASE_RULES else "default",
+    rules = run_case_rules(data)
+    return ReadOptions(lowercase=rules is not None, case_rules=rules or "default",
                        tag_mode=bool(data.get("tag_mode", False)), nonprojective="lift")
 
 
