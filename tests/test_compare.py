@@ -140,3 +140,43 @@ def test_compare_command_prints_json(tmp_path):
     assert (data["brackets_a"], data["brackets_shared"]) == (4, 3)
     assert data["bracket_f1"] == pytest.approx(2 * 3 / 8)
     assert data["same_bracketing"] == 1 and data["both_parsed"] == 2
+
+
+def test_compare_reads_the_text_as_each_run_was_trained(tmp_path):
+    # Hand computation as in test_likelihood_and_bracket_agreement_by_hand, on the same
+    # sentence written with capitals. Run A's config.yaml says its corpus was lowercased, so A
+    # reads the words lowercased and gets the published likelihood; B is a bare grammar file,
+    # records no such setting, reads the capitals as written and parses nothing.
+    text = tmp_path / "s.txt"
+    text.write_text("Astronomers saw STARS with ears\n", encoding="utf-8")
+    run_a = tmp_path / "run-a"
+    run_a.mkdir()
+    (run_a / "grammar.pcfg").write_bytes(ASTRONOMERS.read_bytes())
+    (run_a / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
+    b = tmp_path / "b.pcfg"
+    b.write_text(ASTRONOMERS_VP_ATTACH, encoding="utf-8")
+    out = io.StringIO()
+    with redirect_stdout(out):
+        assert main(["compare", str(run_a), str(b), "--on", str(text), "--json"]) == 0
+    data = json.loads(out.getvalue())
+    assert data["heldout_a"]["log_likelihood"] == pytest.approx(math.log(0.0009072 + 0.0006804))
+    assert data["heldout_a"]["unparsed"] == 0 and data["heldout_b"]["unparsed"] == 1
+    assert data["both_parsed"] == 0
+    # B as a run folder trained the same way: both read "astronomers saw stars with ears", and
+    # the hand counts of the lowercase sentence come back (3 and 3 brackets, 2 shared).
+    run_b = tmp_path / "run-b"
+    run_b.mkdir()
+    (run_b / "grammar.pcfg").write_text(ASTRONOMERS_VP_ATTACH, encoding="utf-8")
+    (run_b / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
+    out = io.StringIO()
+    with redirect_stdout(out):
+        assert main(["compare", str(run_a), str(run_b), "--on", str(text), "--json"]) == 0
+    data = json.loads(out.getvalue())
+    assert data["heldout_b"]["log_likelihood"] == pytest.approx(math.log(0.0002268 + 0.0006804))
+    assert (data["brackets_a"], data["brackets_b"], data["brackets_shared"]) == (3, 3, 2)
+
+
+def test_compare_refuses_sentences_of_other_lengths():
+    a = load_grammar(ASTRONOMERS)
+    with pytest.raises(ValueError, match="one for one"):
+        compare(a, a, [["astronomers", "saw", "stars"]], [["astronomers", "saw"]])

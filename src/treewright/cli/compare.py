@@ -10,7 +10,8 @@ EXAMPLES = """examples:
 
 Reports each grammar's held-out log-likelihood on the text, how often their Viterbi trees agree
 on brackets (F1 of one against the other, whole-sentence and one-word spans left out), and the
-best one-to-one matching of their symbols by span overlap (an assignment problem).
+best one-to-one matching of their symbols by span overlap (an assignment problem). A run
+folder or JSON export whose training lowercased its words reads the text lowercased too.
 """
 
 
@@ -23,12 +24,15 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
-    from treewright.cli.common import dumps, read_sentences
-    from treewright.export import compare, load
+    from treewright.cli.common import as_trained, dumps, read_sentences
+    from treewright.export import compare, open_grammar
 
-    grammar_a, grammar_b = load(args.grammar_a), load(args.grammar_b)
-    sentences = [w for _, w in read_sentences(args.on)]
-    result = compare(grammar_a, grammar_b, sentences)
+    source_a, source_b = open_grammar(args.grammar_a), open_grammar(args.grammar_b)
+    lines = read_sentences(args.on)
+    # Each grammar reads the text as its own training run did (a run folder or JSON export
+    # records whether its words were lowercased); lowercasing keeps the tokens one for one.
+    result = compare(source_a.grammar, source_b.grammar, as_trained(source_a, lines),
+                     as_trained(source_b, lines))
     if args.json:
         print(dumps(result.to_dict()))
     else:

@@ -140,13 +140,23 @@ def match_symbols(counts: np.ndarray, symbols_a: list[str], symbols_b: list[str]
             [s for s in symbols_b if s not in used_b])
 
 
-def compare(grammar_a: Grammar, grammar_b: Grammar, sentences: Sequence[Sequence[str]]
-            ) -> Comparison:
-    """Compare two grammars on tokenised `sentences` (see the module docstring)."""
+def compare(grammar_a: Grammar, grammar_b: Grammar, sentences: Sequence[Sequence[str]],
+            sentences_b: Sequence[Sequence[str]] | None = None) -> Comparison:
+    """Compare two grammars on tokenised `sentences` (see the module docstring).
+
+    sentences_b: the same sentences as grammar B reads them, when its words were normalised
+    otherwise than A's (one run lowercased, the other not); each must have as many tokens as
+    its counterpart, so that spans mean the same in both. By default B reads `sentences`.
+    """
+    if sentences_b is None:
+        sentences_b = sentences
+    if len(sentences_b) != len(sentences) or any(
+            len(x) != len(y) for x, y in zip(sentences, sentences_b)):
+        raise ValueError("sentences_b must have the tokens of `sentences`, one for one")
     heldout_a = corpus_summary(score(grammar_a, sentences, dtype=torch.float64))
-    heldout_b = corpus_summary(score(grammar_b, sentences, dtype=torch.float64))
+    heldout_b = corpus_summary(score(grammar_b, sentences_b, dtype=torch.float64))
     trees_a = [t for t, _ in viterbi_parse(grammar_a, sentences)]
-    trees_b = [t for t, _ in viterbi_parse(grammar_b, sentences)]
+    trees_b = [t for t, _ in viterbi_parse(grammar_b, sentences_b)]
     result = Comparison(heldout_a, heldout_b, len(sentences), 0, 0, 0, 0, 0)
     for ta, tb in zip(trees_a, trees_b):
         if ta is None or tb is None:
