@@ -41,9 +41,10 @@ def _children_by_rank(pid: int) -> dict[int, int]:
     return out
 
 
-def _start(tmp_path, run: str) -> tuple[subprocess.Popen, Path, list[str]]:
-    overrides = _overrides(tmp_path, run, **{"train.epochs": 30,
-                                              "distributed.timeout_seconds": TIMEOUT})
+def _start(tmp_path, run: str, epochs: int = 30, **extra
+           ) -> tuple[subprocess.Popen, Path, list[str]]:
+    overrides = _overrides(tmp_path, run, **{"train.epochs": epochs,
+                                              "distributed.timeout_seconds": TIMEOUT, **extra})
     config = tmp_path / "config.yaml"
     config.write_text("{}\n")
     proc = subprocess.Popen([sys.executable, "-m", "treewright", "train", "--workers", "2",
@@ -105,4 +106,29 @@ def test_a_hung_worker_is_found_by_the_watchdog(tmp_path):
     assert proc.returncode == 1
     assert TIMEOUT <= waited < TIMEOUT + 10
     assert "rank 0: worker rank 1 has not been heard from for 5 s" in stderr, stderr
+    _finish(tmp_path, run_dir, overrides)
+
+
+EPOCHS = 200
+
+
+def test_ctrl_c_stops_every_worker_after_the_same_step_with_a_checkpoint(tmp_path):
+    # Ctrl-C reaches the launcher only (each worker runs in a session of its own); it must be
+    # passed on, not end the workers mid-step. Exit status 130 for an interrupt: common practice
+    # (128 + SIGINT's number 2).
+    from treewright.safeio import load_checkpoint
+    # Many epochs and no convergence test, so the run cannot end before the stop arrives.
+    proc, run_dir, overrides = _start(tmp_path, "ctrl-c", epochs=EPOCHS, **{"train.tolerance": 0})
+    proc.send_signal(signal.SIGINT)
+    _, stderr = proc.communicate(timeout=120)
+    assert proc.returncode == 130, stderr
+    assert "stop after this step" in stderr, stderr
+    assert f"treewright train --resume {run_dir} --workers 2" in stderr
+    assert "failed" not in stderr, stderr
+    assert not (run_dir / "grammar.pcfg").exists()  # it stopped before the end
+    # Nothing logged is lost: the checkpoint holds every epoch the metrics file shows.
+    _, meta = load_checkpoint(run_dir / "checkpoint.ckpt")
+    epochs_logged = (run_dir / "metrics.jsonl").read_text().count("train/loglik_per_word")
+    assert meta["position"]["epoch"] == epochs_logged < EPOCHS
+    # Resumed to the end, it gives the uninterrupted run's grammar (shorter, to save time).
     _finish(tmp_path, run_dir, overrides)

@@ -27,7 +27,7 @@ each runs the E-step or gradient of its share of every update, and the grammar a
 is the one a single process computes (up to summation order). Under torchrun (any number of
 machines) the same command runs as one worker of the job. Only rank 0 writes the run folder; a
 run may be resumed with any number of workers. A worker that dies ends the job with its rank
-named (distributed.timeout_seconds).
+named (distributed.timeout_seconds). Ctrl-C stops all the workers after the same step.
 """
 
 
@@ -47,7 +47,7 @@ def run(args) -> int:
     from treewright.errors import InputError
     from treewright.train import TrainingDiverged, load_train_config, resume, train
     from treewright.train.distributed import WorkerLost, launch_local, world_from_env
-    from treewright.train.loop import saved_config
+    from treewright.train.loop import CHECKPOINT, GRAMMAR, saved_config
 
     if args.resume is not None:
         if args.config is not None or args.overrides:
@@ -67,11 +67,16 @@ def run(args) -> int:
         own = ["--resume", args.resume] if args.resume is not None else \
             [args.config, *args.overrides]
         launched = launch_local(args.workers, ["train", *own])
+        again = f"treewright train --resume {run_dir} --workers {args.workers}"
         if launched.returncode != 0:
             print(f"treewright train: {launched.message}. Continue from the last checkpoint "
-                  f"with: treewright train --resume {run_dir} --workers {args.workers}",
-                  file=sys.stderr)
-        return launched.returncode
+                  f"with: {again}", file=sys.stderr)
+            return launched.returncode
+        if launched.interrupted and not (run_dir / GRAMMAR).exists():
+            print(f"treewright train: interrupted; the checkpoint {run_dir / CHECKPOINT} holds "
+                  f"the run so far. Continue it with: {again}", file=sys.stderr)
+            return 130
+        return 0  # rank 0 printed the grammar's path
     world = world_from_env(cfg.distributed.timeout_seconds,
                            cfg.distributed.collective_timeout_seconds)
     try:
@@ -95,8 +100,8 @@ def run(args) -> int:
         world.close(failure=f"{type(err).__name__}: {err}")
         raise
     world.close()
-    if not world.is_main:
-        return 0
+    if not world.is_main or "RANK" in os.environ and not hasattr(trainer, "grammar_path_"):
+        return 0  # a launcher started this worker: it reports the run's end
     if not hasattr(trainer, "grammar_path_"):  # Ctrl-C: stopped after a checkpoint
         print(f"treewright train: interrupted; the checkpoint {trainer.run_dir / 'checkpoint.ckpt'}"
               f" holds the run so far. Continue it with: treewright train --resume "

@@ -18,6 +18,12 @@ Processes are started by torchrun (`torch.distributed.run`), which sets RANK, WO
 MASTER_ADDR and MASTER_PORT; `treewright train CONFIG --workers N` runs that same launcher for
 N local processes on loopback (`launch_local`). Only rank 0 writes the run folder.
 
+Ctrl-C reaches only the launcher (torchrun starts each worker in a session of its own), so
+the launcher passes it on through the key-value store: it sets STOP_KEY, every worker's
+watchdog sees it within a heartbeat and asks its trainer to stop, and the workers agree by an
+all-reduce at each step boundary (`any_true`) to stop after the same step, with a checkpoint. A
+second Ctrl-C ends the workers at once.
+
 A dead peer must end the job, not hang it: the process group gets a timeout (the longest wait at
 one all-reduce), and a watchdog thread in every worker beats a counter in the launcher's
 key-value store every second and watches the others'; a worker not heard from for
@@ -35,6 +41,7 @@ import bisect
 import datetime
 import math
 import os
+import signal
 import socket
 import sys
 import threading
@@ -54,6 +61,8 @@ from treewright.vocab import Vocabulary
 
 HEARTBEAT_SECONDS = 1.0          # how often each worker beats; far below any sensible timeout
 EXIT_PEER_LOST = 3               # exit code of a worker ended by its watchdog
+WATCHDOG_PREFIX = "treewright/watchdog/"  # the watchdog's keys in the launcher's store
+STOP_KEY = "stop"                # set by the launcher on Ctrl-C: stop after this step
 
 
 class WorkerLost(RuntimeError):
@@ -120,6 +129,14 @@ class LocalWorld:
     def sum_gradients(self, params: Sequence[torch.Tensor]) -> None:
         """Replace each parameter's gradient by its sum over the workers (None counts as 0)."""
 
+    def any_true(self, flag: bool) -> bool:
+        """True when `flag` is true on any worker, so that all of them take the same branch."""
+        return flag
+
+    def on_stop_request(self, callback) -> None:
+        """Call `callback()` (from another thread) when the launcher passes on a Ctrl-C; one
+        process has no launcher, and its own SIGINT handler does the same."""
+
     def close(self, failure: str | None = None) -> None:
         """Leave the group (a no-op for one process); `failure` says why this worker stops
         early, for its peers' message."""
@@ -180,6 +197,14 @@ class GlooWorld(LocalWorld):
             p.grad = flat[offset:offset + g.numel()].reshape(g.shape).clone()
             offset += g.numel()
 
+    def any_true(self, flag):
+        votes = torch.tensor([1.0 if flag else 0.0], dtype=torch.float64)
+        self._all_reduce(votes)
+        return bool(votes.item() > 0)
+
+    def on_stop_request(self, callback):
+        self.watchdog.on_stop = callback
+
     def _all_reduce(self, tensor: torch.Tensor) -> None:
         try:
             dist.all_reduce(tensor)
@@ -198,7 +223,8 @@ class Watchdog(threading.Thread):
     """Beats this worker's counter in the launcher's store every HEARTBEAT_SECONDS and ends the
     process (exit code EXIT_PEER_LOST) once a peer's counter has not moved for
     `timeout_seconds`, or the store itself is unreachable that long. A peer that finished marks
-    itself done and is no longer watched."""
+    itself done and is no longer watched. When the launcher sets STOP_KEY, `on_stop` (if set)
+    is called once."""
 
     def __init__(self, rank: int, size: int, timeout_seconds: float):
         super().__init__(name="treewright-watchdog", daemon=True)
@@ -207,7 +233,8 @@ class Watchdog(threading.Thread):
         store = dist.TCPStore(os.environ["MASTER_ADDR"], int(os.environ["MASTER_PORT"]),
                               is_master=False,
                               timeout=datetime.timedelta(seconds=timeout_seconds))
-        self.store = dist.PrefixStore("treewright/watchdog/", store)
+        self.store = dist.PrefixStore(WATCHDOG_PREFIX, store)
+        self.on_stop = None
         self.stopped = threading.Event()
         self.lost: str | None = None
         self.found = threading.Event()
@@ -217,10 +244,14 @@ class Watchdog(threading.Thread):
         beats = {r: -1 for r in range(self.size) if r != self.rank}
         heard = {r: now for r in beats}
         store_ok = now
+        stop_seen = False
         while not self.stopped.wait(HEARTBEAT_SECONDS):
             now = time.monotonic()
             try:
                 self.store.add(f"beat/{self.rank}", 1)
+                if not stop_seen and self.on_stop is not None and self.store.check([STOP_KEY]):
+                    stop_seen = True
+                    self.on_stop()
                 for r in list(beats):
                     if self.store.check([f"failed/{r}"]):
                         why = self.store.get(f"failed/{r}").decode("utf-8", "replace")
@@ -270,10 +301,12 @@ class Watchdog(threading.Thread):
 
 @dataclass
 class Launch:
-    """What `launch_local` ran: the exit code, and the failed worker's rank when one failed."""
+    """What `launch_local` ran: the exit code, the failed worker's rank when one failed, and
+    whether a Ctrl-C asked the workers to stop."""
     returncode: int
     failed_rank: int | None = None
     message: str = ""
+    interrupted: bool = False
 
 
 def free_port() -> int:
@@ -286,15 +319,42 @@ def free_port() -> int:
 def launch_local(workers: int, module_args: Sequence[str]) -> Launch:
     """Run `python -m treewright <module_args>` in `workers` processes on this machine through
     torchrun's own entry point (static rendezvous on 127.0.0.1, a free port, no restarts: a
-    failed worker stops the others and the job)."""
+    failed worker stops the others and the job).
+
+    The first Ctrl-C (SIGINT) is passed on to the workers through the store (STOP_KEY): they
+    stop together after the current step, with a checkpoint, and `interrupted` is set. The
+    second ends them at once (returncode 130)."""
     from torch.distributed.elastic.multiprocessing.errors import ChildFailedError
     from torch.distributed.run import get_args_parser, run
 
-    args = get_args_parser().parse_args([
-        "--nnodes", "1", "--nproc-per-node", str(workers), "--node-rank", "0",
-        "--master-addr", "127.0.0.1", "--master-port", str(free_port()),
-        "--max-restarts", "0", "--monitor-interval", "0.2", "-m", "treewright",
-        *module_args])
+    port = free_port()
+    parser = get_args_parser()
+    options = ["--nnodes", "1", "--nproc-per-node", str(workers), "--node-rank", "0",
+               "--master-addr", "127.0.0.1", "--master-port", str(port),
+               "--max-restarts", "0", "--monitor-interval", "0.2"]
+    # torchrun's launcher would turn SIGINT into a shutdown of the workers: leave it to us.
+    # (Older torch releases lack the option; there a Ctrl-C ends the workers at once.)
+    passes_on = "--signals-to-handle" in parser._option_string_actions
+    if passes_on:
+        options += ["--signals-to-handle", "SIGTERM,SIGHUP,SIGQUIT"]
+    args = parser.parse_args([*options, "-m", "treewright", *module_args])
+    requested = []
+
+    def pass_on(signum, frame):
+        if requested:
+            raise KeyboardInterrupt
+        requested.append(True)
+        try:
+            store = dist.TCPStore("127.0.0.1", port, is_master=False,
+                                  timeout=datetime.timedelta(seconds=5))
+            dist.PrefixStore(WATCHDOG_PREFIX, store).set(STOP_KEY, "1")
+        except (RuntimeError, dist.DistError):
+            raise KeyboardInterrupt from None  # no store yet: the workers have not started
+        print("\ninterrupt: the workers stop after this step with a checkpoint (Ctrl-C again "
+              "to stop at once)", file=sys.stderr, flush=True)
+
+    on_main = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGINT, pass_on) if on_main and passes_on else None
     try:
         run(args)
     except ChildFailedError as err:
@@ -305,8 +365,13 @@ def launch_local(workers: int, module_args: Sequence[str]) -> Launch:
         elif failure.exitcode == EXIT_PEER_LOST:
             how = "ended by its watchdog after losing a peer"
         return Launch(1, rank, f"worker rank {rank} (pid {failure.pid}) failed: {how}; the "
-                               f"other workers were stopped")
-    return Launch(0)
+                               f"other workers were stopped", bool(requested))
+    except KeyboardInterrupt:
+        return Launch(130, None, "stopped at once by a second Ctrl-C", True)
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGINT, previous)
+    return Launch(0, interrupted=bool(requested))
 
 
 def world_from_env(timeout_seconds: float, collective_seconds: float) -> LocalWorld:

@@ -64,6 +64,7 @@ from treewright.train.metrics import rule_entropies, unigram_logprobs
 from treewright.train.schedule import learning_rate
 
 CHECKPOINT = "checkpoint.ckpt"
+GRAMMAR = "grammar.pcfg"  # the finished run's grammar
 CHECKPOINT_VERSION = 1
 EM_FAMILY = ("em", "map_em", "vb")
 
@@ -584,6 +585,7 @@ class Trainer:
                        f"batch {position.batch}")
         self.loggers = _Loggers(self.run_dir, self.cfg, enabled=self.world.is_main)
         previous_handler = self._catch_sigint()
+        self.world.on_stop_request(self._request_stop)
         try:
             if not self.resume and self.data.dev_ids:
                 baseline = unigram_logprobs(self.data.train_ids, self.data.dev_ids,
@@ -629,19 +631,29 @@ class Trainer:
     def _catch_sigint(self):
         """Make Ctrl-C stop at the next step boundary, after a checkpoint (`interrupted_` is
         then True and `run` returns False); a second Ctrl-C interrupts at once. Returns the
-        handler to restore, or None off the main thread, where signals cannot be caught."""
+        handler to restore, or None off the main thread, where signals cannot be caught.
+        (Workers started by a launcher hear of a Ctrl-C from it, through `_request_stop`.)"""
         if threading.current_thread() is not threading.main_thread():
             return None
 
-        def request_stop(signum, frame):
+        def on_sigint(signum, frame):
             if self.interrupted_:
                 raise KeyboardInterrupt
-            self.interrupted_ = True
+            self._request_stop()
             self.stream.write("\ninterrupt: stopping after this step with a checkpoint "
                               "(Ctrl-C again to stop at once)\n")
             self.stream.flush()
 
-        return signal.signal(signal.SIGINT, request_stop)
+        return signal.signal(signal.SIGINT, on_sigint)
+
+    def _request_stop(self) -> None:
+        self.interrupted_ = True
+
+    def _stop_now(self, max_steps: int | None, session: list[int]) -> bool:
+        """Whether to stop at this step boundary: on a Ctrl-C heard by any worker (all of them
+        vote, so that they stop after the same step), or after `max_steps` in this session."""
+        interrupted = self.world.any_true(self.interrupted_)
+        return interrupted or max_steps is not None and session[0] >= max_steps
 
     def _run_restart(self, restart: int, position: Position, session: list[int],
                      max_steps: int | None) -> bool:
@@ -706,8 +718,7 @@ class Trainer:
             if converged:
                 self._note(f"restart {restart}: converged after epoch {epoch} (objective per "
                            f"word improved by less than {cfg.train.tolerance})")
-            if (self.interrupted_ or max_steps is not None and session[0] >= max_steps) and \
-                    position.epoch < cfg.train.epochs:
+            if self._stop_now(max_steps, session) and position.epoch < cfg.train.epochs:
                 return False
         return True
 
@@ -740,7 +751,7 @@ class Trainer:
                 self.loggers.log(step_metrics, position.step)
             last = k + 1 == len(plan)
             every = out.checkpoint_every_steps
-            stop = self.interrupted_ or max_steps is not None and session[0] >= max_steps
+            stop = self._stop_now(max_steps, session)
             if not last and (stop or (every is not None and position.step % every == 0)):
                 self.checkpoint(position)
             if stop and not last:
@@ -808,12 +819,12 @@ class Trainer:
         best = max(position.finished, key=key)
         self.best_restart_ = best["restart"]
         self.results_ = position.finished
-        self.grammar_path_ = self.run_dir / "grammar.pcfg"
+        self.grammar_path_ = self.run_dir / GRAMMAR
         if not self.world.is_main:
             return
         # Copy the bytes rather than re-render: the result is exactly the restart's file. Written
         # atomically, so a kill mid-copy never leaves a half-written grammar.pcfg.
-        atomic_write_bytes(self.run_dir / "grammar.pcfg",
+        atomic_write_bytes(self.run_dir / GRAMMAR,
                            (self.run_dir / best["grammar"]).read_bytes())
         result = {"best_restart": best["restart"], "selected_by": "dev log-likelihood"
                   if self.data.dev_ids else "training objective",
