@@ -48,6 +48,23 @@ def test_quick_demo_writes_every_artifact_and_each_loads(tmp_path):
     assert "conventions" in scores
     assert a["listing"].read_text().strip()
     assert "<svg" in a["report"].read_text()
+    # Run again into the same folder, as a newcomer repeating the Quick start does: the earlier
+    # demo's runs (finished, with their checkpoints) are replaced, not refused.
+    again = run_demo(tmp_path / "demo", "quick", stream=io.StringIO())
+    assert load_grammar(again.artifacts["grammar"]).to_text() == induced.to_text()
+
+
+def test_the_demo_leaves_a_run_folder_it_did_not_make_alone(tmp_path):
+    import pytest
+
+    from treewright.demo import run_demo
+    from treewright.errors import InputError
+    mine = tmp_path / "demo" / "train"
+    mine.mkdir(parents=True)
+    (mine / "config.yaml").write_text("# my own run\n", encoding="utf-8")
+    with pytest.raises(InputError, match="not one the demo made"):
+        run_demo(tmp_path / "demo", "quick", stream=io.StringIO())
+    assert (mine / "config.yaml").read_text(encoding="utf-8") == "# my own run\n"
 
 
 def test_readme_shell_examples_marked_runnable_run(tmp_path):

@@ -12,6 +12,7 @@ commands to run on one's own data.
 from __future__ import annotations
 
 import json
+import shutil
 import sys
 import time
 from dataclasses import dataclass, field
@@ -67,6 +68,23 @@ class _Stages:
         print("    " + text.replace("\n", "\n    "), file=self.stream, flush=True)
 
 
+DEMO_MARK = "treewright demo"  # in the config.yaml header of every run the demo starts
+
+
+def _fresh(folder: Path) -> Path:
+    """`folder` emptied for a new run when an earlier demo left one there (a finished run keeps
+    its checkpoint, which a new run would refuse); any other run folder is left alone."""
+    if folder.exists() and any(folder.iterdir()):
+        config = folder / "config.yaml"
+        header = config.read_text(encoding="utf-8").split("\n", 1)[0] if config.exists() else ""
+        if DEMO_MARK not in header:
+            from treewright.errors import InputError
+            raise InputError("this folder is not one the demo made; give the demo another "
+                             "--out folder", path=str(folder))
+        shutil.rmtree(folder)
+    return folder
+
+
 def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
              stream: TextIO | None = None) -> DemoResult:
     from treewright.corpus import read_corpus
@@ -103,14 +121,14 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
 
     stages.begin(f"Inducing a grammar with EM ({plan['epochs']} iterations, 10 nonterminals, "
                  "20 preterminals)")
-    train_dir = out / "train"
+    train_dir = _fresh(out / "train")
     cfg = load_train_config(None, [
         f"data.train={train_path}", f"data.dev={data / 'dev.trees'}",
         "data.min_count=2",  # singletons train the unknown-word token, so new words parse
         "model.nonterminals=10", "model.preterminals=20", f"train.epochs={plan['epochs']}",
         f"train.restarts={plan['restarts']}", f"output.run_dir={train_dir}",
         "output.stdout_metrics=false"])
-    trainer = train(cfg, train_dir, stream=stream, config_source="treewright demo")
+    trainer = train(cfg, train_dir, stream=stream, config_source=DEMO_MARK)
     grammar = load_grammar(trainer.grammar_path_)
     result.artifacts["grammar"] = trainer.grammar_path_
     result.artifacts["metrics"] = train_dir / "metrics.jsonl"
@@ -154,13 +172,13 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
 
     stages.begin(f"Refining the induced categories by split-merge ({plan['refine_cycles']} "
                  "cycle from raw text)")
-    refine_dir = out / "refine"
+    refine_dir = _fresh(out / "refine")
     rcfg = load_refine_config(None, [
         "data.start=text", f"data.train={train_path}", f"data.dev={data / 'dev.txt'}",
         f"data.grammar={trainer.grammar_path_}", f"refine.cycles={plan['refine_cycles']}",
         f"refine.em_iterations={plan['refine_iterations']}", "refine.smoothed_iterations=1",
         f"output.run_dir={refine_dir}", "output.stdout_metrics=false"])
-    refined = refine(rcfg, refine_dir, stream=stream, config_source="treewright demo")
+    refined = refine(rcfg, refine_dir, stream=stream, config_source=DEMO_MARK)
     result.artifacts["refined grammar"] = refined.grammar_path
     for m in refined.metrics:
         stages.say(f"cycle {m.get('cycle')}: {m.get('fine_symbols')} symbols, held-out "
