@@ -12,7 +12,7 @@ from treewright.refine.latent import (LatentGrammar, coarse_name, fine_name, lat
                                       normalize)
 from treewright.refine.run import (CycleSettings, RefineResult, cnf_tree, em_on_text,
                                    em_on_trees, estimate_coarse, labeled_f1, map_words, refine,
-                                   text_cycle, tree_cycle)
+                                   refine_resume, text_cycle, tree_cycle)
 from treewright.refine.signatures import UNKNOWN, WordClasses, signature
 from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
 from treewright.refine.summary import subcategory_summary, summary_text
@@ -24,7 +24,8 @@ __all__ = [
     "CycleSettings", "LatentGrammar", "RefineConfig", "RefineResult", "TreeEStep", "TreeSet",
     "UNKNOWN", "WordClasses", "cnf_tree", "coarse_name", "em_on_text", "em_on_trees",
     "estimate_coarse", "fine_name", "labeled_f1", "latent_from_grammar", "load_refine_config",
-    "map_words", "merge", "merge_losses", "merge_plan", "normalize", "refine", "signature",
+    "map_words", "merge", "merge_losses", "merge_plan", "normalize", "refine", "refine_resume",
+    "signature",
     "smooth", "split", "subcategory_summary", "summary_text", "text_cycle", "text_estep",
     "text_loglik", "tree_cycle", "tree_estep", "tree_inside", "tree_loglik", "tree_set",
     "viterbi_coarse_trees",

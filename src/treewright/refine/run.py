@@ -3,6 +3,12 @@
 Run folder (like training's): config.yaml (resolved), refine.log, metrics.jsonl, tensorboard/,
 coarse.pcfg (the unrefined start), cycle-<c>.pcfg and summary-<c>.txt per cycle, and the result
 grammar.pcfg with summary.txt and summary.json beside it.
+
+After each reported cycle, refine.ckpt holds the latent grammar bit for bit, the random
+generator's state and the metrics so far, so `refine_resume` continues an interrupted run to
+exactly the grammar the uninterrupted run ends with: the data are read and prepared again the
+same way (their coarse rules must match the checkpoint's), and the cycles after the last one
+checkpointed run as they would have.
 """
 
 from __future__ import annotations
@@ -20,15 +26,15 @@ from treewright.corpus import (ReadOptions, binarize, collapse_unary, expand_una
                                split_indices, unbinarize)
 from treewright.errors import InputError
 from treewright.grammar import parse_grammar
-from treewright.refine.config import RefineConfig
+from treewright.refine.config import RefineConfig, load_refine_config
 from treewright.refine.latent import LatentGrammar, latent_from_grammar, normalize
 from treewright.refine.signatures import UNKNOWN, WordClasses
 from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
 from treewright.refine.summary import subcategory_summary, summary_text
 from treewright.refine.text import text_estep, text_loglik, viterbi_coarse_trees
 from treewright.refine.trees import TreeSet, tree_estep, tree_loglik, tree_set
-from treewright.safeio import atomic_write_text
-from treewright.tracking import open_loggers
+from treewright.safeio import atomic_write_text, check_writable, load_checkpoint, save_checkpoint
+from treewright.tracking import METRICS_FILE, open_loggers
 from treewright.trees import Tree
 
 
@@ -187,10 +193,17 @@ class RefineResult:
     metrics: list[dict] = field(default_factory=list)
 
 
+REFINE_CHECKPOINT = "refine.ckpt"
+REFINE_CHECKPOINT_VERSION = 1
+_GRAMMAR_TENSORS = ("rules", "words", "tops", "binary", "lexical", "root", "splits")
+
+
 class _Log:
-    def __init__(self, run_dir: Path, stream: TextIO | None):
+    def __init__(self, run_dir: Path, stream: TextIO | None, resume: bool = False):
         self.path = run_dir / "refine.log"
         self.lines: list[str] = []
+        if resume and self.path.exists():
+            self.lines = self.path.read_text(encoding="utf-8").splitlines()
         self.stream = stream
 
     def note(self, text: str) -> None:
@@ -225,31 +238,103 @@ def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,
     """Run the refinement `cfg` describes into `run_dir` (created if needed)."""
     run_dir = Path(run_dir)
     run_dir.mkdir(parents=True, exist_ok=True)
+    check_writable(run_dir)
+    if (run_dir / REFINE_CHECKPOINT).exists():
+        raise InputError("the run folder already holds a refinement checkpoint; continue it "
+                         "with --resume or choose another output.run_dir", path=str(run_dir))
     header = f"resolved config of treewright refine {config_source or ''}".rstrip()
     atomic_write_text(run_dir / "config.yaml", dump_config_yaml(cfg, header))
-    log = _Log(run_dir, stream)
+    return _refine(cfg, run_dir, stream, None)
+
+
+def refine_resume(run_dir: str | Path, stream: TextIO | None = None) -> RefineResult:
+    """Continue the interrupted refinement in `run_dir` from its last checkpointed cycle, with
+    the config saved there; it ends with the grammar the uninterrupted run gives."""
+    run_dir = Path(run_dir)
+    ckpt = run_dir / REFINE_CHECKPOINT
+    if not ckpt.exists():
+        raise InputError("no refinement checkpoint here (a run writes one after each cycle)",
+                         path=str(run_dir))
+    check_writable(run_dir)
+    tensors, meta = load_checkpoint(ckpt)
+    if meta.get("version") != REFINE_CHECKPOINT_VERSION:
+        raise InputError(f"refinement checkpoint version {meta.get('version')} is not "
+                         f"{REFINE_CHECKPOINT_VERSION}", path=str(ckpt))
+    cfg = load_refine_config(run_dir / "config.yaml")
+    # Metrics logged after the checkpoint belong to a cycle that will run again.
+    metrics = run_dir / METRICS_FILE
+    if metrics.exists():
+        with open(metrics, "r+b") as f:
+            f.truncate(meta["metrics_bytes"])
+    return _refine(cfg, run_dir, stream, (tensors, meta))
+
+
+def _refine(cfg: RefineConfig, run_dir: Path, stream: TextIO | None, state) -> RefineResult:
+    log = _Log(run_dir, stream, resume=state is not None)
+    if state is not None:
+        log.note(f"resuming after cycle {state[1]['cycle']} of {cfg.refine.cycles}")
     backends = (["stdout"] if cfg.output.stdout_metrics else []) + ["jsonl"] + \
         (["tensorboard"] if cfg.output.tensorboard else [])
     loggers = open_loggers(run_dir, backends, stream)
     try:
         if cfg.data.start == "treebank":
-            return _refine_treebank(cfg, run_dir, log, loggers)
-        return _refine_text(cfg, run_dir, log, loggers)
+            return _refine_treebank(cfg, run_dir, log, loggers, state)
+        return _refine_text(cfg, run_dir, log, loggers, state)
     finally:
         loggers.close()
 
 
+def _checkpoint(run_dir: Path, lg: LatentGrammar, generator: torch.Generator, cycle: int,
+                result: RefineResult) -> None:
+    """refine.ckpt: what `_run_cycles` needs to go on after `cycle` (see the module docstring)."""
+    tensors = {name: getattr(lg, name) for name in _GRAMMAR_TENSORS}
+    tensors["generator"] = generator.get_state()
+    metrics = run_dir / METRICS_FILE
+    save_checkpoint(run_dir / REFINE_CHECKPOINT, tensors, {
+        "version": REFINE_CHECKPOINT_VERSION, "cycle": cycle, "symbols": lg.symbols,
+        "metrics": result.metrics,
+        "metrics_bytes": metrics.stat().st_size if metrics.exists() else 0})
+
+
+def _restore(lg: LatentGrammar, generator: torch.Generator, state, run_dir: Path,
+             result: RefineResult) -> tuple[LatentGrammar, int]:
+    """The checkpoint's latent grammar on the structure `lg` rebuilt from the data, and the
+    first cycle still to run; the generator and the metrics so far are set back too."""
+    tensors, meta = state
+    where = str(run_dir / REFINE_CHECKPOINT)
+    same = meta["symbols"] == lg.symbols and all(
+        torch.equal(tensors[name], getattr(lg, name)) for name in ("rules", "words", "tops"))
+    if not same:
+        raise InputError("the training data no longer give the coarse grammar this checkpoint "
+                         "was made from (a corpus file or data option changed since)",
+                         path=where)
+    generator.set_state(tensors["generator"])
+    result.metrics = list(meta["metrics"])
+    restored = lg.with_params(tensors["binary"], tensors["lexical"], tensors["root"],
+                              tensors["splits"])
+    return restored, int(meta["cycle"]) + 1
+
+
 def _run_cycles(cfg: RefineConfig, lg: LatentGrammar, cycle_step, report_cycle, run_dir: Path,
-                log: _Log, result: RefineResult) -> RefineResult:
-    """Report the unrefined grammar, then run and report each split-merge cycle; both starting
-    points share this, and differ only in `cycle_step` (one cycle on trees or on text)."""
-    report_cycle(0, lg, 0.0)
-    for cycle in range(1, cfg.refine.cycles + 1):
+                log: _Log, result: RefineResult, generator: torch.Generator, state
+                ) -> RefineResult:
+    """Report the unrefined grammar, then run and report each split-merge cycle, with a
+    checkpoint after each report; both starting points share this, and differ only in
+    `cycle_step` (one cycle on trees or on text). With `state` (a loaded checkpoint) it goes on
+    after the checkpoint's cycle instead."""
+    if state is None:
+        report_cycle(0, lg, 0.0)
+        _checkpoint(run_dir, lg, generator, 0, result)
+        first = 1
+    else:
+        lg, first = _restore(lg, generator, state, run_dir, result)
+    for cycle in range(first, cfg.refine.cycles + 1):
         began = time.perf_counter()
         lg = cycle_step(lg)
         seconds = time.perf_counter() - began
         _save(lg, run_dir, f"cycle-{cycle}.pcfg")
         report_cycle(cycle, lg, seconds)
+        _checkpoint(run_dir, lg, generator, cycle, result)
     result.grammar = lg
     _save(lg, run_dir, "grammar.pcfg")
     log.note(f"refined grammar: {result.grammar_path}")
@@ -275,7 +360,8 @@ def _write_summary(lg, usage, run_dir: Path, stem: str, top: int) -> None:
                       + "\n")
 
 
-def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> RefineResult:
+def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
+                     ) -> RefineResult:
     d, form = cfg.data, cfg.tree_form
     sentences, report = _read(d.train, d.format, d.max_length)
     log.note(f"training corpus: {report}")
@@ -343,10 +429,11 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> Re
         _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
 
     return _run_cycles(cfg, lg, lambda g: tree_cycle(g, ts_train, settings, generator),
-                       report_cycle, run_dir, log, result)
+                       report_cycle, run_dir, log, result, generator, state)
 
 
-def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> RefineResult:
+def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
+                 ) -> RefineResult:
     d = cfg.data
     assert d.grammar is not None
     path = Path(d.grammar)
@@ -392,4 +479,4 @@ def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers) -> Refine
 
     return _run_cycles(cfg, lg, lambda g: text_cycle(g, train_ids, train_words, settings,
                                                      generator, cfg.refine.batch_size),
-                       report_cycle, run_dir, log, result)
+                       report_cycle, run_dir, log, result, generator, state)

@@ -1,0 +1,117 @@
+"""An interrupted refinement continued with `refine --resume` ends with the uninterrupted run's
+grammar, bit for bit, from both starting points (trees and raw text).
+
+Reference: the same config run once without interruption; float64 throughout, so the resumed
+run must give the same bytes (the refiner's arithmetic does not depend on where it restarted).
+The data are sampled from a fine grammar written for test_refine.py.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+import torch
+
+import treewright.refine.run as refine_run
+from test_refine import FINE
+from treewright.cli import main
+from treewright.errors import InputError
+from treewright.grammar import parse_grammar
+from treewright.inference import generate
+from treewright.refine import estimate_coarse, load_refine_config, refine, refine_resume
+from treewright.refine.text import project_labels
+
+
+@pytest.fixture(scope="module")
+def corpora(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("data")
+    trees = [project_labels(t) for t in generate(parse_grammar(FINE), 120, seed=5)]
+    treebank = folder / "trees.txt"
+    treebank.write_text("".join(t.to_string() + "\n" for t in trees), encoding="utf-8")
+    text = folder / "text.txt"
+    text.write_text("".join(" ".join(t.leaves()) + "\n" for t in trees), encoding="utf-8")
+    coarse = folder / "coarse.pcfg"
+    estimate_coarse(trees).to_grammar(torch.float64).save(coarse)
+    return {"treebank": treebank, "text": text, "grammar": coarse}
+
+
+def _config(corpora, start: str, run_dir):
+    data = [f"data.start={start}", "data.heldout_fraction=0.2"]
+    if start == "treebank":
+        data.append(f"data.train={corpora['treebank']}")
+    else:
+        data += [f"data.train={corpora['text']}", f"data.grammar={corpora['grammar']}"]
+    return load_refine_config(None, data + [
+        "refine.cycles=3", "refine.em_iterations=3", "refine.smoothed_iterations=1",
+        "output.f1_max_sentences=3", "output.tensorboard=false", "output.stdout_metrics=false",
+        f"output.run_dir={run_dir}"])
+
+
+def _metrics(run_dir) -> list[dict]:
+    lines = (run_dir / "metrics.jsonl").read_text(encoding="utf-8").splitlines()
+    records = [json.loads(line) for line in lines]
+    for r in records:  # wall-clock fields differ between any two runs
+        r.pop("time")
+        r.pop("seconds", None)
+    return records
+
+
+@pytest.mark.parametrize("start", ["treebank", "text"])
+def test_an_interrupted_refinement_resumes_to_the_uninterrupted_grammar(corpora, start,
+                                                                       tmp_path, monkeypatch):
+    whole = tmp_path / "whole"
+    refine(_config(corpora, start, whole), whole)
+
+    cut = tmp_path / "cut"
+    name = "tree_cycle" if start == "treebank" else "text_cycle"
+    real = getattr(refine_run, name)
+    calls = []
+
+    def interrupted_in_cycle_two(*args, **kwargs):
+        calls.append(1)
+        if len(calls) == 2:
+            raise KeyboardInterrupt
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(refine_run, name, interrupted_in_cycle_two)
+    with pytest.raises(KeyboardInterrupt):
+        refine(_config(corpora, start, cut), cut)
+    monkeypatch.setattr(refine_run, name, real)
+    assert not (cut / "grammar.pcfg").exists() and (cut / "cycle-1.pcfg").exists()
+
+    result = refine_resume(cut)
+    assert (cut / "grammar.pcfg").read_bytes() == (whole / "grammar.pcfg").read_bytes()
+    for c in (1, 2, 3):
+        assert (cut / f"cycle-{c}.pcfg").read_bytes() == (whole / f"cycle-{c}.pcfg").read_bytes()
+    assert (cut / "summary.json").read_text() == (whole / "summary.json").read_text()
+    # One metrics line per cycle, 0 to 3, none repeated or lost, equal to the reference's.
+    assert _metrics(cut) == _metrics(whole)
+    assert [m["cycle"] for m in result.metrics] == [0, 1, 2, 3]
+    assert "resuming after cycle 1 of 3" in (cut / "refine.log").read_text()
+
+
+def test_resume_refuses_changed_data_and_a_new_run_refuses_a_used_folder(corpora, tmp_path,
+                                                                         capsys):
+    run = tmp_path / "run"
+    cfg = _config(corpora, "treebank", run)
+    refine(cfg, run)
+    with pytest.raises(InputError, match="already holds a refinement checkpoint"):
+        refine(cfg, run)
+    # The saved config names the training file; a different corpus there gives another
+    # coarse grammar, which the checkpoint's latent grammar does not fit.
+    original = corpora["treebank"].read_text(encoding="utf-8")
+    try:
+        corpora["treebank"].write_text("(S (NP (D ta) (N mira)) (VP (V gash) (NP (D ko) "
+                                       "(N rab))))\n" * 30, encoding="utf-8")
+        with pytest.raises(InputError, match="no longer give the coarse grammar"):
+            refine_resume(run)
+    finally:
+        corpora["treebank"].write_text(original, encoding="utf-8")
+    with pytest.raises(InputError, match="no refinement checkpoint"):
+        refine_resume(tmp_path / "elsewhere")
+    # The command line: --resume takes no config, and finishes a finished run at once.
+    assert main(["refine", "--resume", str(run), "refine.cycles=5"]) == 1
+    assert "takes the config saved" in capsys.readouterr().err
+    assert main(["refine", "--resume", str(run)]) == 0
+    assert capsys.readouterr().out.strip().endswith("grammar.pcfg")
