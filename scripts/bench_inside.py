@@ -48,7 +48,7 @@ class Dense:
 FULL_DENSE = [Dense(30, 60, 20, 2.5, 2.0), Dense(30, 60, 40, 3.0, 2.5),
               Dense(60, 120, 20, None, 3.0)]
 QUICK_DENSE = [Dense(6, 10, 6, None, None), Dense(6, 10, 10, None, None)]
-FULL_SCALING = [5, 10, 15, 20, 30, 40, 50, 60]
+FULL_SCALING = [5, 10, 15, 20, 30, 40, 50, 60, 80, 100]  # past 60 to show the slope rising
 QUICK_SCALING = [4, 6, 8]
 
 
@@ -177,6 +177,17 @@ def time_lowrank(nt: int, t: int, rank: int, n: int, repeats: int) -> float:
     return best_time(forward_backward, repeats)
 
 
+def lowrank_work(nt: int, t: int, rank: int, n: int) -> float:
+    """Matrix-product flops of one sentence's low-rank forward+backward, as engine.lowrank does
+    them. Forward: each word projected by both factors V, W (2 x 2TR), and each span of width
+    >= 2 multiplied by U (2 NT R) and projected by both (2 x 2 NT R); the backward does two
+    products of the same size for each of these. The split sums (elementwise) are left out, so
+    work / (matmul flop rate) is a lower bound on the time."""
+    spans = n * (n - 1) // 2
+    forward = n * 4 * t * rank + spans * 6 * nt * rank
+    return 3.0 * forward
+
+
 def fit_exponent(ns: list[int], times: list[float]) -> float:
     """Least-squares slope of log time against log n."""
     xs, ys = [math.log(n) for n in ns], [math.log(t) for t in times]
@@ -248,9 +259,14 @@ def main(argv: list[str] | None = None) -> int:
     fit_from = len(scaling_ns) // 2
     result["scaling"] = {"n": scaling_ns, "fwd_s": scaling,
                          "exponent_all": fit_exponent(scaling_ns, scaling),
-                         "exponent_long": fit_exponent(scaling_ns[fit_from:], scaling[fit_from:])}
+                         "exponent_long": fit_exponent(scaling_ns[fit_from:], scaling[fit_from:]),
+                         "exponent_local": [fit_exponent(scaling_ns[i:i + 2], scaling[i:i + 2])
+                                            for i in range(len(scaling_ns) - 1)]}
     nt, t, rank, n = lowrank_cfg
+    floor_s = lowrank_work(nt, t, rank, n) * BATCH / 1e9 / gflops
     result["lowrank"] = {
+        "matmul_gflop": lowrank_work(nt, t, rank, n) * BATCH / 1e9, "floor_s": floor_s,
+        "ratio_ceiling": small_fb / floor_s,
         "nt": nt, "t": t, "rank": rank, "n": n, "fb_s": lowrank_fb,
         "sent_per_s": BATCH / lowrank_fb, "dense_sent_per_s": BATCH / small_fb,
         "dense_nt": small.nt, "dense_t": small.t, "ratio": small_fb / lowrank_fb, "target": 0.3,
@@ -294,12 +310,17 @@ def print_table(r: dict) -> None:
     s = r["scaling"]
     print("scaling, forward s: " + ", ".join(f"n={n}: {t:.4f}" for n, t in zip(s["n"], s["fwd_s"])))
     print(f"  fitted exponent: {s['exponent_all']:.2f} over all n, "
-          f"{s['exponent_long']:.2f} over n >= {s['n'][len(s['n']) // 2]}")
+          f"{s['exponent_long']:.2f} over n >= {s['n'][len(s['n']) // 2]}; between neighbours: "
+          + ", ".join(f"{a}-{b}: {e:.2f}" for a, b, e in
+                      zip(s["n"], s["n"][1:], s["exponent_local"])))
     lr = r["lowrank"]
     print(f"low-rank NT={lr['nt']} T={lr['t']} rank={lr['rank']} n={lr['n']}: f+b "
               f"{lr['fb_s']:.3f} s, {lr['sent_per_s']:.1f} sent/s vs dense "
               f"{lr['dense_sent_per_s']:.1f} sent/s: ratio {lr['ratio']:.2f} (target >= 0.3), "
               f"peak {lr['peak_gib_above_idle']:.3f} GiB (target < 1)")
+    print(f"  its matrix products alone are {lr['matmul_gflop']:.1f} GFLOP: at least "
+          f"{lr['floor_s']:.3f} s at the matmul rate, so the ratio cannot exceed "
+          f"{lr['ratio_ceiling']:.2f} at this thread count")
 
 
 if __name__ == "__main__":
