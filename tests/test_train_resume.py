@@ -7,6 +7,7 @@ import pytest
 import torch
 
 from test_train_fixtures import base_overrides, write_corpus
+from treewright.cli import main
 from treewright.safeio import load_checkpoint
 from treewright.train import TrainingDiverged, Trainer, load_train_config, resume, train
 
@@ -74,3 +75,18 @@ def test_nan_loss_stops_with_a_clear_message_and_keeps_the_checkpoint(tmp_path, 
     assert all(torch.isfinite(t).all() for k, t in tensors.items() if k.startswith("model."))
     assert "NaN" in (tmp_path / "nan/train.log").read_text()
     assert not (tmp_path / "nan/grammar.pcfg").exists()
+
+
+@pytest.mark.parametrize("command", ["train", "refine"])
+def test_the_command_line_refuses_a_config_it_would_ignore_on_resume(command, tmp_path, capsys):
+    """--resume reads the config saved in the run folder, so a config file or overrides beside
+    it would be silently ignored; both commands refuse them, and refuse to start with neither
+    (common practice: a command does not drop arguments it was given)."""
+    cfg = tmp_path / "c.yaml"
+    cfg.write_text("data: {train: x.txt}\n", encoding="utf-8")
+    for argv in ([command, "--resume", str(tmp_path), "--", "train.epochs=3"],
+                 [command, str(cfg), "--resume", str(tmp_path)]):
+        assert main(argv) == 1
+        assert "takes the config saved in the run folder" in capsys.readouterr().err
+    assert main([command]) == 1
+    assert "give a config file (or --resume RUN)" in capsys.readouterr().err

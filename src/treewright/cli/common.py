@@ -5,8 +5,27 @@ from __future__ import annotations
 import json
 import math
 import sys
+from pathlib import Path
 
 from treewright.errors import InputError
+
+
+def config_and_folder(args, load):
+    """The run's config and folder, from `--resume RUN` or from a config file with overrides.
+
+    With --resume the config is None: the run folder keeps its own, and a config file or
+    overrides beside it would be ignored, so they are refused. `load(path, overrides)` reads a
+    config file; its output.run_dir, else runs/<config name>, is the folder.
+    """
+    if args.resume is not None:
+        if args.config is not None or args.overrides:
+            raise InputError("--resume takes the config saved in the run folder; give no "
+                             "config file or overrides with it")
+        return None, Path(args.resume)
+    if args.config is None:
+        raise InputError("give a config file (or --resume RUN)")
+    cfg = load(args.config, args.overrides)
+    return cfg, cfg.output.run_dir or Path("runs") / Path(args.config).stem
 
 
 def read_sentences(path: str) -> list[tuple[int, list[str]]]:

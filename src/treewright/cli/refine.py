@@ -32,22 +32,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args) -> int:
     import sys
-    from pathlib import Path
 
-    from treewright.errors import InputError
+    from treewright.cli.common import config_and_folder
     from treewright.refine import load_refine_config, refine, refine_resume
 
-    cfg = None
-    if args.resume is not None:
-        if args.config is not None or args.overrides:
-            raise InputError("--resume takes the config saved in the run folder; give no "
-                             "config file or overrides with it")
-        run_dir = Path(args.resume)
-    else:
-        if args.config is None:
-            raise InputError("give a config file (or --resume RUN)")
-        cfg = load_refine_config(args.config, args.overrides)
-        run_dir = cfg.output.run_dir or Path("runs") / Path(args.config).stem
+    cfg, run_dir = config_and_folder(args, load_refine_config)
     try:
         if cfg is None:
             result = refine_resume(run_dir, stream=sys.stdout)

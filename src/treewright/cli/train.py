@@ -42,24 +42,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import os
     import sys
-    from pathlib import Path
 
+    from treewright.cli.common import config_and_folder
     from treewright.errors import InputError
     from treewright.train import TrainingDiverged, load_train_config, resume, train
     from treewright.train.distributed import WorkerLost, launch_local, world_from_env
     from treewright.train.loop import CHECKPOINT, GRAMMAR, saved_config
 
-    if args.resume is not None:
-        if args.config is not None or args.overrides:
-            raise InputError("--resume takes the config saved in the run folder; give no "
-                             "config file or overrides with it")
-        cfg = saved_config(args.resume)
-        run_dir = Path(args.resume)
-    else:
-        if args.config is None:
-            raise InputError("give a config file (or --resume RUN)")
-        cfg = load_train_config(args.config, args.overrides)
-        run_dir = cfg.output.run_dir or Path("runs") / Path(args.config).stem
+    cfg, run_dir = config_and_folder(args, load_train_config)
+    if cfg is None:
+        cfg = saved_config(run_dir)
     if args.workers is not None and "RANK" not in os.environ:
         if args.workers < 1:
             raise InputError(f"--workers must be at least 1, got {args.workers}")
