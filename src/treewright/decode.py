@@ -25,8 +25,9 @@ import torch
 from torch import Tensor
 
 from treewright import engine
+from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar
-from treewright.inference import encode, length_batches, spans_to_tree
+from treewright.inference import encode, spans_to_tree
 from treewright.trees import Tree, tree_from_spans
 
 NEG_INF = float("-inf")
@@ -279,7 +280,7 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
         if len(s) == 0:
             raise ValueError(f"sentence {k + 1} is empty")
     out: list[Decoded | None] = [None] * len(sentences)
-    for batch in length_batches(sentences, batch_size):
+    for batch in length_batches([len(s) for s in sentences], batch_size):
         words = [list(sentences[i]) for i in batch]
         for k, result in enumerate(_decode_batch(grammar, words, decoder, dtype)):
             out[batch[k]] = result

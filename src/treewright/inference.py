@@ -16,6 +16,7 @@ import torch
 from torch import Tensor
 
 from treewright import engine
+from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar
 from treewright.trees import Tree, tree_from_spans
 
@@ -55,12 +56,6 @@ def encode(grammar: Grammar, sentences: Sequence[Sequence[str]],
     return Encoded(scores[..., nt:].contiguous(), nt_terminal, lengths, unknown)
 
 
-def length_batches(sentences: Sequence[Sequence[str]], batch_size: int) -> list[list[int]]:
-    """Indices grouped so that each batch holds sentences of similar length (less padding)."""
-    order = sorted(range(len(sentences)), key=lambda i: len(sentences[i]))
-    return [order[k:k + batch_size] for k in range(0, len(order), batch_size)]
-
-
 @dataclass
 class SentenceScore:
     words: list[str]
@@ -89,7 +84,7 @@ def score(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_size: int 
     _check_words(sentences)
     out: list[SentenceScore | None] = [None] * len(sentences)
     with torch.no_grad():
-        for batch in length_batches(sentences, batch_size):
+        for batch in length_batches([len(s) for s in sentences], batch_size):
             enc = encode(grammar, [sentences[i] for i in batch], dtype)
             root, binary, terminal, lengths, nt_terminal = _engine_args(grammar, enc, dtype)
             logz = engine.log_partition(root, binary, terminal, lengths, nt_terminal)
@@ -108,7 +103,7 @@ def viterbi_parse(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_si
     """The most probable tree of each sentence and its log-probability ((None, -inf) if none)."""
     _check_words(sentences)
     out: list = [None] * len(sentences)
-    for batch in length_batches(sentences, batch_size):
+    for batch in length_batches([len(s) for s in sentences], batch_size):
         enc = encode(grammar, [sentences[i] for i in batch], dtype)
         results = engine.viterbi(*_engine_args(grammar, enc, dtype))
         for k, i in enumerate(batch):

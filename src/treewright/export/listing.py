@@ -16,8 +16,9 @@ from typing import Sequence
 import torch
 
 from treewright import engine
+from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar, quote
-from treewright.inference import encode, length_batches
+from treewright.inference import encode
 
 DEFAULT_THRESHOLD = 0.01  # rules below 1% rarely help a reader; the cut line counts them
 DEFAULT_TOP = 10          # about a screen of rules per symbol
@@ -54,7 +55,7 @@ def expected_counts(grammar: Grammar, sentences: Sequence[Sequence[str]],
     binary = torch.zeros(nt, s, s, dtype=dtype)
     lexical = torch.zeros(s, v, dtype=dtype)
     unparsed = 0
-    for batch in length_batches(sentences, batch_size):
+    for batch in length_batches([len(s) for s in sentences], batch_size):
         words = [sentences[i] for i in batch]
         enc = encode(grammar, words, dtype)
         post = engine.posteriors(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
@@ -223,7 +224,7 @@ def symbol_examples(grammar: Grammar, sentences: Sequence[Sequence[str]], name: 
             labelled[k] = {(i, j) for i, j, label in tree.labeled_spans() if label == name}
     found: list[SpanExample] = []
     dtype = torch.float64
-    for batch in length_batches(sentences, batch_size):
+    for batch in length_batches([len(s) for s in sentences], batch_size):
         words = [sentences[i] for i in batch]
         enc = encode(grammar, words, dtype)
         post = engine.posteriors(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,

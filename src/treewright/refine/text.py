@@ -12,7 +12,7 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.grammar import Grammar
-from treewright.inference import length_batches
+from treewright.corpus.batching import length_batches
 from treewright.refine.latent import LatentGrammar, coarse_name
 from treewright.trees import Tree
 
@@ -53,7 +53,7 @@ def text_estep(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int 
     lexical = torch.zeros_like(fine.lexical)
     root = torch.zeros_like(fine.root)
     total, unparsed = 0.0, 0
-    for batch in length_batches([list(s) for s in ids], batch_size):
+    for batch in length_batches([len(s) for s in ids], batch_size):
         table, scores, lengths = _batch_inputs(fine, [ids[i] for i in batch])
         post = engine.posteriors(fine.root, fine.binary, scores[..., nt_f:].contiguous(),
                                  lengths, scores[..., :nt_f].contiguous() if emits else None)
@@ -78,7 +78,7 @@ def text_loglik(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int
     nt_f = len(fine.nonterminals)
     total, unparsed, words = 0.0, 0, 0
     with torch.no_grad():
-        for batch in length_batches([list(s) for s in ids], batch_size):
+        for batch in length_batches([len(s) for s in ids], batch_size):
             _, scores, lengths = _batch_inputs(fine, [ids[i] for i in batch])
             logz = engine.log_partition(fine.root, fine.binary, scores[..., nt_f:].contiguous(),
                                         lengths, scores[..., :nt_f].contiguous()
