@@ -56,9 +56,9 @@ def test_nan_loss_stops_with_a_clear_message_and_keeps_the_checkpoint(tmp_path, 
     # No dev set, so every inside pass is a training step's.
     cfg = _cfg(tmp_path, "nan", with_dev=False, **{"train.method": "gradient", "optimizer.lr": 0.05,
                                    "output.checkpoint_every_steps": 2})
-    from treewright.train import loop
+    from treewright import engine  # estep reads engine.log_partition at call time
 
-    real = loop.engine.log_partition
+    real = engine.log_partition
     calls = {"n": 0}
 
     def poisoned(*args, **kwargs):
@@ -66,7 +66,7 @@ def test_nan_loss_stops_with_a_clear_message_and_keeps_the_checkpoint(tmp_path, 
         out = real(*args, **kwargs)
         return out * float("nan") if calls["n"] == 3 else out
 
-    monkeypatch.setattr(loop.engine, "log_partition", poisoned)
+    monkeypatch.setattr(engine, "log_partition", poisoned)
     with pytest.raises(TrainingDiverged, match="NaN or infinite.*last good checkpoint"):
         train(cfg, tmp_path / "nan")
     ckpt = tmp_path / "nan/checkpoint.ckpt"

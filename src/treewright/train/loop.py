@@ -36,7 +36,6 @@ from typing import TextIO
 
 import torch
 
-from treewright import engine
 from treewright.engine.memory import inside_outside_bytes
 from treewright.config import config_to_dict, dump_config_yaml
 from treewright.corpus import ReadOptions, length_batches, read_corpus
