@@ -126,15 +126,28 @@ def test_assignment_is_optimal_against_brute_force(shape, seed):
     assert len({m.a for m in matches}) == len(matches) == len({m.b for m in matches})
 
 
+def _compare_json(a, b, text) -> dict:
+    """The JSON that `treewright compare A B --on TEXT --json` prints."""
+    out = io.StringIO()
+    with redirect_stdout(out):
+        assert main(["compare", str(a), str(b), "--on", str(text), "--json"]) == 0
+    return json.loads(out.getvalue())
+
+
+def _run_folder(path: Path, grammar_text: str) -> Path:
+    """A run folder whose config.yaml says its training corpus was lowercased."""
+    path.mkdir()
+    (path / "grammar.pcfg").write_text(grammar_text, encoding="utf-8")
+    (path / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
+    return path
+
+
 def test_compare_command_prints_json(tmp_path):
     text = tmp_path / "s.txt"
     text.write_text("astronomers saw stars with ears\nastronomers saw ears\n", encoding="utf-8")
     b = tmp_path / "b.pcfg"
     b.write_text(ASTRONOMERS_VP_ATTACH, encoding="utf-8")
-    out = io.StringIO()
-    with redirect_stdout(out):
-        assert main(["compare", str(ASTRONOMERS), str(b), "--on", str(text), "--json"]) == 0
-    data = json.loads(out.getvalue())
+    data = _compare_json(ASTRONOMERS, b, text)
     # Sentence 2 has one tree under both (no PP), so its one bracket (1,3) is shared:
     # 3 + 1 brackets each, 2 + 1 shared (hand count as above).
     assert (data["brackets_a"], data["brackets_shared"]) == (4, 3)
@@ -149,29 +162,17 @@ def test_compare_reads_the_text_as_each_run_was_trained(tmp_path):
     # records no such setting, reads the capitals as written and parses nothing.
     text = tmp_path / "s.txt"
     text.write_text("Astronomers saw STARS with ears\n", encoding="utf-8")
-    run_a = tmp_path / "run-a"
-    run_a.mkdir()
-    (run_a / "grammar.pcfg").write_bytes(ASTRONOMERS.read_bytes())
-    (run_a / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
+    run_a = _run_folder(tmp_path / "run-a", ASTRONOMERS.read_text(encoding="utf-8"))
     b = tmp_path / "b.pcfg"
     b.write_text(ASTRONOMERS_VP_ATTACH, encoding="utf-8")
-    out = io.StringIO()
-    with redirect_stdout(out):
-        assert main(["compare", str(run_a), str(b), "--on", str(text), "--json"]) == 0
-    data = json.loads(out.getvalue())
+    data = _compare_json(run_a, b, text)
     assert data["heldout_a"]["log_likelihood"] == pytest.approx(math.log(0.0009072 + 0.0006804))
     assert data["heldout_a"]["unparsed"] == 0 and data["heldout_b"]["unparsed"] == 1
     assert data["both_parsed"] == 0
     # B as a run folder trained the same way: both read "astronomers saw stars with ears", and
     # the hand counts of the lowercase sentence come back (3 and 3 brackets, 2 shared).
-    run_b = tmp_path / "run-b"
-    run_b.mkdir()
-    (run_b / "grammar.pcfg").write_text(ASTRONOMERS_VP_ATTACH, encoding="utf-8")
-    (run_b / "config.yaml").write_text("data:\n  lowercase: true\n", encoding="utf-8")
-    out = io.StringIO()
-    with redirect_stdout(out):
-        assert main(["compare", str(run_a), str(run_b), "--on", str(text), "--json"]) == 0
-    data = json.loads(out.getvalue())
+    run_b = _run_folder(tmp_path / "run-b", ASTRONOMERS_VP_ATTACH)
+    data = _compare_json(run_a, run_b, text)
     assert data["heldout_b"]["log_likelihood"] == pytest.approx(math.log(0.0002268 + 0.0006804))
     assert (data["brackets_a"], data["brackets_b"], data["brackets_shared"]) == (3, 3, 2)
 
