@@ -63,6 +63,39 @@ def test_matches_reference_values_and_all_gradients(nt, t, nt_emit, use_pot):
         torch.testing.assert_close(g, g_ref, rtol=1e-9, atol=1e-10)
 
 
+def _grads_of(fn, inputs: dict, lengths, wanted) -> dict:
+    """The gradients of a weighted sum of log Z for the inputs named in `wanted` only (the
+    others do not require grad, so the outside pass may skip their work)."""
+    leaves = {k: (x.clone().requires_grad_() if k in wanted else x) for k, x in inputs.items()}
+    logz = fn(leaves["root"], leaves["binary"], leaves["terminal"], lengths,
+              leaves["nt_terminal"], leaves["span_pot"])
+    (logz * torch.arange(1, len(logz) + 1, dtype=logz.dtype)).sum().backward()
+    return {k: leaves[k].grad for k in wanted}
+
+
+@pytest.mark.parametrize("wanted", [("span_pot",), ("terminal",), ("binary",),
+                                    ("binary", "span_pot"), ("root", "nt_terminal")])
+@pytest.mark.parametrize("per_sentence", [False, True])
+def test_gradients_asked_for_alone_match_the_full_pass(wanted, per_sentence):
+    # Reference: reference_inside with autograd for shared rules; for rules per sentence, which
+    # the reference does not take, the full pass (itself checked against the reference,
+    # sentence by sentence, above).
+    root, binary, terminal, lengths, nt_terminal, span_pot = random_problem(
+        5, 4, batch=3, n=6, nt_emit=True, seed=31)
+    if per_sentence:
+        gen = torch.Generator().manual_seed(32)
+        binary = torch.randn(3, 5, 81, generator=gen, dtype=torch.float64).log_softmax(-1)
+        binary = binary.view(3, 5, 9, 9)
+    inputs = {"root": root, "binary": binary, "terminal": terminal, "nt_terminal": nt_terminal,
+              "span_pot": span_pot}
+    mine = _grads_of(log_partition, inputs, lengths, wanted)
+    every = tuple(inputs)
+    ref = _grads_of(log_partition if per_sentence else reference_inside, inputs, lengths,
+                    every)
+    for k in wanted:
+        torch.testing.assert_close(mine[k], ref[k], rtol=1e-9, atol=1e-10)
+
+
 def test_per_sentence_root_distribution_matches_reference():
     # Reference: reference_inside with a (B, NT) root, the other accepted root shape.
     root, binary, terminal, lengths, _, _ = random_problem(4, 3, 3, 5, False, seed=7)
@@ -235,6 +268,28 @@ def test_lowrank_matches_reference_on_the_implied_dense_rules(nt_emit, use_pot):
     for leaf, ref in zip(leaves, refs):
         if leaf is not None:
             torch.testing.assert_close(leaf.grad, ref.grad, rtol=1e-9, atol=1e-10)
+
+
+@pytest.mark.parametrize("wanted", [("span_pot",), ("terminal",), ("v",), ("u", "v", "w"),
+                                    ("root", "nt_terminal")])
+def test_lowrank_gradients_asked_for_alone_match_the_reference(wanted):
+    # Reference: reference_inside on dense_binary(u, v, w), every gradient by autograd.
+    root, _, terminal, lengths, nt_terminal, span_pot = random_problem(
+        3, 4, batch=3, n=6, nt_emit=True, seed=23)
+    u, v, w = random_lowrank(3, 4, 5, seed=24)
+    inputs = {"root": root, "u": u, "v": v, "w": w, "terminal": terminal,
+              "nt_terminal": nt_terminal, "span_pot": span_pot}
+    mine = {k: (x.clone().requires_grad_() if k in wanted else x) for k, x in inputs.items()}
+    refs = {k: x.clone().requires_grad_() for k, x in inputs.items()}
+    z = lowrank_log_partition(mine["root"], mine["u"], mine["v"], mine["w"], mine["terminal"],
+                              lengths, mine["nt_terminal"], mine["span_pot"])
+    z_ref = reference_inside(refs["root"], dense_binary(refs["u"], refs["v"], refs["w"]),
+                             refs["terminal"], lengths, refs["nt_terminal"], refs["span_pot"])
+    factor = torch.arange(1, 4, dtype=torch.float64)
+    (z * factor).sum().backward()
+    (z_ref * factor).sum().backward()
+    for k in wanted:
+        torch.testing.assert_close(mine[k].grad, refs[k].grad, rtol=1e-9, atol=1e-10)
 
 
 def test_lowrank_forbidden_root_span_gives_minus_infinity_and_zero_gradients():

@@ -330,14 +330,23 @@ class _LogPartition(torch.autograd.Function):
         binary, lengths = ctx.saved_tensors
         state = ctx.state
         ctx.state = None  # free the chart as soon as the gradient is taken
+        # Only the adjoint chart is always needed; the rule and word gradients (the larger part
+        # of the work) are made only when asked for, e.g. not for span posteriors alone.
+        need = ctx.needs_input_grad
         with torch.no_grad():
-            grads = _outside(binary, lengths, *state, grad_logz)
+            grads = _outside(binary, lengths, *state, grad_logz,
+                             need_rules=need[1], need_words=need[2])
         return grads + (None,)
 
 
 def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, top_scale, pi,
-             total, nt_emits, has_pot, grad_logz):
+             total, nt_emits, has_pot, grad_logz, need_rules: bool = True,
+             need_words: bool = True):
     """Adjoints of log Z with respect to every scaled chart cell, from the widest span down.
+
+    The rule gradient is None unless `need_rules`, the preterminal gradient None unless
+    `need_words`; the adjoints of the cells, and so the root, span and nonterminal-word
+    gradients, are the same either way.
 
     adj(cell)[A] = d log Z / d scaled_inside(cell)[A]; adj * scaled_inside is the posterior
     marginal of A over that span, a number in [0, 1], so nothing here needs rescaling. A cell is
@@ -355,11 +364,14 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     adj_start = torch.zeros_like(chart.by_start)
     adj_start[0, idx, lengths] = pi * g_root[:, None]
 
-    grad_nn = torch.zeros_like(rules.nn)                                # (Q*Q, Q)
+    grad_nn = torch.zeros_like(rules.nn) if need_rules else None         # (Q*Q, Q)
+    need_mats = need_rules or need_words  # the per-position matrices' gradients serve both
     # Weighted outer adjoints of the row-vector products, laid out like the chart cells they
     # multiply, so one batched product per kind folds them into per-position matrix gradients.
-    adj_np = torch.zeros_like(chart.by_start[0:N])  # [pos, b, N-w+1]: child (pos-w+1, pos)
-    adj_pn = torch.zeros_like(chart.by_start[1:N + 1])  # [pos, b, w-1]: child (pos+1, pos+w)
+    adj_np = adj_pn = None
+    if need_mats:
+        adj_np = torch.zeros_like(chart.by_start[0:N])  # [pos, b, N-w+1]: child (pos-w+1, pos)
+        adj_pn = torch.zeros_like(chart.by_start[1:N + 1])  # [pos, b, w-1]: child (pos+1, pos+w)
     grad_pair_mats = None
     adj_term = torch.zeros_like(chart.term)                             # (N, B, T)
     grad_pot = chart.term.new_zeros(B, N + 1, N + 1) if has_pot else None
@@ -386,18 +398,40 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
             mats = saved.right_mats[w - 1:N].view(PB, Q, Q)
             adj_start[0:P, :, w - 1] += torch.bmm(
                 g_np.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, Q)
-            adj_np[w - 1:N, :, N - w + 1] = g_np
+            if need_mats:
+                adj_np[w - 1:N, :, N - w + 1] = g_np
             g_pn = (g.view(P, B, Q) * weight[..., 0:1])
             mats = saved.left_mats[0:P].view(PB, Q, Q)
             adj_start[1:P + 1, :, w - 1] += torch.bmm(
                 g_pn.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, Q)
-            adj_pn[0:P, :, w - 1] = g_pn
+            if need_mats:
+                adj_pn[0:P, :, w - 1] = g_pn
         if w == 2:
             g_pp = (g.view(P, B, Q) * weight[..., 0:1])                 # (P, B, Q)
             mats = saved.pair_mats.view(PB, T, Q)
             adj_term[0:P] += torch.bmm(g_pp.view(PB, 1, Q), mats.transpose(1, 2)).view(P, B, T)
-            grad_pair_mats = chart.term[0:P].unsqueeze(-1) * g_pp.unsqueeze(-2)  # (P, B, T, Q)
+            if need_mats:
+                grad_pair_mats = chart.term[0:P].unsqueeze(-1) * g_pp.unsqueeze(-2)  # (P,B,T,Q)
 
+    grad_binary, grad_terminal = None, None
+    if need_mats:
+        grad_binary, grad_terminal = _rule_and_word_grads(
+            binary, chart, rules, adj_np, adj_pn, adj_term, grad_pair_mats, grad_nn,
+            need_rules, need_words)
+    grad_nt_terminal = None
+    if nt_emits:
+        adj1 = adj_start[0:N, :, 1]
+        grad_nt_terminal = (adj1 * chart.by_start[0:N, :, 1])[..., :NT].transpose(0, 1)
+    return grad_root, grad_binary, grad_terminal, grad_nt_terminal, grad_pot
+
+
+def _rule_and_word_grads(binary, chart: Chart, rules: _Rules, adj_np, adj_pn, adj_term,
+                         grad_pair_mats, grad_nn, need_rules: bool, need_words: bool):
+    """The rule and preterminal gradients, from the outer adjoints gathered by `_outside`."""
+    N1, B, _, Q = chart.by_start.shape
+    N = N1 - 1
+    T = chart.term.shape[-1]
+    NT = binary.shape[-3]
     # Per-position matrix gradients: [pos, b][X, A] = sum over spans of child[X] * g[A].
     grad_right_mats = torch.bmm(
         _by_end(chart.by_start)[0:N].reshape(N * B, N + 1, Q).transpose(1, 2),
@@ -412,14 +446,20 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     per = bool(lead)
     gr = grad_right_mats.view(N, B, Q * Q)
     gl = grad_left_mats.view(N, B, Q * Q)
-    adj_term += _unfold(gr, rules.right) + _unfold(gl, rules.left)
+    gp = None if grad_pair_mats is None else grad_pair_mats.view(N - 1, B, T * Q)
+    grad_terminal = None
+    if need_words:
+        adj_term += _unfold(gr, rules.right) + _unfold(gl, rules.left)
+        if gp is not None:
+            adj_term[1:N] += _unfold(gp, rules.pair)
+        grad_terminal = (adj_term * chart.term).transpose(0, 1)         # (B, N, T)
+    if not need_rules:
+        return None, grad_terminal
     grad_right = _gather(chart.term, gr, per).view(*lead, T, Q, Q)     # [c, B, A]
     grad_left = _gather(chart.term, gl, per).view(*lead, T, Q, Q)      # [b, C, A]
-    if grad_pair_mats is None:
+    if gp is None:
         grad_pair = rules.pair.new_zeros(*lead, T, T, Q)
     else:
-        gp = grad_pair_mats.view(N - 1, B, T * Q)
-        adj_term[1:N] += _unfold(gp, rules.pair)
         grad_pair = _gather(chart.term[1:], gp, per).view(*lead, T, T, Q)  # [c, b, A]
 
     grad_rules = torch.empty_like(binary)                              # (..., NT, S, S)
@@ -428,23 +468,17 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
     grad_rules[..., :NT, NT:] = _last3(grad_right[..., :NT, :NT], (2, 1, 0))
     grad_rules[..., NT:, NT:] = _last3(grad_pair[..., :NT], (2, 1, 0))
     grad_rules[..., NT:, :NT] = _last3(grad_left[..., :NT, :NT], (2, 0, 1))
-    grad_binary = grad_rules.mul_(rules.prob)                          # d/d log p = p * d/dp
-    grad_terminal = (adj_term * chart.term).transpose(0, 1)            # (B, N, T)
-    grad_nt_terminal = None
-    if nt_emits:
-        adj1 = adj_start[0:N, :, 1]
-        grad_nt_terminal = (adj1 * chart.by_start[0:N, :, 1])[..., :NT].transpose(0, 1)
-    return grad_root, grad_binary, grad_terminal, grad_nt_terminal, grad_pot
+    return grad_rules.mul_(rules.prob), grad_terminal                  # d/d log p = p * d/dp
 
 
 def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, weight: Tensor,
-                    grad_nn: Tensor, adj_left: Tensor, adj_right: Tensor) -> None:
+                    grad_nn: Tensor | None, adj_left: Tensor, adj_right: Tensor) -> None:
     """Back through the split sums of one width, in chunks of spans as in the forward.
 
     g (M, Q) is the adjoint of the product of the split sums with the rules; right and left
     (M, K, Q) the children and weight (M, K, 1) the split weights, as in `_split_products`. Adds
-    the rules' gradient to grad_nn and the children's adjoints to adj_left and adj_right (views
-    into the adjoint chart). Each chunk's weighted children and split sums are recomputed, and
+    the rules' gradient to grad_nn (unless it is None) and the children's adjoints to adj_left
+    and adj_right (views into the adjoint chart). Each chunk's weighted children and split sums are recomputed, and
     its adjoints added, while they are in cache.
     """
     M, K, Q = right.shape
@@ -453,15 +487,18 @@ def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, weight: 
     for c0 in range(0, M, chunk):
         c1 = min(M, c0 + chunk)
         weighted = left[c0:c1] * weight[c0:c1]
-        sums = torch.bmm(weighted.transpose(1, 2), right[c0:c1]).view(c1 - c0, Q * Q)
+        if grad_nn is not None:
+            sums = torch.bmm(weighted.transpose(1, 2), right[c0:c1]).view(c1 - c0, Q * Q)
         if nn.dim() == 2:
-            grad_nn.addmm_(sums.t(), g[c0:c1])
+            if grad_nn is not None:
+                grad_nn.addmm_(sums.t(), g[c0:c1])
             g_pairs = (g[c0:c1] @ nn_t).view(c1 - c0, Q, Q)            # d/d split sums
         else:  # rules per sentence, as in `_split_products`
             B = nn.shape[0]
-            s_b = sums.view(-1, B, Q * Q).transpose(0, 1)               # (B, spans, Q*Q)
             g_b = g[c0:c1].view(-1, B, Q).transpose(0, 1)               # (B, spans, Q)
-            grad_nn.baddbmm_(s_b.transpose(1, 2), g_b)
+            if grad_nn is not None:
+                s_b = sums.view(-1, B, Q * Q).transpose(0, 1)           # (B, spans, Q*Q)
+                grad_nn.baddbmm_(s_b.transpose(1, 2), g_b)
             g_pairs = torch.bmm(g_b, nn_t).transpose(0, 1).reshape(c1 - c0, Q, Q)
         adj_left[c0:c1].addcmul_(torch.bmm(right[c0:c1], g_pairs.transpose(1, 2)), weight[c0:c1])
         adj_right[c0:c1] += torch.bmm(weighted, g_pairs)

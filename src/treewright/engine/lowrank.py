@@ -71,8 +71,10 @@ class _LowRank(torch.autograd.Function):
     def backward(ctx, grad_logz):
         state, (nt_emits, has_pot) = ctx.state, ctx.shapes
         ctx.state = None
+        need = ctx.needs_input_grad  # the factor and word gradients only when asked for
         with torch.no_grad():
-            grads = _outside(state, grad_logz, nt_emits, has_pot)
+            grads = _outside(state, grad_logz, nt_emits, has_pot,
+                             need_factors=any(need[1:4]), need_words=need[4])
         return grads + (None,)
 
 
@@ -165,8 +167,12 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
             "pi": pi, "tops": tops, "total": total, "ok": ok, "lengths": lengths}
 
 
-def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
-    """Adjoints from the widest span down; see `engine.inside._outside` for the conventions."""
+def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
+             need_factors: bool = True, need_words: bool = True):
+    """Adjoints from the widest span down; see `engine.inside._outside` for the conventions.
+
+    The gradients of U, V and W are None unless `need_factors`, the preterminal gradient None
+    unless `need_words` (span posteriors alone need neither)."""
     U, V, W, words = st["U"], st["V"], st["W"], st["words"]
     N, B, T = words.shape
     NT, R = U.shape
@@ -213,7 +219,7 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
             ends = slice(width + p0, width + p1)
             adj_left[p0:p1, :, 1:width].addcmul_(g_split, right_proj[ends, :, N - width + 1:N])
             adj_right[ends, :, N - width + 1:N].addcmul_(g_split, left_proj[p0:p1, :, 1:width])
-    if offsets[-1]:
+    if offsets[-1] and need_factors:
         grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
         grad_V[:NT] += grad_vw[:, :R]
         grad_W[:NT] += grad_vw[:, R:]
@@ -222,19 +228,25 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool):
     a_l = adj_left[0:N, :, 1].reshape(N * B, R)
     a_r = adj_right[1:N + 1, :, N - 1].reshape(N * B, R)
     flat = words.view(N * B, T)
-    grad_V[NT:] += flat.t() @ a_l
-    grad_W[NT:] += flat.t() @ a_r
-    adj_words = (a_l @ V[NT:].t() + a_r @ W[NT:].t()).view(N, B, T)
-    grad_terminal = (adj_words * words).transpose(0, 1)
+    if need_factors:
+        grad_V[NT:] += flat.t() @ a_l
+        grad_W[NT:] += flat.t() @ a_r
+    grad_terminal = None
+    if need_words:
+        adj_words = (a_l @ V[NT:].t() + a_r @ W[NT:].t()).view(N, B, T)
+        grad_terminal = (adj_words * words).transpose(0, 1)
     grad_nt_terminal = None
     if nt_emits:
         nts = st["nts"]
         flat = nts.view(N * B, NT)
-        grad_V[:NT] += flat.t() @ a_l
-        grad_W[:NT] += flat.t() @ a_r
+        if need_factors:
+            grad_V[:NT] += flat.t() @ a_l
+            grad_W[:NT] += flat.t() @ a_r
         adj_nts = (a_l @ V[:NT].t() + a_r @ W[:NT].t()).view(N, B, NT)
         adj_nts[0] += adj_top[1]
         grad_nt_terminal = (adj_nts * nts).transpose(0, 1)
+    if not need_factors:
+        return grad_root, None, None, None, grad_terminal, grad_nt_terminal, grad_pot
     # d/d log x = x * d/dx for every factor.
     return (grad_root, grad_U * U, grad_V * V, grad_W * W, grad_terminal, grad_nt_terminal,
             grad_pot)
