@@ -136,6 +136,7 @@ def probe(spec: list[str]) -> None:
         nt, t, n, batch = (int(x) for x in spec[1:5])
         root, binary, terminal, lengths = random_grammar(nt, t, n, batch)
         binary.requires_grad_()
+        terminal.requires_grad_()  # as in training: rule and word gradients both
         log_partition(root, binary, terminal, lengths).sum().backward()
     elif spec[0] == "lowrank":
         nt, t, rank, n, batch = (int(x) for x in spec[1:6])
@@ -156,14 +157,15 @@ def time_reference(nt: int, t: int, n: int, repeats: int) -> float:
 
 
 def random_lowrank(nt: int, t: int, rank: int, n: int, batch: int, seed: int = 0):
-    """Random low-rank factors (Yang, Zhao & Tu 2021) and word scores; u, v, w need grad."""
+    """Random low-rank factors (Yang, Zhao & Tu 2021) and word scores, all needing gradients
+    as in training (the outside pass skips the work of gradients nobody asks for)."""
     gen = torch.Generator().manual_seed(seed)
     s = nt + t
     root = torch.randn(nt, generator=gen).log_softmax(0)
     u = torch.randn(nt, rank, generator=gen).log_softmax(1).requires_grad_()
     v = torch.randn(s, rank, generator=gen).log_softmax(0).requires_grad_()
     w = torch.randn(s, rank, generator=gen).log_softmax(0).requires_grad_()
-    terminal = torch.randn(batch, n, t, generator=gen) - 3.0
+    terminal = (torch.randn(batch, n, t, generator=gen) - 3.0).requires_grad_()
     return root, u, v, w, terminal, torch.full((batch,), n, dtype=torch.long)
 
 
@@ -172,7 +174,7 @@ def time_lowrank(nt: int, t: int, rank: int, n: int, repeats: int) -> float:
 
     def forward_backward():
         lowrank_log_partition(root, u, v, w, terminal, lengths).sum().backward()
-        u.grad = v.grad = w.grad = None
+        u.grad = v.grad = w.grad = terminal.grad = None
 
     return best_time(forward_backward, repeats)
 
