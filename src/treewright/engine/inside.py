@@ -118,7 +118,7 @@ def _fold(vectors: Tensor, mats: Tensor) -> Tensor:
     """(M, B, K) vectors times (K, X) rule matrices, or per sentence (B, K, X): (M, B, X)."""
     if mats.dim() == 2:
         M, B, K = vectors.shape
-        return (vectors.reshape(M * B, K) @ mats).view(M, B, -1)
+        return (vectors.reshape(M * B, K) @ mats).view(M, B, mats.shape[-1])  # M may be 0
     return torch.bmm(vectors.transpose(0, 1), mats).transpose(0, 1).contiguous()
 
 
@@ -136,7 +136,7 @@ def _unfold(grads: Tensor, mats: Tensor) -> Tensor:
     rule matrices transposed: (M, B, K)."""
     if mats.dim() == 2:
         M, B, X = grads.shape
-        return (grads.reshape(M * B, X) @ mats.t()).view(M, B, -1)
+        return (grads.reshape(M * B, X) @ mats.t()).view(M, B, mats.shape[0])
     return torch.bmm(grads.transpose(0, 1), mats.transpose(1, 2)).transpose(0, 1)
 
 
@@ -160,9 +160,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
     min_w = 1 if nt_terminal is not None else 2
 
     # One scale per word, shared by its preterminal and nonterminal vectors.
-    word_scale = terminal.amax(-1)                                   # (B, N)
-    if nt_terminal is not None:
-        word_scale = torch.maximum(word_scale, nt_terminal.amax(-1))
+    word_scale = word_scales(terminal, nt_terminal)                  # (B, N)
     shift = word_scale.nan_to_num(neginf=0.0).unsqueeze(-1)          # finite, for the exp
     term_sc = (terminal - shift).exp_().transpose(0, 1).contiguous()  # (N, B, T)
     term_scale = word_scale.t().contiguous()                         # (N, B)
@@ -225,6 +223,22 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
             saved.peaks.append(peak)
     chart = Chart(by_start, scale_start, term_sc, term_scale, min_w, NT)
     return chart, saved, rules
+
+
+def word_scales(terminal: Tensor, nt_terminal: Tensor | None) -> Tensor:
+    """(B, N) the largest log score of any symbol over each word.
+
+    terminal (B, N, T) may have T = 0: a general CNF grammar in which every symbol that emits
+    words also has binary rules (Lari & Young 1990, "The estimation of stochastic context-free
+    grammars using the Inside-Outside algorithm") has no pure preterminal, and its words are
+    scored by nt_terminal alone. A reduction over an empty axis is an error in torch, so that
+    axis contributes -inf here instead.
+    """
+    B, N, T = terminal.shape
+    scale = terminal.amax(-1) if T else terminal.new_full((B, N), NEG_INF)
+    if nt_terminal is not None:
+        scale = torch.maximum(scale, nt_terminal.amax(-1))
+    return scale
 
 
 def right_children(chart: Tensor, w: int, u0: int, u1: int) -> Tensor:
