@@ -355,12 +355,13 @@ class _LogPartition(torch.autograd.Function):
 
 def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, top_scale, pi,
              total, nt_emits, has_pot, grad_logz, need_rules: bool = True,
-             need_words: bool = True):
+             need_words: bool = True, adjoints: dict | None = None):
     """Adjoints of log Z with respect to every scaled chart cell, from the widest span down.
 
     The rule gradient is None unless `need_rules`, the preterminal gradient None unless
     `need_words`; the adjoints of the cells, and so the root, span and nonterminal-word
-    gradients, are the same either way.
+    gradients, are the same either way. `adjoints`, when given, receives the adjoint chart
+    under "chart", (N+1, B, N+1, Q) laid out like `chart.by_start` (see `span_tables`).
 
     adj(cell)[A] = d log Z / d scaled_inside(cell)[A]; adj * scaled_inside is the posterior
     marginal of A over that span, a number in [0, 1], so nothing here needs rescaling. A cell is
@@ -432,6 +433,8 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         grad_binary, grad_terminal = _rule_and_word_grads(
             binary, chart, rules, adj_np, adj_pn, adj_term, grad_pair_mats, grad_nn,
             need_rules, need_words)
+    if adjoints is not None:
+        adjoints["chart"] = adj_start
     grad_nt_terminal = None
     if nt_emits:
         adj1 = adj_start[0:N, :, 1]
@@ -562,3 +565,57 @@ def prepare_inputs(root: Tensor, terminal: Tensor, lengths, nt_terminal: Tensor 
         if nt_terminal is not None:
             nt_terminal = nt_terminal.masked_fill(pad[..., None], 0.0)
     return root, terminal, lengths, nt_terminal
+
+
+@dataclass
+class SpanTables:
+    """Every symbol over every span of a batch: log inside, log outside and posterior marginals.
+
+    Spans are indexed [start, width] as in `Posteriors.spans`; S = NT + T symbols in the
+    engine's layout. Cells past a sentence's end are -inf (zero marginal); so is the outside
+    score of a symbol that no tree puts over a span (every cell of a sentence with no parse).
+    """
+    logz: Tensor       # (B,) log p(sentence); -inf when there is no parse
+    inside: Tensor     # (B, N+1, N+1, S) log inside scores; -inf where impossible (preterminals
+                       # at width one only)
+    outside: Tensor    # (B, N+1, N+1, NT) log outside scores minus log Z, so that
+                       # outside + inside = log p(symbol over span | sentence)
+    marginals: Tensor  # (B, N+1, N+1, S) p(symbol spans [start, width] | sentence)
+
+
+def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
+                nt_terminal: Tensor | None = None) -> SpanTables:
+    """Label marginals, inside and outside scores of every span, batched (arguments as in
+    `log_partition`; one grammar for the batch).
+
+    One inside pass and the outside pass of `_LogPartition` (asked for the adjoint chart and
+    the word gradient only): a cell's adjoint `adj` is d log Z / d scaled_inside, so
+    adj * scaled_inside is the posterior marginal of each symbol over that span, and
+    log(adj) - log scale is its log outside score minus log Z (Eisner 2016).
+    """
+    if binary.dim() != 3:
+        raise ValueError("span_tables takes one grammar for the batch, binary (NT, S, S)")
+    root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
+    B, N, T = terminal.shape
+    NT = binary.shape[0]
+    with torch.no_grad():
+        chart, saved, rules = _fill(binary, terminal, nt_terminal, None, keep=True)
+        logz, top, top_scale, pi, total = _root_scores(chart, root, lengths)
+        adjoints: dict = {}
+        grad_terminal = _outside(binary, lengths, chart, saved, rules, top, top_scale, pi,
+                                 total, nt_terminal is not None, False, torch.ones_like(logz),
+                                 need_rules=False, need_words=True, adjoints=adjoints)[2]
+        cells = chart.by_start[..., :NT].permute(1, 0, 2, 3)             # (B, N+1, N+1, NT)
+        adj = adjoints["chart"][..., :NT].permute(1, 0, 2, 3)
+        scale = chart.scale_start.transpose(0, 1).unsqueeze(-1)          # (B, N+1, N+1, 1)
+        inside = terminal.new_full((B, N + 1, N + 1, NT + T), NEG_INF)
+        inside[..., :NT] = cells.log() + scale
+        inside[:, :N, 1, NT:] = chart.term.log().transpose(0, 1) + scale[:, :N, 1]
+        # Cells past a sentence's end hold the padding's scores: they are no span of it.
+        ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
+        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], NEG_INF)
+        outside = torch.where(adj > 0, adj.log() - scale, torch.full_like(adj, NEG_INF))
+        marginals = terminal.new_zeros(B, N + 1, N + 1, NT + T)
+        marginals[..., :NT] = adj * cells
+        marginals[:, :N, 1, NT:] = grad_terminal
+    return SpanTables(logz, inside, outside, marginals)
