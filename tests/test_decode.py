@@ -67,7 +67,7 @@ def all_trees(g: Grammar, words):
                     yield math.exp(logp), nodes, leaves, label[(0, n)]
 
 
-REFINED = make_grammar(["S@0", "S@1", "X@0"], ["P@0", "P@1", "Q@0"], 3, seed=7)
+REFINED = make_grammar(["S·0", "S·1", "X·0"], ["P·0", "P·1", "Q·0"], 3, seed=7)
 SENTENCES = [["w0", "w1"], ["w2", "w0", "w1"], ["w1", "w2", "w0", "w1"]]
 
 
@@ -184,7 +184,7 @@ def test_max_rule_product_matches_enumeration():
         assert value == pytest.approx(expect_value, abs=1e-9)
         assert sorted(spans) == expect_spans
         result = decode(REFINED, [words], "max-rule-product")[0]
-        assert all("@" not in label for _, _, label in result.tree.labeled_spans())
+        assert all("·" not in label for _, _, label in result.tree.labeled_spans())
 
 
 def test_summed_tree_probability_over_refinements():

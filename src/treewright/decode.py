@@ -7,9 +7,9 @@
   is then labeled with its most probable symbol.
 - `max-rule-product`: for refined grammars, the tree of coarse categories that maximizes the
   product of its anchored coarse-rule posteriors (Petrov & Klein 2007, "Improved Inference for
-  Unlexicalized Parsing", section 3). A refined grammar names its subcategories `NAME@k`; the
-  coarse symbol is the part before the last '@'. Symbols without '@' are their own coarse symbol,
-  so on an unrefined grammar this is max-rule-product over the grammar's own symbols.
+  Unlexicalized Parsing", section 3). A refined grammar names its subcategories `NAME·k`, and
+  `grammar.coarse_name` maps them to `NAME`; other symbols are their own coarse symbol, so on an
+  unrefined grammar this is max-rule-product over the grammar's own symbols.
 
 The labeled marginals, inside and outside scores come from `engine.span_tables` (the engine's
 own outside pass, batched); both decoders then work one span width at a time over every span of
@@ -27,7 +27,7 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.corpus.batching import length_batches
-from treewright.grammar import Grammar
+from treewright.grammar import Grammar, coarse_name
 from treewright.inference import encode, spans_to_tree
 from treewright.trees import Tree, tree_from_spans
 
@@ -79,12 +79,6 @@ def mbr_spans_batch(span_marginals: Tensor, lengths: Sequence[int]
             stack.extend([(k, j), (i, k)])
         out.append(spans)
     return out
-
-
-def coarse_name(symbol: str) -> str:
-    """`NP@1` -> `NP`: the part before the last '@' (the whole name if there is none)."""
-    head, sep, _ = symbol.rpartition("@")
-    return head if sep else symbol
 
 
 @dataclass

@@ -24,6 +24,12 @@ Grammar text format (ours; see the README):
 
 Probabilities are printed with 17 significant digits, so load, save, load is exact in float64.
 
+Subcategories: a refined grammar names subcategory k of a symbol `NAME` as `NAME·k`
+(`SUBCATEGORY_MARK`, U+00B7 middle dot, then the number). The mark is ours: no treebank tag set
+uses it, and it differs from the marks of the corpus transforms (`corpus.transforms`: ¦, ˆ and
+¤), so a refined symbol of a binarized or annotated tree keeps all of them apart, and it is an
+ordinary character of a symbol token in the text format. `coarse_name` is the one reading of it.
+
 A saved grammar is sealed: its first line is `@format 1` and its last line is
 `# checksum sha256:HEX`, the SHA-256 of every line before it (joined with "\n", so a change of
 line endings alone is not an edit). A file whose checksum no longer matches, or that has
@@ -47,6 +53,27 @@ from treewright.vocab import Vocabulary
 NEG_INF = float("-inf")
 FORMAT_VERSION = 1
 CHECKSUM_PREFIX = "# checksum sha256:"
+SUBCATEGORY_MARK = "\u00b7"  # NAME·k: subcategory k of coarse symbol NAME (see the docstring)
+
+
+def fine_name(symbol: str, k: int) -> str:
+    """The name of subcategory k of `symbol`: `NP`, 1 -> `NP·1`."""
+    return f"{symbol}{SUBCATEGORY_MARK}{k}"
+
+
+def split_name(name: str) -> tuple[str, int | None]:
+    """(coarse symbol, subcategory) of a symbol name: `NP·1` -> (`NP`, 1). A name without the
+    mark followed by a number, such as `NP`, `NP·x` or `·1`, is its own coarse symbol and has
+    no subcategory (None)."""
+    head, mark, tail = name.rpartition(SUBCATEGORY_MARK)
+    if mark and head and tail.isascii() and tail.isdigit():
+        return head, int(tail)
+    return name, None
+
+
+def coarse_name(name: str) -> str:
+    """The coarse symbol of a symbol name: `NP·1` -> `NP`, `NP` -> `NP` (see `split_name`)."""
+    return split_name(name)[0]
 
 
 @dataclass
