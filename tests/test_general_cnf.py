@@ -189,3 +189,25 @@ def test_cli_score_and_parse_on_a_grammar_without_preterminals(tmp_path, capsys)
         assert out[1:] == ["(S w)", "(S (S w) (S w))"]
         # Common practice: the three words in one binary tree of S nodes, either bracketing.
         assert out[0] in ("(S (S w) (S (S w) (S w)))", "(S (S (S w) (S w)) (S w))")
+
+
+def test_low_rank_engine_with_no_preterminal_matches_the_reference():
+    # Reference: reference_inside on the dense rules the factors imply, with autograd.
+    from treewright.engine.lowrank import dense_binary, lowrank_log_partition
+    gen = torch.Generator().manual_seed(2)
+    dt = torch.float64
+    nt, rank = 3, 4
+    u = torch.randn(nt, rank, generator=gen, dtype=dt).log_softmax(1)
+    v = torch.randn(nt, rank, generator=gen, dtype=dt).log_softmax(0)
+    w = torch.randn(nt, rank, generator=gen, dtype=dt).log_softmax(0)
+    root = torch.randn(nt, generator=gen, dtype=dt).log_softmax(0)
+    terminal = torch.zeros(2, 5, 0, dtype=dt)
+    nt_terminal = (torch.randn(2, 5, nt, generator=gen, dtype=dt) - 1).requires_grad_()
+    lengths = torch.tensor([5, 3])
+    z = lowrank_log_partition(root, u, v, w, terminal, lengths, nt_terminal)
+    (grad,) = torch.autograd.grad(z.sum(), nt_terminal)
+    leaf = nt_terminal.detach().clone().requires_grad_()
+    z_ref = reference_inside(root, dense_binary(u, v, w), terminal, lengths, leaf)
+    (grad_ref,) = torch.autograd.grad(z_ref.sum(), leaf)
+    torch.testing.assert_close(z.detach(), z_ref.detach(), rtol=1e-10, atol=1e-10)
+    torch.testing.assert_close(grad, grad_ref, rtol=1e-9, atol=1e-10)
