@@ -5,8 +5,9 @@
     .venv/bin/python scripts/bench_decode.py --baseline HEAD~3 --sentences 20 --repeats 1
 
 Grammars: the demo grammar (`src/treewright/data/demo/grammar.pcfg`) and a refined version of
-it, every symbol split in two (`refine.split` with a 1% perturbation, seed 0), symbols NAME@k,
-the kind of grammar max-rule-product is meant for. Sentences: the first `--sentences` lines of
+it, every symbol split in two `--splits` times (`refine.split` with a 1% perturbation, seed 0),
+symbols NAME·k, the kind of grammar max-rule-product is meant for (a baseline from before
+NAME·k gets the same grammar named NAME@k, and its trees are compared in our names). Sentences: the first `--sentences` lines of
 the demo dev set of at most `--max-length` words. For each grammar and decoder it prints the
 best-of-repeats seconds of both versions, their ratio, and whether the decoded trees are equal.
 The baseline module is compiled from `git show BASELINE:src/treewright/decode.py` and uses this
@@ -26,8 +27,9 @@ import torch
 
 from treewright import decode as new_decode
 from treewright.allocator import tune_allocator
-from treewright.grammar import load_grammar
+from treewright.grammar import Grammar, fine_name, load_grammar, split_name
 from treewright.refine import latent_from_grammar, split
+from treewright.trees import Tree
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "src" / "treewright" / "data" / "demo"
@@ -43,14 +45,44 @@ def baseline_module(ref: str) -> types.ModuleType:
     return module
 
 
+def in_its_names(module, grammar: Grammar) -> tuple[Grammar, dict[str, str]]:
+    """The grammar with its subcategory names in the form `module` reads (versions before
+    NAME·k wrote NAME@k), and the map from that form's labels back to ours."""
+    if module.coarse_name(fine_name("X", 1)) == "X":
+        return grammar, {}
+    def theirs(name: str) -> str:
+        coarse, k = split_name(name)
+        return name if k is None else f"{coarse}@{k}"
+    names = {theirs(x): x for x in grammar.symbols}
+    return Grammar([theirs(x) for x in grammar.nonterminals],
+                   [theirs(x) for x in grammar.preterminals], grammar.vocab, grammar.root,
+                   grammar.binary, grammar.lexical, grammar.start), names
+
+
 def timed(module, grammar, sentences, decoder, repeats):
+    grammar, back = in_its_names(module, grammar)
     best, trees = float("inf"), None
     for _ in range(repeats):
         began = time.perf_counter()
         result = module.decode(grammar, sentences, decoder)
         best = min(best, time.perf_counter() - began)
-        trees = [None if d.tree is None else d.tree.to_string() for d in result]
+        trees = [None if d.tree is None else _renamed(d.tree, back).to_string() for d in result]
     return best, trees
+
+
+def _renamed(tree: Tree, names: dict[str, str]) -> Tree:
+    out = Tree(names.get(tree.label, tree.label))
+    stack = [(tree, out)]
+    while stack:
+        src, dst = stack.pop()
+        for child in src.children:
+            if isinstance(child, str):
+                dst.children.append(child)
+            else:
+                copy = Tree(names.get(child.label, child.label))
+                dst.children.append(copy)
+                stack.append((child, copy))
+    return out
 
 
 def main() -> None:
@@ -60,6 +92,8 @@ def main() -> None:
     parser.add_argument("--max-length", type=int, default=18)
     parser.add_argument("--repeats", type=int, default=2)
     parser.add_argument("--threads", type=int, default=None, help="torch threads")
+    parser.add_argument("--splits", type=int, default=1,
+                        help="how many times the refined grammar splits every symbol in two")
     args = parser.parse_args()
     tune_allocator()
     if args.threads:
@@ -69,8 +103,10 @@ def main() -> None:
     sentences = [line.split() for line in lines if 0 < len(line.split()) <= args.max_length]
     sentences = sentences[:args.sentences]
     demo = load_grammar(DEMO / "grammar.pcfg")
-    refined = split(latent_from_grammar(demo), 0.01, torch.Generator().manual_seed(0))
-    grammars = {"demo": demo, "demo split in two": refined.to_grammar()}
+    refined = latent_from_grammar(demo)
+    for _ in range(args.splits):
+        refined = split(refined, 0.01, torch.Generator().manual_seed(0))
+    grammars = {"demo": demo, f"demo split x{2 ** args.splits}": refined.to_grammar()}
     print(f"{len(sentences)} sentences of at most {args.max_length} words; baseline "
           f"{args.baseline}; torch threads {torch.get_num_threads()}")
     for name, grammar in grammars.items():
