@@ -398,7 +398,7 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
     lg = estimate_coarse(train_mapped)
     log.note(f"coarse grammar: {len(lg.symbols)} symbols, {len(lg.rules)} binary and "
              f"{len(lg.words)} word rules; {len(classes.known)} known words, "
-             f"{len(classes.signatures)} signature classes")
+             f"{len(classes.signatures)} shape classes")
     ts_train = tree_set(lg, train_mapped)
     ts_dev = tree_set(lg, dev_mapped)
     if ts_dev.dropped:
