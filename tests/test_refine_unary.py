@@ -94,6 +94,20 @@ def test_a_word_beside_phrases_is_refused_with_file_and_line(tmp_path):
     assert str(train) in message and "line 2" in message and "'ko'" in message
 
 
+def test_a_root_label_is_joined_or_refused_with_file_and_line(tmp_path):
+    # A ROOT wrapper over one phrase joins it (ROOT¦S); a branching ROOT would be the name of
+    # the refined grammar's start symbol, and is refused where it stands.
+    wrapped = ["(ROOT " + t + ")" for t in HAND]
+    assert cnf_problem(cnf_tree(parse(wrapped[0]))) is None
+    train = tmp_path / "trees.txt"
+    train.write_text(wrapped[1] + "\n(ROOT (NP (NAME Hessa)) (VP (VI lurrik)))\n",
+                     encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        refine(_refine_config(train, tmp_path / "run", ["data.heldout_fraction=0.01"]),
+               tmp_path / "run")
+    assert caught.value.path == str(train) and caught.value.line == 2
+
+
 # ---- real trees -------------------------------------------------------------------------------
 
 def _web_conllu() -> Path:
