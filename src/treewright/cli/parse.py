@@ -16,6 +16,10 @@ decoders:
   max-rule-product  for refined grammars (symbols NAME@k): the tree of coarse symbols maximizing
                     the product of posterior coarse-rule marginals
 
+A grammar trained on tags (data.tag_mode, or --tags) parses the tags of a bracketed or
+CoNLL-U file and prints trees over its words, ready for `treewright evaluate` against that file;
+given raw text, it reads the tokens as the tags.
+
 One bracketed tree per input line. A sentence with no parse prints '(NOPARSE w1 w2 ...)' so the
 output keeps one line per sentence, and the reason goes to standard error. With --scores each line
 gets a tab, log p(tree, sentence), a tab and p(tree | sentence); with --objective, a third tab and
@@ -38,19 +42,31 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--objective", action="store_true",
                    help="append the decoder's objective value to each line")
     p.add_argument("--batch-size", type=int, default=16)
+    p.add_argument("--tags", action="store_true",
+                   help="the grammar reads tags: TEXT may be bracketed trees or CoNLL-U, whose "
+                        "tags are parsed and whose words are printed (automatic for a run or "
+                        "JSON export trained with data.tag_mode)")
 
 
 def run(args) -> int:
     import sys
 
     from treewright.cli.common import as_trained, read_sentences
+    from treewright.corpus import read_tagged, run_tag_mode
     from treewright.decode import decode
     from treewright.export import open_grammar  # text, JSON export or run folder
 
     source = open_grammar(args.grammar)
     grammar = source.grammar
-    lines = read_sentences(args.text)
-    inputs = as_trained(source, lines)
+    config = (source.training or {}).get("config")
+    on_tags = args.tags or run_tag_mode(config.get("data") if isinstance(config, dict) else None)
+    tagged = read_tagged(args.text) if on_tags and args.text != "-" else None
+    if tagged is None:
+        lines = read_sentences(args.text)
+        inputs = as_trained(source, lines)
+    else:  # tags go into the grammar, the words come out
+        lines = [(s.line, s.words) for s in tagged]
+        inputs = [s.tokens for s in tagged]
     results = decode(grammar, inputs, args.decoder, args.batch_size)
     unparsed = 0
     for (line, words), normalised, result in zip(lines, inputs, results):

@@ -262,6 +262,28 @@ def read_corpus(path: str | os.PathLike, fmt: str = "auto",
                   set_aside=stream.set_aside)
 
 
+def read_tagged(path: str | os.PathLike, fmt: str = "auto") -> list[Sentence] | None:
+    """Every sentence of a tagged corpus, for parsing with a grammar trained on tags.
+
+    A bracketed or CoNLL-U file gives each sentence's `words` and its tags as `tokens` (the
+    preterminal labels, or UPOS), read as evaluation reads gold trees (empty elements removed,
+    non-projective sentences lifted), so that trees over `words` line up with that gold. None
+    for raw text, whose tokens are the tags themselves with no words beside them. A record that
+    gives no sentence raises InputError naming its line: parses must keep one per record.
+    """
+    if fmt == "auto":
+        fmt = detect_format(path)
+    if fmt == "text":
+        return None
+    corpus = read_corpus(path, fmt, ReadOptions(tag_mode=True, nonprojective="lift"))
+    if corpus.report.skipped:
+        first = corpus.report.skipped[0]
+        detail = f": {first.message}" if first.message else ""
+        raise InputError(f"this sentence cannot be parsed from its tags ({first.reason}{detail})",
+                         path=first.source, line=first.line, column=first.column)
+    return corpus.sentences
+
+
 def write_skip_log(report: ReadReport, path: str | os.PathLike) -> int:
     """Write one line per skipped record of `report` to `path` (UTF-8); returns the count."""
     with open(path, "w", encoding="utf-8") as handle:

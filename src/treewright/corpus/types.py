@@ -35,6 +35,11 @@ def run_case_rules(data) -> str | None:
     rules = data.get("case_rules", "default")
     return rules if rules in CASE_RULES else "default"
 
+def run_tag_mode(data) -> bool:
+    """True when a training run's `data` config section (as read from its config.yaml) trained
+    the grammar on tags (`tag_mode`) rather than on words."""
+    return isinstance(data, dict) and bool(data.get("tag_mode"))
+
 # Preterminal labels treated as punctuation in the Penn Treebank tag set (from memory; the usual
 # list in unsupervised-parsing evaluation). Pass it as `ReadOptions.punct_labels` to drop them.
 PTB_PUNCT_LABELS = frozenset({",", ".", ":", "``", "''", "-LRB-", "-RRB-", "#", "$"})

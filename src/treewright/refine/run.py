@@ -32,7 +32,7 @@ from treewright.refine.signatures import UNKNOWN, WordClasses
 from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
 from treewright.refine.summary import subcategory_summary, summary_text
 from treewright.refine.text import text_estep, text_loglik, viterbi_coarse_trees
-from treewright.refine.trees import TreeSet, tree_estep, tree_loglik, tree_set
+from treewright.refine.trees import TreeSet, cnf_problem, tree_estep, tree_loglik, tree_set
 from treewright.safeio import atomic_write_text, check_writable, load_checkpoint, save_checkpoint
 from treewright.tracking import METRICS_FILE, open_loggers
 from treewright.trees import Tree
@@ -42,8 +42,12 @@ from treewright.trees import Tree
 
 def cnf_tree(tree: Tree, factor: str = "right", horizontal: int | None = 1,
              vertical: int = 1) -> Tree:
-    """Binarize (markovized) and collapse unary chains: the coarse tree form refinement uses."""
-    return collapse_unary(binarize(tree, factor, horizontal, vertical))
+    """Binarize (markovized) and collapse unary chains: the coarse tree form refinement uses.
+
+    A chain ending in a tag joins the tag too, so a phrase over one tag becomes one preterminal,
+    (NP (NAME x)) -> (NP¦NAME x) (`corpus.UNARY_SEP`): a grammar without unary rules has no
+    other place for it. `from_coarse_trees` splits every joined label back into its chain."""
+    return collapse_unary(binarize(tree, factor, horizontal, vertical), keep_preterminals=False)
 
 
 def map_words(tree: Tree, classes: Callable[[str], str]) -> Tree:
@@ -375,6 +379,9 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
         trees, one_word = [], 0
         for s in part:
             t = cnf_tree(s.tree, form.factor, form.horizontal, form.vertical)
+            problem = cnf_problem(t)
+            if problem is not None:
+                raise InputError(problem, path=s.source, line=s.line)
             if t.is_preterminal():
                 one_word += 1  # a one-word tree has no phrase for the root to rewrite to
             else:
@@ -391,7 +398,7 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
     lg = estimate_coarse(train_mapped)
     log.note(f"coarse grammar: {len(lg.symbols)} symbols, {len(lg.rules)} binary and "
              f"{len(lg.words)} word rules; {len(classes.known)} known words, "
-             f"{len(classes.signatures)} signature classes")
+             f"{len(classes.signatures)} shape classes")
     ts_train = tree_set(lg, train_mapped)
     ts_dev = tree_set(lg, dev_mapped)
     if ts_dev.dropped:

@@ -10,7 +10,7 @@ with an `InputError` naming the file and line.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Sequence
 
@@ -18,7 +18,7 @@ from treewright.corpus import ReadOptions, Sentence, read_corpus
 from treewright.errors import InputError
 from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracketing,
                                    LikelihoodScores, TagScores, evaluate_brackets, evaluate_tags,
-                                   heldout_likelihood, preterminal_labels)
+                                   heldout_likelihood, preterminal_labels, words_over_tags)
 from treewright.trees import Tree, escape_token
 
 # The label `treewright parse` writes over a sentence it could not parse.
@@ -169,6 +169,10 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     if missing_tree is not None:
         raise InputError("gold has no tree (give bracketed trees or CoNLL-U)",
                          path=str(gold_path), line=missing_tree.line)
+    # Trees parsed from a file of tags (a grammar trained on tags) get the gold words back.
+    trees, over_tags = words_over_tags([p.tree for p in pred], [g.words for g in gold],
+                                       [g.tags for g in gold])
+    pred = [replace(p, tree=t, words=t.leaves()) for p, t in zip(pred, trees)]
     check_aligned(pred, gold, str(pred_path), str(gold_path))
     brackets = evaluate_brackets([comparable(p.tree) for p in pred],
                                  [comparable(g.tree) for g in gold], conventions,
@@ -176,6 +180,8 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     counts = {"sentences": len(gold),
               "unparsed_predictions": sum(p.tree.label == NOPARSE for p in pred),
               "gold_projectivised": gold_corpus.report.projectivised}
+    if over_tags:
+        counts["predictions_over_tags"] = over_tags
     report = EvaluationReport(brackets, counts=counts,
                               sources={"predicted": str(pred_path), "gold": str(gold_path),
                                        "grammar": None if grammar_path is None else str(grammar_path),
