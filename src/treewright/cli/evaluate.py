@@ -25,7 +25,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
     p.add_argument("--json", metavar="PATH",
                    help="also write every score and convention as JSON ('-': stdout, no table)")
-    p.add_argument("--grammar", help="grammar file, for the held-out likelihood of --text")
+    p.add_argument("--grammar", help="grammar (text file, JSON export or run folder), for the held-out "
+                        "likelihood of --text")
     p.add_argument("--text", help="raw text, one sentence per line, scored under --grammar")
     p.add_argument("--no-tags", action="store_true", help="skip the tag evaluation")
     conv = p.add_argument_group("bracket conventions (defaults: the usual unsupervised setup)")

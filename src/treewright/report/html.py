@@ -107,7 +107,7 @@ def _read_options(config: dict) -> ReadOptions:
 def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path | None = None,
            grammar_path: str | Path | None = None, gold_format: str = "auto") -> ReportInputs:
     """Read everything the report can use from a run folder and the optional files."""
-    from treewright.grammar import load_grammar
+    from treewright.export.source import load as load_grammar  # text, JSON export or run folder
 
     run = Path(run_dir)
     if not run.is_dir():

@@ -139,7 +139,7 @@ def _tag_scores(pred: Sequence[Sentence], gold: Sequence[Sentence]):
 
 def heldout_from_files(grammar_path: str | Path, text_path: str | Path) -> LikelihoodScores:
     """Per-word log-likelihood and perplexity of a raw-text file under a grammar file."""
-    from treewright.grammar import load_grammar
+    from treewright.export.source import load as load_grammar  # text, JSON export or run folder
     from treewright.inference import score
 
     grammar = load_grammar(grammar_path)
