@@ -81,7 +81,7 @@ def run(args) -> int:
     from treewright.cli.common import dumps
     from treewright.errors import InputError
     from treewright.report.scoring import evaluate_files
-    from treewright.safeio import atomic_write_text
+    from treewright.safeio import write_output_text
 
     if (args.grammar is None) != (args.text is None):
         raise InputError("--grammar and --text go together (the text is scored under the grammar)")
@@ -94,6 +94,5 @@ def run(args) -> int:
         return 0
     print(report.format_table())
     if args.json is not None:
-        from pathlib import Path
-        atomic_write_text(Path(args.json), text + "\n")
+        write_output_text(args.json, text + "\n")
     return 0

@@ -392,8 +392,8 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
 
 def write_report(run_dir: str | Path, out: str | Path | None = None, **options) -> Path:
     """Write `build_report(run_dir, **options)` to `out` (default run_dir/report.html)."""
-    from treewright.safeio import atomic_write_text
+    from treewright.safeio import write_output_text
 
     path = Path(out) if out is not None else Path(run_dir) / "report.html"
-    atomic_write_text(path, build_report(run_dir, **options))
+    write_output_text(path, build_report(run_dir, **options))  # makes a missing folder
     return path
