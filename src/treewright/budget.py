@@ -60,11 +60,6 @@ class BudgetPlan:
     longest: float
     budget_mb: float | None
 
-    def needs_mb(self, grammar: Grammar, length: int, dtype: torch.dtype = torch.float32
-                 ) -> float:
-        """MiB one sentence of `length` words needs (for messages)."""
-        return sentence_bytes(grammar, length, dtype) / MB
-
 
 def longest_within(grammar: Grammar, budget_mb: float | None,
                    dtype: torch.dtype = torch.float32) -> float:
