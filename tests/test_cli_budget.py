@@ -87,6 +87,10 @@ def test_score_keeps_an_over_budget_line_and_names_it(grammar, tmp_path, capsys)
     assert records[-1]["summary"]["over_memory_budget"] == 1
     assert records[-1]["summary"]["parsed"] == 2
     assert f"{text}, line 2: not scored: 200 words" in captured.err
+    text.write_text(f"{LONG}\n")  # nothing scored: no log-likelihood rather than a sum of 0
+    assert main(["score", str(TEXTBOOK), str(text), "--memory-budget", f"{budget:.6f}"]) == 0
+    summary = json.loads(capsys.readouterr().out.splitlines()[-1])["summary"]
+    assert summary["log_likelihood"] is None and summary["perplexity"] is None
 
 
 def test_score_prints_the_digits_float32_supports(tmp_path, capsys):

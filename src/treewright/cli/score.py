@@ -15,8 +15,8 @@ Each sentence (non-blank line) gives one JSON line: {"line", "tokens", "logprob"
 parse. Values carry the digits their precision supports (about 7 in float32, the default;
 --float64 for more). A sentence too long for --memory-budget is named on standard error and
 gets a line with logprob null and "over_memory_budget": true. The last line is the summary:
-total log-likelihood, per-word cross-entropy and perplexity over parsed sentences, and the count
-of sentences over the budget. On a terminal a progress bar runs on standard error.
+total log-likelihood, per-word cross-entropy and perplexity over parsed sentences (null when none
+parsed), and the count of sentences over the budget. On a terminal a progress bar runs on standard error.
 """
 
 
@@ -59,5 +59,7 @@ def run(args) -> int:
     summary = corpus_summary([s for s in scores if s is not None])
     summary = {k: shortest(v, dtype) if isinstance(v, float) else v for k, v in summary.items()}
     summary["over_memory_budget"] = len(plan.over)
+    if not summary["parsed"]:
+        summary["log_likelihood"] = None  # a sum over no sentence is no score (not 0)
     print(dumps({"summary": summary}))
     return 0
