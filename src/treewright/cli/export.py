@@ -63,7 +63,7 @@ def run(args) -> int:
     from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
                                            format_listing, summarize)
     from treewright.export.parses import head_rule, parse_corpus, to_brackets, to_conllu
-    from treewright.safeio import atomic_write_text
+    from treewright.safeio import write_output_text
 
     if args.to in ("brackets", "conllu") and args.corpus is None:
         raise InputError(f"--to {args.to} needs --corpus (the sentences to parse)")
@@ -113,5 +113,5 @@ def run(args) -> int:
     if args.out == "-":
         sys.stdout.write(text)
     else:
-        atomic_write_text(args.out, text)
+        write_output_text(args.out, text)
     return 0

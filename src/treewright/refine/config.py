@@ -106,7 +106,7 @@ class RefineConfig:
 
 def load_refine_config(path: str | Path | None, overrides: Sequence[str] = ()) -> RefineConfig:
     """The checked config (ConfigError lists every problem at once)."""
-    cfg = load_config(RefineConfig, path, overrides)
+    cfg = load_config(RefineConfig, path, overrides, resolve_paths=True)
     source = None if path is None else str(path)
     problems = []
     if cfg.data.start == "text" and cfg.data.grammar is None:

@@ -19,6 +19,7 @@ from typing import Sequence
 import torch
 import yaml
 
+from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import ReadOptions, Sentence, read_corpus, run_case_rules
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
@@ -107,7 +108,7 @@ def _read_options(config: dict) -> ReadOptions:
 def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path | None = None,
            grammar_path: str | Path | None = None, gold_format: str = "auto") -> ReportInputs:
     """Read everything the report can use from a run folder and the optional files."""
-    from treewright.grammar import load_grammar
+    from treewright.export.source import load as load_grammar  # text, JSON export or run folder
 
     run = Path(run_dir)
     if not run.is_dir():
@@ -174,20 +175,26 @@ class Parsed:
     sentences: list[Sentence]
     trees: list[Tree]        # one per sentence; NOPARSE for sentences without a parse
     unparsed: int
+    over_budget: list[Sentence] = field(default_factory=list)  # not parsed: over the budget
 
 
-def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str) -> Parsed:
-    from treewright.decode import decode
+def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
+                    memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> Parsed:
+    from treewright.budget import decode_within_budget
+    from treewright.tracking import terminal_progress
 
-    results = decode(grammar, [s.tokens for s in sentences], decoder)
+    with terminal_progress(len(sentences), "report: parsing") as progress:
+        results = decode_within_budget(grammar, [s.tokens for s in sentences], decoder,
+                                       memory_budget_mb, progress=progress)
     trees, unparsed = [], 0
     for s, r in zip(sentences, results):
-        if r.tree is None:
+        if r is None or r.tree is None:
             unparsed += 1
             trees.append(_flat(s.words))
         else:
             trees.append(_with_words(r.tree, s.words))
-    return Parsed(list(sentences), trees, unparsed)
+    over = [s for s, r in zip(sentences, results) if r is None]
+    return Parsed(list(sentences), trees, unparsed, over)
 
 
 def _section(ident: str, title: str, body: str) -> str:
@@ -316,7 +323,8 @@ def examples_section(parsed: Parsed | None, with_gold: bool, count: int, max_wor
     return _section("examples", "Example sentences", "".join(pairs))
 
 
-def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int) -> str:
+def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int,
+                    memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> str:
     title = "Span posteriors"
     if grammar is None or not sentences:
         return _section("heatmap", title, _missing("Needs the grammar and --gold or --text."))
@@ -327,6 +335,10 @@ def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int) -
     from treewright.inference import encode
 
     s = sentences[index - 1]
+    if len(s.tokens) > longest_within(grammar, memory_budget_mb, torch.float64):
+        return _section("heatmap", title, _missing(
+            f"Sentence {index} ({s.source}, line {s.line}) is over the memory budget of "
+            f"{memory_budget_mb:g} MB."))
     enc = encode(grammar, [s.tokens], torch.float64)
     post = engine.posteriors(grammar.root.to(torch.float64), grammar.binary.to(torch.float64),
                              enc.terminal, enc.lengths, enc.nt_terminal)
@@ -343,7 +355,8 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
                  text: str | Path | None = None, *, grammar_path: str | Path | None = None,
                  decoder: str = "mbr", examples: int = 3, max_example_words: int = 20,
                  heatmap_sentence: int = 1, top_rules: int = 6, gold_format: str = "auto",
-                 max_sentences: int | None = None) -> str:
+                 max_sentences: int | None = None,
+                 memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> str:
     """The HTML page (a string) for the run in `run_dir`.
 
     gold: bracketed trees or CoNLL-U, parsed with the run's grammar for F1 by length, label
@@ -352,6 +365,7 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
     decoder: see `treewright.decode.DECODERS`. max_sentences: parse only the first N gold
         sentences (the page says how many of how many).
     heatmap_sentence: 1-based index into the gold (else text) sentences.
+    memory_budget_mb: sentences that alone need more are not parsed; the page names them.
     """
     found = gather(run_dir, gold, text, grammar_path, gold_format)
     pool = found.gold if found.gold is not None else found.text
@@ -361,7 +375,12 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         if len(chosen) < len(pool):
             found.notes.append(f"parsed the first {len(chosen)} of {len(pool)} sentences "
                                "(max_sentences)")
-        parsed = parse_sentences(found.grammar, chosen, decoder)
+        parsed = parse_sentences(found.grammar, chosen, decoder, memory_budget_mb)
+        if parsed.over_budget:
+            found.notes.append(
+                f"{len(parsed.over_budget)} sentences over the memory budget of "
+                f"{memory_budget_mb:g} MB were not parsed (shown flat; first: "
+                f"{parsed.over_budget[0].source}, line {parsed.over_budget[0].line})")
     with_gold = found.gold is not None
     sections = [
         curves_section(found.metrics),
@@ -369,7 +388,7 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
                            "Needs the grammar and gold trees (--gold)."),
         grammar_section(found.grammar, top_rules),
         examples_section(parsed, with_gold, examples, max_example_words, reason),
-        heatmap_section(found.grammar, pool, heatmap_sentence),
+        heatmap_section(found.grammar, pool, heatmap_sentence, memory_budget_mb),
     ]
     header = [f"<h1>treewright run: {esc(found.run_dir.name)}</h1>",
               f"<p>Folder {esc(found.run_dir)}; trees decoded with {esc(decoder)}.</p>"]
@@ -392,8 +411,8 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
 
 def write_report(run_dir: str | Path, out: str | Path | None = None, **options) -> Path:
     """Write `build_report(run_dir, **options)` to `out` (default run_dir/report.html)."""
-    from treewright.safeio import atomic_write_text
+    from treewright.safeio import write_output_text
 
     path = Path(out) if out is not None else Path(run_dir) / "report.html"
-    atomic_write_text(path, build_report(run_dir, **options))
+    write_output_text(path, build_report(run_dir, **options))  # makes a missing folder
     return path

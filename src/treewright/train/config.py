@@ -258,7 +258,7 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
 def load_train_config(path: str | Path | None, overrides: Sequence[str] = ()) -> TrainConfig:
     """The checked config from defaults, the YAML file and overrides (ConfigError lists every
     problem)."""
-    cfg = load_config(TrainConfig, path, overrides)
+    cfg = load_config(TrainConfig, path, overrides, resolve_paths=True)
     check_combinations(cfg, None if path is None else str(path))
     return cfg
 
