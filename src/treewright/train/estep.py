@@ -13,10 +13,18 @@ import torch
 from torch import Tensor
 
 from treewright import engine
-from treewright.engine.lowrank import lowrank_log_partition
-from treewright.params.compound import CompoundRules
+from treewright.params.base import RulesScorer, span_posteriors, terminal_scores
+from treewright.params.compound import (compound_log_partition, compound_span_posteriors,
+                                        sentence_terminal_scores)
 from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
+
+# Re-exported: the engine-facing helpers moved to the parameterizations (params.base,
+# params.compound); tests and benchmarks import them from here.
+__all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_counts",
+           "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
+           "log_partition_of", "make_batch", "sentence_logliks", "sentence_terminal_scores",
+           "span_posteriors", "terminal_scores", "zero_counts"]
 
 NEG_INF = float("-inf")
 
@@ -75,11 +83,6 @@ def crossing_mask(a: int, b: int, n: int) -> Tensor:
     return ((start < a) & (a < end) & (end < b)) | ((a < start) & (start < b) & (b < end))
 
 
-def terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
-    """(B, N, T) log p(preterminal -> word at position) from lexical (T, V) and ids (B, N)."""
-    return lexical[:, ids].permute(1, 2, 0)
-
-
 @dataclass
 class ExpectedCounts:
     """Expected rule counts summed over sentences, with the log-likelihood they came with."""
@@ -131,51 +134,10 @@ def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
 
 def sentence_logliks(rules: RuleTensors | LowRankRules, batch: Batch) -> Tensor:
     """(B,) log p(sentence) under `rules`, no gradient."""
-    with torch.no_grad():
-        terminal = terminal_scores(rules.lexical, batch.ids)
-        return log_partition_of(rules, terminal, batch.lengths)
+    return RulesScorer(rules).log_likelihood(batch.ids, batch.lengths)
 
 
 def log_partition_of(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor,
                      span_pot: Tensor | None = None) -> Tensor:
-    """(B,) log Z under dense or factored rules, through the matching engine kernel."""
-    if isinstance(rules, LowRankRules):
-        return lowrank_log_partition(rules.root, rules.u, rules.v, rules.w, terminal, lengths,
-                                     span_pot=span_pot)
-    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
-
-
-def sentence_terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
-    """(B, N, T) from per-sentence lexical rules (B, T, V) and ids (B, N)."""
-    B, T, _ = lexical.shape
-    return torch.gather(lexical, 2, ids[:, None, :].expand(B, T, ids.shape[1])).transpose(1, 2)
-
-
-def compound_log_partition(rules: CompoundRules, ids: Tensor, lengths: Tensor,
-                           span_pot: Tensor | None = None) -> Tensor:
-    """(B,) log p(x_b | z_b), each sentence under its own rules, in one engine call."""
-    terminal = sentence_terminal_scores(rules.lexical, ids)              # (B, N, T)
-    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
-
-
-def compound_span_posteriors(rules: CompoundRules, ids: Tensor, lengths: Tensor
-                             ) -> tuple[Tensor, Tensor]:
-    """log p(x_b | z_b) (B,) and span marginals (B, N+1, N+1), each sentence under its own
-    rules, in one engine call."""
-    terminal = sentence_terminal_scores(rules.lexical, ids).detach()
-    post = engine.posteriors(rules.root.detach(), rules.binary.detach(), terminal, lengths)
-    return post.logz, post.spans
-
-
-def span_posteriors(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor
-                    ) -> tuple[Tensor, Tensor]:
-    """log Z (B,) and the posterior span marginals (B, N+1, N+1), [b, start, width], as the
-    gradient of log Z with respect to a zero span potential (Eisner 2016)."""
-    B, N, _ = terminal.shape
-    pot = terminal.new_zeros(B, N + 1, N + 1, requires_grad=True)
-    with torch.enable_grad():
-        detached = type(rules)(*(x.detach() for x in rules))
-        logz = log_partition_of(detached, terminal.detach(), lengths, span_pot=pot)
-        ok = torch.isfinite(logz)
-        (spans,) = torch.autograd.grad(torch.where(ok, logz, torch.zeros_like(logz)).sum(), pot)
-    return logz.detach(), spans
+    """(B,) log Z under dense or factored rules, through the kernel the rules name."""
+    return rules.log_partition(terminal, lengths, span_pot=span_pot)
