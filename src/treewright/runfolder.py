@@ -101,21 +101,24 @@ class RunFolder:
         """`stem` is "summary" (the result's) or "summary-<c>"; suffix ".txt" or ".json"."""
         return self.path / f"{stem}{suffix}"
 
+    @property
+    def _what(self) -> str:
+        return "refinement checkpoint" if self.kind == "refine" else "checkpoint"
+
     # ---- shared handling -----------------------------------------------------------------------
 
     def start(self, resume: bool, config_text: str | None = None) -> None:
         """Make the folder ready: writable; a fresh run refuses a folder that holds a checkpoint
         (and writes `config_text` to config.yaml when given), a resumed one needs it."""
-        self.path.mkdir(parents=True, exist_ok=True)
-        check_writable(self.path)
+        if resume and not self.checkpoint.exists():
+            # Checked before creating anything: a mistyped folder is not made.
+            raise InputError(f"no {self._what} here ({self.checkpoint.name}; a run writes one "
+                             "as it goes)", path=str(self.path))
+        check_writable(self.path)  # creates the folder, or says why it cannot
         if resume:
-            if not self.checkpoint.exists():
-                raise InputError(f"no checkpoint here ({self.checkpoint.name}; a run writes one "
-                                 "as it goes)", path=str(self.path))
             return
         if self.checkpoint.exists():
-            what = "refinement checkpoint" if self.kind == "refine" else "checkpoint"
-            raise InputError(f"the run folder already holds a {what}; continue it with "
+            raise InputError(f"the run folder already holds a {self._what}; continue it with "
                              "--resume or choose another output.run_dir", path=str(self.path))
         if config_text is not None:
             atomic_write_text(self.config, config_text)
