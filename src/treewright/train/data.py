@@ -136,7 +136,8 @@ def data_from_sentences(cfg: TrainConfig, sentences: Sequence[Sequence[str]],
             dev_path.write_text("".join(" ".join(s) + "\n" for s in dev), encoding="utf-8")
         elif dev_trees is not None:
             dev_path = Path(folder) / "dev.trees"
-            dev_path.write_text("".join(f"{t}\n" for t in dev_trees), encoding="utf-8")
+            dev_path.write_text("".join(t.to_string() + "\n" for t in dev_trees),
+                                encoding="utf-8")
         fmt = cfg.data.format if dev_path is None or dev_trees is None else "auto"
         data_options = dataclasses.replace(cfg.data, train=str(train_path), format=fmt,
                                            dev=None if dev_path is None else str(dev_path),
