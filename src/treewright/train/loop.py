@@ -18,9 +18,7 @@ from __future__ import annotations
 
 import json
 import math
-import signal
 import sys
-import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,7 +27,6 @@ from typing import TextIO
 import torch
 
 from treewright.config import config_to_dict, dump_config_yaml
-from treewright.corpus import length_batches
 from treewright.errors import InputError
 from treewright.grammar import load_grammar
 from treewright.params import PARAMETERIZATIONS, RuleModel, symbol_names, tabular_from_grammar
@@ -39,12 +36,14 @@ from treewright.safeio import atomic_write_bytes, atomic_write_text, load_checkp
     save_checkpoint
 from treewright.tracking import Progress, open_loggers
 from treewright.train.config import TrainConfig, train_config_from_dict
+from treewright.train.curriculum import Curriculum, restart_seed
 from treewright.train.data import MemoryBudget, TrainData, load_data, summary
 from treewright.train.dev import DevLikelihood
 from treewright.train.distributed import LocalWorld, StreamedCorpus, plan_sentences
-from treewright.train.estep import Batch, DivergedError, edge_bias, make_batch
+from treewright.train.estep import Batch, DivergedError
 from treewright.train.methods import METHODS, Step, Update
 from treewright.train.metrics import rule_entropies, unigram_logprobs
+from treewright.train.stopping import StopRequest
 
 __all__ = ["Position", "RunResult", "Trainer", "TrainingDiverged", "load_data", "restart_seed",
            "saved_config"]
@@ -118,10 +117,12 @@ class Trainer:
         self.config_source = config_source
         self.dtype = _dtype(cfg)
         self.budget = MemoryBudget(cfg, self.dtype)
+        self.curriculum = Curriculum(cfg, self.budget,
+                                     cfg.train.shuffle and not METHODS[cfg.train.method].whole_epoch)
         self.data = data
         self.dev = dev
         self.epoch_ = 0  # the epoch being trained (the structural bias depends on it)
-        self.interrupted_ = False
+        self.stop = StopRequest(self.stream)
         self.session_steps = 0  # updates made in this session (for `max_steps`)
 
     # ---- the run, in the order it happens ---------------------------------------------------
@@ -133,13 +134,13 @@ class Trainer:
         self._prepare(position)
         self.loggers = self.folder.open_loggers(False, self.cfg.output.tensorboard,
                                                 enabled=self.world.is_main)
-        self.headline = open_loggers(self.run_dir, ["stdout"]) \
-            if self.cfg.output.stdout_metrics and self.world.is_main else None
-        previous_handler = self._catch_sigint()
-        self.world.on_stop_request(self._request_stop)
-        try:
+        self.headline = open_loggers(self.run_dir, ["stdout"] if self.cfg.output.stdout_metrics
+                                     and self.world.is_main else [])
+        self.world.on_stop_request(self.stop.request)
+        with self.stop, self.loggers, self.headline:
             if not self.resume:
                 self._log_baselines()
+            self._note_budget()
             for restart in range(position.restart, self.cfg.train.restarts):
                 self.model = self._new_model(restart)
                 self.method = METHODS[self.cfg.train.method](self.cfg, self.model)
@@ -153,17 +154,12 @@ class Trainer:
                     return None
                 self._finish_restart(restart, position)
             return self._finish_run(position)
-        finally:
-            if previous_handler is not None:
-                signal.signal(signal.SIGINT, previous_handler)
-            self.loggers.close()
-            if self.headline is not None:
-                self.headline.close()
 
     def _run_restart(self, restart: int, position: Position, max_steps: int | None) -> bool:
         """The epochs of one restart; False when the session stops before its end."""
         cfg, method = self.cfg, self.method
-        plans = [self.epoch_plan(restart, e) for e in range(cfg.train.epochs)]
+        plans = [self.curriculum.epoch_plan(self.data.train_ids, restart, e)
+                 for e in range(cfg.train.epochs)]
         total_steps = sum(map(len, plans))
         if position.restart_step == 0 and position.epoch == 0 and self.data.dev_ids:
             # The starting point, so every run shows what training gained over it.
@@ -192,14 +188,14 @@ class Trainer:
             finally:
                 if progress is not None:
                     progress.close()
-            metrics = self._sums_metrics(position.epoch_sums)
+            metrics = epoch_metrics(position.epoch_sums)
             metrics.update(extra)
             metrics["sentences_per_second"] = plan_sentences(plan) / \
                 max(time.monotonic() - started, 1e-9)
             metrics.update(self.dev(self.model.scorer(method.rules())))
             metrics.update(rule_entropies(method.rules().dense(), self.nonterminals,
                                           self.preterminals))
-            cap = self.length_cap(epoch)
+            cap = self.curriculum.length_cap(epoch)
             metrics.update({"restart": restart, "epoch": epoch,
                             "length_cap": cap if cap is not None else -1})
             self._log_epoch(metrics, position.step)
@@ -253,11 +249,10 @@ class Trainer:
         # Only objectives of the same kind over the same sentences compare: VB's first epoch
         # reports a log-likelihood (no ELBO yet), and a curriculum step changes the data, so
         # neither counts as "improved by less than the tolerance".
-        cap = self.length_cap(epoch)
+        curriculum = self.curriculum
         comparable = (epoch >= self.method.first_comparable_epoch
-                      and self.length_cap(epoch - 1) == cap
-                      and self.bias_scale(epoch - 1) == self.bias_scale(epoch)
-                      and self.length_cap(epoch + 1) == cap)
+                      and curriculum.same_data(epoch, epoch - 1)
+                      and curriculum.length_cap(epoch + 1) == curriculum.length_cap(epoch))
         converged = (self.method.converges and tolerance > 0 and comparable
                      and position.previous_objective is not None
                      and objective - position.previous_objective < tolerance)
@@ -326,6 +321,9 @@ class Trainer:
             for note in notes:
                 self._note(note)
             self.loggers.log(start, 0)
+
+    def _note_budget(self) -> None:
+        data = self.data
         if self.budget.max_bytes is not None and not isinstance(data.train_ids, StreamedCorpus):
             over = [i for i, s in enumerate(data.train_ids) if len(s) > self.budget.max_length]
             self._note(f"memory budget {self.cfg.train.memory_budget_mb} MB: sentences of up "
@@ -341,46 +339,13 @@ class Trainer:
         return PARAMETERIZATIONS[m.parameterization].from_options(m, len(self.data.vocab), gen,
                                                                   self.dtype)
 
-    # ---- batches ----------------------------------------------------------------------------
-
-    def length_cap(self, epoch: int) -> int | None:
-        """The curriculum's length cap at `epoch` (None: no cap)."""
-        c = self.cfg.curriculum
-        if c.start_length is None:
-            return None
-        return c.start_length + c.increment * (epoch // c.every_epochs)
-
-    def epoch_plan(self, restart: int, epoch: int) -> list[list[int]]:
-        """Training sentence indices of each batch of `epoch`, in the order they run. A pure
-        function of (config, restart, epoch): this is what makes resume exact."""
-        cap = self.length_cap(epoch)
-        ids = self.data.train_ids
-        shuffle = self.cfg.train.shuffle and not METHODS[self.cfg.train.method].whole_epoch
-        seed = restart_seed(self.cfg.train.seed, restart) * 100_003 + epoch
-        if isinstance(ids, StreamedCorpus):
-            return ids.epoch_plan(cap, self.cfg.train.batch_size, shuffle, seed)
-        keep = [i for i in range(len(ids)) if (cap is None or len(ids[i]) <= cap)
-                and len(ids[i]) <= self.budget.max_length]
-        groups = length_batches([len(ids[i]) for i in keep], self.cfg.train.batch_size,
-                                max_cost=self.budget.max_bytes, cost=self.budget.sentence_bytes,
-                                shuffle=shuffle, seed=seed)
-        return [[keep[k] for k in g] for g in groups]
+    # ---- batches (the curriculum's, at the epoch being trained) ----------------------------
 
     def _batch(self, indices: list[int]) -> Batch:
-        batch = make_batch(indices, self.data.train_ids, self.data.brackets, self.dtype)
-        scale = self.bias_scale(self.epoch_)
-        b = self.cfg.bias
-        if scale > 0 and (b.right_edge != 0 or b.left_edge != 0):
-            pot = edge_bias(batch.lengths, int(batch.ids.shape[1]), scale * b.right_edge,
-                            scale * b.left_edge, self.dtype)
-            batch.span_pot = pot if batch.span_pot is None else batch.span_pot + pot
-        return batch
+        return self.curriculum.batch(self.data, indices, self.epoch_, self.dtype)
 
     def bias_scale(self, epoch: int) -> float:
-        """Strength of the structural bias at `epoch`: 1, falling linearly to 0 at
-        `bias.anneal_epochs` (Smith & Eisner 2006 anneal theirs the same way)."""
-        n = self.cfg.bias.anneal_epochs
-        return 1.0 if n == 0 else max(0.0, 1.0 - epoch / n)
+        return self.curriculum.bias_scale(epoch)
 
     # ---- state, checks and logs -------------------------------------------------------------
 
@@ -417,27 +382,9 @@ class Trainer:
             if bool(torch.isnan(p).any()) or bool((p == float("inf")).any()):
                 raise DivergedError(f"parameter {name} became NaN or infinite")
 
-    @staticmethod
-    def _sums_metrics(sums: dict) -> dict[str, float]:
-        """Epoch metrics from summed log-likelihood, words, sentences, unparsed. For batch EM
-        and VB the likelihood is that of the grammar before the epoch's update; for online EM
-        and gradient training it is summed over the minibatches as the grammar moved."""
-        words = sums["words"]
-        per_word = sums["loglik"] / words if words else float("nan")
-        out = {"train/loglik_per_word": per_word,
-               "train/perplexity": math.exp(-per_word) if words else float("nan"),
-               "train/sentences": sums["sentences"], "train/unparsed": sums["unparsed"]}
-        if sums.get("kl") and words:
-            # Compound: train/loglik_per_word is log p(x | z) at the sampled z; the ELBO
-            # subtracts the KL term.
-            out["train/kl_per_word"] = sums["kl"] / words
-            out["train/elbo_per_word"] = (sums["loglik"] - sums["kl"]) / words
-        return out
-
     def _log_epoch(self, metrics: dict, step: int) -> None:
         self.loggers.log(metrics, step)
-        if self.headline is not None:
-            self.headline.log({k: metrics[k] for k in HEADLINE if k in metrics}, step)
+        self.headline.log({k: metrics[k] for k in HEADLINE if k in metrics}, step)
 
     def _note(self, text: str) -> None:
         if self.world.is_main:
@@ -448,7 +395,11 @@ class Trainer:
     def _finish_restart(self, restart: int, position: Position) -> None:
         rules = self.current_rules()
         path = self.folder.restart_grammar(restart)
-        grammar = self._to_grammar(rules, path.name)
+        start = self.warm.start if self.warm is not None else "ROOT"
+        grammar, note = capped_grammar(rules, self.nonterminals, self.preterminals,
+                                       self.data.vocab, start, self.cfg.output.max_saved_rules)
+        if note is not None:
+            self._note(f"{path.name}: {note}")
         if self.world.is_main:
             grammar.save(path)
         dev = self.dev(self.model.scorer(rules))
@@ -462,26 +413,6 @@ class Trainer:
         position.epoch = position.batch = position.restart_step = 0
         position.previous_objective = None
         self.checkpoint(position)
-
-    def _to_grammar(self, rules, name: str = "the grammar"):
-        """The rules as a `Grammar` to save, capped at `output.max_saved_rules` binary rules."""
-        start = self.warm.start if self.warm is not None else "ROOT"
-        dense = rules.dense()
-        limit = self.cfg.output.max_saved_rules
-        nt = len(self.nonterminals)
-        if limit is not None and dense.binary.numel() > limit:
-            per_symbol = max(1, limit // nt)
-            binary, removed = keep_most_probable(dense.binary, per_symbol)
-            dense = RuleTensors(dense.root, binary, dense.lexical)
-            worst = int(removed.argmax())
-            self._note(f"{name}: the model has {dense.binary.numel():,} binary rules, more than "
-                       f"output.max_saved_rules ({limit:,}); saved each nonterminal's "
-                       f"{per_symbol:,} most probable, renormalised, leaving out probability "
-                       f"mass {float(removed.mean()):.4g} per nonterminal on average (at most "
-                       f"{float(removed[worst]):.4g}, {self.nonterminals[worst]}); the checkpoint "
-                       "keeps the full model")
-        return rules_to_grammar(dense, self.nonterminals, self.preterminals, self.data.vocab,
-                                start)
 
     def _finish_run(self, position: Position) -> RunResult:
         def key(r: dict) -> float:
@@ -506,41 +437,48 @@ class Trainer:
         self._note(f"kept restart {best['restart']}; grammar written to {self.folder.grammar}")
         return result
 
-    # ---- stopping ---------------------------------------------------------------------------
-
-    def _catch_sigint(self):
-        """Make Ctrl-C stop at the next step boundary, after a checkpoint (`interrupted_` is
-        then True and `run` returns None); a second Ctrl-C interrupts at once. Returns the
-        handler to restore, or None off the main thread, where signals cannot be caught.
-        (Workers started by a launcher hear of a Ctrl-C from it, through `_request_stop`.)"""
-        if threading.current_thread() is not threading.main_thread():
-            return None
-
-        def on_sigint(signum, frame):
-            if self.interrupted_:
-                raise KeyboardInterrupt
-            self._request_stop()
-            self.stream.write("\ninterrupt: stopping after this step with a checkpoint "
-                              "(Ctrl-C again to stop at once)\n")
-            self.stream.flush()
-
-        return signal.signal(signal.SIGINT, on_sigint)
-
-    def _request_stop(self) -> None:
-        self.interrupted_ = True
-
     def _stop_now(self, max_steps: int | None) -> bool:
         """Whether to stop at this step boundary: on a Ctrl-C heard by any worker (all of them
         vote, so that they stop after the same step), or after `max_steps` in this session."""
-        interrupted = self.world.any_true(self.interrupted_)
+        interrupted = self.world.any_true(self.stop.requested)
         return interrupted or max_steps is not None and self.session_steps >= max_steps
 
 
-def restart_seed(seed: int, restart: int) -> int:
-    """The random stream of one restart of one run seed. Distinct for every (seed, restart), so
-    that runs with neighbouring seeds never share a start (seed + restart would: seed 0's
-    restart 1 would be seed 1's restart 0)."""
-    return seed * 1_000_003 + restart
+def epoch_metrics(sums: dict) -> dict[str, float]:
+    """Epoch metrics from summed log-likelihood, words, sentences, unparsed. For batch EM
+    and VB the likelihood is that of the grammar before the epoch's update; for online EM
+    and gradient training it is summed over the minibatches as the grammar moved."""
+    words = sums["words"]
+    per_word = sums["loglik"] / words if words else float("nan")
+    out = {"train/loglik_per_word": per_word,
+           "train/perplexity": math.exp(-per_word) if words else float("nan"),
+           "train/sentences": sums["sentences"], "train/unparsed": sums["unparsed"]}
+    if sums.get("kl") and words:
+        # Compound: train/loglik_per_word is log p(x | z) at the sampled z; the ELBO
+        # subtracts the KL term.
+        out["train/kl_per_word"] = sums["kl"] / words
+        out["train/elbo_per_word"] = (sums["loglik"] - sums["kl"]) / words
+    return out
+
+
+def capped_grammar(rules, nonterminals: list[str], preterminals: list[str], vocab, start: str,
+                   limit: int | None):
+    """The rules as a `Grammar` to save, with at most `limit` binary rules (each nonterminal's
+    most probable, renormalised), and a note saying what was left out (None: nothing)."""
+    dense = rules.dense()
+    note = None
+    if limit is not None and dense.binary.numel() > limit:
+        per_symbol = max(1, limit // len(nonterminals))
+        binary, removed = keep_most_probable(dense.binary, per_symbol)
+        dense = RuleTensors(dense.root, binary, dense.lexical)
+        worst = int(removed.argmax())
+        note = (f"the model has {dense.binary.numel():,} binary rules, more than "
+                f"output.max_saved_rules ({limit:,}); saved each nonterminal's {per_symbol:,} "
+                f"most probable, renormalised, leaving out probability mass "
+                f"{float(removed.mean()):.4g} per nonterminal on average (at most "
+                f"{float(removed[worst]):.4g}, {nonterminals[worst]}); the checkpoint keeps the "
+                "full model")
+    return rules_to_grammar(dense, nonterminals, preterminals, vocab, start), note
 
 
 def saved_config(run_dir: str | Path) -> TrainConfig:

@@ -7,6 +7,7 @@ import math
 
 import torch
 
+from treewright.train.curriculum import restart_seed
 from treewright.train.estep import DivergedError
 from treewright.train.methods.base import Step, Update, UpdateMethod, tally
 from treewright.train.schedule import learning_rate
@@ -17,7 +18,7 @@ STATE = "adam."
 def sample_seed(seed: int, step: int) -> int:
     """The seed of the latent samples of update `step` (a resumed run draws the same ones).
     It uses the run seed's restart-0 stream for every restart, as runs always have."""
-    return (seed * 1_000_003) * 7_919 + 1 + step
+    return restart_seed(seed, 0) * 7_919 + 1 + step
 
 
 class Gradient(UpdateMethod):
