@@ -22,6 +22,7 @@ from treewright.params.tabular import RuleTensors
 # Re-exported: the engine-facing helpers moved to the parameterizations (params.base,
 # params.compound); tests and benchmarks import them from here.
 __all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_counts",
+           "expected_counts",
            "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
            "log_partition_of", "make_batch", "sentence_logliks", "sentence_terminal_scores",
            "span_posteriors", "terminal_scores", "zero_counts"]
@@ -108,21 +109,50 @@ class DivergedError(RuntimeError):
     """A NaN or +inf appeared where a log-likelihood or parameter should be."""
 
 
-def batch_counts(rules: RuleTensors, batch: Batch) -> ExpectedCounts:
-    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
-    terminal = terminal_scores(rules.lexical, batch.ids)                 # (B, N, T)
-    post = engine.posteriors(rules.root, rules.binary, terminal, batch.lengths,
-                             span_pot=batch.span_pot)
+def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
+                    lengths: Tensor, span_pot: Tensor | None = None,
+                    missing: Tensor | None = None,
+                    nonterminals_emit: bool = False) -> ExpectedCounts:
+    """The E-step of one batch: expected rule counts from the engine's posteriors, and the
+    log-likelihood. The one E-step of training (`batch_counts`) and of refinement from text
+    (`refine.text.text_estep`).
+
+    root (NT,), binary (NT, S, S): log-probabilities (or VB log-weights).
+    lexical: (T, V) word rules of the preterminals, or (S, V) of every symbol, whose
+        nonterminal rows are read only when `nonterminals_emit` (a refined grammar's may be).
+    ids (B, N), lengths (B,): the sentences; padding ids are never read.
+    span_pot: (B, N+1, N+1) [start, width] span log-potentials, or None.
+    missing: (B, N) True where a word has no entry (it gets no tree), or None.
+    The lexical counts have the shape of `lexical`.
+    """
+    nt = binary.shape[0]
+    every_symbol = lexical.shape[0] == binary.shape[1]
+    scores = terminal_scores(lexical, ids)                              # (B, N, T or S)
+    if missing is not None:
+        scores = scores.masked_fill(missing[..., None], NEG_INF)
+    terminal = scores[..., nt:].contiguous() if every_symbol else scores          # (B, N, T)
+    nt_terminal = scores[..., :nt].contiguous() if nonterminals_emit else None    # (B, N, NT)
+    post = engine.posteriors(root, binary, terminal, lengths, nt_terminal, span_pot=span_pot)
     logz = post.logz                                                       # (B,)
     if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
         raise DivergedError("the log-likelihood of a batch is NaN or infinite")
     parsed = torch.isfinite(logz)
-    mask = torch.arange(batch.ids.shape[1])[None, :] < batch.lengths[:, None]   # (B, N)
-    lexical = torch.zeros_like(rules.lexical)                               # (T, V)
-    lexical.index_add_(1, batch.ids[mask], post.terminal[mask].T.to(lexical.dtype))
-    return ExpectedCounts(post.root.sum(0), post.binary, lexical,
-                          float(logz[parsed].sum()), int(batch.lengths[parsed].sum()),
+    mask = torch.arange(ids.shape[1])[None, :] < lengths[:, None]       # (B, N)
+    words = ids[mask]
+    counts = torch.zeros_like(lexical)                                     # (T or S, V)
+    (counts[nt:] if every_symbol else counts).index_add_(
+        1, words, post.terminal[mask].T.to(counts.dtype))
+    if nonterminals_emit:
+        counts[:nt].index_add_(1, words, post.nt_terminal[mask].T.to(counts.dtype))
+    return ExpectedCounts(post.root.sum(0), post.binary, counts,
+                          float(logz[parsed].sum()), int(lengths[parsed].sum()),
                           int(parsed.sum()), int((~parsed).sum()))
+
+
+def batch_counts(rules: RuleTensors, batch: Batch) -> ExpectedCounts:
+    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
+    return expected_counts(rules.root, rules.binary, rules.lexical, batch.ids, batch.lengths,
+                           batch.span_pot)
 
 
 def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
