@@ -117,8 +117,8 @@ class Trainer:
         self.config_source = config_source
         self.dtype = _dtype(cfg)
         self.budget = MemoryBudget(cfg, self.dtype)
-        self.curriculum = Curriculum(cfg, self.budget,
-                                     cfg.train.shuffle and not METHODS[cfg.train.method].whole_epoch)
+        whole_epoch = METHODS[cfg.train.method].whole_epoch
+        self.curriculum = Curriculum(cfg, self.budget, cfg.train.shuffle and not whole_epoch)
         self.data = data
         self.dev = dev
         self.epoch_ = 0  # the epoch being trained (the structural bias depends on it)
