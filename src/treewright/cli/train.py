@@ -19,8 +19,9 @@ is checked before training starts ('treewright validate CONFIG' does only that, 
 The run folder (output.run_dir, default runs/<config name>) receives config.yaml (the resolved
 config), train.log, data_summary.json, metrics.jsonl, tensorboard/, checkpoint.ckpt,
 restart-<r>.pcfg and the result, grammar.pcfg. --resume continues from checkpoint.ckpt with
-the saved config; in float64 it ends with exactly the grammar an uninterrupted run gives. Ctrl-C stops at the next step
-with a checkpoint and prints the --resume command (a second Ctrl-C stops at once).
+the saved config; in float64 it ends with exactly the grammar an uninterrupted run gives.
+Ctrl-C stops at the next step with a checkpoint and prints the --resume command (a second
+Ctrl-C stops at once).
 
 --workers N starts N worker processes on this machine (torchrun's launcher, gloo on loopback);
 each runs the E-step or gradient of its share of every update, and the grammar after each update
