@@ -14,6 +14,7 @@ checkpointed run as they would have.
 
 from __future__ import annotations
 
+import functools
 import json
 import time
 from dataclasses import dataclass, field
@@ -235,16 +236,25 @@ def _subcategory_counts(lg: LatentGrammar) -> dict[str, int]:
     return {f"subcategories/{s}": int(n) for s, n in zip(lg.symbols, lg.splits.tolist())}
 
 
+# A held-out parser: (latent grammar, held-out sentences) -> their coarse trees (None: no
+# parse). The treebank start scores them by labeled F1 after each cycle (output.parse_f1).
+HeldoutParser = Callable[[LatentGrammar, Sequence[Sequence[str]]], list]
+
+
 def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,
-           config_source: str | None = None) -> RefineResult:
-    """Run the refinement `cfg` describes into `run_dir` (created if needed)."""
+           config_source: str | None = None,
+           heldout_parser: HeldoutParser | None = None) -> RefineResult:
+    """Run the refinement `cfg` describes into `run_dir` (created if needed). `heldout_parser`:
+    the caller's held-out parser for labeled F1 (default: `parse_heldout` with
+    `output.f1_decoder`)."""
     folder = RunFolder(run_dir, "refine")
     header = f"resolved config of treewright refine {config_source or ''}".rstrip()
     folder.start(resume=False, config_text=dump_config_yaml(cfg, header))
-    return _refine(cfg, folder, stream, None)
+    return _refine(cfg, folder, stream, None, heldout_parser)
 
 
-def refine_resume(run_dir: str | Path, stream: TextIO | None = None) -> RefineResult:
+def refine_resume(run_dir: str | Path, stream: TextIO | None = None,
+                  heldout_parser: HeldoutParser | None = None) -> RefineResult:
     """Continue the interrupted refinement in `run_dir` from its last checkpointed cycle, with
     the config saved there; it ends with the grammar the uninterrupted run gives."""
     folder = RunFolder(run_dir, "refine")
@@ -256,18 +266,21 @@ def refine_resume(run_dir: str | Path, stream: TextIO | None = None) -> RefineRe
     cfg = load_refine_config(folder.config)
     # Metrics logged after the checkpoint belong to a cycle that will run again.
     folder.truncate_metrics(meta["metrics_bytes"])
-    return _refine(cfg, folder, stream, (tensors, meta))
+    return _refine(cfg, folder, stream, (tensors, meta), heldout_parser)
 
 
-def _refine(cfg: RefineConfig, folder: RunFolder, stream: TextIO | None, state
-            ) -> RefineResult:
+def _refine(cfg: RefineConfig, folder: RunFolder, stream: TextIO | None, state,
+            heldout_parser: HeldoutParser | None = None) -> RefineResult:
     log = _Log(folder, stream)
     if state is not None:
         log.note(f"resuming after cycle {state[1]['cycle']} of {cfg.refine.cycles}")
     loggers = folder.open_loggers(cfg.output.stdout_metrics, cfg.output.tensorboard, stream)
     try:
         if cfg.data.start == "treebank":
-            return _refine_treebank(cfg, folder, log, loggers, state)
+            if heldout_parser is None:
+                heldout_parser = functools.partial(parse_heldout,
+                                                   decoder=cfg.output.f1_decoder)
+            return _refine_treebank(cfg, folder, log, loggers, state, heldout_parser)
         return _refine_text(cfg, folder, log, loggers, state)
     finally:
         loggers.close()
@@ -350,8 +363,8 @@ def _write_summary(lg, usage, folder: RunFolder, stem: str, top: int) -> None:
                       json.dumps(summary, indent=1, ensure_ascii=False) + "\n")
 
 
-def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
-                     ) -> RefineResult:
+def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state,
+                     heldout_parser: HeldoutParser) -> RefineResult:
     d, form = cfg.data, cfg.tree_form
     sentences, report = _read(d.train, d.format, d.max_length)
     log.note(f"training corpus: {report}")
@@ -408,7 +421,7 @@ def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, s
                          "heldout/trees_left_out": len(ts_dev.dropped),
                          "seconds": seconds}
         if cfg.output.parse_f1 and f1_words:
-            scores = labeled_f1(parse_heldout(lg, f1_words, cfg.output.f1_decoder), f1_gold)
+            scores = labeled_f1(heldout_parser(lg, f1_words), f1_gold)
             metrics.update({f"heldout/labeled_{k}": v for k, v in scores.items()})
         metrics.update(_subcategory_counts(lg))
         loggers.log(metrics, cycle)
