@@ -23,9 +23,8 @@ from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import ReadOptions, Sentence, read_corpus, run_case_rules
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
+from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
 from treewright.trees import Tree, tree_from_spans
-
-CONFIG, METRICS, GRAMMAR = "config.yaml", "metrics.jsonl", "grammar.pcfg"
 
 # Metric groups drawn as curves: (figure title, y label, test on the metric name).
 CURVES = (
@@ -413,6 +412,6 @@ def write_report(run_dir: str | Path, out: str | Path | None = None, **options) 
     """Write `build_report(run_dir, **options)` to `out` (default run_dir/report.html)."""
     from treewright.safeio import write_output_text
 
-    path = Path(out) if out is not None else Path(run_dir) / "report.html"
+    path = Path(out) if out is not None else RunFolder(run_dir).report
     write_output_text(path, build_report(run_dir, **options))  # makes a missing folder
     return path
