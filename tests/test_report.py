@@ -233,9 +233,12 @@ def axis_values(root: ET.Element) -> dict[str, float]:
     """Baseline name -> the value at its line's height, read off two tick labels (a tick
     label's text baseline is 4 px below its tick)."""
     ticks = [(float(t.text), float(t.get("y")) - 4) for t in classed(root, "text", "tick-y")]
+    if root.get("data-y-scale") == "log":   # equal steps in log10 of the value
+        ticks = [(math.log10(v), y) for v, y in ticks]
     (v0, y0), (v1, y1) = ticks[0], ticks[-1]
+    scale = (lambda v: 10 ** v) if root.get("data-y-scale") == "log" else (lambda v: v)
     return {line.find(f"{SVG}title").text.rsplit(": ", 1)[0]:
-            v0 + (float(line.get("y1")) - y0) * (v1 - v0) / (y1 - y0)
+            scale(v0 + (float(line.get("y1")) - y0) * (v1 - v0) / (y1 - y0))
             for line in classed(root, "line", "baseline")}
 
 

@@ -10,6 +10,7 @@ practice, from memory), used to turn a label's length into a box.
 from __future__ import annotations
 
 import itertools
+import math
 import os
 import sysconfig
 import xml.etree.ElementTree as ET
@@ -127,12 +128,38 @@ def test_baseline_lines_sit_at_their_values():
     assert sorted(t.text for t in texts(svg, "baseline-label")) == sorted(n for n, _ in lines)
 
 
+def test_perplexity_axis_is_logarithmic_with_round_ticks():
+    # Perplexity from 1,100 down to 30, and a unigram baseline at 98: on a log axis every tick
+    # is 1, 2 or 5 times a power of ten, equal ratios are equal distances, and the baseline is
+    # read back at its value.
+    svg = line_chart({"dev": [(0, 1100.0), (1, 40.0), (2, 30.0)]}, "Perplexity",
+                     y_label="perplexity", baselines=[("unigram", 98.09)], log_y=True)
+    root = ET.fromstring(svg)
+    assert root.get("data-y-scale") == "log"
+    ticks = [(float(t.text), float(t.get("y"))) for t in texts(svg, "tick-y")]
+    for value, _ in ticks:
+        mantissa = value / 10 ** math.floor(math.log10(value) + 1e-12)
+        assert round(mantissa, 9) in (1, 2, 5), value
+    (a, ya), (b, yb) = ticks[0], ticks[-1]
+    per_decade = (ya - yb) / math.log10(b / a)
+    for value, y in ticks:
+        assert ya - y == pytest.approx(per_decade * math.log10(value / a), abs=0.02)
+    assert axis_values(svg) == pytest.approx({"unigram": 98.09}, rel=1e-3)
+    assert any("log scale" in (t.text or "") for t in root.iter(f"{SVG}text"))
+    # Values within a narrow band keep a linear axis (three round log ticks would not fit).
+    assert ET.fromstring(line_chart({"d": [(0, 31.0), (1, 33.0)]}, "p", log_y=True)).get(
+        "data-y-scale") == "linear"
+
+
 def axis_values(svg: str) -> dict[str, float]:
     """Each baseline line's name (from its tooltip) and the value at its height, by the straight
     line through two tick labels (a tick label's text baseline is 4 px below its tick)."""
-    ticks = [(float(t.text), float(t.get("y")) - 4) for t in texts(svg, "tick-y")]
-    (v0, y0), (v1, y1) = ticks[0], ticks[-1]
     root = ET.fromstring(svg)
+    ticks = [(float(t.text), float(t.get("y")) - 4) for t in texts(svg, "tick-y")]
+    if root.get("data-y-scale") == "log":   # equal steps in log10 of the value
+        ticks = [(math.log10(v), y) for v, y in ticks]
+    (v0, y0), (v1, y1) = ticks[0], ticks[-1]
+    scale = (lambda v: 10 ** v) if root.get("data-y-scale") == "log" else (lambda v: v)
     return {line.find(f"{SVG}title").text.rsplit(": ", 1)[0]:
-            v0 + (float(line.get("y1")) - y0) * (v1 - v0) / (y1 - y0)
+            scale(v0 + (float(line.get("y1")) - y0) * (v1 - v0) / (y1 - y0))
             for line in root.iter(f"{SVG}line") if line.get("class") == "baseline"}

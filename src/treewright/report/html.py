@@ -75,6 +75,7 @@ class Curve:
     transform: Callable[[float], float] = lambda value: value   # baseline value -> chart value
     missing: str = ""      # why a run may lack this chart (shown instead of it)
     from_zero: bool = False  # the y axis starts at 0 (proportions)
+    log: bool = False        # a logarithmic y axis (values that fall by orders of magnitude)
 
 
 def _perplexity_of(loglik_per_word: float) -> float:
@@ -87,7 +88,7 @@ TRAIN_CURVES = (
           lambda k: k.endswith(("/loglik_per_word", "/elbo_per_word")),
           lambda k: k.endswith("loglik_per_word")),
     Curve("Perplexity", "perplexity", lambda k: k.endswith("/perplexity"),
-          lambda k: k.endswith("loglik_per_word"), _perplexity_of),
+          lambda k: k.endswith("loglik_per_word"), _perplexity_of, log=True),
     Curve("Dev bracket F1", "F1", lambda k: k.startswith("dev/") and k.endswith("_f1"),
           lambda k: k.endswith("_f1"),
           missing="the run has no dev trees (data.dev with bracketed trees or CoNLL-U)",
@@ -309,7 +310,7 @@ def curves_section(metrics: list[dict], refine: bool = False) -> str:
         if series or baselines:
             figures.append(line_chart(series, curve.title, x_label, curve.y_label,
                                       baselines=list(baselines.items()),
-                                      y_from_zero=curve.from_zero))
+                                      y_from_zero=curve.from_zero, log_y=curve.log))
         else:
             why = f" ({curve.missing})" if curve.missing else ""
             figures.append(_missing(f"{curve.title}: not in {METRICS}{why}."))

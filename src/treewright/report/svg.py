@@ -68,6 +68,23 @@ def _nice_ticks(low: float, high: float, count: int = 5, integer: bool = False) 
     return [round(k * step, 12) for k in range(first, last + 1)]
 
 
+def _log_ticks(low: float, high: float) -> list[float]:
+    """Round ticks (1, 2 and 5 x 10^k) of a logarithmic axis covering [low, high] (low > 0);
+    only the powers of ten when that still gives three ticks or more."""
+    if low <= 0 or high <= low:
+        return []
+    candidates = [m * 10.0 ** k for k in range(math.floor(math.log10(low)) - 1,
+                                               math.ceil(math.log10(high)) + 1)
+                  for m in (1, 2, 5)]
+    first = max(c for c in candidates if c <= low * (1 + 1e-9))
+    last = min(c for c in candidates if c >= high * (1 - 1e-9))
+    ticks = [c for c in candidates if first <= c <= last]
+    decades = [c for c in ticks if c == 10.0 ** round(math.log10(c))]
+    if len(decades) >= 3:
+        return sorted({first, *decades, last})
+    return ticks
+
+
 def _fmt(value: float) -> str:
     return f"{value:.4g}"
 
@@ -102,7 +119,7 @@ def _legend(entries: Sequence[tuple[str, str, str]], x: float, y: float, width: 
 def line_chart(series: Mapping[str, Sequence[tuple[float, float]]], title: str,
                x_label: str = "step", y_label: str = "", width: int = 640,
                plot_height: int = 220, baselines: Sequence[tuple[str, float]] = (),
-               integer_x: bool = True, y_from_zero: bool = False) -> str:
+               integer_x: bool = True, y_from_zero: bool = False, log_y: bool = False) -> str:
     """One polyline per named series of (x, y) points, and one dashed horizontal line per
     (name, value) baseline, labelled at its right end and in the legend below the plot.
     Non-finite points are left out (a gap in the data, not a drop to zero).
@@ -110,12 +127,18 @@ def line_chart(series: Mapping[str, Sequence[tuple[float, float]]], title: str,
     integer_x: x counts whole things (steps, cycles), so its ticks are integers.
     y_from_zero: the y axis starts at 0 (for proportions such as F1, whose distance from 0 is
     the point).
+    log_y: a logarithmic y axis (for perplexity, which falls by orders of magnitude early in
+    training); only positive values are drawn. The axis stays linear when the values span too
+    little for three round log ticks.
     """
+    def drawable(y: float) -> bool:
+        return math.isfinite(y) and (y > 0 or not log_y)
+
     clean = {name: [(float(x), float(y)) for x, y in pts
-                    if math.isfinite(float(x)) and math.isfinite(float(y))]
+                    if math.isfinite(float(x)) and drawable(float(y))]
              for name, pts in series.items()}
     clean = {name: pts for name, pts in clean.items() if pts}
-    lines = [(name, float(v)) for name, v in baselines if math.isfinite(float(v))]
+    lines = [(name, float(v)) for name, v in baselines if drawable(float(v))]
     left, right, top = 64, 16, 28
     plot_w, plot_h = width - left - right, plot_height
     colors = {name: PALETTE[k % len(PALETTE)] for k, name in enumerate(clean)}
@@ -124,25 +147,32 @@ def line_chart(series: Mapping[str, Sequence[tuple[float, float]]], title: str,
     entries += [(f"{name}: {_fmt(v)}", c, "6 4") for (name, v), c in zip(lines, line_colors)]
     legend, legend_h = _legend(entries, left, top + plot_h + 40, plot_w)
     height = top + plot_h + 40 + legend_h + 8
+    xs = [x for pts in clean.values() for x, _ in pts] or [0.0]
+    ys = [y for pts in clean.values() for _, y in pts] + [v for _, v in lines] or [0.0]
+    x_ticks = _nice_ticks(min(xs), max(xs), integer=integer_x)
+    y_ticks = _log_ticks(min(ys), max(ys)) if log_y else []
+    logarithmic = len(y_ticks) >= 3
+    if not logarithmic:
+        y_ticks = _nice_ticks(0.0 if y_from_zero else min(ys), max(ys))
+    scale = math.log10 if logarithmic else (lambda v: v)
+    y_label = f"{y_label} (log scale)" if logarithmic else y_label
+    x0, x1 = x_ticks[0], x_ticks[-1]
+    y0, y1 = scale(y_ticks[0]), scale(y_ticks[-1])
     parts = [f'<svg xmlns="http://www.w3.org/2000/svg" class="figure" width="{width}" '
-             f'height="{height}" viewBox="0 0 {width} {height}" role="img">',
+             f'height="{height}" viewBox="0 0 {width} {height}" role="img" '
+             f'data-y-scale="{"log" if logarithmic else "linear"}">',
              f'<title>{esc(title)}</title>',
              f'<text x="{left}" y="18" font-size="13" font-weight="bold" {FONT}>{esc(title)}</text>']
     if not clean and not lines:
         parts.append(f'<text x="{left}" y="{top + plot_h / 2}" font-size="12" {FONT}>'
                      'no finite values to draw</text></svg>')
         return "".join(parts)
-    xs = [x for pts in clean.values() for x, _ in pts] or [0.0]
-    ys = [y for pts in clean.values() for _, y in pts] + [v for _, v in lines]
-    x_ticks = _nice_ticks(min(xs), max(xs), integer=integer_x)
-    y_ticks = _nice_ticks(0.0 if y_from_zero else min(ys), max(ys))
-    x0, x1, y0, y1 = x_ticks[0], x_ticks[-1], y_ticks[0], y_ticks[-1]
 
     def px(x: float) -> float:
         return left + (x - x0) / (x1 - x0 or 1.0) * plot_w
 
     def py(y: float) -> float:
-        return top + plot_h - (y - y0) / (y1 - y0 or 1.0) * plot_h
+        return top + plot_h - (scale(y) - y0) / (y1 - y0 or 1.0) * plot_h
 
     parts.append(f'<rect x="{left}" y="{top}" width="{plot_w}" height="{plot_h}" fill="none" '
                  'stroke="#999"/>')
