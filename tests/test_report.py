@@ -326,8 +326,14 @@ def test_refine_run_shows_held_out_f1_and_decodes_with_max_rule_product(tmp_path
     assert "decoded with max-rule-product, the decoder for refined grammars" in text
     page = Page(text)
     assert not any("@" in d for d in page.tree_labels)
-    # No card says "root 0.000": the root probability is shown only where it is not zero.
+    # No card says "root 0.000": the root probability is shown only where it is not zero, and
+    # a small one keeps a significant digit.
     assert "root 0.000" not in text
+    (run / "grammar.pcfg").write_text(REFINED.replace("ROOT -> S@0 0.5", "ROOT -> S@0 0.0002")
+                                      .replace("ROOT -> S@1 0.5", "ROOT -> S@1 0.9998"),
+                                      encoding="utf-8")
+    small = build_report(run, gold=gold)
+    assert "root 0.000" not in small and "root 2e-04" in small
     # An unrefined grammar gets mbr by default, and the page says so.
     (run / "grammar.pcfg").write_text(GRAMMAR, encoding="utf-8")
     assert "trees decoded with mbr" in build_report(run, gold=gold)

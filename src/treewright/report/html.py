@@ -412,6 +412,14 @@ def expected_uses(grammar) -> torch.Tensor | None:
     return torch.cat([counts_nt, counts_nt @ children[:, nt:]])  # (S,)
 
 
+def _small(value: float, decimals: int) -> str:
+    """`value` with `decimals` decimals, or with one significant digit when that would print a
+    nonzero value as zero ("root 0.000" would say the symbol never starts a tree)."""
+    if value == 0 or abs(value) >= 0.5 * 10 ** -decimals:
+        return f"{value:.{decimals}f}"
+    return f"{value:.0e}"
+
+
 def grammar_section(grammar, top: int) -> str:
     if grammar is None:
         return _section("grammar", "Symbols", _missing(f"No {GRAMMAR} in the run folder."))
@@ -439,9 +447,9 @@ def grammar_section(grammar, top: int) -> str:
         entries = sorted(entries, key=lambda e: -e[0])[:top]
         facts = []
         if uses is not None:
-            facts.append(f"{float(uses[a]):.2f} per tree")
+            facts.append(f"{_small(float(uses[a]), 2)} per tree")
         if a < nt and float(root[a]) > 0:
-            facts.append(f"root {float(root[a]):.3f}")
+            facts.append(f"root {_small(float(root[a]), 3)}")
         rows = "".join(f"<tr><td>{esc(rhs)}</td><td class='num'>{p:.3f}</td></tr>"
                        for p, rhs in entries)
         cards.append(f"<table class='symbol'><tr><th colspan='2'>{esc(names[a])}"
