@@ -365,3 +365,26 @@ def test_symbols_are_ranked_by_expected_uses(run_dir):
         assert float(uses[k]) == pytest.approx(expected[name], abs=1e-12)
     text = build_report(run_dir)
     assert "1.35 per tree" in text and "0.70 per tree, root 0.700" in text
+
+
+def test_refined_treebank_trees_are_shown_and_scored_without_the_cnf_nodes(tmp_path):
+    # A grammar refined from binarized trees has intermediate nodes (BIN_MARK, "¤"); the gold
+    # tree is the treebank's flat one. Undone, the prediction equals the gold tree, so its one
+    # counted bracket (ka lo mi) is right: corpus F1 100 (by hand). Left in, the extra
+    # bracket (lo mi) would halve precision.
+    run = tmp_path / "refine"
+    run.mkdir()
+    (run / "grammar.pcfg").write_text(
+        "@start ROOT\nROOT -> S@0 1.0\nS@0 -> X@0 D@0 1.0\nX@0 -> A@0 \u00a4X@0 1.0\n"
+        "\u00a4X@0 -> B@0 C@0 1.0\n"
+        'A@0 -> "ka" 1.0\nB@0 -> "lo" 1.0\nC@0 -> "mi" 1.0\nD@0 -> "su" 1.0\n',
+        encoding="utf-8")
+    (run / "config.yaml").write_text("refine:\n  cycles: 1\n", encoding="utf-8")
+    gold = tmp_path / "gold.trees"
+    gold.write_text("(S (X (A ka) (B lo) (C mi)) (D su))\n", encoding="utf-8")
+    page = Page(build_report(run, gold=gold))
+    assert not any("\u00a4" in label or "@" in label for label in page.tree_labels)
+    assert page.tree_labels.count("X") == 2          # predicted and gold
+    cells = page.data
+    model = cells.index("model")
+    assert cells[model + 1] == "100.0" and cells[model + 2] == "100.0"

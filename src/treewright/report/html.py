@@ -19,7 +19,8 @@ from typing import Callable, Sequence
 import torch
 import yaml
 
-from treewright.corpus import ReadOptions, Sentence, read_corpus, run_case_rules
+from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
+                               expand_unary, read_corpus, run_case_rules, unbinarize)
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.trees import Tree, tree_from_spans
@@ -237,6 +238,18 @@ def _with_words(tree: Tree, words: Sequence[str]) -> Tree:
     return tree_from_spans(list(words), tree.labeled_spans())
 
 
+def treebank_form(tree: Tree) -> Tree:
+    """A decoded tree in the form of the treebank a refined grammar was read from: the binarized
+    and unary-collapsed nodes of its CNF transform undone (`corpus.transforms`), so that drawn
+    trees and bracket scores show the treebank's brackets, not the transform's. Trees of induced
+    grammars carry no transform mark and come back unchanged."""
+    marked = any(mark in node.label for node in tree.subtrees()
+                 for mark in (BIN_MARK, UNARY_SEP, PARENT_SEP))
+    if not marked or tree.label.startswith(BIN_MARK):
+        return tree
+    return unbinarize(expand_unary(tree))
+
+
 def _flat(words: Sequence[str]) -> Tree:
     return Tree("NOPARSE", list(words))
 
@@ -258,7 +271,7 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str) -> Par
             unparsed += 1
             trees.append(_flat(s.words))
         else:
-            trees.append(_with_words(r.tree, s.words))
+            trees.append(treebank_form(_with_words(r.tree, s.words)))
     return Parsed(list(sentences), trees, unparsed)
 
 
