@@ -547,7 +547,7 @@ def choose_decoder(grammar, asked: str | None) -> tuple[str, str]:
         return "mbr", "no grammar, so no trees decoded."
     fine = grammar.symbols
     coarse = {coarse_name(s) for s in fine}
-    if len(coarse) < len(fine) or any(coarse_name(s) != s for s in fine):
+    if any(coarse_name(s) != s for s in fine):
         return "max-rule-product", (
             f"trees decoded with max-rule-product, the decoder for refined grammars: its "
             f"{len(fine)} symbols are subcategories of {len(coarse)} coarse symbols, and the "
