@@ -197,7 +197,8 @@ def test_curves_are_named_in_words_and_baselines_drawn_at_their_values(run_dir):
                 "init/dev_perplexity": 330.0, "init/dev_sentence_f1": 0.22}]
     records += [{"step": s, "restart": 0, "train/loglik_per_word": -5.0 + 0.1 * s,
                  "dev/loglik_per_word": -4.9 + 0.05 * s, "dev/perplexity": 140.0 - s,
-                 "dev/sentence_f1": 0.2 + 0.03 * s, "dev/corpus_f1": 0.21 + 0.02 * s}
+                 "dev/sentence_f1": 0.2 + 0.03 * s, "dev/corpus_f1": 0.21 + 0.02 * s,
+                 "dev/head_attachment_f1": 0.1 * s}     # a key the report has no name for
                 for s in (1, 2, 3)]
     write_records(run_dir, records)
     text = build_report(run_dir)
@@ -209,7 +210,7 @@ def test_curves_are_named_in_words_and_baselines_drawn_at_their_values(run_dir):
     for name in legends:
         assert not any(key in name for key in keys if "/" in key), name
         assert "/" not in name and "_" not in name, name
-    # Counted x axes: whole-number ticks only (common practice).
+    assert "dev head attachment F1" in legends    # Counted x axes: whole-number ticks only (common practice).
     for root in charts.values():
         assert all(float(t.text) == int(float(t.text)) for t in classed(root, "text", "tick-x"))
     # The dev F1 chart draws the three bracket baselines, and the likelihood chart the unigram
