@@ -130,7 +130,7 @@ class CorpusStream:
         return word
 
     def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
-                heads: list[int] | None = None) -> Sentence | None:
+                heads: list[int] | None = None, sent_id: str | None = None) -> Sentence | None:
         """Apply tag mode and the length limits; count the sentence if it goes unused."""
         if self.options.tag_mode:
             if tags is None:
@@ -140,7 +140,7 @@ class CorpusStream:
         else:
             tokens = [self._normalise(w) for w in words]
         sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
-                            line=line, heads=heads)
+                            line=line, heads=heads, sent_id=sent_id)
         n = len(tokens)
         if n == 0:
             self._skip("empty", line)
@@ -210,7 +210,8 @@ class CorpusStream:
                 kept_heads = _heads_without(block.heads, [t in options.punct_labels
                                                           for t in upos])
                 words, upos = tree.leaves(), preterminal_tags(tree)
-            yield self._finish(words, upos, tree, block.line, heads=kept_heads)
+            yield self._finish(words, upos, tree, block.line, heads=kept_heads,
+                               sent_id=block.sent_id)
 
 
 def _heads_without(heads: list[int], drop: list[bool]) -> list[int] | None:

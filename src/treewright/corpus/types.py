@@ -121,7 +121,8 @@ class Sentence:
     `words` are the surface words as read (after removals); `tokens` are what a model sees:
     normalised words, or the tags in tag mode (not yet mapped to the unknown token; use
     `Corpus.encode`). `tree` leaves are `words`, in order, when there is a tree. `line` is the
-    1-based line where the sentence starts in `source`.
+    1-based line where the sentence starts in `source`; `sent_id` is the name the source gives
+    it (CoNLL-U `# sent_id`), None where the format has none.
     """
     words: list[str]
     tokens: list[str]
@@ -130,6 +131,7 @@ class Sentence:
     source: str = ""
     line: int = 0
     heads: list[int] | None = None
+    sent_id: str | None = None
 
     def __len__(self) -> int:
         return len(self.tokens)
