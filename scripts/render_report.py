@@ -25,7 +25,7 @@ def find_browser() -> str | None:
     return next((path for path in map(shutil.which, BROWSERS) if path), None)
 
 
-def screenshot(page: Path, out: Path, width: int = 1200, height: int = 3000,
+def screenshot(page: Path, out: Path, width: int = 1400, height: int = 3000,
                browser: str | None = None) -> None:
     browser = browser or find_browser()
     if browser is None:
@@ -52,7 +52,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--max-sentences", type=int, default=100,
                         help="sentences parsed when building (default 100)")
     parser.add_argument("--out", default="report.png", help="screenshot file (PNG)")
-    parser.add_argument("--width", type=int, default=1200)
+    parser.add_argument("--width", type=int, default=1400,
+                        help="window width in px (default 1400, the width the page is made for)")
     parser.add_argument("--height", type=int, default=3000)
     args = parser.parse_args(argv)
     target = Path(args.target)

@@ -181,3 +181,23 @@ def test_compare_refuses_sentences_of_other_lengths():
     a = load_grammar(ASTRONOMERS)
     with pytest.raises(ValueError, match="one for one"):
         compare(a, a, [["astronomers", "saw", "stars"]], [["astronomers", "saw"]])
+
+
+def test_a_grammar_that_parses_nothing_says_so(tmp_path, capsys):
+    # Reference: "zorvath" and "quen" are not in the textbook grammar's vocabulary (checked
+    # below), and it has no unknown-word rule, so no tree yields them: nothing can parse.
+    path = ASTRONOMERS
+    grammar = load_grammar(path)
+    words = ["zorvath", "quen"]
+    assert not any(w in grammar.vocab for w in words)
+    result = compare(grammar, grammar, [words])
+    assert result.heldout_a["parsed"] == 0 and result.heldout_a["log_likelihood"] is None
+    text = result.format("a", "b")
+    assert "held-out a: no sentence parsed (1 of 1 without a parse)" in text
+    assert "log-likelihood 0" not in text and "nan" not in text
+    assert "no sentence parsed by both" in text
+    (tmp_path / "t.txt").write_text("zorvath quen\n")
+    assert main(["compare", str(path), str(path), "--on", str(tmp_path / "t.txt"),
+                 "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["heldout_a"]["log_likelihood"] is None and data["heldout_a"]["parsed"] == 0

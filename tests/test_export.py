@@ -15,8 +15,8 @@ import torch
 
 from treewright.cli import main
 from treewright.errors import InputError
-from treewright.export import (expected_counts, grammar_to_json, iter_rules, load,
-                               load_grammar_json, open_grammar, parse_corpus, prune,
+from treewright.export import (expected_counts, grammar_to_json, head_rule, iter_rules,
+                               load, load_grammar_json, open_grammar, parse_corpus, prune,
                                rename_grammar, save_grammar_json, summarize, to_brackets,
                                to_conllu)
 from treewright.export.rename import check_renaming, parse_renaming
@@ -236,7 +236,7 @@ def test_conllu_output_parses_with_the_conllu_package(velmar, tmp_path):
     grammar = load_grammar(velmar)
     sentences = sample_sentences(grammar, num=6, seed=5) + [["ka", "ul"]]  # the last: no parse
     lines = list(enumerate(sentences, start=1))
-    text = to_conllu(parse_corpus(grammar, lines))
+    text = to_conllu(parse_corpus(grammar, lines), rule=head_rule("auto", grammar))
     parsed = conllu.parse(text)  # reference: the conllu package reads CoNLL-U
     assert len(parsed) == len(sentences)
     viterbi = viterbi_parse(grammar, sentences)
@@ -245,16 +245,20 @@ def test_conllu_output_parses_with_the_conllu_package(velmar, tmp_path):
         assert all(len(tok) == 10 for tok in sent)
         assert [tok["id"] for tok in sent] == list(range(1, len(words) + 1))
         if tree is None:
-            assert all(blank(tok["xpos"]) for tok in sent)
+            assert all(blank(tok["xpos"]) and blank(tok["head"]) for tok in sent)
             assert sent.metadata["parse"] == "none"
         else:
             # Reference: the preterminal labels of the Viterbi tree, left to right.
             tags = [label for i, j, label in tree.labeled_spans() if j - i == 1]
             assert [tok["xpos"] for tok in sent] == tags
             assert all(blank(tok[c]) for tok in sent for c in
-                       ("lemma", "upos", "feats", "head", "deprel", "deps", "misc"))
+                       ("lemma", "upos", "feats", "deps", "misc"))
+            # HEAD and DEPREL are checked against head percolation in test_export_heads.py.
+            assert sorted(tok["deprel"] for tok in sent) == \
+                ["dep"] * (len(words) - 1) + ["root"]
             assert sent.metadata["induced_tree"] == tree.to_string()
-    upos = conllu.parse(to_conllu(parse_corpus(grammar, lines[:1]), tag_column="UPOS"))
+    upos = conllu.parse(to_conllu(parse_corpus(grammar, lines[:1]), tag_column="UPOS",
+                                  rule=head_rule("left")))
     assert blank(upos[0][0]["xpos"])
     assert upos[0][0]["upos"] in grammar.preterminals
 

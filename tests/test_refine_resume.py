@@ -115,3 +115,22 @@ def test_resume_refuses_changed_data_and_a_new_run_refuses_a_used_folder(corpora
     assert "takes the config saved" in capsys.readouterr().err
     assert main(["refine", "--resume", str(run)]) == 0
     assert capsys.readouterr().out.strip().endswith("grammar.pcfg")
+
+
+def test_the_caller_chooses_the_held_out_parser(corpora, tmp_path):
+    # The held-out parser is the caller's: called once per report (cycles 0 to 3) with the
+    # first output.f1_max_sentences held-out sentences. A parser that finds no tree predicts
+    # no brackets, so labeled precision, recall and F1 are 0 (common practice: an empty
+    # prediction scores 0).
+    calls = []
+
+    def no_trees(lg, words):
+        calls.append(len(words))
+        return [None] * len(words)
+
+    run = tmp_path / "run"
+    result = refine(_config(corpora, "treebank", run), run, heldout_parser=no_trees)
+    assert calls == [3, 3, 3, 3]
+    for m in result.metrics:
+        assert (m["heldout/labeled_precision"], m["heldout/labeled_recall"],
+                m["heldout/labeled_f1"]) == (0.0, 0.0, 0.0)

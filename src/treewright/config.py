@@ -20,6 +20,12 @@ scalars (`true`, `1e-3`, `[1, 2]`, `null`). The merged result is checked as a wh
 work starts, and every problem (unknown key, wrong type, value out of range, missing value) is
 reported in one `ConfigError`, each with its dotted key and the YAML line it came from.
 
+With `resolve_paths=True` (as the training and refine configs load), a relative path written in
+a config file is read relative to the file's folder, so a config works from any current folder;
+a path given in an override (on the command line) or by default is relative to the current
+folder, as command-line paths are. Every path comes out absolute, so a config saved in a run
+folder loads back equal and finds its data from any folder.
+
 Supported field types: bool, int, float, str, pathlib.Path, Literal[...], Optional[X] (X | None),
 list[X] of those scalars, and nested dataclasses (also Optional). An int is accepted for a float
 field; a bool is never accepted as a number, and a string never as a number.
@@ -31,6 +37,7 @@ import copy
 import dataclasses
 import difflib
 import math
+import os
 import re
 import types
 import typing
@@ -183,17 +190,19 @@ class ConfigError(InputError):
 
 
 def load_config(cls: type[T], path: str | Path | None = None,
-                overrides: Sequence[str] = ()) -> T:
+                overrides: Sequence[str] = (), resolve_paths: bool = False) -> T:
     """Build a `cls` instance from its defaults, the YAML file at `path` (if any) and dotted
     `key=value` overrides (later ones win), checked as a whole. An override replaces the whole
     value at its key (`train={lr: 0.1}` replaces the file's train section; `train.lr=0.1`
-    changes one option).
+    changes one option). With `resolve_paths`, every path option comes out absolute (see the
+    module docstring).
 
     Raises ConfigError listing every problem, or InputError when the file cannot be read or is
     not YAML.
     """
     _require_dataclass_type(cls)
     collected = _Collected()
+    collected.resolve_paths = resolve_paths
     raw: dict[str, Any] = {}
     source = None
     if path is not None:
@@ -233,6 +242,8 @@ class _Collected:
         self.origins: dict[str, tuple[str | None, int | None]] = {}
         self.plain_strings: set[str] = set()
         self.problems: list[ConfigProblem] = []
+        self.folders: dict[str, Path] = {}  # config file (an origin) -> its absolute folder
+        self.resolve_paths = False
 
     def where(self, key: str) -> tuple[str | None, int | None]:
         # A list element or a child of a mapping given as one override takes its parent's origin.
@@ -275,6 +286,7 @@ def _read_yaml_file(path: Path, collected: _Collected) -> dict[str, Any]:
         raise InputError(f"a config file must be a mapping of keys to values, not "
                          f"{_describe(data)}", path=str(path), line=line)
     _walk_nodes(node, "", str(path), collected)
+    collected.folders[str(path)] = path.absolute().parent
     return data
 
 
@@ -460,6 +472,11 @@ class _Builder:
                 return self.problem(key, f"expected a file or folder path, got "
                                          f"{_describe(value)}")
             value = Path(value)
+            if self.collected.resolve_paths:
+                # A file's paths are relative to its folder; any other (override, default) to
+                # the current folder. Absolute results make a saved config load back equal.
+                folder = self.collected.folders.get(self.collected.where(key)[0], Path.cwd())
+                value = Path(os.path.normpath(folder / value))
         else:
             raise TypeError(f"config option {key!r} has unsupported type {tp!r}")
         spec = metadata.get("range")

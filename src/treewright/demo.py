@@ -75,7 +75,8 @@ def _fresh(folder: Path) -> Path:
     """`folder` emptied for a new run when an earlier demo left one there (a finished run keeps
     its checkpoint, which a new run would refuse); any other run folder is left alone."""
     if folder.exists() and any(folder.iterdir()):
-        config = folder / "config.yaml"
+        from treewright.runfolder import RunFolder
+        config = RunFolder(folder).config
         header = config.read_text(encoding="utf-8").split("\n", 1)[0] if config.exists() else ""
         if DEMO_MARK not in header:
             from treewright.errors import InputError
@@ -96,7 +97,9 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
     from treewright.refine import load_refine_config, refine
     from treewright.report.html import write_report
     from treewright.safeio import atomic_write_text, check_writable
-    from treewright.train import load_train_config, train
+    from treewright.induce import run
+    from treewright.runfolder import RunFolder
+    from treewright.train import load_train_config
     from treewright.trees import Tree
 
     if budget not in BUDGETS:
@@ -128,13 +131,14 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
         "model.nonterminals=10", "model.preterminals=20", f"train.epochs={plan['epochs']}",
         f"train.restarts={plan['restarts']}", f"output.run_dir={train_dir}",
         "output.stdout_metrics=false"])
-    trainer = train(cfg, train_dir, stream=stream, config_source=DEMO_MARK)
-    grammar = load_grammar(trainer.grammar_path_)
-    result.artifacts["grammar"] = trainer.grammar_path_
-    result.artifacts["metrics"] = train_dir / "metrics.jsonl"
+    trained = run(cfg, train_dir, stream=stream, config_source=DEMO_MARK)
+    train_folder = RunFolder(train_dir)
+    grammar = load_grammar(trained.grammar_path)
+    result.artifacts["grammar"] = trained.grammar_path
+    result.artifacts["metrics"] = train_folder.metrics
 
     stages.begin("Tracking the curves")
-    curve = [json.loads(line) for line in (train_dir / "metrics.jsonl").read_text().splitlines()
+    curve = [json.loads(line) for line in train_folder.metrics.read_text().splitlines()
              if line.strip()]
     per_epoch = [m for m in curve if "train/loglik_per_word" in m]
     for m in per_epoch[:: max(1, len(per_epoch) // 6)] + per_epoch[-1:]:
@@ -175,7 +179,7 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
     refine_dir = _fresh(out / "refine")
     rcfg = load_refine_config(None, [
         "data.start=text", f"data.train={train_path}", f"data.dev={data / 'dev.txt'}",
-        f"data.grammar={trainer.grammar_path_}", f"refine.cycles={plan['refine_cycles']}",
+        f"data.grammar={trained.grammar_path}", f"refine.cycles={plan['refine_cycles']}",
         f"refine.em_iterations={plan['refine_iterations']}", "refine.smoothed_iterations=1",
         f"output.run_dir={refine_dir}", "output.stdout_metrics=false"])
     refined = refine(rcfg, refine_dir, stream=stream, config_source=DEMO_MARK)

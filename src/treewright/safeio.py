@@ -95,6 +95,26 @@ def atomic_write_text(path: str | Path, text: str, encoding: str = "utf-8") -> N
     atomic_write_bytes(path, text.encode(encoding))
 
 
+def write_output_text(path: str | Path, text: str, encoding: str = "utf-8") -> Path:
+    """`atomic_write_text` to a file the user named: its folder is created when missing, and a
+    folder that cannot be made or a file that cannot be written raises InputError naming the
+    path (not an OSError traceback). Returns the path."""
+    path = Path(path)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise InputError(f"cannot create the output folder {path.parent}: "
+                         f"{err.strerror or 'a file of that name exists'}",
+                         path=str(path)) from None
+    try:
+        atomic_write_text(path, text, encoding)
+    except IsADirectoryError:
+        raise InputError("cannot write the output: it is a folder", path=str(path)) from None
+    except OSError as err:
+        raise InputError(f"cannot write the output: {err.strerror}", path=str(path)) from None
+    return path
+
+
 def _fsync_folder(folder: Path) -> None:
     # Folders cannot be opened for fsync on Windows; there the rename is as durable as it gets.
     if os.name != "posix":

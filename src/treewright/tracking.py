@@ -6,7 +6,8 @@ line, flushed at once), `TensorBoardLogger` (scalars for TensorBoard) and `Multi
 sends every call to several of them. `open_loggers` builds the usual set for a run folder.
 
 `Progress` shows how far a long pass has got: a redrawn bar on a terminal, occasional plain
-lines in a log file.
+lines in a log file. `terminal_progress` shows the bar on a terminal and nothing elsewhere (for
+commands whose standard error may be read by a program).
 """
 
 from __future__ import annotations
@@ -321,3 +322,30 @@ class Progress:
         self.stream.write("\r" + text + padding + ("\n" if final else ""))
         self.stream.flush()
         self.drawn_length = len(text)
+
+
+class SilentProgress:
+    """A `Progress` that shows nothing (same methods)."""
+
+    def __enter__(self) -> "SilentProgress":
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        pass
+
+    def update(self, n: int = 1) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def terminal_progress(total: int | None, desc: str = "", unit: str = "sentences",
+                      stream: TextIO | None = None) -> "Progress | SilentProgress":
+    """A `Progress` bar on `stream` (default sys.stderr) when it is a terminal, else a
+    `SilentProgress`: a pipe or a file gets the results only."""
+    stream = sys.stderr if stream is None else stream
+    isatty = getattr(stream, "isatty", None)
+    if isatty is not None and isatty():
+        return Progress(total, desc, stream, unit)
+    return SilentProgress()

@@ -9,6 +9,7 @@ import sys
 
 from treewright.allocator import tune_allocator
 from treewright.errors import InputError
+from treewright.threads import threads_wanted, use_threads
 
 # name -> (module, one-line summary). Modules are imported only when their command runs.
 COMMANDS = {
@@ -41,18 +42,43 @@ def build_parser() -> argparse.ArgumentParser:
                              epilog=getattr(module, "EXAMPLES", None),
                              formatter_class=argparse.RawDescriptionHelpFormatter)
         module.add_arguments(cmd)
+        cmd.add_argument("--threads", type=int, metavar="N",
+                         help="torch threads in this process (default: $OMP_NUM_THREADS, else 1; "
+                              "parallelize with processes instead, as train --workers does)")
         cmd.set_defaults(_handler=module.run)  # not "run": commands may take a RUN argument
     return parser
 
 
+def parse_arguments(parser: argparse.ArgumentParser, argv: list[str] | None):
+    """The parsed arguments, with `key=value` overrides accepted anywhere among the options.
+
+    argparse fills a command's positional arguments from the first run of them only, so in
+    `train CONFIG a=1 --workers 2 b=2` the `b=2` would be unrecognized. Leftover words that look
+    like overrides join the command's `overrides` list, in their order; anything else is the
+    usual "unrecognized arguments" error."""
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        takes_overrides = isinstance(getattr(args, "overrides", None), list)
+        if not takes_overrides or not all(looks_like_override(word) for word in extra):
+            parser.error("unrecognized arguments: " + " ".join(extra))
+        args.overrides.extend(extra)
+    return args
+
+
+def looks_like_override(word: str) -> bool:
+    """A `dotted.key=value` word (not an option such as --x=1)."""
+    return not word.startswith("-") and "=" in word.split(" ", 1)[0]
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args = parse_arguments(parser, argv)
     if args.command is None:
         parser.print_help()
         return 2
     tune_allocator()  # a one-off process: keep freed tensor memory mapped (engine/allocator.py)
     try:
+        use_threads(threads_wanted(args.threads))  # one by default: see treewright/threads.py
         return int(args._handler(args) or 0)
     except InputError as err:
         print(f"treewright {args.command}: {err}", file=sys.stderr)

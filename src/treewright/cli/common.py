@@ -33,17 +33,25 @@ def read_sentences(path: str) -> list[tuple[int, list[str]]]:
 
     Lines are numbered as the corpus readers number them (\n, \r\n and a lone \r end a line),
     so a message about line k means the same line everywhere."""
+    return [(k, words) for k, words in read_lines(path) if words]
+
+
+def read_lines(path: str) -> list[tuple[int, list[str]]]:
+    """(line number, tokens) of every line of a raw-text file ('-' reads stdin), blank lines
+    included with no tokens, so that output can keep one line per input line. Raises
+    InputError when no line holds a word (numbering as in `read_sentences`)."""
     if path == "-":
         name = "<stdin>"
         text = sys.stdin.read().lstrip("\ufeff").replace("\r\n", "\n").replace("\r", "\n")
         numbered = list(enumerate(text.split("\n"), start=1))
+        if text.endswith("\n"):
+            numbered.pop()  # the empty "line" after a final newline is not a line of the input
     else:
         from treewright.corpus import iter_lines
         name = path
         numbered = list(iter_lines(path))
     out = [(k, line.split()) for k, line in numbered]
-    out = [(k, words) for k, words in out if words]
-    if not out:
+    if not any(words for _, words in out):
         raise InputError("no sentences (the input is empty or blank)", path=name)
     return out
 
@@ -85,3 +93,46 @@ def dumps(obj) -> str:
             return [clean(v) for v in x]
         return x
     return json.dumps(clean(obj), ensure_ascii=False)
+
+
+def input_name(path: str) -> str:
+    """How messages name a text argument ('-' is standard input)."""
+    return "<stdin>" if path == "-" else path
+
+
+def warn_over_budget(plan, grammar, lines, path: str, dtype, what: str) -> None:
+    """One line on standard error per sentence that `plan` (a `budget.BudgetPlan`) leaves out,
+    naming the file and line and what it would need; `what` is the skipped work ("scored")."""
+    from treewright.budget import MB, sentence_bytes
+
+    for i in plan.over:
+        line, words = lines[i]
+        need = sentence_bytes(grammar, len(words), dtype) / MB
+        print(f"{input_name(path)}, line {line}: not {what}: {len(words)} words need about "
+              f"{need:,.0f} MB, over the memory budget of {plan.budget_mb:g} MB (sentences of "
+              f"up to {plan.longest} words fit; --memory-budget MB changes it)", file=sys.stderr)
+
+
+# treewright.budget.DEFAULT_BUDGET_MB, written out so that `--help` need not import torch
+# (tests/test_cli_budget.py checks that the two agree).
+DEFAULT_BUDGET_MB = 2048.0
+
+
+def add_budget_argument(p) -> None:
+    """The --memory-budget option of the commands that apply a grammar to text."""
+    p.add_argument("--memory-budget", type=float, default=DEFAULT_BUDGET_MB, metavar="MB",
+                   help=f"memory for one inside pass (default {DEFAULT_BUDGET_MB:g} MB, estimated "
+                        "by treewright.engine.memory); a sentence that alone needs more is "
+                        "named on standard error and kept as an unparsed line")
+
+
+def shortest(value: float, dtype) -> float:
+    """`value` with the digits its computing precision supports: a float32 result printed
+    with 16 digits claims a precision it does not have. The shortest decimal that reads back
+    as the same float32 (numpy's str) is kept; float64 values are left whole."""
+    import numpy
+    import torch
+
+    if dtype != torch.float32 or not math.isfinite(value):
+        return value
+    return float(str(numpy.float32(value)))

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from treewright.cli.common import add_budget_argument
+
 EXAMPLES = """examples:
   treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr > dev.pred
   treewright evaluate dev.pred dev.trees
@@ -15,7 +17,8 @@ count as trees without brackets). GOLD holds bracketed trees or CoNLL-U (depende
 become the gold spans). The left-branching, right-branching, random and binary upper-bound trees
 are always scored beside the model on the same sentences. Tags (many-to-one, V-measure) are
 scored when both sides have preterminals/tags. Inputs that do not match stop with an error that
-names the first mismatching line.
+names the first mismatching line. With --grammar and --text, a text sentence too long for
+--memory-budget is left out of the likelihood, and the table names its line.
 """
 
 
@@ -25,9 +28,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
     p.add_argument("--json", metavar="PATH",
                    help="also write every score and convention as JSON ('-': stdout, no table)")
-    p.add_argument("--grammar", help="grammar file, for the held-out likelihood of --text")
+    p.add_argument("--grammar", help="grammar (text file, JSON export or run folder), for the held-out "
+                        "likelihood of --text")
     p.add_argument("--text", help="raw text, one sentence per line, scored under --grammar")
     p.add_argument("--no-tags", action="store_true", help="skip the tag evaluation")
+    add_budget_argument(p)
     conv = p.add_argument_group("bracket conventions (defaults: the usual unsupervised setup)")
     conv.add_argument("--include-whole-span", action="store_true",
                       help="count the whole-sentence span (default: not counted)")
@@ -80,19 +85,19 @@ def run(args) -> int:
     from treewright.cli.common import dumps
     from treewright.errors import InputError
     from treewright.report.scoring import evaluate_files
-    from treewright.safeio import atomic_write_text
+    from treewright.safeio import write_output_text
 
     if (args.grammar is None) != (args.text is None):
         raise InputError("--grammar and --text go together (the text is scored under the grammar)")
     report = evaluate_files(args.pred, args.gold, conventions_from_args(args),
                             gold_format=args.gold_format, grammar_path=args.grammar,
-                            text_path=args.text, tags=not args.no_tags)
+                            text_path=args.text, tags=not args.no_tags,
+                            memory_budget_mb=args.memory_budget)
     text = dumps(report.to_dict())
     if args.json == "-":
         print(text)
         return 0
     print(report.format_table())
     if args.json is not None:
-        from pathlib import Path
-        atomic_write_text(Path(args.json), text + "\n")
+        write_output_text(args.json, text + "\n")
     return 0

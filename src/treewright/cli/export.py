@@ -20,7 +20,8 @@ formats:
   listing   per symbol its entropy, top rules or words, and usage on --corpus if given
   brackets  the Viterbi tree of each --corpus sentence, one bracketed tree per line
   conllu    the --corpus sentences as CoNLL-U, the induced preterminal of each word in the
-            --tag-column column (XPOS by default), the tree in a '# induced_tree' comment
+            --tag-column column (XPOS by default), the tree in a '# induced_tree' comment,
+            HEAD and DEPREL (root, else dep) read off the tree by the --heads rule
 
 The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg).
 Pruning (--prune-threshold / --prune-top) comes first, then renaming (--rename: 'OLD NEW' per
@@ -41,6 +42,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="listing: at most this many rules per symbol (default 10; 0: no cap)")
     p.add_argument("--tag-column", choices=("XPOS", "UPOS"), default="XPOS",
                    help="conllu: the column that carries the induced preterminal")
+    p.add_argument("--heads", choices=("auto", "left", "right"), default="auto",
+                   help="conllu: which child of each phrase holds its head word; auto (default) "
+                        "takes, per symbol, the side whose child the grammar predicts better")
     p.add_argument("--prune-threshold", type=float, default=None,
                    help="drop rules below this probability and renormalise")
     p.add_argument("--prune-top", type=int, default=None,
@@ -58,8 +62,8 @@ def run(args) -> int:
     from treewright.export.jsonformat import grammar_json_text
     from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
                                            format_listing, summarize)
-    from treewright.export.parses import parse_corpus, to_brackets, to_conllu
-    from treewright.safeio import atomic_write_text
+    from treewright.export.parses import head_rule, parse_corpus, to_brackets, to_conllu
+    from treewright.safeio import write_output_text
 
     if args.to in ("brackets", "conllu") and args.corpus is None:
         raise InputError(f"--to {args.to} needs --corpus (the sentences to parse)")
@@ -104,10 +108,10 @@ def run(args) -> int:
         if unparsed:
             print(f"{unparsed} of {len(parsed)} sentences had no parse (kept in the output)",
                   file=sys.stderr)
-        text = to_brackets(parsed) if args.to == "brackets" else to_conllu(parsed,
-                                                                           args.tag_column)
+        text = to_brackets(parsed) if args.to == "brackets" else to_conllu(
+            parsed, args.tag_column, rule=head_rule(args.heads, named))
     if args.out == "-":
         sys.stdout.write(text)
     else:
-        atomic_write_text(args.out, text)
+        write_output_text(args.out, text)
     return 0

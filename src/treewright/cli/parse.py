@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from treewright.cli.common import add_budget_argument
+
 EXAMPLES = """examples:
   treewright parse src/treewright/data/examples/astronomers.pcfg sentences.txt
   treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr --scores
@@ -16,10 +18,17 @@ decoders:
   max-rule-product  for refined grammars (symbols NAME@k): the tree of coarse symbols maximizing
                     the product of posterior coarse-rule marginals
 
-One bracketed tree per input line. A sentence with no parse prints '(NOPARSE w1 w2 ...)' so the
-output keeps one line per sentence, and the reason goes to standard error. With --scores each line
+A grammar trained on tags (data.tag_mode, or --tags) parses the tags of a bracketed or
+CoNLL-U file and prints trees over its words, ready for `treewright evaluate` against that file;
+given raw text, it reads the tokens as the tags.
+
+One output line per input line (per tree or sentence for a bracketed or CoNLL-U file), always.
+A blank or whitespace-only input line gives an empty output line. A sentence with no parse, or
+too long for --memory-budget, prints '(NOPARSE w1 w2 ...)' and the reason goes to standard
+error. On a terminal a progress bar runs on standard error. With --scores each line
 gets a tab, log p(tree, sentence), a tab and p(tree | sentence); with --objective, a third tab and
-the decoder's own objective (log p(tree), expected correct spans, or log rule-posterior product).
+the decoder's own objective (log p(tree), expected correct spans, or log rule-posterior product);
+these are nan for a sentence over the memory budget (not computed).
 """
 
 
@@ -38,35 +47,67 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--objective", action="store_true",
                    help="append the decoder's objective value to each line")
     p.add_argument("--batch-size", type=int, default=16)
+    p.add_argument("--tags", action="store_true",
+                   help="the grammar reads tags: TEXT may be bracketed trees or CoNLL-U, whose "
+                        "tags are parsed and whose words are printed (automatic for a run or "
+                        "JSON export trained with data.tag_mode)")
+    add_budget_argument(p)
 
 
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import as_trained, read_sentences
+    import torch
+
+    from treewright.budget import plan_budget, run_plan
+    from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
+    from treewright.corpus import read_tagged, run_tag_mode
     from treewright.decode import decode
     from treewright.export import open_grammar  # text, JSON export or run folder
+    from treewright.tracking import terminal_progress
 
     source = open_grammar(args.grammar)
     grammar = source.grammar
-    lines = read_sentences(args.text)
-    inputs = as_trained(source, lines)
-    results = decode(grammar, inputs, args.decoder, args.batch_size)
+    config = (source.training or {}).get("config")
+    on_tags = args.tags or run_tag_mode(config.get("data") if isinstance(config, dict) else None)
+    tagged = read_tagged(args.text) if on_tags and args.text != "-" else None
+    if tagged is None:
+        every_line = read_lines(args.text)
+        lines = [(k, words) for k, words in every_line if words]
+        inputs = as_trained(source, lines)
+    else:  # tags go into the grammar, the words come out; one output line per sentence
+        every_line = lines = [(s.line, s.words) for s in tagged]
+        inputs = [s.tokens for s in tagged]
+    dtype = torch.float64  # decode's precision
+    plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
+                       args.batch_size)
+    warn_over_budget(plan, grammar, lines, args.text, dtype, "parsed")
+    with terminal_progress(len(inputs) - len(plan.over), "parse") as progress:
+        results = run_plan(plan, inputs, lambda group: decode(grammar, group, args.decoder,
+                                                              args.batch_size, dtype), progress)
+    by_line = {line: (words, normalised, result) for (line, words), normalised, result
+               in zip(lines, inputs, results)}
     unparsed = 0
-    for (line, words), normalised, result in zip(lines, inputs, results):
-        if result.tree is None:
+    for line, _ in every_line:
+        if line not in by_line:
+            print()  # a blank input line: an empty output line keeps the two files aligned
+            continue
+        words, normalised, result = by_line[line]
+        if result is None or result.tree is None:
             unparsed += 1
-            unknown = [w for w in normalised if w not in grammar.vocab]
-            why = f"unknown words {unknown}" if unknown else "no tree covers it"
-            where = "<stdin>" if args.text == "-" else args.text
-            print(f"{where}, line {line}: no parse ({why})", file=sys.stderr)
+            if result is not None:  # over the budget was reported already
+                unknown = [w for w in normalised if w not in grammar.vocab]
+                why = f"unknown words {unknown}" if unknown else "no tree covers it"
+                print(f"{input_name(args.text)}, line {line}: no parse ({why})",
+                      file=sys.stderr)
             fields = ["(NOPARSE " + " ".join(words) + ")"]
         else:
             fields = [result.tree.with_leaves(words).to_string()]  # the words as written
         if args.scores:
-            fields += [repr(result.tree_logprob), repr(result.posterior)]
+            fields += ["nan", "nan"] if result is None else \
+                [repr(result.tree_logprob), repr(result.posterior)]
         if args.objective:
-            fields.append(repr(result.score))
+            fields.append("nan" if result is None else repr(result.score))
         print("\t".join(fields))
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)

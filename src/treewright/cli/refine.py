@@ -35,6 +35,7 @@ def run(args) -> int:
 
     from treewright.cli.common import config_and_folder
     from treewright.refine import load_refine_config, refine, refine_resume
+    from treewright.runfolder import RunFolder
 
     cfg, run_dir = config_and_folder(args, load_refine_config)
     try:
@@ -43,8 +44,9 @@ def run(args) -> int:
         else:
             result = refine(cfg, run_dir, stream=sys.stdout, config_source=args.config)
     except KeyboardInterrupt:
-        print(f"treewright refine: interrupted; {run_dir / 'refine.ckpt'} holds every cycle "
-              f"finished. Continue with: treewright refine --resume {run_dir}", file=sys.stderr)
+        print(f"treewright refine: interrupted; {RunFolder(run_dir, 'refine').checkpoint} holds "
+              f"every cycle finished. Continue with: treewright refine --resume {run_dir}",
+              file=sys.stderr)
         return 130
     print(result.grammar_path)
     return 0

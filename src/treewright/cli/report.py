@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from treewright.cli.common import add_budget_argument
+
 EXAMPLES = """examples:
   treewright report runs/em_demo
   treewright report runs/em_demo --gold data/demo/dev.trees --out em_demo.html
@@ -13,7 +15,9 @@ The page (default RUN/report.html) holds the likelihood, perplexity and dev F1 c
 sentence length beside the baselines, label recall, each symbol's most probable rules and words,
 example trees (predicted beside gold) and a span-posterior heat map. Figures are inline SVG: the
 page needs no network and runs no script. What the run folder lacks is named on the page.
-Without --gold the run's dev corpus is used when it has trees.
+Without --gold the run's dev corpus is used when it has trees. A sentence too long for
+--memory-budget is not parsed; the page names it. On a terminal a progress bar runs on standard
+error while the sentences are parsed.
 """
 
 
@@ -24,9 +28,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--gold", help="gold trees (bracketed or CoNLL-U) to parse and score")
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
     p.add_argument("--text", help="raw sentences for examples and the heat map (without --gold)")
-    p.add_argument("--grammar", help="grammar file (default: RUN/grammar.pcfg)")
-    p.add_argument("--decoder", choices=DECODER_NAMES, default="mbr",
-                   help="how example and evaluation trees are chosen (default: mbr)")
+    p.add_argument("--grammar", help="grammar: text file, JSON export or run folder (default: RUN/grammar.pcfg)")
+    p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
+                   help="how trees are chosen (default: max-rule-product for a refined grammar, "
+                        "else mbr)")
     p.add_argument("--examples", type=int, default=3, help="example sentences drawn (default 3)")
     p.add_argument("--max-example-words", type=int, default=20,
                    help="longest example sentence drawn (default 20)")
@@ -35,6 +40,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--max-sentences", type=int,
                    help="parse only the first N gold/text sentences (the page says so)")
     p.add_argument("--out", help="output file (default RUN/report.html)")
+    add_budget_argument(p)
 
 
 def run(args) -> int:
@@ -44,6 +50,7 @@ def run(args) -> int:
                         grammar_path=args.grammar, decoder=args.decoder,
                         examples=args.examples, max_example_words=args.max_example_words,
                         heatmap_sentence=args.heatmap_sentence, gold_format=args.gold_format,
-                        max_sentences=args.max_sentences)
+                        max_sentences=args.max_sentences,
+                        memory_budget_mb=args.memory_budget)
     print(path)
     return 0

@@ -4,13 +4,19 @@ from __future__ import annotations
 
 import argparse
 
+from treewright.cli.common import add_budget_argument
+
 EXAMPLES = """examples:
   treewright score src/treewright/data/examples/astronomers.pcfg sentences.txt
   echo "astronomers saw stars with ears" | treewright score src/treewright/data/examples/astronomers.pcfg -
 
-Each sentence gives one JSON line: {"line", "tokens", "logprob", "unknown"}; logprob is the
-natural log of the sum over all trees, null when the sentence has no parse. The last line is
-the summary: total log-likelihood, per-word cross-entropy and perplexity over parsed sentences.
+Each sentence (non-blank line) gives one JSON line: {"line", "tokens", "logprob", "parsed",
+"unknown"}; logprob is the natural log of the sum over all trees, null when the sentence has no
+parse. Values carry the digits their precision supports (about 7 in float32, the default;
+--float64 for more). A sentence too long for --memory-budget is named on standard error and
+gets a line with logprob null and "over_memory_budget": true. The last line is the summary:
+total log-likelihood, per-word cross-entropy and perplexity over parsed sentences (null when none
+parsed), and the count of sentences over the budget. On a terminal a progress bar runs on standard error.
 """
 
 
@@ -19,22 +25,41 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("text", help="raw text, one sentence per line, whitespace tokens ('-': stdin)")
     p.add_argument("--batch-size", type=int, default=64)
     p.add_argument("--float64", action="store_true", help="compute in double precision")
+    add_budget_argument(p)
 
 
 def run(args) -> int:
     import torch
 
-    from treewright.cli.common import as_trained, dumps, read_sentences
+    from treewright.budget import plan_budget, run_plan
+    from treewright.cli.common import (as_trained, dumps, read_sentences, shortest,
+                                       warn_over_budget)
     from treewright.export import open_grammar  # text, JSON export or run folder
     from treewright.inference import corpus_summary, score
+    from treewright.tracking import terminal_progress
 
     source = open_grammar(args.grammar)
     grammar = source.grammar
     lines = read_sentences(args.text)
     dtype = torch.float64 if args.float64 else torch.float32
-    scores = score(grammar, as_trained(source, lines), args.batch_size, dtype)
-    for (line, _), s in zip(lines, scores):
-        print(dumps({"line": line, "tokens": s.words, "logprob": s.logprob,
+    inputs = as_trained(source, lines)
+    plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
+                       args.batch_size)
+    warn_over_budget(plan, grammar, lines, args.text, dtype, "scored")
+    with terminal_progress(len(inputs) - len(plan.over), "score") as progress:
+        scores = run_plan(plan, inputs,
+                          lambda group: score(grammar, group, args.batch_size, dtype), progress)
+    for (line, words), s in zip(lines, scores):
+        if s is None:
+            print(dumps({"line": line, "tokens": words, "logprob": None, "parsed": False,
+                         "over_memory_budget": True}))
+            continue
+        print(dumps({"line": line, "tokens": s.words, "logprob": shortest(s.logprob, dtype),
                      "parsed": s.parsed, "unknown": s.unknown}))
-    print(dumps({"summary": corpus_summary(scores)}))
+    summary = corpus_summary([s for s in scores if s is not None])
+    summary = {k: shortest(v, dtype) if isinstance(v, float) else v for k, v in summary.items()}
+    summary["over_memory_budget"] = len(plan.over)
+    if not summary["parsed"]:
+        summary["log_likelihood"] = None  # a sum over no sentence is no score (not 0)
+    print(dumps({"summary": summary}))
     return 0

@@ -17,10 +17,11 @@ is checked before training starts ('treewright validate CONFIG' does only that, 
 'treewright validate --options' lists every option with its default).
 
 The run folder (output.run_dir, default runs/<config name>) receives config.yaml (the resolved
-config), train.log, metrics.jsonl, tensorboard/, checkpoint.ckpt, restart-<r>.pcfg and the
-result, grammar.pcfg. --resume continues from checkpoint.ckpt with the saved config; in float64
-it ends with exactly the grammar an uninterrupted run gives. Ctrl-C stops at the next step
-with a checkpoint and prints the --resume command (a second Ctrl-C stops at once).
+config), train.log, data_summary.json, metrics.jsonl, tensorboard/, checkpoint.ckpt,
+restart-<r>.pcfg and the result, grammar.pcfg. --resume continues from checkpoint.ckpt with
+the saved config; in float64 it ends with exactly the grammar an uninterrupted run gives.
+Ctrl-C stops at the next step with a checkpoint and prints the --resume command (a second
+Ctrl-C stops at once).
 
 --workers N starts N worker processes on this machine (torchrun's launcher, gloo on loopback);
 each runs the E-step or gradient of its share of every update, and the grammar after each update
@@ -45,11 +46,14 @@ def run(args) -> int:
 
     from treewright.cli.common import config_and_folder
     from treewright.errors import InputError
-    from treewright.train import TrainingDiverged, load_train_config, resume, train
+    from treewright import induce
+    from treewright.runfolder import RunFolder
+    from treewright.train import TrainingDiverged, load_train_config
     from treewright.train.distributed import WorkerLost, launch_local, world_from_env
-    from treewright.train.loop import CHECKPOINT, GRAMMAR, saved_config
+    from treewright.train.loop import saved_config
 
     cfg, run_dir = config_and_folder(args, load_train_config)
+    folder = RunFolder(run_dir, "train")
     if cfg is None:
         cfg = saved_config(run_dir)
     if args.workers is not None and "RANK" not in os.environ:
@@ -64,18 +68,16 @@ def run(args) -> int:
             print(f"treewright train: {launched.message}. Continue from the last checkpoint "
                   f"with: {again}", file=sys.stderr)
             return launched.returncode
-        if launched.interrupted and not (run_dir / GRAMMAR).exists():
-            print(f"treewright train: interrupted; the checkpoint {run_dir / CHECKPOINT} holds "
+        if launched.interrupted and not folder.grammar.exists():
+            print(f"treewright train: interrupted; the checkpoint {folder.checkpoint} holds "
                   f"the run so far. Continue it with: {again}", file=sys.stderr)
             return 130
         return 0  # rank 0 printed the grammar's path
     world = world_from_env(cfg.distributed.timeout_seconds,
                            cfg.distributed.collective_timeout_seconds)
     try:
-        if args.resume is not None:
-            trainer, _ = resume(run_dir, world=world)
-        else:
-            trainer = train(cfg, run_dir, config_source=args.config, world=world)
+        result = induce.run(cfg, run_dir, resume=args.resume is not None,
+                            config_source=args.config, world=world)
     except (TrainingDiverged, WorkerLost) as err:
         world.close(failure=str(err))
         print(f"treewright train: {err}", file=sys.stderr)
@@ -92,12 +94,11 @@ def run(args) -> int:
         world.close(failure=f"{type(err).__name__}: {err}")
         raise
     world.close()
-    if not world.is_main or "RANK" in os.environ and not hasattr(trainer, "grammar_path_"):
+    if not world.is_main or "RANK" in os.environ and result is None:
         return 0  # a launcher started this worker: it reports the run's end
-    if not hasattr(trainer, "grammar_path_"):  # Ctrl-C: stopped after a checkpoint
-        print(f"treewright train: interrupted; the checkpoint {trainer.run_dir / 'checkpoint.ckpt'}"
-              f" holds the run so far. Continue it with: treewright train --resume "
-              f"{trainer.run_dir}", file=sys.stderr)
+    if result is None:  # Ctrl-C: stopped after a checkpoint
+        print(f"treewright train: interrupted; the checkpoint {folder.checkpoint} holds the run "
+              f"so far. Continue it with: treewright train --resume {run_dir}", file=sys.stderr)
         return 130
-    print(trainer.grammar_path_)
+    print(result.grammar_path)
     return 0

@@ -1,5 +1,5 @@
-"""treewright validate: check a training config (types, ranges, combinations) and do nothing
-else."""
+"""treewright validate: check a training or refine config (types, ranges, combinations) and do
+nothing else."""
 
 from __future__ import annotations
 
@@ -8,9 +8,11 @@ import argparse
 EXAMPLES = """examples:
   treewright validate configs/em_demo.yaml
   treewright validate configs/em_demo.yaml train.epochs=5 optimizer.lr=1e-3
-  treewright validate --options
+  treewright validate configs/refine_demo_treebank.yaml refine.cycles=3
+  treewright validate --options --kind refine
 
-Every problem is reported at once, each with its key and the file line or override it came
+A config is taken as a refine config when it has a refine or tree_form section or a data.start
+key, and as a training config otherwise (--kind says which instead). Every problem is reported at once, each with its key and the file line or override it came
 from. Data files are not read (they may not exist yet on this machine).
 """
 
@@ -20,6 +22,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("overrides", nargs="*", metavar="key=value", help="dotted config overrides")
     p.add_argument("--options", action="store_true",
                    help="list every option with its type, default and allowed values")
+    p.add_argument("--kind", choices=("auto", "train", "refine"), default="auto",
+                   help="the config's kind (default auto: from its sections); with --options, "
+                        "list only that kind's options")
     p.add_argument("--print", action="store_true", dest="show",
                    help="print the resolved config as YAML")
 
@@ -27,16 +32,24 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     from treewright.config import describe_config, dump_config_yaml
     from treewright.errors import InputError
-    from treewright.train import TrainConfig, load_train_config
+    from treewright.run_configs import KINDS, load_run_config, schema
 
     if args.options:
-        print(describe_config(TrainConfig), end="")
+        kinds = KINDS if args.kind == "auto" else (args.kind,)
+        for k, kind in enumerate(kinds):
+            if len(kinds) > 1:
+                print(("\n" if k else "") + f"# {kind} configs (treewright {kind} CONFIG)")
+            print(describe_config(schema(kind)), end="")
         return 0
     if args.config is None:
         raise InputError("give a config file to validate (or --options)")
-    cfg = load_train_config(args.config, args.overrides)
+    kind, cfg = load_run_config(args.config, args.overrides, args.kind)
     if args.show:
         print(dump_config_yaml(cfg), end="")
+    elif kind == "train":
+        print(f"{args.config}: valid training config ({cfg.train.method}, "
+              f"{cfg.model.parameterization})")
     else:
-        print(f"{args.config}: valid ({cfg.train.method}, {cfg.model.parameterization})")
+        print(f"{args.config}: valid refine config ({cfg.data.start} start, "
+              f"{cfg.refine.cycles} cycles)")
     return 0

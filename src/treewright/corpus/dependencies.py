@@ -20,11 +20,12 @@ from treewright.trees import Tree, tree_from_spans
 @dataclass
 class DependencySentence:
     """The syntactic words of one CoNLL-U sentence (multiword-token lines and empty nodes
-    left out), with the line where its block starts."""
+    left out), with the line where its block starts and its `# sent_id` comment, if any."""
     words: list[str]
     upos: list[str]
     heads: list[int]
     line: int
+    sent_id: str | None = None
 
 
 def _children(heads: list[int]) -> list[list[int]]:
@@ -167,8 +168,13 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     heads: list[int] = []
     head_lines: list[int] = []
     first = block[0][0]
+    sent_id = None
     for number, text in block:
         if text.startswith("#"):
+            # The CoNLL-U comment that names the sentence: "# sent_id = <id>".
+            key, sep, value = text[1:].partition("=")
+            if sep and key.strip() == "sent_id" and value.strip():
+                sent_id = value.strip()
             continue
         fields = text.split("\t")
         if len(fields) != len(DEFAULT_FIELDS):
@@ -195,4 +201,4 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     problem = check_tree(heads)
     if problem is not None:
         return InputError(f"not a dependency tree: {problem}", path, first, 1)
-    return DependencySentence(words, upos, heads, first)
+    return DependencySentence(words, upos, heads, first, sent_id)

@@ -130,7 +130,7 @@ class CorpusStream:
         return word
 
     def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
-                heads: list[int] | None = None) -> Sentence | None:
+                heads: list[int] | None = None, sent_id: str | None = None) -> Sentence | None:
         """Apply tag mode and the length limits; count the sentence if it goes unused."""
         if self.options.tag_mode:
             if tags is None:
@@ -140,7 +140,7 @@ class CorpusStream:
         else:
             tokens = [self._normalise(w) for w in words]
         sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
-                            line=line, heads=heads)
+                            line=line, heads=heads, sent_id=sent_id)
         n = len(tokens)
         if n == 0:
             self._skip("empty", line)
@@ -210,7 +210,8 @@ class CorpusStream:
                 kept_heads = _heads_without(block.heads, [t in options.punct_labels
                                                           for t in upos])
                 words, upos = tree.leaves(), preterminal_tags(tree)
-            yield self._finish(words, upos, tree, block.line, heads=kept_heads)
+            yield self._finish(words, upos, tree, block.line, heads=kept_heads,
+                               sent_id=block.sent_id)
 
 
 def _heads_without(heads: list[int], drop: list[bool]) -> list[int] | None:
@@ -260,6 +261,28 @@ def read_corpus(path: str | os.PathLike, fmt: str = "auto",
         report.unk_rate = unknown / report.tokens
     return Corpus(sentences=sentences, vocabulary=vocabulary, report=report,
                   set_aside=stream.set_aside)
+
+
+def read_tagged(path: str | os.PathLike, fmt: str = "auto") -> list[Sentence] | None:
+    """Every sentence of a tagged corpus, for parsing with a grammar trained on tags.
+
+    A bracketed or CoNLL-U file gives each sentence's `words` and its tags as `tokens` (the
+    preterminal labels, or UPOS), read as evaluation reads gold trees (empty elements removed,
+    non-projective sentences lifted), so that trees over `words` line up with that gold. None
+    for raw text, whose tokens are the tags themselves with no words beside them. A record that
+    gives no sentence raises InputError naming its line: parses must keep one per record.
+    """
+    if fmt == "auto":
+        fmt = detect_format(path)
+    if fmt == "text":
+        return None
+    corpus = read_corpus(path, fmt, ReadOptions(tag_mode=True, nonprojective="lift"))
+    if corpus.report.skipped:
+        first = corpus.report.skipped[0]
+        detail = f": {first.message}" if first.message else ""
+        raise InputError(f"this sentence cannot be parsed from its tags ({first.reason}{detail})",
+                         path=first.source, line=first.line, column=first.column)
+    return corpus.sentences
 
 
 def write_skip_log(report: ReadReport, path: str | os.PathLike) -> int:

@@ -35,6 +35,11 @@ def run_case_rules(data) -> str | None:
     rules = data.get("case_rules", "default")
     return rules if rules in CASE_RULES else "default"
 
+def run_tag_mode(data) -> bool:
+    """True when a training run's `data` config section (as read from its config.yaml) trained
+    the grammar on tags (`tag_mode`) rather than on words."""
+    return isinstance(data, dict) and bool(data.get("tag_mode"))
+
 # Preterminal labels treated as punctuation in the Penn Treebank tag set (from memory; the usual
 # list in unsupervised-parsing evaluation). Pass it as `ReadOptions.punct_labels` to drop them.
 PTB_PUNCT_LABELS = frozenset({",", ".", ":", "``", "''", "-LRB-", "-RRB-", "#", "$"})
@@ -116,7 +121,8 @@ class Sentence:
     `words` are the surface words as read (after removals); `tokens` are what a model sees:
     normalised words, or the tags in tag mode (not yet mapped to the unknown token; use
     `Corpus.encode`). `tree` leaves are `words`, in order, when there is a tree. `line` is the
-    1-based line where the sentence starts in `source`.
+    1-based line where the sentence starts in `source`; `sent_id` is the name the source gives
+    it (CoNLL-U `# sent_id`), None where the format has none.
     """
     words: list[str]
     tokens: list[str]
@@ -125,6 +131,7 @@ class Sentence:
     source: str = ""
     line: int = 0
     heads: list[int] | None = None
+    sent_id: str | None = None
 
     def __len__(self) -> int:
         return len(self.tokens)

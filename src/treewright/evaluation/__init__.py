@@ -14,13 +14,14 @@ from treewright.evaluation.brackets import (DEFAULT_PUNCTUATION_TAGS, DEFAULT_PU
 from treewright.evaluation.likelihood import LikelihoodScores, heldout_likelihood
 from treewright.evaluation.spans import (Bracketing, binary_upper_bound, left_branching, left_branching_tree,
                                          random_binary, right_branching, right_branching_tree, spans_to_tree)
-from treewright.evaluation.tags import TagScores, evaluate_tags, preterminal_labels
+from treewright.evaluation.tags import (TagScores, evaluate_tags, preterminal_labels,
+                                        words_over_tags)
 
 __all__ = [
     "Bracketing", "left_branching", "right_branching", "random_binary", "binary_upper_bound",
     "spans_to_tree", "left_branching_tree", "right_branching_tree",
     "BracketConventions", "BracketEvaluation", "BracketScores", "LabelRecall", "LengthBucket",
     "evaluate_brackets", "DEFAULT_PUNCTUATION_TAGS", "DEFAULT_PUNCTUATION_TOKENS",
-    "TagScores", "evaluate_tags", "preterminal_labels",
+    "TagScores", "evaluate_tags", "preterminal_labels", "words_over_tags",
     "LikelihoodScores", "heldout_likelihood",
 ]

@@ -12,7 +12,7 @@ from typing import Hashable, Sequence
 import numpy as np
 
 from treewright.errors import InputError
-from treewright.trees import Tree
+from treewright.trees import Tree, escape_token
 
 
 @dataclass(frozen=True)
@@ -44,6 +44,24 @@ def preterminal_labels(tree: Tree) -> list[str]:
     if len(labels) != len(tree.leaves()):
         raise ValueError("not every word of the tree sits under a preterminal")
     return labels
+
+
+def words_over_tags(pred: Sequence[Tree], words: Sequence[Sequence[str]],
+                    tags: Sequence[Sequence[str] | None]) -> tuple[list[Tree], int]:
+    """Predicted trees with the gold words put back where a grammar trained on tags parsed the
+    tags themselves: a tree whose leaves are exactly the gold sentence's tags gets the gold
+    words as leaves (its brackets and labels unchanged). Other trees are returned as they are.
+    Returns the trees and how many were over tags. `words`, `tags`: the gold sentences' (trees
+    beyond the last gold sentence are returned as they are). Tokens compare in their
+    bracketed-file form (`escape_token`), as the bracket evaluation compares words."""
+    out, over = list(pred), 0
+    for k, (tree, w, t) in enumerate(zip(pred, words, tags)):
+        leaves = [escape_token(x) for x in tree.leaves()]
+        if t is not None and leaves == [escape_token(x) for x in t] \
+                and leaves != [escape_token(x) for x in w]:
+            out[k] = tree.with_leaves(list(w))
+            over += 1
+    return out, over
 
 
 def evaluate_tags(induced: Sequence[Sequence[Hashable]], gold: Sequence[Sequence[Hashable]], *,

@@ -39,7 +39,8 @@ class SymbolMatch:
 
 @dataclass
 class Comparison:
-    heldout_a: dict                  # inference.corpus_summary under A
+    heldout_a: dict                  # inference.corpus_summary under A (log_likelihood None
+                                     # when nothing parsed)
     heldout_b: dict
     sentences: int
     both_parsed: int                 # sentences that both grammars parse (the rest: not compared)
@@ -76,18 +77,26 @@ class Comparison:
 
     def format(self, name_a: str = "A", name_b: str = "B") -> str:
         def ll(summary: dict) -> str:
+            if not summary["parsed"]:
+                # A sum over no sentences is 0 and its perplexity nan; neither is a score.
+                return (f"no sentence parsed ({summary['sentences']} of "
+                        f"{summary['sentences']} without a parse): no log-likelihood or "
+                        f"perplexity")
             return (f"log-likelihood {summary['log_likelihood']!r}, per word "
                     f"{-summary['cross_entropy_nats']!r}, perplexity "
                     f"{summary['perplexity']:.6g}, {summary['unparsed']} of "
                     f"{summary['sentences']} without a parse")
         lines = [f"held-out {name_a}: {ll(self.heldout_a)}",
                  f"held-out {name_b}: {ll(self.heldout_b)}",
+                 "brackets: no sentence parsed by both grammars, nothing compared"
+                 if not self.both_parsed else
                  f"brackets: {self.brackets_shared} shared of {self.brackets_a} ({name_a}) and "
                  f"{self.brackets_b} ({name_b}); agreement F1 {self.bracket_f1:.4f}; identical "
                  f"bracketing in {self.same_bracketing} of {self.both_parsed} sentences parsed "
                  f"by both ({self.sentences - self.both_parsed} not compared)",
                  f"symbol matching: labels agree on {self.matched_fraction:.4f} of "
-                 f"{self.labelled_spans} spans"]
+                 f"{self.labelled_spans} spans" if self.labelled_spans else
+                 "symbol matching: no spans to compare"]
         for m in self.matching:
             lines.append(f"  {m.a} = {m.b}  overlap {m.overlap} (of {m.a_spans} / {m.b_spans})")
         if self.unmatched_a:
@@ -140,6 +149,15 @@ def match_symbols(counts: np.ndarray, symbols_a: list[str], symbols_b: list[str]
             [s for s in symbols_b if s not in used_b])
 
 
+def _heldout(scores) -> dict:
+    """`corpus_summary`, with the log-likelihood None when no sentence parsed (its sum over no
+    sentences would read as a perfect 0)."""
+    summary = corpus_summary(scores)
+    if not summary["parsed"]:
+        summary["log_likelihood"] = None
+    return summary
+
+
 def compare(grammar_a: Grammar, grammar_b: Grammar, sentences: Sequence[Sequence[str]],
             sentences_b: Sequence[Sequence[str]] | None = None) -> Comparison:
     """Compare two grammars on tokenised `sentences` (see the module docstring).
@@ -153,8 +171,8 @@ def compare(grammar_a: Grammar, grammar_b: Grammar, sentences: Sequence[Sequence
     if len(sentences_b) != len(sentences) or any(
             len(x) != len(y) for x, y in zip(sentences, sentences_b)):
         raise ValueError("sentences_b must have the tokens of `sentences`, one for one")
-    heldout_a = corpus_summary(score(grammar_a, sentences, dtype=torch.float64))
-    heldout_b = corpus_summary(score(grammar_b, sentences_b, dtype=torch.float64))
+    heldout_a = _heldout(score(grammar_a, sentences, dtype=torch.float64))
+    heldout_b = _heldout(score(grammar_b, sentences_b, dtype=torch.float64))
     trees_a = [t for t, _ in viterbi_parse(grammar_a, sentences)]
     trees_b = [t for t, _ in viterbi_parse(grammar_b, sentences_b)]
     result = Comparison(heldout_a, heldout_b, len(sentences), 0, 0, 0, 0, 0)

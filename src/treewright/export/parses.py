@@ -1,22 +1,44 @@
-"""Parsed corpora: bracketed trees, and CoNLL-U columns with the induced preterminals.
+"""Parsed corpora: bracketed trees, and CoNLL-U columns with the induced preterminals and heads.
 
 Trees are Viterbi trees (`inference.viterbi_parse`). A sentence without a parse is never
 dropped: the bracketed output writes `(NOPARSE w1 w2 ...)` on its line, and the CoNLL-U output
-keeps its tokens with `_` in the tag column and a `# parse = none` comment.
+keeps its tokens with `_` in the tag, HEAD and DEPREL columns and a `# parse = none` comment
+(a CoNLL-U reader then reports that sentence's words as having no head).
 
 CoNLL-U output: one block per sentence, the 10 columns ID FORM LEMMA UPOS XPOS FEATS HEAD
-DEPREL DEPS MISC. Only ID and FORM are filled, plus the tag column the user picks (XPOS by
-default, or UPOS) with the label of the tree node right above each word: the induced
-preterminal (for a grammar whose nonterminals emit words, that nonterminal). All other columns
-are `_`: no lemmas, features or dependencies are induced. Comments per sentence: `sent_id`
-(the input line number), `text` (the tokens joined by spaces) and `induced_tree` (the
-bracketed tree) or `parse = none`.
+DEPREL DEPS MISC. Filled are ID and FORM; the tag column the user picks (XPOS by default, or
+UPOS) with the label of the tree node right above each word: the induced preterminal (for a
+grammar whose nonterminals emit words, that nonterminal); HEAD, the dependency tree read off the
+induced tree by a head rule (`HeadRule`, `dependency_heads`); DEPREL, `root` for the word whose
+head is 0 and `dep` (the Universal Dependencies label for an unspecified relation) for every
+other word, since the grammar's symbols carry no relation names. LEMMA, FEATS, DEPS and MISC are
+`_`. Comments per sentence: `sent_id` (the input line number), `text` (the tokens joined by
+spaces), `induced_tree` (the bracketed tree) or `parse = none`, and `head_rule`.
+
+Heads from a constituency tree by head percolation (Collins 1999, "Head-Driven Statistical
+Models for Natural Language Parsing", PhD thesis, University of Pennsylvania): each phrase has
+one head child; its head word is the head word of that child; the head word of every other
+child depends on it; the head word of the whole tree depends on 0. Collins picks the head child
+from tables per treebank label; induced symbols have no such tables, so the rule here picks a
+side per symbol:
+
+- "auto" (default): for each nonterminal A, the side whose child symbol the grammar predicts
+  better, i.e. the lower entropy of p(B | A) (left children) against p(C | A) (right children)
+  over A's binary rules. A head is chosen by its parent while its dependents vary; the choice
+  follows the grammar, not a word order, and mirroring every rule of a grammar mirrors it.
+  Exact ties go to the left child.
+- "left" or "right": the same side for every phrase (head-initial or head-final throughout).
+
+Converting the heads back to brackets gives the spans of each word's maximal projection (the
+highest node it heads), which are constituents of the induced tree.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Callable, Mapping, Sequence
+
+import torch
 
 from treewright.grammar import Grammar
 from treewright.inference import viterbi_parse
@@ -24,6 +46,9 @@ from treewright.trees import Tree
 
 NOPARSE = "NOPARSE"
 TAG_COLUMNS = ("XPOS", "UPOS")
+HEAD_RULES = ("auto", "left", "right")
+ROOT_RELATION = "root"
+RELATION = "dep"
 _COLUMNS = ("ID", "FORM", "LEMMA", "UPOS", "XPOS", "FEATS", "HEAD", "DEPREL", "DEPS", "MISC")
 
 
@@ -76,8 +101,96 @@ def induced_tags(tree: Tree) -> list[str]:
     return tags
 
 
-def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS") -> str:
-    """The CoNLL-U text (see the module docstring). tag_column: "XPOS" (default) or "UPOS"."""
+@dataclass(frozen=True)
+class HeadRule:
+    """Which child of a phrase carries its head word: "left" (the first child) or "right" (the
+    last), `sides[label]` for a listed label, else `fallback`. `name` is what the CoNLL-U
+    comment `head_rule` records. A node with one child is headed by it whatever the side."""
+    name: str
+    fallback: str = "left"
+    sides: Mapping[str, str] = field(default_factory=dict)
+
+    def side(self, label: str) -> str:
+        return self.sides.get(label, self.fallback)
+
+
+def head_rule(choice: str = "auto", grammar: Grammar | None = None) -> HeadRule:
+    """The head rule named `choice` (see the module docstring); "auto" reads `grammar`."""
+    if choice not in HEAD_RULES:
+        raise ValueError(f"head rule must be one of {HEAD_RULES}, not {choice!r}")
+    if choice != "auto":
+        return HeadRule(choice, choice)
+    if grammar is None:
+        raise ValueError("the auto head rule reads the grammar's rules; give the grammar")
+    return HeadRule("auto", "left", auto_head_sides(grammar))
+
+
+def auto_head_sides(grammar: Grammar) -> dict[str, str]:
+    """Per nonterminal with binary rules, the side of lower child-symbol entropy (ties: left)."""
+    binary = grammar.binary.double()                                    # (NT, S, S) log-probs
+    joint = torch.softmax(binary.flatten(1), 1).view_as(binary)         # p(B, C | A, binary)
+    sides = {}
+    for a, name in enumerate(grammar.nonterminals):
+        if not torch.isfinite(binary[a]).any():
+            continue
+        left, right = joint[a].sum(1), joint[a].sum(0)                  # (S,) marginals
+        h_left, h_right = _entropy(left), _entropy(right)
+        sides[name] = "right" if h_right < h_left else "left"
+    return sides
+
+
+def _entropy(p: torch.Tensor) -> float:
+    p = p[p > 0]
+    return float(-(p * p.log()).sum())
+
+
+def dependency_heads(tree: Tree, rule: HeadRule) -> list[int]:
+    """CoNLL-U HEAD values of `tree`'s words (1-based word positions, 0 for the root), by head
+    percolation under `rule` (see the module docstring). Iterative: deep trees are fine."""
+    heads = [0] * len(tree)
+    # 1-based word positions, keyed by (id(node), child index), so that a node holding words
+    # beside phrases numbers them in order too.
+    position = {key: number for number, key in enumerate(_word_order(tree), start=1)}
+    head_word: dict[int, int] = {}   # id(node) -> 1-based position of its head word
+    stack: list[tuple[Tree, bool]] = [(tree, False)]
+    while stack:  # post-order: every child's head word is known before its parent's
+        node, done = stack.pop()
+        if not done:
+            stack.append((node, True))
+            stack.extend((c, False) for c in node.children if isinstance(c, Tree))
+            continue
+        below = [position[(id(node), k)] if isinstance(c, str) else head_word[id(c)]
+                 for k, c in enumerate(node.children)]
+        head = below[0] if rule.side(node.label) == "left" else below[-1]
+        for word in below:
+            if word != head:
+                heads[word - 1] = head
+        head_word[id(node)] = head
+    return heads
+
+
+def _word_order(tree: Tree) -> list[tuple[int, int]]:
+    """(id(node), child index) of every word, left to right."""
+    order: list[tuple[int, int]] = []
+    stack: list[tuple[Tree, int]] = [(tree, 0)]
+    while stack:
+        node, k = stack.pop()
+        if k == len(node.children):
+            continue
+        stack.append((node, k + 1))
+        child = node.children[k]
+        if isinstance(child, str):
+            order.append((id(node), k))
+        else:
+            stack.append((child, 0))
+    return order
+
+
+def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
+              rule: HeadRule) -> str:
+    """The CoNLL-U text (see the module docstring). tag_column: "XPOS" (default) or "UPOS".
+    rule: the head rule, from `head_rule` (the default choice, "auto", needs the grammar whose
+    symbols label the trees)."""
     if tag_column not in TAG_COLUMNS:
         raise ValueError(f"tag_column must be one of {TAG_COLUMNS}, not {tag_column!r}")
     where = _COLUMNS.index(tag_column)
@@ -87,12 +200,18 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS") -> str
         if p.tree is None:
             lines.append("# parse = none")
             tags = ["_"] * len(p.words)
+            heads: list[int | None] = [None] * len(p.words)
         else:
             lines.append(f"# induced_tree = {p.tree.to_string()}")
+            lines.append(f"# head_rule = {rule.name}")
             tags = induced_tags(p.tree)
-        for k, (word, tag) in enumerate(zip(p.words, tags), start=1):
+            heads = list(dependency_heads(p.tree, rule))
+        for k, (word, tag, head) in enumerate(zip(p.words, tags, heads), start=1):
             row = [str(k), word] + ["_"] * 8
             row[where] = tag
+            if head is not None:
+                row[6] = str(head)
+                row[7] = ROOT_RELATION if head == 0 else RELATION
             lines.append("\t".join(row))
         blocks.append("\n".join(lines) + "\n")
     # CoNLL-U ends every sentence with a blank line, the last one included.

@@ -17,14 +17,10 @@ import yaml
 
 from treewright.errors import InputError
 from treewright.grammar import Grammar, load_grammar
+from treewright.runfolder import GRAMMAR, RunFolder
 
-RUN_GRAMMAR = "grammar.pcfg"
-RUN_CONFIG = "config.yaml"
-# A run folder's data summary: `data_summary.json` when the trainer writes one; otherwise the
-# corpus lines of `train.log` ("training corpus: ...", "dev corpus: ...") are the summary.
-RUN_DATA_SUMMARY = "data_summary.json"
-RUN_LOG = "train.log"
-RUN_RESULT = "result.json"
+# Run folders written before training wrote data_summary.json: the corpus lines of train.log
+# stand in for it.
 _LOG_SUMMARY_PREFIXES = ("training corpus:", "dev corpus:", "partial brackets:")
 
 
@@ -35,7 +31,7 @@ class GrammarSource:
     grammar_path: the file the rules were read from.
     run_dir: the training run folder, or None for a bare grammar file.
     training: None for a bare grammar file; for a run folder a dict with "config" (config.yaml
-        as data, or None when absent), "data_summary" (see RUN_DATA_SUMMARY, or None) and
+        as data, or None when absent), "data_summary" (data_summary.json as data, or None) and
         "result" (result.json as data, or None). A JSON export carries its own record.
     """
     grammar: Grammar
@@ -48,9 +44,9 @@ def resolve_grammar_path(path: str | Path) -> tuple[Path, Path | None]:
     """(grammar file, run folder or None) for a grammar file or a run folder."""
     path = Path(path)
     if path.is_dir():
-        grammar_path = path / RUN_GRAMMAR
+        grammar_path = RunFolder(path).grammar
         if not grammar_path.is_file():
-            raise InputError(f"a run folder must hold {RUN_GRAMMAR} (the run has not finished, "
+            raise InputError(f"a run folder must hold {GRAMMAR} (the run has not finished, "
                              "or this is not a run folder)", path=str(path))
         return grammar_path, path
     if not path.exists():
@@ -85,8 +81,9 @@ def load(path: str | Path) -> Grammar:
 
 def read_training_record(run_dir: Path) -> dict:
     """The settings and data summary of a run folder (see `GrammarSource.training`)."""
+    folder = RunFolder(run_dir)
     config = None
-    config_path = run_dir / RUN_CONFIG
+    config_path = folder.config
     if config_path.is_file():
         try:
             config = yaml.safe_load(config_path.read_text(encoding="utf-8"))
@@ -95,16 +92,15 @@ def read_training_record(run_dir: Path) -> dict:
                              path=str(config_path)) from None
         config = _plain(config)
     summary: Any = None
-    summary_path = run_dir / RUN_DATA_SUMMARY
-    if summary_path.is_file():
-        summary = _read_json(summary_path)
-    elif (run_dir / RUN_LOG).is_file():
-        lines = (run_dir / RUN_LOG).read_text(encoding="utf-8", errors="replace").splitlines()
+    if folder.data_summary.is_file():
+        summary = _read_json(folder.data_summary)
+    elif folder.log.is_file():
+        lines = folder.log.read_text(encoding="utf-8", errors="replace").splitlines()
         # Log lines start with a timestamp "YYYY-MM-DD HH:MM:SS "; the text follows it.
         texts = [line.split(" ", 2)[2] if line.count(" ") >= 2 else line for line in lines]
         kept = [t for t in texts if t.startswith(_LOG_SUMMARY_PREFIXES)]
         summary = kept or None
-    result = _read_json(run_dir / RUN_RESULT) if (run_dir / RUN_RESULT).is_file() else None
+    result = _read_json(folder.result) if folder.result.is_file() else None
     return {"config": config, "data_summary": summary, "result": result}
 
 

@@ -1,10 +1,17 @@
 """Parameterizations: ways of turning learnable parameters into rule log-probabilities.
 
-Every parameterization is a `torch.nn.Module` with
+Every parameterization is a `base.RuleModel` (a `torch.nn.Module`) with
 - `rules() -> (root (NT,), binary (NT, S, S), lexical (T, V))`, normalized log-probabilities in
   the induction layout (nonterminals rewrite only to two children, preterminals only to words;
-  children are nonterminals first, then preterminals), and
+  children are nonterminals first, then preterminals),
+- `log_partition(ids, lengths, span_pot, generator)`: log Z of a batch with gradient (and the
+  KL term of a latent-variable model), and `scorer(rules)`: log Z and span posteriors for dev
+  scores, so that the training loop never asks which parameterization it holds,
+- `from_options(model_options, vocab_size, generator, dtype)`, and
 - `to_grammar(nonterminals, preterminals, vocab, start)`, the current rules as a `Grammar`.
+
+`PARAMETERIZATIONS` maps the config's `model.parameterization` names to the classes; a new
+parameterization is one module here and one line there.
 
 `tabular.TabularParams` holds one logit per rule (EM writes log-probabilities into it directly);
 `neural.NeuralParams` computes the rules from symbol embeddings (Kim, Dyer & Rush 2019);
@@ -14,11 +21,17 @@ returns `LowRankRules`, whose dense `binary` is formed only on request; `compoun
 `rules()` is the grammar at the prior's mean.
 """
 
+from treewright.params.base import RuleModel, Scorer, terminal_scores
 from treewright.params.tabular import (RuleTensors, TabularParams, symbol_names,
                                        tabular_from_grammar)
 from treewright.params.neural import NeuralParams
 from treewright.params.lowrank import LowRankParams, LowRankRules
 from treewright.params.compound import CompoundParams, CompoundRules
 
-__all__ = ["CompoundParams", "CompoundRules", "LowRankParams", "LowRankRules", "NeuralParams",
-           "RuleTensors", "TabularParams", "symbol_names", "tabular_from_grammar"]
+PARAMETERIZATIONS: dict[str, type[RuleModel]] = {
+    "tabular": TabularParams, "neural": NeuralParams, "lowrank": LowRankParams,
+    "compound": CompoundParams}
+
+__all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "LowRankParams",
+           "LowRankRules", "NeuralParams", "RuleModel", "RuleTensors", "Scorer", "TabularParams",
+           "symbol_names", "tabular_from_grammar", "terminal_scores"]

@@ -26,6 +26,7 @@ from typing import NamedTuple
 import torch
 from torch import Tensor, nn
 
+from treewright import engine
 from treewright.grammar import Grammar
 from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
@@ -77,6 +78,29 @@ class CompoundParams(EmbeddingParams):
         self.to(dtype)
         self._initialise(generator)
 
+    @classmethod
+    def from_options(cls, options, vocab_size: int, generator: torch.Generator | None,
+                     dtype: torch.dtype) -> "CompoundParams":
+        return cls(options.nonterminals, options.preterminals, vocab_size, options.latent_dim,
+                   options.embedding_dim, options.residual_blocks, generator, dtype)
+
+    @staticmethod
+    def memory_shape(options) -> dict:
+        """The inside-outside memory estimate's arguments (`engine.memory`): rules per sentence."""
+        return {"rules_per_sentence": True}
+
+    def log_partition(self, ids: Tensor, lengths: Tensor, span_pot: Tensor | None = None,
+                      generator: torch.Generator | None = None) -> tuple[Tensor, Tensor]:
+        """(B,) log p(x_b | z_b) at one reparameterized sample z_b ~ q(z | x_b) drawn from
+        `generator`, with gradient, and the (B,) KL(q(z | x_b) || N(0, I))."""
+        rules = self.sentence_rules(ids, lengths, generator)
+        return compound_log_partition(rules, ids, lengths, span_pot), rules.kl
+
+    def scorer(self, rules=None) -> "CompoundScorer":
+        """Dev scores with each sentence's grammar at the mean of q(z | x) (`rules` unused:
+        the grammar depends on the sentence)."""
+        return CompoundScorer(self)
+
     def encode(self, ids: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
         """Mean and log-variance (B, latent) of q(z | x) for word ids (B, N)."""
         hidden, _ = self.encoder(self.word_embeddings(ids))              # (B, N, 2d)
@@ -120,3 +144,42 @@ class CompoundParams(EmbeddingParams):
                    start: str = "ROOT") -> Grammar:
         with torch.no_grad():
             return rules_to_grammar(self.rules(), nonterminals, preterminals, vocab, start)
+
+
+def sentence_terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
+    """(B, N, T) from per-sentence lexical rules (B, T, V) and ids (B, N)."""
+    B, T, _ = lexical.shape
+    return torch.gather(lexical, 2, ids[:, None, :].expand(B, T, ids.shape[1])).transpose(1, 2)
+
+
+def compound_log_partition(rules: CompoundRules, ids: Tensor, lengths: Tensor,
+                           span_pot: Tensor | None = None) -> Tensor:
+    """(B,) log p(x_b | z_b), each sentence under its own rules, in one engine call."""
+    terminal = sentence_terminal_scores(rules.lexical, ids)              # (B, N, T)
+    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
+
+
+def compound_span_posteriors(rules: CompoundRules, ids: Tensor, lengths: Tensor
+                             ) -> tuple[Tensor, Tensor]:
+    """log p(x_b | z_b) (B,) and span marginals (B, N+1, N+1), each sentence under its own
+    rules, in one engine call."""
+    terminal = sentence_terminal_scores(rules.lexical, ids).detach()
+    post = engine.posteriors(rules.root.detach(), rules.binary.detach(), terminal, lengths)
+    return post.logz, post.spans
+
+
+class CompoundScorer:
+    """The `Scorer` of a compound model: each sentence's grammar at the mean of q(z | x); the
+    score is the ELBO with z at that mean (the KL term of the sample-free bound)."""
+
+    def __init__(self, model: CompoundParams):
+        self.model = model
+
+    def span_posteriors(self, ids: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
+        with torch.no_grad():
+            rules = self.model.sentence_rules(ids, lengths)
+        logz, spans = compound_span_posteriors(rules, ids, lengths)
+        return logz - rules.kl, spans
+
+    def log_likelihood(self, ids: Tensor, lengths: Tensor) -> Tensor:
+        return self.span_posteriors(ids, lengths)[0]

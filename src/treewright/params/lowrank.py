@@ -23,6 +23,7 @@ from typing import NamedTuple
 import torch
 from torch import Tensor, nn
 
+from treewright.engine.lowrank import lowrank_log_partition
 from treewright.grammar import Grammar
 from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
@@ -46,6 +47,12 @@ class LowRankRules(NamedTuple):
 
     def dense(self) -> RuleTensors:
         return RuleTensors(self.root, self.binary, self.lexical)
+
+    def log_partition(self, terminal: Tensor, lengths: Tensor,
+                      span_pot: Tensor | None = None) -> Tensor:
+        """(B,) log Z for terminal scores (B, N, T), through the low-rank engine kernel."""
+        return lowrank_log_partition(self.root, self.u, self.v, self.w, terminal, lengths,
+                                     span_pot=span_pot)
 
 
 def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
@@ -96,6 +103,17 @@ class LowRankParams(EmbeddingParams):
         self.lexical_net = mlp(dim, blocks, vocab_size)
         self.to(dtype)
         self._initialise(generator)
+
+    @classmethod
+    def from_options(cls, options, vocab_size: int, generator: torch.Generator | None,
+                     dtype: torch.dtype) -> "LowRankParams":
+        return cls(options.nonterminals, options.preterminals, vocab_size, options.rank,
+                   options.embedding_dim, options.residual_blocks, generator, dtype)
+
+    @staticmethod
+    def memory_shape(options) -> dict:
+        """The inside-outside memory estimate's arguments (`engine.memory`): factored rules."""
+        return {"rank": options.rank}
 
     def rules(self) -> LowRankRules:
         nt = self.nonterminals

@@ -14,6 +14,7 @@ import torch
 from torch import Tensor, nn
 
 from treewright.grammar import Grammar
+from treewright.params.base import RuleModel
 from treewright.params.tabular import RuleTensors, rules_to_grammar
 from treewright.vocab import Vocabulary
 
@@ -38,7 +39,7 @@ def mlp(dim: int, blocks: int, out: int, hidden: int | None = None) -> nn.Sequen
                          nn.Linear(hidden, out))
 
 
-class EmbeddingParams(nn.Module):
+class EmbeddingParams(RuleModel):
     """What the embedding-based parameterizations share: their sizes and their initialisation.
     Subclasses set `nonterminals`, `preterminals` and `vocab_size`."""
 
@@ -89,6 +90,12 @@ class NeuralParams(EmbeddingParams):
         self.lexical_net = mlp(dim, blocks, vocab_size)
         self.to(dtype)
         self._initialise(generator)
+
+    @classmethod
+    def from_options(cls, options, vocab_size: int, generator: torch.Generator | None,
+                     dtype: torch.dtype) -> "NeuralParams":
+        return cls(options.nonterminals, options.preterminals, vocab_size, options.embedding_dim,
+                   options.residual_blocks, generator, dtype)
 
     def rules(self) -> RuleTensors:
         nt = self.nonterminals

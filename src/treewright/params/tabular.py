@@ -12,8 +12,10 @@ from typing import NamedTuple
 import torch
 from torch import Tensor, nn
 
+from treewright import engine
 from treewright.errors import InputError
 from treewright.grammar import Grammar
+from treewright.params.base import RuleModel
 from treewright.vocab import Vocabulary
 
 
@@ -22,6 +24,14 @@ class RuleTensors(NamedTuple):
     root: Tensor      # (NT,)
     binary: Tensor    # (NT, S, S)
     lexical: Tensor   # (T, V)
+
+    def dense(self) -> "RuleTensors":
+        return self
+
+    def log_partition(self, terminal: Tensor, lengths: Tensor,
+                      span_pot: Tensor | None = None) -> Tensor:
+        """(B,) log Z for terminal scores (B, N, T), through the dense engine kernel."""
+        return engine.log_partition(self.root, self.binary, terminal, lengths, span_pot=span_pot)
 
 
 def symbol_names(nonterminals: int, preterminals: int) -> tuple[list[str], list[str]]:
@@ -45,7 +55,7 @@ def _log_softmax(x: Tensor, dim: int) -> Tensor:
     return out.masked_fill(dead, float("-inf"))
 
 
-class TabularParams(nn.Module):
+class TabularParams(RuleModel):
     """One logit per rule.
 
     nonterminals, preterminals, vocab_size: NT, T, V.
@@ -74,6 +84,12 @@ class TabularParams(nn.Module):
         """(NT, T, V)."""
         return (self.root_logits.shape[0], self.lexical_logits.shape[0],
                 self.lexical_logits.shape[1])
+
+    @classmethod
+    def from_options(cls, options, vocab_size: int, generator: torch.Generator | None,
+                     dtype: torch.dtype) -> "TabularParams":
+        return cls(options.nonterminals, options.preterminals, vocab_size, options.init_scale,
+                   generator, dtype)
 
     def rules(self) -> RuleTensors:
         return normalize_rules(self.root_logits, self.binary_logits, self.lexical_logits)

@@ -38,10 +38,11 @@ class RefineDataConfig:
     max_length: int | None = option(40, "Sentences longer than this are set aside (counted).",
                                     range="[1, inf)")
     rare_count: int = option(1, "treebank: training words seen at most this often stand for "
-                                "their signature class (unknown-word handling).",
+                                "their shape class, such as ⟪Capital·…ek⟫ (unknown-word "
+                                "handling; see refine/signatures.py).",
                              range="[0, inf)")
-    signature_min_count: int = option(3, "treebank: a signature needs this many rare tokens "
-                                         "to be a class; rarer shapes share <unk>.",
+    signature_min_count: int = option(3, "treebank: a shape class needs this many rare "
+                                         "tokens to be a class; rarer shapes share <unk>.",
                                       range="[1, inf)")
 
 
@@ -105,7 +106,7 @@ class RefineConfig:
 
 def load_refine_config(path: str | Path | None, overrides: Sequence[str] = ()) -> RefineConfig:
     """The checked config (ConfigError lists every problem at once)."""
-    cfg = load_config(RefineConfig, path, overrides)
+    cfg = load_config(RefineConfig, path, overrides, resolve_paths=True)
     source = None if path is None else str(path)
     problems = []
     if cfg.data.start == "text" and cfg.data.grammar is None:

@@ -1,8 +1,9 @@
 """A refinement run: data in, N split-merge cycles, metrics, grammars and summaries out.
 
-Run folder (like training's): config.yaml (resolved), refine.log, metrics.jsonl, tensorboard/,
-coarse.pcfg (the unrefined start), cycle-<c>.pcfg and summary-<c>.txt per cycle, and the result
-grammar.pcfg with summary.txt and summary.json beside it.
+Run folder (`runfolder.RunFolder` of kind "refine", shared with training): config.yaml
+(resolved), refine.log, metrics.jsonl, tensorboard/, coarse.pcfg (the unrefined start),
+cycle-<c>.pcfg and summary-<c>.txt per cycle, and the result grammar.pcfg with summary.txt and
+summary.json beside it. Each cycle shows its progress (EM iterations) on standard error.
 
 After each reported cycle, refine.ckpt holds the latent grammar bit for bit, the random
 generator's state and the metrics so far, so `refine_resume` continues an interrupted run to
@@ -13,6 +14,7 @@ checkpointed run as they would have.
 
 from __future__ import annotations
 
+import functools
 import json
 import time
 from dataclasses import dataclass, field
@@ -32,9 +34,10 @@ from treewright.refine.signatures import UNKNOWN, WordClasses
 from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
 from treewright.refine.summary import subcategory_summary, summary_text
 from treewright.refine.text import text_estep, text_loglik, viterbi_coarse_trees
-from treewright.refine.trees import TreeSet, tree_estep, tree_loglik, tree_set
-from treewright.safeio import atomic_write_text, check_writable, load_checkpoint, save_checkpoint
-from treewright.tracking import METRICS_FILE, open_loggers
+from treewright.refine.trees import TreeSet, cnf_problem, tree_estep, tree_loglik, tree_set
+from treewright.runfolder import RunFolder
+from treewright.safeio import atomic_write_text, load_checkpoint, save_checkpoint
+from treewright.tracking import Progress
 from treewright.trees import Tree
 
 
@@ -42,8 +45,12 @@ from treewright.trees import Tree
 
 def cnf_tree(tree: Tree, factor: str = "right", horizontal: int | None = 1,
              vertical: int = 1) -> Tree:
-    """Binarize (markovized) and collapse unary chains: the coarse tree form refinement uses."""
-    return collapse_unary(binarize(tree, factor, horizontal, vertical))
+    """Binarize (markovized) and collapse unary chains: the coarse tree form refinement uses.
+
+    A chain ending in a tag joins the tag too, so a phrase over one tag becomes one preterminal,
+    (NP (NAME x)) -> (NP¦NAME x) (`corpus.UNARY_SEP`): a grammar without unary rules has no
+    other place for it. `from_coarse_trees` splits every joined label back into its chain."""
+    return collapse_unary(binarize(tree, factor, horizontal, vertical), keep_preterminals=False)
 
 
 def map_words(tree: Tree, classes: Callable[[str], str]) -> Tree:
@@ -88,11 +95,14 @@ class CycleSettings:
 
 
 def em_on_trees(lg: LatentGrammar, ts: TreeSet, iterations: int,
-                smoothing: tuple[float, float] | None = None) -> tuple[LatentGrammar, list[float]]:
+                smoothing: tuple[float, float] | None = None,
+                progress: Progress | None = None) -> tuple[LatentGrammar, list[float]]:
     """EM over the subcategories of fixed trees; returns the grammar and the training
-    log-likelihood before each iteration's M-step."""
+    log-likelihood before each iteration's M-step (`progress` counts the iterations)."""
     history = []
     for _ in range(iterations):
+        if progress is not None:
+            progress.update()
         e = tree_estep(lg, ts)
         history.append(float(e.loglik.sum()))
         lg = normalize(lg, e.binary, e.lexical, e.root)
@@ -101,24 +111,26 @@ def em_on_trees(lg: LatentGrammar, ts: TreeSet, iterations: int,
     return lg, history
 
 
-def tree_cycle(lg: LatentGrammar, ts: TreeSet, s: CycleSettings, generator: torch.Generator
-               ) -> LatentGrammar:
+def tree_cycle(lg: LatentGrammar, ts: TreeSet, s: CycleSettings, generator: torch.Generator,
+               progress: Progress | None = None) -> LatentGrammar:
     """One split-merge cycle on observed trees (Petrov et al. 2006): split, EM, merge, then EM
-    with smoothing."""
+    with smoothing (`progress` counts the EM iterations)."""
     lg = split(lg, s.perturbation, generator)
-    lg, _ = em_on_trees(lg, ts, s.em_iterations)
+    lg, _ = em_on_trees(lg, ts, s.em_iterations, progress=progress)
     e = tree_estep(lg, ts)
     lg = merge(lg, merge_plan(lg, merge_losses(lg, ts, e), s.merge_fraction), e)
     lg = smooth(lg, s.smooth_nonterminal, s.smooth_preterminal)
     lg, _ = em_on_trees(lg, ts, s.smoothed_iterations,
-                        (s.smooth_nonterminal, s.smooth_preterminal))
+                        (s.smooth_nonterminal, s.smooth_preterminal), progress)
     return lg
 
 
 def em_on_text(lg: LatentGrammar, ids, iterations: int, batch_size: int,
-               smoothing: tuple[float, float] | None = None):
+               smoothing: tuple[float, float] | None = None, progress: Progress | None = None):
     history = []
     for _ in range(iterations):
+        if progress is not None:
+            progress.update()
         e = text_estep(lg, ids, batch_size)
         history.append(e.loglik)
         lg = normalize(lg, e.binary, e.lexical, e.root)
@@ -128,12 +140,12 @@ def em_on_text(lg: LatentGrammar, ids, iterations: int, batch_size: int,
 
 
 def text_cycle(lg: LatentGrammar, ids, words, s: CycleSettings, generator: torch.Generator,
-               batch_size: int = 32) -> LatentGrammar:
+               batch_size: int = 32, progress: Progress | None = None) -> LatentGrammar:
     """One cycle from raw text. The merge losses are estimated on each sentence's most probable
     coarse tree (the paper's per-node estimate needs nodes; these stand in for the unseen
     trees); the merged rules take the full inside-outside counts."""
     lg = split(lg, s.perturbation, generator)
-    lg, _ = em_on_text(lg, ids, s.em_iterations, batch_size)
+    lg, _ = em_on_text(lg, ids, s.em_iterations, batch_size, progress=progress)
     trees = viterbi_coarse_trees(lg, words)
     ts = tree_set(lg, trees)
     losses = merge_losses(lg, ts, tree_estep(lg, ts))
@@ -142,7 +154,7 @@ def text_cycle(lg: LatentGrammar, ids, words, s: CycleSettings, generator: torch
                counts=(counts.binary, counts.lexical, counts.root))
     lg = smooth(lg, s.smooth_nonterminal, s.smooth_preterminal)
     lg, _ = em_on_text(lg, ids, s.smoothed_iterations, batch_size,
-                       (s.smooth_nonterminal, s.smooth_preterminal))
+                       (s.smooth_nonterminal, s.smooth_preterminal), progress)
     return lg
 
 
@@ -193,24 +205,19 @@ class RefineResult:
     metrics: list[dict] = field(default_factory=list)
 
 
-REFINE_CHECKPOINT = "refine.ckpt"
 REFINE_CHECKPOINT_VERSION = 1
 _GRAMMAR_TENSORS = ("rules", "words", "tops", "binary", "lexical", "root", "splits")
 
 
 class _Log:
-    def __init__(self, run_dir: Path, stream: TextIO | None, resume: bool = False):
-        self.path = run_dir / "refine.log"
-        self.lines: list[str] = []
-        if resume and self.path.exists():
-            self.lines = self.path.read_text(encoding="utf-8").splitlines()
+    """refine.log, echoed to `stream`."""
+
+    def __init__(self, folder: RunFolder, stream: TextIO | None):
+        self.folder = folder
         self.stream = stream
 
     def note(self, text: str) -> None:
-        self.lines.append(text)
-        atomic_write_text(self.path, "\n".join(self.lines) + "\n")
-        if self.stream is not None:
-            print(text, file=self.stream)
+        self.folder.note(text, self.stream)
 
 
 def _read(path: Path, fmt: str, max_length: int | None) -> tuple[list, str]:
@@ -233,75 +240,72 @@ def _subcategory_counts(lg: LatentGrammar) -> dict[str, int]:
     return {f"subcategories/{s}": int(n) for s, n in zip(lg.symbols, lg.splits.tolist())}
 
 
+# A held-out parser: (latent grammar, held-out sentences) -> their coarse trees (None: no
+# parse). The treebank start scores them by labeled F1 after each cycle (output.parse_f1).
+HeldoutParser = Callable[[LatentGrammar, Sequence[Sequence[str]]], list]
+
+
 def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,
-           config_source: str | None = None) -> RefineResult:
-    """Run the refinement `cfg` describes into `run_dir` (created if needed)."""
-    run_dir = Path(run_dir)
-    run_dir.mkdir(parents=True, exist_ok=True)
-    check_writable(run_dir)
-    if (run_dir / REFINE_CHECKPOINT).exists():
-        raise InputError("the run folder already holds a refinement checkpoint; continue it "
-                         "with --resume or choose another output.run_dir", path=str(run_dir))
+           config_source: str | None = None,
+           heldout_parser: HeldoutParser | None = None) -> RefineResult:
+    """Run the refinement `cfg` describes into `run_dir` (created if needed). `heldout_parser`:
+    the caller's held-out parser for labeled F1 (default: `parse_heldout` with
+    `output.f1_decoder`)."""
+    folder = RunFolder(run_dir, "refine")
     header = f"resolved config of treewright refine {config_source or ''}".rstrip()
-    atomic_write_text(run_dir / "config.yaml", dump_config_yaml(cfg, header))
-    return _refine(cfg, run_dir, stream, None)
+    folder.start(resume=False, config_text=dump_config_yaml(cfg, header))
+    return _refine(cfg, folder, stream, None, heldout_parser)
 
 
-def refine_resume(run_dir: str | Path, stream: TextIO | None = None) -> RefineResult:
+def refine_resume(run_dir: str | Path, stream: TextIO | None = None,
+                  heldout_parser: HeldoutParser | None = None) -> RefineResult:
     """Continue the interrupted refinement in `run_dir` from its last checkpointed cycle, with
     the config saved there; it ends with the grammar the uninterrupted run gives."""
-    run_dir = Path(run_dir)
-    ckpt = run_dir / REFINE_CHECKPOINT
-    if not ckpt.exists():
-        raise InputError("no refinement checkpoint here (a run writes one after each cycle)",
-                         path=str(run_dir))
-    check_writable(run_dir)
-    tensors, meta = load_checkpoint(ckpt)
+    folder = RunFolder(run_dir, "refine")
+    folder.start(resume=True)
+    tensors, meta = load_checkpoint(folder.checkpoint)
     if meta.get("version") != REFINE_CHECKPOINT_VERSION:
         raise InputError(f"refinement checkpoint version {meta.get('version')} is not "
-                         f"{REFINE_CHECKPOINT_VERSION}", path=str(ckpt))
-    cfg = load_refine_config(run_dir / "config.yaml")
+                         f"{REFINE_CHECKPOINT_VERSION}", path=str(folder.checkpoint))
+    cfg = load_refine_config(folder.config)
     # Metrics logged after the checkpoint belong to a cycle that will run again.
-    metrics = run_dir / METRICS_FILE
-    if metrics.exists():
-        with open(metrics, "r+b") as f:
-            f.truncate(meta["metrics_bytes"])
-    return _refine(cfg, run_dir, stream, (tensors, meta))
+    folder.truncate_metrics(meta["metrics_bytes"])
+    return _refine(cfg, folder, stream, (tensors, meta), heldout_parser)
 
 
-def _refine(cfg: RefineConfig, run_dir: Path, stream: TextIO | None, state) -> RefineResult:
-    log = _Log(run_dir, stream, resume=state is not None)
+def _refine(cfg: RefineConfig, folder: RunFolder, stream: TextIO | None, state,
+            heldout_parser: HeldoutParser | None = None) -> RefineResult:
+    log = _Log(folder, stream)
     if state is not None:
         log.note(f"resuming after cycle {state[1]['cycle']} of {cfg.refine.cycles}")
-    backends = (["stdout"] if cfg.output.stdout_metrics else []) + ["jsonl"] + \
-        (["tensorboard"] if cfg.output.tensorboard else [])
-    loggers = open_loggers(run_dir, backends, stream)
+    loggers = folder.open_loggers(cfg.output.stdout_metrics, cfg.output.tensorboard, stream)
     try:
         if cfg.data.start == "treebank":
-            return _refine_treebank(cfg, run_dir, log, loggers, state)
-        return _refine_text(cfg, run_dir, log, loggers, state)
+            if heldout_parser is None:
+                heldout_parser = functools.partial(parse_heldout,
+                                                   decoder=cfg.output.f1_decoder)
+            return _refine_treebank(cfg, folder, log, loggers, state, heldout_parser)
+        return _refine_text(cfg, folder, log, loggers, state)
     finally:
         loggers.close()
 
 
-def _checkpoint(run_dir: Path, lg: LatentGrammar, generator: torch.Generator, cycle: int,
+def _checkpoint(folder: RunFolder, lg: LatentGrammar, generator: torch.Generator, cycle: int,
                 result: RefineResult) -> None:
     """refine.ckpt: what `_run_cycles` needs to go on after `cycle` (see the module docstring)."""
     tensors = {name: getattr(lg, name) for name in _GRAMMAR_TENSORS}
     tensors["generator"] = generator.get_state()
-    metrics = run_dir / METRICS_FILE
-    save_checkpoint(run_dir / REFINE_CHECKPOINT, tensors, {
+    save_checkpoint(folder.checkpoint, tensors, {
         "version": REFINE_CHECKPOINT_VERSION, "cycle": cycle, "symbols": lg.symbols,
-        "metrics": result.metrics,
-        "metrics_bytes": metrics.stat().st_size if metrics.exists() else 0})
+        "metrics": result.metrics, "metrics_bytes": folder.metrics_size()})
 
 
-def _restore(lg: LatentGrammar, generator: torch.Generator, state, run_dir: Path,
+def _restore(lg: LatentGrammar, generator: torch.Generator, state, folder: RunFolder,
              result: RefineResult) -> tuple[LatentGrammar, int]:
     """The checkpoint's latent grammar on the structure `lg` rebuilt from the data, and the
     first cycle still to run; the generator and the metrics so far are set back too."""
     tensors, meta = state
-    where = str(run_dir / REFINE_CHECKPOINT)
+    where = str(folder.checkpoint)
     same = meta["symbols"] == lg.symbols and all(
         torch.equal(tensors[name], getattr(lg, name)) for name in ("rules", "words", "tops"))
     if not same:
@@ -315,28 +319,32 @@ def _restore(lg: LatentGrammar, generator: torch.Generator, state, run_dir: Path
     return restored, int(meta["cycle"]) + 1
 
 
-def _run_cycles(cfg: RefineConfig, lg: LatentGrammar, cycle_step, report_cycle, run_dir: Path,
-                log: _Log, result: RefineResult, generator: torch.Generator, state
-                ) -> RefineResult:
+def _run_cycles(cfg: RefineConfig, lg: LatentGrammar, cycle_step, report_cycle,
+                folder: RunFolder, log: _Log, result: RefineResult, generator: torch.Generator,
+                state) -> RefineResult:
     """Report the unrefined grammar, then run and report each split-merge cycle, with a
     checkpoint after each report; both starting points share this, and differ only in
-    `cycle_step` (one cycle on trees or on text). With `state` (a loaded checkpoint) it goes on
-    after the checkpoint's cycle instead."""
+    `cycle_step` (one cycle on trees or on text, counting its EM iterations on the progress
+    line it is given). With `state` (a loaded checkpoint) it goes on after the checkpoint's
+    cycle instead."""
     if state is None:
         report_cycle(0, lg, 0.0)
-        _checkpoint(run_dir, lg, generator, 0, result)
+        _checkpoint(folder, lg, generator, 0, result)
         first = 1
     else:
-        lg, first = _restore(lg, generator, state, run_dir, result)
+        lg, first = _restore(lg, generator, state, folder, result)
+    iterations = cfg.refine.em_iterations + cfg.refine.smoothed_iterations
     for cycle in range(first, cfg.refine.cycles + 1):
         began = time.perf_counter()
-        lg = cycle_step(lg)
+        with Progress(iterations, f"cycle {cycle} of {cfg.refine.cycles}",
+                      unit="EM iterations") as progress:
+            lg = cycle_step(lg, progress)
         seconds = time.perf_counter() - began
-        _save(lg, run_dir, f"cycle-{cycle}.pcfg")
+        _save(lg, folder.cycle_grammar(cycle))
         report_cycle(cycle, lg, seconds)
-        _checkpoint(run_dir, lg, generator, cycle, result)
+        _checkpoint(folder, lg, generator, cycle, result)
     result.grammar = lg
-    _save(lg, run_dir, "grammar.pcfg")
+    _save(lg, folder.grammar)
     log.note(f"refined grammar: {result.grammar_path}")
     return result
 
@@ -347,21 +355,20 @@ def _settings(cfg: RefineConfig) -> CycleSettings:
                          r.perturbation, r.smooth_nonterminal, r.smooth_preterminal)
 
 
-def _save(lg: LatentGrammar, run_dir: Path, name: str) -> Path:
-    path = run_dir / name
+def _save(lg: LatentGrammar, path: Path) -> Path:
     lg.to_grammar(torch.float64).save(path)
     return path
 
 
-def _write_summary(lg, usage, run_dir: Path, stem: str, top: int) -> None:
+def _write_summary(lg, usage, folder: RunFolder, stem: str, top: int) -> None:
     summary = subcategory_summary(lg, usage, top)
-    atomic_write_text(run_dir / f"{stem}.txt", summary_text(summary))
-    atomic_write_text(run_dir / f"{stem}.json", json.dumps(summary, indent=1, ensure_ascii=False)
-                      + "\n")
+    atomic_write_text(folder.summary(stem, ".txt"), summary_text(summary))
+    atomic_write_text(folder.summary(stem, ".json"),
+                      json.dumps(summary, indent=1, ensure_ascii=False) + "\n")
 
 
-def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
-                     ) -> RefineResult:
+def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state,
+                     heldout_parser: HeldoutParser) -> RefineResult:
     d, form = cfg.data, cfg.tree_form
     sentences, report = _read(d.train, d.format, d.max_length)
     log.note(f"training corpus: {report}")
@@ -375,6 +382,9 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
         trees, one_word = [], 0
         for s in part:
             t = cnf_tree(s.tree, form.factor, form.horizontal, form.vertical)
+            problem = cnf_problem(t)
+            if problem is not None:
+                raise InputError(problem, path=s.source, line=s.line)
             if t.is_preterminal():
                 one_word += 1  # a one-word tree has no phrase for the root to rewrite to
             else:
@@ -391,7 +401,7 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
     lg = estimate_coarse(train_mapped)
     log.note(f"coarse grammar: {len(lg.symbols)} symbols, {len(lg.rules)} binary and "
              f"{len(lg.words)} word rules; {len(classes.known)} known words, "
-             f"{len(classes.signatures)} signature classes")
+             f"{len(classes.signatures)} shape classes")
     ts_train = tree_set(lg, train_mapped)
     ts_dev = tree_set(lg, dev_mapped)
     if ts_dev.dropped:
@@ -403,8 +413,8 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
     f1_gold = [from_coarse_trees(t) for t in dev_mapped[:f1_count]]
     settings = _settings(cfg)
     generator = torch.Generator().manual_seed(cfg.refine.seed)
-    result = RefineResult(lg, run_dir / "grammar.pcfg")
-    _save(lg, run_dir, "coarse.pcfg")
+    result = RefineResult(lg, folder.grammar)
+    _save(lg, folder.coarse)
 
     def report_cycle(cycle: int, lg: LatentGrammar, seconds: float) -> None:
         e = tree_estep(lg, ts_train)
@@ -418,7 +428,7 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
                          "heldout/trees_left_out": len(ts_dev.dropped),
                          "seconds": seconds}
         if cfg.output.parse_f1 and f1_words:
-            scores = labeled_f1(parse_heldout(lg, f1_words, cfg.output.f1_decoder), f1_gold)
+            scores = labeled_f1(heldout_parser(lg, f1_words), f1_gold)
             metrics.update({f"heldout/labeled_{k}": v for k, v in scores.items()})
         metrics.update(_subcategory_counts(lg))
         loggers.log(metrics, cycle)
@@ -426,13 +436,14 @@ def _refine_treebank(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
         usage = torch.zeros(len(lg.symbols), lg.width, dtype=e.inside.dtype)
         usage.index_add_(0, ts_train.symbol, e.inside * e.outside)
         stem = "summary" if cycle == cfg.refine.cycles else f"summary-{cycle}"
-        _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
+        _write_summary(lg, usage, folder, stem, cfg.output.summary_top)
 
-    return _run_cycles(cfg, lg, lambda g: tree_cycle(g, ts_train, settings, generator),
-                       report_cycle, run_dir, log, result, generator, state)
+    return _run_cycles(cfg, lg, lambda g, progress: tree_cycle(g, ts_train, settings,
+                                                               generator, progress),
+                       report_cycle, folder, log, result, generator, state)
 
 
-def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
+def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
                  ) -> RefineResult:
     d = cfg.data
     assert d.grammar is not None
@@ -457,8 +468,8 @@ def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
     n_train_words = sum(map(len, train_ids))
     settings = _settings(cfg)
     generator = torch.Generator().manual_seed(cfg.refine.seed)
-    result = RefineResult(lg, run_dir / "grammar.pcfg")
-    _save(lg, run_dir, "coarse.pcfg")
+    result = RefineResult(lg, folder.grammar)
+    _save(lg, folder.coarse)
 
     def report_cycle(cycle: int, lg: LatentGrammar, seconds: float) -> None:
         e = text_estep(lg, train_ids, cfg.refine.batch_size)
@@ -475,8 +486,9 @@ def _refine_text(cfg: RefineConfig, run_dir: Path, log: _Log, loggers, state
         result.metrics.append(metrics)
         usage = lg.lhs_totals(e.binary, e.lexical)
         stem = "summary" if cycle == cfg.refine.cycles else f"summary-{cycle}"
-        _write_summary(lg, usage, run_dir, stem, cfg.output.summary_top)
+        _write_summary(lg, usage, folder, stem, cfg.output.summary_top)
 
-    return _run_cycles(cfg, lg, lambda g: text_cycle(g, train_ids, train_words, settings,
-                                                     generator, cfg.refine.batch_size),
-                       report_cycle, run_dir, log, result, generator, state)
+    return _run_cycles(cfg, lg, lambda g, progress: text_cycle(
+                           g, train_ids, train_words, settings, generator,
+                           cfg.refine.batch_size, progress),
+                       report_cycle, folder, log, result, generator, state)

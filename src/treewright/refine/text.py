@@ -14,6 +14,7 @@ from treewright import engine
 from treewright.grammar import Grammar
 from treewright.corpus.batching import length_batches
 from treewright.refine.latent import LatentGrammar, coarse_name
+from treewright.train.estep import add_counts, expected_counts, zero_counts
 from treewright.trees import Tree
 
 NEG_INF = float("-inf")
@@ -30,7 +31,9 @@ class TextEStep:
     unparsed: int
 
 
-def _batch_inputs(fine: Grammar, ids: Sequence[Sequence[int]]):
+def _batch_ids(ids: Sequence[Sequence[int]]) -> tuple[Tensor, Tensor, Tensor]:
+    """Word ids (B, N) (padding and words with no entry: 0), which have no entry (B, N), and
+    the lengths (B,)."""
     B, N = len(ids), max(len(s) for s in ids)
     table = torch.zeros(B, N, dtype=torch.long)
     missing = torch.zeros(B, N, dtype=torch.bool)
@@ -38,36 +41,29 @@ def _batch_inputs(fine: Grammar, ids: Sequence[Sequence[int]]):
         for k, w in enumerate(row):
             table[b, k] = max(w, 0)
             missing[b, k] = w < 0
+    return table, missing, torch.tensor([len(s) for s in ids])
+
+
+def _batch_inputs(fine: Grammar, ids: Sequence[Sequence[int]]):
+    table, missing, lengths = _batch_ids(ids)
     scores = fine.lexical[:, table].permute(1, 2, 0)                        # (B, N, Sf)
     scores = scores.masked_fill(missing[..., None], NEG_INF)
-    return table, scores, torch.tensor([len(s) for s in ids])
+    return table, scores, lengths
 
 
 def text_estep(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int = 32
                ) -> TextEStep:
-    """One E-step over sentences given as vocabulary ids (-1: a word with no entry)."""
+    """One E-step over sentences given as vocabulary ids (-1: a word with no entry), through
+    training's E-step (`train.estep.expected_counts`) on the dense fine grammar."""
     fine = lg.to_grammar(torch.float64)
-    nt_f = len(fine.nonterminals)
-    emits = fine.nonterminals_emit
-    binary = torch.zeros_like(fine.binary)
-    lexical = torch.zeros_like(fine.lexical)
-    root = torch.zeros_like(fine.root)
-    total, unparsed = 0.0, 0
+    total = zero_counts(fine)
     for batch in length_batches([len(s) for s in ids], batch_size):
-        table, scores, lengths = _batch_inputs(fine, [ids[i] for i in batch])
-        post = engine.posteriors(fine.root, fine.binary, scores[..., nt_f:].contiguous(),
-                                 lengths, scores[..., :nt_f].contiguous() if emits else None)
-        ok = torch.isfinite(post.logz)
-        total += float(post.logz[ok].sum())
-        unparsed += int((~ok).sum())
-        binary += post.binary
-        root += post.root.sum(0)
-        per_word = post.terminal if not emits else torch.cat([post.nt_terminal, post.terminal], -1)
-        if not emits:
-            per_word = torch.cat([per_word.new_zeros(*per_word.shape[:2], nt_f), per_word], -1)
-        lexical.T.index_add_(0, table.flatten(), per_word.flatten(0, 1))
-    b, l, r = lg.dense_counts(binary, lexical, root)
-    return TextEStep(total, b, l, r, unparsed)
+        table, missing, lengths = _batch_ids([ids[i] for i in batch])
+        total = add_counts(total, expected_counts(
+            fine.root, fine.binary, fine.lexical, table, lengths, missing=missing,
+            nonterminals_emit=fine.nonterminals_emit))
+    b, l, r = lg.dense_counts(total.binary, total.lexical, total.root)
+    return TextEStep(total.loglik, b, l, r, total.unparsed)
 
 
 def text_loglik(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int = 32

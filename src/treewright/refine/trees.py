@@ -55,6 +55,25 @@ class TreeSet:
         return len(self.kept)
 
 
+def cnf_problem(tree: Tree, start: str = "ROOT") -> str | None:
+    """None if every node of `tree` is a preterminal (one word below) or binary over two
+    phrases, the form `tree_set` and the coarse estimate take, and no label is the name of the
+    coarse grammar's start symbol `start`; else what the first other node is. `cnf_tree` (in
+    `refine.run`) gives that form to any tree whose nodes hold either words alone or phrases
+    alone; a node that mixes words and phrases is what remains."""
+    for node in tree.subtrees():
+        if node.label == start:
+            return (f"the label {start} is the name of the refined grammar's start symbol; "
+                    "rename it in the treebank")
+        if node.is_preterminal():
+            continue
+        if len(node.children) != 2 or not all(isinstance(c, Tree) for c in node.children):
+            kinds = [repr(c) if isinstance(c, str) else c.label for c in node.children]
+            return (f"node {node.label} has the children {' '.join(kinds)}; refinement needs "
+                    "each word under a tag of its own")
+    return None
+
+
 def tree_set(lg: LatentGrammar, trees: Sequence[Tree]) -> TreeSet:
     """Lay out `trees` (binary CNF trees over the coarse symbols, words already mapped into the
     vocabulary) as node arrays. A Python walk over the nodes happens here once; the passes

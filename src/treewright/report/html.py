@@ -14,31 +14,104 @@ import json
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Sequence
+from typing import Callable, Sequence
 
 import torch
 import yaml
 
-from treewright.corpus import ReadOptions, Sentence, read_corpus, run_case_rules
+from treewright.budget import DEFAULT_BUDGET_MB, longest_within
+from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
+                               expand_unary, read_corpus, run_case_rules, unbinarize)
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
+from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
 from treewright.trees import Tree, tree_from_spans
 
-CONFIG, METRICS, GRAMMAR = "config.yaml", "metrics.jsonl", "grammar.pcfg"
+# Readable names of the metrics drawn (the keys that train/ and refine/ write to metrics.jsonl).
+# A key missing here is still named in words by `metric_name`, never shown raw.
+METRIC_NAMES = {
+    "train/loglik_per_word": "training sentences",
+    "train/elbo_per_word": "training sentences (ELBO)",
+    "train/perplexity": "training sentences",
+    "dev/loglik_per_word": "dev sentences",
+    "dev/perplexity": "dev sentences",
+    "heldout/loglik_per_word": "held-out sentences",
+    "dev/sentence_f1": "sentence F1 (mean over sentences)",
+    "dev/corpus_f1": "corpus F1 (brackets pooled)",
+    "heldout/labeled_f1": "labelled F1",
+    "heldout/labeled_precision": "labelled precision",
+    "heldout/labeled_recall": "labelled recall",
+    "fine_symbols": "symbols (subcategories)",
+    "baseline/unigram_dev_loglik_per_word": "unigram model on dev",
+    "baseline/dev_left_branching_sentence_f1": "left-branching, sentence F1",
+    "baseline/dev_right_branching_sentence_f1": "right-branching, sentence F1",
+    "baseline/dev_random_binary_sentence_f1": "random binary trees, sentence F1",
+}
+_WORDS = {"train": "training", "dev": "dev", "heldout": "held-out", "baseline": "baseline",
+          "loglik": "log-likelihood", "f1": "F1", "elbo": "ELBO", "per": "per"}
 
-# Metric groups drawn as curves: (figure title, y label, test on the metric name).
-CURVES = (
-    ("Log-likelihood per word", "nats per word",
-     lambda k: k.endswith("loglik_per_word") or k.endswith("elbo_per_word")),
-    ("Perplexity", "perplexity", lambda k: k.endswith("perplexity")),
-    ("Dev bracket F1", "F1", lambda k: k.startswith("dev/") and k.endswith("_f1")),
+
+def metric_name(key: str) -> str:
+    """The words a chart legend shows for a metrics.jsonl key."""
+    if key in METRIC_NAMES:
+        return METRIC_NAMES[key]
+    words = key.replace("/", " ").replace("_", " ").split()
+    return " ".join(_WORDS.get(w, w) for w in words)
+
+
+def _before_training(key: str) -> str:
+    """`init/dev_X` (the dev score of the starting grammar, logged at step 0) -> `dev/X`, so that
+    it starts the dev curve instead of standing apart."""
+    rest = key[len("init/"):]
+    return "dev/" + rest[len("dev_"):] if rest.startswith("dev_") else key
+
+
+@dataclass(frozen=True)
+class Curve:
+    """One chart of the curves section: which keys are series and which are baselines."""
+    title: str
+    y_label: str
+    series: Callable[[str], bool]
+    baseline: Callable[[str], bool] = lambda key: False
+    transform: Callable[[float], float] = lambda value: value   # baseline value -> chart value
+    missing: str = ""      # why a run may lack this chart (shown instead of it)
+    from_zero: bool = False  # the y axis starts at 0 (proportions)
+    log: bool = False        # a logarithmic y axis (values that fall by orders of magnitude)
+
+
+def _perplexity_of(loglik_per_word: float) -> float:
+    """Perplexity is exp(-log-likelihood per word), as the trainer logs it (common practice)."""
+    return math.exp(-loglik_per_word)
+
+
+TRAIN_CURVES = (
+    Curve("Log-likelihood per word", "nats per word",
+          lambda k: k.endswith(("/loglik_per_word", "/elbo_per_word")),
+          lambda k: k.endswith("loglik_per_word")),
+    Curve("Perplexity", "perplexity", lambda k: k.endswith("/perplexity"),
+          lambda k: k.endswith("loglik_per_word"), _perplexity_of, log=True),
+    Curve("Dev bracket F1", "F1", lambda k: k.startswith("dev/") and k.endswith("_f1"),
+          lambda k: k.endswith("_f1"),
+          missing="the run has no dev trees (data.dev with bracketed trees or CoNLL-U)",
+          from_zero=True),
+)
+REFINE_CURVES = (
+    Curve("Log-likelihood per word", "nats per word", lambda k: k.endswith("/loglik_per_word")),
+    Curve("Held-out labelled F1", "F1", lambda k: k.startswith("heldout/labeled_"),
+          missing="it is measured on held-out trees: a refine run from raw text has none, "
+                  "and output.parse_f1 must be on", from_zero=True),
+    Curve("Symbols after each cycle", "symbols", lambda k: k == "fine_symbols"),
 )
 
 STYLE = """
-body { font-family: sans-serif; margin: 24px auto; max-width: 1200px; color: #222; }
+body { font-family: sans-serif; margin: 24px auto; max-width: 1320px; padding: 0 16px;
+       color: #222; }
 h1 { font-size: 22px; } h2 { font-size: 18px; border-bottom: 1px solid #ccc; margin-top: 32px; }
 .missing { color: #a33; font-style: italic; }
-.figures { display: flex; flex-wrap: wrap; gap: 16px; }
+.figures { display: flex; flex-wrap: wrap; gap: 16px; align-items: flex-start; }
+.headline { font-size: 16px; }
+.example .name { font-weight: bold; } .example .source { color: #666; font-size: 13px; }
+.facts { font-weight: normal; color: #555; margin-left: 8px; }
 .pair { display: flex; flex-wrap: wrap; gap: 24px; align-items: flex-start;
         border-top: 1px dashed #ddd; padding-top: 8px; overflow-x: auto; }
 table { border-collapse: collapse; font-size: 13px; margin: 8px 0; }
@@ -107,7 +180,7 @@ def _read_options(config: dict) -> ReadOptions:
 def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path | None = None,
            grammar_path: str | Path | None = None, gold_format: str = "auto") -> ReportInputs:
     """Read everything the report can use from a run folder and the optional files."""
-    from treewright.grammar import load_grammar
+    from treewright.export.source import load as load_grammar  # text, JSON export or run folder
 
     run = Path(run_dir)
     if not run.is_dir():
@@ -165,6 +238,18 @@ def _with_words(tree: Tree, words: Sequence[str]) -> Tree:
     return tree_from_spans(list(words), tree.labeled_spans())
 
 
+def treebank_form(tree: Tree) -> Tree:
+    """A decoded tree in the form of the treebank a refined grammar was read from: the binarized
+    and unary-collapsed nodes of its CNF transform undone (`corpus.transforms`), so that drawn
+    trees and bracket scores show the treebank's brackets, not the transform's. Trees of induced
+    grammars carry no transform mark and come back unchanged."""
+    marked = any(mark in node.label for node in tree.subtrees()
+                 for mark in (BIN_MARK, UNARY_SEP, PARENT_SEP))
+    if not marked or tree.label.startswith(BIN_MARK):
+        return tree
+    return unbinarize(expand_unary(tree))
+
+
 def _flat(words: Sequence[str]) -> Tree:
     return Tree("NOPARSE", list(words))
 
@@ -174,20 +259,26 @@ class Parsed:
     sentences: list[Sentence]
     trees: list[Tree]        # one per sentence; NOPARSE for sentences without a parse
     unparsed: int
+    over_budget: list[Sentence] = field(default_factory=list)  # not parsed: over the budget
 
 
-def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str) -> Parsed:
-    from treewright.decode import decode
+def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
+                    memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> Parsed:
+    from treewright.budget import decode_within_budget
+    from treewright.tracking import terminal_progress
 
-    results = decode(grammar, [s.tokens for s in sentences], decoder)
+    with terminal_progress(len(sentences), "report: parsing") as progress:
+        results = decode_within_budget(grammar, [s.tokens for s in sentences], decoder,
+                                       memory_budget_mb, progress=progress)
     trees, unparsed = [], 0
     for s, r in zip(sentences, results):
-        if r.tree is None:
+        if r is None or r.tree is None:
             unparsed += 1
             trees.append(_flat(s.words))
         else:
-            trees.append(_with_words(r.tree, s.words))
-    return Parsed(list(sentences), trees, unparsed)
+            trees.append(treebank_form(_with_words(r.tree, s.words)))
+    over = [s for s, r in zip(sentences, results) if r is None]
+    return Parsed(list(sentences), trees, unparsed, over)
 
 
 def _section(ident: str, title: str, body: str) -> str:
@@ -198,28 +289,77 @@ def _missing(text: str) -> str:
     return f'<p class="missing">{esc(text)}</p>'
 
 
-def curves_section(metrics: list[dict]) -> str:
+def is_refine_run(config: dict, metrics: Sequence[dict]) -> bool:
+    """A split-merge run: its config has a refine section, or its records count cycles."""
+    return "refine" in config or any("cycle" in record for record in metrics)
+
+
+def curves_section(metrics: list[dict], refine: bool = False) -> str:
+    """One line chart per entry of TRAIN_CURVES (or REFINE_CURVES), with readable legends,
+    integer steps or cycles, and each chart's baselines as labelled horizontal lines."""
     if not metrics:
         return _section("curves", "Training curves", _missing(f"No {METRICS} records yet."))
+    curves, x_label = (REFINE_CURVES, "split-merge cycle") if refine else \
+        (TRAIN_CURVES, "update step")
+    restarts = {r.get("restart") for r in metrics if r.get("restart") is not None}
     figures = []
-    for title, y_label, wanted in CURVES:
-        series: dict[str, list[tuple[float, float]]] = {}
+    known = list(METRIC_NAMES)
+    for curve in curves:
+        points: dict[tuple[str, object], list[tuple[float, float]]] = {}   # (key, restart)
+        baselines: dict[str, float] = {}
         for record in metrics:
             step = _number(record.get("step"))
-            if step is None:
-                continue
-            restart = record.get("restart")
+            restart = record.get("restart") if len(restarts) > 1 else None
             for key, value in record.items():
                 y = _number(value)
-                if key in ("step", "time", "restart") or y is None or not wanted(key):
+                if key in ("step", "time", "restart") or y is None:
                     continue
-                name = key if restart is None else f"{key} (restart {restart})"
-                series.setdefault(name, []).append((step, y))
-        if series:
-            figures.append(line_chart(series, title, "step", y_label))
+                if key.startswith("baseline/"):
+                    if curve.baseline(key) and math.isfinite(y):
+                        baselines[metric_name(key)] = curve.transform(y)
+                    continue
+                key = _before_training(key) if key.startswith("init/") else key
+                if step is not None and curve.series(key):
+                    points.setdefault((key, restart), []).append((step, y))
+        # Legends list the series in METRIC_NAMES order (training before dev), then by restart.
+        order = sorted(points, key=lambda kr: (known.index(kr[0]) if kr[0] in known
+                                               else len(known), kr[0], str(kr[1])))
+        series = {metric_name(key) + ("" if restart is None else f", restart {restart}"):
+                  points[(key, restart)] for key, restart in order}
+        if series or baselines:
+            figures.append(line_chart(series, curve.title, x_label, curve.y_label,
+                                      baselines=list(baselines.items()),
+                                      y_from_zero=curve.from_zero, log_y=curve.log))
         else:
-            figures.append(_missing(f"{title}: no such metric in {METRICS}."))
-    return _section("curves", "Training curves", f'<div class="figures">{"".join(figures)}</div>')
+            why = f" ({curve.missing})" if curve.missing else ""
+            figures.append(_missing(f"{curve.title}: not in {METRICS}{why}."))
+    title = "Split-merge cycles" if refine else "Training curves"
+    return _section("curves", title, f'<div class="figures">{"".join(figures)}</div>')
+
+
+def refine_summary(metrics: Sequence[dict], config: dict) -> str:
+    """The held-out labelled F1 of a refine run's last measured cycle, in one sentence."""
+    measured = [r for r in metrics if _number(r.get("heldout/labeled_f1")) is not None]
+    if not measured:
+        if (config.get("data") or {}).get("start") == "text":
+            why = ("this run refined a grammar on raw text (data.start: text), so it had no "
+                   "held-out trees to parse")
+        else:
+            why = ("a refine run measures it on held-out trees (data.start: treebank) with "
+                   "output.parse_f1 on")
+        return f"<p class='missing'>No held-out labelled F1 in {METRICS}: {esc(why)}.</p>"
+    last = measured[-1]
+    output = config.get("output") or {}
+    decoder = output.get("f1_decoder")
+    cap = output.get("f1_max_sentences")
+    scores = ", ".join(f"{label} {_pct(_number(last.get(f'heldout/labeled_{key}')))}"
+                       for key, label in (("precision", "precision"), ("recall", "recall"))
+                       if _number(last.get(f"heldout/labeled_{key}")) is not None)
+    on = "held-out trees" + (f" (at most {cap}, output.f1_max_sentences)" if cap else "")
+    how = f", decoded with {decoder}" if decoder else ""
+    return (f"<p class='headline'>Held-out labelled F1 after cycle {esc(last.get('cycle', '?'))}:"
+            f" <b>{_pct(_number(last['heldout/labeled_f1']))}</b>"
+            f"{esc(f' ({scores})' if scores else '')} on the {esc(on)}{esc(how)}.</p>")
 
 
 def evaluation_section(parsed: Parsed | None, reason: str) -> str:
@@ -266,6 +406,39 @@ def _pct(value: float | None) -> str:
     return "-" if value is None else f"{100 * value:.1f}"
 
 
+def expected_uses(grammar) -> torch.Tensor | None:
+    """(S,) the expected number of times each symbol occurs in a tree the grammar generates.
+
+    nt = len(grammar.nonterminals)
+    (the sum of p(a -> b c) + p(a -> c b) over c), the counts n satisfy n = r + n M over the
+    nonterminals (Booth & Thompson 1973, "Applying Probability Measures to Abstract Languages":
+    the expected counts of a consistent PCFG are r (I - M)^-1). Preterminals are counted from
+    their parents. None when the grammar is not consistent (the series diverges).
+    """
+    nt, S = len(grammar.nonterminals), grammar.num_symbols
+    binary = grammar.binary.double().exp()                       # (NT, S, S)
+    children = binary.sum(2) + binary.sum(1)                     # (NT, S)
+    root = grammar.root.double().exp()                           # (NT,)
+    try:
+        counts_nt = torch.linalg.solve((torch.eye(nt, dtype=torch.float64)
+                                        - children[:, :nt]).T, root)  # (NT,)
+    except RuntimeError:
+        return None
+    if not bool(torch.isfinite(counts_nt).all()) or float(counts_nt.min()) < -1e-9 or \
+            float(torch.linalg.eigvals(children[:, :nt]).abs().max()) >= 1.0:
+        return None
+    counts_nt = counts_nt.clamp_min(0.0)
+    return torch.cat([counts_nt, counts_nt @ children[:, nt:]])  # (S,)
+
+
+def _small(value: float, decimals: int) -> str:
+    """`value` with `decimals` decimals, or with one significant digit when that would print a
+    nonzero value as zero ("root 0.000" would say the symbol never starts a tree)."""
+    if value == 0 or abs(value) >= 0.5 * 10 ** -decimals:
+        return f"{value:.{decimals}f}"
+    return f"{value:.0e}"
+
+
 def grammar_section(grammar, top: int) -> str:
     if grammar is None:
         return _section("grammar", "Symbols", _missing(f"No {GRAMMAR} in the run folder."))
@@ -276,9 +449,12 @@ def grammar_section(grammar, top: int) -> str:
     binary = grammar.binary.double().exp().flatten(1)            # (NT, S*S)
     lexical = grammar.lexical.double().exp()                     # (S, V)
     S = grammar.num_symbols
-    order = sorted(range(nt), key=lambda a: -float(root[a]))
+    uses = expected_uses(grammar)
+    weight = uses if uses is not None else torch.cat([root, torch.zeros(S - nt, dtype=root.dtype)])
+    order = sorted(range(nt), key=lambda a: -float(weight[a])) + \
+        sorted(range(nt, S), key=lambda a: -float(weight[a]))
     cards = []
-    for a in order + list(range(nt, S)):
+    for a in order:
         entries = []
         if a < nt:
             values, index = binary[a].topk(min(top, binary.shape[1]))
@@ -288,14 +464,36 @@ def grammar_section(grammar, top: int) -> str:
         entries += [(float(v), f"\u201c{words[int(k)]}\u201d") for v, k in zip(values, index)
                     if v > 0]
         entries = sorted(entries, key=lambda e: -e[0])[:top]
-        head = f"{names[a]}" + (f" (root {float(root[a]):.3f})" if a < nt else "")
+        facts = []
+        if uses is not None:
+            facts.append(f"{_small(float(uses[a]), 2)} per tree")
+        if a < nt and float(root[a]) > 0:
+            facts.append(f"root {_small(float(root[a]), 3)}")
         rows = "".join(f"<tr><td>{esc(rhs)}</td><td class='num'>{p:.3f}</td></tr>"
                        for p, rhs in entries)
-        cards.append(f"<table class='symbol'><tr><th colspan='2'>{esc(head)}</th></tr>{rows}</table>")
-    body = (f"<p>{nt} nonterminals (by root probability), {S - nt} preterminals, "
-            f"{len(words)} words; each symbol's {top} most probable rules.</p>"
+        cards.append(f"<table class='symbol'><tr><th colspan='2'>{esc(names[a])}"
+                     f"<span class='facts'>{esc(', '.join(facts))}</span></th></tr>{rows}"
+                     "</table>")
+    by = ("expected uses per tree" if uses is not None
+          else "root probability (expected uses diverge: the grammar is not consistent)")
+    body = (f"<p>{nt} nonterminals, then {S - nt} preterminals, each by {by}; "
+            f"{len(words)} words; each symbol's {top} most probable rules. \u201croot p\u201d "
+            "is the probability that a tree starts with the symbol.</p>"
             f'<div class="symbols">{"".join(cards)}</div>')
     return _section("grammar", "Symbols: most probable rules and words", body)
+
+
+def sentence_name(sentence: Sentence) -> str:
+    """What a reader calls the sentence: its id where the source names it (CoNLL-U
+    `# sent_id`), else its line."""
+    return sentence.sent_id if sentence.sent_id else f"line {sentence.line}"
+
+
+def _where(sentence: Sentence) -> str:
+    """The sentence's name, and its file and line for finding it."""
+    source = Path(sentence.source).name if sentence.source else "?"
+    return (f"<span class='name'>{esc(sentence_name(sentence))}</span> "
+            f"<span class='source'>{esc(source)}, line {sentence.line}</span>")
 
 
 def examples_section(parsed: Parsed | None, with_gold: bool, count: int, max_words: int,
@@ -311,12 +509,13 @@ def examples_section(parsed: Parsed | None, with_gold: bool, count: int, max_wor
         figures = [tree_svg(parsed.trees[k], "predicted")]
         if with_gold:
             figures.append(tree_svg(parsed.sentences[k].tree, "gold"))
-        where = f"{parsed.sentences[k].source}, line {parsed.sentences[k].line}"
-        pairs.append(f'<div class="pair"><p>{esc(where)}</p>{"".join(figures)}</div>')
+        pairs.append(f'<div class="pair"><p class="example">{_where(parsed.sentences[k])}</p>'
+                     f'{"".join(figures)}</div>')
     return _section("examples", "Example sentences", "".join(pairs))
 
 
-def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int) -> str:
+def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int,
+                    memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> str:
     title = "Span posteriors"
     if grammar is None or not sentences:
         return _section("heatmap", title, _missing("Needs the grammar and --gold or --text."))
@@ -327,6 +526,10 @@ def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int) -
     from treewright.inference import encode
 
     s = sentences[index - 1]
+    if len(s.tokens) > longest_within(grammar, memory_budget_mb, torch.float64):
+        return _section("heatmap", title, _missing(
+            f"Sentence {index} ({s.source}, line {s.line}) is over the memory budget of "
+            f"{memory_budget_mb:g} MB."))
     enc = encode(grammar, [s.tokens], torch.float64)
     post = engine.posteriors(grammar.root.to(torch.float64), grammar.binary.to(torch.float64),
                              enc.terminal, enc.lengths, enc.nt_terminal)
@@ -334,26 +537,56 @@ def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int) -
         return _section("heatmap", title, _missing(f"Sentence {index} has no parse."))
     figure = span_heatmap(post.spans[0].tolist(), s.words,
                           f"p(span | sentence), sentence {index}")
-    caption = (f"<p>{esc(s.source)}, line {s.line}: the cell in column i, row w is the "
+    caption = (f"<p class='example'>{_where(s)}</p><p>The cell in column i, row w is the "
                "posterior probability that words i..i+w-1 form a constituent.</p>")
     return _section("heatmap", title, caption + figure)
 
 
+def choose_decoder(grammar, asked: str | None) -> tuple[str, str]:
+    """The decoder for the report's trees and a sentence saying why it was chosen.
+
+    A refined grammar's symbols are subcategories (`NP@1`) of coarse symbols: its trees are read
+    with max-rule-product, which sums over the subcategories (Petrov & Klein 2007, "Improved
+    Inference for Unlexicalized Parsing"). Any other grammar is read with mbr, the tree of
+    largest expected bracket recall (Goodman 1996, "Parsing Algorithms and Metrics").
+    """
+    from treewright.decode import coarse_name
+
+    if asked is not None:
+        return asked, f"trees decoded with {asked} (as asked)."
+    if grammar is None:
+        return "mbr", "no grammar, so no trees decoded."
+    fine = grammar.symbols
+    coarse = {coarse_name(s) for s in fine}
+    if any(coarse_name(s) != s for s in fine):
+        return "max-rule-product", (
+            f"trees decoded with max-rule-product, the decoder for refined grammars: its "
+            f"{len(fine)} symbols are subcategories of {len(coarse)} coarse symbols, and the "
+            "trees show the coarse ones.")
+    return "mbr", ("trees decoded with mbr (the binary tree of largest expected bracket recall), "
+                   "the decoder for grammars that are not refined.")
+
+
 def build_report(run_dir: str | Path, gold: str | Path | None = None,
                  text: str | Path | None = None, *, grammar_path: str | Path | None = None,
-                 decoder: str = "mbr", examples: int = 3, max_example_words: int = 20,
+                 decoder: str | None = None, examples: int = 3, max_example_words: int = 20,
                  heatmap_sentence: int = 1, top_rules: int = 6, gold_format: str = "auto",
-                 max_sentences: int | None = None) -> str:
+                 max_sentences: int | None = None,
+                 memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> str:
     """The HTML page (a string) for the run in `run_dir`.
 
     gold: bracketed trees or CoNLL-U, parsed with the run's grammar for F1 by length, label
         recall and the example trees (default: the run's dev corpus when it has trees).
     text: raw sentences for examples and the heat map when there is no gold.
-    decoder: see `treewright.decode.DECODERS`. max_sentences: parse only the first N gold
-        sentences (the page says how many of how many).
+    decoder: see `treewright.decode.DECODERS`; None (the default) picks by the grammar:
+        max-rule-product for a refined grammar, else mbr (`choose_decoder`; the page says which).
+    max_sentences: parse only the first N gold sentences (the page says how many of how many).
     heatmap_sentence: 1-based index into the gold (else text) sentences.
+    memory_budget_mb: sentences that alone need more are not parsed; the page names them.
     """
     found = gather(run_dir, gold, text, grammar_path, gold_format)
+    decoder, decoded_with = choose_decoder(found.grammar, decoder)
+    refine = is_refine_run(found.config, found.metrics)
     pool = found.gold if found.gold is not None else found.text
     parsed, reason = None, "Needs the grammar and --gold or --text."
     if found.grammar is not None and pool:
@@ -361,18 +594,26 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         if len(chosen) < len(pool):
             found.notes.append(f"parsed the first {len(chosen)} of {len(pool)} sentences "
                                "(max_sentences)")
-        parsed = parse_sentences(found.grammar, chosen, decoder)
+        parsed = parse_sentences(found.grammar, chosen, decoder, memory_budget_mb)
+        if parsed.over_budget:
+            found.notes.append(
+                f"{len(parsed.over_budget)} sentences over the memory budget of "
+                f"{memory_budget_mb:g} MB were not parsed (shown flat; first: "
+                f"{parsed.over_budget[0].source}, line {parsed.over_budget[0].line})")
     with_gold = found.gold is not None
     sections = [
-        curves_section(found.metrics),
+        curves_section(found.metrics, refine),
         evaluation_section(parsed if with_gold else None,
                            "Needs the grammar and gold trees (--gold)."),
         grammar_section(found.grammar, top_rules),
         examples_section(parsed, with_gold, examples, max_example_words, reason),
-        heatmap_section(found.grammar, pool, heatmap_sentence),
+        heatmap_section(found.grammar, pool, heatmap_sentence, memory_budget_mb),
     ]
-    header = [f"<h1>treewright run: {esc(found.run_dir.name)}</h1>",
-              f"<p>Folder {esc(found.run_dir)}; trees decoded with {esc(decoder)}.</p>"]
+    kind = "split-merge refinement" if refine else "training run"
+    header = [f"<h1>treewright {kind}: {esc(found.run_dir.name)}</h1>",
+              f"<p>Folder {esc(found.run_dir)}; {esc(decoded_with)}</p>"]
+    if refine:
+        header.append(refine_summary(found.metrics, found.config))
     if found.missing:
         header.append("<p class='missing'>Missing: " + esc("; ".join(found.missing)) + "</p>")
     if found.notes:
@@ -392,8 +633,8 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
 
 def write_report(run_dir: str | Path, out: str | Path | None = None, **options) -> Path:
     """Write `build_report(run_dir, **options)` to `out` (default run_dir/report.html)."""
-    from treewright.safeio import atomic_write_text
+    from treewright.safeio import write_output_text
 
-    path = Path(out) if out is not None else Path(run_dir) / "report.html"
-    atomic_write_text(path, build_report(run_dir, **options))
+    path = Path(out) if out is not None else RunFolder(run_dir).report
+    write_output_text(path, build_report(run_dir, **options))  # makes a missing folder
     return path

@@ -10,15 +10,16 @@ with an `InputError` naming the file and line.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Sequence
 
+from treewright.budget import DEFAULT_BUDGET_MB
 from treewright.corpus import ReadOptions, Sentence, read_corpus
 from treewright.errors import InputError
 from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracketing,
                                    LikelihoodScores, TagScores, evaluate_brackets, evaluate_tags,
-                                   heldout_likelihood, preterminal_labels)
+                                   heldout_likelihood, preterminal_labels, words_over_tags)
 from treewright.trees import Tree, escape_token
 
 # The label `treewright parse` writes over a sentence it could not parse.
@@ -72,6 +73,8 @@ class EvaluationReport:
             lines.append(f"  {s.logprob_per_word:.4f} nats per word, perplexity {s.perplexity:.2f}, "
                          f"{s.sentences} sentences, {s.total_words} words, "
                          f"{s.zero_probability_sentences} of probability zero")
+            if self.likelihood_note:
+                lines.append(f"  {self.likelihood_note}")
         return "\n".join(lines)
 
 
@@ -137,26 +140,38 @@ def _tag_scores(pred: Sequence[Sentence], gold: Sequence[Sentence]):
     return evaluate_tags(induced, reference), note
 
 
-def heldout_from_files(grammar_path: str | Path, text_path: str | Path) -> LikelihoodScores:
-    """Per-word log-likelihood and perplexity of a raw-text file under a grammar file."""
-    from treewright.grammar import load_grammar
-    from treewright.inference import score
+def heldout_from_files(grammar_path: str | Path, text_path: str | Path,
+                       memory_budget_mb: float | None = DEFAULT_BUDGET_MB
+                       ) -> tuple[LikelihoodScores, list[int]]:
+    """Per-word log-likelihood and perplexity of a raw-text file under a grammar (text, JSON
+    export or run folder), and the lines of the sentences left out because each alone needs
+    more than `memory_budget_mb` (see `treewright.budget`). A progress bar runs on a terminal."""
+    from treewright.budget import score_within_budget
+    from treewright.export.source import load as load_grammar  # text, JSON export or run folder
+    from treewright.tracking import terminal_progress
 
     grammar = load_grammar(grammar_path)
     sentences = read_all(text_path, "text", ReadOptions(), "text")
-    scores = score(grammar, [s.words for s in sentences])
-    return heldout_likelihood([s.logprob for s in scores], [len(s.words) for s in scores],
-                              path=str(text_path))
+    with terminal_progress(len(sentences), "held-out likelihood") as progress:
+        scores = score_within_budget(grammar, [s.words for s in sentences], memory_budget_mb,
+                                     progress=progress)
+    kept = [s for s in scores if s is not None]
+    over = [t.line for t, s in zip(sentences, scores) if s is None]
+    return heldout_likelihood([s.logprob for s in kept], [len(s.words) for s in kept],
+                              path=str(text_path)), over
 
 
 def evaluate_files(pred_path: str | Path, gold_path: str | Path,
                    conventions: BracketConventions | None = None, *, gold_format: str = "auto",
                    grammar_path: str | Path | None = None, text_path: str | Path | None = None,
-                   tags: bool = True) -> EvaluationReport:
+                   tags: bool = True,
+                   memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> EvaluationReport:
     """Score a bracketed-tree file against a gold file (bracketed trees or CoNLL-U).
 
     grammar_path and text_path, given together, add the held-out likelihood of the text.
     tags: score induced preterminals against gold tags when both sides have them.
+    memory_budget_mb: text sentences that alone need more are left out of the likelihood and
+    named in `likelihood_note` (see `treewright.budget`).
     """
     pred = read_all(pred_path, "brackets", PRED_OPTIONS, "predicted")
     gold_corpus = read_corpus(gold_path, gold_format, GOLD_OPTIONS)
@@ -169,6 +184,10 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     if missing_tree is not None:
         raise InputError("gold has no tree (give bracketed trees or CoNLL-U)",
                          path=str(gold_path), line=missing_tree.line)
+    # Trees parsed from a file of tags (a grammar trained on tags) get the gold words back.
+    trees, over_tags = words_over_tags([p.tree for p in pred], [g.words for g in gold],
+                                       [g.tags for g in gold])
+    pred = [replace(p, tree=t, words=t.leaves()) for p, t in zip(pred, trees)]
     check_aligned(pred, gold, str(pred_path), str(gold_path))
     brackets = evaluate_brackets([comparable(p.tree) for p in pred],
                                  [comparable(g.tree) for g in gold], conventions,
@@ -176,6 +195,8 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     counts = {"sentences": len(gold),
               "unparsed_predictions": sum(p.tree.label == NOPARSE for p in pred),
               "gold_projectivised": gold_corpus.report.projectivised}
+    if over_tags:
+        counts["predictions_over_tags"] = over_tags
     report = EvaluationReport(brackets, counts=counts,
                               sources={"predicted": str(pred_path), "gold": str(gold_path),
                                        "grammar": None if grammar_path is None else str(grammar_path),
@@ -185,7 +206,12 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     else:
         report.tags_note = "not requested"
     if grammar_path is not None and text_path is not None:
-        report.likelihood = heldout_from_files(grammar_path, text_path)
+        report.likelihood, over = heldout_from_files(grammar_path, text_path, memory_budget_mb)
+        if over:
+            report.likelihood_note = (
+                f"{len(over)} sentences of {text_path} over the memory budget of "
+                f"{memory_budget_mb:g} MB left out (lines {', '.join(map(str, over[:10]))}"
+                f"{', ...' if len(over) > 10 else ''})")
     else:
         report.likelihood_note = "not computed: give both --grammar and --text"
     return report

@@ -59,20 +59,27 @@ class ModelConfig:
                    "compound: neural rules that also read a per-sentence latent vector, trained "
                    "by amortized variational inference (Kim, Dyer & Rush 2019). All but tabular "
                    "train with 'gradient' only.")
-    nonterminals: int = option(30, "Number of nonterminals (ignored with a warm start).",
-                               range="[1, inf)")
-    preterminals: int = option(60, "Number of preterminals (ignored with a warm start).",
-                               range="[1, inf)")
+    # 30/60 symbols, dimension 256 and latent size 64 are the published setting of Kim, Dyer &
+    # Rush 2019, "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from
+    # memory).
+    nonterminals: int = option(30, "Number of nonterminals (ignored with a warm start). 30 is "
+                                   "the published setting of Kim, Dyer & Rush 2019 (from "
+                                   "memory).", range="[1, inf)")
+    preterminals: int = option(60, "Number of preterminals (ignored with a warm start). 60 is "
+                                   "the published setting of Kim, Dyer & Rush 2019 (from "
+                                   "memory).", range="[1, inf)")
     init_scale: float = option(1.0, "Std of the normal logits of a random tabular start; 0 "
                                     "gives the uniform grammar.", range="[0, inf)")
-    embedding_dim: int = option(256, "Neural and lowrank: symbol embedding and hidden size.",
-                                range="[1, inf)")
+    embedding_dim: int = option(256, "Neural and lowrank: symbol embedding and hidden size. "
+                                     "256 is the published setting of Kim, Dyer & Rush 2019 "
+                                     "(from memory).", range="[1, inf)")
     residual_blocks: int = option(2, "Neural and lowrank: residual blocks in the root and word "
                                      "networks.", range="[0, inf)")
     rank: int = option(200, "Lowrank: number of rank-one terms of the binary rule tensor.",
                        range="[1, inf)")
-    latent_dim: int = option(64, "Compound: size of the per-sentence latent vector.",
-                             range="[1, inf)")
+    latent_dim: int = option(64, "Compound: size of the per-sentence latent vector. 64 is "
+                                 "the published setting of Kim, Dyer & Rush 2019 (from "
+                                 "memory).", range="[1, inf)")
     warm_start: Path | None = option(None, "Start from this hand-written grammar (grammar text "
                                            "format) instead of at random; tabular only.")
     warm_start_mix: float = option(0.0, "Weight of the uniform distribution mixed into every "
@@ -129,10 +136,15 @@ class OnlineConfig:
 @dataclass
 class OptimizerConfig:
     lr: float = option(0.01, "Peak learning rate of Adam.", range="(0, inf)")
-    beta1: float = option(0.75, "Adam beta1 (Kim et al. 2019 use 0.75).", range="[0, 1)")
+    # beta1 0.75 and clipping at 3 are the published setting of Kim, Dyer & Rush 2019,
+    # "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from memory).
+    beta1: float = option(0.75, "Adam beta1. 0.75 is the published setting of Kim, Dyer & "
+                                "Rush 2019 (from memory).", range="[0, 1)")
     beta2: float = option(0.999, "Adam beta2.", range="[0, 1)")
     grad_clip: float | None = option(3.0, "Largest gradient norm (rescaled above it); null "
-                                          "turns clipping off.", range="(0, inf)")
+                                          "turns clipping off. 3 is the published setting of "
+                                          "Kim, Dyer & Rush 2019 (from memory).",
+                                     range="(0, inf)")
     warmup_steps: int = option(0, "Steps of linear warm-up from 0 to lr.", range="[0, inf)")
     schedule: Literal["constant", "cosine", "linear"] = option(
         "constant", "Decay after warm-up down to min_lr_ratio * lr at the last step.")
@@ -258,7 +270,7 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
 def load_train_config(path: str | Path | None, overrides: Sequence[str] = ()) -> TrainConfig:
     """The checked config from defaults, the YAML file and overrides (ConfigError lists every
     problem)."""
-    cfg = load_config(TrainConfig, path, overrides)
+    cfg = load_config(TrainConfig, path, overrides, resolve_paths=True)
     check_combinations(cfg, None if path is None else str(path))
     return cfg
 

@@ -13,10 +13,19 @@ import torch
 from torch import Tensor
 
 from treewright import engine
-from treewright.engine.lowrank import lowrank_log_partition
-from treewright.params.compound import CompoundRules
+from treewright.params.base import RulesScorer, span_posteriors, terminal_scores
+from treewright.params.compound import (compound_log_partition, compound_span_posteriors,
+                                        sentence_terminal_scores)
 from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
+
+# Re-exported: the engine-facing helpers moved to the parameterizations (params.base,
+# params.compound); tests and benchmarks import them from here.
+__all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_counts",
+           "expected_counts",
+           "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
+           "log_partition_of", "make_batch", "sentence_logliks", "sentence_terminal_scores",
+           "span_posteriors", "terminal_scores", "zero_counts"]
 
 NEG_INF = float("-inf")
 
@@ -75,11 +84,6 @@ def crossing_mask(a: int, b: int, n: int) -> Tensor:
     return ((start < a) & (a < end) & (end < b)) | ((a < start) & (start < b) & (b < end))
 
 
-def terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
-    """(B, N, T) log p(preterminal -> word at position) from lexical (T, V) and ids (B, N)."""
-    return lexical[:, ids].permute(1, 2, 0)
-
-
 @dataclass
 class ExpectedCounts:
     """Expected rule counts summed over sentences, with the log-likelihood they came with."""
@@ -105,21 +109,50 @@ class DivergedError(RuntimeError):
     """A NaN or +inf appeared where a log-likelihood or parameter should be."""
 
 
-def batch_counts(rules: RuleTensors, batch: Batch) -> ExpectedCounts:
-    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
-    terminal = terminal_scores(rules.lexical, batch.ids)                 # (B, N, T)
-    post = engine.posteriors(rules.root, rules.binary, terminal, batch.lengths,
-                             span_pot=batch.span_pot)
+def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
+                    lengths: Tensor, span_pot: Tensor | None = None,
+                    missing: Tensor | None = None,
+                    nonterminals_emit: bool = False) -> ExpectedCounts:
+    """The E-step of one batch: expected rule counts from the engine's posteriors, and the
+    log-likelihood. The one E-step of training (`batch_counts`) and of refinement from text
+    (`refine.text.text_estep`).
+
+    root (NT,), binary (NT, S, S): log-probabilities (or VB log-weights).
+    lexical: (T, V) word rules of the preterminals, or (S, V) of every symbol, whose
+        nonterminal rows are read only when `nonterminals_emit` (a refined grammar's may be).
+    ids (B, N), lengths (B,): the sentences; padding ids are never read.
+    span_pot: (B, N+1, N+1) [start, width] span log-potentials, or None.
+    missing: (B, N) True where a word has no entry (it gets no tree), or None.
+    The lexical counts have the shape of `lexical`.
+    """
+    nt = binary.shape[0]
+    every_symbol = lexical.shape[0] == binary.shape[1]
+    scores = terminal_scores(lexical, ids)                              # (B, N, T or S)
+    if missing is not None:
+        scores = scores.masked_fill(missing[..., None], NEG_INF)
+    terminal = scores[..., nt:].contiguous() if every_symbol else scores          # (B, N, T)
+    nt_terminal = scores[..., :nt].contiguous() if nonterminals_emit else None    # (B, N, NT)
+    post = engine.posteriors(root, binary, terminal, lengths, nt_terminal, span_pot=span_pot)
     logz = post.logz                                                       # (B,)
     if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
         raise DivergedError("the log-likelihood of a batch is NaN or infinite")
     parsed = torch.isfinite(logz)
-    mask = torch.arange(batch.ids.shape[1])[None, :] < batch.lengths[:, None]   # (B, N)
-    lexical = torch.zeros_like(rules.lexical)                               # (T, V)
-    lexical.index_add_(1, batch.ids[mask], post.terminal[mask].T.to(lexical.dtype))
-    return ExpectedCounts(post.root.sum(0), post.binary, lexical,
-                          float(logz[parsed].sum()), int(batch.lengths[parsed].sum()),
+    mask = torch.arange(ids.shape[1])[None, :] < lengths[:, None]       # (B, N)
+    words = ids[mask]
+    counts = torch.zeros_like(lexical)                                     # (T or S, V)
+    (counts[nt:] if every_symbol else counts).index_add_(
+        1, words, post.terminal[mask].T.to(counts.dtype))
+    if nonterminals_emit:
+        counts[:nt].index_add_(1, words, post.nt_terminal[mask].T.to(counts.dtype))
+    return ExpectedCounts(post.root.sum(0), post.binary, counts,
+                          float(logz[parsed].sum()), int(lengths[parsed].sum()),
                           int(parsed.sum()), int((~parsed).sum()))
+
+
+def batch_counts(rules: RuleTensors, batch: Batch) -> ExpectedCounts:
+    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
+    return expected_counts(rules.root, rules.binary, rules.lexical, batch.ids, batch.lengths,
+                           batch.span_pot)
 
 
 def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
@@ -131,51 +164,10 @@ def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
 
 def sentence_logliks(rules: RuleTensors | LowRankRules, batch: Batch) -> Tensor:
     """(B,) log p(sentence) under `rules`, no gradient."""
-    with torch.no_grad():
-        terminal = terminal_scores(rules.lexical, batch.ids)
-        return log_partition_of(rules, terminal, batch.lengths)
+    return RulesScorer(rules).log_likelihood(batch.ids, batch.lengths)
 
 
 def log_partition_of(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor,
                      span_pot: Tensor | None = None) -> Tensor:
-    """(B,) log Z under dense or factored rules, through the matching engine kernel."""
-    if isinstance(rules, LowRankRules):
-        return lowrank_log_partition(rules.root, rules.u, rules.v, rules.w, terminal, lengths,
-                                     span_pot=span_pot)
-    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
-
-
-def sentence_terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
-    """(B, N, T) from per-sentence lexical rules (B, T, V) and ids (B, N)."""
-    B, T, _ = lexical.shape
-    return torch.gather(lexical, 2, ids[:, None, :].expand(B, T, ids.shape[1])).transpose(1, 2)
-
-
-def compound_log_partition(rules: CompoundRules, ids: Tensor, lengths: Tensor,
-                           span_pot: Tensor | None = None) -> Tensor:
-    """(B,) log p(x_b | z_b), each sentence under its own rules, in one engine call."""
-    terminal = sentence_terminal_scores(rules.lexical, ids)              # (B, N, T)
-    return engine.log_partition(rules.root, rules.binary, terminal, lengths, span_pot=span_pot)
-
-
-def compound_span_posteriors(rules: CompoundRules, ids: Tensor, lengths: Tensor
-                             ) -> tuple[Tensor, Tensor]:
-    """log p(x_b | z_b) (B,) and span marginals (B, N+1, N+1), each sentence under its own
-    rules, in one engine call."""
-    terminal = sentence_terminal_scores(rules.lexical, ids).detach()
-    post = engine.posteriors(rules.root.detach(), rules.binary.detach(), terminal, lengths)
-    return post.logz, post.spans
-
-
-def span_posteriors(rules: RuleTensors | LowRankRules, terminal: Tensor, lengths: Tensor
-                    ) -> tuple[Tensor, Tensor]:
-    """log Z (B,) and the posterior span marginals (B, N+1, N+1), [b, start, width], as the
-    gradient of log Z with respect to a zero span potential (Eisner 2016)."""
-    B, N, _ = terminal.shape
-    pot = terminal.new_zeros(B, N + 1, N + 1, requires_grad=True)
-    with torch.enable_grad():
-        detached = type(rules)(*(x.detach() for x in rules))
-        logz = log_partition_of(detached, terminal.detach(), lengths, span_pot=pot)
-        ok = torch.isfinite(logz)
-        (spans,) = torch.autograd.grad(torch.where(ok, logz, torch.zeros_like(logz)).sum(), pot)
-    return logz.detach(), spans
+    """(B,) log Z under dense or factored rules, through the kernel the rules name."""
+    return rules.log_partition(terminal, lengths, span_pot=span_pot)

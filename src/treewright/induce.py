@@ -1,0 +1,133 @@
+"""Grammar induction as a library call: the trainer with the dev evaluator that scores brackets.
+
+Training (`train/`) knows nothing of decoding or evaluation; this layer, above both, builds the
+dev evaluator (`DevEvaluator`: dev likelihood, and bracket F1 of MBR trees when the dev corpus
+has trees) and hands it to the `Trainer`. Entry points:
+- `train(cfg, run_dir)` -> the fitted `Trainer`; `resume(run_dir)` -> (Trainer, RunResult or
+  None); `run(cfg, run_dir, resume)` -> RunResult or None (None: stopped by Ctrl-C);
+- `fit(sentences, cfg, dev=None, dev_trees=None)` -> `Fit`, from token lists in memory, for a
+  notebook user who has no files (the run folder is a temporary one unless `run_dir` is given).
+"""
+
+from __future__ import annotations
+
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Sequence, TextIO
+
+from torch import Tensor
+
+from treewright.decode import mbr_spans
+from treewright.evaluation import evaluate_brackets, spans_to_tree
+from treewright.grammar import Grammar, load_grammar
+from treewright.train.config import TrainConfig
+from treewright.train.data import MemoryBudget, TrainData, data_from_sentences, load_data
+from treewright.train.dev import DevLikelihood
+from treewright.train.distributed import LocalWorld
+from treewright.train.loop import RunResult, Trainer, _dtype, saved_config
+from treewright.trees import Tree
+
+BASELINES = ("left_branching", "right_branching", "random_binary")
+
+
+class DevEvaluator(DevLikelihood):
+    """Dev likelihood, and with gold dev trees the sentence and corpus bracket F1 of the
+    minimum-Bayes-risk trees and the branching baselines' F1."""
+
+    def __init__(self, data: TrainData, cfg: TrainConfig):
+        dtype = _dtype(cfg)
+        super().__init__(data, cfg.train.batch_size, MemoryBudget(cfg, dtype), dtype)
+        self.wants_spans = data.dev_trees is not None
+
+    def baselines(self) -> tuple[dict, list[str]]:
+        if self.data.dev_trees is None:
+            return {}, []
+        systems = evaluate_brackets(None, self.data.dev_trees).systems
+        metrics = {f"baseline/dev_{name}_sentence_f1": systems[name].sentence_f1
+                   for name in BASELINES}
+        note = "dev sentence F1 of the baselines: " + ", ".join(
+            f"{name.replace('_', '-')} {systems[name].sentence_f1:.3f}" for name in BASELINES)
+        return metrics, [note]
+
+    def start(self, unscored: set[int]) -> None:
+        self.predicted: list[Tree | None] = [None] * len(self.data.dev_ids)
+        for i in unscored:
+            self.predicted[i] = Tree("X", list(self.data.dev_words[i]))  # no brackets
+
+    def sentence_spans(self, index: int, marginals: Tensor) -> None:
+        spans = mbr_spans(marginals, len(self.data.dev_ids[index]))
+        self.predicted[index] = spans_to_tree(self.data.dev_words[index], spans)
+
+    def finish(self) -> dict[str, float]:
+        if self.data.dev_trees is None:
+            return {}
+        scores = evaluate_brackets(self.predicted, self.data.dev_trees).systems["model"]
+        out = {}
+        for name in ("sentence_f1", "corpus_f1"):
+            value = getattr(scores, name)
+            out[f"dev/{name}"] = float("nan") if value is None else value
+        return out
+
+
+def trainer(cfg: TrainConfig, run_dir: str | Path, resume: bool = False,
+            stream: TextIO | None = None, config_source: str | None = None,
+            world: LocalWorld | None = None, data: TrainData | None = None) -> Trainer:
+    """A `Trainer` of `cfg` (data read from `cfg.data` unless given) with a `DevEvaluator`."""
+    data = load_data(cfg) if data is None else data
+    return Trainer(cfg, run_dir, resume=resume, stream=stream, config_source=config_source,
+                   world=world, data=data, dev=DevEvaluator(data, cfg))
+
+
+def run(cfg: TrainConfig | None, run_dir: str | Path, resume: bool = False,
+        stream: TextIO | None = None, config_source: str | None = None,
+        world: LocalWorld | None = None, max_steps: int | None = None) -> RunResult | None:
+    """Train (or, with `resume`, continue with the saved config) into `run_dir`; the result,
+    or None when the session stopped first (Ctrl-C or `max_steps`, after a checkpoint)."""
+    cfg = saved_config(run_dir) if resume else cfg
+    return trainer(cfg, run_dir, resume, stream, config_source, world).run(max_steps)
+
+
+def train(cfg: TrainConfig, run_dir: str | Path, stream: TextIO | None = None,
+          config_source: str | None = None, world: LocalWorld | None = None) -> Trainer:
+    """Train a fresh run into `run_dir` and return the fitted Trainer (`world`: this
+    process's data-parallel group, see train.distributed; default one process)."""
+    fitted = trainer(cfg, run_dir, stream=stream, config_source=config_source, world=world)
+    fitted.run()
+    return fitted
+
+
+def resume(run_dir: str | Path, stream: TextIO | None = None, max_steps: int | None = None,
+           world: LocalWorld | None = None) -> tuple[Trainer, RunResult | None]:
+    """Continue the run in `run_dir` from its checkpoint (config taken from the checkpoint),
+    with any number of workers (`world`)."""
+    fitted = trainer(saved_config(run_dir), run_dir, resume=True, stream=stream, world=world)
+    return fitted, fitted.run(max_steps)
+
+
+@dataclass
+class Fit:
+    """What `fit` returns: the result grammar, the run's record and the fitted trainer."""
+    grammar: Grammar
+    result: RunResult
+    trainer: Trainer
+
+
+def fit(sentences: Sequence[Sequence[str]], cfg: TrainConfig,
+        dev: Sequence[Sequence[str]] | None = None, dev_trees: Sequence[Tree] | None = None,
+        run_dir: str | Path | None = None, stream: TextIO | None = None) -> Fit:
+    """Induce a grammar from token lists in memory, as `train` does from the files of
+    `cfg.data` (the reading options of `cfg.data` apply: lowercasing, length cap, vocabulary).
+    `dev`: dev token lists, or `dev_trees`: gold dev trees (their leaves are the sentences).
+    The run folder is `run_dir`, or a temporary folder removed afterwards."""
+    data = data_from_sentences(cfg, sentences, dev, dev_trees)
+    if run_dir is not None:
+        return _fit(cfg, data, Path(run_dir), stream)
+    with tempfile.TemporaryDirectory(prefix="treewright-fit-") as folder:
+        return _fit(cfg, data, Path(folder) / "run", stream)
+
+
+def _fit(cfg: TrainConfig, data: TrainData, run_dir: Path, stream: TextIO | None) -> Fit:
+    fitted = trainer(cfg, run_dir, stream=stream, data=data)
+    result = fitted.run()
+    return Fit(load_grammar(result.grammar_path), result, fitted)

@@ -1,0 +1,156 @@
+"""The run folder: the one place that knows the names of the files a training or refinement
+run writes, and the handling both share (fresh start or resume, the log, the saved config, the
+metric loggers).
+
+Layout (`kind` "train" or "refine" names the log and the checkpoint)::
+
+    config.yaml          the resolved config (every option)
+    train.log            what was read, set aside and decided, in words (refine.log)
+    data_summary.json    what the data reader reported, as data (export reads it)
+    metrics.jsonl        one JSON object per logged step
+    tensorboard/         TensorBoard event files
+    checkpoint.ckpt      the last checkpoint (refine.ckpt), written atomically
+    restart-<r>.pcfg     training: the final grammar of each finished restart
+    coarse.pcfg          refinement: the unrefined start; cycle-<c>.pcfg after each cycle
+    grammar.pcfg         the result
+    result.json          training: per-restart scores and which restart was kept
+    report.html          the HTML report (`treewright report`)
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from pathlib import Path
+from typing import Any, Sequence, TextIO
+
+from treewright.errors import InputError
+from treewright.safeio import atomic_write_text, check_writable
+from treewright.tracking import METRICS_FILE, TENSORBOARD_FOLDER, MultiLogger, open_loggers
+
+CONFIG = "config.yaml"
+DATA_SUMMARY = "data_summary.json"
+METRICS = METRICS_FILE
+TENSORBOARD = TENSORBOARD_FOLDER
+GRAMMAR = "grammar.pcfg"
+RESULT = "result.json"
+REPORT = "report.html"
+COARSE = "coarse.pcfg"
+LOGS = {"train": "train.log", "refine": "refine.log"}
+CHECKPOINTS = {"train": "checkpoint.ckpt", "refine": "refine.ckpt"}
+
+
+class RunFolder:
+    """One run folder of a training ("train") or refinement ("refine") run."""
+
+    def __init__(self, path: str | Path, kind: str = "train"):
+        if kind not in LOGS:
+            raise ValueError(f"kind must be one of {sorted(LOGS)}, got {kind!r}")
+        self.path = Path(path)
+        self.kind = kind
+
+    # ---- names -------------------------------------------------------------------------------
+
+    @property
+    def config(self) -> Path:
+        return self.path / CONFIG
+
+    @property
+    def log(self) -> Path:
+        return self.path / LOGS[self.kind]
+
+    @property
+    def data_summary(self) -> Path:
+        return self.path / DATA_SUMMARY
+
+    @property
+    def metrics(self) -> Path:
+        return self.path / METRICS
+
+    @property
+    def tensorboard(self) -> Path:
+        return self.path / TENSORBOARD
+
+    @property
+    def checkpoint(self) -> Path:
+        return self.path / CHECKPOINTS[self.kind]
+
+    @property
+    def grammar(self) -> Path:
+        return self.path / GRAMMAR
+
+    @property
+    def result(self) -> Path:
+        return self.path / RESULT
+
+    @property
+    def report(self) -> Path:
+        return self.path / REPORT
+
+    @property
+    def coarse(self) -> Path:
+        return self.path / COARSE
+
+    def restart_grammar(self, restart: int) -> Path:
+        return self.path / f"restart-{restart}.pcfg"
+
+    def cycle_grammar(self, cycle: int) -> Path:
+        return self.path / f"cycle-{cycle}.pcfg"
+
+    def summary(self, stem: str, suffix: str) -> Path:
+        """`stem` is "summary" (the result's) or "summary-<c>"; suffix ".txt" or ".json"."""
+        return self.path / f"{stem}{suffix}"
+
+    @property
+    def _what(self) -> str:
+        return "refinement checkpoint" if self.kind == "refine" else "checkpoint"
+
+    # ---- shared handling -----------------------------------------------------------------------
+
+    def start(self, resume: bool, config_text: str | None = None) -> None:
+        """Make the folder ready: writable; a fresh run refuses a folder that holds a checkpoint
+        (and writes `config_text` to config.yaml when given), a resumed one needs it."""
+        if resume and not self.checkpoint.exists():
+            # Checked before creating anything: a mistyped folder is not made.
+            raise InputError(f"no {self._what} here ({self.checkpoint.name}; a run writes one "
+                             "as it goes)", path=str(self.path))
+        check_writable(self.path)  # creates the folder, or says why it cannot
+        if resume:
+            return
+        if self.checkpoint.exists():
+            raise InputError(f"the run folder already holds a {self._what}; continue it with "
+                             "--resume or choose another output.run_dir", path=str(self.path))
+        if config_text is not None:
+            atomic_write_text(self.config, config_text)
+
+    def metrics_size(self) -> int:
+        """Bytes of metrics.jsonl now (a checkpoint records it; see `truncate_metrics`)."""
+        return self.metrics.stat().st_size if self.metrics.exists() else 0
+
+    def truncate_metrics(self, size: int) -> None:
+        """Drop the metric lines logged after a checkpoint: their steps will run again."""
+        if self.metrics.exists():
+            with open(self.metrics, "r+b") as f:
+                f.truncate(size)
+
+    def note(self, text: str, stream: TextIO | None = None) -> None:
+        """Append one timestamped line to the log and echo `text` to `stream`."""
+        with open(self.log, "a", encoding="utf-8") as f:
+            f.write(f"{time.strftime('%Y-%m-%d %H:%M:%S')} {text}\n")
+        if stream is not None:
+            stream.write(text + "\n")
+            stream.flush()
+
+    def write_data_summary(self, summary: dict[str, Any]) -> None:
+        atomic_write_text(self.data_summary,
+                          json.dumps(summary, indent=2, ensure_ascii=False) + "\n")
+
+    def open_loggers(self, stdout: bool, tensorboard: bool, stream: TextIO | None = None,
+                     enabled: bool = True) -> MultiLogger:
+        """metrics.jsonl always, TensorBoard and `stream` when asked; none at all when not
+        `enabled` (workers other than rank 0 write nothing)."""
+        if not enabled:
+            return MultiLogger([])
+        backends: Sequence[str] = (["stdout"] if stdout else []) + ["jsonl"] + \
+            (["tensorboard"] if tensorboard else [])
+        return open_loggers(self.path, backends, stream)

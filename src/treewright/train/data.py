@@ -1,0 +1,145 @@
+"""The training data: the corpora of a config read and encoded (or sentences given in memory),
+and the memory budget that decides which sentences one engine call can hold."""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Sequence
+
+import torch
+
+from treewright.corpus import ReadOptions, read_corpus
+from treewright.engine.memory import inside_outside_bytes
+from treewright.errors import InputError
+from treewright.params import PARAMETERIZATIONS
+from treewright.trees import Tree
+from treewright.train.config import TrainConfig
+from treewright.train.distributed import StreamedCorpus
+
+
+@dataclass
+class TrainData:
+    """Word ids of the training and dev sentences, and what the trainer needs beside them."""
+    vocab: object
+    train_ids: list[list[int]] | StreamedCorpus   # StreamedCorpus with data.stream_chunk
+    brackets: list[list[tuple[int, int]]] | None     # per training sentence, when constrained
+    dev_ids: list[list[int]]
+    dev_words: list[list[str]]
+    dev_trees: list[Tree] | None
+    notes: list[str]
+
+
+def _brackets_of(tree: Tree) -> list[tuple[int, int]]:
+    n = len(tree.leaves())
+    return sorted({(i, j) for i, j, _ in tree.labeled_spans() if j - i >= 2 and (i, j) != (0, n)})
+
+
+def load_data(cfg: TrainConfig) -> TrainData:
+    """Read the corpora of `cfg.data` (InputError on bad files), encode them with the training
+    vocabulary, and collect the partial brackets when `constraints.train_brackets` asks."""
+    d = cfg.data
+    drop = frozenset(t.strip() for t in (d.drop_tags or "").split(",") if t.strip())
+    options = ReadOptions(lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
+                          max_length=d.max_length, min_count=d.min_count,
+                          max_vocab=d.max_vocab, punct_labels=drop)
+    if d.stream_chunk is not None:
+        train = StreamedCorpus(d.train, d.format, options, d.stream_chunk)
+    else:
+        train = read_corpus(d.train, d.format, options)
+    notes = ["training corpus: " + train.report.format().replace("\n", "; ")]
+    vocab = train.vocabulary
+    brackets = None
+    if cfg.constraints.train_brackets:
+        if any(s.tree is None for s in train.sentences):
+            raise InputError("constraints.train_brackets needs trees in the training corpus "
+                             "(bracketed trees or CoNLL-U)", path=str(d.train))
+        brackets = [_brackets_of(s.tree) for s in train.sentences]
+        notes.append(f"partial brackets: {sum(map(len, brackets))} over "
+                     f"{len(brackets)} sentences")
+    dev_ids: list[list[int]] = []
+    dev_words: list[list[str]] = []
+    dev_trees = None
+    if d.dev is not None:
+        dev = read_corpus(d.dev, d.format, ReadOptions(
+            lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
+            max_length=d.max_length, vocabulary=vocab, punct_labels=drop))
+        notes.append("dev corpus: " + dev.report.format().replace("\n", "; "))
+        dev_ids = [dev.encode(s) for s in dev.sentences]
+        dev_words = [list(s.words) for s in dev.sentences]
+        if all(s.tree is not None for s in dev.sentences):
+            dev_trees = [s.tree for s in dev.sentences]
+    train_ids = train if d.stream_chunk is not None else \
+        [train.encode(s) for s in train.sentences]
+    return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes)
+
+
+def summary(data: TrainData) -> dict:
+    """What the readers reported, as data (the run folder's data_summary.json)."""
+    train = data.train_ids
+    return {"notes": list(data.notes), "vocabulary": len(data.vocab),
+            "train_sentences": len(train),
+            "train_words": None if isinstance(train, StreamedCorpus) else sum(map(len, train)),
+            "dev_sentences": len(data.dev_ids), "dev_words": sum(map(len, data.dev_ids)),
+            "dev_trees": data.dev_trees is not None}
+
+
+class MemoryBudget:
+    """The per-sentence cost of one inside-outside call (`engine.memory`), the budget in bytes
+    (None: no budget) and the longest sentence that fits it alone."""
+
+    def __init__(self, cfg: TrainConfig, dtype: torch.dtype):
+        m = cfg.model
+        self.sizes = (m.nonterminals, m.preterminals, torch.finfo(dtype).bits // 8)
+        self.shape = PARAMETERIZATIONS[m.parameterization].memory_shape(m)
+        mb = cfg.train.memory_budget_mb
+        self.max_bytes = None if mb is None else mb * 2 ** 20
+
+    def sentence_bytes(self, length: int) -> float:
+        nt, t, itemsize = self.sizes
+        return inside_outside_bytes(1, length, nt, t, itemsize, **self.shape)
+
+    @functools.cached_property
+    def max_length(self) -> float:
+        if self.max_bytes is None:
+            return math.inf
+        length = 0
+        while length < 100_000 and self.sentence_bytes(length + 1) <= self.max_bytes:
+            length += 1
+        return length
+
+
+def data_from_sentences(cfg: TrainConfig, sentences: Sequence[Sequence[str]],
+                        dev: Sequence[Sequence[str]] | None = None,
+                        dev_trees: Sequence[Tree] | None = None) -> TrainData:
+    """`load_data` for token lists in memory (`dev`: token lists, or `dev_trees`: gold trees).
+    They go through the corpus readers exactly as files would (one sentence a line, trees in
+    brackets, in a temporary folder), so that the options of `cfg.data` apply alike and a
+    grammar fitted from memory is the one the same files give."""
+    if dev is not None and dev_trees is not None:
+        raise ValueError("give dev sentences or dev trees, not both")
+    for name, part in (("sentences", sentences), ("dev", dev or [])):
+        for k, tokens in enumerate(part):
+            if not tokens or any(not t or any(c.isspace() for c in t) for t in tokens):
+                raise InputError(f"{name}[{k}] is empty or has a token that is empty or holds "
+                                 "white space", path=f"<{name}>", line=k + 1)
+    with tempfile.TemporaryDirectory(prefix="treewright-data-") as folder:
+        train_path = Path(folder) / "train.txt"
+        train_path.write_text("".join(" ".join(s) + "\n" for s in sentences), encoding="utf-8")
+        dev_path = None
+        if dev is not None:
+            dev_path = Path(folder) / "dev.txt"
+            dev_path.write_text("".join(" ".join(s) + "\n" for s in dev), encoding="utf-8")
+        elif dev_trees is not None:
+            dev_path = Path(folder) / "dev.trees"
+            dev_path.write_text("".join(t.to_string() + "\n" for t in dev_trees),
+                                encoding="utf-8")
+        fmt = cfg.data.format if dev_path is None or dev_trees is None else "auto"
+        data_options = dataclasses.replace(cfg.data, train=str(train_path), format=fmt,
+                                           dev=None if dev_path is None else str(dev_path),
+                                           stream_chunk=None)
+        return load_data(dataclasses.replace(cfg, data=data_options))
