@@ -18,7 +18,7 @@ import torch
 
 from treewright import inference
 from treewright.decode import (coarse_name, decode, max_rule_product, mbr_decode, mbr_spans,
-                               sentence_tables, tree_logprob_summed)
+                               span_tables, tree_logprob_summed)
 from _grammars import random_grammar
 from treewright.grammar import Grammar
 from treewright.trees import Tree
@@ -67,7 +67,7 @@ def all_trees(g: Grammar, words):
                     yield math.exp(logp), nodes, leaves, label[(0, n)]
 
 
-REFINED = make_grammar(["S@0", "S@1", "X@0"], ["P@0", "P@1", "Q@0"], 3, seed=7)
+REFINED = make_grammar(["S·0", "S·1", "X·0"], ["P·0", "P·1", "Q·0"], 3, seed=7)
 SENTENCES = [["w0", "w1"], ["w2", "w0", "w1"], ["w1", "w2", "w0", "w1"]]
 
 
@@ -87,7 +87,7 @@ def test_label_marginals_match_enumeration():
     # Brute force: p(symbol over span | sentence) summed over the trees that contain it.
     g = make_grammar(["A", "B"], ["P", "R"], 3, seed=1, nt_emit=True)
     words = ["w2", "w0", "w1", "w0"]
-    tables = sentence_tables(g, [words])[0]
+    tables = span_tables(g, [words])
     expect = defaultdict(float)
     total = 0.0
     for p, nodes, leaves, _ in all_trees(g, words):
@@ -96,8 +96,8 @@ def test_label_marginals_match_enumeration():
             expect[(i, j, a)] += p
         for i, x in enumerate(leaves):
             expect[(i, i + 1, x)] += p
-    assert tables.logz == pytest.approx(math.log(total), abs=1e-10)
-    marg = tables.label_marginals()
+    assert float(tables.logz[0]) == pytest.approx(math.log(total), abs=1e-10)
+    marg = tables.marginals[0]
     n = len(words)
     for i in range(n):
         for j in range(i + 1, n + 1):
@@ -179,12 +179,12 @@ def coarse_objective(g, words):
 def test_max_rule_product_matches_enumeration():
     for words in SENTENCES:
         expect_value, expect_spans = coarse_objective(REFINED, words)
-        tables = sentence_tables(REFINED, [words])[0]
-        spans, value = max_rule_product(REFINED, tables, len(words))
+        tables = span_tables(REFINED, [words])
+        (spans, value), = max_rule_product(REFINED, tables, [len(words)])
         assert value == pytest.approx(expect_value, abs=1e-9)
         assert sorted(spans) == expect_spans
         result = decode(REFINED, [words], "max-rule-product")[0]
-        assert all("@" not in label for _, _, label in result.tree.labeled_spans())
+        assert all("·" not in label for _, _, label in result.tree.labeled_spans())
 
 
 def test_summed_tree_probability_over_refinements():

@@ -116,3 +116,33 @@ def test_sampler_tree_frequencies_match_the_exact_posterior():
                                              if small else [])
     assert len(big) >= 10
     assert chisquare(obs, exp).pvalue > 0.001
+
+
+@pytest.mark.parametrize("nt,t,nt_emit", [(3, 2, False), (2, 1, True), (2, 0, True)])
+def test_label_marginals_of_a_batch_match_enumeration(nt, t, nt_emit):
+    # Brute force: p(symbol over span | sentence) summed over the enumerated trees that have it,
+    # for sentences of different lengths in one batch (t = 0: no pure preterminal).
+    grammar = random_grammar(nt, t, 3, seed=7 * nt + t, nt_emit=nt_emit)
+    sentences = [_sentence(grammar, n, seed=n) for n in (4, 2, 3)]
+    enc = encode(grammar, sentences, torch.float64)
+    tables = engine.span_tables(grammar.root, grammar.binary, enc.terminal, enc.lengths,
+                                enc.nt_terminal)
+    for b, words in enumerate(sentences):
+        brute = summary(grammar, words)
+        n = len(words)
+        expect = torch.zeros(n + 1, n + 1, grammar.num_symbols, dtype=torch.float64)
+        for lp, spans, _ in brute["trees"]:
+            for i, j, a in spans:
+                expect[i, j - i, a] += math.exp(lp - brute["logz"])
+        assert float(tables.logz[b]) == pytest.approx(brute["logz"], rel=1e-10)
+        torch.testing.assert_close(tables.marginals[b, :n + 1, :n + 1], expect,
+                                   atol=1e-10, rtol=1e-8)
+        torch.testing.assert_close(tables.marginals[b, n + 1:], torch.zeros_like(
+            tables.marginals[b, n + 1:]))
+        # inside + outside (over Z) is the log marginal wherever a symbol can be (the
+        # definition of the outside score); spans summed over labels are the span posteriors.
+        both = tables.inside[b, :n + 1, :n + 1, :nt] + tables.outside[b, :n + 1, :n + 1]
+        torch.testing.assert_close(both.exp(), expect[..., :nt], atol=1e-10, rtol=1e-8)
+        spans = tables.marginals[b, :, :, :nt].sum(-1)
+        spans[:, 1] = 0.0
+        torch.testing.assert_close(spans[:n + 1, :n + 1], brute["spans"], atol=1e-10, rtol=1e-8)

@@ -28,29 +28,29 @@ from treewright.trees import Tree
 REPO = Path(__file__).resolve().parents[1]
 
 # A fine grammar written for these tests: subjects and objects are both NP, but subject nouns
-# and object nouns are different words, and NP@1 (object) takes an adjective sometimes. The
+# and object nouns are different words, and NP·1 (object) takes an adjective sometimes. The
 # coarse labels (NP, N) hide that; refinement should find it again.
 FINE = """
 @start S
-S -> NP@0 VP 1.0
-VP -> V NP@1 0.8
-VP -> V NP@0 0.2
-NP@0 -> D N@0 1.0
-NP@1 -> D N@1 0.6
-NP@1 -> A N@1 0.4
+S -> NP·0 VP 1.0
+VP -> V NP·1 0.8
+VP -> V NP·0 0.2
+NP·0 -> D N·0 1.0
+NP·1 -> D N·1 0.6
+NP·1 -> A N·1 0.4
 D -> "ta" 0.5
 D -> "ko" 0.5
 A -> "lum" 1.0
 V -> "gash" 0.5
 V -> "vor" 0.5
-N@0 -> "mira" 0.4
-N@0 -> "sel" 0.3
-N@0 -> "dun" 0.2
-N@0 -> "pok" 0.1
-N@1 -> "rab" 0.4
-N@1 -> "kesh" 0.3
-N@1 -> "ulm" 0.2
-N@1 -> "pok" 0.1
+N·0 -> "mira" 0.4
+N·0 -> "sel" 0.3
+N·0 -> "dun" 0.2
+N·0 -> "pok" 0.1
+N·1 -> "rab" 0.4
+N·1 -> "kesh" 0.3
+N·1 -> "ulm" 0.2
+N·1 -> "pok" 0.1
 """
 
 
@@ -238,7 +238,7 @@ def test_refinement_recovers_most_of_the_fine_grammar(fine_grammar, coarse_sampl
 
 
 def test_refined_grammar_text_round_trip_and_score(coarse_sample):
-    # Source: brute force in the sense of two independent computations: the exported NAME@k
+    # Source: brute force in the sense of two independent computations: the exported NAME·k
     # grammar, loaded by the grammar text format and scored by the engine over all trees,
     # gives the same sentence likelihood as the refiner's own raw-text pass; and reloading
     # restores the same subcategories and rules (the format prints 17 significant digits).
@@ -248,7 +248,7 @@ def test_refined_grammar_text_round_trip_and_score(coarse_sample):
                          CycleSettings(em_iterations=5, smoothed_iterations=1),
                          torch.Generator().manual_seed(0))
     text = refined.to_grammar().to_text()
-    assert "NP@1" in text
+    assert "NP·1" in text
     loaded = parse_grammar(text)
     again = latent_from_grammar(loaded)
     assert again.splits.tolist() == [int(refined.splits[refined.symbols.index(s)])

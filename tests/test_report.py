@@ -284,16 +284,16 @@ def test_turkish_examples_are_named_by_sent_id(tmp_path):
 
 
 REFINED = """@start ROOT
-ROOT -> S@0 0.5
-ROOT -> S@1 0.5
-S@0 -> A@0 Q@0 0.5
-S@0 -> P@0 A@0 0.5
-S@1 -> A@0 Q@0 0.2
-S@1 -> P@0 A@0 0.8
-A@0 -> P@0 Q@0 0.6
-A@0 -> Q@0 P@0 0.4
-P@0 -> "ka" 1.0
-Q@0 -> "lo" 1.0
+ROOT -> S·0 0.5
+ROOT -> S·1 0.5
+S·0 -> A·0 Q·0 0.5
+S·0 -> P·0 A·0 0.5
+S·1 -> A·0 Q·0 0.2
+S·1 -> P·0 A·0 0.8
+A·0 -> P·0 Q·0 0.6
+A·0 -> Q·0 P·0 0.4
+P·0 -> "ka" 1.0
+Q·0 -> "lo" 1.0
 """
 
 
@@ -326,12 +326,12 @@ def test_refine_run_shows_held_out_f1_and_decodes_with_max_rule_product(tmp_path
     # carry the coarse labels (S, A, P, Q), never subcategories.
     assert "decoded with max-rule-product, the decoder for refined grammars" in text
     page = Page(text)
-    assert not any("@" in d for d in page.tree_labels)
+    assert not any("·" in d for d in page.tree_labels)
     # No card says "root 0.000": the root probability is shown only where it is not zero, and
     # a small one keeps a significant digit.
     assert "root 0.000" not in text
-    (run / "grammar.pcfg").write_text(REFINED.replace("ROOT -> S@0 0.5", "ROOT -> S@0 0.0002")
-                                      .replace("ROOT -> S@1 0.5", "ROOT -> S@1 0.9998"),
+    (run / "grammar.pcfg").write_text(REFINED.replace("ROOT -> S·0 0.5", "ROOT -> S·0 0.0002")
+                                      .replace("ROOT -> S·1 0.5", "ROOT -> S·1 0.9998"),
                                       encoding="utf-8")
     small = build_report(run, gold=gold)
     assert "root 0.000" not in small and "root 2e-04" in small
@@ -376,15 +376,15 @@ def test_refined_treebank_trees_are_shown_and_scored_without_the_cnf_nodes(tmp_p
     run = tmp_path / "refine"
     run.mkdir()
     (run / "grammar.pcfg").write_text(
-        "@start ROOT\nROOT -> S@0 1.0\nS@0 -> X@0 D@0 1.0\nX@0 -> A@0 \u00a4X@0 1.0\n"
-        "\u00a4X@0 -> B@0 C@0 1.0\n"
-        'A@0 -> "ka" 1.0\nB@0 -> "lo" 1.0\nC@0 -> "mi" 1.0\nD@0 -> "su" 1.0\n',
+        "@start ROOT\nROOT -> S·0 1.0\nS·0 -> X·0 D·0 1.0\nX·0 -> A·0 \u00a4X·0 1.0\n"
+        "\u00a4X·0 -> B·0 C·0 1.0\n"
+        'A·0 -> "ka" 1.0\nB·0 -> "lo" 1.0\nC·0 -> "mi" 1.0\nD·0 -> "su" 1.0\n',
         encoding="utf-8")
     (run / "config.yaml").write_text("refine:\n  cycles: 1\n", encoding="utf-8")
     gold = tmp_path / "gold.trees"
     gold.write_text("(S (X (A ka) (B lo) (C mi)) (D su))\n", encoding="utf-8")
     page = Page(build_report(run, gold=gold))
-    assert not any("\u00a4" in label or "@" in label for label in page.tree_labels)
+    assert not any("\u00a4" in label or "·" in label for label in page.tree_labels)
     assert page.tree_labels.count("X") == 2          # predicted and gold
     cells = page.data
     model = cells.index("model")

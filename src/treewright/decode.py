@@ -7,12 +7,13 @@
   is then labeled with its most probable symbol.
 - `max-rule-product`: for refined grammars, the tree of coarse categories that maximizes the
   product of its anchored coarse-rule posteriors (Petrov & Klein 2007, "Improved Inference for
-  Unlexicalized Parsing", section 3). A refined grammar names its subcategories `NAME@k`; the
-  coarse symbol is the part before the last '@'. Symbols without '@' are their own coarse symbol,
-  so on an unrefined grammar this is max-rule-product over the grammar's own symbols.
+  Unlexicalized Parsing", section 3). A refined grammar names its subcategories `NAME·k`, and
+  `grammar.coarse_name` maps them to `NAME`; other symbols are their own coarse symbol, so on an
+  unrefined grammar this is max-rule-product over the grammar's own symbols.
 
-The labeled marginals and anchored rule posteriors come from `outside_table`, a log-space outside
-pass over the engine's inside chart for one sentence.
+The labeled marginals, inside and outside scores come from `engine.span_tables` (the engine's
+own outside pass, batched); both decoders then work one span width at a time over every span of
+every sentence of a batch.
 """
 
 from __future__ import annotations
@@ -26,7 +27,7 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.corpus.batching import length_batches
-from treewright.grammar import Grammar
+from treewright.grammar import Grammar, coarse_name
 from treewright.inference import encode, spans_to_tree
 from treewright.trees import Tree, tree_from_spans
 
@@ -41,38 +42,43 @@ def mbr_spans(span_marginals: Tensor, length: int) -> list[tuple[int, int]]:
         sentence (N >= length). Ties go to the leftmost split, so the result is deterministic.
     Returns n - 1 spans, the whole sentence included, for n >= 2; [] for one word.
     """
-    n = length
-    if n < 2:
-        return []
-    gain = span_marginals.double().tolist()
-    best: dict[tuple[int, int], float] = {(i, i + 1): 0.0 for i in range(n)}
-    split: dict[tuple[int, int], int] = {}
-    for width in range(2, n + 1):
-        for i in range(0, n - width + 1):
-            j = i + width
-            k_best, v_best = i + 1, float("-inf")
-            for k in range(i + 1, j):
-                v = best[(i, k)] + best[(k, j)]
-                if v > v_best:
-                    k_best, v_best = k, v
-            best[(i, j)] = v_best + gain[i][width]
-            split[(i, j)] = k_best
-    out: list[tuple[int, int]] = []
-    stack = [(0, n)]
-    while stack:
-        i, j = stack.pop()
-        if j - i < 2:
-            continue
-        out.append((i, j))
-        k = split[(i, j)]
-        stack.extend([(k, j), (i, k)])
+    return mbr_spans_batch(span_marginals[None], [length])[0]
+
+
+def mbr_spans_batch(span_marginals: Tensor, lengths: Sequence[int]
+                    ) -> list[list[tuple[int, int]]]:
+    """`mbr_spans` for a batch: span_marginals (B, N+1, N+1), one list of spans per sentence.
+
+    A CKY over the span scores (Goodman 1996), one width at a time for every span of every
+    sentence: best[i, w] = gain[i, w] + max over splits u of best[i, u] + best[i+u, w-u].
+    """
+    gain = span_marginals.double()
+    B, N1, _ = gain.shape
+    N = max(lengths, default=0)
+    best = torch.zeros(B, N1, N1, dtype=torch.float64)           # width one scores nothing
+    split = torch.zeros(B, N1, N1, dtype=torch.long)
+    for w in range(2, N + 1):
+        P = N - w + 1
+        us = torch.arange(1, w)
+        starts = torch.arange(P)[:, None] + us[None, :]              # (P, U)
+        options = best[:, 0:P][:, :, us] + best[:, starts, w - us]   # (B, P, U)
+        value, arg = options.max(-1)                                 # the first best: leftmost
+        best[:, 0:P, w] = value + gain[:, 0:P, w]
+        split[:, 0:P, w] = arg + 1
+    splits = split.tolist()
+    out = []
+    for b, n in enumerate(lengths):
+        spans: list[tuple[int, int]] = []
+        stack = [(0, n)] if n >= 2 else []
+        while stack:
+            i, j = stack.pop()
+            if j - i < 2:
+                continue
+            spans.append((i, j))
+            k = i + splits[b][i][j - i]
+            stack.extend([(k, j), (i, k)])
+        out.append(spans)
     return out
-
-
-def coarse_name(symbol: str) -> str:
-    """`NP@1` -> `NP`: the part before the last '@' (the whole name if there is none)."""
-    head, sep, _ = symbol.rpartition("@")
-    return head if sep else symbol
 
 
 @dataclass
@@ -93,85 +99,13 @@ class Decoded:
         return math.exp(self.tree_logprob - self.log_likelihood)
 
 
-@dataclass
-class SentenceTables:
-    """Log inside and outside scores of every symbol over every span of one sentence."""
-    inside: Tensor     # (n+1, n+1, S) [start, width, symbol]; -inf where impossible
-    outside: Tensor    # (n+1, n+1, S)
-    logz: float        # log p(sentence)
-
-    def label_marginals(self) -> Tensor:
-        """(n+1, n+1, S) p(symbol spans [start, width] | sentence)."""
-        return (self.inside + self.outside - self.logz).exp().nan_to_num(0.0)
-
-
-def _inside_table(chart: engine.Chart, b: int, n: int, nt: int, t: int) -> Tensor:
-    """(n+1, n+1, S) log inside scores read from the engine's chart for sentence b."""
-    table = chart.term.new_full((n + 1, n + 1, nt + t), NEG_INF)
-    for i in range(n):
-        table[i, 1, nt:] = chart.log_term(i, b)
-        if chart.min_width == 1:
-            table[i, 1, :nt] = chart.log_inside(i, 1, b)
-    for w in range(2, n + 1):
-        for i in range(n - w + 1):
-            table[i, w, :nt] = chart.log_inside(i, w, b)
-    return table
-
-
-def outside_table(root: Tensor, binary: Tensor, inside: Tensor, n: int) -> Tensor:
-    """(n+1, n+1, S) log outside scores of one sentence, top-down from the root.
-
-    root (NT,) and binary (NT, S, S) are log-probabilities; inside is `_inside_table`'s output.
-    Per span, the parent's outside is folded into the rules once, G[B, C] = logsumexp_A(O[A] +
-    log p(A -> B C)), so each split costs S^2 rather than NT S^2.
-    """
-    nt = binary.shape[0]
-    outside = torch.full_like(inside, NEG_INF)
-    outside[0, n, :nt] = root
-    for w in range(n, 1, -1):
-        for i in range(n - w + 1):
-            parent = outside[i, w, :nt]                                  # (NT,)
-            if not torch.isfinite(parent).any():
-                continue
-            folded = torch.logsumexp(parent[:, None, None] + binary, 0)  # (S, S)
-            us = torch.arange(1, w)
-            left_in = inside[i, us]                                      # (w-1, S)
-            right_in = inside[i + us, w - us]                            # (w-1, S)
-            to_left = torch.logsumexp(folded[None] + right_in[:, None, :], -1)   # (w-1, S)
-            to_right = torch.logsumexp(folded[None] + left_in[:, :, None], -2)   # (w-1, S)
-            outside[i, us] = torch.logaddexp(outside[i, us], to_left)
-            outside[i + us, w - us] = torch.logaddexp(outside[i + us, w - us], to_right)
-    return outside
-
-
-def sentence_tables(grammar: Grammar, sentences: Sequence[Sequence[str]],
-                    dtype: torch.dtype = torch.float64) -> list[SentenceTables | None]:
-    """Inside/outside tables per sentence (None when the sentence has no parse)."""
+def span_tables(grammar: Grammar, sentences: Sequence[Sequence[str]],
+                dtype: torch.dtype = torch.float64) -> engine.SpanTables:
+    """The engine's batched label marginals, log inside and log outside (over Z) tables of
+    every symbol over every span of the sentences (see `engine.SpanTables`)."""
     enc = encode(grammar, sentences, dtype)
-    root, binary = grammar.root.to(dtype), grammar.binary.to(dtype)
-    nt, t = len(grammar.nonterminals), len(grammar.preterminals)
-    with torch.no_grad():
-        logz = engine.log_partition(root, binary, enc.terminal, enc.lengths, enc.nt_terminal)
-        chart = engine.inside_chart(binary, *_padded(enc))
-    out: list[SentenceTables | None] = []
-    for b, words in enumerate(sentences):
-        if not torch.isfinite(logz[b]):
-            out.append(None)
-            continue
-        n = len(words)
-        inside = _inside_table(chart, b, n, nt, t)
-        out.append(SentenceTables(inside, outside_table(root, binary, inside, n), float(logz[b])))
-    return out
-
-
-def _padded(enc):
-    """Terminal scores with probability-one emissions past each length (as the engine pads)."""
-    N = enc.terminal.shape[1]
-    pad = torch.arange(N)[None, :] >= enc.lengths[:, None]                # (B, N)
-    terminal = enc.terminal.masked_fill(pad[..., None], 0.0)
-    nt_terminal = None if enc.nt_terminal is None else \
-        enc.nt_terminal.masked_fill(pad[..., None], 0.0)
-    return terminal, nt_terminal
+    return engine.span_tables(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
+                              enc.lengths, enc.nt_terminal)
 
 
 def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
@@ -185,9 +119,71 @@ def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
     return list(names), member
 
 
-def max_rule_product(grammar: Grammar, tables: SentenceTables, n: int
-                     ) -> tuple[list[tuple[int, int, str]], float]:
-    """The coarse tree maximizing the product of anchored coarse-rule posteriors.
+def _shifted(log_x: Tensor) -> tuple[Tensor, Tensor]:
+    """exp(log_x - m) and m, m the maximum over the last axis (0 where all are -inf)."""
+    m = log_x.amax(-1, keepdim=True)
+    m = m.masked_fill(~torch.isfinite(m), 0.0)
+    return (log_x - m).exp(), m.squeeze(-1)
+
+
+@dataclass
+class _CoarseRules:
+    """The coarse binary rules of a grammar with their blocks of fine probabilities.
+
+    Fine symbols are laid out by coarse symbol: `slots` (K, G) holds the fine indices of each
+    coarse symbol's G subcategory slots, S (one past the last symbol) in unused slots. Only the
+    R coarse rules x -> y z with some fine rule of positive probability are kept, sorted by
+    (x, y, z); `by_parent` lists each parent's rules in that order, padded with R (a rule of
+    probability zero), so that the best rule of every parent is one max over a padded axis.
+    """
+    names: list[str]    # K coarse symbols; the first Kp have nonterminal subcategories
+    slots: Tensor       # (K, G) long
+    member: Tensor      # (S, K) 0/1
+    parents: Tensor     # (R,) x of each rule
+    lefts: Tensor       # (R,) y
+    rights: Tensor      # (R,) z
+    blocks: Tensor      # (R, G, G, G) [r, a, b, c] = p(x_a -> y_b z_c)
+    by_parent: Tensor   # (Kp, M) rule indices, R where padded
+
+
+def _coarse_rules(grammar: Grammar, dtype: torch.dtype) -> _CoarseRules:
+    names, member = coarse_groups(grammar.symbols)
+    S, K = member.shape
+    coarse_of = member.argmax(1)                                    # (S,)
+    sub_of = torch.zeros(S, dtype=torch.long)                       # slot within its group
+    G = int(member.sum(0).max())
+    slots = torch.full((K, G), S, dtype=torch.long)
+    for k in range(K):
+        fine = member[:, k].nonzero().flatten()
+        slots[k, :len(fine)] = fine
+        sub_of[fine] = torch.arange(len(fine))
+    prob = grammar.binary.to(dtype).exp()                           # (NT, S, S)
+    a, b, c = prob.gt(0).nonzero(as_tuple=True)
+    keys = (coarse_of[a] * K + coarse_of[b]) * K + coarse_of[c]
+    unique, rule_of = torch.unique(keys, return_inverse=True)       # sorted by (x, y, z)
+    R = len(unique)
+    blocks = prob.new_zeros(R, G, G, G)
+    blocks[rule_of, sub_of[a], sub_of[b], sub_of[c]] = prob[a, b, c]
+    parents, lefts, rights = unique // (K * K), unique // K % K, unique % K
+    nt_groups = int(coarse_of[:len(grammar.nonterminals)].max()) + 1 if grammar.nonterminals \
+        else 0  # groups appear in symbol order, nonterminals first
+    counts = torch.bincount(parents, minlength=nt_groups)
+    by_parent = torch.full((nt_groups, max(1, int(counts.max()) if R else 1)), R,
+                           dtype=torch.long)
+    first = torch.cumsum(counts, 0) - counts
+    for x in range(nt_groups):
+        by_parent[x, :int(counts[x])] = torch.arange(int(first[x]), int(first[x] + counts[x]))
+    return _CoarseRules(names, slots, member.to(dtype), parents, lefts, rights, blocks,
+                        by_parent)
+
+
+MRP_CHUNK = 2 ** 22  # elements of the largest temporary per chunk of parent spans
+
+
+def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
+                     ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
+    """Per sentence, the coarse tree maximizing the product of anchored coarse-rule posteriors
+    (None for a sentence with no parse).
 
     Petrov & Klein 2007, "Improved Inference for Unlexicalized Parsing", section 3: with
     r(A -> B C, i, k, j) = O(A, i, j) p(A -> B C) I(B, i, k) I(C, k, j) / p(sentence), the coarse
@@ -195,47 +191,85 @@ def max_rule_product(grammar: Grammar, tables: SentenceTables, n: int
     score multiplies q over its binary nodes, the coarse label posterior of each word's
     preterminal (its lexical rule), and the posterior of the top label (the root rule).
     Returns the labeled spans (start, end, coarse label), words included, and the log score.
+
+    Batched: one width at a time, every span of every sentence and every split together, and
+    only the coarse rules that exist (see `_CoarseRules`). Inside and outside scores are taken
+    out of log space per cell (divided by the cell's largest), so the sums over subcategories
+    are plain products; the cells' log maxima are added back to log q. Ties go to the first
+    split, then the first (left, right) pair. Shapes: rows = (sentence, start) pairs of one
+    width, U = w - 1 splits, R coarse rules, G subcategory slots, Kp coarse parents.
     """
+    dtype = tables.inside.dtype
+    cr = _coarse_rules(grammar, dtype)
+    names = cr.names
+    K, G = cr.slots.shape
+    Kp, M = cr.by_parent.shape
+    B, N1, _, S = tables.inside.shape
+    N = N1 - 1
     nt = len(grammar.nonterminals)
-    names, member = coarse_groups(grammar.symbols)               # member (S, K)
-    member = member.to(tables.inside.dtype)
-    K = len(names)
-    binary = grammar.binary.to(tables.inside.dtype)
-    marg = tables.label_marginals()                              # (n+1, n+1, S)
-    coarse_marg = marg @ member                                  # (n+1, n+1, K)
-    best = torch.full((n + 1, n + 1, K), NEG_INF, dtype=member.dtype)
-    back: dict[tuple[int, int, int], tuple[int, int, int]] = {}
-    best[:n, 1] = coarse_marg[:n, 1].log()
-    parent_member = member[:nt]                                  # (NT, K)
-    for w in range(2, n + 1):
+    coarse_marg = tables.marginals @ cr.member                          # (B, N+1, N+1, K)
+    best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
+    best[:, :, 1] = coarse_marg[:, :, 1].log()
+    back = torch.zeros(B, N1, N1, K, 3, dtype=torch.long)               # split, left, right
+    pad = torch.full((B, N1, N1, S + 1 - nt), NEG_INF, dtype=dtype)
+    outside = torch.cat([tables.outside, pad], -1)[..., cr.slots]        # (B, N+1, N+1, K, G)
+    inside = torch.cat([tables.inside, pad[..., :1]], -1)[..., cr.slots]
+    # The parent's, left child's and right child's coarse symbol of each padded rule slot.
+    pick_y = torch.cat([cr.lefts, torch.zeros(1, dtype=torch.long)])[cr.by_parent]   # (Kp, M)
+    pick_z = torch.cat([cr.rights, torch.zeros(1, dtype=torch.long)])[cr.by_parent]
+    for w in range(2, N + 1):
+        P, U = N - w + 1, w - 1
         us = torch.arange(1, w)
-        for i in range(n - w + 1):
-            left_in = tables.inside[i, us]                       # (w-1, S)
-            right_in = tables.inside[i + us, w - us]             # (w-1, S)
-            # (w-1, NT, S, S) anchored fine rule posteriors r(A -> B C, i, i+u, i+w)
-            fine = (tables.outside[i, w, :nt, None, None] + binary
-                    + left_in[:, None, :, None] + right_in[:, None, None, :] - tables.logz).exp()
-            coarse = torch.einsum("uabc,ax,by,cz->uxyz", fine, parent_member, member, member)
-            children = best[i, us][:, None, :, None] + best[i + us, w - us][:, None, None, :]
-            total = coarse.log() + children                      # (w-1, K, K, K)
-            flat = total.permute(1, 0, 2, 3).reshape(K, -1)      # (K, (w-1) K K)
-            value, arg = flat.max(-1)
-            best[i, w] = value
-            for x in range(K):
-                if value[x] > NEG_INF:
-                    u, y, z = torch.unravel_index(arg[x], (w - 1, K, K))
-                    back[(i, w, x)] = (int(u) + 1, int(y), int(z))
-    top_scores = best[0, n] + coarse_marg[0, n].log()
-    top = int(top_scores.argmax())
-    spans: list[tuple[int, int, str]] = []
-    stack = [(0, n, top)]
-    while stack:
-        i, w, x = stack.pop()
-        spans.append((i, i + w, names[x]))
-        if w > 1:
-            u, y, z = back[(i, w, x)]
-            stack.extend([(i + u, w - u, z), (i, u, y)])
-    return spans, float(top_scores[top])
+        starts = torch.arange(P)[:, None] + us[None, :]                 # (P, U) right starts
+        rows_all = B * P
+        parent, m_par = _shifted(outside[:, 0:P, w].flatten(-2))        # (B, P, K*G)
+        left, m_left = _shifted(inside[:, 0:P][:, :, us].flatten(-2))   # (B, P, U, K*G)
+        right, m_right = _shifted(inside[:, starts, w - us].flatten(-2))
+        shift = (m_par[..., None] + m_left + m_right).view(rows_all, U)
+        parent = parent.view(rows_all, K, G)
+        left, right = left.view(rows_all, U, K, G), right.view(rows_all, U, K, G)
+        left_best = best[:, 0:P][:, :, us].reshape(rows_all, U, K)
+        right_best = best[:, starts, w - us].reshape(rows_all, U, K)
+        value = torch.full((rows_all, Kp), NEG_INF, dtype=dtype)
+        arg = torch.zeros(rows_all, Kp, dtype=torch.long)
+        chunk = max(1, MRP_CHUNK // (U * len(cr.parents) * G * G + 1))
+        for r0 in range(0, rows_all, chunk):
+            r1 = min(rows_all, r0 + chunk)
+            # The parent's outside folded into each rule block once per span, (rows, R, G, G),
+            # then each split's children: q (rows, U, R), the anchored coarse-rule posteriors.
+            folded = torch.einsum("rabc,ira->irbc", cr.blocks, parent[r0:r1][:, cr.parents])
+            q = torch.einsum("irbc,iurb->iurc", folded, left[r0:r1][:, :, cr.lefts])
+            q = (q * right[r0:r1][:, :, cr.rights]).sum(-1)
+            q = torch.cat([q, q.new_zeros(r1 - r0, U, 1)], -1)[..., cr.by_parent]  # (.., Kp, M)
+            total = q.log() + shift[r0:r1, :, None, None] \
+                + left_best[r0:r1][:, :, pick_y] + right_best[r0:r1][:, :, pick_z]
+            flat = total.permute(0, 2, 1, 3).reshape(r1 - r0, Kp, U * M)
+            value[r0:r1], arg[r0:r1] = flat.max(-1)
+        best[:, 0:P, w, :Kp] = value.view(B, P, Kp)
+        u, slot = arg.div(M, rounding_mode="floor"), arg.remainder(M)
+        x = torch.arange(Kp)
+        back[:, 0:P, w, :Kp] = torch.stack([u + 1, pick_y[x, slot], pick_z[x, slot]],
+                                           -1).view(B, P, Kp, 3)
+    out: list = []
+    back_list = None
+    for b, n in enumerate(lengths):
+        if not bool(torch.isfinite(tables.logz[b])):
+            out.append(None)
+            continue
+        top_scores = best[b, 0, n] + coarse_marg[b, 0, n].log()
+        top = int(top_scores.argmax())
+        spans: list[tuple[int, int, str]] = []
+        stack = [(0, n, top)]
+        if back_list is None:
+            back_list = back.tolist()
+        while stack:
+            i, w, x = stack.pop()
+            spans.append((i, i + w, names[x]))
+            if w > 1:
+                u, y, z = back_list[b][i][w][x]
+                stack.extend([(i + u, w - u, z), (i, u, y)])
+        out.append((spans, float(top_scores[top])))
+    return out
 
 
 def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
@@ -297,42 +331,46 @@ def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
         return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if res is None else
                 Decoded(spans_to_tree(grammar, words, res[1]), float(z), res[0], res[0])
                 for words, res, z in zip(sentences, results, logz)]
+    tables = span_tables(grammar, sentences, dtype)
+    lengths = [len(words) for words in sentences]
     if decoder == "mbr":
-        return _mbr_batch(grammar, sentences, dtype)
+        results = _mbr_labeled(grammar, tables, lengths)
+    else:
+        results = max_rule_product(grammar, tables, lengths)
     out = []
-    for words, tables in zip(sentences, sentence_tables(grammar, sentences, dtype)):
-        if tables is None:
+    for b, (words, result) in enumerate(zip(sentences, results)):
+        if result is None:
             out.append(Decoded(None, NEG_INF, NEG_INF, NEG_INF))
             continue
-        spans, value = max_rule_product(grammar, tables, len(words))
-        tree = tree_from_spans(words, spans)
-        out.append(Decoded(tree, tables.logz, tree_logprob_summed(grammar, tree), value))
+        tree = tree_from_spans(words, result[0])
+        out.append(Decoded(tree, float(tables.logz[b]), tree_logprob_summed(grammar, tree),
+                           result[1]))
     return out
 
 
-def _mbr_batch(grammar, sentences, dtype) -> list[Decoded]:
-    enc = encode(grammar, sentences, dtype)
-    post = engine.posteriors(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
-                             enc.lengths, enc.nt_terminal)
+def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
+                 ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
+    """Per sentence, the MBR bracketing labeled by the most probable symbol of each span, and
+    its expected number of correct spans (None for a sentence with no parse)."""
     symbols = grammar.symbols
     nt = len(grammar.nonterminals)
-    out = []
-    for b, (words, tables) in enumerate(zip(sentences, sentence_tables(grammar, sentences,
-                                                                       dtype))):
-        if tables is None:
-            out.append(Decoded(None, NEG_INF, NEG_INF, NEG_INF))
+    spans_p = tables.marginals[..., :nt].sum(-1)                # (B, N+1, N+1)
+    brackets = mbr_spans_batch(spans_p, lengths)
+    # Wider spans take their most probable nonterminal, words their most probable symbol
+    # (a one-word sentence's single node must be a nonterminal: it is the top).
+    span_label = tables.marginals[..., :nt].argmax(-1).tolist()  # (B, N+1, N+1)
+    word_label = tables.marginals[:, :, 1].argmax(-1).tolist()   # (B, N+1)
+    gains = spans_p.tolist()
+    out: list = []
+    for b, (n, spans) in enumerate(zip(lengths, brackets)):
+        if not bool(torch.isfinite(tables.logz[b])):
+            out.append(None)
             continue
-        n = len(words)
-        marg = tables.label_marginals()                          # (n+1, n+1, S)
-        spans = mbr_spans(post.spans[b], n)                      # [] for one word
-        gain = sum((float(post.spans[b, i, j - i]) for i, j in spans), 0.0)
-        # Wider spans take their most probable nonterminal, words their most probable symbol
-        # (a one-word sentence's single node must be a nonterminal: it is the top).
-        labeled = [(i, j, symbols[int(marg[i, j - i, :nt].argmax())]) for i, j in spans]
-        word_labels = marg[:n, 1, :nt] if n == 1 else marg[:n, 1]
-        labeled += [(i, i + 1, symbols[int(word_labels[i].argmax())]) for i in range(n)]
-        tree = tree_from_spans(words, labeled)
-        out.append(Decoded(tree, tables.logz, tree_logprob_summed(grammar, tree), gain))
+        gain = sum((gains[b][i][j - i] for i, j in spans), 0.0)
+        labeled = [(i, j, symbols[span_label[b][i][j - i]]) for i, j in spans]
+        words = [span_label[b][0][1]] if n == 1 else word_label[b][:n]
+        labeled += [(i, i + 1, symbols[x]) for i, x in enumerate(words)]
+        out.append((labeled, gain))
     return out
 
 

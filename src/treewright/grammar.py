@@ -24,6 +24,12 @@ Grammar text format (ours; see the README):
 
 Probabilities are printed with 17 significant digits, so load, save, load is exact in float64.
 
+Subcategories: a refined grammar names subcategory k of a symbol `NAME` as `NAME·k`
+(`SUBCATEGORY_MARK`, U+00B7 middle dot, then the number). The mark is ours: no treebank tag set
+uses it, and it differs from the marks of the corpus transforms (`corpus.transforms`: ¦, ˆ and
+¤), so a refined symbol of a binarized or annotated tree keeps all of them apart, and it is an
+ordinary character of a symbol token in the text format. `coarse_name` is the one reading of it.
+
 A saved grammar is sealed: its first line is `@format 1` and its last line is
 `# checksum sha256:HEX`, the SHA-256 of every line before it (joined with "\n", so a change of
 line endings alone is not an edit). A file whose checksum no longer matches, or that has
@@ -38,6 +44,7 @@ import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 import torch
 
@@ -47,6 +54,27 @@ from treewright.vocab import Vocabulary
 NEG_INF = float("-inf")
 FORMAT_VERSION = 1
 CHECKSUM_PREFIX = "# checksum sha256:"
+SUBCATEGORY_MARK = "\u00b7"  # NAME·k: subcategory k of coarse symbol NAME (see the docstring)
+
+
+def fine_name(symbol: str, k: int) -> str:
+    """The name of subcategory k of `symbol`: `NP`, 1 -> `NP·1`."""
+    return f"{symbol}{SUBCATEGORY_MARK}{k}"
+
+
+def split_name(name: str) -> tuple[str, int | None]:
+    """(coarse symbol, subcategory) of a symbol name: `NP·1` -> (`NP`, 1). A name without the
+    mark followed by a number, such as `NP`, `NP·x` or `·1`, is its own coarse symbol and has
+    no subcategory (None)."""
+    head, mark, tail = name.rpartition(SUBCATEGORY_MARK)
+    if mark and head and tail.isascii() and tail.isdigit():
+        return head, int(tail)
+    return name, None
+
+
+def coarse_name(name: str) -> str:
+    """The coarse symbol of a symbol name: `NP·1` -> `NP`, `NP` -> `NP` (see `split_name`)."""
+    return split_name(name)[0]
 
 
 @dataclass
@@ -309,10 +337,9 @@ def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
     if unk is not None:
         words.setdefault(unk)
     vocab = Vocabulary(list(words), unk=unk)
-    nt, s, v = len(nonterminals), len(names), len(vocab)
-    root = torch.zeros(nt, dtype=torch.float64)
-    binary = torch.zeros(nt, s, s, dtype=torch.float64)
-    lexical = torch.zeros(s, v, dtype=torch.float64)
+    root: dict[str, float] = {}
+    binary: dict[tuple[str, str, str], float] = {}
+    lexical: dict[tuple[str, str], float] = {}
     seen: dict[tuple, int] = {}
     for lhs, rhs, prob, line in rules:
         key = (lhs,) + rhs
@@ -321,40 +348,87 @@ def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
                              path=source, line=line)
         seen[key] = line
         if rhs[0][0] == "word":
-            lexical[index[lhs], vocab.index[rhs[0][1]]] = prob
+            lexical[(lhs, rhs[0][1])] = prob
         elif len(rhs) == 2:
-            binary[index[lhs], index[rhs[0][1]], index[rhs[1][1]]] = prob
+            binary[(lhs, rhs[0][1], rhs[1][1])] = prob
         else:
-            root[index[rhs[0][1]]] = prob
+            root[rhs[0][1]] = prob
+
+    def bad_total(name: str, total: float) -> InputError:
+        return InputError(f"the rules of {name} sum to {total!r}, not 1 (pass renormalize "
+                          "to rescale them)", path=source, line=first_line[name])
+
+    grammar = build_grammar(nonterminals, preterminals, vocab, start, root, binary, lexical,
+                            rescale=renormalize, tolerance=tolerance, bad_total=bad_total)
+    _check_productive(grammar, source)
+    return grammar
+
+
+def build_grammar(nonterminals: list[str], preterminals: list[str], vocab: Vocabulary,
+                  start: str, root: dict[str, float], binary: dict[tuple[str, str, str], float],
+                  lexical: dict[tuple[str, str], float], *, rescale: bool = False,
+                  tolerance: float = 1e-6,
+                  bad_total: Callable[[str, float], Exception] | None = None) -> Grammar:
+    """A `Grammar` from named rules and their weights: the one builder that the text format,
+    the JSON export and the relative-frequency estimate all use, so that equal rules give
+    equal bits whichever way they came in.
+
+    root     {top nonterminal: weight}, the rules start -> A; ignored when `start` is itself a
+             nonterminal (its trees have it on top, with probability one)
+    binary   {(A, B, C): weight}, A -> B C, A a nonterminal
+    lexical  {(X, word): weight}, X -> word, word in `vocab`
+
+    Weights are filled into float64 tensors in the engine's layout (nonterminals first, then
+    preterminals). Each left-hand side (the root distribution; a nonterminal's binary and
+    lexical rules together) must sum to one within `tolerance`; one that does not is divided
+    by its total when `rescale` (counts give the relative-frequency estimate this way), and
+    otherwise, or when its total is zero, `bad_total(name, total)` is raised.
+    """
+    names = nonterminals + preterminals
+    index = {name: i for i, name in enumerate(names)}
+    nt, s, v = len(nonterminals), len(names), len(vocab)
+    root_t = torch.zeros(nt, dtype=torch.float64)
+    binary_t = torch.zeros(nt, s, s, dtype=torch.float64)
+    lexical_t = torch.zeros(s, v, dtype=torch.float64)
+    root_is_symbol = start in index
     if root_is_symbol:
-        root[index[start]] = 1.0
-    # Normalisation per left-hand side: nonterminal rows cover binary and lexical rules together.
-    totals = {start: float(root.sum())} if not root_is_symbol else {}
+        root_t[index[start]] = 1.0
+    else:
+        for a, weight in root.items():
+            root_t[index[a]] = weight
+    for (a, b, c), weight in binary.items():
+        binary_t[index[a], index[b], index[c]] = weight
+    for (x, word), weight in lexical.items():
+        lexical_t[index[x], vocab.index[word]] = weight
+    totals = {start: float(root_t.sum())} if not root_is_symbol else {}
     for name in names:
         i = index[name]
-        total = float(lexical[i].sum()) + (float(binary[i].sum()) if i < nt else 0.0)
-        totals[name] = total
+        totals[name] = float(lexical_t[i].sum()) + (float(binary_t[i].sum()) if i < nt else 0.0)
     for name, total in totals.items():
-        if abs(total - 1.0) > tolerance:
-            if not renormalize or total == 0.0:
-                raise InputError(f"the rules of {name} sum to {total!r}, not 1 (pass renormalize "
-                                 "to rescale them)", path=source, line=first_line[name])
-            if name == start and not root_is_symbol:
-                root /= total
-            else:
-                i = index[name]
-                lexical[i] /= total
-                if i < nt:
-                    binary[i] /= total
-    _check_productive(nonterminals, binary, lexical, root, source)
-    return Grammar(nonterminals, preterminals, vocab, root.log(), binary.log(), lexical.log(),
-                   start)
+        if abs(total - 1.0) <= tolerance:
+            continue
+        if not rescale or total == 0.0:
+            raise (bad_total or _default_bad_total)(name, total)
+        if name == start and not root_is_symbol:
+            root_t /= total
+        else:
+            i = index[name]
+            lexical_t[i] /= total
+            if i < nt:
+                binary_t[i] /= total
+    return Grammar(list(nonterminals), list(preterminals), vocab, root_t.log(), binary_t.log(),
+                   lexical_t.log(), start)
 
 
-def _check_productive(nonterminals, binary, lexical, root, source) -> None:
+def _default_bad_total(name: str, total: float) -> Exception:
+    return InputError(f"the rules of {name} sum to {total!r}, not 1")
+
+
+def _check_productive(grammar: Grammar, source: str) -> None:
     """Refuse a grammar in which no tree from the start symbol reaches words: such a grammar
     would give every sentence probability zero, which is never what the author meant."""
-    nt = len(nonterminals)
+    nt = len(grammar.nonterminals)
+    binary, lexical, root = grammar.binary.exp(), grammar.lexical.exp(), grammar.root.exp()
     productive = lexical.gt(0).any(1)  # (S,)
     while True:
         pairs = productive[:, None] & productive[None, :]

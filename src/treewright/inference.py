@@ -30,30 +30,54 @@ class Encoded:
     nt_terminal: Tensor | None   # (B, N, NT) or None in the induction layout
     lengths: Tensor              # (B,)
     unknown: list[list[str]]     # per sentence, the words outside the vocabulary
+    ids: Tensor                  # (B, N) word ids; 0 at padding and at unknown words
+    known: Tensor                # (B, N) bool: a word of the vocabulary (False at padding)
+
+
+def pad_ids(sentence_ids: Sequence[Sequence[int]]) -> tuple[Tensor, Tensor]:
+    """Word-id lists (-1 for a word outside the vocabulary) as one (B, N) long tensor, padded
+    with 0 past each length, and the (B,) lengths."""
+    lengths = torch.tensor([len(s) for s in sentence_ids], dtype=torch.long)
+    ids = torch.zeros(len(sentence_ids), int(lengths.max()), dtype=torch.long)
+    for b, row in enumerate(sentence_ids):
+        ids[b, :len(row)] = torch.as_tensor(list(row), dtype=torch.long)
+    return ids, lengths
+
+
+def encode_ids(lexical: Tensor, ids: Tensor, lengths: Tensor, num_nt: int = 0,
+               nt_emit: bool | None = None) -> Encoded:
+    """The one way sentences become engine inputs: word ids through the lexical rules.
+
+    lexical  (S, V) log p(X -> w), the first `num_nt` rows nonterminals (0: rows are the
+             preterminals only, as the induction layout's (T, V) lexical tensors are)
+    ids      (B, N) word ids, -1 for a word outside the vocabulary (no rule emits it, so its
+             sentence has no parse); positions past `lengths` are ignored
+    nt_emit  whether nonterminals emit words (general CNF); None: read it from `lexical`
+
+    Differentiable with respect to `lexical` (gradient training gathers its terminal scores
+    here too).
+    """
+    known = ids >= 0
+    safe = ids.clamp(min=0)
+    scores = lexical[:, safe].permute(1, 2, 0)                          # (B, N, S)
+    if not bool(known.all()):
+        scores = scores.masked_fill(~known[..., None], NEG_INF)
+    if nt_emit is None:
+        nt_emit = bool(torch.isfinite(lexical[:num_nt]).any())
+    nt_terminal = scores[..., :num_nt].contiguous() if nt_emit and num_nt else None
+    inside = torch.arange(ids.shape[1])[None, :] < lengths[:, None]     # (B, N)
+    return Encoded(scores[..., num_nt:].contiguous(), nt_terminal, lengths, [], safe,
+                   known & inside)
 
 
 def encode(grammar: Grammar, sentences: Sequence[Sequence[str]],
            dtype: torch.dtype = torch.float32) -> Encoded:
-    nt = len(grammar.nonterminals)
-    B = len(sentences)
-    N = max(len(s) for s in sentences)
-    ids = torch.zeros(B, N, dtype=torch.long)
-    missing = torch.zeros(B, N, dtype=torch.bool)
-    unknown = []
-    for b, words in enumerate(sentences):
-        row = grammar.vocab.encode(words)
-        unknown.append([w for w in words if w not in grammar.vocab])
-        for k, i in enumerate(row):
-            if i < 0:
-                missing[b, k] = True
-            else:
-                ids[b, k] = i
-    lexical = grammar.lexical.to(dtype)                       # (S, V)
-    scores = lexical[:, ids].permute(1, 2, 0)                 # (B, N, S)
-    scores = scores.masked_fill(missing[..., None], NEG_INF)  # no unknown-word rule: no parse
-    lengths = torch.tensor([len(s) for s in sentences])
-    nt_terminal = scores[..., :nt].contiguous() if grammar.nonterminals_emit else None
-    return Encoded(scores[..., nt:].contiguous(), nt_terminal, lengths, unknown)
+    """Sentences of words as engine inputs under `grammar` (see `encode_ids`)."""
+    ids, lengths = pad_ids([grammar.vocab.encode(words) for words in sentences])
+    enc = encode_ids(grammar.lexical.to(dtype), ids, lengths, len(grammar.nonterminals),
+                     grammar.nonterminals_emit)
+    enc.unknown = [[w for w in words if w not in grammar.vocab] for words in sentences]
+    return enc
 
 
 @dataclass

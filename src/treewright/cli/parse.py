@@ -15,7 +15,7 @@ decoders:
   viterbi           the most probable tree (the default)
   mbr               the binary tree maximizing the summed posterior span marginals, each span
                     labeled with its most probable symbol (the usual decoder for induced grammars)
-  max-rule-product  for refined grammars (symbols NAME@k): the tree of coarse symbols maximizing
+  max-rule-product  for refined grammars (symbols NAME·k): the tree of coarse symbols maximizing
                     the product of posterior coarse-rule marginals
 
 A grammar trained on tags (data.tag_mode, or --tags) parses the tags of a bracketed or

@@ -15,7 +15,7 @@ is checked before any work starts.
 The run folder (output.run_dir, default runs/<config name>) receives config.yaml (resolved),
 refine.log, metrics.jsonl, tensorboard/, coarse.pcfg (the unrefined start), cycle-<c>.pcfg and
 summary-<c>.txt/.json per cycle, and the result grammar.pcfg with summary.txt/.json. Refined
-symbols are named NAME@k (subcategory k of NAME); score, parse and sample load the grammar.
+symbols are named NAME·k (subcategory k of NAME); score, parse and sample load the grammar.
 
 refine.ckpt is written after every cycle. --resume RUN continues an interrupted run (Ctrl-C,
 a kill) from the last cycle written, with the config saved in the folder, and ends with exactly

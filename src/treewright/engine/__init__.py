@@ -11,12 +11,12 @@ from dataclasses import dataclass
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import Chart, inside_chart, log_partition
+from treewright.engine.inside import Chart, SpanTables, inside_chart, log_partition, span_tables
 from treewright.engine.sample import sample_trees
 from treewright.engine.viterbi import viterbi
 
-__all__ = ["Chart", "Posteriors", "inside_chart", "log_partition", "posteriors", "sample_trees",
-           "viterbi"]
+__all__ = ["Chart", "Posteriors", "SpanTables", "inside_chart", "log_partition", "posteriors",
+           "sample_trees", "span_tables", "viterbi"]
 
 
 @dataclass

@@ -118,7 +118,7 @@ def _fold(vectors: Tensor, mats: Tensor) -> Tensor:
     """(M, B, K) vectors times (K, X) rule matrices, or per sentence (B, K, X): (M, B, X)."""
     if mats.dim() == 2:
         M, B, K = vectors.shape
-        return (vectors.reshape(M * B, K) @ mats).view(M, B, -1)
+        return (vectors.reshape(M * B, K) @ mats).view(M, B, mats.shape[-1])  # M may be 0
     return torch.bmm(vectors.transpose(0, 1), mats).transpose(0, 1).contiguous()
 
 
@@ -136,7 +136,7 @@ def _unfold(grads: Tensor, mats: Tensor) -> Tensor:
     rule matrices transposed: (M, B, K)."""
     if mats.dim() == 2:
         M, B, X = grads.shape
-        return (grads.reshape(M * B, X) @ mats.t()).view(M, B, -1)
+        return (grads.reshape(M * B, X) @ mats.t()).view(M, B, mats.shape[0])
     return torch.bmm(grads.transpose(0, 1), mats.transpose(1, 2)).transpose(0, 1)
 
 
@@ -160,9 +160,7 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
     min_w = 1 if nt_terminal is not None else 2
 
     # One scale per word, shared by its preterminal and nonterminal vectors.
-    word_scale = terminal.amax(-1)                                   # (B, N)
-    if nt_terminal is not None:
-        word_scale = torch.maximum(word_scale, nt_terminal.amax(-1))
+    word_scale = word_scales(terminal, nt_terminal)                  # (B, N)
     shift = word_scale.nan_to_num(neginf=0.0).unsqueeze(-1)          # finite, for the exp
     term_sc = (terminal - shift).exp_().transpose(0, 1).contiguous()  # (N, B, T)
     term_scale = word_scale.t().contiguous()                         # (N, B)
@@ -225,6 +223,22 @@ def _fill(binary: Tensor, terminal: Tensor, nt_terminal: Tensor | None,
             saved.peaks.append(peak)
     chart = Chart(by_start, scale_start, term_sc, term_scale, min_w, NT)
     return chart, saved, rules
+
+
+def word_scales(terminal: Tensor, nt_terminal: Tensor | None) -> Tensor:
+    """(B, N) the largest log score of any symbol over each word.
+
+    terminal (B, N, T) may have T = 0: a general CNF grammar in which every symbol that emits
+    words also has binary rules (Lari & Young 1990, "The estimation of stochastic context-free
+    grammars using the Inside-Outside algorithm") has no pure preterminal, and its words are
+    scored by nt_terminal alone. A reduction over an empty axis is an error in torch, so that
+    axis contributes -inf here instead.
+    """
+    B, N, T = terminal.shape
+    scale = terminal.amax(-1) if T else terminal.new_full((B, N), NEG_INF)
+    if nt_terminal is not None:
+        scale = torch.maximum(scale, nt_terminal.amax(-1))
+    return scale
 
 
 def right_children(chart: Tensor, w: int, u0: int, u1: int) -> Tensor:
@@ -341,12 +355,13 @@ class _LogPartition(torch.autograd.Function):
 
 def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, top_scale, pi,
              total, nt_emits, has_pot, grad_logz, need_rules: bool = True,
-             need_words: bool = True):
+             need_words: bool = True, adjoints: dict | None = None):
     """Adjoints of log Z with respect to every scaled chart cell, from the widest span down.
 
     The rule gradient is None unless `need_rules`, the preterminal gradient None unless
     `need_words`; the adjoints of the cells, and so the root, span and nonterminal-word
-    gradients, are the same either way.
+    gradients, are the same either way. `adjoints`, when given, receives the adjoint chart
+    under "chart", (N+1, B, N+1, Q) laid out like `chart.by_start` (see `span_tables`).
 
     adj(cell)[A] = d log Z / d scaled_inside(cell)[A]; adj * scaled_inside is the posterior
     marginal of A over that span, a number in [0, 1], so nothing here needs rescaling. A cell is
@@ -418,6 +433,8 @@ def _outside(binary, lengths, chart: Chart, saved: _Saved, rules: _Rules, top, t
         grad_binary, grad_terminal = _rule_and_word_grads(
             binary, chart, rules, adj_np, adj_pn, adj_term, grad_pair_mats, grad_nn,
             need_rules, need_words)
+    if adjoints is not None:
+        adjoints["chart"] = adj_start
     grad_nt_terminal = None
     if nt_emits:
         adj1 = adj_start[0:N, :, 1]
@@ -548,3 +565,57 @@ def prepare_inputs(root: Tensor, terminal: Tensor, lengths, nt_terminal: Tensor 
         if nt_terminal is not None:
             nt_terminal = nt_terminal.masked_fill(pad[..., None], 0.0)
     return root, terminal, lengths, nt_terminal
+
+
+@dataclass
+class SpanTables:
+    """Every symbol over every span of a batch: log inside, log outside and posterior marginals.
+
+    Spans are indexed [start, width] as in `Posteriors.spans`; S = NT + T symbols in the
+    engine's layout. Cells past a sentence's end are -inf (zero marginal); so is the outside
+    score of a symbol that no tree puts over a span (every cell of a sentence with no parse).
+    """
+    logz: Tensor       # (B,) log p(sentence); -inf when there is no parse
+    inside: Tensor     # (B, N+1, N+1, S) log inside scores; -inf where impossible (preterminals
+                       # at width one only)
+    outside: Tensor    # (B, N+1, N+1, NT) log outside scores minus log Z, so that
+                       # outside + inside = log p(symbol over span | sentence)
+    marginals: Tensor  # (B, N+1, N+1, S) p(symbol spans [start, width] | sentence)
+
+
+def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
+                nt_terminal: Tensor | None = None) -> SpanTables:
+    """Label marginals, inside and outside scores of every span, batched (arguments as in
+    `log_partition`; one grammar for the batch).
+
+    One inside pass and the outside pass of `_LogPartition` (asked for the adjoint chart and
+    the word gradient only): a cell's adjoint `adj` is d log Z / d scaled_inside, so
+    adj * scaled_inside is the posterior marginal of each symbol over that span, and
+    log(adj) - log scale is its log outside score minus log Z (Eisner 2016).
+    """
+    if binary.dim() != 3:
+        raise ValueError("span_tables takes one grammar for the batch, binary (NT, S, S)")
+    root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
+    B, N, T = terminal.shape
+    NT = binary.shape[0]
+    with torch.no_grad():
+        chart, saved, rules = _fill(binary, terminal, nt_terminal, None, keep=True)
+        logz, top, top_scale, pi, total = _root_scores(chart, root, lengths)
+        adjoints: dict = {}
+        grad_terminal = _outside(binary, lengths, chart, saved, rules, top, top_scale, pi,
+                                 total, nt_terminal is not None, False, torch.ones_like(logz),
+                                 need_rules=False, need_words=True, adjoints=adjoints)[2]
+        cells = chart.by_start[..., :NT].permute(1, 0, 2, 3)             # (B, N+1, N+1, NT)
+        adj = adjoints["chart"][..., :NT].permute(1, 0, 2, 3)
+        scale = chart.scale_start.transpose(0, 1).unsqueeze(-1)          # (B, N+1, N+1, 1)
+        inside = terminal.new_full((B, N + 1, N + 1, NT + T), NEG_INF)
+        inside[..., :NT] = cells.log() + scale
+        inside[:, :N, 1, NT:] = chart.term.log().transpose(0, 1) + scale[:, :N, 1]
+        # Cells past a sentence's end hold the padding's scores: they are no span of it.
+        ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
+        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], NEG_INF)
+        outside = torch.where(adj > 0, adj.log() - scale, torch.full_like(adj, NEG_INF))
+        marginals = terminal.new_zeros(B, N + 1, N + 1, NT + T)
+        marginals[..., :NT] = adj * cells
+        marginals[:, :N, 1, NT:] = grad_terminal
+    return SpanTables(logz, inside, outside, marginals)

@@ -27,7 +27,7 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import CHUNK_BYTES, prepare_inputs
+from treewright.engine.inside import CHUNK_BYTES, prepare_inputs, word_scales
 
 NEG_INF = float("-inf")
 
@@ -83,9 +83,7 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     NT, R = u.shape
     U, V, W = u.exp(), v.exp(), w.exp()
     # One scale per word, shared by its preterminal and nonterminal vectors.
-    word_scale = terminal.amax(-1)                                    # (B, N)
-    if nt_terminal is not None:
-        word_scale = torch.maximum(word_scale, nt_terminal.amax(-1))
+    word_scale = word_scales(terminal, nt_terminal)                   # (B, N)
     shift = word_scale.nan_to_num(neginf=0.0).unsqueeze(-1)
     words = (terminal - shift).exp().transpose(0, 1).contiguous()    # (N, B, T)
     nts = None if nt_terminal is None else \

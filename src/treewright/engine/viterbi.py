@@ -68,17 +68,23 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
                 left, right = flat // NT, flat % NT
                 split = torch.gather(pair_split.reshape(B, P, NT * NT), 2, flat) + lo
                 options.append((values, split, left, right))
-            if w - 1 >= min_w:
+            # Blocks with a preterminal child exist only when there are preterminals: a general
+            # CNF grammar may have none (T = 0), and a max over an empty block is an error.
+            if w - 1 >= min_w and T:
                 scores = cells[w - 1][:, 0:P, :, None] + term[:, w - 1:N, None, :]
                 values, flat = _best_children(scores, r_np)
                 options.append((values, torch.full_like(flat, w - 1), flat // T, flat % T + NT))
                 scores = term[:, 0:P, :, None] + cells[w - 1][:, 1:1 + P, None, :]
                 values, flat = _best_children(scores, r_pn)
                 options.append((values, torch.ones_like(flat), flat // NT + NT, flat % NT))
-            if w == 2:
+            if w == 2 and T:
                 scores = term[:, 0:P, :, None] + term[:, 1:1 + P, None, :]
                 values, flat = _best_children(scores, r_pp)
                 options.append((values, torch.ones_like(flat), flat // T + NT, flat % T + NT))
+            if not options:  # no block fits this width (no rules can build such a span)
+                none = terminal.new_full((B, P, NT), NEG_INF)
+                zero = torch.zeros(B, P, NT, dtype=torch.long)
+                options.append((none, zero, zero, zero))
             values = torch.stack([o[0] for o in options])               # (K, B, P, NT)
             best, which = values.max(0)
             pick = which.unsqueeze(0)

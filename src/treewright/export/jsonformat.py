@@ -36,10 +36,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import torch
-
 from treewright.errors import InputError
-from treewright.grammar import Grammar
+from treewright.grammar import Grammar, build_grammar
 from treewright.safeio import atomic_write_text
 from treewright.vocab import Vocabulary
 
@@ -172,12 +170,10 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
         raise bad("rules", "must be a list")
     root_is_symbol = start in index
     word_index = {w: i for i, w in enumerate(words)}
-    nt, s, v = len(nonterminals), len(symbols), len(words)
-    # Built exactly as the text format's loader builds them (probabilities in float64, then one
-    # log), so a grammar read from either format has the same bits.
-    root = torch.zeros(nt, dtype=torch.float64)
-    binary = torch.zeros(nt, s, s, dtype=torch.float64)
-    lexical = torch.zeros(s, v, dtype=torch.float64)
+    nt = len(nonterminals)
+    root: dict[str, float] = {}
+    binary: dict[tuple[str, str, str], float] = {}
+    lexical: dict[tuple[str, str], float] = {}
     seen: dict[tuple, int] = {}
     for k, rule in enumerate(data["rules"]):
         field = f"rules[{k}]"
@@ -217,28 +213,25 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
             raise bad(field, f"repeats rules[{seen[key]}]")
         seen[key] = k
         if kind == "root":
-            root[index[rhs[0]]] = float(prob)
+            root[rhs[0]] = float(prob)
         elif kind == "binary":
-            binary[index[lhs], index[rhs[0]], index[rhs[1]]] = float(prob)
+            binary[(lhs, rhs[0], rhs[1])] = float(prob)
         else:
-            lexical[index[lhs], word_index[rhs[0]]] = float(prob)
-    if root_is_symbol:
-        root[index[start]] = 1.0
-    else:
-        total = float(root.sum())
-        if abs(total - 1.0) > SUM_TOLERANCE:
-            raise bad("rules", f"the root rules of {start} sum to {total!r}, not 1")
-    for a, name in enumerate(symbols):
-        total = float(lexical[a].sum()) + (float(binary[a].sum()) if a < nt else 0.0)
-        if abs(total - 1.0) > SUM_TOLERANCE:
-            raise bad("rules", f"the rules of {name} sum to {total!r}, not 1")
+            lexical[(lhs, rhs[0])] = float(prob)
+
+    def bad_total(name: str, total: float) -> InputError:
+        if name == start and not root_is_symbol:
+            return bad("rules", f"the root rules of {start} sum to {total!r}, not 1")
+        return bad("rules", f"the rules of {name} sum to {total!r}, not 1")
+
+    # The text format's builder, so a grammar read from either format has the same bits.
+    grammar = build_grammar(nonterminals, preterminals, Vocabulary(words, unk=unk), start, root,
+                            binary, lexical, tolerance=SUM_TOLERANCE, bad_total=bad_total)
     counts = data["counts"]
-    expected = {"nonterminals": nt, "preterminals": len(preterminals), "words": v,
+    expected = {"nonterminals": nt, "preterminals": len(preterminals), "words": len(words),
                 "rules": len(data["rules"])}
     if counts != expected:
         raise bad("counts", f"{counts!r} does not match the lists ({expected})")
-    grammar = Grammar(nonterminals, preterminals, Vocabulary(words, unk=unk), root.log(),
-                      binary.log(), lexical.log(), start)
     return GrammarExport(grammar, training)
 
 

@@ -64,9 +64,9 @@ def expected_counts(grammar: Grammar, sentences: Sequence[Sequence[str]],
         root += post.root.sum(0)
         binary += post.binary
         for b, sentence in enumerate(words):
-            ids = torch.tensor(grammar.vocab.encode(sentence))
-            known = ids >= 0  # a sentence with a word outside the vocabulary has no parse
             n = len(sentence)
+            ids = enc.ids[b, :n]
+            known = enc.known[b, :n]  # a sentence with a word outside the vocabulary: no parse
             lexical[nt:].index_add_(1, ids[known], post.terminal[b, :n][known].T)
             if post.nt_terminal is not None:
                 lexical[:nt].index_add_(1, ids[known], post.nt_terminal[b, :n][known].T)

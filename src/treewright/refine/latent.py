@@ -27,21 +27,10 @@ from dataclasses import dataclass
 import torch
 from torch import Tensor
 
-from treewright.grammar import Grammar
+# The subcategory names (NAME·k) belong to the grammar layer; coarse_name and fine_name are
+# imported here for the refine modules that use them.
+from treewright.grammar import Grammar, coarse_name, fine_name, split_name
 from treewright.vocab import Vocabulary
-
-SUBCATEGORY_MARK = "@"  # NAME@k: subcategory k of coarse symbol NAME (coarse = before the last @)
-
-
-def fine_name(symbol: str, k: int) -> str:
-    return f"{symbol}{SUBCATEGORY_MARK}{k}"
-
-
-def coarse_name(name: str) -> str:
-    """The coarse symbol of a fine name: the part before the last '@' (the name itself if
-    it has none)."""
-    head, mark, tail = name.rpartition(SUBCATEGORY_MARK)
-    return head if mark and tail.isdigit() else name
 
 
 @dataclass
@@ -107,7 +96,7 @@ class LatentGrammar:
         return int(self.splits[:self.num_nt].sum())
 
     def to_grammar(self, dtype: torch.dtype = torch.float64) -> Grammar:
-        """The dense fine `Grammar` with symbols NAME@k (log-probabilities)."""
+        """The dense fine `Grammar` with symbols NAME·k (log-probabilities)."""
         fid = self.fine_index()
         names = self.fine_names()
         nt_f, s_f = self.fine_num_nt(), len(names)
@@ -152,11 +141,11 @@ def _coarse_inventory(names: list[str], num_nt: int):
     ValueError when one coarse symbol's subcategories are not numbered 0..n-1."""
     coarse: dict[str, list[int]] = {}
     kinds: dict[str, set[bool]] = {}
+    place_names = []
     for i, name in enumerate(names):
-        base, _, tail = name.rpartition(SUBCATEGORY_MARK)
-        if not (base and tail.isdigit()):
-            base, tail = name, "0"
-        coarse.setdefault(base, []).append(int(tail))
+        base, k = split_name(name)
+        place_names.append((base, 0 if k is None else k))
+        coarse.setdefault(base, []).append(place_names[-1][1])
         kinds.setdefault(base, set()).add(i < num_nt)
     for base, ks in coarse.items():
         if sorted(ks) != list(range(len(ks))):
@@ -164,18 +153,13 @@ def _coarse_inventory(names: list[str], num_nt: int):
                              f"not 0..{len(ks) - 1}")
     symbols = [b for b in coarse if True in kinds[b]] + [b for b in coarse if True not in kinds[b]]
     index = {b: i for i, b in enumerate(symbols)}
-    place = []
-    for name in names:
-        base, _, tail = name.rpartition(SUBCATEGORY_MARK)
-        if not (base and tail.isdigit()):
-            base, tail = name, "0"
-        place.append((index[base], int(tail)))
+    place = [(index[base], k) for base, k in place_names]
     return symbols, sum(1 for b in symbols if True in kinds[b]), place, [len(coarse[b])
                                                                          for b in symbols]
 
 
 def latent_from_grammar(grammar: Grammar) -> LatentGrammar:
-    """A `LatentGrammar` from a dense `Grammar`. Symbols named NAME@k become subcategory k of
+    """A `LatentGrammar` from a dense `Grammar`. Symbols named NAME·k become subcategory k of
     NAME; other symbols have one subcategory. The coarse rule inventory is every coarse rule
     with some fine rule of positive probability. Probabilities are float64."""
     names = grammar.symbols

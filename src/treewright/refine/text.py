@@ -101,7 +101,7 @@ def viterbi_coarse_trees(lg: LatentGrammar, words: Sequence[Sequence[str]]) -> l
 
 
 def project_labels(tree: Tree) -> Tree:
-    """A copy of `tree` with every NAME@k label replaced by NAME."""
+    """A copy of `tree` with every NAME·k label replaced by NAME."""
     top = Tree(coarse_name(tree.label))
     stack = [(tree, top)]
     while stack:

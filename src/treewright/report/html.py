@@ -545,7 +545,7 @@ def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int,
 def choose_decoder(grammar, asked: str | None) -> tuple[str, str]:
     """The decoder for the report's trees and a sentence saying why it was chosen.
 
-    A refined grammar's symbols are subcategories (`NP@1`) of coarse symbols: its trees are read
+    A refined grammar's symbols are subcategories (`NP·1`) of coarse symbols: its trees are read
     with max-rule-product, which sums over the subcategories (Petrov & Klein 2007, "Improved
     Inference for Unlexicalized Parsing"). Any other grammar is read with mbr, the tree of
     largest expected bracket recall (Goodman 1996, "Parsing Algorithms and Metrics").

@@ -12,10 +12,8 @@ from __future__ import annotations
 from collections import Counter
 from typing import Sequence
 
-import torch
-
 from treewright.errors import InputError
-from treewright.grammar import Grammar
+from treewright.grammar import Grammar, build_grammar
 from treewright.trees import Tree
 from treewright.vocab import Vocabulary
 
@@ -66,22 +64,11 @@ def estimate_from_trees(trees: Sequence[Tree], start: str = "ROOT", unk: str | N
     preterminals = [s for s in order if s not in with_binary]
     if unk is not None:
         words.setdefault(unk)
-    vocab = Vocabulary(list(words), unk=unk)
-    index = {s: i for i, s in enumerate(nonterminals + preterminals)}
-    nt, s, v = len(nonterminals), len(index), len(vocab)
-    root = torch.zeros(nt, dtype=torch.float64)
-    rules = torch.zeros(nt, s, s, dtype=torch.float64)
-    emit = torch.zeros(s, v, dtype=torch.float64)
-    for label, count in top.items():
-        root[index[label]] = count
-    for (a, b, c), count in binary.items():
-        rules[index[a], index[b], index[c]] = count
-    for (a, w), count in lexical.items():
-        emit[index[a], vocab.index[w]] = count
-    # count(A) is the number of nodes labelled A: its binary and word rules together.
-    totals = emit.sum(1)
-    totals[:nt] += rules.flatten(1).sum(1)
-    root = root / root.sum()
-    rules = rules / totals[:nt, None, None]
-    emit = emit / totals[:, None]
-    return Grammar(nonterminals, preterminals, vocab, root.log(), rules.log(), emit.log(), start)
+    # count(A) is the number of nodes labelled A, its binary and word rules together: the
+    # builder divides every left-hand side by that total (with tolerance 0 only a total of
+    # exactly one is left as it is, which dividing by it would not change).
+    return build_grammar(nonterminals, preterminals, Vocabulary(list(words), unk=unk), start,
+                         {a: float(n) for a, n in top.items()},
+                         {rule: float(n) for rule, n in binary.items()},
+                         {rule: float(n) for rule, n in lexical.items()},
+                         rescale=True, tolerance=0.0)
