@@ -17,6 +17,9 @@ Grammar text format (ours; see the README):
     # comments run to the end of the line
     @start S                 the start symbol (required)
     @unknown "<unk>"         the word that stands for every unknown word (optional)
+    @word-shapes 1           unknown words first stand for their shape class, scheme 1
+                             (`treewright.wordshapes`), when the class is a word of the
+                             grammar (optional; refined treebank grammars have it)
     S -> NP VP 1.0           binary rule
     NP -> "stars" 0.18       lexical rule; terminals are double-quoted, \\" and \\\\ escape
     ROOT -> S 0.7            unary rules only from the start symbol: they give the root
@@ -50,6 +53,7 @@ import torch
 
 from treewright.errors import InputError
 from treewright.vocab import Vocabulary
+from treewright.wordshapes import SCHEME as SHAPE_SCHEME
 
 NEG_INF = float("-inf")
 FORMAT_VERSION = 1
@@ -133,6 +137,8 @@ class Grammar:
         lines = [f"@format {FORMAT_VERSION}", f"@start {self.start}"]
         if self.vocab.unk is not None:
             lines.append(f"@unknown {quote(self.vocab.unk)}")
+        if self.vocab.shapes is not None:
+            lines.append(f"@word-shapes {self.vocab.shapes}")
         names = self.symbols
         if not self.root_is_symbol:
             for a in range(len(self.nonterminals)):
@@ -214,6 +220,7 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                   tolerance: float = 1e-6) -> Grammar:
     start: str | None = None
     unk: str | None = None
+    shapes: int | None = None
     # (lhs, rhs tuple, probability, line); rhs items are ("sym", name) or ("word", w)
     rules: list[tuple[str, tuple[tuple[str, str], ...], float, int]] = []
     # Only \n, \r\n and \r end a line (str.splitlines also splits at \v, \f and others, and
@@ -233,6 +240,11 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
             elif parts[0] == "@unknown" and len(parts) == 2 and parts[1].startswith('"') \
                     and _TOKEN.fullmatch(parts[1]):
                 unk = _unquote(parts[1])
+            elif parts[0] == "@word-shapes" and len(parts) == 2:
+                if parts[1].strip() != str(SHAPE_SCHEME):
+                    raise InputError(f"word shape scheme {parts[1].strip()!r} is not supported "
+                                     f"(this treewright has scheme {SHAPE_SCHEME})", **where)
+                shapes = SHAPE_SCHEME
             elif parts[0] == "@format" and len(parts) == 2:
                 if parts[1].strip() != str(FORMAT_VERSION):
                     raise InputError(f"grammar format version {parts[1].strip()!r} is not "
@@ -240,8 +252,8 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                                      **where)
             else:
                 raise InputError(f"unknown or malformed directive {raw.strip()!r} "
-                                 "(expected '@start SYMBOL', '@unknown \"WORD\"' or "
-                                 "'@format 1')", **where)
+                                 "(expected '@start SYMBOL', '@unknown \"WORD\"', "
+                                 f"'@word-shapes {SHAPE_SCHEME}' or '@format 1')", **where)
             continue
         tokens = _TOKEN.findall(line)
         if not _TOKENS.fullmatch(line) or len(tokens) < 4 or tokens[1] != "->":
@@ -271,7 +283,7 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                          path=source)
     if not rules:
         raise InputError("the grammar has no rules", path=source)
-    return _build(rules, start, unk, source, renormalize, tolerance)
+    return _build(rules, start, unk, shapes, source, renormalize, tolerance)
 
 
 def _strip_comment(line: str) -> str:
@@ -294,7 +306,7 @@ def _strip_comment(line: str) -> str:
     return "".join(out)
 
 
-def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
+def _build(rules, start, unk, shapes, source, renormalize, tolerance) -> Grammar:
     first_line: dict[str, int] = {}
     has_binary, has_lexical, has_unary = set(), set(), set()
     words: dict[str, None] = {}
@@ -336,7 +348,7 @@ def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
                                  f"with binary rules); {name} has none", path=source, line=line)
     if unk is not None:
         words.setdefault(unk)
-    vocab = Vocabulary(list(words), unk=unk)
+    vocab = Vocabulary(list(words), unk=unk, shapes=shapes)
     root: dict[str, float] = {}
     binary: dict[tuple[str, str, str], float] = {}
     lexical: dict[tuple[str, str], float] = {}

@@ -96,7 +96,7 @@ def run(args) -> int:
         if result is None or result.tree is None:
             unparsed += 1
             if result is not None:  # over the budget was reported already
-                unknown = [w for w in normalised if w not in grammar.vocab]
+                unknown = [w for w in normalised if grammar.vocab.lookup(w) < 0]
                 why = f"unknown words {unknown}" if unknown else "no tree covers it"
                 print(f"{input_name(args.text)}, line {line}: no parse ({why})",
                       file=sys.stderr)
