@@ -32,6 +32,9 @@ Subcategories: a refined grammar names subcategory k of a symbol `NAME` as `NAME
 uses it, and it differs from the marks of the corpus transforms (`corpus.transforms`: ¦, ˆ and
 ¤), so a refined symbol of a binarized or annotated tree keeps all of them apart, and it is an
 ordinary character of a symbol token in the text format. `coarse_name` is the one reading of it.
+Grammars saved before the mark changed wrote `NAME@k`; a loaded grammar whose symbols have that
+form (`@` then a number, ending the name) reads them as `NAME·k` and says so once per file on
+the `treewright` logger (standard error unless the caller configures logging).
 
 A saved grammar is sealed: its first line is `@format 1` and its last line is
 `# checksum sha256:HEX`, the SHA-256 of every line before it (joined with "\n", so a change of
@@ -43,6 +46,7 @@ neither line and loads as it is; to accept hand edits to a saved file, delete bo
 from __future__ import annotations
 
 import hashlib
+import logging
 import math
 import re
 from dataclasses import dataclass
@@ -74,6 +78,33 @@ def split_name(name: str) -> tuple[str, int | None]:
     if mark and head and tail.isascii() and tail.isdigit():
         return head, int(tail)
     return name, None
+
+
+OLD_SUBCATEGORY = re.compile(r"(.+)@([0-9]+)")  # NAME@k, the mark before SUBCATEGORY_MARK
+_log = logging.getLogger("treewright")
+
+
+def old_subcategory_names(names, source: str) -> dict[str, str]:
+    """{old name: new name} for the symbols among `names` written `NAME@k`, the subcategory
+    mark of grammars saved before `NAME·k`; when there are any, says once that they are read
+    as subcategories. Raises InputError when a new name is already a symbol of its own."""
+    names = set(names)
+    renames = {}
+    for name in sorted(names):
+        found = OLD_SUBCATEGORY.fullmatch(name)
+        if found:
+            renames[name] = fine_name(found.group(1), int(found.group(2)))
+    if not renames:
+        return renames
+    clash = sorted(set(renames.values()) & names)
+    if clash:
+        raise InputError(f"symbol {clash[0]} is written both in the old subcategory form "
+                         f"(NAME@k) and in the new one (NAME{SUBCATEGORY_MARK}k)", path=source)
+    example = next(iter(renames.items()))
+    _log.warning("%s: %d symbols are written NAME@k, the subcategory mark of grammars saved "
+                 "before NAME%sk; they are read as subcategories (%s as %s)", source,
+                 len(renames), SUBCATEGORY_MARK, *example)
+    return renames
 
 
 def coarse_name(name: str) -> str:
@@ -283,6 +314,13 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                          path=source)
     if not rules:
         raise InputError("the grammar has no rules", path=source)
+    renames = old_subcategory_names([start] + [lhs for lhs, *_ in rules] + [
+        name for _, rhs, _, _ in rules for kind, name in rhs if kind == "sym"], source)
+    if renames:
+        start = renames.get(start, start)
+        rules = [(renames.get(lhs, lhs),
+                  tuple((kind, renames.get(name, name) if kind == "sym" else name)
+                        for kind, name in rhs), prob, line) for lhs, rhs, prob, line in rules]
     return _build(rules, start, unk, shapes, source, renormalize, tolerance)
 
 

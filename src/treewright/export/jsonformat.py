@@ -41,7 +41,7 @@ from pathlib import Path
 from typing import Any
 
 from treewright.errors import InputError
-from treewright.grammar import Grammar, build_grammar
+from treewright.grammar import Grammar, build_grammar, old_subcategory_names
 from treewright.safeio import atomic_write_text
 from treewright.vocab import Vocabulary
 from treewright.wordshapes import SCHEME as SHAPE_SCHEME
@@ -152,6 +152,11 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
     nonterminals = _string_list(data, "nonterminals", bad)
     preterminals = _string_list(data, "preterminals", bad)
     words = _string_list(data, "vocabulary", bad)
+    renames = old_subcategory_names(nonterminals + preterminals + [start], source)
+    if renames:  # an export saved before NAME·k: its NAME@k symbols are subcategories
+        nonterminals = [renames.get(n, n) for n in nonterminals]
+        preterminals = [renames.get(n, n) for n in preterminals]
+        start = renames.get(start, start)
     if not nonterminals:
         raise bad("nonterminals", "a grammar needs at least one nonterminal")
     symbols = nonterminals + preterminals
@@ -193,6 +198,10 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
             if name not in rule:
                 raise bad(f"{field}.{name}", "missing")
         kind, lhs, rhs, prob = (rule[name] for name in _RULE_FIELDS)
+        if renames and isinstance(lhs, str):
+            lhs = renames.get(lhs, lhs)
+        if renames and isinstance(rhs, list) and kind != "lexical":
+            rhs = [renames.get(x, x) if isinstance(x, str) else x for x in rhs]
         if kind not in _RHS_LENGTH:
             raise bad(f"{field}.kind", f"{kind!r} is not one of root, binary, lexical")
         if not isinstance(rhs, list) or len(rhs) != _RHS_LENGTH[kind] \
