@@ -21,7 +21,7 @@ import yaml
 
 from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
-                               expand_unary, read_corpus, run_case_rules, unbinarize)
+                               expand_unary, read_corpus, run_read_options, unbinarize)
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
@@ -171,10 +171,7 @@ def _number(value) -> float | None:
 
 def _read_options(config: dict) -> ReadOptions:
     """Token options of the run's data section, so gold/text tokens match the grammar's words."""
-    data = config.get("data") or {}
-    rules = run_case_rules(data)
-    return ReadOptions(lowercase=rules is not None, case_rules=rules or "default",
-                       tag_mode=bool(data.get("tag_mode", False)), nonprojective="lift")
+    return run_read_options(config.get("data"), nonprojective="lift")
 
 
 def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path | None = None,
