@@ -272,6 +272,36 @@ def test_bracketed_output_keeps_every_sentence(velmar):
     assert out[-1] == "(NOPARSE peln)"
 
 
+def test_blank_input_lines_keep_their_place(velmar, tmp_path):
+    grammar = load_grammar(velmar)
+    sentences = sample_sentences(grammar, num=3)
+    corpus = tmp_path / "corpus.txt"
+    # Lines 1, 3 and 6 hold sentences, line 5 a sentence with no parse; 2 is empty and 4 holds
+    # only spaces and a tab.
+    raw = [" ".join(sentences[0]), "", " ".join(sentences[1]), "  \t ", "peln",
+           " ".join(sentences[2])]
+    corpus.write_text("\n".join(raw) + "\n", encoding="utf-8")
+    out = tmp_path / "out.trees"
+    code, _, err = run_cli("export", velmar, "--to", "brackets", "--corpus", corpus,
+                           "--out", out)
+    assert code == 0 and "1 of 4 sentences had no parse" in err
+    lines = out.read_text(encoding="utf-8").split("\n")
+    # Reference: the input has 6 lines, so the output has 6 lines (plus the final newline).
+    assert len(lines) == len(raw) + 1 and lines[-1] == ""
+    trees = [t.to_string() for t, _ in viterbi_parse(grammar, sentences)]
+    assert lines[:6] == [trees[0], "", trees[1], "", "(NOPARSE peln)", trees[2]]
+
+    out = tmp_path / "out.conllu"
+    code, _, err = run_cli("export", velmar, "--to", "conllu", "--corpus", corpus,
+                           "--out", out)
+    assert code == 0 and "2 blank lines" in err
+    blocks = conllu.parse(out.read_text(encoding="utf-8"))  # reference: the conllu package
+    # One block per non-blank input line, each naming its line.
+    assert [b.metadata["sent_id"] for b in blocks] == ["1", "3", "5", "6"]
+    assert [[t["form"] for t in b] for b in blocks] == [sentences[0], sentences[1], ["peln"],
+                                                       sentences[2]]
+
+
 # ---- renaming ------------------------------------------------------------------------------------
 
 def test_renaming_applies_to_exports_and_parses(velmar, tmp_path):

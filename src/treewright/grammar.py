@@ -17,6 +17,9 @@ Grammar text format (ours; see the README):
     # comments run to the end of the line
     @start S                 the start symbol (required)
     @unknown "<unk>"         the word that stands for every unknown word (optional)
+    @word-shapes 1           unknown words first stand for their shape class, scheme 1
+                             (`treewright.wordshapes`), when the class is a word of the
+                             grammar (optional; refined treebank grammars have it)
     S -> NP VP 1.0           binary rule
     NP -> "stars" 0.18       lexical rule; terminals are double-quoted, \\" and \\\\ escape
     ROOT -> S 0.7            unary rules only from the start symbol: they give the root
@@ -29,6 +32,9 @@ Subcategories: a refined grammar names subcategory k of a symbol `NAME` as `NAME
 uses it, and it differs from the marks of the corpus transforms (`corpus.transforms`: ¦, ˆ and
 ¤), so a refined symbol of a binarized or annotated tree keeps all of them apart, and it is an
 ordinary character of a symbol token in the text format. `coarse_name` is the one reading of it.
+Grammars saved before the mark changed wrote `NAME@k`; a loaded grammar whose symbols have that
+form (`@` then a number, ending the name) reads them as `NAME·k` and says so once per file on
+the `treewright` logger (standard error unless the caller configures logging).
 
 A saved grammar is sealed: its first line is `@format 1` and its last line is
 `# checksum sha256:HEX`, the SHA-256 of every line before it (joined with "\n", so a change of
@@ -40,6 +46,7 @@ neither line and loads as it is; to accept hand edits to a saved file, delete bo
 from __future__ import annotations
 
 import hashlib
+import logging
 import math
 import re
 from dataclasses import dataclass
@@ -50,6 +57,7 @@ import torch
 
 from treewright.errors import InputError
 from treewright.vocab import Vocabulary
+from treewright.wordshapes import SCHEME as SHAPE_SCHEME
 
 NEG_INF = float("-inf")
 FORMAT_VERSION = 1
@@ -70,6 +78,33 @@ def split_name(name: str) -> tuple[str, int | None]:
     if mark and head and tail.isascii() and tail.isdigit():
         return head, int(tail)
     return name, None
+
+
+OLD_SUBCATEGORY = re.compile(r"(.+)@([0-9]+)")  # NAME@k, the mark before SUBCATEGORY_MARK
+_log = logging.getLogger("treewright")
+
+
+def old_subcategory_names(names, source: str) -> dict[str, str]:
+    """{old name: new name} for the symbols among `names` written `NAME@k`, the subcategory
+    mark of grammars saved before `NAME·k`; when there are any, says once that they are read
+    as subcategories. Raises InputError when a new name is already a symbol of its own."""
+    names = set(names)
+    renames = {}
+    for name in sorted(names):
+        found = OLD_SUBCATEGORY.fullmatch(name)
+        if found:
+            renames[name] = fine_name(found.group(1), int(found.group(2)))
+    if not renames:
+        return renames
+    clash = sorted(set(renames.values()) & names)
+    if clash:
+        raise InputError(f"symbol {clash[0]} is written both in the old subcategory form "
+                         f"(NAME@k) and in the new one (NAME{SUBCATEGORY_MARK}k)", path=source)
+    example = next(iter(renames.items()))
+    _log.warning("%s: %d symbols are written NAME@k, the subcategory mark of grammars saved "
+                 "before NAME%sk; they are read as subcategories (%s as %s)", source,
+                 len(renames), SUBCATEGORY_MARK, *example)
+    return renames
 
 
 def coarse_name(name: str) -> str:
@@ -133,6 +168,8 @@ class Grammar:
         lines = [f"@format {FORMAT_VERSION}", f"@start {self.start}"]
         if self.vocab.unk is not None:
             lines.append(f"@unknown {quote(self.vocab.unk)}")
+        if self.vocab.shapes is not None:
+            lines.append(f"@word-shapes {self.vocab.shapes}")
         names = self.symbols
         if not self.root_is_symbol:
             for a in range(len(self.nonterminals)):
@@ -214,6 +251,7 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                   tolerance: float = 1e-6) -> Grammar:
     start: str | None = None
     unk: str | None = None
+    shapes: int | None = None
     # (lhs, rhs tuple, probability, line); rhs items are ("sym", name) or ("word", w)
     rules: list[tuple[str, tuple[tuple[str, str], ...], float, int]] = []
     # Only \n, \r\n and \r end a line (str.splitlines also splits at \v, \f and others, and
@@ -233,6 +271,11 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
             elif parts[0] == "@unknown" and len(parts) == 2 and parts[1].startswith('"') \
                     and _TOKEN.fullmatch(parts[1]):
                 unk = _unquote(parts[1])
+            elif parts[0] == "@word-shapes" and len(parts) == 2:
+                if parts[1].strip() != str(SHAPE_SCHEME):
+                    raise InputError(f"word shape scheme {parts[1].strip()!r} is not supported "
+                                     f"(this treewright has scheme {SHAPE_SCHEME})", **where)
+                shapes = SHAPE_SCHEME
             elif parts[0] == "@format" and len(parts) == 2:
                 if parts[1].strip() != str(FORMAT_VERSION):
                     raise InputError(f"grammar format version {parts[1].strip()!r} is not "
@@ -240,8 +283,8 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                                      **where)
             else:
                 raise InputError(f"unknown or malformed directive {raw.strip()!r} "
-                                 "(expected '@start SYMBOL', '@unknown \"WORD\"' or "
-                                 "'@format 1')", **where)
+                                 "(expected '@start SYMBOL', '@unknown \"WORD\"', "
+                                 f"'@word-shapes {SHAPE_SCHEME}' or '@format 1')", **where)
             continue
         tokens = _TOKEN.findall(line)
         if not _TOKENS.fullmatch(line) or len(tokens) < 4 or tokens[1] != "->":
@@ -271,7 +314,14 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                          path=source)
     if not rules:
         raise InputError("the grammar has no rules", path=source)
-    return _build(rules, start, unk, source, renormalize, tolerance)
+    renames = old_subcategory_names([start] + [lhs for lhs, *_ in rules] + [
+        name for _, rhs, _, _ in rules for kind, name in rhs if kind == "sym"], source)
+    if renames:
+        start = renames.get(start, start)
+        rules = [(renames.get(lhs, lhs),
+                  tuple((kind, renames.get(name, name) if kind == "sym" else name)
+                        for kind, name in rhs), prob, line) for lhs, rhs, prob, line in rules]
+    return _build(rules, start, unk, shapes, source, renormalize, tolerance)
 
 
 def _strip_comment(line: str) -> str:
@@ -294,7 +344,7 @@ def _strip_comment(line: str) -> str:
     return "".join(out)
 
 
-def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
+def _build(rules, start, unk, shapes, source, renormalize, tolerance) -> Grammar:
     first_line: dict[str, int] = {}
     has_binary, has_lexical, has_unary = set(), set(), set()
     words: dict[str, None] = {}
@@ -336,7 +386,7 @@ def _build(rules, start, unk, source, renormalize, tolerance) -> Grammar:
                                  f"with binary rules); {name} has none", path=source, line=line)
     if unk is not None:
         words.setdefault(unk)
-    vocab = Vocabulary(list(words), unk=unk)
+    vocab = Vocabulary(list(words), unk=unk, shapes=shapes)
     root: dict[str, float] = {}
     binary: dict[tuple[str, str, str], float] = {}
     lexical: dict[tuple[str, str], float] = {}

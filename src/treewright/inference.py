@@ -72,7 +72,9 @@ def encode_ids(lexical: Tensor, ids: Tensor, lengths: Tensor, num_nt: int = 0,
 
 def encode(grammar: Grammar, sentences: Sequence[Sequence[str]],
            dtype: torch.dtype = torch.float32) -> Encoded:
-    """Sentences of words as engine inputs under `grammar` (see `encode_ids`)."""
+    """Sentences of words as engine inputs under `grammar` (see `encode_ids`). A word outside
+    the vocabulary is read as its shape class when the grammar declares them (refined
+    treebank grammars, `Vocabulary.lookup`), else as the unknown word; `unknown` lists it."""
     ids, lengths = pad_ids([grammar.vocab.encode(words) for words in sentences])
     enc = encode_ids(grammar.lexical.to(dtype), ids, lengths, len(grammar.nonterminals),
                      grammar.nonterminals_emit)
@@ -222,8 +224,8 @@ def tree_logprob(grammar: Grammar, tree: Tree) -> float:
         if a is None:
             raise ValueError(f"unknown symbol {node.label}")
         if node.is_preterminal():
-            w = grammar.vocab.index.get(node.children[0], grammar.vocab.unk_id)
-            total += NEG_INF if w is None else float(grammar.lexical[a, w])
+            w = grammar.vocab.lookup(node.children[0])
+            total += NEG_INF if w < 0 else float(grammar.lexical[a, w])
         elif len(node.children) == 2 and all(isinstance(c, Tree) for c in node.children):
             if a >= nt:
                 return NEG_INF

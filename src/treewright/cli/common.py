@@ -61,13 +61,15 @@ def training_normaliser(source):
 
     source: an `export.GrammarSource`. A run folder or JSON export records its training config;
     with `data.lowercase` the words were lowercased (by `data.case_rules`), and a note goes to
-    standard error. A bare grammar file records nothing, so its words are taken as written.
+    standard error. A tag-mode run never lowercased its tokens (tags are case-significant), and
+    a bare grammar file records nothing: for both the tokens are taken as written (None).
     """
-    from treewright.corpus import lowercase, run_case_rules
+    from treewright.corpus import lowercase, run_read_options
     config = (source.training or {}).get("config")
-    rules = run_case_rules(config.get("data") if isinstance(config, dict) else None)
-    if rules is None:
+    options = run_read_options(config.get("data") if isinstance(config, dict) else None)
+    if options.tag_mode or not options.lowercase:
         return None
+    rules = options.case_rules
     print("lowercasing the input words, as the grammar's training run did (data.lowercase, "
           f"{rules} case rules)", file=sys.stderr)
     return lambda word: lowercase(word, rules)

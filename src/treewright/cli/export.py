@@ -18,10 +18,12 @@ formats:
   json      the JSON export: symbols, vocabulary, every rule, and the run's settings and data
             summary when the source is a run folder (see the README for its fields)
   listing   per symbol its entropy, top rules or words, and usage on --corpus if given
-  brackets  the Viterbi tree of each --corpus sentence, one bracketed tree per line
+  brackets  the Viterbi tree of each --corpus sentence, one bracketed tree per line (an
+            empty line for a blank input line, so output line k is input line k)
   conllu    the --corpus sentences as CoNLL-U, the induced preterminal of each word in the
             --tag-column column (XPOS by default), the tree in a '# induced_tree' comment,
-            HEAD and DEPREL (root, else dep) read off the tree by the --heads rule
+            HEAD and DEPREL (root, else dep) read off the tree by the --heads rule; one
+            block per non-blank line, its '# sent_id' the input line number
 
 The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg).
 Pruning (--prune-threshold / --prune-top) comes first, then renaming (--rename: 'OLD NEW' per
@@ -56,7 +58,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import read_sentences, training_normaliser
+    from treewright.cli.common import read_lines, read_sentences, training_normaliser
     from treewright.errors import InputError
     from treewright.export import load_renaming, open_grammar, prune, rename_grammar
     from treewright.export.jsonformat import grammar_json_text
@@ -88,6 +90,7 @@ def run(args) -> int:
     mapping = load_renaming(args.rename, grammar) if args.rename else {}
     named = rename_grammar(grammar, mapping)
     lines = read_sentences(args.corpus) if args.corpus else None
+    every_line = read_lines(args.corpus) if args.to in ("brackets", "conllu") else None
 
     if args.to == "json":
         text = grammar_json_text(named, source.training)
@@ -103,11 +106,15 @@ def run(args) -> int:
         text = format_listing(named, summarize(named, counts, threshold, top), threshold, top,
                               note)
     else:
-        parsed = parse_corpus(grammar, lines, mapping, normalise)
-        unparsed = sum(1 for p in parsed if p.tree is None)
+        parsed = parse_corpus(grammar, every_line, mapping, normalise)
+        unparsed = sum(1 for p in parsed if p.tree is None and not p.blank)
         if unparsed:
-            print(f"{unparsed} of {len(parsed)} sentences had no parse (kept in the output)",
+            print(f"{unparsed} of {len(lines)} sentences had no parse (kept in the output)",
                   file=sys.stderr)
+        blanks = len(parsed) - len(lines)
+        if blanks and args.to == "conllu":
+            print(f"{blanks} blank lines have no CoNLL-U block (a sentence needs a word); each "
+                  "block's '# sent_id' is its input line", file=sys.stderr)
         text = to_brackets(parsed) if args.to == "brackets" else to_conllu(
             parsed, args.tag_column, rule=head_rule(args.heads, named))
     if args.out == "-":

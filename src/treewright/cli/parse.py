@@ -61,7 +61,7 @@ def run(args) -> int:
 
     from treewright.budget import plan_budget, run_plan
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
-    from treewright.corpus import read_tagged, run_tag_mode
+    from treewright.corpus import insert_words, read_tagged, run_drop_tags, run_tag_mode
     from treewright.decode import decode
     from treewright.export import open_grammar  # text, JSON export or run folder
     from treewright.tracking import terminal_progress
@@ -69,40 +69,64 @@ def run(args) -> int:
     source = open_grammar(args.grammar)
     grammar = source.grammar
     config = (source.training or {}).get("config")
-    on_tags = args.tags or run_tag_mode(config.get("data") if isinstance(config, dict) else None)
+    data = config.get("data") if isinstance(config, dict) else None
+    on_tags = args.tags or run_tag_mode(data)
+    drop = run_drop_tags(data)
     tagged = read_tagged(args.text) if on_tags and args.text != "-" else None
     if tagged is None:
         every_line = read_lines(args.text)
         lines = [(k, words) for k, words in every_line if words]
-        inputs = as_trained(source, lines)
+        # Tags (raw text read as tags) are never lowercased, as training read them.
+        tokens = [words for _, words in lines] if on_tags else as_trained(source, lines)
     else:  # tags go into the grammar, the words come out; one output line per sentence
         every_line = lines = [(s.line, s.words) for s in tagged]
-        inputs = [s.tokens for s in tagged]
+        tokens = [s.tokens for s in tagged]
+    # Tags whose words training removed (data.drop_tags) are left out of the parse, as there,
+    # and put back into the tree (insert_words); a dropped tag the grammar knows (training on
+    # raw text removes none) stays in.
+    kept = [[not (on_tags and t in drop and t not in grammar.vocab) for t in sentence]
+            for sentence in tokens]
+    inputs = [[t for t, k in zip(sentence, mask) if k] for sentence, mask in zip(tokens, kept)]
+    todo = [i for i, sentence in enumerate(inputs) if sentence]
     dtype = torch.float64  # decode's precision
-    plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
+    plan = plan_budget(grammar, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                        args.batch_size)
-    warn_over_budget(plan, grammar, lines, args.text, dtype, "parsed")
-    with terminal_progress(len(inputs) - len(plan.over), "parse") as progress:
-        results = run_plan(plan, inputs, lambda group: decode(grammar, group, args.decoder,
-                                                              args.batch_size, dtype), progress)
-    by_line = {line: (words, normalised, result) for (line, words), normalised, result
-               in zip(lines, inputs, results)}
+    warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
+    with terminal_progress(len(todo) - len(plan.over), "parse") as progress:
+        done = run_plan(plan, [inputs[i] for i in todo],
+                        lambda group: decode(grammar, group, args.decoder, args.batch_size,
+                                             dtype), progress)
+    results = [None] * len(lines)
+    for i, result in zip(todo, done):
+        results[i] = result
+    by_line = {line: i for i, (line, _) in enumerate(lines)}
     unparsed = 0
     for line, _ in every_line:
         if line not in by_line:
             print()  # a blank input line: an empty output line keeps the two files aligned
             continue
-        words, normalised, result = by_line[line]
+        i = by_line[line]
+        words, result = lines[i][1], results[i]
         if result is None or result.tree is None:
             unparsed += 1
-            if result is not None:  # over the budget was reported already
-                unknown = [w for w in normalised if w not in grammar.vocab]
+            why = None
+            if not inputs[i]:
+                why = f"every tag is one that training removed (data.drop_tags: {sorted(drop)})"
+            elif result is not None:  # over the budget was reported already
+                unknown = [w for w in inputs[i] if grammar.vocab.lookup(w) < 0]
                 why = f"unknown words {unknown}" if unknown else "no tree covers it"
+                if drop and not on_tags:
+                    why += (f"; the grammar's training run removed the words tagged "
+                            f"{', '.join(sorted(drop))} (data.drop_tags), and raw text has "
+                            "no tags to find them by: remove such words from the text")
+            if why is not None:
                 print(f"{input_name(args.text)}, line {line}: no parse ({why})",
                       file=sys.stderr)
             fields = ["(NOPARSE " + " ".join(words) + ")"]
-        else:
+        elif all(kept[i]):
             fields = [result.tree.with_leaves(words).to_string()]  # the words as written
+        else:
+            fields = [insert_words(result.tree, words, kept[i], tokens[i]).to_string()]
         if args.scores:
             fields += ["nan", "nan"] if result is None else \
                 [repr(result.tree_logprob), repr(result.posterior)]

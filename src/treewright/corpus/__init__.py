@@ -15,19 +15,21 @@ from treewright.corpus.lines import iter_lines
 from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, read_corpus,
                                       read_tagged, write_skip_log)
 from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binarize,
-                                          collapse_unary, expand_unary, unbinarize)
+                                          collapse_unary, expand_unary, insert_words,
+                                          unbinarize)
 from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, Corpus, ReadOptions,
                                      ReadReport, Sentence, SkippedRecord, lowercase,
-                                     run_case_rules, run_tag_mode)
+                                     run_case_rules, run_drop_tags, run_read_options,
+                                     run_tag_mode)
 from treewright.corpus.walk import depth, trees_equal
 
 __all__ = [
     "BIN_MARK", "BracketRecord", "CASE_RULES", "Corpus", "CorpusStream", "DependencySentence",
     "FORMATS", "PARENT_SEP", "PTB_PUNCT_LABELS", "REASONS", "ReadOptions", "ReadReport",
     "Sentence", "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
-    "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary",
+    "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary", "insert_words",
     "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "length_batches",
     "lift_to_projective", "lowercase", "nonprojective_arcs", "parse_brackets", "preterminal_tags",
-    "read_corpus", "read_tagged", "run_case_rules", "run_tag_mode", "split_indices", "strip_label", "subtree_spans",
+    "read_corpus", "read_tagged", "run_case_rules", "run_drop_tags", "run_read_options", "run_tag_mode", "split_indices", "strip_label", "subtree_spans",
     "trees_equal", "unbinarize", "write_skip_log",
 ]

@@ -136,3 +136,51 @@ def expand_unary(tree: Tree) -> Tree:
         return [out]
 
     return rebuild(tree, visit)[0]  # type: ignore[return-value]
+
+
+def insert_words(tree: Tree, words: list[str], kept: list[bool], tags: list[str]) -> Tree:
+    """`tree` over the kept words of a sentence, with the others put back as preterminals
+    (`tags[i]` over `words[i]`), so that it covers `words` again.
+
+    A left-out word goes between the two children of the lowest node that holds its kept
+    neighbours on either side (before or after the whole tree at the sentence's edges), so every
+    bracket of `tree` keeps its kept words and gains only left-out words inside it: removing
+    them again (as evaluation removes punctuation) gives back `tree`'s brackets exactly. This is
+    how a grammar trained without some tags (`data.drop_tags`) parses a sentence that has them.
+    The tree's own leaves are replaced by the kept words, in order.
+    """
+    positions = [i for i, keep in enumerate(kept) if keep]           # kept word -> position
+    if len(positions) != len(tree):
+        raise ValueError(f"the tree has {len(tree)} words, the sentence {len(positions)} kept")
+    indexed = tree.with_leaves([str(k) for k in range(len(positions))])
+    span: dict[int, tuple[int, int]] = {}                            # id(node) -> kept range
+
+    def between(a: int, b: int) -> list[Child]:
+        return [Tree(tags[i], [words[i]]) for i in range(a, b)]
+
+    def visit(node: Tree, kids: list[Child]) -> list[Child]:
+        out: list[Child] = []
+        first = last = -1
+        for kid in kids:
+            if isinstance(kid, str):
+                lo = hi = int(kid)
+                kid = words[positions[lo]]
+            else:
+                lo, hi = span[id(kid)]
+            if last >= 0:
+                out.extend(between(positions[last] + 1, positions[lo]))
+            else:
+                first = lo
+            out.append(kid)
+            last = hi
+        new = Tree(node.label, out)
+        span[id(new)] = (first, last)
+        return [new]
+
+    top = rebuild(indexed, visit)[0]
+    assert isinstance(top, Tree)
+    if top.is_preterminal() and len(positions) < len(words):
+        top = Tree(top.label, [top])  # one kept word: its tag gets the others beside it
+    top.children[:0] = between(0, positions[0])
+    top.children.extend(between(positions[-1] + 1, len(words)))
+    return top

@@ -114,6 +114,23 @@ class ReadOptions:
             raise ValueError("; ".join(problems))
 
 
+def run_drop_tags(data) -> frozenset[str]:
+    """The tags whose words a training run's `data` config section removed (`drop_tags`)."""
+    value = data.get("drop_tags") if isinstance(data, dict) else None
+    return frozenset(t.strip() for t in value.split(",") if t.strip()) \
+        if isinstance(value, str) else frozenset()
+
+
+def run_read_options(data, **extra) -> ReadOptions:
+    """ReadOptions that read a corpus as a training run's `data` config section (as read from
+    its config.yaml; None: a grammar without a run) read its training corpus: its lowercasing
+    (of words only: tags are never changed), tag mode and dropped tags. `extra` sets the other
+    fields."""
+    rules = run_case_rules(data)
+    return ReadOptions(lowercase=rules is not None, case_rules=rules or "default",
+                       tag_mode=run_tag_mode(data), punct_labels=run_drop_tags(data), **extra)
+
+
 @dataclass
 class Sentence:
     """One usable sentence.

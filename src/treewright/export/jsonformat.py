@@ -1,6 +1,7 @@
 """The JSON export of a grammar (format version 1), written and validated on load.
 
-Top-level object, field by field (every field is required; `null` where noted):
+Top-level object, field by field (every field is required except `word_shapes`; `null` where
+noted):
 
 - `format` (string): always "treewright-grammar".
 - `format_version` (integer): 1. A reader refuses any other version.
@@ -12,6 +13,9 @@ Top-level object, field by field (every field is required; `null` where noted):
   appears twice across the two lists, and the start symbol is not a preterminal.
 - `vocabulary` (list of strings): the word types, in index order, no repeats.
 - `unknown_word` (string or null): the vocabulary entry that stands for every unknown word.
+- `word_shapes` (integer or null; absent in exports written before it existed, read as null):
+  the word shape scheme (`treewright.wordshapes.SCHEME`) by which a word outside the vocabulary
+  stands for its shape class, when that class is in the vocabulary, before `unknown_word`.
 - `rules` (list of objects), each with
   - `kind`: "root" (`start` -> one nonterminal), "binary" (nonterminal -> two symbols) or
     "lexical" (symbol -> one word of `vocabulary`),
@@ -37,9 +41,10 @@ from pathlib import Path
 from typing import Any
 
 from treewright.errors import InputError
-from treewright.grammar import Grammar, build_grammar
+from treewright.grammar import Grammar, build_grammar, old_subcategory_names
 from treewright.safeio import atomic_write_text
 from treewright.vocab import Vocabulary
+from treewright.wordshapes import SCHEME as SHAPE_SCHEME
 
 FORMAT_NAME = "treewright-grammar"
 FORMAT_VERSION = 1
@@ -71,6 +76,7 @@ def grammar_to_json(grammar: Grammar, training: dict | None = None) -> dict:
         "preterminals": list(grammar.preterminals),
         "vocabulary": list(grammar.vocab.words),
         "unknown_word": grammar.vocab.unk,
+        "word_shapes": grammar.vocab.shapes,
         "rules": rules,
         "training": training,
         "counts": {"nonterminals": len(grammar.nonterminals),
@@ -146,6 +152,11 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
     nonterminals = _string_list(data, "nonterminals", bad)
     preterminals = _string_list(data, "preterminals", bad)
     words = _string_list(data, "vocabulary", bad)
+    renames = old_subcategory_names(nonterminals + preterminals + [start], source)
+    if renames:  # an export saved before NAME·k: its NAME@k symbols are subcategories
+        nonterminals = [renames.get(n, n) for n in nonterminals]
+        preterminals = [renames.get(n, n) for n in preterminals]
+        start = renames.get(start, start)
     if not nonterminals:
         raise bad("nonterminals", "a grammar needs at least one nonterminal")
     symbols = nonterminals + preterminals
@@ -163,6 +174,10 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
     unk = data["unknown_word"]
     if unk is not None and (not isinstance(unk, str) or unk not in words):
         raise bad("unknown_word", "must be null or a word of the vocabulary")
+    shapes = data.get("word_shapes")
+    if shapes is not None and (shapes != SHAPE_SCHEME or isinstance(shapes, bool)):
+        raise bad("word_shapes", f"{shapes!r} is not null or a supported word shape scheme "
+                                 f"(this treewright has scheme {SHAPE_SCHEME})")
     training = data["training"]
     if training is not None and not isinstance(training, dict):
         raise bad("training", "must be an object or null")
@@ -183,6 +198,10 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
             if name not in rule:
                 raise bad(f"{field}.{name}", "missing")
         kind, lhs, rhs, prob = (rule[name] for name in _RULE_FIELDS)
+        if renames and isinstance(lhs, str):
+            lhs = renames.get(lhs, lhs)
+        if renames and isinstance(rhs, list) and kind != "lexical":
+            rhs = [renames.get(x, x) if isinstance(x, str) else x for x in rhs]
         if kind not in _RHS_LENGTH:
             raise bad(f"{field}.kind", f"{kind!r} is not one of root, binary, lexical")
         if not isinstance(rhs, list) or len(rhs) != _RHS_LENGTH[kind] \
@@ -225,7 +244,8 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
         return bad("rules", f"the rules of {name} sum to {total!r}, not 1")
 
     # The text format's builder, so a grammar read from either format has the same bits.
-    grammar = build_grammar(nonterminals, preterminals, Vocabulary(words, unk=unk), start, root,
+    grammar = build_grammar(nonterminals, preterminals, Vocabulary(words, unk=unk, shapes=shapes),
+                            start, root,
                             binary, lexical, tolerance=SUM_TOLERANCE, bad_total=bad_total)
     counts = data["counts"]
     expected = {"nonterminals": nt, "preterminals": len(preterminals), "words": len(words),

@@ -5,6 +5,11 @@ dropped: the bracketed output writes `(NOPARSE w1 w2 ...)` on its line, and the 
 keeps its tokens with `_` in the tag, HEAD and DEPREL columns and a `# parse = none` comment
 (a CoNLL-U reader then reports that sentence's words as having no head).
 
+Blank input lines (no words) are kept as `ParsedSentence`s with no words: the bracketed output
+has an empty line for each, so output line k is input line k, as `treewright parse` writes;
+CoNLL-U has no sentence without words, so its blocks are the non-blank lines, each naming its
+input line in `# sent_id`.
+
 CoNLL-U output: one block per sentence, the 10 columns ID FORM LEMMA UPOS XPOS FEATS HEAD
 DEPREL DEPS MISC. Filled are ID and FORM; the tag column the user picks (XPOS by default, or
 UPOS) with the label of the tree node right above each word: the induced preterminal (for a
@@ -35,6 +40,7 @@ highest node it heads), which are constituents of the induced tree.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Callable, Mapping, Sequence
 
@@ -54,24 +60,31 @@ _COLUMNS = ("ID", "FORM", "LEMMA", "UPOS", "XPOS", "FEATS", "HEAD", "DEPREL", "D
 
 @dataclass
 class ParsedSentence:
-    """One input sentence: its line number, words, tree (None: no parse) and log-probability."""
+    """One input line: its line number, words, tree (None: no parse, or a blank line) and
+    log-probability (nan for a blank line)."""
     line: int
     words: list[str]
     tree: Tree | None
     logprob: float
 
+    @property
+    def blank(self) -> bool:
+        return not self.words
+
 
 def parse_corpus(grammar: Grammar, lines: Sequence[tuple[int, list[str]]],
                  mapping: dict[str, str] | None = None,
                  normalise: Callable[[str], str] | None = None) -> list[ParsedSentence]:
-    """Viterbi trees of (line number, words) pairs, labels renamed by `mapping` if given.
+    """Viterbi trees of (line number, words) pairs, labels renamed by `mapping` if given. A
+    pair with no words (a blank line) is kept, unparsed (see the module docstring).
 
     normalise: applied to each word before it is looked up in the grammar (as the training
     corpus was normalised, e.g. lowercased); the trees keep the words as written."""
     from treewright.export.rename import rename_tree
 
-    lookup = [[normalise(x) for x in w] if normalise else list(w) for _, w in lines]
-    results = viterbi_parse(grammar, lookup)
+    lookup = [[normalise(x) for x in w] if normalise else list(w) for _, w in lines if w]
+    found = iter(viterbi_parse(grammar, lookup) if lookup else [])
+    results = [next(found) if words else (None, math.nan) for _, words in lines]
     out = []
     for (line, words), (tree, logp) in zip(lines, results):
         if tree is not None and normalise:
@@ -83,10 +96,10 @@ def parse_corpus(grammar: Grammar, lines: Sequence[tuple[int, list[str]]],
 
 
 def to_brackets(parsed: Sequence[ParsedSentence]) -> str:
-    """One bracketed tree per line, in input order."""
+    """One bracketed tree per line, in input order; an empty line for a blank input line."""
     lines = []
     for p in parsed:
-        lines.append(p.tree.to_string() if p.tree is not None
+        lines.append("" if p.blank else p.tree.to_string() if p.tree is not None
                      else Tree(NOPARSE, list(p.words)).to_string())
     return "\n".join(lines) + "\n"
 
@@ -196,6 +209,8 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
     where = _COLUMNS.index(tag_column)
     blocks = []
     for p in parsed:
+        if p.blank:
+            continue  # no CoNLL-U sentence has no words; sent_id keeps the lines apart
         lines = [f"# sent_id = {p.line}", f"# text = {' '.join(p.words)}"]
         if p.tree is None:
             lines.append("# parse = none")

@@ -189,7 +189,7 @@ def _protect(grammar: Grammar, parses, root_keep, binary_keep, lexical_keep) -> 
         for node in tree.subtrees():
             a = index[node.label]
             if node.is_preterminal():
-                w = vocab.index.get(node.children[0], vocab.unk_id)
+                w = vocab.lookup(node.children[0])
                 if not lexical_keep[a, w]:
                     lexical_keep[a, w] = True
                     added += 1

@@ -399,6 +399,7 @@ def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, s
     train_mapped = [map_words(t, classes) for t in train_trees]
     dev_mapped = [map_words(t, classes) for t in dev_trees]
     lg = estimate_coarse(train_mapped)
+    lg.vocab.shapes = classes.scheme  # saved grammars read unseen words as training did
     log.note(f"coarse grammar: {len(lg.symbols)} symbols, {len(lg.rules)} binary and "
              f"{len(lg.words)} word rules; {len(classes.known)} known words, "
              f"{len(classes.signatures)} shape classes")

@@ -21,32 +21,15 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass
-from typing import Iterable
+from typing import ClassVar, Iterable
 
-UNKNOWN = "<unk>"   # the class of every word without a cue, or whose shape class is too rare
-SUFFIX_LENGTH = 2   # letters of the suffix kept; two already tell much in suffixing languages
-OPEN, CLOSE, SEPARATOR, ENDING = "\u27ea", "\u27eb", "\u00b7", "\u2026"
+# The shape classes themselves live with the vocabulary (`treewright.wordshapes`), because a
+# saved grammar maps unseen words to them at parse time, below the refinement layer.
+from treewright.wordshapes import (CLOSE, ENDING, OPEN, SCHEME, SEPARATOR, SUFFIX_LENGTH,
+                                   UNKNOWN, is_class_name, signature)
 
-
-def signature(word: str) -> str:
-    """The shape class of `word` (see the module docstring), e.g. "⟪Capital·…ar⟫", "⟪digit⟫",
-    "⟪hyphen·…ed⟫"; UNKNOWN when the word shows none of the cues."""
-    cues = []
-    if word[:1].isupper():
-        cues.append("Capital")
-    if any(ch.isdigit() for ch in word):
-        cues.append("digit")
-    if "-" in word:
-        cues.append("hyphen")
-    tail = word[-SUFFIX_LENGTH:].lower()
-    if len(word) > SUFFIX_LENGTH + 1 and tail.isalpha():
-        cues.append(ENDING + tail)
-    return OPEN + SEPARATOR.join(cues) + CLOSE if cues else UNKNOWN
-
-
-def is_class_name(token: str) -> bool:
-    """True for UNKNOWN and for every token of the form of a shape class name."""
-    return token == UNKNOWN or (len(token) > 2 and token[0] == OPEN and token[-1] == CLOSE)
+__all__ = ["CLOSE", "ENDING", "OPEN", "SCHEME", "SEPARATOR", "SUFFIX_LENGTH", "UNKNOWN", "WordClasses",
+           "is_class_name", "signature"]
 
 
 @dataclass
@@ -59,6 +42,10 @@ class WordClasses:
     """
     known: frozenset[str]
     signatures: frozenset[str]
+    # The shape scheme a grammar trained on these words declares (`Vocabulary.shapes`): with
+    # it, the grammar reads an unseen word as `__call__` would (its kept words and classes are
+    # exactly the grammar's words).
+    scheme: ClassVar[int] = SCHEME
 
     @classmethod
     def fit(cls, tokens: Iterable[str], rare_count: int, signature_min_count: int

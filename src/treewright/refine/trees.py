@@ -14,12 +14,15 @@ vectors alone.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Sequence
 
 import torch
 from torch import Tensor
 
+from treewright.corpus.transforms import BIN_MARK, PARENT_SEP, UNARY_SEP
+from treewright.grammar import SUBCATEGORY_MARK, split_name
 from treewright.refine.latent import LatentGrammar
 from treewright.trees import Tree
 
@@ -55,16 +58,26 @@ class TreeSet:
         return len(self.kept)
 
 
+_TRANSFORM_MARKS = "[" + re.escape(BIN_MARK + PARENT_SEP + UNARY_SEP) + "]"
+
+
 def cnf_problem(tree: Tree, start: str = "ROOT") -> str | None:
     """None if every node of `tree` is a preterminal (one word below) or binary over two
     phrases, the form `tree_set` and the coarse estimate take, and no label is the name of the
     coarse grammar's start symbol `start`; else what the first other node is. `cnf_tree` (in
     `refine.run`) gives that form to any tree whose nodes hold either words alone or phrases
-    alone; a node that mixes words and phrases is what remains."""
+    alone; a node that mixes words and phrases is what remains. Nor may a corpus label end in
+    the subcategory mark and a number (`NP·2`): refinement names its own subcategories so."""
     for node in tree.subtrees():
         if node.label == start:
             return (f"the label {start} is the name of the refined grammar's start symbol; "
                     "rename it in the treebank")
+        # The corpus labels inside a binarized, annotated or joined label (`_TRANSFORM_MARKS`).
+        for label in re.split(_TRANSFORM_MARKS, node.label):
+            if split_name(label)[1] is not None:
+                return (f"the label {label} ends in the subcategory mark {SUBCATEGORY_MARK} and "
+                        "a number, which would read as a subcategory of the refined grammar; "
+                        "rename it in the treebank")
         if node.is_preterminal():
             continue
         if len(node.children) != 2 or not all(isinstance(c, Tree) for c in node.children):

@@ -21,7 +21,7 @@ import yaml
 
 from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
-                               expand_unary, read_corpus, run_case_rules, unbinarize)
+                               expand_unary, read_corpus, run_read_options, unbinarize)
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
@@ -118,6 +118,7 @@ table { border-collapse: collapse; font-size: 13px; margin: 8px 0; }
 td, th { border: 1px solid #ddd; padding: 3px 8px; text-align: left; vertical-align: top; }
 .num { text-align: right; font-variant-numeric: tabular-nums; }
 .symbols { display: flex; flex-wrap: wrap; gap: 12px; }
+.binarized summary { cursor: pointer; margin: 6px 0; }
 pre { background: #f6f6f6; padding: 8px; overflow-x: auto; font-size: 12px; }
 """
 
@@ -171,10 +172,7 @@ def _number(value) -> float | None:
 
 def _read_options(config: dict) -> ReadOptions:
     """Token options of the run's data section, so gold/text tokens match the grammar's words."""
-    data = config.get("data") or {}
-    rules = run_case_rules(data)
-    return ReadOptions(lowercase=rules is not None, case_rules=rules or "default",
-                       tag_mode=bool(data.get("tag_mode", False)), nonprojective="lift")
+    return run_read_options(config.get("data"), nonprojective="lift")
 
 
 def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path | None = None,
@@ -439,6 +437,19 @@ def _small(value: float, decimals: int) -> str:
     return f"{value:.0e}"
 
 
+def binarization_parent(symbol: str) -> str | None:
+    """The phrase label an intermediate symbol of the binarization belongs to (`¤VP¤NP·1` ->
+    `VP`; `corpus.transforms.binarize` names them so), else None."""
+    from treewright.grammar import coarse_name
+
+    name = coarse_name(symbol)
+    if not name.startswith(BIN_MARK):
+        return None
+    for mark in (BIN_MARK, PARENT_SEP, UNARY_SEP):
+        name = name[:1] + name[1:].split(mark, 1)[0]
+    return name[1:] or None
+
+
 def grammar_section(grammar, top: int) -> str:
     if grammar is None:
         return _section("grammar", "Symbols", _missing(f"No {GRAMMAR} in the run folder."))
@@ -453,8 +464,8 @@ def grammar_section(grammar, top: int) -> str:
     weight = uses if uses is not None else torch.cat([root, torch.zeros(S - nt, dtype=root.dtype)])
     order = sorted(range(nt), key=lambda a: -float(weight[a])) + \
         sorted(range(nt, S), key=lambda a: -float(weight[a]))
-    cards = []
-    for a in order:
+
+    def card(a: int) -> str:
         entries = []
         if a < nt:
             values, index = binary[a].topk(min(top, binary.shape[1]))
@@ -471,15 +482,34 @@ def grammar_section(grammar, top: int) -> str:
             facts.append(f"root {_small(float(root[a]), 3)}")
         rows = "".join(f"<tr><td>{esc(rhs)}</td><td class='num'>{p:.3f}</td></tr>"
                        for p, rhs in entries)
-        cards.append(f"<table class='symbol'><tr><th colspan='2'>{esc(names[a])}"
-                     f"<span class='facts'>{esc(', '.join(facts))}</span></th></tr>{rows}"
-                     "</table>")
+        return (f"<table class='symbol'><tr><th colspan='2'>{esc(names[a])}"
+                f"<span class='facts'>{esc(', '.join(facts))}</span></th></tr>{rows}</table>")
+
+    # Intermediate symbols of a treebank's binarization (¤VP¤NP·1, refined treebank grammars)
+    # are parts of their parent's rules, as the drawn trees show them: grouped under it.
+    groups: dict[str, list[int]] = {}
+    cards = []
+    for a in order:
+        parent = binarization_parent(names[a])
+        if parent is None:
+            cards.append(card(a))
+        else:
+            groups.setdefault(parent, []).append(a)
     by = ("expected uses per tree" if uses is not None
           else "root probability (expected uses diverge: the grammar is not consistent)")
+    shown = S - sum(map(len, groups.values()))
     body = (f"<p>{nt} nonterminals, then {S - nt} preterminals, each by {by}; "
             f"{len(words)} words; each symbol's {top} most probable rules. \u201croot p\u201d "
             "is the probability that a tree starts with the symbol.</p>"
             f'<div class="symbols">{"".join(cards)}</div>')
+    if groups:
+        body += (f"<p>The other {S - shown} symbols are the intermediate steps (\u00a4\u2026) "
+                 "by which the treebank's phrases of more than two children were binarized; "
+                 "they are grouped under the phrase they belong to.</p>")
+        body += "".join(f"<details class='binarized'><summary>{esc(parent)}: "
+                        f"{len(members)} intermediate symbols</summary>"
+                        f'<div class="symbols">{"".join(card(a) for a in members)}</div>'
+                        "</details>" for parent, members in groups.items())
     return _section("grammar", "Symbols: most probable rules and words", body)
 
 

@@ -145,16 +145,21 @@ def heldout_from_files(grammar_path: str | Path, text_path: str | Path,
                        ) -> tuple[LikelihoodScores, list[int]]:
     """Per-word log-likelihood and perplexity of a raw-text file under a grammar (text, JSON
     export or run folder), and the lines of the sentences left out because each alone needs
-    more than `memory_budget_mb` (see `treewright.budget`). A progress bar runs on a terminal."""
+    more than `memory_budget_mb` (see `treewright.budget`). A progress bar runs on a terminal.
+    The text is read as the grammar's training run read its corpus (lowercased when it was;
+    `corpus.run_read_options`), as `treewright score` reads it."""
     from treewright.budget import score_within_budget
-    from treewright.export.source import load as load_grammar  # text, JSON export or run folder
+    from treewright.corpus import run_read_options
+    from treewright.export.source import open_grammar  # text, JSON export or run folder
     from treewright.tracking import terminal_progress
 
-    grammar = load_grammar(grammar_path)
-    sentences = read_all(text_path, "text", ReadOptions(), "text")
+    source = open_grammar(grammar_path)
+    config = (source.training or {}).get("config")
+    options = run_read_options(config.get("data") if isinstance(config, dict) else None)
+    sentences = read_all(text_path, "text", options, "text")
     with terminal_progress(len(sentences), "held-out likelihood") as progress:
-        scores = score_within_budget(grammar, [s.words for s in sentences], memory_budget_mb,
-                                     progress=progress)
+        scores = score_within_budget(source.grammar, [s.tokens for s in sentences],
+                                     memory_budget_mb, progress=progress)
     kept = [s for s in scores if s is not None]
     over = [t.line for t, s in zip(sentences, scores) if s is None]
     return heldout_likelihood([s.logprob for s in kept], [len(s.words) for s in kept],
