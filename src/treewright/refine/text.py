@@ -65,20 +65,6 @@ def text_loglik(lg: LatentGrammar, ids: Sequence[Sequence[int]], batch_size: int
     return total, unparsed, words
 
 
-def viterbi_coarse_trees(lg: LatentGrammar, words: Sequence[Sequence[str]]) -> list[Tree]:
-    """The most probable fine tree of each sentence with its labels projected to the coarse
-    symbols (sentences with no parse are left out). The merge step of the text start estimates
-    its losses on these trees, the most probable stand-ins for the unobserved ones."""
-    from treewright.decode import decode
-
-    fine = lg.to_grammar(torch.float64)
-    out = []
-    for result in decode(fine, words, "viterbi"):
-        if result.tree is not None:
-            out.append(project_labels(result.tree))
-    return out
-
-
 def project_labels(tree: Tree) -> Tree:
     """A copy of `tree` with every NAME·k label replaced by NAME."""
     top = Tree(coarse_name(tree.label))
