@@ -22,8 +22,8 @@ from treewright.allocator import tune_allocator
 from treewright.corpus import length_batches
 from treewright.params import NeuralParams, TabularParams
 from treewright.train import updates
-from treewright.train.estep import add_counts, batch_counts, make_batch, terminal_scores, \
-    zero_counts
+from treewright.inference import encode_ids
+from treewright.train.estep import add_counts, batch_counts, make_batch, zero_counts
 from treewright import engine
 
 
@@ -78,7 +78,8 @@ def main() -> None:
         for batch in batches:
             rules = model.rules()
             logz = engine.log_partition(rules.root, rules.binary,
-                                        terminal_scores(rules.lexical, batch.ids),
+                                        encode_ids(rules.lexical, batch.ids,
+                                                   batch.lengths).terminal,
                                         batch.lengths)
             loss = -logz.sum() / batch.words
             optimizer.zero_grad()

@@ -10,11 +10,12 @@ import torch
 
 from test_train_fixtures import base_overrides, brute_force, write_corpus
 from treewright.grammar import load_grammar
+from treewright.inference import encode_ids
 from treewright.params import CompoundParams
 from treewright.params.compound import gaussian_kl
 from treewright.train import load_train_config, train
 from treewright.train.estep import (compound_log_partition, compound_span_posteriors,
-                                    sentence_terminal_scores, terminal_scores)
+                                    sentence_terminal_scores)
 
 
 def _model(seed=0):
@@ -59,7 +60,7 @@ def test_each_sentence_gets_its_own_rules_and_its_own_exact_likelihood():
             assert math.isclose(float(spans[b, i, j - i]), mass, rel_tol=1e-9)
         torch.testing.assert_close(
             sentence_terminal_scores(rules.lexical, ids)[b],
-            terminal_scores(rules.lexical[b], ids[b:b + 1])[0])
+            encode_ids(rules.lexical[b], ids[b:b + 1], lengths[b:b + 1]).terminal[0])
     # The grammar at z = 0 is a proper PCFG: every distribution sums to one.
     r0 = model.rules()
     torch.testing.assert_close(r0.binary.exp().sum((1, 2)), torch.ones(2, dtype=torch.float64))

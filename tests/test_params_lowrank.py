@@ -12,11 +12,11 @@ import torch
 
 from test_train_fixtures import base_overrides, brute_force, write_corpus
 from treewright.grammar import load_grammar
-from treewright.inference import score
+from treewright.inference import encode_ids, score
 from treewright.params import LowRankParams, LowRankRules
 from treewright.params.lowrank import dense_binary
 from treewright.train import load_train_config, train
-from treewright.train.estep import log_partition_of, span_posteriors, terminal_scores
+from treewright.train.estep import log_partition_of, span_posteriors
 
 
 def _rules(nt=2, t=3, v=4, rank=3, seed=0) -> LowRankRules:
@@ -54,7 +54,7 @@ def test_log_z_spans_and_counts_agree_with_enumeration(words):
     logz_bf, _, counts_bf, _, spans_bf = brute_force(dense, words)
     ids = torch.tensor([words])
     lengths = torch.tensor([len(words)])
-    terminal = terminal_scores(r.lexical, ids)
+    terminal = encode_ids(r.lexical, ids, lengths).terminal
     logz, spans = span_posteriors(r, terminal, lengths)
     assert math.isclose(float(logz[0]), logz_bf, rel_tol=1e-10)
     n = len(words)
@@ -98,8 +98,9 @@ def test_lowrank_trains_end_to_end_and_its_grammar_file_scores_like_the_model(tm
     assert isinstance(model_rules, LowRankRules)
     file_scores = [s.logprob for s in score(grammar, words, dtype=torch.float64)]
     ids = torch.tensor([[trainer.data.vocab.index[w] for w in words[0]]])
-    mine = log_partition_of(model_rules, terminal_scores(model_rules.lexical, ids),
-                            torch.tensor([len(words[0])]))
+    lengths = torch.tensor([len(words[0])])
+    mine = log_partition_of(model_rules, encode_ids(model_rules.lexical, ids, lengths).terminal,
+                            lengths)
     assert math.isclose(file_scores[0], float(mine[0]), rel_tol=1e-8)
 
 

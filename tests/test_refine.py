@@ -23,6 +23,7 @@ from treewright.refine import (CycleSettings, RefineConfig, cnf_tree, em_on_text
                                normalize, split, text_cycle, text_estep,
                                text_loglik, tree_cycle, tree_estep, tree_loglik, tree_set)
 from treewright.refine.text import project_labels
+from treewright.refiner import coarse_trees
 from treewright.trees import Tree
 
 REPO = Path(__file__).resolve().parents[1]
@@ -279,7 +280,7 @@ def test_text_start_em_is_monotone_and_a_cycle_runs(fine_grammar, coarse_sample)
     assert all(b >= a - 1e-8 * abs(a) for a, b in zip(history, history[1:]))
     refined = text_cycle(coarse, ids, sentences,
                          CycleSettings(em_iterations=4, smoothed_iterations=1),
-                         torch.Generator().manual_seed(0))
+                         torch.Generator().manual_seed(0), parser=coarse_trees)
     assert refined.num_fine() > coarse.num_fine()
     assert refined.normalization_error() < 1e-9
 
@@ -290,3 +291,40 @@ def test_shipped_refine_configs_validate(path):
     # Common practice: every shipped config loads against the schema.
     cfg = load_config(RefineConfig, path)
     assert cfg.refine.cycles >= 1
+
+
+def test_refinement_and_training_import_neither_decoding_nor_evaluation():
+    # Layering rule of the project (DEVELOPERS.md): refinement and training sit below decoding
+    # and evaluation, whose work they get from the caller (a parser, a dev evaluator). A fresh
+    # interpreter, so that no other test's imports count (common practice for import checks).
+    import subprocess
+    import sys
+    code = ("import sys, treewright.refine, treewright.refine.run, treewright.train, "
+            "treewright.train.loop, treewright.train.methods, treewright.train.estep; "
+            "print(sorted(m for m in ('treewright.decode', 'treewright.evaluation') "
+            "if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
+    # The check itself can fail: the library entry point, which supplies the parser, loads
+    # decoding.
+    code = code.replace("estep;", "estep, treewright.refiner;")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert "treewright.decode" in out.stdout
+
+
+def test_no_refinement_or_training_module_imports_decoding_or_evaluation_even_late():
+    # The same rule for imports inside functions, which the fresh interpreter above does not
+    # run: every import statement of refine/ and train/, read with Python's own parser.
+    import ast
+    import treewright
+    root = Path(treewright.__file__).parent
+    found = []
+    for path in sorted([*(root / "refine").glob("*.py"), *(root / "train").rglob("*.py")]):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = ([a.name for a in node.names] if isinstance(node, ast.Import)
+                     else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            found += [f"{path.name}: {n}" for n in names
+                      if n.split(".")[:2] in (["treewright", "decode"],
+                                              ["treewright", "evaluation"])]
+    assert found == []
+    assert list((root / "train").rglob("*.py")) and list((root / "refine").glob("*.py"))

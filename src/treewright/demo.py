@@ -94,7 +94,8 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
     from treewright.export import expected_counts, format_listing, save_grammar_json, summarize
     from treewright.grammar import load_grammar
     from treewright.inference import corpus_summary, score
-    from treewright.refine import load_refine_config, refine
+    from treewright.refine import load_refine_config
+    from treewright.refiner import refine
     from treewright.report.html import write_report
     from treewright.safeio import atomic_write_text, check_writable
     from treewright.induce import run

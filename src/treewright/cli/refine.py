@@ -34,7 +34,8 @@ def run(args) -> int:
     import sys
 
     from treewright.cli.common import config_and_folder
-    from treewright.refine import load_refine_config, refine, refine_resume
+    from treewright.refine import load_refine_config
+    from treewright.refiner import refine, refine_resume
     from treewright.runfolder import RunFolder
 
     cfg, run_dir = config_and_folder(args, load_refine_config)

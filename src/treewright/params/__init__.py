@@ -21,7 +21,7 @@ returns `LowRankRules`, whose dense `binary` is formed only on request; `compoun
 `rules()` is the grammar at the prior's mean.
 """
 
-from treewright.params.base import RuleModel, Scorer, terminal_scores
+from treewright.params.base import RuleModel, Scorer
 from treewright.params.tabular import (RuleTensors, TabularParams, symbol_names,
                                        tabular_from_grammar)
 from treewright.params.neural import NeuralParams
@@ -34,4 +34,4 @@ PARAMETERIZATIONS: dict[str, type[RuleModel]] = {
 
 __all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "LowRankParams",
            "LowRankRules", "NeuralParams", "RuleModel", "RuleTensors", "Scorer", "TabularParams",
-           "symbol_names", "tabular_from_grammar", "terminal_scores"]
+           "symbol_names", "tabular_from_grammar"]

@@ -22,10 +22,7 @@ from typing import Any, Protocol
 import torch
 from torch import Tensor, nn
 
-
-def terminal_scores(lexical: Tensor, ids: Tensor) -> Tensor:
-    """(B, N, T) log p(preterminal -> word at position) from lexical (T, V) and ids (B, N)."""
-    return lexical[:, ids].permute(1, 2, 0)
+from treewright.inference import encode_ids
 
 
 def span_posteriors(rules: Any, terminal: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
@@ -59,10 +56,12 @@ class RulesScorer:
 
     def log_likelihood(self, ids: Tensor, lengths: Tensor) -> Tensor:
         with torch.no_grad():
-            return self.rules.log_partition(terminal_scores(self.rules.lexical, ids), lengths)
+            terminal = encode_ids(self.rules.lexical, ids, lengths).terminal    # (B, N, T)
+            return self.rules.log_partition(terminal, lengths)
 
     def span_posteriors(self, ids: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
-        return span_posteriors(self.rules, terminal_scores(self.rules.lexical, ids), lengths)
+        return span_posteriors(self.rules, encode_ids(self.rules.lexical, ids, lengths).terminal,
+                               lengths)
 
 
 class RuleModel(nn.Module):
@@ -82,8 +81,8 @@ class RuleModel(nn.Module):
         """(B,) log Z of the sentences `ids` (B, N) under the current rules, with gradient;
         no KL term. `generator` is for models that sample (unused here)."""
         rules = self.rules()
-        return rules.log_partition(terminal_scores(rules.lexical, ids), lengths,
-                                   span_pot=span_pot), None
+        terminal = encode_ids(rules.lexical, ids, lengths).terminal            # (B, N, T)
+        return rules.log_partition(terminal, lengths, span_pot=span_pot), None
 
     def snapshot(self) -> Any:
         """The current rules without gradient."""

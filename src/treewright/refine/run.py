@@ -33,12 +33,19 @@ from treewright.refine.latent import LatentGrammar, latent_from_grammar, normali
 from treewright.refine.signatures import UNKNOWN, WordClasses
 from treewright.refine.splitmerge import merge, merge_losses, merge_plan, smooth, split
 from treewright.refine.summary import subcategory_summary, summary_text
-from treewright.refine.text import text_estep, text_loglik, viterbi_coarse_trees
+from treewright.refine.text import text_estep, text_loglik
 from treewright.refine.trees import TreeSet, cnf_problem, tree_estep, tree_loglik, tree_set
 from treewright.runfolder import RunFolder
 from treewright.safeio import atomic_write_text, load_checkpoint, save_checkpoint
 from treewright.tracking import Progress
 from treewright.trees import Tree
+
+
+# A coarse parser: (latent grammar, sentences, decoder name) -> per sentence its best tree
+# under the grammar by that decoder, labels projected to the coarse symbols (NAME·k -> NAME),
+# still in CNF; None where the sentence has no parse. Decoding is a layer above refinement, so
+# the caller hands one in (`treewright.refiner.coarse_trees` is the usual one).
+CoarseParser = Callable[[LatentGrammar, Sequence[Sequence[str]], str], list]
 
 
 # ---- preparing trees ------------------------------------------------------------------------
@@ -140,13 +147,15 @@ def em_on_text(lg: LatentGrammar, ids, iterations: int, batch_size: int,
 
 
 def text_cycle(lg: LatentGrammar, ids, words, s: CycleSettings, generator: torch.Generator,
-               batch_size: int = 32, progress: Progress | None = None) -> LatentGrammar:
+               batch_size: int = 32, progress: Progress | None = None, *,
+               parser: CoarseParser) -> LatentGrammar:
     """One cycle from raw text. The merge losses are estimated on each sentence's most probable
     coarse tree (the paper's per-node estimate needs nodes; these stand in for the unseen
-    trees); the merged rules take the full inside-outside counts."""
+    trees; `parser` with the "viterbi" decoder finds them, and sentences with no parse are left
+    out); the merged rules take the full inside-outside counts."""
     lg = split(lg, s.perturbation, generator)
     lg, _ = em_on_text(lg, ids, s.em_iterations, batch_size, progress=progress)
-    trees = viterbi_coarse_trees(lg, words)
+    trees = [t for t in parser(lg, words, "viterbi") if t is not None]
     ts = tree_set(lg, trees)
     losses = merge_losses(lg, ts, tree_estep(lg, ts))
     counts = text_estep(lg, ids, batch_size)
@@ -181,19 +190,12 @@ def labeled_f1(pred: Sequence[Tree | None], gold: Sequence[Tree]) -> dict[str, f
     return {"precision": precision, "recall": recall, "f1": f1}
 
 
-def parse_heldout(lg: LatentGrammar, words: Sequence[Sequence[str]],
+def parse_heldout(parser: CoarseParser, lg: LatentGrammar, words: Sequence[Sequence[str]],
                   decoder: str = "max-rule-product") -> list[Tree | None]:
-    """Coarse trees (CNF transforms undone) by the coarse max-rule-product decoder, or by the
-    best fine tree with its labels projected ("viterbi")."""
-    from treewright.decode import decode
-    from treewright.refine.text import project_labels
-
-    fine = lg.to_grammar(torch.float64)
-    out: list[Tree | None] = []
-    for result in decode(fine, words, decoder):
-        out.append(None if result.tree is None
-                   else from_coarse_trees(project_labels(result.tree)))
-    return out
+    """Coarse trees of `words` with the CNF transforms undone, as labeled F1 compares them with
+    the gold trees: `parser` with `decoder` (the coarse max-rule-product decoder, or "viterbi",
+    the best fine tree with its labels projected)."""
+    return [None if t is None else from_coarse_trees(t) for t in parser(lg, words, decoder)]
 
 
 # ---- the run ----------------------------------------------------------------------------------
@@ -247,20 +249,24 @@ HeldoutParser = Callable[[LatentGrammar, Sequence[Sequence[str]]], list]
 
 def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,
            config_source: str | None = None,
-           heldout_parser: HeldoutParser | None = None) -> RefineResult:
-    """Run the refinement `cfg` describes into `run_dir` (created if needed). `heldout_parser`:
-    the caller's held-out parser for labeled F1 (default: `parse_heldout` with
-    `output.f1_decoder`)."""
+           heldout_parser: HeldoutParser | None = None, *,
+           parser: CoarseParser) -> RefineResult:
+    """Run the refinement `cfg` describes into `run_dir` (created if needed). `parser` finds
+    the text start's trees for the merge step and, unless `heldout_parser` is given (the
+    caller's held-out parser for labeled F1), the held-out trees (`parse_heldout` with
+    `output.f1_decoder`). `treewright.refiner.refine` supplies the usual parser."""
     folder = RunFolder(run_dir, "refine")
     header = f"resolved config of treewright refine {config_source or ''}".rstrip()
     folder.start(resume=False, config_text=dump_config_yaml(cfg, header))
-    return _refine(cfg, folder, stream, None, heldout_parser)
+    return _refine(cfg, folder, stream, None, heldout_parser, parser)
 
 
 def refine_resume(run_dir: str | Path, stream: TextIO | None = None,
-                  heldout_parser: HeldoutParser | None = None) -> RefineResult:
+                  heldout_parser: HeldoutParser | None = None, *,
+                  parser: CoarseParser) -> RefineResult:
     """Continue the interrupted refinement in `run_dir` from its last checkpointed cycle, with
-    the config saved there; it ends with the grammar the uninterrupted run gives."""
+    the config saved there; it ends with the grammar the uninterrupted run gives. `parser`
+    and `heldout_parser` as in `refine`."""
     folder = RunFolder(run_dir, "refine")
     folder.start(resume=True)
     tensors, meta = load_checkpoint(folder.checkpoint)
@@ -270,11 +276,11 @@ def refine_resume(run_dir: str | Path, stream: TextIO | None = None,
     cfg = load_refine_config(folder.config)
     # Metrics logged after the checkpoint belong to a cycle that will run again.
     folder.truncate_metrics(meta["metrics_bytes"])
-    return _refine(cfg, folder, stream, (tensors, meta), heldout_parser)
+    return _refine(cfg, folder, stream, (tensors, meta), heldout_parser, parser)
 
 
 def _refine(cfg: RefineConfig, folder: RunFolder, stream: TextIO | None, state,
-            heldout_parser: HeldoutParser | None = None) -> RefineResult:
+            heldout_parser: HeldoutParser | None, parser: CoarseParser) -> RefineResult:
     log = _Log(folder, stream)
     if state is not None:
         log.note(f"resuming after cycle {state[1]['cycle']} of {cfg.refine.cycles}")
@@ -282,10 +288,10 @@ def _refine(cfg: RefineConfig, folder: RunFolder, stream: TextIO | None, state,
     try:
         if cfg.data.start == "treebank":
             if heldout_parser is None:
-                heldout_parser = functools.partial(parse_heldout,
+                heldout_parser = functools.partial(parse_heldout, parser,
                                                    decoder=cfg.output.f1_decoder)
             return _refine_treebank(cfg, folder, log, loggers, state, heldout_parser)
-        return _refine_text(cfg, folder, log, loggers, state)
+        return _refine_text(cfg, folder, log, loggers, state, parser)
     finally:
         loggers.close()
 
@@ -444,8 +450,8 @@ def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, s
                        report_cycle, folder, log, result, generator, state)
 
 
-def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
-                 ) -> RefineResult:
+def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state,
+                 parser: CoarseParser) -> RefineResult:
     d = cfg.data
     assert d.grammar is not None
     path = Path(d.grammar)
@@ -491,5 +497,5 @@ def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
 
     return _run_cycles(cfg, lg, lambda g, progress: text_cycle(
                            g, train_ids, train_words, settings, generator,
-                           cfg.refine.batch_size, progress),
+                           cfg.refine.batch_size, progress, parser=parser),
                        report_cycle, folder, log, result, generator, state)

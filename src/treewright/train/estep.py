@@ -13,7 +13,8 @@ import torch
 from torch import Tensor
 
 from treewright import engine
-from treewright.params.base import RulesScorer, span_posteriors, terminal_scores
+from treewright.inference import encode_ids, pad_ids
+from treewright.params.base import RulesScorer, span_posteriors
 from treewright.params.compound import (compound_log_partition, compound_span_posteriors,
                                         sentence_terminal_scores)
 from treewright.params.lowrank import LowRankRules
@@ -25,7 +26,7 @@ __all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_coun
            "expected_counts",
            "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
            "log_partition_of", "make_batch", "sentence_logliks", "sentence_terminal_scores",
-           "span_posteriors", "terminal_scores", "zero_counts"]
+           "span_posteriors", "zero_counts"]
 
 NEG_INF = float("-inf")
 
@@ -47,11 +48,8 @@ def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
                brackets: Sequence[Sequence[tuple[int, int]]] | None, dtype: torch.dtype) -> Batch:
     """A `Batch` of the given sentences; `brackets` (per sentence, spans (i, j)) forbid every span
     that crosses one of them (Pereira & Schabes 1992)."""
-    lengths = torch.tensor([len(sentence_ids[i]) for i in indices])
-    n = int(lengths.max())
-    ids = torch.zeros(len(indices), n, dtype=torch.long)
-    for b, i in enumerate(indices):
-        ids[b, :len(sentence_ids[i])] = torch.tensor(sentence_ids[i], dtype=torch.long)
+    ids, lengths = pad_ids([sentence_ids[i] for i in indices])             # (B, N), (B,)
+    n = ids.shape[1]
     span_pot = None
     if brackets is not None and any(brackets[i] for i in indices):
         span_pot = torch.zeros(len(indices), n + 1, n + 1, dtype=dtype)
@@ -111,7 +109,6 @@ class DivergedError(RuntimeError):
 
 def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
                     lengths: Tensor, span_pot: Tensor | None = None,
-                    missing: Tensor | None = None,
                     nonterminals_emit: bool = False) -> ExpectedCounts:
     """The E-step of one batch: expected rule counts from the engine's posteriors, and the
     log-likelihood. The one E-step of training (`batch_counts`) and of refinement from text
@@ -120,25 +117,23 @@ def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
     root (NT,), binary (NT, S, S): log-probabilities (or VB log-weights).
     lexical: (T, V) word rules of the preterminals, or (S, V) of every symbol, whose
         nonterminal rows are read only when `nonterminals_emit` (a refined grammar's may be).
-    ids (B, N), lengths (B,): the sentences; padding ids are never read.
+    ids (B, N), lengths (B,): the sentences, -1 for a word with no entry (its sentence gets no
+        tree); padding ids are never read.
     span_pot: (B, N+1, N+1) [start, width] span log-potentials, or None.
-    missing: (B, N) True where a word has no entry (it gets no tree), or None.
     The lexical counts have the shape of `lexical`.
     """
     nt = binary.shape[0]
     every_symbol = lexical.shape[0] == binary.shape[1]
-    scores = terminal_scores(lexical, ids)                              # (B, N, T or S)
-    if missing is not None:
-        scores = scores.masked_fill(missing[..., None], NEG_INF)
-    terminal = scores[..., nt:].contiguous() if every_symbol else scores          # (B, N, T)
-    nt_terminal = scores[..., :nt].contiguous() if nonterminals_emit else None    # (B, N, NT)
-    post = engine.posteriors(root, binary, terminal, lengths, nt_terminal, span_pot=span_pot)
+    enc = encode_ids(lexical, ids, lengths, num_nt=nt if every_symbol else 0,
+                     nt_emit=nonterminals_emit)       # terminal (B, N, T), nt_terminal (B, N, NT)
+    post = engine.posteriors(root, binary, enc.terminal, lengths, enc.nt_terminal,
+                             span_pot=span_pot)
     logz = post.logz                                                       # (B,)
     if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
         raise DivergedError("the log-likelihood of a batch is NaN or infinite")
     parsed = torch.isfinite(logz)
     mask = torch.arange(ids.shape[1])[None, :] < lengths[:, None]       # (B, N)
-    words = ids[mask]
+    words = enc.ids[mask]                        # word ids, 0 for a word with no entry
     counts = torch.zeros_like(lexical)                                     # (T or S, V)
     (counts[nt:] if every_symbol else counts).index_add_(
         1, words, post.terminal[mask].T.to(counts.dtype))
