@@ -13,8 +13,8 @@ here, loaded on first use, because this is where a user looks for them.
 """
 
 from treewright.refine.config import RefineConfig, load_refine_config
-from treewright.refine.latent import (LatentGrammar, coarse_name, fine_name, latent_from_grammar,
-                                      normalize)
+from treewright.grammar import coarse_name, fine_name
+from treewright.refine.latent import LatentGrammar, latent_from_grammar, normalize
 from treewright.refine.run import (CoarseParser, CycleSettings, HeldoutParser, RefineResult,
                                    cnf_tree, em_on_text, em_on_trees, estimate_coarse,
                                    labeled_f1, map_words, text_cycle, tree_cycle)

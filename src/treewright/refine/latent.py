@@ -27,9 +27,8 @@ from dataclasses import dataclass
 import torch
 from torch import Tensor
 
-# The subcategory names (NAME·k) belong to the grammar layer; coarse_name and fine_name are
-# imported here for the refine modules that use them.
-from treewright.grammar import Grammar, coarse_name, fine_name, split_name
+# The subcategory names (NAME·k) belong to the grammar layer.
+from treewright.grammar import Grammar, fine_name, split_name
 from treewright.vocab import Vocabulary
 
 

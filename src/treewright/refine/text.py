@@ -12,8 +12,9 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.corpus.batching import length_batches
+from treewright.grammar import coarse_name
 from treewright.inference import encode_ids, pad_ids
-from treewright.refine.latent import LatentGrammar, coarse_name
+from treewright.refine.latent import LatentGrammar
 from treewright.train.estep import add_counts, expected_counts, zero_counts
 from treewright.trees import Tree
 

@@ -413,7 +413,7 @@ def expected_uses(grammar) -> torch.Tensor | None:
     the expected counts of a consistent PCFG are r (I - M)^-1). Preterminals are counted from
     their parents. None when the grammar is not consistent (the series diverges).
     """
-    nt, S = len(grammar.nonterminals), grammar.num_symbols
+    nt = len(grammar.nonterminals)
     binary = grammar.binary.double().exp()                       # (NT, S, S)
     children = binary.sum(2) + binary.sum(1)                     # (NT, S)
     root = grammar.root.double().exp()                           # (NT,)

@@ -14,9 +14,6 @@ from typing import Literal, Sequence
 from treewright.config import (ConfigError, ConfigProblem, config_from_dict, load_config,
                                option)
 
-METHODS = ("em", "online_em", "map_em", "vb", "gradient")
-
-
 @dataclass
 class DataConfig:
     train: Path = option(doc="Training corpus (raw text, bracketed trees or CoNLL-U).")
