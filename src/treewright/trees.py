@@ -28,6 +28,23 @@ class Tree:
                 stack.extend(reversed(node.children))
         return out
 
+    def word_slots(self) -> list[tuple["Tree", int, str]]:
+        """(owning node, child index, word) for every word, left to right: where each word sits,
+        for code that must find a word's node again (heads, drawing)."""
+        out: list[tuple[Tree, int, str]] = []
+        stack: list[tuple[Tree, int]] = [(self, 0)]
+        while stack:  # iterative, as in `leaves`
+            node, k = stack.pop()
+            if k == len(node.children):
+                continue
+            stack.append((node, k + 1))
+            child = node.children[k]
+            if isinstance(child, str):
+                out.append((node, k, child))
+            else:
+                stack.append((child, 0))
+        return out
+
     def __len__(self) -> int:
         return len(self.leaves())
 

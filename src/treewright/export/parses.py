@@ -163,7 +163,8 @@ def dependency_heads(tree: Tree, rule: HeadRule) -> list[int]:
     heads = [0] * len(tree)
     # 1-based word positions, keyed by (id(node), child index), so that a node holding words
     # beside phrases numbers them in order too.
-    position = {key: number for number, key in enumerate(_word_order(tree), start=1)}
+    position = {(id(node), k): number
+                for number, (node, k, _) in enumerate(tree.word_slots(), start=1)}
     head_word: dict[int, int] = {}   # id(node) -> 1-based position of its head word
     stack: list[tuple[Tree, bool]] = [(tree, False)]
     while stack:  # post-order: every child's head word is known before its parent's
@@ -180,23 +181,6 @@ def dependency_heads(tree: Tree, rule: HeadRule) -> list[int]:
                 heads[word - 1] = head
         head_word[id(node)] = head
     return heads
-
-
-def _word_order(tree: Tree) -> list[tuple[int, int]]:
-    """(id(node), child index) of every word, left to right."""
-    order: list[tuple[int, int]] = []
-    stack: list[tuple[Tree, int]] = [(tree, 0)]
-    while stack:
-        node, k = stack.pop()
-        if k == len(node.children):
-            continue
-        stack.append((node, k + 1))
-        child = node.children[k]
-        if isinstance(child, str):
-            order.append((id(node), k))
-        else:
-            stack.append((child, 0))
-    return order
 
 
 def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,

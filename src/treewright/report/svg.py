@@ -342,28 +342,11 @@ def tree_svg(tree: Tree, title: str = "") -> str:
                          'stroke="#888"/>')
         parts.append(f'<text class="label" x="{x:.1f}" y="{y:.1f}" font-size="{LABEL_SIZE}" '
                      f'text-anchor="middle" fill="#0072B2" {FONT}>{esc(node.label)}</text>')
-    for owner, k, word in _reading_order(tree):
+    for owner, k, word in tree.word_slots():
         parts.append(f'<text class="word" x="{word_x[(id(owner), k)]:.1f}" y="{word_y:.1f}" '
                      f'font-size="{WORD_SIZE}" text-anchor="middle" {FONT}>{esc(word)}</text>')
     parts.append("</svg>")
     return "".join(parts)
-
-
-def _reading_order(tree: Tree) -> list[tuple[Tree, int, str]]:
-    """(owning node, child index, word) for every word, left to right (iteratively)."""
-    out = []
-    stack: list[tuple[Tree, int]] = [(tree, 0)]
-    while stack:
-        node, k = stack.pop()
-        if k == len(node.children):
-            continue
-        stack.append((node, k + 1))
-        child = node.children[k]
-        if isinstance(child, str):
-            out.append((node, k, child))
-        else:
-            stack.append((child, 0))
-    return out
 
 
 def span_heatmap(marginals: Sequence[Sequence[float]], words: Sequence[str], title: str,
