@@ -19,8 +19,7 @@ need no gold trees would have chosen:
 
 and it scores the tree average of the restarts (Shayegh, Cao, Zhu, Cheung & Mou 2024,
 "Ensemble Distillation for Unsupervised Constituency Parsing"): per test sentence, the binary
-tree that maximizes the summed F1 against each restart's MBR tree, found by CKY over span votes
-(every binary tree has n - 1 spans, so summed F1 is the summed votes of its spans over n - 1).
+tree that maximizes the summed F1 against each restart's MBR tree (`decode.tree_average`).
 
 Prints a Markdown table and writes <folder>/restart_study.json. Asserts nothing.
 """
@@ -42,7 +41,7 @@ import torch
 from treewright import engine
 from treewright.allocator import tune_allocator
 from treewright.corpus import length_batches
-from treewright.decode import mbr_spans
+from treewright.decode import mbr_spans, tree_average
 from treewright.evaluation import BracketConventions, Bracketing, evaluate_brackets
 from treewright.grammar import load_grammar
 from treewright.inference import encode
@@ -92,16 +91,6 @@ def pair_f1(a: list, b: list, lengths: list[int]) -> float:
         if x or y:
             scores.append(2 * len(x & y) / (len(x) + len(y)))
     return statistics.fmean(scores) if scores else 0.0
-
-
-def tree_average(trees: list[list], n: int) -> list[tuple[int, int]]:
-    """The binary tree maximizing summed F1 against `trees` (Shayegh et al. 2024): CKY over
-    the count of trees that contain each span (`mbr_spans` maximizes a summed span gain)."""
-    votes = torch.zeros(n + 1, n + 1, dtype=torch.float64)    # (N+1, N+1) [start, width]
-    for t in trees:
-        for i, j in t:
-            votes[i, j - i] += 1
-    return mbr_spans(votes, n)
 
 
 def f1_of(spans_per_sentence: list, ev) -> float:

@@ -1,4 +1,5 @@
-"""The pieces of scripts/study_restarts.py: tree averaging and agreement, against brute force."""
+"""Tree averaging (`decode.tree_average`) and the agreement score of scripts/study_restarts.py,
+against brute force."""
 
 from __future__ import annotations
 
@@ -8,6 +9,8 @@ import sys
 from pathlib import Path
 
 import pytest
+
+from treewright.decode import tree_average
 
 REPO = Path(__file__).resolve().parents[1]
 _spec = importlib.util.spec_from_file_location("study_restarts",
@@ -42,7 +45,7 @@ def test_tree_average_maximizes_summed_f1_over_every_binary_tree():
     for n in (3, 5, 6, 7):
         for _ in range(5):
             trees = [sorted(_random_tree(rng, 0, n)) for _ in range(4)]
-            got = set(study.tree_average(trees, n))
+            got = set(tree_average(trees, n))
 
             def summed(tree):
                 return sum(study.pair_f1([sorted(tree)], [t], [n]) for t in trees)
