@@ -4,6 +4,8 @@ branching baselines, over several seeds, on the Turkish web treebank and on the 
     .venv/bin/python scripts/bench_induction.py --data demo --methods em,vb --seeds 0,1
     .venv/bin/python scripts/bench_induction.py --data turkish --mode tags --methods em \\
         --seeds 0,1 --epochs 10 --symbols 15,30 --max-length 15
+    .venv/bin/python scripts/bench_induction.py --data head-final --methods em --symbols 20,30 \\
+        --restarts 4 --epochs 60 --max-length 40 --seeds 0,1       # configs/induce.yaml's setup
     .venv/bin/python scripts/bench_induction.py --smoke          # seconds; checks the pipeline
 
 Data. turkish: the `web` section of the Turkish Web Treebank (PyPI turkish-treebanks, CoNLL-U)
@@ -12,7 +14,15 @@ tokens of its train part (gold trees unused); the `wiki` section is the final te
 only for the last report. Punctuation (UPOS PUNCT) is removed before training and before
 scoring, so model and gold see the same words. demo: the embedded invented-language corpus
 (train.txt raw, dev.txt for restart selection, test.trees scored); its generating grammar gives
-the ceiling of likelihood and trees.
+the ceiling of likelihood and trees. head-final, head-initial: raw text drawn afresh from a
+generating grammar, no dev set (so the training likelihood picks the restart, as on a user's raw
+text). head-final is the demo's own grammar (Kethravi: SOV, postpositions); head-initial is its
+mirror, every binary rule's two children swapped (`mirror_grammar`), so every tree and sentence
+is reversed with the same probability (SVO-like: prepositions, the final mark first). Training
+sentences (`--train-sentences`, 5,000) and test sentences with their generating trees as gold
+(`--test-sentences`) are drawn by `treewright.inference.generate` under `--data-seed`, so the
+corpora are the same on every run; the generating grammar is the ceiling. Every restart's grammar
+is scored too (`restarts` in results.json), so restart choice can be studied offline.
 
 Modes. tokens: the model reads the word forms (lowercased for turkish); tags (turkish only): it
 reads the gold UPOS in place of the words.
@@ -51,6 +61,7 @@ from treewright.decode import mbr_spans
 from treewright.evaluation import BracketConventions, Bracketing, evaluate_brackets
 from treewright.grammar import load_grammar
 from treewright.inference import encode
+from treewright.runfolder import RunFolder
 from treewright.train import load_train_config, train
 from treewright.train.estep import compound_span_posteriors, make_batch
 
@@ -184,6 +195,43 @@ def demo_data(eval_max_length: int | None, sentences: int | None = None) -> Benc
                      folder / "grammar.pcfg", counts)
 
 
+ORDERS = ("head-final", "head-initial")
+
+
+def mirror_grammar(grammar):
+    """The same grammar with the children of every binary rule swapped (A -> B C becomes
+    A -> C B, same probability): each tree maps to its mirror image, so a sentence read
+    backwards has the same probability under the mirror as the sentence under the original."""
+    from treewright.grammar import Grammar
+    return Grammar(grammar.nonterminals, grammar.preterminals, grammar.vocab, grammar.root,
+                   grammar.binary.transpose(1, 2).contiguous(), grammar.lexical, grammar.start)
+
+
+def generated_data(order: str, out: Path, train_size: int, test_size: int, max_words: int,
+                   seed: int) -> BenchData:
+    """Raw training text and gold test trees drawn from the demo grammar (head-final) or its
+    mirror (head-initial); no dev set. The generating grammar is written to
+    <out>/<order>.pcfg as the ceiling. Deterministic in `seed`."""
+    from treewright.demo import demo_data_dir
+    from treewright.inference import generate
+    grammar = load_grammar(demo_data_dir() / "grammar.pcfg")
+    if order == "head-initial":
+        grammar = mirror_grammar(grammar)
+    ceiling = out / f"{order}.pcfg"
+    grammar.save(ceiling)
+    trees = generate(grammar, train_size + test_size, seed=seed, max_words=max_words)
+    train_tokens = [t.leaves() for t in trees[:train_size]]
+    test = trees[train_size:]
+    gold = []
+    for t in test:
+        b = Bracketing.from_tree(t)
+        gold.append(Bracketing(tuple(t.leaves()), b.spans, b.tags))
+    counts = {"train": len(train_tokens), "dev": 0, "test_scored": len(test),
+              "data_seed": seed, "max_words": max_words}
+    return BenchData(train_tokens, [], [EvalSet(f"{order}-test", [t.leaves() for t in test],
+                                                gold)], ceiling, counts)
+
+
 def write_text(path: Path, sentences: list[list[str]]) -> Path:
     path.write_text("".join(" ".join(s) + "\n" for s in sentences), encoding="utf-8")
     return path
@@ -292,8 +340,8 @@ def gold_lean(ev: EvalSet) -> dict:
 def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: Path) -> dict:
     """Train one (method, seed) and score it on every eval set."""
     nt, pt = args.lowrank_symbols if method == "lowrank" else args.symbols
-    overrides = [f"data.train={data_files['train']}", f"data.dev={data_files['dev']}",
-                 "data.format=text", f"data.max_length={args.max_length}",
+    dev = [f"data.dev={data_files['dev']}"] if "dev" in data_files else []
+    overrides = [f"data.train={data_files['train']}", *dev, "data.format=text", f"data.max_length={args.max_length}",
                  f"data.min_count={args.min_count}", f"model.nonterminals={nt}",
                  f"model.preterminals={pt}", f"train.seed={seed}",
                  f"train.epochs={args.epochs}", f"train.restarts={args.restarts}",
@@ -309,8 +357,16 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     with open(run_dir.parent / f"{run_dir.name}.log", "w", encoding="utf-8") as log:
         trainer = train(cfg, run_dir, stream=log, config_source=f"bench_induction {method}")
     seconds = time.monotonic() - started
+    restarts = []
+    if method != "compound":
+        # Every restart's own grammar scored as the kept one is: for offline restart choice.
+        for r in trainer.results_:
+            path = RunFolder(run_dir).restart_grammar(r["restart"])
+            restarts.append({**r, "scores": {ev.name: score_grammar(path, ev)
+                                             for ev in args.evals}})
     return {"method": method, "seed": seed, "train_seconds": seconds,
             "best_restart": trainer.best_restart_, "overrides": overrides,
+            "restarts": restarts,
             "scores": {ev.name: score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
                        if method == "compound" else score_grammar(trainer.grammar_path_, ev)
                        for ev in args.evals}}
@@ -381,7 +437,13 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0],
                                 formatter_class=argparse.RawDescriptionHelpFormatter,
                                 epilog="\n".join(__doc__.splitlines()[2:6]))
-    p.add_argument("--data", choices=("demo", "turkish"), default="demo")
+    p.add_argument("--data", choices=("demo", "turkish") + ORDERS, default="demo")
+    p.add_argument("--train-sentences", type=int, default=5000, help="head-final, "
+                   "head-initial: training sentences drawn")
+    p.add_argument("--test-sentences", type=int, default=500, help="head-final, head-initial: "
+                   "test sentences drawn (gold: their generating trees)")
+    p.add_argument("--data-seed", type=int, default=0, help="head-final, head-initial: the "
+                   "seed of the drawn corpora")
     p.add_argument("--mode", choices=("tokens", "tags"), default="tokens")
     p.add_argument("--methods", default="em", help=f"comma list of {', '.join(METHODS)}")
     p.add_argument("--seeds", default="0,1,2,3", help="comma list of train.seed values")
@@ -417,10 +479,11 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     unknown = [m for m in args.methods if m not in METHODS]
     if unknown:
         p.error(f"unknown method(s) {', '.join(unknown)}; choose from {', '.join(METHODS)}")
-    if args.data == "demo" and args.mode == "tags":
-        p.error("the demo corpus has no tags for its training text; use --mode tokens")
+    if args.data != "turkish" and args.mode == "tags":
+        p.error("the invented-language corpora have no tags for their training text; use "
+                "--mode tokens")
     args.seeds = [int(s) for s in args.seeds.split(",") if s]
-    default_symbols = "10,20" if args.data == "demo" else "30,60"
+    default_symbols = "30,60" if args.data == "turkish" else "10,20"
     args.symbols = tuple(int(x) for x in (args.symbols or default_symbols).split(","))
     args.lowrank_symbols = tuple(int(x) for x in args.lowrank_symbols.split(",")) \
         if args.lowrank_symbols else tuple(4 * x for x in args.symbols)
@@ -434,11 +497,16 @@ def main(argv: list[str] | None = None) -> dict:
     args.out.mkdir(parents=True, exist_ok=True)
     if args.data == "turkish":
         data = turkish_data(args.mode, args.dev_fraction, args.eval_max_length, args.sentences)
+    elif args.data in ORDERS:
+        # Drawn sentences are at most --max-length tokens, so the trainer sets none aside.
+        data = generated_data(args.data, args.out, args.train_sentences, args.test_sentences,
+                              args.max_length, args.data_seed)
     else:
         data = demo_data(args.eval_max_length, args.sentences)
     args.evals = data.evals
-    files = {"train": write_text(args.out / "train.txt", data.train_tokens),
-             "dev": write_text(args.out / "dev.txt", data.dev_tokens)}
+    files = {"train": write_text(args.out / "train.txt", data.train_tokens)}
+    if data.dev_tokens:
+        files["dev"] = write_text(args.out / "dev.txt", data.dev_tokens)
     started = datetime.datetime.now(datetime.timezone.utc)
     runs = []
     for method in args.methods:
@@ -448,6 +516,10 @@ def main(argv: list[str] | None = None) -> dict:
             runs.append(result)
             brief = ", ".join(f"{name} F1 {100 * s['model']['sentence_f1']:.1f}"
                               for name, s in result["scores"].items())
+            if result["restarts"]:
+                per = " ".join(f"{100 * r['scores'][ev.name]['model']['sentence_f1']:.1f}"
+                               for r in result["restarts"] for ev in data.evals[-1:])
+                brief += f" (restarts: {per}; kept {result['best_restart']})"
             print(f"{method} seed {seed}: {brief} ({result['train_seconds']:.0f} s)",
                   flush=True)
     baselines = {ev.name: score_baselines(ev) for ev in data.evals}

@@ -81,6 +81,22 @@ def mbr_spans_batch(span_marginals: Tensor, lengths: Sequence[int]
     return out
 
 
+def tree_average(trees: Sequence[Sequence[tuple[int, int]]], length: int
+                 ) -> list[tuple[int, int]]:
+    """The binary tree over `length` words with the largest summed F1 against `trees` (the
+    spans, width >= 2, of one binary tree each, e.g. several restarts' MBR trees): tree
+    averaging of Shayegh, Cao, Zhu, Cheung & Mou 2024, "Ensemble Distillation for Unsupervised
+    Constituency Parsing". Every binary tree has n - 1 spans, so summed F1 is the summed count
+    of input trees containing each of its spans over n - 1: CKY over those votes
+    (`mbr_spans`). Each tree votes once, unlike averaging span posteriors, where one confident
+    grammar can outvote the others. Returns spans as `mbr_spans` does."""
+    votes = torch.zeros(length + 1, length + 1, dtype=torch.float64)  # (N+1, N+1) [start, width]
+    for tree in trees:
+        for i, j in tree:
+            votes[i, j - i] += 1
+    return mbr_spans(votes, length)
+
+
 @dataclass
 class Decoded:
     """One decoded sentence. `tree` is None when the grammar cannot parse the sentence."""
