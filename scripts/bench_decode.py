@@ -27,9 +27,9 @@ import torch
 
 from treewright import decode as new_decode
 from treewright.allocator import tune_allocator
+from treewright.export.rename import rename_tree
 from treewright.grammar import Grammar, fine_name, load_grammar, split_name
 from treewright.refine import latent_from_grammar, split
-from treewright.trees import Tree
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "src" / "treewright" / "data" / "demo"
@@ -66,23 +66,8 @@ def timed(module, grammar, sentences, decoder, repeats):
         began = time.perf_counter()
         result = module.decode(grammar, sentences, decoder)
         best = min(best, time.perf_counter() - began)
-        trees = [None if d.tree is None else _renamed(d.tree, back).to_string() for d in result]
+        trees = [None if d.tree is None else rename_tree(d.tree, back).to_string() for d in result]
     return best, trees
-
-
-def _renamed(tree: Tree, names: dict[str, str]) -> Tree:
-    out = Tree(names.get(tree.label, tree.label))
-    stack = [(tree, out)]
-    while stack:
-        src, dst = stack.pop()
-        for child in src.children:
-            if isinstance(child, str):
-                dst.children.append(child)
-            else:
-                copy = Tree(names.get(child.label, child.label))
-                dst.children.append(copy)
-                stack.append((child, copy))
-    return out
 
 
 def main() -> None:
