@@ -152,7 +152,6 @@ def test_unparsed_predictions_are_counted(tmp_path):
 
 
 def test_parse_command_offers_exactly_the_library_decoders():
-    from treewright.cli.parse import DECODER_NAMES, GRAMMAR_DECODER_NAMES
+    from treewright.cli.parse import DECODER_NAMES
     from treewright.decode import DECODERS, ENSEMBLE_DECODERS
     assert tuple(DECODER_NAMES) == tuple(DECODERS) + tuple(ENSEMBLE_DECODERS)
-    assert tuple(GRAMMAR_DECODER_NAMES) == tuple(DECODERS)  # report's, one grammar each

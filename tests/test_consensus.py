@@ -26,7 +26,7 @@ import yaml
 
 from _brute import all_trees
 from _grammars import random_grammar
-from test_train_fixtures import write_corpus
+from test_train_fixtures import velmor, write_corpus
 from treewright.budget import consensus_within_budget
 from treewright.cli import main
 from treewright.corpus import parse_brackets
@@ -34,6 +34,7 @@ from treewright.decode import consensus, decode
 from treewright.errors import InputError
 from treewright.export import open_restart_grammars
 from treewright.grammar import load_grammar
+from treewright.inference import generate
 from treewright.vocab import Vocabulary
 from treewright.wordshapes import SCHEME
 
@@ -202,14 +203,15 @@ def cli(*argv) -> tuple[int, str, str]:
 @pytest.fixture(scope="module")
 def two_restart_run(tmp_path_factory):
     """A tiny float64 EM run with two restarts on sentences of the invented Velmor language,
-    trained with data.lowercase (so parse must lowercase the input for every restart)."""
+    trained with data.lowercase (so parse must lowercase the input for every restart). Two
+    epochs only, so that the restarts still disagree on some sentences."""
     folder = tmp_path_factory.mktemp("consensus")
     train, _ = write_corpus(folder / "data", train=40, dev=0)
     config = folder / "tiny.yaml"
     config.write_text(yaml.safe_dump({
         "data": {"train": str(train), "lowercase": True},
         "model": {"nonterminals": 3, "preterminals": 5},
-        "train": {"epochs": 4, "restarts": 2, "dtype": "float64", "batch_size": 40},
+        "train": {"epochs": 2, "restarts": 2, "dtype": "float64", "batch_size": 40},
         "output": {"run_dir": str(folder / "run"), "progress": False,
                    "stdout_metrics": False, "tensorboard": False}}))
     assert main(["train", str(config)]) == 0
@@ -219,7 +221,8 @@ def two_restart_run(tmp_path_factory):
 def test_parse_with_consensus_prints_one_tree_per_line(two_restart_run, tmp_path):
     run = two_restart_run
     text = tmp_path / "in.txt"
-    lines = ["Ta ferro orun mo LANU", "", "kip sul", "mo vesk dast kip", "kip orun ta vesk"]
+    lines = ["Ta ferro orun mo LANU", ""] + [" ".join(t.leaves())
+                                             for t in generate(velmor(), 12, seed=7)]
     text.write_text("\n".join(lines) + "\n", encoding="utf-8")
     code, out, err = cli("parse", run, text, "--decoder", "consensus", "--objective")
     assert code == 0, err
@@ -232,7 +235,7 @@ def test_parse_with_consensus_prints_one_tree_per_line(two_restart_run, tmp_path
     assert sorted(restarts) == [0, 1]
     grammars = [load_grammar(run / f"restart-{r}.pcfg")
                 for r in [kept] + [r for r in restarts if r != kept]]
-    same_as_kept = 0
+    same_as_kept = disagreements = 0
     for line, row in zip(lines, printed):
         if not line:
             continue
@@ -250,13 +253,14 @@ def test_parse_with_consensus_prints_one_tree_per_line(two_restart_run, tmp_path
             best = max(summed_f1(t, votes, n) for t in binary_trees(0, n))
             assert summed_f1(got, votes, n) == pytest.approx(best, abs=1e-12)
             assert float(objective) == pytest.approx(best / len(votes), abs=1e-12)
+            disagreements += len(set(votes)) > 1
         # Labeled under the kept restart: where the average is its own mbr tree, the printed
         # tree is exactly the kept restart's mbr tree.
         if got == votes[0]:
             mbr = decode(grammars[0], [lowered], "mbr")[0].tree.with_leaves(words)
             assert tree_text == mbr.to_string()
             same_as_kept += 1
-    assert same_as_kept >= 1
+    assert same_as_kept >= 1 and disagreements >= 1
 
 
 def test_consensus_refuses_a_single_grammar(two_restart_run, tmp_path):
@@ -277,3 +281,35 @@ def test_consensus_refuses_a_single_grammar(two_restart_run, tmp_path):
     assert caught.value.path == str(lone)
     # The other decoders still take the single grammar file.
     assert cli("parse", single, text, "--decoder", "mbr")[0] == 0
+
+
+def test_report_scores_the_consensus_trees(two_restart_run, tmp_path):
+    # Reference: sentence F1 counted by hand from its definition (spans of width >= 2, the
+    # whole sentence left out, the mean over sentences with a span on either side; common
+    # practice) between the library's consensus trees and gold trees drawn from Velmor.
+    import re
+
+    from treewright.report.html import build_report
+
+    gold = generate(velmor(), 30, seed=7)
+    gold_file = tmp_path / "gold.trees"
+    gold_file.write_text("".join(t.to_string() + "\n" for t in gold), encoding="utf-8")
+    page = build_report(two_restart_run, gold=gold_file, decoder="consensus")
+    assert "trees decoded with consensus (as asked), over the run&#x27;s 2 restarts" in page
+    grammars = [s.grammar for s in open_restart_grammars(two_restart_run)]
+    decoded = consensus(grammars, [t.leaves() for t in gold])
+    scores = []
+    for t, d in zip(gold, decoded):
+        n = len(t.leaves())
+        want = {(i, j) for i, j, _ in t.labeled_spans() if j - i >= 2 and (i, j) != (0, n)}
+        got = {(i, j) for i, j, _ in d.tree.labeled_spans() if j - i >= 2 and (i, j) != (0, n)}
+        if want or got:
+            scores.append(2 * len(want & got) / (len(want) + len(got)))
+    row = re.search(r"<tr><td>model</td><td class='num'>([0-9.]+)</td>", page)
+    assert row is not None
+    assert float(row.group(1)) == pytest.approx(100 * sum(scores) / len(scores), abs=0.05)
+    # A grammar file given as the grammar to decode with is refused, naming it.
+    with pytest.raises(InputError, match="run folder") as caught:
+        build_report(two_restart_run, gold=gold_file, decoder="consensus",
+                     grammar_path=two_restart_run / "grammar.pcfg")
+    assert caught.value.path == str(two_restart_run / "grammar.pcfg")

@@ -42,8 +42,7 @@ memory budget (not computed).
 # The names of treewright.decode.DECODERS (one grammar) and ENSEMBLE_DECODERS (a run's restart
 # grammars), written out so that `--help` need not import torch (tests/test_cli_evaluate.py
 # checks that they agree).
-GRAMMAR_DECODER_NAMES = ("viterbi", "mbr", "max-rule-product")
-DECODER_NAMES = GRAMMAR_DECODER_NAMES + ("consensus",)
+DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:

@@ -22,16 +22,16 @@ error while the sentences are parsed.
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    from treewright.cli.parse import GRAMMAR_DECODER_NAMES
+    from treewright.cli.parse import DECODER_NAMES
 
     p.add_argument("run", help="run folder (config.yaml, metrics.jsonl, grammar.pcfg)")
     p.add_argument("--gold", help="gold trees (bracketed or CoNLL-U) to parse and score")
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
     p.add_argument("--text", help="raw sentences for examples and the heat map (without --gold)")
     p.add_argument("--grammar", help="grammar: text file, JSON export or run folder (default: RUN/grammar.pcfg)")
-    p.add_argument("--decoder", choices=GRAMMAR_DECODER_NAMES, default=None,
+    p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
                    help="how trees are chosen (default: max-rule-product for a refined grammar, "
-                        "else mbr)")
+                        "else mbr; consensus: every restart the run saved, see parse --help)")
     p.add_argument("--examples", type=int, default=3, help="example sentences drawn (default 3)")
     p.add_argument("--max-example-words", type=int, default=20,
                    help="longest example sentence drawn (default 20)")
