@@ -170,6 +170,8 @@ def test_consensus_needs_several_grammars_that_read_words_alike():
     g = random_grammar(2, 2, 3, seed=1)
     with pytest.raises(ValueError, match="two or more grammars"):
         consensus([g], SENTENCES)
+    with pytest.raises(ValueError, match="several grammars"):
+        decode(g, SENTENCES, "consensus")
     shaped = random_grammar(2, 2, 3, seed=2)
     shaped.vocab = Vocabulary(shaped.vocab.words, unk=None, shapes=SCHEME)
     with pytest.raises(ValueError, match="word shape"):

@@ -117,7 +117,8 @@ def tree_average_batch(trees: Sequence[Sequence[Sequence[tuple[int, int]]]],
 
 @dataclass
 class Decoded:
-    """One decoded sentence. `tree` is None when the grammar cannot parse the sentence."""
+    """One decoded sentence. `tree` is None when the grammar (for consensus: every grammar)
+    cannot parse the sentence."""
     tree: Tree | None
     log_likelihood: float   # log p(sentence), summed over all trees; -inf when no parse
     tree_logprob: float     # log p(tree, sentence), summed over every refinement of the tree's
@@ -343,6 +344,9 @@ def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
 def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = "mbr",
            batch_size: int = 16, dtype: torch.dtype = torch.float64) -> list[Decoded]:
     """One tree per sentence, in input order, by the named decoder (see `DECODERS`)."""
+    if decoder in ENSEMBLE_DECODERS:
+        raise ValueError(f"the {decoder} decoder reads several grammars: call "
+                         "treewright.decode.consensus(grammars, sentences)")
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
     for k, s in enumerate(sentences):
