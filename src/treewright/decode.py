@@ -444,9 +444,10 @@ def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
     grammar: the first grammar that parses the sentence (the first one, unless it cannot). A
     sentence no grammar parses gets tree None.
 
-    Every grammar reads the words through its own vocabulary, so the grammars must read
-    unknown words alike (all with the same word shape classes, or all without): the caller
-    normalises the words once, as the first grammar's training run did (ValueError otherwise).
+    Every grammar reads the same words through its own vocabulary, so the grammars must read
+    unknown words alike: all with the same word shape scheme, or all without (ValueError
+    otherwise). The caller normalises the words once, as the first grammar's training run did
+    (`export.open_restart_grammars` gives a run's restarts with that run's record).
     `log_likelihood` and `tree_logprob` are the labeling grammar's; `score` is the mean F1 of
     the tree against the voting grammars' MBR trees (spans of width >= 2, the whole sentence
     included; 1 for a one-word sentence). Batches of `batch_size` sentences of similar length
