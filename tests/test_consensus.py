@@ -18,7 +18,6 @@ import shutil
 from collections import defaultdict
 from contextlib import redirect_stderr, redirect_stdout
 from functools import lru_cache
-from pathlib import Path
 
 import pytest
 import torch
