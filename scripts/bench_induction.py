@@ -24,6 +24,13 @@ sentences (`--train-sentences`, 5,000) and test sentences with their generating 
 corpora are the same on every run; the generating grammar is the ceiling. Every restart's grammar
 is scored too (`restarts` in results.json), so restart choice can be studied offline.
 
+Consensus of restarts. Every run with two or more restarts and one grammar for all sentences
+(not compound) is also scored with the consensus decoder (`decode.consensus`: tree averaging of
+the restarts' MBR trees, Shayegh et al. 2024, "Ensemble Distillation for Unsupervised
+Constituency Parsing"), the kept restart first, as `treewright parse RUN --decoder consensus`
+decodes: `consensus` per run in results.json, and a row "<method>, consensus of restarts" in
+the tables (no perplexity: a consensus of trees has no likelihood of its own).
+
 Modes. tokens: the model reads the word forms (lowercased for turkish); tags (turkish only): it
 reads the gold UPOS in place of the words.
 
@@ -57,7 +64,7 @@ import torch
 from treewright.allocator import tune_allocator
 from treewright import engine
 from treewright.corpus import ReadOptions, length_batches, read_corpus, split_indices
-from treewright.decode import mbr_spans
+from treewright.decode import consensus, mbr_spans
 from treewright.evaluation import BracketConventions, Bracketing, evaluate_brackets
 from treewright.grammar import load_grammar
 from treewright.inference import encode
@@ -304,14 +311,31 @@ def compound_mbr_and_likelihood(trainer, sentences: list[list[str]], batch_size:
     return spans, logprobs
 
 
-def score_grammar(grammar_path: Path, ev: EvalSet) -> dict:
-    """MBR trees, bracket scores (model and baselines), lean and perplexity on one set."""
+def load_scored_grammar(grammar_path: Path):
     # Rules written from float32 training can sum to 1 +- 1e-6, above the loader's default
     # tolerance; 1e-4 still rejects a grammar that is really unnormalised.
-    grammar = load_grammar(grammar_path, tolerance=1e-4)
+    return load_grammar(grammar_path, tolerance=1e-4)
+
+
+def score_grammar(grammar_path: Path, ev: EvalSet) -> dict:
+    """MBR trees, bracket scores (model and baselines), lean and perplexity on one set."""
+    grammar = load_scored_grammar(grammar_path)
     with torch.no_grad():
         spans, logprobs = mbr_and_likelihood(grammar, ev.tokens)
     return score_spans(spans, logprobs, ev)
+
+
+def score_consensus(grammars: list, ev: EvalSet, batch_size: int = 32) -> dict:
+    """The consensus decoder's trees over `grammars` (the kept restart first) scored as
+    `score_grammar` scores one grammar's; perplexity None (the trees have no likelihood of their
+    own) and `unparsed` the sentences no grammar parses."""
+    with torch.no_grad():
+        decoded = consensus(grammars, ev.tokens, batch_size)
+    spans = [None if d.tree is None else
+             [(i, j) for i, j, _ in d.tree.labeled_spans() if j - i >= 2] for d in decoded]
+    scores = score_spans(spans, [d.log_likelihood for d in decoded], ev)
+    scores["perplexity"] = None
+    return scores
 
 
 def score_spans(spans: list, logprobs: list[float], ev: EvalSet) -> dict:
@@ -364,9 +388,16 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
             path = RunFolder(run_dir).restart_grammar(r["restart"])
             restarts.append({**r, "scores": {ev.name: score_grammar(path, ev)
                                              for ev in args.evals}})
+    agreed = None
+    if len(restarts) >= 2:
+        # The restarts as `treewright parse RUN --decoder consensus` reads them: kept first.
+        order = sorted((r["restart"] for r in restarts),
+                       key=lambda r: (r != trainer.best_restart_, r))
+        grammars = [load_scored_grammar(RunFolder(run_dir).restart_grammar(r)) for r in order]
+        agreed = {ev.name: score_consensus(grammars, ev) for ev in args.evals}
     return {"method": method, "seed": seed, "train_seconds": seconds,
             "best_restart": trainer.best_restart_, "overrides": overrides,
-            "restarts": restarts,
+            "restarts": restarts, "consensus": agreed,
             "scores": {ev.name: score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
                        if method == "compound" else score_grammar(trainer.grammar_path_, ev)
                        for ev in args.evals}}
@@ -379,15 +410,25 @@ def mean_sd(values: list[float | None]) -> tuple[float | None, float | None]:
     return statistics.fmean(values), statistics.stdev(values) if len(values) > 1 else 0.0
 
 
+CONSENSUS_ROW = "{method}, consensus of restarts"
+
+
 def summarise(runs: list[dict], evals: list[EvalSet]) -> dict:
-    """Per method and eval set: mean and sd over seeds of F1, lean and perplexity."""
+    """Per method and eval set: mean and sd over seeds of F1, lean and perplexity; after a
+    method, its consensus of restarts (`CONSENSUS_ROW`) over the runs that have one."""
     out: dict = {}
+    rows = []
     for method in dict.fromkeys(r["method"] for r in runs):
         mine = [r for r in runs if r["method"] == method]
-        out[method] = {}
+        rows.append((method, mine, "scores"))
+        agreed = [r for r in mine if r.get("consensus")]
+        if agreed:
+            rows.append((CONSENSUS_ROW.format(method=method), agreed, "consensus"))
+    for name, mine, key in rows:
+        out[name] = {}
         for ev in evals:
-            s = [r["scores"][ev.name] for r in mine]
-            out[method][ev.name] = {
+            s = [r[key][ev.name] for r in mine]
+            out[name][ev.name] = {
                 "sentence_f1": mean_sd([x["model"]["sentence_f1"] for x in s]),
                 "corpus_f1": mean_sd([x["model"]["corpus_f1"] for x in s]),
                 "perplexity": mean_sd([x["perplexity"] for x in s]),
@@ -520,6 +561,10 @@ def main(argv: list[str] | None = None) -> dict:
                 per = " ".join(f"{100 * r['scores'][ev.name]['model']['sentence_f1']:.1f}"
                                for r in result["restarts"] for ev in data.evals[-1:])
                 brief += f" (restarts: {per}; kept {result['best_restart']})"
+            if result["consensus"]:
+                brief += "; consensus " + ", ".join(
+                    f"{name} F1 {100 * s['model']['sentence_f1']:.1f}"
+                    for name, s in result["consensus"].items())
             print(f"{method} seed {seed}: {brief} ({result['train_seconds']:.0f} s)",
                   flush=True)
     baselines = {ev.name: score_baselines(ev) for ev in data.evals}

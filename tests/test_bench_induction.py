@@ -273,3 +273,27 @@ def test_smoke_run_of_a_generated_order_scores_every_restart(tmp_path):
     # The kept restart's grammar is the run's grammar, so its scores are the run's.
     assert kept["model"] == run["scores"]["head-final-test"]["model"]
     assert not (tmp_path / "dev.txt").exists()
+    # The consensus of the two restarts, recomputed by another route: each restart's MBR
+    # trees from the engine's span posteriors (`mbr_and_likelihood`, checked against the
+    # library decoder above) averaged by `decode.tree_average` (checked against brute force
+    # in tests/test_study_restarts.py), scored by `evaluate_brackets`.
+    from treewright.decode import tree_average
+    from treewright.evaluation import BracketConventions, evaluate_brackets
+    from treewright.grammar import load_grammar
+    (tmp_path / "again").mkdir()
+    data = bench.generated_data("head-final", tmp_path / "again", 60, 12, 15, seed=0)
+    ev = data.evals[0]
+    votes = [bench.mbr_and_likelihood(load_grammar(tmp_path / "em-seed0" / f"restart-{r}.pcfg",
+                                                   tolerance=1e-4), ev.tokens)[0]
+             for r in (0, 1)]
+    averaged = [tree_average([v[k] for v in votes if v[k] is not None], len(words))
+                if any(v[k] is not None for v in votes) else None
+                for k, words in enumerate(ev.tokens)]
+    pred = [Bracketing.from_spans(t, s or []) for s, t in zip(averaged, ev.tokens)]
+    expect = evaluate_brackets(pred, ev.gold, BracketConventions()).to_dict()["systems"]["model"]
+    agreed = run["consensus"]["head-final-test"]
+    assert agreed["model"]["sentence_f1"] == pytest.approx(expect["sentence_f1"], abs=1e-12)
+    assert agreed["perplexity"] is None
+    row = result["summary"]["em, consensus of restarts"]["head-final-test"]
+    assert row["sentence_f1"][0] == agreed["model"]["sentence_f1"]
+    assert "| em, consensus of restarts |" in result["tables"]["head-final-test"]

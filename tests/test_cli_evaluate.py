@@ -153,5 +153,5 @@ def test_unparsed_predictions_are_counted(tmp_path):
 
 def test_parse_command_offers_exactly_the_library_decoders():
     from treewright.cli.parse import DECODER_NAMES
-    from treewright.decode import DECODERS
-    assert tuple(DECODER_NAMES) == tuple(DECODERS)
+    from treewright.decode import DECODERS, ENSEMBLE_DECODERS
+    assert tuple(DECODER_NAMES) == tuple(DECODERS) + tuple(ENSEMBLE_DECODERS)

@@ -83,20 +83,27 @@ def longest_within(grammar: Grammar, budget_mb: float | None,
     return low
 
 
-def plan_budget(grammar: Grammar, lengths: Sequence[int], budget_mb: float | None,
-                dtype: torch.dtype = torch.float32, batch_size: int = 64) -> BudgetPlan:
+def plan_budget(grammar: Grammar | Sequence[Grammar], lengths: Sequence[int],
+                budget_mb: float | None, dtype: torch.dtype = torch.float32,
+                batch_size: int = 64) -> BudgetPlan:
     """Calls of at most `batch_size` sentences, each within `budget_mb` (see `BudgetPlan`).
-    Raises ValueError for a budget that is not positive."""
+    For several grammars (the consensus decoder's, which runs a call's sentences under one
+    grammar at a time) a call fits when it fits under every one of them. Raises ValueError for
+    a budget that is not positive."""
     if budget_mb is not None and not budget_mb > 0:
         raise ValueError(f"the memory budget must be positive, got {budget_mb} MB")
-    longest = longest_within(grammar, budget_mb, dtype)
+    grammars = [grammar] if isinstance(grammar, Grammar) else list(grammar)
+    longest = min(longest_within(g, budget_mb, dtype) for g in grammars)
     fits = [i for i, n in enumerate(lengths) if n <= longest]
     over = [i for i, n in enumerate(lengths) if n > longest]
-    # A call's cost is a fixed part (the engine's chunk buffers) plus one part per sentence.
-    fixed = call_bytes(grammar, 0, 1, dtype)
+    # A call's cost is a fixed part (the engine's chunk buffers) plus one part per sentence;
+    # both are taken at their largest over the grammars, which errs on the safe side.
+    fixed = {id(g): call_bytes(g, 0, 1, dtype) for g in grammars}
+    most_fixed = max(fixed.values())
     groups = length_batches([lengths[i] for i in fits], batch_size,
-                            max_cost=None if budget_mb is None else budget_mb * MB - fixed,
-                            cost=lambda n: sentence_bytes(grammar, n, dtype) - fixed
+                            max_cost=None if budget_mb is None else budget_mb * MB - most_fixed,
+                            cost=lambda n: max(sentence_bytes(g, n, dtype) - fixed[id(g)]
+                                               for g in grammars)
                             ) if fits else []
     return BudgetPlan([[fits[k] for k in g] for g in groups], over, longest, budget_mb)
 
@@ -137,3 +144,15 @@ def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
     plan = plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype, batch_size)
     return run_plan(plan, sentences,
                     lambda group: decode(grammar, group, decoder, batch_size, dtype), progress)
+
+
+def consensus_within_budget(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
+                            budget_mb: float | None = DEFAULT_BUDGET_MB, batch_size: int = 16,
+                            dtype: torch.dtype = torch.float64, progress=None):
+    """`decode.consensus` of every sentence that fits `budget_mb` under each of `grammars`,
+    None for the others."""
+    from treewright.decode import consensus
+
+    plan = plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype, batch_size)
+    return run_plan(plan, sentences,
+                    lambda group: consensus(grammars, group, batch_size, dtype), progress)

@@ -14,6 +14,14 @@
 The labeled marginals, inside and outside scores come from `engine.span_tables` (the engine's
 own outside pass, batched); both decoders then work one span width at a time over every span of
 every sentence of a batch.
+
+One decoder reads several grammars (`ENSEMBLE_DECODERS`, run by `consensus`), for example the
+restarts of one training run:
+
+- `consensus`: tree averaging (Shayegh, Cao, Zhu, Cheung & Mou 2024, "Ensemble Distillation for
+  Unsupervised Constituency Parsing"): each grammar's unlabeled MBR tree votes once per span,
+  and the binary tree with the largest summed F1 against those trees is kept, labeled as the
+  `mbr` decoder labels it under the first grammar that parses the sentence.
 """
 
 from __future__ import annotations
@@ -33,6 +41,7 @@ from treewright.trees import Tree, tree_from_spans
 
 NEG_INF = float("-inf")
 DECODERS = ("viterbi", "mbr", "max-rule-product")
+ENSEMBLE_DECODERS = ("consensus",)  # decoders of several grammars (`consensus`)
 
 
 def mbr_spans(span_marginals: Tensor, length: int) -> list[tuple[int, int]]:
@@ -90,22 +99,33 @@ def tree_average(trees: Sequence[Sequence[tuple[int, int]]], length: int
     of input trees containing each of its spans over n - 1: CKY over those votes
     (`mbr_spans`). Each tree votes once, unlike averaging span posteriors, where one confident
     grammar can outvote the others. Returns spans as `mbr_spans` does."""
-    votes = torch.zeros(length + 1, length + 1, dtype=torch.float64)  # (N+1, N+1) [start, width]
-    for tree in trees:
-        for i, j in tree:
-            votes[i, j - i] += 1
-    return mbr_spans(votes, length)
+    return tree_average_batch([trees], [length])[0]
+
+
+def tree_average_batch(trees: Sequence[Sequence[Sequence[tuple[int, int]]]],
+                       lengths: Sequence[int]) -> list[list[tuple[int, int]]]:
+    """`tree_average` for a batch: `trees[b]` holds sentence b's input trees (any number, at
+    least one for a sentence of two words or more), one CKY (`mbr_spans_batch`) for all."""
+    N = max(lengths, default=0)
+    votes = torch.zeros(len(lengths), N + 1, N + 1, dtype=torch.float64)  # (B, N+1, N+1)
+    for b, sentence_trees in enumerate(trees):
+        for tree in sentence_trees:
+            for i, j in tree:
+                votes[b, i, j - i] += 1
+    return mbr_spans_batch(votes, lengths)
 
 
 @dataclass
 class Decoded:
-    """One decoded sentence. `tree` is None when the grammar cannot parse the sentence."""
+    """One decoded sentence. `tree` is None when the grammar (for consensus: every grammar)
+    cannot parse the sentence."""
     tree: Tree | None
     log_likelihood: float   # log p(sentence), summed over all trees; -inf when no parse
     tree_logprob: float     # log p(tree, sentence), summed over every refinement of the tree's
                             # labels (coarse trees); -inf if the grammar cannot build the tree
     score: float            # the decoder's objective: log p(tree) for viterbi, expected number
-                            # of correct spans for mbr, log product of rule posteriors for mrp
+                            # of correct spans for mbr, log product of rule posteriors for mrp,
+                            # mean F1 against the grammars' MBR trees for consensus
 
     @property
     def posterior(self) -> float:
@@ -324,6 +344,9 @@ def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
 def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = "mbr",
            batch_size: int = 16, dtype: torch.dtype = torch.float64) -> list[Decoded]:
     """One tree per sentence, in input order, by the named decoder (see `DECODERS`)."""
+    if decoder in ENSEMBLE_DECODERS:
+        raise ValueError(f"the {decoder} decoder reads several grammars: call "
+                         "treewright.decode.consensus(grammars, sentences)")
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
     for k, s in enumerate(sentences):
@@ -368,14 +391,9 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
                  ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the MBR bracketing labeled by the most probable symbol of each span, and
     its expected number of correct spans (None for a sentence with no parse)."""
-    symbols = grammar.symbols
-    nt = len(grammar.nonterminals)
-    spans_p = tables.marginals[..., :nt].sum(-1)                # (B, N+1, N+1)
+    spans_p = _span_posteriors(grammar, tables)                  # (B, N+1, N+1)
     brackets = mbr_spans_batch(spans_p, lengths)
-    # Wider spans take their most probable nonterminal, words their most probable symbol
-    # (a one-word sentence's single node must be a nonterminal: it is the top).
-    span_label = tables.marginals[..., :nt].argmax(-1).tolist()  # (B, N+1, N+1)
-    word_label = tables.marginals[:, :, 1].argmax(-1).tolist()   # (B, N+1)
+    labels = _SpanLabels(grammar, tables)
     gains = spans_p.tolist()
     out: list = []
     for b, (n, spans) in enumerate(zip(lengths, brackets)):
@@ -383,10 +401,111 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
             out.append(None)
             continue
         gain = sum((gains[b][i][j - i] for i, j in spans), 0.0)
-        labeled = [(i, j, symbols[span_label[b][i][j - i]]) for i, j in spans]
-        words = [span_label[b][0][1]] if n == 1 else word_label[b][:n]
-        labeled += [(i, i + 1, symbols[x]) for i, x in enumerate(words)]
-        out.append((labeled, gain))
+        out.append((labels.label(b, n, spans), gain))
+    return out
+
+
+def _span_posteriors(grammar: Grammar, tables: engine.SpanTables) -> Tensor:
+    """p(span [start, width] is a constituent | sentence), (B, N+1, N+1): the nonterminals'
+    label marginals summed (words' preterminals are not constituents)."""
+    return tables.marginals[..., :len(grammar.nonterminals)].sum(-1)
+
+
+class _SpanLabels:
+    """Each span's most probable label under one grammar, for a batch's span tables: wider spans
+    take their most probable nonterminal, words their most probable symbol (a one-word
+    sentence's single node must be a nonterminal: it is the top)."""
+
+    def __init__(self, grammar: Grammar, tables: engine.SpanTables):
+        nt = len(grammar.nonterminals)
+        self.symbols = grammar.symbols
+        self.span_label = tables.marginals[..., :nt].argmax(-1).tolist()  # (B, N+1, N+1)
+        self.word_label = tables.marginals[:, :, 1].argmax(-1).tolist()   # (B, N+1)
+
+    def label(self, b: int, n: int, spans: Sequence[tuple[int, int]]
+              ) -> list[tuple[int, int, str]]:
+        """Sentence b's `spans` (width >= 2) and its n words, labeled."""
+        symbols, span_label = self.symbols, self.span_label[b]
+        labeled = [(i, j, symbols[span_label[i][j - i]]) for i, j in spans]
+        words = [span_label[0][1]] if n == 1 else self.word_label[b][:n]
+        return labeled + [(i, i + 1, symbols[x]) for i, x in enumerate(words)]
+
+
+def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
+              batch_size: int = 16, dtype: torch.dtype = torch.float64) -> list[Decoded]:
+    """One tree per sentence from several grammars (two or more; e.g. the restarts of one run),
+    in input order, by tree averaging (Shayegh, Cao, Zhu, Cheung & Mou 2024, "Ensemble
+    Distillation for Unsupervised Constituency Parsing").
+
+    Each grammar that parses a sentence gives its unlabeled MBR tree (`mbr_spans_batch` over
+    its span posteriors, as the `mbr` decoder); the tree kept is the binary tree with the
+    largest summed F1 against those trees (`tree_average_batch`). Its spans and words are then
+    labeled as the `mbr` decoder labels them, by their most probable symbol under the labeling
+    grammar: the first grammar that parses the sentence (the first one, unless it cannot). A
+    sentence no grammar parses gets tree None.
+
+    Every grammar reads the same words through its own vocabulary, so the grammars must read
+    unknown words alike: all with the same word shape scheme, or all without (ValueError
+    otherwise). The caller normalises the words once, as the first grammar's training run did
+    (`export.open_restart_grammars` gives a run's restarts with that run's record).
+    `log_likelihood` and `tree_logprob` are the labeling grammar's; `score` is the mean F1 of
+    the tree against the voting grammars' MBR trees (spans of width >= 2, the whole sentence
+    included; 1 for a one-word sentence). Batches of `batch_size` sentences of similar length
+    run one grammar at a time, so a batch needs the memory of one grammar's pass (see
+    `budget.plan_budget`).
+    """
+    if len(grammars) < 2:
+        raise ValueError(f"the consensus decoder needs two or more grammars, got {len(grammars)}")
+    shapes = {g.vocab.shapes for g in grammars}
+    if len(shapes) > 1:
+        raise ValueError("the grammars read unknown words differently (word shape schemes "
+                         f"{sorted(shapes, key=str)}); the consensus decoder gives every "
+                         "grammar the same words")
+    for k, s in enumerate(sentences):
+        if len(s) == 0:
+            raise ValueError(f"sentence {k + 1} is empty")
+    out: list[Decoded | None] = [None] * len(sentences)
+    for batch in length_batches([len(s) for s in sentences], batch_size):
+        words = [list(sentences[i]) for i in batch]
+        for k, result in enumerate(_consensus_batch(grammars, words, dtype)):
+            out[batch[k]] = result
+    return out  # type: ignore[return-value]
+
+
+def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
+    lengths = [len(words) for words in sentences]
+    B = len(sentences)
+    voters: list[list[list[tuple[int, int]]]] = [[] for _ in range(B)]  # MBR trees per sentence
+    labeler: list[tuple[Grammar, _SpanLabels, float] | None] = [None] * B
+    for grammar in grammars:
+        # One grammar's tables at a time: only its MBR trees and, where it labels, its most
+        # probable labels are kept.
+        tables = span_tables(grammar, sentences, dtype)
+        trees = mbr_spans_batch(_span_posteriors(grammar, tables), lengths)
+        parsed = torch.isfinite(tables.logz).tolist()
+        labels = None
+        for b in range(B):
+            if not parsed[b]:
+                continue
+            voters[b].append(trees[b])
+            if labeler[b] is None:
+                if labels is None:
+                    labels = _SpanLabels(grammar, tables)
+                labeler[b] = (grammar, labels, float(tables.logz[b]))
+        del tables  # freed before the next grammar's pass, not after it
+    parsed_rows = [b for b in range(B) if voters[b]]
+    averaged = tree_average_batch([voters[b] for b in parsed_rows],
+                                  [lengths[b] for b in parsed_rows])
+    out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF) for _ in range(B)]
+    for b, spans in zip(parsed_rows, averaged):
+        grammar, labels, logz = labeler[b]
+        n = lengths[b]
+        tree = tree_from_spans(sentences[b], labels.label(b, n, spans))
+        kept = set(spans)
+        # Both trees are binary with n - 1 spans each, so F1 is the shared spans over n - 1.
+        agreement = 1.0 if n == 1 else sum(len(kept.intersection(t)) for t in voters[b]) \
+            / ((n - 1) * len(voters[b]))
+        out[b] = Decoded(tree, logz, tree_logprob_summed(grammar, tree), agreement)
     return out
 
 

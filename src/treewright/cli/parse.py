@@ -9,6 +9,7 @@ from treewright.cli.common import add_budget_argument
 EXAMPLES = """examples:
   treewright parse src/treewright/data/examples/astronomers.pcfg sentences.txt
   treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr --scores
+  treewright parse runs/demo dev.txt --decoder consensus
   echo "astronomers saw stars with ears" | treewright parse src/treewright/data/examples/astronomers.pcfg - --scores
 
 decoders:
@@ -17,6 +18,10 @@ decoders:
                     labeled with its most probable symbol (the usual decoder for induced grammars)
   max-rule-product  for refined grammars (symbols NAME·k): the tree of coarse symbols maximizing
                     the product of posterior coarse-rule marginals
+  consensus         GRAMMAR must be a run folder that saved two or more restarts: each restart's
+                    mbr tree votes, and the binary tree with the largest summed F1 against those
+                    trees is printed (tree averaging, Shayegh et al. 2024), labeled as mbr labels
+                    it under the kept restart; words are read as the run read them
 
 A grammar trained on tags (data.tag_mode, or --tags) parses the tags of a bracketed or
 CoNLL-U file and prints trees over its words, ready for `treewright evaluate` against that file;
@@ -26,22 +31,26 @@ One output line per input line (per tree or sentence for a bracketed or CoNLL-U 
 A blank or whitespace-only input line gives an empty output line. A sentence with no parse, or
 too long for --memory-budget, prints '(NOPARSE w1 w2 ...)' and the reason goes to standard
 error. On a terminal a progress bar runs on standard error. With --scores each line
-gets a tab, log p(tree, sentence), a tab and p(tree | sentence); with --objective, a third tab and
-the decoder's own objective (log p(tree), expected correct spans, or log rule-posterior product);
-these are nan for a sentence over the memory budget (not computed).
+gets a tab, log p(tree, sentence), a tab and p(tree | sentence) (for consensus under the kept
+restart, or the first restart that parses the sentence); with --objective, a third tab and the
+decoder's own objective (log p(tree), expected correct spans, log rule-posterior product, or for
+consensus the mean F1 against the restarts' mbr trees); these are nan for a sentence over the
+memory budget (not computed).
 """
 
 
-# The names of treewright.decode.DECODERS, written out so that `--help` need not import torch
-# (tests/test_cli_evaluate.py checks that the two agree).
-DECODER_NAMES = ("viterbi", "mbr", "max-rule-product")
+# The names of treewright.decode.DECODERS (one grammar) and ENSEMBLE_DECODERS (a run's restart
+# grammars), written out so that `--help` need not import torch (tests/test_cli_evaluate.py
+# checks that they agree).
+DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
     p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
     p.add_argument("--decoder", choices=DECODER_NAMES, default="viterbi",
-                   help="how to choose the tree (default: viterbi)")
+                   help="how to choose the tree (default: viterbi; consensus needs a run "
+                        "folder with two or more saved restarts)")
     p.add_argument("--scores", action="store_true",
                    help="append the tree's log-probability and its posterior to each line")
     p.add_argument("--objective", action="store_true",
@@ -62,12 +71,24 @@ def run(args) -> int:
     from treewright.budget import plan_budget, run_plan
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
     from treewright.corpus import insert_words, read_tagged, run_drop_tags, run_tag_mode
-    from treewright.decode import decode
-    from treewright.export import open_grammar  # text, JSON export or run folder
+    from treewright.decode import ENSEMBLE_DECODERS, consensus, decode
+    from treewright.export import open_grammar, open_restart_grammars
     from treewright.tracking import terminal_progress
 
-    source = open_grammar(args.grammar)
+    dtype = torch.float64  # decode's precision
+    source = open_grammar(args.grammar)  # text, JSON export or run folder
     grammar = source.grammar
+    if args.decoder in ENSEMBLE_DECODERS:  # the run's restarts, the kept one first
+        grammars = [s.grammar for s in open_restart_grammars(
+            args.grammar, f"the {args.decoder} decoder")]
+
+        def work(group):
+            return consensus(grammars, group, args.batch_size, dtype)
+    else:
+        grammars = [grammar]
+
+        def work(group):
+            return decode(grammar, group, args.decoder, args.batch_size, dtype)
     config = (source.training or {}).get("config")
     data = config.get("data") if isinstance(config, dict) else None
     on_tags = args.tags or run_tag_mode(data)
@@ -88,14 +109,11 @@ def run(args) -> int:
             for sentence in tokens]
     inputs = [[t for t, k in zip(sentence, mask) if k] for sentence, mask in zip(tokens, kept)]
     todo = [i for i, sentence in enumerate(inputs) if sentence]
-    dtype = torch.float64  # decode's precision
-    plan = plan_budget(grammar, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
+    plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                        args.batch_size)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
     with terminal_progress(len(todo) - len(plan.over), "parse") as progress:
-        done = run_plan(plan, [inputs[i] for i in todo],
-                        lambda group: decode(grammar, group, args.decoder, args.batch_size,
-                                             dtype), progress)
+        done = run_plan(plan, [inputs[i] for i in todo], work, progress)
     results = [None] * len(lines)
     for i, result in zip(todo, done):
         results[i] = result

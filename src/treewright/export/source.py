@@ -74,6 +74,48 @@ def open_grammar(path: str | Path) -> GrammarSource:
     return GrammarSource(grammar, grammar_path, run_dir, training)
 
 
+def open_restart_grammars(path: str | Path, purpose: str = "decoding with several grammars"
+                          ) -> list[GrammarSource]:
+    """Every restart grammar a training run folder saved (`restart-<r>.pcfg`), the restart the
+    run kept first, then the others in restart order; each with the run's training record, so
+    the words are read as the run read them (one lowercasing for all: the restarts share the
+    run's config). The restarts come from the run's result.json.
+
+    Raises InputError naming the path, with `purpose` in the message, for a grammar file or a
+    JSON export (one grammar), a folder whose run did not finish or saved fewer than two
+    restarts (`train.restarts`), and a restart grammar that is missing.
+    """
+    path = Path(path)
+    need = (f"{purpose} needs a training run folder that saved two or more restart grammars "
+            "(train.restarts >= 2)")
+    if not path.is_dir():
+        raise InputError(f"{need}; this is a single grammar", path=str(path))
+    kept = open_grammar(path)
+    folder = RunFolder(path)
+    result = (kept.training or {}).get("result")
+    if result is None:
+        raise InputError(f"{need}; this folder has no {folder.result.name} listing its "
+                         "restarts (not a finished training run)", path=str(path))
+    records = result.get("restarts") if isinstance(result, dict) else None
+    if not isinstance(records, list) or not all(
+            isinstance(r, dict) and isinstance(r.get("restart"), int) for r in records):
+        raise InputError("no list of restarts with their numbers under \"restarts\"",
+                         path=str(folder.result))
+    if len(records) < 2:
+        raise InputError(f"{need}; this run saved {len(records)}", path=str(path))
+    best = result.get("best_restart")
+    ordered = sorted((r["restart"] for r in records), key=lambda r: (r != best, r))
+    sources = []
+    for r in ordered:
+        grammar_path = folder.restart_grammar(r)
+        if not grammar_path.is_file():
+            raise InputError(f"restart {r}'s grammar is missing ({folder.result.name} lists "
+                             "it)", path=str(grammar_path))
+        sources.append(GrammarSource(load_grammar(grammar_path), grammar_path, path,
+                                     kept.training))
+    return sources
+
+
 def load(path: str | Path) -> Grammar:
     """The grammar of a grammar text file, a JSON export or a run folder."""
     return open_grammar(path).grammar

@@ -262,12 +262,20 @@ class Parsed:
 
 def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
                     memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> Parsed:
-    from treewright.budget import decode_within_budget
+    """The sentences' trees by `decoder`; `grammar` is a list of grammars for a decoder of
+    several (`decode.ENSEMBLE_DECODERS`)."""
+    from treewright.budget import consensus_within_budget, decode_within_budget
+    from treewright.decode import ENSEMBLE_DECODERS
     from treewright.tracking import terminal_progress
 
+    tokens = [s.tokens for s in sentences]
     with terminal_progress(len(sentences), "report: parsing") as progress:
-        results = decode_within_budget(grammar, [s.tokens for s in sentences], decoder,
-                                       memory_budget_mb, progress=progress)
+        if decoder in ENSEMBLE_DECODERS:
+            results = consensus_within_budget(grammar, tokens, memory_budget_mb,
+                                              progress=progress)
+        else:
+            results = decode_within_budget(grammar, tokens, decoder, memory_budget_mb,
+                                           progress=progress)
     trees, unparsed = [], 0
     for s, r in zip(sentences, results):
         if r is None or r.tree is None:
@@ -610,12 +618,23 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
     text: raw sentences for examples and the heat map when there is no gold.
     decoder: see `treewright.decode.DECODERS`; None (the default) picks by the grammar:
         max-rule-product for a refined grammar, else mbr (`choose_decoder`; the page says which).
+        "consensus" (`decode.ENSEMBLE_DECODERS`) decodes with every restart grammar the run
+        saved, or that the run folder `grammar_path` saved (`export.open_restart_grammars`).
     max_sentences: parse only the first N gold sentences (the page says how many of how many).
     heatmap_sentence: 1-based index into the gold (else text) sentences.
     memory_budget_mb: sentences that alone need more are not parsed; the page names them.
     """
+    from treewright.decode import ENSEMBLE_DECODERS
+    from treewright.export.source import open_restart_grammars
+
     found = gather(run_dir, gold, text, grammar_path, gold_format)
     decoder, decoded_with = choose_decoder(found.grammar, decoder)
+    decoding = found.grammar
+    if decoder in ENSEMBLE_DECODERS and found.grammar is not None:
+        decoding = [s.grammar for s in open_restart_grammars(
+            grammar_path if grammar_path is not None else run_dir, f"the {decoder} decoder")]
+        decoded_with = (f"trees decoded with {decoder} (as asked), over the run's "
+                        f"{len(decoding)} restarts.")
     refine = is_refine_run(found.config, found.metrics)
     pool = found.gold if found.gold is not None else found.text
     parsed, reason = None, "Needs the grammar and --gold or --text."
@@ -624,7 +643,7 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         if len(chosen) < len(pool):
             found.notes.append(f"parsed the first {len(chosen)} of {len(pool)} sentences "
                                "(max_sentences)")
-        parsed = parse_sentences(found.grammar, chosen, decoder, memory_budget_mb)
+        parsed = parse_sentences(decoding, chosen, decoder, memory_budget_mb)
         if parsed.over_budget:
             found.notes.append(
                 f"{len(parsed.over_budget)} sentences over the memory budget of "
