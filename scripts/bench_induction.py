@@ -96,6 +96,14 @@ class EvalSet:
 
 
 @dataclass
+class Written:
+    """One sentence as the trainer reads it from CoNLL-U: words, tags and joins, shape (n,)."""
+    words: list[str]
+    tags: list[str]
+    joined: list[bool]
+
+
+@dataclass
 class BenchData:
     """Training and restart-selection text, the scored sets and the counts of what was used."""
     train_tokens: list[list[str]]
@@ -103,6 +111,10 @@ class BenchData:
     evals: list[EvalSet]
     ceiling: Path | None = None          # generating grammar (demo, tokens mode only)
     counts: dict = field(default_factory=dict)
+    # turkish: per training / dev sentence the written words (lowercased), their UPOS and which
+    # are written joined to the word before (CoNLL-U SpaceAfter=No), punctuation removed
+    train_written: list[Written] | None = None
+    dev_written: list[Written] | None = None
 
 
 def treebank_path(section: str) -> Path:
@@ -132,14 +144,15 @@ def without_punctuation(gold: Bracketing, tags: list[str], tokens: list[str]
 
 
 def read_treebank(path: Path, mode: str, sentences: int | None = None
-                  ) -> tuple[list[list[str]], list[Bracketing], dict]:
-    """Every sentence of a CoNLL-U file as (model tokens, gold), punctuation removed.
+                  ) -> tuple[list[list[str]], list[Bracketing], dict, list[Written]]:
+    """Every sentence of a CoNLL-U file as (model tokens, gold), punctuation removed, with its
+    written words, tags and joins (what the trainer reads).
 
     Non-projective sentences are lifted (kept, counted) so no sentence is lost. Sentences left
     empty by punctuation removal are counted and dropped. `sentences` keeps the first ones.
     """
     corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift"))
-    tokens_out, gold_out = [], []
+    tokens_out, gold_out, written = [], [], []
     empty = 0
     for s in corpus.sentences[:sentences]:
         source = s.tags if mode == "tags" else [w.lower() for w in s.words]
@@ -149,19 +162,26 @@ def read_treebank(path: Path, mode: str, sentences: int | None = None
             continue
         tokens_out.append(tokens)
         gold_out.append(gold)
+        keep = [t != PUNCT_UPOS for t in s.tags]
+        # A removed word between two pieces breaks the join, as the trainer's reader does.
+        joined = [j and i > 0 and keep[i - 1] for i, j in enumerate(s.joined) if keep[i]]
+        written.append(Written([clean_token(w.lower()) for w, k in zip(s.words, keep) if k],
+                               [t for t, k in zip(s.tags, keep) if k], joined))
     report = corpus.report
     counts = {"read": report.sentences_read, "used": len(tokens_out),
               "projectivised": report.projectivised, "empty_after_punctuation": empty,
               "skipped": dict(report.skipped_by_reason)}
-    return tokens_out, gold_out, counts
+    return tokens_out, gold_out, counts, written
 
 
 def turkish_data(mode: str, dev_fraction: float, eval_max_length: int | None,
                  sentences: int | None = None) -> BenchData:
     """web -> seeded train/dev split; wiki -> test. Eval sets keep sentences of at most
     `eval_max_length` tokens (None: all); the training length cap is applied by the trainer."""
-    web_tokens, web_gold, web_counts = read_treebank(treebank_path("web"), mode, sentences)
-    wiki_tokens, wiki_gold, wiki_counts = read_treebank(treebank_path("wiki"), mode, sentences)
+    web_tokens, web_gold, web_counts, web_written = read_treebank(treebank_path("web"), mode,
+                                                                  sentences)
+    wiki_tokens, wiki_gold, wiki_counts, _ = read_treebank(treebank_path("wiki"), mode,
+                                                           sentences)
     split = split_indices(len(web_tokens), dev=dev_fraction, test=0.0, seed=0)
     train_tokens = [web_tokens[i] for i in split.train]
 
@@ -174,7 +194,9 @@ def turkish_data(mode: str, dev_fraction: float, eval_max_length: int | None,
     counts = {"web": web_counts, "wiki": wiki_counts, "web_train": len(split.train),
               "web_dev": len(split.dev), "web_dev_scored": len(dev.tokens),
               "wiki_scored": len(wiki.tokens), "eval_max_length": eval_max_length}
-    return BenchData(train_tokens, dev.tokens, [dev, wiki], None, counts)
+    return BenchData(train_tokens, dev.tokens, [dev, wiki], None, counts,
+                     [web_written[i] for i in split.train],
+                     [web_written[i] for i in split.dev])
 
 
 def demo_data(eval_max_length: int | None, sentences: int | None = None) -> BenchData:
@@ -241,6 +263,20 @@ def generated_data(order: str, out: Path, train_size: int, test_size: int, max_w
 
 def write_text(path: Path, sentences: list[list[str]]) -> Path:
     path.write_text("".join(" ".join(s) + "\n" for s in sentences), encoding="utf-8")
+    return path
+
+
+def write_tokenized_conllu(path: Path, sentences: list[Written]) -> Path:
+    """CoNLL-U without heads (text that is only tokenized): FORM, UPOS, and SpaceAfter=No
+    where the next word is written joined to this one, so the trainer sees the written words."""
+    lines = []
+    for s in sentences:
+        for k, (word, tag) in enumerate(zip(s.words, s.tags)):
+            glued = k + 1 < len(s.words) and s.joined[k + 1]
+            misc = "SpaceAfter=No" if glued else "_"
+            lines.append(f"{k + 1}\t{word}\t_\t{tag}\t_\t_\t_\t_\t_\t{misc}")
+        lines.append("")
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return path
 
 
@@ -365,7 +401,8 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     """Train one (method, seed) and score it on every eval set."""
     nt, pt = args.lowrank_symbols if method == "lowrank" else args.symbols
     dev = [f"data.dev={data_files['dev']}"] if "dev" in data_files else []
-    overrides = [f"data.train={data_files['train']}", *dev, "data.format=text", f"data.max_length={args.max_length}",
+    overrides = [f"data.train={data_files['train']}", *dev, f"data.format={data_files['format']}",
+                 f"data.tag_mode={str(args.mode == 'tags').lower()}", f"data.max_length={args.max_length}",
                  f"data.min_count={args.min_count}", f"model.nonterminals={nt}",
                  f"model.preterminals={pt}", f"train.seed={seed}",
                  f"train.epochs={args.epochs}", f"train.restarts={args.restarts}",
@@ -545,9 +582,16 @@ def main(argv: list[str] | None = None) -> dict:
     else:
         data = demo_data(args.eval_max_length, args.sentences)
     args.evals = data.evals
-    files = {"train": write_text(args.out / "train.txt", data.train_tokens)}
-    if data.dev_tokens:
-        files["dev"] = write_text(args.out / "dev.txt", data.dev_tokens)
+    if data.train_written is not None:
+        # Turkish: the trainer reads the written words (or their tags, in tag mode) and where
+        # the tokenizer split a written word (constraints.word_pieces).
+        files = {"format": "conllu",
+                 "train": write_tokenized_conllu(args.out / "train.conllu", data.train_written),
+                 "dev": write_tokenized_conllu(args.out / "dev.conllu", data.dev_written)}
+    else:
+        files = {"format": "text", "train": write_text(args.out / "train.txt", data.train_tokens)}
+        if data.dev_tokens:
+            files["dev"] = write_text(args.out / "dev.txt", data.dev_tokens)
     started = datetime.datetime.now(datetime.timezone.utc)
     runs = []
     for method in args.methods:

@@ -60,11 +60,18 @@ def _yields_without_punct(tokenlist) -> tuple[list[str], set[tuple[int, int]]] |
 @needs_treebank
 def test_punctuation_removal_matches_dependency_yields():
     # Reference: the conllu library's parse of the same file and a brute-force descendant walk.
-    tokens, gold, counts = bench.read_treebank(WEB, "tokens", sentences=60)
+    tokens, gold, counts, written = bench.read_treebank(WEB, "tokens", sentences=60)
     with open(WEB, encoding="utf-8") as handle:
         reference = [s for _, s in zip(range(60), conllu.parse_incr(handle))]
     checked = 0
-    for toks, g, ref in zip(tokens, gold, reference):
+    for toks, g, ref, w in zip(tokens, gold, reference, written):
+        # What the trainer reads: the same words, joined where the word before them is kept
+        # and says SpaceAfter=No in the conllu library's parse (this treebank has no ranges).
+        words_ref = [t for t in ref if isinstance(t["id"], int)]
+        kept = [t["upos"] != "PUNCT" for t in words_ref]
+        glue = [False] + [(t["misc"] or {}).get("SpaceAfter") == "No" for t in words_ref[:-1]]
+        assert w.words == toks
+        assert w.joined == [g_ and i > 0 and kept[i - 1] for i, g_ in enumerate(glue) if kept[i]]
         expected = _yields_without_punct(ref)
         if expected is None:
             continue
@@ -103,7 +110,7 @@ def test_the_corpus_reader_drops_tagged_words_like_the_dependency_yields():
 
 @needs_treebank
 def test_tag_mode_reads_upos_without_punct():
-    tokens, gold, _ = bench.read_treebank(WEB, "tags", sentences=20)
+    tokens, gold, _, written = bench.read_treebank(WEB, "tags", sentences=20)
     with open(WEB, encoding="utf-8") as handle:
         reference = [s for _, s in zip(range(20), conllu.parse_incr(handle))]
     for toks, ref in zip(tokens, reference):
@@ -111,6 +118,7 @@ def test_tag_mode_reads_upos_without_punct():
         assert toks == [t["upos"] for t in ref if isinstance(t["id"], int)
                         and t["upos"] != "PUNCT"]
         assert "PUNCT" not in toks
+    assert [w.tags for w in written] == tokens      # the tags the trainer reads in tag mode
 
 
 def test_lean_of_branching_trees():

@@ -20,6 +20,7 @@ from treewright.errors import InputError
 from treewright.export import dependency_heads, head_rule, parse_corpus, to_conllu
 from treewright.export.parses import auto_head_sides
 from treewright.grammar import parse_grammar
+from treewright.report.scoring import evaluate_files
 from treewright.inference import viterbi_parse
 from treewright.trees import Tree
 
@@ -159,16 +160,23 @@ def test_auto_breaks_an_exact_tie_to_the_left():
     assert auto_head_sides(tied) == {"S": "left"}
 
 
-def test_an_unparsed_sentence_keeps_its_words_and_is_reported_on_reading(grammar, tmp_path):
+def test_an_unparsed_sentence_keeps_its_words_and_is_refused_as_gold(grammar, tmp_path):
     lines = [(1, sample_sentences(grammar, num=1, seed=2)[0]), (2, ["ka", "ul"])]
     path = tmp_path / "out.conllu"
     path.write_text(to_conllu(parse_corpus(grammar, lines), rule=head_rule("left")),
                     encoding="utf-8")
+    # Every head `_`: CoNLL-U text that is only tokenized, read with its words and no tree.
+    corpus = read_corpus(path, "conllu")
+    assert [s.tree is None for s in corpus.sentences] == [False, True]
+    assert corpus.sentences[1].words == ["ka", "ul"]
+    # Where a tree is needed, as gold, it is refused naming the file and the sentence's line.
+    pred = tmp_path / "pred.trees"
+    pred.write_text("".join(f"{s.tree if s.tree else '(X (A ka) (A ul))'}\n"
+                            for s in corpus.sentences), encoding="utf-8")
     with pytest.raises(InputError) as caught:
-        read_corpus(path, "conllu")
-    assert str(path) in str(caught.value) and "no head" in str(caught.value)
-    corpus = read_corpus(path, "conllu", ReadOptions(skip_bad=True))
-    assert len(corpus.sentences) == 1 and corpus.report.skipped_by_reason == {"malformed": 1}
+        evaluate_files(pred, path)
+    assert str(path) in str(caught.value) and "no tree" in str(caught.value)
+    assert f"line {corpus.sentences[1].line}:" in str(caught.value)
 
 
 @pytest.mark.parametrize("side", ["left", "right"])

@@ -20,12 +20,19 @@ from treewright.trees import Tree, tree_from_spans
 @dataclass
 class DependencySentence:
     """The syntactic words of one CoNLL-U sentence (multiword-token lines and empty nodes
-    left out), with the line where its block starts and its `# sent_id` comment, if any."""
+    left out), with the line where its block starts and its `# sent_id` comment, if any.
+
+    heads: None for a sentence that is only tokenized (every HEAD is `_`).
+    joined: per word, True when it is written joined to the word before it, in one orthographic
+        word: both lie in one multiword token (a range line such as `3-4`), or the token before
+        it has `SpaceAfter=No` in MISC (the CoNLL-U conventions for the text as written).
+    """
     words: list[str]
     upos: list[str]
-    heads: list[int]
+    heads: list[int] | None
     line: int
     sent_id: str | None = None
+    joined: list[bool] | None = None
 
 
 def _children(heads: list[int]) -> list[list[int]]:
@@ -149,7 +156,9 @@ def iter_conllu_blocks(lines: Iterable[tuple[int, str]], path: str
     """Yield each sentence block of a CoNLL-U file, or an InputError for a malformed one.
 
     Multiword-token lines (ids like 3-4) and empty nodes (ids like 5.1) are left out; the
-    syntactic words remain. Ids must run 1..n in order and heads must form a tree.
+    syntactic words remain, and the range lines and `SpaceAfter=No` tell which words were
+    written joined (`DependencySentence.joined`). Ids must run 1..n in order; heads must form a
+    tree, or be `_` on every word (text that is only tokenized).
     """
     block: list[tuple[int, str]] = []
     for number, text in lines:
@@ -166,9 +175,13 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     words: list[str] = []
     upos: list[str] = []
     heads: list[int] = []
-    head_lines: list[int] = []
+    joined: list[bool] = []
     first = block[0][0]
     sent_id = None
+    glue_next = False           # the token before the next word had SpaceAfter=No
+    word_range = (0, 0)         # (first, last) word ids of the multiword token being read
+    range_glue = False          # that token had SpaceAfter=No
+    word_lines: list[int] = []
     for number, text in block:
         if text.startswith("#"):
             # The CoNLL-U comment that names the sentence: "# sent_id = <id>".
@@ -185,20 +198,36 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
         except ParseException as err:
             return InputError(f"cannot read this CoNLL-U line ({err})", path, number, 1)
         ident = token["id"]
+        no_space = (token["misc"] or {}).get("SpaceAfter") == "No"
+        if isinstance(ident, tuple) and len(ident) == 3 and ident[1] == "-":
+            # A multiword token: its words are one orthographic word; its MISC speaks for the
+            # space after the whole token, that is after its last word.
+            word_range = (int(ident[0]), int(ident[2]))
+            range_glue = no_space
+            continue
         if not isinstance(ident, int):
-            continue  # a multiword-token range or an empty node: not a syntactic word
+            continue  # an empty node: not a syntactic word
         if ident != len(words) + 1:
             return InputError(f"word id {ident} out of order (expected {len(words) + 1})",
                               path, number, 1)
-        if not isinstance(token["head"], int):
-            return InputError(f"word {ident} has no head", path, number, 1)
+        inside = word_range[0] < ident <= word_range[1]
+        joined.append(glue_next or inside)
+        glue_next = range_glue if ident == word_range[1] else (
+            no_space and not word_range[0] <= ident < word_range[1])
         words.append(token["form"])
         upos.append(token["upos"] or "_")
         heads.append(token["head"])
-        head_lines.append(number)
+        word_lines.append(number)
     if not words:
         return InputError("a CoNLL-U block with comments but no words", path, first, 1)
+    missing = [i for i, h in enumerate(heads) if not isinstance(h, int)]
+    if len(missing) == len(heads):
+        return DependencySentence(words, upos, None, first, sent_id, joined)
+    if missing:
+        return InputError(f"word {missing[0] + 1} has no head (`_`), but other words have one; "
+                          "give every word a head, or none for text that is only tokenized",
+                          path, word_lines[missing[0]], 1)
     problem = check_tree(heads)
     if problem is not None:
         return InputError(f"not a dependency tree: {problem}", path, first, 1)
-    return DependencySentence(words, upos, heads, first, sent_id)
+    return DependencySentence(words, upos, heads, first, sent_id, joined)

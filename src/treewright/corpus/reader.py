@@ -130,7 +130,8 @@ class CorpusStream:
         return word
 
     def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
-                heads: list[int] | None = None, sent_id: str | None = None) -> Sentence | None:
+                heads: list[int] | None = None, sent_id: str | None = None,
+                joined: list[bool] | None = None) -> Sentence | None:
         """Apply tag mode and the length limits; count the sentence if it goes unused."""
         if self.options.tag_mode:
             if tags is None:
@@ -140,7 +141,7 @@ class CorpusStream:
         else:
             tokens = [self._normalise(w) for w in words]
         sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
-                            line=line, heads=heads, sent_id=sent_id)
+                            line=line, heads=heads, sent_id=sent_id, joined=joined)
         n = len(tokens)
         if n == 0:
             self._skip("empty", line)
@@ -187,6 +188,15 @@ class CorpusStream:
                 self._bad(block)
                 yield None
                 continue
+            joined = block.joined
+            if block.heads is None:
+                # Only tokenized: words (and joins) without a tree.
+                keep = [t not in options.punct_labels for t in block.upos]
+                yield self._finish([w for w, k in zip(block.words, keep) if k],
+                                   [t for t, k in zip(block.upos, keep) if k], None,
+                                   block.line, sent_id=block.sent_id,
+                                   joined=_joined_without(joined, keep))
+                continue
             heads = block.heads
             if nonprojective_arcs(heads):
                 self.report.nonprojective += 1
@@ -207,11 +217,21 @@ class CorpusStream:
                     self._skip("empty", block.line, message="nothing left after removals")
                     yield None
                     continue
-                kept_heads = _heads_without(block.heads, [t in options.punct_labels
-                                                          for t in upos])
+                keep = [t not in options.punct_labels for t in upos]
+                kept_heads = _heads_without(block.heads, [not k for k in keep])
                 words, upos = tree.leaves(), preterminal_tags(tree)
+                joined = _joined_without(joined, keep) if sum(keep) == len(words) else None
             yield self._finish(words, upos, tree, block.line, heads=kept_heads,
-                               sent_id=block.sent_id)
+                               sent_id=block.sent_id, joined=joined)
+
+
+def _joined_without(joined: list[bool] | None, keep: list[bool]) -> list[bool] | None:
+    """`joined` (per word, written joined to the word before) for the kept words only: a word
+    stays joined only when the word before it was kept too, since a removed word between them
+    (punctuation, say) is not part of the orthographic word the constraint is about."""
+    if joined is None:
+        return None
+    return [j and i > 0 and keep[i - 1] for i, (j, k) in enumerate(zip(joined, keep)) if k]
 
 
 def _heads_without(heads: list[int], drop: list[bool]) -> list[int] | None:

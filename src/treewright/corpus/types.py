@@ -139,7 +139,10 @@ class Sentence:
     normalised words, or the tags in tag mode (not yet mapped to the unknown token; use
     `Corpus.encode`). `tree` leaves are `words`, in order, when there is a tree. `line` is the
     1-based line where the sentence starts in `source`; `sent_id` is the name the source gives
-    it (CoNLL-U `# sent_id`), None where the format has none.
+    it (CoNLL-U `# sent_id`), None where the format has none. `joined` marks, per word, the
+    words written joined to the word before them in one orthographic word (CoNLL-U multiword
+    tokens and `SpaceAfter=No`; see `treewright.word_pieces`); None where the format does not
+    say.
     """
     words: list[str]
     tokens: list[str]
@@ -149,6 +152,7 @@ class Sentence:
     line: int = 0
     heads: list[int] | None = None
     sent_id: str | None = None
+    joined: list[bool] | None = None
 
     def __len__(self) -> int:
         return len(self.tokens)

@@ -187,7 +187,8 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     gold = gold_corpus.sentences
     missing_tree = next((g for g in gold if g.tree is None), None)
     if missing_tree is not None:
-        raise InputError("gold has no tree (give bracketed trees or CoNLL-U)",
+        raise InputError("gold has no tree (give bracketed trees, or CoNLL-U with a head on "
+                         "every word)",
                          path=str(gold_path), line=missing_tree.line)
     # Trees parsed from a file of tags (a grammar trained on tags) get the gold words back.
     trees, over_tags = words_over_tags([p.tree for p in pred], [g.words for g in gold],

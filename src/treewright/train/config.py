@@ -155,6 +155,12 @@ class ConstraintsConfig:
         False, "Use the brackets of the training trees as partial constraints: no tree may "
                "cross them (Pereira & Schabes 1992). Needs a bracketed or CoNLL-U corpus; a "
                "flat node leaves its inside unconstrained.")
+    word_pieces: Literal["auto", "host-first", "host-last", "none"] = option(
+        "auto", "Written words that the tokenizer split into pieces (CoNLL-U multiword tokens, "
+                "SpaceAfter=No): no constituent may take a bound piece without its host. auto "
+                "reads from the training text which end of a written word holds the host "
+                "(treewright.word_pieces) and leaves text that marks no splits (one sentence a "
+                "line) unconstrained; host-first and host-last say it; none turns it off.")
 
 
 @dataclass
@@ -260,6 +266,9 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.data.stream_chunk is not None and cfg.constraints.train_brackets:
         bad("constraints.train_brackets", "partial brackets need the whole corpus in memory; "
                                           "leave data.stream_chunk null")
+    if cfg.data.stream_chunk is not None and cfg.constraints.word_pieces.startswith("host"):
+        bad("constraints.word_pieces", "the word-piece constraint needs the whole corpus in "
+                                       "memory; leave data.stream_chunk null or set it to auto")
     if problems:
         raise ConfigError(problems, path=source)
 

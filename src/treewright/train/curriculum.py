@@ -62,9 +62,9 @@ class Curriculum:
 
     def batch(self, data: TrainData, indices: list[int], epoch: int,
               dtype: torch.dtype) -> Batch:
-        """The engine batch of training sentences `indices` at `epoch`: partial brackets and
-        the edge bias as span potentials."""
-        batch = make_batch(indices, data.train_ids, data.brackets, dtype)
+        """The engine batch of training sentences `indices` at `epoch`: partial brackets, the
+        word-piece constraint and the edge bias as span potentials."""
+        batch = make_batch(indices, data.train_ids, data.brackets, dtype, data.pieces)
         scale = self.bias_scale(epoch)
         b = self.cfg.bias
         if scale > 0 and (b.right_edge != 0 or b.left_edge != 0):

@@ -20,6 +20,7 @@ from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
 from treewright.train.config import TrainConfig
 from treewright.train.distributed import StreamedCorpus
+from treewright.word_pieces import barred_positions, host_side
 
 
 @dataclass
@@ -32,6 +33,8 @@ class TrainData:
     dev_words: list[list[str]]
     dev_trees: list[Tree] | None
     notes: list[str]
+    pieces: tuple[str, list[list[int]]] | None = None   # host side, barred positions per
+                                                        # training sentence (word_pieces)
 
 
 def _brackets_of(tree: Tree) -> list[tuple[int, int]]:
@@ -75,7 +78,28 @@ def load_data(cfg: TrainConfig) -> TrainData:
             dev_trees = [s.tree for s in dev.sentences]
     train_ids = train if d.stream_chunk is not None else \
         [train.encode(s) for s in train.sentences]
-    return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes)
+    pieces = None if d.stream_chunk is not None else _word_pieces(cfg, train.sentences, notes)
+    return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes, pieces)
+
+
+def _word_pieces(cfg: TrainConfig, sentences, notes: list[str]
+                 ) -> tuple[str, list[list[int]]] | None:
+    """The word-piece constraint of `constraints.word_pieces` for the training sentences: the
+    host side and, per sentence, the barred positions; None when unconstrained. Notes why."""
+    mode = cfg.constraints.word_pieces
+    if mode == "none" or not any(s.joined and any(s.joined) for s in sentences):
+        return None
+    if mode == "auto":
+        # Written forms, case folded, so a capitalised first word still counts as standing alone.
+        found = host_side([([w.lower() for w in s.words], s.joined) for s in sentences])
+        notes.append(found.describe())
+        side = found.side
+    else:
+        side = mode.removeprefix("host-")
+        notes.append(f"word pieces: the host comes {side}, as configured")
+    if side is None:
+        return None
+    return side, [barred_positions(s.joined) for s in sentences]
 
 
 def summary(data: TrainData) -> dict:

@@ -24,7 +24,7 @@ from treewright.params.tabular import RuleTensors
 # params.compound); tests and benchmarks import them from here.
 __all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_counts",
            "expected_counts",
-           "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
+           "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias", "piece_mask",
            "log_partition_of", "make_batch", "sentence_logliks", "sentence_terminal_scores",
            "span_posteriors", "zero_counts"]
 
@@ -45,9 +45,12 @@ class Batch:
 
 
 def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
-               brackets: Sequence[Sequence[tuple[int, int]]] | None, dtype: torch.dtype) -> Batch:
+               brackets: Sequence[Sequence[tuple[int, int]]] | None, dtype: torch.dtype,
+               pieces: tuple[str, Sequence[Sequence[int]]] | None = None) -> Batch:
     """A `Batch` of the given sentences; `brackets` (per sentence, spans (i, j)) forbid every span
-    that crosses one of them (Pereira & Schabes 1992)."""
+    that crosses one of them (Pereira & Schabes 1992); `pieces` (host side, per sentence the
+    positions of `word_pieces.barred_positions`) forbid every span that cuts a bound piece from
+    its host."""
     ids, lengths = pad_ids([sentence_ids[i] for i in indices])             # (B, N), (B,)
     n = ids.shape[1]
     span_pot = None
@@ -56,7 +59,26 @@ def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
         for b, i in enumerate(indices):
             for start, end in brackets[i]:
                 span_pot[b] = span_pot[b].masked_fill(crossing_mask(start, end, n), NEG_INF)
+    if pieces is not None and any(pieces[1][i] for i in indices):
+        pot = piece_mask(pieces[0], [pieces[1][i] for i in indices], n, dtype)
+        span_pot = pot if span_pot is None else span_pot + pot
     return Batch(list(indices), ids, lengths, span_pot)
+
+
+def piece_mask(side: str, barred: Sequence[Sequence[int]], n: int, dtype: torch.dtype) -> Tensor:
+    """(B, n+1, n+1) [start, width] log-potentials: -inf on every span of width >= 2 that starts
+    at a barred position (side "first": the host is the first piece of a written word) or ends
+    just before one (side "last"), 0 elsewhere. See `treewright.word_pieces`."""
+    pot = torch.zeros(len(barred), n + 1, n + 1, dtype=dtype)
+    widths = torch.arange(n + 1)
+    for b, positions in enumerate(barred):
+        for k in positions:
+            if side == "first":
+                pot[b, k, 2:] = NEG_INF
+            else:
+                w = widths[2:k + 1]                          # spans (k - w, k) of width >= 2
+                pot[b, k - w, w] = NEG_INF
+    return pot
 
 
 def edge_bias(lengths: Tensor, n: int, right_edge: float, left_edge: float,
