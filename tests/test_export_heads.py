@@ -15,7 +15,7 @@ import conllu
 import pytest
 
 from test_export import VELMAR, run_cli, sample_sentences, write_lines
-from treewright.corpus import ReadOptions, read_corpus
+from treewright.corpus import read_corpus
 from treewright.errors import InputError
 from treewright.export import dependency_heads, head_rule, parse_corpus, to_conllu
 from treewright.export.parses import auto_head_sides
