@@ -31,7 +31,7 @@ from treewright.cli import main
 from treewright.corpus import parse_brackets
 from treewright.decode import consensus, decode
 from treewright.errors import InputError
-from treewright.export import open_restart_grammars
+from treewright.export import open_restart_grammars, saved_restarts
 from treewright.grammar import load_grammar
 from treewright.inference import generate
 from treewright.vocab import Vocabulary
@@ -314,3 +314,36 @@ def test_report_scores_the_consensus_trees(two_restart_run, tmp_path):
         build_report(two_restart_run, gold=gold_file, decoder="consensus",
                      grammar_path=two_restart_run / "grammar.pcfg")
     assert caught.value.path == str(two_restart_run / "grammar.pcfg")
+
+
+def test_a_run_with_several_restarts_is_read_by_consensus_unless_asked(two_restart_run,
+                                                                        tmp_path):
+    # The default decoder follows what was saved: the run folder (two restarts) by consensus,
+    # its grammar file (one grammar) by viterbi, a run that lists one restart by viterbi. The
+    # references are the same commands with the decoder named.
+    from treewright.report.html import build_report
+
+    text = tmp_path / "in.txt"
+    text.write_text("".join(" ".join(t.leaves()) + "\n" for t in generate(velmor(), 8, seed=3)),
+                    encoding="utf-8")
+    assert saved_restarts(two_restart_run) == 2
+    assert saved_restarts(two_restart_run / "grammar.pcfg") == 0
+    default = cli("parse", two_restart_run, text)
+    assert default[0] == 0 and default[1] == cli("parse", two_restart_run, text, "--decoder",
+                                                 "consensus")[1]
+    single = two_restart_run / "grammar.pcfg"
+    assert cli("parse", single, text)[1] == cli("parse", single, text, "--decoder",
+                                                "viterbi")[1]
+    lone = tmp_path / "lone"
+    shutil.copytree(two_restart_run, lone)
+    record = json.loads((lone / "result.json").read_text())
+    record["restarts"] = [r for r in record["restarts"] if r["restart"] == record["best_restart"]]
+    (lone / "result.json").write_text(json.dumps(record))
+    assert saved_restarts(lone) == 1
+    assert cli("parse", lone, text)[1] == cli("parse", lone, text, "--decoder", "viterbi")[1]
+    gold = tmp_path / "gold.trees"
+    gold.write_text("".join(t.to_string() + "\n" for t in generate(velmor(), 8, seed=3)),
+                    encoding="utf-8")
+    page = build_report(two_restart_run, gold=gold)
+    assert "trees decoded with consensus over the run&#x27;s 2 restarts" in page
+    assert "trees decoded with mbr" in build_report(lone, gold=gold)

@@ -12,8 +12,8 @@ EXAMPLES = """examples:
   treewright parse runs/demo dev.txt --decoder consensus
   echo "astronomers saw stars with ears" | treewright parse src/treewright/data/examples/astronomers.pcfg - --scores
 
-decoders:
-  viterbi           the most probable tree (the default)
+decoders (default: consensus for a run folder that saved two or more restarts, else viterbi):
+  viterbi           the most probable tree
   mbr               the binary tree maximizing the summed posterior span marginals, each span
                     labeled with its most probable symbol (the usual decoder for induced grammars)
   max-rule-product  for refined grammars (symbols NAME·k): the tree of coarse symbols maximizing
@@ -48,9 +48,9 @@ DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus")
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
     p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
-    p.add_argument("--decoder", choices=DECODER_NAMES, default="viterbi",
-                   help="how to choose the tree (default: viterbi; consensus needs a run "
-                        "folder with two or more saved restarts)")
+    p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
+                   help="how the tree is chosen (default: consensus for a run folder that "
+                        "saved two or more restarts, else viterbi; see below)")
     p.add_argument("--scores", action="store_true",
                    help="append the tree's log-probability and its posterior to each line")
     p.add_argument("--objective", action="store_true",
@@ -72,12 +72,16 @@ def run(args) -> int:
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
     from treewright.corpus import insert_words, read_tagged, run_drop_tags, run_tag_mode
     from treewright.decode import ENSEMBLE_DECODERS, consensus, decode
-    from treewright.export import open_grammar, open_restart_grammars
+    from treewright.export import open_grammar, open_restart_grammars, saved_restarts
     from treewright.tracking import terminal_progress
 
     dtype = torch.float64  # decode's precision
     source = open_grammar(args.grammar)  # text, JSON export or run folder
     grammar = source.grammar
+    if args.decoder is None:
+        # Tree averaging of a run's restarts beat the restart kept by likelihood on the induction
+        # benchmark (docs/induction_notes.md), so a run with several restarts is read that way.
+        args.decoder = "consensus" if saved_restarts(source) >= 2 else "viterbi"
     if args.decoder in ENSEMBLE_DECODERS:  # the run's restarts, the kept one first
         grammars = [s.grammar for s in open_restart_grammars(
             args.grammar, f"the {args.decoder} decoder")]

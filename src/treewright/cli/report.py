@@ -31,7 +31,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--grammar", help="grammar: text file, JSON export or run folder (default: RUN/grammar.pcfg)")
     p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
                    help="how trees are chosen (default: max-rule-product for a refined grammar, "
-                        "else mbr; consensus: every restart the run saved, see parse --help)")
+                        "consensus for a run that saved two or more restarts, else mbr; "
+                        "consensus: every restart the run saved, see parse --help)")
     p.add_argument("--examples", type=int, default=3, help="example sentences drawn (default 3)")
     p.add_argument("--max-example-words", type=int, default=20,
                    help="longest example sentence drawn (default 20)")

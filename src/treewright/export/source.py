@@ -74,6 +74,27 @@ def open_grammar(path: str | Path) -> GrammarSource:
     return GrammarSource(grammar, grammar_path, run_dir, training)
 
 
+def saved_restarts(source: GrammarSource | str | Path) -> int:
+    """How many restart grammars a training run folder saved and lists in its result.json (0
+    for a grammar file, a JSON export or a run that did not finish). `source` is an opened
+    grammar or a path. With two or more, the commands that decode default to the consensus
+    decoder."""
+    if isinstance(source, GrammarSource):
+        run_dir, training = source.run_dir, source.training
+    else:
+        run_dir = Path(source) if Path(source).is_dir() else None
+        training = read_training_record(run_dir) if run_dir is not None else None
+    if run_dir is None:
+        return 0
+    result = (training or {}).get("result")
+    records = result.get("restarts") if isinstance(result, dict) else None
+    if not isinstance(records, list):
+        return 0
+    folder = RunFolder(run_dir)
+    return sum(1 for r in records if isinstance(r, dict) and isinstance(r.get("restart"), int)
+               and folder.restart_grammar(r["restart"]).is_file())
+
+
 def open_restart_grammars(path: str | Path, purpose: str = "decoding with several grammars"
                           ) -> list[GrammarSource]:
     """Every restart grammar a training run folder saved (`restart-<r>.pcfg`), the restart the

@@ -580,13 +580,16 @@ def heatmap_section(grammar, sentences: Sequence[Sentence] | None, index: int,
     return _section("heatmap", title, caption + figure)
 
 
-def choose_decoder(grammar, asked: str | None) -> tuple[str, str]:
+def choose_decoder(grammar, asked: str | None, restarts: int = 0) -> tuple[str, str]:
     """The decoder for the report's trees and a sentence saying why it was chosen.
 
     A refined grammar's symbols are subcategories (`NP·1`) of coarse symbols: its trees are read
     with max-rule-product, which sums over the subcategories (Petrov & Klein 2007, "Improved
-    Inference for Unlexicalized Parsing"). Any other grammar is read with mbr, the tree of
-    largest expected bracket recall (Goodman 1996, "Parsing Algorithms and Metrics").
+    Inference for Unlexicalized Parsing"). A run that saved `restarts` >= 2 restart grammars is
+    read with consensus, tree averaging of their mbr trees (Shayegh et al. 2024), which beat the
+    restart kept by likelihood on the induction benchmark. Any other grammar is read with mbr,
+    the tree of largest expected bracket recall (Goodman 1996, "Parsing Algorithms and
+    Metrics").
     """
     from treewright.decode import coarse_name
 
@@ -601,6 +604,10 @@ def choose_decoder(grammar, asked: str | None) -> tuple[str, str]:
             f"trees decoded with max-rule-product, the decoder for refined grammars: its "
             f"{len(fine)} symbols are subcategories of {len(coarse)} coarse symbols, and the "
             "trees show the coarse ones.")
+    if restarts >= 2:
+        return "consensus", (
+            f"trees decoded with consensus over the run's {restarts} restarts: each restart's "
+            "mbr tree votes, and the tree with the largest summed F1 against them is shown.")
     return "mbr", ("trees decoded with mbr (the binary tree of largest expected bracket recall), "
                    "the decoder for grammars that are not refined.")
 
@@ -617,7 +624,8 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         recall and the example trees (default: the run's dev corpus when it has trees).
     text: raw sentences for examples and the heat map when there is no gold.
     decoder: see `treewright.decode.DECODERS`; None (the default) picks by the grammar:
-        max-rule-product for a refined grammar, else mbr (`choose_decoder`; the page says which).
+        max-rule-product for a refined grammar, consensus for a run with two or more saved
+        restarts, else mbr (`choose_decoder`; the page says which).
         "consensus" (`decode.ENSEMBLE_DECODERS`) decodes with every restart grammar the run
         saved, or that the run folder `grammar_path` saved (`export.open_restart_grammars`).
     max_sentences: parse only the first N gold sentences (the page says how many of how many).
@@ -625,16 +633,20 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
     memory_budget_mb: sentences that alone need more are not parsed; the page names them.
     """
     from treewright.decode import ENSEMBLE_DECODERS
-    from treewright.export.source import open_restart_grammars
+    from treewright.export.source import open_restart_grammars, saved_restarts
 
     found = gather(run_dir, gold, text, grammar_path, gold_format)
-    decoder, decoded_with = choose_decoder(found.grammar, decoder)
+    grammar_folder = grammar_path if grammar_path is not None else run_dir
+    asked = decoder
+    decoder, decoded_with = choose_decoder(found.grammar, decoder,
+                                           saved_restarts(grammar_folder))
     decoding = found.grammar
     if decoder in ENSEMBLE_DECODERS and found.grammar is not None:
-        decoding = [s.grammar for s in open_restart_grammars(
-            grammar_path if grammar_path is not None else run_dir, f"the {decoder} decoder")]
-        decoded_with = (f"trees decoded with {decoder} (as asked), over the run's "
-                        f"{len(decoding)} restarts.")
+        decoding = [s.grammar for s in open_restart_grammars(grammar_folder,
+                                                             f"the {decoder} decoder")]
+        if asked is not None:
+            decoded_with = (f"trees decoded with {decoder} (as asked), over the run's "
+                            f"{len(decoding)} restarts.")
     refine = is_refine_run(found.config, found.metrics)
     pool = found.gold if found.gold is not None else found.text
     parsed, reason = None, "Needs the grammar and --gold or --text."
