@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Sequence
+from typing import Callable, Sequence
 
 import torch
 from torch import Tensor
@@ -341,6 +341,20 @@ def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
     return float(torch.logsumexp(grammar.root.to(dtype) + top, 0))
 
 
+def _by_length(sentences: Sequence[Sequence[str]], batch_size: int,
+               decode_batch: Callable[[list[list[str]]], list[Decoded]]) -> list[Decoded]:
+    """`decode_batch` over batches of sentences of similar length; one result per sentence, in
+    input order. ValueError for an empty sentence."""
+    for k, s in enumerate(sentences):
+        if len(s) == 0:
+            raise ValueError(f"sentence {k + 1} is empty")
+    out: list[Decoded | None] = [None] * len(sentences)
+    for batch in length_batches([len(s) for s in sentences], batch_size):
+        for k, result in enumerate(decode_batch([list(sentences[i]) for i in batch])):
+            out[batch[k]] = result
+    return out  # type: ignore[return-value]
+
+
 def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = "mbr",
            batch_size: int = 16, dtype: torch.dtype = torch.float64) -> list[Decoded]:
     """One tree per sentence, in input order, by the named decoder (see `DECODERS`)."""
@@ -349,15 +363,8 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
                          "treewright.decode.consensus(grammars, sentences)")
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
-    for k, s in enumerate(sentences):
-        if len(s) == 0:
-            raise ValueError(f"sentence {k + 1} is empty")
-    out: list[Decoded | None] = [None] * len(sentences)
-    for batch in length_batches([len(s) for s in sentences], batch_size):
-        words = [list(sentences[i]) for i in batch]
-        for k, result in enumerate(_decode_batch(grammar, words, decoder, dtype)):
-            out[batch[k]] = result
-    return out  # type: ignore[return-value]
+    return _by_length(sentences, batch_size,
+                      lambda words: _decode_batch(grammar, words, decoder, dtype))
 
 
 def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
@@ -461,15 +468,8 @@ def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
         raise ValueError("the grammars read unknown words differently (word shape schemes "
                          f"{sorted(shapes, key=str)}); the consensus decoder gives every "
                          "grammar the same words")
-    for k, s in enumerate(sentences):
-        if len(s) == 0:
-            raise ValueError(f"sentence {k + 1} is empty")
-    out: list[Decoded | None] = [None] * len(sentences)
-    for batch in length_batches([len(s) for s in sentences], batch_size):
-        words = [list(sentences[i]) for i in batch]
-        for k, result in enumerate(_consensus_batch(grammars, words, dtype)):
-            out[batch[k]] = result
-    return out  # type: ignore[return-value]
+    return _by_length(sentences, batch_size,
+                      lambda words: _consensus_batch(grammars, words, dtype))
 
 
 def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
