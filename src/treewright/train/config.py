@@ -160,7 +160,8 @@ class ConstraintsConfig:
                 "SpaceAfter=No): no constituent may take a bound piece without its host. auto "
                 "reads from the training text which end of a written word holds the host "
                 "(treewright.word_pieces) and leaves text that marks no splits (one sentence a "
-                "line) unconstrained; host-first and host-last say it; none turns it off.")
+                "line) unconstrained; host-first and host-last say it; none turns it off. Not "
+                "applied with data.stream_chunk, which never holds the whole corpus.")
 
 
 @dataclass

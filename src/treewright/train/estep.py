@@ -24,9 +24,9 @@ from treewright.params.tabular import RuleTensors
 # params.compound); tests and benchmarks import them from here.
 __all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_counts",
            "expected_counts",
-           "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias", "piece_mask",
-           "log_partition_of", "make_batch", "sentence_logliks", "sentence_terminal_scores",
-           "span_posteriors", "zero_counts"]
+           "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
+           "log_partition_of", "make_batch", "piece_mask", "sentence_logliks",
+           "sentence_terminal_scores", "span_posteriors", "zero_counts"]
 
 NEG_INF = float("-inf")
 
