@@ -191,3 +191,23 @@ def test_training_data_carries_the_constraint_only_where_the_text_marks_splits(t
     text.write_text("Orrin sela velo marra\n", encoding="utf-8")
     plain = load_data(_config(tmp_path, text, "host-first", fmt="text"))
     assert plain.pieces is None          # one sentence a line says nothing of written words
+
+
+def test_the_constraint_lasts_word_pieces_epochs_then_training_is_free(tmp_path):
+    from treewright.train.curriculum import Curriculum
+    from treewright.train.data import MemoryBudget
+    path = write(tmp_path, TOKENIZED * 3)
+    cfg = load_train_config(None, [f"data.train={path}", "data.format=conllu",
+                                   "constraints.word_pieces=host-last",
+                                   "constraints.word_pieces_epochs=2",
+                                   f"output.run_dir={tmp_path / 'run'}"])
+    data = load_data(cfg)
+    curriculum = Curriculum(cfg, MemoryBudget(cfg, torch.float64), shuffle=False)
+    want = piece_mask("last", [[3, 6, 8, 9]] * 2, 10, torch.float64)
+    for epoch in (0, 1):
+        torch.testing.assert_close(curriculum.batch(data, [0, 1], epoch, torch.float64).span_pot,
+                                   want)
+    assert curriculum.batch(data, [0, 1], 2, torch.float64).span_pot is None
+    # The epoch before the release does not train on the same objective as the one after it,
+    # so a run may not stop there for having converged; before and after, it may.
+    assert [curriculum.same_data(e + 1, e) for e in range(4)] == [True, False, True, True]

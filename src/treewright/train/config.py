@@ -162,6 +162,9 @@ class ConstraintsConfig:
                 "(treewright.word_pieces) and leaves text that marks no splits (one sentence a "
                 "line) unconstrained; host-first and host-last say it; none turns it off. Not "
                 "applied with data.stream_chunk, which never holds the whole corpus.")
+    word_pieces_epochs: int | None = option(
+        None, "Apply the word-piece constraint for this many epochs of each restart, then "
+              "train without it; null keeps it for the whole run.", range="[1, inf)")
 
 
 @dataclass

@@ -1,6 +1,7 @@
 """Which sentences each epoch trains on, in which batches, and with which structural bias: the
-length curriculum, the memory budget and the annealed edge bias. Every answer is a pure function
-of (config, restart, epoch), which is what makes resume exact."""
+length curriculum, the memory budget, the annealed edge bias and how long the word-piece
+constraint lasts. Every answer is a pure function of (config, restart, epoch), which is what
+makes resume exact."""
 
 from __future__ import annotations
 
@@ -41,10 +42,17 @@ class Curriculum:
         n = self.cfg.bias.anneal_epochs
         return 1.0 if n == 0 else max(0.0, 1.0 - epoch / n)
 
+    def pieces_on(self, epoch: int) -> bool:
+        """Whether the word-piece constraint applies at `epoch` (`constraints.word_pieces_epochs`)."""
+        n = self.cfg.constraints.word_pieces_epochs
+        return n is None or epoch < n
+
     def same_data(self, epoch: int, other: int) -> bool:
-        """Whether epochs `epoch` and `other` train on the same sentences with the same bias."""
+        """Whether epochs `epoch` and `other` train on the same sentences with the same bias and
+        constraints."""
         return (self.length_cap(epoch) == self.length_cap(other)
-                and self.bias_scale(epoch) == self.bias_scale(other))
+                and self.bias_scale(epoch) == self.bias_scale(other)
+                and self.pieces_on(epoch) == self.pieces_on(other))
 
     def epoch_plan(self, ids, restart: int, epoch: int) -> list[list[int]]:
         """Training sentence indices of each batch of `epoch`, in the order they run."""
@@ -64,7 +72,8 @@ class Curriculum:
               dtype: torch.dtype) -> Batch:
         """The engine batch of training sentences `indices` at `epoch`: partial brackets, the
         word-piece constraint and the edge bias as span potentials."""
-        batch = make_batch(indices, data.train_ids, data.brackets, dtype, data.pieces)
+        pieces = data.pieces if self.pieces_on(epoch) else None
+        batch = make_batch(indices, data.train_ids, data.brackets, dtype, pieces)
         scale = self.bias_scale(epoch)
         b = self.cfg.bias
         if scale > 0 and (b.right_edge != 0 or b.left_edge != 0):

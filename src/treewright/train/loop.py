@@ -262,7 +262,7 @@ def converged(curriculum: Curriculum, method: UpdateMethod, tolerance: float, ep
     # neither counts as "improved by less than the tolerance".
     comparable = (epoch >= method.first_comparable_epoch
                   and curriculum.same_data(epoch, epoch - 1)
-                  and curriculum.length_cap(epoch + 1) == curriculum.length_cap(epoch))
+                  and curriculum.same_data(epoch + 1, epoch))
     done = (method.converges and tolerance > 0 and comparable
             and position.previous_objective is not None
             and objective - position.previous_objective < tolerance)
