@@ -55,7 +55,7 @@ def test_hand_worked_model_and_chains():
     assert (right.directed_correct, right.undirected_correct) == (5, 5)
     c = result.counts
     assert (c["read"], c["evaluated"], c["words_scored"], c["punctuation_words_not_scored"],
-            c["scored_words_with_punctuation_head"]) == (2, 2, 7, 3, 1)
+            c["gold_heads_past_punctuation"]) == (2, 2, 7, 3, 1)
 
 
 def test_chain_heads_name_their_root():
@@ -98,6 +98,37 @@ def test_unparsed_prediction_counts_wrong_and_max_length_leaves_out():
     assert result.systems["model"].words == 3 and result.systems["model"].directed_correct == 3
 
 
+def test_punctuation_taken_out_of_both_trees():
+    # S2 without ":" (gold ":" -> tullik): sa -> tullik, Orvek -> tullik, tullik root. A
+    # prediction attaching sa to tullik directly is right for all 3 words, as is P2, whose sa ->
+    # ":" -> tullik passes through the punctuation (hand-worked).
+    for pred in ([4, 4, 4, 0], P2):
+        result = evaluate_attachment([pred], [S2])
+        assert result.systems["model"].directed_correct == 3
+    assert result.counts["gold_heads_past_punctuation"] == 1
+    assert result.counts["predicted_heads_past_punctuation"] == 1
+    # A prediction whose chain loops among punctuation words (a mark headed by itself is
+    # refused as input, so the loop takes two marks): S1 with "," -> "." and "." -> ",", brosk
+    # -> ",": brosk has no head once the marks are gone, and counts wrong.
+    looped = evaluate_attachment([[2, 3, 6, 5, 0, 3]], [S1]).systems["model"]
+    # Hand-worked: ko 2 = 2 right; brosk wrong; tulm 5 = 5; dorvik 0 = 0: 3 of 4. Undirected:
+    # brosk's arc is gone, so also 3.
+    assert (looped.directed_correct, looped.undirected_correct, looped.words) == (3, 3, 4)
+
+
+def test_predictions_over_the_words_left_without_punctuation():
+    # P1 and P2 written over the words left (S1: ko brosk tulm dorvik; S2: sa Orvek tullik),
+    # indices over those words: P1 heads 0, 1, 2, 2 become 0, ko, brosk, brosk, as in P1; P2
+    # attaches sa and Orvek to tullik (word 3 of 3), tullik to the root.
+    short = [[0, 1, 2, 2], [3, 3, 0]]
+    model = evaluate_attachment(short, [S1, S2]).systems["model"]
+    # The same as the hand-worked full-sentence predictions: 3/7 and 5/7.
+    assert (model.directed_correct, model.undirected_correct, model.words) == (3, 5, 7)
+    words = [Dependencies(("ko", "brosk", "tulm", "dorvik"), (0, 1, 2, 2)),
+             Dependencies(("sa", "Orvek", "tullik"), (3, 3, 0))]
+    assert evaluate_attachment(words, [S1, S2]).systems["model"] == model
+
+
 def test_baselines_alone_and_report_text():
     result = evaluate_attachment(None, [S1, S2])
     assert set(result.systems) == {"left_chain", "right_chain"}
@@ -112,7 +143,7 @@ def test_baselines_alone_and_report_text():
 
 @pytest.mark.parametrize("pred, gold, message, line", [
     ([P1], [S1, S2], "predictions have 1 sentences", 9),
-    ([P1, [3, 4, 0]], [S1, S2], "3 predicted heads for 4", 2),
+    ([P1, [4, 0]], [S1, S2], "2 predicted heads for 4 gold words (3 without punctuation)", 2),
     ([P1, [3, 4, 5, 0]], [S1, S2], "outside 0..4", 2),
     ([P1, [1, 4, 4, 0]], [S1, S2], "its own head", 2),
     ([Dependencies(S1.words, tuple(P1), line=40),
@@ -166,7 +197,11 @@ def direct_chain_counts(sentences, direction):
 
 
 def test_chains_on_turkish_match_a_direct_count(web):
-    # Only UPOS PUNCT marks punctuation here, as in the direct count.
+    # Only UPOS PUNCT marks punctuation here, as in the direct count. The direct count passes
+    # no head through punctuation, which is exact here: no non-PUNCT word of the web section
+    # is headed by a PUNCT word (checked plainly).
+    assert not any(s.tags[h - 1] == "PUNCT" for s in web for h, tag in zip(s.heads, s.tags)
+                   if h and tag != "PUNCT")
     conv = BracketConventions(punctuation_tags=frozenset({"PUNCT"}))
     result = evaluate_attachment(None, web, conv)
     for name, direction in (("left_chain", "left"), ("right_chain", "right")):
@@ -182,9 +217,15 @@ def test_directed_accuracy_matches_scikit_learn(web):
     accuracy_score = pytest.importorskip("sklearn.metrics").accuracy_score
     rng = random.Random(7)
     sentences = web[:400]
-    # Seeded random heads (any index but the word itself) so that about 1 in n is right.
-    pred = [[rng.choice([h for h in range(len(s.words) + 1) if h != k])
-             for k in range(1, len(s.words) + 1)] for s in sentences]
+    # Seeded random heads among 0 and the non-PUNCT words (never the word itself), so that no
+    # predicted head passes through punctuation and the flattened lists are the scored arcs.
+    pred = []
+    for s in sentences:
+        kept = [0] + [k for k, tag in enumerate(s.tags, start=1) if tag != "PUNCT"]
+        pred.append([rng.choice([h for h in kept if h != k]) for k in range(1, len(s.words) + 1)])
+        # Neither does a gold head (checked here: no non-PUNCT word is headed by a PUNCT one).
+        assert all(s.tags[h - 1] != "PUNCT" for h, tag in zip(s.heads, s.tags)
+                   if h and tag != "PUNCT")
     conv = BracketConventions(punctuation_tags=frozenset({"PUNCT"}))
     model = evaluate_attachment(pred, sentences, conv).systems["model"]
     flat_pred, flat_gold = [], []

@@ -149,6 +149,18 @@ def test_command_scores_hand_worked_heads(tmp_path, capsys):
     assert (model["directed_correct"], model["words"]) == (4, 10)
 
 
+def test_command_scores_heads_over_the_words_without_punctuation(tmp_path, capsys):
+    # A model that never saw punctuation: its CoNLL-U (written by heads_to_conllu) holds the
+    # words left, S1 "ko brosk tulm dorvik" and S2 "sa Orvek tullik", with P1 and P2 written
+    # over them (hand-worked in tests/test_dependency_eval.py): the same 3/7 and 5/7.
+    gold = write(tmp_path / "gold.conllu", conllu_text([S1, S2]))
+    pred = write(tmp_path / "pred.conllu", heads_to_conllu(
+        [["ko", "brosk", "tulm", "dorvik"], ["sa", "Orvek", "tullik"]], [[0, 1, 2, 2], [3, 3, 0]]))
+    assert run([pred, gold, "--json", "-"]) == 0
+    model = json.loads(capsys.readouterr().out)["attachment"]["systems"]["model"]
+    assert (model["directed_correct"], model["undirected_correct"], model["words"]) == (3, 5, 7)
+
+
 def test_command_names_the_mismatching_line(tmp_path):
     gold = write(tmp_path / "gold.conllu", conllu_text([S1, S2]))
     other = Dependencies(("sa", "Orvek", ";", "tullik"), S2.heads, S2.tags)

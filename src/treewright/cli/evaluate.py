@@ -26,10 +26,11 @@ Heads: when PRED is CoNLL-U (a .conllu/.conll file, or --pred-format conllu) its
 scored against the HEAD column of CoNLL-U gold: directed and undirected attachment accuracy,
 beside the left chain (each word's head is the word before it, the first word is the root) and
 the right chain (the word after it; the last word is the root), on the same words. Punctuation
-follows the bracket options (--keep-punctuation, --punctuation-tags, --punctuation-tokens): its
-words are not scored, and a word whose gold head is punctuation is scored against that head as
-it stands. --max-length applies too; the other bracket options do not. A PRED block whose HEAD
-is `_` throughout is a sentence without a parse: its words count wrong.
+follows the bracket options (--keep-punctuation, --punctuation-tags, --punctuation-tokens): it
+is taken out of both trees, so its words are not scored and a head that is punctuation passes
+to the first word above it that is not. PRED may hold every gold word or only the words left
+without punctuation. --max-length applies too; the other bracket options do not. A PRED block
+whose HEAD is `_` throughout is a sentence without a parse: its words count wrong.
 """
 
 

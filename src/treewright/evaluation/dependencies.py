@@ -3,8 +3,10 @@ beside the left-chain and right-chain baselines, on the same sentences and words
 
 Heads are given per word as in the CoNLL-U HEAD column: word k's head is a 1-based word index,
 0 for the root. `evaluate_attachment(pred, gold)` decides once per gold sentence which words are
-scored (punctuation out, by the punctuation options of `BracketConventions`, as the bracket
-evaluation decides it), then scores the model and both chains on exactly those words.
+punctuation (by the punctuation options of `BracketConventions`, as the bracket evaluation
+decides it) and takes them out of both trees, as brackets are recomputed without them: they are
+not scored, and a head that is punctuation passes to the first word up its chain of heads that
+is not (`past_punctuation`). The model and both chains are scored on exactly the words left.
 
 Directed accuracy counts a word when its predicted head is its gold head. Undirected accuracy
 counts it when its predicted arc joins the same two words as some gold arc, in either direction
@@ -100,9 +102,12 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
                         gold_path: str | None = None) -> DependencyEvaluation:
     """Score predicted heads against gold heads, beside the chain baselines, on the same words.
 
-    pred: per sentence, a `Dependencies` (its words must be the gold words), a plain list of
-        heads (shape (n,)), or None for a sentence without a parse (every scored word counts
-        wrong). `pred` itself may be None to report the baselines alone.
+    pred: per sentence, a `Dependencies` or a plain list of heads, or None for a sentence
+        without a parse (every scored word counts wrong). The heads cover either every gold
+        word (shape (n,), indices over the whole sentence) or, when punctuation is removed,
+        only the words left (shape (m,), indices over those words, as for a model that never
+        saw the punctuation); a `Dependencies`' words must be the gold words or those left.
+        `pred` itself may be None to report the baselines alone.
     gold: per sentence, a `Dependencies` with heads; its tags (or, without tags, its words)
         decide which words are punctuation.
     conventions: the punctuation options (`remove_punctuation`, `punctuation_tags`,
@@ -110,19 +115,22 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
     pred_path, gold_path: where the sentences came from, only for error messages.
     Raises InputError naming the file and line (the sentence's `line`, else its 1-based
     position) when the sides differ in sentence count, words or word count, or when a head lies
-    outside 0..n or is the word itself. Predicted heads need not form a tree.
+    outside its sentence or is the word itself. Predicted heads need not form a tree.
     """
     conv = conventions or BracketConventions()
-    pred_heads = None if pred is None else _check_inputs(pred, gold, pred_path, gold_path)
+    punctuation = [_punctuation(g, conv) if conv.remove_punctuation else [False] * len(g.words)
+                   for g in gold]
+    pred_heads = None if pred is None else _check_inputs(pred, gold, punctuation, pred_path,
+                                                         gold_path)
     counts = {"read": len(gold), "empty_after_punctuation": 0, "longer_than_max_length": 0,
               "evaluated": 0, "words_scored": 0, "punctuation_words_not_scored": 0,
-              "scored_words_with_punctuation_head": 0, "unparsed_predictions": 0}
+              "gold_heads_past_punctuation": 0, "predicted_heads_past_punctuation": 0,
+              "unparsed_predictions": 0}
     systems = [MODEL, *BASELINES] if pred_heads is not None else list(BASELINES)
     directed = dict.fromkeys(systems, 0)
     undirected = dict.fromkeys(systems, 0)
-    for index, g in enumerate(gold):
-        punctuation = _punctuation(g, conv) if conv.remove_punctuation else [False] * len(g.words)
-        scored = [k for k, p in enumerate(punctuation, start=1) if not p]
+    for index, (g, marks) in enumerate(zip(gold, punctuation)):
+        scored = [k for k, p in enumerate(marks, start=1) if not p]
         counts["punctuation_words_not_scored"] += len(g.words) - len(scored)
         if not scored:
             counts["empty_after_punctuation"] += 1
@@ -132,22 +140,26 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
             continue
         counts["evaluated"] += 1
         counts["words_scored"] += len(scored)
-        counts["scored_words_with_punctuation_head"] += sum(
-            g.heads[k - 1] != 0 and punctuation[g.heads[k - 1] - 1] for k in scored)
+        truth = past_punctuation(g.heads, marks)
+        counts["gold_heads_past_punctuation"] += sum(truth[k - 1] != g.heads[k - 1]
+                                                     for k in scored)
         candidates = {"left_chain": left_chain(scored, len(g.words)),
                       "right_chain": right_chain(scored, len(g.words))}
         if pred_heads is not None:
-            candidates[MODEL] = pred_heads[index]
-            counts["unparsed_predictions"] += pred_heads[index] is None
+            mine = pred_heads[index]
+            counts["unparsed_predictions"] += mine is None
+            if mine is not None:
+                candidates[MODEL] = past_punctuation(mine, marks)
+                counts["predicted_heads_past_punctuation"] += sum(
+                    candidates[MODEL][k - 1] != mine[k - 1] for k in scored)
         for name, heads in candidates.items():
-            if heads is None:
-                continue  # no parse: no word of the sentence is attached, so none is correct
             for k in scored:
-                head, truth = heads[k - 1], g.heads[k - 1]
-                directed[name] += head == truth
+                head = heads[k - 1]
+                directed[name] += head == truth[k - 1]
                 # The arc {k, head} read without direction: k's own gold arc, or the gold arc
                 # of `head` coming back to k (never for the root, which has no gold arc).
-                undirected[name] += head == truth or (head != 0 and g.heads[head - 1] == k)
+                undirected[name] += head == truth[k - 1] or (
+                    head is not None and head != 0 and truth[head - 1] == k)
     words = counts["words_scored"]
     return DependencyEvaluation(
         {name: AttachmentScores(directed[name] / words if words else None,
@@ -155,6 +167,24 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
                                 directed[name], undirected[name], words)
          for name in systems},
         counts, _describe(conv))
+
+
+def past_punctuation(heads: Sequence[int], punctuation: Sequence[bool]) -> list[int | None]:
+    """Heads (shape (n,)) with the punctuation words taken out of the tree: a head that is a
+    punctuation word is replaced by the first word up its chain of heads that is not (0 when
+    the chain reaches the root; None when it loops among punctuation words, possible only in a
+    prediction that is not a tree). Entries of punctuation words are carried along unused."""
+    out: list[int | None] = []
+    for head in heads:
+        seen = set()
+        while head and punctuation[head - 1]:
+            if head in seen:
+                head = None
+                break
+            seen.add(head)
+            head = heads[head - 1]
+        out.append(head)
+    return out
 
 
 def left_chain(scored: Sequence[int], n: int) -> list[int]:
@@ -185,9 +215,12 @@ def _punctuation(gold: Dependencies, conv: BracketConventions) -> list[bool]:
     return [word in conv.punctuation_tokens for word in gold.words]
 
 
-def _check_inputs(pred: Sequence[Dependencies | Sequence[int] | None], gold: Sequence[Dependencies],
+def _check_inputs(pred: Sequence[Dependencies | Sequence[int] | None],
+                  gold: Sequence[Dependencies], punctuation: list[list[bool]],
                   pred_path: str | None, gold_path: str | None) -> list[tuple[int, ...] | None]:
-    """Every predicted sentence's heads (None: no parse), after checking both sides."""
+    """Every predicted sentence's heads over all its gold words (None: no parse), after
+    checking both sides; heads given over the words left without punctuation are mapped back
+    to whole-sentence indices."""
     path = pred_path if pred_path is not None else gold_path
     against = f" (gold: {gold_path})" if gold_path is not None and pred_path is not None else ""
 
@@ -200,7 +233,7 @@ def _check_inputs(pred: Sequence[Dependencies | Sequence[int] | None], gold: Seq
         raise InputError(f"sentence {first + 1}: predictions have {len(pred)} sentences, gold has "
                          f"{len(gold)}{against}", path=side_path, line=where(longer[first], first))
     out: list[tuple[int, ...] | None] = []
-    for index, (p, g) in enumerate(zip(pred, gold)):
+    for index, (p, g, marks) in enumerate(zip(pred, gold, punctuation)):
         n = len(g.words)
         if g.heads is None:
             raise InputError(f"sentence {index + 1}: gold has no heads", path=gold_path,
@@ -209,19 +242,33 @@ def _check_inputs(pred: Sequence[Dependencies | Sequence[int] | None], gold: Seq
         if g.tags is not None and len(g.tags) != n:
             raise InputError(f"sentence {index + 1}: gold has {len(g.tags)} tags for {n} words",
                              path=gold_path, line=where(g, index))
+        kept = [k for k, mark in enumerate(marks, start=1) if not mark]
+        kept_words = tuple(g.words[k - 1] for k in kept)
         if isinstance(p, Dependencies):
-            if p.words != g.words:
-                raise InputError(f"sentence {index + 1}: {_word_difference(p.words, g.words)}"
-                                 f"{against}", path=path, line=where(p, index))
+            if p.words != g.words and p.words != kept_words:
+                what = _word_difference(p.words, g.words)
+                if len(kept) != n:
+                    what += f"; without punctuation, {_word_difference(p.words, kept_words)}"
+                raise InputError(f"sentence {index + 1}: {what}{against}", path=path,
+                                 line=where(p, index))
             heads = p.heads
         else:
             heads = p
         if heads is not None:
             heads = tuple(heads)
-            if len(heads) != n:
+            if len(heads) not in (n, len(kept)):
+                without = f" ({len(kept)} without punctuation)" if len(kept) != n else ""
                 raise InputError(f"sentence {index + 1}: {len(heads)} predicted heads for {n} "
-                                 f"gold words{against}", path=path, line=where(p, index))
-            _check_heads(heads, n, f"sentence {index + 1}: predicted", path, where(p, index))
+                                 f"gold words{without}{against}", path=path, line=where(p, index))
+            _check_heads(heads, len(heads), f"sentence {index + 1}: predicted", path,
+                         where(p, index))
+            if len(heads) != n:
+                # Over the words left without punctuation: back to whole-sentence indices, the
+                # punctuation words (never scored) attached to the root.
+                full = [0] * n
+                for k, head in zip(kept, heads):
+                    full[k - 1] = kept[head - 1] if head else 0
+                heads = tuple(full)
         out.append(heads)
     return out
 
@@ -250,13 +297,17 @@ def _describe(conv: BracketConventions) -> dict[str, object]:
                        "gold arc in either direction; an arc to the root matches only a gold arc "
                        "to the root"),
         "accuracy": "pooled over words: correct scored words / scored words",
-        "punctuation": ("not scored: a punctuation word's own head is ignored, and heads keep "
-                        "their indices over the whole sentence; decided on the gold sentence, by "
-                        "its tags when it has them, else by its tokens"
-                        if conv.remove_punctuation else "scored like every other word"),
-        "punctuation_head": ("a scored word whose gold head is a punctuation word is scored "
-                             "against that head as it stands (common practice: the CoNLL shared "
-                             "tasks' scoring leaves punctuation words out and changes no head)"
+        "punctuation": ("taken out of both trees before scoring, as for brackets: punctuation "
+                        "words are not scored, and heads keep their indices over the whole "
+                        "sentence; decided on the gold sentence, by its tags when it has them, "
+                        "else by its tokens. Predictions may cover every word or only the words "
+                        "left without punctuation" if conv.remove_punctuation
+                        else "scored like every other word"),
+        "punctuation_head": ("a head that is a punctuation word, gold or predicted, is replaced "
+                             "by the first word up its chain of heads that is not punctuation "
+                             "(the root if none): the tree with the punctuation taken out "
+                             "(common practice where punctuation is removed for unsupervised "
+                             "dependency parsing; from memory)"
                              if conv.remove_punctuation else "no word is punctuation"),
         "punctuation_tags": sorted(conv.punctuation_tags),
         "punctuation_tokens": sorted(conv.punctuation_tokens),
@@ -266,5 +317,6 @@ def _describe(conv: BracketConventions) -> dict[str, object]:
                        "skipped); the first scored word is the root"),
         "right_chain": ("each scored word's head is the scored word after it (punctuation "
                         "skipped); the last scored word is the root"),
-        "unparsed": "a predicted sentence without heads counts every scored word wrong",
+        "unparsed": ("a predicted sentence without heads counts every scored word wrong, and so "
+                     "does a predicted head whose chain loops among punctuation words"),
     }

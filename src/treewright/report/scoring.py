@@ -273,8 +273,9 @@ def evaluate_heads_files(pred_path: str | Path, gold_path: str | Path,
     """Attachment accuracy of a CoNLL-U file of predicted heads (HEAD filled; a block whose
     HEAD is `_` throughout is a sentence without a parse, scored wrong) against CoNLL-U gold
     with heads, beside the left- and right-chain baselines. Only the punctuation options and
-    `max_length` of `conventions` apply. Words must match sentence by sentence."""
-    if detect_format(gold_path) != "conllu" and prediction_format(gold_path) != "conllu":
+    `max_length` of `conventions` apply. Words must match sentence by sentence (or, in
+    PRED, be the gold words left without punctuation; see `evaluate_attachment`)."""
+    if prediction_format(gold_path) != "conllu":
         raise InputError("scoring heads needs CoNLL-U gold with heads", path=str(gold_path))
     pred = read_dependencies(pred_path, "predicted")
     gold = read_dependencies(gold_path, "gold")
