@@ -8,7 +8,8 @@ a different formulation (a word's head is the head word of the lowest node above
 does not head); projectivity and subtree yields checked by this file's own walks over the
 heads; the generating grammar's rule table (every node a rule of positive probability); the
 benchmark's own drawing (`bench_induction.generated_data`) for the sentences; the `conllu`
-package and treewright's corpus reader for the written files.
+package and treewright's corpus reader for the written files. The README's chain rows are
+checked for consistency (they reproduce), not as a reference.
 """
 
 from __future__ import annotations
@@ -135,3 +136,27 @@ def test_sentences_are_the_benchmarks_and_files_read_back(tmp_path):
         assert sentence.metadata["tree"] == tree.to_string()
     corpus = read_corpus(folder / "test.conllu", "conllu")
     assert corpus.report.sentences_used == 10 and all(s.heads for s in corpus.sentences)
+
+
+def test_readme_chain_rows_reproduce():
+    # Consistency with the documentation, not a reference: the README's chain baselines for
+    # the default flags (5,000 + 500 sentences, at most 15 words, seed 0) come out again.
+    import re
+
+    from treewright.evaluation import Dependencies, evaluate_attachment
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    for order in ("head-final", "head-initial"):
+        row = re.search(rf"\| {order}, 500 test sentences \(default flags\) \| ([\d,]+) \| "
+                        r"([\d.]+) / ([\d.]+) \| ([\d.]+) / ([\d.]+) \|", readme)
+        assert row, f"README has no chain row for {order}"
+        _, _, test = headed.draw(order, 5000, 500, 15, seed=0)
+        table = headed.head_children(order)
+        gold = [Dependencies(tuple(t.leaves()), tuple(headed.tree_heads(t, table)[0]),
+                             tuple(n.label for n in t.subtrees() if n.is_preterminal()))
+                for t in test]
+        systems = evaluate_attachment(None, gold).systems
+        left, right = systems["left_chain"], systems["right_chain"]
+        assert int(row[1].replace(",", "")) == left.words
+        assert [float(x) for x in row.groups()[1:]] == [
+            round(100 * v, 1) for v in (left.directed, left.undirected, right.directed,
+                                        right.undirected)]
