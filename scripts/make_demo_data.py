@@ -128,38 +128,47 @@ VERB_STEMS: dict[str, list[tuple[str, str]]] = {
 TENSES = [("ik", "past", 0.75), ("esh", "future", 0.25)]
 
 # ---- the phrase rules ------------------------------------------------------------------------
-# (lhs, left, right, probability in units). S is the start symbol. Recursion runs through
-# CL (adverbial and complement clauses), VP (adjunct stacking) and NP (possessors, relative
-# clauses); the probabilities keep it subcritical, so trees stay small (mean 8.6 tokens).
+# (lhs, left, right, probability in units, head child). S is the start symbol. Recursion runs
+# through CL (adverbial and complement clauses), VP (adjunct stacking) and NP (possessors,
+# relative clauses); the probabilities keep it subcritical, so trees stay small (mean 8.6
+# tokens).
+#
+# The head child ("left" or "right") gives each sentence its true dependency tree (the head
+# word of the head child heads the head word of the other child;
+# scripts/make_headed_language.py writes them). Content words head, as in Universal
+# Dependencies (common practice): the verb heads its clause, the noun its phrase, and each
+# particle (postposition, possessor particle, complementizer, subordinator, relative particle)
+# depends on the content word of the phrase it closes; the final mark depends on the clause's
+# verb. So heads come last except in the five particle rules and S.
 
-PHRASE_RULES: list[tuple[str, str, str, int]] = [
-    ("S", "CL", "PUNCT", 1_000_000),       # an entry is a clause and its final mark
-    ("CL", "NP", "VP", 640_000),           # subject, predicate
-    ("CL", "NP", "VI", 180_000),           # subject, intransitive verb
-    ("CL", "ADV", "CL", 100_000),          # fronted time adverb
-    ("CL", "SBAR", "CL", 80_000),          # fronted adverbial clause
-    ("VP", "NP", "VT", 520_000),           # object, transitive verb
-    ("VP", "PP", "VP", 150_000),           # adjunct before the predicate
-    ("VP", "PP", "VI", 130_000),
-    ("VP", "ADV", "VP", 50_000),
-    ("VP", "ADV", "VI", 50_000),
-    ("VP", "CP", "VS", 100_000),           # complement clause, speech or thought verb
-    ("NP", "DET", "N", 330_000),
-    ("NP", "DET", "NOM", 110_000),
-    ("NP", "ART", "NAME", 200_000),
-    ("NP", "NUM", "N", 80_000),
-    ("NP", "NUM", "NOM", 30_000),
-    ("NP", "ADJ", "N", 60_000),            # bare adjective and noun: an indefinite mass
-    ("NP", "POSS", "N", 90_000),
-    ("NP", "POSS", "NOM", 30_000),
-    ("NP", "RC", "NP", 70_000),            # relative clause before the noun phrase
-    ("NOM", "ADJ", "N", 850_000),
-    ("NOM", "ADJ", "NOM", 150_000),
-    ("POSS", "NP", "GEN", 1_000_000),
-    ("PP", "NP", "POST", 1_000_000),
-    ("CP", "CL", "COMP", 1_000_000),
-    ("SBAR", "CL", "SUB", 1_000_000),
-    ("RC", "VP", "REL", 1_000_000),        # subject-gap relative: "who bought the salt"
+PHRASE_RULES: list[tuple[str, str, str, int, str]] = [
+    ("S", "CL", "PUNCT", 1_000_000, "left"),    # an entry is a clause and its final mark
+    ("CL", "NP", "VP", 640_000, "right"),       # subject, predicate
+    ("CL", "NP", "VI", 180_000, "right"),       # subject, intransitive verb
+    ("CL", "ADV", "CL", 100_000, "right"),      # fronted time adverb
+    ("CL", "SBAR", "CL", 80_000, "right"),      # fronted adverbial clause
+    ("VP", "NP", "VT", 520_000, "right"),       # object, transitive verb
+    ("VP", "PP", "VP", 150_000, "right"),       # adjunct before the predicate
+    ("VP", "PP", "VI", 130_000, "right"),
+    ("VP", "ADV", "VP", 50_000, "right"),
+    ("VP", "ADV", "VI", 50_000, "right"),
+    ("VP", "CP", "VS", 100_000, "right"),       # complement clause, speech or thought verb
+    ("NP", "DET", "N", 330_000, "right"),
+    ("NP", "DET", "NOM", 110_000, "right"),
+    ("NP", "ART", "NAME", 200_000, "right"),
+    ("NP", "NUM", "N", 80_000, "right"),
+    ("NP", "NUM", "NOM", 30_000, "right"),
+    ("NP", "ADJ", "N", 60_000, "right"),        # bare adjective and noun: an indefinite mass
+    ("NP", "POSS", "N", 90_000, "right"),
+    ("NP", "POSS", "NOM", 30_000, "right"),
+    ("NP", "RC", "NP", 70_000, "right"),        # relative clause before the noun phrase
+    ("NOM", "ADJ", "N", 850_000, "right"),
+    ("NOM", "ADJ", "NOM", 150_000, "right"),
+    ("POSS", "NP", "GEN", 1_000_000, "left"),
+    ("PP", "NP", "POST", 1_000_000, "left"),
+    ("CP", "CL", "COMP", 1_000_000, "left"),
+    ("SBAR", "CL", "SUB", 1_000_000, "left"),
+    ("RC", "VP", "REL", 1_000_000, "left"),    # subject-gap relative: "who bought the salt"
 ]
 
 
@@ -202,7 +211,7 @@ def grammar_text() -> str:
              "# Written by scripts/make_demo_data.py; see README.md beside this file.",
              "@start S", "", "# phrase rules"]
     totals: dict[str, int] = {}
-    for lhs, left, right, units in PHRASE_RULES:
+    for lhs, left, right, units, _ in PHRASE_RULES:
         totals[lhs] = totals.get(lhs, 0) + units
         lines.append(f"{lhs} -> {left} {right} {fmt_units(units)}")
     assert all(t == UNITS for t in totals.values()), totals

@@ -1,4 +1,5 @@
-"""treewright evaluate: bracket F1 of predicted trees against gold, beside the baselines."""
+"""treewright evaluate: bracket F1 of predicted trees, or attachment accuracy of predicted heads,
+against gold, beside the baselines."""
 
 from __future__ import annotations
 
@@ -11,6 +12,7 @@ EXAMPLES = """examples:
   treewright evaluate dev.pred dev.trees
   treewright evaluate dev.pred dev.conllu --json scores.json --max-length 10
   treewright evaluate dev.pred dev.trees --grammar runs/demo/grammar.pcfg --text test.txt
+  treewright evaluate dev.heads.conllu dev.conllu --json heads.json
 
 PRED holds one bracketed tree per line, as `treewright parse` writes them ('(NOPARSE ...)' lines
 count as trees without brackets). GOLD holds bracketed trees or CoNLL-U (dependency subtrees
@@ -19,11 +21,25 @@ are always scored beside the model on the same sentences. Tags (many-to-one, V-m
 scored when both sides have preterminals/tags. Inputs that do not match stop with an error that
 names the first mismatching line. With --grammar and --text, a text sentence too long for
 --memory-budget is left out of the likelihood, and the table names its line.
+
+Heads: when PRED is CoNLL-U (a .conllu/.conll file, or --pred-format conllu) its HEAD column is
+scored against the HEAD column of CoNLL-U gold: directed and undirected attachment accuracy,
+beside the left chain (each word's head is the word before it, the first word is the root) and
+the right chain (the word after it; the last word is the root), on the same words. Punctuation
+follows the bracket options (--keep-punctuation, --punctuation-tags, --punctuation-tokens): it
+is taken out of both trees, so its words are not scored and a head that is punctuation passes
+to the first word above it that is not. PRED may hold every gold word or only the words left
+without punctuation. --max-length applies too; the other bracket options do not. A PRED block
+whose HEAD is `_` throughout is a sentence without a parse: its words count wrong.
 """
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("pred", help="predicted bracketed trees, one per line")
+    p.add_argument("pred", help="predicted bracketed trees, one per line; or CoNLL-U with "
+                                "predicted heads")
+    p.add_argument("--pred-format", choices=("auto", "brackets", "conllu"), default="auto",
+                   help="auto: CoNLL-U for a .conllu/.conll file or one that starts with a "
+                        "comment or tab-separated columns, else bracketed trees")
     p.add_argument("gold", help="gold trees: bracketed trees or CoNLL-U")
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
     p.add_argument("--json", metavar="PATH",
@@ -84,12 +100,21 @@ def conventions_from_args(args):
 def run(args) -> int:
     from treewright.cli.common import dumps
     from treewright.errors import InputError
-    from treewright.report.scoring import evaluate_files
+    from treewright.report.scoring import evaluate_files, evaluate_heads_files, prediction_format
     from treewright.safeio import write_output_text
 
     if (args.grammar is None) != (args.text is None):
         raise InputError("--grammar and --text go together (the text is scored under the grammar)")
-    report = evaluate_files(args.pred, args.gold, conventions_from_args(args),
+    heads = args.pred_format == "conllu" or (args.pred_format == "auto"
+                                             and prediction_format(args.pred) == "conllu")
+    if heads and args.grammar is not None:
+        raise InputError("--grammar and --text go with predicted trees; predicted heads are "
+                         "scored alone", path=args.pred)
+    if heads and args.gold_format == "brackets":
+        raise InputError("predicted heads are scored against CoNLL-U gold, not bracketed trees",
+                         path=args.gold)
+    report = evaluate_heads_files(args.pred, args.gold, conventions_from_args(args)) if heads \
+        else evaluate_files(args.pred, args.gold, conventions_from_args(args),
                             gold_format=args.gold_format, grammar_path=args.grammar,
                             text_path=args.text, tags=not args.no_tags,
                             memory_budget_mb=args.memory_budget)

@@ -1,9 +1,11 @@
-"""Evaluation of induced grammars: brackets, tags and held-out likelihood.
+"""Evaluation of induced grammars: brackets, heads, tags and held-out likelihood.
 
 Works on `treewright.trees.Tree` objects and plain span sets (`Bracketing`); it reads no files and
 knows nothing of training. Modules:
 - `spans`: `Bracketing`, and the reference trees (left/right-branching, random, binary upper bound).
 - `brackets`: `evaluate_brackets`, unlabeled/labeled F1 beside the baselines, all conventions stated.
+- `dependencies`: `evaluate_attachment`, directed/undirected attachment accuracy of predicted
+  heads beside the left-chain and right-chain baselines, all conventions stated.
 - `tags`: `evaluate_tags`, many-to-one accuracy and V-measure of induced preterminals.
 - `likelihood`: `heldout_likelihood`, log-likelihood per word and perplexity.
 """
@@ -11,6 +13,9 @@ knows nothing of training. Modules:
 from treewright.evaluation.brackets import (DEFAULT_PUNCTUATION_TAGS, DEFAULT_PUNCTUATION_TOKENS,
                                             BracketConventions, BracketEvaluation, BracketScores,
                                             LabelRecall, LengthBucket, evaluate_brackets)
+from treewright.evaluation.dependencies import (AttachmentScores, Dependencies,
+                                                DependencyEvaluation, evaluate_attachment,
+                                                left_chain, right_chain)
 from treewright.evaluation.likelihood import LikelihoodScores, heldout_likelihood
 from treewright.evaluation.spans import (Bracketing, binary_upper_bound, left_branching, left_branching_tree,
                                          random_binary, right_branching, right_branching_tree, spans_to_tree)
@@ -22,6 +27,8 @@ __all__ = [
     "spans_to_tree", "left_branching_tree", "right_branching_tree",
     "BracketConventions", "BracketEvaluation", "BracketScores", "LabelRecall", "LengthBucket",
     "evaluate_brackets", "DEFAULT_PUNCTUATION_TAGS", "DEFAULT_PUNCTUATION_TOKENS",
+    "AttachmentScores", "Dependencies", "DependencyEvaluation", "evaluate_attachment",
+    "left_chain", "right_chain",
     "TagScores", "evaluate_tags", "preterminal_labels", "words_over_tags",
     "LikelihoodScores", "heldout_likelihood",
 ]

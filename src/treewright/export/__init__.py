@@ -1,8 +1,9 @@
 """Export, inspection and reuse of learned grammars.
 
 Formats: the grammar text format (`Grammar.save`), the JSON export (`jsonformat`, with its
-documentation), a readable listing (`listing`), and parsed corpora as bracketed trees or
-CoNLL-U columns (`parses`). Also pruning (`prune`), renaming symbols (`rename`) and comparing
+documentation), a readable listing (`listing`), parsed corpora as bracketed trees or CoNLL-U
+columns (`parses`), and CoNLL-U with HEAD filled from predicted heads (`heads`). Also pruning
+(`prune`), renaming symbols (`rename`) and comparing
 two grammars (`compare`). A grammar is read from a text file, a JSON export or a training run
 folder by `load`.
 
@@ -24,6 +25,7 @@ Notebook use (this exact code is run by tests/test_export_api.py):
 """
 
 from treewright.export.compare import Comparison, SymbolMatch, compare
+from treewright.export.heads import fill_heads_conllu, heads_to_conllu
 from treewright.export.jsonformat import (FORMAT_VERSION, GrammarExport, grammar_json_text,
                                           grammar_to_json, load_grammar_export,
                                           load_grammar_json, save_grammar_json)
@@ -45,5 +47,5 @@ __all__ = [
     "open_restart_grammars", "saved_restarts",
     "parse_corpus", "prune", "rename_grammar", "rename_tree", "save_grammar_json",
     "summarize", "symbol_examples", "to_brackets", "to_conllu",
-    "HeadRule", "dependency_heads", "head_rule",
+    "HeadRule", "dependency_heads", "head_rule", "fill_heads_conllu", "heads_to_conllu",
 ]

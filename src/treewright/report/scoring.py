@@ -1,4 +1,5 @@
-"""Evaluation from files: predicted trees against gold trees, tags and held-out likelihood.
+"""Evaluation from files: predicted trees against gold trees, tags and held-out likelihood;
+predicted heads against gold heads (`evaluate_heads_files`).
 
 This wires the metric functions of `treewright.evaluation` to the corpus readers. Brackets use
 `evaluate_brackets` (the function training uses for dev F1), so the baselines are always scored
@@ -15,9 +16,11 @@ from pathlib import Path
 from typing import Sequence
 
 from treewright.budget import DEFAULT_BUDGET_MB
-from treewright.corpus import ReadOptions, Sentence, read_corpus
+from treewright.corpus import (ReadOptions, Sentence, detect_format, iter_conllu_blocks,
+                               iter_lines, read_corpus)
 from treewright.errors import InputError
 from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracketing,
+                                   Dependencies, DependencyEvaluation, evaluate_attachment,
                                    LikelihoodScores, TagScores, evaluate_brackets, evaluate_tags,
                                    heldout_likelihood, preterminal_labels, words_over_tags)
 from treewright.trees import Tree, escape_token
@@ -222,3 +225,64 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
         report.likelihood_note = "not computed: give both --grammar and --text"
     return report
 
+
+
+@dataclass
+class AttachmentReport:
+    """What `treewright evaluate` reports for predicted heads: attachment accuracy beside the
+    chain baselines (`evaluate_attachment`), and where the heads came from."""
+    attachment: DependencyEvaluation
+    sources: dict[str, str] = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {"sources": dict(self.sources), "attachment": self.attachment.to_dict()}
+
+    def format_table(self) -> str:
+        lines = [f"{k}: {v}" for k, v in self.sources.items()]
+        return "\n".join(lines + ["", self.attachment.format_table()])
+
+
+def prediction_format(path: str | Path) -> str:
+    """"conllu" for a .conllu/.conll file or one whose first non-blank line is a comment (`#`)
+    or holds a tab (CoNLL-U columns), else "brackets" (a bracketed tree per line)."""
+    if detect_format(path) == "conllu":
+        return "conllu"
+    for _, text in iter_lines(path):
+        if text.strip():
+            return "conllu" if text.startswith("#") or "\t" in text else "brackets"
+    return "brackets"
+
+
+def read_dependencies(path: str | Path, role: str) -> list[Dependencies]:
+    """Every sentence block of a CoNLL-U file as `Dependencies` (syntactic words, UPOS, HEAD;
+    heads None for a block whose HEAD is `_` throughout), or the file's first InputError.
+    Nothing is lifted or removed: attachment is scored on the heads as written."""
+    name = str(path)
+    out = []
+    for block in iter_conllu_blocks(iter_lines(name), name):
+        if isinstance(block, InputError):
+            raise InputError(f"{role} CoNLL-U: {block.reason}", path=block.path,
+                             line=block.line, column=block.column)
+        out.append(Dependencies(tuple(block.words), None if block.heads is None
+                                else tuple(block.heads), tuple(block.upos), block.line))
+    return out
+
+
+def evaluate_heads_files(pred_path: str | Path, gold_path: str | Path,
+                         conventions: BracketConventions | None = None) -> AttachmentReport:
+    """Attachment accuracy of a CoNLL-U file of predicted heads (HEAD filled; a block whose
+    HEAD is `_` throughout is a sentence without a parse, scored wrong) against CoNLL-U gold
+    with heads, beside the left- and right-chain baselines. Only the punctuation options and
+    `max_length` of `conventions` apply. Words must match sentence by sentence (or, in
+    PRED, be the gold words left without punctuation; see `evaluate_attachment`)."""
+    if prediction_format(gold_path) != "conllu":
+        raise InputError("scoring heads needs CoNLL-U gold with heads", path=str(gold_path))
+    pred = read_dependencies(pred_path, "predicted")
+    gold = read_dependencies(gold_path, "gold")
+    missing = next((g for g in gold if g.heads is None), None)
+    if missing is not None:
+        raise InputError("gold sentence has no heads (HEAD is `_`): nothing to score against",
+                         path=str(gold_path), line=missing.line)
+    attachment = evaluate_attachment(pred, gold, conventions, pred_path=str(pred_path),
+                                     gold_path=str(gold_path))
+    return AttachmentReport(attachment, {"predicted": str(pred_path), "gold": str(gold_path)})
