@@ -13,7 +13,10 @@ import torch
 
 from _brute import lexicalized_summary
 from treewright.cli import main
+from test_lexicalized import is_projective_tree
 from treewright.grammar import load_grammar
+from treewright.induce import load_lexicalized
+from treewright.inference import pad_ids
 from treewright.params import PARAMETERIZATIONS, LexicalizedParams
 
 CONFIG = Path(__file__).resolve().parents[1] / "configs" / "lexicalized_demo.yaml"
@@ -177,6 +180,7 @@ def test_trains_through_the_command_on_the_demo_text(tmp_path):
     # The demo corpus's first 80 sentences, three epochs: the run finishes, writes the
     # back-off grammar, and the training log-likelihood per word rises from epoch to epoch
     # (gradient ascent on a small step from a random start; the demo config with smaller sizes).
+    # Then the trained model is read back and decoded to trees with heads.
     train = tmp_path / "train.txt"
     train.write_text("".join(DEMO_TRAIN.read_text().splitlines(keepends=True)[:80]))
     run = tmp_path / "run"
@@ -192,3 +196,30 @@ def test_trains_through_the_command_on_the_demo_text(tmp_path):
     assert all(r.get("train/unparsed", 0) == 0 for r in rows)
     grammar = load_grammar(run / "grammar.pcfg")
     assert len(grammar.nonterminals) == 3
+
+    # Read back for decoding: the checkpoint's model and the rebuilt vocabulary give the
+    # grammar file's numbers again (the file was written from the model in memory).
+    loaded = load_lexicalized(run)
+    with torch.no_grad():
+        rules = loaded.model.rules()
+    torch.testing.assert_close(rules.binary, grammar.binary, rtol=0, atol=1e-9)
+    torch.testing.assert_close(rules.root, grammar.root, rtol=0, atol=1e-9)
+    for word in ("ko", "sa", "."):
+        torch.testing.assert_close(rules.lexical[:, loaded.vocab.index[word]],
+                                   grammar.lexical[3:, grammar.vocab.index[word]],
+                                   rtol=0, atol=1e-9)
+    # Three-word openings of demo sentences (enumeration grows fast with length), and a
+    # word the vocabulary has not seen (read as the unknown-word token).
+    sentences = [line.split()[:3] for line in DEMO_TRAIN.read_text().splitlines()[:3]]
+    sentences += [["ko", "unheard-of", "sa"], ["ko", "sa"]]
+    parses = loaded.parse(sentences)
+    ids, lengths = pad_ids([loaded.vocab.encode(s) for s in sentences])
+    with torch.no_grad():
+        factors = loaded.model.factors(ids, lengths)
+    for b, (words, parse) in enumerate(zip(sentences, parses)):
+        assert parse.tree.leaves() == words
+        # Reference: the best derivation of the enumeration (tests/_brute.py).
+        brute = lexicalized_summary(factors, b, len(words))
+        assert math.isclose(parse.score, brute["best_score"], abs_tol=1e-9)
+        assert parse.heads == brute["best_heads"]
+        assert is_projective_tree(parse.heads)
