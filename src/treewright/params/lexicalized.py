@@ -100,9 +100,10 @@ class LexicalizedParams(EmbeddingParams):
         return torch.log_softmax(self.root_word_net(self.symbol_embeddings)
                                  @ self.word_embeddings.t(), -1)
 
+    @torch.no_grad()
     def backoff_weights(self) -> Tensor:
         """(NT,) lambda_A: the weight of the word-conditioned class distribution in A's rules
-        (1 - lambda_A goes to the symbol-only back-off)."""
+        (1 - lambda_A goes to the symbol-only back-off); for inspection, without gradient."""
         return torch.sigmoid(self.backoff_logits)
 
     def symbol_classes(self) -> Tensor:
