@@ -9,15 +9,19 @@ import json
 import math
 from pathlib import Path
 
+import pytest
 import torch
 
 from _brute import lexicalized_summary
 from treewright.cli import main
 from test_lexicalized import is_projective_tree
+from treewright.decode import decode_heads
 from treewright.grammar import load_grammar
 from treewright.induce import load_lexicalized
 from treewright.inference import pad_ids
-from treewright.params import PARAMETERIZATIONS, LexicalizedParams
+from treewright.params import PARAMETERIZATIONS, LexicalizedParams, symbol_names
+from treewright.train.config import ConfigError, load_train_config
+from treewright.vocab import Vocabulary
 
 CONFIG = Path(__file__).resolve().parents[1] / "configs" / "lexicalized_demo.yaml"
 DEMO_TRAIN = Path(__file__).resolve().parents[1] / "src/treewright/data/demo/train.txt"
@@ -36,6 +40,17 @@ def _model(vocab=5, seed=0, nt=2, t=3, classes=3):
 
 def test_registered_under_its_config_name():
     assert PARAMETERIZATIONS["lexicalized"] is LexicalizedParams
+
+
+def test_config_refuses_a_memory_budget_it_cannot_estimate():
+    # engine.memory counts the dense and low-rank engines only; a budget would cap batches by
+    # the wrong (n^3) formula, so the config says so before anything runs.
+    base = [f"data.train={DEMO_TRAIN}", "model.parameterization=lexicalized",
+            "train.method=gradient"]
+    with pytest.raises(ConfigError, match="memory_budget_mb"):
+        load_train_config(None, base + ["train.memory_budget_mb=100"])
+    cfg = load_train_config(None, base)
+    assert cfg.model.head_classes == 16
 
 
 def test_every_distribution_sums_to_one():
@@ -223,3 +238,15 @@ def test_trains_through_the_command_on_the_demo_text(tmp_path):
         assert math.isclose(parse.score, brute["best_score"], abs_tol=1e-9)
         assert parse.heads == brute["best_heads"]
         assert is_projective_tree(parse.heads)
+
+
+def test_decode_heads_reports_a_sentence_it_cannot_parse():
+    # A vocabulary with no unknown-word token: a new word has no rule, so its sentence has no
+    # parse and says so (tree None), while the others are decoded in input order.
+    model = _model(vocab=3)
+    vocab = Vocabulary(["ta", "mo", "sul"], unk=None)
+    names = symbol_names(2, 3)
+    out = decode_heads(model, vocab, [["ta", "mo", "sul"], ["ta", "vesk"], ["sul"]], *names)
+    assert out[1].tree is None and out[1].heads == [] and out[1].score == float("-inf")
+    assert out[0].tree.leaves() == ["ta", "mo", "sul"] and is_projective_tree(out[0].heads)
+    assert out[2].tree.leaves() == ["sul"] and out[2].heads == [0]

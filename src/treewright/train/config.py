@@ -256,6 +256,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
+    if cfg.model.parameterization == "lexicalized" and cfg.train.memory_budget_mb is not None:
+        bad("train.memory_budget_mb", "the memory estimate does not cover the lexicalized "
+                                      "inside pass (it grows as n^4); leave the budget null "
+                                      "and cap data.max_length instead")
     if method == "em" and cfg.prior.concentration != 1:
         bad("prior.concentration", "plain em is maximum likelihood (alpha = 1); use "
                                    "train.method=map_em or vb for a Dirichlet prior")
