@@ -159,8 +159,10 @@ def lexicalized_summary(factors, b: int, n: int):
         counts["root"][h, a] += p
     for (i, k), p in leaf_mass.items():
         counts["terminal"][i, k - nt] += p
+    span_mass: dict = defaultdict(float)   # (i, j) -> p(span is a constituent), width >= 2
     for node, p in node_mass.items():
-        _, _, a, h, side, hsym, dsym, dh = node
+        i, j, a, h, side, hsym, dsym, dh = node
+        span_mass[i, j] += p   # a tree has one node per span, so the nodes' masses add up
         for r, q in enumerate(node_terms(node)[2]):
             counts["head"][h, a, r] += p * q
             counts["head_child"][r, side, hsym] += p * q
@@ -173,4 +175,5 @@ def lexicalized_summary(factors, b: int, n: int):
     for *_, h_, _, _, _, dh in nodes:
         heads[dh] = h_ + 1
     return {"logz": float(logz), "best_score": best_score, "best_spans": spans,
-            "best_heads": heads, "counts": counts, "trees": len(scored)}
+            "best_heads": heads, "counts": counts, "spans": dict(span_mass),
+            "trees": len(scored)}
