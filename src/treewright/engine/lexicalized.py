@@ -10,11 +10,12 @@ head word h' (the word h' depends on h):
     head on the left:   A[h] -> B[h] C[h']   (h < h')
     head on the right:  A[h] -> B[h'] C[h]   (h' < h)
 
-The factorisation (our wording of the paper's section on decomposing the binary rules; the
-names are ours). A latent class H in {1..R} mediates everything the rule says about the pair
-of words: given the parent A and its head word x_h, draw H; then, given H alone, draw the head
-child's symbol together with the side it stands on, the dependent child's symbol, and the
-dependent's head word:
+The factorisation (our wording of the paper's decomposition of the binary rules; the names
+are ours, and which factor carries the side is written from memory of the paper: what this
+module computes is exactly the formula below). A latent class H in {1..R} mediates everything
+the rule says about the pair of words: given the parent A and its head word x_h, draw H; then,
+given H alone, draw the head child's symbol together with the side it stands on, the
+dependent child's symbol, and the dependent's head word:
 
     p(A[h] -> B[h] C[h'])  = sum_H p(H | A, x_h) p(B, left | H)  p(C | H) p(x_h' | H)
     p(A[h] -> B[h'] C[h])  = sum_H p(H | A, x_h) p(C, right | H) p(B | H) p(x_h' | H)

@@ -213,8 +213,9 @@ class LexicalizedParams(EmbeddingParams):
         score = log p(x' | x) - log p_backoff(x'): how much more likely x' is as a dependent of
         head x than as a dependent under the symbol-only back-off, where
         p(x' | x) = mean_A sum_H p(H | A, x) p(x' | H) and p_backoff(x') the same with p_sym
-        (a pointwise mutual information; the mean over parents is uniform). Heads are taken
-        `chunk` at a time, so the largest table formed is chunk x V."""
+        in place of p(H | A, x) (a log ratio in the manner of pointwise mutual information; the
+        mean over parents is uniform). Heads are taken `chunk` at a time, so the largest table
+        formed is chunk x V."""
         words = torch.arange(self.vocab_size) if candidates is None else candidates
         dep = self.dependent_words()[:, words]                                 # (R, W)
         backoff = torch.logsumexp(self.class_prior()[:, None] + dep, 0)        # (W,)
