@@ -9,6 +9,7 @@ import types
 import pytest
 import torch
 
+from _brute import lexicalized_summary
 from test_train_fixtures import brute_force
 from treewright.params import PARAMETERIZATIONS, RuleTensors
 from treewright.train.distributed import LocalWorld
@@ -20,7 +21,7 @@ SENTENCES = [[0, 2, 1, 1], [2, 0, 1], [1, 2]]
 
 def _options(**extra):
     values = dict(nonterminals=2, preterminals=2, init_scale=1.0, embedding_dim=6,
-                  residual_blocks=1, rank=3, latent_dim=2)
+                  residual_blocks=1, rank=3, latent_dim=2, head_classes=3)
     values.update(extra)
     return types.SimpleNamespace(**values)
 
@@ -33,11 +34,16 @@ def _model(name: str):
 @pytest.mark.parametrize("name", sorted(PARAMETERIZATIONS))
 def test_every_model_gives_log_z_and_span_posteriors_of_its_rules(name):
     # Reference: brute force over every tree of each sentence (tests/test_train_fixtures.py),
-    # under the dense rules each sentence is scored with.
+    # under the dense rules each sentence is scored with; for the lexicalized model, over every
+    # lexicalized tree under the factors it gathers for the sentence (tests/_brute.py).
     model = _model(name)
     batch = make_batch(range(len(SENTENCES)), SENTENCES, None, torch.float64)
     with torch.no_grad():
-        if name == "compound":       # each sentence's grammar at the mean of q(z | x)
+        if name == "lexicalized":    # scored by its head-word rules, not by rules()
+            factors = model.factors(batch.ids, batch.lengths)
+            rules = None
+            kl = torch.zeros(len(SENTENCES), dtype=torch.float64)
+        elif name == "compound":     # each sentence's grammar at the mean of q(z | x)
             per_sentence = model.sentence_rules(batch.ids, batch.lengths)
             rules = [per_sentence.sentence(b) for b in range(len(SENTENCES))]
             kl = per_sentence.kl
@@ -45,7 +51,11 @@ def test_every_model_gives_log_z_and_span_posteriors_of_its_rules(name):
             dense = model.rules().dense()
             rules = [RuleTensors(*dense)] * len(SENTENCES)
             kl = torch.zeros(len(SENTENCES), dtype=torch.float64)
-    reference = [brute_force(r, s) for r, s in zip(rules, SENTENCES)]
+    if rules is None:
+        summaries = [lexicalized_summary(factors, b, len(s)) for b, s in enumerate(SENTENCES)]
+        reference = [(x["logz"], None, None, None, x["spans"]) for x in summaries]
+    else:
+        reference = [brute_force(r, s) for r, s in zip(rules, SENTENCES)]
     logz, model_kl = model.log_partition(batch.ids, batch.lengths)   # z at the mean: no noise
     assert logz.requires_grad                                          # training needs it
     torch.testing.assert_close(logz.detach(), torch.tensor([r[0] for r in reference],

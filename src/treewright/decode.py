@@ -15,6 +15,10 @@ The labeled marginals, inside and outside scores come from `engine.span_tables` 
 own outside pass, batched); both decoders then work one span width at a time over every span of
 every sentence of a batch.
 
+A lexicalized model (`params.lexicalized`, Yang, Zhao & Tu 2021) is no `Grammar`: `decode_heads`
+reads the model itself and gives each sentence its best derivation as a tree and the head of
+every word (`HeadedParse`).
+
 One decoder reads several grammars (`ENSEMBLE_DECODERS`, run by `consensus`), for example the
 restarts of one training run:
 
@@ -36,8 +40,11 @@ from torch import Tensor
 from treewright import engine
 from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar, coarse_name
-from treewright.inference import encode, spans_to_tree
+from treewright.engine.lexicalized import LexicalizedParse
+from treewright.inference import encode, pad_ids, spans_to_tree
+from treewright.params.lexicalized import LexicalizedParams
 from treewright.trees import Tree, tree_from_spans
+from treewright.vocab import Vocabulary
 
 NEG_INF = float("-inf")
 DECODERS = ("viterbi", "mbr", "max-rule-product")
@@ -513,3 +520,35 @@ def mbr_decode(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_size:
                dtype: torch.dtype = torch.float64) -> list[Tree | None]:
     """MBR trees (see the module docstring), None for sentences the grammar cannot parse."""
     return [d.tree for d in decode(grammar, sentences, "mbr", batch_size, dtype)]
+
+
+@dataclass
+class HeadedParse:
+    """One sentence decoded by a lexicalized model. `tree` is None when the model cannot
+    parse the sentence (a word outside the vocabulary, with no unknown-word token)."""
+    tree: Tree | None     # preterminals over the words, nonterminals above (symbol names)
+    heads: list[int]      # per word, the 1-based position of its head, 0 for the root's head
+                          # word (the CoNLL-U HEAD convention); [] when there is no parse
+    score: float          # log p of the best derivation (tree and latent classes); -inf: none
+
+
+def decode_heads(model: LexicalizedParams, vocab: Vocabulary,
+                 sentences: Sequence[Sequence[str]], nonterminals: Sequence[str],
+                 preterminals: Sequence[str], batch_size: int = 16) -> list[HeadedParse]:
+    """The best derivation of each sentence under a lexicalized model, in input order: a
+    labeled tree and the dependency head of every word (`engine.lexicalized.
+    lexicalized_viterbi`). `vocab` is the model's training vocabulary and `nonterminals`,
+    `preterminals` its symbol names (`params.symbol_names`)."""
+    names = list(nonterminals) + list(preterminals)
+
+    def headed(words: list[str], parse: LexicalizedParse) -> HeadedParse:
+        if not parse.spans:
+            return HeadedParse(None, [], NEG_INF)
+        tree = tree_from_spans(words, [(i, j, names[k]) for i, j, k, _ in parse.spans])
+        return HeadedParse(tree, parse.heads, parse.score)
+
+    def batch(words: list[list[str]]) -> list[HeadedParse]:
+        ids, lengths = pad_ids([vocab.encode(w) for w in words])
+        return [headed(w, p) for w, p in zip(words, model.parse(ids, lengths))]
+
+    return _by_length(sentences, batch_size, batch)   # type: ignore[arg-type,return-value]

@@ -6,11 +6,14 @@ has trees) and hands it to the `Trainer`. Entry points:
 - `train(cfg, run_dir)` -> the fitted `Trainer`; `resume(run_dir)` -> (Trainer, RunResult or
   None); `run(cfg, run_dir, resume)` -> RunResult or None (None: stopped by Ctrl-C);
 - `fit(sentences, cfg, dev=None, dev_trees=None)` -> `Fit`, from token lists in memory, for a
-  notebook user who has no files (the run folder is a temporary one unless `run_dir` is given).
+  notebook user who has no files (the run folder is a temporary one unless `run_dir` is given);
+- `load_lexicalized(run_dir)` -> `LexicalizedRun`, a trained lexicalized model with its
+  vocabulary and symbol names, for `decode.decode_heads`.
 """
 
 from __future__ import annotations
 
+import json
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
@@ -18,9 +21,13 @@ from typing import Sequence, TextIO
 
 from torch import Tensor
 
-from treewright.decode import mbr_spans
+from treewright.decode import HeadedParse, decode_heads, mbr_spans
+from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.grammar import Grammar, load_grammar
+from treewright.params import LexicalizedParams, symbol_names
+from treewright.runfolder import RunFolder
+from treewright.safeio import load_checkpoint
 from treewright.train.config import TrainConfig
 from treewright.train.data import MemoryBudget, TrainData, data_from_sentences, load_data
 from treewright.train.dev import DevLikelihood
@@ -131,3 +138,45 @@ def _fit(cfg: TrainConfig, data: TrainData, run_dir: Path, stream: TextIO | None
     fitted = trainer(cfg, run_dir, stream=stream, data=data)
     result = fitted.run()
     return Fit(load_grammar(result.grammar_path), result, fitted)
+
+
+@dataclass
+class LexicalizedRun:
+    """A trained lexicalized model (`params.lexicalized`) read back from its run folder."""
+    model: LexicalizedParams
+    vocab: object          # the training `Vocabulary`
+    nonterminals: list[str]
+    preterminals: list[str]
+
+    def parse(self, sentences: Sequence[Sequence[str]], batch_size: int = 16
+              ) -> list[HeadedParse]:
+        """Trees with the head of every word (`decode.decode_heads`). The words are read as
+        the model's training vocabulary has them: apply the training corpus's reading options
+        (lowercasing, case rules) first."""
+        return decode_heads(self.model, self.vocab, sentences, self.nonterminals,
+                            self.preterminals, batch_size)
+
+
+def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
+    """The lexicalized model of a finished training run: its parameters from the checkpoint,
+    its vocabulary rebuilt by reading the training corpus again as the saved config says (so
+    that corpus must still be where the config points). InputError when the run trained
+    another parameterization, or kept a restart other than the last one (the checkpoint holds
+    the last restart's model only)."""
+    folder = RunFolder(run_dir, "train")
+    cfg = saved_config(run_dir)
+    if cfg.model.parameterization != "lexicalized":
+        raise InputError(f"the run trained the {cfg.model.parameterization} parameterization, "
+                         "not lexicalized", path=str(folder.checkpoint))
+    if folder.result.exists():
+        kept = json.loads(folder.result.read_text())["best_restart"]
+        if kept != cfg.train.restarts - 1:
+            raise InputError(f"the run kept restart {kept}, but the checkpoint holds restart "
+                             f"{cfg.train.restarts - 1}; retrain with train.restarts=1 to "
+                             "parse with heads", path=str(folder.result))
+    vocab = load_data(cfg).vocab
+    tensors, _ = load_checkpoint(folder.checkpoint)
+    model = LexicalizedParams.from_options(cfg.model, len(vocab), None, _dtype(cfg))
+    model.load_state_dict({k[6:]: v for k, v in tensors.items() if k.startswith("model.")})
+    nonterminals, preterminals = symbol_names(cfg.model.nonterminals, cfg.model.preterminals)
+    return LexicalizedRun(model, vocab, nonterminals, preterminals)

@@ -18,7 +18,9 @@ parameterization is one module here and one line there.
 `lowrank.LowRankParams` computes low-rank factors of the binary rules (Yang, Zhao & Tu 2021) and
 returns `LowRankRules`, whose dense `binary` is formed only on request; `compound.CompoundParams`
 (Kim, Dyer & Rush 2019) gives every sentence its own rules through a latent vector, and its
-`rules()` is the grammar at the prior's mean.
+`rules()` is the grammar at the prior's mean; `lexicalized.LexicalizedParams` (Yang, Zhao & Tu
+2021) gives every constituent a head word and scores each sentence through
+`engine.lexicalized`, and its `rules()` is its symbol-only back-off grammar.
 """
 
 from treewright.params.base import RuleModel, Scorer
@@ -27,11 +29,12 @@ from treewright.params.tabular import (RuleTensors, TabularParams, symbol_names,
 from treewright.params.neural import NeuralParams
 from treewright.params.lowrank import LowRankParams, LowRankRules
 from treewright.params.compound import CompoundParams, CompoundRules
+from treewright.params.lexicalized import LexicalizedParams
 
 PARAMETERIZATIONS: dict[str, type[RuleModel]] = {
     "tabular": TabularParams, "neural": NeuralParams, "lowrank": LowRankParams,
-    "compound": CompoundParams}
+    "compound": CompoundParams, "lexicalized": LexicalizedParams}
 
-__all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "LowRankParams",
-           "LowRankRules", "NeuralParams", "RuleModel", "RuleTensors", "Scorer", "TabularParams",
-           "symbol_names", "tabular_from_grammar"]
+__all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "LexicalizedParams",
+           "LowRankParams", "LowRankRules", "NeuralParams", "RuleModel", "RuleTensors", "Scorer",
+           "TabularParams", "symbol_names", "tabular_from_grammar"]

@@ -49,13 +49,17 @@ class DataConfig:
 
 @dataclass
 class ModelConfig:
-    parameterization: Literal["tabular", "neural", "lowrank", "compound"] = option(
+    parameterization: Literal["tabular", "neural", "lowrank", "compound",
+                              "lexicalized"] = option(
         "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
                    "(Kim, Dyer & Rush 2019); lowrank: binary rules as a sum of model.rank "
                    "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols; "
                    "compound: neural rules that also read a per-sentence latent vector, trained "
-                   "by amortized variational inference (Kim, Dyer & Rush 2019). All but tabular "
-                   "train with 'gradient' only.")
+                   "by amortized variational inference (Kim, Dyer & Rush 2019); lexicalized: "
+                   "every constituent has a head word, and rules read the head and dependent words "
+                   "through model.head_classes latent classes, with an explicit back-off to "
+                   "symbol-only rules (Yang, Zhao & Tu 2021). All but tabular train with "
+                   "'gradient' only.")
     # 30/60 symbols, dimension 256 and latent size 64 are the published setting of Kim, Dyer &
     # Rush 2019, "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from
     # memory).
@@ -67,13 +71,16 @@ class ModelConfig:
                                    "memory).", range="[1, inf)")
     init_scale: float = option(1.0, "Std of the normal logits of a random tabular start; 0 "
                                     "gives the uniform grammar.", range="[0, inf)")
-    embedding_dim: int = option(256, "Neural and lowrank: symbol embedding and hidden size. "
-                                     "256 is the published setting of Kim, Dyer & Rush 2019 "
+    embedding_dim: int = option(256, "Neural, lowrank and lexicalized: embedding and hidden "
+                                     "size. 256 is the published setting of Kim, Dyer & Rush 2019 "
                                      "(from memory).", range="[1, inf)")
-    residual_blocks: int = option(2, "Neural and lowrank: residual blocks in the root and word "
-                                     "networks.", range="[0, inf)")
+    residual_blocks: int = option(2, "Neural, lowrank and lexicalized: residual blocks in the "
+                                     "root and word networks.", range="[0, inf)")
     rank: int = option(200, "Lowrank: number of rank-one terms of the binary rule tensor.",
                        range="[1, inf)")
+    head_classes: int = option(16, "Lexicalized: latent classes through which a head word "
+                                   "and its dependent meet (the inside pass costs n^4 times "
+                                   "this).", range="[1, inf)")
     latent_dim: int = option(64, "Compound: size of the per-sentence latent vector. 64 is "
                                  "the published setting of Kim, Dyer & Rush 2019 (from "
                                  "memory).", range="[1, inf)")
@@ -252,6 +259,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
+    if cfg.model.parameterization == "lexicalized" and cfg.train.memory_budget_mb is not None:
+        bad("train.memory_budget_mb", "the memory estimate does not cover the lexicalized "
+                                      "inside pass (it grows as n^4); leave the budget null "
+                                      "and cap data.max_length instead")
     if method == "em" and cfg.prior.concentration != 1:
         bad("prior.concentration", "plain em is maximum likelihood (alpha = 1); use "
                                    "train.method=map_em or vb for a Dirichlet prior")
