@@ -14,6 +14,7 @@ from __future__ import annotations
 import signal
 from contextlib import contextmanager
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -155,6 +156,17 @@ def test_auto_detecting_reader(tmp_path):
 def test_hand_written_grammar_reader(tmp_path):
     tally = _run(tmp_path, "hand.pcfg", VELMOR.encode(), load_grammar)
     assert tally["tried"] == EXAMPLES and tally["refused"] > 0
+
+
+def test_a_long_word_before_an_unclosed_quote_is_refused_at_once(tmp_path):
+    # Found by the search above: the old well-formedness pattern tried every way of cutting a
+    # run of characters before an unclosed quote (2^(run length) ways; minutes at 30).
+    path = tmp_path / "hand.pcfg"
+    path.write_text('S -> NP VP 1.0\nVP -> V N!!python/object:os.systemta" 0.5\n',
+                    encoding="utf-8")
+    with _no_hang(), pytest.raises(InputError, match="malformed rule") as err:
+        load_grammar(path)
+    assert err.value.line == 2
 
 
 def test_saved_grammar_reader(tmp_path):

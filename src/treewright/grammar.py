@@ -201,7 +201,6 @@ def quote(word: str) -> str:
 
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
 _TOKEN = re.compile(r'"(?:[^"\\]|\\.)*"|[^\s"]+')
-_TOKENS = re.compile(r'(?:\s*(?:"(?:[^"\\]|\\.)*"|[^\s"]+))+\s*')
 
 
 def _digest(lines: list[str]) -> str:
@@ -287,7 +286,10 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                                  f"'@word-shapes {SHAPE_SCHEME}' or '@format 1')", **where)
             continue
         tokens = _TOKEN.findall(line)
-        if not _TOKENS.fullmatch(line) or len(tokens) < 4 or tokens[1] != "->":
+        # Well formed: the tokens cover every character but spaces. (Written as one pattern,
+        # "tokens separated by optional spaces", a long run of characters before an unclosed
+        # quote made the regex engine try every way of cutting the run: minutes per line.)
+        if _TOKEN.sub("", line).strip() or len(tokens) < 4 or tokens[1] != "->":
             raise InputError(f"malformed rule {raw.strip()!r} "
                              "(expected 'LHS -> RHS probability')", **where)
         lhs, rhs_tokens, prob_text = tokens[0], tokens[2:-1], tokens[-1]
