@@ -163,6 +163,10 @@ def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
     that corpus must still be where the config points). InputError when the run trained
     another parameterization, or kept a restart other than the last one (the checkpoint holds
     the last restart's model only)."""
+    if not Path(run_dir).is_dir():
+        raise InputError("a lexicalized model is read from its training run folder; this is "
+                         "not a folder (a grammar file's rules carry no head words)",
+                         path=str(run_dir))
     folder = RunFolder(run_dir, "train")
     cfg = saved_config(run_dir)
     if cfg.model.parameterization != "lexicalized":
