@@ -14,6 +14,7 @@ from __future__ import annotations
 import importlib.util
 import json
 import math
+import re
 import sys
 from pathlib import Path
 
@@ -125,3 +126,83 @@ def test_heads_out_refuses_a_model_without_heads(trained, tmp_path, capsys):
         err = capsys.readouterr().err
         assert "--heads-out needs a lexicalized model's run folder" in err and str(grammar) in err
         assert not out.exists()
+
+
+def _dense_tables(run: Path):
+    """The model's own score tables, formed whole by explicit loops over the small vocabulary
+    (the reference for what `inspect` and the report list): word pairs, head-symbol pairs and
+    back-off weights, by the definitions in the docstrings of params/lexicalized.py."""
+    loaded = load_lexicalized(run)
+    model, words = loaded.model, loaded.vocab.words
+    names = loaded.nonterminals + loaded.preterminals
+    with torch.no_grad():
+        head = model.head_classes(model.word_embeddings).exp().tolist()     # [V][NT][R]
+        dep = model.dependent_words().exp().tolist()                         # [R][V]
+        child = model.dependent_children().exp().tolist()                    # [R][S]
+        prior = model.class_prior().exp().tolist()                           # [R]
+        logits = model.backoff_logits.tolist()                               # [NT]
+    V, NT, R, S = len(words), len(logits), len(prior), len(names)
+    pairs = {}
+    for x in range(V):
+        for y in range(V):
+            given = sum(head[x][a][r] * dep[r][y] for a in range(NT) for r in range(R)) / NT
+            backoff = sum(prior[r] * dep[r][y] for r in range(R))
+            pairs[words[x], words[y]] = math.log(given) - math.log(backoff)
+    joint = [[sum(prior[r] * child[r][c] * dep[r][x] for r in range(R)) for x in range(V)]
+             for c in range(S)]
+    total = sum(map(sum, joint))
+    pc = [sum(row) / total for row in joint]
+    px = [sum(joint[c][x] for c in range(S)) / total for x in range(V)]
+    symbols = {(names[c], words[x]): math.log(joint[c][x] / total / pc[c] / px[x])
+               for c in range(S) for x in range(V)}
+    lambdas = [(names[a], 1 / (1 + math.exp(-logits[a]))) for a in range(NT)]
+    return pairs, symbols, lambdas
+
+
+def _top(table: dict, k: int) -> list[tuple]:
+    return [(*key, value) for key, value in sorted(table.items(), key=lambda kv: -kv[1])[:k]]
+
+
+def _listed(lines: list[str], title: str, k: int) -> list[list[str]]:
+    start = lines.index(title) + 3          # the title, its scoring note, the column heads
+    return [line.split() for line in lines[start:start + k]]
+
+
+def test_inspect_and_report_list_the_top_of_the_dense_tables(trained, tmp_path, capsys):
+    run, _ = trained
+    k = 6
+    pairs, symbols, lambdas = _dense_tables(run)
+    assert main(["inspect", str(run), "--pairs", str(k)]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    for title, table in (("strongest head-dependent word pairs", pairs),
+                         ("strongest head-symbol pairs", symbols)):
+        listed = _listed(lines, title, k)
+        want = _top(table, k)
+        assert [tuple(row[1:]) for row in listed] == [w[:2] for w in want]
+        assert all(abs(float(row[0]) - w[2]) <= 5e-4 for row, w in zip(listed, want))
+    listed = _listed(lines, "back-off weight per nonterminal", len(lambdas))
+    assert [row[0] for row in listed] == [a for a, _ in lambdas]
+    assert all(abs(float(row[1]) - w) <= 5e-4 for row, (_, w) in zip(listed, lambdas))
+
+    # The report shows the same three tables, in the same order, with the same scores.
+    page = tmp_path / "report.html"
+    assert main(["report", str(run), "--out", str(page)]) == 0
+    text = page.read_text(encoding="utf-8")
+    tables = re.findall(r"<table class='lexical'>(.*?)</table>", text)
+    assert len(tables) == 3 and 'href="#lexical"' in text
+    rows = [[re.findall(r"<td[^>]*>(.*?)</td>", row) for row in re.findall(r"<tr>(.*?)</tr>", t)
+             if "<td" in row] for t in tables]
+    assert [(r[0], float(r[1])) for r in rows[0]] == [(a, round(w, 3)) for a, w in lambdas]
+    for got, table in zip(rows[1:], (pairs, symbols)):
+        want = _top(table, 10)                       # the report shows the default ten
+        assert [tuple(r[:2]) for r in got] == [w[:2] for w in want]
+        assert all(abs(float(r[2]) - w[2]) <= 5e-4 for r, w in zip(got, want))
+
+
+def test_inspect_and_report_of_other_grammars_have_no_head_words(tmp_path, capsys):
+    # A grammar file has no lexicalized model: the listing alone, and no such report section.
+    grammar = REPO / "src/treewright/data/examples/astronomers.pcfg"
+    assert main(["inspect", str(grammar)]) == 0
+    assert "head-dependent" not in capsys.readouterr().out
+    assert main(["inspect", str(grammar), "--pairs", "0"]) == 1
+    assert "--pairs wants a positive count" in capsys.readouterr().err
