@@ -349,3 +349,24 @@ def result_evals(tmp_path):
     # The bench's own head-final test set again (deterministic in its seed), for rescoring.
     (tmp_path / "again").mkdir(exist_ok=True)
     return bench.generated_data("head-final", tmp_path / "again", 60, 12, 15, seed=0).evals[0]
+
+
+@needs_treebank
+def test_turkish_eval_sets_carry_the_treebank_heads_of_their_sentences():
+    # Reference: the conllu library's parse of the same files; each scored sentence's gold heads
+    # are its HEAD column as written, and its tokens are its non-PUNCT words in order.
+    data = bench.turkish_data("tokens", 0.1, 12, sentences=150)
+    by_text = {}
+    for section in ("web", "wiki"):
+        with open(bench.treebank_path(section), encoding="utf-8") as handle:
+            for _, s in zip(range(150), conllu.parse_incr(handle)):
+                words = [t for t in s if isinstance(t["id"], int)]
+                by_text.setdefault(tuple(t["form"] for t in words), []).append(words)
+    for ev in data.evals:
+        assert ev.dependencies is not None and len(ev.dependencies) == len(ev.tokens) >= 5
+        for tokens, dep in zip(ev.tokens, ev.dependencies):
+            refs = by_text[dep.words]
+            assert any(list(dep.heads) == [t["head"] for t in r]
+                       and list(dep.tags) == [t["upos"] for t in r] for r in refs)
+            assert tokens == [bench.clean_token(w.lower()) for w, t in zip(dep.words, dep.tags)
+                              if t != "PUNCT"]
