@@ -23,6 +23,7 @@ import pytest
 import torch
 
 from treewright.cli import main
+from treewright.corpus import parse_brackets
 from treewright.decode import decode_heads
 from treewright.evaluation import BracketConventions
 from treewright.evaluation.dependencies import Dependencies, evaluate_attachment
@@ -71,6 +72,8 @@ def test_parse_writes_the_decoded_heads_into_the_conllu_input(trained, tmp_path,
     pred = conllu.parse(out.read_text(encoding="utf-8"))
     assert len(printed) == len(gold) == len(pred) == 12   # one tree per sentence block, as today
     words = [[t["form"] for t in s] for s in gold]
+    # The printed trees are over each block's words (a CoNLL-U TEXT is read by its FORMs).
+    assert [parse_brackets(line)[0].leaves() for line in printed] == words
     heads = [[t["head"] for t in s] for s in pred]
     assert all(h for h in heads)       # the model parses every test sentence (unknown-word token)
     assert heads == _reference_heads(run, words)
