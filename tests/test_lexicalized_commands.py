@@ -209,3 +209,23 @@ def test_inspect_and_report_of_other_grammars_have_no_head_words(tmp_path, capsy
     assert "head-dependent" not in capsys.readouterr().out
     assert main(["inspect", str(grammar), "--pairs", "0"]) == 1
     assert "--pairs wants a positive count" in capsys.readouterr().err
+
+
+def test_heads_out_refuses_words_the_run_removed(trained, tmp_path, capsys):
+    # A run on tags that removed the PUNCT words (data.drop_tags) has no head for them, so the
+    # heads file is refused, naming the first sentence with such a word, before any decoding.
+    _, data = trained
+    run = tmp_path / "tags"
+    assert main(["train", str(CONFIG), f"data.train={data / 'train.conllu'}", "data.dev=null",
+                 "data.tag_mode=true", "data.drop_tags=PUNCT", "model.nonterminals=2",
+                 "model.preterminals=3", "model.head_classes=2", "model.embedding_dim=8",
+                 "train.epochs=1", f"output.run_dir={run}", "output.progress=false",
+                 "output.stdout_metrics=false", "output.tensorboard=false"]) == 0
+    capsys.readouterr()
+    out = tmp_path / "pred.conllu"
+    gold = data / "test.conllu"
+    assert main(["parse", str(run), str(gold), "--heads-out", str(out)]) == 1
+    captured = capsys.readouterr()
+    assert captured.out == "" and not out.exists()
+    # Every test sentence ends with the final mark, so the first block (line 1) is named.
+    assert f"{gold}, line 1: --heads-out" in captured.err and "data.drop_tags" in captured.err

@@ -148,6 +148,11 @@ def run(args) -> int:
             for sentence in tokens]
     inputs = [[t for t, k in zip(sentence, mask) if k] for sentence, mask in zip(tokens, kept)]
     todo = [i for i, sentence in enumerate(inputs) if sentence]
+    dropped = next((i for i, mask in enumerate(kept) if not all(mask)), None)
+    if lexicalized is not None and dropped is not None:
+        raise InputError("--heads-out: the run removed some tags' words (data.drop_tags), so "
+                         "the model gives those words no head", path=args.text,
+                         line=lines[dropped][0])
     plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                        args.batch_size)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
@@ -193,23 +198,26 @@ def run(args) -> int:
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
     if lexicalized is not None:
-        write_heads(args, lexicalized, fmt, lines, inputs, kept)
+        write_heads(args, lexicalized, fmt, lines, inputs)
     return 0
 
 
-def write_heads(args, lexicalized, fmt: str, lines, inputs, kept) -> None:
+HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
+
+
+def write_heads(args, lexicalized, fmt: str, lines, inputs) -> None:
     """--heads-out: the lexicalized model's heads of every sentence as CoNLL-U (see EXAMPLES)."""
-    from treewright.errors import InputError
     from treewright.export.heads import fill_heads_conllu, heads_to_conllu
     from treewright.safeio import write_output_text
+    from treewright.tracking import terminal_progress
 
-    dropped = next((i for i, mask in enumerate(kept) if not all(mask)), None)
-    if dropped is not None:
-        raise InputError("--heads-out: the run removed some tags' words (data.drop_tags), so "
-                         "the model gives those words no head", path=args.text,
-                         line=lines[dropped][0])
-    parses = lexicalized.parse(inputs, args.batch_size)
-    heads = [parse.heads or None for parse in parses]  # [] from decode_heads: no parse
+    heads = []
+    with terminal_progress(len(inputs), "heads") as progress:
+        for start in range(0, len(inputs), HEADS_CHUNK):
+            group = inputs[start:start + HEADS_CHUNK]
+            # [] from decode_heads: no parse, written as HEAD `_`
+            heads += [p.heads or None for p in lexicalized.parse(group, args.batch_size)]
+            progress.update(len(group))
     if fmt == "conllu":
         text = fill_heads_conllu(args.text, heads)
     else:
