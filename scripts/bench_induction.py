@@ -25,11 +25,11 @@ corpora are the same on every run; the generating grammar is the ceiling. Every 
 is scored too (`restarts` in results.json), so restart choice can be studied offline.
 
 Consensus of restarts. Every run with two or more restarts and one grammar for all sentences
-(not compound or lexicalized) is also scored with the consensus decoder (`decode.consensus`: tree averaging of
-the restarts' MBR trees, Shayegh et al. 2024, "Ensemble Distillation for Unsupervised
-Constituency Parsing"), the kept restart first, as `treewright parse RUN --decoder consensus`
-decodes: `consensus` per run in results.json, and a row "<method>, consensus of restarts" in
-the tables (no perplexity: a consensus of trees has no likelihood of its own).
+(not compound or lexicalized) is also scored with the consensus decoder (`decode.consensus`:
+tree averaging of the restarts' MBR trees, Shayegh et al. 2024, "Ensemble Distillation for
+Unsupervised Constituency Parsing"), the kept restart first, as `treewright parse RUN --decoder
+consensus` decodes: `consensus` per run in results.json, and a row "<method>, consensus of
+restarts" in the tables (no perplexity: a consensus of trees has no likelihood of its own).
 
 Modes. tokens: the model reads the word forms (lowercased for turkish); tags (turkish only): it
 reads the gold UPOS in place of the words.

@@ -717,7 +717,8 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
                       + "</ul>")
     nav = "".join(f'<a href="#{i}">{t}</a> ' for i, t in (
         ("curves", "curves"), ("evaluation", "evaluation"), ("grammar", "symbols"),
-        *([] if lexical is None else [("lexical", "head words")]), ("examples", "examples"), ("heatmap", "heat map"), ("config", "config")))
+        *([] if lexical is None else [("lexical", "head words")]),
+        ("examples", "examples"), ("heatmap", "heat map"), ("config", "config")))
     config = (_missing(f"No {CONFIG}.") if found.config_text is None
               else f"<pre>{esc(found.config_text)}</pre>")
     sections.append(_section("config", "Configuration", config))
