@@ -25,11 +25,11 @@ corpora are the same on every run; the generating grammar is the ceiling. Every 
 is scored too (`restarts` in results.json), so restart choice can be studied offline.
 
 Consensus of restarts. Every run with two or more restarts and one grammar for all sentences
-(not compound) is also scored with the consensus decoder (`decode.consensus`: tree averaging of
-the restarts' MBR trees, Shayegh et al. 2024, "Ensemble Distillation for Unsupervised
-Constituency Parsing"), the kept restart first, as `treewright parse RUN --decoder consensus`
-decodes: `consensus` per run in results.json, and a row "<method>, consensus of restarts" in
-the tables (no perplexity: a consensus of trees has no likelihood of its own).
+(not compound or lexicalized) is also scored with the consensus decoder (`decode.consensus`:
+tree averaging of the restarts' MBR trees, Shayegh et al. 2024, "Ensemble Distillation for
+Unsupervised Constituency Parsing"), the kept restart first, as `treewright parse RUN --decoder
+consensus` decodes: `consensus` per run in results.json, and a row "<method>, consensus of
+restarts" in the tables (no perplexity: a consensus of trees has no likelihood of its own).
 
 Modes. tokens: the model reads the word forms (lowercased for turkish); tags (turkish only): it
 reads the gold UPOS in place of the words.
@@ -41,6 +41,16 @@ whole-sentence span dropped, `BracketConventions` defaults), mean and sd over se
 perplexity (the model's own vocabulary with its unknown token), and the share of predicted
 spans that are left- or right-branching spans (span starts at 0 / ends at n): which way the
 induced trees lean. Baselines (left, right, random, binary upper bound) on the same sentences.
+
+Heads. The lexicalized row (the neural bilexicalized PCFG, Yang, Zhao & Tu 2021) is scored on
+brackets as the others are, by MBR over its own span posteriors (heads summed out), with its
+own log p(sentence) for perplexity. Where the gold has heads (turkish: the CoNLL-U HEAD column;
+head-final, head-initial: the true heads of `scripts/make_headed_language.py`, from the head mark
+of every phrase rule) its best derivation's heads (`decode.decode_heads`) are also scored by
+directed and undirected attachment (`evaluation.evaluate_attachment`, punctuation taken out as
+for brackets) beside the left and right chains, in a second table per eval set. The lexicalized
+model scored is the last restart's (the one the trainer holds), and its restarts are not scored
+one by one. The other rows and the bracket tables are as without it.
 
 Prints a Markdown table and writes everything to <out>/results.json. Asserts nothing.
 """
@@ -66,6 +76,7 @@ from treewright import engine
 from treewright.corpus import ReadOptions, length_batches, read_corpus, split_indices
 from treewright.decode import consensus, mbr_spans
 from treewright.evaluation import BracketConventions, Bracketing, evaluate_brackets
+from treewright.evaluation.dependencies import Dependencies, evaluate_attachment
 from treewright.grammar import load_grammar
 from treewright.inference import encode
 from treewright.runfolder import RunFolder
@@ -74,7 +85,10 @@ from treewright.train.estep import compound_span_posteriors, make_batch
 
 REPO = Path(__file__).resolve().parents[1]
 CONFIGS = REPO / "configs"
-METHODS = ("em", "vb", "gradient", "neural", "lowrank", "compound")
+METHODS = ("em", "vb", "gradient", "neural", "lowrank", "compound", "lexicalized")
+# Rows scored from the trainer's model (per-sentence grammars, head words) rather than from the
+# grammar files of their restarts, which hold no more than a shared symbol-only grammar.
+MODEL_ROWS = ("compound", "lexicalized")
 PUNCT_UPOS = "PUNCT"
 BASELINES = ("left_branching", "right_branching", "random_binary", "binary_upper_bound")
 
@@ -89,10 +103,14 @@ class EvalSet:
 
     tokens: per sentence, the model's input (words or tags), punctuation already removed.
     gold: per sentence, a `Bracketing` whose words are `tokens`.
+    dependencies: per sentence, the gold heads over its whole sentence, punctuation included
+        with its tags (`evaluate_attachment` takes the punctuation out again), or None when the
+        gold has no heads.
     """
     name: str
     tokens: list[list[str]]
     gold: list[Bracketing]
+    dependencies: list[Dependencies] | None = None
 
 
 @dataclass
@@ -174,6 +192,14 @@ def read_treebank(path: Path, mode: str, sentences: int | None = None
     return tokens_out, gold_out, counts, written
 
 
+def treebank_dependencies(path: Path, sentences: int | None = None) -> list[Dependencies]:
+    """The gold heads of the sentences `read_treebank` keeps (same reading, same order): each
+    sentence's words, HEAD column as written (not lifted) and UPOS."""
+    corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift"))
+    return [Dependencies(tuple(s.words), tuple(s.heads), tuple(s.tags), s.line)
+            for s in corpus.sentences[:sentences] if any(t != PUNCT_UPOS for t in s.tags)]
+
+
 def turkish_data(mode: str, dev_fraction: float, eval_max_length: int | None,
                  sentences: int | None = None) -> BenchData:
     """web -> seeded train/dev split; wiki -> test. Eval sets keep sentences of at most
@@ -182,15 +208,18 @@ def turkish_data(mode: str, dev_fraction: float, eval_max_length: int | None,
                                                                   sentences)
     wiki_tokens, wiki_gold, wiki_counts, _ = read_treebank(treebank_path("wiki"), mode,
                                                            sentences)
+    web_heads = treebank_dependencies(treebank_path("web"), sentences)
+    wiki_heads = treebank_dependencies(treebank_path("wiki"), sentences)
     split = split_indices(len(web_tokens), dev=dev_fraction, test=0.0, seed=0)
     train_tokens = [web_tokens[i] for i in split.train]
 
-    def capped(name, idx, tokens, gold):
+    def capped(name, idx, tokens, gold, heads):
         keep = [i for i in idx if eval_max_length is None or len(tokens[i]) <= eval_max_length]
-        return EvalSet(name, [tokens[i] for i in keep], [gold[i] for i in keep])
+        return EvalSet(name, [tokens[i] for i in keep], [gold[i] for i in keep],
+                       [heads[i] for i in keep])
 
-    dev = capped("web-dev", split.dev, web_tokens, web_gold)
-    wiki = capped("wiki", range(len(wiki_tokens)), wiki_tokens, wiki_gold)
+    dev = capped("web-dev", split.dev, web_tokens, web_gold, web_heads)
+    wiki = capped("wiki", range(len(wiki_tokens)), wiki_tokens, wiki_gold, wiki_heads)
     counts = {"web": web_counts, "wiki": wiki_counts, "web_train": len(split.train),
               "web_dev": len(split.dev), "web_dev_scored": len(dev.tokens),
               "wiki_scored": len(wiki.tokens), "eval_max_length": eval_max_length}
@@ -258,7 +287,20 @@ def generated_data(order: str, out: Path, train_size: int, test_size: int, max_w
     counts = {"train": len(train_tokens), "dev": 0, "test_scored": len(test),
               "data_seed": seed, "max_words": max_words}
     return BenchData(train_tokens, [], [EvalSet(f"{order}-test", [t.leaves() for t in test],
-                                                gold)], ceiling, counts)
+                                                gold, true_dependencies(order, test))],
+                     ceiling, counts)
+
+
+def true_dependencies(order: str, trees: list) -> list[Dependencies]:
+    """The true heads of drawn trees, as `scripts/make_headed_language.py` writes them in its
+    CoNLL-U (its `tree_heads`), with the preterminals as tags (the final mark is PUNCT)."""
+    from make_headed_language import head_children, tree_heads   # it imports this script
+    table = head_children(order)
+    out = []
+    for t in trees:
+        tags = tuple(node.label for node in t.subtrees() if node.is_preterminal())
+        out.append(Dependencies(tuple(t.leaves()), tuple(tree_heads(t, table)[0]), tags))
+    return out
 
 
 def write_text(path: Path, sentences: list[list[str]]) -> Path:
@@ -347,6 +389,38 @@ def compound_mbr_and_likelihood(trainer, sentences: list[list[str]], batch_size:
     return spans, logprobs
 
 
+def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16) -> dict:
+    """The lexicalized model's scores on one set: brackets by MBR over its own span posteriors
+    (heads summed out) and perplexity from its own log p(sentence), as `score_spans` scores the
+    other rows; with gold heads, `attachment` (model and both chains: directed, undirected,
+    words) from the heads of its best derivations, and `attachment_counts`."""
+    from treewright.decode import decode_heads
+    from treewright.params import symbol_names
+    model, vocab = trainer.model, trainer.data.vocab
+    scorer = model.scorer()
+    spans: list = [None] * len(ev.tokens)
+    logprobs = [float("-inf")] * len(ev.tokens)
+    encoded = [vocab.encode(s) for s in ev.tokens]
+    known = [i for i, ids in enumerate(encoded) if -1 not in ids]
+    for part in length_batches([len(ev.tokens[i]) for i in known], max_sentences=batch_size):
+        group = [known[k] for k in part]
+        batch = make_batch(group, encoded, None, trainer.dtype)
+        logz, marginals = scorer.span_posteriors(batch.ids, batch.lengths)
+        for k, i in enumerate(group):
+            if math.isfinite(float(logz[k])):
+                logprobs[i] = float(logz[k])
+                spans[i] = mbr_spans(marginals[k], len(ev.tokens[i]))
+    scores = score_spans(spans, logprobs, ev)
+    if ev.dependencies is not None:
+        names = symbol_names(model.nonterminals, model.preterminals)
+        parses = decode_heads(model, vocab, ev.tokens, *names, batch_size=batch_size)
+        attachment = evaluate_attachment([p.heads or None for p in parses], ev.dependencies,
+                                         BracketConventions())
+        scores["attachment"] = attachment.to_dict()["systems"]
+        scores["attachment_counts"] = attachment.counts
+    return scores
+
+
 def load_scored_grammar(grammar_path: Path):
     # Rules written from float32 training can sum to 1 +- 1e-6, above the loader's default
     # tolerance; 1e-4 still rejects a grammar that is really unnormalised.
@@ -419,7 +493,7 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
         trainer = train(cfg, run_dir, stream=log, config_source=f"bench_induction {method}")
     seconds = time.monotonic() - started
     restarts = []
-    if method != "compound":
+    if method not in MODEL_ROWS:
         # Every restart's own grammar scored as the kept one is: for offline restart choice.
         for r in trainer.results_:
             path = RunFolder(run_dir).restart_grammar(r["restart"])
@@ -435,9 +509,17 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     return {"method": method, "seed": seed, "train_seconds": seconds,
             "best_restart": trainer.best_restart_, "overrides": overrides,
             "restarts": restarts, "consensus": agreed,
-            "scores": {ev.name: score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
-                       if method == "compound" else score_grammar(trainer.grammar_path_, ev)
-                       for ev in args.evals}}
+            "scores": {ev.name: score_method(method, trainer, ev) for ev in args.evals}}
+
+
+def score_method(method: str, trainer, ev: EvalSet) -> dict:
+    """One trained run's scores on one set: from its grammar file, or from the trainer's model
+    for the rows in MODEL_ROWS."""
+    if method == "compound":
+        return score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
+    if method == "lexicalized":
+        return score_lexicalized(trainer, ev)
+    return score_grammar(trainer.grammar_path_, ev)
 
 
 def mean_sd(values: list[float | None]) -> tuple[float | None, float | None]:
@@ -473,6 +555,10 @@ def summarise(runs: list[dict], evals: list[EvalSet]) -> dict:
                 "right_share": mean_sd([x["lean"]["right_share"] for x in s]),
                 "train_seconds": mean_sd([r["train_seconds"] for r in mine]),
                 "seeds": [r["seed"] for r in mine]}
+            if all("attachment" in x for x in s):   # only rows with heads get these keys
+                for kind in ("directed", "undirected"):
+                    out[name][ev.name][kind] = mean_sd([x["attachment"]["model"][kind]
+                                                        for x in s])
     return out
 
 
@@ -509,6 +595,26 @@ def markdown_table(summary: dict, baselines: dict, ceiling: dict, gold_leans: di
                     f"| | | |")
     rows.append(f"| gold trees | | | | {g['left_share']:.2f} / {g['right_share']:.2f} | |")
     return "\n".join(rows)
+
+
+def attachment_table(summary: dict, runs: list[dict], ev_name: str) -> str | None:
+    """A Markdown table of attachment accuracy on one eval set: the rows with heads, then the
+    left and right chains (the same gold words for every run); None when no row has heads."""
+    rows = [(method, per[ev_name]) for method, per in summary.items()
+            if "directed" in per[ev_name]]
+    if not rows:
+        return None
+    chains = next(r["scores"][ev_name]["attachment"] for r in runs
+                  if "attachment" in r["scores"][ev_name])
+    words = chains["model"]["words"]
+    lines = [f"| system (attachment on {words} words) | directed | undirected |",
+             "|---|---|---|"]
+    lines += [f"| {method} | {_cell(e['directed'])} | {_cell(e['undirected'])} |"
+              for method, e in rows]
+    for key, title in (("left_chain", "left chain"), ("right_chain", "right chain")):
+        c = chains[key]
+        lines.append(f"| {title} | {100 * c['directed']:.1f} | {100 * c['undirected']:.1f} |")
+    return "\n".join(lines)
 
 
 def parse_args(argv: list[str] | None) -> argparse.Namespace:
@@ -605,6 +711,10 @@ def main(argv: list[str] | None = None) -> dict:
                 per = " ".join(f"{100 * r['scores'][ev.name]['model']['sentence_f1']:.1f}"
                                for r in result["restarts"] for ev in data.evals[-1:])
                 brief += f" (restarts: {per}; kept {result['best_restart']})"
+            attached = [f"{name} directed {100 * s['attachment']['model']['directed']:.1f}"
+                        for name, s in result["scores"].items() if "attachment" in s]
+            if attached:
+                brief += "; " + ", ".join(attached)
             if result["consensus"]:
                 brief += "; consensus " + ", ".join(
                     f"{name} F1 {100 * s['model']['sentence_f1']:.1f}"
@@ -619,8 +729,12 @@ def main(argv: list[str] | None = None) -> dict:
     command = "scripts/bench_induction.py " + " ".join(sys.argv[1:] if argv is None else argv)
     tables = {ev.name: markdown_table(summary, baselines, ceiling, gold_leans, ev.name)
               for ev in data.evals}
+    heads = {ev.name: attachment_table(summary, runs, ev.name) for ev in data.evals}
+    heads = {name: table for name, table in heads.items() if table is not None}
     for name, table in tables.items():
         print(f"\n{name} ({args.data}, {args.mode} mode)\n\n{table}")
+        if name in heads:
+            print(f"\n{name}, attachment\n\n{heads[name]}")
     result = {"command": command, "date": started.isoformat(timespec="seconds"),
               "data": args.data, "mode": args.mode, "methods": args.methods,
               "seeds": args.seeds, "epochs": args.epochs, "restarts": args.restarts,
@@ -629,6 +743,8 @@ def main(argv: list[str] | None = None) -> dict:
               "eval_max_length": args.eval_max_length, "counts": data.counts,
               "runs": runs, "summary": summary, "baselines": baselines, "ceiling": ceiling,
               "gold_lean": gold_leans, "tables": tables}
+    if heads:   # only when a row has heads: the other rows' results are as before
+        result["attachment_tables"] = heads
     (args.out / "results.json").write_text(json.dumps(result, indent=2) + "\n",
                                            encoding="utf-8")
     print(f"\nwrote {args.out / 'results.json'}")

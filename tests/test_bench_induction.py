@@ -305,3 +305,68 @@ def test_smoke_run_of_a_generated_order_scores_every_restart(tmp_path):
     row = result["summary"]["em, consensus of restarts"]["head-final-test"]
     assert row["sentence_f1"][0] == agreed["model"]["sentence_f1"]
     assert "| em, consensus of restarts |" in result["tables"]["head-final-test"]
+
+
+def test_smoke_run_of_the_lexicalized_row_scores_attachment(tmp_path):
+    # A tiny head-final run of the em and lexicalized rows. References: the em row's scores and
+    # table line as the bracket path computes them without heads (no attachment keys added);
+    # for the lexicalized row, the model read back from its run folder, its heads written into
+    # the CoNLL-U of scripts/make_headed_language.py (the true heads, drawn with the same seed)
+    # and scored from those files as `treewright evaluate` scores them.
+    import importlib
+    from treewright.export.heads import fill_heads_conllu
+    from treewright.induce import load_lexicalized
+    from treewright.report.scoring import evaluate_heads_files
+    sys.path.insert(0, str(REPO / "scripts"))
+    headed = importlib.import_module("make_headed_language")
+    result = bench.main(["--data", "head-final", "--train-sentences", "60", "--test-sentences",
+                         "12", "--epochs", "1", "--symbols", "4,6", "--seeds", "0",
+                         "--methods", "em,lexicalized", "--override", "model.head_classes=4",
+                         "--override", "model.embedding_dim=16", "--out", str(tmp_path)])
+    name = "head-final-test"
+    em, lex = (r["scores"][name] for r in result["runs"])
+    assert "attachment" not in em and "directed" not in result["summary"]["em"][name]
+    assert em == bench.score_grammar(tmp_path / "em-seed0" / "grammar.pcfg", result_evals(tmp_path))
+    headed.write_order("head-final", tmp_path / "true", 60, 12, 15, 0)
+    gold = tmp_path / "true" / "head-final" / "test.conllu"
+    loaded = load_lexicalized(tmp_path / "lexicalized-seed0")
+    words = [line.split() for line in (tmp_path / "true" / "head-final" / "test.txt")
+             .read_text(encoding="utf-8").splitlines()]
+    heads = [p.heads or None for p in loaded.parse(words)]
+    pred = tmp_path / "pred.conllu"
+    pred.write_text(fill_heads_conllu(gold, heads), encoding="utf-8")
+    want = evaluate_heads_files(pred, gold).attachment.to_dict()["systems"]
+    assert lex["attachment"] == want
+    row = result["summary"]["lexicalized"][name]
+    assert row["directed"][0] == want["model"]["directed"]
+    table = result["attachment_tables"][name]
+    assert f"| lexicalized | {100 * want['model']['directed']:.1f} |" in table
+    assert f"| right chain | {100 * want['right_chain']['directed']:.1f} |" in table
+    assert set(result["attachment_tables"]) == {name}
+
+
+def result_evals(tmp_path):
+    # The bench's own head-final test set again (deterministic in its seed), for rescoring.
+    (tmp_path / "again").mkdir(exist_ok=True)
+    return bench.generated_data("head-final", tmp_path / "again", 60, 12, 15, seed=0).evals[0]
+
+
+@needs_treebank
+def test_turkish_eval_sets_carry_the_treebank_heads_of_their_sentences():
+    # Reference: the conllu library's parse of the same files; each scored sentence's gold heads
+    # are its HEAD column as written, and its tokens are its non-PUNCT words in order.
+    data = bench.turkish_data("tokens", 0.1, 12, sentences=150)
+    by_text = {}
+    for section in ("web", "wiki"):
+        with open(bench.treebank_path(section), encoding="utf-8") as handle:
+            for _, s in zip(range(150), conllu.parse_incr(handle)):
+                words = [t for t in s if isinstance(t["id"], int)]
+                by_text.setdefault(tuple(t["form"] for t in words), []).append(words)
+    for ev in data.evals:
+        assert ev.dependencies is not None and len(ev.dependencies) == len(ev.tokens) >= 5
+        for tokens, dep in zip(ev.tokens, ev.dependencies):
+            refs = by_text[dep.words]
+            assert any(list(dep.heads) == [t["head"] for t in r]
+                       and list(dep.tags) == [t["upos"] for t in r] for r in refs)
+            assert tokens == [bench.clean_token(w.lower()) for w, t in zip(dep.words, dep.tags)
+                              if t != "PUNCT"]

@@ -8,7 +8,9 @@ has trees) and hands it to the `Trainer`. Entry points:
 - `fit(sentences, cfg, dev=None, dev_trees=None)` -> `Fit`, from token lists in memory, for a
   notebook user who has no files (the run folder is a temporary one unless `run_dir` is given);
 - `load_lexicalized(run_dir)` -> `LexicalizedRun`, a trained lexicalized model with its
-  vocabulary and symbol names, for `decode.decode_heads`.
+  vocabulary and symbol names, for `decode.decode_heads`; `lexical_summary_of(run_dir)` ->
+  what it learned about words (`export.lexical`), for `inspect` and the report, or None for a
+  grammar file or a run of another parameterization.
 """
 
 from __future__ import annotations
@@ -24,6 +26,8 @@ from torch import Tensor
 from treewright.decode import HeadedParse, decode_heads, mbr_spans
 from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
+from treewright.export.lexical import DEFAULT_PAIRS, LexicalSummary, lexical_summary
+from treewright.export.source import read_training_record
 from treewright.grammar import Grammar, load_grammar
 from treewright.params import LexicalizedParams, symbol_names
 from treewright.runfolder import RunFolder
@@ -163,6 +167,10 @@ def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
     that corpus must still be where the config points). InputError when the run trained
     another parameterization, or kept a restart other than the last one (the checkpoint holds
     the last restart's model only)."""
+    if not Path(run_dir).is_dir():
+        raise InputError("a lexicalized model is read from its training run folder; this is "
+                         "not a folder (a grammar file's rules carry no head words)",
+                         path=str(run_dir))
     folder = RunFolder(run_dir, "train")
     cfg = saved_config(run_dir)
     if cfg.model.parameterization != "lexicalized":
@@ -180,3 +188,22 @@ def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
     model.load_state_dict({k[6:]: v for k, v in tensors.items() if k.startswith("model.")})
     nonterminals, preterminals = symbol_names(cfg.model.nonterminals, cfg.model.preterminals)
     return LexicalizedRun(model, vocab, nonterminals, preterminals)
+
+
+def lexical_summary_of(run_dir: str | Path, top: int = DEFAULT_PAIRS,
+                       rename: dict[str, str] | None = None) -> LexicalSummary | None:
+    """What the lexicalized model of the run in `run_dir` learned about words (`top` pairs of
+    each kind, `export.lexical.lexical_summary`; symbols renamed by `rename`, old name to new,
+    as `export.load_renaming` gives it); None when `run_dir` is a grammar file or its
+    run trained another parameterization (by its config.yaml). InputError, as
+    `load_lexicalized`, when the model cannot be read back."""
+    if not Path(run_dir).is_dir():
+        return None
+    config = read_training_record(Path(run_dir))["config"]
+    model = config.get("model") if isinstance(config, dict) else None
+    if not isinstance(model, dict) or model.get("parameterization") != "lexicalized":
+        return None
+    run = load_lexicalized(run_dir)
+    names = [(rename or {}).get(n, n) for n in run.nonterminals + run.preterminals]
+    nt = len(run.nonterminals)
+    return lexical_summary(run.model, run.vocab.words, names[:nt], names[nt:], top)

@@ -11,6 +11,7 @@ EXAMPLES = """examples:
   treewright parse runs/demo/grammar.pcfg dev.txt --decoder mbr --scores
   treewright parse runs/demo dev.txt --decoder consensus
   echo "astronomers saw stars with ears" | treewright parse src/treewright/data/examples/astronomers.pcfg - --scores
+  treewright parse runs/lexicalized_demo dev.conllu --heads-out dev.heads.conllu
 
 decoders (default: consensus for a run folder that saved two or more restarts, else viterbi):
   viterbi           the most probable tree
@@ -36,6 +37,18 @@ restart, or the first restart that parses the sentence); with --objective, a thi
 decoder's own objective (log p(tree), expected correct spans, log rule-posterior product, or for
 consensus the mean F1 against the restarts' mbr trees); these are nan for a sentence over the
 memory budget (not computed).
+
+TEXT may be CoNLL-U (a .conllu/.conll file): its syntactic words are the sentences, one output
+line per sentence block (a grammar trained on tags reads its UPOS instead, as above).
+
+Heads: with --heads-out PATH, GRAMMAR must be the run folder of a lexicalized model
+(model.parameterization: lexicalized, train.restarts 1; its training corpus must still be where
+its config points). The model's best derivation of each sentence gives the head of every word,
+written to PATH as CoNLL-U with HEAD filled (0 for the root) and DEPREL `_`: from a CoNLL-U TEXT
+every other line and column is kept as read; from raw text or bracketed trees the words are
+written with every other column `_`. A sentence without a parse keeps HEAD `_`. Score the file
+with `treewright evaluate PATH GOLD.conllu`. The trees printed are those of the decoder, as
+without the option.
 """
 
 
@@ -60,6 +73,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="the grammar reads tags: TEXT may be bracketed trees or CoNLL-U, whose "
                         "tags are parsed and whose words are printed (automatic for a run or "
                         "JSON export trained with data.tag_mode)")
+    p.add_argument("--heads-out", metavar="PATH",
+                   help="a lexicalized run folder only: also write CoNLL-U with the induced "
+                        "head of every word to PATH (see below)")
     add_budget_argument(p)
 
 
@@ -70,14 +86,24 @@ def run(args) -> int:
 
     from treewright.budget import plan_budget, run_plan
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
-    from treewright.corpus import insert_words, read_tagged, run_drop_tags, run_tag_mode
+    from treewright.corpus import (detect_format, insert_words, iter_conllu_blocks, iter_lines,
+                                   read_tagged, run_drop_tags, run_tag_mode)
     from treewright.decode import ENSEMBLE_DECODERS, consensus, decode
+    from treewright.errors import InputError
     from treewright.export import open_grammar, open_restart_grammars, saved_restarts
     from treewright.tracking import terminal_progress
 
     dtype = torch.float64  # decode's precision
     source = open_grammar(args.grammar)  # text, JSON export or run folder
     grammar = source.grammar
+    lexicalized = None
+    if args.heads_out is not None:  # refused before any decoding when the model has no heads
+        from treewright.induce import load_lexicalized
+        try:
+            lexicalized = load_lexicalized(args.grammar)
+        except InputError as err:
+            raise InputError(f"--heads-out needs a lexicalized model's run folder: "
+                             f"{err.reason}", path=err.path, line=err.line) from None
     if args.decoder is None:
         # Tree averaging of a run's restarts beat the restart kept by likelihood on the induction
         # benchmark (docs/induction_notes.md), so a run with several restarts is read that way.
@@ -97,8 +123,17 @@ def run(args) -> int:
     data = config.get("data") if isinstance(config, dict) else None
     on_tags = args.tags or run_tag_mode(data)
     drop = run_drop_tags(data)
-    tagged = read_tagged(args.text) if on_tags and args.text != "-" else None
-    if tagged is None:
+    fmt = "text" if args.text == "-" else detect_format(args.text)
+    tagged = read_tagged(args.text, fmt) if on_tags and fmt != "text" else None
+    if tagged is None and fmt == "conllu":  # words of a CoNLL-U file, one sentence per block
+        blocks = []
+        for block in iter_conllu_blocks(iter_lines(args.text), args.text):
+            if isinstance(block, InputError):
+                raise block
+            blocks.append((block.line, list(block.words)))
+        every_line = lines = blocks
+        tokens = as_trained(source, lines)
+    elif tagged is None:
         every_line = read_lines(args.text)
         lines = [(k, words) for k, words in every_line if words]
         # Tags (raw text read as tags) are never lowercased, as training read them.
@@ -113,6 +148,11 @@ def run(args) -> int:
             for sentence in tokens]
     inputs = [[t for t, k in zip(sentence, mask) if k] for sentence, mask in zip(tokens, kept)]
     todo = [i for i, sentence in enumerate(inputs) if sentence]
+    dropped = next((i for i, mask in enumerate(kept) if not all(mask)), None)
+    if lexicalized is not None and dropped is not None:
+        raise InputError("--heads-out: the run removed some tags' words (data.drop_tags), so "
+                         "the model gives those words no head", path=args.text,
+                         line=lines[dropped][0])
     plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                        args.batch_size)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
@@ -157,4 +197,29 @@ def run(args) -> int:
         print("\t".join(fields))
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
+    if lexicalized is not None:
+        write_heads(args, lexicalized, fmt, lines, inputs)
     return 0
+
+
+HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
+
+
+def write_heads(args, lexicalized, fmt: str, lines, inputs) -> None:
+    """--heads-out: the lexicalized model's heads of every sentence as CoNLL-U (see EXAMPLES)."""
+    from treewright.export.heads import fill_heads_conllu, heads_to_conllu
+    from treewright.safeio import write_output_text
+    from treewright.tracking import terminal_progress
+
+    heads = []
+    with terminal_progress(len(inputs), "heads") as progress:
+        for start in range(0, len(inputs), HEADS_CHUNK):
+            group = inputs[start:start + HEADS_CHUNK]
+            # [] from decode_heads: no parse, written as HEAD `_`
+            heads += [p.heads or None for p in lexicalized.parse(group, args.batch_size)]
+            progress.update(len(group))
+    if fmt == "conllu":
+        text = fill_heads_conllu(args.text, heads)
+    else:
+        text = heads_to_conllu([words for _, words in lines], heads)
+    write_output_text(args.heads_out, text)

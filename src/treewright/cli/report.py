@@ -17,7 +17,10 @@ example trees (predicted beside gold) and a span-posterior heat map. Figures are
 page needs no network and runs no script. What the run folder lacks is named on the page.
 Without --gold the run's dev corpus is used when it has trees. A sentence too long for
 --memory-budget is not parsed; the page names it. On a terminal a progress bar runs on standard
-error while the sentences are parsed.
+error while the sentences are parsed. For a lexicalized run (model.parameterization:
+lexicalized) the page adds what the model learned about words: each nonterminal's back-off
+weight and the strongest head-dependent word pairs and head-symbol pairs (as `inspect` lists
+them; the model is read back from the checkpoint and the training corpus).
 """
 
 
@@ -45,13 +48,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
+    from treewright.errors import InputError
+    from treewright.induce import lexical_summary_of
     from treewright.report.html import write_report
 
+    try:
+        lexical = lexical_summary_of(args.run)
+    except InputError as err:  # the page still opens, and says what is missing
+        lexical = f"The lexicalized model could not be read back: {err}"
     path = write_report(args.run, args.out, gold=args.gold, text=args.text,
                         grammar_path=args.grammar, decoder=args.decoder,
                         examples=args.examples, max_example_words=args.max_example_words,
                         heatmap_sentence=args.heatmap_sentence, gold_format=args.gold_format,
                         max_sentences=args.max_sentences,
-                        memory_budget_mb=args.memory_budget)
+                        memory_budget_mb=args.memory_budget, lexical=lexical)
     print(path)
     return 0

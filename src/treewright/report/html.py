@@ -521,6 +521,37 @@ def grammar_section(grammar, top: int) -> str:
     return _section("grammar", "Symbols: most probable rules and words", body)
 
 
+def lexical_section(lexical) -> str:
+    """What a lexicalized model learned about words (an `export.lexical.LexicalSummary`), or a
+    sentence saying why it is missing (`lexical` a str)."""
+    from treewright.export.lexical import BACKOFF_NOTE, HEAD_SYMBOLS_NOTE, WORD_PAIRS_NOTE
+
+    title = "Head words: back-off and strongest pairs"
+    if isinstance(lexical, str):
+        return _section("lexical", title, _missing(lexical))
+
+    def table(caption: str, heads: tuple[str, ...], rows: list[tuple]) -> str:
+        head = "".join(f"<th>{esc(h)}</th>" for h in heads)
+        body = "".join("<tr>" + "".join(
+            f"<td class='num'>{v:.3f}</td>" if isinstance(v, float) else f"<td>{esc(v)}</td>"
+            for v in row) + "</tr>" for row in rows)
+        return (f"<table class='lexical'><caption>{esc(caption)}</caption><tr>{head}</tr>"
+                f"{body}</table>")
+
+    body = ("<p>The lexicalized model (Yang, Zhao &amp; Tu 2021) gives every constituent a head "
+            "word. Its grammar above is the symbol-only back-off; these tables are what the "
+            f"word-conditioned rules add. Back-off: {esc(BACKOFF_NOTE)}. Word pairs: "
+            f"{esc(WORD_PAIRS_NOTE)}. Head-symbol pairs: {esc(HEAD_SYMBOLS_NOTE)}.</p>"
+            '<div class="figures">'
+            + table("back-off weight per nonterminal", ("symbol", "lambda"), lexical.backoff)
+            + table("strongest head-dependent word pairs", ("head", "dependent", "score"),
+                    lexical.word_pairs)
+            + table("strongest head-symbol pairs", ("symbol", "head word", "score"),
+                    lexical.head_symbols)
+            + "</div>")
+    return _section("lexical", title, body)
+
+
 def sentence_name(sentence: Sentence) -> str:
     """What a reader calls the sentence: its id where the source names it (CoNLL-U
     `# sent_id`), else its line."""
@@ -617,7 +648,7 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
                  decoder: str | None = None, examples: int = 3, max_example_words: int = 20,
                  heatmap_sentence: int = 1, top_rules: int = 6, gold_format: str = "auto",
                  max_sentences: int | None = None,
-                 memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> str:
+                 memory_budget_mb: float | None = DEFAULT_BUDGET_MB, lexical=None) -> str:
     """The HTML page (a string) for the run in `run_dir`.
 
     gold: bracketed trees or CoNLL-U, parsed with the run's grammar for F1 by length, label
@@ -631,6 +662,9 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
     max_sentences: parse only the first N gold sentences (the page says how many of how many).
     heatmap_sentence: 1-based index into the gold (else text) sentences.
     memory_budget_mb: sentences that alone need more are not parsed; the page names them.
+    lexical: for a lexicalized run, what its model learned about words
+        (`induce.lexical_summary_of`, an `export.lexical.LexicalSummary`), shown after the
+        symbols; a str says why it is missing; None (another model): no such section.
     """
     from treewright.decode import ENSEMBLE_DECODERS
     from treewright.export.source import open_restart_grammars, saved_restarts
@@ -667,6 +701,7 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         evaluation_section(parsed if with_gold else None,
                            "Needs the grammar and gold trees (--gold)."),
         grammar_section(found.grammar, top_rules),
+        *([] if lexical is None else [lexical_section(lexical)]),
         examples_section(parsed, with_gold, examples, max_example_words, reason),
         heatmap_section(found.grammar, pool, heatmap_sentence, memory_budget_mb),
     ]
@@ -682,6 +717,7 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
                       + "</ul>")
     nav = "".join(f'<a href="#{i}">{t}</a> ' for i, t in (
         ("curves", "curves"), ("evaluation", "evaluation"), ("grammar", "symbols"),
+        *([] if lexical is None else [("lexical", "head words")]),
         ("examples", "examples"), ("heatmap", "heat map"), ("config", "config")))
     config = (_missing(f"No {CONFIG}.") if found.config_text is None
               else f"<pre>{esc(found.config_text)}</pre>")

@@ -1,0 +1,231 @@
+"""The lexicalized model through the commands: `parse --heads-out` writes the induced heads as
+CoNLL-U, `evaluate` scores that file, and `inspect` and the report list what the model learned
+about words.
+
+One tiny run is trained once for the module (60 sentences of the invented head-final language
+of scripts/make_headed_language.py, three epochs, small sizes); its gold test file carries the
+language's true heads. References: `decode.decode_heads` called directly (the heads), the
+`conllu` package reading the written file (the columns kept), `evaluate_attachment` called
+directly (the scores), and dense score tables formed by explicit loops (the listed pairs).
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+import math
+import re
+import sys
+from pathlib import Path
+
+import conllu
+import pytest
+import torch
+
+from treewright.cli import main
+from treewright.corpus import parse_brackets
+from treewright.decode import decode_heads
+from treewright.evaluation import BracketConventions
+from treewright.evaluation.dependencies import Dependencies, evaluate_attachment
+from treewright.induce import load_lexicalized
+
+REPO = Path(__file__).resolve().parents[1]
+CONFIG = REPO / "configs" / "lexicalized_demo.yaml"
+sys.path.insert(0, str(REPO / "scripts"))
+_spec = importlib.util.spec_from_file_location("make_headed_language",
+                                               REPO / "scripts" / "make_headed_language.py")
+headed = importlib.util.module_from_spec(_spec)
+sys.modules.setdefault("make_headed_language", headed)
+_spec.loader.exec_module(headed)
+
+
+@pytest.fixture(scope="module")
+def trained(tmp_path_factory):
+    """(run folder, folder of the head-final files): a lexicalized run of three epochs."""
+    root = tmp_path_factory.mktemp("lexwire")
+    headed.write_order("head-final", root, 60, 12, 8, 0)
+    data = root / "head-final"
+    run = root / "run"
+    assert main(["train", str(CONFIG), f"data.train={data / 'train.txt'}", "data.dev=null",
+                 "model.nonterminals=3", "model.preterminals=6", "model.head_classes=4",
+                 "model.embedding_dim=16", "train.epochs=3", "train.dtype=float64",
+                 "optimizer.lr=0.01", "optimizer.warmup_steps=0", f"output.run_dir={run}",
+                 "output.progress=false", "output.stdout_metrics=false",
+                 "output.tensorboard=false"]) == 0
+    return run, data
+
+
+def _reference_heads(run: Path, sentences: list[list[str]]) -> list[list[int]]:
+    # Reference: decode.decode_heads on the model read back from the run, called directly.
+    loaded = load_lexicalized(run)
+    return [p.heads for p in decode_heads(loaded.model, loaded.vocab, sentences,
+                                          loaded.nonterminals, loaded.preterminals)]
+
+
+def test_parse_writes_the_decoded_heads_into_the_conllu_input(trained, tmp_path, capsys):
+    run, data = trained
+    gold_path = data / "test.conllu"
+    out = tmp_path / "pred.conllu"
+    assert main(["parse", str(run), str(gold_path), "--heads-out", str(out)]) == 0
+    printed = capsys.readouterr().out.splitlines()
+    gold = conllu.parse(gold_path.read_text(encoding="utf-8"))
+    pred = conllu.parse(out.read_text(encoding="utf-8"))
+    assert len(printed) == len(gold) == len(pred) == 12   # one tree per sentence block, as today
+    words = [[t["form"] for t in s] for s in gold]
+    # The printed trees are over each block's words (a CoNLL-U TEXT is read by its FORMs).
+    assert [parse_brackets(line)[0].leaves() for line in printed] == words
+    heads = [[t["head"] for t in s] for s in pred]
+    assert all(h for h in heads)       # the model parses every test sentence (unknown-word token)
+    assert heads == _reference_heads(run, words)
+    # Reference: the conllu package; every column but HEAD and DEPREL is the input's, and the
+    # comments (sent_id, text, tree) are kept.
+    for g, p in zip(gold, pred):
+        assert p.metadata == g.metadata
+        for gt, pt in zip(g, p):
+            for column in ("id", "form", "lemma", "upos", "xpos", "feats", "deps", "misc"):
+                assert pt[column] == gt[column]
+            assert pt["deprel"] == "_"
+
+    # evaluate on the written file gives what evaluate_attachment gives called directly on the
+    # same heads and the gold Dependencies (the gold tags mark the final mark as PUNCT).
+    scores = tmp_path / "scores.json"
+    assert main(["evaluate", str(out), str(gold_path), "--json", str(scores)]) == 0
+    got = json.loads(scores.read_text())["attachment"]
+    want = evaluate_attachment(
+        heads, [Dependencies(tuple(t["form"] for t in s), tuple(t["head"] for t in s),
+                             tuple(t["upos"] for t in s)) for s in gold], BracketConventions())
+    for system in ("model", "left_chain", "right_chain"):
+        assert got["systems"][system]["directed"] == want.systems[system].directed
+        assert got["systems"][system]["undirected"] == want.systems[system].undirected
+    assert got["systems"]["model"]["words"] == want.systems["model"].words > 0
+
+
+def test_parse_writes_words_and_heads_from_raw_text(trained, tmp_path):
+    run, data = trained
+    text = tmp_path / "test.txt"
+    lines = (data / "test.txt").read_text(encoding="utf-8").splitlines()
+    text.write_text(lines[0] + "\n\n" + "\n".join(lines[1:4]) + "\n", encoding="utf-8")
+    out = tmp_path / "pred.conllu"
+    assert main(["parse", str(run), str(text), "--heads-out", str(out)]) == 0
+    pred = conllu.parse(out.read_text(encoding="utf-8"))
+    words = [line.split() for line in lines[:4]]    # the blank line is no sentence
+    assert [[t["form"] for t in s] for s in pred] == words
+    assert [[t["head"] for t in s] for s in pred] == _reference_heads(run, words)
+    # Reference: the CoNLL-U standard's ten columns; ID from 1, everything unknown is `_`.
+    for s in pred:
+        assert [t["id"] for t in s] == list(range(1, len(s) + 1))
+    rows = [line.split("\t") for line in out.read_text(encoding="utf-8").splitlines()
+            if line and not line.startswith("#")]
+    assert len(rows) == sum(map(len, words))
+    assert all(len(r) == 10 and all(r[c] == "_" for c in (2, 3, 4, 5, 7, 8, 9)) for r in rows)
+
+
+def test_heads_out_refuses_a_model_without_heads(trained, tmp_path, capsys):
+    run, data = trained
+    out = tmp_path / "pred.conllu"
+    for grammar in (REPO / "src/treewright/data/examples/astronomers.pcfg", run / "grammar.pcfg"):
+        assert main(["parse", str(grammar), str(data / "test.txt"), "--heads-out",
+                     str(out)]) == 1
+        err = capsys.readouterr().err
+        assert "--heads-out needs a lexicalized model's run folder" in err and str(grammar) in err
+        assert not out.exists()
+
+
+def _dense_tables(run: Path):
+    """The model's own score tables, formed whole by explicit loops over the small vocabulary
+    (the reference for what `inspect` and the report list): word pairs, head-symbol pairs and
+    back-off weights, by the definitions in the docstrings of params/lexicalized.py."""
+    loaded = load_lexicalized(run)
+    model, words = loaded.model, loaded.vocab.words
+    names = loaded.nonterminals + loaded.preterminals
+    with torch.no_grad():
+        head = model.head_classes(model.word_embeddings).exp().tolist()     # [V][NT][R]
+        dep = model.dependent_words().exp().tolist()                         # [R][V]
+        child = model.dependent_children().exp().tolist()                    # [R][S]
+        prior = model.class_prior().exp().tolist()                           # [R]
+        logits = model.backoff_logits.tolist()                               # [NT]
+    V, NT, R, S = len(words), len(logits), len(prior), len(names)
+    pairs = {}
+    for x in range(V):
+        for y in range(V):
+            given = sum(head[x][a][r] * dep[r][y] for a in range(NT) for r in range(R)) / NT
+            backoff = sum(prior[r] * dep[r][y] for r in range(R))
+            pairs[words[x], words[y]] = math.log(given) - math.log(backoff)
+    joint = [[sum(prior[r] * child[r][c] * dep[r][x] for r in range(R)) for x in range(V)]
+             for c in range(S)]
+    total = sum(map(sum, joint))
+    pc = [sum(row) / total for row in joint]
+    px = [sum(joint[c][x] for c in range(S)) / total for x in range(V)]
+    symbols = {(names[c], words[x]): math.log(joint[c][x] / total / pc[c] / px[x])
+               for c in range(S) for x in range(V)}
+    lambdas = [(names[a], 1 / (1 + math.exp(-logits[a]))) for a in range(NT)]
+    return pairs, symbols, lambdas
+
+
+def _top(table: dict, k: int) -> list[tuple]:
+    return [(*key, value) for key, value in sorted(table.items(), key=lambda kv: -kv[1])[:k]]
+
+
+def _listed(lines: list[str], title: str, k: int) -> list[list[str]]:
+    start = lines.index(title) + 3          # the title, its scoring note, the column heads
+    return [line.split() for line in lines[start:start + k]]
+
+
+def test_inspect_and_report_list_the_top_of_the_dense_tables(trained, tmp_path, capsys):
+    run, _ = trained
+    k = 6
+    pairs, symbols, lambdas = _dense_tables(run)
+    assert main(["inspect", str(run), "--pairs", str(k)]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    for title, table in (("strongest head-dependent word pairs", pairs),
+                         ("strongest head-symbol pairs", symbols)):
+        listed = _listed(lines, title, k)
+        want = _top(table, k)
+        assert [tuple(row[1:]) for row in listed] == [w[:2] for w in want]
+        assert all(abs(float(row[0]) - w[2]) <= 5e-4 for row, w in zip(listed, want))
+    listed = _listed(lines, "back-off weight per nonterminal", len(lambdas))
+    assert [row[0] for row in listed] == [a for a, _ in lambdas]
+    assert all(abs(float(row[1]) - w) <= 5e-4 for row, (_, w) in zip(listed, lambdas))
+
+    # The report shows the same three tables, in the same order, with the same scores.
+    page = tmp_path / "report.html"
+    assert main(["report", str(run), "--out", str(page)]) == 0
+    text = page.read_text(encoding="utf-8")
+    tables = re.findall(r"<table class='lexical'>(.*?)</table>", text)
+    assert len(tables) == 3 and 'href="#lexical"' in text
+    rows = [[re.findall(r"<td[^>]*>(.*?)</td>", row) for row in re.findall(r"<tr>(.*?)</tr>", t)
+             if "<td" in row] for t in tables]
+    assert [(r[0], float(r[1])) for r in rows[0]] == [(a, round(w, 3)) for a, w in lambdas]
+    for got, table in zip(rows[1:], (pairs, symbols)):
+        want = _top(table, 10)                       # the report shows the default ten
+        assert [tuple(r[:2]) for r in got] == [w[:2] for w in want]
+        assert all(abs(float(r[2]) - w[2]) <= 5e-4 for r, w in zip(got, want))
+
+
+def test_inspect_and_report_of_other_grammars_have_no_head_words(tmp_path, capsys):
+    # A grammar file has no lexicalized model: the listing alone, and no such report section.
+    grammar = REPO / "src/treewright/data/examples/astronomers.pcfg"
+    assert main(["inspect", str(grammar)]) == 0
+    assert "head-dependent" not in capsys.readouterr().out
+    assert main(["inspect", str(grammar), "--pairs", "0"]) == 1
+    assert "--pairs wants a positive count" in capsys.readouterr().err
+
+
+def test_heads_out_refuses_words_the_run_removed(trained, tmp_path, capsys):
+    # A run on tags that removed the PUNCT words (data.drop_tags) has no head for them, so the
+    # heads file is refused, naming the first sentence with such a word, before any decoding.
+    _, data = trained
+    run = tmp_path / "tags"
+    assert main(["train", str(CONFIG), f"data.train={data / 'train.conllu'}", "data.dev=null",
+                 "data.tag_mode=true", "data.drop_tags=PUNCT", "model.nonterminals=2",
+                 "model.preterminals=3", "model.head_classes=2", "model.embedding_dim=8",
+                 "train.epochs=1", f"output.run_dir={run}", "output.progress=false",
+                 "output.stdout_metrics=false", "output.tensorboard=false"]) == 0
+    capsys.readouterr()
+    out = tmp_path / "pred.conllu"
+    gold = data / "test.conllu"
+    assert main(["parse", str(run), str(gold), "--heads-out", str(out)]) == 1
+    captured = capsys.readouterr()
+    assert captured.out == "" and not out.exists()
+    # Every test sentence ends with the final mark, so the first block (line 1) is named.
+    assert f"{gold}, line 1: --heads-out" in captured.err and "data.drop_tags" in captured.err
