@@ -32,6 +32,7 @@ import numpy as np
 
 from treewright.adaptor.model import Cache, Rules, Tree, _from_json, _to_json
 from treewright.adaptor.proposal import ProposalChart
+from treewright.adaptor.segment import lexicon, segment
 from treewright.errors import InputError
 from treewright.grammar import Grammar, parse_grammar
 
@@ -178,6 +179,23 @@ class AdaptorSampler:
 
     def trees(self, chain: int = 0) -> list[Tree]:
         return [a.tree for a in self.chains[chain].analyses]
+
+    def segmentations(self, symbol: str, chain: int = 0) -> list[list[str]]:
+        """Each sentence cut at the edges of its top-most `symbol` subtrees (`segment`)."""
+        a = self._symbol(symbol)
+        return [segment(t, a, words) for t, words in zip(self.trees(chain), self.words)]
+
+    def lexicon(self, symbol: str, chain: int = 0) -> list[tuple[str, int, int]]:
+        """The cached subtrees of an adapted symbol: (characters, customers, tables)."""
+        a = self._symbol(symbol)
+        if not self.rules.adapted[a]:
+            raise ValueError(f"{symbol} is not adapted")
+        return lexicon(self.chains[chain].cache, a, self.grammar.vocab.words)
+
+    def _symbol(self, name: str) -> int:
+        if name not in self.rules.names:
+            raise ValueError(f"the grammar has no symbol {name}")
+        return self.rules.names.index(name)
 
     # ---- the checkpoint ----------------------------------------------------------------------
 
