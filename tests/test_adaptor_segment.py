@@ -103,3 +103,33 @@ def test_sampler_segmentations_and_lexicon():
     assert {w for s in segs for w in s} == {text for text, _, _ in lex}
     with pytest.raises(ValueError, match="Chars is not adapted"):
         sampler.lexicon("Chars")
+
+
+def test_unigram_word_grammar_by_hand():
+    from treewright.adaptor import Cache, Rules
+    from treewright.adaptor.grammars import unigram_word_grammar
+    g = unigram_word_grammar("abba", discount=0.25, concentration=3.0)
+    assert g.adapted == {"Word": (0.25, 3.0)}
+    assert g.normalization_error() < 1e-12  # each left-hand side sums to one (common practice)
+    assert parse_grammar(g.to_text()).to_text() == g.to_text()
+    ids = {n: i for i, n in enumerate(g.symbols)}
+    a, b = g.vocab.index["a"], g.vocab.index["b"]
+    cache = Cache(Rules.from_grammar(g))
+    # By hand, alphabet {a, b}, continuation 0.5: the base spells "ab" as Word -> Char Chars
+    # (0.5), Char -> a (1/2), Chars -> b (0.5 * 1/2): 1/16; the first Word always opens a table.
+    assert cache.predictive((ids["Word"], (ids["Char"], a), (ids["Chars"], b))) == \
+        pytest.approx(1 / 16)
+    # A one-character word: Word -> a, 0.5 * 1/2.
+    assert cache.predictive((ids["Word"], a)) == pytest.approx(1 / 4)
+
+
+def test_the_readme_example_runs(tmp_path, monkeypatch, capsys):
+    from pathlib import Path
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    section = readme.split("### Adaptor grammars", 1)[1]
+    block = section.split("```python\n", 1)[1].split("```", 1)[0]
+    monkeypatch.chdir(tmp_path)
+    exec(compile(block, "README.md", "exec"), {})
+    printed = capsys.readouterr().out.splitlines()
+    assert 0.0 <= float(printed[0]) <= 1.0
+    assert AdaptorSampler.load(tmp_path / "chains.json").state()["sentences"][1] == list("markelu")
