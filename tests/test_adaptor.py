@@ -54,6 +54,14 @@ Part -> "a" 0.4
 Part -> "b" 0.4
 """
 
+# The start symbol itself adapted and recursive, with a negative concentration (allowed: b > -a).
+SELF = """@start S
+@adapted S discount 0.5 concentration -0.25
+S -> S S 0.3
+S -> "a" 0.35
+S -> "b" 0.35
+"""
+
 
 # ---- the brute-force reference (independent of treewright.adaptor) -------------------------
 
@@ -160,7 +168,8 @@ def test_proposal_chart_sums_the_predictive_of_every_tree(text):
 @pytest.mark.parametrize("text,sentences", [
     (WORDS, ["ab", "ab", "aba"]),  # 16 joint analyses
     (NESTED, ["aab", "aa"]),       # 10 joint analyses, nested adaptors, ambiguous labels
-])
+    (SELF, ["aab", "aaba"]),       # 10 joint analyses, the start symbol adapted
+], ids=["unigram-words", "nested", "adapted-start"])
 def test_stationary_distribution_matches_the_exact_posterior(text, sentences):
     g = parse_grammar(text)
     exact = exact_posterior(g, sentences)
