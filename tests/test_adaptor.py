@@ -316,3 +316,8 @@ def test_a_damaged_checkpoint_is_refused(tmp_path):
     bad.write_text("{")
     with pytest.raises(InputError, match="not a JSON checkpoint"):
         AdaptorSampler.load(bad)
+    good = AdaptorSampler(parse_grammar(WORDS), ["ab"], seed=0).state()
+    del good["chains"][0]["cache"]
+    bad.write_text(json.dumps(good))
+    with pytest.raises(InputError, match="c.json: the checkpoint's chains are malformed"):
+        AdaptorSampler.load(bad)

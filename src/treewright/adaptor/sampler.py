@@ -228,13 +228,17 @@ class AdaptorSampler:
             raise InputError(f"not a checkpoint of adaptor chains, version "
                              f"{CHECKPOINT_VERSION}", path=source)
         sampler = cls.__new__(cls)
-        sampler.grammar = parse_grammar(state["grammar"], source=source)
+        sampler.grammar = parse_grammar(state.get("grammar", ""), source=source)
         sampler.rules = Rules.from_grammar(sampler.grammar)
-        sampler.words = [list(s) for s in state["sentences"]]
-        sampler.sentences = _encode(sampler.grammar, sampler.words, source)
-        sampler.seed = state["seed"]
-        sampler.chains = [Chain.from_state(sampler.rules, sampler.sentences, c)
-                          for c in state["chains"]]
+        try:
+            sampler.words = [list(s) for s in state["sentences"]]
+            sampler.sentences = _encode(sampler.grammar, sampler.words, source)
+            sampler.seed = state["seed"]
+            sampler.chains = [Chain.from_state(sampler.rules, sampler.sentences, c)
+                              for c in state["chains"]]
+        except (KeyError, TypeError, ValueError, IndexError) as err:
+            raise InputError(f"the checkpoint's chains are malformed ({type(err).__name__}: "
+                             f"{err})", path=source) from None
         return sampler
 
 
