@@ -92,9 +92,9 @@ class Table:
 # choose(table ids with this label, weights of those tables then of a new one) -> index into
 # the weights
 Chooser = Callable[[list[int], list[float]], int]
-# Where an analysis's customers sit: per top customer (its table, the same for the customers of
-# that table's label's children), in seating order. It describes the seating whichever
-# sentence opened each table, so an analysis taken out can be put back exactly.
+# Where an analysis's customers sit: per top customer, in seating order, (its table, the Plan
+# of that table's label's adapted children). It describes the seating whichever sentence
+# opened each table, so an analysis taken out can be put back exactly.
 Plan = list[tuple[int, list]]
 
 
