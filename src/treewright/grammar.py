@@ -24,6 +24,12 @@ Grammar text format (ours; see the README):
     NP -> "stars" 0.18       lexical rule; terminals are double-quoted, \\" and \\\\ escape
     ROOT -> S 0.7            unary rules only from the start symbol: they give the root
                              distribution (then the start symbol has no other rules)
+    @adapted Word discount 0 concentration 1.5
+                             Word is adapted: a Pitman-Yor process with that discount a
+                             (0 <= a < 1) and concentration b (b > -a) caches its subtrees,
+                             with the rules of Word as its base (`treewright.adaptor`; optional,
+                             one line per adapted symbol, anywhere in the file). A PCFG reader
+                             ignores it: the rules alone are the base grammar.
 
 Probabilities are printed with 17 significant digits, so load, save, load is exact in float64.
 
@@ -49,7 +55,7 @@ import hashlib
 import logging
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
@@ -121,6 +127,9 @@ class Grammar:
     binary: torch.Tensor   # (NT, S, S) log-probs
     lexical: torch.Tensor  # (S, V) log-probs
     start: str = "ROOT"
+    # {symbol: (discount a, concentration b)} of the Pitman-Yor adaptors of an adaptor grammar
+    # (`@adapted` lines); empty for a plain PCFG, and nothing but `treewright.adaptor` reads it.
+    adapted: dict[str, tuple[float, float]] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         nt, s, v = len(self.nonterminals), self.num_symbols, len(self.vocab)
@@ -150,7 +159,8 @@ class Grammar:
 
     def to(self, dtype: torch.dtype) -> "Grammar":
         return Grammar(self.nonterminals, self.preterminals, self.vocab, self.root.to(dtype),
-                       self.binary.to(dtype), self.lexical.to(dtype), self.start)
+                       self.binary.to(dtype), self.lexical.to(dtype), self.start,
+                       dict(self.adapted))
 
     def normalization_error(self) -> float:
         """Largest |1 - sum of probabilities| over all left-hand sides and the root."""
@@ -170,6 +180,9 @@ class Grammar:
             lines.append(f"@unknown {quote(self.vocab.unk)}")
         if self.vocab.shapes is not None:
             lines.append(f"@word-shapes {self.vocab.shapes}")
+        for name, (discount, concentration) in self.adapted.items():
+            lines.append(f"@adapted {name} discount {discount!r} concentration "
+                         f"{concentration!r}")
         names = self.symbols
         if not self.root_is_symbol:
             for a in range(len(self.nonterminals)):
@@ -251,6 +264,7 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
     start: str | None = None
     unk: str | None = None
     shapes: int | None = None
+    adapted: dict[str, tuple[float, float, int]] = {}  # {symbol: (a, b, line)}
     # (lhs, rhs tuple, probability, line); rhs items are ("sym", name) or ("word", w)
     rules: list[tuple[str, tuple[tuple[str, str], ...], float, int]] = []
     # Only \n, \r\n and \r end a line (str.splitlines also splits at \v, \f and others, and
@@ -275,6 +289,12 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
                     raise InputError(f"word shape scheme {parts[1].strip()!r} is not supported "
                                      f"(this treewright has scheme {SHAPE_SCHEME})", **where)
                 shapes = SHAPE_SCHEME
+            elif parts[0] == "@adapted":
+                name, discount, concentration = _adapted_line(parts[1:], raw, where)
+                if name in adapted:
+                    raise InputError(f"{name} is adapted twice (first on line "
+                                     f"{adapted[name][2]})", **where)
+                adapted[name] = (discount, concentration, lineno)
             elif parts[0] == "@format" and len(parts) == 2:
                 if parts[1].strip() != str(FORMAT_VERSION):
                     raise InputError(f"grammar format version {parts[1].strip()!r} is not "
@@ -283,7 +303,8 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
             else:
                 raise InputError(f"unknown or malformed directive {raw.strip()!r} "
                                  "(expected '@start SYMBOL', '@unknown \"WORD\"', "
-                                 f"'@word-shapes {SHAPE_SCHEME}' or '@format 1')", **where)
+                                 f"'@word-shapes {SHAPE_SCHEME}', '@adapted SYMBOL discount A "
+                                 "concentration B' or '@format 1')", **where)
             continue
         tokens = _TOKEN.findall(line)
         # Well formed: the tokens cover every character but spaces. (Written as one pattern,
@@ -320,10 +341,41 @@ def parse_grammar(text: str, source: str = "<string>", renormalize: bool = False
         name for _, rhs, _, _ in rules for kind, name in rhs if kind == "sym"], source)
     if renames:
         start = renames.get(start, start)
+        adapted = {renames.get(name, name): spec for name, spec in adapted.items()}
         rules = [(renames.get(lhs, lhs),
                   tuple((kind, renames.get(name, name) if kind == "sym" else name)
                         for kind, name in rhs), prob, line) for lhs, rhs, prob, line in rules]
-    return _build(rules, start, unk, shapes, source, renormalize, tolerance)
+    grammar = _build(rules, start, unk, shapes, source, renormalize, tolerance)
+    for name, (discount, concentration, line) in adapted.items():
+        if name not in grammar.symbols:
+            what = "has only the unary rules of the root distribution" if name == start \
+                else "has no rules"
+            raise InputError(f"the adapted symbol {name} {what}; an adapted symbol needs rules "
+                             "of its own (they are its base distribution)", path=source,
+                             line=line)
+        grammar.adapted[name] = (discount, concentration)
+    return grammar
+
+
+def _adapted_line(words: list[str], raw: str, where: dict) -> tuple[str, float, float]:
+    """(symbol, discount, concentration) of an '@adapted' line (its words after the
+    directive); the Pitman-Yor process needs 0 <= a < 1 and b > -a (Pitman & Yor 1997)."""
+    items = words[0].split() if words else []
+    if len(items) != 5 or items[1] != "discount" or items[3] != "concentration" \
+            or items[0].startswith('"'):
+        raise InputError(f"malformed directive {raw.strip()!r} (expected '@adapted SYMBOL "
+                         "discount A concentration B')", **where)
+    try:
+        discount, concentration = float(items[2]), float(items[4])
+    except ValueError:
+        raise InputError(f"malformed directive {raw.strip()!r}: discount and concentration "
+                         "are numbers", **where) from None
+    if not 0.0 <= discount < 1.0:  # also rejects NaN
+        raise InputError(f"discount {items[2]} of {items[0]} is outside [0, 1)", **where)
+    if not (concentration > -discount and math.isfinite(concentration)):
+        raise InputError(f"concentration {items[4]} of {items[0]} must be finite and greater "
+                         f"than minus the discount ({-discount!r})", **where)
+    return items[0], discount, concentration
 
 
 def _strip_comment(line: str) -> str:

@@ -8,6 +8,8 @@ knows nothing of training. Modules:
   heads beside the left-chain and right-chain baselines, all conventions stated.
 - `tags`: `evaluate_tags`, many-to-one accuracy and V-measure of induced preterminals.
 - `likelihood`: `heldout_likelihood`, log-likelihood per word and perplexity.
+- `segmentation`: `evaluate_segmentation`, boundary and token precision, recall and F1 of a
+  segmentation of unsegmented text against the gold one.
 """
 
 from treewright.evaluation.brackets import (DEFAULT_PUNCTUATION_TAGS, DEFAULT_PUNCTUATION_TOKENS,
@@ -17,6 +19,8 @@ from treewright.evaluation.dependencies import (AttachmentScores, Dependencies,
                                                 DependencyEvaluation, evaluate_attachment,
                                                 left_chain, right_chain)
 from treewright.evaluation.likelihood import LikelihoodScores, heldout_likelihood
+from treewright.evaluation.segmentation import (PRF, SegmentationScores,
+                                                evaluate_segmentation)
 from treewright.evaluation.spans import (Bracketing, binary_upper_bound, left_branching, left_branching_tree,
                                          random_binary, right_branching, right_branching_tree, spans_to_tree)
 from treewright.evaluation.tags import (TagScores, evaluate_tags, preterminal_labels,
@@ -31,4 +35,5 @@ __all__ = [
     "left_chain", "right_chain",
     "TagScores", "evaluate_tags", "preterminal_labels", "words_over_tags",
     "LikelihoodScores", "heldout_likelihood",
+    "PRF", "SegmentationScores", "evaluate_segmentation",
 ]

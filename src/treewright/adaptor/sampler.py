@@ -1,0 +1,257 @@
+"""Sentence-blocked Metropolis-Hastings for adaptor grammars, with several chains and a JSON
+checkpoint from which a run resumes bit for bit.
+
+Johnson, Griffiths & Goldwater 2007, "Adaptor Grammars: A Framework for Specifying
+Compositional Nonparametric Bayesian Models", section 4: for each sentence in turn, its
+analysis is taken out of the restaurants, a new tree is drawn from the PCFG approximation of
+the rest (`proposal.ProposalChart`), and accepted with the Metropolis-Hastings probability
+
+    min(1, P(new) R(old) Q(old) / (P(old) R(new) Q(new)))
+
+The state is the trees with their seating (which table each customer sits at). P is the
+probability of a sentence's rules and seating choices under the generative process given
+every other sentence (customers of one sentence see those seated before them, so a table it
+opens can serve it again). Q is the proposal's probability of the tree. R is the probability
+of the seating given the tree: the new tree's customers are seated one by one among the tables
+with their label and a new table, in proportion to their probabilities (`Cache.seat`). The
+ratio is therefore the exact one on the joint state, whose tree marginal is the adaptor
+grammar's posterior.
+
+Base rule probabilities stay fixed at the grammar's values; the discount and concentration of
+each adaptor too (no hyperparameter sampling).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+from typing import Callable, Sequence
+
+import numpy as np
+
+from treewright.adaptor.model import Cache, Rules, Tree, _from_json, _to_json
+from treewright.adaptor.proposal import ProposalChart
+from treewright.adaptor.segment import lexicon, segment
+from treewright.errors import InputError
+from treewright.grammar import Grammar, parse_grammar
+
+CHECKPOINT_KIND = "treewright adaptor chains"
+CHECKPOINT_VERSION = 1
+
+
+class Analysis:
+    """One sentence's tree and the tables its own customers sit at (`tops`)."""
+
+    __slots__ = ("tree", "tops")
+
+    def __init__(self, tree: Tree, tops: list[int]):
+        self.tree, self.tops = tree, tops
+
+
+class Chain:
+    """One Markov chain: its restaurants, the analysis of every sentence, and its random
+    generator (PCG64, whose state a checkpoint stores)."""
+
+    def __init__(self, rules: Rules, sentences: list[list[int]], rng: np.random.Generator):
+        self.rules, self.sentences, self.rng = rules, sentences, rng
+        self.cache = Cache(rules)
+        self.analyses: list[Analysis] = []
+        self.sweeps = 0
+        self.proposed = 0
+        self.accepted = 0
+
+    def initialize(self) -> None:
+        """Each sentence in order gets a tree drawn from the proposal given those before it
+        (a draw of the generative process' sequential approximation; no rejection)."""
+        for words in self.sentences:
+            tree = ProposalChart(self.cache, words).sample(self.rng)
+            tops, _, _ = self.cache.seat(tree, self._draw_seat)
+            self.analyses.append(Analysis(tree, tops))
+
+    def sweep(self) -> None:
+        """One Metropolis-Hastings step for every sentence, in corpus order."""
+        for k in range(len(self.sentences)):
+            self.step(k)
+        self.sweeps += 1
+
+    def step(self, k: int) -> bool:
+        """Resample sentence k's analysis; True when the proposal was accepted."""
+        old = self.analyses[k]
+        cache, root = self.cache, self.rules.root
+        plan = cache.plan(old.tops)
+        cache.unseat(old.tops)
+        chart = ProposalChart(cache, self.sentences[k])
+        tree = chart.sample(self.rng)
+        # Q and P both include the root rule (it differs between trees with other tops).
+        log_q_old = math.log(root[old.tree[0]] * cache.predictive(old.tree))
+        log_q_new = math.log(root[tree[0]] * cache.predictive(tree))
+        # P and R of the old seating, replayed in the state without it, then taken out again.
+        tops, logp_old, logr_old = cache.seat(old.tree, plan=plan)
+        cache.unseat(tops)
+        tops, logp_new, logr_new = cache.seat(tree, self._draw_seat)
+        logp_old += math.log(root[old.tree[0]])
+        logp_new += math.log(root[tree[0]])
+        log_ratio = (logp_new - logr_new - log_q_new) - (logp_old - logr_old - log_q_old)
+        self.proposed += 1
+        if log_ratio >= 0.0 or self.rng.random() < math.exp(log_ratio):
+            self.analyses[k] = Analysis(tree, tops)
+            self.accepted += 1
+            return True
+        cache.unseat(tops)
+        tops, _, _ = cache.seat(old.tree, plan=plan)
+        self.analyses[k] = Analysis(old.tree, tops)
+        return False
+
+    def _draw_seat(self, ids: list[int], weights: list[float]) -> int:
+        total = math.fsum(weights)
+        u = self.rng.random() * total
+        acc = 0.0
+        for pick, w in enumerate(weights):
+            acc += w
+            if u < acc:
+                return pick
+        return max(p for p, w in enumerate(weights) if w > 0.0)
+
+    def log_joint(self) -> float:
+        """log P of every tree and seating, the sentences seated in corpus order from empty
+        restaurants (the seating is exchangeable, so the order does not change the value)."""
+        fresh = Cache(self.rules)
+        total = 0.0
+        for analysis in self.analyses:
+            _, logp, _ = fresh.seat(analysis.tree, plan=self.cache.plan(analysis.tops))
+            total += logp + math.log(self.rules.root[analysis.tree[0]])
+        return total
+
+    def state(self) -> dict:
+        return {"rng": self.rng.bit_generator.state, "sweeps": self.sweeps,
+                "proposed": self.proposed, "accepted": self.accepted,
+                "cache": self.cache.state(),
+                "analyses": [[_to_json(a.tree), a.tops] for a in self.analyses]}
+
+    @classmethod
+    def from_state(cls, rules: Rules, sentences: list[list[int]], state: dict) -> "Chain":
+        bits = np.random.PCG64()
+        bits.state = state["rng"]
+        chain = cls(rules, sentences, np.random.Generator(bits))
+        chain.sweeps, chain.proposed = state["sweeps"], state["proposed"]
+        chain.accepted = state["accepted"]
+        chain.cache = Cache.from_state(rules, state["cache"])
+        chain.analyses = [Analysis(_from_json(t), list(tops)) for t, tops in state["analyses"]]
+        return chain
+
+
+class AdaptorSampler:
+    """Several independent chains of the Metropolis-Hastings sampler over one corpus.
+
+    grammar    a `Grammar` with `@adapted` symbols (one without any is a plain PCFG, and the
+               sampler then draws exact posterior trees: every proposal is accepted)
+    sentences  lists of terminals of the grammar (words, or characters: `segment.characters`)
+    chains     the number of chains; chain c draws from the c-th child of `seed`'s
+               `numpy.random.SeedSequence`, so chains are independent and reproducible
+    """
+
+    def __init__(self, grammar: Grammar, sentences: Sequence[Sequence[str]], chains: int = 1,
+                 seed: int = 0, source: str = "<sentences>"):
+        if chains < 1:
+            raise ValueError("chains must be at least 1")
+        self.grammar = grammar
+        self.rules = Rules.from_grammar(grammar)
+        self.words = [list(s) for s in sentences]
+        self.sentences = _encode(grammar, self.words, source)
+        self.seed = seed
+        self.chains: list[Chain] = []
+        for child in np.random.SeedSequence(seed).spawn(chains):
+            chain = Chain(self.rules, self.sentences, np.random.Generator(np.random.PCG64(child)))
+            chain.initialize()
+            self.chains.append(chain)
+
+    def run(self, sweeps: int, progress: Callable[[int, int], None] | None = None) -> None:
+        """`sweeps` more sweeps of every chain; `progress(done, total)` after each sweep."""
+        total = sweeps * len(self.chains)
+        done = 0
+        for chain in self.chains:
+            for _ in range(sweeps):
+                chain.sweep()
+                done += 1
+                if progress is not None:
+                    progress(done, total)
+
+    def trees(self, chain: int = 0) -> list[Tree]:
+        return [a.tree for a in self.chains[chain].analyses]
+
+    def segmentations(self, symbol: str, chain: int = 0) -> list[list[str]]:
+        """Each sentence cut at the edges of its top-most `symbol` subtrees (`segment`)."""
+        a = self._symbol(symbol)
+        return [segment(t, a, words) for t, words in zip(self.trees(chain), self.words)]
+
+    def lexicon(self, symbol: str, chain: int = 0) -> list[tuple[str, int, int]]:
+        """The cached subtrees of an adapted symbol: (characters, customers, tables)."""
+        a = self._symbol(symbol)
+        if not self.rules.adapted[a]:
+            raise ValueError(f"{symbol} is not adapted")
+        return lexicon(self.chains[chain].cache, a, self.grammar.vocab.words)
+
+    def _symbol(self, name: str) -> int:
+        if name not in self.rules.names:
+            raise ValueError(f"the grammar has no symbol {name}")
+        return self.rules.names.index(name)
+
+    # ---- the checkpoint ----------------------------------------------------------------------
+
+    def state(self) -> dict:
+        """Everything a resumed run needs, as JSON values: the grammar's text, the sentences
+        and each chain's restaurants, analyses and generator state."""
+        return {"kind": CHECKPOINT_KIND, "version": CHECKPOINT_VERSION,
+                "grammar": self.grammar.to_text(), "sentences": self.words, "seed": self.seed,
+                "chains": [chain.state() for chain in self.chains]}
+
+    def save(self, path: str | Path) -> None:
+        from treewright.safeio import atomic_write_text
+        atomic_write_text(Path(path), json.dumps(self.state()) + "\n")
+
+    @classmethod
+    def load(cls, path: str | Path) -> "AdaptorSampler":
+        path = Path(path)
+        try:
+            state = json.loads(path.read_text(encoding="utf-8"))
+        except FileNotFoundError:
+            raise InputError("no such checkpoint", path=str(path)) from None
+        except (UnicodeDecodeError, json.JSONDecodeError) as err:
+            raise InputError(f"not a JSON checkpoint ({err})", path=str(path)) from None
+        return cls.from_state(state, source=str(path))
+
+    @classmethod
+    def from_state(cls, state: dict, source: str = "<checkpoint>") -> "AdaptorSampler":
+        if not isinstance(state, dict) or state.get("kind") != CHECKPOINT_KIND \
+                or state.get("version") != CHECKPOINT_VERSION:
+            raise InputError(f"not a checkpoint of adaptor chains, version "
+                             f"{CHECKPOINT_VERSION}", path=source)
+        sampler = cls.__new__(cls)
+        sampler.grammar = parse_grammar(state.get("grammar", ""), source=source)
+        sampler.rules = Rules.from_grammar(sampler.grammar)
+        try:
+            sampler.words = [list(s) for s in state["sentences"]]
+            sampler.sentences = _encode(sampler.grammar, sampler.words, source)
+            sampler.seed = state["seed"]
+            sampler.chains = [Chain.from_state(sampler.rules, sampler.sentences, c)
+                              for c in state["chains"]]
+        except (KeyError, TypeError, ValueError, IndexError) as err:
+            raise InputError(f"the checkpoint's chains are malformed ({type(err).__name__}: "
+                             f"{err})", path=source) from None
+        return sampler
+
+
+def _encode(grammar: Grammar, sentences: list[list[str]], source: str) -> list[list[int]]:
+    """Word ids of every sentence; a terminal the grammar lacks is an error naming the
+    sentence (its line, counting from one), since the sampler cannot analyse it."""
+    out = []
+    for k, words in enumerate(sentences):
+        if not words:
+            raise InputError("an empty sentence has no analysis", path=source, line=k + 1)
+        ids = [grammar.vocab.index.get(w, -1) for w in words]
+        if -1 in ids:
+            raise InputError(f"{words[ids.index(-1)]!r} is not a terminal of the grammar",
+                             path=source, line=k + 1)
+        out.append(ids)
+    return out
