@@ -211,3 +211,18 @@ def test_the_constraint_lasts_word_pieces_epochs_then_training_is_free(tmp_path)
     # The epoch before the release does not train on the same objective as the one after it,
     # so a run may not stop there for having converged; before and after, it may.
     assert [curriculum.same_data(e + 1, e) for e in range(4)] == [True, False, True, True]
+
+
+@pytest.mark.parametrize("tag_mode", [False, True])
+def test_unset_the_constraint_lasts_the_run_on_words_and_a_few_epochs_on_tags(tmp_path, tag_mode):
+    from treewright.train.config import TAG_MODE_PIECE_EPOCHS
+    from treewright.train.curriculum import Curriculum
+    from treewright.train.data import MemoryBudget
+    cfg = load_train_config(None, [f"data.train={write(tmp_path, TOKENIZED)}",
+                                   "data.format=conllu", f"data.tag_mode={str(tag_mode).lower()}",
+                                   f"output.run_dir={tmp_path / 'run'}"])
+    assert cfg.constraints.word_pieces_epochs is None
+    curriculum = Curriculum(cfg, MemoryBudget(cfg, torch.float64), shuffle=False)
+    on = [curriculum.pieces_on(e) for e in range(100)]
+    assert on == ([True] * TAG_MODE_PIECE_EPOCHS + [False] * (100 - TAG_MODE_PIECE_EPOCHS)
+                  if tag_mode else [True] * 100)

@@ -156,6 +156,10 @@ class OptimizerConfig:
                                  range="[0, 1]")
 
 
+# How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
+TAG_MODE_PIECE_EPOCHS = 3
+
+
 @dataclass
 class ConstraintsConfig:
     train_brackets: bool = option(
@@ -171,7 +175,11 @@ class ConstraintsConfig:
                 "applied with data.stream_chunk, which never holds the whole corpus.")
     word_pieces_epochs: int | None = option(
         None, "Apply the word-piece constraint for this many epochs of each restart, then "
-              "train without it; null keeps it for the whole run.", range="[1, inf)")
+              "train without it. null: the whole run when training reads words, the first "
+              f"{TAG_MODE_PIECE_EPOCHS} epochs when it reads tags (data.tag_mode), where a "
+              "constraint held longer drew every restart to left-branching trees on Turkish "
+              "tags (a mask rewards the trees it always allows, and a few tags have nothing "
+              "to pull against it; docs/induction_notes.md).", range="[1, inf)")
 
 
 @dataclass

@@ -8,7 +8,7 @@ from __future__ import annotations
 import torch
 
 from treewright.corpus import length_batches
-from treewright.train.config import TrainConfig
+from treewright.train.config import TAG_MODE_PIECE_EPOCHS, TrainConfig
 from treewright.train.data import MemoryBudget, TrainData
 from treewright.train.distributed import StreamedCorpus
 from treewright.train.estep import Batch, edge_bias, make_batch
@@ -43,8 +43,11 @@ class Curriculum:
         return 1.0 if n == 0 else max(0.0, 1.0 - epoch / n)
 
     def pieces_on(self, epoch: int) -> bool:
-        """Whether the word-piece constraint applies at `epoch` (`constraints.word_pieces_epochs`)."""
+        """Whether the word-piece constraint applies at `epoch` (`constraints.word_pieces_epochs`;
+        null: the whole run on words, `TAG_MODE_PIECE_EPOCHS` on tags)."""
         n = self.cfg.constraints.word_pieces_epochs
+        if n is None and self.cfg.data.tag_mode:
+            n = TAG_MODE_PIECE_EPOCHS
         return n is None or epoch < n
 
     def same_data(self, epoch: int, other: int) -> bool:
