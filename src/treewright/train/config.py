@@ -50,7 +50,7 @@ class DataConfig:
 @dataclass
 class ModelConfig:
     parameterization: Literal["tabular", "neural", "lowrank", "compound",
-                              "lexicalized"] = option(
+                              "lexicalized", "independent"] = option(
         "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
                    "(Kim, Dyer & Rush 2019); lowrank: binary rules as a sum of model.rank "
                    "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols; "
@@ -58,8 +58,10 @@ class ModelConfig:
                    "by amortized variational inference (Kim, Dyer & Rush 2019); lexicalized: "
                    "every constituent has a head word, and rules read the head and dependent words "
                    "through model.head_classes latent classes, with an explicit back-off to "
-                   "symbol-only rules (Yang, Zhao & Tu 2021). All but tabular train with "
-                   "'gradient' only.")
+                   "symbol-only rules (Yang, Zhao & Tu 2021); independent: one logit per "
+                   "parent, side and child, p(A -> B C) = p(B | A, left) p(C | A, right) "
+                   "(Liu, Yang, Kim & Tu 2023), for thousands of symbols. All but tabular "
+                   "train with 'gradient' only.")
     # 30/60 symbols, dimension 256 and latent size 64 are the published setting of Kim, Dyer &
     # Rush 2019, "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from
     # memory).
@@ -69,8 +71,9 @@ class ModelConfig:
     preterminals: int = option(60, "Number of preterminals (ignored with a warm start). 60 is "
                                    "the published setting of Kim, Dyer & Rush 2019 (from "
                                    "memory).", range="[1, inf)")
-    init_scale: float = option(1.0, "Std of the normal logits of a random tabular start; 0 "
-                                    "gives the uniform grammar.", range="[0, inf)")
+    init_scale: float = option(1.0, "Std of the normal logits of a random tabular or "
+                                    "independent start; 0 gives the uniform grammar.",
+                               range="[0, inf)")
     embedding_dim: int = option(256, "Neural, lowrank and lexicalized: embedding and hidden "
                                      "size. 256 is the published setting of Kim, Dyer & Rush 2019 "
                                      "(from memory).", range="[1, inf)")
