@@ -178,19 +178,25 @@ def test_most_probable_rules_match_a_plain_sort_of_every_rule(per_symbol):
         assert math.isclose(float(removed[a]), 1.0 - sum(p for p, _, _ in top), abs_tol=1e-12)
 
 
-def _demo_corpus(folder, sentences: int, max_words: int):
-    lines = [x for x in (demo_data_dir() / "train.txt").read_text().splitlines()
-             if len(x.split()) <= max_words][:sentences]
+def _demo_corpus(folder, name: str, sentences: int, max_words: int):
+    """The first `sentences` lines of a demo file with at most `max_words` words (trees: by
+    their leaves)."""
+    def words(line: str) -> int:          # a tree's words are its tokens that open nothing
+        return sum(not token.startswith("(") for token in line.split())
+
+    lines = [x for x in (demo_data_dir() / name).read_text().splitlines()
+             if words(x) <= max_words][:sentences]
     folder.mkdir(parents=True, exist_ok=True)
-    path = folder / "train.txt"
+    path = folder / name
     path.write_text("\n".join(lines) + "\n")
     return path
 
 
 def test_independent_trains_on_demo_text_and_likelihood_rises(tmp_path):
-    train_path = _demo_corpus(tmp_path / "data", 120, 8)
+    train_path = _demo_corpus(tmp_path / "data", "train.txt", 120, 8)
+    dev_path = _demo_corpus(tmp_path / "data", "dev.trees", 20, 8)
     cfg = load_train_config(None, base_overrides(
-        tmp_path, train_path, None, **{"train.method": "gradient",
+        tmp_path, train_path, dev_path, **{"train.method": "gradient",
                                        "model.parameterization": "independent",
                                        "model.nonterminals": 6, "model.preterminals": 10,
                                        "train.epochs": 3, "optimizer.lr": 0.1,
@@ -201,6 +207,9 @@ def test_independent_trains_on_demo_text_and_likelihood_rises(tmp_path):
               and "train/loglik_per_word" in r]
     assert len(epochs) >= 3, rows
     assert epochs[-1] > epochs[0] + 0.1, epochs       # gradient ascent on the log-likelihood
+    dev = [r for r in rows if "dev/loglik_per_word" in r]
+    assert dev and all(math.isfinite(r["dev/loglik_per_word"])
+                       and 0.0 <= r["dev/sentence_f1"] <= 1.0 for r in dev), dev
     # The saved grammar file gives a sentence the likelihood the factored model did (the
     # dense engine over the file against the independent kernel over the factors).
     grammar = load_grammar(trainer.grammar_path_)
@@ -247,6 +256,7 @@ def test_a_grammar_over_the_rule_cap_is_saved_with_each_symbols_most_probable_ru
 
 def test_independent_is_registered_and_refuses_em():
     assert PARAMETERIZATIONS["independent"] is IndependentParams
-    with pytest.raises(InputError, match="train.method"):
-        load_train_config(None, ["data.train=x.txt", "model.parameterization=independent",
-                                 "train.method=em"])
+    for method in ("em", "online_em", "map_em", "vb"):
+        with pytest.raises(InputError, match="train.method.*dense count tables"):
+            load_train_config(None, ["data.train=x.txt", "model.parameterization=independent",
+                                     f"train.method={method}"])

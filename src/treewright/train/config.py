@@ -265,8 +265,13 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
 
     method = cfg.train.method
     if cfg.model.parameterization != "tabular" and method != "gradient":
+        # Independent productions' expected counts are the gradient of log Z with respect to
+        # their two factors, but the EM family's count tables and M-steps are dense (NT x S^2).
+        why = ("; the EM family keeps dense count tables (NT x S^2), which independent "
+               "productions exist to avoid" if cfg.model.parameterization == "independent"
+               else "")
         bad("train.method", f"the {cfg.model.parameterization} parameterization trains only "
-                            f"with 'gradient', not {method!r}")
+                            f"with 'gradient', not {method!r}{why}")
     if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
