@@ -260,3 +260,12 @@ def test_independent_is_registered_and_refuses_em():
         with pytest.raises(InputError, match="train.method.*dense count tables"):
             load_train_config(None, ["data.train=x.txt", "model.parameterization=independent",
                                      f"train.method={method}"])
+
+
+def test_a_grammar_too_large_to_write_is_refused_before_training():
+    # 256 and 512 give 256 x 768^2 = 150,994,944 rules (under the bound 2^28 = 268,435,456);
+    # 512 and 1,024 give 512 x 1,536^2 = 1,207,959,552 (over it): arithmetic by hand.
+    base = ["data.train=x.txt", "model.parameterization=independent", "train.method=gradient"]
+    load_train_config(None, base + ["model.nonterminals=256", "model.preterminals=512"])
+    with pytest.raises(InputError, match="1,207,959,552 binary rules"):
+        load_train_config(None, base + ["model.nonterminals=512", "model.preterminals=1024"])

@@ -159,6 +159,11 @@ class OptimizerConfig:
                                  range="[0, 1]")
 
 
+# The largest NT x S^2 an independent-productions run may have: its grammar files go through the
+# dense `Grammar` (binary rules as an (NT, S, S) tensor), 2 GiB per float64 copy at this size,
+# and a run that could not write its grammar would fail only after training.
+INDEPENDENT_MAX_DENSE_RULES = 2 ** 28
+
 # How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
 TAG_MODE_PIECE_EPOCHS = 3
 
@@ -275,6 +280,15 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
+    nt, t = cfg.model.nonterminals, cfg.model.preterminals
+    if cfg.model.parameterization == "independent" \
+            and nt * (nt + t) ** 2 > INDEPENDENT_MAX_DENSE_RULES:
+        bad("model.nonterminals", f"an independent-productions grammar with {nt:,} nonterminals "
+                                  f"and {t:,} preterminals has {nt * (nt + t) ** 2:,} binary "
+                                  f"rules; grammar files are written through dense rule "
+                                  f"tensors, which allow at most "
+                                  f"{INDEPENDENT_MAX_DENSE_RULES:,} (the engine itself runs "
+                                  f"larger grammars: engine.independent)")
     if cfg.model.parameterization == "lexicalized" and cfg.train.memory_budget_mb is not None:
         bad("train.memory_budget_mb", "the memory estimate does not cover the lexicalized "
                                       "inside pass (it grows as n^4); leave the budget null "
