@@ -127,16 +127,19 @@ def test_gradients_asked_for_alone_match_the_full_pass():
     base = [torch.randn(nt, generator=gen, dtype=F64).log_softmax(0),
             torch.randn(nt, s, generator=gen, dtype=F64).log_softmax(1),
             torch.randn(nt, s, generator=gen, dtype=F64).log_softmax(1),
-            torch.randn(batch, n, t, generator=gen, dtype=F64)]
-    pot = torch.zeros(batch, n + 1, n + 1, dtype=F64)
+            torch.randn(batch, n, t, generator=gen, dtype=F64),
+            torch.randn(batch, n, nt, generator=gen, dtype=F64) - 1,
+            torch.zeros(batch, n + 1, n + 1, dtype=F64)]
     lengths = torch.tensor([5, 3])
-    everything = [x.clone().requires_grad_() for x in base + [pot]]
-    full = torch.autograd.grad(independent_log_partition(*everything[:4], lengths,
-                                                         span_pot=everything[4]).sum(),
-                               everything)
-    for wanted in ([4], [3], [1, 2], [0]):
-        leaves = [x.clone().requires_grad_(i in wanted) for i, x in enumerate(base + [pot])]
-        z = independent_log_partition(*leaves[:4], lengths, span_pot=leaves[4])
+
+    def log_z(x):     # root, left, right, terminal, nt_terminal, span_pot
+        return independent_log_partition(*x[:4], lengths, x[4], x[5])
+
+    everything = [x.clone().requires_grad_() for x in base]
+    full = torch.autograd.grad(log_z(everything).sum(), everything)
+    for wanted in ([5], [3], [4], [1, 2], [0], [1, 5]):
+        leaves = [x.clone().requires_grad_(i in wanted) for i, x in enumerate(base)]
+        z = log_z(leaves)
         got = torch.autograd.grad(z.sum(), [leaves[i] for i in wanted])
         for i, g in zip(wanted, got):
             torch.testing.assert_close(g, full[i], rtol=0, atol=1e-12)
