@@ -18,7 +18,9 @@ parameterization is one module here and one line there.
 `lowrank.LowRankParams` computes low-rank factors of the binary rules (Yang, Zhao & Tu 2021) and
 returns `LowRankRules`, whose dense `binary` is formed only on request; `compound.CompoundParams`
 (Kim, Dyer & Rush 2019) gives every sentence its own rules through a latent vector, and its
-`rules()` is the grammar at the prior's mean; `lexicalized.LexicalizedParams` (Yang, Zhao & Tu
+`rules()` is the grammar at the prior's mean; `independent.IndependentParams` (Liu, Yang, Kim & Tu 2023) gives each nonterminal independent
+left- and right-child distributions and returns `IndependentRules`, run by
+`engine.independent`; `lexicalized.LexicalizedParams` (Yang, Zhao & Tu
 2021) gives every constituent a head word and scores each sentence through
 `engine.lexicalized`, and its `rules()` is its symbol-only back-off grammar.
 """
@@ -29,12 +31,15 @@ from treewright.params.tabular import (RuleTensors, TabularParams, symbol_names,
 from treewright.params.neural import NeuralParams
 from treewright.params.lowrank import LowRankParams, LowRankRules
 from treewright.params.compound import CompoundParams, CompoundRules
+from treewright.params.independent import IndependentParams, IndependentRules
 from treewright.params.lexicalized import LexicalizedParams
 
 PARAMETERIZATIONS: dict[str, type[RuleModel]] = {
     "tabular": TabularParams, "neural": NeuralParams, "lowrank": LowRankParams,
-    "compound": CompoundParams, "lexicalized": LexicalizedParams}
+    "compound": CompoundParams, "lexicalized": LexicalizedParams,
+    "independent": IndependentParams}
 
-__all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "LexicalizedParams",
+__all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "IndependentParams",
+           "IndependentRules", "LexicalizedParams",
            "LowRankParams", "LowRankRules", "NeuralParams", "RuleModel", "RuleTensors", "Scorer",
            "TabularParams", "symbol_names", "tabular_from_grammar"]

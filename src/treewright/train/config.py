@@ -50,7 +50,7 @@ class DataConfig:
 @dataclass
 class ModelConfig:
     parameterization: Literal["tabular", "neural", "lowrank", "compound",
-                              "lexicalized"] = option(
+                              "lexicalized", "independent"] = option(
         "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
                    "(Kim, Dyer & Rush 2019); lowrank: binary rules as a sum of model.rank "
                    "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols; "
@@ -58,8 +58,10 @@ class ModelConfig:
                    "by amortized variational inference (Kim, Dyer & Rush 2019); lexicalized: "
                    "every constituent has a head word, and rules read the head and dependent words "
                    "through model.head_classes latent classes, with an explicit back-off to "
-                   "symbol-only rules (Yang, Zhao & Tu 2021). All but tabular train with "
-                   "'gradient' only.")
+                   "symbol-only rules (Yang, Zhao & Tu 2021); independent: one logit per "
+                   "parent, side and child, p(A -> B C) = p(B | A, left) p(C | A, right) "
+                   "(Liu, Yang, Kim & Tu 2023), for thousands of symbols. All but tabular "
+                   "train with 'gradient' only.")
     # 30/60 symbols, dimension 256 and latent size 64 are the published setting of Kim, Dyer &
     # Rush 2019, "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from
     # memory).
@@ -69,8 +71,9 @@ class ModelConfig:
     preterminals: int = option(60, "Number of preterminals (ignored with a warm start). 60 is "
                                    "the published setting of Kim, Dyer & Rush 2019 (from "
                                    "memory).", range="[1, inf)")
-    init_scale: float = option(1.0, "Std of the normal logits of a random tabular start; 0 "
-                                    "gives the uniform grammar.", range="[0, inf)")
+    init_scale: float = option(1.0, "Std of the normal logits of a random tabular or "
+                                    "independent start; 0 gives the uniform grammar.",
+                               range="[0, inf)")
     embedding_dim: int = option(256, "Neural, lowrank and lexicalized: embedding and hidden "
                                      "size. 256 is the published setting of Kim, Dyer & Rush 2019 "
                                      "(from memory).", range="[1, inf)")
@@ -155,6 +158,11 @@ class OptimizerConfig:
     min_lr_ratio: float = option(0.1, "Final learning rate as a fraction of lr.",
                                  range="[0, 1]")
 
+
+# The largest NT x S^2 an independent-productions run may have: its grammar files go through the
+# dense `Grammar` (binary rules as an (NT, S, S) tensor), 2 GiB per float64 copy at this size,
+# and a run that could not write its grammar would fail only after training.
+INDEPENDENT_MAX_DENSE_RULES = 2 ** 28
 
 # How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
 TAG_MODE_PIECE_EPOCHS = 3
@@ -262,11 +270,25 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
 
     method = cfg.train.method
     if cfg.model.parameterization != "tabular" and method != "gradient":
+        # Independent productions' expected counts are the gradient of log Z with respect to
+        # their two factors, but the EM family's count tables and M-steps are dense (NT x S^2).
+        why = ("; the EM family keeps dense count tables (NT x S^2), which independent "
+               "productions exist to avoid" if cfg.model.parameterization == "independent"
+               else "")
         bad("train.method", f"the {cfg.model.parameterization} parameterization trains only "
-                            f"with 'gradient', not {method!r}")
+                            f"with 'gradient', not {method!r}{why}")
     if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
+    nt, t = cfg.model.nonterminals, cfg.model.preterminals
+    if cfg.model.parameterization == "independent" \
+            and nt * (nt + t) ** 2 > INDEPENDENT_MAX_DENSE_RULES:
+        bad("model.nonterminals", f"an independent-productions grammar with {nt:,} nonterminals "
+                                  f"and {t:,} preterminals has {nt * (nt + t) ** 2:,} binary "
+                                  f"rules; grammar files are written through dense rule "
+                                  f"tensors, which allow at most "
+                                  f"{INDEPENDENT_MAX_DENSE_RULES:,} (the engine itself runs "
+                                  f"larger grammars: engine.independent)")
     if cfg.model.parameterization == "lexicalized" and cfg.train.memory_budget_mb is not None:
         bad("train.memory_budget_mb", "the memory estimate does not cover the lexicalized "
                                       "inside pass (it grows as n^4); leave the budget null "

@@ -30,19 +30,28 @@ def capped_grammar(rules, nonterminals: list[str], preterminals: list[str], voca
                    limit: int | None):
     """The rules as a `Grammar` to save, with at most `limit` binary rules (each nonterminal's
     most probable, renormalised), and a note saying what was left out (None: nothing)."""
-    dense = rules.dense()
+    # Factored rules that name their rule count and rank their own most probable rules
+    # (`IndependentRules`) are never formed whole: NT x S^2 may not fit in memory.
+    factored = hasattr(rules, "most_probable")
+    dense = None if factored else rules.dense()
+    count = rules.binary_rules if factored else dense.binary.numel()
     note = None
-    if limit is not None and dense.binary.numel() > limit:
+    if limit is not None and count > limit:
         per_symbol = max(1, limit // len(nonterminals))
-        binary, removed = keep_most_probable(dense.binary, per_symbol)
-        dense = RuleTensors(dense.root, binary, dense.lexical)
+        if factored:
+            dense, removed = rules.most_probable(per_symbol)
+        else:
+            binary, removed = keep_most_probable(dense.binary, per_symbol)
+            dense = RuleTensors(dense.root, binary, dense.lexical)
         worst = int(removed.argmax())
-        note = (f"the model has {dense.binary.numel():,} binary rules, more than "
+        note = (f"the model has {count:,} binary rules, more than "
                 f"output.max_saved_rules ({limit:,}); saved each nonterminal's {per_symbol:,} "
                 f"most probable, renormalised, leaving out probability mass "
                 f"{float(removed.mean()):.4g} per nonterminal on average (at most "
                 f"{float(removed[worst]):.4g}, {nonterminals[worst]}); the checkpoint keeps the "
                 "full model")
+    elif dense is None:
+        dense = rules.dense()
     return rules_to_grammar(dense, nonterminals, preterminals, vocab, start), note
 
 

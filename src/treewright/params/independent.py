@@ -1,0 +1,145 @@
+"""Independent left and right productions, for grammars with thousands of symbols.
+
+Liu, Yang, Kim & Tu 2023, "Simple Hardware-Efficient PCFGs with Independent Left and Right
+Productions". The binary rule distribution of each nonterminal A is the outer product of two
+distributions over the S = NT + T child symbols, one for the left child and one for the right:
+
+    p(A -> B C) = p(B | A, left) * p(C | A, right),
+
+so p(A -> . .) sums to one because each factor does, and the rule tensor has NT * 2S free
+entries instead of NT * S^2. The paper pairs this form with neural networks over symbol
+embeddings and reports its best results at thousands of symbols; that is from memory of the
+paper, and so is the form above as its definition (we state it as we implement it). This module
+holds the tabular form: one logit per (parent, side, child), the root and the words one logit
+per rule as in `params.tabular`. `engine.independent` runs the inside pass on the two factors
+without forming the (NT, S, S) tensor.
+
+Training is by gradient only (the config refuses EM for every parameterization but tabular). The
+expected counts of the two factors are the gradient of log Z with respect to their
+log-probabilities, so an EM step could be formed from them; it is not implemented here.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import torch
+from torch import Tensor, nn
+
+from treewright.engine.independent import independent_dense_binary, independent_log_partition
+from treewright.grammar import Grammar
+from treewright.params.base import RuleModel
+from treewright.params.tabular import RuleTensors, rules_to_grammar
+from treewright.vocab import Vocabulary
+
+PARENT_CHUNK = 64  # parents whose candidate rules `most_probable` ranks at once
+
+
+class IndependentRules(NamedTuple):
+    """Log-probabilities in factored form (the induction layout, as in `RuleTensors`)."""
+    root: Tensor     # (NT,)
+    left: Tensor     # (NT, S) log p(B | A, left), rows normalized over the child symbols
+    right: Tensor    # (NT, S) log p(C | A, right)
+    lexical: Tensor  # (T, V)
+
+    @property
+    def binary(self) -> Tensor:
+        """The (NT, S, S) log-probabilities the factors imply (memory NT * S^2)."""
+        return independent_dense_binary(self.left, self.right)
+
+    @property
+    def binary_rules(self) -> int:
+        """NT * S^2, the number of binary rules the factors imply (without forming them)."""
+        nt, s = self.left.shape
+        return nt * s * s
+
+    def dense(self) -> RuleTensors:
+        return RuleTensors(self.root, self.binary, self.lexical)
+
+    def log_partition(self, terminal: Tensor, lengths: Tensor,
+                      span_pot: Tensor | None = None) -> Tensor:
+        """(B,) log Z for terminal scores (B, N, T), through the independent engine kernel."""
+        return independent_log_partition(self.root, self.left, self.right, terminal, lengths,
+                                         span_pot=span_pot)
+
+    def most_probable(self, per_symbol: int) -> tuple[RuleTensors, Tensor]:
+        """Dense rules keeping only each nonterminal's `per_symbol` most probable binary rules
+        (the rest -inf; renormalising is left to `rules_to_grammar`), and the probability mass
+        (NT,) float64 left out, found without ranking all S^2 rules of a parent.
+
+        The rule at rank positions (i, j) of the sorted left and right factors is no more
+        probable than the (i+1)(j+1) rules at positions (i', j') <= (i, j), so only pairs with
+        (i+1)(j+1) <= per_symbol can be among the top per_symbol."""
+        left, right = self.left.detach(), self.right.detach()
+        nt, s = left.shape
+        k = min(per_symbol, s * s)
+        pairs = [(i, j) for i in range(min(s, k)) for j in range(min(s, k // (i + 1)))]
+        rank_i = torch.tensor([i for i, _ in pairs])
+        rank_j = torch.tensor([j for _, j in pairs])
+        binary = left.new_full((nt, s, s), float("-inf"))
+        removed = torch.empty(nt, dtype=torch.float64)
+        for a0 in range(0, nt, PARENT_CHUNK):
+            a1 = min(nt, a0 + PARENT_CHUNK)
+            sl, il = left[a0:a1].sort(1, descending=True)              # (a, S)
+            sr, ir = right[a0:a1].sort(1, descending=True)
+            candidates = sl[:, rank_i] + sr[:, rank_j]                 # (a, M)
+            top = candidates.topk(k, 1)                                # (a, k)
+            b = il.gather(1, rank_i[top.indices])                      # left child ids (a, k)
+            c = ir.gather(1, rank_j[top.indices])
+            parents = torch.arange(a0, a1)[:, None].expand_as(b)
+            binary[parents, b, c] = top.values
+            total = left[a0:a1].double().logsumexp(1) + right[a0:a1].double().logsumexp(1)
+            kept = top.values.double().logsumexp(1)
+            removed[a0:a1] = (total.exp() - kept.exp()).clamp(min=0.0)
+        return RuleTensors(self.root, binary, self.lexical), removed
+
+
+class IndependentParams(RuleModel):
+    """Tabular independent left and right productions: one logit per (parent, side, child).
+
+    nonterminals, preterminals, vocab_size: NT, T, V.
+    init_scale: standard deviation of the normal logits at random initialisation (default 1.0;
+        0 gives the uniform grammar).
+    generator: the seeded source of that randomness.
+    dtype: of the logits (float64 for exactness tests).
+    """
+
+    def __init__(self, nonterminals: int, preterminals: int, vocab_size: int,
+                 init_scale: float = 1.0, generator: torch.Generator | None = None,
+                 dtype: torch.dtype = torch.float32):
+        super().__init__()
+        s = nonterminals + preterminals
+
+        def draw(*shape: int) -> Tensor:
+            return (torch.randn(*shape, generator=generator, dtype=torch.float64)
+                    * init_scale).to(dtype)
+
+        self.nonterminals, self.preterminals = nonterminals, preterminals
+        self.root_logits = nn.Parameter(draw(nonterminals))                 # (NT,)
+        self.left_logits = nn.Parameter(draw(nonterminals, s))               # (NT, S)
+        self.right_logits = nn.Parameter(draw(nonterminals, s))              # (NT, S)
+        self.lexical_logits = nn.Parameter(draw(preterminals, vocab_size))   # (T, V)
+
+    @classmethod
+    def from_options(cls, options, vocab_size: int, generator: torch.Generator | None,
+                     dtype: torch.dtype) -> "IndependentParams":
+        return cls(options.nonterminals, options.preterminals, vocab_size, options.init_scale,
+                   generator, dtype)
+
+    @staticmethod
+    def memory_shape(options) -> dict:
+        """The inside-outside memory estimate's arguments (`engine.memory`): the chart holds
+        NT-long projections of each cell, as the low-rank pass's of rank NT."""
+        return {"rank": options.nonterminals}
+
+    def rules(self) -> IndependentRules:
+        return IndependentRules(torch.log_softmax(self.root_logits, 0),
+                                torch.log_softmax(self.left_logits, 1),
+                                torch.log_softmax(self.right_logits, 1),
+                                torch.log_softmax(self.lexical_logits, 1))
+
+    def to_grammar(self, nonterminals: list[str], preterminals: list[str], vocab: Vocabulary,
+                   start: str = "ROOT") -> Grammar:
+        with torch.no_grad():
+            return rules_to_grammar(self.rules().dense(), nonterminals, preterminals, vocab,
+                                    start)

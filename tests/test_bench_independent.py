@@ -1,0 +1,41 @@
+"""scripts/bench_independent.py: its matrix-product floor counts exactly the matrix products the
+engine makes, and a smoke run reports figures by the stated rules (no timing is asserted)."""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+from pathlib import Path
+
+import pytest
+from torch.utils.flop_counter import FlopCounterMode
+
+REPO = Path(__file__).resolve().parents[1]
+_spec = importlib.util.spec_from_file_location("bench_independent",
+                                               REPO / "scripts" / "bench_independent.py")
+bench = importlib.util.module_from_spec(_spec)
+sys.modules["bench_independent"] = bench
+_spec.loader.exec_module(bench)
+
+
+@pytest.mark.parametrize("nt, t, n, batch", [(6, 10, 7, 3), (5, 3, 4, 2), (8, 16, 12, 2)])
+def test_the_floor_counts_every_matrix_product_of_a_forward_backward(nt, t, n, batch):
+    # Reference: torch's own flop counter over one forward+backward. Its matrix products (mm)
+    # are the floor; its batched products (bmm) are the split sums, which the floor leaves out:
+    # 2 (w - 1) NT flops per span of width w and sentence (counted here in a plain loop).
+    problem = bench.random_problem(nt, t, n, batch)
+    with FlopCounterMode(display=False) as counter:
+        bench.forward_backward(problem)
+    counts = {str(k): v for k, v in counter.get_flop_counts()["Global"].items()}
+    assert counts["aten.mm"] == bench.independent_work(nt, t, n) * batch
+    split_sums = sum((n - w + 1) * 2 * (w - 1) * nt for w in range(2, n + 1)) * batch
+    assert counts["aten.bmm"] == split_sums
+    assert set(counts) == {"aten.mm", "aten.bmm"}
+
+
+def test_a_quick_run_reports_its_figures_by_the_stated_rules(capsys):
+    r = bench.main(["--quick", "--threads", "1"])
+    assert r["matmul_gflop"] == bench.independent_work(r["nt"], r["t"], r["n"]) * r["batch"] / 1e9
+    assert r["floor_s"] == r["matmul_gflop"] / r["matmul_gflops"]
+    assert r["ratio"] == r["fb_s"] / r["floor_s"]
+    assert f"ratio {r['ratio']:.2f} (target <= 2)" in capsys.readouterr().out

@@ -1,0 +1,274 @@
+"""Independent left and right productions (Liu, Yang, Kim & Tu 2023): the engine kernel's log Z,
+span marginals and expected rule counts against enumeration of every tree, against the dense
+engine run on the rule tensor the factors imply (a second, independent path), the pruned export
+against a plain sort of every rule, and training end to end on the demo text."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+import torch
+
+from test_train_fixtures import base_overrides, brute_force, write_corpus
+from treewright.demo import demo_data_dir
+from treewright.engine.independent import independent_dense_binary, independent_log_partition
+from treewright.engine.inside import log_partition
+from treewright.errors import InputError
+from treewright.grammar import load_grammar
+from treewright.inference import encode_ids, score
+from treewright.params import PARAMETERIZATIONS, IndependentParams, IndependentRules
+from treewright.params.base import span_posteriors
+from treewright.train import load_train_config, train
+
+F64 = torch.float64
+
+
+def _rules(nt=2, t=3, v=4, seed=0, scale=2.0) -> IndependentRules:
+    model = IndependentParams(nt, t, v, init_scale=scale,
+                              generator=torch.Generator().manual_seed(seed), dtype=F64)
+    with torch.no_grad():
+        return model.rules()
+
+
+def test_factors_are_normalized_and_imply_the_product_rule():
+    r = _rules(nt=3, t=4)
+    dense = r.binary.exp()                                             # (3, 7, 7)
+    left, right = r.left.exp(), r.right.exp()
+    # The definition p(A -> B C) = p(B | A, left) p(C | A, right), entry by entry.
+    for a in range(3):
+        for b in range(7):
+            for c in range(7):
+                assert math.isclose(float(dense[a, b, c]), float(left[a, b] * right[a, c]),
+                                    rel_tol=1e-12)
+    # Every parent's binary rules sum to one (a PCFG's definition).
+    torch.testing.assert_close(dense.sum((1, 2)), torch.ones(3, dtype=F64), rtol=0, atol=1e-12)
+    assert r.binary_rules == 3 * 7 * 7
+
+
+@pytest.mark.parametrize("words", [[0, 1], [2, 0, 3], [1, 1, 2, 0], [3, 0, 2, 1, 1]])
+def test_log_z_spans_and_counts_agree_with_enumeration(words):
+    r = _rules()
+    dense = r.dense()
+    # Reference: every labelled tree enumerated (test_train_fixtures.brute_force).
+    logz_bf, root_bf, counts_bf, lexical_bf, spans_bf = brute_force(dense, words)
+    ids = torch.tensor([words])
+    lengths = torch.tensor([len(words)])
+    leaves = [x.detach().clone().requires_grad_() for x in r]
+    rules = IndependentRules(*leaves)
+    terminal = encode_ids(rules.lexical, ids, lengths).terminal
+    logz = rules.log_partition(terminal, lengths)
+    assert math.isclose(float(logz.detach()[0]), logz_bf, rel_tol=1e-9, abs_tol=1e-9)
+    g_root, g_left, g_right, g_lex = torch.autograd.grad(logz.sum(), leaves)
+    # Expected counts are the gradient of log Z with respect to log-probabilities; those of the
+    # left factor sum the enumerated rule counts over the right child, and vice versa.
+    torch.testing.assert_close(g_left, counts_bf.sum(2), rtol=0, atol=1e-9)
+    torch.testing.assert_close(g_right, counts_bf.sum(1), rtol=0, atol=1e-9)
+    torch.testing.assert_close(g_root, root_bf, rtol=0, atol=1e-9)
+    torch.testing.assert_close(g_lex, lexical_bf, rtol=0, atol=1e-9)
+    _, spans = span_posteriors(r, terminal.detach(), lengths)
+    n = len(words)
+    for i in range(n):
+        for width in range(2, n - i + 1):
+            want = spans_bf.get((i, i + width), 0.0)
+            assert math.isclose(float(spans[0, i, width]), want, abs_tol=1e-9), (i, width)
+
+
+@pytest.mark.parametrize("nt_emit", [False, True])
+@pytest.mark.parametrize("use_pot", [False, True])
+def test_kernel_matches_the_dense_engine_on_the_implied_tensor(nt_emit, use_pot):
+    # Second path: `engine.inside.log_partition` (itself checked against enumeration and
+    # `engine.reference`) on the (NT, S, S) tensor the factors imply. Mixed lengths, words that
+    # nonterminals also emit, and span potentials exercise every input of the kernel.
+    gen = torch.Generator().manual_seed(3)
+    nt, t, batch, n = 4, 5, 4, 7
+    s = nt + t
+    root = torch.randn(nt, generator=gen, dtype=F64).log_softmax(0)
+    left = torch.randn(nt, s, generator=gen, dtype=F64).mul(2).log_softmax(1)
+    right = torch.randn(nt, s, generator=gen, dtype=F64).mul(2).log_softmax(1)
+    terminal = torch.randn(batch, n, t, generator=gen, dtype=F64) - 1
+    nt_terminal = torch.randn(batch, n, nt, generator=gen, dtype=F64) - 2 if nt_emit else None
+    span_pot = torch.randn(batch, n + 1, n + 1, generator=gen, dtype=F64) * 0.3 \
+        if use_pot else None
+    lengths = torch.tensor([7, 2, 5, 1])
+    inputs = [x for x in (root, left, right, terminal, nt_terminal, span_pot) if x is not None]
+
+    def run(dense: bool):
+        leaves = [x.clone().requires_grad_() for x in inputs]
+        named = dict(zip(["root", "left", "right", "terminal"], leaves))
+        rest = leaves[4:]
+        nt_t = rest.pop(0) if nt_emit else None
+        pot = rest.pop(0) if use_pot else None
+        if dense:
+            binary = independent_dense_binary(named["left"], named["right"])
+            z = log_partition(named["root"], binary, named["terminal"], lengths, nt_t, pot)
+        else:
+            z = independent_log_partition(named["root"], named["left"], named["right"],
+                                          named["terminal"], lengths, nt_t, pot)
+        ok = torch.isfinite(z)
+        grads = torch.autograd.grad(torch.where(ok, z, torch.zeros_like(z)).sum(), leaves)
+        return z.detach(), grads
+
+    z_fast, g_fast = run(False)
+    z_dense, g_dense = run(True)
+    torch.testing.assert_close(z_fast, z_dense, rtol=0, atol=1e-9)
+    assert bool(torch.isfinite(z_fast[:3]).all())          # real sentences, not -inf agreeing
+    for a, b in zip(g_fast, g_dense):
+        torch.testing.assert_close(a, b, rtol=0, atol=1e-9)
+
+
+def test_gradients_asked_for_alone_match_the_full_pass():
+    # The outside pass makes only the gradients asked for; each alone must equal its value in
+    # the pass that asks for all (reference: the same kernel with every gradient requested).
+    gen = torch.Generator().manual_seed(5)
+    nt, t, batch, n = 3, 4, 2, 5
+    s = nt + t
+    base = [torch.randn(nt, generator=gen, dtype=F64).log_softmax(0),
+            torch.randn(nt, s, generator=gen, dtype=F64).log_softmax(1),
+            torch.randn(nt, s, generator=gen, dtype=F64).log_softmax(1),
+            torch.randn(batch, n, t, generator=gen, dtype=F64),
+            torch.randn(batch, n, nt, generator=gen, dtype=F64) - 1,
+            torch.zeros(batch, n + 1, n + 1, dtype=F64)]
+    lengths = torch.tensor([5, 3])
+
+    def log_z(x):     # root, left, right, terminal, nt_terminal, span_pot
+        return independent_log_partition(*x[:4], lengths, x[4], x[5])
+
+    everything = [x.clone().requires_grad_() for x in base]
+    full = torch.autograd.grad(log_z(everything).sum(), everything)
+    for wanted in ([5], [3], [4], [1, 2], [0], [1, 5]):
+        leaves = [x.clone().requires_grad_(i in wanted) for i, x in enumerate(base)]
+        z = log_z(leaves)
+        got = torch.autograd.grad(z.sum(), [leaves[i] for i in wanted])
+        for i, g in zip(wanted, got):
+            torch.testing.assert_close(g, full[i], rtol=0, atol=1e-12)
+
+
+def test_float32_agrees_with_float64():
+    # Scaled cells keep float32 in range (common practice: compare against float64).
+    gen = torch.Generator().manual_seed(7)
+    nt, t, batch, n = 8, 12, 3, 15
+    s = nt + t
+    args = [torch.randn(nt, generator=gen, dtype=F64).log_softmax(0),
+            torch.randn(nt, s, generator=gen, dtype=F64).log_softmax(1),
+            torch.randn(nt, s, generator=gen, dtype=F64).log_softmax(1),
+            torch.randn(batch, n, t, generator=gen, dtype=F64) - 4]
+    lengths = torch.tensor([15, 9, 2])
+    z64 = independent_log_partition(*args, lengths)
+    z32 = independent_log_partition(*(x.float() for x in args), lengths)
+    assert bool(torch.isfinite(z64).all())
+    torch.testing.assert_close(z32.double(), z64, rtol=1e-5, atol=0)
+
+
+@pytest.mark.parametrize("per_symbol", [1, 3, 10, 49])
+def test_most_probable_rules_match_a_plain_sort_of_every_rule(per_symbol):
+    # Reference: every rule of each parent formed and ranked by Python's sorted(), the mass
+    # left out summed in a plain loop.
+    r = _rules(nt=3, t=4, seed=2)
+    pruned, removed = r.most_probable(per_symbol)
+    dense = r.binary.exp()
+    nt, s, _ = dense.shape
+    for a in range(nt):
+        ranked = sorted(((float(dense[a, b, c]), b, c) for b in range(s) for c in range(s)),
+                        reverse=True)
+        top = ranked[:per_symbol]
+        saved = {(b, c) for b in range(s) for c in range(s)
+                 if math.isfinite(float(pruned.binary[a, b, c]))}
+        assert saved == {(b, c) for _, b, c in top}
+        for p, b, c in top:
+            assert math.isclose(math.exp(float(pruned.binary[a, b, c])), p, rel_tol=1e-12)
+        assert math.isclose(float(removed[a]), 1.0 - sum(p for p, _, _ in top), abs_tol=1e-12)
+
+
+def _demo_corpus(folder, name: str, sentences: int, max_words: int):
+    """The first `sentences` lines of a demo file with at most `max_words` words (trees: by
+    their leaves)."""
+    def words(line: str) -> int:          # a tree's words are its tokens that open nothing
+        return sum(not token.startswith("(") for token in line.split())
+
+    lines = [x for x in (demo_data_dir() / name).read_text().splitlines()
+             if words(x) <= max_words][:sentences]
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / name
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def test_independent_trains_on_demo_text_and_likelihood_rises(tmp_path):
+    train_path = _demo_corpus(tmp_path / "data", "train.txt", 120, 8)
+    dev_path = _demo_corpus(tmp_path / "data", "dev.trees", 20, 8)
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, dev_path, **{"train.method": "gradient",
+                                       "model.parameterization": "independent",
+                                       "model.nonterminals": 6, "model.preterminals": 10,
+                                       "train.epochs": 3, "optimizer.lr": 0.1,
+                                       "train.batch_size": 20}))
+    trainer = train(cfg, tmp_path / "run")
+    rows = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text().splitlines()]
+    epochs = [r["train/loglik_per_word"] for r in rows if "epoch" in r
+              and "train/loglik_per_word" in r]
+    assert len(epochs) >= 3, rows
+    assert epochs[-1] > epochs[0] + 0.1, epochs       # gradient ascent on the log-likelihood
+    dev = [r for r in rows if "dev/loglik_per_word" in r]
+    assert dev and all(math.isfinite(r["dev/loglik_per_word"])
+                       and 0.0 <= r["dev/sentence_f1"] <= 1.0 for r in dev), dev
+    # The saved grammar file gives a sentence the likelihood the factored model did (the
+    # dense engine over the file against the independent kernel over the factors).
+    grammar = load_grammar(trainer.grammar_path_)
+    rules = trainer.current_rules()
+    assert isinstance(rules, IndependentRules)
+    words = train_path.read_text().splitlines()[0].split()
+    ids = torch.tensor([[trainer.data.vocab.index[w] for w in words]])
+    lengths = torch.tensor([len(words)])
+    with torch.no_grad():
+        mine = rules.log_partition(encode_ids(rules.lexical, ids, lengths).terminal, lengths)
+    file_score = score(grammar, [words], dtype=F64)[0].logprob
+    assert math.isclose(file_score, float(mine[0]), rel_tol=1e-8)
+
+
+def test_a_grammar_over_the_rule_cap_is_saved_with_each_symbols_most_probable_rules(tmp_path):
+    # Reference: the model's own dense rules ranked by sorted() per nonterminal.
+    train_path, _ = write_corpus(tmp_path / "data", train=40, dev=0)
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, None, **{"train.method": "gradient",
+                                       "model.parameterization": "independent",
+                                       "train.epochs": 1, "output.max_saved_rules": 30}))
+    trainer = train(cfg, tmp_path / "run")
+    grammar = load_grammar(trainer.grammar_path_)
+    dense = trainer.current_rules().binary.double().exp()          # (3, 8, 8)
+    nt, s, _ = dense.shape
+    log = (tmp_path / "run" / "train.log").read_text()
+    assert "more than output.max_saved_rules (30); saved each nonterminal's 10 most" in log
+    removed = []
+    for a in range(nt):
+        ranked = sorted(((float(dense[a, b, c]), b, c) for b in range(s) for c in range(s)),
+                        reverse=True)[:10]
+        saved = {(b, c) for b in range(s) for c in range(s)
+                 if math.isfinite(float(grammar.binary[a, b, c]))}
+        assert saved == {(b, c) for _, b, c in ranked}
+        mass = sum(p for p, _, _ in ranked)
+        removed.append(1.0 - mass)
+        for p, b, c in ranked:                                  # renormalised over what is kept
+            assert math.isclose(math.exp(float(grammar.binary[a, b, c])), p / mass,
+                                rel_tol=1e-9)
+    names = grammar.nonterminals
+    worst = max(range(nt), key=lambda a: removed[a])
+    assert f"at most {removed[worst]:.4g}, {names[worst]})" in log
+
+
+def test_independent_is_registered_and_refuses_em():
+    assert PARAMETERIZATIONS["independent"] is IndependentParams
+    for method in ("em", "online_em", "map_em", "vb"):
+        with pytest.raises(InputError, match="train.method.*dense count tables"):
+            load_train_config(None, ["data.train=x.txt", "model.parameterization=independent",
+                                     f"train.method={method}"])
+
+
+def test_a_grammar_too_large_to_write_is_refused_before_training():
+    # 256 and 512 give 256 x 768^2 = 150,994,944 rules (under the bound 2^28 = 268,435,456);
+    # 512 and 1,024 give 512 x 1,536^2 = 1,207,959,552 (over it): arithmetic by hand.
+    base = ["data.train=x.txt", "model.parameterization=independent", "train.method=gradient"]
+    load_train_config(None, base + ["model.nonterminals=256", "model.preterminals=512"])
+    with pytest.raises(InputError, match="1,207,959,552 binary rules"):
+        load_train_config(None, base + ["model.nonterminals=512", "model.preterminals=1024"])
