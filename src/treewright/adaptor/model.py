@@ -20,7 +20,9 @@ resampling of them).
 from __future__ import annotations
 
 import math
+from collections import Counter
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -28,6 +30,7 @@ import numpy as np
 from treewright.grammar import Grammar
 
 Tree = tuple
+FIXED_MEMO = 200_000  # fixed base probabilities kept at most (then the memo is cleared)
 
 
 def is_leaf(tree: Tree) -> bool:
@@ -72,11 +75,48 @@ class Rules:
                    grammar.binary.double().exp().numpy(), grammar.lexical.double().exp().numpy(),
                    adapted, discount, concentration)
 
+    @cached_property
+    def adapted_ids(self) -> list[int]:
+        return [a for a in range(len(self.names)) if self.adapted[a]]
+
+    @cached_property
+    def sparse(self) -> "SparseRules":
+        """The binary rules with non-zero probability, as index arrays (a proposal's draw
+        visits only these: the unigram word grammar has 4 of its NT*S*S = 48 cells)."""
+        parent, left, right = np.nonzero(self.binary)
+        of = [np.flatnonzero(parent == a) for a in range(self.num_nt)]
+        return SparseRules(left, right, self.binary[parent, left, right], of)
+
+    @cached_property
+    def fixed_base(self) -> np.ndarray:
+        """(S,) bool: symbols whose every subtree has a base probability (`Cache.base`) that
+        does not depend on the restaurants: no rule below them has an adapted child (the
+        unigram word grammar's Word, Chars and Char; not Words, whose children are Words)."""
+        fixed = np.ones(len(self.names), dtype=bool)
+        parent, left, right = np.nonzero(self.binary)
+        plain = ~self.adapted
+        while True:  # a parent of an adapted or unfixed child is unfixed, until none changes
+            unfixed = parent[~(plain[left] & fixed[left] & plain[right] & fixed[right])]
+            if not fixed[unfixed].any():
+                return fixed
+            fixed[unfixed] = False
+
     def rule(self, tree: Tree) -> float:
         """The probability of the rule at the top of `tree`."""
         if is_leaf(tree):
             return float(self.lexical[tree[0], tree[1]])
         return float(self.binary[tree[0], tree[1][0], tree[2][0]])
+
+
+@dataclass(frozen=True)
+class SparseRules:
+    """Rule r is parent -> left[r] right[r] with probability prob[r] (R,); of[A] holds the
+    indexes of A's rules."""
+
+    left: np.ndarray
+    right: np.ndarray
+    prob: np.ndarray
+    of: list[np.ndarray]
 
 
 class Table:
@@ -112,9 +152,15 @@ class Cache:
         self.labels: list[dict[Tree, list[int]]] = [{} for _ in range(s)]   # label -> tables
         self.label_customers: list[dict[Tree, int]] = [{} for _ in range(s)]
         self.by_yield: list[dict[tuple, list[Tree]]] = [{} for _ in range(s)]
+        self.label_yield: list[dict[Tree, tuple]] = [{} for _ in range(s)]
+        # yield -> [customers, tables] of the labels with that yield, summed
+        self.yield_counts: list[dict[tuple, list[int]]] = [{} for _ in range(s)]
+        # prefix -> the number of cached yields that start with it (a yield is its own prefix)
+        self.prefixes: list[Counter] = [Counter() for _ in range(s)]
         self.customers = [0] * s   # n per symbol
         self.num_tables = [0] * s  # K per symbol
         self.next_id = 0
+        self._fixed_base: dict[Tree, float] = {}
 
     # ---- the Pitman-Yor predictive -----------------------------------------------------------
 
@@ -137,6 +183,16 @@ class Cache:
         return (self.label_customers[a][label] - len(tables) * r.discount[a]) / \
             (self.customers[a] + r.concentration[a])
 
+    def reuse_total(self, a: int, span: tuple) -> float:
+        """The summed reuse probability of every cached label of `a` whose yield is `span`
+        (the weight of the proposal's rule a -> span): (sum n_y - a sum m_y) / (n + b)."""
+        counts = self.yield_counts[a].get(span)
+        if counts is None:
+            return 0.0
+        customers, tables = counts
+        r = self.rules
+        return (customers - tables * r.discount[a]) / (self.customers[a] + r.concentration[a])
+
     def predictive(self, tree: Tree) -> float:
         """The probability that a draw of the tree's top symbol, in the current state, is the
         tree: reuse plus a new table with this label, for an adapted symbol; the base
@@ -148,7 +204,20 @@ class Cache:
         return self.reuse_prob(a, tree) + self.new_table_prob(a) * self.base(tree)
 
     def base(self, tree: Tree) -> float:
-        """The rule at the top times the predictive of each child."""
+        """The rule at the top times the predictive of each child. For a symbol with a fixed
+        base (`Rules.fixed_base`) the value never changes, so it is kept in a memo that holds
+        exactly what this recursion returns: the state and the draws do not depend on what
+        the memo holds."""
+        if self.rules.fixed_base[tree[0]]:
+            p = self._fixed_base.get(tree)
+            if p is None:
+                p = self._fixed_base[tree] = self._base(tree)
+                if len(self._fixed_base) > FIXED_MEMO:
+                    self._fixed_base.clear()
+            return p
+        return self._base(tree)
+
+    def _base(self, tree: Tree) -> float:
         p = self.rules.rule(tree)
         if not is_leaf(tree) and p > 0.0:
             p *= self.predictive(tree[1]) * self.predictive(tree[2])
@@ -225,6 +294,7 @@ class Cache:
         t.count += 1
         self.customers[t.symbol] += 1
         self.label_customers[t.symbol][t.label] += 1
+        self.yield_counts[t.symbol][self.label_yield[t.symbol][t.label]][0] += 1
 
     def _open(self, a: int, label: Tree, table_id: int | None = None) -> int:
         if table_id is None:
@@ -234,12 +304,24 @@ class Cache:
         if label not in self.labels[a]:
             self.labels[a][label] = []
             self.label_customers[a][label] = 0
-            self.by_yield[a].setdefault(tree_yield(label), []).append(label)
+            self._add_yield(a, label)
         self.labels[a][label].append(table_id)
         self.label_customers[a][label] += 1
+        counts = self.yield_counts[a][self.label_yield[a][label]]
+        counts[0] += 1
+        counts[1] += 1
         self.customers[a] += 1
         self.num_tables[a] += 1
         return table_id
+
+    def _add_yield(self, a: int, label: Tree) -> None:
+        span = self.label_yield[a][label] = tree_yield(label)
+        if span not in self.by_yield[a]:
+            self.by_yield[a][span] = []
+            self.yield_counts[a][span] = [0, 0]
+            for end in range(1, len(span) + 1):
+                self.prefixes[a][span[:end]] += 1
+        self.by_yield[a][span].append(label)
 
     def _leave(self, table_id: int) -> None:
         t = self.tables[table_id]
@@ -247,8 +329,12 @@ class Cache:
         t.count -= 1
         self.customers[a] -= 1
         self.label_customers[a][t.label] -= 1
+        span = self.label_yield[a][t.label]
+        counts = self.yield_counts[a][span]
+        counts[0] -= 1
         if t.count > 0:
             return
+        counts[1] -= 1
         del self.tables[table_id]
         self.num_tables[a] -= 1
         same = self.labels[a][t.label]
@@ -256,10 +342,15 @@ class Cache:
         if not same:
             del self.labels[a][t.label]
             del self.label_customers[a][t.label]
-            span = tree_yield(t.label)
+            del self.label_yield[a][t.label]
             self.by_yield[a][span].remove(t.label)
             if not self.by_yield[a][span]:
                 del self.by_yield[a][span]
+                del self.yield_counts[a][span]
+                for end in range(1, len(span) + 1):
+                    self.prefixes[a][span[:end]] -= 1
+                    if not self.prefixes[a][span[:end]]:
+                        del self.prefixes[a][span[:end]]
         for child in t.children:
             self._leave(child)
 
@@ -280,11 +371,14 @@ class Cache:
             label = _from_json(label)
             cache.labels[a][label] = list(ids)
             cache.label_customers[a][label] = 0
-            cache.by_yield[a].setdefault(tree_yield(label), []).append(label)
+            cache._add_yield(a, label)
         for k, a, label, count, children in state["tables"]:
             label = _from_json(label)
             cache.tables[k] = Table(a, label, count, list(children))
             cache.label_customers[a][label] += count
+            counts = cache.yield_counts[a][cache.label_yield[a][label]]
+            counts[0] += count
+            counts[1] += 1
             cache.customers[a] += count
             cache.num_tables[a] += 1
         cache.next_id = state["next_id"]
