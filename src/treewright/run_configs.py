@@ -1,8 +1,8 @@
 """The kinds of run config, told apart from their contents: `treewright train` configs
 (`treewright.train.TrainConfig`), `treewright refine` configs
 (`treewright.refine.RefineConfig`) and `treewright segment` configs
-(`treewright.adaptor.config.SegmentConfig`). `validate` and `validate --options` use this; a notebook user
-can call `load_run_config` on any shipped config.
+(`treewright.adaptor.config.SegmentConfig`). `validate` and `validate --options` use this; a
+notebook user can call `load_run_config` on any shipped config.
 """
 
 from __future__ import annotations
@@ -59,8 +59,8 @@ def config_kind(path: str | Path, overrides: Sequence[str] = ()) -> str:
 
 
 def load_run_config(path: str | Path, overrides: Sequence[str] = (), kind: str = "auto"):
-    """(kind, checked config) of a train, refine or segment config file with overrides. `kind` "auto"
-    asks `config_kind`. Raises ConfigError listing every problem, InputError for a file that
+    """(kind, checked config) of a train, refine or segment config file with overrides. `kind`
+    "auto" asks `config_kind`. Raises ConfigError listing every problem, InputError for a file that
     cannot be read."""
     if kind == "auto":
         kind = config_kind(path, overrides)

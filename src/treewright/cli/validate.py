@@ -1,5 +1,5 @@
-"""treewright validate: check a training, refine or segment config (types, ranges, combinations) and do
-nothing else."""
+"""treewright validate: check a training, refine or segment config (types, ranges,
+combinations) and do nothing else."""
 
 from __future__ import annotations
 
@@ -13,8 +13,8 @@ EXAMPLES = """examples:
 
 A config is taken as a refine config when it has a refine or tree_form section or a data.start
 key, as a segment config when it has a sampler or grammar section or a data.text key, and as a
-training config otherwise (--kind says which instead). Every problem is reported at once, each with its key and the file line or override it came
-from. Data files are not read (they may not exist yet on this machine).
+training config otherwise (--kind says which instead). Every problem is reported at once, each
+with its key and the file line or override it came from. Data files are not read (they may not exist yet on this machine).
 """
 
 
