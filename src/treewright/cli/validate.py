@@ -14,7 +14,8 @@ EXAMPLES = """examples:
 A config is taken as a refine config when it has a refine or tree_form section or a data.start
 key, as a segment config when it has a sampler or grammar section or a data.text key, and as a
 training config otherwise (--kind says which instead). Every problem is reported at once, each
-with its key and the file line or override it came from. Data files are not read (they may not exist yet on this machine).
+with its key and the file line or override it came from. Data files are not read (they may not
+exist yet on this machine).
 """
 
 
