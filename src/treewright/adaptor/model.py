@@ -101,11 +101,20 @@ class Rules:
                 return fixed
             fixed[unfixed] = False
 
+    @cached_property
+    def py(self) -> "PlainRules":
+        """The same numbers as Python lists and floats: the sampler reads them one at a time,
+        and a Python float's arithmetic is the same float64 arithmetic without numpy's cost
+        per scalar."""
+        return PlainRules(self.adapted.tolist(), self.fixed_base.tolist(),
+                          self.discount.tolist(), self.concentration.tolist(),
+                          self.lexical.tolist(), self.binary.tolist())
+
     def rule(self, tree: Tree) -> float:
         """The probability of the rule at the top of `tree`."""
         if is_leaf(tree):
-            return float(self.lexical[tree[0], tree[1]])
-        return float(self.binary[tree[0], tree[1][0], tree[2][0]])
+            return self.py.lexical[tree[0]][tree[1]]
+        return self.py.binary[tree[0]][tree[1][0]][tree[2][0]]
 
 
 @dataclass(frozen=True)
@@ -117,6 +126,19 @@ class SparseRules:
     right: np.ndarray
     prob: np.ndarray
     of: list[np.ndarray]
+
+
+@dataclass(frozen=True)
+class PlainRules:
+    """`Rules` as lists: adapted, fixed_base, discount, concentration (S,); lexical [S][V];
+    binary [NT][S][S]."""
+
+    adapted: list[bool]
+    fixed_base: list[bool]
+    discount: list[float]
+    concentration: list[float]
+    lexical: list[list[float]]
+    binary: list[list[list[float]]]
 
 
 class Table:
@@ -170,7 +192,7 @@ class Cache:
         n = self.customers[a]
         if n == 0:
             return 1.0
-        r = self.rules
+        r = self.rules.py
         return (self.num_tables[a] * r.discount[a] + r.concentration[a]) / (n + r.concentration[a])
 
     def reuse_prob(self, a: int, label: Tree) -> float:
@@ -179,7 +201,7 @@ class Cache:
         tables = self.labels[a].get(label)
         if not tables:
             return 0.0
-        r = self.rules
+        r = self.rules.py
         return (self.label_customers[a][label] - len(tables) * r.discount[a]) / \
             (self.customers[a] + r.concentration[a])
 
@@ -190,7 +212,7 @@ class Cache:
         if counts is None:
             return 0.0
         customers, tables = counts
-        r = self.rules
+        r = self.rules.py
         return (customers - tables * r.discount[a]) / (self.customers[a] + r.concentration[a])
 
     def predictive(self, tree: Tree) -> float:
@@ -199,7 +221,7 @@ class Cache:
         expansion otherwise. Summed over every derivation, it is the probability the proposal
         grammar (`proposal`) gives the tree."""
         a = tree[0]
-        if not self.rules.adapted[a]:
+        if not self.rules.py.adapted[a]:
             return self.base(tree)
         return self.reuse_prob(a, tree) + self.new_table_prob(a) * self.base(tree)
 
@@ -208,7 +230,7 @@ class Cache:
         base (`Rules.fixed_base`) the value never changes, so it is kept in a memo that holds
         exactly what this recursion returns: the state and the draws do not depend on what
         the memo holds."""
-        if self.rules.fixed_base[tree[0]]:
+        if self.rules.py.fixed_base[tree[0]]:
             p = self._fixed_base.get(tree)
             if p is None:
                 p = self._fixed_base[tree] = self._base(tree)
@@ -245,7 +267,7 @@ class Cache:
 
         def visit(node: Tree, plans) -> list[int]:
             a = node[0]
-            if self.rules.adapted[a]:
+            if self.rules.py.adapted[a]:
                 return [customer(node, None if plans is None else next(plans))]
             logs[0] += math.log(self.rules.rule(node))
             if is_leaf(node):
@@ -255,7 +277,8 @@ class Cache:
         def customer(node: Tree, planned) -> int:
             a = node[0]
             ids = list(self.labels[a].get(node, ()))
-            n, disc, conc = self.customers[a], self.rules.discount[a], self.rules.concentration[a]
+            n, disc, conc = self.customers[a], self.rules.py.discount[a], \
+                self.rules.py.concentration[a]
             weights = [(self.tables[t].count - disc) / (n + conc) for t in ids]
             new = self.new_table_prob(a)
             weights.append(new * self.base(node))

@@ -88,13 +88,13 @@ class ProposalChart:
         width = j - i
         u = rng.random() * float(self.inside[i, width, a])
         label = None
-        if r.adapted[a]:
+        if r.py.adapted[a]:
             for label, w in self.cache.cached(a, tuple(self.words[i:j])):
                 u -= w
                 if u < 0.0:
                     return label
         if width == 1:
-            if label is not None and r.lexical[a, self.words[i]] == 0.0:
+            if label is not None and r.py.lexical[a][self.words[i]] == 0.0:
                 return label  # u fell past the cached labels by rounding
             return (a, self.words[i])
         rules = r.sparse.of[a]  # indexes of a's binary rules, R_a of them
