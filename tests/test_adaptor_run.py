@@ -41,16 +41,16 @@ def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
     # Reference: the uninterrupted run of the same config. A run stopped in sweep 5 (after
     # the checkpoint of sweep 4, with sweep 5's work lost) and resumed must end with the same
     # chains (restaurants, trees, generator state), outputs and metric lines.
-    config = _config(tmp_path)
+    config = _config(tmp_path, anneal_from=3.0, anneal_sweeps=4)
     straight = segment_words(load_segment_config(config), tmp_path / "straight")
     calls = {"n": 0}
     sweep = Chain.sweep
 
-    def stopping(chain):
+    def stopping(chain, temperature):
         calls["n"] += 1
         if calls["n"] == 5:
             raise KeyboardInterrupt
-        sweep(chain)
+        sweep(chain, temperature)
 
     monkeypatch.setattr(Chain, "sweep", stopping)
     with pytest.raises(KeyboardInterrupt):
@@ -70,6 +70,9 @@ def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
     assert ends[0]["chains"] == ends[1]["chains"]
     assert _metric_lines(tmp_path / "halves") == _metric_lines(tmp_path / "straight")
     assert [m["step"] for m in _metric_lines(tmp_path / "straight")] == list(range(7))
+    # The annealing schedule (annealing's own test checks it by hand) runs on across the stop.
+    assert [m.get("temperature") for m in _metric_lines(tmp_path / "halves")] == \
+        [None, 3.0, 2.5, 2.0, 1.5, 1.0, 1.0]
 
 
 def test_outputs_agree_with_the_chains_and_the_gold(tmp_path):

@@ -44,6 +44,11 @@ class SamplerConfig:
     seed: int = option(0, "Seeds every chain (chain c draws from the c-th child seed).")
     checkpoint_every: int = option(10, "Sweeps between checkpoints (chains.json); --resume "
                                        "continues from the last one.", range="[1, inf)")
+    anneal_from: float = option(1.0, "Temperature of the first sweep; it falls linearly to 1 "
+                                     "over anneal_sweeps sweeps (1: no annealing).",
+                                range="[1, inf)")
+    anneal_sweeps: int = option(0, "Sweeps over which the temperature falls to 1.",
+                                range="[0, inf)")
     score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
                                  "with gold); the log joint costs about a fifth of a sweep.",
                               range="[1, inf)")

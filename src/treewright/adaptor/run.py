@@ -4,8 +4,8 @@ checkpoints and a resume that continues bit for bit.
 
 Files (names from `runfolder.RunFolder`, kind "segment"): config.yaml, segment.log,
 metrics.jsonl (per scored sweep: log_joint, the log probability of chain 0's trees and seating,
-which is the log posterior up to a constant; accept_rate of the sweep's proposals;
-cached_words; with gold, token_f1 and boundary_f1), chains.json (the checkpoint: the chains'
+which is the log posterior up to a constant; accept_rate of the sweep's proposals; the sweep's
+temperature; cached_words; with gold, token_f1 and boundary_f1), chains.json (the checkpoint: the chains'
 JSON state and the size metrics.jsonl had then), and at the end segmentation.txt (chain 0's
 words, one utterance per line, in file order without the blank lines) and lexicon.tsv (Word's
 cached subtrees: characters, customers, tables).
@@ -20,7 +20,7 @@ from typing import TextIO
 
 from treewright.adaptor.config import SegmentConfig, load_segment_config
 from treewright.adaptor.grammars import unigram_word_grammar
-from treewright.adaptor.sampler import AdaptorSampler
+from treewright.adaptor.sampler import AdaptorSampler, annealing
 from treewright.adaptor.segment import Utterances, read_utterances
 from treewright.config import dump_config_yaml
 from treewright.errors import InputError
@@ -98,6 +98,7 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances, sampler: Ada
          stream: TextIO | None, fresh: bool) -> SegmentResult:
     total = cfg.sampler.sweeps
     done = sampler.chains[0].sweeps
+    temperature = annealing(cfg.sampler.anneal_from, cfg.sampler.anneal_sweeps)
     loggers = folder.open_loggers(cfg.output.stdout_metrics, tensorboard=False, stream=stream)
     try:
         if fresh:
@@ -106,10 +107,12 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances, sampler: Ada
             while done < total:
                 chain = sampler.chains[0]
                 before = (chain.proposed, chain.accepted)
-                sampler.run(1)
+                sampler.run(1, temperature=temperature)
                 done += 1
                 if done % cfg.sampler.score_every == 0 or done == total:
-                    loggers.log(_metrics(cfg, corpus, sampler, before), step=done)
+                    metrics = _metrics(cfg, corpus, sampler, before)
+                    metrics["temperature"] = temperature(done - 1)
+                    loggers.log(metrics, step=done)
                 if done % cfg.sampler.checkpoint_every == 0 or done == total:
                     _checkpoint(folder, sampler)
                 progress.update(1)

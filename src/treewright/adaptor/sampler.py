@@ -17,6 +17,13 @@ with their label and a new table, in proportion to their probabilities (`Cache.s
 ratio is therefore the exact one on the joint state, whose tree marginal is the adaptor
 grammar's posterior.
 
+Annealing: a sweep at temperature T targets the joint state's probability raised to 1/T, with
+the same proposal, so P(new) / P(old) enters the ratio raised to 1/T. Above 1 the target is
+flatter, which lets a chain leave the segmentation it started in; a schedule (`annealing`)
+brings T down to 1, where the chain samples the posterior again. Johnson, Griffiths &
+Goldwater 2007 anneal their sampler this way (from memory: we did not check their schedule);
+the linear schedule here is ours.
+
 Base rule probabilities stay fixed at the grammar's values; the discount and concentration of
 each adaptor too (no hyperparameter sampling).
 """
@@ -69,14 +76,15 @@ class Chain:
             tops, _, _ = self.cache.seat(tree, self._draw_seat)
             self.analyses.append(Analysis(tree, tops))
 
-    def sweep(self) -> None:
-        """One Metropolis-Hastings step for every sentence, in corpus order."""
+    def sweep(self, temperature: float = 1.0) -> None:
+        """One Metropolis-Hastings step for every sentence, in corpus order, at `temperature`."""
         for k in range(len(self.sentences)):
-            self.step(k)
+            self.step(k, temperature)
         self.sweeps += 1
 
-    def step(self, k: int) -> bool:
-        """Resample sentence k's analysis; True when the proposal was accepted."""
+    def step(self, k: int, temperature: float = 1.0) -> bool:
+        """Resample sentence k's analysis, targeting the joint probability to the power
+        1 / temperature; True when the proposal was accepted."""
         old = self.analyses[k]
         cache, root = self.cache, self.rules.root
         plan = cache.plan(old.tops)
@@ -92,7 +100,8 @@ class Chain:
         tops, logp_new, logr_new = cache.seat(tree, self._draw_seat)
         logp_old += math.log(root[old.tree[0]])
         logp_new += math.log(root[tree[0]])
-        log_ratio = (logp_new - logr_new - log_q_new) - (logp_old - logr_old - log_q_old)
+        log_ratio = (logp_new - logp_old) / temperature - (logr_new + log_q_new) + \
+            (logr_old + log_q_old)
         self.proposed += 1
         if log_ratio >= 0.0 or self.rng.random() < math.exp(log_ratio):
             self.analyses[k] = Analysis(tree, tops)
@@ -166,13 +175,16 @@ class AdaptorSampler:
             chain.initialize()
             self.chains.append(chain)
 
-    def run(self, sweeps: int, progress: Callable[[int, int], None] | None = None) -> None:
-        """`sweeps` more sweeps of every chain; `progress(done, total)` after each sweep."""
+    def run(self, sweeps: int, progress: Callable[[int, int], None] | None = None,
+            temperature: Callable[[int], float] | None = None) -> None:
+        """`sweeps` more sweeps of every chain; `progress(done, total)` after each sweep;
+        `temperature(k)` the temperature of a chain's sweep k (counted from 0 over the whole
+        run, resumed or not; `annealing` makes one), 1 when not given."""
         total = sweeps * len(self.chains)
         done = 0
         for chain in self.chains:
             for _ in range(sweeps):
-                chain.sweep()
+                chain.sweep(1.0 if temperature is None else temperature(chain.sweeps))
                 done += 1
                 if progress is not None:
                     progress(done, total)
@@ -240,6 +252,20 @@ class AdaptorSampler:
             raise InputError(f"the checkpoint's chains are malformed ({type(err).__name__}: "
                              f"{err})", path=source) from None
         return sampler
+
+
+def annealing(start: float, sweeps: int) -> Callable[[int], float]:
+    """A temperature schedule for `AdaptorSampler.run`: `start` at sweep 0, falling linearly to
+    1 at sweep `sweeps` and 1 from then on (no annealing when `start` is 1 or `sweeps` 0)."""
+    if not start >= 1.0 or sweeps < 0:
+        raise ValueError("annealing starts at a temperature of at least 1, over sweeps >= 0")
+
+    def temperature(k: int) -> float:
+        if k >= sweeps:
+            return 1.0
+        return start + (1.0 - start) * k / sweeps
+
+    return temperature
 
 
 def _encode(grammar: Grammar, sentences: list[list[str]], source: str) -> list[list[int]]:
