@@ -6,9 +6,9 @@ Files (names from `runfolder.RunFolder`, kind "segment"): config.yaml, segment.l
 metrics.jsonl (per scored sweep: log_joint, the log probability of chain 0's trees and seating,
 which is the log posterior up to a constant; accept_rate of the sweep's proposals; the sweep's
 temperature; cached_words; with gold, token_f1 and boundary_f1), chains.json (the checkpoint:
-the chains' JSON state and the size metrics.jsonl had then), and at the end segmentation.txt (chain 0's
-words, one utterance per line, in file order without the blank lines) and lexicon.tsv (Word's
-cached subtrees: characters, customers, tables).
+the chains' JSON state and the size metrics.jsonl had then), and at the end segmentation.txt
+(chain 0's words, one utterance per line, in file order without the blank lines) and
+lexicon.tsv (Word's cached subtrees: characters, customers, tables).
 """
 
 from __future__ import annotations
