@@ -49,6 +49,10 @@ class SamplerConfig:
                                 range="[1, inf)")
     anneal_sweeps: int = option(0, "Sweeps over which the temperature falls to 1.",
                                 range="[0, inf)")
+    resample_hyperparameters: bool = option(
+        False, "After every sweep, slice-sample Word's discount and concentration from their "
+               "posterior (priors Beta(1, 1) and Gamma(10, 0.1); needs both positive at the "
+               "start).")
     score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
                                  "with gold); the log joint costs about a fifth of a sweep.",
                               range="[1, inf)")
@@ -72,9 +76,17 @@ def load_segment_config(path: str | Path | None, overrides: Sequence[str] = ()
                         ) -> SegmentConfig:
     """The checked config (ConfigError lists every problem at once)."""
     cfg = load_config(SegmentConfig, path, overrides, resolve_paths=True)
+    source = None if path is None else str(path)
+    problems = []
     if not cfg.grammar.concentration > -cfg.grammar.discount:
-        source = None if path is None else str(path)
-        raise ConfigError([ConfigProblem(
+        problems.append(ConfigProblem(
             "grammar.concentration", f"must exceed minus the discount "
-            f"(-{cfg.grammar.discount}), as the Pitman-Yor process needs", source)], path=source)
+            f"(-{cfg.grammar.discount}), as the Pitman-Yor process needs", source))
+    if cfg.sampler.resample_hyperparameters and not (cfg.grammar.discount > 0 and
+                                                     cfg.grammar.concentration > 0):
+        problems.append(ConfigProblem(
+            "sampler.resample_hyperparameters", "the priors need a discount and a "
+            "concentration above 0 to start from", source))
+    if problems:
+        raise ConfigError(problems, path=source)
     return cfg

@@ -5,7 +5,7 @@ checkpoints and a resume that continues bit for bit.
 Files (names from `runfolder.RunFolder`, kind "segment"): config.yaml, segment.log,
 metrics.jsonl (per scored sweep: log_joint, the log probability of chain 0's trees and seating,
 which is the log posterior up to a constant; accept_rate of the sweep's proposals; the sweep's
-temperature; cached_words; with gold, token_f1 and boundary_f1), chains.json (the checkpoint:
+temperature; Word's discount and concentration; cached_words; with gold, token_f1 and boundary_f1), chains.json (the checkpoint:
 the chains' JSON state and the size metrics.jsonl had then), and at the end segmentation.txt
 (chain 0's words, one utterance per line, in file order without the blank lines) and
 lexicon.tsv (Word's cached subtrees: characters, customers, tables).
@@ -107,7 +107,8 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances, sampler: Ada
             while done < total:
                 chain = sampler.chains[0]
                 before = (chain.proposed, chain.accepted)
-                sampler.run(1, temperature=temperature)
+                sampler.run(1, temperature=temperature,
+                            hyperparameters=cfg.sampler.resample_hyperparameters)
                 done += 1
                 if done % cfg.sampler.score_every == 0 or done == total:
                     metrics = _metrics(cfg, corpus, sampler, before)
@@ -135,8 +136,10 @@ def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
              before: tuple[int, int] | None) -> dict[str, float]:
     """Chain 0's numbers now; `before` (proposed, accepted) as the sweep started."""
     chain = sampler.chains[0]
-    out = {"log_joint": chain.log_joint(), "cached_words": len(chain.cache.labels[
-        sampler.rules.names.index(WORD)])}
+    word = sampler.rules.names.index(WORD)
+    out = {"log_joint": chain.log_joint(), "cached_words": len(chain.cache.labels[word]),
+           "discount": float(chain.rules.discount[word]),
+           "concentration": float(chain.rules.concentration[word])}
     if before is not None:
         proposed = chain.proposed - before[0]
         out["accept_rate"] = (chain.accepted - before[1]) / proposed if proposed else 0.0

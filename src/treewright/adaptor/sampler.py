@@ -24,12 +24,14 @@ brings T down to 1, where the chain samples the posterior again. Johnson, Griffi
 Goldwater 2007 anneal their sampler this way (from memory: we did not check their schedule);
 the linear schedule here is ours.
 
-Base rule probabilities stay fixed at the grammar's values; the discount and concentration of
-each adaptor too (no hyperparameter sampling).
+Base rule probabilities stay fixed at the grammar's values. The discount and concentration of
+each adaptor stay at the grammar's values too, unless `run(..., hyperparameters=True)`
+resamples them after every sweep (`hyper`); each chain then has its own.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -37,6 +39,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
+from treewright.adaptor import hyper
 from treewright.adaptor.model import Cache, Rules, Tree, _from_json, _to_json
 from treewright.adaptor.proposal import ProposalChart
 from treewright.adaptor.segment import lexicon, segment
@@ -122,6 +125,21 @@ class Chain:
                 return pick
         return max(p for p, w in enumerate(weights) if w > 0.0)
 
+    def resample_hyperparameters(self) -> None:
+        """Slice-sample each adapted symbol's discount, then concentration, given the
+        seating (`hyper.resample`); the chain's rules take the new values."""
+        discount, concentration = self.rules.discount.copy(), self.rules.concentration.copy()
+        for a in self.rules.adapted_ids:
+            counts = [t.count for t in self.cache.tables.values() if t.symbol == a]
+            discount[a], concentration[a] = hyper.resample(
+                counts, float(discount[a]), float(concentration[a]), self.rng)
+        self._set_hyperparameters(discount, concentration)
+
+    def _set_hyperparameters(self, discount: np.ndarray, concentration: np.ndarray) -> None:
+        self.rules = dataclasses.replace(self.rules, discount=discount,
+                                         concentration=concentration)
+        self.cache.rules = self.rules
+
     def log_joint(self) -> float:
         """log P of every tree and seating, the sentences seated in corpus order from empty
         restaurants (the seating is exchangeable, so the order does not change the value)."""
@@ -135,6 +153,8 @@ class Chain:
     def state(self) -> dict:
         return {"rng": self.rng.bit_generator.state, "sweeps": self.sweeps,
                 "proposed": self.proposed, "accepted": self.accepted,
+                "discount": self.rules.discount.tolist(),
+                "concentration": self.rules.concentration.tolist(),
                 "cache": self.cache.state(),
                 "analyses": [[_to_json(a.tree), a.tops] for a in self.analyses]}
 
@@ -147,6 +167,11 @@ class Chain:
         chain.accepted = state["accepted"]
         chain.cache = Cache.from_state(rules, state["cache"])
         chain.analyses = [Analysis(_from_json(t), list(tops)) for t, tops in state["analyses"]]
+        discount = np.array(state["discount"], dtype=float)
+        concentration = np.array(state["concentration"], dtype=float)
+        if discount.shape != rules.discount.shape or concentration.shape != discount.shape:
+            raise ValueError("a discount and concentration per symbol")
+        chain._set_hyperparameters(discount, concentration)
         return chain
 
 
@@ -176,15 +201,19 @@ class AdaptorSampler:
             self.chains.append(chain)
 
     def run(self, sweeps: int, progress: Callable[[int, int], None] | None = None,
-            temperature: Callable[[int], float] | None = None) -> None:
+            temperature: Callable[[int], float] | None = None,
+            hyperparameters: bool = False) -> None:
         """`sweeps` more sweeps of every chain; `progress(done, total)` after each sweep;
         `temperature(k)` the temperature of a chain's sweep k (counted from 0 over the whole
-        run, resumed or not; `annealing` makes one), 1 when not given."""
+        run, resumed or not; `annealing` makes one), 1 when not given; `hyperparameters`:
+        resample every adaptor's discount and concentration after each sweep."""
         total = sweeps * len(self.chains)
         done = 0
         for chain in self.chains:
             for _ in range(sweeps):
                 chain.sweep(1.0 if temperature is None else temperature(chain.sweeps))
+                if hyperparameters:
+                    chain.resample_hyperparameters()
                 done += 1
                 if progress is not None:
                     progress(done, total)
