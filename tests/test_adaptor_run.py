@@ -41,7 +41,7 @@ def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
     # Reference: the uninterrupted run of the same config. A run stopped in sweep 5 (after
     # the checkpoint of sweep 4, with sweep 5's work lost) and resumed must end with the same
     # chains (restaurants, trees, generator state), outputs and metric lines.
-    config = _config(tmp_path, anneal_from=3.0, anneal_sweeps=4)
+    config = _config(tmp_path, anneal_from=3.0, anneal_sweeps=4, resample_hyperparameters=True)
     straight = segment_words(load_segment_config(config), tmp_path / "straight")
     calls = {"n": 0}
     sweep = Chain.sweep
@@ -70,9 +70,11 @@ def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
     assert ends[0]["chains"] == ends[1]["chains"]
     assert _metric_lines(tmp_path / "halves") == _metric_lines(tmp_path / "straight")
     assert [m["step"] for m in _metric_lines(tmp_path / "straight")] == list(range(7))
-    # The annealing schedule (annealing's own test checks it by hand) runs on across the stop.
-    assert [m.get("temperature") for m in _metric_lines(tmp_path / "halves")] == \
-        [None, 3.0, 2.5, 2.0, 1.5, 1.0, 1.0]
+    # The annealing schedule (annealing's own test checks it by hand) runs on across the stop,
+    # and the resampled concentration moved from the grammar's 10.
+    lines = _metric_lines(tmp_path / "halves")
+    assert [m.get("temperature") for m in lines] == [None, 3.0, 2.5, 2.0, 1.5, 1.0, 1.0]
+    assert lines[0]["concentration"] == 10.0 and lines[-1]["concentration"] != 10.0
 
 
 def test_outputs_agree_with_the_chains_and_the_gold(tmp_path):
@@ -122,6 +124,9 @@ def test_bad_configs_and_changed_text_are_refused(tmp_path):
     # The Pitman-Yor process needs b > -a (Pitman & Yor 1997).
     with pytest.raises(ConfigError, match="grammar.concentration: must exceed"):
         load_segment_config(config, ["grammar.discount=0.5", "grammar.concentration=-0.5"])
+    # The Beta and Gamma priors of the resampled values are 0 at a discount of 0.
+    with pytest.raises(ConfigError, match="sampler.resample_hyperparameters: the priors"):
+        load_segment_config(config, ["grammar.discount=0", "sampler.resample_hyperparameters=true"])
     with pytest.raises(ConfigError, match="sampler.sweeps"):
         load_segment_config(config, ["sampler.sweeps=-1"])
     cfg = load_segment_config(config, ["sampler.sweeps=2"])

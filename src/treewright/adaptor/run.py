@@ -5,10 +5,11 @@ checkpoints and a resume that continues bit for bit.
 Files (names from `runfolder.RunFolder`, kind "segment"): config.yaml, segment.log,
 metrics.jsonl (per scored sweep: log_joint, the log probability of chain 0's trees and seating,
 which is the log posterior up to a constant; accept_rate of the sweep's proposals; the sweep's
-temperature; Word's discount and concentration; cached_words; with gold, token_f1 and boundary_f1), chains.json (the checkpoint:
-the chains' JSON state and the size metrics.jsonl had then), and at the end segmentation.txt
-(chain 0's words, one utterance per line, in file order without the blank lines) and
-lexicon.tsv (Word's cached subtrees: characters, customers, tables).
+temperature; Word's discount and concentration; cached_words; with gold, token_f1 and
+boundary_f1), chains.json (the checkpoint: the chains' JSON state and the size metrics.jsonl
+had then), and at the end segmentation.txt (chain 0's words, one utterance per line, in file
+order without the blank lines) and lexicon.tsv (Word's cached subtrees: characters,
+customers, tables).
 """
 
 from __future__ import annotations
