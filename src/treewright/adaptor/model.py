@@ -80,14 +80,6 @@ class Rules:
         return [a for a in range(len(self.names)) if self.adapted[a]]
 
     @cached_property
-    def sparse(self) -> "SparseRules":
-        """The binary rules with non-zero probability, as index arrays (a proposal's draw
-        visits only these: the unigram word grammar has 4 of its NT*S*S = 48 cells)."""
-        parent, left, right = np.nonzero(self.binary)
-        of = [np.flatnonzero(parent == a) for a in range(self.num_nt)]
-        return SparseRules(left, right, self.binary[parent, left, right], of)
-
-    @cached_property
     def fixed_base(self) -> np.ndarray:
         """(S,) bool: symbols whose every subtree has a base probability (`Cache.base`) that
         does not depend on the restaurants: no rule below them has an adapted child (the
@@ -115,17 +107,6 @@ class Rules:
         if is_leaf(tree):
             return self.py.lexical[tree[0]][tree[1]]
         return self.py.binary[tree[0]][tree[1][0]][tree[2][0]]
-
-
-@dataclass(frozen=True)
-class SparseRules:
-    """Rule r is parent -> left[r] right[r] with probability prob[r] (R,); of[A] holds the
-    indexes of A's rules."""
-
-    left: np.ndarray
-    right: np.ndarray
-    prob: np.ndarray
-    of: list[np.ndarray]
 
 
 @dataclass(frozen=True)

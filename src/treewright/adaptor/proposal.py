@@ -31,7 +31,6 @@ class ProposalChart:
     both makes the left children of every span of width w one strided view, inside[0:m, 1:w],
     and the right children another, by_end[w:n+1, w-1:0:-1], so that a width costs a few numpy
     calls and no gather (the engine's inside pass lays its chart out for the same reason).
-    Drawing a tree visits only the binary rules with non-zero probability (`Rules.sparse`).
     """
 
     def __init__(self, cache: Cache, words: list[int]):
@@ -97,19 +96,21 @@ class ProposalChart:
             if label is not None and r.py.lexical[a][self.words[i]] == 0.0:
                 return label  # u fell past the cached labels by rounding
             return (a, self.words[i])
-        rules = r.sparse.of[a]  # indexes of a's binary rules, R_a of them
         left = self.inside[i, 1:width]          # (w-1, S): the left child over i..k
         right = self.by_end[j, width - 1:0:-1]  # (w-1, S): the right child over k..j
-        base = (self.new[a] * r.sparse.prob[rules] * left[:, r.sparse.left[rules]]
-                * right[:, r.sparse.right[rules]]).ravel()  # (w-1, R_a) by split, rule
+        # (w-1, S, S) by split, left child, right child; the base share new[a] is left out of
+        # the weights and divided out of u instead.
+        base = left[:, :, None] * right[:, None, :]
+        base *= r.binary[a]
+        base = base.ravel()
         if label is not None and not (base > 0.0).any():
             return label  # u fell past the cached labels by rounding
-        pick = _pick(base, rng, u)
-        split, rule = divmod(pick, len(rules))
+        pick = _pick(base, rng, u / self.new[a])
+        s = len(r.names)
+        split, pair = divmod(pick, s * s)
+        b, c = divmod(pair, s)
         k = i + 1 + split
-        rule = rules[rule]
-        return (a, self._expand(int(r.sparse.left[rule]), i, k, rng),
-                self._expand(int(r.sparse.right[rule]), k, j, rng))
+        return (a, self._expand(b, i, k, rng), self._expand(c, k, j, rng))
 
 
 def _pick(weights: np.ndarray, rng: np.random.Generator, u: float | None = None) -> int:
