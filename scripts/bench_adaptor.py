@@ -40,14 +40,15 @@ def corpus(utterances: int = UTTERANCES, longest: int = LONGEST) -> list[list[st
     return parse_utterances(lines[:utterances]).characters
 
 
-def main() -> None:
+def main(argv: list[str] | None = None) -> list[float]:
+    """Runs the benchmark; returns the measured sweeps per second of each repeat."""
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--utterances", type=int, default=UTTERANCES)
     parser.add_argument("--warmup", type=int, default=3)
     parser.add_argument("--sweeps", type=int, default=10)
     parser.add_argument("--repeat", type=int, default=1)
     parser.add_argument("--seed", type=int, default=0)
-    args = parser.parse_args()
+    args = parser.parse_args(argv)
     if os.environ.get("OMP_NUM_THREADS") != "1":
         print("note: OMP_NUM_THREADS is not 1; the figure is meant for one thread")
     sentences = corpus(args.utterances)
@@ -58,12 +59,14 @@ def main() -> None:
     sampler = AdaptorSampler(unigram_word_grammar(chars), sentences, seed=args.seed)
     print(f"initialized in {time.perf_counter() - start:.2f} s")
     sampler.run(args.warmup)
+    rates = []
     for _ in range(args.repeat):
         start = time.perf_counter()
         sampler.run(args.sweeps)
-        rate = args.sweeps / (time.perf_counter() - start)
-        print(f"{rate:.2f} sweeps/s over {args.sweeps} sweeps; 1,000 sweeps would take "
-              f"{1000 / rate / 60:.1f} min (extrapolated)", flush=True)
+        rates.append(args.sweeps / (time.perf_counter() - start))
+        print(f"{rates[-1]:.2f} sweeps/s over {args.sweeps} sweeps; 1,000 sweeps would take "
+              f"{1000 / rates[-1] / 60:.1f} min (extrapolated, not run)", flush=True)
+    return rates
 
 
 if __name__ == "__main__":
