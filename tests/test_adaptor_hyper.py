@@ -109,7 +109,7 @@ def test_resampled_hyperparameters_follow_their_posterior():
             draws.append(a)
     assert stats.kstest(draws, lambda x: np.interp(x, grid_a, cdf)).pvalue > 1e-3
     # The prior alone (uniform a) must be rejected: the seating moved the draws (measured
-    # p-values above 0.29 against the posterior and below 1e-57 against the prior, seeds 1-4).
+    # p-values above 0.29 against the posterior and below 1e-57 against the prior, seeds 2-4).
     assert stats.kstest(draws, "uniform").pvalue < 1e-3
     with pytest.raises(ValueError):
         resample(counts, 0.0, 1.0, rng)
