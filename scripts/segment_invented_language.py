@@ -14,6 +14,10 @@ and not tuned), one chain of the sentence-blocked Metropolis-Hastings sampler, a
 log joint probability, and the sweeps per second so far.
 
     OMP_NUM_THREADS=1 PYTHONPATH=src .venv/bin/python scripts/segment_invented_language.py
+
+`--write FILE` writes the `--utterances` lines with their spaces (the gold) to FILE and stops:
+`src/treewright/data/examples/ostreli.txt`, which configs/segment_words.yaml reads, is
+`--write` with `--utterances 400`.
 """
 
 from __future__ import annotations
@@ -53,7 +57,12 @@ def main() -> None:
     parser.add_argument("--sweeps", type=int, default=150)
     parser.add_argument("--every", type=int, default=10)
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--write", metavar="FILE", help="write the utterances, spaced, and stop")
     args = parser.parse_args()
+    if args.write:
+        with open(args.write, "w", encoding="utf-8", newline="\n") as f:
+            f.writelines(line + "\n" for line in ostreli(args.utterances))
+        return
     corpus = parse_utterances(ostreli(args.utterances))
     chars = [c for u in corpus.characters for c in u]
     print(f"{len(corpus.characters)} utterances, {len(chars)} characters, "

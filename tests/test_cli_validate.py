@@ -1,4 +1,4 @@
-"""`treewright validate` on every shipped config, training and refine alike."""
+"""`treewright validate` on every shipped config, training, refine and segment alike."""
 
 from __future__ import annotations
 
@@ -19,6 +19,8 @@ def _header_kind(path: Path) -> tuple[str, list[str]]:
         return "refine", []
     if f"treewright train configs/{path.name}" in header:
         return "train", []
+    if f"treewright segment configs/{path.name}" in header:
+        return "segment", []
     assert "bench_induction.py" in header and "adds data.train" in header, path.name
     return "train", ["data.train=train.txt"]
 
@@ -30,7 +32,7 @@ def test_every_shipped_config_validates_as_its_header_says(path, capsys):
     kind, overrides = _header_kind(path)
     assert main(["validate", str(path), *overrides]) == 0
     out = capsys.readouterr().out
-    assert f"valid {'training' if kind == 'train' else 'refine'} config" in out
+    assert f"valid {'training' if kind == 'train' else kind} config" in out
 
 
 def test_options_lists_refine_options_too(capsys):

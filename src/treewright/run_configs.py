@@ -1,7 +1,8 @@
-"""The two kinds of run config, told apart from their contents: `treewright train` configs
-(`treewright.train.TrainConfig`) and `treewright refine` configs
-(`treewright.refine.RefineConfig`). `validate` and `validate --options` use this; a notebook user
-can call `load_run_config` on any shipped config.
+"""The kinds of run config, told apart from their contents: `treewright train` configs
+(`treewright.train.TrainConfig`), `treewright refine` configs
+(`treewright.refine.RefineConfig`) and `treewright segment` configs
+(`treewright.adaptor.config.SegmentConfig`). `validate` and `validate --options` use this; a
+notebook user can call `load_run_config` on any shipped config.
 """
 
 from __future__ import annotations
@@ -13,10 +14,12 @@ import yaml
 
 from treewright.errors import InputError
 
-KINDS = ("train", "refine")
+KINDS = ("train", "refine", "segment")
 
 # Keys only a refine config has: its cycle and tree-form sections, and data.start.
 _REFINE_SECTIONS = ("refine", "tree_form")
+# Sections only a segment config has.
+_SEGMENT_SECTIONS = ("sampler", "grammar")
 
 
 def schema(kind: str) -> type:
@@ -27,13 +30,17 @@ def schema(kind: str) -> type:
     if kind == "refine":
         from treewright.refine import RefineConfig
         return RefineConfig
+    if kind == "segment":
+        from treewright.adaptor.config import SegmentConfig
+        return SegmentConfig
     raise ValueError(f"kind must be one of {KINDS}, not {kind!r}")
 
 
 def config_kind(path: str | Path, overrides: Sequence[str] = ()) -> str:
     """"refine" when the file (or an override) has a `refine` or `tree_form` section or a
-    `data.start` key, else "train". A file that cannot be read is left to the loader, which
-    names the problem."""
+    `data.start` key, "segment" when it has a `sampler` or `grammar` section or a `data.text`
+    key, else "train". A file that cannot be read is left to the loader, which names the
+    problem."""
     keys = {text.partition("=")[0].strip() for text in overrides}
     try:
         data: Any = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
@@ -41,15 +48,19 @@ def config_kind(path: str | Path, overrides: Sequence[str] = ()) -> str:
         data = None
     if isinstance(data, dict):
         keys |= {str(k) for k in data}
-        if isinstance(data.get("data"), dict) and "start" in data["data"]:
-            keys.add("data.start")
-    refine = any(k.split(".")[0] in _REFINE_SECTIONS or k == "data.start" for k in keys)
-    return "refine" if refine else "train"
+        for key in ("start", "text"):
+            if isinstance(data.get("data"), dict) and key in data["data"]:
+                keys.add(f"data.{key}")
+    if any(k.split(".")[0] in _REFINE_SECTIONS or k == "data.start" for k in keys):
+        return "refine"
+    if any(k.split(".")[0] in _SEGMENT_SECTIONS or k == "data.text" for k in keys):
+        return "segment"
+    return "train"
 
 
 def load_run_config(path: str | Path, overrides: Sequence[str] = (), kind: str = "auto"):
-    """(kind, checked config) of a train or refine config file with overrides. `kind` "auto"
-    asks `config_kind`. Raises ConfigError listing every problem, InputError for a file that
+    """(kind, checked config) of a train, refine or segment config file with overrides. `kind`
+    "auto" asks `config_kind`. Raises ConfigError listing every problem, InputError for a file that
     cannot be read."""
     if kind == "auto":
         kind = config_kind(path, overrides)
@@ -59,4 +70,7 @@ def load_run_config(path: str | Path, overrides: Sequence[str] = (), kind: str =
     if kind == "refine":
         from treewright.refine import load_refine_config
         return kind, load_refine_config(path, overrides)
+    if kind == "segment":
+        from treewright.adaptor.config import load_segment_config
+        return kind, load_segment_config(path, overrides)
     raise InputError(f"a config kind is one of {', '.join(KINDS)}, not {kind!r}")

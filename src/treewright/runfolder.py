@@ -1,20 +1,23 @@
-"""The run folder: the one place that knows the names of the files a training or refinement
-run writes, and the handling both share (fresh start or resume, the log, the saved config, the
-metric loggers).
+"""The run folder: the one place that knows the names of the files a training, refinement or
+segmentation run writes, and the handling they share (fresh start or resume, the log, the saved
+config, the metric loggers).
 
-Layout (`kind` "train" or "refine" names the log and the checkpoint)::
+Layout (`kind` "train", "refine" or "segment" names the log and the checkpoint)::
 
     config.yaml          the resolved config (every option)
     train.log            what was read, set aside and decided, in words (refine.log)
     data_summary.json    what the data reader reported, as data (export reads it)
     metrics.jsonl        one JSON object per logged step
     tensorboard/         TensorBoard event files
-    checkpoint.ckpt      the last checkpoint (refine.ckpt), written atomically
+    checkpoint.ckpt      the last checkpoint (refine.ckpt; segment: chains.json), written
+                         atomically
     restart-<r>.pcfg     training: the final grammar of each finished restart
     coarse.pcfg          refinement: the unrefined start; cycle-<c>.pcfg after each cycle
     grammar.pcfg         the result
     result.json          training: per-restart scores and which restart was kept
     report.html          the HTML report (`treewright report`)
+    segmentation.txt     segmentation: the words of each utterance, space-separated
+    lexicon.tsv          segmentation: the cached words (characters, customers, tables)
 """
 
 from __future__ import annotations
@@ -36,12 +39,15 @@ GRAMMAR = "grammar.pcfg"
 RESULT = "result.json"
 REPORT = "report.html"
 COARSE = "coarse.pcfg"
-LOGS = {"train": "train.log", "refine": "refine.log"}
-CHECKPOINTS = {"train": "checkpoint.ckpt", "refine": "refine.ckpt"}
+SEGMENTATION = "segmentation.txt"
+LEXICON = "lexicon.tsv"
+LOGS = {"train": "train.log", "refine": "refine.log", "segment": "segment.log"}
+CHECKPOINTS = {"train": "checkpoint.ckpt", "refine": "refine.ckpt", "segment": "chains.json"}
 
 
 class RunFolder:
-    """One run folder of a training ("train") or refinement ("refine") run."""
+    """One run folder of a training ("train"), refinement ("refine") or segmentation
+    ("segment") run."""
 
     def __init__(self, path: str | Path, kind: str = "train"):
         if kind not in LOGS:
@@ -90,6 +96,14 @@ class RunFolder:
     @property
     def coarse(self) -> Path:
         return self.path / COARSE
+
+    @property
+    def segmentation(self) -> Path:
+        return self.path / SEGMENTATION
+
+    @property
+    def lexicon(self) -> Path:
+        return self.path / LEXICON
 
     def restart_grammar(self, restart: int) -> Path:
         return self.path / f"restart-{restart}.pcfg"

@@ -20,7 +20,9 @@ resampling of them).
 from __future__ import annotations
 
 import math
+from collections import Counter
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -28,6 +30,7 @@ import numpy as np
 from treewright.grammar import Grammar
 
 Tree = tuple
+FIXED_MEMO = 200_000  # fixed base probabilities kept at most (then the memo is cleared)
 
 
 def is_leaf(tree: Tree) -> bool:
@@ -72,11 +75,51 @@ class Rules:
                    grammar.binary.double().exp().numpy(), grammar.lexical.double().exp().numpy(),
                    adapted, discount, concentration)
 
+    @cached_property
+    def adapted_ids(self) -> list[int]:
+        return [a for a in range(len(self.names)) if self.adapted[a]]
+
+    @cached_property
+    def fixed_base(self) -> np.ndarray:
+        """(S,) bool: symbols whose every subtree has a base probability (`Cache.base`) that
+        does not depend on the restaurants: no rule below them has an adapted child (the
+        unigram word grammar's Word, Chars and Char; not Words, whose children are Words)."""
+        fixed = np.ones(len(self.names), dtype=bool)
+        parent, left, right = np.nonzero(self.binary)
+        plain = ~self.adapted
+        while True:  # a parent of an adapted or unfixed child is unfixed, until none changes
+            unfixed = parent[~(plain[left] & fixed[left] & plain[right] & fixed[right])]
+            if not fixed[unfixed].any():
+                return fixed
+            fixed[unfixed] = False
+
+    @cached_property
+    def py(self) -> "PlainRules":
+        """The same numbers as Python lists and floats: the sampler reads them one at a time,
+        and a Python float's arithmetic is the same float64 arithmetic without numpy's cost
+        per scalar."""
+        return PlainRules(self.adapted.tolist(), self.fixed_base.tolist(),
+                          self.discount.tolist(), self.concentration.tolist(),
+                          self.lexical.tolist(), self.binary.tolist())
+
     def rule(self, tree: Tree) -> float:
         """The probability of the rule at the top of `tree`."""
         if is_leaf(tree):
-            return float(self.lexical[tree[0], tree[1]])
-        return float(self.binary[tree[0], tree[1][0], tree[2][0]])
+            return self.py.lexical[tree[0]][tree[1]]
+        return self.py.binary[tree[0]][tree[1][0]][tree[2][0]]
+
+
+@dataclass(frozen=True)
+class PlainRules:
+    """`Rules` as lists: adapted, fixed_base, discount, concentration (S,); lexical [S][V];
+    binary [NT][S][S]."""
+
+    adapted: list[bool]
+    fixed_base: list[bool]
+    discount: list[float]
+    concentration: list[float]
+    lexical: list[list[float]]
+    binary: list[list[list[float]]]
 
 
 class Table:
@@ -112,9 +155,15 @@ class Cache:
         self.labels: list[dict[Tree, list[int]]] = [{} for _ in range(s)]   # label -> tables
         self.label_customers: list[dict[Tree, int]] = [{} for _ in range(s)]
         self.by_yield: list[dict[tuple, list[Tree]]] = [{} for _ in range(s)]
+        self.label_yield: list[dict[Tree, tuple]] = [{} for _ in range(s)]
+        # yield -> [customers, tables] of the labels with that yield, summed
+        self.yield_counts: list[dict[tuple, list[int]]] = [{} for _ in range(s)]
+        # prefix -> the number of cached yields that start with it (a yield is its own prefix)
+        self.prefixes: list[Counter] = [Counter() for _ in range(s)]
         self.customers = [0] * s   # n per symbol
         self.num_tables = [0] * s  # K per symbol
         self.next_id = 0
+        self._fixed_base: dict[Tree, float] = {}
 
     # ---- the Pitman-Yor predictive -----------------------------------------------------------
 
@@ -124,7 +173,7 @@ class Cache:
         n = self.customers[a]
         if n == 0:
             return 1.0
-        r = self.rules
+        r = self.rules.py
         return (self.num_tables[a] * r.discount[a] + r.concentration[a]) / (n + r.concentration[a])
 
     def reuse_prob(self, a: int, label: Tree) -> float:
@@ -133,9 +182,19 @@ class Cache:
         tables = self.labels[a].get(label)
         if not tables:
             return 0.0
-        r = self.rules
+        r = self.rules.py
         return (self.label_customers[a][label] - len(tables) * r.discount[a]) / \
             (self.customers[a] + r.concentration[a])
+
+    def reuse_total(self, a: int, span: tuple) -> float:
+        """The summed reuse probability of every cached label of `a` whose yield is `span`
+        (the weight of the proposal's rule a -> span): (sum n_y - a sum m_y) / (n + b)."""
+        counts = self.yield_counts[a].get(span)
+        if counts is None:
+            return 0.0
+        customers, tables = counts
+        r = self.rules.py
+        return (customers - tables * r.discount[a]) / (self.customers[a] + r.concentration[a])
 
     def predictive(self, tree: Tree) -> float:
         """The probability that a draw of the tree's top symbol, in the current state, is the
@@ -143,12 +202,25 @@ class Cache:
         expansion otherwise. Summed over every derivation, it is the probability the proposal
         grammar (`proposal`) gives the tree."""
         a = tree[0]
-        if not self.rules.adapted[a]:
+        if not self.rules.py.adapted[a]:
             return self.base(tree)
         return self.reuse_prob(a, tree) + self.new_table_prob(a) * self.base(tree)
 
     def base(self, tree: Tree) -> float:
-        """The rule at the top times the predictive of each child."""
+        """The rule at the top times the predictive of each child. For a symbol with a fixed
+        base (`Rules.fixed_base`) the value never changes, so it is kept in a memo that holds
+        exactly what this recursion returns: the state and the draws do not depend on what
+        the memo holds."""
+        if self.rules.py.fixed_base[tree[0]]:
+            p = self._fixed_base.get(tree)
+            if p is None:
+                p = self._fixed_base[tree] = self._base(tree)
+                if len(self._fixed_base) > FIXED_MEMO:
+                    self._fixed_base.clear()
+            return p
+        return self._base(tree)
+
+    def _base(self, tree: Tree) -> float:
         p = self.rules.rule(tree)
         if not is_leaf(tree) and p > 0.0:
             p *= self.predictive(tree[1]) * self.predictive(tree[2])
@@ -176,7 +248,7 @@ class Cache:
 
         def visit(node: Tree, plans) -> list[int]:
             a = node[0]
-            if self.rules.adapted[a]:
+            if self.rules.py.adapted[a]:
                 return [customer(node, None if plans is None else next(plans))]
             logs[0] += math.log(self.rules.rule(node))
             if is_leaf(node):
@@ -186,7 +258,8 @@ class Cache:
         def customer(node: Tree, planned) -> int:
             a = node[0]
             ids = list(self.labels[a].get(node, ()))
-            n, disc, conc = self.customers[a], self.rules.discount[a], self.rules.concentration[a]
+            n, disc, conc = self.customers[a], self.rules.py.discount[a], \
+                self.rules.py.concentration[a]
             weights = [(self.tables[t].count - disc) / (n + conc) for t in ids]
             new = self.new_table_prob(a)
             weights.append(new * self.base(node))
@@ -225,6 +298,7 @@ class Cache:
         t.count += 1
         self.customers[t.symbol] += 1
         self.label_customers[t.symbol][t.label] += 1
+        self.yield_counts[t.symbol][self.label_yield[t.symbol][t.label]][0] += 1
 
     def _open(self, a: int, label: Tree, table_id: int | None = None) -> int:
         if table_id is None:
@@ -234,12 +308,24 @@ class Cache:
         if label not in self.labels[a]:
             self.labels[a][label] = []
             self.label_customers[a][label] = 0
-            self.by_yield[a].setdefault(tree_yield(label), []).append(label)
+            self._add_yield(a, label)
         self.labels[a][label].append(table_id)
         self.label_customers[a][label] += 1
+        counts = self.yield_counts[a][self.label_yield[a][label]]
+        counts[0] += 1
+        counts[1] += 1
         self.customers[a] += 1
         self.num_tables[a] += 1
         return table_id
+
+    def _add_yield(self, a: int, label: Tree) -> None:
+        span = self.label_yield[a][label] = tree_yield(label)
+        if span not in self.by_yield[a]:
+            self.by_yield[a][span] = []
+            self.yield_counts[a][span] = [0, 0]
+            for end in range(1, len(span) + 1):
+                self.prefixes[a][span[:end]] += 1
+        self.by_yield[a][span].append(label)
 
     def _leave(self, table_id: int) -> None:
         t = self.tables[table_id]
@@ -247,8 +333,12 @@ class Cache:
         t.count -= 1
         self.customers[a] -= 1
         self.label_customers[a][t.label] -= 1
+        span = self.label_yield[a][t.label]
+        counts = self.yield_counts[a][span]
+        counts[0] -= 1
         if t.count > 0:
             return
+        counts[1] -= 1
         del self.tables[table_id]
         self.num_tables[a] -= 1
         same = self.labels[a][t.label]
@@ -256,10 +346,15 @@ class Cache:
         if not same:
             del self.labels[a][t.label]
             del self.label_customers[a][t.label]
-            span = tree_yield(t.label)
+            del self.label_yield[a][t.label]
             self.by_yield[a][span].remove(t.label)
             if not self.by_yield[a][span]:
                 del self.by_yield[a][span]
+                del self.yield_counts[a][span]
+                for end in range(1, len(span) + 1):
+                    self.prefixes[a][span[:end]] -= 1
+                    if not self.prefixes[a][span[:end]]:
+                        del self.prefixes[a][span[:end]]
         for child in t.children:
             self._leave(child)
 
@@ -280,11 +375,14 @@ class Cache:
             label = _from_json(label)
             cache.labels[a][label] = list(ids)
             cache.label_customers[a][label] = 0
-            cache.by_yield[a].setdefault(tree_yield(label), []).append(label)
+            cache._add_yield(a, label)
         for k, a, label, count, children in state["tables"]:
             label = _from_json(label)
             cache.tables[k] = Table(a, label, count, list(children))
             cache.label_customers[a][label] += count
+            counts = cache.yield_counts[a][cache.label_yield[a][label]]
+            counts[0] += count
+            counts[1] += 1
             cache.customers[a] += count
             cache.num_tables[a] += 1
         cache.next_id = state["next_id"]

@@ -10,15 +10,13 @@ root rule times `Cache.predictive`.
 This is a small chart of its own, not `treewright.engine`: the rules A -> y rewrite one symbol
 to a whole cached yield of any length, which the engine's binarized layout (binary and
 one-word rules, one grammar per batch) cannot hold without a new symbol per cached label, and
-the labels change after every sentence. The chart holds plain float64 probabilities, (n, n+1,
-S), filled a width at a time: a character costs the unigram word grammar a factor of about
+the labels change after every sentence. The chart holds plain float64 probabilities, filled a
+width at a time: a character costs the unigram word grammar a factor of about
 0.01, so utterances of up to about 150 characters stay above the smallest float64 (1e-308); a
 sentence whose total underflows is refused rather than guessed at.
 """
 
 from __future__ import annotations
-
-import math
 
 import numpy as np
 
@@ -28,42 +26,49 @@ from treewright.adaptor.model import Cache, Tree
 class ProposalChart:
     """Inside probabilities of one sentence under the proposal grammar of `cache`'s state.
 
-    chart[i, j, A] (n, n+1, S): the total weight of A's proposal derivations of words i..j-1.
+    inside[i, w, A] (n+1, n+1, S): the total weight of A's proposal derivations of words
+    i..i+w-1; by_end[j, w, A] (n+1, n+1, S) the same numbers keyed by the span's end j. Keeping
+    both makes the left children of every span of width w one strided view, inside[0:m, 1:w],
+    and the right children another, by_end[w:n+1, w-1:0:-1], so that a width costs a few numpy
+    calls and no gather (the engine's inside pass lays its chart out for the same reason).
     """
 
     def __init__(self, cache: Cache, words: list[int]):
         r = cache.rules
         self.cache, self.words = cache, words
         n, s, nt = len(words), len(r.names), r.num_nt
-        self.new = np.array([cache.new_table_prob(a) if r.adapted[a] else 1.0
-                             for a in range(s)])  # (S,) the base's share of each symbol
-        self.adapted = [a for a in range(s) if r.adapted[a]]
-        self.binary_flat = r.binary.reshape(nt, s * s)  # (NT, S*S)
-        # The rules A -> cached yield first, (n, n+1, S): they do not depend on the chart.
-        chart = np.zeros((n, n + 1, s))
-        for a in self.adapted:
-            cached = cache.by_yield[a]
-            if not cached:
-                continue
-            longest = max(map(len, cached))
+        self.new = np.ones(s)  # (S,) the base's share of each symbol
+        for a in r.adapted_ids:
+            self.new[a] = cache.new_table_prob(a)
+        inside = np.zeros((n + 1, n + 1, s))
+        # The rules A -> cached yield first: they do not depend on the rest of the chart. A
+        # span is extended only while it is the prefix of some cached yield.
+        for a in r.adapted_ids:
+            prefixes = cache.prefixes[a]
             for i in range(n):
-                for j in range(i + 1, min(n, i + longest) + 1):
+                for j in range(i + 1, n + 1):
                     span = tuple(words[i:j])
-                    if span in cached:
-                        chart[i, j, a] = math.fsum(w for _, w in cache.cached(a, span))
-        starts = np.arange(n)
-        chart[starts, starts + 1] += self.new * r.lexical[:, words].T  # (n, S) one-word spans
+                    if span not in prefixes:
+                        break
+                    weight = cache.reuse_total(a, span)
+                    if weight:
+                        inside[i, j - i, a] = weight
+        inside[0:n, 1] += self.new * r.lexical[:, words].T  # (n, S) one-word spans
+        by_end = np.zeros((n + 1, n + 1, s))
+        by_end[1:n + 1, 1] = inside[0:n, 1]
+        # (S*S, NT): binary rules as a matrix from (left, right) pairs to parents, each
+        # parent's column scaled by its base share.
+        to_parent = r.binary.reshape(nt, s * s).T * self.new[:nt]
         for width in range(2, n + 1):
             # Every span of this width at once: m = n - width + 1 spans, k = width - 1 splits.
-            i = starts[:n - width + 1, None]                        # (m, 1)
-            k = np.arange(1, width)[None, :]                        # (1, k)
-            left = chart[i, i + k]                                  # (m, k, S) over i..i+k
-            right = chart[i + k, i + width]                         # (m, k, S) over i+k..j
-            pairs = np.einsum("mks,mkt->mst", left, right)          # (m, S, S)
-            base = pairs.reshape(len(pairs), s * s) @ self.binary_flat.T  # (m, NT)
-            chart[i[:, 0], i[:, 0] + width, :nt] += self.new[:nt] * base
-        self.chart = chart
-        self.top = r.root * chart[0, n, :nt]  # (NT,)
+            m = n - width + 1
+            left = inside[0:m, 1:width]                  # (m, k, S): i..i+split
+            right = by_end[width:n + 1, width - 1:0:-1]  # (m, k, S): i+split..i+width
+            pairs = np.matmul(left.transpose(0, 2, 1), right)  # (m, S, S) summed over splits
+            inside[0:m, width, :nt] += pairs.reshape(m, s * s) @ to_parent  # (m, NT)
+            by_end[width:n + 1, width] = inside[0:m, width]
+        self.inside, self.by_end = inside, by_end
+        self.top = r.root * inside[0, n, :nt]  # (NT,)
         self.total = float(self.top.sum())
 
     def sample(self, rng: np.random.Generator) -> Tree:
@@ -74,36 +79,48 @@ class ProposalChart:
         return self._expand(_pick(self.top, rng), 0, len(self.words), rng)
 
     def _expand(self, a: int, i: int, j: int, rng: np.random.Generator) -> Tree:
+        """A's subtree over words i..j-1: one of A's cached labels with this yield, or a base
+        rule of A (with its split), drawn in proportion to their weights with one uniform
+        number scaled by the chart's total for the span (which is their sum), so that the
+        base rules' weights are computed only when no cached label is drawn."""
         r = self.cache.rules
-        cached = self.cache.cached(a, tuple(self.words[i:j])) if r.adapted[a] else []
-        if j - i == 1:
-            base = np.array([self.new[a] * r.lexical[a, self.words[i]]])
-        elif a < r.num_nt:
-            left = self.chart[i, i + 1:j]   # (w-1, S): the left child over i..k
-            right = self.chart[i + 1:j, j]  # (w-1, S): the right child over k..j
-            base = (self.new[a] * r.binary[a][None] * left[:, :, None]
-                    * right[:, None, :]).ravel()  # (w-1, S, S) by split, left, right
-        else:
-            base = np.zeros(0)
-        weights = np.concatenate([np.array([w for _, w in cached]), base])
-        pick = _pick(weights, rng)
-        if pick < len(cached):
-            return cached[pick][0]
-        pick -= len(cached)
-        if j - i == 1:
+        width = j - i
+        u = rng.random() * float(self.inside[i, width, a])
+        label = None
+        if r.py.adapted[a]:
+            for label, w in self.cache.cached(a, tuple(self.words[i:j])):
+                u -= w
+                if u < 0.0:
+                    return label
+        if width == 1:
+            if label is not None and r.py.lexical[a][self.words[i]] == 0.0:
+                return label  # u fell past the cached labels by rounding
             return (a, self.words[i])
+        left = self.inside[i, 1:width]          # (w-1, S): the left child over i..k
+        right = self.by_end[j, width - 1:0:-1]  # (w-1, S): the right child over k..j
+        # (w-1, S, S) by split, left child, right child; the base share new[a] is left out of
+        # the weights and divided out of u instead.
+        base = left[:, :, None] * right[:, None, :]
+        base *= r.binary[a]
+        base = base.ravel()
+        if label is not None and not (base > 0.0).any():
+            return label  # u fell past the cached labels by rounding
+        pick = _pick(base, rng, u / self.new[a])
         s = len(r.names)
-        split, rest = divmod(pick, s * s)
-        b, c = divmod(rest, s)
+        split, pair = divmod(pick, s * s)
+        b, c = divmod(pair, s)
         k = i + 1 + split
         return (a, self._expand(b, i, k, rng), self._expand(c, k, j, rng))
 
 
-def _pick(weights: np.ndarray, rng: np.random.Generator) -> int:
-    """An index drawn in proportion to non-negative `weights` (one uniform number)."""
+def _pick(weights: np.ndarray, rng: np.random.Generator, u: float | None = None) -> int:
+    """An index drawn in proportion to non-negative `weights`: the one whose interval of the
+    cumulative sum holds `u` (by default a uniform number times the sum). A u past the end,
+    by rounding, or on an edge takes the last index with a positive weight before it."""
     cumulative = np.cumsum(weights)
-    u = rng.random() * cumulative[-1]
-    pick = int(np.searchsorted(cumulative, u, side="right"))
-    while pick >= len(weights) or weights[pick] <= 0.0:  # u landed on the last edge
+    if u is None:
+        u = rng.random() * cumulative[-1]
+    pick = min(int(np.searchsorted(cumulative, u, side="right")), len(weights) - 1)
+    while weights[pick] <= 0.0:
         pick -= 1
     return pick

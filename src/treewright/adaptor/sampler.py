@@ -17,12 +17,21 @@ with their label and a new table, in proportion to their probabilities (`Cache.s
 ratio is therefore the exact one on the joint state, whose tree marginal is the adaptor
 grammar's posterior.
 
-Base rule probabilities stay fixed at the grammar's values; the discount and concentration of
-each adaptor too (no hyperparameter sampling).
+Annealing: a sweep at temperature T targets the joint state's probability raised to 1/T, with
+the same proposal, so P(new) / P(old) enters the ratio raised to 1/T. Above 1 the target is
+flatter, which lets a chain leave the segmentation it started in; a schedule (`annealing`)
+brings T down to 1, where the chain samples the posterior again. Johnson, Griffiths &
+Goldwater 2007 anneal their sampler this way (from memory: we did not check their schedule);
+the linear schedule here is ours.
+
+Base rule probabilities stay fixed at the grammar's values. The discount and concentration of
+each adaptor stay at the grammar's values too, unless `run(..., hyperparameters=True)`
+resamples them after every sweep (`hyper`); each chain then has its own.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -30,6 +39,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
+from treewright.adaptor import hyper
 from treewright.adaptor.model import Cache, Rules, Tree, _from_json, _to_json
 from treewright.adaptor.proposal import ProposalChart
 from treewright.adaptor.segment import lexicon, segment
@@ -69,14 +79,15 @@ class Chain:
             tops, _, _ = self.cache.seat(tree, self._draw_seat)
             self.analyses.append(Analysis(tree, tops))
 
-    def sweep(self) -> None:
-        """One Metropolis-Hastings step for every sentence, in corpus order."""
+    def sweep(self, temperature: float = 1.0) -> None:
+        """One Metropolis-Hastings step for every sentence, in corpus order, at `temperature`."""
         for k in range(len(self.sentences)):
-            self.step(k)
+            self.step(k, temperature)
         self.sweeps += 1
 
-    def step(self, k: int) -> bool:
-        """Resample sentence k's analysis; True when the proposal was accepted."""
+    def step(self, k: int, temperature: float = 1.0) -> bool:
+        """Resample sentence k's analysis, targeting the joint probability to the power
+        1 / temperature; True when the proposal was accepted."""
         old = self.analyses[k]
         cache, root = self.cache, self.rules.root
         plan = cache.plan(old.tops)
@@ -92,7 +103,8 @@ class Chain:
         tops, logp_new, logr_new = cache.seat(tree, self._draw_seat)
         logp_old += math.log(root[old.tree[0]])
         logp_new += math.log(root[tree[0]])
-        log_ratio = (logp_new - logr_new - log_q_new) - (logp_old - logr_old - log_q_old)
+        log_ratio = (logp_new - logp_old) / temperature - (logr_new + log_q_new) + \
+            (logr_old + log_q_old)
         self.proposed += 1
         if log_ratio >= 0.0 or self.rng.random() < math.exp(log_ratio):
             self.analyses[k] = Analysis(tree, tops)
@@ -113,6 +125,21 @@ class Chain:
                 return pick
         return max(p for p, w in enumerate(weights) if w > 0.0)
 
+    def resample_hyperparameters(self) -> None:
+        """Slice-sample each adapted symbol's discount, then concentration, given the
+        seating (`hyper.resample`); the chain's rules take the new values."""
+        discount, concentration = self.rules.discount.copy(), self.rules.concentration.copy()
+        for a in self.rules.adapted_ids:
+            counts = [t.count for t in self.cache.tables.values() if t.symbol == a]
+            discount[a], concentration[a] = hyper.resample(
+                counts, float(discount[a]), float(concentration[a]), self.rng)
+        self._set_hyperparameters(discount, concentration)
+
+    def _set_hyperparameters(self, discount: np.ndarray, concentration: np.ndarray) -> None:
+        self.rules = dataclasses.replace(self.rules, discount=discount,
+                                         concentration=concentration)
+        self.cache.rules = self.rules
+
     def log_joint(self) -> float:
         """log P of every tree and seating, the sentences seated in corpus order from empty
         restaurants (the seating is exchangeable, so the order does not change the value)."""
@@ -126,6 +153,8 @@ class Chain:
     def state(self) -> dict:
         return {"rng": self.rng.bit_generator.state, "sweeps": self.sweeps,
                 "proposed": self.proposed, "accepted": self.accepted,
+                "discount": self.rules.discount.tolist(),
+                "concentration": self.rules.concentration.tolist(),
                 "cache": self.cache.state(),
                 "analyses": [[_to_json(a.tree), a.tops] for a in self.analyses]}
 
@@ -138,6 +167,11 @@ class Chain:
         chain.accepted = state["accepted"]
         chain.cache = Cache.from_state(rules, state["cache"])
         chain.analyses = [Analysis(_from_json(t), list(tops)) for t, tops in state["analyses"]]
+        discount = np.array(state["discount"], dtype=float)
+        concentration = np.array(state["concentration"], dtype=float)
+        if discount.shape != rules.discount.shape or concentration.shape != discount.shape:
+            raise ValueError("a discount and concentration per symbol")
+        chain._set_hyperparameters(discount, concentration)
         return chain
 
 
@@ -166,13 +200,20 @@ class AdaptorSampler:
             chain.initialize()
             self.chains.append(chain)
 
-    def run(self, sweeps: int, progress: Callable[[int, int], None] | None = None) -> None:
-        """`sweeps` more sweeps of every chain; `progress(done, total)` after each sweep."""
+    def run(self, sweeps: int, progress: Callable[[int, int], None] | None = None,
+            temperature: Callable[[int], float] | None = None,
+            hyperparameters: bool = False) -> None:
+        """`sweeps` more sweeps of every chain; `progress(done, total)` after each sweep;
+        `temperature(k)` the temperature of a chain's sweep k (counted from 0 over the whole
+        run, resumed or not; `annealing` makes one), 1 when not given; `hyperparameters`:
+        resample every adaptor's discount and concentration after each sweep."""
         total = sweeps * len(self.chains)
         done = 0
         for chain in self.chains:
             for _ in range(sweeps):
-                chain.sweep()
+                chain.sweep(1.0 if temperature is None else temperature(chain.sweeps))
+                if hyperparameters:
+                    chain.resample_hyperparameters()
                 done += 1
                 if progress is not None:
                     progress(done, total)
@@ -240,6 +281,20 @@ class AdaptorSampler:
             raise InputError(f"the checkpoint's chains are malformed ({type(err).__name__}: "
                              f"{err})", path=source) from None
         return sampler
+
+
+def annealing(start: float, sweeps: int) -> Callable[[int], float]:
+    """A temperature schedule for `AdaptorSampler.run`: `start` at sweep 0, falling linearly to
+    1 at sweep `sweeps` and 1 from then on (no annealing when `start` is 1 or `sweeps` 0)."""
+    if not start >= 1.0 or sweeps < 0:
+        raise ValueError("annealing starts at a temperature of at least 1, over sweeps >= 0")
+
+    def temperature(k: int) -> float:
+        if k >= sweeps:
+            return 1.0
+        return start + (1.0 - start) * k / sweeps
+
+    return temperature
 
 
 def _encode(grammar: Grammar, sentences: list[list[str]], source: str) -> list[list[int]]:

@@ -1,5 +1,5 @@
-"""treewright validate: check a training or refine config (types, ranges, combinations) and do
-nothing else."""
+"""treewright validate: check a training, refine or segment config (types, ranges,
+combinations) and do nothing else."""
 
 from __future__ import annotations
 
@@ -12,8 +12,10 @@ EXAMPLES = """examples:
   treewright validate --options --kind refine
 
 A config is taken as a refine config when it has a refine or tree_form section or a data.start
-key, and as a training config otherwise (--kind says which instead). Every problem is reported at once, each with its key and the file line or override it came
-from. Data files are not read (they may not exist yet on this machine).
+key, as a segment config when it has a sampler or grammar section or a data.text key, and as a
+training config otherwise (--kind says which instead). Every problem is reported at once, each
+with its key and the file line or override it came from. Data files are not read (they may not
+exist yet on this machine).
 """
 
 
@@ -22,7 +24,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("overrides", nargs="*", metavar="key=value", help="dotted config overrides")
     p.add_argument("--options", action="store_true",
                    help="list every option with its type, default and allowed values")
-    p.add_argument("--kind", choices=("auto", "train", "refine"), default="auto",
+    p.add_argument("--kind", choices=("auto", "train", "refine", "segment"), default="auto",
                    help="the config's kind (default auto: from its sections); with --options, "
                         "list only that kind's options")
     p.add_argument("--print", action="store_true", dest="show",
@@ -49,7 +51,10 @@ def run(args) -> int:
     elif kind == "train":
         print(f"{args.config}: valid training config ({cfg.train.method}, "
               f"{cfg.model.parameterization})")
-    else:
+    elif kind == "refine":
         print(f"{args.config}: valid refine config ({cfg.data.start} start, "
               f"{cfg.refine.cycles} cycles)")
+    else:
+        print(f"{args.config}: valid segment config ({cfg.sampler.sweeps} sweeps, "
+              f"{cfg.sampler.chains} chain{'s' if cfg.sampler.chains != 1 else ''})")
     return 0

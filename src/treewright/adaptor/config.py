@@ -1,0 +1,92 @@
+"""The typed schema of a word-segmentation run (`treewright segment CONFIG.yaml`): the unigram
+word adaptor grammar (`adaptor.grammars`) sampled over unsegmented utterances.
+
+The defaults of the grammar (Pitman-Yor discount 0.5, concentration 10, even odds of another
+word and of another character) are the ones `scripts/segment_invented_language.py` chose
+before any run; they are not tuned.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Sequence
+
+from treewright.config import ConfigError, ConfigProblem, load_config, option
+
+
+@dataclass
+class SegmentDataConfig:
+    text: Path = option(doc="Utterances, one per line (UTF-8). The sampler sees each line's "
+                            "characters with its white space taken out; blank lines are "
+                            "counted and skipped.")
+    gold: bool = option(True, "The spaces of each line are its gold segmentation: boundary "
+                              "and token F1 are logged. false: the spaces are only taken out.")
+
+
+@dataclass
+class WordGrammarConfig:
+    discount: float = option(0.5, "Pitman-Yor discount a of the adapted Word.", range="[0, 1)")
+    concentration: float = option(10.0, "Pitman-Yor concentration b of Word (b > -a).",
+                                  range="(-1, inf)")
+    more_words: float = option(0.5, "Probability that another word follows.", range="(0, 1)")
+    more_characters: float = option(0.5, "Probability that a word goes on with another "
+                                         "character (the base spells words out).",
+                                    range="(0, 1)")
+
+
+@dataclass
+class SamplerConfig:
+    sweeps: int = option(200, "Sweeps of every chain; a sweep resamples each utterance once "
+                              "(one Metropolis-Hastings step).", range="[0, inf)")
+    chains: int = option(1, "Independent chains; the outputs and metrics are chain 0's.",
+                         range="[1, inf)")
+    seed: int = option(0, "Seeds every chain (chain c draws from the c-th child seed).")
+    checkpoint_every: int = option(10, "Sweeps between checkpoints (chains.json); --resume "
+                                       "continues from the last one.", range="[1, inf)")
+    anneal_from: float = option(1.0, "Temperature of the first sweep; it falls linearly to 1 "
+                                     "over anneal_sweeps sweeps (1: no annealing).",
+                                range="[1, inf)")
+    anneal_sweeps: int = option(0, "Sweeps over which the temperature falls to 1.",
+                                range="[0, inf)")
+    resample_hyperparameters: bool = option(
+        False, "After every sweep, slice-sample Word's discount and concentration from their "
+               "posterior (priors Beta(1, 1) and Gamma(10, 0.1); needs both positive at the "
+               "start).")
+    score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
+                                 "with gold); the log joint costs about a fifth of a sweep.",
+                              range="[1, inf)")
+
+
+@dataclass
+class SegmentOutputConfig:
+    run_dir: Path | None = option(None, "Run folder; null uses runs/<config file name>.")
+    stdout_metrics: bool = option(True, "Print each metric line on standard output.")
+
+
+@dataclass
+class SegmentConfig:
+    data: SegmentDataConfig = option(doc="The utterances.")
+    grammar: WordGrammarConfig = option(WordGrammarConfig(), "The unigram word grammar.")
+    sampler: SamplerConfig = option(SamplerConfig(), "The Metropolis-Hastings chains.")
+    output: SegmentOutputConfig = option(SegmentOutputConfig(), "Run folder and logging.")
+
+
+def load_segment_config(path: str | Path | None, overrides: Sequence[str] = ()
+                        ) -> SegmentConfig:
+    """The checked config (ConfigError lists every problem at once)."""
+    cfg = load_config(SegmentConfig, path, overrides, resolve_paths=True)
+    source = None if path is None else str(path)
+    problems = []
+    if not cfg.grammar.concentration > -cfg.grammar.discount:
+        problems.append(ConfigProblem(
+            "grammar.concentration", f"must exceed minus the discount "
+            f"(-{cfg.grammar.discount}), as the Pitman-Yor process needs", source))
+    if cfg.sampler.resample_hyperparameters and not (cfg.grammar.discount > 0 and
+                                                     cfg.grammar.concentration > 0):
+        problems.append(ConfigProblem(
+            "sampler.resample_hyperparameters", "the priors need a discount and a "
+            "concentration above 0 to start from", source))
+    if problems:
+        raise ConfigError(problems, path=source)
+    return cfg

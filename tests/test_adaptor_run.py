@@ -1,0 +1,146 @@
+"""`treewright segment`: a word-segmentation run from a config into a run folder (issue 23)."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import pytest
+
+from treewright.adaptor import AdaptorSampler, read_utterances
+from treewright.adaptor.config import load_segment_config
+from treewright.adaptor.run import segment_resume, segment_words
+from treewright.adaptor.sampler import Chain
+from treewright.cli import main
+from treewright.config import ConfigError
+from treewright.errors import InputError
+from treewright.evaluation import evaluate_segmentation
+
+REPO = Path(__file__).resolve().parents[1]
+SHIPPED = REPO / "src/treewright/data/examples/ostreli.txt"
+
+
+def _config(tmp_path: Path, lines: int = 40, **sampler) -> Path:
+    text = tmp_path / "ostreli.txt"
+    text.write_text("".join(SHIPPED.read_text(encoding="utf-8").splitlines(keepends=True)
+                            [:lines]), encoding="utf-8")
+    settings = {"sweeps": 6, "checkpoint_every": 2, "seed": 3, **sampler}
+    config = tmp_path / "segment.yaml"
+    config.write_text(json.dumps({"data": {"text": str(text)}, "sampler": settings}))
+    return config
+
+
+def _metric_lines(run: Path) -> list[dict]:
+    # "time" is the wall clock of each line, the one field a resumed run cannot repeat.
+    return [{k: v for k, v in json.loads(line).items() if k != "time"}
+            for line in (run / "metrics.jsonl").read_text().splitlines()]
+
+
+def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
+    # Reference: the uninterrupted run of the same config. A run stopped in sweep 5 (after
+    # the checkpoint of sweep 4, with sweep 5's work lost) and resumed must end with the same
+    # chains (restaurants, trees, generator state), outputs and metric lines.
+    config = _config(tmp_path, anneal_from=3.0, anneal_sweeps=4, resample_hyperparameters=True)
+    straight = segment_words(load_segment_config(config), tmp_path / "straight")
+    calls = {"n": 0}
+    sweep = Chain.sweep
+
+    def stopping(chain, temperature):
+        calls["n"] += 1
+        if calls["n"] == 5:
+            raise KeyboardInterrupt
+        sweep(chain, temperature)
+
+    monkeypatch.setattr(Chain, "sweep", stopping)
+    with pytest.raises(KeyboardInterrupt):
+        segment_words(load_segment_config(config), tmp_path / "halves")
+    monkeypatch.setattr(Chain, "sweep", sweep)
+    state = json.loads((tmp_path / "halves/chains.json").read_text())
+    assert state["chains"]["chains"][0]["sweeps"] == 4
+    resumed = segment_resume(tmp_path / "halves")
+    assert resumed.sweeps == straight.sweeps == 6
+    for name in ("segmentation.txt", "lexicon.tsv"):
+        assert (tmp_path / "halves" / name).read_text() == (tmp_path / "straight" / name
+                                                             ).read_text(), name
+    # The checkpoints hold the same chains; only the byte size of metrics.jsonl may differ,
+    # since its lines carry the wall-clock time.
+    ends = [json.loads((tmp_path / run / "chains.json").read_text())
+            for run in ("halves", "straight")]
+    assert ends[0]["chains"] == ends[1]["chains"]
+    assert _metric_lines(tmp_path / "halves") == _metric_lines(tmp_path / "straight")
+    assert [m["step"] for m in _metric_lines(tmp_path / "straight")] == list(range(7))
+    # The annealing schedule (annealing's own test checks it by hand) runs on across the stop,
+    # and the resampled concentration moved from the grammar's 10.
+    lines = _metric_lines(tmp_path / "halves")
+    assert [m.get("temperature") for m in lines] == [None, 3.0, 2.5, 2.0, 1.5, 1.0, 1.0]
+    assert lines[0]["concentration"] == 10.0 and lines[-1]["concentration"] != 10.0
+
+
+def test_outputs_agree_with_the_chains_and_the_gold(tmp_path):
+    config = _config(tmp_path, sweeps=4, score_every=2)
+    result = segment_words(load_segment_config(config), tmp_path / "run")
+    run = tmp_path / "run"
+    corpus = read_utterances(tmp_path / "ostreli.txt")
+    words = [line.split() for line in (run / "segmentation.txt").read_text().splitlines()]
+    # The segmentation joins back to each utterance's characters, one line per utterance.
+    assert ["".join(w) for w in words] == ["".join(c) for c in corpus.characters]
+    # In the unigram word grammar every word of the segmentation is one customer of Word
+    # (Word has no Word inside it), so the lexicon's customers count the words (a fact of the
+    # Chinese-restaurant representation).
+    lexicon = [line.split("\t") for line in (run / "lexicon.tsv").read_text().splitlines()]
+    assert sum(int(customers) for _, customers, _ in lexicon) == sum(map(len, words))
+    assert {text for text, _, _ in lexicon} == {w for ws in words for w in ws}
+    # The last metric line scores the written segmentation against the gold spaces
+    # (evaluate_segmentation, checked against scikit-learn in test_adaptor_segment.py), and
+    # its log_joint is the one the checkpointed chains give.
+    last = _metric_lines(run)[-1]
+    scores = evaluate_segmentation(words, corpus.gold)
+    assert (last["step"], last["token_f1"], last["boundary_f1"]) == \
+        (4, scores.tokens.f1, scores.boundaries.f1)
+    assert result.scores == scores
+    chains = AdaptorSampler.from_state(json.loads((run / "chains.json").read_text())["chains"])
+    assert last["log_joint"] == chains.chains[0].log_joint()
+    assert [m["step"] for m in _metric_lines(run)] == [0, 2, 4]
+
+
+def test_the_command_runs_resumes_and_refuses(tmp_path, capsys):
+    config = _config(tmp_path, sweeps=2)
+    run = tmp_path / "run"
+    assert main(["segment", str(config), f"output.run_dir={run}"]) == 0
+    assert capsys.readouterr().out.strip().endswith(str(run / "segmentation.txt"))
+    # The folder now holds a checkpoint: a fresh run refuses it, and --resume takes no config.
+    assert main(["segment", str(config), f"output.run_dir={run}"]) == 1
+    assert "already holds a checkpoint; continue it with --resume" in capsys.readouterr().err
+    assert main(["segment", str(config), "--resume", str(run)]) == 1
+    assert "give no config file" in capsys.readouterr().err
+    assert main(["segment", "--resume", str(run)]) == 0  # nothing left: ends at once
+    assert main(["validate", str(config)]) == 0
+    assert "valid segment config (2 sweeps, 1 chain)" in capsys.readouterr().out
+
+
+def test_bad_configs_and_changed_text_are_refused(tmp_path):
+    config = _config(tmp_path)
+    # The Pitman-Yor process needs b > -a (Pitman & Yor 1997).
+    with pytest.raises(ConfigError, match="grammar.concentration: must exceed"):
+        load_segment_config(config, ["grammar.discount=0.5", "grammar.concentration=-0.5"])
+    # The Beta and Gamma priors of the resampled values are 0 at a discount of 0.
+    with pytest.raises(ConfigError, match="sampler.resample_hyperparameters: the priors"):
+        load_segment_config(config, ["grammar.discount=0", "sampler.resample_hyperparameters=true"])
+    with pytest.raises(ConfigError, match="sampler.sweeps"):
+        load_segment_config(config, ["sampler.sweeps=-1"])
+    cfg = load_segment_config(config, ["sampler.sweeps=2"])
+    segment_words(cfg, tmp_path / "run")
+    (tmp_path / "ostreli.txt").write_text("kalu\n")
+    with pytest.raises(InputError, match="differ from those the checkpoint"):
+        segment_resume(tmp_path / "run")
+
+
+def test_the_shipped_text_is_the_generator_output():
+    # Reference: the seeded generator in scripts/segment_invented_language.py, which wrote it.
+    sys.path.insert(0, str(REPO / "scripts"))
+    try:
+        from segment_invented_language import ostreli
+    finally:
+        sys.path.remove(str(REPO / "scripts"))
+    assert SHIPPED.read_text(encoding="utf-8").splitlines() == ostreli(400)
