@@ -42,13 +42,14 @@ def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
     return torch.logsumexp(u[:, None, None, :] + v[None, :, None, :] + w[None, None, :, :], -1)
 
 
-def lowrank_log_partition(root: Tensor, u: Tensor, v: Tensor, w: Tensor, terminal: Tensor,
+def lowrank_log_partition(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor, terminal: Tensor,
                           lengths: Tensor, nt_terminal: Tensor | None = None,
                           span_pot: Tensor | None = None) -> Tensor:
     """log Z per sentence, (B,), differentiable with respect to every tensor argument.
 
     root        (NT,) or (B, NT)  log p(top symbol)
-    u           (NT, R)           log U, each row normalised over r
+    u           (NT, R) or None   log U, each row normalised over r; None: U is the identity
+                                  (R = NT), the independent productions of `engine.independent`
     v, w        (S, R)            log V, log W, each column normalised over the S child symbols
                                   (nonterminals first, then preterminals)
     terminal, lengths, nt_terminal, span_pot: as in `engine.inside.log_partition`.
@@ -80,8 +81,9 @@ class _LowRank(torch.autograd.Function):
 
 def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     B, N, T = terminal.shape
-    NT, R = u.shape
-    U, V, W = u.exp(), v.exp(), w.exp()
+    NT, R = root.shape[-1], v.shape[1]
+    U = None if u is None else u.exp()                                # None: the identity
+    V, W = v.exp(), w.exp()
     # One scale per word, shared by its preterminal and nonterminal vectors.
     word_scale = word_scales(terminal, nt_terminal)                   # (B, N)
     shift = word_scale.nan_to_num(neginf=0.0).unsqueeze(-1)
@@ -112,7 +114,8 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     for width in range(2, N + 1):
         offsets.append(offsets[-1] + (N - width + 1) * B)
     cells_all = terminal.new_empty(offsets[-1], NT)
-    rank_sums_all = terminal.new_empty(offsets[-1], R)
+    # Without U the rank sums are the raw cells, needed only until they are scaled.
+    rank_sums_all = None if U is None else terminal.new_empty(offsets[-1], R)
     vw = torch.cat([V[:NT], W[:NT]], 1)            # (NT, 2R): both roles in one product
     weights, peaks = [None, None], [None, None]
     top_cells = terminal.new_zeros(N + 1, B, NT)   # cell (0, width), for the root
@@ -127,7 +130,8 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
         weight = (pair - top.unsqueeze(-1)).exp_()                    # (P, B, K)
         K = width - 1
         rows = slice(offsets[width], offsets[width + 1])
-        rank_sums = rank_sums_all[rows].view(P, B, R)
+        # Without U the sums are written straight into the cells and scaled there.
+        rank_sums = (cells_all if U is None else rank_sums_all)[rows].view(P, B, R)
         step = _span_chunk(B * K * R)
         for p0 in range(0, P, step):  # chunks of spans, so that each product stays in cache
             p1 = min(P, p0 + step)
@@ -136,7 +140,7 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
             M = (p1 - p0) * B
             torch.bmm(weight[p0:p1].reshape(M, 1, K), pairs.view(M, K, R),
                       out=rank_sums[p0:p1].view(M, 1, R))
-        total = rank_sums @ U.t()                                     # (P, B, NT)
+        total = rank_sums if U is None else rank_sums @ U.t()         # (P, B, NT)
         peak = total.amax(-1)
         cells = torch.div(total, peak.unsqueeze(-1), out=cells_all[rows].view(P, B, NT))
         cells.nan_to_num_(nan=0.0)                                    # a dead span stays 0
@@ -173,7 +177,7 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
     unless `need_words` (span posteriors alone need neither)."""
     U, V, W, words = st["U"], st["V"], st["W"], st["words"]
     N, B, T = words.shape
-    NT, R = U.shape
+    NT, R = st["cells"].shape[-1], V.shape[1]
     lengths, ok, total, pi = st["lengths"], st["ok"], st["total"], st["pi"]
     g_root = torch.where(ok, grad_logz / torch.where(ok, total, torch.ones_like(total)),
                          torch.zeros_like(total))                     # (B,)
@@ -186,7 +190,8 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
     for width in range(1, N + 1):
         adj_left[0:N + 1 - width, :, width].zero_()
         adj_right[width:N + 1, :, N - width].zero_()
-    grad_U, grad_V, grad_W = torch.zeros_like(U), torch.zeros_like(V), torch.zeros_like(W)
+    grad_V, grad_W = torch.zeros_like(V), torch.zeros_like(W)
+    grad_U = None if U is None else torch.zeros_like(U)
     grad_pot = words.new_zeros(B, N + 1, N + 1) if has_pot else None
     left_proj, right_proj = st["left_proj"], st["right_proj"]
     offsets, vw = st["offsets"], st["vw"]
@@ -208,7 +213,7 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
             grad_pot[:, 0:P, width] = (adj * cells).sum(-1).t()
         g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
         g.nan_to_num_(nan=0.0)                                        # d/d raw sum
-        g_rank = g @ U                                                # (P, B, R)
+        g_rank = g if U is None else g @ U                            # (P, B, R)
         step = _span_chunk(B * (width - 1) * R)
         for p0 in range(0, P, step):
             p1 = min(P, p0 + step)
@@ -221,7 +226,8 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
         grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
         grad_V[:NT] += grad_vw[:, :R]
         grad_W[:NT] += grad_vw[:, R:]
-        grad_U += g_all.t() @ st["rank_sums"]
+        if U is not None:
+            grad_U += g_all.t() @ st["rank_sums"]
     # Width one.
     a_l = adj_left[0:N, :, 1].reshape(N * B, R)
     a_r = adj_right[1:N + 1, :, N - 1].reshape(N * B, R)
@@ -246,5 +252,5 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
     if not need_factors:
         return grad_root, None, None, None, grad_terminal, grad_nt_terminal, grad_pot
     # d/d log x = x * d/dx for every factor.
-    return (grad_root, grad_U * U, grad_V * V, grad_W * W, grad_terminal, grad_nt_terminal,
-            grad_pot)
+    return (grad_root, None if U is None else grad_U * U, grad_V * V, grad_W * W,
+            grad_terminal, grad_nt_terminal, grad_pot)
