@@ -4,12 +4,21 @@ turkish-treebanks)."""
 
 from __future__ import annotations
 
+import io
+import json
+import math
 import sysconfig
 from pathlib import Path
 
 import pytest
 
-from treewright.adaptor.morphs import baseline_scores, orthographic_words, read_written_words
+from _brute import all_trees
+from treewright.adaptor.config import load_segment_config
+from treewright.adaptor.grammars import morph_grammar
+from treewright.adaptor.morphs import (baseline_scores, morph_cuts, orthographic_words,
+                                       read_written_words)
+from treewright.adaptor.run import segment_words
+from treewright.config import ConfigError
 
 TREEBANK = Path(sysconfig.get_paths()["purelib"]) / "data"
 
@@ -115,3 +124,63 @@ def test_turkish_baselines_every_character_has_full_recall(web):
     assert every.predicted == sum(len("".join(m)) - 1 for m in web.split)
     assert every.recall == 1.0 and every.correct == every.gold
     assert scores["no split"].boundaries.f1 == 0.0
+
+
+def test_morph_grammar_base_probabilities_by_hand_and_by_enumeration():
+    # Worked by hand for "ab" over the alphabet {a, b} with every odd 0.5 (end = grow = stop =
+    # go = 0.5, each character 1/2): a bare stem, ROOT -> Stem -> Char Chars, has
+    # 0.5 * (0.5 * 1/2) * (0.5 * 1/2) = 1/32; a stem and one suffix, ROOT -> Word -> Stem
+    # Suffix, has 0.5 * 0.5 * (0.5 * 1/2) * (0.5 * 1/2) = 1/64. Total 3/64; the brute-force
+    # enumeration of every tree (tests/_brute.py) must find the same two trees.
+    grammar = morph_grammar("ab")
+    trees = list(all_trees(grammar, ["a", "b"]))
+    assert len(trees) == 2
+    assert sum(math.exp(lp) for lp, _, _ in trees) == pytest.approx(3 / 64)
+    assert set(grammar.adapted) == {"Stem", "Suffix"}
+
+
+def test_morph_cuts_union_the_edges_of_stems_and_suffixes():
+    grammar = morph_grammar("abc")
+    names = grammar.symbols
+    stem, suffix, char, chars = (names.index(s) for s in ("Stem", "Suffix", "Char", "Chars"))
+    word, suffixes = names.index("Word"), names.index("Suffixes")
+    a, b, c = (grammar.vocab.encode([x])[0] for x in "abc")
+    # "abcab" as Stem(ab) Suffix(c) Suffix(ab): cuts after 2 and 3 (by hand).
+    ab_stem = (stem, (char, a), (chars, b))
+    ab_suffix = (suffix, (char, a), (chars, b))
+    tree = (word, ab_stem, (suffixes, (suffix, c), ab_suffix))
+    assert morph_cuts(tree, [stem, suffix], list("abcab")) == ["ab", "c", "ab"]
+    assert morph_cuts(tree, [stem], list("abcab")) == ["ab", "cab"]
+
+
+def test_segment_job_in_morph_mode_writes_types_lexicon_and_split_word_scores(tmp_path):
+    path = tmp_path / "quay.conllu"
+    path.write_text(TOKENIZED, encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {path}\n  format: conllu\ngrammar:\n  unit: morphs\n"
+                      f"sampler:\n  sweeps: 3\noutput:\n  stdout_metrics: false\n",
+                      encoding="utf-8")
+    out = io.StringIO()
+    result = segment_words(load_segment_config(config), tmp_path / "run", stream=out)
+    lines = result.segmentation.read_text(encoding="utf-8").splitlines()
+    # One line per distinct written word, in order of first occurrence (the comment above).
+    assert ["".join(line.split()) for line in lines] == \
+        ["orrin", "velo", "marratund", "kal", "bri", "eskomanu", "sel"]
+    lexicon = [line.split("\t") for line in
+               result.lexicon.read_text(encoding="utf-8").splitlines()]
+    assert {row[0] for row in lexicon} <= {"Stem", "Suffix"}
+    # Every word has exactly one stem: the Stem customers add up to the 7 words.
+    assert sum(int(row[2]) for row in lexicon if row[0] == "Stem") == 7
+    metrics = [json.loads(line) for line in
+               (tmp_path / "run" / "metrics.jsonl").read_text(encoding="utf-8").splitlines()]
+    assert {"cached_Stem", "cached_Suffix", "discount_Suffix", "boundary_f1"} <= set(metrics[-1])
+    assert "on the 3 split written words: boundary precision" in out.getvalue()
+    assert "every character: precision 0.222" in out.getvalue()  # 4/18, worked out above
+
+
+def test_conllu_input_needs_the_morph_grammar(tmp_path):
+    config = tmp_path / "bad.yaml"
+    config.write_text("data:\n  text: x.conllu\n  format: conllu\n", encoding="utf-8")
+    with pytest.raises(ConfigError) as caught:
+        load_segment_config(config)
+    assert "data.format" in str(caught.value)

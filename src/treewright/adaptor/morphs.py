@@ -24,11 +24,15 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterable, Sequence
 
+from treewright.adaptor.model import Tree
+from treewright.adaptor.sampler import AdaptorSampler
+from treewright.adaptor.segment import top_spans
 from treewright.corpus import ReadOptions, read_corpus
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
 from treewright.word_pieces import split_words
 
 PUNCT = frozenset({"PUNCT"})
+MORPH_SYMBOLS = ("Stem", "Suffix")  # the adapted symbols of `grammars.morph_grammar`
 
 
 @dataclass(frozen=True)
@@ -86,3 +90,24 @@ def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScor
     chars = [list("".join(m)) for m in gold]
     return {"no split": evaluate_segmentation(whole, gold),
             "every character": evaluate_segmentation(chars, gold)}
+
+
+def morph_cuts(tree: Tree, symbols: Sequence[int], chars: Sequence[str]) -> list[str]:
+    """The morphs an analysis gives: `chars` cut at every edge of a top-most node of any of
+    `symbols` (Stem and Suffix in `grammars.morph_grammar`)."""
+    cuts = sorted({k for a in symbols for span in top_spans(tree, a) for k in span}
+                  - {0, len(chars)})
+    edges = [0] + cuts + [len(chars)]
+    return ["".join(chars[i:j]) for i, j in zip(edges, edges[1:])]
+
+
+def morph_segmentations(sampler: AdaptorSampler, chain: int = 0,
+                        symbols: Sequence[str] = MORPH_SYMBOLS) -> list[list[str]]:
+    """Each written word of `sampler` cut into morphs by chain `chain`'s analysis."""
+    ids = [sampler.rules.names.index(s) for s in symbols]
+    return [morph_cuts(t, ids, w) for t, w in zip(sampler.trees(chain), sampler.words)]
+
+
+def by_type(segmented: dict[str, list[str]], words: Sequence[Sequence[str]]) -> list[list[str]]:
+    """The segmentation of every word occurrence (gold morphs `words`) as its type's."""
+    return [segmented["".join(m)] for m in words]
