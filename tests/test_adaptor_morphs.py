@@ -17,7 +17,8 @@ from treewright.adaptor.config import load_segment_config
 from treewright.adaptor.grammars import morph_grammar
 from treewright.adaptor.morphs import (baseline_scores, morph_cuts, orthographic_words,
                                        read_written_words)
-from treewright.adaptor.run import segment_words
+from treewright.adaptor.run import segment_resume, segment_words
+from treewright.adaptor.sampler import Chain
 from treewright.config import ConfigError
 
 TREEBANK = Path(sysconfig.get_paths()["purelib"]) / "data"
@@ -184,3 +185,49 @@ def test_conllu_input_needs_the_morph_grammar(tmp_path):
     with pytest.raises(ConfigError) as caught:
         load_segment_config(config)
     assert "data.format" in str(caught.value)
+
+
+def test_morph_mode_resumes_bit_for_bit(tmp_path, monkeypatch):
+    # Reference: the uninterrupted run of the same config (as tests/test_adaptor_run.py does
+    # for words), here with CoNLL-U input and both Stem and Suffix hyperparameters resampled.
+    path = tmp_path / "quay.conllu"
+    path.write_text(TOKENIZED, encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {path}\n  format: conllu\ngrammar:\n  unit: morphs\n"
+                      f"sampler:\n  sweeps: 6\n  checkpoint_every: 2\n  "
+                      f"resample_hyperparameters: true\noutput:\n  stdout_metrics: false\n",
+                      encoding="utf-8")
+    segment_words(load_segment_config(config), tmp_path / "straight")
+    calls = {"n": 0}
+    sweep = Chain.sweep
+
+    def stopping(chain, temperature):
+        calls["n"] += 1
+        if calls["n"] == 4:
+            raise KeyboardInterrupt
+        sweep(chain, temperature)
+
+    monkeypatch.setattr(Chain, "sweep", stopping)
+    with pytest.raises(KeyboardInterrupt):
+        segment_words(load_segment_config(config), tmp_path / "halves")
+    monkeypatch.setattr(Chain, "sweep", sweep)
+    segment_resume(tmp_path / "halves")
+    for name in ("segmentation.txt", "lexicon.tsv"):
+        assert (tmp_path / "halves" / name).read_text() == \
+            (tmp_path / "straight" / name).read_text(), name
+    ends = [json.loads((tmp_path / run / "chains.json").read_text())["chains"]
+            for run in ("halves", "straight")]
+    assert ends[0] == ends[1]
+
+
+def test_morph_mode_on_lines_takes_one_word_per_line_with_spaces_as_gold(tmp_path):
+    text = tmp_path / "words.txt"
+    text.write_text("ve lo\nmarra tund\n\nsel\n", encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {text}\ngrammar:\n  unit: morphs\nsampler:\n  sweeps: 2\n"
+                      f"output:\n  stdout_metrics: false\n", encoding="utf-8")
+    result = segment_words(load_segment_config(config), tmp_path / "run")
+    lines = result.segmentation.read_text(encoding="utf-8").splitlines()
+    assert ["".join(line.split()) for line in lines] == ["velo", "marratund", "sel"]
+    # Two gold boundaries (after "ve" and after "marra"), counted by hand.
+    assert result.scores.boundaries.gold == 2
