@@ -64,8 +64,8 @@ class SamplerConfig:
                                 range="[0, inf)")
     resample_hyperparameters: bool = option(
         False, "After every sweep, slice-sample each adapted symbol's discount and "
-               "concentration from their posterior (priors Beta(1, 1) and Gamma(10, 0.1); needs both positive at the "
-               "start).")
+               "concentration from their posterior (priors Beta(1, 1) and Gamma(10, 0.1); "
+               "needs both positive at the start).")
     score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
                                  "with gold); the log joint costs about a fifth of a sweep.",
                               range="[1, inf)")
