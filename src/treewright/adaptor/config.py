@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Sequence
+from typing import Literal, Sequence
 
 from treewright.config import ConfigError, ConfigProblem, load_config, option
 
@@ -19,20 +19,33 @@ from treewright.config import ConfigError, ConfigProblem, load_config, option
 class SegmentDataConfig:
     text: Path = option(doc="Utterances, one per line (UTF-8). The sampler sees each line's "
                             "characters with its white space taken out; blank lines are "
-                            "counted and skipped.")
+                            "counted and skipped. With format conllu, a CoNLL-U file.")
+    format: Literal["lines", "conllu"] = option(
+        "lines", "lines: one utterance (or with grammar.unit morphs, one word) per line. "
+                 "conllu: the distinct written words of a CoNLL-U file, punctuation out and "
+                 "lowercased, each once; the tokens a word is written as are its gold morphs "
+                 "(needs grammar.unit morphs).")
     gold: bool = option(True, "The spaces of each line are its gold segmentation: boundary "
                               "and token F1 are logged. false: the spaces are only taken out.")
 
 
 @dataclass
 class WordGrammarConfig:
+    unit: Literal["words", "morphs"] = option(
+        "words", "words: the unigram word grammar over utterances. morphs: each input is one "
+                 "word, cut into a Stem and Suffixes, both adapted with discount and "
+                 "concentration below (adaptor.grammars.morph_grammar).")
     discount: float = option(0.5, "Pitman-Yor discount a of the adapted Word.", range="[0, 1)")
     concentration: float = option(10.0, "Pitman-Yor concentration b of Word (b > -a).",
                                   range="(-1, inf)")
     more_words: float = option(0.5, "Probability that another word follows.", range="(0, 1)")
     more_characters: float = option(0.5, "Probability that a word goes on with another "
-                                         "character (the base spells words out).",
+                                         "character (the base spells words out); with unit "
+                                         "morphs, that a stem or suffix does.",
                                     range="(0, 1)")
+    more_suffixes: float = option(0.5, "Unit morphs: probability that a suffix follows the "
+                                       "stem, and that another follows a suffix.",
+                                  range="(0, 1)")
 
 
 @dataclass
@@ -50,9 +63,9 @@ class SamplerConfig:
     anneal_sweeps: int = option(0, "Sweeps over which the temperature falls to 1.",
                                 range="[0, inf)")
     resample_hyperparameters: bool = option(
-        False, "After every sweep, slice-sample Word's discount and concentration from their "
-               "posterior (priors Beta(1, 1) and Gamma(10, 0.1); needs both positive at the "
-               "start).")
+        False, "After every sweep, slice-sample each adapted symbol's discount and "
+               "concentration from their posterior (priors Beta(1, 1) and Gamma(10, 0.1); "
+               "needs both positive at the start).")
     score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
                                  "with gold); the log joint costs about a fifth of a sweep.",
                               range="[1, inf)")
@@ -87,6 +100,10 @@ def load_segment_config(path: str | Path | None, overrides: Sequence[str] = ()
         problems.append(ConfigProblem(
             "sampler.resample_hyperparameters", "the priors need a discount and a "
             "concentration above 0 to start from", source))
+    if cfg.data.format == "conllu" and cfg.grammar.unit != "morphs":
+        problems.append(ConfigProblem(
+            "data.format", "conllu input is the written words of the file, for grammar.unit "
+            "morphs", source))
     if problems:
         raise ConfigError(problems, path=source)
     return cfg

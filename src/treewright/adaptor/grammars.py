@@ -45,3 +45,43 @@ def unigram_word_grammar(alphabet: Iterable[str], discount: float = 0.5,
                   f"Char -> {quote(c)} {one!r}"]
     return parse_grammar("\n".join(lines) + "\n", source="<unigram word grammar>",
                          renormalize=True)
+
+
+def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration: float = 10.0,
+                  more_suffixes: float = 0.5, more_characters: float = 0.5) -> Grammar:
+    """A word as a stem and suffixes (one input sentence is one written word), in Chomsky
+    normal form, with Stem and Suffix adapted (each its own Pitman-Yor cache, both with
+    `discount` and `concentration`), so recurring stems and recurring suffixes are each reused
+    whole. The shape is that of Johnson, Griffiths & Goldwater 2007 (section 5, the morphology
+    grammar Word -> Stem Suffix), with any number of suffixes:
+
+        ROOT -> Stem | Word             a bare stem, or a stem with suffixes
+        Word -> Stem Suffix | Stem Suffixes
+        Suffixes -> Suffix Suffix | Suffix Suffixes
+        Stem -> c | Char Chars          (adapted)
+        Suffix -> c | Char Chars        (adapted)
+        Chars -> c | Char Chars
+        Char -> c                       each character c of the alphabet, equally likely
+
+    more_suffixes    p(a suffix follows the stem), and p(another follows a suffix): the base
+                     number of suffixes is geometric
+    more_characters  p(another character follows) in stems and suffixes alike
+    """
+    chars = sorted(set(alphabet))
+    if not chars:
+        raise ValueError("the alphabet is empty")
+    one = 1.0 / len(chars)
+    stop, go = 1.0 - more_suffixes, more_suffixes
+    end, grow = 1.0 - more_characters, more_characters
+    lines = ["@start ROOT",
+             f"@adapted Stem discount {discount!r} concentration {concentration!r}",
+             f"@adapted Suffix discount {discount!r} concentration {concentration!r}",
+             f"ROOT -> Stem {stop!r}", f"ROOT -> Word {go!r}",
+             f"Word -> Stem Suffix {stop!r}", f"Word -> Stem Suffixes {go!r}",
+             f"Suffixes -> Suffix Suffix {stop!r}", f"Suffixes -> Suffix Suffixes {go!r}",
+             f"Stem -> Char Chars {grow!r}", f"Suffix -> Char Chars {grow!r}",
+             f"Chars -> Char Chars {grow!r}"]
+    for c in chars:
+        lines += [f"Stem -> {quote(c)} {end * one!r}", f"Suffix -> {quote(c)} {end * one!r}",
+                  f"Chars -> {quote(c)} {end * one!r}", f"Char -> {quote(c)} {one!r}"]
+    return parse_grammar("\n".join(lines) + "\n", source="<morph grammar>", renormalize=True)

@@ -10,6 +10,15 @@ boundary_f1), chains.json (the checkpoint: the chains' JSON state and the size m
 had then), and at the end segmentation.txt (chain 0's words, one utterance per line, in file
 order without the blank lines) and lexicon.tsv (Word's cached subtrees: characters,
 customers, tables).
+
+With grammar.unit morphs each input is one word and the grammar cuts it into a stem and
+suffixes (`grammars.morph_grammar`): the segmentation cuts at the edges of the Stem and Suffix
+subtrees, metrics.jsonl has cached_Stem, cached_Suffix and each one's discount_ and
+concentration_ in place of Word's, and lexicon.tsv starts each line with the symbol (Stem or
+Suffix). With data.format conllu the inputs are the distinct written words of a CoNLL-U file
+(`morphs.read_written_words`), one line each in segmentation.txt in order of first occurrence;
+a word's gold is the tokens of its first occurrence, and the final note scores every
+occurrence of the split written words (the goal of issue 23) beside the two baselines.
 """
 
 from __future__ import annotations
@@ -20,7 +29,9 @@ from pathlib import Path
 from typing import TextIO
 
 from treewright.adaptor.config import SegmentConfig, load_segment_config
-from treewright.adaptor.grammars import unigram_word_grammar
+from treewright.adaptor.grammars import morph_grammar, unigram_word_grammar
+from treewright.adaptor.morphs import (MORPH_SYMBOLS, WrittenWords, baseline_scores, by_type,
+                                       morph_segmentations, read_written_words)
 from treewright.adaptor.sampler import AdaptorSampler, annealing
 from treewright.adaptor.segment import Utterances, read_utterances
 from treewright.config import dump_config_yaml
@@ -49,16 +60,19 @@ def segment_words(cfg: SegmentConfig, run_dir: str | Path, stream: TextIO | None
     folder = RunFolder(run_dir, "segment")
     header = f"resolved config of treewright segment {config_source or ''}".rstrip()
     folder.start(resume=False, config_text=dump_config_yaml(cfg, header))
-    corpus = _read(cfg, folder, stream)
+    corpus, written = _read(cfg, folder, stream)
     chars = [c for u in corpus.characters for c in u]
     if not chars:
         raise InputError("no utterances (the file is empty or blank)", path=str(cfg.data.text))
-    grammar = unigram_word_grammar(chars, cfg.grammar.discount, cfg.grammar.concentration,
-                                   cfg.grammar.more_words, cfg.grammar.more_characters)
+    g = cfg.grammar
+    grammar = morph_grammar(chars, g.discount, g.concentration, g.more_suffixes,
+                            g.more_characters) if g.unit == "morphs" else \
+        unigram_word_grammar(chars, g.discount, g.concentration, g.more_words,
+                             g.more_characters)
     folder.note(f"initializing {cfg.sampler.chains} chain(s)", stream)
     sampler = AdaptorSampler(grammar, corpus.characters, chains=cfg.sampler.chains,
                              seed=cfg.sampler.seed, source=str(cfg.data.text))
-    return _run(cfg, folder, corpus, sampler, stream, fresh=True)
+    return _run(cfg, folder, corpus, written, sampler, stream, fresh=True)
 
 
 def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> SegmentResult:
@@ -77,7 +91,7 @@ def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> Segment
         raise InputError(f"not a checkpoint of a segmentation run, version "
                          f"{RUN_CHECKPOINT_VERSION}", path=where)
     sampler = AdaptorSampler.from_state(state.get("chains"), source=where)
-    corpus = _read(cfg, folder, stream)
+    corpus, written = _read(cfg, folder, stream)
     if corpus.characters != sampler.words:
         raise InputError("the utterances differ from those the checkpoint was sampled on",
                          path=str(cfg.data.text))
@@ -85,18 +99,37 @@ def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> Segment
     folder.truncate_metrics(int(state.get("metrics_bytes", 0)))
     folder.note(f"resuming after sweep {sampler.chains[0].sweeps} of {cfg.sampler.sweeps}",
                 stream)
-    return _run(cfg, folder, corpus, sampler, stream, fresh=False)
+    return _run(cfg, folder, corpus, written, sampler, stream, fresh=False)
 
 
-def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None) -> Utterances:
+def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
+          ) -> tuple[Utterances, WrittenWords | None]:
+    """The inputs, and with data.format conllu the written words they are the types of."""
+    if cfg.data.format == "conllu":
+        written = read_written_words(cfg.data.text)
+        first: dict[str, list[str]] = {}
+        for m in written.morphs:
+            first.setdefault("".join(m), m)
+        corpus = Utterances([list(t) for t in first], list(first.values()), [], 0)
+        folder.note(f"read {len(written.morphs)} written words ({len(written.split)} split "
+                    f"into tokens), {len(first)} distinct, from {written.sentences} sentences "
+                    f"of {cfg.data.text} ({written.skipped} sentences skipped: nothing but "
+                    f"punctuation)", stream)
+        return corpus, written
     corpus = read_utterances(cfg.data.text)
     folder.note(f"read {len(corpus.characters)} utterances from {cfg.data.text} "
                 f"({corpus.blank} blank lines skipped)", stream)
-    return corpus
+    return corpus, None
 
 
-def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances, sampler: AdaptorSampler,
-         stream: TextIO | None, fresh: bool) -> SegmentResult:
+def _symbols(cfg: SegmentConfig) -> tuple[str, ...]:
+    """The adapted symbols whose top-most subtrees are the units the run cuts into."""
+    return MORPH_SYMBOLS if cfg.grammar.unit == "morphs" else (WORD,)
+
+
+def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
+         written: WrittenWords | None, sampler: AdaptorSampler, stream: TextIO | None,
+         fresh: bool) -> SegmentResult:
     total = cfg.sampler.sweeps
     done = sampler.chains[0].sweeps
     temperature = annealing(cfg.sampler.anneal_from, cfg.sampler.anneal_sweeps)
@@ -120,33 +153,61 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances, sampler: Ada
                 progress.update(1)
     finally:
         loggers.close()
-    words = sampler.segmentations(WORD)
+    symbols = _symbols(cfg)
+    words = morph_segmentations(sampler, 0, symbols)
     atomic_write_text(folder.segmentation, "".join(" ".join(w) + "\n" for w in words))
-    atomic_write_text(folder.lexicon, "".join(f"{text}\t{customers}\t{tables}\n" for
-                                              text, customers, tables in sampler.lexicon(WORD)))
+    if symbols == (WORD,):
+        lexicon = "".join(f"{text}\t{customers}\t{tables}\n" for
+                          text, customers, tables in sampler.lexicon(WORD))
+    else:
+        lexicon = "".join(f"{a}\t{text}\t{customers}\t{tables}\n" for a in symbols
+                          for text, customers, tables in sampler.lexicon(a))
+    atomic_write_text(folder.lexicon, lexicon)
     scores = evaluate_segmentation(words, corpus.gold, str(cfg.data.text)) \
         if cfg.data.gold else None
     if scores is not None:
         folder.note(f"after {done} sweeps: token F1 {scores.tokens.f1:.3f}, boundary F1 "
                     f"{scores.boundaries.f1:.3f}", stream)
+    if written is not None:
+        _note_split_words(folder, written, dict(zip(("".join(u) for u in corpus.characters),
+                                                    words)), stream)
     folder.note(f"wrote {folder.segmentation} and {folder.lexicon}", stream)
     return SegmentResult(folder.segmentation, folder.lexicon, done, scores)
+
+
+def _note_split_words(folder: RunFolder, written: WrittenWords,
+                      segmented: dict[str, list[str]], stream: TextIO | None) -> None:
+    """Boundary scores on every occurrence of the split written words, beside the baselines."""
+    gold = written.split
+    if not gold:
+        return
+    ours = evaluate_segmentation(by_type(segmented, gold), gold).boundaries
+    base = {k: v.boundaries for k, v in baseline_scores(gold).items()}
+    folder.note(f"on the {len(gold)} split written words: boundary precision "
+                f"{ours.precision:.3f}, recall {ours.recall:.3f}, F1 {ours.f1:.3f}; no split F1 "
+                f"{base['no split'].f1:.3f}; every character: precision "
+                f"{base['every character'].precision:.3f}, F1 {base['every character'].f1:.3f}",
+                stream)
 
 
 def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
              before: tuple[int, int] | None) -> dict[str, float]:
     """Chain 0's numbers now; `before` (proposed, accepted) as the sweep started."""
     chain = sampler.chains[0]
-    word = sampler.rules.names.index(WORD)
-    out = {"log_joint": chain.log_joint(), "cached_words": len(chain.cache.labels[word]),
-           "discount": float(chain.rules.discount[word]),
-           "concentration": float(chain.rules.concentration[word])}
+    out = {"log_joint": chain.log_joint()}
+    symbols = _symbols(cfg)
+    for name in symbols:
+        a = sampler.rules.names.index(name)
+        suffix = "" if symbols == (WORD,) else f"_{name}"
+        out["cached_words" if not suffix else f"cached{suffix}"] = len(chain.cache.labels[a])
+        out[f"discount{suffix}"] = float(chain.rules.discount[a])
+        out[f"concentration{suffix}"] = float(chain.rules.concentration[a])
     if before is not None:
         proposed = chain.proposed - before[0]
         out["accept_rate"] = (chain.accepted - before[1]) / proposed if proposed else 0.0
     if cfg.data.gold:
-        scores = evaluate_segmentation(sampler.segmentations(WORD), corpus.gold,
-                                       str(cfg.data.text))
+        scores = evaluate_segmentation(morph_segmentations(sampler, 0, _symbols(cfg)),
+                                       corpus.gold, str(cfg.data.text))
         out["token_f1"] = scores.tokens.f1
         out["boundary_f1"] = scores.boundaries.f1
     return out

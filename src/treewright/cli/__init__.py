@@ -19,7 +19,8 @@ COMMANDS = {
     "refine": ("treewright.cli.refine",
                "split-merge refinement of a grammar's symbols into subcategories"),
     "segment": ("treewright.cli.segment",
-                "split unsegmented text into words with an adaptor grammar, into a run folder"),
+                "split unsegmented text into words, or words into morphs, with an adaptor "
+                "grammar, into a run folder"),
     "score": ("treewright.cli.score", "log-probability of each sentence under a grammar"),
     "parse": ("treewright.cli.parse", "the best tree of each sentence"),
     "sample": ("treewright.cli.sample", "draw sentences with their trees from a grammar"),

@@ -1,5 +1,5 @@
-"""treewright segment: word segmentation of unsegmented text with an adaptor grammar, as a
-config says, into one run folder."""
+"""treewright segment: word segmentation of unsegmented text, or morph segmentation of words,
+with an adaptor grammar, as a config says, into one run folder."""
 
 from __future__ import annotations
 
@@ -9,6 +9,11 @@ EXAMPLES = """examples:
   treewright segment configs/segment_words.yaml
   treewright segment configs/segment_words.yaml sampler.sweeps=500 output.run_dir=runs/seg500
   treewright segment --resume runs/seg500
+  treewright segment configs/segment_morphs.yaml
+
+With grammar.unit morphs each line is one word, cut into a stem and suffixes; with
+data.format conllu the words are the distinct written words of a CoNLL-U file, and the tokens
+each is written as are its gold morphs.
 
 Each line of data.text is one utterance; the sampler sees its characters with the white space
 taken out, and with data.gold the spaces are the gold words that token and boundary F1 are

@@ -1,0 +1,113 @@
+"""Morph segmentation on a CoNLL-U corpus: its orthographic words as character input, with
+gold boundaries where the syntactic tokens of one written word meet.
+
+A tokenizer may write one orthographic word as several syntactic tokens: a multiword-token
+range, or `SpaceAfter=No` between them (the Turkish web treebank writes `kullanmaya` as
+`kullan` + `maya`). The reader marks these as `Sentence.joined`; the orthographic word is the
+run of tokens joined to the one before, and its gold morphs are those tokens. Words are
+lowercased with `str.lower` as written (no language-specific case rules), so gold and input
+hold the same characters.
+
+Punctuation tokens (UPOS PUNCT) are taken out before the words are formed: a comma written
+against a word is not one of its morphs, and the reader then leaves the tokens around it
+unjoined (`corpus.reader._joined_without`).
+
+Baselines (common practice for boundary scores): no split predicts no boundary (precision,
+recall and F1 all 0 by the convention of `evaluation.segmentation`), and a split at every
+character predicts every position (recall 1, precision the share of positions that are gold
+boundaries).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterable, Sequence
+
+from treewright.adaptor.model import Tree
+from treewright.adaptor.sampler import AdaptorSampler
+from treewright.adaptor.segment import top_spans
+from treewright.corpus import ReadOptions, read_corpus
+from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
+from treewright.word_pieces import split_words
+
+PUNCT = frozenset({"PUNCT"})
+MORPH_SYMBOLS = ("Stem", "Suffix")  # the adapted symbols of `grammars.morph_grammar`
+
+
+@dataclass(frozen=True)
+class WrittenWords:
+    """The orthographic words of a corpus, in corpus order (one entry per occurrence).
+
+    morphs     per word, its syntactic tokens lowercased (the gold morphs; one for an unsplit word)
+    sentences  the sentences used
+    skipped    sentences the reader skipped (too short: left empty once punctuation is out)
+    """
+
+    morphs: list[list[str]]
+    sentences: int
+    skipped: int
+
+    @property
+    def split(self) -> list[list[str]]:
+        """The words written as two or more syntactic tokens."""
+        return [m for m in self.morphs if len(m) > 1]
+
+    def types(self) -> list[str]:
+        """The distinct written words, in order of first occurrence."""
+        return list(dict.fromkeys("".join(m) for m in self.morphs))
+
+
+def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] | None]]
+                       ) -> list[list[str]]:
+    """The orthographic words of (tokens, joined) sentences, each as its lowercased tokens.
+    A sentence whose joins the source does not give (joined None) has one word per token."""
+    out: list[list[str]] = []
+    for tokens, joined in sentences:
+        if joined is None:
+            out.extend([t.lower()] for t in tokens)
+            continue
+        groups = dict(split_words(joined))  # start -> end of each word of two or more tokens
+        k = 0
+        while k < len(tokens):
+            end = groups.get(k, k + 1)
+            out.append([t.lower() for t in tokens[k:end]])
+            k = end
+    return out
+
+
+def read_written_words(path: str | Path) -> WrittenWords:
+    """The orthographic words of a CoNLL-U file, punctuation taken out (non-projective
+    sentences are kept: their arcs are lifted, which leaves the words as they are)."""
+    corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift", punct_labels=PUNCT))
+    words = orthographic_words((s.words, s.joined) for s in corpus.sentences)
+    return WrittenWords(words, len(corpus.sentences), corpus.report.sentences_skipped)
+
+
+def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScores]:
+    """Scores of the no-split and split-every-character baselines against `gold` morphs."""
+    whole = [["".join(m)] for m in gold]
+    chars = [list("".join(m)) for m in gold]
+    return {"no split": evaluate_segmentation(whole, gold),
+            "every character": evaluate_segmentation(chars, gold)}
+
+
+def morph_cuts(tree: Tree, symbols: Sequence[int], chars: Sequence[str]) -> list[str]:
+    """The morphs an analysis gives: `chars` cut at every edge of a top-most node of any of
+    `symbols` (Stem and Suffix in `grammars.morph_grammar`)."""
+    cuts = sorted({k for a in symbols for span in top_spans(tree, a) for k in span}
+                  - {0, len(chars)})
+    edges = [0] + cuts + [len(chars)]
+    return ["".join(chars[i:j]) for i, j in zip(edges, edges[1:])]
+
+
+def morph_segmentations(sampler: AdaptorSampler, chain: int = 0,
+                        symbols: Sequence[str] = MORPH_SYMBOLS) -> list[list[str]]:
+    """Each written word of `sampler` cut into morphs by chain `chain`'s analysis."""
+    ids = [sampler.rules.names.index(s) for s in symbols]
+    return [morph_cuts(t, ids, w) for t, w in zip(sampler.trees(chain), sampler.words)]
+
+
+def by_type(segmented: dict[str, list[str]], words: Sequence[Sequence[str]]) -> list[list[str]]:
+    """The segmentation of every word occurrence (gold morphs `words`) as its type's."""
+    return [segmented["".join(m)] for m in words]

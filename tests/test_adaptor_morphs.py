@@ -1,0 +1,233 @@
+"""Orthographic words of a CoNLL-U corpus with gold morph boundaries at the joins of their
+syntactic tokens, the two baselines, and the counts on the Turkish web treebank (PyPI
+turkish-treebanks)."""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import sysconfig
+from pathlib import Path
+
+import pytest
+
+from _brute import all_trees
+from treewright.adaptor.config import load_segment_config
+from treewright.adaptor.grammars import morph_grammar
+from treewright.adaptor.morphs import (baseline_scores, morph_cuts, orthographic_words,
+                                       read_written_words)
+from treewright.adaptor.run import segment_resume, segment_words
+from treewright.adaptor.sampler import Chain
+from treewright.config import ConfigError
+
+TREEBANK = Path(sysconfig.get_paths()["purelib"]) / "data"
+
+# Invented text in the CoNLL-U format (an open standard), heads omitted. Worked out by hand:
+#   sentence 1: "Orrin" | "velo" = ve+lo (multiword token 2-3) | "Marratund" = Marra+tund
+#               (SpaceAfter=No on 4) | "kal" then "," with SpaceAfter=No before "bri": the comma
+#               is punctuation and is taken out, so "kal" and "bri" are words of their own.
+#   sentence 2: "Eskomanu" = Esko+ma+nu (SpaceAfter=No on 1 and 2) | "sel".
+# Orthographic words: orrin, ve|lo, marra|tund, kal, bri, esko|ma|nu, sel (7 words, 3 split,
+# 4 gold boundaries: after "ve", after "marra", after "esko" and after "eskoma").
+TOKENIZED = """\
+# sent_id = quay-1
+1\tOrrin\t_\tPROPN\t_\t_\t_\t_\t_\t_
+2-3\tvelo\t_\t_\t_\t_\t_\t_\t_\t_
+2\tve\t_\tADP\t_\t_\t_\t_\t_\t_
+3\tlo\t_\tDET\t_\t_\t_\t_\t_\t_
+4\tMarra\t_\tNOUN\t_\t_\t_\t_\t_\tSpaceAfter=No
+5\ttund\t_\tNOUN\t_\t_\t_\t_\t_\t_
+6\tkal\t_\tVERB\t_\t_\t_\t_\t_\tSpaceAfter=No
+7\t,\t_\tPUNCT\t_\t_\t_\t_\t_\tSpaceAfter=No
+8\tbri\t_\tVERB\t_\t_\t_\t_\t_\t_
+
+# sent_id = quay-2
+1\tEsko\t_\tVERB\t_\t_\t_\t_\t_\tSpaceAfter=No
+2\tma\t_\tVERB\t_\t_\t_\t_\t_\tSpaceAfter=No
+3\tnu\t_\tVERB\t_\t_\t_\t_\t_\t_
+4\tsel\t_\tNOUN\t_\t_\t_\t_\t_\t_
+
+"""
+
+
+def test_written_words_and_their_morphs_from_a_small_conllu(tmp_path):
+    path = tmp_path / "quay.conllu"
+    path.write_text(TOKENIZED, encoding="utf-8")
+    words = read_written_words(path)
+    # Expected by hand (the comment above).
+    assert words.morphs == [["orrin"], ["ve", "lo"], ["marra", "tund"], ["kal"], ["bri"],
+                            ["esko", "ma", "nu"], ["sel"]]
+    assert words.split == [["ve", "lo"], ["marra", "tund"], ["esko", "ma", "nu"]]
+    assert words.sentences == 2 and words.skipped == 0
+    assert words.types() == ["orrin", "velo", "marratund", "kal", "bri", "eskomanu", "sel"]
+
+
+def test_a_sentence_without_joins_has_one_word_per_token():
+    assert orthographic_words([(["A", "b"], None), (["c", "D"], [False, True])]) == \
+        [["a"], ["b"], ["c", "d"]]
+
+
+def test_baselines_on_the_small_conllu(tmp_path):
+    path = tmp_path / "quay.conllu"
+    path.write_text(TOKENIZED, encoding="utf-8")
+    split = read_written_words(path).split
+    scores = baseline_scores(split)
+    # By hand: 4 gold boundaries. No split predicts none: P = R = F1 = 0 (the convention of
+    # evaluation.segmentation). Every character: velo 3 positions, marratund 8, eskomanu 7,
+    # so 18 predicted, all 4 gold among them: P = 4/18, R = 1, F1 = 2PR/(P+R) = 8/22.
+    none, every = scores["no split"].boundaries, scores["every character"].boundaries
+    assert (none.correct, none.predicted, none.gold, none.f1) == (0, 0, 4, 0.0)
+    assert (every.correct, every.predicted, every.gold) == (4, 18, 4)
+    assert every.precision == pytest.approx(4 / 18) and every.recall == 1.0
+    assert every.f1 == pytest.approx(8 / 22)
+
+
+@pytest.fixture(scope="module")
+def web():
+    return read_written_words(TREEBANK / "web.conllu")
+
+
+def test_split_words_of_the_turkish_web_treebank_match_a_plain_count(web):
+    # Independent count straight from the file's lines: within a sentence, a run of word lines
+    # (PUNCT lines left out, which also end a run) joined by SpaceAfter=No on the line before
+    # is one written word; runs of two or more are split words. The treebank has no multiword-
+    # token ranges (checked here too), so SpaceAfter=No carries every join.
+    split = boundaries = 0
+    run, glue = 0, False
+    for line in (TREEBANK / "web.conllu").read_text(encoding="utf-8").splitlines() + [""]:
+        cols = line.split("\t")
+        if line.startswith("#"):
+            continue
+        if len(cols) < 10 or cols[3] == "PUNCT":
+            split += run >= 2
+            boundaries += max(run - 1, 0)
+            run, glue = 0, False
+            continue
+        assert "-" not in cols[0] and "." not in cols[0]
+        if glue:
+            run += 1
+        else:
+            split += run >= 2
+            boundaries += max(run - 1, 0)
+            run = 1
+        glue = "SpaceAfter=No" in cols[9]
+    assert len(web.split) == split
+    assert sum(len(m) - 1 for m in web.split) == boundaries
+    assert split > 4000 and web.skipped == 0
+
+
+def test_turkish_baselines_every_character_has_full_recall(web):
+    scores = baseline_scores(web.split)
+    every = scores["every character"].boundaries
+    # Every inner position of a split word is predicted (its length minus one, summed), and
+    # every gold boundary is one of them.
+    assert every.predicted == sum(len("".join(m)) - 1 for m in web.split)
+    assert every.recall == 1.0 and every.correct == every.gold
+    assert scores["no split"].boundaries.f1 == 0.0
+
+
+def test_morph_grammar_base_probabilities_by_hand_and_by_enumeration():
+    # Worked by hand for "ab" over the alphabet {a, b} with every odd 0.5 (end = grow = stop =
+    # go = 0.5, each character 1/2): a bare stem, ROOT -> Stem -> Char Chars, has
+    # 0.5 * (0.5 * 1/2) * (0.5 * 1/2) = 1/32; a stem and one suffix, ROOT -> Word -> Stem
+    # Suffix, has 0.5 * 0.5 * (0.5 * 1/2) * (0.5 * 1/2) = 1/64. Total 3/64; the brute-force
+    # enumeration of every tree (tests/_brute.py) must find the same two trees.
+    grammar = morph_grammar("ab")
+    trees = list(all_trees(grammar, ["a", "b"]))
+    assert len(trees) == 2
+    assert sum(math.exp(lp) for lp, _, _ in trees) == pytest.approx(3 / 64)
+    assert set(grammar.adapted) == {"Stem", "Suffix"}
+
+
+def test_morph_cuts_union_the_edges_of_stems_and_suffixes():
+    grammar = morph_grammar("abc")
+    names = grammar.symbols
+    stem, suffix, char, chars = (names.index(s) for s in ("Stem", "Suffix", "Char", "Chars"))
+    word, suffixes = names.index("Word"), names.index("Suffixes")
+    a, b, c = (grammar.vocab.encode([x])[0] for x in "abc")
+    # "abcab" as Stem(ab) Suffix(c) Suffix(ab): cuts after 2 and 3 (by hand).
+    ab_stem = (stem, (char, a), (chars, b))
+    ab_suffix = (suffix, (char, a), (chars, b))
+    tree = (word, ab_stem, (suffixes, (suffix, c), ab_suffix))
+    assert morph_cuts(tree, [stem, suffix], list("abcab")) == ["ab", "c", "ab"]
+    assert morph_cuts(tree, [stem], list("abcab")) == ["ab", "cab"]
+
+
+def test_segment_job_in_morph_mode_writes_types_lexicon_and_split_word_scores(tmp_path):
+    path = tmp_path / "quay.conllu"
+    path.write_text(TOKENIZED, encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {path}\n  format: conllu\ngrammar:\n  unit: morphs\n"
+                      f"sampler:\n  sweeps: 3\noutput:\n  stdout_metrics: false\n",
+                      encoding="utf-8")
+    out = io.StringIO()
+    result = segment_words(load_segment_config(config), tmp_path / "run", stream=out)
+    lines = result.segmentation.read_text(encoding="utf-8").splitlines()
+    # One line per distinct written word, in order of first occurrence (the comment above).
+    assert ["".join(line.split()) for line in lines] == \
+        ["orrin", "velo", "marratund", "kal", "bri", "eskomanu", "sel"]
+    lexicon = [line.split("\t") for line in
+               result.lexicon.read_text(encoding="utf-8").splitlines()]
+    assert {row[0] for row in lexicon} <= {"Stem", "Suffix"}
+    # Every word has exactly one stem: the Stem customers add up to the 7 words.
+    assert sum(int(row[2]) for row in lexicon if row[0] == "Stem") == 7
+    metrics = [json.loads(line) for line in
+               (tmp_path / "run" / "metrics.jsonl").read_text(encoding="utf-8").splitlines()]
+    assert {"cached_Stem", "cached_Suffix", "discount_Suffix", "boundary_f1"} <= set(metrics[-1])
+    assert "on the 3 split written words: boundary precision" in out.getvalue()
+    assert "every character: precision 0.222" in out.getvalue()  # 4/18, worked out above
+
+
+def test_conllu_input_needs_the_morph_grammar(tmp_path):
+    config = tmp_path / "bad.yaml"
+    config.write_text("data:\n  text: x.conllu\n  format: conllu\n", encoding="utf-8")
+    with pytest.raises(ConfigError) as caught:
+        load_segment_config(config)
+    assert "data.format" in str(caught.value)
+
+
+def test_morph_mode_resumes_bit_for_bit(tmp_path, monkeypatch):
+    # Reference: the uninterrupted run of the same config (as tests/test_adaptor_run.py does
+    # for words), here with CoNLL-U input and both Stem and Suffix hyperparameters resampled.
+    path = tmp_path / "quay.conllu"
+    path.write_text(TOKENIZED, encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {path}\n  format: conllu\ngrammar:\n  unit: morphs\n"
+                      f"sampler:\n  sweeps: 6\n  checkpoint_every: 2\n  "
+                      f"resample_hyperparameters: true\noutput:\n  stdout_metrics: false\n",
+                      encoding="utf-8")
+    segment_words(load_segment_config(config), tmp_path / "straight")
+    calls = {"n": 0}
+    sweep = Chain.sweep
+
+    def stopping(chain, temperature):
+        calls["n"] += 1
+        if calls["n"] == 4:
+            raise KeyboardInterrupt
+        sweep(chain, temperature)
+
+    monkeypatch.setattr(Chain, "sweep", stopping)
+    with pytest.raises(KeyboardInterrupt):
+        segment_words(load_segment_config(config), tmp_path / "halves")
+    monkeypatch.setattr(Chain, "sweep", sweep)
+    segment_resume(tmp_path / "halves")
+    for name in ("segmentation.txt", "lexicon.tsv"):
+        assert (tmp_path / "halves" / name).read_text() == \
+            (tmp_path / "straight" / name).read_text(), name
+    ends = [json.loads((tmp_path / run / "chains.json").read_text())["chains"]
+            for run in ("halves", "straight")]
+    assert ends[0] == ends[1]
+
+
+def test_morph_mode_on_lines_takes_one_word_per_line_with_spaces_as_gold(tmp_path):
+    text = tmp_path / "words.txt"
+    text.write_text("ve lo\nmarra tund\n\nsel\n", encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {text}\ngrammar:\n  unit: morphs\nsampler:\n  sweeps: 2\n"
+                      f"output:\n  stdout_metrics: false\n", encoding="utf-8")
+    result = segment_words(load_segment_config(config), tmp_path / "run")
+    lines = result.segmentation.read_text(encoding="utf-8").splitlines()
+    assert ["".join(line.split()) for line in lines] == ["velo", "marratund", "sel"]
+    # Two gold boundaries (after "ve" and after "marra"), counted by hand.
+    assert result.scores.boundaries.gold == 2
