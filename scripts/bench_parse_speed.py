@@ -1,0 +1,142 @@
+"""Benchmark of parsing throughput against training throughput for the same grammar: sentences
+per second of one EM epoch, of the `mbr` decoder and of the `max-rule-product` decoder, and each
+decoder's ratio to the training rate (target of issue 24: at least 0.5).
+
+    .venv/bin/python scripts/bench_parse_speed.py                  # 20/30 and 30/60 symbols
+    .venv/bin/python scripts/bench_parse_speed.py --quick          # a smoke run, seconds
+
+Grammars: random tabular grammars (`params.TabularParams`, seed 0) of NT/T = 20/30 and 30/60
+symbols over the demo corpus's vocabulary; the random ones cost what trained ones do, as the
+passes do the same work whatever the numbers are. Every symbol is named as a subcategory,
+`S{i // 2}·{i % 2}` for nonterminal i and `P{j // 2}·{j % 2}` for preterminal j (two
+subcategories per coarse symbol, as `refine.split` names them), so that max-rule-product works
+over coarse symbols as it does on a refined grammar; mbr does not read names. Sentences: the
+first `--sentences` lines of the demo training set of at most `--max-length` words.
+
+Each tool runs as its user runs it: training with `train.batch_size` (32) in the trainer's
+float32 (`estep.batch_counts` per batch, then the maximum-likelihood update), the decoders
+through `decode.decode` with `parse`'s batch size (16) in `parse`'s float64. One process, one
+torch thread (`--threads`). The three measurements alternate (training, mbr, mrp, repeated
+`--repeats` times) so that the machine's drift hits all alike, and the best of the repeats is
+kept. Prints measured figures only; asserts nothing. `main` returns the figures.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import os
+import time
+from pathlib import Path
+
+import torch
+
+from treewright import decode
+from treewright.allocator import tune_allocator
+from treewright.corpus import length_batches
+from treewright.grammar import Grammar, fine_name
+from treewright.params import TabularParams
+from treewright.params.tabular import rules_to_grammar
+from treewright.train import updates
+from treewright.train.estep import add_counts, batch_counts, make_batch, zero_counts
+from treewright.vocab import Vocabulary
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "src" / "treewright" / "data" / "demo"
+TARGET = 0.5  # issue 24: parse at least half the sentences per second of a training epoch
+SIZES = ((20, 30), (30, 60))
+DECODERS = ("mbr", "max-rule-product")
+
+
+def demo_sentences(count: int, max_length: int) -> list[list[str]]:
+    lines = (DEMO / "train.txt").read_text(encoding="utf-8").splitlines()
+    sentences = [line.split() for line in lines if 0 < len(line.split()) <= max_length]
+    return sentences[:count]
+
+
+def split_names(prefix: str, count: int) -> list[str]:
+    """`count` symbol names, two subcategories per coarse symbol: P0·0, P0·1, P1·0, ..."""
+    return [fine_name(f"{prefix}{i // 2}", i % 2) for i in range(count)]
+
+
+def random_model(nt: int, t: int, vocab: Vocabulary) -> tuple[TabularParams, Grammar]:
+    """A random tabular model (float32, seed 0) and the same rules as a `Grammar` (float64)."""
+    model = TabularParams(nt, t, len(vocab), 1.0, torch.Generator().manual_seed(0), torch.float32)
+    with torch.no_grad():
+        rules = model.rules()
+    return model, rules_to_grammar(rules, split_names("S", nt), split_names("P", t), vocab)
+
+
+def em_epoch(model: TabularParams, batches) -> None:
+    """One EM epoch as the trainer runs it: expected counts per batch, then the M-step."""
+    with torch.no_grad():
+        rules = model.rules()
+        total = zero_counts(rules)
+        for batch in batches:
+            total = add_counts(total, batch_counts(rules, batch))
+        model.set_log_probs(updates.maximum_likelihood(total, rules))
+
+
+def load_average() -> str:
+    try:
+        return " ".join(f"{x:.2f}" for x in os.getloadavg())
+    except OSError:
+        return "unavailable"
+
+
+def main(argv: list[str] | None = None) -> dict:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--sentences", type=int, default=200)
+    p.add_argument("--max-length", type=int, default=20)
+    p.add_argument("--repeats", type=int, default=3)
+    p.add_argument("--threads", type=int, default=1, help="torch threads")
+    p.add_argument("--train-batch-size", type=int, default=32)
+    p.add_argument("--parse-batch-size", type=int, default=16)
+    p.add_argument("--quick", action="store_true",
+                   help="a smoke run: 12 sentences of at most 8 words, grammars 4/6, one repeat")
+    args = p.parse_args(argv)
+    sizes = SIZES
+    if args.quick:
+        args.sentences, args.max_length, args.repeats, sizes = 12, 8, 1, ((4, 6),)
+    tune_allocator()
+    torch.set_num_threads(args.threads)
+    sentences = demo_sentences(args.sentences, args.max_length)
+    vocab = Vocabulary(sorted({w for s in sentences for w in s}))
+    ids = [vocab.encode(s) for s in sentences]
+    groups = length_batches([len(s) for s in sentences], args.train_batch_size)
+    batches = [make_batch(g, ids, None, torch.float32) for g in groups]
+    words = sum(map(len, sentences))
+    print(f"{datetime.datetime.now(datetime.timezone.utc):%Y-%m-%d %H:%M UTC}; torch "
+          f"{torch.__version__}, {torch.get_num_threads()} thread(s); load average "
+          f"{load_average()}")
+    print(f"{len(sentences)} demo sentences of at most {args.max_length} words ({words} words); "
+          f"training batch {args.train_batch_size} float32, parsing batch "
+          f"{args.parse_batch_size} float64; best of {args.repeats} alternated repeats")
+    figures: dict = {"sentences": len(sentences), "grammars": []}
+    for nt, t in sizes:
+        model, grammar = random_model(nt, t, vocab)
+        best = {"train": float("inf"), **{d: float("inf") for d in DECODERS}}
+        for _ in range(args.repeats):
+            # Alternated so that the machine's drift hits all three alike. Each epoch moves the
+            # model; the decoders keep the starting grammar (same sizes, same work).
+            began = time.perf_counter()
+            em_epoch(model, batches)
+            best["train"] = min(best["train"], time.perf_counter() - began)
+            for decoder in DECODERS:
+                began = time.perf_counter()
+                decode.decode(grammar, sentences, decoder, args.parse_batch_size, torch.float64)
+                best[decoder] = min(best[decoder], time.perf_counter() - began)
+        rates = {k: len(sentences) / v for k, v in best.items()}
+        ratios = {d: rates[d] / rates["train"] for d in DECODERS}
+        print(f"grammar {nt}/{t}: EM epoch {best['train']:7.2f} s ({rates['train']:8.1f} "
+              f"sentences/s)")
+        for d in DECODERS:
+            print(f"  {d:16s} {best[d]:7.2f} s ({rates[d]:8.1f} sentences/s)  ratio to training "
+                  f"{ratios[d]:6.3f} (target >= {TARGET})", flush=True)
+        figures["grammars"].append({"nt": nt, "t": t, "seconds": best, "rates": rates,
+                                    "ratios": ratios})
+    return figures
+
+
+if __name__ == "__main__":
+    main()
