@@ -315,17 +315,23 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     return out
 
 
-def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
+def tree_logprob_summed(grammar: Grammar, tree: Tree,
+                        masks: dict[str, Tensor] | None = None) -> float:
     """log of the summed probability of every fine tree whose labels map onto `tree`'s labels
     by `coarse_name` (for an unrefined grammar: log p(tree) itself). Nodes must be binary or
-    preterminals; unknown labels or words give -inf."""
+    preterminals; unknown labels or words give -inf. `masks`: a dict to keep across calls on
+    one grammar, where each label's (S,) symbol mask is built once (building it per node was
+    most of the time of decoding a batch)."""
     symbols = grammar.symbols
     nt = len(grammar.nonterminals)
     dtype = torch.float64
     binary, lexical = grammar.binary.to(dtype), grammar.lexical.to(dtype)
+    masks = {} if masks is None else masks
 
     def allowed(label: str) -> Tensor:
-        return torch.tensor([coarse_name(s) == label or s == label for s in symbols])
+        if label not in masks:
+            masks[label] = torch.tensor([coarse_name(s) == label or s == label for s in symbols])
+        return masks[label]
 
     # Post-order over the tree, iteratively (trees may be deep): scores[id(node)] is (S,).
     scores: dict[int, Tensor] = {}
@@ -391,13 +397,14 @@ def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
     else:
         results = max_rule_product(grammar, tables, lengths)
     out = []
+    masks: dict[str, Tensor] = {}
     for b, (words, result) in enumerate(zip(sentences, results)):
         if result is None:
             out.append(Decoded(None, NEG_INF, NEG_INF, NEG_INF))
             continue
         tree = tree_from_spans(words, result[0])
-        out.append(Decoded(tree, float(tables.logz[b]), tree_logprob_summed(grammar, tree),
-                           result[1]))
+        out.append(Decoded(tree, float(tables.logz[b]),
+                           tree_logprob_summed(grammar, tree, masks), result[1]))
     return out
 
 
@@ -504,6 +511,7 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
     averaged = tree_average_batch([voters[b] for b in parsed_rows],
                                   [lengths[b] for b in parsed_rows])
     out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF) for _ in range(B)]
+    masks: dict[int, dict[str, Tensor]] = {}  # per labelling grammar, by id
     for b, spans in zip(parsed_rows, averaged):
         grammar, labels, logz = labeler[b]
         n = lengths[b]
@@ -512,7 +520,9 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
         # Both trees are binary with n - 1 spans each, so F1 is the shared spans over n - 1.
         agreement = 1.0 if n == 1 else sum(len(kept.intersection(t)) for t in voters[b]) \
             / ((n - 1) * len(voters[b]))
-        out[b] = Decoded(tree, logz, tree_logprob_summed(grammar, tree), agreement)
+        out[b] = Decoded(tree, logz,
+                         tree_logprob_summed(grammar, tree, masks.setdefault(id(grammar), {})),
+                         agreement)
     return out
 
 
