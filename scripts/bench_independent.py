@@ -22,36 +22,24 @@ from __future__ import annotations
 import argparse
 import datetime
 import json
-import math
 import os
 import subprocess
 import sys
-import time
+from pathlib import Path
 
 import torch
 
 from treewright.allocator import tune_allocator
 from treewright.engine.independent import independent_log_partition
 
+SCRIPTS = Path(__file__).resolve().parent
+if str(SCRIPTS) not in sys.path:
+    sys.path.insert(0, str(SCRIPTS))  # the sibling scripts, when this one is loaded by path
+from bench_inside import best_time, matmul_gflops  # noqa: E402  (the same timer and rate)
+
 
 def progress(message: str) -> None:
     print(message, file=sys.stderr, flush=True)
-
-
-def best_time(fn, repeats: int) -> float:
-    """Minimum wall time of `repeats` calls, after one warm-up call."""
-    fn()
-    best = math.inf
-    for _ in range(repeats):
-        start = time.perf_counter()
-        fn()
-        best = min(best, time.perf_counter() - start)
-    return best
-
-
-def matmul_gflops(repeats: int) -> float:
-    a, b = torch.randn(1024, 1024), torch.randn(1024, 1024)
-    return 2 * 1024 ** 3 / best_time(lambda: a @ b, repeats * 3) / 1e9
 
 
 def independent_work(nt: int, t: int, n: int) -> float:
