@@ -22,8 +22,6 @@ from __future__ import annotations
 import argparse
 import datetime
 import json
-import os
-import subprocess
 import sys
 from pathlib import Path
 
@@ -35,7 +33,7 @@ from treewright.engine.independent import independent_log_partition
 SCRIPTS = Path(__file__).resolve().parent
 if str(SCRIPTS) not in sys.path:
     sys.path.insert(0, str(SCRIPTS))  # the sibling scripts, when this one is loaded by path
-from bench_inside import best_time, matmul_gflops  # noqa: E402  (the same timer and rate)
+from bench_inside import best_time, matmul_gflops, run_probe  # noqa: E402  (shared)
 
 
 def progress(message: str) -> None:
@@ -73,16 +71,6 @@ def vm_hwm_mib() -> float:
         return next(int(line.split()[1]) for line in status if line.startswith("VmHWM")) / 1024
 
 
-def run_probe(args: list[str]) -> float:
-    """VmHWM in MiB of a subprocess running `--probe <args>` (no args: just `import torch`)."""
-    env = dict(os.environ)
-    src = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "src")
-    env["PYTHONPATH"] = os.path.abspath(src) + os.pathsep + env.get("PYTHONPATH", "")
-    res = subprocess.run([sys.executable, os.path.abspath(__file__), "--probe", *args],
-                         capture_output=True, text=True, env=env, check=True)
-    return float(res.stdout.strip().splitlines()[-1])
-
-
 def main(argv: list[str] | None = None) -> dict:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--nt", type=int, default=1024)
@@ -114,7 +102,7 @@ def main(argv: list[str] | None = None) -> dict:
     work = independent_work(args.nt, args.t, args.n) * args.batch / 1e9
     floor_s = work / rate
     spec = [str(x) for x in (args.nt, args.t, args.n, args.batch)]
-    peak_mib = run_probe(spec) - run_probe([])
+    peak_mib = run_probe(spec, __file__) - run_probe([], __file__)
     result = {"date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d"),
               "torch": torch.__version__, "threads": torch.get_num_threads(),
               "repeats": args.repeats, "nt": args.nt, "t": args.t, "n": args.n,

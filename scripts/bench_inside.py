@@ -120,12 +120,13 @@ def precision(cfg: Dense) -> dict:
             "counts_rel_err": float(((c32 - c64).abs() / c64.abs().clamp(min=1.0)).max())}
 
 
-def run_probe(args: list[str]) -> float:
-    """VmHWM in MiB of a subprocess running `--probe <args>` (idle: just `import torch`)."""
+def run_probe(args: list[str], script: str = __file__) -> float:
+    """VmHWM in MiB of a subprocess running `script --probe <args>` (idle: just `import torch`);
+    `script`: this file, or a sibling benchmark with a `--probe` of its own."""
     env = dict(os.environ)
-    src = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "src")
+    src = os.path.join(os.path.dirname(os.path.abspath(script)), "..", "src")
     env["PYTHONPATH"] = os.path.abspath(src) + os.pathsep + env.get("PYTHONPATH", "")
-    res = subprocess.run([sys.executable, os.path.abspath(__file__), "--probe", *args],
+    res = subprocess.run([sys.executable, os.path.abspath(script), "--probe", *args],
                          capture_output=True, text=True, env=env, check=True)
     return float(res.stdout.strip().splitlines()[-1])
 
