@@ -3,11 +3,12 @@ number of nonterminals, for dense, low-rank and independent-productions rules, w
 exponents fitted by least squares on log time against log size.
 
     .venv/bin/python scripts/bench_scaling.py --threads 1        # about 10 minutes
+    .venv/bin/python scripts/bench_scaling.py --threads 1 --clock cpu   # on a busy machine
     .venv/bin/python scripts/bench_scaling.py --quick            # smoke run, tiny sizes
     .venv/bin/python scripts/bench_scaling.py --threads 1 --json scaling.json
 
 Every pass is timed as a training step asks: forward, then the backward with the rule and the
-word gradients. Sizes (batch of 8 sentences, all of length n; T = 2 NT preterminals, the
+word gradients. Sizes (batch of 32 sentences, all of length n; T = 2 NT preterminals, the
 proportion of the issue's 1,024 / 2,048 grammar; low-rank rank R = NT):
 - against n = 5, 10, 20, 40, 70, 100 at NT = 64, T = 128, for all three passes;
 - against NT = 64, 128, ..., 4,096 at n = 10. Dense rules stop at NT = 256: their rule tensor
@@ -15,7 +16,9 @@ proportion of the issue's 1,024 / 2,048 grammar; low-rank rank R = NT):
   forward+backward holds about three times over (rules, their exp, their gradient), far past the
   issue's 4 GiB. The factored passes hold NT x 3 NT factors (0.2 GB each at NT = 4,096) and
   fit at every size.
-Each timing is the minimum of its repeats after one warm-up call (the machine is shared). For
+Each timing is the minimum of its repeats after one warm-up call (the machine is shared), in
+wall time or, with `--clock cpu`, in this process's CPU time (the matmul rate in the same
+clock), which leaves out the time slices other programs take. For
 the factored passes the table also gives time / matrix-product floor, the floor counted as
 `bench_inside.py` (low-rank) and `bench_independent.py` count it at the matmul rate of this
 process. The whole-range exponent mixes regimes (per-call overhead at small sizes, the
@@ -29,6 +32,7 @@ import argparse
 import datetime
 import json
 import sys
+import time
 from pathlib import Path
 
 import torch
@@ -47,13 +51,14 @@ from bench_inside import (best_time, fit_exponent, lowrank_work, matmul_gflops, 
                           progress, random_grammar, random_lowrank)
 
 PASSES = ("dense", "low-rank", "independent")
-FULL = {"batch": 8, "lengths": [5, 10, 20, 40, 70, 100], "length_nt": 64,
+FULL = {"batch": 32, "lengths": [5, 10, 20, 40, 70, 100], "length_nt": 64,
         "nts": [64, 128, 256, 512, 1024, 2048, 4096], "nts_n": 10, "dense_max_nt": 256}
 QUICK = {"batch": 2, "lengths": [3, 5, 8], "length_nt": 6,
          "nts": [4, 8, 16], "nts_n": 5, "dense_max_nt": 8}
 
 
-def time_pass(kind: str, nt: int, n: int, batch: int, repeats: int) -> float:
+def time_pass(kind: str, nt: int, n: int, batch: int, repeats: int,
+              clock=time.perf_counter) -> float:
     """Minimum forward+backward time of one pass on a random problem, T = 2 NT (rank NT)."""
     t = 2 * nt
     if kind == "dense":
@@ -78,7 +83,7 @@ def time_pass(kind: str, nt: int, n: int, batch: int, repeats: int) -> float:
             left.grad = right.grad = terminal.grad = None
     else:
         raise ValueError(f"unknown pass {kind!r}")
-    return best_time(step, repeats)
+    return best_time(step, repeats, clock=clock)
 
 
 def floor_gflop(kind: str, nt: int, n: int, batch: int) -> float | None:
@@ -98,27 +103,29 @@ def fits(sizes: list[int], times: list[float]) -> dict:
             if len(sizes) - half >= 2 else None, "upper_from": sizes[half]}
 
 
-def sweep(kind: str, axis: str, sizes: list[int], fixed: int, batch: int, repeats: int) -> dict:
+def sweep(kind: str, axis: str, sizes: list[int], fixed: int, batch: int, repeats: int,
+          clock=time.perf_counter) -> dict:
     """Times of one pass along one axis ("n": lengths at NT = fixed; "nt": NT at n = fixed)."""
     times, floors = [], []
     for size in sizes:
         nt, n = (fixed, size) if axis == "n" else (size, fixed)
         progress(f"{kind}: NT={nt} T={2 * nt} n={n} batch={batch}")
-        times.append(time_pass(kind, nt, n, batch, repeats))
+        times.append(time_pass(kind, nt, n, batch, repeats, clock))
         floors.append(floor_gflop(kind, nt, n, batch))
     return {"pass": kind, "axis": axis, "sizes": sizes, "fixed": fixed, "fb_s": times,
             "floor_gflop": floors, **fits(sizes, times)}
 
 
-def run(cfg: dict, repeats: int) -> dict:
-    rate = matmul_gflops(repeats)
+def run(cfg: dict, repeats: int, clock=time.perf_counter) -> dict:
+    rate = matmul_gflops(repeats, clock)
     sweeps = []
     for kind in PASSES:
-        sweeps.append(sweep(kind, "n", cfg["lengths"], cfg["length_nt"], cfg["batch"], repeats))
+        sweeps.append(sweep(kind, "n", cfg["lengths"], cfg["length_nt"], cfg["batch"], repeats,
+                            clock))
     for kind in PASSES:
         nts = [x for x in cfg["nts"] if kind != "dense" or x <= cfg["dense_max_nt"]]
-        sweeps.append(sweep(kind, "nt", nts, cfg["nts_n"], cfg["batch"], repeats))
-    rate = max(rate, matmul_gflops(repeats))
+        sweeps.append(sweep(kind, "nt", nts, cfg["nts_n"], cfg["batch"], repeats, clock))
+    rate = max(rate, matmul_gflops(repeats, clock))
     for s in sweeps:
         s["floor_ratio"] = [None if g is None else t / (g / rate)
                             for t, g in zip(s["fb_s"], s["floor_gflop"])]
@@ -131,7 +138,8 @@ def _cell(seconds: float, ratio: float | None) -> str:
 
 def print_tables(r: dict) -> None:
     print(f"engine scaling, {r['date']}, torch {r['torch']}, {r['threads']} threads, batch "
-          f"{r['batch']}, T = 2 NT, low-rank R = NT, min of {r['repeats']} repeats; "
+          f"{r['batch']}, T = 2 NT, low-rank R = NT, min of {r['repeats']} repeats in "
+          f"{'CPU' if r['clock'] == 'cpu' else 'wall'} time; "
           f"matmul {r['matmul_gflops']:.1f} GFLOP/s")
     print("forward+backward seconds (in brackets: time / matrix-product floor)")
     for axis, label in (("n", "n"), ("nt", "NT")):
@@ -165,6 +173,10 @@ def main(argv: list[str] | None = None) -> dict:
                         help="timed repeats per point, after a warm-up (default 2, quick 1)")
     parser.add_argument("--threads", type=int, default=None,
                         help="torch threads; 1 gives steadier times on a shared machine")
+    parser.add_argument("--clock", choices=["wall", "cpu"], default="wall",
+                        help="wall time, or this process's CPU time (steadier on a shared "
+                             "machine; meant for one thread), for the passes and the matmul "
+                             "rate alike")
     parser.add_argument("--json", default=None, help="also write the figures here")
     args = parser.parse_args(argv)
     tune_allocator()
@@ -174,7 +186,8 @@ def main(argv: list[str] | None = None) -> dict:
     repeats = args.repeats or (1 if args.quick else 2)
     result = {"date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M"),
               "torch": torch.__version__, "threads": torch.get_num_threads(),
-              "repeats": repeats, "quick": args.quick, **cfg, **run(cfg, repeats)}
+              "repeats": repeats, "quick": args.quick, "clock": args.clock, **cfg,
+              **run(cfg, repeats, time.process_time if args.clock == "cpu" else time.perf_counter)}
     print_tables(result)
     if args.json:
         with open(args.json, "w") as out:

@@ -54,4 +54,13 @@ def test_a_quick_run_reports_exponents_by_the_stated_rule(capsys):
             if ratio is not None:
                 assert ratio == pytest.approx(t / (g / r["matmul_gflops"]))
     out = capsys.readouterr().out
-    assert "fitted exponent" in out and "upper half" in out
+    assert "fitted exponent" in out and "upper half" in out and "wall time" in out
+
+
+def test_best_time_reads_the_clock_it_is_given():
+    # Reference: a fake clock that advances by a known step per reading; the minimum over
+    # repeats of (end - start) is that step (the definition of the timer, no measurement).
+    readings = iter(range(0, 1000, 3))
+    calls = []
+    best = bench.best_time(lambda: calls.append(1), 4, clock=lambda: next(readings))
+    assert best == 3 and len(calls) == 5  # one warm-up call, then four timed ones
