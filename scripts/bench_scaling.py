@@ -2,7 +2,7 @@
 number of nonterminals, for dense, low-rank and independent-productions rules, with the
 exponents fitted by least squares on log time against log size.
 
-    .venv/bin/python scripts/bench_scaling.py --threads 1        # about 10 minutes
+    .venv/bin/python scripts/bench_scaling.py --threads 1        # about 5 minutes, quiet host
     .venv/bin/python scripts/bench_scaling.py --threads 1 --clock cpu   # on a busy machine
     .venv/bin/python scripts/bench_scaling.py --quick            # smoke run, tiny sizes
     .venv/bin/python scripts/bench_scaling.py --threads 1 --json scaling.json
