@@ -163,6 +163,8 @@ def main(argv: list[str] | None = None) -> dict:
     parser.add_argument("--vocab", type=int, default=5_000)
     parser.add_argument("--probe", nargs="*", default=None, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
+    if args.sentences < 1 or args.max_length < 1 or args.vocab < 1:
+        parser.error("--sentences, --max-length and --vocab must be at least 1")
     if args.threads is not None:
         torch.set_num_threads(args.threads)
     if args.probe is not None:  # subprocess body: one forward+backward, then the peak
