@@ -15,6 +15,20 @@ printed ratio (time / floor) is at least 1. Forward+backward asks for the rule a
 gradients, as a training step does. Every timing is the minimum of its repeats (the machine is
 shared). Peak memory is VmHWM of a subprocess running one forward+backward, less that of a
 subprocess that only imports torch.
+
+    .venv/bin/python scripts/bench_independent.py --threads 1 --epoch            # 10,000 sentences
+    .venv/bin/python scripts/bench_independent.py --threads 1 --epoch --sentences 1000
+
+`--epoch` instead times one gradient-training epoch of `params.IndependentParams` as training
+runs it: sentences of random word ids (V = 5,000; the pass costs the same whatever the words)
+with lengths drawn uniformly from 1 to 30, seeded; length-bucketed batches of up to 32
+(`corpus.length_batches`, `train.estep.make_batch`); per batch the rules, log Z, the loss per
+word over the parsed sentences, the backward, clipping at norm 3 and an Adam step (the gradient
+method's defaults). Peak memory is this process's VmHWM (no subprocess: the epoch is the whole
+run). The process's CPU time is printed beside the wall time: at one thread on a quiet machine
+the two agree, and on a shared one the CPU time is what the epoch itself cost. With
+`--sentences N` below the target's 10,000 the epoch time is also extrapolated
+linearly to 10,000 sentences of the same length distribution, and printed as an extrapolation.
 """
 
 from __future__ import annotations
@@ -22,13 +36,19 @@ from __future__ import annotations
 import argparse
 import datetime
 import json
+import random
 import sys
+import time
 from pathlib import Path
 
 import torch
 
 from treewright.allocator import tune_allocator
+from treewright.corpus import length_batches
 from treewright.engine.independent import independent_log_partition
+from treewright.params import IndependentParams
+from treewright.tracking import terminal_progress
+from treewright.train.estep import make_batch
 
 SCRIPTS = Path(__file__).resolve().parent
 if str(SCRIPTS) not in sys.path:
@@ -71,6 +91,60 @@ def vm_hwm_mib() -> float:
         return next(int(line.split()[1]) for line in status if line.startswith("VmHWM")) / 1024
 
 
+TARGET_SENTENCES = 10_000  # the issue's epoch: 10,000 sentences of up to 30 words
+
+
+def epoch(nt: int, t: int, sentences: int, max_length: int, vocab: int, batch_size: int) -> dict:
+    """One gradient-training epoch, timed as the module docstring says; its figures."""
+    rng = random.Random(0)
+    corpus = [[rng.randrange(vocab) for _ in range(rng.randint(1, max_length))]
+              for _ in range(sentences)]
+    groups = length_batches([len(s) for s in corpus], batch_size)
+    batches = [make_batch(g, corpus, None, torch.float32) for g in groups]
+    model = IndependentParams(nt, t, vocab, generator=torch.Generator().manual_seed(0))
+    optimizer = torch.optim.Adam(model.parameters(), lr=0.01, betas=(0.75, 0.999))
+    progress(f"epoch: {sentences} sentences in {len(batches)} batches, NT={nt} T={t} V={vocab}")
+    start, start_cpu = time.perf_counter(), time.process_time()
+    loglik, words = 0.0, 0
+    with terminal_progress(sentences, "epoch") as bar:
+        for batch in batches:
+            logz, _ = model.log_partition(batch.ids, batch.lengths, batch.span_pot)   # (B,)
+            parsed = torch.isfinite(logz)  # one word under preterminal-only emission: no parse
+            n_words = int(batch.lengths[parsed].sum())
+            loss = -logz[parsed].sum() / max(n_words, 1)
+            optimizer.zero_grad()
+            loss.backward()
+            torch.nn.utils.clip_grad_norm_(model.parameters(), 3.0)
+            optimizer.step()
+            loglik += float(logz[parsed].sum().detach())
+            words += n_words
+            bar.update(len(batch.lengths))
+    seconds = time.perf_counter() - start
+    cpu_seconds = time.process_time() - start_cpu
+    return {"sentences": sentences, "words": sum(map(len, corpus)), "batches": len(batches),
+            "max_length": max_length, "vocab": vocab, "epoch_s": seconds,
+            "epoch_cpu_s": cpu_seconds,
+            "sent_per_s": sentences / seconds, "loglik_per_word": loglik / max(words, 1),
+            "peak_mib": vm_hwm_mib(),
+            "extrapolated_epoch_s": None if sentences >= TARGET_SENTENCES
+            else seconds * TARGET_SENTENCES / sentences}
+
+
+def print_epoch(r: dict) -> None:
+    print(f"independent productions, training epoch, {r['date']}, torch {r['torch']}, "
+          f"{r['threads']} threads")
+    print(f"NT={r['nt']} T={r['t']} V={r['vocab']}: {r['sentences']} sentences of 1-"
+          f"{r['max_length']} words ({r['words']} words) in {r['batches']} batches of <= "
+          f"{r['batch']}: {r['epoch_s']:.1f} s ({r['sent_per_s']:.1f} sent/s; CPU time "
+          f"{r['epoch_cpu_s']:.1f} s), log-likelihood "
+          f"{r['loglik_per_word']:.3f} per word; peak memory {r['peak_mib']:.0f} MiB")
+    if r["extrapolated_epoch_s"] is not None:
+        print(f"extrapolated (linearly in the sentence count, same length distribution) to "
+              f"{TARGET_SENTENCES} sentences: {r['extrapolated_epoch_s']:.0f} s (CPU time "
+              f"{r['epoch_cpu_s'] * TARGET_SENTENCES / r['sentences']:.0f} s); not measured")
+    print(f"target: an epoch of {TARGET_SENTENCES} sentences in under 600 s, under 4 GiB")
+
+
 def main(argv: list[str] | None = None) -> dict:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--nt", type=int, default=1024)
@@ -81,8 +155,16 @@ def main(argv: list[str] | None = None) -> dict:
     parser.add_argument("--threads", type=int, default=None)
     parser.add_argument("--quick", action="store_true", help="tiny sizes, one repeat")
     parser.add_argument("--json", default=None, help="also write the figures here")
+    parser.add_argument("--epoch", action="store_true",
+                        help="time a training epoch instead (see the module docstring)")
+    parser.add_argument("--sentences", type=int, default=TARGET_SENTENCES,
+                        help="sentences in the epoch (below 10,000 the time is extrapolated)")
+    parser.add_argument("--max-length", type=int, default=30)
+    parser.add_argument("--vocab", type=int, default=5_000)
     parser.add_argument("--probe", nargs="*", default=None, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
+    if args.sentences < 1 or args.max_length < 1 or args.vocab < 1:
+        parser.error("--sentences, --max-length and --vocab must be at least 1")
     if args.threads is not None:
         torch.set_num_threads(args.threads)
     if args.probe is not None:  # subprocess body: one forward+backward, then the peak
@@ -93,7 +175,20 @@ def main(argv: list[str] | None = None) -> dict:
         return {}
     if args.quick:
         args.nt, args.t, args.n, args.batch, args.repeats = 16, 32, 8, 4, 1
+        if args.epoch:
+            args.sentences, args.max_length, args.vocab = 40, 8, 50
     tune_allocator()
+    if args.epoch:
+        result = {"date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M"),
+                  "torch": torch.__version__, "threads": torch.get_num_threads(),
+                  "nt": args.nt, "t": args.t, "batch": args.batch,
+                  **epoch(args.nt, args.t, args.sentences, args.max_length, args.vocab,
+                          args.batch)}
+        print_epoch(result)
+        if args.json:
+            with open(args.json, "w") as out:
+                json.dump(result, out, indent=2)
+        return result
     progress(f"matmul rate, then NT={args.nt} T={args.t} n={args.n} batch={args.batch}")
     rate = matmul_gflops(args.repeats)
     problem = random_problem(args.nt, args.t, args.n, args.batch)

@@ -39,3 +39,17 @@ def test_a_quick_run_reports_its_figures_by_the_stated_rules(capsys):
     assert r["floor_s"] == r["matmul_gflop"] / r["matmul_gflops"]
     assert r["ratio"] == r["fb_s"] / r["floor_s"]
     assert f"ratio {r['ratio']:.2f} (target <= 2)" in capsys.readouterr().out
+
+
+def test_a_quick_epoch_reports_its_figures_by_the_stated_rules(capsys):
+    r = bench.main(["--quick", "--epoch", "--threads", "1"])
+    # Reference: length_batches with only a sentence limit cuts ceil(sentences / batch) batches
+    # (its docstring: sorted by length, cut greedily at the limit).
+    assert r["batches"] == -(-r["sentences"] // r["batch"])
+    assert r["sentences"] < bench.TARGET_SENTENCES
+    assert r["extrapolated_epoch_s"] == r["epoch_s"] * bench.TARGET_SENTENCES / r["sentences"]
+    assert r["sent_per_s"] == r["sentences"] / r["epoch_s"]
+    # A per-word log-likelihood of a proper grammar is a log-probability: below zero.
+    assert r["loglik_per_word"] < 0
+    out = capsys.readouterr().out
+    assert "extrapolated" in out and "not measured" in out
