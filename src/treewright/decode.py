@@ -315,43 +315,125 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     return out
 
 
-def tree_logprob_summed(grammar: Grammar, tree: Tree,
-                        masks: dict[str, Tensor] | None = None) -> float:
+def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
     """log of the summed probability of every fine tree whose labels map onto `tree`'s labels
     by `coarse_name` (for an unrefined grammar: log p(tree) itself). Nodes must be binary or
-    preterminals; unknown labels or words give -inf. `masks`: a dict to keep across calls on
-    one grammar, where each label's (S,) symbol mask is built once (building it per node was
-    most of the time of decoding a batch)."""
-    symbols = grammar.symbols
-    nt = len(grammar.nonterminals)
-    dtype = torch.float64
-    binary, lexical = grammar.binary.to(dtype), grammar.lexical.to(dtype)
-    masks = {} if masks is None else masks
+    preterminals; unknown labels or words give -inf. One tree of `TreeScorer.logprobs`."""
+    return TreeScorer(grammar).logprobs([tree])[0]
 
-    def allowed(label: str) -> Tensor:
-        if label not in masks:
-            masks[label] = torch.tensor([coarse_name(s) == label or s == label for s in symbols])
-        return masks[label]
 
-    # Post-order over the tree, iteratively (trees may be deep): scores[id(node)] is (S,).
-    scores: dict[int, Tensor] = {}
-    order = list(tree.subtrees())
-    for node in reversed(order):
-        mask = allowed(node.label)
-        if node.is_preterminal():
-            w = grammar.vocab.encode([node.children[0]])[0]
-            col = lexical[:, w] if w >= 0 else torch.full((len(symbols),), NEG_INF, dtype=dtype)
-            scores[id(node)] = col.masked_fill(~mask, NEG_INF)
-        elif len(node.children) == 2 and all(isinstance(c, Tree) for c in node.children):
-            left, right = (scores[id(c)] for c in node.children)
-            inner = torch.logsumexp(binary + left[None, :, None] + right[None, None, :], (1, 2))
-            full = torch.full((len(symbols),), NEG_INF, dtype=dtype)
-            full[:nt] = inner
-            scores[id(node)] = full.masked_fill(~mask, NEG_INF)
-        else:
-            raise ValueError(f"node {node.label} is neither binary nor a preterminal")
-    top = scores[id(tree)][:nt]
-    return float(torch.logsumexp(grammar.root.to(dtype) + top, 0))
+TREE_CHUNK = 2 ** 22  # elements of the largest temporary per chunk of nodes
+
+
+class TreeScorer:
+    """log p(tree, sentence) summed over the refinements of each tree's labels, for a batch of
+    trees under one grammar: an inside pass restricted to each tree's own nodes.
+
+    A label stands for the symbols named by it or whose `coarse_name` it is (one symbol for an
+    unrefined grammar or a fine label). Every label of a batch gets G slots, the symbols it
+    stands for padded with a symbol of probability zero, so that a binary node's inside scores
+    over its parent's slots, (G,), are one log-sum over the rule block
+    binary[parent slots, left slots, right slots], (G, G, G), plus its children's scores. The
+    nodes of all trees are scored together, one tree height at a time (a node's children are
+    lower), so there is no walk per node or per sentence over the grammar's tensors. Float64
+    log space throughout: the work is about G^3 per node, small beside the span tables.
+    """
+
+    def __init__(self, grammar: Grammar):
+        dtype = torch.float64
+        nt, s = len(grammar.nonterminals), grammar.num_symbols
+        self.grammar, self.nt, self.s = grammar, nt, s
+        self.index = {name: k for k, name in enumerate(grammar.symbols)}
+        self.by_coarse: dict[str, list[int]] = {}
+        for k, name in enumerate(grammar.symbols):
+            self.by_coarse.setdefault(coarse_name(name), []).append(k)
+        # Index NT (parents) or S (children, words) is the padding symbol: probability zero.
+        self.binary = torch.full((nt + 1, s + 1, s + 1), NEG_INF, dtype=dtype)
+        self.binary[:nt, :s, :s] = grammar.binary.to(dtype)
+        self.root = torch.cat([grammar.root.to(dtype), torch.full((1,), NEG_INF, dtype=dtype)])
+        v = grammar.lexical.shape[1]
+        # Column V is an unknown word's (id -1): no symbol emits it.
+        self.lexical = torch.full((s + 1, v + 1), NEG_INF, dtype=dtype)
+        self.lexical[:s, :v] = grammar.lexical.to(dtype)
+
+    def symbols_of(self, label: str) -> list[int]:
+        """The symbols a label stands for: its own name and the subcategories it is coarse of."""
+        found = set(self.by_coarse.get(label, ()))
+        if label in self.index:
+            found.add(self.index[label])
+        return sorted(found)
+
+    def logprobs(self, trees: Sequence[Tree]) -> list[float]:
+        """One summed log probability per tree (-inf when the grammar cannot build it).
+        ValueError for a node that is neither binary nor a preterminal."""
+        labels: dict[str, int] = {}
+        # One row per node, children before parents: (label, word id or -1, left, right).
+        label_of: list[int] = []
+        word_of: list[int] = []
+        left_of: list[int] = []
+        right_of: list[int] = []
+        height: list[int] = []
+        tops: list[int] = []
+        vocab = self.grammar.vocab
+        for tree in trees:
+            # Iterative post-order (trees may be deep): a node is numbered after its children.
+            stack: list[tuple[Tree, bool]] = [(tree, False)]
+            row_of: dict[int, int] = {}
+            while stack:
+                node, expanded = stack.pop()
+                if node.is_preterminal():
+                    kids: list[int] = []
+                elif len(node.children) == 2 and all(isinstance(c, Tree) for c in node.children):
+                    if not expanded:
+                        stack.append((node, True))
+                        stack.extend((c, False) for c in reversed(node.children))
+                        continue
+                    kids = [row_of[id(c)] for c in node.children]
+                else:
+                    raise ValueError(f"node {node.label} is neither binary nor a preterminal")
+                row_of[id(node)] = len(label_of)
+                label_of.append(labels.setdefault(node.label, len(labels)))
+                if kids:
+                    word_of.append(-1)
+                    left_of.append(kids[0])
+                    right_of.append(kids[1])
+                    height.append(1 + max(height[kids[0]], height[kids[1]]))
+                else:
+                    word_of.append(vocab.lookup(node.children[0]))
+                    left_of.append(-1)
+                    right_of.append(-1)
+                    height.append(0)
+            tops.append(row_of[id(tree)])
+        if not trees:
+            return []
+        sets = [self.symbols_of(name) for name in labels]
+        G = max(1, max(map(len, sets)))
+        slots = torch.full((len(sets), G), self.s, dtype=torch.long)     # (L, G)
+        for k, found in enumerate(sets):
+            slots[k, :len(found)] = torch.tensor(found, dtype=torch.long)
+        parent_slots = slots.masked_fill(slots >= self.nt, self.nt)      # nonterminals only
+        label_t = torch.tensor(label_of)
+        heights = torch.tensor(height)
+        scores = torch.empty(len(label_of), G, dtype=torch.float64)      # (nodes, G) log inside
+        words = heights == 0
+        word_ids = torch.tensor(word_of)[words]
+        word_ids = word_ids.masked_fill(word_ids < 0, self.lexical.shape[1] - 1)
+        scores[words] = self.lexical[slots[label_t[words]], word_ids[:, None]]
+        lefts, rights = torch.tensor(left_of), torch.tensor(right_of)
+        for h in range(1, int(heights.max()) + 1):
+            rows = (heights == h).nonzero().flatten()
+            chunk = max(1, TREE_CHUNK // (G ** 3))
+            for r0 in range(0, len(rows), chunk):
+                r = rows[r0:r0 + chunk]
+                a = parent_slots[label_t[r]][:, :, None, None]           # (M, G, 1, 1)
+                b = slots[label_t[lefts[r]]][:, None, :, None]
+                c = slots[label_t[rights[r]]][:, None, None, :]
+                total = self.binary[a, b, c] + scores[lefts[r]][:, None, :, None] \
+                    + scores[rights[r]][:, None, None, :]                 # (M, G, G, G)
+                scores[r] = torch.logsumexp(total.flatten(2), -1)
+        top = torch.tensor(tops)
+        whole = self.root[parent_slots[label_t[top]]] + scores[top]      # (trees, G)
+        return torch.logsumexp(whole, -1).tolist()
 
 
 def _by_length(sentences: Sequence[Sequence[str]], batch_size: int,
@@ -376,11 +458,12 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
                          "treewright.decode.consensus(grammars, sentences)")
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
+    scorer = TreeScorer(grammar) if decoder != "viterbi" else None
     return _by_length(sentences, batch_size,
-                      lambda words: _decode_batch(grammar, words, decoder, dtype))
+                      lambda words: _decode_batch(grammar, words, decoder, dtype, scorer))
 
 
-def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
+def _decode_batch(grammar, sentences, decoder, dtype, scorer) -> list[Decoded]:
     if decoder == "viterbi":
         enc = encode(grammar, sentences, dtype)
         results = engine.viterbi(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
@@ -396,16 +479,13 @@ def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
         results = _mbr_labeled(grammar, tables, lengths)
     else:
         results = max_rule_product(grammar, tables, lengths)
-    out = []
-    masks: dict[str, Tensor] = {}
-    for b, (words, result) in enumerate(zip(sentences, results)):
-        if result is None:
-            out.append(Decoded(None, NEG_INF, NEG_INF, NEG_INF))
-            continue
-        tree = tree_from_spans(words, result[0])
-        out.append(Decoded(tree, float(tables.logz[b]),
-                           tree_logprob_summed(grammar, tree, masks), result[1]))
-    return out
+    trees = [None if result is None else tree_from_spans(words, result[0])
+             for words, result in zip(sentences, results)]
+    logprobs = iter(scorer.logprobs([t for t in trees if t is not None]))
+    logz = tables.logz.tolist()
+    return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if tree is None else
+            Decoded(tree, logz[b], next(logprobs), result[1])
+            for b, (tree, result) in enumerate(zip(trees, results))]
 
 
 def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
@@ -482,11 +562,12 @@ def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
         raise ValueError("the grammars read unknown words differently (word shape schemes "
                          f"{sorted(shapes, key=str)}); the consensus decoder gives every "
                          "grammar the same words")
+    scorers: dict[int, TreeScorer] = {}  # per labelling grammar, by id, made when first needed
     return _by_length(sentences, batch_size,
-                      lambda words: _consensus_batch(grammars, words, dtype))
+                      lambda words: _consensus_batch(grammars, words, dtype, scorers))
 
 
-def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
+def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
     lengths = [len(words) for words in sentences]
     B = len(sentences)
     voters: list[list[list[tuple[int, int]]]] = [[] for _ in range(B)]  # MBR trees per sentence
@@ -511,7 +592,6 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
     averaged = tree_average_batch([voters[b] for b in parsed_rows],
                                   [lengths[b] for b in parsed_rows])
     out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF) for _ in range(B)]
-    masks: dict[int, dict[str, Tensor]] = {}  # per labelling grammar, by id
     for b, spans in zip(parsed_rows, averaged):
         grammar, labels, logz = labeler[b]
         n = lengths[b]
@@ -520,9 +600,16 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
         # Both trees are binary with n - 1 spans each, so F1 is the shared spans over n - 1.
         agreement = 1.0 if n == 1 else sum(len(kept.intersection(t)) for t in voters[b]) \
             / ((n - 1) * len(voters[b]))
-        out[b] = Decoded(tree, logz,
-                         tree_logprob_summed(grammar, tree, masks.setdefault(id(grammar), {})),
-                         agreement)
+        out[b] = Decoded(tree, logz, NEG_INF, agreement)
+    # Each labelling grammar scores the trees it labelled, all in one batch.
+    for grammar in {id(g): g for g in grammars}.values():
+        rows = [b for b in parsed_rows if labeler[b][0] is grammar]
+        if rows:
+            if id(grammar) not in scorers:
+                scorers[id(grammar)] = TreeScorer(grammar)
+            logprobs = scorers[id(grammar)].logprobs([out[b].tree for b in rows])
+            for b, logprob in zip(rows, logprobs):
+                out[b].tree_logprob = logprob
     return out
 
 
