@@ -143,12 +143,14 @@ class Decoded:
 
 
 def span_tables(grammar: Grammar, sentences: Sequence[Sequence[str]],
-                dtype: torch.dtype = torch.float64) -> engine.SpanTables:
+                dtype: torch.dtype = torch.float64, log_scores: bool = True
+                ) -> engine.SpanTables:
     """The engine's batched label marginals, log inside and log outside (over Z) tables of
-    every symbol over every span of the sentences (see `engine.SpanTables`)."""
+    every symbol over every span of the sentences (see `engine.SpanTables`; the last two only
+    with `log_scores`)."""
     enc = encode(grammar, sentences, dtype)
     return engine.span_tables(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
-                              enc.lengths, enc.nt_terminal)
+                              enc.lengths, enc.nt_terminal, log_scores)
 
 
 def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
@@ -366,73 +368,62 @@ class TreeScorer:
     def logprobs(self, trees: Sequence[Tree]) -> list[float]:
         """One summed log probability per tree (-inf when the grammar cannot build it).
         ValueError for a node that is neither binary nor a preterminal."""
-        labels: dict[str, int] = {}
-        # One row per node, children before parents: (label, word id or -1, left, right).
-        label_of: list[int] = []
-        word_of: list[int] = []
-        left_of: list[int] = []
-        right_of: list[int] = []
-        height: list[int] = []
-        tops: list[int] = []
-        vocab = self.grammar.vocab
         for tree in trees:
-            # Iterative post-order (trees may be deep): a node is numbered after its children.
-            stack: list[tuple[Tree, bool]] = [(tree, False)]
-            row_of: dict[int, int] = {}
-            while stack:
-                node, expanded = stack.pop()
-                if node.is_preterminal():
-                    kids: list[int] = []
-                elif len(node.children) == 2 and all(isinstance(c, Tree) for c in node.children):
-                    if not expanded:
-                        stack.append((node, True))
-                        stack.extend((c, False) for c in reversed(node.children))
-                        continue
-                    kids = [row_of[id(c)] for c in node.children]
-                else:
+            for node in tree.subtrees():
+                if not (node.is_preterminal() or len(node.children) == 2
+                        and all(isinstance(c, Tree) for c in node.children)):
                     raise ValueError(f"node {node.label} is neither binary nor a preterminal")
-                row_of[id(node)] = len(label_of)
-                label_of.append(labels.setdefault(node.label, len(labels)))
-                if kids:
-                    word_of.append(-1)
-                    left_of.append(kids[0])
-                    right_of.append(kids[1])
-                    height.append(1 + max(height[kids[0]], height[kids[1]]))
-                else:
-                    word_of.append(vocab.lookup(node.children[0]))
-                    left_of.append(-1)
-                    right_of.append(-1)
-                    height.append(0)
-            tops.append(row_of[id(tree)])
-        if not trees:
+        return self.logprobs_of_spans([t.leaves() for t in trees],
+                                      [t.labeled_spans() for t in trees])
+
+    def logprobs_of_spans(self, sentences: Sequence[Sequence[str]],
+                          spans: Sequence[Sequence[tuple[int, int, str]]]) -> list[float]:
+        """`logprobs` of binary trees given as their labeled spans (start, end, label), words
+        included, as the decoders make them (`tree_from_spans` of them is the tree)."""
+        B = len(sentences)
+        if B == 0:
             return []
+        N = max(map(len, sentences))
+        labels: dict[str, int] = {}
+        rows, starts, widths, label_ids, word_ids = [], [], [], [], []
+        for b, (words, tree_spans) in enumerate(zip(sentences, spans)):
+            for i, j, label in tree_spans:
+                rows.append(b)
+                starts.append(i)
+                widths.append(j - i)
+                label_ids.append(labels.setdefault(label, len(labels)))
+            word_ids.append([self.grammar.vocab.lookup(w) for w in words] + [-1] * (N - len(words)))
         sets = [self.symbols_of(name) for name in labels]
         G = max(1, max(map(len, sets)))
-        slots = torch.full((len(sets), G), self.s, dtype=torch.long)     # (L, G)
+        slots = torch.full((len(sets) + 1, G), self.s, dtype=torch.long)  # (L + 1, G), L: none
         for k, found in enumerate(sets):
             slots[k, :len(found)] = torch.tensor(found, dtype=torch.long)
         parent_slots = slots.masked_fill(slots >= self.nt, self.nt)      # nonterminals only
-        label_t = torch.tensor(label_of)
-        heights = torch.tensor(height)
-        scores = torch.empty(len(label_of), G, dtype=torch.float64)      # (nodes, G) log inside
-        words = heights == 0
-        word_ids = torch.tensor(word_of)[words]
-        word_ids = word_ids.masked_fill(word_ids < 0, self.lexical.shape[1] - 1)
-        scores[words] = self.lexical[slots[label_t[words]], word_ids[:, None]]
-        lefts, rights = torch.tensor(left_of), torch.tensor(right_of)
-        for h in range(1, int(heights.max()) + 1):
-            rows = (heights == h).nonzero().flatten()
-            chunk = max(1, TREE_CHUNK // (G ** 3))
-            for r0 in range(0, len(rows), chunk):
-                r = rows[r0:r0 + chunk]
-                a = parent_slots[label_t[r]][:, :, None, None]           # (M, G, 1, 1)
-                b = slots[label_t[lefts[r]]][:, None, :, None]
-                c = slots[label_t[rights[r]]][:, None, None, :]
-                total = self.binary[a, b, c] + scores[lefts[r]][:, None, :, None] \
-                    + scores[rights[r]][:, None, None, :]                 # (M, G, G, G)
-                scores[r] = torch.logsumexp(total.flatten(2), -1)
-        top = torch.tensor(tops)
-        whole = self.root[parent_slots[label_t[top]]] + scores[top]      # (trees, G)
+        # label[b, i, w]: the label of the tree's node over span (i, i+w), L where none.
+        label = torch.full((B, N + 1, N + 1), len(sets), dtype=torch.long)
+        label[rows, starts, widths] = torch.tensor(label_ids, dtype=torch.long)
+        in_tree = label < len(sets)
+        # The left child of node (i, w) is the tree's widest node (i, u) with u < w.
+        widest = torch.where(in_tree, torch.arange(N + 1), 0).cummax(-1).values  # (B, N+1, N+1)
+        scores = torch.full((B, N + 1, N + 1, G), NEG_INF, dtype=torch.float64)  # log inside
+        ids = torch.tensor(word_ids, dtype=torch.long)                   # (B, N)
+        ids = ids.masked_fill(ids < 0, self.lexical.shape[1] - 1)
+        scores[:, :N, 1] = self.lexical[slots[label[:, :N, 1]], ids[..., None]]
+        chunk = max(1, TREE_CHUNK // (G ** 3))
+        for w in range(2, N + 1):
+            nodes = in_tree[:, :, w].nonzero()                           # (M, 2): sentence, start
+            for r0 in range(0, len(nodes), chunk):
+                b, i = nodes[r0:r0 + chunk].unbind(1)
+                u = widest[b, i, w - 1]
+                a = parent_slots[label[b, i, w]][:, :, None, None]       # (M, G, 1, 1)
+                left = slots[label[b, i, u]][:, None, :, None]
+                right = slots[label[b, i + u, w - u]][:, None, None, :]
+                total = self.binary[a, left, right] + scores[b, i, u][:, None, :, None] \
+                    + scores[b, i + u, w - u][:, None, None, :]           # (M, G, G, G)
+                scores[b, i, w] = torch.logsumexp(total.flatten(2), -1)
+        every = torch.arange(B)
+        n = torch.tensor([len(words) for words in sentences])
+        whole = self.root[parent_slots[label[every, 0, n]]] + scores[every, 0, n]  # (B, G)
         return torch.logsumexp(whole, -1).tolist()
 
 
@@ -473,7 +464,8 @@ def _decode_batch(grammar, sentences, decoder, dtype, scorer) -> list[Decoded]:
         return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if res is None else
                 Decoded(spans_to_tree(grammar, words, res[1]), float(z), res[0], res[0])
                 for words, res, z in zip(sentences, results, logz)]
-    tables = span_tables(grammar, sentences, dtype)
+    # mbr reads the marginals alone; max-rule-product also the inside and outside scores.
+    tables = span_tables(grammar, sentences, dtype, log_scores=decoder != "mbr")
     lengths = [len(words) for words in sentences]
     if decoder == "mbr":
         results = _mbr_labeled(grammar, tables, lengths)
@@ -481,7 +473,9 @@ def _decode_batch(grammar, sentences, decoder, dtype, scorer) -> list[Decoded]:
         results = max_rule_product(grammar, tables, lengths)
     trees = [None if result is None else tree_from_spans(words, result[0])
              for words, result in zip(sentences, results)]
-    logprobs = iter(scorer.logprobs([t for t in trees if t is not None]))
+    parsed = [b for b, result in enumerate(results) if result is not None]
+    logprobs = iter(scorer.logprobs_of_spans([sentences[b] for b in parsed],
+                                             [results[b][0] for b in parsed]))
     logz = tables.logz.tolist()
     return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if tree is None else
             Decoded(tree, logz[b], next(logprobs), result[1])
@@ -496,9 +490,10 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
     brackets = mbr_spans_batch(spans_p, lengths)
     labels = _SpanLabels(grammar, tables)
     gains = spans_p.tolist()
+    parsed = torch.isfinite(tables.logz).tolist()
     out: list = []
     for b, (n, spans) in enumerate(zip(lengths, brackets)):
-        if not bool(torch.isfinite(tables.logz[b])):
+        if not parsed[b]:
             out.append(None)
             continue
         gain = sum((gains[b][i][j - i] for i, j in spans), 0.0)
@@ -575,7 +570,7 @@ def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
     for grammar in grammars:
         # One grammar's tables at a time: only its MBR trees and, where it labels, its most
         # probable labels are kept.
-        tables = span_tables(grammar, sentences, dtype)
+        tables = span_tables(grammar, sentences, dtype, log_scores=False)
         trees = mbr_spans_batch(_span_posteriors(grammar, tables), lengths)
         parsed = torch.isfinite(tables.logz).tolist()
         labels = None
