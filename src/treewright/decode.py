@@ -164,68 +164,57 @@ def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
     return list(names), member
 
 
-def _shifted(log_x: Tensor) -> tuple[Tensor, Tensor]:
-    """exp(log_x - m) and m, m the maximum over the last axis (0 where all are -inf)."""
-    m = log_x.amax(-1, keepdim=True)
+def _shifted(log_x: Tensor, dims: int = 1) -> tuple[Tensor, Tensor]:
+    """exp(log_x - m) and m, m the maximum over the last `dims` axes (0 where all are -inf)."""
+    m = log_x.flatten(-dims).amax(-1)
     m = m.masked_fill(~torch.isfinite(m), 0.0)
-    return (log_x - m).exp(), m.squeeze(-1)
+    return (log_x - m.view(*m.shape, *(1,) * dims)).exp(), m
 
 
 @dataclass
-class _CoarseRules:
-    """The coarse binary rules of a grammar with their blocks of fine probabilities.
+class CoarseLayout:
+    """A grammar's symbols laid out by coarse symbol, for `max_rule_product`.
 
-    Fine symbols are laid out by coarse symbol: `slots` (K, G) holds the fine indices of each
-    coarse symbol's G subcategory slots, S (one past the last symbol) in unused slots. Only the
-    R coarse rules x -> y z with some fine rule of positive probability are kept, sorted by
-    (x, y, z); `by_parent` lists each parent's rules in that order, padded with R (a rule of
-    probability zero), so that the best rule of every parent is one max over a padded axis.
+    `slots` (K, G) holds the fine indices of each coarse symbol's G subcategory slots, S (one
+    past the last symbol) in unused slots; the first Kp coarse symbols have nonterminal
+    subcategories (groups appear in symbol order, nonterminals first). `rules` holds every
+    fine binary rule in that layout, with zeros in unused slots and for subcategories that are
+    no nonterminal: rules[x, a, (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K), in the
+    order `max_rule_product` reads them.
     """
-    names: list[str]    # K coarse symbols; the first Kp have nonterminal subcategories
+    names: list[str]    # K coarse symbols
     slots: Tensor       # (K, G) long
     member: Tensor      # (S, K) 0/1
-    parents: Tensor     # (R,) x of each rule
-    lefts: Tensor       # (R,) y
-    rights: Tensor      # (R,) z
-    blocks: Tensor      # (R, G, G, G) [r, a, b, c] = p(x_a -> y_b z_c)
-    by_parent: Tensor   # (Kp, M) rule indices, R where padded
+    num_parents: int    # Kp
+    rules: Tensor       # (Kp, G, G*K*G*K)
+
+    @classmethod
+    def of(cls, grammar: Grammar, dtype: torch.dtype) -> "CoarseLayout":
+        names, member = coarse_groups(grammar.symbols)
+        S, K = member.shape
+        nt = len(grammar.nonterminals)
+        G = int(member.sum(0).max())
+        slots = torch.full((K, G), S, dtype=torch.long)
+        for k in range(K):
+            fine = member[:, k].nonzero().flatten()
+            slots[k, :len(fine)] = fine
+        coarse_of = member.argmax(1)
+        kp = int(coarse_of[:nt].max()) + 1 if nt else 0
+        prob = torch.zeros(nt + 1, S + 1, S + 1, dtype=dtype)            # index NT, S: zero
+        prob[:nt, :S, :S] = grammar.binary.to(dtype).exp()
+        parent = slots[:kp].masked_fill(slots[:kp] >= nt, nt)            # (Kp, G)
+        child = slots.flatten()                                          # (K*G,)
+        rules = prob[parent[:, :, None, None], child[None, None, :, None],
+                     child[None, None, None, :]]                         # (Kp, G, K*G, K*G)
+        rules = rules.view(kp, G, K, G, K, G).permute(0, 1, 5, 2, 3, 4)  # (x, a, c, y, b, z)
+        return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous())
 
 
-def _coarse_rules(grammar: Grammar, dtype: torch.dtype) -> _CoarseRules:
-    names, member = coarse_groups(grammar.symbols)
-    S, K = member.shape
-    coarse_of = member.argmax(1)                                    # (S,)
-    sub_of = torch.zeros(S, dtype=torch.long)                       # slot within its group
-    G = int(member.sum(0).max())
-    slots = torch.full((K, G), S, dtype=torch.long)
-    for k in range(K):
-        fine = member[:, k].nonzero().flatten()
-        slots[k, :len(fine)] = fine
-        sub_of[fine] = torch.arange(len(fine))
-    prob = grammar.binary.to(dtype).exp()                           # (NT, S, S)
-    a, b, c = prob.gt(0).nonzero(as_tuple=True)
-    keys = (coarse_of[a] * K + coarse_of[b]) * K + coarse_of[c]
-    unique, rule_of = torch.unique(keys, return_inverse=True)       # sorted by (x, y, z)
-    R = len(unique)
-    blocks = prob.new_zeros(R, G, G, G)
-    blocks[rule_of, sub_of[a], sub_of[b], sub_of[c]] = prob[a, b, c]
-    parents, lefts, rights = unique // (K * K), unique // K % K, unique % K
-    nt_groups = int(coarse_of[:len(grammar.nonterminals)].max()) + 1 if grammar.nonterminals \
-        else 0  # groups appear in symbol order, nonterminals first
-    counts = torch.bincount(parents, minlength=nt_groups)
-    by_parent = torch.full((nt_groups, max(1, int(counts.max()) if R else 1)), R,
-                           dtype=torch.long)
-    first = torch.cumsum(counts, 0) - counts
-    for x in range(nt_groups):
-        by_parent[x, :int(counts[x])] = torch.arange(int(first[x]), int(first[x] + counts[x]))
-    return _CoarseRules(names, slots, member.to(dtype), parents, lefts, rights, blocks,
-                        by_parent)
+MRP_CHUNK = 2 ** 18  # elements of the largest temporary per chunk of parent spans
 
 
-MRP_CHUNK = 2 ** 22  # elements of the largest temporary per chunk of parent spans
-
-
-def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
+def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
+                     layout: CoarseLayout | None = None
                      ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the coarse tree maximizing the product of anchored coarse-rule posteriors
     (None for a sentence with no parse).
@@ -236,85 +225,106 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     score multiplies q over its binary nodes, the coarse label posterior of each word's
     preterminal (its lexical rule), and the posterior of the top label (the root rule).
     Returns the labeled spans (start, end, coarse label), words included, and the log score.
+    `layout`: `CoarseLayout.of(grammar, dtype)`, made here when not given (a caller decoding
+    many batches makes it once).
 
-    Batched: one width at a time, every span of every sentence and every split together, and
-    only the coarse rules that exist (see `_CoarseRules`). Inside and outside scores are taken
-    out of log space per cell (divided by the cell's largest), so the sums over subcategories
-    are plain products; the cells' log maxima are added back to log q. Ties go to the first
-    split, then the first (left, right) pair. Shapes: rows = (sentence, start) pairs of one
-    width, U = w - 1 splits, R coarse rules, G subcategory slots, Kp coarse parents.
+    Batched: one width at a time, every span of every sentence and every split together. The
+    best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
+    scores, so that a parent's best over (split, y, z) is a max over the sums
+    s(x, y, z) = sum_{a,b,c} O(x_a) p(x_a -> y_b z_c) L(y_b) R(z_c) with L = I e^best of the
+    left child, R of the right one. These are taken out of log space per cell (divided by the
+    cell's largest; the parent's outside per coarse parent), the sums over subcategories are
+    matrix products (over c, then b) and the maxima over (y, z) are taken on the products; only
+    the maxima, one per split and parent, go back to log space, with each cell's log maximum.
+    Ties go to the first split, then the first (left, right) pair. Shapes: rows = (sentence,
+    start) pairs of one width, U = w - 1 splits, K coarse symbols, Kp coarse parents, G
+    subcategory slots.
     """
     dtype = tables.inside.dtype
-    cr = _coarse_rules(grammar, dtype)
-    names = cr.names
-    K, G = cr.slots.shape
-    Kp, M = cr.by_parent.shape
+    lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
+    K, G = lay.slots.shape
+    Kp = lay.num_parents
     B, N1, _, S = tables.inside.shape
     N = N1 - 1
     nt = len(grammar.nonterminals)
-    coarse_marg = tables.marginals @ cr.member                          # (B, N+1, N+1, K)
+    coarse_marg = tables.marginals @ lay.member                          # (B, N+1, N+1, K)
     best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
     best[:, :, 1] = coarse_marg[:, :, 1].log()
-    back = torch.zeros(B, N1, N1, K, 3, dtype=torch.long)               # split, left, right
+    back = torch.zeros(B, N1, N1, max(Kp, 1), 3, dtype=torch.long)      # split, left, right
     pad = torch.full((B, N1, N1, S + 1 - nt), NEG_INF, dtype=dtype)
-    outside = torch.cat([tables.outside, pad], -1)[..., cr.slots]        # (B, N+1, N+1, K, G)
-    inside = torch.cat([tables.inside, pad[..., :1]], -1)[..., cr.slots]
-    # The parent's, left child's and right child's coarse symbol of each padded rule slot.
-    pick_y = torch.cat([cr.lefts, torch.zeros(1, dtype=torch.long)])[cr.by_parent]   # (Kp, M)
-    pick_z = torch.cat([cr.rights, torch.zeros(1, dtype=torch.long)])[cr.by_parent]
+    outside = torch.cat([tables.outside, pad], -1)[..., lay.slots[:Kp]]  # (B, N+1, N+1, Kp, G)
+    inside = torch.cat([tables.inside, pad[..., :1]], -1)[..., lay.slots.t()]  # (.., G, K)
+    # Each cell's inside scores times e^best of their coarse symbol, scaled: (B, N+1, N+1, G, K)
+    # (slot-major, so that the products below run over a contiguous coarse axis) and the log
+    # scale (B, N+1, N+1).
+    child = torch.zeros(B, N1, N1, G, K, dtype=dtype)
+    child_scale = torch.zeros(B, N1, N1, dtype=dtype)
+    child[:, :, 1], child_scale[:, :, 1] = _shifted(inside[:, :, 1] + best[:, :, 1, None], 2)
     for w in range(2, N + 1):
         P, U = N - w + 1, w - 1
         us = torch.arange(1, w)
         starts = torch.arange(P)[:, None] + us[None, :]                 # (P, U) right starts
         rows_all = B * P
-        parent, m_par = _shifted(outside[:, 0:P, w].flatten(-2))        # (B, P, K*G)
-        left, m_left = _shifted(inside[:, 0:P][:, :, us].flatten(-2))   # (B, P, U, K*G)
-        right, m_right = _shifted(inside[:, starts, w - us].flatten(-2))
-        shift = (m_par[..., None] + m_left + m_right).view(rows_all, U)
-        parent = parent.view(rows_all, K, G)
-        left, right = left.view(rows_all, U, K, G), right.view(rows_all, U, K, G)
-        left_best = best[:, 0:P][:, :, us].reshape(rows_all, U, K)
-        right_best = best[:, starts, w - us].reshape(rows_all, U, K)
-        value = torch.full((rows_all, Kp), NEG_INF, dtype=dtype)
-        arg = torch.zeros(rows_all, Kp, dtype=torch.long)
-        chunk = max(1, MRP_CHUNK // (U * len(cr.parents) * G * G + 1))
+        parent, m_par = _shifted(outside[:, 0:P, w])                    # (B, P, Kp, G), (B, P, Kp)
+        parent = parent.view(rows_all, Kp, G)
+        left = child[:, 0:P][:, :, us].view(rows_all, U, G, K)
+        right = child[:, starts, w - us].view(rows_all, U, G, K)
+        shift = (child_scale[:, 0:P][:, :, us] + child_scale[:, starts, w - us]).view(rows_all, U)
+        value = torch.empty(rows_all, Kp, dtype=dtype)
+        arg = torch.empty(rows_all, Kp, 3, dtype=torch.long)
+        chunk = max(1, MRP_CHUNK // (Kp * K * K * G * max(U, G) + 1))
         for r0 in range(0, rows_all, chunk):
             r1 = min(rows_all, r0 + chunk)
-            # The parent's outside folded into each rule block once per span, (rows, R, G, G),
-            # then each split's children: q (rows, U, R), the anchored coarse-rule posteriors.
-            folded = torch.einsum("rabc,ira->irbc", cr.blocks, parent[r0:r1][:, cr.parents])
-            q = torch.einsum("irbc,iurb->iurc", folded, left[r0:r1][:, :, cr.lefts])
-            q = (q * right[r0:r1][:, :, cr.rights]).sum(-1)
-            q = torch.cat([q, q.new_zeros(r1 - r0, U, 1)], -1)[..., cr.by_parent]  # (.., Kp, M)
-            total = q.log() + shift[r0:r1, :, None, None] \
-                + left_best[r0:r1][:, :, pick_y] + right_best[r0:r1][:, :, pick_z]
-            flat = total.permute(0, 2, 1, 3).reshape(r1 - r0, Kp, U * M)
-            value[r0:r1], arg[r0:r1] = flat.max(-1)
-        best[:, 0:P, w, :Kp] = value.view(B, P, Kp)
-        u, slot = arg.div(M, rounding_mode="floor"), arg.remainder(M)
-        x = torch.arange(Kp)
-        back[:, 0:P, w, :Kp] = torch.stack([u + 1, pick_y[x, slot], pick_z[x, slot]],
-                                           -1).view(B, P, Kp, 3)
-    out: list = []
-    back_list = None
-    for b, n in enumerate(lengths):
-        if not bool(torch.isfinite(tables.logz[b])):
-            out.append(None)
-            continue
-        top_scores = best[b, 0, n] + coarse_marg[b, 0, n].log()
-        top = int(top_scores.argmax())
-        spans: list[tuple[int, int, str]] = []
-        stack = [(0, n, top)]
-        if back_list is None:
-            back_list = back.tolist()
-        while stack:
-            i, w, x = stack.pop()
-            spans.append((i, i + w, names[x]))
-            if w > 1:
-                u, y, z = back_list[b][i][w][x]
-                stack.extend([(i + u, w - u, z), (i, u, y)])
-        out.append((spans, float(top_scores[top])))
-    return out
+            r = r1 - r0
+            # The parent's outside folded into the rules once per span, (r, x, [c, y, b, z]);
+            # then the sum over c, (r, U, x, y, b, z), and over b, (r, U, x, y, z): G products
+            # and adds of whole tensors each, over a contiguous last axis (products with inner
+            # dimension G run slower as matrix products), chunked to stay in cache.
+            par = parent[r0:r1]
+            folded = par[:, :, 0, None] * lay.rules[:, 0]                # (r, Kp, G*K*G*K)
+            for a in range(1, G):
+                folded.addcmul_(par[:, :, a, None], lay.rules[:, a])
+            folded = folded.view(r, 1, Kp, G, K, G, K)
+            rt = right[r0:r1][:, :, None, None, None]                    # (r, U, 1, 1, 1, G, K)
+            over_c = folded[:, :, :, 0] * rt[..., 0, :]
+            for c in range(1, G):
+                over_c.addcmul_(folded[:, :, :, c], rt[..., c, :])
+            lt = left[r0:r1][:, :, None, :, :, None]                     # (r, U, 1, G, K, 1)
+            sums = over_c[..., 0, :] * lt[..., 0, :, :]
+            for b in range(1, G):
+                sums.addcmul_(over_c[..., b, :], lt[..., b, :, :])
+            top, pair = sums.view(r, U, Kp, K * K).max(-1)               # (r, U, Kp), y first
+            scores = top.log() + shift[r0:r1, :, None]
+            value[r0:r1], u = scores.max(1)                              # the first best split
+            yz = pair.gather(1, u[:, None]).squeeze(1)
+            arg[r0:r1] = torch.stack([u + 1, yz.div(K, rounding_mode="floor"),
+                                      yz.remainder(K)], -1)
+        best[:, 0:P, w, :Kp] = value.view(B, P, Kp) + m_par
+        back[:, 0:P, w, :Kp] = arg.view(B, P, Kp, 3)
+        child[:, 0:P, w], child_scale[:, 0:P, w] = _shifted(
+            inside[:, 0:P, w] + best[:, 0:P, w, None], 2)
+    parsed = torch.isfinite(tables.logz)
+    n = torch.tensor(list(lengths), dtype=torch.long)
+    every = torch.arange(B)
+    top_scores = best[every, 0, n] + coarse_marg[every, 0, n].log()      # (B, K)
+    top_value, top = top_scores.max(-1)
+    # Follow the back pointers of every sentence together, one tree level at a time.
+    found = []
+    b, i, w, x = every[parsed], torch.zeros(int(parsed.sum()), dtype=torch.long), \
+        n[parsed], top[parsed]
+    while len(b):
+        found.append(torch.stack([b, i, w, x], -1))
+        inner = w > 1
+        b, i, w, x = b[inner], i[inner], w[inner], x[inner]
+        u, y, z = back[b, i, w, x].unbind(-1)
+        b, i, w, x = torch.cat([b, b]), torch.cat([i, i + u]), torch.cat([u, w - u]), \
+            torch.cat([y, z])
+    spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
+    names = lay.names
+    for sb, si, sw, sx in (torch.cat(found).tolist() if found else []):
+        spans[sb].append((si, si + sw, names[sx]))
+    values = top_value.tolist()
+    return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())]
 
 
 def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
@@ -449,12 +459,14 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
                          "treewright.decode.consensus(grammars, sentences)")
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
+    # Made once for every batch: the tree scorer and max-rule-product's coarse layout.
     scorer = TreeScorer(grammar) if decoder != "viterbi" else None
+    layout = CoarseLayout.of(grammar, dtype) if decoder == "max-rule-product" else None
     return _by_length(sentences, batch_size,
-                      lambda words: _decode_batch(grammar, words, decoder, dtype, scorer))
+                      lambda words: _decode_batch(grammar, words, decoder, dtype, scorer, layout))
 
 
-def _decode_batch(grammar, sentences, decoder, dtype, scorer) -> list[Decoded]:
+def _decode_batch(grammar, sentences, decoder, dtype, scorer, layout) -> list[Decoded]:
     if decoder == "viterbi":
         enc = encode(grammar, sentences, dtype)
         results = engine.viterbi(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
@@ -470,7 +482,7 @@ def _decode_batch(grammar, sentences, decoder, dtype, scorer) -> list[Decoded]:
     if decoder == "mbr":
         results = _mbr_labeled(grammar, tables, lengths)
     else:
-        results = max_rule_product(grammar, tables, lengths)
+        results = max_rule_product(grammar, tables, lengths, layout)
     trees = [None if result is None else tree_from_spans(words, result[0])
              for words, result in zip(sentences, results)]
     parsed = [b for b, result in enumerate(results) if result is not None]
