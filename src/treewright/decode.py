@@ -210,7 +210,32 @@ class CoarseLayout:
         return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous())
 
 
-MRP_CHUNK = 2 ** 18  # elements of the largest temporary per chunk of parent spans
+MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
+
+
+def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Tensor, Tensor]:
+    """Per row, split and coarse parent x, the largest sum over subcategories
+    s(x, y, z) = sum_{b,c} folded[x, c, y, b, z] left[b, y] right[c, z] and its (y, z), y first.
+
+    folded (r, 1, Kp, G, Ky, G, Kz) the rules with the parent's outside folded in, [c, y, b, z];
+    left (r, U, G, Ky) and right (r, U, G, Kz) the child cells of U splits. The sum over c,
+    (r, U, x, y, b, z), then over b, (r, U, x, y, z), are G products and adds of whole tensors
+    each over a contiguous last axis (products with inner dimension G run slower as matrix
+    products). Returns (r, U, Kp) maxima, y and z.
+    """
+    r, U, G, ky = left.shape
+    kz = right.shape[-1]
+    kp = folded.shape[2]
+    rt = right[:, :, None, None, None]                                   # (r, U, 1, 1, 1, G, Kz)
+    over_c = folded[:, :, :, 0] * rt[..., 0, :]
+    for c in range(1, G):
+        over_c.addcmul_(folded[:, :, :, c], rt[..., c, :])
+    lt = left[:, :, None, :, :, None]                                    # (r, U, 1, G, Ky, 1)
+    sums = over_c[..., 0, :] * lt[..., 0, :, :]
+    for b in range(1, G):
+        sums.addcmul_(over_c[..., b, :], lt[..., b, :, :])
+    top, pair = sums.view(r, U, kp, ky * kz).max(-1)
+    return top, pair.div(kz, rounding_mode="floor"), pair.remainder(kz)
 
 
 def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
@@ -236,7 +261,8 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     cell's largest; the parent's outside per coarse parent), the sums over subcategories are
     matrix products (over c, then b) and the maxima over (y, z) are taken on the products; only
     the maxima, one per split and parent, go back to log space, with each cell's log maximum.
-    Ties go to the first split, then the first (left, right) pair. Shapes: rows = (sentence,
+    A child of width two or more can only be a coarse parent, so only the word children at a
+    span's edges range over every coarse symbol. Ties go to the first split, then the first (left, right) pair. Shapes: rows = (sentence,
     start) pairs of one width, U = w - 1 splits, K coarse symbols, Kp coarse parents, G
     subcategory slots.
     """
@@ -272,33 +298,37 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
         shift = (child_scale[:, 0:P][:, :, us] + child_scale[:, starts, w - us]).view(rows_all, U)
         value = torch.empty(rows_all, Kp, dtype=dtype)
         arg = torch.empty(rows_all, Kp, 3, dtype=torch.long)
-        chunk = max(1, MRP_CHUNK // (Kp * K * K * G * max(U, G) + 1))
+        # A child of width two or more is a nonterminal: only the Kp parent symbols can be
+        # there (the others' entries are zero), so only the word children at the edges (split
+        # 1 on the left, w - 1 on the right) range over all K coarse symbols.
+        groups = [(0, 1, K, K)] if w == 2 else \
+            [(0, 1, K, Kp)] + ([(1, U - 1, Kp, Kp)] if w > 3 else []) + [(U - 1, U, Kp, K)]
+        # Rows per chunk: the largest temporary of a row is the folded rules or a group's sums
+        # over c, (U', Kp, Ky, G, Kz).
+        per_row = max([Kp * G * G * K * K] + [(u1 - u0) * Kp * ky * G * kz
+                                               for u0, u1, ky, kz in groups])
+        chunk = max(1, MRP_CHUNK // per_row)
         for r0 in range(0, rows_all, chunk):
             r1 = min(rows_all, r0 + chunk)
             r = r1 - r0
-            # The parent's outside folded into the rules once per span, (r, x, [c, y, b, z]);
-            # then the sum over c, (r, U, x, y, b, z), and over b, (r, U, x, y, z): G products
-            # and adds of whole tensors each, over a contiguous last axis (products with inner
-            # dimension G run slower as matrix products), chunked to stay in cache.
+            # The parent's outside folded into the rules once per span, (r, x, [c, y, b, z]).
             par = parent[r0:r1]
             folded = par[:, :, 0, None] * lay.rules[:, 0]                # (r, Kp, G*K*G*K)
             for a in range(1, G):
                 folded.addcmul_(par[:, :, a, None], lay.rules[:, a])
             folded = folded.view(r, 1, Kp, G, K, G, K)
-            rt = right[r0:r1][:, :, None, None, None]                    # (r, U, 1, 1, 1, G, K)
-            over_c = folded[:, :, :, 0] * rt[..., 0, :]
-            for c in range(1, G):
-                over_c.addcmul_(folded[:, :, :, c], rt[..., c, :])
-            lt = left[r0:r1][:, :, None, :, :, None]                     # (r, U, 1, G, K, 1)
-            sums = over_c[..., 0, :] * lt[..., 0, :, :]
-            for b in range(1, G):
-                sums.addcmul_(over_c[..., b, :], lt[..., b, :, :])
-            top, pair = sums.view(r, U, Kp, K * K).max(-1)               # (r, U, Kp), y first
+            tops, ys, zs = [], [], []
+            for u0, u1, ky, kz in groups:
+                top, y, z = _best_pairs(folded[..., :ky, :, :kz], left[r0:r1, u0:u1, :, :ky],
+                                        right[r0:r1, u0:u1, :, :kz])
+                tops.append(top)
+                ys.append(y)
+                zs.append(z)
+            top, y, z = torch.cat(tops, 1), torch.cat(ys, 1), torch.cat(zs, 1)  # (r, U, Kp)
             scores = top.log() + shift[r0:r1, :, None]
             value[r0:r1], u = scores.max(1)                              # the first best split
-            yz = pair.gather(1, u[:, None]).squeeze(1)
-            arg[r0:r1] = torch.stack([u + 1, yz.div(K, rounding_mode="floor"),
-                                      yz.remainder(K)], -1)
+            arg[r0:r1] = torch.stack([u + 1, y.gather(1, u[:, None]).squeeze(1),
+                                      z.gather(1, u[:, None]).squeeze(1)], -1)
         best[:, 0:P, w, :Kp] = value.view(B, P, Kp) + m_par
         back[:, 0:P, w, :Kp] = arg.view(B, P, Kp, 3)
         child[:, 0:P, w], child_scale[:, 0:P, w] = _shifted(
