@@ -240,3 +240,22 @@ def test_tree_scorer_batches_every_tree_alike():
     assert len(got) == len(expect) > 40
     for value, reference in zip(got, expect):
         assert value == pytest.approx(reference, abs=1e-10)
+
+
+def test_tree_scorer_on_one_symbol_labels_sums_the_rules():
+    # Brute force: on an unrefined grammar (every label one symbol, the scorer's sum of rules)
+    # each tree's log probability is that of its one fine tree in the tree list; also for a
+    # grammar whose nonterminals emit words, and a one-word sentence.
+    for g in (make_grammar(["A", "B"], ["P", "R"], 3, seed=2),
+              make_grammar(["A", "B"], ["P", "R"], 3, seed=4, nt_emit=True)):
+        trees, expect = [], []
+        for words in SENTENCES + [["w1"]]:
+            for p, nodes, leaves, _ in all_trees(g, words):
+                spans = [(i, j, g.symbols[a]) for i, _, j, a, _, _ in nodes]
+                spans += [(i, i + 1, g.symbols[x]) for i, x in enumerate(leaves)]
+                trees.append(tree_from_spans(words, spans))
+                expect.append(math.log(p))
+        got = TreeScorer(g).logprobs(trees)
+        assert len(got) == len(expect) > 40
+        for value, reference in zip(got, expect):
+            assert value == pytest.approx(reference, abs=1e-10)

@@ -378,7 +378,10 @@ class TreeScorer:
     binary[parent slots, left slots, right slots], (G, G, G), plus its children's scores. The
     nodes of all trees are scored together, one tree height at a time (a node's children are
     lower), so there is no walk per node or per sentence over the grammar's tensors. Float64
-    log space throughout: the work is about G^3 per node, small beside the span tables.
+    log space throughout: the work is about G^3 per node, small beside the span tables. When
+    every label of a batch stands for one symbol (G = 1: an unrefined grammar, or the `mbr`
+    decoder's fine labels) the tree's log probability is the sum of its rules', gathered for
+    all nodes at once.
     """
 
     def __init__(self, grammar: Grammar):
@@ -445,9 +448,21 @@ class TreeScorer:
         in_tree = label < len(sets)
         # The left child of node (i, w) is the tree's widest node (i, u) with u < w.
         widest = torch.where(in_tree, torch.arange(N + 1), 0).cummax(-1).values  # (B, N+1, N+1)
-        scores = torch.full((B, N + 1, N + 1, G), NEG_INF, dtype=torch.float64)  # log inside
         ids = torch.tensor(word_ids, dtype=torch.long)                   # (B, N)
         ids = ids.masked_fill(ids < 0, self.lexical.shape[1] - 1)
+        every = torch.arange(B)
+        n = torch.tensor([len(words) for words in sentences])
+        if G == 1:
+            # Every label is one symbol: the tree's log probability is the sum of its rules'.
+            b, i, w = (in_tree & (torch.arange(N + 1) >= 2)).nonzero().unbind(1)
+            u = widest[b, i, w - 1]
+            rules = self.binary[parent_slots[label[b, i, w], 0], slots[label[b, i, u], 0],
+                                slots[label[b, i + u, w - u], 0]]
+            words = self.lexical[slots[label[:, :N, 1], 0], ids]         # (B, N)
+            words = words.masked_fill(torch.arange(N) >= n[:, None], 0.0)
+            total = self.root[parent_slots[label[every, 0, n], 0]] + words.sum(-1)
+            return total.index_add(0, b, rules).tolist()
+        scores = torch.full((B, N + 1, N + 1, G), NEG_INF, dtype=torch.float64)  # log inside
         scores[:, :N, 1] = self.lexical[slots[label[:, :N, 1]], ids[..., None]]
         chunk = max(1, TREE_CHUNK // (G ** 3))
         for w in range(2, N + 1):
@@ -461,8 +476,6 @@ class TreeScorer:
                 total = self.binary[a, left, right] + scores[b, i, u][:, None, :, None] \
                     + scores[b, i + u, w - u][:, None, None, :]           # (M, G, G, G)
                 scores[b, i, w] = torch.logsumexp(total.flatten(2), -1)
-        every = torch.arange(B)
-        n = torch.tensor([len(words) for words in sentences])
         whole = self.root[parent_slots[label[every, 0, n]]] + scores[every, 0, n]  # (B, G)
         return torch.logsumexp(whole, -1).tolist()
 
