@@ -259,3 +259,17 @@ def test_tree_scorer_on_one_symbol_labels_sums_the_rules():
         assert len(got) == len(expect) > 40
         for value, reference in zip(got, expect):
             assert value == pytest.approx(reference, abs=1e-10)
+
+
+def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():
+    # Brute force (coarse_objective above): every symbol its own coarse symbol, the decoder's
+    # max-semiring path; with preterminals, and with nonterminals that emit words (one word).
+    cases = [(make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5), SENTENCES),
+             (make_grammar(["A", "B"], ["P"], 3, seed=6, nt_emit=True),
+              SENTENCES[:2] + [["w2"]])]
+    for g, sentences in cases:
+        for words in sentences:
+            expect_value, expect_spans = coarse_objective(g, words)
+            result = decode(g, [words], "max-rule-product")[0]
+            assert result.score == pytest.approx(expect_value, abs=1e-9)
+            assert sorted(result.tree.labeled_spans()) == expect_spans

@@ -268,6 +268,8 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     """
     dtype = tables.inside.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
+    if lay.slots.shape[1] == 1:
+        return _max_rule_product_unrefined(grammar, tables, lengths, lay)
     K, G = lay.slots.shape
     Kp = lay.num_parents
     B, N1, _, S = tables.inside.shape
@@ -355,6 +357,39 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
         spans[sb].append((si, si + sw, names[sx]))
     values = top_value.tolist()
     return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())]
+
+
+def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
+                                lengths: Sequence[int], lay: CoarseLayout
+                                ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
+    """`max_rule_product` when every coarse symbol has one subcategory (an unrefined grammar):
+    the engine's max-semiring pass (`engine.viterbi`) with each symbol's log marginal over each
+    span as a potential.
+
+    With one symbol per coarse symbol, q(x -> y z, i, k, j) = O(x) p(x -> y z) I(y) I(z), so
+    with c(x, span) = log I(x, span) + best(x, span) the recursion of `max_rule_product` is
+    c(x, span) = log mu(x, span) + max over (k, y, z) of log p(x -> y z) + c(y) + c(z), mu the
+    label marginal (I O over Z): a Viterbi pass over the rules with the word scores
+    log I + log mu and the potential log mu on every wider span; the root's outside,
+    log p(root x) - log Z, closes it. Max over splits before rules, as in any Viterbi pass, so
+    it costs about what an inside pass costs rather than one rule product per split.
+    """
+    nt = len(grammar.nonterminals)
+    B, N1, _, _ = tables.inside.shape
+    N = N1 - 1
+    log_mu = tables.marginals.log()                                      # (B, N+1, N+1, S)
+    words = tables.inside[:, :N, 1] + log_mu[:, :N, 1]                   # (B, N, S)
+    logz = tables.logz.masked_fill(~torch.isfinite(tables.logz), 0.0)
+    root = grammar.root.to(words.dtype)[None, :] - logz[:, None]         # (B, NT)
+    # A grammar whose nonterminals emit words scores them at width one too.
+    nt_words = words[..., :nt] if grammar.nonterminals_emit else None
+    results = engine.viterbi(root, grammar.binary.to(words.dtype), words[..., nt:],
+                             torch.tensor(list(lengths)), nt_words, log_mu[..., :nt])
+    names = [lay.names[k] for k in lay.member.argmax(1).tolist()]        # per fine symbol
+    parsed = torch.isfinite(tables.logz).tolist()
+    return [None if res is None or not ok else
+            ([(i, j, names[x]) for i, j, x in res[1]], res[0])
+            for res, ok in zip(results, parsed)]
 
 
 def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
