@@ -12,8 +12,11 @@
   unrefined grammar this is max-rule-product over the grammar's own symbols.
 
 The labeled marginals, inside and outside scores come from `engine.span_tables` (the engine's
-own outside pass, batched); both decoders then work one span width at a time over every span of
-every sentence of a batch.
+own outside pass, batched; `mbr` asks for the marginals alone); both decoders then work one span
+width at a time over every span of every sentence of a batch (max-rule-product on an unrefined
+grammar is the engine's max-semiring pass). Each decoded tree's probability, summed over the
+refinements of its labels, is one inside pass over the nodes of all trees of a batch
+(`TreeScorer`).
 
 A lexicalized model (`params.lexicalized`, Yang, Zhao & Tu 2021) is no `Grammar`: `decode_heads`
 reads the model itself and gives each sentence its best derivation as a tree and the head of
