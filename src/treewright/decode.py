@@ -262,12 +262,14 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     s(x, y, z) = sum_{a,b,c} O(x_a) p(x_a -> y_b z_c) L(y_b) R(z_c) with L = I e^best of the
     left child, R of the right one. These are taken out of log space per cell (divided by the
     cell's largest; the parent's outside per coarse parent), the sums over subcategories are
-    matrix products (over c, then b) and the maxima over (y, z) are taken on the products; only
-    the maxima, one per split and parent, go back to log space, with each cell's log maximum.
-    A child of width two or more can only be a coarse parent, so only the word children at a
-    span's edges range over every coarse symbol. Ties go to the first split, then the first (left, right) pair. Shapes: rows = (sentence,
-    start) pairs of one width, U = w - 1 splits, K coarse symbols, Kp coarse parents, G
-    subcategory slots.
+    products over the slots (a with the parent's outside once per span, then c, then b:
+    `_best_pairs`) and the maxima over (y, z) are taken on the sums; only the maxima, one per
+    split and parent, go back to log space, with each cell's log maximum. A child of width two
+    or more can only be a coarse parent, so only the word children at a span's edges range
+    over every coarse symbol. On an unrefined grammar (G = 1) this is a max-semiring pass
+    (`_max_rule_product_unrefined`). Ties go to the first split, then the first (left, right)
+    pair. Shapes: rows = (sentence, start) pairs of one width, U = w - 1 splits, K coarse
+    symbols, Kp coarse parents, G subcategory slots.
     """
     dtype = tables.inside.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
@@ -375,7 +377,9 @@ def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
     label marginal (I O over Z): a Viterbi pass over the rules with the word scores
     log I + log mu and the potential log mu on every wider span; the root's outside,
     log p(root x) - log Z, closes it. Max over splits before rules, as in any Viterbi pass, so
-    it costs about what an inside pass costs rather than one rule product per split.
+    it costs about what an inside pass costs rather than one rule product per split. Exact
+    ties are broken as `engine.viterbi` breaks them (the blocks of two nonterminal children
+    before those with a word), not by the first split.
     """
     nt = len(grammar.nonterminals)
     B, N1, _, _ = tables.inside.shape
