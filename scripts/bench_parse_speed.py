@@ -10,7 +10,9 @@ symbols over the demo corpus's vocabulary; the random ones cost what trained one
 passes do the same work whatever the numbers are. Every symbol is named as a subcategory,
 `S{i // 2}·{i % 2}` for nonterminal i and `P{j // 2}·{j % 2}` for preterminal j (two
 subcategories per coarse symbol, as `refine.split` names them), so that max-rule-product works
-over coarse symbols as it does on a refined grammar; mbr does not read names. Sentences: the
+over coarse symbols as it does on a refined grammar; mbr does not read names. With
+`--unrefined` the symbols are named `S{i}` and `P{j}`, each its own coarse symbol, so that
+max-rule-product takes its path for unrefined grammars (a max-semiring pass). Sentences: the
 first `--sentences` lines of the demo training set of at most `--max-length` words.
 
 Each tool runs as its user runs it: training with `train.batch_size` (32) in the trainer's
@@ -59,12 +61,20 @@ def split_names(prefix: str, count: int) -> list[str]:
     return [fine_name(f"{prefix}{i // 2}", i % 2) for i in range(count)]
 
 
-def random_model(nt: int, t: int, vocab: Vocabulary) -> tuple[TabularParams, Grammar]:
-    """A random tabular model (float32, seed 0) and the same rules as a `Grammar` (float64)."""
+def plain_names(prefix: str, count: int) -> list[str]:
+    """`count` symbol names, each its own coarse symbol: P0, P1, ..."""
+    return [f"{prefix}{i}" for i in range(count)]
+
+
+def random_model(nt: int, t: int, vocab: Vocabulary, refined: bool = True
+                 ) -> tuple[TabularParams, Grammar]:
+    """A random tabular model (float32, seed 0) and the same rules as a `Grammar` (float64),
+    its symbols named as subcategories (`split_names`) or not (`plain_names`)."""
     model = TabularParams(nt, t, len(vocab), 1.0, torch.Generator().manual_seed(0), torch.float32)
     with torch.no_grad():
         rules = model.rules()
-    return model, rules_to_grammar(rules, split_names("S", nt), split_names("P", t), vocab)
+    names = split_names if refined else plain_names
+    return model, rules_to_grammar(rules, names("S", nt), names("P", t), vocab)
 
 
 def em_epoch(model: TabularParams, batches) -> None:
@@ -92,6 +102,8 @@ def main(argv: list[str] | None = None) -> dict:
     p.add_argument("--threads", type=int, default=1, help="torch threads")
     p.add_argument("--train-batch-size", type=int, default=32)
     p.add_argument("--parse-batch-size", type=int, default=16)
+    p.add_argument("--unrefined", action="store_true",
+                   help="symbols named S0, P0, ... (each its own coarse symbol)")
     p.add_argument("--quick", action="store_true",
                    help="a smoke run: 12 sentences of at most 8 words, grammars 4/6, one repeat")
     args = p.parse_args(argv)
@@ -111,10 +123,11 @@ def main(argv: list[str] | None = None) -> dict:
           f"{load_average()}")
     print(f"{len(sentences)} demo sentences of at most {args.max_length} words ({words} words); "
           f"training batch {args.train_batch_size} float32, parsing batch "
-          f"{args.parse_batch_size} float64; best of {args.repeats} alternated repeats")
+          f"{args.parse_batch_size} float64; best of {args.repeats} alternated repeats; "
+          f"symbols {'unrefined (S0, P0, ...)' if args.unrefined else 'named S0·0, S0·1, ...'}")
     figures: dict = {"sentences": len(sentences), "grammars": []}
     for nt, t in sizes:
-        model, grammar = random_model(nt, t, vocab)
+        model, grammar = random_model(nt, t, vocab, not args.unrefined)
         best = {"train": float("inf"), **{d: float("inf") for d in DECODERS}}
         for _ in range(args.repeats):
             # Alternated so that the machine's drift hits all three alike. Each epoch moves the

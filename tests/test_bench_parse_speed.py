@@ -25,6 +25,9 @@ def test_split_names_give_two_subcategories_per_coarse_symbol():
     names = bench.split_names("S", 5)
     assert names == ["S0\u00b70", "S0\u00b71", "S1\u00b70", "S1\u00b71", "S2\u00b70"]
     assert [coarse_name(x) for x in names] == ["S0", "S0", "S1", "S1", "S2"]
+    # --unrefined: every symbol its own coarse symbol (the docstring's S{i}).
+    plain = bench.plain_names("S", 3)
+    assert plain == ["S0", "S1", "S2"] and [coarse_name(x) for x in plain] == plain
 
 
 def test_a_quick_run_reports_its_figures_by_the_stated_rules(capsys):

@@ -17,11 +17,11 @@ import pytest
 import torch
 
 from treewright import inference
-from treewright.decode import (coarse_name, decode, max_rule_product, mbr_decode, mbr_spans,
-                               span_tables, tree_logprob_summed)
+from treewright.decode import (TreeScorer, coarse_name, decode, max_rule_product, mbr_decode,
+                               mbr_spans, span_tables, tree_logprob_summed)
 from _grammars import random_grammar
 from treewright.grammar import Grammar
-from treewright.trees import Tree
+from treewright.trees import Tree, tree_from_spans
 
 
 def make_grammar(nonterminals, preterminals, num_words, seed, nt_emit=False) -> Grammar:
@@ -210,3 +210,66 @@ def test_unparseable_sentence_is_reported_not_dropped():
     assert out[1].tree == Tree("A", [Tree("P", ["w0"]), Tree("P", ["w0"])])
     with pytest.raises(ValueError, match="unknown decoder"):
         decode(g, [["w0"]], "best")
+
+
+def test_tree_scorer_batches_every_tree_alike():
+    # Brute force: for every coarse tree of every sentence (all bracketings and coarse labels,
+    # some mixing fine and coarse labels), the summed probability of its fine trees from the
+    # tree list; all of them scored in one batch. A word the grammar does not know gives -inf.
+    scorer = TreeScorer(REFINED)
+    cname = [coarse_name(s) for s in REFINED.symbols]
+    trees, expect = [], []
+    for words in SENTENCES + [["w1"]]:
+        sums = defaultdict(float)
+        for p, nodes, leaves, _ in all_trees(REFINED, words):
+            spans = [(i, j, cname[a]) for i, _, j, a, _, _ in nodes]
+            spans += [(i, i + 1, cname[x]) for i, x in enumerate(leaves)]
+            sums[tuple(sorted(spans))] += p
+            # The same tree with its top labelled by the fine symbol: only that symbol counts.
+            fine_top = [(i, j, REFINED.symbols[a] if (i, j) == (0, len(words)) else cname[a])
+                        for i, _, j, a, _, _ in nodes] or [(0, 1, REFINED.symbols[leaves[0]])]
+            fine_top += [(i, i + 1, cname[x]) for i, x in enumerate(leaves)
+                         if len(words) > 1]
+            sums[tuple(sorted(fine_top))] += p
+        for spans, total in sums.items():
+            trees.append(tree_from_spans(words, list(spans)))
+            expect.append(math.log(total))
+    trees.append(tree_from_spans(["w0", "zz"], [(0, 2, "S"), (0, 1, "P"), (1, 2, "P")]))
+    expect.append(-math.inf)
+    got = scorer.logprobs(trees)
+    assert len(got) == len(expect) > 40
+    for value, reference in zip(got, expect):
+        assert value == pytest.approx(reference, abs=1e-10)
+
+
+def test_tree_scorer_on_one_symbol_labels_sums_the_rules():
+    # Brute force: on an unrefined grammar (every label one symbol, the scorer's sum of rules)
+    # each tree's log probability is that of its one fine tree in the tree list; also for a
+    # grammar whose nonterminals emit words, and a one-word sentence.
+    for g in (make_grammar(["A", "B"], ["P", "R"], 3, seed=2),
+              make_grammar(["A", "B"], ["P", "R"], 3, seed=4, nt_emit=True)):
+        trees, expect = [], []
+        for words in SENTENCES + [["w1"]]:
+            for p, nodes, leaves, _ in all_trees(g, words):
+                spans = [(i, j, g.symbols[a]) for i, _, j, a, _, _ in nodes]
+                spans += [(i, i + 1, g.symbols[x]) for i, x in enumerate(leaves)]
+                trees.append(tree_from_spans(words, spans))
+                expect.append(math.log(p))
+        got = TreeScorer(g).logprobs(trees)
+        assert len(got) == len(expect) > 40
+        for value, reference in zip(got, expect):
+            assert value == pytest.approx(reference, abs=1e-10)
+
+
+def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():
+    # Brute force (coarse_objective above): every symbol its own coarse symbol, the decoder's
+    # max-semiring path; with preterminals, and with nonterminals that emit words (one word).
+    cases = [(make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5), SENTENCES),
+             (make_grammar(["A", "B"], ["P"], 3, seed=6, nt_emit=True),
+              SENTENCES[:2] + [["w2"]])]
+    for g, sentences in cases:
+        for words in sentences:
+            expect_value, expect_spans = coarse_objective(g, words)
+            result = decode(g, [words], "max-rule-product")[0]
+            assert result.score == pytest.approx(expect_value, abs=1e-9)
+            assert sorted(result.tree.labeled_spans()) == expect_spans

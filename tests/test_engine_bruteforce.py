@@ -127,6 +127,10 @@ def test_label_marginals_of_a_batch_match_enumeration(nt, t, nt_emit):
     enc = encode(grammar, sentences, torch.float64)
     tables = engine.span_tables(grammar.root, grammar.binary, enc.terminal, enc.lengths,
                                 enc.nt_terminal)
+    # Marginals alone (no log scores) are the same numbers: checked below against brute force.
+    bare = engine.span_tables(grammar.root, grammar.binary, enc.terminal, enc.lengths,
+                              enc.nt_terminal, log_scores=False)
+    assert bare.inside is None and bare.outside is None
     for b, words in enumerate(sentences):
         brute = summary(grammar, words)
         n = len(words)
@@ -135,8 +139,10 @@ def test_label_marginals_of_a_batch_match_enumeration(nt, t, nt_emit):
             for i, j, a in spans:
                 expect[i, j - i, a] += math.exp(lp - brute["logz"])
         assert float(tables.logz[b]) == pytest.approx(brute["logz"], rel=1e-10)
-        torch.testing.assert_close(tables.marginals[b, :n + 1, :n + 1], expect,
-                                   atol=1e-10, rtol=1e-8)
+        for marginals in (tables.marginals, bare.marginals):
+            torch.testing.assert_close(marginals[b, :n + 1, :n + 1], expect,
+                                       atol=1e-10, rtol=1e-8)
+        assert float(bare.logz[b]) == pytest.approx(brute["logz"], rel=1e-10)
         torch.testing.assert_close(tables.marginals[b, n + 1:], torch.zeros_like(
             tables.marginals[b, n + 1:]))
         # inside + outside (over Z) is the log marginal wherever a symbol can be (the

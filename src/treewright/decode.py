@@ -12,8 +12,11 @@
   unrefined grammar this is max-rule-product over the grammar's own symbols.
 
 The labeled marginals, inside and outside scores come from `engine.span_tables` (the engine's
-own outside pass, batched); both decoders then work one span width at a time over every span of
-every sentence of a batch.
+own outside pass, batched; `mbr` asks for the marginals alone); both decoders then work one span
+width at a time over every span of every sentence of a batch (max-rule-product on an unrefined
+grammar is the engine's max-semiring pass). Each decoded tree's probability, summed over the
+refinements of its labels, is one inside pass over the nodes of all trees of a batch
+(`TreeScorer`).
 
 A lexicalized model (`params.lexicalized`, Yang, Zhao & Tu 2021) is no `Grammar`: `decode_heads`
 reads the model itself and gives each sentence its best derivation as a tree and the head of
@@ -143,12 +146,14 @@ class Decoded:
 
 
 def span_tables(grammar: Grammar, sentences: Sequence[Sequence[str]],
-                dtype: torch.dtype = torch.float64) -> engine.SpanTables:
+                dtype: torch.dtype = torch.float64, log_scores: bool = True
+                ) -> engine.SpanTables:
     """The engine's batched label marginals, log inside and log outside (over Z) tables of
-    every symbol over every span of the sentences (see `engine.SpanTables`)."""
+    every symbol over every span of the sentences (see `engine.SpanTables`; the last two only
+    with `log_scores`)."""
     enc = encode(grammar, sentences, dtype)
     return engine.span_tables(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
-                              enc.lengths, enc.nt_terminal)
+                              enc.lengths, enc.nt_terminal, log_scores)
 
 
 def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
@@ -162,68 +167,82 @@ def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
     return list(names), member
 
 
-def _shifted(log_x: Tensor) -> tuple[Tensor, Tensor]:
-    """exp(log_x - m) and m, m the maximum over the last axis (0 where all are -inf)."""
-    m = log_x.amax(-1, keepdim=True)
+def _shifted(log_x: Tensor, dims: int = 1) -> tuple[Tensor, Tensor]:
+    """exp(log_x - m) and m, m the maximum over the last `dims` axes (0 where all are -inf)."""
+    m = log_x.flatten(-dims).amax(-1)
     m = m.masked_fill(~torch.isfinite(m), 0.0)
-    return (log_x - m).exp(), m.squeeze(-1)
+    return (log_x - m.view(*m.shape, *(1,) * dims)).exp(), m
 
 
 @dataclass
-class _CoarseRules:
-    """The coarse binary rules of a grammar with their blocks of fine probabilities.
+class CoarseLayout:
+    """A grammar's symbols laid out by coarse symbol, for `max_rule_product`.
 
-    Fine symbols are laid out by coarse symbol: `slots` (K, G) holds the fine indices of each
-    coarse symbol's G subcategory slots, S (one past the last symbol) in unused slots. Only the
-    R coarse rules x -> y z with some fine rule of positive probability are kept, sorted by
-    (x, y, z); `by_parent` lists each parent's rules in that order, padded with R (a rule of
-    probability zero), so that the best rule of every parent is one max over a padded axis.
+    `slots` (K, G) holds the fine indices of each coarse symbol's G subcategory slots, S (one
+    past the last symbol) in unused slots; the first Kp coarse symbols have nonterminal
+    subcategories (groups appear in symbol order, nonterminals first). `rules` holds every
+    fine binary rule in that layout, with zeros in unused slots and for subcategories that are
+    no nonterminal: rules[x, a, (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K), in the
+    order `max_rule_product` reads them.
     """
-    names: list[str]    # K coarse symbols; the first Kp have nonterminal subcategories
+    names: list[str]    # K coarse symbols
     slots: Tensor       # (K, G) long
     member: Tensor      # (S, K) 0/1
-    parents: Tensor     # (R,) x of each rule
-    lefts: Tensor       # (R,) y
-    rights: Tensor      # (R,) z
-    blocks: Tensor      # (R, G, G, G) [r, a, b, c] = p(x_a -> y_b z_c)
-    by_parent: Tensor   # (Kp, M) rule indices, R where padded
+    num_parents: int    # Kp
+    rules: Tensor       # (Kp, G, G*K*G*K)
+
+    @classmethod
+    def of(cls, grammar: Grammar, dtype: torch.dtype) -> "CoarseLayout":
+        names, member = coarse_groups(grammar.symbols)
+        S, K = member.shape
+        nt = len(grammar.nonterminals)
+        G = int(member.sum(0).max())
+        slots = torch.full((K, G), S, dtype=torch.long)
+        for k in range(K):
+            fine = member[:, k].nonzero().flatten()
+            slots[k, :len(fine)] = fine
+        coarse_of = member.argmax(1)
+        kp = int(coarse_of[:nt].max()) + 1 if nt else 0
+        prob = torch.zeros(nt + 1, S + 1, S + 1, dtype=dtype)            # index NT, S: zero
+        prob[:nt, :S, :S] = grammar.binary.to(dtype).exp()
+        parent = slots[:kp].masked_fill(slots[:kp] >= nt, nt)            # (Kp, G)
+        child = slots.flatten()                                          # (K*G,)
+        rules = prob[parent[:, :, None, None], child[None, None, :, None],
+                     child[None, None, None, :]]                         # (Kp, G, K*G, K*G)
+        rules = rules.view(kp, G, K, G, K, G).permute(0, 1, 5, 2, 3, 4)  # (x, a, c, y, b, z)
+        return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous())
 
 
-def _coarse_rules(grammar: Grammar, dtype: torch.dtype) -> _CoarseRules:
-    names, member = coarse_groups(grammar.symbols)
-    S, K = member.shape
-    coarse_of = member.argmax(1)                                    # (S,)
-    sub_of = torch.zeros(S, dtype=torch.long)                       # slot within its group
-    G = int(member.sum(0).max())
-    slots = torch.full((K, G), S, dtype=torch.long)
-    for k in range(K):
-        fine = member[:, k].nonzero().flatten()
-        slots[k, :len(fine)] = fine
-        sub_of[fine] = torch.arange(len(fine))
-    prob = grammar.binary.to(dtype).exp()                           # (NT, S, S)
-    a, b, c = prob.gt(0).nonzero(as_tuple=True)
-    keys = (coarse_of[a] * K + coarse_of[b]) * K + coarse_of[c]
-    unique, rule_of = torch.unique(keys, return_inverse=True)       # sorted by (x, y, z)
-    R = len(unique)
-    blocks = prob.new_zeros(R, G, G, G)
-    blocks[rule_of, sub_of[a], sub_of[b], sub_of[c]] = prob[a, b, c]
-    parents, lefts, rights = unique // (K * K), unique // K % K, unique % K
-    nt_groups = int(coarse_of[:len(grammar.nonterminals)].max()) + 1 if grammar.nonterminals \
-        else 0  # groups appear in symbol order, nonterminals first
-    counts = torch.bincount(parents, minlength=nt_groups)
-    by_parent = torch.full((nt_groups, max(1, int(counts.max()) if R else 1)), R,
-                           dtype=torch.long)
-    first = torch.cumsum(counts, 0) - counts
-    for x in range(nt_groups):
-        by_parent[x, :int(counts[x])] = torch.arange(int(first[x]), int(first[x] + counts[x]))
-    return _CoarseRules(names, slots, member.to(dtype), parents, lefts, rights, blocks,
-                        by_parent)
+MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
 
 
-MRP_CHUNK = 2 ** 22  # elements of the largest temporary per chunk of parent spans
+def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Tensor, Tensor]:
+    """Per row, split and coarse parent x, the largest sum over subcategories
+    s(x, y, z) = sum_{b,c} folded[x, c, y, b, z] left[b, y] right[c, z] and its (y, z), y first.
+
+    folded (r, 1, Kp, G, Ky, G, Kz) the rules with the parent's outside folded in, [c, y, b, z];
+    left (r, U, G, Ky) and right (r, U, G, Kz) the child cells of U splits. The sum over c,
+    (r, U, x, y, b, z), then over b, (r, U, x, y, z), are G products and adds of whole tensors
+    each over a contiguous last axis (products with inner dimension G run slower as matrix
+    products). Returns (r, U, Kp) maxima, y and z.
+    """
+    r, U, G, ky = left.shape
+    kz = right.shape[-1]
+    kp = folded.shape[2]
+    rt = right[:, :, None, None, None]                                   # (r, U, 1, 1, 1, G, Kz)
+    over_c = folded[:, :, :, 0] * rt[..., 0, :]
+    for c in range(1, G):
+        over_c.addcmul_(folded[:, :, :, c], rt[..., c, :])
+    lt = left[:, :, None, :, :, None]                                    # (r, U, 1, G, Ky, 1)
+    sums = over_c[..., 0, :] * lt[..., 0, :, :]
+    for b in range(1, G):
+        sums.addcmul_(over_c[..., b, :], lt[..., b, :, :])
+    top, pair = sums.view(r, U, kp, ky * kz).max(-1)
+    return top, pair.div(kz, rounding_mode="floor"), pair.remainder(kz)
 
 
-def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
+def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
+                     layout: CoarseLayout | None = None
                      ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the coarse tree maximizing the product of anchored coarse-rule posteriors
     (None for a sentence with no parse).
@@ -234,124 +253,273 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     score multiplies q over its binary nodes, the coarse label posterior of each word's
     preterminal (its lexical rule), and the posterior of the top label (the root rule).
     Returns the labeled spans (start, end, coarse label), words included, and the log score.
+    `layout`: `CoarseLayout.of(grammar, dtype)`, made here when not given (a caller decoding
+    many batches makes it once).
 
-    Batched: one width at a time, every span of every sentence and every split together, and
-    only the coarse rules that exist (see `_CoarseRules`). Inside and outside scores are taken
-    out of log space per cell (divided by the cell's largest), so the sums over subcategories
-    are plain products; the cells' log maxima are added back to log q. Ties go to the first
-    split, then the first (left, right) pair. Shapes: rows = (sentence, start) pairs of one
-    width, U = w - 1 splits, R coarse rules, G subcategory slots, Kp coarse parents.
+    Batched: one width at a time, every span of every sentence and every split together. The
+    best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
+    scores, so that a parent's best over (split, y, z) is a max over the sums
+    s(x, y, z) = sum_{a,b,c} O(x_a) p(x_a -> y_b z_c) L(y_b) R(z_c) with L = I e^best of the
+    left child, R of the right one. These are taken out of log space per cell (divided by the
+    cell's largest; the parent's outside per coarse parent), the sums over subcategories are
+    products over the slots (a with the parent's outside once per span, then c, then b:
+    `_best_pairs`) and the maxima over (y, z) are taken on the sums; only the maxima, one per
+    split and parent, go back to log space, with each cell's log maximum. A child of width two
+    or more can only be a coarse parent, so only the word children at a span's edges range
+    over every coarse symbol. On an unrefined grammar (G = 1) this is a max-semiring pass
+    (`_max_rule_product_unrefined`). Ties go to the first split, then the first (left, right)
+    pair. Shapes: rows = (sentence, start) pairs of one width, U = w - 1 splits, K coarse
+    symbols, Kp coarse parents, G subcategory slots.
     """
     dtype = tables.inside.dtype
-    cr = _coarse_rules(grammar, dtype)
-    names = cr.names
-    K, G = cr.slots.shape
-    Kp, M = cr.by_parent.shape
+    lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
+    if lay.slots.shape[1] == 1:
+        return _max_rule_product_unrefined(grammar, tables, lengths, lay)
+    K, G = lay.slots.shape
+    Kp = lay.num_parents
     B, N1, _, S = tables.inside.shape
     N = N1 - 1
     nt = len(grammar.nonterminals)
-    coarse_marg = tables.marginals @ cr.member                          # (B, N+1, N+1, K)
+    coarse_marg = tables.marginals @ lay.member                          # (B, N+1, N+1, K)
     best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
     best[:, :, 1] = coarse_marg[:, :, 1].log()
-    back = torch.zeros(B, N1, N1, K, 3, dtype=torch.long)               # split, left, right
+    back = torch.zeros(B, N1, N1, max(Kp, 1), 3, dtype=torch.long)      # split, left, right
     pad = torch.full((B, N1, N1, S + 1 - nt), NEG_INF, dtype=dtype)
-    outside = torch.cat([tables.outside, pad], -1)[..., cr.slots]        # (B, N+1, N+1, K, G)
-    inside = torch.cat([tables.inside, pad[..., :1]], -1)[..., cr.slots]
-    # The parent's, left child's and right child's coarse symbol of each padded rule slot.
-    pick_y = torch.cat([cr.lefts, torch.zeros(1, dtype=torch.long)])[cr.by_parent]   # (Kp, M)
-    pick_z = torch.cat([cr.rights, torch.zeros(1, dtype=torch.long)])[cr.by_parent]
+    outside = torch.cat([tables.outside, pad], -1)[..., lay.slots[:Kp]]  # (B, N+1, N+1, Kp, G)
+    inside = torch.cat([tables.inside, pad[..., :1]], -1)[..., lay.slots.t()]  # (.., G, K)
+    # Each cell's inside scores times e^best of their coarse symbol, scaled: (B, N+1, N+1, G, K)
+    # (slot-major, so that the products below run over a contiguous coarse axis) and the log
+    # scale (B, N+1, N+1).
+    child = torch.zeros(B, N1, N1, G, K, dtype=dtype)
+    child_scale = torch.zeros(B, N1, N1, dtype=dtype)
+    child[:, :, 1], child_scale[:, :, 1] = _shifted(inside[:, :, 1] + best[:, :, 1, None], 2)
     for w in range(2, N + 1):
         P, U = N - w + 1, w - 1
         us = torch.arange(1, w)
         starts = torch.arange(P)[:, None] + us[None, :]                 # (P, U) right starts
         rows_all = B * P
-        parent, m_par = _shifted(outside[:, 0:P, w].flatten(-2))        # (B, P, K*G)
-        left, m_left = _shifted(inside[:, 0:P][:, :, us].flatten(-2))   # (B, P, U, K*G)
-        right, m_right = _shifted(inside[:, starts, w - us].flatten(-2))
-        shift = (m_par[..., None] + m_left + m_right).view(rows_all, U)
-        parent = parent.view(rows_all, K, G)
-        left, right = left.view(rows_all, U, K, G), right.view(rows_all, U, K, G)
-        left_best = best[:, 0:P][:, :, us].reshape(rows_all, U, K)
-        right_best = best[:, starts, w - us].reshape(rows_all, U, K)
-        value = torch.full((rows_all, Kp), NEG_INF, dtype=dtype)
-        arg = torch.zeros(rows_all, Kp, dtype=torch.long)
-        chunk = max(1, MRP_CHUNK // (U * len(cr.parents) * G * G + 1))
+        parent, m_par = _shifted(outside[:, 0:P, w])                    # (B, P, Kp, G), (B, P, Kp)
+        parent = parent.view(rows_all, Kp, G)
+        left = child[:, 0:P][:, :, us].view(rows_all, U, G, K)
+        right = child[:, starts, w - us].view(rows_all, U, G, K)
+        shift = (child_scale[:, 0:P][:, :, us] + child_scale[:, starts, w - us]).view(rows_all, U)
+        value = torch.empty(rows_all, Kp, dtype=dtype)
+        arg = torch.empty(rows_all, Kp, 3, dtype=torch.long)
+        # A child of width two or more is a nonterminal: only the Kp parent symbols can be
+        # there (the others' entries are zero), so only the word children at the edges (split
+        # 1 on the left, w - 1 on the right) range over all K coarse symbols.
+        groups = [(0, 1, K, K)] if w == 2 else \
+            [(0, 1, K, Kp)] + ([(1, U - 1, Kp, Kp)] if w > 3 else []) + [(U - 1, U, Kp, K)]
+        # Rows per chunk: the largest temporary of a row is the folded rules or a group's sums
+        # over c, (U', Kp, Ky, G, Kz).
+        per_row = max([Kp * G * G * K * K] + [(u1 - u0) * Kp * ky * G * kz
+                                               for u0, u1, ky, kz in groups])
+        chunk = max(1, MRP_CHUNK // per_row)
         for r0 in range(0, rows_all, chunk):
             r1 = min(rows_all, r0 + chunk)
-            # The parent's outside folded into each rule block once per span, (rows, R, G, G),
-            # then each split's children: q (rows, U, R), the anchored coarse-rule posteriors.
-            folded = torch.einsum("rabc,ira->irbc", cr.blocks, parent[r0:r1][:, cr.parents])
-            q = torch.einsum("irbc,iurb->iurc", folded, left[r0:r1][:, :, cr.lefts])
-            q = (q * right[r0:r1][:, :, cr.rights]).sum(-1)
-            q = torch.cat([q, q.new_zeros(r1 - r0, U, 1)], -1)[..., cr.by_parent]  # (.., Kp, M)
-            total = q.log() + shift[r0:r1, :, None, None] \
-                + left_best[r0:r1][:, :, pick_y] + right_best[r0:r1][:, :, pick_z]
-            flat = total.permute(0, 2, 1, 3).reshape(r1 - r0, Kp, U * M)
-            value[r0:r1], arg[r0:r1] = flat.max(-1)
-        best[:, 0:P, w, :Kp] = value.view(B, P, Kp)
-        u, slot = arg.div(M, rounding_mode="floor"), arg.remainder(M)
-        x = torch.arange(Kp)
-        back[:, 0:P, w, :Kp] = torch.stack([u + 1, pick_y[x, slot], pick_z[x, slot]],
-                                           -1).view(B, P, Kp, 3)
-    out: list = []
-    back_list = None
-    for b, n in enumerate(lengths):
-        if not bool(torch.isfinite(tables.logz[b])):
-            out.append(None)
-            continue
-        top_scores = best[b, 0, n] + coarse_marg[b, 0, n].log()
-        top = int(top_scores.argmax())
-        spans: list[tuple[int, int, str]] = []
-        stack = [(0, n, top)]
-        if back_list is None:
-            back_list = back.tolist()
-        while stack:
-            i, w, x = stack.pop()
-            spans.append((i, i + w, names[x]))
-            if w > 1:
-                u, y, z = back_list[b][i][w][x]
-                stack.extend([(i + u, w - u, z), (i, u, y)])
-        out.append((spans, float(top_scores[top])))
-    return out
+            r = r1 - r0
+            # The parent's outside folded into the rules once per span, (r, x, [c, y, b, z]).
+            par = parent[r0:r1]
+            folded = par[:, :, 0, None] * lay.rules[:, 0]                # (r, Kp, G*K*G*K)
+            for a in range(1, G):
+                folded.addcmul_(par[:, :, a, None], lay.rules[:, a])
+            folded = folded.view(r, 1, Kp, G, K, G, K)
+            tops, ys, zs = [], [], []
+            for u0, u1, ky, kz in groups:
+                top, y, z = _best_pairs(folded[..., :ky, :, :kz], left[r0:r1, u0:u1, :, :ky],
+                                        right[r0:r1, u0:u1, :, :kz])
+                tops.append(top)
+                ys.append(y)
+                zs.append(z)
+            top, y, z = torch.cat(tops, 1), torch.cat(ys, 1), torch.cat(zs, 1)  # (r, U, Kp)
+            scores = top.log() + shift[r0:r1, :, None]
+            value[r0:r1], u = scores.max(1)                              # the first best split
+            arg[r0:r1] = torch.stack([u + 1, y.gather(1, u[:, None]).squeeze(1),
+                                      z.gather(1, u[:, None]).squeeze(1)], -1)
+        best[:, 0:P, w, :Kp] = value.view(B, P, Kp) + m_par
+        back[:, 0:P, w, :Kp] = arg.view(B, P, Kp, 3)
+        child[:, 0:P, w], child_scale[:, 0:P, w] = _shifted(
+            inside[:, 0:P, w] + best[:, 0:P, w, None], 2)
+    parsed = torch.isfinite(tables.logz)
+    n = torch.tensor(list(lengths), dtype=torch.long)
+    every = torch.arange(B)
+    top_scores = best[every, 0, n] + coarse_marg[every, 0, n].log()      # (B, K)
+    top_value, top = top_scores.max(-1)
+    # Follow the back pointers of every sentence together, one tree level at a time.
+    found = []
+    b, i, w, x = every[parsed], torch.zeros(int(parsed.sum()), dtype=torch.long), \
+        n[parsed], top[parsed]
+    while len(b):
+        found.append(torch.stack([b, i, w, x], -1))
+        inner = w > 1
+        b, i, w, x = b[inner], i[inner], w[inner], x[inner]
+        u, y, z = back[b, i, w, x].unbind(-1)
+        b, i, w, x = torch.cat([b, b]), torch.cat([i, i + u]), torch.cat([u, w - u]), \
+            torch.cat([y, z])
+    spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
+    names = lay.names
+    for sb, si, sw, sx in (torch.cat(found).tolist() if found else []):
+        spans[sb].append((si, si + sw, names[sx]))
+    values = top_value.tolist()
+    return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())]
 
 
-def tree_logprob_summed(grammar: Grammar, tree: Tree,
-                        masks: dict[str, Tensor] | None = None) -> float:
+def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
+                                lengths: Sequence[int], lay: CoarseLayout
+                                ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
+    """`max_rule_product` when every coarse symbol has one subcategory (an unrefined grammar):
+    the engine's max-semiring pass (`engine.viterbi`) with each symbol's log marginal over each
+    span as a potential.
+
+    With one symbol per coarse symbol, q(x -> y z, i, k, j) = O(x) p(x -> y z) I(y) I(z), so
+    with c(x, span) = log I(x, span) + best(x, span) the recursion of `max_rule_product` is
+    c(x, span) = log mu(x, span) + max over (k, y, z) of log p(x -> y z) + c(y) + c(z), mu the
+    label marginal (I O over Z): a Viterbi pass over the rules with the word scores
+    log I + log mu and the potential log mu on every wider span; the root's outside,
+    log p(root x) - log Z, closes it. Max over splits before rules, as in any Viterbi pass, so
+    it costs about what an inside pass costs rather than one rule product per split. Exact
+    ties are broken as `engine.viterbi` breaks them (the blocks of two nonterminal children
+    before those with a word), not by the first split.
+    """
+    nt = len(grammar.nonterminals)
+    B, N1, _, _ = tables.inside.shape
+    N = N1 - 1
+    log_mu = tables.marginals.log()                                      # (B, N+1, N+1, S)
+    words = tables.inside[:, :N, 1] + log_mu[:, :N, 1]                   # (B, N, S)
+    logz = tables.logz.masked_fill(~torch.isfinite(tables.logz), 0.0)
+    root = grammar.root.to(words.dtype)[None, :] - logz[:, None]         # (B, NT)
+    # A grammar whose nonterminals emit words scores them at width one too.
+    nt_words = words[..., :nt] if grammar.nonterminals_emit else None
+    results = engine.viterbi(root, grammar.binary.to(words.dtype), words[..., nt:],
+                             torch.tensor(list(lengths)), nt_words, log_mu[..., :nt])
+    names = [lay.names[k] for k in lay.member.argmax(1).tolist()]        # per fine symbol
+    parsed = torch.isfinite(tables.logz).tolist()
+    return [None if res is None or not ok else
+            ([(i, j, names[x]) for i, j, x in res[1]], res[0])
+            for res, ok in zip(results, parsed)]
+
+
+def tree_logprob_summed(grammar: Grammar, tree: Tree) -> float:
     """log of the summed probability of every fine tree whose labels map onto `tree`'s labels
     by `coarse_name` (for an unrefined grammar: log p(tree) itself). Nodes must be binary or
-    preterminals; unknown labels or words give -inf. `masks`: a dict to keep across calls on
-    one grammar, where each label's (S,) symbol mask is built once (building it per node was
-    most of the time of decoding a batch)."""
-    symbols = grammar.symbols
-    nt = len(grammar.nonterminals)
-    dtype = torch.float64
-    binary, lexical = grammar.binary.to(dtype), grammar.lexical.to(dtype)
-    masks = {} if masks is None else masks
+    preterminals; unknown labels or words give -inf. One tree of `TreeScorer.logprobs`."""
+    return TreeScorer(grammar).logprobs([tree])[0]
 
-    def allowed(label: str) -> Tensor:
-        if label not in masks:
-            masks[label] = torch.tensor([coarse_name(s) == label or s == label for s in symbols])
-        return masks[label]
 
-    # Post-order over the tree, iteratively (trees may be deep): scores[id(node)] is (S,).
-    scores: dict[int, Tensor] = {}
-    order = list(tree.subtrees())
-    for node in reversed(order):
-        mask = allowed(node.label)
-        if node.is_preterminal():
-            w = grammar.vocab.encode([node.children[0]])[0]
-            col = lexical[:, w] if w >= 0 else torch.full((len(symbols),), NEG_INF, dtype=dtype)
-            scores[id(node)] = col.masked_fill(~mask, NEG_INF)
-        elif len(node.children) == 2 and all(isinstance(c, Tree) for c in node.children):
-            left, right = (scores[id(c)] for c in node.children)
-            inner = torch.logsumexp(binary + left[None, :, None] + right[None, None, :], (1, 2))
-            full = torch.full((len(symbols),), NEG_INF, dtype=dtype)
-            full[:nt] = inner
-            scores[id(node)] = full.masked_fill(~mask, NEG_INF)
-        else:
-            raise ValueError(f"node {node.label} is neither binary nor a preterminal")
-    top = scores[id(tree)][:nt]
-    return float(torch.logsumexp(grammar.root.to(dtype) + top, 0))
+TREE_CHUNK = 2 ** 22  # elements of the largest temporary per chunk of nodes
+
+
+class TreeScorer:
+    """log p(tree, sentence) summed over the refinements of each tree's labels, for a batch of
+    trees under one grammar: an inside pass restricted to each tree's own nodes.
+
+    A label stands for the symbols named by it or whose `coarse_name` it is (one symbol for an
+    unrefined grammar or a fine label). Every label of a batch gets G slots, the symbols it
+    stands for padded with a symbol of probability zero, so that a binary node's inside scores
+    over its parent's slots, (G,), are one log-sum over the rule block
+    binary[parent slots, left slots, right slots], (G, G, G), plus its children's scores. The
+    nodes of all trees are scored together, one tree height at a time (a node's children are
+    lower), so there is no walk per node or per sentence over the grammar's tensors. Float64
+    log space throughout: the work is about G^3 per node, small beside the span tables. When
+    every label of a batch stands for one symbol (G = 1: an unrefined grammar, or the `mbr`
+    decoder's fine labels) the tree's log probability is the sum of its rules', gathered for
+    all nodes at once.
+    """
+
+    def __init__(self, grammar: Grammar):
+        dtype = torch.float64
+        nt, s = len(grammar.nonterminals), grammar.num_symbols
+        self.grammar, self.nt, self.s = grammar, nt, s
+        self.index = {name: k for k, name in enumerate(grammar.symbols)}
+        self.by_coarse: dict[str, list[int]] = {}
+        for k, name in enumerate(grammar.symbols):
+            self.by_coarse.setdefault(coarse_name(name), []).append(k)
+        # Index NT (parents) or S (children, words) is the padding symbol: probability zero.
+        self.binary = torch.full((nt + 1, s + 1, s + 1), NEG_INF, dtype=dtype)
+        self.binary[:nt, :s, :s] = grammar.binary.to(dtype)
+        self.root = torch.cat([grammar.root.to(dtype), torch.full((1,), NEG_INF, dtype=dtype)])
+        v = grammar.lexical.shape[1]
+        # Column V is an unknown word's (id -1): no symbol emits it.
+        self.lexical = torch.full((s + 1, v + 1), NEG_INF, dtype=dtype)
+        self.lexical[:s, :v] = grammar.lexical.to(dtype)
+
+    def symbols_of(self, label: str) -> list[int]:
+        """The symbols a label stands for: its own name and the subcategories it is coarse of."""
+        found = set(self.by_coarse.get(label, ()))
+        if label in self.index:
+            found.add(self.index[label])
+        return sorted(found)
+
+    def logprobs(self, trees: Sequence[Tree]) -> list[float]:
+        """One summed log probability per tree (-inf when the grammar cannot build it).
+        ValueError for a node that is neither binary nor a preterminal."""
+        for tree in trees:
+            for node in tree.subtrees():
+                if not (node.is_preterminal() or len(node.children) == 2
+                        and all(isinstance(c, Tree) for c in node.children)):
+                    raise ValueError(f"node {node.label} is neither binary nor a preterminal")
+        return self.logprobs_of_spans([t.leaves() for t in trees],
+                                      [t.labeled_spans() for t in trees])
+
+    def logprobs_of_spans(self, sentences: Sequence[Sequence[str]],
+                          spans: Sequence[Sequence[tuple[int, int, str]]]) -> list[float]:
+        """`logprobs` of binary trees given as their labeled spans (start, end, label), words
+        included, as the decoders make them (`tree_from_spans` of them is the tree)."""
+        B = len(sentences)
+        if B == 0:
+            return []
+        N = max(map(len, sentences))
+        labels: dict[str, int] = {}
+        rows, starts, widths, label_ids, word_ids = [], [], [], [], []
+        for b, (words, tree_spans) in enumerate(zip(sentences, spans)):
+            for i, j, label in tree_spans:
+                rows.append(b)
+                starts.append(i)
+                widths.append(j - i)
+                label_ids.append(labels.setdefault(label, len(labels)))
+            word_ids.append([self.grammar.vocab.lookup(w) for w in words] + [-1] * (N - len(words)))
+        sets = [self.symbols_of(name) for name in labels]
+        G = max(1, max(map(len, sets)))
+        slots = torch.full((len(sets) + 1, G), self.s, dtype=torch.long)  # (L + 1, G), L: none
+        for k, found in enumerate(sets):
+            slots[k, :len(found)] = torch.tensor(found, dtype=torch.long)
+        parent_slots = slots.masked_fill(slots >= self.nt, self.nt)      # nonterminals only
+        # label[b, i, w]: the label of the tree's node over span (i, i+w), L where none.
+        label = torch.full((B, N + 1, N + 1), len(sets), dtype=torch.long)
+        label[rows, starts, widths] = torch.tensor(label_ids, dtype=torch.long)
+        in_tree = label < len(sets)
+        # The left child of node (i, w) is the tree's widest node (i, u) with u < w.
+        widest = torch.where(in_tree, torch.arange(N + 1), 0).cummax(-1).values  # (B, N+1, N+1)
+        ids = torch.tensor(word_ids, dtype=torch.long)                   # (B, N)
+        ids = ids.masked_fill(ids < 0, self.lexical.shape[1] - 1)
+        every = torch.arange(B)
+        n = torch.tensor([len(words) for words in sentences])
+        if G == 1:
+            # Every label is one symbol: the tree's log probability is the sum of its rules'.
+            b, i, w = (in_tree & (torch.arange(N + 1) >= 2)).nonzero().unbind(1)
+            u = widest[b, i, w - 1]
+            rules = self.binary[parent_slots[label[b, i, w], 0], slots[label[b, i, u], 0],
+                                slots[label[b, i + u, w - u], 0]]
+            words = self.lexical[slots[label[:, :N, 1], 0], ids]         # (B, N)
+            words = words.masked_fill(torch.arange(N) >= n[:, None], 0.0)
+            total = self.root[parent_slots[label[every, 0, n], 0]] + words.sum(-1)
+            return total.index_add(0, b, rules).tolist()
+        scores = torch.full((B, N + 1, N + 1, G), NEG_INF, dtype=torch.float64)  # log inside
+        scores[:, :N, 1] = self.lexical[slots[label[:, :N, 1]], ids[..., None]]
+        chunk = max(1, TREE_CHUNK // (G ** 3))
+        for w in range(2, N + 1):
+            nodes = in_tree[:, :, w].nonzero()                           # (M, 2): sentence, start
+            for r0 in range(0, len(nodes), chunk):
+                b, i = nodes[r0:r0 + chunk].unbind(1)
+                u = widest[b, i, w - 1]
+                a = parent_slots[label[b, i, w]][:, :, None, None]       # (M, G, 1, 1)
+                left = slots[label[b, i, u]][:, None, :, None]
+                right = slots[label[b, i + u, w - u]][:, None, None, :]
+                total = self.binary[a, left, right] + scores[b, i, u][:, None, :, None] \
+                    + scores[b, i + u, w - u][:, None, None, :]           # (M, G, G, G)
+                scores[b, i, w] = torch.logsumexp(total.flatten(2), -1)
+        whole = self.root[parent_slots[label[every, 0, n]]] + scores[every, 0, n]  # (B, G)
+        return torch.logsumexp(whole, -1).tolist()
 
 
 def _by_length(sentences: Sequence[Sequence[str]], batch_size: int,
@@ -376,11 +544,14 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
                          "treewright.decode.consensus(grammars, sentences)")
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
+    # Made once for every batch: the tree scorer and max-rule-product's coarse layout.
+    scorer = TreeScorer(grammar) if decoder != "viterbi" else None
+    layout = CoarseLayout.of(grammar, dtype) if decoder == "max-rule-product" else None
     return _by_length(sentences, batch_size,
-                      lambda words: _decode_batch(grammar, words, decoder, dtype))
+                      lambda words: _decode_batch(grammar, words, decoder, dtype, scorer, layout))
 
 
-def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
+def _decode_batch(grammar, sentences, decoder, dtype, scorer, layout) -> list[Decoded]:
     if decoder == "viterbi":
         enc = encode(grammar, sentences, dtype)
         results = engine.viterbi(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
@@ -390,22 +561,22 @@ def _decode_batch(grammar, sentences, decoder, dtype) -> list[Decoded]:
         return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if res is None else
                 Decoded(spans_to_tree(grammar, words, res[1]), float(z), res[0], res[0])
                 for words, res, z in zip(sentences, results, logz)]
-    tables = span_tables(grammar, sentences, dtype)
+    # mbr reads the marginals alone; max-rule-product also the inside and outside scores.
+    tables = span_tables(grammar, sentences, dtype, log_scores=decoder != "mbr")
     lengths = [len(words) for words in sentences]
     if decoder == "mbr":
         results = _mbr_labeled(grammar, tables, lengths)
     else:
-        results = max_rule_product(grammar, tables, lengths)
-    out = []
-    masks: dict[str, Tensor] = {}
-    for b, (words, result) in enumerate(zip(sentences, results)):
-        if result is None:
-            out.append(Decoded(None, NEG_INF, NEG_INF, NEG_INF))
-            continue
-        tree = tree_from_spans(words, result[0])
-        out.append(Decoded(tree, float(tables.logz[b]),
-                           tree_logprob_summed(grammar, tree, masks), result[1]))
-    return out
+        results = max_rule_product(grammar, tables, lengths, layout)
+    trees = [None if result is None else tree_from_spans(words, result[0])
+             for words, result in zip(sentences, results)]
+    parsed = [b for b, result in enumerate(results) if result is not None]
+    logprobs = iter(scorer.logprobs_of_spans([sentences[b] for b in parsed],
+                                             [results[b][0] for b in parsed]))
+    logz = tables.logz.tolist()
+    return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if tree is None else
+            Decoded(tree, logz[b], next(logprobs), result[1])
+            for b, (tree, result) in enumerate(zip(trees, results))]
 
 
 def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
@@ -416,9 +587,10 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
     brackets = mbr_spans_batch(spans_p, lengths)
     labels = _SpanLabels(grammar, tables)
     gains = spans_p.tolist()
+    parsed = torch.isfinite(tables.logz).tolist()
     out: list = []
     for b, (n, spans) in enumerate(zip(lengths, brackets)):
-        if not bool(torch.isfinite(tables.logz[b])):
+        if not parsed[b]:
             out.append(None)
             continue
         gain = sum((gains[b][i][j - i] for i, j in spans), 0.0)
@@ -482,11 +654,12 @@ def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
         raise ValueError("the grammars read unknown words differently (word shape schemes "
                          f"{sorted(shapes, key=str)}); the consensus decoder gives every "
                          "grammar the same words")
+    scorers: dict[int, TreeScorer] = {}  # per labelling grammar, by id, made when first needed
     return _by_length(sentences, batch_size,
-                      lambda words: _consensus_batch(grammars, words, dtype))
+                      lambda words: _consensus_batch(grammars, words, dtype, scorers))
 
 
-def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
+def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
     lengths = [len(words) for words in sentences]
     B = len(sentences)
     voters: list[list[list[tuple[int, int]]]] = [[] for _ in range(B)]  # MBR trees per sentence
@@ -494,7 +667,7 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
     for grammar in grammars:
         # One grammar's tables at a time: only its MBR trees and, where it labels, its most
         # probable labels are kept.
-        tables = span_tables(grammar, sentences, dtype)
+        tables = span_tables(grammar, sentences, dtype, log_scores=False)
         trees = mbr_spans_batch(_span_posteriors(grammar, tables), lengths)
         parsed = torch.isfinite(tables.logz).tolist()
         labels = None
@@ -511,7 +684,6 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
     averaged = tree_average_batch([voters[b] for b in parsed_rows],
                                   [lengths[b] for b in parsed_rows])
     out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF) for _ in range(B)]
-    masks: dict[int, dict[str, Tensor]] = {}  # per labelling grammar, by id
     for b, spans in zip(parsed_rows, averaged):
         grammar, labels, logz = labeler[b]
         n = lengths[b]
@@ -520,9 +692,16 @@ def _consensus_batch(grammars, sentences, dtype) -> list[Decoded]:
         # Both trees are binary with n - 1 spans each, so F1 is the shared spans over n - 1.
         agreement = 1.0 if n == 1 else sum(len(kept.intersection(t)) for t in voters[b]) \
             / ((n - 1) * len(voters[b]))
-        out[b] = Decoded(tree, logz,
-                         tree_logprob_summed(grammar, tree, masks.setdefault(id(grammar), {})),
-                         agreement)
+        out[b] = Decoded(tree, logz, NEG_INF, agreement)
+    # Each labelling grammar scores the trees it labelled, all in one batch.
+    for grammar in {id(g): g for g in grammars}.values():
+        rows = [b for b in parsed_rows if labeler[b][0] is grammar]
+        if rows:
+            if id(grammar) not in scorers:
+                scorers[id(grammar)] = TreeScorer(grammar)
+            logprobs = scorers[id(grammar)].logprobs([out[b].tree for b in rows])
+            for b, logprob in zip(rows, logprobs):
+                out[b].tree_logprob = logprob
     return out
 
 

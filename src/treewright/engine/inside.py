@@ -574,19 +574,22 @@ class SpanTables:
     Spans are indexed [start, width] as in `Posteriors.spans`; S = NT + T symbols in the
     engine's layout. Cells past a sentence's end are -inf (zero marginal); so is the outside
     score of a symbol that no tree puts over a span (every cell of a sentence with no parse).
+    `inside` and `outside` are None when they were not asked for (`span_tables(log_scores=
+    False)`: a decoder that reads the marginals alone need not pay for their logarithms).
     """
     logz: Tensor       # (B,) log p(sentence); -inf when there is no parse
-    inside: Tensor     # (B, N+1, N+1, S) log inside scores; -inf where impossible (preterminals
-                       # at width one only)
-    outside: Tensor    # (B, N+1, N+1, NT) log outside scores minus log Z, so that
-                       # outside + inside = log p(symbol over span | sentence)
+    inside: Tensor | None   # (B, N+1, N+1, S) log inside scores; -inf where impossible
+                            # (preterminals at width one only)
+    outside: Tensor | None  # (B, N+1, N+1, NT) log outside scores minus log Z, so that
+                            # outside + inside = log p(symbol over span | sentence)
     marginals: Tensor  # (B, N+1, N+1, S) p(symbol spans [start, width] | sentence)
 
 
 def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
-                nt_terminal: Tensor | None = None) -> SpanTables:
+                nt_terminal: Tensor | None = None, log_scores: bool = True) -> SpanTables:
     """Label marginals, inside and outside scores of every span, batched (arguments as in
-    `log_partition`; one grammar for the batch).
+    `log_partition`; one grammar for the batch). With `log_scores` False only the marginals
+    and log Z are made (inside and outside None).
 
     One inside pass and the outside pass of `_LogPartition` (asked for the adjoint chart and
     the word gradient only): a cell's adjoint `adj` is d log Z / d scaled_inside, so
@@ -607,6 +610,11 @@ def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
                                  need_rules=False, need_words=True, adjoints=adjoints)[2]
         cells = chart.by_start[..., :NT].permute(1, 0, 2, 3)             # (B, N+1, N+1, NT)
         adj = adjoints["chart"][..., :NT].permute(1, 0, 2, 3)
+        marginals = terminal.new_zeros(B, N + 1, N + 1, NT + T)
+        marginals[..., :NT] = adj * cells
+        marginals[:, :N, 1, NT:] = grad_terminal
+        if not log_scores:
+            return SpanTables(logz, None, None, marginals)
         scale = chart.scale_start.transpose(0, 1).unsqueeze(-1)          # (B, N+1, N+1, 1)
         inside = terminal.new_full((B, N + 1, N + 1, NT + T), NEG_INF)
         inside[..., :NT] = cells.log() + scale
@@ -615,7 +623,4 @@ def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
         inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], NEG_INF)
         outside = torch.where(adj > 0, adj.log() - scale, torch.full_like(adj, NEG_INF))
-        marginals = terminal.new_zeros(B, N + 1, N + 1, NT + T)
-        marginals[..., :NT] = adj * cells
-        marginals[:, :N, 1, NT:] = grad_terminal
     return SpanTables(logz, inside, outside, marginals)

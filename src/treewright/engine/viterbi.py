@@ -31,7 +31,9 @@ def _best_children(scores: Tensor, rules: Tensor) -> tuple[Tensor, Tensor]:
 def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             nt_terminal: Tensor | None = None, span_pot: Tensor | None = None
             ) -> list[tuple[float, list[tuple[int, int, int]]] | None]:
-    """The most probable tree of each sentence (arguments as in `engine.inside.log_partition`).
+    """The most probable tree of each sentence (arguments as in `engine.inside.log_partition`;
+    here `span_pot` may also be given per nonterminal, (B, N+1, N+1, NT), a log potential added
+    to each nonterminal's score over each span of width >= 2).
 
     Returns per sentence (log-probability, spans) with spans (start, end, symbol) in pre-order,
     one-word spans included, or None when the sentence has no parse.
@@ -91,7 +93,8 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             split, left, right = (torch.stack([o[k] for o in options]).gather(0, pick)[0]
                                   for k in (1, 2, 3))
             if span_pot is not None:
-                best = best + span_pot[:, 0:P, w, None]
+                best = best + (span_pot[:, 0:P, w] if span_pot.dim() == 4
+                               else span_pot[:, 0:P, w, None])
             cells[w] = best
             back[w] = (split, left, right)
 
