@@ -15,6 +15,7 @@ has trees) and hands it to the `Trainer`. Entry points:
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import tempfile
 from dataclasses import dataclass
@@ -245,7 +246,10 @@ def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
             raise InputError(f"the run kept restart {kept}, but the checkpoint holds restart "
                              f"{cfg.train.restarts - 1}; retrain with train.restarts=1 to "
                              "parse with heads", path=str(folder.result))
-    vocab = load_data(cfg).vocab
+    # Only the vocabulary is wanted: the brackets a staged run trained with are not decoded again.
+    unstaged = dataclasses.replace(cfg, constraints=dataclasses.replace(
+        cfg.constraints, brackets_from=None, brackets_epochs=None))
+    vocab = load_data(unstaged).vocab
     tensors, _ = load_checkpoint(folder.checkpoint)
     model = LexicalizedParams.from_options(cfg.model, len(vocab), None, _dtype(cfg))
     model.load_state_dict({k[6:]: v for k, v in tensors.items() if k.startswith("model.")})
