@@ -49,8 +49,12 @@ head-final, head-initial: the true heads of `scripts/make_headed_language.py`, f
 of every phrase rule) its best derivation's heads (`decode.decode_heads`) are also scored by
 directed and undirected attachment (`evaluation.evaluate_attachment`, punctuation taken out as
 for brackets) beside the left and right chains, in a second table per eval set. The lexicalized
-model scored is the last restart's (the one the trainer holds), and its restarts are not scored
-one by one. The other rows and the bracket tables are as without it.
+model trains one restart (`--restarts` is for the other rows), for `--lexicalized-epochs`.
+Its config is staged (configs/induce_lexicalized.yaml): it takes the trees of the em row of the
+same seed (the consensus of its restarts) as partial brackets (`constraints.brackets_from`), so
+asking for the lexicalized row runs the em row first and reports it too, unless an `--override
+constraints.brackets_from=RUN` names the run to read. The other rows and the
+bracket tables are as without it.
 
 Prints a Markdown table and writes everything to <out>/results.json. Asserts nothing.
 """
@@ -89,6 +93,9 @@ METHODS = ("em", "vb", "gradient", "neural", "lowrank", "compound", "lexicalized
 # Rows scored from the trainer's model (per-sentence grammars, head words) rather than from the
 # grammar files of their restarts, which hold no more than a shared symbol-only grammar.
 MODEL_ROWS = ("compound", "lexicalized")
+# Rows whose config takes partial brackets from an earlier run (constraints.brackets_from): the
+# em row of the same seed, trained first in the same invocation.
+STAGED = ("lexicalized",)
 PUNCT_UPOS = "PUNCT"
 BASELINES = ("left_branching", "right_branching", "random_binary", "binary_upper_bound")
 
@@ -475,12 +482,17 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     """Train one (method, seed) and score it on every eval set."""
     nt, pt = args.lowrank_symbols if method == "lowrank" else args.symbols
     dev = [f"data.dev={data_files['dev']}"] if "dev" in data_files else []
+    staged = method in STAGED
+    epochs = args.lexicalized_epochs if method == "lexicalized" else args.epochs
     overrides = [f"data.train={data_files['train']}", *dev, f"data.format={data_files['format']}",
                  f"data.tag_mode={str(args.mode == 'tags').lower()}", f"data.max_length={args.max_length}",
                  f"data.min_count={args.min_count}", f"model.nonterminals={nt}",
                  f"model.preterminals={pt}", f"train.seed={seed}",
-                 f"train.epochs={args.epochs}", f"train.restarts={args.restarts}",
+                 f"train.epochs={epochs}",
+                 f"train.restarts={1 if method in MODEL_ROWS else args.restarts}",
                  f"output.run_dir={run_dir}"]
+    if staged and not args.brackets_given:
+        overrides.append(f"constraints.brackets_from={run_dir.parent / f'em-seed{seed}'}")
     if args.max_vocab is not None:
         overrides.append(f"data.max_vocab={args.max_vocab}")
     overrides += args.override
@@ -633,7 +645,9 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     p.add_argument("--seeds", default="0,1,2,3", help="comma list of train.seed values")
     p.add_argument("--epochs", type=int, default=20)
     p.add_argument("--restarts", type=int, default=1, help="restarts per seed, best dev "
-                   "likelihood kept")
+                   "likelihood kept (compound and lexicalized: always 1)")
+    p.add_argument("--lexicalized-epochs", type=int, default=None, help="epochs of the "
+                   "lexicalized row (default: --epochs)")
     p.add_argument("--symbols", default=None, help="NONTERMINALS,PRETERMINALS (default: "
                    "10,20 on demo, 30,60 on turkish)")
     p.add_argument("--lowrank-symbols", default=None, help="NONTERMINALS,PRETERMINALS of the "
@@ -663,6 +677,12 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     unknown = [m for m in args.methods if m not in METHODS]
     if unknown:
         p.error(f"unknown method(s) {', '.join(unknown)}; choose from {', '.join(METHODS)}")
+    args.brackets_given = any(o.startswith("constraints.brackets_from=") for o in args.override)
+    if any(m in STAGED for m in args.methods) and not args.brackets_given:
+        # The staged rows read the em row's trees, so em runs first (and is reported too).
+        args.methods = ["em"] + [m for m in args.methods if m != "em"]
+    if args.lexicalized_epochs is None:
+        args.lexicalized_epochs = args.epochs
     if args.data != "turkish" and args.mode == "tags":
         p.error("the invented-language corpora have no tags for their training text; use "
                 "--mode tokens")

@@ -325,6 +325,10 @@ def test_smoke_run_of_the_lexicalized_row_scores_attachment(tmp_path):
                          "--override", "model.embedding_dim=16", "--out", str(tmp_path)])
     name = "head-final-test"
     em, lex = (r["scores"][name] for r in result["runs"])
+    # The lexicalized row is staged on the em row of its seed: that run's trees are its brackets.
+    assert f"constraints.brackets_from={tmp_path / 'em-seed0'}" in result["runs"][1]["overrides"]
+    log = (tmp_path / "lexicalized-seed0" / "train.log").read_text(encoding="utf-8")
+    assert f"partial brackets from {tmp_path / 'em-seed0' / 'grammar.pcfg'} (mbr)" in log
     assert "attachment" not in em and "directed" not in result["summary"]["em"][name]
     assert em == bench.score_grammar(tmp_path / "em-seed0" / "grammar.pcfg", result_evals(tmp_path))
     headed.write_order("head-final", tmp_path / "true", 60, 12, 15, 0)

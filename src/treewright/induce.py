@@ -15,6 +15,7 @@ has trees) and hands it to the `Trainer`. Entry points:
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import tempfile
 from dataclasses import dataclass
@@ -23,17 +24,21 @@ from typing import Sequence, TextIO
 
 from torch import Tensor
 
-from treewright.decode import HeadedParse, decode_heads, mbr_spans
+from treewright.corpus import run_read_options
+from treewright.decode import HeadedParse, consensus, decode, decode_heads, mbr_spans
 from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.export.lexical import DEFAULT_PAIRS, LexicalSummary, lexical_summary
-from treewright.export.source import read_training_record
+from treewright.export.source import (open_grammar, open_restart_grammars, read_training_record,
+                                     saved_restarts)
 from treewright.grammar import Grammar, load_grammar
 from treewright.params import LexicalizedParams, symbol_names
 from treewright.runfolder import RunFolder
 from treewright.safeio import load_checkpoint
 from treewright.train.config import TrainConfig
-from treewright.train.data import MemoryBudget, TrainData, data_from_sentences, load_data
+from treewright.tracking import terminal_progress
+from treewright.train.data import (BracketSource, MemoryBudget, TrainData, data_from_sentences,
+                                   load_data, tree_brackets)
 from treewright.train.dev import DevLikelihood
 from treewright.train.distributed import LocalWorld
 from treewright.train.loop import RunResult, Trainer, _dtype, saved_config
@@ -81,11 +86,70 @@ class DevEvaluator(DevLikelihood):
         return out
 
 
+BRACKET_CHUNK = 256  # training sentences decoded per step of the progress bar
+
+
+def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
+    """The bracket source of `constraints.brackets_from` (None when it is unset): the trees of
+    the training sentences under the run or grammar it names, by the decoder `parse` would use
+    for brackets (the consensus of the restarts of a run that saved two or more, else mbr),
+    each reduced to its partial brackets (`tree_brackets`). A sentence without a parse gets
+    none and trains unconstrained; the note says how many.
+
+    The words must reach the source grammar as its own training read them, so a source that
+    records its training config (a run folder or JSON export) must have read the corpus with
+    the same lowercasing, tag mode and dropped tags as `cfg.data` (InputError naming it
+    otherwise)."""
+    path = cfg.constraints.brackets_from
+    if path is None:
+        return None
+    source = open_grammar(path)
+    config = (source.training or {}).get("config")
+    if isinstance(config, dict):
+        theirs = run_read_options(config.get("data"))
+        ours = run_read_options({"lowercase": cfg.data.lowercase,
+                                 "case_rules": cfg.data.case_rules,
+                                 "tag_mode": cfg.data.tag_mode,
+                                 "drop_tags": cfg.data.drop_tags})
+        for field, option in (("tag_mode", "tag_mode"), ("lowercase", "lowercase"),
+                              ("case_rules", "case_rules"), ("punct_labels", "drop_tags")):
+            if getattr(theirs, field) != getattr(ours, field):
+                raise InputError(
+                    f"constraints.brackets_from: this grammar's training read its corpus with "
+                    f"data.{option} giving {getattr(theirs, field)!r}, this run with "
+                    f"{getattr(ours, field)!r}; train both with the same data options",
+                    path=str(source.grammar_path))
+    restarts = saved_restarts(source)
+    grammars = [source.grammar] if restarts < 2 else [
+        s.grammar for s in open_restart_grammars(path, "constraints.brackets_from")]
+    decoder = "the consensus of its restarts" if restarts >= 2 else "mbr"
+
+    def brackets_of(sentences: list[list[str]]) -> tuple[list[list[tuple[int, int]]], str]:
+        trees: list[Tree | None] = []
+        with terminal_progress(len(sentences), "brackets") as progress:
+            for start in range(0, len(sentences), BRACKET_CHUNK):
+                group = sentences[start:start + BRACKET_CHUNK]
+                parsed = consensus(grammars, group) if len(grammars) >= 2 else \
+                    decode(grammars[0], group, "mbr")
+                trees += [d.tree for d in parsed]
+                progress.update(len(group))
+        brackets = [[] if t is None else tree_brackets(t) for t in trees]
+        unparsed = sum(t is None for t in trees)
+        note = (f"partial brackets from {source.grammar_path} ({decoder}): "
+                f"{sum(map(len, brackets))} over {len(brackets)} sentences")
+        if unparsed:
+            note += f"; {unparsed} sentences without a parse train unconstrained"
+        return brackets, note
+
+    return brackets_of
+
+
 def trainer(cfg: TrainConfig, run_dir: str | Path, resume: bool = False,
             stream: TextIO | None = None, config_source: str | None = None,
             world: LocalWorld | None = None, data: TrainData | None = None) -> Trainer:
-    """A `Trainer` of `cfg` (data read from `cfg.data` unless given) with a `DevEvaluator`."""
-    data = load_data(cfg) if data is None else data
+    """A `Trainer` of `cfg` (data read from `cfg.data` unless given, with the brackets of
+    `constraints.brackets_from`) with a `DevEvaluator`."""
+    data = load_data(cfg, grammar_brackets(cfg)) if data is None else data
     return Trainer(cfg, run_dir, resume=resume, stream=stream, config_source=config_source,
                    world=world, data=data, dev=DevEvaluator(data, cfg))
 
@@ -131,7 +195,7 @@ def fit(sentences: Sequence[Sequence[str]], cfg: TrainConfig,
     `cfg.data` (the reading options of `cfg.data` apply: lowercasing, length cap, vocabulary).
     `dev`: dev token lists, or `dev_trees`: gold dev trees (their leaves are the sentences).
     The run folder is `run_dir`, or a temporary folder removed afterwards."""
-    data = data_from_sentences(cfg, sentences, dev, dev_trees)
+    data = data_from_sentences(cfg, sentences, dev, dev_trees, grammar_brackets(cfg))
     if run_dir is not None:
         return _fit(cfg, data, Path(run_dir), stream)
     with tempfile.TemporaryDirectory(prefix="treewright-fit-") as folder:
@@ -182,7 +246,10 @@ def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
             raise InputError(f"the run kept restart {kept}, but the checkpoint holds restart "
                              f"{cfg.train.restarts - 1}; retrain with train.restarts=1 to "
                              "parse with heads", path=str(folder.result))
-    vocab = load_data(cfg).vocab
+    # Only the vocabulary is wanted: the brackets a staged run trained with are not decoded again.
+    unstaged = dataclasses.replace(cfg, constraints=dataclasses.replace(
+        cfg.constraints, brackets_from=None, brackets_epochs=None))
+    vocab = load_data(unstaged).vocab
     tensors, _ = load_checkpoint(folder.checkpoint)
     model = LexicalizedParams.from_options(cfg.model, len(vocab), None, _dtype(cfg))
     model.load_state_dict({k[6:]: v for k, v in tensors.items() if k.startswith("model.")})

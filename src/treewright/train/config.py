@@ -174,6 +174,18 @@ class ConstraintsConfig:
         False, "Use the brackets of the training trees as partial constraints: no tree may "
                "cross them (Pereira & Schabes 1992). Needs a bracketed or CoNLL-U corpus; a "
                "flat node leaves its inside unconstrained.")
+    brackets_from: Path | None = option(
+        None, "A run folder or grammar file trained on the same corpus with the same data "
+              "options (for example a run of configs/induce.yaml): its trees of the training "
+              "sentences become partial brackets, as constraints.train_brackets makes of gold "
+              "trees (Pereira & Schabes 1992). The trees are the consensus of the run's "
+              "restarts when it saved two or more, else the mbr trees. Staged induction: the "
+              "first model finds the constituents; this one learns what they leave open, "
+              "such as the head of each constituent in a lexicalized model.")
+    brackets_epochs: int | None = option(
+        None, "Apply the brackets (constraints.train_brackets or constraints.brackets_from) "
+              "for this many epochs of each restart, then train without them. null: the "
+              "whole run.", range="[1, inf)")
     word_pieces: Literal["auto", "host-first", "host-last", "none"] = option(
         "auto", "Written words that the tokenizer split into pieces (CoNLL-U multiword tokens, "
                 "SpaceAfter=No): no constituent may take a bound piece without its host. auto "
@@ -311,6 +323,18 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.data.stream_chunk is not None and cfg.constraints.train_brackets:
         bad("constraints.train_brackets", "partial brackets need the whole corpus in memory; "
                                           "leave data.stream_chunk null")
+    c = cfg.constraints
+    if c.train_brackets and c.brackets_from is not None:
+        bad("constraints.brackets_from", "brackets come from the training trees "
+                                         "(constraints.train_brackets) or from a grammar's "
+                                         "trees, not both")
+    if cfg.data.stream_chunk is not None and c.brackets_from is not None:
+        bad("constraints.brackets_from", "partial brackets need the whole corpus in memory; "
+                                         "leave data.stream_chunk null")
+    if c.brackets_epochs is not None and not c.train_brackets and c.brackets_from is None:
+        bad("constraints.brackets_epochs", "there are no brackets to apply: set "
+                                           "constraints.train_brackets or "
+                                           "constraints.brackets_from")
     if cfg.data.stream_chunk is not None and cfg.constraints.word_pieces.startswith("host"):
         bad("constraints.word_pieces", "the word-piece constraint needs the whole corpus in "
                                        "memory; leave data.stream_chunk null or set it to auto")

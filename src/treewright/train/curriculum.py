@@ -1,6 +1,6 @@
 """Which sentences each epoch trains on, in which batches, and with which structural bias: the
 length curriculum, the memory budget, the annealed edge bias and how long the word-piece
-constraint lasts. Every answer is a pure function of (config, restart, epoch), which is what
+constraint and the partial brackets last. Every answer is a pure function of (config, restart, epoch), which is what
 makes resume exact."""
 
 from __future__ import annotations
@@ -50,12 +50,19 @@ class Curriculum:
             n = TAG_MODE_PIECE_EPOCHS
         return n is None or epoch < n
 
+    def brackets_on(self, epoch: int) -> bool:
+        """Whether the partial brackets apply at `epoch` (`constraints.brackets_epochs`; null:
+        the whole run)."""
+        n = self.cfg.constraints.brackets_epochs
+        return n is None or epoch < n
+
     def same_data(self, epoch: int, other: int) -> bool:
         """Whether epochs `epoch` and `other` train on the same sentences with the same bias and
         constraints."""
         return (self.length_cap(epoch) == self.length_cap(other)
                 and self.bias_scale(epoch) == self.bias_scale(other)
-                and self.pieces_on(epoch) == self.pieces_on(other))
+                and self.pieces_on(epoch) == self.pieces_on(other)
+                and self.brackets_on(epoch) == self.brackets_on(other))
 
     def epoch_plan(self, ids, restart: int, epoch: int) -> list[list[int]]:
         """Training sentence indices of each batch of `epoch`, in the order they run."""
@@ -76,7 +83,8 @@ class Curriculum:
         """The engine batch of training sentences `indices` at `epoch`: partial brackets, the
         word-piece constraint and the edge bias as span potentials."""
         pieces = data.pieces if self.pieces_on(epoch) else None
-        batch = make_batch(indices, data.train_ids, data.brackets, dtype, pieces)
+        brackets = data.brackets if self.brackets_on(epoch) else None
+        batch = make_batch(indices, data.train_ids, brackets, dtype, pieces)
         scale = self.bias_scale(epoch)
         b = self.cfg.bias
         if scale > 0 and (b.right_edge != 0 or b.left_edge != 0):

@@ -9,7 +9,7 @@ import math
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Sequence
+from typing import Callable, Sequence
 
 import torch
 
@@ -37,14 +37,21 @@ class TrainData:
                                                         # training sentence (word_pieces)
 
 
-def _brackets_of(tree: Tree) -> list[tuple[int, int]]:
+def tree_brackets(tree: Tree) -> list[tuple[int, int]]:
     n = len(tree.leaves())
     return sorted({(i, j) for i, j, _ in tree.labeled_spans() if j - i >= 2 and (i, j) != (0, n)})
 
 
-def load_data(cfg: TrainConfig) -> TrainData:
+# Trees of training sentences from a grammar, for `constraints.brackets_from`: given the tokens
+# of every training sentence, their partial brackets (as `tree_brackets` gives them) and a note
+# for the log. Decoding lives above `train/`, so the caller hands this in (`induce.trainer`).
+BracketSource = Callable[[list[list[str]]], tuple[list[list[tuple[int, int]]], str]]
+
+
+def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> TrainData:
     """Read the corpora of `cfg.data` (InputError on bad files), encode them with the training
-    vocabulary, and collect the partial brackets when `constraints.train_brackets` asks."""
+    vocabulary, and collect the partial brackets when `constraints.train_brackets` asks, or
+    from `bracket_source` when `constraints.brackets_from` names a grammar."""
     d = cfg.data
     drop = frozenset(t.strip() for t in (d.drop_tags or "").split(",") if t.strip())
     options = ReadOptions(lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
@@ -61,9 +68,15 @@ def load_data(cfg: TrainConfig) -> TrainData:
         if any(s.tree is None for s in train.sentences):
             raise InputError("constraints.train_brackets needs trees in the training corpus "
                              "(bracketed trees or CoNLL-U)", path=str(d.train))
-        brackets = [_brackets_of(s.tree) for s in train.sentences]
+        brackets = [tree_brackets(s.tree) for s in train.sentences]
         notes.append(f"partial brackets: {sum(map(len, brackets))} over "
                      f"{len(brackets)} sentences")
+    elif cfg.constraints.brackets_from is not None:
+        if bracket_source is None:
+            raise ValueError("constraints.brackets_from needs a bracket source from the caller "
+                             "(treewright.induce.trainer decodes the grammar it names)")
+        brackets, note = bracket_source([list(s.tokens) for s in train.sentences])
+        notes.append(note)
     dev_ids: list[list[int]] = []
     dev_words: list[list[str]] = []
     dev_trees = None
@@ -139,7 +152,8 @@ class MemoryBudget:
 
 def data_from_sentences(cfg: TrainConfig, sentences: Sequence[Sequence[str]],
                         dev: Sequence[Sequence[str]] | None = None,
-                        dev_trees: Sequence[Tree] | None = None) -> TrainData:
+                        dev_trees: Sequence[Tree] | None = None,
+                        bracket_source: BracketSource | None = None) -> TrainData:
     """`load_data` for token lists in memory (`dev`: token lists, or `dev_trees`: gold trees).
     They go through the corpus readers exactly as files would (one sentence a line, trees in
     brackets, in a temporary folder), so that the options of `cfg.data` apply alike and a
@@ -166,4 +180,4 @@ def data_from_sentences(cfg: TrainConfig, sentences: Sequence[Sequence[str]],
         data_options = dataclasses.replace(cfg.data, train=str(train_path), format=fmt,
                                            dev=None if dev_path is None else str(dev_path),
                                            stream_chunk=None)
-        return load_data(dataclasses.replace(cfg, data=data_options))
+        return load_data(dataclasses.replace(cfg, data=data_options), bracket_source)
