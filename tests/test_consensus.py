@@ -21,11 +21,10 @@ from functools import lru_cache
 
 import pytest
 import torch
-import yaml
 
 from _brute import all_trees
 from _grammars import random_grammar
-from test_train_fixtures import velmor, write_corpus
+from test_train_fixtures import velmor
 from treewright.budget import consensus_within_budget
 from treewright.cli import main
 from treewright.corpus import parse_brackets
@@ -199,24 +198,6 @@ def cli(*argv) -> tuple[int, str, str]:
     with redirect_stdout(out), redirect_stderr(err):
         code = main([str(a) for a in argv])
     return code, out.getvalue(), err.getvalue()
-
-
-@pytest.fixture(scope="module")
-def two_restart_run(tmp_path_factory):
-    """A tiny float64 EM run with two restarts on sentences of the invented Velmor language,
-    trained with data.lowercase (so parse must lowercase the input for every restart). Two
-    epochs only, so that the restarts still disagree on some sentences."""
-    folder = tmp_path_factory.mktemp("consensus")
-    train, _ = write_corpus(folder / "data", train=40, dev=0)
-    config = folder / "tiny.yaml"
-    config.write_text(yaml.safe_dump({
-        "data": {"train": str(train), "lowercase": True},
-        "model": {"nonterminals": 3, "preterminals": 5},
-        "train": {"epochs": 2, "restarts": 2, "dtype": "float64", "batch_size": 40},
-        "output": {"run_dir": str(folder / "run"), "progress": False,
-                   "stdout_metrics": False, "tensorboard": False}}))
-    assert main(["train", str(config)]) == 0
-    return folder / "run"
 
 
 def test_parse_with_consensus_prints_one_tree_per_line(two_restart_run, tmp_path):

@@ -13,11 +13,10 @@ from __future__ import annotations
 
 import pytest
 import torch
-import yaml
 
 from _grammars import random_grammar
 from test_consensus import SENTENCES, brute
-from test_train_fixtures import base_overrides, write_corpus
+from test_train_fixtures import base_overrides
 from treewright.cli import main
 from treewright.config import ConfigError
 from treewright.decode import consensus, decode
@@ -60,28 +59,17 @@ def test_brackets_from_a_grammar_file_are_its_mbr_trees(tmp_path):
 
 
 @pytest.fixture(scope="module")
-def two_restart_run(tmp_path_factory):
-    """A tiny float64 EM run with two restarts on the invented Velmor language, lowercased, two
-    epochs so that the restarts still disagree on some sentences."""
-    folder = tmp_path_factory.mktemp("staged")
-    train_path, _ = write_corpus(folder / "data", train=40, dev=0)
-    config = folder / "tiny.yaml"
-    config.write_text(yaml.safe_dump({
-        "data": {"train": str(train_path), "lowercase": True},
-        "model": {"nonterminals": 3, "preterminals": 5},
-        "train": {"epochs": 2, "restarts": 2, "dtype": "float64", "batch_size": 40},
-        "output": {"run_dir": str(folder / "run"), "progress": False,
-                   "stdout_metrics": False, "tensorboard": False}}))
-    assert main(["train", str(config)]) == 0
-    return folder / "run", train_path
+def staged_source(two_restart_run):
+    """The tiny lowercased two-restart EM run of tests/conftest.py, and its training text."""
+    return two_restart_run, two_restart_run.parent / "data" / "train.txt"
 
 
-def test_brackets_from_a_run_with_restarts_are_the_consensus_of_its_restarts(two_restart_run,
+def test_brackets_from_a_run_with_restarts_are_the_consensus_of_its_restarts(staged_source,
                                                                               tmp_path):
     # Reference: the consensus decoder over the run's restart grammars, read as the run read
     # its words (lowercased); tests/test_consensus.py checks that decoder against brute-force
     # enumeration. Here: the brackets are its trees' spans, and every one constrains.
-    run, train_path = two_restart_run
+    run, train_path = staged_source
     cfg = _config(tmp_path, train_path, f"constraints.brackets_from={run}",
                   "data.lowercase=true")
     data = load_data(cfg, grammar_brackets(cfg))
@@ -100,9 +88,9 @@ def test_brackets_from_a_run_with_restarts_are_the_consensus_of_its_restarts(two
     assert any("consensus of its restarts" in n for n in data.notes)
 
 
-def test_a_source_trained_on_other_data_options_is_refused_by_name(two_restart_run, tmp_path):
+def test_a_source_trained_on_other_data_options_is_refused_by_name(staged_source, tmp_path):
     # The source run lowercased its words; a run that does not would hand it other words.
-    run, train_path = two_restart_run
+    run, train_path = staged_source
     cfg = _config(tmp_path, train_path, f"constraints.brackets_from={run}")
     with pytest.raises(InputError) as err:
         grammar_brackets(cfg)
@@ -152,13 +140,13 @@ def test_brackets_epochs_needs_brackets(tmp_path):
     assert "constraints.brackets_epochs" in str(err.value)
 
 
-def test_a_staged_run_trains_as_a_run_on_the_source_trees_with_their_brackets(two_restart_run,
+def test_a_staged_run_trains_as_a_run_on_the_source_trees_with_their_brackets(staged_source,
                                                                                tmp_path):
     # Reference: the same training on another path. The source's consensus trees, printed by
     # `treewright parse` and read back as a bracketed corpus with constraints.train_brackets
     # (whose masks tests/test_train_em.py checks against enumeration), must give the very same
     # grammar as the staged run that decodes them itself.
-    run, train_path = two_restart_run
+    run, train_path = staged_source
     common = ["data.lowercase=true", "train.epochs=3", "train.restarts=1"]
     staged = _config(tmp_path / "a", train_path, f"constraints.brackets_from={run}", *common)
     fitted = train(staged, tmp_path / "a" / "run")
