@@ -25,6 +25,7 @@ from segment_invented_language import ostreli  # noqa: E402
 
 from treewright.adaptor import AdaptorSampler, parse_utterances  # noqa: E402
 from treewright.adaptor.grammars import unigram_word_grammar  # noqa: E402
+from treewright.adaptor.sampler import STARTS  # noqa: E402
 
 UTTERANCES = 2000
 LONGEST = 30
@@ -48,6 +49,9 @@ def main(argv: list[str] | None = None) -> list[float]:
     parser.add_argument("--sweeps", type=int, default=10)
     parser.add_argument("--repeat", type=int, default=1)
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--start", choices=STARTS, default="batch",
+                        help="the chain's first state (AdaptorSampler's start); the speed "
+                             "of a sweep depends on the state it reaches")
     args = parser.parse_args(argv)
     if os.environ.get("OMP_NUM_THREADS") != "1":
         print("note: OMP_NUM_THREADS is not 1; the figure is meant for one thread")
@@ -56,7 +60,8 @@ def main(argv: list[str] | None = None) -> list[float]:
     print(f"{len(sentences)} utterances, {len(chars)} characters, up to "
           f"{max(map(len, sentences))} per utterance")
     start = time.perf_counter()
-    sampler = AdaptorSampler(unigram_word_grammar(chars), sentences, seed=args.seed)
+    sampler = AdaptorSampler(unigram_word_grammar(chars), sentences, seed=args.seed,
+                             start=args.start)
     print(f"initialized in {time.perf_counter() - start:.2f} s")
     sampler.run(args.warmup)
     rates = []

@@ -41,10 +41,11 @@ class ProposalChart:
     weights raised to the power 1 / `temperature`.
 
     inside[i, w, A] (n+1, n+1, S): the total weight of A's proposal derivations of words
-    i..i+w-1; by_end[j, w, A] (n+1, n+1, S) the same numbers keyed by the span's end j. Keeping
-    both makes the left children of every span of width w one strided view, inside[0:m, 1:w],
-    and the right children another, by_end[w:n+1, w-1:0:-1], so that a width costs a few numpy
-    calls and no gather (the engine's inside pass lays its chart out for the same reason).
+    i..i+w-1. The left children of every span of width w are one strided view,
+    inside[0:m, 1:w], and their right children another, `right_of[w, 0:m, 1:w]`, a view of the
+    same memory in which right_of[w, i, k] is inside[i+k, w-k] (the span after a split k words
+    into the span of width w at i), so that a width costs a few numpy calls and no gather or
+    copy (the engine's inside pass lays its chart out for the same reason).
     """
 
     def __init__(self, cache: Cache, words: list[int], temperature: float = 1.0):
@@ -73,8 +74,13 @@ class ProposalChart:
                     if weight:
                         inside[i, j - i, a] = weight
         inside[0:n, 1] += self.new * lexical[:, words].T  # (n, S) one-word spans
-        by_end = np.zeros((n + 1, n + 1, s))
-        by_end[1:n + 1, 1] = inside[0:n, 1]
+        # (n+1, n+1, n+1, S): right[w, i, k] = inside[i+k, w-k], whose address is w*s1 +
+        # i*s0 + k*(s0-s1) in inside's strides; only the entries with i+k <= n and k < w,
+        # which lie inside the chart, are ever read.
+        s0, s1, s2 = inside.strides
+        right_of = np.lib.stride_tricks.as_strided(
+            inside, shape=(n + 1, n + 1, n + 1, s), strides=(s1, s0, s0 - s1, s2),
+            writeable=False)
         # (S*S, NT): binary rules as a matrix from (left, right) pairs to parents, each
         # parent's column scaled by its base share.
         to_parent = self.binary.reshape(nt, s * s).T * self.new[:nt]
@@ -82,11 +88,10 @@ class ProposalChart:
             # Every span of this width at once: m = n - width + 1 spans, k = width - 1 splits.
             m = n - width + 1
             left = inside[0:m, 1:width]                  # (m, k, S): i..i+split
-            right = by_end[width:n + 1, width - 1:0:-1]  # (m, k, S): i+split..i+width
+            right = right_of[width, 0:m, 1:width]        # (m, k, S): i+split..i+width
             pairs = np.matmul(left.transpose(0, 2, 1), right)  # (m, S, S) summed over splits
             inside[0:m, width, :nt] += pairs.reshape(m, s * s) @ to_parent  # (m, NT)
-            by_end[width:n + 1, width] = inside[0:m, width]
-        self.inside, self.by_end = inside, by_end
+        self.inside, self.right_of = inside, right_of
         self.top = self.root * inside[0, n, :nt]  # (NT,)
         self.total = float(self.top.sum())
 
@@ -136,7 +141,7 @@ class ProposalChart:
                 return label  # u fell past the cached labels by rounding
             return (a, self.words[i])
         left = self.inside[i, 1:width]          # (w-1, S): the left child over i..k
-        right = self.by_end[j, width - 1:0:-1]  # (w-1, S): the right child over k..j
+        right = self.right_of[width, i, 1:width]  # (w-1, S): the right child over k..j
         # (w-1, S, S) by split, left child, right child; the base share new[a] is left out of
         # the weights and divided out of u instead.
         base = left[:, :, None] * right[:, None, :]
