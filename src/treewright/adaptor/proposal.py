@@ -15,13 +15,13 @@ width at a time: a character costs the unigram word grammar a factor of about
 0.01, so utterances of up to about 150 characters stay above the smallest float64 (1e-308); a
 sentence whose total underflows is refused rather than guessed at.
 
-At a temperature T above 1 (annealing, `sampler`) every weight of the proposal grammar is
-raised to the power 1/T: the base rules and root, the new-table shares, and each table's
-probability of being joined, summed over a label's tables after tempering (the tempered
-target is the joint over trees and seatings to the power 1/T, so a label with many small
-tables weighs more than its one summed probability to the power 1/T). The Metropolis-Hastings target is then the joint to the power 1/T, and a
-proposal tempered the same way stays close to it; an untempered proposal at T = 10 had 10-27%
-of its trees accepted on the Ostreli corpus (docs/adaptor_notes.md). Johnson & Goldwater 2009
+At a temperature T above 1 (annealing, `sampler`) the Metropolis-Hastings target is the joint
+over trees and seatings to the power 1/T, and every weight of the proposal grammar is raised
+to the power 1/T to stay close to it: the base rules and root, the new-table shares, and each
+table's probability of being joined, summed over a label's tables after tempering (so a label
+with many small tables weighs more than its summed probability to the power 1/T). An
+untempered proposal had 10-48% of its trees accepted on the Ostreli corpus while T was above
+1.3, this one nearly all (docs/adaptor_notes.md). Johnson & Goldwater 2009
 ("Improving nonparameteric Bayesian inference: experiments on unsupervised word segmentation
 with adaptor grammars") anneal the PCFG approximation this way, as we remember it (from
 memory, not checked).
@@ -74,7 +74,7 @@ class ProposalChart:
                     if weight:
                         inside[i, j - i, a] = weight
         inside[0:n, 1] += self.new * lexical[:, words].T  # (n, S) one-word spans
-        # (n+1, n+1, n+1, S): right[w, i, k] = inside[i+k, w-k], whose address is w*s1 +
+        # (n+1, n+1, n+1, S): right_of[w, i, k] = inside[i+k, w-k], whose address is w*s1 +
         # i*s0 + k*(s0-s1) in inside's strides; only the entries with i+k <= n and k < w,
         # which lie inside the chart, are ever read.
         s0, s1, s2 = inside.strides
