@@ -9,7 +9,8 @@ the gold segmentation.
 
 The run: the unigram word grammar of `treewright.adaptor.grammars` over the utterances'
 characters (Word adapted, Pitman-Yor discount 0.5 and concentration 10, chosen before any run
-and not tuned), one chain of the sentence-blocked Metropolis-Hastings sampler, and after every
+and not tuned), one chain of the sentence-blocked Metropolis-Hastings sampler from a batch
+start (`--start incremental` for the other; docs/adaptor_notes.md), and after every
 `--every` sweeps the token and boundary F1 of chain 0's segmentation against the gold one, the
 log joint probability, and the sweeps per second so far.
 
@@ -28,6 +29,7 @@ import time
 
 from treewright.adaptor import AdaptorSampler, parse_utterances
 from treewright.adaptor.grammars import unigram_word_grammar
+from treewright.adaptor.sampler import STARTS
 from treewright.evaluation import evaluate_segmentation
 
 SEED = 2026
@@ -57,6 +59,8 @@ def main() -> None:
     parser.add_argument("--sweeps", type=int, default=150)
     parser.add_argument("--every", type=int, default=10)
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--start", choices=STARTS, default="batch",
+                        help="the chain's first state (AdaptorSampler's start)")
     parser.add_argument("--write", metavar="FILE", help="write the utterances, spaced, and stop")
     args = parser.parse_args()
     if args.write:
@@ -70,7 +74,7 @@ def main() -> None:
           f"{len({w for u in corpus.gold for w in u})} word types")
     grammar = unigram_word_grammar(chars)
     start = time.perf_counter()
-    sampler = AdaptorSampler(grammar, corpus.characters, seed=args.seed)
+    sampler = AdaptorSampler(grammar, corpus.characters, seed=args.seed, start=args.start)
     print(f"initialized in {time.perf_counter() - start:.1f} s")
     start = time.perf_counter()
     print("sweep  token-F1  boundary-F1  log-joint  words-cached  sweeps/s")

@@ -102,6 +102,15 @@ def test_outputs_agree_with_the_chains_and_the_gold(tmp_path):
     chains = AdaptorSampler.from_state(json.loads((run / "chains.json").read_text())["chains"])
     assert last["log_joint"] == chains.chains[0].log_joint()
     assert [m["step"] for m in _metric_lines(run)] == [0, 2, 4]
+    # The log posterior curve in TensorBoard (read back by TensorBoard's own event reader)
+    # is metrics.jsonl's log_joint at every scored sweep, stored as float32.
+    from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
+    events = EventAccumulator(str(run / "tensorboard"))
+    events.Reload()
+    curve = [(e.step, e.value) for e in events.Scalars("log_joint")]
+    assert curve == [(m["step"], pytest.approx(m["log_joint"], rel=1e-6))
+                     for m in _metric_lines(run)]
+    assert "token_f1" in events.Tags()["scalars"]
 
 
 def test_the_command_runs_resumes_and_refuses(tmp_path, capsys):

@@ -55,6 +55,10 @@ class SamplerConfig:
     chains: int = option(1, "Independent chains; the outputs and metrics are chain 0's.",
                          range="[1, inf)")
     seed: int = option(0, "Seeds every chain (chain c draws from the c-th child seed).")
+    start: Literal["batch", "incremental"] = option(
+        "batch", "First state. batch: every utterance's tree drawn from the base grammar "
+                 "alone. incremental: each drawn given the utterances before it (fixes early "
+                 "chance units in place; see docs/adaptor_notes.md).")
     checkpoint_every: int = option(10, "Sweeps between checkpoints (chains.json); --resume "
                                        "continues from the last one.", range="[1, inf)")
     anneal_from: float = option(1.0, "Temperature of the first sweep; it falls linearly to 1 "
@@ -75,6 +79,9 @@ class SamplerConfig:
 class SegmentOutputConfig:
     run_dir: Path | None = option(None, "Run folder; null uses runs/<config file name>.")
     stdout_metrics: bool = option(True, "Print each metric line on standard output.")
+    tensorboard: bool = option(True, "Also write every metric line as TensorBoard scalars "
+                                     "(the log posterior curve is log_joint), under "
+                                     "tensorboard/ in the run folder.")
 
 
 @dataclass

@@ -102,6 +102,22 @@ class Rules:
                           self.discount.tolist(), self.concentration.tolist(),
                           self.lexical.tolist(), self.binary.tolist())
 
+    def tempered(self, power: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """root (NT,), binary (NT, S, S) and lexical (S, V) raised to `power` (the arrays
+        themselves at power 1); the last power asked for is kept, since a sweep asks for the
+        same one at every sentence."""
+        if power == 1.0:
+            return self.root, self.binary, self.lexical
+        memo = self._tempered_memo
+        if memo.get("power") != power:
+            memo.update(power=power, rules=(self.root ** power, self.binary ** power,
+                                            self.lexical ** power))
+        return memo["rules"]
+
+    @cached_property
+    def _tempered_memo(self) -> dict:
+        return {}
+
     def rule(self, tree: Tree) -> float:
         """The probability of the rule at the top of `tree`."""
         if is_leaf(tree):
@@ -186,6 +202,19 @@ class Cache:
         return (self.label_customers[a][label] - len(tables) * r.discount[a]) / \
             (self.customers[a] + r.concentration[a])
 
+    def reuse_tempered(self, a: int, label: Tree, power: float) -> float:
+        """The sum over the tables labelled `label` of each one's probability of being joined,
+        (c_k - a) / (n + b), raised to `power`: the weight of reusing the label under the
+        joint raised to `power`, whose seatings are summed after tempering (at power 1 it is
+        `reuse_prob`)."""
+        tables = self.labels[a].get(label)
+        if not tables:
+            return 0.0
+        r = self.rules.py
+        scale = self.customers[a] + r.concentration[a]
+        return math.fsum(((self.tables[t].count - r.discount[a]) / scale) ** power
+                         for t in tables)
+
     def reuse_total(self, a: int, span: tuple) -> float:
         """The summed reuse probability of every cached label of `a` whose yield is `span`
         (the weight of the proposal's rule a -> span): (sum n_y - a sum m_y) / (n + b)."""
@@ -232,8 +261,8 @@ class Cache:
 
     # ---- seating and unseating ---------------------------------------------------------------
 
-    def seat(self, tree: Tree, choose: Chooser | None = None, plan: Plan | None = None
-             ) -> tuple[list[int], float, float]:
+    def seat(self, tree: Tree, choose: Chooser | None = None, plan: Plan | None = None,
+             power: float = 1.0) -> tuple[list[int], float, float]:
         """Seat every customer of one analysis (without its root rule) in pre-order.
 
         Either `choose` picks, at each customer, among the tables with its label and a new
@@ -242,7 +271,11 @@ class Cache:
         Returns (top tables: the customers the analysis itself made; log P: the probability
         of the base rules and seating choices under the generative process, each customer
         given those before it; log R: the probability of these choices in proportion to the
-        weights that `choose` is given, given the labels).
+        weights that `choose` is given, given the labels). `choose` is given each choice's
+        probability under the process raised to `power` (1/T when annealing at temperature
+        T, so that the seating proposal matches the tempered target: with untempered choices
+        the ratio P^(1/T) / R varied with the table drawn, and at T = 3 most proposals were
+        rejected).
         """
         logs = [0.0, 0.0]  # log P, log R
 
@@ -263,12 +296,13 @@ class Cache:
             weights = [(self.tables[t].count - disc) / (n + conc) for t in ids]
             new = self.new_table_prob(a)
             weights.append(new * self.base(node))
+            proposed = weights if power == 1.0 else [w ** power for w in weights]
             if planned is None:
-                pick, table, kids = choose(ids, weights), None, None
+                pick, table, kids = choose(ids, proposed), None, None
             else:
                 table, kids = planned
                 pick = ids.index(table) if table in ids else len(ids)
-            logs[1] += math.log(weights[pick] / math.fsum(weights))
+            logs[1] += math.log(proposed[pick] / math.fsum(proposed))
             if pick < len(ids):
                 logs[0] += math.log(weights[pick])
                 self._join(ids[pick])

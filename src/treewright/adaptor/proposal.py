@@ -14,32 +14,50 @@ the labels change after every sentence. The chart holds plain float64 probabilit
 width at a time: a character costs the unigram word grammar a factor of about
 0.01, so utterances of up to about 150 characters stay above the smallest float64 (1e-308); a
 sentence whose total underflows is refused rather than guessed at.
+
+At a temperature T above 1 (annealing, `sampler`) the Metropolis-Hastings target is the joint
+over trees and seatings to the power 1/T, and every weight of the proposal grammar is raised
+to the power 1/T to stay close to it: the base rules and root, the new-table shares, and each
+table's probability of being joined, summed over a label's tables after tempering (so a label
+with many small tables weighs more than its summed probability to the power 1/T). An
+untempered proposal had 10-48% of its trees accepted on the Ostreli corpus while T was above
+1.3, this one nearly all (docs/adaptor_notes.md). Johnson & Goldwater 2009
+("Improving nonparameteric Bayesian inference: experiments on unsupervised word segmentation
+with adaptor grammars") anneal the PCFG approximation this way, as we remember it (from
+memory, not checked).
 """
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
-from treewright.adaptor.model import Cache, Tree
+from treewright.adaptor.model import Cache, Tree, is_leaf
 
 
 class ProposalChart:
-    """Inside probabilities of one sentence under the proposal grammar of `cache`'s state.
+    """Inside probabilities of one sentence under the proposal grammar of `cache`'s state, its
+    weights raised to the power 1 / `temperature`.
 
     inside[i, w, A] (n+1, n+1, S): the total weight of A's proposal derivations of words
-    i..i+w-1; by_end[j, w, A] (n+1, n+1, S) the same numbers keyed by the span's end j. Keeping
-    both makes the left children of every span of width w one strided view, inside[0:m, 1:w],
-    and the right children another, by_end[w:n+1, w-1:0:-1], so that a width costs a few numpy
-    calls and no gather (the engine's inside pass lays its chart out for the same reason).
+    i..i+w-1. The left children of every span of width w are one strided view,
+    inside[0:m, 1:w], and their right children another, `right_of[w, 0:m, 1:w]`, a view of the
+    same memory in which right_of[w, i, k] is inside[i+k, w-k] (the span after a split k words
+    into the span of width w at i), so that a width costs a few numpy calls and no gather or
+    copy (the engine's inside pass lays its chart out for the same reason).
     """
 
-    def __init__(self, cache: Cache, words: list[int]):
+    def __init__(self, cache: Cache, words: list[int], temperature: float = 1.0):
         r = cache.rules
         self.cache, self.words = cache, words
+        self.power = power = 1.0 / temperature
+        # (NT,), (NT, S, S), (S, V): the rules as the proposal weighs them
+        self.root, self.binary, lexical = r.tempered(power)
         n, s, nt = len(words), len(r.names), r.num_nt
-        self.new = np.ones(s)  # (S,) the base's share of each symbol
+        self.new = np.ones(s)  # (S,) the base's share of each symbol, tempered
         for a in r.adapted_ids:
-            self.new[a] = cache.new_table_prob(a)
+            self.new[a] = cache.new_table_prob(a) ** power
         inside = np.zeros((n + 1, n + 1, s))
         # The rules A -> cached yield first: they do not depend on the rest of the chart. A
         # span is extended only while it is the prefix of some cached yield.
@@ -50,26 +68,51 @@ class ProposalChart:
                     span = tuple(words[i:j])
                     if span not in prefixes:
                         break
-                    weight = cache.reuse_total(a, span)
+                    weight = cache.reuse_total(a, span) if power == 1.0 else \
+                        math.fsum(cache.reuse_tempered(a, label, power)
+                                  for label in cache.by_yield[a].get(span, ()))
                     if weight:
                         inside[i, j - i, a] = weight
-        inside[0:n, 1] += self.new * r.lexical[:, words].T  # (n, S) one-word spans
-        by_end = np.zeros((n + 1, n + 1, s))
-        by_end[1:n + 1, 1] = inside[0:n, 1]
+        inside[0:n, 1] += self.new * lexical[:, words].T  # (n, S) one-word spans
+        # (n+1, n+1, n+1, S): right_of[w, i, k] = inside[i+k, w-k], whose address is w*s1 +
+        # i*s0 + k*(s0-s1) in inside's strides; only the entries with i+k <= n and k < w,
+        # which lie inside the chart, are ever read.
+        s0, s1, s2 = inside.strides
+        right_of = np.lib.stride_tricks.as_strided(
+            inside, shape=(n + 1, n + 1, n + 1, s), strides=(s1, s0, s0 - s1, s2),
+            writeable=False)
         # (S*S, NT): binary rules as a matrix from (left, right) pairs to parents, each
         # parent's column scaled by its base share.
-        to_parent = r.binary.reshape(nt, s * s).T * self.new[:nt]
+        to_parent = self.binary.reshape(nt, s * s).T * self.new[:nt]
         for width in range(2, n + 1):
             # Every span of this width at once: m = n - width + 1 spans, k = width - 1 splits.
             m = n - width + 1
             left = inside[0:m, 1:width]                  # (m, k, S): i..i+split
-            right = by_end[width:n + 1, width - 1:0:-1]  # (m, k, S): i+split..i+width
+            right = right_of[width, 0:m, 1:width]        # (m, k, S): i+split..i+width
             pairs = np.matmul(left.transpose(0, 2, 1), right)  # (m, S, S) summed over splits
             inside[0:m, width, :nt] += pairs.reshape(m, s * s) @ to_parent  # (m, NT)
-            by_end[width:n + 1, width] = inside[0:m, width]
-        self.inside, self.by_end = inside, by_end
-        self.top = r.root * inside[0, n, :nt]  # (NT,)
+        self.inside, self.right_of = inside, right_of
+        self.top = self.root * inside[0, n, :nt]  # (NT,)
         self.total = float(self.top.sum())
+
+    def weight(self, tree: Tree) -> float:
+        """The proposal's weight of `tree`, summed over its derivations: its probability
+        times `total`. At temperature 1 it is the root rule times `Cache.predictive`."""
+        if self.power == 1.0:
+            return self.root[tree[0]] * self.cache.predictive(tree)
+        return self.root[tree[0]] * self._tempered_predictive(tree)
+
+    def _tempered_predictive(self, tree: Tree) -> float:
+        """`Cache.predictive` with every weight raised to the power 1/T: a cached label's
+        reuse probability, the new-table share and each base rule."""
+        cache, power = self.cache, self.power
+        a = tree[0]
+        p = cache.rules.rule(tree) ** power
+        if not is_leaf(tree) and p > 0.0:
+            p *= self._tempered_predictive(tree[1]) * self._tempered_predictive(tree[2])
+        if not cache.rules.py.adapted[a]:
+            return p
+        return cache.reuse_tempered(a, tree, power) + self.new[a] * p
 
     def sample(self, rng: np.random.Generator) -> Tree:
         """A tree drawn with probability root * predictive / total (its derivations summed)."""
@@ -89,7 +132,8 @@ class ProposalChart:
         label = None
         if r.py.adapted[a]:
             for label, w in self.cache.cached(a, tuple(self.words[i:j])):
-                u -= w
+                u -= w if self.power == 1.0 else self.cache.reuse_tempered(a, label,
+                                                                           self.power)
                 if u < 0.0:
                     return label
         if width == 1:
@@ -97,11 +141,11 @@ class ProposalChart:
                 return label  # u fell past the cached labels by rounding
             return (a, self.words[i])
         left = self.inside[i, 1:width]          # (w-1, S): the left child over i..k
-        right = self.by_end[j, width - 1:0:-1]  # (w-1, S): the right child over k..j
+        right = self.right_of[width, i, 1:width]  # (w-1, S): the right child over k..j
         # (w-1, S, S) by split, left child, right child; the base share new[a] is left out of
         # the weights and divided out of u instead.
         base = left[:, :, None] * right[:, None, :]
-        base *= r.binary[a]
+        base *= self.binary[a]
         base = base.ravel()
         if label is not None and not (base > 0.0).any():
             return label  # u fell past the cached labels by rounding

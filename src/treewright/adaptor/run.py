@@ -3,7 +3,8 @@ adaptor grammar over a file of utterances, sampled for `sampler.sweeps` sweeps, 
 checkpoints and a resume that continues bit for bit.
 
 Files (names from `runfolder.RunFolder`, kind "segment"): config.yaml, segment.log,
-metrics.jsonl (per scored sweep: log_joint, the log probability of chain 0's trees and seating,
+metrics.jsonl and, with output.tensorboard, the same numbers as TensorBoard scalars (per
+scored sweep: log_joint, the log probability of chain 0's trees and seating,
 which is the log posterior up to a constant; accept_rate of the sweep's proposals; the sweep's
 temperature; Word's discount and concentration; cached_words; with gold, token_f1 and
 boundary_f1), chains.json (the checkpoint: the chains' JSON state and the size metrics.jsonl
@@ -71,7 +72,8 @@ def segment_words(cfg: SegmentConfig, run_dir: str | Path, stream: TextIO | None
                              g.more_characters)
     folder.note(f"initializing {cfg.sampler.chains} chain(s)", stream)
     sampler = AdaptorSampler(grammar, corpus.characters, chains=cfg.sampler.chains,
-                             seed=cfg.sampler.seed, source=str(cfg.data.text))
+                             seed=cfg.sampler.seed, source=str(cfg.data.text),
+                             start=cfg.sampler.start)
     return _run(cfg, folder, corpus, written, sampler, stream, fresh=True)
 
 
@@ -133,7 +135,8 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
     total = cfg.sampler.sweeps
     done = sampler.chains[0].sweeps
     temperature = annealing(cfg.sampler.anneal_from, cfg.sampler.anneal_sweeps)
-    loggers = folder.open_loggers(cfg.output.stdout_metrics, tensorboard=False, stream=stream)
+    loggers = folder.open_loggers(cfg.output.stdout_metrics, cfg.output.tensorboard,
+                                  stream=stream)
     try:
         if fresh:
             loggers.log(_metrics(cfg, corpus, sampler, None), step=0)
