@@ -89,10 +89,11 @@ from treewright.train.estep import compound_span_posteriors, make_batch
 
 REPO = Path(__file__).resolve().parents[1]
 CONFIGS = REPO / "configs"
-METHODS = ("em", "vb", "gradient", "neural", "lowrank", "compound", "lexicalized")
+METHODS = ("em", "vb", "gradient", "neural", "lowrank", "compound", "lexicalized",
+           "independent")
 # Rows scored from the trainer's model (per-sentence grammars, head words) rather than from the
 # grammar files of their restarts, which hold no more than a shared symbol-only grammar.
-MODEL_ROWS = ("compound", "lexicalized")
+MODEL_ROWS = ("compound", "lexicalized", "independent")
 # Rows whose config takes partial brackets from an earlier run (constraints.brackets_from): the
 # em row of the same seed, trained first in the same invocation.
 STAGED = ("lexicalized",)
@@ -396,6 +397,28 @@ def compound_mbr_and_likelihood(trainer, sentences: list[list[str]], batch_size:
     return spans, logprobs
 
 
+def model_mbr_and_likelihood(trainer, sentences: list[list[str]], batch_size: int = 32
+                             ) -> tuple[list[list[tuple[int, int]] | None], list[float]]:
+    """As `mbr_and_likelihood`, from the trainer's model through its own engine pass
+    (`RuleModel.scorer`): for the independent row, whose grammar file holds only the most
+    probable rules of each symbol and would be slow to decode densely. A sentence with a word
+    the vocabulary cannot encode gets no spans and -inf."""
+    model, vocab = trainer.model, trainer.data.vocab
+    scorer = model.scorer()
+    spans: list = [None] * len(sentences)
+    logprobs = [float("-inf")] * len(sentences)
+    known = [i for i, s in enumerate(sentences) if -1 not in vocab.encode(s)]
+    for part in length_batches([len(sentences[i]) for i in known], max_sentences=batch_size):
+        group = [known[k] for k in part]
+        batch = make_batch(group, [vocab.encode(s) for s in sentences], None, trainer.dtype)
+        logz, marginals = scorer.span_posteriors(batch.ids, batch.lengths)
+        for k, i in enumerate(group):
+            if math.isfinite(float(logz[k])):
+                logprobs[i] = float(logz[k])
+                spans[i] = mbr_spans(marginals[k], len(sentences[i]))
+    return spans, logprobs
+
+
 def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16) -> dict:
     """The lexicalized model's scores on one set: brackets by MBR over its own span posteriors
     (heads summed out) and perplexity from its own log p(sentence), as `score_spans` scores the
@@ -480,7 +503,8 @@ def gold_lean(ev: EvalSet) -> dict:
 
 def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: Path) -> dict:
     """Train one (method, seed) and score it on every eval set."""
-    nt, pt = args.lowrank_symbols if method == "lowrank" else args.symbols
+    nt, pt = {"lowrank": args.lowrank_symbols,
+              "independent": args.independent_symbols}.get(method, args.symbols)
     dev = [f"data.dev={data_files['dev']}"] if "dev" in data_files else []
     staged = method in STAGED
     epochs = args.lexicalized_epochs if method == "lexicalized" else args.epochs
@@ -531,6 +555,8 @@ def score_method(method: str, trainer, ev: EvalSet) -> dict:
         return score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
     if method == "lexicalized":
         return score_lexicalized(trainer, ev)
+    if method == "independent":
+        return score_spans(*model_mbr_and_likelihood(trainer, ev.tokens), ev)
     return score_grammar(trainer.grammar_path_, ev)
 
 
@@ -650,6 +676,9 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
                    "lexicalized row (default: --epochs)")
     p.add_argument("--symbols", default=None, help="NONTERMINALS,PRETERMINALS (default: "
                    "10,20 on demo, 30,60 on turkish)")
+    p.add_argument("--independent-symbols", default="256,512", help="NONTERMINALS,PRETERMINALS "
+                   "of the independent row, which exists for many symbols (default 256,512, "
+                   "the largest its dense grammar file allows)")
     p.add_argument("--lowrank-symbols", default=None, help="NONTERMINALS,PRETERMINALS of the "
                    "lowrank row, which exists to afford many symbols (default: 4 times "
                    "--symbols)")
@@ -689,6 +718,7 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     args.seeds = [int(s) for s in args.seeds.split(",") if s]
     default_symbols = "30,60" if args.data == "turkish" else "10,20"
     args.symbols = tuple(int(x) for x in (args.symbols or default_symbols).split(","))
+    args.independent_symbols = tuple(int(x) for x in args.independent_symbols.split(","))
     args.lowrank_symbols = tuple(int(x) for x in args.lowrank_symbols.split(",")) \
         if args.lowrank_symbols else tuple(4 * x for x in args.symbols)
     return args
@@ -759,6 +789,7 @@ def main(argv: list[str] | None = None) -> dict:
               "data": args.data, "mode": args.mode, "methods": args.methods,
               "seeds": args.seeds, "epochs": args.epochs, "restarts": args.restarts,
               "symbols": list(args.symbols), "lowrank_symbols": list(args.lowrank_symbols),
+              "independent_symbols": list(args.independent_symbols),
               "max_length": args.max_length,
               "eval_max_length": args.eval_max_length, "counts": data.counts,
               "runs": runs, "summary": summary, "baselines": baselines, "ceiling": ceiling,

@@ -209,6 +209,44 @@ def test_smoke_run_of_the_compound_row(tmp_path):
     assert run["unparsed"] == 0 and math.isfinite(run["perplexity"])
 
 
+def test_independent_row_scores_its_model_as_the_dense_grammar_would():
+    # Reference: the dense engine's MBR spans and log p(sentence) (`mbr_and_likelihood`, checked
+    # against the library's decoder below) on the model's own rules written out densely, so the
+    # independent engine pass the row uses must give the same trees and likelihoods.
+    from types import SimpleNamespace
+    from treewright.params import IndependentParams, symbol_names
+    from treewright.vocab import Vocabulary
+    vocab = Vocabulary(["<unk>", "sa", "tev", "orim", "lu"], unk="<unk>")
+    model = IndependentParams(3, 4, len(vocab), 2.0, torch.Generator().manual_seed(5),
+                              torch.float64)
+    sentences = [["sa", "tev"], ["orim", "sa", "lu", "tev"], ["lu", "lu", "sa", "orim", "tev"],
+                 ["tev", "zzz", "sa"], ["sa"]]
+    trainer = SimpleNamespace(model=model, data=SimpleNamespace(vocab=vocab),
+                              dtype=torch.float64)
+    spans, logprobs = bench.model_mbr_and_likelihood(trainer, sentences, batch_size=2)
+    grammar = model.to_grammar(*symbol_names(3, 4), vocab)
+    want_spans, want_logprobs = bench.mbr_and_likelihood(grammar, sentences, batch_size=2)
+    for got, want, lp, want_lp in zip(spans, want_spans, logprobs, want_logprobs):
+        assert (got is None) == (want is None)
+        if got is not None:
+            assert sorted(got) == sorted(want)
+        assert lp == pytest.approx(want_lp, abs=1e-9)
+    assert spans[-1] is None and logprobs[-1] == float("-inf")   # one word: no nonterminal
+    assert all(s is not None for s in spans[:-1])
+
+
+def test_smoke_run_of_the_independent_row(tmp_path):
+    result = bench.main(["--smoke", "--methods", "independent", "--independent-symbols", "4,6",
+                         "--out", str(tmp_path)])
+    saved = json.loads((tmp_path / "results.json").read_text())
+    assert saved["independent_symbols"] == [4, 6]
+    assert result["runs"][0]["overrides"][6:8] == ["model.nonterminals=4",
+                                                   "model.preterminals=6"]
+    e = result["summary"]["independent"]["demo-test"]
+    assert 0.0 <= e["sentence_f1"][0] <= 100.0
+    assert "| independent |" in saved["tables"]["demo-test"]
+
+
 def test_fast_scoring_matches_library_decode():
     # Reference: the library's own MBR decoder and inside scores on the demo generating grammar.
     from treewright.corpus import read_corpus
