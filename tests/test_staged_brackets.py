@@ -161,3 +161,27 @@ def test_a_staged_run_trains_as_a_run_on_the_source_trees_with_their_brackets(st
     gold = _config(tmp_path / "b", trees, "constraints.train_brackets=true", *common)
     other = train(gold, tmp_path / "b" / "run")
     assert fitted.grammar_path_.read_text() == other.grammar_path_.read_text()
+
+
+def test_sentences_over_the_memory_budget_are_not_decoded_since_they_do_not_train(tmp_path):
+    # Reference: the trainer's own plan (Curriculum.epoch_plan) leaves out the sentences longer
+    # than the memory budget allows; exactly those get no brackets, and the note counts them.
+    path = tmp_path / "g.pcfg"
+    random_grammar(2, 2, 3, seed=21).save(path)
+    train_path = _text(tmp_path, SENTENCES)
+    free = _config(tmp_path, train_path)
+    mb = MemoryBudget(free, torch.float64).sentence_bytes(4) / 2 ** 20
+    cfg = _config(tmp_path, train_path, f"constraints.brackets_from={path}",
+                  f"train.memory_budget_mb={mb}")
+    data = load_data(cfg, grammar_brackets(cfg))
+    planned = {i for batch in Curriculum(cfg, MemoryBudget(cfg, torch.float64), False)
+               .epoch_plan(data.train_ids, 0, 0) for i in batch}
+    assert planned == {i for i, s in enumerate(SENTENCES) if len(s) <= 4}
+    for i, (words, got) in enumerate(zip(SENTENCES, data.brackets)):
+        if i not in planned:
+            assert got == []
+        elif len(words) > 2:
+            assert len(got) == len(words) - 2
+    over = len(SENTENCES) - len(planned)
+    assert any(f"{over} sentences over the memory budget's length (4 words)" in n
+               for n in data.notes)

@@ -94,7 +94,8 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
     the training sentences under the run or grammar it names, by the decoder `parse` would use
     for brackets (the consensus of the restarts of a run that saved two or more, else mbr),
     each reduced to its partial brackets (`tree_brackets`). A sentence without a parse gets
-    none and trains unconstrained; the note says how many.
+    none and trains unconstrained; one longer than the memory budget allows (which does not
+    train) is not decoded; the note says how many of each.
 
     The words must reach the source grammar as its own training read them, so a source that
     records its training config (a run folder or JSON export) must have read the corpus with
@@ -123,22 +124,31 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
     grammars = [source.grammar] if restarts < 2 else [
         s.grammar for s in open_restart_grammars(path, "constraints.brackets_from")]
     decoder = "the consensus of its restarts" if restarts >= 2 else "mbr"
+    # Sentences the trainer sets aside for its memory budget never train, so they are not
+    # decoded either (a long one could take more memory than the budget allows).
+    longest = MemoryBudget(cfg, _dtype(cfg)).max_length
 
     def brackets_of(sentences: list[list[str]]) -> tuple[list[list[tuple[int, int]]], str]:
-        trees: list[Tree | None] = []
-        with terminal_progress(len(sentences), "brackets") as progress:
-            for start in range(0, len(sentences), BRACKET_CHUNK):
-                group = sentences[start:start + BRACKET_CHUNK]
+        todo = [i for i, s in enumerate(sentences) if len(s) <= longest]
+        trees: list[Tree | None] = [None] * len(sentences)
+        with terminal_progress(len(todo), "brackets") as progress:
+            for start in range(0, len(todo), BRACKET_CHUNK):
+                part = todo[start:start + BRACKET_CHUNK]
+                group = [sentences[i] for i in part]
                 parsed = consensus(grammars, group) if len(grammars) >= 2 else \
                     decode(grammars[0], group, "mbr")
-                trees += [d.tree for d in parsed]
+                for i, d in zip(part, parsed):
+                    trees[i] = d.tree
                 progress.update(len(group))
         brackets = [[] if t is None else tree_brackets(t) for t in trees]
-        unparsed = sum(t is None for t in trees)
+        unparsed = len(todo) - sum(trees[i] is not None for i in todo)
         note = (f"partial brackets from {source.grammar_path} ({decoder}): "
                 f"{sum(map(len, brackets))} over {len(brackets)} sentences")
         if unparsed:
             note += f"; {unparsed} sentences without a parse train unconstrained"
+        if len(todo) < len(sentences):
+            note += (f"; {len(sentences) - len(todo)} sentences over the memory budget's "
+                     f"length ({longest} words) not decoded (they do not train)")
         return brackets, note
 
     return brackets_of
