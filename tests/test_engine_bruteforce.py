@@ -3,6 +3,7 @@ definitions of log Z, the best tree and posterior expectations, computed tree by
 
 from __future__ import annotations
 
+import importlib
 import math
 
 import pytest
@@ -14,6 +15,9 @@ from _grammars import random_grammar
 from treewright import engine
 from treewright.inference import encode, tree_logprob, spans_to_tree
 from treewright.engine.reference import reference_inside
+
+# The module, which the package's `viterbi` function shadows.
+engine_viterbi = importlib.import_module("treewright.engine.viterbi")
 
 CASES = [  # (nonterminals, preterminals, sentence length, nonterminals emit words)
     (2, 2, 2, False), (2, 2, 4, False), (2, 2, 5, False), (2, 1, 7, False),
@@ -66,6 +70,28 @@ def test_batched_sentences_of_different_lengths_match_one_at_a_time():
     batch = engine.log_partition(grammar.root, grammar.binary, enc.terminal, enc.lengths)
     for k, words in enumerate(sentences):
         assert float(batch[k]) == pytest.approx(summary(grammar, words)["logz"], rel=1e-10)
+
+
+@pytest.mark.parametrize("nt_emit", [False, True])
+def test_viterbi_in_small_chunks_over_a_batch_matches_enumeration(monkeypatch, nt_emit):
+    # The max over a word's preterminal is taken once per position and the winning preterminal
+    # is found again for the best tree's words; a chunk of one element makes every max run
+    # row by row. Reference: brute-force enumeration of every tree of each sentence.
+    monkeypatch.setattr(engine_viterbi, "CHUNK", 1)
+    grammar = random_grammar(2, 3, 4, seed=7, nt_emit=nt_emit)
+    lengths = (4, 2, 3, 1) if nt_emit else (4, 2, 5, 3)  # one word: a tree only if NTs emit
+    sentences = [_sentence(grammar, n, seed=20 + n) for n in lengths]
+    enc = encode(grammar, sentences, torch.float64)
+    results = engine.viterbi(grammar.root, grammar.binary, enc.terminal, enc.lengths,
+                             enc.nt_terminal)
+    for words, result in zip(sentences, results):
+        best_lp, best_spans, _ = summary(grammar, words)["best"]
+        if best_lp == -math.inf:
+            assert result is None
+            continue
+        score, spans = result
+        assert score == pytest.approx(best_lp, rel=1e-10)
+        assert sorted(spans) == sorted(best_spans)
 
 
 def test_zero_probability_rule_rules_out_every_tree_that_uses_it():

@@ -16,16 +16,67 @@ import torch
 from torch import Tensor
 
 NEG_INF = float("-inf")
+WORD = -1  # a back pointer's child that is a word, its preterminal not yet chosen
+
+
+CHUNK = 2 ** 21  # elements of the largest temporary of a max over children
 
 
 def _best_children(scores: Tensor, rules: Tensor) -> tuple[Tensor, Tensor]:
-    """max over (B, C) of rules[A, B, C] + scores[..., B, C].
+    """max over (y, z) of rules[x, y, z] + scores[..., y, z], first (y, z) in row-major order
+    on ties.
 
-    scores: (B, P, X, Y), rules: (NT, X, Y) -> values (B, P, NT), flat argmax (B, P, NT).
+    scores: (B, P, Y, Z), rules: (NT, Y, Z) -> values (B, P, NT), flat argmax (B, P, NT).
+    Rows (B * P) are taken in chunks so that the sum (rows, NT, Y * Z) stays small.
     """
     Bt, P, X, Y = scores.shape
-    total = scores.reshape(Bt, P, 1, X * Y) + rules.reshape(1, 1, -1, X * Y)
-    return total.max(-1)
+    rows = scores.reshape(Bt * P, 1, X * Y)
+    flat_rules = rules.reshape(1, -1, X * Y)
+    values = scores.new_empty(Bt * P, rules.shape[0])
+    where = torch.empty(Bt * P, rules.shape[0], dtype=torch.long)
+    step = max(1, CHUNK // max(1, rules.numel()))
+    for r0 in range(0, Bt * P, step):
+        torch.max(rows[r0:r0 + step] + flat_rules, -1, out=(values[r0:r0 + step],
+                                                           where[r0:r0 + step]))
+    return values.view(Bt, P, -1), where.view(Bt, P, -1)
+
+
+def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
+    """For every word position, max over the word's preterminal z of rules[x, y, z] + term[z].
+
+    term: (B, N, T) word scores, rules: (NT, Y, T) -> (B, N, NT, Y). A block with a word child
+    scores the same word at every span that ends (or starts) there, so the max over its
+    preterminal is taken once per position rather than once per span: the per-span work of the
+    block drops from NT * Y * T to NT * Y. The max runs as T elementwise maxima over (rows,
+    NT * Y), several times faster than a reduction over a short last axis; which preterminal
+    won is found again for the few words of the best trees (`_word_preterminal`).
+    """
+    Bt, N, T = term.shape
+    flat = rules.permute(2, 0, 1).reshape(T, -1)                        # (T, NT * Y)
+    rows = term.reshape(Bt * N, T)
+    out = term.new_empty(Bt * N, flat.shape[1])
+    step = max(1, CHUNK // 16 // max(1, flat.shape[1]))   # rows whose maxima stay in cache
+    for r0 in range(0, Bt * N, step):
+        part, word = out[r0:r0 + step], rows[r0:r0 + step]
+        torch.add(word[:, 0, None], flat[0], out=part)
+        for z in range(1, T):
+            torch.maximum(part, word[:, z, None] + flat[z], out=part)
+    return out.view(Bt, N, *rules.shape[:2])
+
+
+def _word_preterminal(word: Tensor, rules: Tensor) -> int:
+    """The first preterminal z maximizing rules[z] + word[z] (the sum `_best_of_word` takes
+    the max of), both (T,)."""
+    return int((word + rules).argmax())
+
+
+def _best_beside_word(cell: Tensor, word_best: Tensor) -> tuple[Tensor, Tensor]:
+    """max over the constituent's symbol c of cell[..., c] + word_best[..., x, c].
+
+    cell (B, P, C), word_best (B, P, NT, C) -> values (B, P, NT) and the best c, the first on
+    ties.
+    """
+    return (cell[:, :, None, :] + word_best).max(-1)
 
 
 def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
@@ -37,6 +88,12 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
 
     Returns per sentence (log-probability, spans) with spans (start, end, symbol) in pre-order,
     one-word spans included, or None when the sentence has no parse.
+
+    Blocks with a word child take the max over the word's preterminal once per word position
+    (`_best_of_word`), then per span only the max over the other child's symbol. Ties go to
+    the first block (two nonterminals, a word on the right, on the left, two words), then the
+    first split, then the lowest-numbered children: the left child first for two nonterminals
+    or two words, the nonterminal child first beside a word.
     """
     B, N, T = terminal.shape
     if binary.dim() != 3:
@@ -48,15 +105,19 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
     lengths = torch.as_tensor(lengths, dtype=torch.long)
     with torch.no_grad():
         r_nn = binary[:, :NT, :NT]
-        r_np = binary[:, :NT, NT:]
-        r_pn = binary[:, NT:, :NT]
-        r_pp = binary[:, NT:, NT:]
         min_w = 1 if nt_terminal is not None else 2
         term = terminal                                            # (B, N, T)
+        if T:
+            # right_best[b, p, x, y]: the best of x -> y z over the preterminal z of word p
+            # (y any symbol: a nonterminal, or a preterminal for the two-word block);
+            # left_best[b, p, x, z]: the best of x -> y z over the preterminal y of word p.
+            right_best = _best_of_word(term, binary[:, :, NT:])
+            left_best = _best_of_word(term, binary[:, NT:, :NT].transpose(1, 2))
         # cells[w]: (B, N - w + 1, NT) best log score of each nonterminal over each span.
         cells = {1: nt_terminal if nt_terminal is not None
                  else terminal.new_full((B, N, NT), NEG_INF)}
-        # back[w]: (split u, left child, right child), each (B, P, NT) int64
+        # back[w]: (split u, left child, right child), each (B, P, NT) int64; WORD for a word
+        # child, whose preterminal `_backtrace` finds
         back: dict[int, tuple[Tensor, Tensor, Tensor]] = {}
         for w in range(2, N + 1):
             P = N - w + 1
@@ -73,16 +134,15 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             # Blocks with a preterminal child exist only when there are preterminals: a general
             # CNF grammar may have none (T = 0), and a max over an empty block is an error.
             if w - 1 >= min_w and T:
-                scores = cells[w - 1][:, 0:P, :, None] + term[:, w - 1:N, None, :]
-                values, flat = _best_children(scores, r_np)
-                options.append((values, torch.full_like(flat, w - 1), flat // T, flat % T + NT))
-                scores = term[:, 0:P, :, None] + cells[w - 1][:, 1:1 + P, None, :]
-                values, flat = _best_children(scores, r_pn)
-                options.append((values, torch.ones_like(flat), flat // NT + NT, flat % NT))
+                values, left = _best_beside_word(cells[w - 1][:, 0:P],
+                                                 right_best[:, w - 1:N, :, :NT])
+                word = torch.full_like(left, WORD)
+                options.append((values, torch.full_like(left, w - 1), left, word))
+                values, right = _best_beside_word(cells[w - 1][:, 1:1 + P], left_best[:, 0:P])
+                options.append((values, torch.ones_like(right), word, right))
             if w == 2 and T:
-                scores = term[:, 0:P, :, None] + term[:, 1:1 + P, None, :]
-                values, flat = _best_children(scores, r_pp)
-                options.append((values, torch.ones_like(flat), flat // T + NT, flat % T + NT))
+                values, y = _best_beside_word(term[:, 0:P], right_best[:, 1:1 + P, :, NT:])
+                options.append((values, torch.ones_like(y), y + NT, torch.full_like(y, WORD)))
             if not options:  # no block fits this width (no rules can build such a span)
                 none = terminal.new_full((B, P, NT), NEG_INF)
                 zero = torch.zeros(B, P, NT, dtype=torch.long)
@@ -113,11 +173,15 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         if not torch.isfinite(score):
             out.append(None)
             continue
-        out.append((float(score), _backtrace(back, b, n, int(sym), NT)))
+        out.append((float(score), _backtrace(back, b, n, int(sym), binary, terminal[b])))
     return out
 
 
-def _backtrace(back, b: int, n: int, top: int, NT: int) -> list[tuple[int, int, int]]:
+def _backtrace(back, b: int, n: int, top: int, binary: Tensor, term: Tensor
+               ) -> list[tuple[int, int, int]]:
+    """Sentence b's best tree from the back pointers, a WORD child resolved to the preterminal
+    that won its max (`_word_preterminal`); term (N, T) its word scores."""
+    NT = binary.shape[0]
     spans = []
     stack = [(0, n, top)]
     while stack:
@@ -127,6 +191,11 @@ def _backtrace(back, b: int, n: int, top: int, NT: int) -> list[tuple[int, int, 
             continue
         split, left, right = back[j - i]
         u = int(split[b, i, sym])
-        stack.append((i + u, j, int(right[b, i, sym])))
-        stack.append((i, i + u, int(left[b, i, sym])))
+        y, z = int(left[b, i, sym]), int(right[b, i, sym])
+        if z == WORD:
+            z = NT + _word_preterminal(term[j - 1], binary[sym, y, NT:])
+        if y == WORD:
+            y = NT + _word_preterminal(term[i], binary[sym, NT:, z])
+        stack.append((i + u, j, z))
+        stack.append((i, i + u, y))
     return spans
