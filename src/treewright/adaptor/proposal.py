@@ -58,29 +58,42 @@ class ProposalChart:
         self.new = np.ones(s)  # (S,) the base's share of each symbol, tempered
         for a in r.adapted_ids:
             self.new[a] = cache.new_table_prob(a) ** power
-        inside = np.zeros((n + 1, n + 1, s))
+        # The chart is the start of a buffer long enough for `right_of` below, a view that
+        # reaches past the chart's end (into entries it never reads).
+        buffer = np.zeros((2 * n + 2) * (n + 1) * s)
+        inside = buffer[:(n + 1) * (n + 1) * s].reshape(n + 1, n + 1, s)
         # The rules A -> cached yield first: they do not depend on the rest of the chart. A
         # span is extended only while it is the prefix of some cached yield.
+        self.sequence = sequence = tuple(words)
         for a in r.adapted_ids:
-            prefixes = cache.prefixes[a]
+            prefixes, counts_of = cache.prefixes[a], cache.yield_counts[a]
+            # `Cache.reuse_total`, written out (the same arithmetic): it runs for every cached
+            # span of every sentence.
+            discount, scale = r.py.discount[a], cache.customers[a] + r.py.concentration[a]
             for i in range(n):
                 for j in range(i + 1, n + 1):
-                    span = tuple(words[i:j])
+                    span = sequence[i:j]
                     if span not in prefixes:
                         break
-                    weight = cache.reuse_total(a, span) if power == 1.0 else \
-                        math.fsum(cache.reuse_tempered(a, label, power)
-                                  for label in cache.by_yield[a].get(span, ()))
+                    if power == 1.0:
+                        counts = counts_of.get(span)
+                        weight = 0.0 if counts is None else \
+                            (counts[0] - counts[1] * discount) / scale
+                    else:
+                        weight = math.fsum(cache.reuse_tempered(a, label, power)
+                                           for label in cache.by_yield[a].get(span, ()))
                     if weight:
                         inside[i, j - i, a] = weight
         inside[0:n, 1] += self.new * lexical[:, words].T  # (n, S) one-word spans
         # (n+1, n+1, n+1, S): right_of[w, i, k] = inside[i+k, w-k], whose address is w*s1 +
         # i*s0 + k*(s0-s1) in inside's strides; only the entries with i+k <= n and k < w,
-        # which lie inside the chart, are ever read.
+        # which lie inside the chart, are ever read. Made with np.ndarray on the buffer, which
+        # checks the view's extent against it (as_strided does not, and costs several times
+        # more per call).
         s0, s1, s2 = inside.strides
-        right_of = np.lib.stride_tricks.as_strided(
-            inside, shape=(n + 1, n + 1, n + 1, s), strides=(s1, s0, s0 - s1, s2),
-            writeable=False)
+        right_of = np.ndarray((n + 1, n + 1, n + 1, s), dtype=inside.dtype, buffer=buffer,
+                              strides=(s1, s0, s0 - s1, s2))
+        right_of.flags.writeable = False
         # (S*S, NT): binary rules as a matrix from (left, right) pairs to parents, each
         # parent's column scaled by its base share.
         to_parent = self.binary.reshape(nt, s * s).T * self.new[:nt]
@@ -131,7 +144,7 @@ class ProposalChart:
         u = rng.random() * float(self.inside[i, width, a])
         label = None
         if r.py.adapted[a]:
-            for label, w in self.cache.cached(a, tuple(self.words[i:j])):
+            for label, w in self.cache.cached(a, self.sequence[i:j]):
                 u -= w if self.power == 1.0 else self.cache.reuse_tempered(a, label,
                                                                            self.power)
                 if u < 0.0:
@@ -161,10 +174,12 @@ def _pick(weights: np.ndarray, rng: np.random.Generator, u: float | None = None)
     """An index drawn in proportion to non-negative `weights`: the one whose interval of the
     cumulative sum holds `u` (by default a uniform number times the sum). A u past the end,
     by rounding, or on an edge takes the last index with a positive weight before it."""
-    cumulative = np.cumsum(weights)
+    # The array methods rather than np.cumsum and np.searchsorted, whose Python dispatch
+    # costs more than the work on a short array.
+    cumulative = weights.cumsum()
     if u is None:
         u = rng.random() * cumulative[-1]
-    pick = min(int(np.searchsorted(cumulative, u, side="right")), len(weights) - 1)
+    pick = min(int(cumulative.searchsorted(u, side="right")), len(weights) - 1)
     while weights[pick] <= 0.0:
         pick -= 1
     return pick
