@@ -153,3 +153,28 @@ def test_the_shipped_text_is_the_generator_output():
     finally:
         sys.path.remove(str(REPO / "scripts"))
     assert SHIPPED.read_text(encoding="utf-8").splitlines() == ostreli(400)
+
+
+def test_several_chains_report_the_one_with_the_highest_log_joint(tmp_path):
+    # Reference: each chain's log joint recomputed from the saved chains (a fresh seating of
+    # its trees, `Chain.log_joint`) and the segmentation read off that chain's own trees; the
+    # outputs and the last metric line must be those of the best, whichever number it has.
+    config = _config(tmp_path, chains=3, sweeps=4)
+    result = segment_words(load_segment_config(config), tmp_path / "run")
+    state = json.loads((tmp_path / "run/chains.json").read_text())
+    sampler = AdaptorSampler.from_state(state["chains"])
+    joints = [chain.log_joint() for chain in sampler.chains]
+    best = max(range(3), key=lambda c: joints[c])
+    assert len(set(joints)) == 3 and best != 0   # this seed makes the check bite
+    expected = "".join(" ".join(w) + "\n" for w in sampler.segmentations("Word", best))
+    assert result.segmentation.read_text(encoding="utf-8") == expected
+    assert expected != "".join(" ".join(w) + "\n" for w in sampler.segmentations("Word", 0))
+    lexicon = (tmp_path / "run/lexicon.tsv").read_text(encoding="utf-8").splitlines()
+    assert lexicon == [f"{t}\t{c}\t{k}" for t, c, k in sampler.lexicon("Word", best)]
+    last = _metric_lines(tmp_path / "run")[-1]
+    assert last["chain"] == best
+    assert last["log_joint"] == pytest.approx(joints[best], rel=1e-12)
+    assert [last[f"log_joint_chain{c}"] for c in range(3)] == pytest.approx(joints, rel=1e-12)
+    gold = read_utterances(tmp_path / "ostreli.txt").gold
+    assert last["token_f1"] == pytest.approx(evaluate_segmentation(
+        sampler.segmentations("Word", best), gold).tokens.f1)

@@ -52,8 +52,10 @@ class WordGrammarConfig:
 class SamplerConfig:
     sweeps: int = option(200, "Sweeps of every chain; a sweep resamples each utterance once "
                               "(one Metropolis-Hastings step).", range="[0, inf)")
-    chains: int = option(1, "Independent chains; the outputs and metrics are chain 0's.",
-                         range="[1, inf)")
+    chains: int = option(1, "Independent chains, run one after another; the outputs and "
+                         "metrics are those of the chain with the highest log joint "
+                         "probability (the model's choice, not the gold's), and every "
+                         "chain's log joint is logged.", range="[1, inf)")
     seed: int = option(0, "Seeds every chain (chain c draws from the c-th child seed).")
     start: Literal["batch", "incremental"] = option(
         "batch", "First state. batch: every utterance's tree drawn from the base grammar "

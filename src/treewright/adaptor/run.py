@@ -4,13 +4,18 @@ checkpoints and a resume that continues bit for bit.
 
 Files (names from `runfolder.RunFolder`, kind "segment"): config.yaml, segment.log,
 metrics.jsonl and, with output.tensorboard, the same numbers as TensorBoard scalars (per
-scored sweep: log_joint, the log probability of chain 0's trees and seating,
-which is the log posterior up to a constant; accept_rate of the sweep's proposals; the sweep's
-temperature; Word's discount and concentration; cached_words; with gold, token_f1 and
-boundary_f1), chains.json (the checkpoint: the chains' JSON state and the size metrics.jsonl
-had then), and at the end segmentation.txt (chain 0's words, one utterance per line, in file
-order without the blank lines) and lexicon.tsv (Word's cached subtrees: characters,
-customers, tables).
+scored sweep: log_joint, the log probability of the reported chain's trees and seating,
+which is the log posterior up to a constant; accept_rate of that chain's proposals in the
+sweep; the sweep's temperature; Word's discount and concentration; cached_words; with gold,
+token_f1 and boundary_f1; and with two or more chains, chain, the reported chain's number, and
+log_joint_chain{c} for every chain c), chains.json (the checkpoint: the chains' JSON state and
+the size metrics.jsonl had then), and at the end segmentation.txt (the reported chain's words,
+one utterance per line, in file order without the blank lines) and lexicon.tsv (Word's cached
+subtrees: characters, customers, tables).
+
+The reported chain is the one with the highest log joint probability when the numbers are
+taken (the first on ties): a chain that has settled in a better mode of the posterior, chosen
+by the model alone, never by the gold. With one chain it is chain 0.
 
 With grammar.unit morphs each input is one word and the grammar cuts it into a stem and
 suffixes (`grammars.morph_grammar`): the segmentation cuts at the edges of the Stem and Suffix
@@ -142,8 +147,7 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
             loggers.log(_metrics(cfg, corpus, sampler, None), step=0)
         with Progress(total - done, "sweeps", unit="sweeps") as progress:
             while done < total:
-                chain = sampler.chains[0]
-                before = (chain.proposed, chain.accepted)
+                before = [(chain.proposed, chain.accepted) for chain in sampler.chains]
                 sampler.run(1, temperature=temperature,
                             hyperparameters=cfg.sampler.resample_hyperparameters)
                 done += 1
@@ -157,14 +161,18 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
     finally:
         loggers.close()
     symbols = _symbols(cfg)
-    words = morph_segmentations(sampler, 0, symbols)
+    best, joints = best_chain(sampler)
+    if len(joints) > 1:
+        folder.note(f"reporting chain {best} of {len(joints)}, the highest log joint "
+                    f"probability ({', '.join(f'{j:.1f}' for j in joints)})", stream)
+    words = morph_segmentations(sampler, best, symbols)
     atomic_write_text(folder.segmentation, "".join(" ".join(w) + "\n" for w in words))
     if symbols == (WORD,):
         lexicon = "".join(f"{text}\t{customers}\t{tables}\n" for
-                          text, customers, tables in sampler.lexicon(WORD))
+                          text, customers, tables in sampler.lexicon(WORD, best))
     else:
         lexicon = "".join(f"{a}\t{text}\t{customers}\t{tables}\n" for a in symbols
-                          for text, customers, tables in sampler.lexicon(a))
+                          for text, customers, tables in sampler.lexicon(a, best))
     atomic_write_text(folder.lexicon, lexicon)
     scores = evaluate_segmentation(words, corpus.gold, str(cfg.data.text)) \
         if cfg.data.gold else None
@@ -193,11 +201,23 @@ def _note_split_words(folder: RunFolder, written: WrittenWords,
                 stream)
 
 
+def best_chain(sampler: AdaptorSampler) -> tuple[int, list[float]]:
+    """The chain with the highest log joint probability (the first on ties) and every
+    chain's log joint."""
+    joints = [chain.log_joint() for chain in sampler.chains]
+    return joints.index(max(joints)), joints
+
+
 def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
-             before: tuple[int, int] | None) -> dict[str, float]:
-    """Chain 0's numbers now; `before` (proposed, accepted) as the sweep started."""
-    chain = sampler.chains[0]
-    out = {"log_joint": chain.log_joint()}
+             before: list[tuple[int, int]] | None) -> dict[str, float]:
+    """The reported chain's numbers now (`best_chain`); `before` (proposed, accepted) of each
+    chain as the sweep started."""
+    best, joints = best_chain(sampler)
+    chain = sampler.chains[best]
+    out: dict[str, float] = {"log_joint": joints[best]}
+    if len(joints) > 1:
+        out["chain"] = best
+        out.update((f"log_joint_chain{c}", j) for c, j in enumerate(joints))
     symbols = _symbols(cfg)
     for name in symbols:
         a = sampler.rules.names.index(name)
@@ -206,10 +226,10 @@ def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
         out[f"discount{suffix}"] = float(chain.rules.discount[a])
         out[f"concentration{suffix}"] = float(chain.rules.concentration[a])
     if before is not None:
-        proposed = chain.proposed - before[0]
-        out["accept_rate"] = (chain.accepted - before[1]) / proposed if proposed else 0.0
+        proposed = chain.proposed - before[best][0]
+        out["accept_rate"] = (chain.accepted - before[best][1]) / proposed if proposed else 0.0
     if cfg.data.gold:
-        scores = evaluate_segmentation(morph_segmentations(sampler, 0, _symbols(cfg)),
+        scores = evaluate_segmentation(morph_segmentations(sampler, best, _symbols(cfg)),
                                        corpus.gold, str(cfg.data.text))
         out["token_f1"] = scores.tokens.f1
         out["boundary_f1"] = scores.boundaries.f1
