@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import sys
+import time
 from pathlib import Path
 
 import pytest
@@ -178,3 +179,38 @@ def test_several_chains_report_the_one_with_the_highest_log_joint(tmp_path):
     gold = read_utterances(tmp_path / "ostreli.txt").gold
     assert last["token_f1"] == pytest.approx(evaluate_segmentation(
         sampler.segmentations("Word", best), gold).tokens.f1)
+
+
+def test_a_resumed_run_replaces_the_tensorboard_events_logged_after_its_checkpoint(
+        tmp_path, monkeypatch):
+    # A run checkpointed at sweep 3 that logged sweep 4 and stopped in sweep 5 logs sweep 4
+    # again when resumed. Reference: TensorBoard's own event reader, which drops the earlier
+    # session's events from the resumed session's first step on (its purge of orphaned data),
+    # must show each sweep once, with metrics.jsonl's values.
+    config = _config(tmp_path, checkpoint_every=3)
+    calls = {"n": 0}
+    sweep = Chain.sweep
+
+    def stopping(chain, temperature):
+        calls["n"] += 1
+        if calls["n"] == 5:
+            raise KeyboardInterrupt
+        sweep(chain, temperature)
+
+    monkeypatch.setattr(Chain, "sweep", stopping)
+    with pytest.raises(KeyboardInterrupt):
+        segment_words(load_segment_config(config), tmp_path / "run")
+    monkeypatch.setattr(Chain, "sweep", sweep)
+    assert [m["step"] for m in _metric_lines(tmp_path / "run")] == [0, 1, 2, 3, 4]
+    # TensorBoard reads a folder's event files in name order, and a name holds the second it
+    # was made and a counter of this process (so ".10" sorts before ".9"): a resumed run, in a
+    # later process, starts its file in a later second, as it does here.
+    time.sleep(1.1)
+    segment_resume(tmp_path / "run")
+    lines = _metric_lines(tmp_path / "run")
+    assert [m["step"] for m in lines] == list(range(7))
+    from tensorboard.backend.event_processing.event_accumulator import EventAccumulator
+    events = EventAccumulator(str(tmp_path / "run" / "tensorboard"))
+    events.Reload()
+    curve = [(e.step, e.value) for e in events.Scalars("log_joint")]
+    assert curve == [(m["step"], pytest.approx(m["log_joint"], rel=1e-6)) for m in lines]

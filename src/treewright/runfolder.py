@@ -54,6 +54,9 @@ class RunFolder:
             raise ValueError(f"kind must be one of {sorted(LOGS)}, got {kind!r}")
         self.path = Path(path)
         self.kind = kind
+        # Set by `truncate_metrics`: the first step a resumed run logs again, from which
+        # TensorBoard drops the events the interrupted session wrote.
+        self.purge_step: int | None = None
 
     # ---- names -------------------------------------------------------------------------------
 
@@ -142,10 +145,16 @@ class RunFolder:
         return self.metrics.stat().st_size if self.metrics.exists() else 0
 
     def truncate_metrics(self, size: int) -> None:
-        """Drop the metric lines logged after a checkpoint: their steps will run again."""
+        """Drop the metric lines logged after a checkpoint: their steps will run again. The
+        TensorBoard events of those steps are dropped too, when `open_loggers` opens the
+        TensorBoard logger again (`purge_step`: one past the last kept line's step)."""
+        kept = b""
         if self.metrics.exists():
             with open(self.metrics, "r+b") as f:
                 f.truncate(size)
+                f.seek(max(0, size - TAIL_BYTES))
+                kept = f.read()
+        self.purge_step = _last_step(kept) + 1
 
     def note(self, text: str, stream: TextIO | None = None) -> None:
         """Append one timestamped line to the log and echo `text` to `stream`."""
@@ -167,4 +176,20 @@ class RunFolder:
             return MultiLogger([])
         backends: Sequence[str] = (["stdout"] if stdout else []) + ["jsonl"] + \
             (["tensorboard"] if tensorboard else [])
-        return open_loggers(self.path, backends, stream)
+        return open_loggers(self.path, backends, stream, purge_step=self.purge_step)
+
+
+TAIL_BYTES = 1 << 16  # read back from the end of metrics.jsonl to find its last line
+
+
+def _last_step(text: bytes) -> int:
+    """The "step" of the last complete metric line of `text` (the end of metrics.jsonl), -1
+    when it holds none."""
+    for line in reversed(text.split(b"\n")):
+        try:
+            step = json.loads(line).get("step")
+        except (ValueError, AttributeError):
+            continue   # empty, cut off by the seek, or not a metric line
+        if isinstance(step, int):
+            return step
+    return -1

@@ -147,13 +147,15 @@ class TensorBoardLogger(_ClosesOnExit):
     Events are flushed after every call, so TensorBoard shows a run as it goes.
     """
 
-    def __init__(self, log_dir: str | Path):
+    def __init__(self, log_dir: str | Path, purge_step: int | None = None):
         # Imported here: TensorBoard support pulls in a large module that other back ends,
         # and most tests, never need.
         from torch.utils.tensorboard import SummaryWriter
 
         self.log_dir = Path(log_dir)
-        self.writer = SummaryWriter(log_dir=str(self.log_dir))
+        # purge_step (a resumed run): TensorBoard drops the earlier sessions' events at this
+        # step and later, which the resumed run logs again.
+        self.writer = SummaryWriter(log_dir=str(self.log_dir), purge_step=purge_step)
 
     def log(self, metrics: Mapping[str, Any], step: int) -> None:
         for name, value in _scalars(metrics, step).items():
@@ -187,10 +189,11 @@ class MultiLogger(_ClosesOnExit):
 
 
 def open_loggers(run_dir: str | Path, backends: Sequence[str] = ("stdout", "jsonl"),
-                 stream: TextIO | None = None) -> MultiLogger:
+                 stream: TextIO | None = None, purge_step: int | None = None) -> MultiLogger:
     """The loggers named in `backends` (any of BACKENDS) for a run folder: "jsonl" writes
-    `run_dir/metrics.jsonl`, "tensorboard" writes under `run_dir/tensorboard`, "stdout" writes
-    to `stream` (default sys.stdout)."""
+    `run_dir/metrics.jsonl`, "tensorboard" writes under `run_dir/tensorboard` (from
+    `purge_step` on, replacing what earlier sessions wrote there), "stdout" writes to `stream`
+    (default sys.stdout)."""
     unknown = [b for b in backends if b not in BACKENDS]
     if unknown:
         raise ValueError(f"unknown logger back end(s) {unknown}; known: {', '.join(BACKENDS)}")
@@ -202,7 +205,7 @@ def open_loggers(run_dir: str | Path, backends: Sequence[str] = ("stdout", "json
         elif backend == "jsonl":
             loggers.append(JsonlLogger(run_dir / METRICS_FILE))
         else:
-            loggers.append(TensorBoardLogger(run_dir / TENSORBOARD_FOLDER))
+            loggers.append(TensorBoardLogger(run_dir / TENSORBOARD_FOLDER, purge_step))
     return MultiLogger(loggers)
 
 
