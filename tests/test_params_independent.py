@@ -18,7 +18,8 @@ from treewright.engine.inside import log_partition
 from treewright.errors import InputError
 from treewright.grammar import load_grammar
 from treewright.inference import encode_ids, score
-from treewright.params import PARAMETERIZATIONS, IndependentParams, IndependentRules
+from treewright.params import (PARAMETERIZATIONS, IndependentParams, IndependentRules,
+                               NeuralIndependentParams)
 from treewright.params.base import span_posteriors
 from treewright.train import load_train_config, train
 
@@ -257,12 +258,57 @@ def test_a_grammar_over_the_rule_cap_is_saved_with_each_symbols_most_probable_ru
     assert f"at most {removed[worst]:.4g}, {names[worst]})" in log
 
 
+@pytest.mark.parametrize("words", [[0, 1, 2], [3, 0, 2, 1]])
+def test_the_neural_form_gives_normalized_factors_and_the_enumerated_log_z(words):
+    # The neural form computes the same two factors from embeddings: each row a distribution,
+    # and the model's log Z (through the independent kernel) that of every tree enumerated
+    # under the rules the factors imply (test_train_fixtures.brute_force).
+    model = NeuralIndependentParams(2, 3, 4, dim=8, blocks=1,
+                                    generator=torch.Generator().manual_seed(5), dtype=F64)
+    rules = model.rules()
+    assert isinstance(rules, IndependentRules)
+    for factor in (rules.root[None], rules.left, rules.right, rules.lexical):
+        torch.testing.assert_close(factor.exp().sum(-1), torch.ones(len(factor), dtype=F64),
+                                   rtol=0, atol=1e-12)
+    logz_bf = brute_force(model.snapshot().dense(), words)[0]
+    logz, _ = model.log_partition(torch.tensor([words]), torch.tensor([len(words)]))
+    assert math.isclose(float(logz[0].detach()), logz_bf, rel_tol=1e-9)
+    # Every parameter is reached by the gradient (the networks are wired into the factors).
+    logz.sum().backward()
+    assert all(p.grad is not None and p.grad.abs().sum() > 0 for p in model.parameters())
+
+
+def test_the_neural_form_trains_on_demo_text_and_likelihood_rises(tmp_path):
+    train_path = _demo_corpus(tmp_path / "data", "train.txt", 120, 8)
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, None, **{"train.method": "gradient",
+                                       "model.parameterization": "independent-neural",
+                                       "model.nonterminals": 6, "model.preterminals": 10,
+                                       "model.embedding_dim": 32, "train.epochs": 3,
+                                       "optimizer.lr": 0.01, "train.batch_size": 20}))
+    trainer = train(cfg, tmp_path / "run")
+    rows = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text().splitlines()]
+    epochs = [r["train/loglik_per_word"] for r in rows if "epoch" in r
+              and "train/loglik_per_word" in r]
+    assert len(epochs) == 3 and epochs[-1] > epochs[0] + 0.1, epochs
+    # The saved grammar file scores a sentence as the factored model does.
+    grammar = load_grammar(trainer.grammar_path_)
+    words = train_path.read_text().splitlines()[0].split()
+    ids = torch.tensor([[trainer.data.vocab.index[w] for w in words]])
+    with torch.no_grad():
+        mine, _ = trainer.model.double().log_partition(ids, torch.tensor([len(words)]))
+    assert math.isclose(score(grammar, [words], dtype=F64)[0].logprob, float(mine[0]),
+                        rel_tol=1e-6)
+
+
 def test_independent_is_registered_and_refuses_em():
     assert PARAMETERIZATIONS["independent"] is IndependentParams
-    for method in ("em", "online_em", "map_em", "vb"):
-        with pytest.raises(InputError, match="train.method.*dense count tables"):
-            load_train_config(None, ["data.train=x.txt", "model.parameterization=independent",
-                                     f"train.method={method}"])
+    assert PARAMETERIZATIONS["independent-neural"] is NeuralIndependentParams
+    for form in ("independent", "independent-neural"):
+        for method in ("em", "online_em", "map_em", "vb"):
+            with pytest.raises(InputError, match="train.method.*dense count tables"):
+                load_train_config(None, ["data.train=x.txt", f"model.parameterization={form}",
+                                         f"train.method={method}"])
 
 
 def test_a_grammar_too_large_to_write_is_refused_before_training():

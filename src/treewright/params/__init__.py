@@ -20,7 +20,8 @@ returns `LowRankRules`, whose dense `binary` is formed only on request; `compoun
 (Kim, Dyer & Rush 2019) gives every sentence its own rules through a latent vector, and its
 `rules()` is the grammar at the prior's mean; `independent.IndependentParams` (Liu, Yang, Kim & Tu 2023) gives each nonterminal independent
 left- and right-child distributions and returns `IndependentRules`, run by
-`engine.independent`; `lexicalized.LexicalizedParams` (Yang, Zhao & Tu
+`engine.independent`, and `independent.NeuralIndependentParams` computes the same factors from
+symbol embeddings; `lexicalized.LexicalizedParams` (Yang, Zhao & Tu
 2021) gives every constituent a head word and scores each sentence through
 `engine.lexicalized`, and its `rules()` is its symbol-only back-off grammar.
 """
@@ -31,15 +32,17 @@ from treewright.params.tabular import (RuleTensors, TabularParams, symbol_names,
 from treewright.params.neural import NeuralParams
 from treewright.params.lowrank import LowRankParams, LowRankRules
 from treewright.params.compound import CompoundParams, CompoundRules
-from treewright.params.independent import IndependentParams, IndependentRules
+from treewright.params.independent import (IndependentParams, IndependentRules,
+                                           NeuralIndependentParams)
 from treewright.params.lexicalized import LexicalizedParams
 
 PARAMETERIZATIONS: dict[str, type[RuleModel]] = {
     "tabular": TabularParams, "neural": NeuralParams, "lowrank": LowRankParams,
     "compound": CompoundParams, "lexicalized": LexicalizedParams,
-    "independent": IndependentParams}
+    "independent": IndependentParams, "independent-neural": NeuralIndependentParams}
 
 __all__ = ["PARAMETERIZATIONS", "CompoundParams", "CompoundRules", "IndependentParams",
            "IndependentRules", "LexicalizedParams",
-           "LowRankParams", "LowRankRules", "NeuralParams", "RuleModel", "RuleTensors", "Scorer",
+           "LowRankParams", "LowRankRules", "NeuralIndependentParams", "NeuralParams",
+           "RuleModel", "RuleTensors", "Scorer",
            "TabularParams", "symbol_names", "tabular_from_grammar"]

@@ -10,9 +10,13 @@ so p(A -> . .) sums to one because each factor does, and the rule tensor has NT 
 entries instead of NT * S^2. The paper pairs this form with neural networks over symbol
 embeddings and reports its best results at thousands of symbols; that is from memory of the
 paper, and so is the form above as its definition (we state it as we implement it). This module
-holds the tabular form: one logit per (parent, side, child), the root and the words one logit
-per rule as in `params.tabular`. `engine.independent` runs the inside pass on the two factors
-without forming the (NT, S, S) tensor.
+holds two forms: `IndependentParams`, one logit per (parent, side, child), the root and the
+words one logit per rule as in `params.tabular`; and `NeuralIndependentParams`, the same
+factors computed from symbol embeddings with the networks of `params.neural` (Kim, Dyer & Rush
+2019), the binary network split into one linear map per side. The paper's own networks are not
+copied (we do not have them at hand); this is the neural PCFG's design carried over to the
+factored rules. `engine.independent` runs the inside pass on the two factors without forming
+the (NT, S, S) tensor.
 
 Training is by gradient only (the config refuses EM for every parameterization but tabular). The
 expected counts of the two factors are the gradient of log Z with respect to their
@@ -29,6 +33,7 @@ from torch import Tensor, nn
 from treewright.engine.independent import independent_dense_binary, independent_log_partition
 from treewright.grammar import Grammar
 from treewright.params.base import RuleModel
+from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
 from treewright.vocab import Vocabulary
 
@@ -143,3 +148,52 @@ class IndependentParams(RuleModel):
         with torch.no_grad():
             return rules_to_grammar(self.rules().dense(), nonterminals, preterminals, vocab,
                                     start)
+
+
+class NeuralIndependentParams(EmbeddingParams):
+    """Independent left and right productions computed from symbol embeddings: the root is a
+    residual network of a start embedding, each side's child distribution a linear map of the
+    parent's embedding to scores over the S children, and each preterminal's words a residual
+    network of its embedding, as in `params.neural.NeuralParams` but with the (S * S)-wide
+    binary map replaced by two S-wide ones, so that the parameters grow as NT * S, not
+    NT * S^2.
+
+    nonterminals, preterminals, vocab_size: NT, T, V.
+    dim: embedding and hidden size; blocks: residual blocks in the root and word networks.
+    generator: seeds the initialisation (`EmbeddingParams._initialise`).
+    """
+
+    def __init__(self, nonterminals: int, preterminals: int, vocab_size: int, dim: int = 256,
+                 blocks: int = 2, generator: torch.Generator | None = None,
+                 dtype: torch.dtype = torch.float32):
+        super().__init__()
+        s = nonterminals + preterminals
+        self.nonterminals, self.preterminals, self.vocab_size = nonterminals, preterminals, \
+            vocab_size
+        self.start_embedding = nn.Parameter(torch.empty(1, dim))                    # (1, d)
+        self.nonterminal_embeddings = nn.Parameter(torch.empty(nonterminals, dim))  # (NT, d)
+        self.preterminal_embeddings = nn.Parameter(torch.empty(preterminals, dim))  # (T, d)
+        self.root_net = mlp(dim, blocks, nonterminals)
+        self.left_net = nn.Linear(dim, s)
+        self.right_net = nn.Linear(dim, s)
+        self.lexical_net = mlp(dim, blocks, vocab_size)
+        self.to(dtype)
+        self._initialise(generator)
+
+    @classmethod
+    def from_options(cls, options, vocab_size: int, generator: torch.Generator | None,
+                     dtype: torch.dtype) -> "NeuralIndependentParams":
+        return cls(options.nonterminals, options.preterminals, vocab_size, options.embedding_dim,
+                   options.residual_blocks, generator, dtype)
+
+    memory_shape = staticmethod(IndependentParams.memory_shape)
+
+    def rules(self) -> IndependentRules:
+        parents = self.nonterminal_embeddings
+        return IndependentRules(
+            torch.log_softmax(self.root_net(self.start_embedding)[0], 0),            # (NT,)
+            torch.log_softmax(self.left_net(parents), 1),                          # (NT, S)
+            torch.log_softmax(self.right_net(parents), 1),                         # (NT, S)
+            torch.log_softmax(self.lexical_net(self.preterminal_embeddings), 1))   # (T, V)
+
+    to_grammar = IndependentParams.to_grammar

@@ -50,7 +50,7 @@ class DataConfig:
 @dataclass
 class ModelConfig:
     parameterization: Literal["tabular", "neural", "lowrank", "compound",
-                              "lexicalized", "independent"] = option(
+                              "lexicalized", "independent", "independent-neural"] = option(
         "tabular", "tabular: one parameter per rule; neural: rules from symbol embeddings "
                    "(Kim, Dyer & Rush 2019); lowrank: binary rules as a sum of model.rank "
                    "rank-one terms from embeddings (Yang, Zhao & Tu 2021), for many symbols; "
@@ -60,8 +60,9 @@ class ModelConfig:
                    "through model.head_classes latent classes, with an explicit back-off to "
                    "symbol-only rules (Yang, Zhao & Tu 2021); independent: one logit per "
                    "parent, side and child, p(A -> B C) = p(B | A, left) p(C | A, right) "
-                   "(Liu, Yang, Kim & Tu 2023), for thousands of symbols. All but tabular "
-                   "train with 'gradient' only.")
+                   "(Liu, Yang, Kim & Tu 2023), for thousands of symbols; independent-neural: the "
+                   "same two factors computed from symbol embeddings, as neural computes its "
+                   "rules. All but tabular train with 'gradient' only.")
     # 30/60 symbols, dimension 256 and latent size 64 are the published setting of Kim, Dyer &
     # Rush 2019, "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from
     # memory).
@@ -74,11 +75,13 @@ class ModelConfig:
     init_scale: float = option(1.0, "Std of the normal logits of a random tabular or "
                                     "independent start; 0 gives the uniform grammar.",
                                range="[0, inf)")
-    embedding_dim: int = option(256, "Neural, lowrank and lexicalized: embedding and hidden "
-                                     "size. 256 is the published setting of Kim, Dyer & Rush 2019 "
-                                     "(from memory).", range="[1, inf)")
-    residual_blocks: int = option(2, "Neural, lowrank and lexicalized: residual blocks in the "
-                                     "root and word networks.", range="[0, inf)")
+    embedding_dim: int = option(256, "Neural, lowrank, lexicalized and independent-neural: "
+                                     "embedding and hidden size. 256 is the published setting "
+                                     "of Kim, Dyer & Rush 2019 (from memory).",
+                                range="[1, inf)")
+    residual_blocks: int = option(2, "Neural, lowrank, lexicalized and independent-neural: "
+                                     "residual blocks in the root and word networks.",
+                                  range="[0, inf)")
     rank: int = option(200, "Lowrank: number of rank-one terms of the binary rule tensor.",
                        range="[1, inf)")
     head_classes: int = option(16, "Lexicalized: latent classes through which a head word "
@@ -163,6 +166,7 @@ class OptimizerConfig:
 # dense `Grammar` (binary rules as an (NT, S, S) tensor), 2 GiB per float64 copy at this size,
 # and a run that could not write its grammar would fail only after training.
 INDEPENDENT_MAX_DENSE_RULES = 2 ** 28
+INDEPENDENT_FORMS = ("independent", "independent-neural")  # the independent productions
 
 # How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
 TAG_MODE_PIECE_EPOCHS = 3
@@ -285,7 +289,7 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         # Independent productions' expected counts are the gradient of log Z with respect to
         # their two factors, but the EM family's count tables and M-steps are dense (NT x S^2).
         why = ("; the EM family keeps dense count tables (NT x S^2), which independent "
-               "productions exist to avoid" if cfg.model.parameterization == "independent"
+               "productions exist to avoid" if cfg.model.parameterization in INDEPENDENT_FORMS
                else "")
         bad("train.method", f"the {cfg.model.parameterization} parameterization trains only "
                             f"with 'gradient', not {method!r}{why}")
@@ -293,7 +297,7 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
     nt, t = cfg.model.nonterminals, cfg.model.preterminals
-    if cfg.model.parameterization == "independent" \
+    if cfg.model.parameterization in INDEPENDENT_FORMS \
             and nt * (nt + t) ** 2 > INDEPENDENT_MAX_DENSE_RULES:
         bad("model.nonterminals", f"an independent-productions grammar with {nt:,} nonterminals "
                                   f"and {t:,} preterminals has {nt * (nt + t) ** 2:,} binary "
