@@ -21,7 +21,8 @@ from treewright.inference import encode_ids, score
 from treewright.params import (PARAMETERIZATIONS, IndependentParams, IndependentRules,
                                NeuralIndependentParams)
 from treewright.params.base import span_posteriors
-from treewright.train import load_train_config, train
+from treewright.train import load_train_config, train, updates
+from treewright.train.estep import independent_counts, make_batch
 
 F64 = torch.float64
 
@@ -301,14 +302,75 @@ def test_the_neural_form_trains_on_demo_text_and_likelihood_rises(tmp_path):
                         rel_tol=1e-6)
 
 
-def test_independent_is_registered_and_refuses_em():
+def test_em_counts_and_m_step_match_enumeration():
+    # Reference: brute-force enumeration of every tree of each sentence
+    # (test_train_fixtures.brute_force) under the rules the factors imply. The E-step's factor
+    # counts are the enumerated rule counts summed over the other child, and the M-step is
+    # each factor's counts over their row total (the maximizer of the expected log-likelihood
+    # of the factored rules, by the usual Lagrange argument).
+    r = _rules(nt=2, t=3, v=4, seed=3)
+    sentences = [[0, 1, 2], [3, 0, 2, 1], [2, 2]]
+    batch = make_batch([0, 1, 2], sentences, None, F64)
+    counts = independent_counts(r, batch)
+    root = torch.zeros(2, dtype=F64)
+    binary = torch.zeros(2, 5, 5, dtype=F64)
+    lexical = torch.zeros(3, 4, dtype=F64)
+    loglik = 0.0
+    for words in sentences:
+        logz, root_bf, binary_bf, lexical_bf, _ = brute_force(r.dense(), words)
+        loglik += logz
+        root, binary, lexical = root + root_bf, binary + binary_bf, lexical + lexical_bf
+    assert math.isclose(counts.loglik, loglik, rel_tol=1e-10)
+    assert (counts.words, counts.sentences, counts.unparsed) == (9, 3, 0)
+    torch.testing.assert_close(counts.root, root, rtol=0, atol=1e-9)
+    torch.testing.assert_close(counts.binary[:, 0], binary.sum(2), rtol=0, atol=1e-9)
+    torch.testing.assert_close(counts.binary[:, 1], binary.sum(1), rtol=0, atol=1e-9)
+    torch.testing.assert_close(counts.lexical, lexical, rtol=0, atol=1e-9)
+    new = updates.maximum_likelihood(counts, r)
+    assert isinstance(new, IndependentRules)
+    torch.testing.assert_close(new.left.exp(), binary.sum(2) / binary.sum((1, 2))[:, None])
+    torch.testing.assert_close(new.right.exp(), binary.sum(1) / binary.sum((1, 2))[:, None])
+    torch.testing.assert_close(new.root.exp(), root / root.sum())
+    torch.testing.assert_close(new.lexical.exp(), lexical / lexical.sum(1, keepdim=True))
+    # MAP-EM with Dirichlet(2) on every factor row: add-one counts (the mode of the posterior).
+    smooth = updates.dirichlet_map(counts, 2.0, r)
+    left = binary.sum(2) + 1
+    torch.testing.assert_close(smooth.left.exp(), left / left.sum(1, keepdim=True))
+
+
+def test_em_on_independent_productions_never_lowers_the_likelihood(tmp_path):
+    # Fact of the trade (common practice; Dempster, Laird & Rubin 1977): each EM iteration
+    # leaves the training log-likelihood no lower. Factored rules are a PCFG with tied
+    # parameters, for which the M-step above is exact, so the property must hold here too.
+    train_path, _ = write_corpus(tmp_path / "data", train=60, dev=0)
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, None, **{"train.method": "em",
+                                       "model.parameterization": "independent",
+                                       "train.epochs": 6, "train.tolerance": 0}))
+    trainer = train(cfg, tmp_path / "run")
+    rows = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text().splitlines()]
+    epochs = [r["train/loglik_per_word"] for r in rows if "epoch" in r
+              and "train/loglik_per_word" in r]
+    assert len(epochs) == 6, rows
+    assert all(b >= a - 1e-9 * abs(a) for a, b in zip(epochs, epochs[1:])), epochs
+    assert epochs[-1] > epochs[0] + 0.1, epochs
+    assert isinstance(trainer.current_rules(), IndependentRules)
+
+
+def test_independent_is_registered_and_refuses_the_methods_it_lacks():
     assert PARAMETERIZATIONS["independent"] is IndependentParams
     assert PARAMETERIZATIONS["independent-neural"] is NeuralIndependentParams
-    for form in ("independent", "independent-neural"):
-        for method in ("em", "online_em", "map_em", "vb"):
-            with pytest.raises(InputError, match="train.method.*dense count tables"):
-                load_train_config(None, ["data.train=x.txt", f"model.parameterization={form}",
-                                         f"train.method={method}"])
+    base = ["data.train=x.txt", "model.parameterization=independent"]
+    for method in ("em", "map_em"):
+        load_train_config(None, base + [f"train.method={method}", "prior.concentration=2"
+                                        if method == "map_em" else "train.epochs=2"])
+    for method in ("online_em", "vb"):
+        with pytest.raises(InputError, match="train.method.*dense\\s+rule tables"):
+            load_train_config(None, base + [f"train.method={method}"])
+    for method in ("em", "online_em", "map_em", "vb"):
+        with pytest.raises(InputError, match="train.method.*only with 'gradient'"):
+            load_train_config(None, ["data.train=x.txt", "model.parameterization="
+                                     "independent-neural", f"train.method={method}"])
 
 
 def test_a_grammar_too_large_to_write_is_refused_before_training():

@@ -18,9 +18,10 @@ copied (we do not have them at hand); this is the neural PCFG's design carried o
 factored rules. `engine.independent` runs the inside pass on the two factors without forming
 the (NT, S, S) tensor.
 
-Training is by gradient only (the config refuses EM for every parameterization but tabular). The
-expected counts of the two factors are the gradient of log Z with respect to their
-log-probabilities, so an EM step could be formed from them; it is not implemented here.
+The tabular form trains by gradient or by EM (`em`, `map_em`): the expected counts of the two
+factors are the gradient of log Z with respect to their log-probabilities
+(`train.estep.independent_counts`), and the M-step normalizes each factor's counts on its own
+(`train.updates`). The neural form trains by gradient only.
 """
 
 from __future__ import annotations
@@ -136,6 +137,14 @@ class IndependentParams(RuleModel):
         """The inside-outside memory estimate's arguments (`engine.memory`): the chart holds
         NT-long projections of each cell, as the low-rank pass's of rank NT."""
         return {"rank": options.nonterminals}
+
+    @torch.no_grad()
+    def set_log_probs(self, rules: IndependentRules) -> None:
+        """Store normalized log-probabilities (the M-step of EM) as the logits."""
+        self.root_logits.copy_(rules.root)
+        self.left_logits.copy_(rules.left)
+        self.right_logits.copy_(rules.right)
+        self.lexical_logits.copy_(rules.lexical)
 
     def rules(self) -> IndependentRules:
         return IndependentRules(torch.log_softmax(self.root_logits, 0),

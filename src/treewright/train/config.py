@@ -60,9 +60,10 @@ class ModelConfig:
                    "through model.head_classes latent classes, with an explicit back-off to "
                    "symbol-only rules (Yang, Zhao & Tu 2021); independent: one logit per "
                    "parent, side and child, p(A -> B C) = p(B | A, left) p(C | A, right) "
-                   "(Liu, Yang, Kim & Tu 2023), for thousands of symbols; independent-neural: the "
-                   "same two factors computed from symbol embeddings, as neural computes its "
-                   "rules. All but tabular train with 'gradient' only.")
+                   "(Liu, Yang, Kim & Tu 2023), for thousands of symbols (also with 'em' and "
+                   "'map_em'); independent-neural: the same two factors computed from symbol "
+                   "embeddings, as neural computes its rules. All but tabular and independent "
+                   "train with 'gradient' only.")
     # 30/60 symbols, dimension 256 and latent size 64 are the published setting of Kim, Dyer &
     # Rush 2019, "Compound Probabilistic Context-Free Grammars for Grammar Induction" (from
     # memory).
@@ -285,14 +286,15 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         problems.append(ConfigProblem(key, message, source))
 
     method = cfg.train.method
-    if cfg.model.parameterization != "tabular" and method != "gradient":
-        # Independent productions' expected counts are the gradient of log Z with respect to
-        # their two factors, but the EM family's count tables and M-steps are dense (NT x S^2).
-        why = ("; the EM family keeps dense count tables (NT x S^2), which independent "
-               "productions exist to avoid" if cfg.model.parameterization in INDEPENDENT_FORMS
-               else "")
-        bad("train.method", f"the {cfg.model.parameterization} parameterization trains only "
-                            f"with 'gradient', not {method!r}{why}")
+    form = cfg.model.parameterization
+    if form == "independent" and method in ("online_em", "vb"):
+        bad("train.method", f"independent productions train with 'gradient', 'em' or "
+                            f"'map_em', not {method!r} (its statistics are kept as dense "
+                            f"rule tables, NT x S^2, which independent productions exist to "
+                            f"avoid)")
+    elif form not in ("tabular", "independent") and method != "gradient":
+        bad("train.method", f"the {form} parameterization trains only with 'gradient', not "
+                            f"{method!r}")
     if cfg.model.parameterization != "tabular" and cfg.model.warm_start is not None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")

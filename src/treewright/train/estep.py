@@ -17,13 +17,14 @@ from treewright.inference import encode_ids, pad_ids
 from treewright.params.base import RulesScorer, span_posteriors
 from treewright.params.compound import (compound_log_partition, compound_span_posteriors,
                                         sentence_terminal_scores)
+from treewright.params.independent import IndependentRules
 from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
 
 # Re-exported: the engine-facing helpers moved to the parameterizations (params.base,
 # params.compound); tests and benchmarks import them from here.
 __all__ = ["Batch", "DivergedError", "ExpectedCounts", "add_counts", "batch_counts",
-           "expected_counts",
+           "expected_counts", "independent_counts",
            "compound_log_partition", "compound_span_posteriors", "crossing_mask", "edge_bias",
            "log_partition_of", "make_batch", "piece_mask", "sentence_logliks",
            "sentence_terminal_scores", "span_posteriors", "zero_counts"]
@@ -106,9 +107,12 @@ def crossing_mask(a: int, b: int, n: int) -> Tensor:
 
 @dataclass
 class ExpectedCounts:
-    """Expected rule counts summed over sentences, with the log-likelihood they came with."""
+    """Expected rule counts summed over sentences, with the log-likelihood they came with.
+    Independent productions (`IndependentRules`) count their two factors, never the rules
+    they imply: binary is then (NT, 2, S), [A, 0, B] the expected uses of B as A's left child
+    and [A, 1, C] of C as its right child."""
     root: Tensor        # (NT,)
-    binary: Tensor      # (NT, S, S)
+    binary: Tensor      # (NT, S, S), or (NT, 2, S) for independent productions
     lexical: Tensor     # (T, V)
     loglik: float       # sum of log Z over the parsed sentences
     words: int          # words of the parsed sentences
@@ -120,8 +124,10 @@ class ExpectedCounts:
                               self.loglik, self.words, self.sentences, self.unparsed)
 
 
-def zero_counts(rules: RuleTensors) -> ExpectedCounts:
-    return ExpectedCounts(torch.zeros_like(rules.root), torch.zeros_like(rules.binary),
+def zero_counts(rules: RuleTensors | IndependentRules) -> ExpectedCounts:
+    binary = torch.stack([rules.left, rules.right], 1) if isinstance(rules, IndependentRules) \
+        else rules.binary
+    return ExpectedCounts(torch.zeros_like(rules.root), torch.zeros_like(binary),
                           torch.zeros_like(rules.lexical), 0.0, 0, 0, 0)
 
 
@@ -166,10 +172,37 @@ def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
                           int(parsed.sum()), int((~parsed).sum()))
 
 
-def batch_counts(rules: RuleTensors, batch: Batch) -> ExpectedCounts:
+def batch_counts(rules: RuleTensors | IndependentRules, batch: Batch) -> ExpectedCounts:
     """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
+    if isinstance(rules, IndependentRules):
+        return independent_counts(rules, batch)
     return expected_counts(rules.root, rules.binary, rules.lexical, batch.ids, batch.lengths,
                            batch.span_pot)
+
+
+def independent_counts(rules: IndependentRules, batch: Batch) -> ExpectedCounts:
+    """The E-step of independent productions: the expected counts of the root, of each
+    factor's outcomes and of the words, as the gradient of the batch's log Z with respect to
+    their log-probabilities (Eisner 2016, "Inside-Outside and Forward-Backward Algorithms Are
+    Just Backprop"), through `engine.independent`, without forming the (NT, S, S) rules. The
+    left factor's count of (A, B) is the expected number of rules A -> B C over every C, and
+    likewise on the right."""
+    leaves = [x.detach().requires_grad_() for x in (rules.root, rules.left, rules.right,
+                                                     rules.lexical)]
+    with torch.enable_grad():
+        factored = IndependentRules(*leaves)
+        terminal = encode_ids(factored.lexical, batch.ids, batch.lengths).terminal  # (B, N, T)
+        logz = factored.log_partition(terminal, batch.lengths, span_pot=batch.span_pot)
+        if bool(torch.isnan(logz).any() | (logz == float("inf")).any()):
+            raise DivergedError("the log-likelihood of a batch is NaN or infinite")
+        parsed = torch.isfinite(logz)
+        grads = torch.autograd.grad(logz[parsed].sum(), leaves, allow_unused=True) \
+            if bool(parsed.any()) else [None] * 4
+    root, left, right, lexical = (torch.zeros_like(x) if g is None else g.detach()
+                                  for g, x in zip(grads, leaves))
+    return ExpectedCounts(root, torch.stack([left, right], 1), lexical,
+                          float(logz.detach()[parsed].sum()), int(batch.lengths[parsed].sum()),
+                          int(parsed.sum()), int((~parsed).sum()))
 
 
 def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:

@@ -12,7 +12,8 @@
   mu <- (1 - eta_t) mu + eta_t s_t with eta_t = (t + 2)^-power.
 
 Rule distributions are the root (one row over NT), each nonterminal's binary rules (a row over
-S*S) and each preterminal's words (a row over V). A row whose counts are all zero under maximum
+S*S; for independent productions, two rows over S, one per side) and each preterminal's words
+(a row over V). A row whose counts are all zero under maximum
 likelihood keeps its previous distribution, since count / 0 says nothing.
 """
 
@@ -21,6 +22,7 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
+from treewright.params.independent import IndependentRules
 from treewright.params.tabular import RuleTensors
 from treewright.train.estep import ExpectedCounts
 
@@ -47,16 +49,35 @@ def _normalize(weights: Tensor, kind: str, previous: Tensor) -> Tensor:
     return logp.reshape(weights.shape)
 
 
-def maximum_likelihood(counts: ExpectedCounts, previous: RuleTensors) -> RuleTensors:
+def maximum_likelihood(counts: ExpectedCounts, previous: RuleTensors | IndependentRules
+                       ) -> RuleTensors | IndependentRules:
+    if isinstance(previous, IndependentRules):
+        return _independent_update(counts, 0.0, previous)
     return RuleTensors(*(_normalize(c, kind, p) for c, kind, p
                          in zip(_count_tensors(counts), KINDS, previous)))
 
 
-def dirichlet_map(counts: ExpectedCounts, alpha: float, previous: RuleTensors) -> RuleTensors:
+def dirichlet_map(counts: ExpectedCounts, alpha: float,
+                  previous: RuleTensors | IndependentRules) -> RuleTensors | IndependentRules:
     if alpha < 1:
         raise ValueError(f"the Dirichlet mode needs alpha >= 1, got {alpha}")
+    if isinstance(previous, IndependentRules):
+        return _independent_update(counts, alpha - 1, previous)
     return RuleTensors(*(_normalize(c + (alpha - 1), kind, p) for c, kind, p
                          in zip(_count_tensors(counts), KINDS, previous)))
+
+
+def _independent_update(counts: ExpectedCounts, extra: float, previous: IndependentRules
+                        ) -> IndependentRules:
+    """The M-step of independent productions, each factor's rows normalized on their own:
+    with p(A -> B C) = L(B | A) R(C | A), the expected log-likelihood splits into
+    sum c_L(A, B) log L(B | A) + sum c_R(A, C) log R(C | A) (counts `ExpectedCounts.binary`,
+    (NT, 2, S)), maximized by each factor's counts over their row totals. `extra` is a
+    Dirichlet prior's pseudo-count on every outcome of every factor (MAP-EM)."""
+    return IndependentRules(_normalize(counts.root + extra, "root", previous.root),
+                            _normalize(counts.binary[:, 0] + extra, "binary", previous.left),
+                            _normalize(counts.binary[:, 1] + extra, "binary", previous.right),
+                            _normalize(counts.lexical + extra, "lexical", previous.lexical))
 
 
 def vb_posterior(counts: ExpectedCounts, alpha: float) -> RuleTensors:
