@@ -153,5 +153,6 @@ def test_unparsed_predictions_are_counted(tmp_path):
 
 def test_parse_command_offers_exactly_the_library_decoders():
     from treewright.cli.parse import DECODER_NAMES
-    from treewright.decode import DECODERS, ENSEMBLE_DECODERS
-    assert tuple(DECODER_NAMES) == tuple(DECODERS) + tuple(ENSEMBLE_DECODERS)
+    from treewright.decode import DECODERS, ENSEMBLE_DECODERS, MODEL_DECODERS
+    assert tuple(DECODER_NAMES) == tuple(DECODERS) + tuple(ENSEMBLE_DECODERS) + \
+        tuple(MODEL_DECODERS)

@@ -229,3 +229,60 @@ def test_heads_out_refuses_words_the_run_removed(trained, tmp_path, capsys):
     assert captured.out == "" and not out.exists()
     # Every test sentence ends with the final mark, so the first block (line 1) is named.
     assert f"{gold}, line 1: --heads-out" in captured.err and "data.drop_tags" in captured.err
+
+
+def _binary_bracketings(i: int, j: int):
+    """Every binary tree over words i..j-1, as its set of spans of width >= 2 (brute force)."""
+    if j - i == 1:
+        yield frozenset()
+        return
+    for k in range(i + 1, j):
+        for left in _binary_bracketings(i, k):
+            for right in _binary_bracketings(k, j):
+                yield left | right | {(i, j)}
+
+
+def test_the_lexicalized_decoder_prints_the_mbr_tree_of_the_models_own_posteriors(
+        trained, tmp_path, capsys):
+    # Reference: every binary tree of each sentence enumerated, the one with the largest sum
+    # of the model's span posteriors (heads summed out; engine.lexicalized's posteriors are
+    # checked against enumeration of every lexicalized tree in test_engine_lexicalized.py).
+    run, data = trained
+    gold_path = data / "test.conllu"
+    assert main(["parse", str(run), str(gold_path), "--decoder", "lexicalized",
+                 "--scores", "--objective"]) == 0
+    printed = [line.split("\t") for line in capsys.readouterr().out.splitlines()]
+    sentences = [[t["form"] for t in s]
+                 for s in conllu.parse(gold_path.read_text(encoding="utf-8"))]
+    loaded = load_lexicalized(run)
+    scorer = loaded.model.scorer()
+    symbols = set(loaded.nonterminals) | set(loaded.preterminals)
+    differs = 0
+    for (tree_text, logprob, posterior, objective), words in zip(printed, sentences):
+        ids = torch.tensor([loaded.vocab.encode(words)])
+        logz, spans = scorer.span_posteriors(ids, torch.tensor([len(words)]))
+        n = len(words)
+
+        def gain(tree):
+            return sum(float(spans[0, i, j - i]) for i, j in tree)
+
+        best = max(_binary_bracketings(0, n), key=gain)
+        tree = parse_brackets(tree_text)[0]
+        got = {(i, j) for i, j, _ in tree.labeled_spans() if j - i >= 2}
+        assert got == best
+        assert tree.leaves() == words
+        assert {node.label for node in tree.subtrees()} <= symbols
+        assert (logprob, posterior) == ("nan", "nan")
+        assert float(objective) == pytest.approx(gain(best), rel=1e-9)
+        backoff = main_tree(run, words)
+        differs += backoff != got
+    # The back-off grammar's own mbr trees are another decoder's: here they differ somewhere.
+    assert differs > 0
+
+
+def main_tree(run: Path, words: list[str]) -> set:
+    from treewright.decode import decode
+    from treewright.grammar import load_grammar
+    grammar = load_grammar(run / "grammar.pcfg", tolerance=1e-4)
+    (result,) = decode(grammar, [words], "mbr")
+    return {(i, j) for i, j, _ in result.tree.labeled_spans() if j - i >= 2}

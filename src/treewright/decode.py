@@ -52,6 +52,7 @@ from treewright.vocab import Vocabulary
 NEG_INF = float("-inf")
 DECODERS = ("viterbi", "mbr", "max-rule-product")
 ENSEMBLE_DECODERS = ("consensus",)  # decoders of several grammars (`consensus`)
+MODEL_DECODERS = ("lexicalized",)   # decoders of a lexicalized model (`decode_lexicalized`)
 
 
 def mbr_spans(span_marginals: Tensor, length: int) -> list[tuple[int, int]]:
@@ -741,3 +742,43 @@ def decode_heads(model: LexicalizedParams, vocab: Vocabulary,
         return [headed(w, p) for w, p in zip(words, model.parse(ids, lengths))]
 
     return _by_length(sentences, batch_size, batch)   # type: ignore[arg-type,return-value]
+
+
+def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Grammar,
+                       sentences: Sequence[Sequence[str]], batch_size: int = 16
+                       ) -> list[Decoded]:
+    """One tree per sentence from a lexicalized model's own span posteriors (head words summed
+    out, `LexicalizedScorer.span_posteriors`), in input order: the unlabeled MBR tree
+    (`mbr_spans_batch`), the trees the induction benchmark scores for a lexicalized model.
+    Its spans and words are labeled as the `mbr` decoder labels them, by their most probable
+    symbol under `grammar`, the model's symbol-only back-off grammar (`LexicalizedParams.
+    to_grammar`, the run's grammar.pcfg). `vocab` is the model's training vocabulary.
+
+    `log_likelihood` is the model's log p(sentence) and `score` the expected number of
+    correct spans; `tree_logprob` is nan, as the model gives a tree's probability only with
+    its head words (summing them out per tree is not done here). A sentence with a word
+    outside the vocabulary gets no tree."""
+    scorer = model.scorer()
+
+    def batch(words: list[list[str]]) -> list[Decoded]:
+        out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
+        encoded = [vocab.encode(w) for w in words]
+        known = [k for k, ids in enumerate(encoded) if -1 not in ids]
+        if not known:
+            return out
+        ids, lengths = pad_ids([encoded[k] for k in known])
+        logz, spans_p = scorer.span_posteriors(ids, lengths)     # (B,), (B, N+1, N+1)
+        n = lengths.tolist()
+        brackets = mbr_spans_batch(spans_p, n)
+        labels = _SpanLabels(grammar, span_tables(grammar, [words[k] for k in known],
+                                                  torch.float64, log_scores=False))
+        gains = spans_p.double().tolist()
+        for b, k in enumerate(known):
+            if not math.isfinite(float(logz[b])):
+                continue
+            gain = sum((gains[b][i][j - i] for i, j in brackets[b]), 0.0)
+            tree = tree_from_spans(words[k], labels.label(b, n[b], brackets[b]))
+            out[k] = Decoded(tree, float(logz[b]), math.nan, gain)
+        return out
+
+    return _by_length(sentences, batch_size, batch)

@@ -23,6 +23,11 @@ decoders (default: consensus for a run folder that saved two or more restarts, e
                     mbr tree votes, and the binary tree with the largest summed F1 against those
                     trees is printed (tree averaging, Shayegh et al. 2024), labeled as mbr labels
                     it under the kept restart; words are read as the run read them
+  lexicalized       GRAMMAR must be a lexicalized model's run folder (see Heads below): the mbr
+                    tree of the model's own span posteriors, head words summed out (the trees
+                    the induction benchmark scores for that model), labeled as mbr labels it
+                    under the run's back-off grammar; with --scores, log p(tree, sentence) and
+                    its posterior are nan (the model scores trees only with their heads)
 
 A grammar trained on tags (data.tag_mode, or --tags) parses the tags of a bracketed or
 CoNLL-U file and prints trees over its words, ready for `treewright evaluate` against that file;
@@ -48,14 +53,15 @@ written to PATH as CoNLL-U with HEAD filled (0 for the root) and DEPREL `_`: fro
 every other line and column is kept as read; from raw text or bracketed trees the words are
 written with every other column `_`. A sentence without a parse keeps HEAD `_`. Score the file
 with `treewright evaluate PATH GOLD.conllu`. The trees printed are those of the decoder, as
-without the option.
+without the option: the other decoders read the run's grammar.pcfg, the model's symbol-only
+back-off grammar; --decoder lexicalized reads the model itself.
 """
 
 
 # The names of treewright.decode.DECODERS (one grammar) and ENSEMBLE_DECODERS (a run's restart
 # grammars), written out so that `--help` need not import torch (tests/test_cli_evaluate.py
 # checks that they agree).
-DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus")
+DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus", "lexicalized")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -88,7 +94,7 @@ def run(args) -> int:
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
     from treewright.corpus import (detect_format, insert_words, iter_conllu_blocks, iter_lines,
                                    read_tagged, run_drop_tags, run_tag_mode)
-    from treewright.decode import ENSEMBLE_DECODERS, consensus, decode
+    from treewright.decode import ENSEMBLE_DECODERS, consensus, decode, decode_lexicalized
     from treewright.errors import InputError
     from treewright.export import open_grammar, open_restart_grammars, saved_restarts
     from treewright.tracking import terminal_progress
@@ -97,18 +103,27 @@ def run(args) -> int:
     source = open_grammar(args.grammar)  # text, JSON export or run folder
     grammar = source.grammar
     lexicalized = None
-    if args.heads_out is not None:  # refused before any decoding when the model has no heads
+    # Refused before any decoding when the model has no heads.
+    wants = "--heads-out" if args.heads_out is not None else \
+        "--decoder lexicalized" if args.decoder == "lexicalized" else None
+    if wants is not None:
         from treewright.induce import load_lexicalized
         try:
             lexicalized = load_lexicalized(args.grammar)
         except InputError as err:
-            raise InputError(f"--heads-out needs a lexicalized model's run folder: "
+            raise InputError(f"{wants} needs a lexicalized model's run folder: "
                              f"{err.reason}", path=err.path, line=err.line) from None
     if args.decoder is None:
         # Tree averaging of a run's restarts beat the restart kept by likelihood on the induction
         # benchmark (docs/induction_notes.md), so a run with several restarts is read that way.
         args.decoder = "consensus" if saved_restarts(source) >= 2 else "viterbi"
-    if args.decoder in ENSEMBLE_DECODERS:  # the run's restarts, the kept one first
+    if args.decoder == "lexicalized":   # the model itself, labels from its back-off grammar
+        grammars = [grammar]
+
+        def work(group):
+            return decode_lexicalized(lexicalized.model, lexicalized.vocab, grammar, group,
+                                      args.batch_size)
+    elif args.decoder in ENSEMBLE_DECODERS:  # the run's restarts, the kept one first
         grammars = [s.grammar for s in open_restart_grammars(
             args.grammar, f"the {args.decoder} decoder")]
 
@@ -149,7 +164,7 @@ def run(args) -> int:
     inputs = [[t for t, k in zip(sentence, mask) if k] for sentence, mask in zip(tokens, kept)]
     todo = [i for i, sentence in enumerate(inputs) if sentence]
     dropped = next((i for i, mask in enumerate(kept) if not all(mask)), None)
-    if lexicalized is not None and dropped is not None:
+    if args.heads_out is not None and dropped is not None:
         raise InputError("--heads-out: the run removed some tags' words (data.drop_tags), so "
                          "the model gives those words no head", path=args.text,
                          line=lines[dropped][0])
@@ -197,7 +212,7 @@ def run(args) -> int:
         print("\t".join(fields))
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
-    if lexicalized is not None:
+    if args.heads_out is not None:
         write_heads(args, lexicalized, fmt, lines, inputs)
     return 0
 

@@ -32,7 +32,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
     p.add_argument("--text", help="raw sentences for examples and the heat map (without --gold)")
     p.add_argument("--grammar", help="grammar: text file, JSON export or run folder (default: RUN/grammar.pcfg)")
-    p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
+    # The lexicalized decoder is parse's only: the report decodes with grammars.
+    p.add_argument("--decoder", choices=[d for d in DECODER_NAMES if d != "lexicalized"],
+                   default=None,
                    help="how trees are chosen (default: max-rule-product for a refined grammar, "
                         "consensus for a run that saved two or more restarts, else mbr; "
                         "consensus: every restart the run saved, see parse --help)")
