@@ -38,25 +38,31 @@ def _metric_lines(run: Path) -> list[dict]:
             for line in (run / "metrics.jsonl").read_text().splitlines()]
 
 
+def _stopped_in_sweep(k: int, config: Path, run: Path, monkeypatch) -> None:
+    """Run `config` into `run` and interrupt it as its k-th chain sweep starts (that sweep's
+    work is lost, as when the process is killed)."""
+    calls = {"n": 0}
+    sweep = Chain.sweep
+
+    def stopping(chain, temperature):
+        calls["n"] += 1
+        if calls["n"] == k:
+            raise KeyboardInterrupt
+        sweep(chain, temperature)
+
+    monkeypatch.setattr(Chain, "sweep", stopping)
+    with pytest.raises(KeyboardInterrupt):
+        segment_words(load_segment_config(config), run)
+    monkeypatch.setattr(Chain, "sweep", sweep)
+
+
 def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
     # Reference: the uninterrupted run of the same config. A run stopped in sweep 5 (after
     # the checkpoint of sweep 4, with sweep 5's work lost) and resumed must end with the same
     # chains (restaurants, trees, generator state), outputs and metric lines.
     config = _config(tmp_path, anneal_from=3.0, anneal_sweeps=4, resample_hyperparameters=True)
     straight = segment_words(load_segment_config(config), tmp_path / "straight")
-    calls = {"n": 0}
-    sweep = Chain.sweep
-
-    def stopping(chain, temperature):
-        calls["n"] += 1
-        if calls["n"] == 5:
-            raise KeyboardInterrupt
-        sweep(chain, temperature)
-
-    monkeypatch.setattr(Chain, "sweep", stopping)
-    with pytest.raises(KeyboardInterrupt):
-        segment_words(load_segment_config(config), tmp_path / "halves")
-    monkeypatch.setattr(Chain, "sweep", sweep)
+    _stopped_in_sweep(5, config, tmp_path / "halves", monkeypatch)
     state = json.loads((tmp_path / "halves/chains.json").read_text())
     assert state["chains"]["chains"][0]["sweeps"] == 4
     resumed = segment_resume(tmp_path / "halves")
@@ -188,19 +194,7 @@ def test_a_resumed_run_replaces_the_tensorboard_events_logged_after_its_checkpoi
     # session's events from the resumed session's first step on (its purge of orphaned data),
     # must show each sweep once, with metrics.jsonl's values.
     config = _config(tmp_path, checkpoint_every=3)
-    calls = {"n": 0}
-    sweep = Chain.sweep
-
-    def stopping(chain, temperature):
-        calls["n"] += 1
-        if calls["n"] == 5:
-            raise KeyboardInterrupt
-        sweep(chain, temperature)
-
-    monkeypatch.setattr(Chain, "sweep", stopping)
-    with pytest.raises(KeyboardInterrupt):
-        segment_words(load_segment_config(config), tmp_path / "run")
-    monkeypatch.setattr(Chain, "sweep", sweep)
+    _stopped_in_sweep(5, config, tmp_path / "run", monkeypatch)
     assert [m["step"] for m in _metric_lines(tmp_path / "run")] == [0, 1, 2, 3, 4]
     # TensorBoard reads a folder's event files in name order, and a name holds the second it
     # was made and a counter of this process (so ".10" sorts before ".9"): a resumed run, in a
