@@ -183,6 +183,13 @@ def test_most_probable_rules_match_a_plain_sort_of_every_rule(per_symbol):
         assert math.isclose(float(removed[a]), 1.0 - sum(p for p, _, _ in top), abs_tol=1e-12)
 
 
+def _metric_rows(run) -> tuple[list[dict], list[float]]:
+    """A run's metric lines, and the training log-likelihood per word of each epoch line."""
+    rows = [json.loads(x) for x in (run / "metrics.jsonl").read_text().splitlines()]
+    return rows, [r["train/loglik_per_word"] for r in rows
+                  if "epoch" in r and "train/loglik_per_word" in r]
+
+
 def _demo_corpus(folder, name: str, sentences: int, max_words: int):
     """The first `sentences` lines of a demo file with at most `max_words` words (trees: by
     their leaves)."""
@@ -207,9 +214,7 @@ def test_independent_trains_on_demo_text_and_likelihood_rises(tmp_path):
                                        "train.epochs": 3, "optimizer.lr": 0.1,
                                        "train.batch_size": 20}))
     trainer = train(cfg, tmp_path / "run")
-    rows = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text().splitlines()]
-    epochs = [r["train/loglik_per_word"] for r in rows if "epoch" in r
-              and "train/loglik_per_word" in r]
+    rows, epochs = _metric_rows(tmp_path / "run")
     assert len(epochs) >= 3, rows
     assert epochs[-1] > epochs[0] + 0.1, epochs       # gradient ascent on the log-likelihood
     dev = [r for r in rows if "dev/loglik_per_word" in r]
@@ -288,9 +293,7 @@ def test_the_neural_form_trains_on_demo_text_and_likelihood_rises(tmp_path):
                                        "model.embedding_dim": 32, "train.epochs": 3,
                                        "optimizer.lr": 0.01, "train.batch_size": 20}))
     trainer = train(cfg, tmp_path / "run")
-    rows = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text().splitlines()]
-    epochs = [r["train/loglik_per_word"] for r in rows if "epoch" in r
-              and "train/loglik_per_word" in r]
+    rows, epochs = _metric_rows(tmp_path / "run")
     assert len(epochs) == 3 and epochs[-1] > epochs[0] + 0.1, epochs
     # The saved grammar file scores a sentence as the factored model does.
     grammar = load_grammar(trainer.grammar_path_)
@@ -348,9 +351,7 @@ def test_em_on_independent_productions_never_lowers_the_likelihood(tmp_path):
                                        "model.parameterization": "independent",
                                        "train.epochs": 6, "train.tolerance": 0}))
     trainer = train(cfg, tmp_path / "run")
-    rows = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text().splitlines()]
-    epochs = [r["train/loglik_per_word"] for r in rows if "epoch" in r
-              and "train/loglik_per_word" in r]
+    rows, epochs = _metric_rows(tmp_path / "run")
     assert len(epochs) == 6, rows
     assert all(b >= a - 1e-9 * abs(a) for a, b in zip(epochs, epochs[1:])), epochs
     assert epochs[-1] > epochs[0] + 0.1, epochs
