@@ -58,9 +58,9 @@ back-off grammar; --decoder lexicalized reads the model itself.
 """
 
 
-# The names of treewright.decode.DECODERS (one grammar) and ENSEMBLE_DECODERS (a run's restart
-# grammars), written out so that `--help` need not import torch (tests/test_cli_evaluate.py
-# checks that they agree).
+# The names of treewright.decode.DECODERS (one grammar), ENSEMBLE_DECODERS (a run's restart
+# grammars) and MODEL_DECODERS (a lexicalized model), written out so that `--help` need not
+# import torch (tests/test_cli_evaluate.py checks that they agree).
 DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus", "lexicalized")
 
 
