@@ -23,6 +23,11 @@ sentences (`--train-sentences`, 5,000) and test sentences with their generating 
 (`--test-sentences`) are drawn by `treewright.inference.generate` under `--data-seed`, so the
 corpora are the same on every run; the generating grammar is the ceiling. Every restart's grammar
 is scored too (`restarts` in results.json), so restart choice can be studied offline.
+With `--selection S` the words of the drawn trees are drawn again so that every content word
+depends on its head's word (`make_headed_language.select_words`: with probability S it takes
+its head's word class), as words select their dependents in natural languages; the trees and
+heads are those drawn without it, but the text is no longer the generating grammar's, so there
+is no ceiling row.
 
 Consensus of restarts. Every run with two or more restarts and one grammar for all sentences
 (not compound or lexicalized) is also scored with the consensus decoder (`decode.consensus`:
@@ -274,18 +279,20 @@ def mirror_grammar(grammar):
 
 
 def generated_data(order: str, out: Path, train_size: int, test_size: int, max_words: int,
-                   seed: int) -> BenchData:
+                   seed: int, selection: float = 0.0) -> BenchData:
     """Raw training text and gold test trees drawn from the demo grammar (head-final) or its
     mirror (head-initial); no dev set. The generating grammar is written to
-    <out>/<order>.pcfg as the ceiling. Deterministic in `seed`."""
-    from treewright.demo import demo_data_dir
-    from treewright.inference import generate
-    grammar = load_grammar(demo_data_dir() / "grammar.pcfg")
-    if order == "head-initial":
-        grammar = mirror_grammar(grammar)
-    ceiling = out / f"{order}.pcfg"
-    grammar.save(ceiling)
-    trees = generate(grammar, train_size + test_size, seed=seed, max_words=max_words)
+    <out>/<order>.pcfg as the ceiling. Deterministic in `seed`. With `selection` > 0 the
+    content words depend on their heads' words (`make_headed_language.select_words`): the
+    trees are the same, the generating grammar is no longer the model of the text, and there
+    is no ceiling."""
+    from make_headed_language import draw_trees, order_grammar   # it imports this script
+    grammar = order_grammar(order)
+    ceiling = None
+    if selection <= 0:
+        ceiling = out / f"{order}.pcfg"
+        grammar.save(ceiling)
+    trees = draw_trees(order, grammar, train_size + test_size, max_words, seed, selection)
     train_tokens = [t.leaves() for t in trees[:train_size]]
     test = trees[train_size:]
     gold = []
@@ -293,7 +300,7 @@ def generated_data(order: str, out: Path, train_size: int, test_size: int, max_w
         b = Bracketing.from_tree(t)
         gold.append(Bracketing(tuple(t.leaves()), b.spans, b.tags))
     counts = {"train": len(train_tokens), "dev": 0, "test_scored": len(test),
-              "data_seed": seed, "max_words": max_words}
+              "data_seed": seed, "max_words": max_words, "selection": selection}
     return BenchData(train_tokens, [], [EvalSet(f"{order}-test", [t.leaves() for t in test],
                                                 gold, true_dependencies(order, test))],
                      ceiling, counts)
@@ -666,6 +673,10 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
                    "test sentences drawn (gold: their generating trees)")
     p.add_argument("--data-seed", type=int, default=0, help="head-final, head-initial: the "
                    "seed of the drawn corpora")
+    p.add_argument("--selection", type=float, default=0.0, help="head-final, head-initial: "
+                   "strength of lexical selection, the probability that a content word takes "
+                   "its head's word class (scripts/make_headed_language.py; 0: every word "
+                   "drawn from its tag alone, the generating grammar's own text)")
     p.add_argument("--mode", choices=("tokens", "tags"), default="tokens")
     p.add_argument("--methods", default="em", help=f"comma list of {', '.join(METHODS)}")
     p.add_argument("--seeds", default="0,1,2,3", help="comma list of train.seed values")
@@ -734,7 +745,7 @@ def main(argv: list[str] | None = None) -> dict:
     elif args.data in ORDERS:
         # Drawn sentences are at most --max-length tokens, so the trainer sets none aside.
         data = generated_data(args.data, args.out, args.train_sentences, args.test_sentences,
-                              args.max_length, args.data_seed)
+                              args.max_length, args.data_seed, args.selection)
     else:
         data = demo_data(args.eval_max_length, args.sentences)
     args.evals = data.evals

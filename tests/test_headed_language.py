@@ -160,3 +160,51 @@ def test_readme_chain_rows_reproduce():
         assert [float(x) for x in row.groups()[1:]] == [
             round(100 * v, 1) for v in (left.directed, left.undirected, right.directed,
                                         right.undirected)]
+
+
+def test_lexical_selection_keeps_trees_and_heads_and_has_its_strength(tmp_path):
+    # References: the trees drawn without selection (same seed: the selection only redraws
+    # words), the head convention of this file (`reference_heads`), the grammar's own word
+    # lists per tag, and a count against the definition of the selection: a content word whose
+    # head is a content word takes its head's class with probability s + (1 - s) / C (a class
+    # drawn uniformly after a miss can be the head's), a binomial proportion checked to within
+    # five standard deviations.
+    strength, classes = 0.8, headed.SELECTION_CLASSES
+    plain = headed.draw("head-final", 1500, 0, 15, seed=3)[1]
+    grammar, chosen, _ = headed.draw("head-final", 1500, 0, 15, seed=3, selection=strength)
+    lexicon = headed.selection_lexicon(grammar)
+    nt = len(grammar.nonterminals)
+    for tag, groups in lexicon.items():
+        assert tag in headed.CONTENT_TAGS and len(groups) == classes
+        k = grammar.preterminals.index(tag)
+        tagged = {w for w, p in zip(grammar.vocab.words, grammar.lexical[nt + k].exp()) if p > 0}
+        assert sorted(w for words, _ in groups for w in words) == sorted(tagged)
+    class_of = {(tag, w): c for tag, groups in lexicon.items()
+                for c, (words, _) in enumerate(groups) for w in words}
+    same = pairs = changed = 0
+    for before, after in zip(plain, chosen):
+        assert [n.label for n in before.subtrees()] == [n.label for n in after.subtrees()]
+        heads = reference_heads(after, "head-final")
+        assert heads == reference_heads(before, "head-final")
+        tags = [n.label for n in after.subtrees() if n.is_preterminal()]
+        words, old = after.leaves(), before.leaves()
+        for k, (tag, word, head) in enumerate(zip(tags, words, heads)):
+            if tag not in headed.CONTENT_TAGS or head == 0:
+                assert word == old[k]          # function words and the root's word stay
+                continue
+            assert tags[head - 1] in headed.CONTENT_TAGS   # content words head
+            pairs += 1
+            changed += word != old[k]
+            same += class_of[(tag, word)] == class_of[(tags[head - 1], words[head - 1])]
+    expected = strength + (1 - strength) / classes
+    sd = (expected * (1 - expected) / pairs) ** 0.5
+    assert pairs > 2000 and abs(same / pairs - expected) < 5 * sd
+    assert changed > pairs / 2          # the content dependents were drawn again
+    with pytest.raises(ValueError, match="probability"):
+        headed.draw("head-final", 10, 0, 15, seed=3, selection=1.5)
+    # The benchmark reads the same text, with no ceiling (the grammar is not the text's model).
+    data = bench.generated_data("head-final", tmp_path, 1400, 100, 15, seed=3,
+                                selection=strength)
+    assert data.train_tokens == [t.leaves() for t in chosen[:1400]]
+    assert data.evals[0].tokens == [t.leaves() for t in chosen[1400:]]
+    assert data.ceiling is None and not list(tmp_path.iterdir())
