@@ -289,7 +289,7 @@ def generated_data(order: str, out: Path, train_size: int, test_size: int, max_w
     from make_headed_language import draw_trees, order_grammar   # it imports this script
     grammar = order_grammar(order)
     ceiling = None
-    if selection <= 0:
+    if selection == 0:
         ceiling = out / f"{order}.pcfg"
         grammar.save(ceiling)
     trees = draw_trees(order, grammar, train_size + test_size, max_words, seed, selection)

@@ -180,11 +180,11 @@ def draw_trees(order: str, grammar: Grammar, count: int, max_words: int, seed: i
     """`count` trees of the order's generating `grammar` (`order_grammar`), drawn under `seed`;
     with `selection` > 0 their content words are drawn again by `select_words` with that
     strength (its own generator, seeded from `seed`, so the trees are those drawn without it)."""
-    trees = generate(grammar, count, seed=seed, max_words=max_words)
-    if selection <= 0:
-        return trees
-    if selection > 1:
+    if not 0 <= selection <= 1:
         raise ValueError(f"the selection strength is a probability, not {selection}")
+    trees = generate(grammar, count, seed=seed, max_words=max_words)
+    if selection == 0:
+        return trees
     table, lexicon = head_children(order), selection_lexicon(grammar)
     rng = random.Random(f"lexical selection {seed}")
     return [select_words(t, tree_heads(t, table)[0], lexicon, selection, rng) for t in trees]

@@ -200,8 +200,9 @@ def test_lexical_selection_keeps_trees_and_heads_and_has_its_strength(tmp_path):
     sd = (expected * (1 - expected) / pairs) ** 0.5
     assert pairs > 2000 and abs(same / pairs - expected) < 5 * sd
     assert changed > pairs / 2          # the content dependents were drawn again
-    with pytest.raises(ValueError, match="probability"):
-        headed.draw("head-final", 10, 0, 15, seed=3, selection=1.5)
+    for bad in (1.5, -0.1):
+        with pytest.raises(ValueError, match="probability"):
+            headed.draw("head-final", 10, 0, 15, seed=3, selection=bad)
     # The benchmark reads the same text, with no ceiling (the grammar is not the text's model).
     data = bench.generated_data("head-final", tmp_path, 1400, 100, 15, seed=3,
                                 selection=strength)
