@@ -175,6 +175,36 @@ def test_span_head_marginals_match_enumeration():
                         assert math.isclose(float(mark[b, i, h, k]), want, abs_tol=1e-9)
 
 
+def test_head_potentials_weight_every_constituent_by_its_head():
+    # Reference: the enumeration of every lexicalized tree, each weighted by the potentials of
+    # its (span, head) pairs of width >= 2. A potential of -inf on every pair but those of one
+    # dependency tree leaves the sum over that tree's labellings and latent classes alone.
+    lengths = [4, 3]
+    factors = random_factors(lengths, 2, 2, 2, 9)
+    gen = torch.Generator().manual_seed(4)
+    B, N = len(lengths), max(lengths)
+    pot = torch.randn(B, N + 1, N + 1, N, generator=gen, dtype=torch.float64)
+    only = torch.full((B, N + 1, N + 1, N), -math.inf, dtype=torch.float64)
+    kept = {0: {(0, 4): 3, (0, 2): 1, (2, 4): 3}, 1: {(0, 3): 0, (1, 3): 1}}  # (i, j) -> head
+    for b, spans in kept.items():
+        for (i, j), h in spans.items():
+            only[b, i, j - i, h - i] = 0.0
+    from _brute import lexicalized_trees
+    for potentials, allowed in ((pot, None), (only, kept)):
+        logz = lexicalized_log_partition(factors, torch.tensor(lengths), head_pot=potentials)
+        for b, n in enumerate(lengths):
+            terms = []
+            for a, h, nodes, leaves in lexicalized_trees(n, 2, 2):
+                if allowed is not None and any(allowed[b].get((i, j)) != h_
+                                               for i, j, _, h_, *_ in nodes):
+                    continue
+                extra = sum(float(potentials[b, i, j - i, h_ - i]) for i, j, _, h_, *_ in nodes)
+                terms.append(math.log(_tree_probability(factors, b, a, h, nodes, leaves)) + extra)
+            assert terms   # the kept heads form a tree of each sentence
+            want = float(torch.logsumexp(torch.tensor(terms, dtype=torch.float64), 0))
+            assert math.isclose(float(logz[b]), want, rel_tol=0, abs_tol=1e-9)
+
+
 def _tree_probability(f, b, a, h, nodes, leaves):
     """p(tree, sentence b) by the definition of each rule (sum over the latent class)."""
     nt = f.head.shape[2]

@@ -127,9 +127,10 @@ def _windows(x: Tensor, width: int) -> Tensor:
 
 
 def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, semiring: str,
-            pots: dict[int, Tensor] | None = None) -> Tensor:
+            pots: dict[int, Tensor] | None = None, head_pot: Tensor | None = None) -> Tensor:
     """(B,) log Z (or the best derivation's log score) of the batch; `pots[w]`, shaped like the
-    width-w chart (B, P, w, K), is added to its cells (for marginals and Viterbi by gradient)."""
+    width-w chart (B, P, w, K), is added to its cells (for marginals and Viterbi by gradient);
+    `head_pot` as `lexicalized_log_partition` takes it."""
     B, N, NT, R = f.head.shape
     S = f.root.shape[-1]
     T = S - NT
@@ -153,6 +154,8 @@ def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, sem
             cells = _contract(z, _windows(f.head, w), semiring)           # (B, P, w, NT)
             if span_pot is not None:
                 cells = cells + span_pot[:, 0:P, w, None, None]
+            if head_pot is not None:
+                cells = cells + head_pot[:, 0:P, w, :w, None]
             symbols = slice(0, NT)
         if pots is not None:
             cells = cells + pots[w]
@@ -173,14 +176,18 @@ def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, sem
 
 
 def lexicalized_log_partition(factors: LexicalizedFactors, lengths: Tensor,
-                              span_pot: Tensor | None = None) -> Tensor:
+                              span_pot: Tensor | None = None,
+                              head_pot: Tensor | None = None) -> Tensor:
     """(B,) log Z of each sentence, differentiable with respect to every factor.
 
     lengths (B,) sentence lengths (<= N); span_pot (B, N+1, N+1) [b, start, width], optional
-    log-potentials added to every constituent of width >= 2 (as in `engine.inside`). A sentence
-    with no parse gets -inf and zero gradients.
+    log-potentials added to every constituent of width >= 2 (as in `engine.inside`); head_pot
+    (B, N+1, N+1, N) [b, start, width, head - start], optional log-potentials added to every
+    constituent of width >= 2 headed by that word (-inf forbids the pair: a sum over the
+    derivations whose constituents and heads are allowed, e.g. only those of known heads). A
+    sentence with no parse gets -inf and zero gradients.
     """
-    return _inside(factors, torch.as_tensor(lengths), span_pot, "log")
+    return _inside(factors, torch.as_tensor(lengths), span_pot, "log", head_pot=head_pot)
 
 
 def _cell_potentials(factors: LexicalizedFactors) -> dict[int, Tensor]:

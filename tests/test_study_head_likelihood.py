@@ -1,0 +1,83 @@
+"""scripts/study_head_likelihood.py: the constituents a dependency tree allows, against
+brute-force enumeration of every lexicalized binary tree (tests/_brute.py), and one tiny run
+end to end.
+
+References: the enumeration; the fact that a sum over fewer derivations is no larger (the
+likelihood with the gold heads fixed is at most the likelihood with nothing fixed: common
+practice); the chain baselines recomputed here from their definition (every word attached to
+its neighbour)."""
+
+from __future__ import annotations
+
+import importlib.util
+import math
+from pathlib import Path
+
+import pytest
+
+from _brute import lexicalized_trees
+from treewright.engine.lexicalized import heads_from_spans
+
+REPO = Path(__file__).resolve().parents[1]
+_spec = importlib.util.spec_from_file_location("study_head_likelihood",
+                                               REPO / "scripts" / "study_head_likelihood.py")
+study = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(study)
+
+
+def _enumerated(heads: tuple[int, ...]) -> dict[tuple[int, int], set[int]]:
+    """(start, end) -> heads of that span, over every binary lexicalized tree whose dependency
+    tree is `heads` (spans of two or more words)."""
+    n = len(heads)
+    seen: dict[tuple[int, int], set[int]] = {}
+    for _, _, nodes, leaves in lexicalized_trees(n, 1, 1):
+        spans = [(i, j, a, h) for i, j, a, h, *_ in nodes] + [(i, i + 1, k, i) for i, k in leaves]
+        if tuple(heads_from_spans(spans, n)) != heads:
+            continue
+        for i, j, _, h, *_ in nodes:
+            seen.setdefault((i, j), set()).add(h)
+    return seen
+
+
+@pytest.mark.parametrize("heads", [
+    (0, 1, 2, 3, 4),          # a right-going chain
+    (2, 0, 2, 5, 2),          # a head with dependents on both sides
+    (3, 3, 0, 3),             # two left dependents, one right
+    (0, 3, 1, 3, 4, 1),       # mixed
+])
+def test_allowed_spans_are_those_of_every_tree_with_the_gold_heads(heads):
+    allowed = study.allowed_heads(heads)
+    reference = _enumerated(heads)
+    assert reference, "the gold tree must be projective"
+    # Every span some consistent tree has, with its one head; and no other span.
+    assert {span: {h} for span, h in allowed.items()} == reference
+
+
+def test_a_tiny_run_reports_both_conditions(tmp_path):
+    conllu = ("1\tka\t_\tN\t_\t_\t2\tobj\t_\t_\n2\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n"
+              "1\tsi\t_\tN\t_\t_\t3\tnsubj\t_\t_\n2\tka\t_\tN\t_\t_\t3\tobj\t_\t_\n"
+              "3\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n")
+    path = tmp_path / "tiny.conllu"
+    path.write_text(conllu * 6, encoding="utf-8")
+    out = tmp_path / "study.json"
+    result = study.main([str(path), str(path), "--epochs", "2", "--classes", "2",
+                         "--nonterminals", "2", "--preterminals", "2", "--dim", "8",
+                         "--out", str(out)])
+    assert out.exists()
+    assert set(result["conditions"]) == {"free", "gold"}
+    assert result["counts"]["train_sentences"] == 12
+    for condition in result["conditions"].values():
+        assert len(condition["training_curve"]) == 2
+        test = condition["test"]
+        assert test["words_scored"] == 30
+        # Fixing the heads can only remove derivations.
+        assert test["gold_heads_log_likelihood_per_word"] <= \
+            test["log_likelihood_per_word"] + 1e-9
+        assert math.isfinite(test["log_likelihood_per_word"])
+        chains = test["attachment"]
+        # Left chain: each word to the word before it, the first to the root: no word of
+        # either sentence (their heads lie to the right, the root is the last word).
+        assert chains["left_chain"]["directed"] == 0.0
+        # Right chain: each word to the word after it, the last to the root: every word of
+        # both sentences but "si" (whose head is vo, two words on): 4 of 5.
+        assert math.isclose(chains["right_chain"]["directed"], 4 / 5)
