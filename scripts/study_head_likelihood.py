@@ -56,15 +56,16 @@ from treewright.vocab import Vocabulary
 CONDITIONS = ("free", "gold")
 
 
-def read_heads(path: Path) -> tuple[list[Dependencies], int]:
+def read_heads(path: Path, tags: bool = False) -> tuple[list[Dependencies], int]:
     """The sentences of a CoNLL-U file with their heads (lifted where non-projective), and how
-    many were lifted."""
+    many were lifted; with `tags`, the UPOS column stands in for the words."""
     corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift"))
     out, lifted = [], 0
     for s in corpus.sentences:
         heads = lift_to_projective(list(s.heads))
         lifted += heads != list(s.heads)
-        out.append(Dependencies(tuple(s.words), tuple(heads), tuple(s.tags), s.line))
+        out.append(Dependencies(tuple(s.tags if tags else s.words), tuple(heads), tuple(s.tags),
+                                s.line))
     return out, lifted
 
 
@@ -171,11 +172,12 @@ def main(argv: list[str] | None = None) -> dict:
     p.add_argument("--max-length", type=int, default=40,
                    help="training sentences longer than this are left out (and counted)")
     p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--tags", action="store_true", help="the model reads the UPOS column")
     p.add_argument("--out", type=Path, help="also write the figures here as JSON")
     args = p.parse_args(argv)
     torch.set_num_threads(1)
-    train_gold, train_lifted = read_heads(args.train)
-    test_gold, test_lifted = read_heads(args.test)
+    train_gold, train_lifted = read_heads(args.train, args.tags)
+    test_gold, test_lifted = read_heads(args.test, args.tags)
     kept = [d for d in train_gold if len(d.words) <= args.max_length]
     vocab = Vocabulary.from_counts(Counter(w for d in kept for w in d.words), min_count=2)
     train_ids = [vocab.encode(d.words) for d in kept]

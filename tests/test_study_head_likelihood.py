@@ -81,3 +81,7 @@ def test_a_tiny_run_reports_both_conditions(tmp_path):
         # Right chain: each word to the word after it, the last to the root: every word of
         # both sentences but "si" (whose head is vo, two words on): 4 of 5.
         assert math.isclose(chains["right_chain"]["directed"], 4 / 5)
+    # With --tags the model reads the UPOS column: two tags and the unknown word.
+    tagged = study.main([str(path), str(path), "--epochs", "1", "--classes", "2",
+                         "--nonterminals", "2", "--preterminals", "2", "--dim", "8", "--tags"])
+    assert result["counts"]["vocabulary"] == 4 and tagged["counts"]["vocabulary"] == 3
