@@ -6,14 +6,18 @@ decoder's ratio to the training rate (target of issue 24: at least 0.5).
     .venv/bin/python scripts/bench_parse_speed.py --quick          # a smoke run, seconds
 
 Grammars: random tabular grammars (`params.TabularParams`, seed 0) of NT/T = 20/30 and 30/60
-symbols over the demo corpus's vocabulary; the random ones cost what trained ones do, as the
-passes do the same work whatever the numbers are. Every symbol is named as a subcategory,
-`S{i // 2}·{i % 2}` for nonterminal i and `P{j // 2}·{j % 2}` for preterminal j (two
-subcategories per coarse symbol, as `refine.split` names them), so that max-rule-product works
-over coarse symbols as it does on a refined grammar; mbr does not read names. With
-`--unrefined` the symbols are named `S{i}` and `P{j}`, each its own coarse symbol, so that
-max-rule-product takes its path for unrefined grammars (a max-semiring pass). Sentences: the
-first `--sentences` lines of the demo training set of at most `--max-length` words.
+symbols over the demo corpus's vocabulary; with `--em-epochs E`, the same grammars after E EM
+epochs on the benchmark's sentences (trained posteriors: max-rule-product on a refined grammar
+leaves out the spans and labels they rule out, exactly, so its cost depends on the numbers,
+unlike the dense passes'); with `--grammar PATH`, a grammar file instead (for example a
+`treewright refine` run's grammar.pcfg; its sentences are those of `--text`). Every random
+symbol is named as a subcategory, `S{i // 2}·{i % 2}` for nonterminal i and `P{j // 2}·{j % 2}`
+for preterminal j (two subcategories per coarse symbol, as `refine.split` names them), so that
+max-rule-product works over coarse symbols as it does on a refined grammar; mbr does not read
+names. With `--unrefined` the symbols are named `S{i}` and `P{j}`, each its own coarse symbol,
+so that max-rule-product takes its path for unrefined grammars (a max-semiring pass).
+Sentences: the first `--sentences` lines of the demo training set (or `--text`) of at most
+`--max-length` words.
 
 Each tool runs as its user runs it: training with `train.batch_size` (32) in the trainer's
 float32 (`estep.batch_counts` per batch, then the maximum-likelihood update), the decoders
@@ -36,9 +40,9 @@ import torch
 from treewright import decode
 from treewright.allocator import tune_allocator
 from treewright.corpus import length_batches
-from treewright.grammar import Grammar, fine_name
+from treewright.grammar import Grammar, fine_name, load_grammar
 from treewright.params import TabularParams
-from treewright.params.tabular import rules_to_grammar
+from treewright.params.tabular import rules_to_grammar, tabular_from_grammar
 from treewright.train import updates
 from treewright.train.estep import add_counts, batch_counts, make_batch, zero_counts
 from treewright.vocab import Vocabulary
@@ -50,8 +54,9 @@ SIZES = ((20, 30), (30, 60))
 DECODERS = ("mbr", "max-rule-product")
 
 
-def demo_sentences(count: int, max_length: int) -> list[list[str]]:
-    lines = (DEMO / "train.txt").read_text(encoding="utf-8").splitlines()
+def demo_sentences(count: int, max_length: int, path: Path = DEMO / "train.txt"
+                   ) -> list[list[str]]:
+    lines = path.read_text(encoding="utf-8").splitlines()
     sentences = [line.split() for line in lines if 0 < len(line.split()) <= max_length]
     return sentences[:count]
 
@@ -104,6 +109,12 @@ def main(argv: list[str] | None = None) -> dict:
     p.add_argument("--parse-batch-size", type=int, default=16)
     p.add_argument("--unrefined", action="store_true",
                    help="symbols named S0, P0, ... (each its own coarse symbol)")
+    p.add_argument("--em-epochs", type=int, default=0,
+                   help="train each random grammar this many EM epochs on the sentences first")
+    p.add_argument("--grammar", type=Path,
+                   help="time this grammar file instead of the random ones")
+    p.add_argument("--text", type=Path, default=DEMO / "train.txt",
+                   help="the sentences (one per line, words separated by spaces)")
     p.add_argument("--quick", action="store_true",
                    help="a smoke run: 12 sentences of at most 8 words, grammars 4/6, one repeat")
     args = p.parse_args(argv)
@@ -112,26 +123,50 @@ def main(argv: list[str] | None = None) -> dict:
         args.sentences, args.max_length, args.repeats, sizes = 12, 8, 1, ((4, 6),)
     tune_allocator()
     torch.set_num_threads(args.threads)
-    sentences = demo_sentences(args.sentences, args.max_length)
-    vocab = Vocabulary(sorted({w for s in sentences for w in s}))
+    sentences = demo_sentences(args.sentences, args.max_length, args.text)
+    if args.grammar is not None:
+        loaded = load_grammar(args.grammar)
+        vocab = loaded.vocab
+    else:
+        vocab = Vocabulary(sorted({w for s in sentences for w in s}))
     ids = [vocab.encode(s) for s in sentences]
+    for k, (words, row) in enumerate(zip(sentences, ids)):
+        if -1 in row:
+            p.error(f"{args.text}: sentence {k + 1} has {words[row.index(-1)]!r}, which the "
+                    f"grammar's vocabulary lacks (and it has no unknown-word token)")
     groups = length_batches([len(s) for s in sentences], args.train_batch_size)
     batches = [make_batch(g, ids, None, torch.float32) for g in groups]
     words = sum(map(len, sentences))
     print(f"{datetime.datetime.now(datetime.timezone.utc):%Y-%m-%d %H:%M UTC}; torch "
           f"{torch.__version__}, {torch.get_num_threads()} thread(s); load average "
           f"{load_average()}")
-    print(f"{len(sentences)} demo sentences of at most {args.max_length} words ({words} words); "
+    print(f"{len(sentences)} {'demo ' if args.text == DEMO / 'train.txt' else ''}sentences of "
+          f"at most {args.max_length} words ({words} words); "
           f"training batch {args.train_batch_size} float32, parsing batch "
           f"{args.parse_batch_size} float64; best of {args.repeats} alternated repeats; "
-          f"symbols {'unrefined (S0, P0, ...)' if args.unrefined else 'named S0·0, S0·1, ...'}")
+          + (f"grammar {args.grammar}" if args.grammar is not None else
+             "symbols " + ("unrefined (S0, P0, ...)" if args.unrefined else
+                           "named S0·0, S0·1, ...")
+             + (f", after {args.em_epochs} EM epochs" if args.em_epochs else "")))
     figures: dict = {"sentences": len(sentences), "grammars": []}
+    if args.grammar is not None:
+        sizes = ((len(loaded.nonterminals), len(loaded.preterminals)),)
     for nt, t in sizes:
-        model, grammar = random_model(nt, t, vocab, not args.unrefined)
+        if args.grammar is not None:
+            model, grammar = tabular_from_grammar(loaded, vocab, dtype=torch.float32), loaded
+        else:
+            model, grammar = random_model(nt, t, vocab, not args.unrefined)
+            names = split_names if not args.unrefined else plain_names
+            for _ in range(args.em_epochs):
+                em_epoch(model, batches)
+            if args.em_epochs:
+                with torch.no_grad():
+                    grammar = rules_to_grammar(model.rules(), names("S", nt), names("P", t), vocab)
         best = {"train": float("inf"), **{d: float("inf") for d in DECODERS}}
         for _ in range(args.repeats):
             # Alternated so that the machine's drift hits all three alike. Each epoch moves the
-            # model; the decoders keep the starting grammar (same sizes, same work).
+            # model; the decoders keep the grammar they started with (the EM epoch does the
+            # same dense work whatever its numbers are).
             began = time.perf_counter()
             em_epoch(model, batches)
             best["train"] = min(best["train"], time.perf_counter() - began)

@@ -173,6 +173,8 @@ def main(argv: list[str] | None = None) -> dict:
                    help="training sentences longer than this are left out (and counted)")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--tags", action="store_true", help="the model reads the UPOS column")
+    p.add_argument("--condition", choices=("both",) + CONDITIONS, default="both",
+                   help="train only this one (two processes can run the two side by side)")
     p.add_argument("--out", type=Path, help="also write the figures here as JSON")
     args = p.parse_args(argv)
     torch.set_num_threads(1)
@@ -190,9 +192,9 @@ def main(argv: list[str] | None = None) -> dict:
                          "train_lifted": train_lifted, "test_sentences": len(test_gold),
                          "test_lifted": test_lifted, "vocabulary": len(vocab)},
               "options": {k: v for k, v in vars(args).items()
-                          if k not in ("train", "test", "out")},
+                          if k not in ("train", "test", "out", "condition")},
               "torch": torch.__version__, "conditions": {}}
-    for condition in CONDITIONS:
+    for condition in CONDITIONS if args.condition == "both" else (args.condition,):
         model, curve = train(condition, train_ids, train_spans, vocab, args)
         result["conditions"][condition] = {
             "training_curve": curve,

@@ -51,3 +51,24 @@ def test_a_quick_run_reports_its_figures_by_the_stated_rules(capsys):
         ratio = g["ratios"][decoder]
         assert ratio == g["rates"][decoder] / g["rates"]["train"]
         assert re.search(rf"{decoder} .* ratio to training +{ratio:.3f} \(target >= 0.5\)", out)
+
+
+def test_a_grammar_file_and_trained_grammars_are_timed_too(tmp_path, capsys):
+    # Reference: the grammar file's own sizes (a seeded test grammar, written here) and the
+    # sentences of the text file given, counted here directly.
+    sys.path.insert(0, str(REPO / "tests"))
+    from _grammars import random_grammar
+    g = random_grammar(3, 4, 5, seed=2,
+                       names=(["S·0", "S·1", "X·0"], ["P·0", "P·1", "Q·0", "Q·1"]))
+    path = tmp_path / "g.pcfg"
+    path.write_text(g.to_text(), encoding="utf-8")
+    text = tmp_path / "text.txt"
+    text.write_text("w0 w1 w2\nw3 w4\n\nw1 w1 w0 w2\n", encoding="utf-8")
+    r = bench.main(["--grammar", str(path), "--text", str(text), "--repeats", "1"])
+    out = capsys.readouterr().out
+    assert r["sentences"] == 3 and "3 sentences of at most 20 words (9 words)" in out
+    [row] = r["grammars"]
+    assert (row["nt"], row["t"]) == (3, 4) and f"grammar {path}" in out
+    trained = bench.main(["--quick", "--em-epochs", "2"])
+    assert "after 2 EM epochs" in capsys.readouterr().out
+    assert [(x["nt"], x["t"]) for x in trained["grammars"]] == [(4, 6)]

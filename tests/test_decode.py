@@ -16,6 +16,7 @@ from functools import lru_cache
 import pytest
 import torch
 
+from treewright import decode as decode_module
 from treewright import inference
 from treewright.decode import (TreeScorer, coarse_name, decode, max_rule_product, mbr_decode,
                                mbr_spans, span_tables, tree_logprob_summed)
@@ -185,6 +186,104 @@ def test_max_rule_product_matches_enumeration():
         assert sorted(spans) == expect_spans
         result = decode(REFINED, [words], "max-rule-product")[0]
         assert all("·" not in label for _, _, label in result.tree.labeled_spans())
+
+
+# A refined grammar with a third of its binary rules removed: sharper posteriors, so that the
+# floors below leave labeled spans out.
+SPARSE = random_grammar(3, 3, 3, seed=11, sparsity=0.35,
+                        names=(["S·0", "S·1", "X·0"], ["P·0", "P·1", "Q·0"]))
+
+
+@pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])
+def test_max_rule_product_floor_at_the_best_score_keeps_the_best_tree(grammar):
+    # Brute force (coarse_objective): every factor of the objective is a posterior, at most the
+    # marginal of each labeled span it touches, so a floor equal to the best score leaves out
+    # only spans of worse trees, and the pass still finds the enumerated best. A floor above it
+    # finds no tree that reaches the floor (the wrapper then decodes again).
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    for words in SENTENCES:
+        expect_value, expect_spans = coarse_objective(grammar, words)
+        tables = span_tables(grammar, [words])
+        at = torch.tensor([expect_value], dtype=torch.float64)
+        [(spans, value)], found = decode_module._max_rule_product_refined(
+            grammar, tables, [len(words)], layout, at)
+        assert value == pytest.approx(expect_value, abs=1e-9) and sorted(spans) == expect_spans
+        assert float(found[0]) == value
+        _, above = decode_module._max_rule_product_refined(grammar, tables, [len(words)],
+                                                           layout, at + 0.5)
+        assert not float(above[0]) >= float(at[0]) + 0.5
+
+
+@pytest.mark.parametrize("nats_per_word, at_most, passes", [
+    (0.01, 1.0, 2),   # a floor above every best tree: each sentence decoded again
+    (1.5, 1.0, None),  # the shipped floor, forced on
+    (50.0, 1.0, 1),   # a floor that leaves nothing out
+    (1.5, 0.0, 1),    # no floor at all (the guard for diffuse posteriors)
+])
+def test_pruned_max_rule_product_matches_enumeration(monkeypatch, nats_per_word, at_most, passes):
+    # Brute force (coarse_objective) for every path of the exact pruning, on one batch.
+    monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", at_most)
+    real = decode_module._max_rule_product_refined
+    floors = []
+
+    def spy(*args):
+        floors.append(args[-1])
+        return real(*args)
+
+    monkeypatch.setattr(decode_module, "_max_rule_product_refined", spy)
+    for grammar in (REFINED, SPARSE):
+        floors.clear()
+        tables = span_tables(grammar, SENTENCES)
+        results = max_rule_product(grammar, tables, [len(w) for w in SENTENCES])
+        for words, (spans, value) in zip(SENTENCES, results):
+            expect_value, expect_spans = coarse_objective(grammar, words)
+            assert value == pytest.approx(expect_value, abs=1e-9)
+            assert sorted(spans) == expect_spans
+        if passes is not None:
+            assert len(floors) == passes
+        if at_most == 0.0:
+            assert torch.isneginf(floors[0]).all()
+
+
+@pytest.mark.parametrize("nats_per_word", [2.0, 5.0])
+def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkeypatch,
+                                                                          nats_per_word):
+    # Reference: the pass without pruning (checked against enumeration above), on sentences too
+    # long to enumerate, one of them with no parse and one of a single word: the same trees
+    # and the same scores. The floor is forced on; at 2 nats per word most sentences' best
+    # trees fall below it (decoded again with their found score as the floor), at 5 none do.
+    monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
+    real = decode_module._work_items
+    left_out = []
+
+    def spy(parent_log_mu, floor):
+        items = real(parent_log_mu, floor)
+        if floor is not None:
+            left_out.append(parent_log_mu.numel() - sum(len(rows) * (parent_log_mu.shape[-1]
+                            if parents is None else 1) for rows, parents in items))
+        return items
+
+    monkeypatch.setattr(decode_module, "_work_items", spy)
+    g = random_grammar(6, 6, 5, seed=3, sparsity=0.5,
+                       names=([f"S{i // 2}·{i % 2}" for i in range(6)],
+                              [f"P{i // 2}·{i % 2}" for i in range(6)]))
+    g.lexical[6:, 4] = -math.inf            # no preterminal emits w4: no parse
+    gen = torch.Generator().manual_seed(1)
+    sentences = [[f"w{int(k)}" for k in torch.randint(0, 4, (n,), generator=gen)]
+                 for n in (12, 9, 1, 7, 11, 3, 10, 8)]
+    sentences[4][5] = "w4"
+    tables = span_tables(g, sentences)
+    lengths = [len(w) for w in sentences]
+    pruned = max_rule_product(g, tables, lengths)
+    assert sum(left_out) > 0          # the floor left (span, parent) pairs out
+    full = max_rule_product(g, tables, lengths, prune=False)
+    assert pruned[4] is None and [a is None for a in pruned] == [b is None for b in full]
+    assert sum(a is not None for a in pruned) == 6     # the 1-word sentence has no parse either
+    for a, b in zip(pruned, full):
+        if a is not None:
+            assert sorted(a[0]) == sorted(b[0]) and a[1] == b[1]
 
 
 def test_summed_tree_probability_over_refinements():

@@ -215,6 +215,8 @@ class CoarseLayout:
 
 
 MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
+PRUNE_NATS_PER_WORD = 1.5  # max-rule-product's first floor: log mu >= -1.5 nats per word
+PRUNE_AT_MOST = 0.5        # ... used only when it leaves out at least half the pairs
 
 
 def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Tensor, Tensor]:
@@ -243,7 +245,7 @@ def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Te
 
 
 def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
-                     layout: CoarseLayout | None = None
+                     layout: CoarseLayout | None = None, prune: bool = True
                      ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the coarse tree maximizing the product of anchored coarse-rule posteriors
     (None for a sentence with no parse).
@@ -256,6 +258,76 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     Returns the labeled spans (start, end, coarse label), words included, and the log score.
     `layout`: `CoarseLayout.of(grammar, dtype)`, made here when not given (a caller decoding
     many batches makes it once).
+
+    Exact pruning (`prune`, refined grammars). Every factor of the score is a posterior
+    probability, and each is at most the marginal mu of every labeled span it involves (a rule
+    used over a span implies its parent and children there). So a tree's score is at most the
+    smallest mu among its labeled spans, and a tree holding a labeled span with log mu below
+    the score of any other tree cannot be the best. The pass first leaves out every span
+    whose coarse parents all have log mu below a floor of `PRUNE_NATS_PER_WORD` nats per word
+    (when that leaves out at least half of the sentence's spans: `PRUNE_AT_MOST`);
+    when the best tree it finds scores at or above the floor, that bound makes it the best of
+    all trees. Otherwise the sentence is decoded again with its own found score as the floor
+    (or nothing left out, when nothing was found), which is exact by the same bound. The
+    trees and scores are those of the pass without pruning; only the time differs (the
+    posteriors of a trained grammar leave most spans out: see README, "Parsing against
+    training speed").
+    """
+    dtype = tables.inside.dtype
+    lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
+    if lay.slots.shape[1] == 1:
+        return _max_rule_product_unrefined(grammar, tables, lengths, lay)
+    if not prune:
+        return _max_rule_product_refined(grammar, tables, lengths, lay, None)[0]
+    n = torch.tensor(list(lengths))
+    floor = -PRUNE_NATS_PER_WORD * n.to(dtype)
+    # A sentence whose floor would keep more than half of its (span, coarse parent) pairs
+    # (diffuse posteriors, as an untrained grammar's) is decoded without a floor: the first
+    # pass would save little and might have to run again.
+    N1 = tables.marginals.shape[1]
+    start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
+    spans = (width >= 2) & (start + width <= n[:, None, None])          # (B, N+1, N+1)
+    parent_mu = (tables.marginals @ lay.member)[..., :lay.num_parents].log()
+    kept = ((parent_mu >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
+        (spans.sum((1, 2)) * lay.num_parents).clamp(min=1)
+    floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
+    results, values = _max_rule_product_refined(grammar, tables, lengths, lay, floor)
+    parsed = torch.isfinite(tables.logz)
+    redo = (parsed & ~(values >= floor)).nonzero().flatten()
+    if len(redo):
+        sub = engine.SpanTables(logz=tables.logz[redo], inside=tables.inside[redo],
+                                outside=tables.outside[redo], marginals=tables.marginals[redo])
+        again, _ = _max_rule_product_refined(grammar, sub, [lengths[b] for b in redo.tolist()],
+                                             lay, values[redo])
+        for b, result in zip(redo.tolist(), again):
+            results[b] = result
+    return results
+
+
+def _work_items(parent_log_mu: Tensor, floor: Tensor | None
+                ) -> list[tuple[Tensor, Tensor | None]]:
+    """The work of one width of `_max_rule_product_refined`: (rows, None), whole rows with every
+    coarse parent (the sentences without a floor), and (rows, parents), single (row, coarse
+    parent) pairs whose log marginal reaches their sentence's floor, grouped by parent.
+    parent_log_mu (B, P, Kp); rows count (sentence, start) pairs, sentence-major."""
+    B, P, Kp = parent_log_mu.shape
+    if floor is None:
+        return [(torch.arange(B * P), None)]
+    open_ = torch.isneginf(floor)                                        # (B,) no floor
+    whole = (open_[:, None] & torch.ones(B, P, dtype=torch.bool)).flatten().nonzero().flatten()
+    keep = (parent_log_mu >= floor[:, None, None]) & ~open_[:, None, None]
+    pairs = keep.view(B * P, Kp).t().nonzero()                           # (m, 2) parent, row
+    return [(whole, None), (pairs[:, 1], pairs[:, 0])]
+
+
+def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
+                              lengths: Sequence[int], lay: CoarseLayout, floor: Tensor | None
+                              ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
+                                         Tensor]:
+    """`max_rule_product` on a refined grammar over the spans `floor` keeps: with `floor`
+    (B,) (log, per sentence), a span of two or more words whose coarse parents all have a log
+    marginal below its sentence's floor is left out (no tree uses it). Returns the results and
+    the (B,) best log scores found (-inf for a sentence with no tree left).
 
     Batched: one width at a time, every span of every sentence and every split together. The
     best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
@@ -273,17 +345,14 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     symbols, Kp coarse parents, G subcategory slots.
     """
     dtype = tables.inside.dtype
-    lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
-    if lay.slots.shape[1] == 1:
-        return _max_rule_product_unrefined(grammar, tables, lengths, lay)
     K, G = lay.slots.shape
     Kp = lay.num_parents
     B, N1, _, S = tables.inside.shape
     N = N1 - 1
     nt = len(grammar.nonterminals)
-    coarse_marg = tables.marginals @ lay.member                          # (B, N+1, N+1, K)
+    coarse_log = (tables.marginals @ lay.member).log()                  # (B, N+1, N+1, K)
     best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
-    best[:, :, 1] = coarse_marg[:, :, 1].log()
+    best[:, :, 1] = coarse_log[:, :, 1]
     back = torch.zeros(B, N1, N1, max(Kp, 1), 3, dtype=torch.long)      # split, left, right
     pad = torch.full((B, N1, N1, S + 1 - nt), NEG_INF, dtype=dtype)
     outside = torch.cat([tables.outside, pad], -1)[..., lay.slots[:Kp]]  # (B, N+1, N+1, Kp, G)
@@ -297,55 +366,77 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     for w in range(2, N + 1):
         P, U = N - w + 1, w - 1
         us = torch.arange(1, w)
-        starts = torch.arange(P)[:, None] + us[None, :]                 # (P, U) right starts
         rows_all = B * P
         parent, m_par = _shifted(outside[:, 0:P, w])                    # (B, P, Kp, G), (B, P, Kp)
         parent = parent.view(rows_all, Kp, G)
-        left = child[:, 0:P][:, :, us].view(rows_all, U, G, K)
-        right = child[:, starts, w - us].view(rows_all, U, G, K)
-        shift = (child_scale[:, 0:P][:, :, us] + child_scale[:, starts, w - us]).view(rows_all, U)
-        value = torch.empty(rows_all, Kp, dtype=dtype)
-        arg = torch.empty(rows_all, Kp, 3, dtype=torch.long)
+        value = torch.full((rows_all, Kp), NEG_INF, dtype=dtype)
+        arg = torch.zeros(rows_all, Kp, 3, dtype=torch.long)
         # A child of width two or more is a nonterminal: only the Kp parent symbols can be
         # there (the others' entries are zero), so only the word children at the edges (split
         # 1 on the left, w - 1 on the right) range over all K coarse symbols.
         groups = [(0, 1, K, K)] if w == 2 else \
             [(0, 1, K, Kp)] + ([(1, U - 1, Kp, Kp)] if w > 3 else []) + [(U - 1, U, Kp, K)]
-        # Rows per chunk: the largest temporary of a row is the folded rules or a group's sums
-        # over c, (U', Kp, Ky, G, Kz).
-        per_row = max([Kp * G * G * K * K] + [(u1 - u0) * Kp * ky * G * kz
-                                               for u0, u1, ky, kz in groups])
-        chunk = max(1, MRP_CHUNK // per_row)
-        for r0 in range(0, rows_all, chunk):
-            r1 = min(rows_all, r0 + chunk)
-            r = r1 - r0
-            # The parent's outside folded into the rules once per span, (r, x, [c, y, b, z]).
-            par = parent[r0:r1]
-            folded = par[:, :, 0, None] * lay.rules[:, 0]                # (r, Kp, G*K*G*K)
-            for a in range(1, G):
-                folded.addcmul_(par[:, :, a, None], lay.rules[:, a])
-            folded = folded.view(r, 1, Kp, G, K, G, K)
-            tops, ys, zs = [], [], []
-            for u0, u1, ky, kz in groups:
-                top, y, z = _best_pairs(folded[..., :ky, :, :kz], left[r0:r1, u0:u1, :, :ky],
-                                        right[r0:r1, u0:u1, :, :kz])
-                tops.append(top)
-                ys.append(y)
-                zs.append(z)
-            top, y, z = torch.cat(tops, 1), torch.cat(ys, 1), torch.cat(zs, 1)  # (r, U, Kp)
-            scores = top.log() + shift[r0:r1, :, None]
-            value[r0:r1], u = scores.max(1)                              # the first best split
-            arg[r0:r1] = torch.stack([u + 1, y.gather(1, u[:, None]).squeeze(1),
-                                      z.gather(1, u[:, None]).squeeze(1)], -1)
+        for rows, parents in _work_items(coarse_log[:, 0:P, w, :Kp], floor):
+            # rows (m,) of this width's (sentence, start) pairs; parents (m,) the one coarse
+            # parent of each, or None for every parent of each row (kp of them per item).
+            kp = Kp if parents is None else 1
+            # Items per chunk: the largest temporary of an item is the folded rules or a
+            # group's sums over c, (U', kp, Ky, G, Kz).
+            per_item = max([kp * G * G * K * K] + [(u1 - u0) * kp * ky * G * kz
+                                                    for u0, u1, ky, kz in groups])
+            chunk = max(1, MRP_CHUNK // per_item)
+            for r0 in range(0, len(rows), chunk):
+                at = rows[r0:r0 + chunk]
+                r = len(at)
+                rb, ri = at.div(P, rounding_mode="floor")[:, None], at.remainder(P)[:, None]
+                left = child[rb, ri, us[None, :]]                        # (r, U, G, K)
+                right = child[rb, ri + us[None, :], (w - us)[None, :]]
+                shift = child_scale[rb, ri, us[None, :]] + \
+                    child_scale[rb, ri + us[None, :], (w - us)[None, :]]  # (r, U)
+                # The parent's outside folded into the rules once per span and parent,
+                # (r, kp, [c, y, b, z]).
+                if parents is None:
+                    par = parent[at]                                     # (r, Kp, G)
+                    folded = par[:, :, 0, None] * lay.rules[:, 0]
+                    for a in range(1, G):
+                        folded.addcmul_(par[:, :, a, None], lay.rules[:, a])
+                else:
+                    xs = parents[r0:r0 + chunk]
+                    par = parent[at, xs]                                 # (r, G)
+                    folded = torch.empty(r, lay.rules.shape[-1], dtype=dtype)
+                    # Items come grouped by parent (`_work_items`): one product per parent.
+                    run_x, run_n = xs.unique_consecutive(return_counts=True)
+                    end = 0
+                    for x, count in zip(run_x.tolist(), run_n.tolist()):
+                        torch.mm(par[end:end + count], lay.rules[x], out=folded[end:end + count])
+                        end += count
+                folded = folded.view(r, 1, kp, G, K, G, K)
+                tops, ys, zs = [], [], []
+                for u0, u1, ky, kz in groups:
+                    top, y, z = _best_pairs(folded[..., :ky, :, :kz], left[:, u0:u1, :, :ky],
+                                            right[:, u0:u1, :, :kz])
+                    tops.append(top)
+                    ys.append(y)
+                    zs.append(z)
+                top, y, z = torch.cat(tops, 1), torch.cat(ys, 1), torch.cat(zs, 1)  # (r, U, kp)
+                scores = top.log() + shift[:, :, None]
+                top_split, u = scores.max(1)                             # the first best split
+                pointers = torch.stack([u + 1, y.gather(1, u[:, None]).squeeze(1),
+                                        z.gather(1, u[:, None]).squeeze(1)], -1)
+                if parents is None:
+                    value[at], arg[at] = top_split, pointers
+                else:
+                    value[at, xs], arg[at, xs] = top_split[:, 0], pointers[:, 0]
         best[:, 0:P, w, :Kp] = value.view(B, P, Kp) + m_par
         back[:, 0:P, w, :Kp] = arg.view(B, P, Kp, 3)
         child[:, 0:P, w], child_scale[:, 0:P, w] = _shifted(
             inside[:, 0:P, w] + best[:, 0:P, w, None], 2)
-    parsed = torch.isfinite(tables.logz)
     n = torch.tensor(list(lengths), dtype=torch.long)
     every = torch.arange(B)
-    top_scores = best[every, 0, n] + coarse_marg[every, 0, n].log()      # (B, K)
+    top_scores = best[every, 0, n] + coarse_log[every, 0, n]             # (B, K)
     top_value, top = top_scores.max(-1)
+    # A sentence with no parse, or none left by the floor, has no tree to follow.
+    parsed = torch.isfinite(tables.logz) & torch.isfinite(top_value)
     # Follow the back pointers of every sentence together, one tree level at a time.
     found = []
     b, i, w, x = every[parsed], torch.zeros(int(parsed.sum()), dtype=torch.long), \
@@ -362,7 +453,8 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     for sb, si, sw, sx in (torch.cat(found).tolist() if found else []):
         spans[sb].append((si, si + sw, names[sx]))
     values = top_value.tolist()
-    return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())]
+    return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())], \
+        top_value.masked_fill(~parsed, NEG_INF)
 
 
 def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
