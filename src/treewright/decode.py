@@ -263,11 +263,11 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     probability, and each is at most the marginal mu of every labeled span it involves (a rule
     used over a span implies its parent and children there). So a tree's score is at most the
     smallest mu among its labeled spans, and a tree holding a labeled span with log mu below
-    the score of any other tree cannot be the best. The pass first leaves out every span
-    whose coarse parents all have log mu below a floor of `PRUNE_NATS_PER_WORD` nats per word
-    (when that leaves out at least half of the sentence's spans: `PRUNE_AT_MOST`);
-    when the best tree it finds scores at or above the floor, that bound makes it the best of
-    all trees. Otherwise the sentence is decoded again with its own found score as the floor
+    the score of any other tree cannot be the best. The pass first leaves out every (span of
+    two or more words, coarse parent) pair with log mu below a floor of `PRUNE_NATS_PER_WORD`
+    nats per word (when that leaves out at least half of the sentence's pairs:
+    `PRUNE_AT_MOST`); when the best tree it finds scores at or above the floor, that bound
+    makes it the best of all trees. Otherwise the sentence is decoded again with its own found score as the floor
     (or nothing left out, when nothing was found), which is exact by the same bound. The
     trees and scores are those of the pass without pruning; only the time differs (the
     posteriors of a trained grammar leave most spans out: see README, "Parsing against
@@ -324,10 +324,11 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor | None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor]:
-    """`max_rule_product` on a refined grammar over the spans `floor` keeps: with `floor`
-    (B,) (log, per sentence), a span of two or more words whose coarse parents all have a log
-    marginal below its sentence's floor is left out (no tree uses it). Returns the results and
-    the (B,) best log scores found (-inf for a sentence with no tree left).
+    """`max_rule_product` on a refined grammar over the labeled spans `floor` keeps: with
+    `floor` (B,) (log, per sentence), a coarse parent over a span of two or more words whose log
+    marginal is below its sentence's floor is left out (no tree found uses it; -inf keeps
+    everything). Returns the results and the (B,) best log scores found (-inf for a sentence
+    with no tree left).
 
     Batched: one width at a time, every span of every sentence and every split together. The
     best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
