@@ -23,6 +23,7 @@ from treewright.decode import (TreeScorer, coarse_name, decode, max_rule_product
 from _grammars import random_grammar
 from treewright.grammar import Grammar
 from treewright.trees import Tree, tree_from_spans
+from treewright.vocab import Vocabulary
 
 
 def make_grammar(nonterminals, preterminals, num_words, seed, nt_emit=False) -> Grammar:
@@ -212,6 +213,28 @@ def test_max_rule_product_floor_at_the_best_score_keeps_the_best_tree(grammar):
         _, above = decode_module._max_rule_product_refined(grammar, tables, [len(words)],
                                                            layout, at + 0.5)
         assert not float(above[0]) >= float(at[0]) + 0.5
+
+
+def test_max_rule_product_floor_keeps_a_labeled_span_just_above_it():
+    # Hand-worked: "w0 w0" is S·0 (root 0.6) or X·0 (root 0.4) over P·0 P·0, every other choice
+    # forced. The best tree, S over two Ps, scores 0.6 (top label) x 0.6 (its rule's posterior)
+    # = 0.36, while S over the sentence has marginal 0.6: with the floor at log 0.36 that span
+    # is kept, though only 0.51 nats above it. A floor stricter than the bound by that much
+    # would lose the tree.
+    neg = -math.inf
+    binary = torch.full((2, 4, 4), neg, dtype=torch.float64)
+    binary[0, 2, 2] = binary[1, 2, 2] = 0.0
+    lexical = torch.full((4, 2), neg, dtype=torch.float64)
+    lexical[2, 0] = lexical[3, 1] = 0.0
+    g = Grammar(["S·0", "X·0"], ["P·0", "P·1"], Vocabulary(["w0", "w1"], unk=None),
+                torch.tensor([0.6, 0.4], dtype=torch.float64).log(), binary, lexical,
+                start="TOP")
+    tables = span_tables(g, [["w0", "w0"]])
+    layout = decode_module.CoarseLayout.of(g, torch.float64)
+    at = torch.tensor([math.log(0.36)], dtype=torch.float64)
+    [(spans, value)], _ = decode_module._max_rule_product_refined(g, tables, [2], layout, at)
+    assert value == pytest.approx(math.log(0.36), abs=1e-12)
+    assert sorted(spans) == [(0, 1, "P"), (0, 2, "S"), (1, 2, "P")]
 
 
 @pytest.mark.parametrize("nats_per_word, at_most, passes", [
