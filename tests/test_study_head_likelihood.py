@@ -85,3 +85,10 @@ def test_a_tiny_run_reports_both_conditions(tmp_path):
     tagged = study.main([str(path), str(path), "--epochs", "1", "--classes", "2",
                          "--nonterminals", "2", "--preterminals", "2", "--dim", "8", "--tags"])
     assert result["counts"]["vocabulary"] == 4 and tagged["counts"]["vocabulary"] == 3
+    # --condition trains one of the two, from the same start as the run with both: the same
+    # training curve (same seed, same batches) and the same held-out scores.
+    alone = study.main([str(path), str(path), "--epochs", "2", "--classes", "2",
+                        "--nonterminals", "2", "--preterminals", "2", "--dim", "8",
+                        "--condition", "gold"])
+    assert set(alone["conditions"]) == {"gold"}
+    assert alone["conditions"]["gold"] == result["conditions"]["gold"]
