@@ -314,7 +314,7 @@ def _work_items(parent_log_mu: Tensor, floor: Tensor | None
     if floor is None:
         return [(torch.arange(B * P), None)]
     open_ = torch.isneginf(floor)                                        # (B,) no floor
-    whole = (open_[:, None] & torch.ones(B, P, dtype=torch.bool)).flatten().nonzero().flatten()
+    whole = open_.repeat_interleave(P).nonzero().flatten()               # rows of those
     keep = (parent_log_mu >= floor[:, None, None]) & ~open_[:, None, None]
     pairs = keep.view(B * P, Kp).t().nonzero()                           # (m, 2) parent, row
     return [(whole, None), (pairs[:, 1], pairs[:, 0])]
