@@ -26,6 +26,12 @@ trees summed out) and the directed and undirected attachment of its best derivat
 `free` both scores the higher likelihood and gets the heads wrong, the model prefers other
 heads: the search is not to blame.
 
+`--anneal-from B --anneal-epochs K` trains by deterministic annealing (Smith & Eisner 2004):
+each update follows the posterior proportional to p(d)^beta (tree, heads and latent classes;
+`LexicalizedFactors.tempered`), beta rising linearly from B to 1 over the first K epochs, a
+search that keeps the head choices open longer. The training curve of those epochs reports
+(1/beta) log sum_d p(d)^beta; the held-out scores are untempered.
+
 Non-projective gold trees are lifted to projective ones (`corpus.lift_to_projective`) and
 counted. A test word outside the training vocabulary (which keeps words seen twice or more)
 reads as the unknown word. The figures are printed and, with --out, written as JSON; nothing
@@ -116,8 +122,9 @@ def train(condition: str, ids: list[list[int]], spans: list[dict], vocab: Vocabu
         for batch in batches:
             tokens, lengths = pad_ids([ids[k] for k in batch])
             pot = potentials([spans[k] for k in batch], tokens.shape[1], condition == "gold")
-            logz = lexicalized_log_partition(model.factors(tokens, lengths), lengths,
-                                             head_pot=pot)
+            beta = annealing_exponent(step, len(batches), args)
+            logz = lexicalized_log_partition(model.factors(tokens, lengths).tempered(beta),
+                                             lengths, head_pot=pot) / beta
             for group in optimizer.param_groups:
                 group["lr"] = learning_rate(step, steps, args.lr, 20, "cosine")
             optimizer.zero_grad()
@@ -131,6 +138,15 @@ def train(condition: str, ids: list[list[int]], spans: list[dict], vocab: Vocabu
               f"{total / words:.4f} ({time.monotonic() - started:.0f} s)", file=sys.stderr,
               flush=True)
     return model, curve
+
+
+def annealing_exponent(step: int, steps_per_epoch: int, args) -> float:
+    """beta of deterministic annealing at this update: from --anneal-from up to 1, linearly
+    over the first --anneal-epochs epochs (1 throughout without annealing)."""
+    if args.anneal_epochs <= 0:
+        return 1.0
+    done = min(1.0, step / (args.anneal_epochs * steps_per_epoch))
+    return args.anneal_from + (1.0 - args.anneal_from) * done
 
 
 @torch.no_grad()
@@ -173,6 +189,11 @@ def main(argv: list[str] | None = None) -> dict:
                    help="training sentences longer than this are left out (and counted)")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--tags", action="store_true", help="the model reads the UPOS column")
+    p.add_argument("--anneal-from", type=float, default=1.0,
+                   help="deterministic annealing (Smith & Eisner 2004): train on the posterior "
+                        "proportional to p(d)^beta, beta rising linearly from this value to 1")
+    p.add_argument("--anneal-epochs", type=int, default=0,
+                   help="... over this many epochs (0: no annealing)")
     p.add_argument("--condition", choices=("both",) + CONDITIONS, default="both",
                    help="train only this one (two processes can run the two side by side)")
     p.add_argument("--out", type=Path, help="also write the figures here as JSON")

@@ -233,3 +233,48 @@ def test_no_terminal_scores_and_dead_cells_give_finite_gradients():
     ok = torch.isfinite(logz)
     grads = torch.autograd.grad(logz[ok].sum(), [x for x in leaves if x is not None])
     assert all(bool(torch.isfinite(g).all()) for g in grads)
+
+
+@pytest.mark.parametrize("beta", [0.3, 0.7])
+def test_tempered_factors_sum_every_derivation_to_the_power_beta(beta):
+    # Reference: the enumeration of every derivation (tree, heads and the latent class at each
+    # binary node, tests/_brute.py), each weighted by p(d)^beta. Deterministic annealing
+    # (Smith & Eisner 2004) defines log Z_beta = log sum_d p(d)^beta, and its gradient with
+    # respect to a log-weight, divided by beta, is that entry's expected count under the
+    # posterior proportional to p(d)^beta; the root entries are checked against it.
+    from itertools import product
+
+    from _brute import lexicalized_trees
+    lengths, nt, t, r = [4, 3], 2, 2, 2
+    factors = random_factors(lengths, nt, t, r, 11)
+    leaves = LexicalizedFactors(*(x.clone().requires_grad_() for x in factors))
+    logz = lexicalized_log_partition(leaves.tempered(beta), torch.tensor(lengths))
+    f = factors
+    for b, n in enumerate(lengths):
+        scores, roots = [], []
+        for a, h, nodes, leaves_ in lexicalized_trees(n, nt, t):
+            base = float(f.root[b, h, a]) + sum(float(f.terminal[b, i, k - nt])
+                                                 for i, k in leaves_)
+            for classes in product(range(r), repeat=len(nodes)):
+                logp = base + sum(float(f.head[b, h_, a_, c] + f.head_child[c, side, hs]
+                                        + f.dep_child[c, ds] + f.dep_word[b, dh, c])
+                                  for (i, j, a_, h_, side, hs, ds, dh), c in zip(nodes, classes))
+                scores.append(beta * logp)
+                roots.append((h, a))
+        scores = torch.tensor(scores, dtype=torch.float64)
+        want = float(torch.logsumexp(scores, 0))
+        assert math.isclose(float(logz[b].detach()), want, rel_tol=0, abs_tol=1e-9)
+        posterior = torch.softmax(scores, 0)
+        expected = torch.zeros(max(lengths), nt + t, dtype=torch.float64)
+        for (h, a), q in zip(roots, posterior):
+            expected[h, a] += q
+        (grad,) = torch.autograd.grad(logz[b], [leaves.root], retain_graph=True)
+        torch.testing.assert_close(grad[b] / beta, expected, rtol=0, atol=1e-9)
+
+
+def test_tempering_by_one_is_the_identity_and_beta_must_be_positive():
+    factors = random_factors([3], 2, 2, 2, 5)
+    assert factors.tempered(1.0) is factors
+    for bad in (0.0, -0.5, float("nan")):
+        with pytest.raises(ValueError, match="must be positive"):
+            factors.tempered(bad)

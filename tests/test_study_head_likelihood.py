@@ -92,3 +92,34 @@ def test_a_tiny_run_reports_both_conditions(tmp_path):
                         "--condition", "gold"])
     assert set(alone["conditions"]) == {"gold"}
     assert alone["conditions"]["gold"] == result["conditions"]["gold"]
+
+
+def test_annealing_raises_beta_linearly_to_one_and_changes_training():
+    # The schedule (Smith & Eisner 2004 raise beta to 1; linear here): from --anneal-from at
+    # the first update to 1 after --anneal-epochs epochs, 1 throughout when it is 0.
+    class Args:
+        anneal_from, anneal_epochs = 0.4, 2
+    steps_per_epoch = 10
+    assert study.annealing_exponent(0, steps_per_epoch, Args) == pytest.approx(0.4)
+    assert study.annealing_exponent(10, steps_per_epoch, Args) == pytest.approx(0.7)
+    assert study.annealing_exponent(20, steps_per_epoch, Args) == 1.0
+    assert study.annealing_exponent(35, steps_per_epoch, Args) == 1.0
+    Args.anneal_epochs = 0
+    assert study.annealing_exponent(0, steps_per_epoch, Args) == 1.0
+
+
+def test_annealing_trains_another_model_from_the_same_start(tmp_path):
+    conllu = ("1\tka\t_\tN\t_\t_\t2\tobj\t_\t_\n2\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n"
+              "1\tsi\t_\tN\t_\t_\t3\tnsubj\t_\t_\n2\tka\t_\tN\t_\t_\t3\tobj\t_\t_\n"
+              "3\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n")
+    path = tmp_path / "tiny.conllu"
+    path.write_text(conllu * 6, encoding="utf-8")
+    common = [str(path), str(path), "--epochs", "2", "--classes", "2", "--nonterminals", "2",
+              "--preterminals", "2", "--dim", "8", "--condition", "free"]
+    plain = study.main(common)["conditions"]["free"]
+    off = study.main(common + ["--anneal-from", "0.5"])["conditions"]["free"]
+    annealed = study.main(common + ["--anneal-from", "0.5", "--anneal-epochs", "1"])
+    assert off == plain          # no annealing epochs: beta stays 1
+    curve = annealed["conditions"]["free"]["training_curve"]
+    assert curve != plain["training_curve"]
+    assert annealed["options"]["anneal_from"] == 0.5 and all(map(math.isfinite, curve))

@@ -76,6 +76,19 @@ class LexicalizedFactors(NamedTuple):
     dep_word: Tensor    # (B, N, R)   log p(x_h' | H) at every position h'
     terminal: Tensor | None = None  # (B, N, T) log p(T[x_i] -> x_i); None: zero (the paper)
 
+    def tempered(self, beta: float) -> "LexicalizedFactors":
+        """Every log-weight times beta: a derivation (its tree, heads and latent classes)
+        then scores p(d)^beta, so log Z of the result is log sum_d p(d)^beta and its gradient
+        is beta times the expected gradient of log p(d) under the posterior proportional to
+        p(d)^beta, flatter than the model's for beta < 1: the E-step of deterministic
+        annealing (Smith & Eisner 2004, "Annealing Techniques for Unsupervised Statistical
+        Language Learning"). beta = 1 returns the factors themselves."""
+        if beta == 1.0:
+            return self
+        if not beta > 0.0:
+            raise ValueError(f"the annealing exponent must be positive, got {beta}")
+        return LexicalizedFactors(*(None if x is None else x * beta for x in self))
+
 
 class _SafeLog(torch.autograd.Function):
     """log x whose gradient is 0 where x = 0: a dead cell (-inf) passes no NaN backwards."""
