@@ -286,3 +286,42 @@ def main_tree(run: Path, words: list[str]) -> set:
     grammar = load_grammar(run / "grammar.pcfg", tolerance=1e-4)
     (result,) = decode(grammar, [words], "mbr")
     return {(i, j) for i, j, _ in result.tree.labeled_spans() if j - i >= 2}
+
+
+def test_annealed_training_follows_the_tempered_posterior_then_the_model(tmp_path):
+    # Deterministic annealing (Smith & Eisner 2004): beta rises linearly from
+    # 1 / train.anneal_from (a temperature) to 1 over train.anneal_epochs epochs (4 updates of 16 sentences an
+    # epoch here), and each update's objective is (1/beta) log sum_d p(d)^beta. References: the
+    # linear schedule recomputed here, and the power-mean inequality (for beta < 1,
+    # (sum_d p_d^beta)^(1/beta) >= sum_d p_d, strictly when two or more derivations have
+    # mass: common practice), on the first update, which both runs make from the same start
+    # on the same batch.
+    headed.write_order("head-final", tmp_path, 60, 12, 8, 0)
+    steps = {}
+    for name, extra in (("plain", []),
+                        ("annealed", ["train.anneal_from=2", "train.anneal_epochs=1"])):
+        assert main(["train", str(CONFIG), f"data.train={tmp_path / 'head-final' / 'train.txt'}",
+                     "data.dev=null", "model.nonterminals=3", "model.preterminals=6",
+                     "model.head_classes=4", "model.embedding_dim=16", "train.epochs=2",
+                     "train.dtype=float64", "optimizer.warmup_steps=0",
+                     f"output.run_dir={tmp_path / name}", "output.progress=false",
+                     "output.stdout_metrics=false", "output.tensorboard=false",
+                     "output.log_every_steps=1", *extra]) == 0
+        lines = [json.loads(x) for x in (tmp_path / name / "metrics.jsonl").read_text(
+            encoding="utf-8").splitlines()]
+        steps[name] = [x for x in lines if "step/loglik_per_word" in x]
+    annealed, plain = steps["annealed"], steps["plain"]
+    assert len(annealed) == len(plain) == 8
+    assert [x.get("anneal_beta") for x in annealed] == [0.5, 0.625, 0.75, 0.875] + [None] * 4
+    assert all("anneal_beta" not in x for x in plain)
+    assert annealed[0]["step/loglik_per_word"] > plain[0]["step/loglik_per_word"] + 1e-6
+
+
+def test_annealing_is_refused_for_a_model_without_it(tmp_path, capsys):
+    text = tmp_path / "t.txt"
+    text.write_text("ka vo\nsi ka vo\n", encoding="utf-8")
+    assert main(["train", str(CONFIG), f"data.train={text}", "data.dev=null",
+                 "model.parameterization=tabular", "train.method=em",
+                 "train.anneal_from=2", "train.anneal_epochs=2",
+                 f"output.run_dir={tmp_path / 'run'}"]) != 0
+    assert "train.anneal_from" in capsys.readouterr().err

@@ -158,10 +158,13 @@ class LexicalizedParams(EmbeddingParams):
                                   dep_word)
 
     def log_partition(self, ids: Tensor, lengths: Tensor, span_pot: Tensor | None = None,
-                      generator: torch.Generator | None = None) -> tuple[Tensor, None]:
-        """(B,) log p(x_b) under the lexicalized model, with gradient; no KL term."""
-        return lexicalized_log_partition(self.factors(ids, lengths), lengths,
-                                         span_pot=span_pot), None
+                      generator: torch.Generator | None = None, beta: float = 1.0
+                      ) -> tuple[Tensor, None]:
+        """(B,) log p(x_b) under the lexicalized model, with gradient; no KL term. With
+        beta < 1, (1/beta) log sum_d p(d)^beta instead, whose gradient is the expected gradient
+        of log p(d) under the annealed posterior (`LexicalizedFactors.tempered`)."""
+        factors = self.factors(ids, lengths).tempered(beta)
+        return lexicalized_log_partition(factors, lengths, span_pot=span_pot) / beta, None
 
     def scorer(self, rules=None) -> "LexicalizedScorer":
         """Dev scores of the lexicalized model (`rules`, the back-off grammar, unused)."""

@@ -126,6 +126,16 @@ class MethodConfig:
                               range="[0, inf)")
     shuffle: bool = option(True, "Online EM and gradient: visit batches in a fresh seeded "
                                  "order each epoch.")
+    anneal_from: float = option(
+        1.0, "Lexicalized: deterministic annealing (Smith & Eisner 2004), the temperature T of "
+             "each restart's first update. Each gradient step follows the posterior "
+             "proportional to p(d)^beta over derivations (tree, heads and latent classes), "
+             "beta = 1/T, flatter than the model's while beta < 1; beta rises linearly from "
+             "1/anneal_from to 1 over the first train.anneal_epochs epochs. The loss and the "
+             "logged likelihood of those epochs are (1/beta) log sum_d p(d)^beta. 1 is off.",
+        range="[1, inf)")
+    anneal_epochs: int = option(0, "... over this many epochs (0: no annealing).",
+                                range="[0, inf)")
 
 
 @dataclass
@@ -311,6 +321,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         bad("train.memory_budget_mb", "the memory estimate does not cover the lexicalized "
                                       "inside pass (it grows as n^4); leave the budget null "
                                       "and cap data.max_length instead")
+    if cfg.train.anneal_epochs > 0 and cfg.train.anneal_from > 1 \
+            and cfg.model.parameterization != "lexicalized":
+        bad("train.anneal_from", "deterministic annealing is implemented for "
+                                 "model.parameterization=lexicalized only")
     if method == "em" and cfg.prior.concentration != 1:
         bad("prior.concentration", "plain em is maximum likelihood (alpha = 1); use "
                                    "train.method=map_em or vb for a Dirichlet prior")

@@ -29,19 +29,32 @@ class Gradient(UpdateMethod):
         o = cfg.optimizer
         self.optimizer = torch.optim.Adam(model.parameters(), lr=o.lr, betas=(o.beta1, o.beta2))
 
+    def annealing_exponent(self, step: Step) -> float:
+        """beta of deterministic annealing (train.anneal_from, train.anneal_epochs) at this
+        update: linear from 1 / anneal_from (a temperature) at the restart's first update to 1
+        after anneal_epochs of its epochs."""
+        t = self.cfg.train
+        if t.anneal_epochs == 0 or t.anneal_from == 1.0:
+            return 1.0
+        start = 1.0 / t.anneal_from
+        steps = t.anneal_epochs * step.total_steps / t.epochs
+        return start + (1.0 - start) * min(1.0, step.restart_step / steps)
+
     def update(self, step: Step) -> Update:
         o = self.cfg.optimizer
         world = step.world
         (group,) = step.groups
         mine = world.shard_batch(group, step.sentences)
         kl = None
+        beta = self.annealing_exponent(step)
         if mine:
             batch = step.batch(mine)
             # One reparameterized sample per sentence for a latent-variable model, drawn from a
             # generator seeded by the step.
             gen = torch.Generator().manual_seed(sample_seed(self.cfg.train.seed, step.step))
+            extra = {} if beta == 1.0 else {"beta": beta}    # lexicalized only (config check)
             logz, kl = self.model.log_partition(batch.ids, batch.lengths, batch.span_pot,
-                                                gen)                          # (B,), (B,)
+                                                gen, **extra)                 # (B,), (B,)
         else:
             batch = None
             # A worker dealt nothing still joins the all-reduce.
@@ -79,7 +92,8 @@ class Gradient(UpdateMethod):
         if step.progress is not None:
             step.progress.update(len(group))
         return Update(tally(loglik, words, int(sentences), int(unparsed), kl_total),
-                      step_metrics={"lr": lr, "grad_norm": norm})
+                      step_metrics={"lr": lr, "grad_norm": norm,
+                                    **({} if beta == 1.0 else {"anneal_beta": beta})})
 
     def state_tensors(self):
         tensors = {}
