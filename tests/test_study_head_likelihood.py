@@ -53,12 +53,18 @@ def test_allowed_spans_are_those_of_every_tree_with_the_gold_heads(heads):
     assert {span: {h} for span, h in allowed.items()} == reference
 
 
-def test_a_tiny_run_reports_both_conditions(tmp_path):
+def _tiny_treebank(tmp_path: Path) -> Path:
+    """Two head-final sentences, six times each (12 sentences, 30 words)."""
     conllu = ("1\tka\t_\tN\t_\t_\t2\tobj\t_\t_\n2\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n"
               "1\tsi\t_\tN\t_\t_\t3\tnsubj\t_\t_\n2\tka\t_\tN\t_\t_\t3\tobj\t_\t_\n"
               "3\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n")
     path = tmp_path / "tiny.conllu"
     path.write_text(conllu * 6, encoding="utf-8")
+    return path
+
+
+def test_a_tiny_run_reports_both_conditions(tmp_path):
+    path = _tiny_treebank(tmp_path)
     out = tmp_path / "study.json"
     result = study.main([str(path), str(path), "--epochs", "2", "--classes", "2",
                          "--nonterminals", "2", "--preterminals", "2", "--dim", "8",
@@ -109,11 +115,7 @@ def test_annealing_raises_beta_linearly_to_one_and_changes_training():
 
 
 def test_annealing_trains_another_model_from_the_same_start(tmp_path):
-    conllu = ("1\tka\t_\tN\t_\t_\t2\tobj\t_\t_\n2\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n"
-              "1\tsi\t_\tN\t_\t_\t3\tnsubj\t_\t_\n2\tka\t_\tN\t_\t_\t3\tobj\t_\t_\n"
-              "3\tvo\t_\tV\t_\t_\t0\troot\t_\t_\n\n")
-    path = tmp_path / "tiny.conllu"
-    path.write_text(conllu * 6, encoding="utf-8")
+    path = _tiny_treebank(tmp_path)
     common = [str(path), str(path), "--epochs", "2", "--classes", "2", "--nonterminals", "2",
               "--preterminals", "2", "--dim", "8", "--condition", "free"]
     plain = study.main(common)["conditions"]["free"]
