@@ -325,3 +325,7 @@ def test_annealing_is_refused_for_a_model_without_it(tmp_path, capsys):
                  "train.anneal_from=2", "train.anneal_epochs=2",
                  f"output.run_dir={tmp_path / 'run'}"]) != 0
     assert "train.anneal_from" in capsys.readouterr().err
+    assert main(["train", str(CONFIG), f"data.train={text}", "data.dev=null", "train.epochs=3",
+                 "train.anneal_from=2", "train.anneal_epochs=4",
+                 f"output.run_dir={tmp_path / 'run'}"]) != 0
+    assert "would not reach beta = 1 within train.epochs=3" in capsys.readouterr().err

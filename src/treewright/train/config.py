@@ -325,6 +325,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
             and cfg.model.parameterization != "lexicalized":
         bad("train.anneal_from", "deterministic annealing is implemented for "
                                  "model.parameterization=lexicalized only")
+    if cfg.train.anneal_epochs > cfg.train.epochs:
+        bad("train.anneal_epochs", f"annealing over {cfg.train.anneal_epochs} epochs would not "
+                                   f"reach beta = 1 within train.epochs={cfg.train.epochs}, "
+                                   f"so the model would never train on its own likelihood")
     if method == "em" and cfg.prior.concentration != 1:
         bad("prior.concentration", "plain em is maximum likelihood (alpha = 1); use "
                                    "train.method=map_em or vb for a Dirichlet prior")
