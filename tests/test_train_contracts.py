@@ -13,6 +13,7 @@ from _brute import lexicalized_summary
 from test_train_fixtures import brute_force
 from treewright.params import PARAMETERIZATIONS, RuleTensors
 from treewright.train.distributed import LocalWorld
+from treewright.train.config import MethodConfig
 from treewright.train.estep import make_batch
 from treewright.train.methods import METHODS, Step
 
@@ -77,7 +78,7 @@ def test_every_model_gives_log_z_and_span_posteriors_of_its_rules(name):
 
 def _config(method: str):
     return types.SimpleNamespace(
-        train=types.SimpleNamespace(shuffle=True, seed=0),
+        train=MethodConfig(shuffle=True, seed=0),   # the real options, defaults elsewhere
         prior=types.SimpleNamespace(concentration=1.5),
         online=types.SimpleNamespace(stepsize_power=0.7),
         optimizer=types.SimpleNamespace(lr=0.05, beta1=0.75, beta2=0.999, grad_clip=3.0,
