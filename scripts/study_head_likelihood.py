@@ -24,9 +24,9 @@ scored with nothing fixed: log p(sentence) per word (the model's own likelihood,
 trees summed out) and the directed and undirected attachment of its best derivation's heads
 (`evaluation.evaluate_attachment`, punctuation out as `treewright evaluate` takes it out). If
 `free` both scores the higher likelihood and gets the heads wrong, the model prefers other
-heads: the search is not to blame. The converse does not follow: when the gold-trained model is the more
-likely, the free training may only have stopped in a poor optimum, and a better search
-(`--anneal-from`) can find other heads more likely still (docs/lexicalized_notes.md).
+heads: the search is not to blame. The converse does not follow: when the gold-trained model
+is the more likely, the free training may only have stopped in a poor optimum, and a better
+search (`--anneal-from`) can find other heads more likely still (docs/lexicalized_notes.md).
 
 `--anneal-from B --anneal-epochs K` trains by deterministic annealing (Smith & Eisner 2004):
 each update follows the posterior proportional to p(d)^beta (tree, heads and latent classes;

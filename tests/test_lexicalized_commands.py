@@ -290,8 +290,9 @@ def main_tree(run: Path, words: list[str]) -> set:
 
 def test_annealed_training_follows_the_tempered_posterior_then_the_model(tmp_path):
     # Deterministic annealing (Smith & Eisner 2004): beta rises linearly from
-    # 1 / train.anneal_from (a temperature) to 1 over train.anneal_epochs epochs (4 updates of 16 sentences an
-    # epoch here), and each update's objective is (1/beta) log sum_d p(d)^beta. References: the
+    # 1 / train.anneal_from (a temperature) to 1 over train.anneal_epochs epochs (4 updates of
+    # 16 sentences an epoch here), and each update's objective is
+    # (1/beta) log sum_d p(d)^beta. References: the
     # linear schedule recomputed here, and the power-mean inequality (for beta < 1,
     # (sum_d p_d^beta)^(1/beta) >= sum_d p_d, strictly when two or more derivations have
     # mass: common practice), on the first update, which both runs make from the same start
@@ -317,7 +318,7 @@ def test_annealed_training_follows_the_tempered_posterior_then_the_model(tmp_pat
     assert annealed[0]["step/loglik_per_word"] > plain[0]["step/loglik_per_word"] + 1e-6
 
 
-def test_annealing_is_refused_for_a_model_without_it(tmp_path, capsys):
+def test_annealing_is_refused_where_it_cannot_work(tmp_path, capsys):
     text = tmp_path / "t.txt"
     text.write_text("ka vo\nsi ka vo\n", encoding="utf-8")
     assert main(["train", str(CONFIG), f"data.train={text}", "data.dev=null",
