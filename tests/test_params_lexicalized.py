@@ -250,3 +250,30 @@ def test_decode_heads_reports_a_sentence_it_cannot_parse():
     assert out[1].tree is None and out[1].heads == [] and out[1].score == float("-inf")
     assert out[0].tree.leaves() == ["ta", "mo", "sul"] and is_projective_tree(out[0].heads)
     assert out[2].tree.leaves() == ["sul"] and out[2].heads == [0]
+
+
+def test_head_bias_weighs_every_dependent_by_the_word_that_takes_it():
+    # Reference: every lexicalized tree enumerated (tests/_brute.py), each weighted by the
+    # model's rules and, at every binary node, by the bias of its head word's position: a
+    # binary node is where its head word takes one dependent (bias.function_heads).
+    from _brute import lexicalized_trees
+    model = _model()
+    ids = torch.tensor([[0, 3, 1, 4], [2, 2, 0, 0]])
+    lengths = torch.tensor([4, 2])
+    bias = torch.tensor([[-1.5, 0.0, 0.7, -3.0], [0.4, -2.0, 0.0, 0.0]], dtype=torch.float64)
+    with torch.no_grad():
+        logz, _ = model.log_partition(ids, lengths, head_bias=bias)
+        plain, _ = model.log_partition(ids, lengths)
+        f = model.factors(ids, lengths)
+    for b, n in enumerate(lengths.tolist()):
+        terms = []
+        for a, h, nodes, _ in lexicalized_trees(n, model.nonterminals, model.preterminals):
+            logp = float(f.root[b, h, a])   # the model has no preterminal score (terminal None)
+            for i, j, a_, h_, side, hsym, dsym, dh in nodes:
+                logp += float(torch.logsumexp(f.head[b, h_, a_] + f.head_child[:, side, hsym]
+                                              + f.dep_child[:, dsym] + f.dep_word[b, dh], 0))
+                logp += float(bias[b, h_])
+            terms.append(logp)
+        want = float(torch.logsumexp(torch.tensor(terms, dtype=torch.float64), 0))
+        assert math.isclose(float(logz[b]), want, rel_tol=0, abs_tol=1e-9)
+        assert abs(float(logz[b]) - float(plain[b])) > 1e-3   # the bias is not a no-op here

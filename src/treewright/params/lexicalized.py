@@ -158,12 +158,18 @@ class LexicalizedParams(EmbeddingParams):
                                   dep_word)
 
     def log_partition(self, ids: Tensor, lengths: Tensor, span_pot: Tensor | None = None,
-                      generator: torch.Generator | None = None, beta: float = 1.0
-                      ) -> tuple[Tensor, None]:
+                      generator: torch.Generator | None = None, beta: float = 1.0,
+                      head_bias: Tensor | None = None) -> tuple[Tensor, None]:
         """(B,) log p(x_b) under the lexicalized model, with gradient; no KL term. With
         beta < 1, (1/beta) log sum_d p(d)^beta instead, whose gradient is the expected gradient
-        of log p(d) under the annealed posterior (`LexicalizedFactors.tempered`)."""
-        factors = self.factors(ids, lengths).tempered(beta)
+        of log p(d) under the annealed posterior (`LexicalizedFactors.tempered`). `head_bias`
+        (B, N) adds, for every binary node, the log-weight of its head word's position: a
+        binary node is where its head word takes one dependent, so a derivation gains the
+        bias of each word times the number of its dependents (`bias.function_heads`)."""
+        factors = self.factors(ids, lengths)
+        if head_bias is not None:
+            factors = factors._replace(head=factors.head + head_bias[:, :, None, None])
+        factors = factors.tempered(beta)
         return lexicalized_log_partition(factors, lengths, span_pot=span_pot) / beta, None
 
     def scorer(self, rules=None) -> "LexicalizedScorer":

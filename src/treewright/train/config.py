@@ -182,6 +182,12 @@ INDEPENDENT_FORMS = ("independent", "independent-neural")  # the independent pro
 # How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
 TAG_MODE_PIECE_EPOCHS = 3
 
+# `bias.function_words: upos`: the Universal Dependencies tags of function words, the words that
+# attach to the content word of their phrase (de Marneffe et al. 2021, "Universal Dependencies",
+# Computational Linguistics 47(2); the relations aux, cop, case, mark, det, cc and punct).
+UPOS_FUNCTION = "upos"
+UPOS_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT")
+
 
 @dataclass
 class ConstraintsConfig:
@@ -227,6 +233,19 @@ class BiasConfig:
     left_edge: float = option(
         0.0, "The mirror image: log-weight of every span that starts at a sentence's first "
              "word without ending at its last (negative for head-initial languages).")
+    function_heads: float = option(
+        0.0, "Lexicalized: log-weight added during training for every dependent that a "
+             "function word (bias.function_words) takes, that is for every constituent of two "
+             "or more words headed by one. Negative values steer the heads toward content "
+             "words, as Universal Dependencies annotates them (a function word attaches to the "
+             "content word of its phrase); bias.anneal_epochs fades it out as it fades the "
+             "edge bias. 0 is no bias.")
+    function_words: str | None = option(
+        None, "The function words of bias.function_heads: a text file of words, one per line "
+              "(blank lines and lines starting with # are skipped), read as the training "
+              "text is (data.lowercase), or 'upos' for the function-word tags of Universal "
+              "Dependencies (ADP, AUX, CCONJ, DET, PART, SCONJ, PUNCT), when data.tag_mode "
+              "reads UPOS tags.")
     anneal_epochs: int = option(
         0, "Scale the bias linearly from full strength at epoch 0 down to zero at this epoch, "
            "so that the end of training is unbiased; 0 keeps it for the whole run.",
@@ -325,6 +344,16 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
             and cfg.model.parameterization != "lexicalized":
         bad("train.anneal_from", "deterministic annealing is implemented for "
                                  "model.parameterization=lexicalized only")
+    b = cfg.bias
+    if b.function_heads != 0 and cfg.model.parameterization != "lexicalized":
+        bad("bias.function_heads", "the function-word bias acts on heads, which only "
+                                   "model.parameterization=lexicalized has")
+    if b.function_heads != 0 and b.function_words is None:
+        bad("bias.function_words", "bias.function_heads needs the function words: a file of "
+                                   "words, or 'upos' for the tags of Universal Dependencies")
+    if b.function_heads != 0 and b.function_words == UPOS_FUNCTION and not cfg.data.tag_mode:
+        bad("bias.function_words", "'upos' names tags; it needs data.tag_mode=true (for "
+                                   "words, give a file of function words)")
     if cfg.train.anneal_epochs > cfg.train.epochs:
         bad("train.anneal_epochs", f"annealing over {cfg.train.anneal_epochs} epochs would not "
                                    f"reach beta = 1 within train.epochs={cfg.train.epochs}, "

@@ -39,6 +39,8 @@ class Batch:
     ids: Tensor                 # (B, N) word ids; padding is id 0
     lengths: Tensor             # (B,)
     span_pot: Tensor | None     # (B, N+1, N+1) 0 or -inf per span [start, width]; None: free
+    head_bias: Tensor | None = None   # (B, N) lexicalized: log-weight of each dependent the
+                                      # word at each position takes (bias.function_heads)
 
     @property
     def words(self) -> int:

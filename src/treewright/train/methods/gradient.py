@@ -53,6 +53,8 @@ class Gradient(UpdateMethod):
             # generator seeded by the step.
             gen = torch.Generator().manual_seed(sample_seed(self.cfg.train.seed, step.step))
             extra = {} if beta == 1.0 else {"beta": beta}    # lexicalized only (config check)
+            if batch.head_bias is not None:                    # lexicalized only, too
+                extra["head_bias"] = batch.head_bias
             logz, kl = self.model.log_partition(batch.ids, batch.lengths, batch.span_pot,
                                                 gen, **extra)                 # (B,), (B,)
         else:

@@ -1,0 +1,95 @@
+"""The function-word bias of lexicalized training (`bias.function_heads`,
+`bias.function_words`): which words it names, and the head potentials each batch carries.
+
+References: the function-word tags of Universal Dependencies (ADP, AUX, CCONJ, DET, PART, SCONJ
+and PUNCT: the words the guidelines attach by aux, cop, case, mark, det, cc and punct to the
+content word of their phrase; de Marneffe et al. 2021, written from memory of the
+guidelines), and the linear fade of `bias.anneal_epochs` recomputed by hand. What a head
+potential does to log Z is checked against enumeration in tests/test_params_lexicalized.py.
+"""
+
+from __future__ import annotations
+
+import pytest
+import torch
+
+from test_train_fixtures import base_overrides
+from treewright.errors import InputError
+from treewright.train import load_train_config
+from treewright.train.curriculum import Curriculum
+from treewright.train.data import MemoryBudget, load_data, read_function_words
+
+CONLLU = """\
+1\tkel\t_\tDET\t_\t_\t2\tdet\t_\t_
+2\tmarun\t_\tNOUN\t_\t_\t4\tobl\t_\t_
+3\tpa\t_\tADP\t_\t_\t2\tcase\t_\t_
+4\tsovet\t_\tVERB\t_\t_\t0\troot\t_\t_
+
+1\tmarun\t_\tNOUN\t_\t_\t2\tnsubj\t_\t_
+2\tsovet\t_\tVERB\t_\t_\t0\troot\t_\t_
+3\tna\t_\tAUX\t_\t_\t2\taux\t_\t_
+
+"""
+
+
+def _config(tmp_path, *extra, tags=True):
+    path = tmp_path / "train.conllu"
+    path.write_text(CONLLU, encoding="utf-8")
+    values = dict(e.split("=", 1) for e in extra)
+    values.update({"data.format": "conllu", "model.parameterization": "lexicalized",
+                   "train.method": "gradient", "model.head_classes": 2})
+    if tags:
+        values["data.tag_mode"] = "true"
+    return load_train_config(None, base_overrides(tmp_path, path, None, **values))
+
+
+def test_upos_names_the_function_tags_and_batches_carry_their_faded_bias(tmp_path):
+    cfg = _config(tmp_path, "bias.function_heads=-1.5", "bias.function_words=upos",
+                  "bias.anneal_epochs=2")
+    data = load_data(cfg)
+    named = {w for w, on in zip(data.vocab.words, data.function_words.tolist()) if on}
+    assert named == {"DET", "ADP", "AUX"}     # the sentences' function tags; NOUN, VERB not
+    curriculum = Curriculum(cfg, MemoryBudget(cfg, torch.float64), shuffle=False)
+    want = torch.tensor([[-1.5, 0.0, -1.5, 0.0], [0.0, 0.0, -1.5, 0.0]], dtype=torch.float64)
+    for epoch, scale in ((0, 1.0), (1, 0.5)):   # linear from full strength to 0 at epoch 2
+        batch = curriculum.batch(data, [0, 1], epoch, torch.float64)
+        # Padding (the second sentence's fourth position) takes no bias.
+        torch.testing.assert_close(batch.head_bias, want * scale, rtol=0, atol=0)
+    assert curriculum.batch(data, [0, 1], 2, torch.float64).head_bias is None
+    assert any("function words (the function-word tags of Universal Dependencies): 3 in the "
+               "training vocabulary, 4 listed but unused" in note for note in data.notes)
+
+
+def test_a_word_file_is_read_as_the_training_text_is(tmp_path):
+    words = tmp_path / "function.txt"
+    words.write_text("\ufeff# particles\n  PA \n\nKel\n", encoding="utf-8")
+    assert read_function_words(words, lowercase=True) == ["pa", "kel"]
+    assert read_function_words(words, lowercase=False) == ["PA", "Kel"]
+    cfg = _config(tmp_path, "bias.function_heads=-1", f"bias.function_words={words}",
+                  "data.lowercase=true", tags=False)
+    data = load_data(cfg)
+    batch = Curriculum(cfg, MemoryBudget(cfg, torch.float64), False).batch(
+        data, [0], 0, torch.float64)
+    torch.testing.assert_close(batch.head_bias, torch.tensor([[-1.0, 0.0, -1.0, 0.0]],
+                                                             dtype=torch.float64))
+
+
+@pytest.mark.parametrize("text,message", [
+    ("# nothing\n\n", "lists no function words"),
+    ("pa\nkel na\n", "line 2: one function word per line, found 2"),
+])
+def test_bad_word_files_are_refused_with_their_line(tmp_path, text, message):
+    words = tmp_path / "function.txt"
+    words.write_text(text, encoding="utf-8")
+    with pytest.raises(InputError) as err:
+        read_function_words(words, lowercase=False)
+    assert message in str(err.value) and str(words) in str(err.value)
+
+
+def test_a_list_with_no_training_word_is_refused(tmp_path):
+    words = tmp_path / "function.txt"
+    words.write_text("zzz\n", encoding="utf-8")
+    cfg = _config(tmp_path, "bias.function_heads=-1", f"bias.function_words={words}", tags=False)
+    with pytest.raises(InputError) as err:
+        load_data(cfg)
+    assert "none of its function words occurs in the training vocabulary" in str(err.value)
