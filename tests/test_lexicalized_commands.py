@@ -332,8 +332,9 @@ def test_annealing_is_refused_where_it_cannot_work(tmp_path, capsys):
     assert "would not reach beta = 1 within train.epochs=3" in capsys.readouterr().err
 
 
-def test_function_word_bias_weighs_the_dependents_of_function_words(tmp_path):
-    # bias.function_heads adds its log-weight for every dependent a listed word takes, so the
+def test_head_word_bias_weighs_the_dependents_of_listed_words(tmp_path):
+    # bias.head_weight adds its log-weight for every dependent a word of bias.head_list takes
+    # (here function words: determiners, the genitive mark and the final stop), so the
     # first update's objective, log sum_d p(d) exp(bias(d)), falls below the plain
     # log sum_d p(d) (both runs make it from the same start on the same batch; strictly, as
     # some derivation of a sentence of two or more words lets a listed word take a
@@ -344,7 +345,7 @@ def test_function_word_bias_weighs_the_dependents_of_function_words(tmp_path):
                      "vo\n.\nnever-seen\n", encoding="utf-8")
     steps = {}
     for name, extra in (("plain", []),
-                        ("biased", ["bias.function_heads=-2", f"bias.function_words={words}",
+                        ("biased", ["bias.head_weight=-2", f"bias.head_list={words}",
                                     "bias.anneal_epochs=1"])):
         assert main(["train", str(CONFIG), f"data.train={tmp_path / 'head-final' / 'train.txt'}",
                      "data.dev=null", "model.nonterminals=3", "model.preterminals=6",
@@ -358,11 +359,11 @@ def test_function_word_bias_weighs_the_dependents_of_function_words(tmp_path):
         steps[name] = [x["step/loglik_per_word"] for x in lines if "step/loglik_per_word" in x]
     assert steps["biased"][0] < steps["plain"][0] - 1e-6
     log = (tmp_path / "biased" / "train.log").read_text(encoding="utf-8")
-    assert ("function words (" + str(words) + "): 4 in the training vocabulary, "
+    assert ("head list (" + str(words) + "): 4 in the training vocabulary, "
             "1 listed but unused; each dependent they take weighs -2 in training") in log
 
 
-def test_function_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
+def test_head_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
     text = tmp_path / "t.txt"
     text.write_text("ka vo\nsi ka vo\n", encoding="utf-8")
     words = tmp_path / "words.txt"
@@ -370,13 +371,13 @@ def test_function_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
     base = ["train", str(CONFIG), f"data.train={text}", "data.dev=null", "train.epochs=1",
             f"output.run_dir={tmp_path / 'run'}", "output.progress=false"]
     cases = [
-        (["model.parameterization=tabular", "train.method=em", "bias.function_heads=-1",
-          f"bias.function_words={words}"], "bias.function_heads"),
-        (["bias.function_heads=-1"], "bias.function_heads needs the function words"),
-        (["bias.function_heads=-1", "bias.function_words=upos"], "data.tag_mode=true"),
-        (["bias.function_heads=-1", f"bias.function_words={words}"],
-         f"{words}, line 2: one function word per line, found 2"),
-        (["bias.function_heads=-1", f"bias.function_words={tmp_path / 'missing.txt'}"],
+        (["model.parameterization=tabular", "train.method=em", "bias.head_weight=-1",
+          f"bias.head_list={words}"], "bias.head_weight"),
+        (["bias.head_weight=-1"], "bias.head_weight needs the words it applies to"),
+        (["bias.head_weight=-1", "bias.head_list=ud-function"], "data.tag_mode=true"),
+        (["bias.head_weight=-1", f"bias.head_list={words}"],
+         f"{words}, line 2: one word per line, found 2"),
+        (["bias.head_weight=-1", f"bias.head_list={tmp_path / 'missing.txt'}"],
          "no such file"),
     ]
     for extra, message in cases:

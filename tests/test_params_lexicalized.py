@@ -255,7 +255,7 @@ def test_decode_heads_reports_a_sentence_it_cannot_parse():
 def test_head_bias_weighs_every_dependent_by_the_word_that_takes_it():
     # Reference: every lexicalized tree enumerated (tests/_brute.py), each weighted by the
     # model's rules and, at every binary node, by the bias of its head word's position: a
-    # binary node is where its head word takes one dependent (bias.function_heads).
+    # binary node is where its head word takes one dependent (bias.head_weight).
     from _brute import lexicalized_trees
     model = _model()
     ids = torch.tensor([[0, 3, 1, 4], [2, 2, 0, 0]])

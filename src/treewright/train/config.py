@@ -182,11 +182,14 @@ INDEPENDENT_FORMS = ("independent", "independent-neural")  # the independent pro
 # How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
 TAG_MODE_PIECE_EPOCHS = 3
 
-# `bias.function_words: upos`: the Universal Dependencies tags of function words, the words that
+# `bias.head_list: ud-function`: the Universal Dependencies tags of function words, the words that
 # attach to the content word of their phrase (de Marneffe et al. 2021, "Universal Dependencies",
-# Computational Linguistics 47(2); the relations aux, cop, case, mark, det, cc and punct).
-UPOS_FUNCTION = "upos"
-UPOS_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT")
+# Computational Linguistics 47(2); the relations aux, cop, case, mark, det, cc and punct), and
+# the names the older universal tagset gives the same classes (Petrov, Das & McDonald 2012, "A
+# Universal Part-of-Speech Tagset": CONJ, PRT and "." for conjunctions, particles and
+# punctuation), which some treebanks still use.
+UD_FUNCTION = "ud-function"
+UD_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT", "CONJ", "PRT", ".")
 
 
 @dataclass
@@ -233,19 +236,19 @@ class BiasConfig:
     left_edge: float = option(
         0.0, "The mirror image: log-weight of every span that starts at a sentence's first "
              "word without ending at its last (negative for head-initial languages).")
-    function_heads: float = option(
-        0.0, "Lexicalized: log-weight added during training for every dependent that a "
-             "function word (bias.function_words) takes, that is for every constituent of two "
-             "or more words headed by one. Negative values steer the heads toward content "
-             "words, as Universal Dependencies annotates them (a function word attaches to the "
-             "content word of its phrase); bias.anneal_epochs fades it out as it fades the "
+    head_weight: float = option(
+        0.0, "Lexicalized: log-weight added during training for every dependent that a word of "
+             "bias.head_list takes, that is for every constituent of two or more words it "
+             "heads. Negative values keep the listed words from heading (function words, which "
+             "Universal Dependencies attaches to the content word of their phrase); positive "
+             "values draw dependents to them. bias.anneal_epochs fades it out as it fades the "
              "edge bias. 0 is no bias.")
-    function_words: str | None = option(
-        None, "The function words of bias.function_heads: a text file of words, one per line "
+    head_list: str | None = option(
+        None, "The words bias.head_weight applies to: a text file of words, one per line "
               "(blank lines and lines starting with # are skipped), read as the training "
-              "text is (data.lowercase), or 'upos' for the function-word tags of Universal "
-              "Dependencies (ADP, AUX, CCONJ, DET, PART, SCONJ, PUNCT), when data.tag_mode "
-              "reads UPOS tags.")
+              "text is (data.lowercase), or 'ud-function' for the function-word tags of "
+              "Universal Dependencies (ADP, AUX, CCONJ, DET, PART, SCONJ, PUNCT, and the older "
+              "universal tagset's CONJ, PRT and .), when data.tag_mode reads those tags.")
     anneal_epochs: int = option(
         0, "Scale the bias linearly from full strength at epoch 0 down to zero at this epoch, "
            "so that the end of training is unbiased; 0 keeps it for the whole run.",
@@ -345,15 +348,16 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         bad("train.anneal_from", "deterministic annealing is implemented for "
                                  "model.parameterization=lexicalized only")
     b = cfg.bias
-    if b.function_heads != 0 and cfg.model.parameterization != "lexicalized":
-        bad("bias.function_heads", "the function-word bias acts on heads, which only "
-                                   "model.parameterization=lexicalized has")
-    if b.function_heads != 0 and b.function_words is None:
-        bad("bias.function_words", "bias.function_heads needs the function words: a file of "
-                                   "words, or 'upos' for the tags of Universal Dependencies")
-    if b.function_heads != 0 and b.function_words == UPOS_FUNCTION and not cfg.data.tag_mode:
-        bad("bias.function_words", "'upos' names tags; it needs data.tag_mode=true (for "
-                                   "words, give a file of function words)")
+    if b.head_weight != 0 and cfg.model.parameterization != "lexicalized":
+        bad("bias.head_weight", "the head-word bias acts on heads, which only "
+                                "model.parameterization=lexicalized has")
+    if b.head_weight != 0 and b.head_list is None:
+        bad("bias.head_list", "bias.head_weight needs the words it applies to: a file of "
+                              "words, or 'ud-function' for the function tags of Universal "
+                              "Dependencies")
+    if b.head_weight != 0 and b.head_list == UD_FUNCTION and not cfg.data.tag_mode:
+        bad("bias.head_list", f"'{UD_FUNCTION}' names tags; it needs data.tag_mode=true (for "
+                              f"words, give a file of words)")
     if cfg.train.anneal_epochs > cfg.train.epochs:
         bad("train.anneal_epochs", f"annealing over {cfg.train.anneal_epochs} epochs would not "
                                    f"reach beta = 1 within train.epochs={cfg.train.epochs}, "

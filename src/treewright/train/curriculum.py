@@ -81,8 +81,8 @@ class Curriculum:
     def batch(self, data: TrainData, indices: list[int], epoch: int,
               dtype: torch.dtype) -> Batch:
         """The engine batch of training sentences `indices` at `epoch`: partial brackets, the
-        word-piece constraint and the edge bias as span potentials, the function-word bias as
-        head potentials."""
+        word-piece constraint and the edge bias as span potentials, the head-word bias as head
+        potentials."""
         pieces = data.pieces if self.pieces_on(epoch) else None
         brackets = data.brackets if self.brackets_on(epoch) else None
         batch = make_batch(indices, data.train_ids, brackets, dtype, pieces)
@@ -92,7 +92,7 @@ class Curriculum:
             pot = edge_bias(batch.lengths, int(batch.ids.shape[1]), scale * b.right_edge,
                             scale * b.left_edge, dtype)
             batch.span_pot = pot if batch.span_pot is None else batch.span_pot + pot
-        if scale > 0 and b.function_heads != 0 and data.function_words is not None:
-            function = data.function_words[batch.ids.clamp(min=0)] & (batch.ids >= 0)
-            batch.head_bias = function.to(dtype) * (scale * b.function_heads)
+        if scale > 0 and b.head_weight != 0 and data.head_list is not None:
+            listed = data.head_list[batch.ids.clamp(min=0)] & (batch.ids >= 0)
+            batch.head_bias = listed.to(dtype) * (scale * b.head_weight)
         return batch

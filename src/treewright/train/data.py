@@ -20,7 +20,7 @@ from treewright.engine.memory import inside_outside_bytes
 from treewright.errors import InputError
 from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
-from treewright.train.config import UPOS_FUNCTION, UPOS_FUNCTION_TAGS, TrainConfig
+from treewright.train.config import UD_FUNCTION, UD_FUNCTION_TAGS, TrainConfig
 from treewright.train.distributed import StreamedCorpus
 from treewright.word_pieces import barred_positions, host_side
 
@@ -37,8 +37,8 @@ class TrainData:
     notes: list[str]
     pieces: tuple[str, list[list[int]]] | None = None   # host side, barred positions per
                                                         # training sentence (word_pieces)
-    function_words: Tensor | None = None   # (V,) bool: the function words of
-                                            # bias.function_heads, by vocabulary id
+    head_list: Tensor | None = None   # (V,) bool: the words of bias.head_list, by
+                                       # vocabulary id
 
 
 def tree_brackets(tree: Tree) -> list[tuple[int, int]]:
@@ -96,15 +96,15 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
     train_ids = train if d.stream_chunk is not None else \
         [train.encode(s) for s in train.sentences]
     pieces = None if d.stream_chunk is not None else _word_pieces(cfg, train.sentences, notes)
-    function_words = None
-    if cfg.bias.function_heads != 0:
-        function_words = function_word_mask(cfg, vocab, notes)
+    head_list = None
+    if cfg.bias.head_weight != 0:
+        head_list = head_list_mask(cfg, vocab, notes)
     return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes, pieces,
-                     function_words)
+                     head_list)
 
 
-def read_function_words(path: str | Path, lowercase: bool) -> list[str]:
-    """The words of a function-word file (`bias.function_words`): one word per line, blank lines
+def read_head_list(path: str | Path, lowercase: bool) -> list[str]:
+    """The words of a word-list file (`bias.head_list`): one word per line, blank lines
     and lines starting with # skipped, lowercased with the training text. InputError (naming the
     line) for a line of two or more words, and for a file with none."""
     words = []
@@ -113,33 +113,34 @@ def read_function_words(path: str | Path, lowercase: bool) -> list[str]:
         if not text or text.startswith("#"):
             continue
         if len(text.split()) > 1:
-            raise InputError(f"one function word per line, found {len(text.split())}: "
+            raise InputError(f"one word per line, found {len(text.split())}: "
                              f"{text!r}", path=str(path), line=number)
         words.append(text.lower() if lowercase else text)
     if not words:
-        raise InputError("lists no function words (every line is blank or a comment)",
+        raise InputError("lists no words (every line is blank or a comment)",
                          path=str(path))
     return words
 
 
-def function_word_mask(cfg: TrainConfig, vocab, notes: list[str]) -> Tensor:
-    """(V,) bool over the training vocabulary: the words `bias.function_words` names. Listed
+def head_list_mask(cfg: TrainConfig, vocab, notes: list[str]) -> Tensor:
+    """(V,) bool over the training vocabulary: the words `bias.head_list` names. Listed
     words the training text never uses are left out, and the note says how many."""
-    source = cfg.bias.function_words
-    if source == UPOS_FUNCTION:
-        words, where = list(UPOS_FUNCTION_TAGS), "the function-word tags of Universal Dependencies"
+    source = cfg.bias.head_list
+    if source == UD_FUNCTION:
+        words, where = list(UD_FUNCTION_TAGS), "the function-word tags of Universal Dependencies"
     else:
-        words, where = read_function_words(source, cfg.data.lowercase), str(source)
+        words, where = read_head_list(source, cfg.data.lowercase), str(source)
     ids = sorted({vocab.index[w] for w in words if w in vocab.index})
     absent = len(set(words)) - len(ids)
     if not ids:
-        raise InputError("none of its function words occurs in the training vocabulary",
-                         path=None if source == UPOS_FUNCTION else str(source))
+        raise InputError("none of the words of bias.head_list occurs in the training "
+                         "vocabulary",
+                         path=None if source == UD_FUNCTION else str(source))
     mask = torch.zeros(len(vocab), dtype=torch.bool)
     mask[ids] = True
-    notes.append(f"function words ({where}): {len(ids)} in the training vocabulary"
+    notes.append(f"head list ({where}): {len(ids)} in the training vocabulary"
                  + (f", {absent} listed but unused" if absent else "")
-                 + f"; each dependent they take weighs {cfg.bias.function_heads:g} in training")
+                 + f"; each dependent they take weighs {cfg.bias.head_weight:g} in training")
     return mask
 
 

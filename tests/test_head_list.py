@@ -1,10 +1,11 @@
-"""The function-word bias of lexicalized training (`bias.function_heads`,
-`bias.function_words`): which words it names, and the head potentials each batch carries.
+"""The head-word bias of lexicalized training (`bias.head_weight`, `bias.head_list`): which words
+a list names, and the head potentials each batch carries.
 
 References: the function-word tags of Universal Dependencies (ADP, AUX, CCONJ, DET, PART, SCONJ
 and PUNCT: the words the guidelines attach by aux, cop, case, mark, det, cc and punct to the
 content word of their phrase; de Marneffe et al. 2021, written from memory of the
-guidelines), and the linear fade of `bias.anneal_epochs` recomputed by hand. What a head
+guidelines), with the older universal tagset's CONJ, PRT and "." (Petrov, Das & McDonald
+2012, from memory), and the linear fade of `bias.anneal_epochs` recomputed by hand. What a head
 potential does to log Z is checked against enumeration in tests/test_params_lexicalized.py.
 """
 
@@ -17,7 +18,7 @@ from test_train_fixtures import base_overrides
 from treewright.errors import InputError
 from treewright.train import load_train_config
 from treewright.train.curriculum import Curriculum
-from treewright.train.data import MemoryBudget, load_data, read_function_words
+from treewright.train.data import MemoryBudget, load_data, read_head_list
 
 CONLLU = """\
 1\tkel\t_\tDET\t_\t_\t2\tdet\t_\t_
@@ -43,11 +44,11 @@ def _config(tmp_path, *extra, tags=True):
     return load_train_config(None, base_overrides(tmp_path, path, None, **values))
 
 
-def test_upos_names_the_function_tags_and_batches_carry_their_faded_bias(tmp_path):
-    cfg = _config(tmp_path, "bias.function_heads=-1.5", "bias.function_words=upos",
+def test_ud_function_names_the_function_tags_and_batches_carry_their_faded_bias(tmp_path):
+    cfg = _config(tmp_path, "bias.head_weight=-1.5", "bias.head_list=ud-function",
                   "bias.anneal_epochs=2")
     data = load_data(cfg)
-    named = {w for w, on in zip(data.vocab.words, data.function_words.tolist()) if on}
+    named = {w for w, on in zip(data.vocab.words, data.head_list.tolist()) if on}
     assert named == {"DET", "ADP", "AUX"}     # the sentences' function tags; NOUN, VERB not
     curriculum = Curriculum(cfg, MemoryBudget(cfg, torch.float64), shuffle=False)
     want = torch.tensor([[-1.5, 0.0, -1.5, 0.0], [0.0, 0.0, -1.5, 0.0]], dtype=torch.float64)
@@ -56,16 +57,29 @@ def test_upos_names_the_function_tags_and_batches_carry_their_faded_bias(tmp_pat
         # Padding (the second sentence's fourth position) takes no bias.
         torch.testing.assert_close(batch.head_bias, want * scale, rtol=0, atol=0)
     assert curriculum.batch(data, [0, 1], 2, torch.float64).head_bias is None
-    assert any("function words (the function-word tags of Universal Dependencies): 3 in the "
-               "training vocabulary, 4 listed but unused" in note for note in data.notes)
+    assert any("head list (the function-word tags of Universal Dependencies): 3 in the "
+               "training vocabulary, 7 listed but unused" in note for note in data.notes)
 
 
-def test_a_word_file_is_read_as_the_training_text_is(tmp_path):
-    words = tmp_path / "function.txt"
+def test_ud_function_also_names_the_older_universal_tags(tmp_path):
+    # A treebank tagged with the 12 tags of Petrov, Das & McDonald 2012 (as the Turkish
+    # treebank of the benchmark is): CONJ and PRT are its conjunctions and particles.
+    cfg = _config(tmp_path, "bias.head_weight=-1", "bias.head_list=ud-function")
+    path = tmp_path / "older.conllu"
+    path.write_text(CONLLU.replace("ADP", "PRT").replace("\tAUX\t", "\tCONJ\t"),
+                    encoding="utf-8")
+    cfg.data.train = path
+    data = load_data(cfg)
+    named = {w for w, on in zip(data.vocab.words, data.head_list.tolist()) if on}
+    assert named == {"DET", "PRT", "CONJ"}
+
+
+def test_a_word_list_is_read_as_the_training_text_is(tmp_path):
+    words = tmp_path / "listed.txt"
     words.write_text("\ufeff# particles\n  PA \n\nKel\n", encoding="utf-8")
-    assert read_function_words(words, lowercase=True) == ["pa", "kel"]
-    assert read_function_words(words, lowercase=False) == ["PA", "Kel"]
-    cfg = _config(tmp_path, "bias.function_heads=-1", f"bias.function_words={words}",
+    assert read_head_list(words, lowercase=True) == ["pa", "kel"]
+    assert read_head_list(words, lowercase=False) == ["PA", "Kel"]
+    cfg = _config(tmp_path, "bias.head_weight=-1", f"bias.head_list={words}",
                   "data.lowercase=true", tags=False)
     data = load_data(cfg)
     batch = Curriculum(cfg, MemoryBudget(cfg, torch.float64), False).batch(
@@ -75,21 +89,21 @@ def test_a_word_file_is_read_as_the_training_text_is(tmp_path):
 
 
 @pytest.mark.parametrize("text,message", [
-    ("# nothing\n\n", "lists no function words"),
-    ("pa\nkel na\n", "line 2: one function word per line, found 2"),
+    ("# nothing\n\n", "lists no words"),
+    ("pa\nkel na\n", "line 2: one word per line, found 2"),
 ])
 def test_bad_word_files_are_refused_with_their_line(tmp_path, text, message):
-    words = tmp_path / "function.txt"
+    words = tmp_path / "listed.txt"
     words.write_text(text, encoding="utf-8")
     with pytest.raises(InputError) as err:
-        read_function_words(words, lowercase=False)
+        read_head_list(words, lowercase=False)
     assert message in str(err.value) and str(words) in str(err.value)
 
 
 def test_a_list_with_no_training_word_is_refused(tmp_path):
-    words = tmp_path / "function.txt"
+    words = tmp_path / "listed.txt"
     words.write_text("zzz\n", encoding="utf-8")
-    cfg = _config(tmp_path, "bias.function_heads=-1", f"bias.function_words={words}", tags=False)
+    cfg = _config(tmp_path, "bias.head_weight=-1", f"bias.head_list={words}", tags=False)
     with pytest.raises(InputError) as err:
         load_data(cfg)
-    assert "none of its function words occurs in the training vocabulary" in str(err.value)
+    assert "none of the words of bias.head_list occurs in the training vocabulary" in str(err.value)
