@@ -48,8 +48,8 @@ def test_ud_function_names_the_function_tags_and_batches_carry_their_faded_bias(
     cfg = _config(tmp_path, "bias.head_weight=-1.5", "bias.head_list=ud-function",
                   "bias.anneal_epochs=2")
     data = load_data(cfg)
-    named = {w for w, on in zip(data.vocab.words, data.head_list.tolist()) if on}
-    assert named == {"DET", "ADP", "AUX"}     # the sentences' function tags; NOUN, VERB not
+    named = {w: x for w, x in zip(data.vocab.words, data.head_list.tolist()) if x}
+    assert named == {"DET": -1.5, "ADP": -1.5, "AUX": -1.5}   # the function tags; not NOUN, VERB
     curriculum = Curriculum(cfg, MemoryBudget(cfg, torch.float64), shuffle=False)
     want = torch.tensor([[-1.5, 0.0, -1.5, 0.0], [0.0, 0.0, -1.5, 0.0]], dtype=torch.float64)
     for epoch, scale in ((0, 1.0), (1, 0.5)):   # linear from full strength to 0 at epoch 2
@@ -57,8 +57,9 @@ def test_ud_function_names_the_function_tags_and_batches_carry_their_faded_bias(
         # Padding (the second sentence's fourth position) takes no bias.
         torch.testing.assert_close(batch.head_bias, want * scale, rtol=0, atol=0)
     assert curriculum.batch(data, [0, 1], 2, torch.float64).head_bias is None
-    assert any("head list (the function-word tags of Universal Dependencies): 3 in the "
-               "training vocabulary, 7 listed but unused" in note for note in data.notes)
+    assert any("head list (the function-word tags of Universal Dependencies): 3 words in the "
+               "training vocabulary, 7 listed but unused; the log-weight of each dependent they "
+               "take in training: -1.5 for 3" in note for note in data.notes)
 
 
 def test_ud_function_also_names_the_older_universal_tags(tmp_path):
@@ -70,27 +71,34 @@ def test_ud_function_also_names_the_older_universal_tags(tmp_path):
                     encoding="utf-8")
     cfg.data.train = path
     data = load_data(cfg)
-    named = {w for w, on in zip(data.vocab.words, data.head_list.tolist()) if on}
+    named = {w for w, x in zip(data.vocab.words, data.head_list.tolist()) if x}
     assert named == {"DET", "PRT", "CONJ"}
 
 
 def test_a_word_list_is_read_as_the_training_text_is(tmp_path):
+    # A word without a weight of its own takes bias.head_weight; the last of two entries wins.
     words = tmp_path / "listed.txt"
-    words.write_text("\ufeff# particles\n  PA \n\nKel\n", encoding="utf-8")
-    assert read_head_list(words, lowercase=True) == ["pa", "kel"]
-    assert read_head_list(words, lowercase=False) == ["PA", "Kel"]
+    words.write_text("\ufeff# particles\n  PA \n\nKel 0.5\nsovet  2\nsovet 1.25\n",
+                     encoding="utf-8")
+    assert read_head_list(words, lowercase=True) == [("pa", None), ("kel", 0.5),
+                                                     ("sovet", 2.0), ("sovet", 1.25)]
+    assert read_head_list(words, lowercase=False)[:2] == [("PA", None), ("Kel", 0.5)]
     cfg = _config(tmp_path, "bias.head_weight=-1", f"bias.head_list={words}",
-                  "data.lowercase=true", tags=False)
+                  "data.lowercase=true", "bias.anneal_epochs=4", tags=False)
     data = load_data(cfg)
     batch = Curriculum(cfg, MemoryBudget(cfg, torch.float64), False).batch(
-        data, [0], 0, torch.float64)
-    torch.testing.assert_close(batch.head_bias, torch.tensor([[-1.0, 0.0, -1.0, 0.0]],
-                                                             dtype=torch.float64))
+        data, [0, 1], 1, torch.float64)          # kel marun pa sovet / marun sovet na
+    torch.testing.assert_close(batch.head_bias, 0.75 * torch.tensor(
+        [[0.5, 0.0, -1.0, 1.25], [0.0, 1.25, 0.0, 0.0]], dtype=torch.float64))
+    assert any("; the log-weight of each dependent they take in training: -1 for 1, 0.5 for 1, "
+               "1.25 for 1" in note for note in data.notes)
 
 
 @pytest.mark.parametrize("text,message", [
     ("# nothing\n\n", "lists no words"),
-    ("pa\nkel na\n", "line 2: one word per line, found 2"),
+    ("pa\nkel na 2\n", "line 2: a word and at most one weight per line, found 3 fields"),
+    ("pa\n\nkel heavy\n", "line 3: the weight of 'kel' is not a finite number: 'heavy'"),
+    ("kel inf\n", "line 1: the weight of 'kel' is not a finite number: 'inf'"),
 ])
 def test_bad_word_files_are_refused_with_their_line(tmp_path, text, message):
     words = tmp_path / "listed.txt"
@@ -107,3 +115,12 @@ def test_a_list_with_no_training_word_is_refused(tmp_path):
     with pytest.raises(InputError) as err:
         load_data(cfg)
     assert "none of the words of bias.head_list occurs in the training vocabulary" in str(err.value)
+
+
+def test_a_list_that_weighs_nothing_is_refused(tmp_path):
+    words = tmp_path / "listed.txt"
+    words.write_text("kel\npa 0\n", encoding="utf-8")
+    cfg = _config(tmp_path, f"bias.head_list={words}", tags=False)
+    with pytest.raises(InputError) as err:
+        load_data(cfg)
+    assert "every listed word weighs 0" in str(err.value)

@@ -359,8 +359,8 @@ def test_head_word_bias_weighs_the_dependents_of_listed_words(tmp_path):
         steps[name] = [x["step/loglik_per_word"] for x in lines if "step/loglik_per_word" in x]
     assert steps["biased"][0] < steps["plain"][0] - 1e-6
     log = (tmp_path / "biased" / "train.log").read_text(encoding="utf-8")
-    assert ("head list (" + str(words) + "): 4 in the training vocabulary, "
-            "1 listed but unused; each dependent they take weighs -2 in training") in log
+    assert ("head list (" + str(words) + "): 4 words in the training vocabulary, 1 listed but "
+            "unused; the log-weight of each dependent they take in training: -2 for 4") in log
 
 
 def test_head_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
@@ -372,11 +372,13 @@ def test_head_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
             f"output.run_dir={tmp_path / 'run'}", "output.progress=false"]
     cases = [
         (["model.parameterization=tabular", "train.method=em", "bias.head_weight=-1",
-          f"bias.head_list={words}"], "bias.head_weight"),
-        (["bias.head_weight=-1"], "bias.head_weight needs the words it applies to"),
+          f"bias.head_list={words}"], "bias.head_list: the head-word bias acts on heads"),
+        (["bias.head_weight=-1"], "bias.head_weight weighs the words of bias.head_list"),
         (["bias.head_weight=-1", "bias.head_list=ud-function"], "data.tag_mode=true"),
+        (["bias.head_list=ud-function", "data.tag_mode=true"],
+         "'ud-function' gives its tags no weight of their own"),
         (["bias.head_weight=-1", f"bias.head_list={words}"],
-         f"{words}, line 2: one word per line, found 2"),
+         f"{words}, line 2: the weight of 'ka' is not a finite number: 'si'"),
         (["bias.head_weight=-1", f"bias.head_list={tmp_path / 'missing.txt'}"],
          "no such file"),
     ]

@@ -236,19 +236,20 @@ class BiasConfig:
     left_edge: float = option(
         0.0, "The mirror image: log-weight of every span that starts at a sentence's first "
              "word without ending at its last (negative for head-initial languages).")
-    head_weight: float = option(
-        0.0, "Lexicalized: log-weight added during training for every dependent that a word of "
-             "bias.head_list takes, that is for every constituent of two or more words it "
-             "heads. Negative values keep the listed words from heading (function words, which "
-             "Universal Dependencies attaches to the content word of their phrase); positive "
-             "values draw dependents to them. bias.anneal_epochs fades it out as it fades the "
-             "edge bias. 0 is no bias.")
     head_list: str | None = option(
-        None, "The words bias.head_weight applies to: a text file of words, one per line "
-              "(blank lines and lines starting with # are skipped), read as the training "
-              "text is (data.lowercase), or 'ud-function' for the function-word tags of "
-              "Universal Dependencies (ADP, AUX, CCONJ, DET, PART, SCONJ, PUNCT, and the older "
-              "universal tagset's CONJ, PRT and .), when data.tag_mode reads those tags.")
+        None, "Lexicalized: words whose dependents weigh more or less in training. For every "
+              "dependent a listed word takes (every constituent of two or more words it "
+              "heads) its log-weight is added: negative keeps it from heading (function "
+              "words, which Universal Dependencies attaches to the content word of their "
+              "phrase), positive draws dependents to it. A text file, one word per line, "
+              "optionally followed by its own log-weight (blank lines and lines starting with "
+              "# are skipped; words read as the training text is, data.lowercase), or "
+              "'ud-function' for the function-word tags of Universal Dependencies (ADP, AUX, "
+              "CCONJ, DET, PART, SCONJ, PUNCT, and the older universal tagset's CONJ, PRT and "
+              "'.'), when data.tag_mode reads those tags. bias.anneal_epochs fades it out as it "
+              "fades the edge bias. null: no list.")
+    head_weight: float = option(
+        0.0, "The log-weight of the words of bias.head_list that give none of their own.")
     anneal_epochs: int = option(
         0, "Scale the bias linearly from full strength at epoch 0 down to zero at this epoch, "
            "so that the end of training is unbiased; 0 keeps it for the whole run.",
@@ -348,14 +349,17 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         bad("train.anneal_from", "deterministic annealing is implemented for "
                                  "model.parameterization=lexicalized only")
     b = cfg.bias
-    if b.head_weight != 0 and cfg.model.parameterization != "lexicalized":
-        bad("bias.head_weight", "the head-word bias acts on heads, which only "
-                                "model.parameterization=lexicalized has")
+    if b.head_list is not None and cfg.model.parameterization != "lexicalized":
+        bad("bias.head_list", "the head-word bias acts on heads, which only "
+                              "model.parameterization=lexicalized has")
     if b.head_weight != 0 and b.head_list is None:
-        bad("bias.head_list", "bias.head_weight needs the words it applies to: a file of "
-                              "words, or 'ud-function' for the function tags of Universal "
-                              "Dependencies")
-    if b.head_weight != 0 and b.head_list == UD_FUNCTION and not cfg.data.tag_mode:
+        bad("bias.head_weight", "bias.head_weight weighs the words of bias.head_list: a file "
+                                "of words, or 'ud-function' for the function tags of "
+                                "Universal Dependencies")
+    if b.head_list == UD_FUNCTION and b.head_weight == 0:
+        bad("bias.head_weight", f"'{UD_FUNCTION}' gives its tags no weight of their own; set "
+                                f"bias.head_weight (negative keeps them from heading)")
+    if b.head_list == UD_FUNCTION and not cfg.data.tag_mode:
         bad("bias.head_list", f"'{UD_FUNCTION}' names tags; it needs data.tag_mode=true (for "
                               f"words, give a file of words)")
     if cfg.train.anneal_epochs > cfg.train.epochs:

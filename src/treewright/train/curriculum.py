@@ -92,7 +92,7 @@ class Curriculum:
             pot = edge_bias(batch.lengths, int(batch.ids.shape[1]), scale * b.right_edge,
                             scale * b.left_edge, dtype)
             batch.span_pot = pot if batch.span_pot is None else batch.span_pot + pot
-        if scale > 0 and b.head_weight != 0 and data.head_list is not None:
-            listed = data.head_list[batch.ids.clamp(min=0)] & (batch.ids >= 0)
-            batch.head_bias = listed.to(dtype) * (scale * b.head_weight)
+        if scale > 0 and data.head_list is not None:
+            weights = data.head_list[batch.ids.clamp(min=0)].masked_fill(batch.ids < 0, 0.0)
+            batch.head_bias = (weights * scale).to(dtype)
         return batch

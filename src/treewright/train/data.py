@@ -37,8 +37,8 @@ class TrainData:
     notes: list[str]
     pieces: tuple[str, list[list[int]]] | None = None   # host side, barred positions per
                                                         # training sentence (word_pieces)
-    head_list: Tensor | None = None   # (V,) bool: the words of bias.head_list, by
-                                       # vocabulary id
+    head_list: Tensor | None = None   # (V,) float64: the log-weight bias.head_list gives
+                                       # each vocabulary id (0: not listed)
 
 
 def tree_brackets(tree: Tree) -> list[tuple[int, int]]:
@@ -97,51 +97,73 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
         [train.encode(s) for s in train.sentences]
     pieces = None if d.stream_chunk is not None else _word_pieces(cfg, train.sentences, notes)
     head_list = None
-    if cfg.bias.head_weight != 0:
-        head_list = head_list_mask(cfg, vocab, notes)
+    if cfg.bias.head_list is not None:
+        head_list = head_list_weights(cfg, vocab, notes)
     return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes, pieces,
                      head_list)
 
 
-def read_head_list(path: str | Path, lowercase: bool) -> list[str]:
-    """The words of a word-list file (`bias.head_list`): one word per line, blank lines
-    and lines starting with # skipped, lowercased with the training text. InputError (naming the
-    line) for a line of two or more words, and for a file with none."""
-    words = []
+def read_head_list(path: str | Path, lowercase: bool) -> list[tuple[str, float | None]]:
+    """The entries of a word-list file (`bias.head_list`): one word per line, optionally
+    followed by its own log-weight, blank lines and lines starting with # skipped, words
+    lowercased with the training text. InputError (naming the line) for a line of three or more
+    fields or a weight that is not a finite number, and for a file with no word."""
+    entries: list[tuple[str, float | None]] = []
     for number, line in iter_lines(path):
-        text = line.strip()
-        if not text or text.startswith("#"):
+        fields = line.split()
+        if not fields or fields[0].startswith("#"):
             continue
-        if len(text.split()) > 1:
-            raise InputError(f"one word per line, found {len(text.split())}: "
-                             f"{text!r}", path=str(path), line=number)
-        words.append(text.lower() if lowercase else text)
-    if not words:
-        raise InputError("lists no words (every line is blank or a comment)",
-                         path=str(path))
-    return words
+        if len(fields) > 2:
+            raise InputError(f"a word and at most one weight per line, found {len(fields)} "
+                             f"fields: {line.strip()!r}", path=str(path), line=number)
+        weight = None
+        if len(fields) == 2:
+            try:
+                weight = float(fields[1])
+            except ValueError:
+                weight = math.nan
+            if not math.isfinite(weight):
+                raise InputError(f"the weight of {fields[0]!r} is not a finite number: "
+                                 f"{fields[1]!r}", path=str(path), line=number)
+        entries.append((fields[0].lower() if lowercase else fields[0], weight))
+    if not entries:
+        raise InputError("lists no words (every line is blank or a comment)", path=str(path))
+    return entries
 
 
-def head_list_mask(cfg: TrainConfig, vocab, notes: list[str]) -> Tensor:
-    """(V,) bool over the training vocabulary: the words `bias.head_list` names. Listed
-    words the training text never uses are left out, and the note says how many."""
+def head_list_weights(cfg: TrainConfig, vocab, notes: list[str]) -> Tensor:
+    """(V,) float64 over the training vocabulary: the log-weight `bias.head_list` gives each
+    word (its own, else `bias.head_weight`; 0 for words not listed). Listed words the training
+    text never uses are left out, and the note says how many."""
     source = cfg.bias.head_list
     if source == UD_FUNCTION:
-        words, where = list(UD_FUNCTION_TAGS), "the function-word tags of Universal Dependencies"
+        entries: list[tuple[str, float | None]] = [(t, None) for t in UD_FUNCTION_TAGS]
+        where = "the function-word tags of Universal Dependencies"
     else:
-        words, where = read_head_list(source, cfg.data.lowercase), str(source)
-    ids = sorted({vocab.index[w] for w in words if w in vocab.index})
-    absent = len(set(words)) - len(ids)
-    if not ids:
+        entries, where = read_head_list(source, cfg.data.lowercase), str(source)
+    weights = torch.zeros(len(vocab), dtype=torch.float64)
+    used: dict[str, float] = {}
+    for word, weight in entries:    # a word listed twice takes its last weight
+        if word in vocab.index:
+            used[word] = cfg.bias.head_weight if weight is None else weight
+    absent = len({w for w, _ in entries}) - len(used)
+    if not used:
         raise InputError("none of the words of bias.head_list occurs in the training "
-                         "vocabulary",
+                         "vocabulary", path=None if source == UD_FUNCTION else str(source))
+    if not any(used.values()):
+        raise InputError("every listed word weighs 0 (set bias.head_weight, or a weight per "
+                         "word), so the list would change nothing",
                          path=None if source == UD_FUNCTION else str(source))
-    mask = torch.zeros(len(vocab), dtype=torch.bool)
-    mask[ids] = True
-    notes.append(f"head list ({where}): {len(ids)} in the training vocabulary"
+    for word, weight in used.items():
+        weights[vocab.index[word]] = weight
+    counts: dict[float, int] = {}
+    for weight in used.values():
+        counts[weight] = counts.get(weight, 0) + 1
+    spread = ", ".join(f"{w:g} for {n}" for w, n in sorted(counts.items()))
+    notes.append(f"head list ({where}): {len(used)} words in the training vocabulary"
                  + (f", {absent} listed but unused" if absent else "")
-                 + f"; each dependent they take weighs {cfg.bias.head_weight:g} in training")
-    return mask
+                 + f"; the log-weight of each dependent they take in training: {spread}")
+    return weights
 
 
 def _word_pieces(cfg: TrainConfig, sentences, notes: list[str]
