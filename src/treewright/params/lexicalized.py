@@ -165,7 +165,7 @@ class LexicalizedParams(EmbeddingParams):
         of log p(d) under the annealed posterior (`LexicalizedFactors.tempered`). `head_bias`
         (B, N) adds, for every binary node, the log-weight of its head word's position: a
         binary node is where its head word takes one dependent, so a derivation gains the
-        bias of each word times the number of its dependents (`bias.head_weight`)."""
+        bias of each word times the number of its dependents (`bias.head_list`)."""
         factors = self.factors(ids, lengths)
         if head_bias is not None:
             factors = factors._replace(head=factors.head + head_bias[:, :, None, None])

@@ -40,7 +40,7 @@ class Batch:
     lengths: Tensor             # (B,)
     span_pot: Tensor | None     # (B, N+1, N+1) 0 or -inf per span [start, width]; None: free
     head_bias: Tensor | None = None   # (B, N) lexicalized: log-weight of each dependent the
-                                      # word at each position takes (bias.head_weight)
+                                      # word at each position takes (bias.head_list)
 
     @property
     def words(self) -> int:
