@@ -100,14 +100,19 @@ def test_readme_quick_start_has_exactly_two_commands_and_ci_runs_the_test_one():
 
 def test_readme_data_examples_load(tmp_path):
     # The three five-line examples of "Using your own data", in order: raw text, bracketed
-    # trees, CoNLL-U; each must load through the one documented reader.
+    # trees, CoNLL-U; each must load through the one documented reader. Then the head list
+    # of the lexicalized model, through its reader.
     from treewright.corpus import read_corpus
+    from treewright.train.data import read_head_list
 
     section = README.split("## Using your own data", 1)[1].split("\n## ", 1)[0]
     blocks = re.findall(r"```text\n(.*?)```", section, re.S)
-    assert len(blocks) == 3
+    assert len(blocks) == 4
+    (tmp_path / "heads.txt").write_text(blocks[3], encoding="utf-8")
+    assert read_head_list(tmp_path / "heads.txt", lowercase=False) == [
+        ("ko", -2.0), ("vo", -2.0), ("dorvik", 1.0)]
     expected = {"example.txt": 5, "example.trees": 3, "example.conllu": 1}
-    for block, (name, count) in zip(blocks, expected.items()):
+    for block, (name, count) in zip(blocks[:3], expected.items()):
         path = tmp_path / name
         path.write_text(block, encoding="utf-8")
         corpus = read_corpus(path)
