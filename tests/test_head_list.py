@@ -54,7 +54,6 @@ def test_ud_function_names_the_function_tags_and_batches_carry_their_faded_bias(
     want = torch.tensor([[-1.5, 0.0, -1.5, 0.0], [0.0, 0.0, -1.5, 0.0]], dtype=torch.float64)
     for epoch, scale in ((0, 1.0), (1, 0.5)):   # linear from full strength to 0 at epoch 2
         batch = curriculum.batch(data, [0, 1], epoch, torch.float64)
-        # Padding (the second sentence's fourth position) takes no bias.
         torch.testing.assert_close(batch.head_bias, want * scale, rtol=0, atol=0)
     assert curriculum.batch(data, [0, 1], 2, torch.float64).head_bias is None
     assert any("head list (the function-word tags of Universal Dependencies): 3 words in the "
@@ -124,3 +123,17 @@ def test_a_list_that_weighs_nothing_is_refused(tmp_path):
     with pytest.raises(InputError) as err:
         load_data(cfg)
     assert "every listed word weighs 0" in str(err.value)
+
+
+def test_padding_takes_no_bias_whatever_word_id_it_holds(tmp_path):
+    # Every word of the vocabulary listed, so the padding id (0) is a listed word too: the
+    # padded position of the shorter sentence must still carry 0.
+    words = tmp_path / "listed.txt"
+    words.write_text("kel\nmarun\npa\nsovet\nna\n", encoding="utf-8")
+    cfg = _config(tmp_path, "bias.head_weight=0.5", f"bias.head_list={words}", tags=False)
+    data = load_data(cfg)
+    batch = Curriculum(cfg, MemoryBudget(cfg, torch.float64), False).batch(
+        data, [0, 1], 0, torch.float64)
+    assert batch.ids.shape == (2, 4) and int(batch.lengths[1]) == 3
+    torch.testing.assert_close(batch.head_bias, torch.tensor(
+        [[0.5, 0.5, 0.5, 0.5], [0.5, 0.5, 0.5, 0.0]], dtype=torch.float64))

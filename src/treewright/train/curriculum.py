@@ -93,6 +93,9 @@ class Curriculum:
                             scale * b.left_edge, dtype)
             batch.span_pot = pot if batch.span_pot is None else batch.span_pot + pot
         if scale > 0 and data.head_list is not None:
-            weights = data.head_list[batch.ids.clamp(min=0)].masked_fill(batch.ids < 0, 0.0)
+            # Unknown words (-1) and padding take none (padding never enters a score anyway).
+            past = torch.arange(batch.ids.shape[1])[None, :] >= batch.lengths[:, None]
+            weights = data.head_list[batch.ids.clamp(min=0)].masked_fill(
+                (batch.ids < 0) | past, 0.0)
             batch.head_bias = (weights * scale).to(dtype)
         return batch
