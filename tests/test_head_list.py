@@ -107,22 +107,18 @@ def test_bad_word_files_are_refused_with_their_line(tmp_path, text, message):
     assert message in str(err.value) and str(words) in str(err.value)
 
 
-def test_a_list_with_no_training_word_is_refused(tmp_path):
+@pytest.mark.parametrize("text,weight,message", [
+    ("zzz\n", "-1", "none of the words of bias.head_list occurs in the training vocabulary"),
+    ("kel\npa 0\n", "0", "every listed word weighs 0"),
+])
+def test_lists_that_would_change_nothing_are_refused(tmp_path, text, weight, message):
     words = tmp_path / "listed.txt"
-    words.write_text("zzz\n", encoding="utf-8")
-    cfg = _config(tmp_path, "bias.head_weight=-1", f"bias.head_list={words}", tags=False)
+    words.write_text(text, encoding="utf-8")
+    cfg = _config(tmp_path, f"bias.head_weight={weight}", f"bias.head_list={words}",
+                  tags=False)
     with pytest.raises(InputError) as err:
         load_data(cfg)
-    assert "none of the words of bias.head_list occurs in the training vocabulary" in str(err.value)
-
-
-def test_a_list_that_weighs_nothing_is_refused(tmp_path):
-    words = tmp_path / "listed.txt"
-    words.write_text("kel\npa 0\n", encoding="utf-8")
-    cfg = _config(tmp_path, f"bias.head_list={words}", tags=False)
-    with pytest.raises(InputError) as err:
-        load_data(cfg)
-    assert "every listed word weighs 0" in str(err.value)
+    assert message in str(err.value) and str(words) in str(err.value)
 
 
 def test_padding_takes_no_bias_whatever_word_id_it_holds(tmp_path):
