@@ -142,9 +142,10 @@ def test_viterbi_decoder_is_the_most_probable_tree():
         assert result.posterior == pytest.approx(best / total, abs=1e-10)
 
 
-def coarse_objective(g, words):
+def coarse_objective(g, words, spans=None):
     """Brute force max-rule-product: anchored coarse-rule posteriors from the tree list, then
-    the best coarse tree over every bracketing and coarse labeling."""
+    the best coarse tree over every bracketing and coarse labeling (over the bracketing whose
+    spans (i, j) of two or more words are `spans`, when given)."""
     symbols = g.symbols
     nt = len(g.nonterminals)
     cname = [coarse_name(s) for s in symbols]
@@ -164,6 +165,8 @@ def coarse_objective(g, words):
     everyone = sorted(set(cname))
     best, best_tree = -math.inf, None
     for brackets in bracketings(0, n):
+        if spans is not None and sorted((i, j) for i, _, j in brackets) != sorted(spans):
+            continue
         for internal in itertools.product(parents, repeat=len(brackets)):
             for leaves in itertools.product(everyone, repeat=n):
                 label = {(i, i + 1): leaves[i] for i in range(n)}
@@ -195,27 +198,33 @@ SPARSE = random_grammar(3, 3, 3, seed=11, sparsity=0.35,
                         names=(["S·0", "S·1", "X·0"], ["P·0", "P·1", "Q·0"]))
 
 
+# The two exact passes of max-rule-product with a floor: over the whole chart (the kept
+# (span, coarse parent) pairs) and over the kept labeled spans alone (items).
+FLOORED_PASSES = ["_max_rule_product_refined", "_max_rule_product_items"]
+
+
 @pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])
-def test_max_rule_product_floor_at_the_best_score_keeps_the_best_tree(grammar):
+@pytest.mark.parametrize("floored", FLOORED_PASSES)
+def test_max_rule_product_floor_at_the_best_score_keeps_the_best_tree(grammar, floored):
     # Brute force (coarse_objective): every factor of the objective is a posterior, at most the
     # marginal of each labeled span it touches, so a floor equal to the best score leaves out
     # only spans of worse trees, and the pass still finds the enumerated best. A floor above it
     # finds no tree that reaches the floor (the wrapper then decodes again).
+    run = getattr(decode_module, floored)
     layout = decode_module.CoarseLayout.of(grammar, torch.float64)
     for words in SENTENCES:
         expect_value, expect_spans = coarse_objective(grammar, words)
         tables = span_tables(grammar, [words])
         at = torch.tensor([expect_value], dtype=torch.float64)
-        [(spans, value)], found = decode_module._max_rule_product_refined(
-            grammar, tables, [len(words)], layout, at)
+        [(spans, value)], found = run(grammar, tables, [len(words)], layout, at)
         assert value == pytest.approx(expect_value, abs=1e-9) and sorted(spans) == expect_spans
         assert float(found[0]) == value
-        _, above = decode_module._max_rule_product_refined(grammar, tables, [len(words)],
-                                                           layout, at + 0.5)
+        _, above = run(grammar, tables, [len(words)], layout, at + 0.5)
         assert not float(above[0]) >= float(at[0]) + 0.5
 
 
-def test_max_rule_product_floor_keeps_a_labeled_span_just_above_it():
+@pytest.mark.parametrize("floored", FLOORED_PASSES)
+def test_max_rule_product_floor_keeps_a_labeled_span_just_above_it(floored):
     # Hand-worked: "w0 w0" is S·0 (root 0.6) or X·0 (root 0.4) over P·0 P·0, every other choice
     # forced. The best tree, S over two Ps, scores 0.6 (top label) x 0.6 (its rule's posterior)
     # = 0.36, while S over the sentence has marginal 0.6: with the floor at log 0.36 that span
@@ -232,31 +241,100 @@ def test_max_rule_product_floor_keeps_a_labeled_span_just_above_it():
     tables = span_tables(g, [["w0", "w0"]])
     layout = decode_module.CoarseLayout.of(g, torch.float64)
     at = torch.tensor([math.log(0.36)], dtype=torch.float64)
-    [(spans, value)], _ = decode_module._max_rule_product_refined(g, tables, [2], layout, at)
+    [(spans, value)], _ = getattr(decode_module, floored)(g, tables, [2], layout, at)
     assert value == pytest.approx(math.log(0.36), abs=1e-12)
     assert sorted(spans) == [(0, 1, "P"), (0, 2, "S"), (1, 2, "P")]
 
 
+@pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])
+def test_known_tree_floor_is_the_best_labeling_of_the_mbr_bracketing(monkeypatch, grammar):
+    # Brute force (coarse_objective restricted to one bracketing): with every label tried, the
+    # known tree's floor is the best max-rule-product score over labelings of the MBR
+    # bracketing (less the slack), so never above the best of all trees; with one label per
+    # span, the score of the MBR tree under its most probable labels, no higher.
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    tables = span_tables(grammar, SENTENCES)
+    lengths = [len(w) for w in SENTENCES]
+    coarse_log = (tables.marginals @ layout.member).log()
+    floor = torch.full((len(SENTENCES),), -1e6, dtype=torch.float64)
+    brackets = decode_module.mbr_spans_batch(
+        decode_module._span_posteriors(grammar, tables), lengths)
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_LABELS", len(layout.names))
+    every = decode_module._known_tree_floor(grammar, tables, lengths, layout, floor, coarse_log)
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_LABELS", 1)
+    one = decode_module._known_tree_floor(grammar, tables, lengths, layout, floor, coarse_log)
+    for b, words in enumerate(SENTENCES):
+        best, _ = coarse_objective(grammar, words)
+        on_mbr, _ = coarse_objective(grammar, words, brackets[b])
+        slack = decode_module.FLOOR_SLACK
+        assert float(every[b]) + slack == pytest.approx(on_mbr, abs=1e-9)
+        assert on_mbr <= best + 1e-12
+        assert float(one[b]) <= float(every[b]) + 1e-12 and math.isfinite(float(one[b]))
+
+
+# ITEM_OVERHEAD values that force each floored pass wherever a floor is set (the chart pass
+# leaves to the item pass only a batch with no anchored rule at all).
+PATHS = {"items": -10 ** 9, "chart": 10 ** 12}
+
+
+def spy_on_passes(monkeypatch) -> list[tuple[str, torch.Tensor]]:
+    """Record (pass, floor) for every call of the two floored passes and of the known tree's
+    floor."""
+    calls = []
+    for name in FLOORED_PASSES + ["_known_tree_floor"]:
+        def spy(*args, real=getattr(decode_module, name), name=name, **kwargs):
+            calls.append((name, args[4]))
+            return real(*args, **kwargs)
+        monkeypatch.setattr(decode_module, name, spy)
+    return calls
+
+
+def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) -> None:
+    """The forced pass ran with a finite floor (the other did not: the known tree's floor is
+    an item pass of its own), and the known tree's floor was sought only when asked for (and,
+    on the item path, was). With nothing kept no sentence has an anchored rule, and the item
+    pass, which then costs nothing, takes them whatever ITEM_OVERHEAD is."""
+    known = [floor for name, floor in calls if name == "_known_tree_floor"]
+    floored = {name for name, floor in calls if torch.isfinite(floor).any()
+               and name != "_known_tree_floor"}
+    if path == "items":
+        assert "_max_rule_product_refined" not in floored
+        assert "_max_rule_product_items" in floored
+    elif not nothing_kept:
+        assert "_max_rule_product_refined" in floored
+    assert bool(known) <= known_tree
+    if known_tree and path == "items":
+        assert known
+
+
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
+@pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word, at_most, passes", [
     (0.01, 1.0, 2),   # a floor above every best tree: each sentence decoded again
     (1.5, 1.0, None),  # the shipped floor, forced on
-    (50.0, 1.0, 1),   # a floor that leaves nothing out
+    (50.0, 1.0, 1),   # a floor that leaves nothing out (a known tree's floor: above it)
     (1.5, 0.0, 1),    # no floor at all (the guard for diffuse posteriors)
 ])
-def test_pruned_max_rule_product_matches_enumeration(monkeypatch, nats_per_word, at_most, passes):
-    # Brute force (coarse_objective) for every path of the exact pruning, on one batch.
+def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tree,
+                                                     nats_per_word, at_most, passes):
+    # Brute force (coarse_objective) for every path of the exact pruning, on one batch, with
+    # each of the two floored passes, and with the floor raised to a known tree's score or not.
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", at_most)
-    real = decode_module._max_rule_product_refined
+    monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 12)
+    real = decode_module._max_rule_product_floored
     floors = []
 
     def spy(*args):
-        floors.append(args[-1])
+        floors.append(args[4])
         return real(*args)
 
-    monkeypatch.setattr(decode_module, "_max_rule_product_refined", spy)
+    monkeypatch.setattr(decode_module, "_max_rule_product_floored", spy)
+    calls = spy_on_passes(monkeypatch)
     for grammar in (REFINED, SPARSE):
         floors.clear()
+        calls.clear()
         tables = span_tables(grammar, SENTENCES)
         results = max_rule_product(grammar, tables, [len(w) for w in SENTENCES])
         for words, (spans, value) in zip(SENTENCES, results):
@@ -267,28 +345,46 @@ def test_pruned_max_rule_product_matches_enumeration(monkeypatch, nats_per_word,
             assert len(floors) == passes
         if at_most == 0.0:
             assert torch.isneginf(floors[0]).all()
+            assert [name for name, _ in calls] == ["_max_rule_product_refined"]
+        else:
+            check_paths(calls, path, known_tree, nothing_kept=nats_per_word == 0.01)
 
 
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
+@pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word", [2.0, 5.0])
-def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkeypatch,
+def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkeypatch, path,
+                                                                          known_tree,
                                                                           nats_per_word):
     # Reference: the pass without pruning (checked against enumeration above), on sentences too
     # long to enumerate, one of them with no parse and one of a single word: the same trees
-    # and the same scores. The floor is forced on; at 2 nats per word most sentences' best
-    # trees fall below it (decoded again with their found score as the floor), at 5 none do.
+    # and the same scores (the item pass sums in another order: equal to rounding). The floor
+    # is forced on; at 2 nats per word most sentences' best trees fall below it (decoded again
+    # with their found score as the floor), at 5 none do.
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
-    real = decode_module._work_items
+    monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 12)
+    real_items, real_kept = decode_module._work_items, decode_module._kept_labels
     left_out = []
 
-    def spy(parent_log_mu, floor):
-        items = real(parent_log_mu, floor)
+    def spy_items(parent_log_mu, floor):
+        items = real_items(parent_log_mu, floor)
         if floor is not None:
             left_out.append(parent_log_mu.numel() - sum(len(rows) * (parent_log_mu.shape[-1]
                             if parents is None else 1) for rows, parents in items))
         return items
 
-    monkeypatch.setattr(decode_module, "_work_items", spy)
+    def spy_kept(coarse_log, lengths, num_parents, floor):
+        kept = real_kept(coarse_log, lengths, num_parents, floor)
+        if path == "items":
+            every = real_kept(coarse_log, lengths, num_parents, torch.full_like(floor, -math.inf))
+            left_out.append(int(every.sum() - kept.sum()))
+        return kept
+
+    monkeypatch.setattr(decode_module, "_work_items", spy_items)
+    monkeypatch.setattr(decode_module, "_kept_labels", spy_kept)
+    calls = spy_on_passes(monkeypatch)
     g = random_grammar(6, 6, 5, seed=3, sparsity=0.5,
                        names=([f"S{i // 2}·{i % 2}" for i in range(6)],
                               [f"P{i // 2}·{i % 2}" for i in range(6)]))
@@ -300,13 +396,14 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     tables = span_tables(g, sentences)
     lengths = [len(w) for w in sentences]
     pruned = max_rule_product(g, tables, lengths)
-    assert sum(left_out) > 0          # the floor left (span, parent) pairs out
+    assert sum(left_out) > 0          # the floor left labeled spans out
+    check_paths(calls, path, known_tree)
     full = max_rule_product(g, tables, lengths, prune=False)
     assert pruned[4] is None and [a is None for a in pruned] == [b is None for b in full]
     assert sum(a is not None for a in pruned) == 6     # the 1-word sentence has no parse either
     for a, b in zip(pruned, full):
         if a is not None:
-            assert sorted(a[0]) == sorted(b[0]) and a[1] == b[1]
+            assert sorted(a[0]) == sorted(b[0]) and a[1] == pytest.approx(b[1], abs=1e-12)
 
 
 def test_summed_tree_probability_over_refinements():
@@ -395,3 +492,33 @@ def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():
             result = decode(g, [words], "max-rule-product")[0]
             assert result.score == pytest.approx(expect_value, abs=1e-9)
             assert sorted(result.tree.labeled_spans()) == expect_spans
+
+
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
+@pytest.mark.parametrize("path", PATHS)
+@pytest.mark.parametrize("nats_per_word", [0.01, 1.5])
+def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
+        monkeypatch, known_tree, path, nats_per_word):
+    # Brute force (coarse_objective): the exact pruning with the floor forced on, on unrefined
+    # grammars (the item pass with one subcategory a symbol, or the max-semiring pass, which
+    # leaves nothing out; at 0.01 nats a word the floor is above every best tree, and the
+    # max-semiring pass decodes each sentence again), with preterminals and with nonterminals
+    # that emit words.
+    monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
+    monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 12)
+    calls = spy_on_passes(monkeypatch)
+    cases = [(make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5), SENTENCES),
+             (random_grammar(3, 3, 3, seed=11, sparsity=0.35), SENTENCES),
+             (make_grammar(["A", "B"], ["P"], 3, seed=6, nt_emit=True),
+              SENTENCES[:2] + [["w2"]])]
+    for g, sentences in cases:
+        tables = span_tables(g, sentences)
+        results = max_rule_product(g, tables, [len(w) for w in sentences])
+        for words, (spans, value) in zip(sentences, results):
+            expect_value, expect_spans = coarse_objective(g, words)
+            assert value == pytest.approx(expect_value, abs=1e-9)
+            assert sorted(spans) == expect_spans
+    assert ("_max_rule_product_items" in {name for name, _ in calls}) == (
+        path == "items" or nats_per_word == 0.01)

@@ -14,7 +14,9 @@
 The labeled marginals, inside and outside scores come from `engine.span_tables` (the engine's
 own outside pass, batched; `mbr` asks for the marginals alone); both decoders then work one span
 width at a time over every span of every sentence of a batch (max-rule-product on an unrefined
-grammar is the engine's max-semiring pass). Each decoded tree's probability, summed over the
+grammar is the engine's max-semiring pass), or, for max-rule-product where a trained grammar's
+posteriors rule out most labeled spans, over the labeled spans they leave (exactly: see
+`max_rule_product`). Each decoded tree's probability, summed over the
 refinements of its labels, is one inside pass over the nodes of all trees of a batch
 (`TreeScorer`).
 
@@ -184,13 +186,16 @@ class CoarseLayout:
     subcategories (groups appear in symbol order, nonterminals first). `rules` holds every
     fine binary rule in that layout, with zeros in unused slots and for subcategories that are
     no nonterminal: rules[x, a, (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K), in the
-    order `max_rule_product` reads them.
+    order `max_rule_product` reads them. `blocks` holds the same rules by coarse rule, each
+    rule's G**3 subcategory rules contiguous: blocks[x, y, z, (a, b, c)] = p(x_a -> y_b z_c),
+    (Kp, K, K, G**3), as the pruned pass (`_max_rule_product_items`) gathers them.
     """
     names: list[str]    # K coarse symbols
     slots: Tensor       # (K, G) long
     member: Tensor      # (S, K) 0/1
     num_parents: int    # Kp
     rules: Tensor       # (Kp, G, G*K*G*K)
+    blocks: Tensor      # (Kp, K, K, G*G*G)
 
     @classmethod
     def of(cls, grammar: Grammar, dtype: torch.dtype) -> "CoarseLayout":
@@ -210,8 +215,10 @@ class CoarseLayout:
         child = slots.flatten()                                          # (K*G,)
         rules = prob[parent[:, :, None, None], child[None, None, :, None],
                      child[None, None, None, :]]                         # (Kp, G, K*G, K*G)
+        blocks = rules.view(kp, G, K, G, K, G).permute(0, 2, 4, 1, 3, 5)  # (x, y, z, a, b, c)
         rules = rules.view(kp, G, K, G, K, G).permute(0, 1, 5, 2, 3, 4)  # (x, a, c, y, b, z)
-        return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous())
+        return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous(),
+                   blocks.reshape(kp, K, K, G ** 3).contiguous())
 
 
 MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
@@ -259,26 +266,26 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     `layout`: `CoarseLayout.of(grammar, dtype)`, made here when not given (a caller decoding
     many batches makes it once).
 
-    Exact pruning (`prune`, refined grammars). Every factor of the score is a posterior
-    probability, and each is at most the marginal mu of every labeled span it involves (a rule
-    used over a span implies its parent and children there). So a tree's score is at most the
-    smallest mu among its labeled spans, and a tree holding a labeled span with log mu below
-    the score of any other tree cannot be the best. The pass first leaves out every (span of
-    two or more words, coarse parent) pair with log mu below a floor of `PRUNE_NATS_PER_WORD`
-    nats per word (when that leaves out at least half of the sentence's pairs:
-    `PRUNE_AT_MOST`); when the best tree it finds scores at or above the floor, that bound
-    makes it the best of all trees. Otherwise the sentence is decoded again with its own found score as the floor
-    (or nothing left out, when nothing was found), which is exact by the same bound. The
-    trees and scores are those of the pass without pruning; only the time differs (the
-    posteriors of a trained grammar leave most spans out: see README, "Parsing against
-    training speed").
+    Exact pruning (`prune`). Every factor of the score is a posterior probability, and each is
+    at most the marginal mu of every labeled span it involves (a rule used over a span implies
+    its parent and children there). So a tree's score is at most the smallest mu among its
+    labeled spans, and a tree holding a labeled span with log mu below the score of any other
+    tree cannot be the best. The pass first leaves out every labeled span with log mu below a
+    floor of `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the
+    sentence's (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`), raised to the
+    score of one known tree where that leaves many anchored rules (`_known_tree_floor`); when
+    the best tree it finds scores at or above the floor, that bound makes it the best of all
+    trees. Otherwise the sentence is decoded again with its own found score as the floor (or
+    nothing left out, when nothing was found), which is exact by the same bound. What is kept
+    is decoded by the cheaper of two passes (`_max_rule_product_floored`): over the labeled
+    spans kept (`_max_rule_product_items`) or over the chart. The trees and scores are those of
+    the pass without pruning (scores up to rounding); only the time differs (the posteriors of
+    a trained grammar leave most spans out: see README, "Parsing against training speed").
     """
     dtype = tables.inside.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
-    if lay.slots.shape[1] == 1:
-        return _max_rule_product_unrefined(grammar, tables, lengths, lay)
     if not prune:
-        return _max_rule_product_refined(grammar, tables, lengths, lay, None)[0]
+        return _chart_pass(lay)(grammar, tables, lengths, lay, None)[0]
     n = torch.tensor(list(lengths))
     floor = -PRUNE_NATS_PER_WORD * n.to(dtype)
     # A sentence whose floor would keep more than half of its (span, coarse parent) pairs
@@ -287,21 +294,183 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     N1 = tables.marginals.shape[1]
     start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
     spans = (width >= 2) & (start + width <= n[:, None, None])          # (B, N+1, N+1)
-    parent_mu = (tables.marginals @ lay.member)[..., :lay.num_parents].log()
+    coarse_log = (tables.marginals @ lay.member).log()                  # (B, N+1, N+1, K)
+    parent_mu = coarse_log[..., :lay.num_parents]
     kept = ((parent_mu >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
         (spans.sum((1, 2)) * lay.num_parents).clamp(min=1)
     floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
-    results, values = _max_rule_product_refined(grammar, tables, lengths, lay, floor)
+    # A known tree's score can leave far fewer anchored rules than the floor per word (about a
+    # sixth on the EM-trained grammars of `bench_parse_speed.py`). It costs one small pass,
+    # taken where the floor per word leaves many rules and where the item pass could then be
+    # the cheaper one.
+    rules, chart = _pass_costs(_kept_labels(coarse_log, n, lay.num_parents, floor), lay)
+    finite = torch.isfinite(floor)
+    rules, chart = int(rules[finite].sum()), int(chart[finite].sum())
+    if finite.any() and rules > KNOWN_TREE_FROM and \
+            rules * _item_cost(lay) <= KNOWN_TREE_GAIN * chart:
+        floor = torch.maximum(floor, _known_tree_floor(grammar, tables, lengths, lay, floor,
+                                                       coarse_log))
+    results, values, floor = _max_rule_product_floored(grammar, tables, lengths, lay, floor,
+                                                       coarse_log)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
     if len(redo):
-        sub = engine.SpanTables(logz=tables.logz[redo], inside=tables.inside[redo],
-                                outside=tables.outside[redo], marginals=tables.marginals[redo])
-        again, _ = _max_rule_product_refined(grammar, sub, [lengths[b] for b in redo.tolist()],
-                                             lay, values[redo])
+        again, _, _ = _max_rule_product_floored(grammar, _sub_tables(tables, redo),
+                                                [lengths[b] for b in redo.tolist()], lay,
+                                                values[redo], coarse_log[redo])
         for b, result in zip(redo.tolist(), again):
             results[b] = result
     return results
+
+
+FLOOR_SLACK = 1e-6  # nats below a known tree's score, for rounding (the floor stays exact)
+KNOWN_TREE_LABELS = 3  # coarse labels tried per span of the known tree (its best ones)
+KNOWN_TREE_FROM = 20_000  # anchored rules of a batch above which a known tree's floor is sought
+KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many times the chart
+                          # pass under the floor per word
+
+
+def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
+                      lay: CoarseLayout, floor: Tensor, coarse_log: Tensor) -> Tensor:
+    """(B,) a floor that no sentence's best tree falls below: the score of one tree, the MBR
+    bracketing (`mbr_spans_batch` over the span posteriors) under its best labeling by each
+    span's `KNOWN_TREE_LABELS` most probable coarse labels (that reach `floor`), found by the
+    item pass on those labeled spans alone, less `FLOOR_SLACK`. -inf for a sentence without a
+    finite floor or with no such labeling. `coarse_log` (B, N+1, N+1, K): log marginals of the
+    coarse labels.
+
+    The best tree scores at least as high as any one tree, so this floor, unlike the per-word
+    one, needs no second pass; when the bracketing is close to the best tree it leaves out far
+    more of the chart (on the EM-trained benchmark grammars of `bench_parse_speed.py`, six times
+    fewer anchored rules than the per-word floor)."""
+    B = len(lengths)
+    known = torch.full((B,), NEG_INF, dtype=floor.dtype)
+    rows = torch.isfinite(floor).nonzero().flatten()
+    if not len(rows):
+        return known
+    sub = _sub_tables(tables, rows)
+    sub_lengths = [lengths[b] for b in rows.tolist()]
+    N1 = sub.marginals.shape[1]
+    K, Kp = lay.slots.shape[0], lay.num_parents
+    span = torch.zeros(len(rows), N1, N1, dtype=torch.bool)
+    for b, spans in enumerate(mbr_spans_batch(_span_posteriors(grammar, sub), sub_lengths)):
+        for i, j in spans:
+            span[b, i, j - i] = True
+    sub_log = coarse_log[rows]                                           # (rows, N+1, N+1, K)
+    within = torch.zeros(sub_log.shape, dtype=torch.bool)
+    top = sub_log[:, :, 1].topk(min(KNOWN_TREE_LABELS, K), -1).indices
+    within[:, :, 1].scatter_(-1, top, True)
+    top = sub_log[..., :Kp].topk(min(KNOWN_TREE_LABELS, Kp), -1).indices
+    within[..., :Kp] |= torch.zeros_like(within[..., :Kp]).scatter_(-1, top, True) & span[..., None]
+    _, value = _max_rule_product_items(grammar, sub, sub_lengths, lay, floor[rows], within,
+                                       sub_log)
+    known[rows] = value - FLOOR_SLACK
+    return known
+
+
+# The item pass's cost per anchored rule, in units of the chart pass's multiply-adds:
+# ITEM_OVERHEAD + ITEM_PER_ENTRY * G**3. Measured on the 2-core development machine (one thread,
+# float64, EM-trained and refined grammars of 20/30 to 30/60 symbols and G = 1, 2, 4): an
+# anchored rule took 190-300 ns (G <= 2) and 1.2 us (G = 4), a chart multiply-add 0.3-0.7 ns.
+ITEM_OVERHEAD = 400
+ITEM_PER_ENTRY = 20
+ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass (about 100 bytes each)
+
+
+def _max_rule_product_floored(grammar: Grammar, tables: engine.SpanTables,
+                              lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
+                              coarse_log: Tensor
+                              ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
+                                         Tensor, Tensor]:
+    """`_max_rule_product_refined` with the floor `floor` (B,), by whichever exact pass costs
+    less: the item pass (`_max_rule_product_items`) for the sentences with a finite floor when
+    their anchored rules, at `ITEM_OVERHEAD` + `ITEM_PER_ENTRY` G**3 each, come to no more than
+    the chart pass's work over their kept (span, coarse parent) pairs; the chart pass
+    otherwise, and for the sentences without a floor. One choice for the batch: the chart pass
+    runs span width by span width over every sentence it is given, so a part of a batch costs
+    it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
+    item pass takes its sentences in groups of at most `ITEMS_AT_ONCE` anchored rules (a
+    sentence with more goes alone). Returns the results, the
+    (B,) best log scores and the floors the passes held (-inf where the pass left nothing out:
+    the max-semiring pass of an unrefined grammar)."""
+    B = len(lengths)
+    dtype = tables.inside.dtype
+    K, G = lay.slots.shape
+    n = torch.tensor(list(lengths), dtype=torch.long)
+    kept = _kept_labels(coarse_log, n, lay.num_parents, floor)
+    rules, chart = _pass_costs(kept, lay)
+    finite = torch.isfinite(floor)
+    by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum()))
+    results: list = [None] * B
+    values = torch.full((B,), NEG_INF, dtype=dtype)
+    groups = []
+    rows = (~by_items).nonzero().flatten()
+    if len(rows):
+        groups.append((_chart_pass(lay), rows))
+    rows = by_items.nonzero().flatten().tolist()
+    while rows:
+        total, end = int(rules[rows[0]]), 1
+        while end < len(rows) and total + int(rules[rows[end]]) <= ITEMS_AT_ONCE:
+            total += int(rules[rows[end]])
+            end += 1
+        groups.append((_max_rule_product_items, torch.tensor(rows[:end])))
+        rows = rows[end:]
+    held = floor.clone()
+    for run, rows in groups:
+        found, value = run(grammar, _sub_tables(tables, rows), [lengths[b] for b in rows.tolist()],
+                           lay, floor[rows], coarse_log=coarse_log[rows])
+        values[rows] = value
+        if G == 1 and run is not _max_rule_product_items:
+            held[rows] = NEG_INF
+        for b, result in zip(rows.tolist(), found):
+            results[b] = result
+    return results, values, held
+
+
+def _item_cost(lay: CoarseLayout) -> int:
+    """The item pass's cost per anchored rule, in the chart pass's multiply-adds."""
+    return ITEM_OVERHEAD + ITEM_PER_ENTRY * lay.slots.shape[1] ** 3
+
+
+def _chart_pass(lay: CoarseLayout) -> Callable:
+    """The pass over the whole chart: `_max_rule_product_refined`, or on an unrefined grammar
+    `_max_rule_product_unrefined` (which takes no floor: it leaves nothing out)."""
+    if lay.slots.shape[1] > 1:
+        return _max_rule_product_refined
+
+    def unrefined(grammar, tables, lengths, lay, floor, coarse_log=None):
+        results = _max_rule_product_unrefined(grammar, tables, lengths, lay)
+        return results, torch.tensor([NEG_INF if r is None else r[1] for r in results],
+                                     dtype=tables.inside.dtype)
+    return unrefined
+
+
+def _splits(widths: Tensor) -> tuple[Tensor, Tensor]:
+    """For spans of the given widths, every split: (which span, split point u), u = 1 .. w-1,
+    span by span."""
+    count = (widths - 1).clamp(min=0)
+    of = torch.repeat_interleave(torch.arange(len(widths)), count)
+    return of, torch.arange(len(of)) - (count.cumsum(0) - count)[of] + 1
+
+
+def _pass_costs(kept: Tensor, lay: CoarseLayout) -> tuple[Tensor, Tensor]:
+    """Per sentence, the number of anchored coarse rules among the kept labeled spans `kept`
+    (B, N+1, N+1, K) (the item pass's work: parent, split, left and right child all kept) and
+    the chart pass's multiply-adds over the kept (span, coarse parent) pairs (its folding of
+    the outside, G**3 K**2, and its sums over subcategories, K**2 G (G + 1) a split)."""
+    K, G = lay.slots.shape
+    B = kept.shape[0]
+    cell_count = kept.sum(-1)                                            # (B, N+1, N+1)
+    parent_count = kept[..., :lay.num_parents].sum(-1)
+    parent_count[:, :, :2] = 0
+    cb, ci, cw = parent_count.nonzero().unbind(1)
+    of, u = _splits(cw)
+    b, i, w = cb[of], ci[of], cw[of]
+    pairs = cell_count[b, i, u] * cell_count[b, i + u, w - u] * parent_count[b, i, w]
+    rules = torch.zeros(B, dtype=torch.long).index_add(0, b, pairs)
+    per_pair = G ** 3 * K ** 2 + (cw - 1) * K ** 2 * G * (G + 1)
+    chart = torch.zeros(B, dtype=torch.long).index_add(0, cb, parent_count[cb, ci, cw] * per_pair)
+    return rules, chart
 
 
 def _work_items(parent_log_mu: Tensor, floor: Tensor | None
@@ -321,14 +490,16 @@ def _work_items(parent_log_mu: Tensor, floor: Tensor | None
 
 
 def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
-                              lengths: Sequence[int], lay: CoarseLayout, floor: Tensor | None
+                              lengths: Sequence[int], lay: CoarseLayout, floor: Tensor | None,
+                              coarse_log: Tensor | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor]:
     """`max_rule_product` on a refined grammar over the labeled spans `floor` keeps: with
     `floor` (B,) (log, per sentence), a coarse parent over a span of two or more words whose log
     marginal is below its sentence's floor is left out (no tree found uses it; -inf keeps
     everything). Returns the results and the (B,) best log scores found (-inf for a sentence
-    with no tree left).
+    with no tree left). `coarse_log` (B, N+1, N+1, K), the log marginals of the coarse labels,
+    is made here when not given.
 
     Batched: one width at a time, every span of every sentence and every split together. The
     best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
@@ -351,7 +522,8 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     B, N1, _, S = tables.inside.shape
     N = N1 - 1
     nt = len(grammar.nonterminals)
-    coarse_log = (tables.marginals @ lay.member).log()                  # (B, N+1, N+1, K)
+    if coarse_log is None:
+        coarse_log = (tables.marginals @ lay.member).log()              # (B, N+1, N+1, K)
     best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
     best[:, :, 1] = coarse_log[:, :, 1]
     back = torch.zeros(B, N1, N1, max(Kp, 1), 3, dtype=torch.long)      # split, left, right
@@ -453,6 +625,156 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     names = lay.names
     for sb, si, sw, sx in (torch.cat(found).tolist() if found else []):
         spans[sb].append((si, si + sw, names[sx]))
+    values = top_value.tolist()
+    return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())], \
+        top_value.masked_fill(~parsed, NEG_INF)
+
+
+def _sub_tables(tables: engine.SpanTables, rows: Tensor) -> engine.SpanTables:
+    """The sentences `rows` of a batch's span tables."""
+    return engine.SpanTables(logz=tables.logz[rows], inside=tables.inside[rows],
+                             outside=tables.outside[rows], marginals=tables.marginals[rows])
+
+
+def _kept_labels(coarse_log: Tensor, lengths: Tensor, num_parents: int, floor: Tensor
+                 ) -> Tensor:
+    """(B, N+1, N+1, K) the labeled spans that reach their sentence's floor: any coarse symbol
+    over a word, a coarse parent over a span of two or more words, within the sentence."""
+    B, N1, _, K = coarse_log.shape
+    start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
+    inside = (width >= 1) & (start + width <= lengths[:, None, None])    # (B, N+1, N+1)
+    symbol = torch.arange(K)
+    allowed = (width[..., None] == 1) | (symbol < num_parents)          # (1, N+1, K)
+    return (coarse_log >= floor[:, None, None, None]) & inside[..., None] & allowed
+
+
+def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
+                            lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
+                            within: Tensor | None = None, coarse_log: Tensor | None = None
+                            ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
+                                       Tensor]:
+    """`max_rule_product` over the labeled spans a finite floor keeps, item by item, on any
+    grammar (G = 1 included): the same objective, trees and scores as
+    `_max_rule_product_refined` with that floor, for a cost that follows the kept labeled spans
+    rather than the chart.
+
+    Every factor of a tree's score is at most 1, so the score is at most each factor; a word's
+    label posterior is a factor and a rule's posterior is at most its parent's label marginal.
+    A tree that holds a labeled span (words included) with log marginal below the floor
+    therefore scores below it, and leaving every such span out loses no tree that reaches the
+    floor. What is left of a trained grammar's chart is a few labels per span (items).
+
+    The anchored coarse rules among the items (parent item, split, left item, right item) are
+    listed up front, and each one's log q(x -> y z, i, k, j) = log sum_{a,b,c} O(x_a) p(x_a ->
+    y_b z_c) I(y_b) I(z_c) (Petrov & Klein 2007, section 3; O is the outside score over Z) is
+    computed for all of them at once: it does not depend on the best subtrees. Only the
+    maximization runs one width at a time: best(item) = max over its anchored rules of
+    log q + best(left) + best(right), a gather and a scatter per width. Ties go to the first
+    split, then the first (left, right) pair, as in `_max_rule_product_refined`. Returns the
+    results and the (B,) best log scores (-inf where no tree reaches the floor). `within`
+    (B, N+1, N+1, K) bool, when given, keeps the labeled spans it marks only: the best tree
+    among those that use no other. `coarse_log` as in `_max_rule_product_refined`.
+    """
+    dtype = tables.inside.dtype
+    K, G = lay.slots.shape
+    Kp = lay.num_parents
+    B, N1, _, S = tables.inside.shape
+    n = torch.tensor(list(lengths), dtype=torch.long)
+    if coarse_log is None:
+        coarse_log = (tables.marginals @ lay.member).log()              # (B, N+1, N+1, K)
+    kept = _kept_labels(coarse_log, n, Kp, floor)
+    if within is not None:
+        kept &= within
+    # Items in (sentence, start, width, symbol) order: each cell's items are contiguous and in
+    # symbol order.
+    cell_count = kept.sum(-1)                                            # (B, N+1, N+1)
+    cell_first = cell_count.flatten().cumsum(0).view(B, N1, N1) - cell_count
+    ib, ii, iw, ik = kept.nonzero().unbind(1)
+    best = coarse_log[ib, ii, iw, ik].masked_fill(iw > 1, NEG_INF)      # words: their label
+    # Each item's inside scores over its subcategory slots (index S: none), out of log space
+    # per item.
+    cells = tables.inside[ib, ii, iw]                                    # (items, S)
+    cells = torch.cat([cells, cells.new_full((len(ib), 1), NEG_INF)], 1)
+    inside_hat, inside_max = _shifted(cells.gather(1, lay.slots[ik]))    # (items, G)
+    # Parent items, by width; for each, its splits; for each split, every (left, right) pair
+    # of items of the two child cells: the anchored rules, in (parent, split, left, right)
+    # order.
+    parents = (iw > 1).nonzero().flatten()
+    parents = parents[iw[parents].argsort(stable=True)]
+    pw = iw[parents]
+    of_split, u = _splits(pw)
+    sb, si, sw = ib[parents][of_split], ii[parents][of_split], pw[of_split]
+    left_first, left_n = cell_first[sb, si, u], cell_count[sb, si, u]
+    right_first, right_n = cell_first[sb, si + u, sw - u], cell_count[sb, si + u, sw - u]
+    pairs = left_n * right_n
+    of_rule = torch.repeat_interleave(torch.arange(len(pairs)), pairs)
+    t = torch.arange(len(of_rule)) - (pairs.cumsum(0) - pairs)[of_rule]
+    rn = right_n[of_rule]
+    left = left_first[of_rule] + t.div(rn, rounding_mode="floor")
+    right = right_first[of_rule] + t.remainder(rn)
+    rule_parent = of_split[of_rule]                                      # index into `parents`
+    # log q of every anchored rule, in chunks of MRP_CHUNK rule entries. Parent slots hold
+    # nonterminals (index NT and up: none).
+    pitem = parents[rule_parent]
+    cells = tables.outside[ib[parents], ii[parents], pw]                 # (parents, NT)
+    cells = torch.cat([cells, cells.new_full((len(parents), S + 1 - cells.shape[1]), NEG_INF)], 1)
+    outside_hat, outside_max = _shifted(cells.gather(1, lay.slots[ik[parents]]))  # (parents, G)
+    log_q = torch.empty(len(of_rule), dtype=dtype)
+    chunk = max(1, MRP_CHUNK // G ** 3)
+    for r0 in range(0, len(of_rule), chunk):
+        sl = slice(r0, r0 + chunk)
+        rp, rl, rr = rule_parent[sl], left[sl], right[sl]
+        block = lay.blocks[ik[pitem[sl]], ik[rl], ik[rr]].view(-1, G, G * G)   # [a, (b, c)]
+        over_a = torch.bmm(outside_hat[rp, None, :], block).view(-1, G, G)      # [b, c]
+        over_c = torch.bmm(over_a, inside_hat[rr, :, None])                     # [b]
+        total = torch.bmm(inside_hat[rl, None, :], over_c).flatten()
+        log_q[sl] = total.log() + outside_max[rp] + inside_max[rl] + inside_max[rr]
+    # The maximization, one width at a time. Items are renumbered words first, then parents
+    # by width, so that each width's rules (in parent order) write to one stretch of `best`.
+    words = (iw == 1).nonzero().flatten()
+    W, R = len(words), len(of_rule)
+    order = torch.cat([words, parents])
+    at = torch.empty_like(order)
+    at[order] = torch.arange(len(order))
+    ib, ii, iw, ik = ib[order], ii[order], iw[order], ik[order]
+    best = best[order]
+    left, right, rule_at = at[left], at[right], rule_parent + W
+    back = torch.full((len(order),), R, dtype=torch.long)
+    number = torch.arange(R)
+    bounds = torch.searchsorted(pw[rule_parent], torch.arange(2, int(n.max()) + 2)).tolist()
+    for r0, r1 in zip(bounds[:-1], bounds[1:]):
+        if r1 == r0:
+            continue
+        target = rule_at[r0:r1]
+        score = log_q[r0:r1] + best.index_select(0, left[r0:r1]) + \
+            best.index_select(0, right[r0:r1])
+        best.scatter_reduce_(0, target, score, "amax")
+        winner = torch.where(score == best.index_select(0, target), number[r0:r1], R)
+        back.scatter_reduce_(0, target, winner, "amin")       # the first best rule
+    # The top label: its posterior closes the score; first best symbol of the whole span.
+    root = (ii == 0) & (iw == n[ib])
+    root_items = root.nonzero().flatten()
+    of_root = ib[root_items]
+    root_score = best[root_items] + coarse_log[of_root, 0, n[of_root], ik[root_items]]
+    top_value = torch.full((B,), NEG_INF, dtype=dtype).scatter_reduce(
+        0, of_root, root_score, "amax")
+    top_item = torch.full((B,), len(ib), dtype=torch.long).scatter_reduce(
+        0, of_root, torch.where(root_score == top_value[of_root], root_items, len(ib)), "amin")
+    parsed = torch.isfinite(tables.logz) & torch.isfinite(top_value)
+    # Follow the back pointers of every sentence together, one tree level at a time.
+    found = []
+    item = top_item[parsed]
+    while len(item):
+        found.append(item)
+        item = item[iw[item] > 1]
+        rule = back[item]
+        item = torch.cat([left[rule], right[rule]])
+    spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
+    names = lay.names
+    if found:
+        item = torch.cat(found)
+        for sb, si, sw, sx in torch.stack([ib[item], ii[item], iw[item], ik[item]], 1).tolist():
+            spans[sb].append((si, si + sw, names[sx]))
     values = top_value.tolist()
     return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())], \
         top_value.masked_fill(~parsed, NEG_INF)
