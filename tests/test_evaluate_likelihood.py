@@ -47,3 +47,14 @@ def test_bad_input_names_the_sentence(logprobs, counts, line):
     with pytest.raises(InputError) as err:
         heldout_likelihood(logprobs, counts, path="scores.tsv")
     assert err.value.line == line and f"scores.tsv, line {line}" in str(err.value)
+
+
+def test_perplexity_is_infinite_where_the_exponential_overflows():
+    # Common practice: perplexity = exp(-log-likelihood per word); a diverged model (below
+    # about -709 nats a word, where exp overflows a float) gets inf, not an OverflowError.
+    from treewright.evaluation import perplexity
+    assert perplexity(-2.0) == pytest.approx(math.exp(2.0), rel=1e-15)
+    assert perplexity(-708.0) == pytest.approx(math.exp(708.0), rel=1e-12)
+    assert perplexity(-800.0) == math.inf and perplexity(-math.inf) == math.inf
+    scores = heldout_likelihood([-8000.0, -8000.0], [10, 10])
+    assert scores.perplexity == math.inf and scores.logprob_per_word == -800.0

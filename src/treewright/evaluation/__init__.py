@@ -18,7 +18,8 @@ from treewright.evaluation.brackets import (DEFAULT_PUNCTUATION_TAGS, DEFAULT_PU
 from treewright.evaluation.dependencies import (AttachmentScores, Dependencies,
                                                 DependencyEvaluation, evaluate_attachment,
                                                 left_chain, right_chain)
-from treewright.evaluation.likelihood import LikelihoodScores, heldout_likelihood
+from treewright.evaluation.likelihood import (LikelihoodScores, heldout_likelihood,
+                                              perplexity)
 from treewright.evaluation.segmentation import (PRF, SegmentationScores,
                                                 evaluate_segmentation)
 from treewright.evaluation.spans import (Bracketing, binary_upper_bound, left_branching, left_branching_tree,
@@ -34,6 +35,6 @@ __all__ = [
     "AttachmentScores", "Dependencies", "DependencyEvaluation", "evaluate_attachment",
     "left_chain", "right_chain",
     "TagScores", "evaluate_tags", "preterminal_labels", "words_over_tags",
-    "LikelihoodScores", "heldout_likelihood",
+    "LikelihoodScores", "heldout_likelihood", "perplexity",
     "PRF", "SegmentationScores", "evaluate_segmentation",
 ]

@@ -38,6 +38,12 @@ class LikelihoodScores:
         return out
 
 
+def perplexity(loglik_per_word: float) -> float:
+    """exp(-log-likelihood per word) (common practice), inf where that overflows a float (a
+    diverged model: below about -709 nats a word) rather than an OverflowError."""
+    return math.exp(-loglik_per_word) if -loglik_per_word < 709.0 else math.inf
+
+
 def heldout_likelihood(logprobs: Sequence[float], word_counts: Sequence[int], *,
                        path: str | None = None) -> LikelihoodScores:
     """Pool per-sentence log-probabilities (natural log, shape (S,)) over word counts (shape (S,)).
@@ -63,4 +69,4 @@ def heldout_likelihood(logprobs: Sequence[float], word_counts: Sequence[int], *,
     per_word = total / words
     return LikelihoodScores(total_logprob=total, total_words=words, sentences=len(logprobs),
                             zero_probability_sentences=sum(lp == -math.inf for lp in logprobs),
-                            logprob_per_word=per_word, perplexity=math.exp(-per_word))
+                            logprob_per_word=per_word, perplexity=perplexity(per_word))

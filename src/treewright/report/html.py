@@ -23,6 +23,7 @@ from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
                                expand_unary, read_corpus, run_read_options, unbinarize)
 from treewright.errors import InputError
+from treewright.evaluation.likelihood import perplexity
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
 from treewright.trees import Tree, tree_from_spans
@@ -81,7 +82,7 @@ class Curve:
 
 def _perplexity_of(loglik_per_word: float) -> float:
     """Perplexity is exp(-log-likelihood per word), as the trainer logs it (common practice)."""
-    return math.exp(-loglik_per_word)
+    return perplexity(loglik_per_word)
 
 
 TRAIN_CURVES = (

@@ -6,11 +6,11 @@ does not import."""
 
 from __future__ import annotations
 
-import math
 
 from torch import Tensor
 
 from treewright.corpus import length_batches
+from treewright.evaluation.likelihood import perplexity
 from treewright.params.base import Scorer
 from treewright.train.data import MemoryBudget, TrainData
 from treewright.train.estep import make_batch
@@ -57,7 +57,7 @@ class DevLikelihood:
             unparsed += int((~ok).sum())
         out = {"dev/loglik_per_word": total / words if words else float("nan"),
                "dev/unparsed": unparsed, "dev/over_memory_budget": len(data.dev_ids) - len(fits)}
-        out["dev/perplexity"] = math.exp(-out["dev/loglik_per_word"]) if words else float("nan")
+        out["dev/perplexity"] = perplexity(out["dev/loglik_per_word"]) if words else float("nan")
         out.update(self.finish())
         return out
 

@@ -17,7 +17,6 @@ same bits as one that was never interrupted.
 
 from __future__ import annotations
 
-import math
 import sys
 import time
 from pathlib import Path
@@ -26,6 +25,7 @@ from typing import TextIO
 import torch
 
 from treewright.config import config_to_dict
+from treewright.evaluation.likelihood import perplexity
 from treewright.runfolder import RunFolder
 from treewright.safeio import save_checkpoint
 from treewright.tracking import Progress
@@ -308,7 +308,7 @@ def epoch_metrics(sums: dict) -> dict[str, float]:
     words = sums["words"]
     per_word = sums["loglik"] / words if words else float("nan")
     out = {"train/loglik_per_word": per_word,
-           "train/perplexity": math.exp(-per_word) if words else float("nan"),
+           "train/perplexity": perplexity(per_word) if words else float("nan"),
            "train/sentences": sums["sentences"], "train/unparsed": sums["unparsed"]}
     if sums.get("kl") and words:
         # Compound: train/loglik_per_word is log p(x | z) at the sampled z; the ELBO
