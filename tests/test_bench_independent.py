@@ -53,3 +53,18 @@ def test_a_quick_epoch_reports_its_figures_by_the_stated_rules(capsys):
     assert r["loglik_per_word"] < 0
     out = capsys.readouterr().out
     assert "extrapolated" in out and "not measured" in out
+
+
+def test_a_quick_epoch_then_parse_decodes_every_sentence_with_a_parse(capsys):
+    import random
+    r = bench.main(["--quick", "--epoch", "--parse", "--threads", "1"])
+    # The corpus again, by the module docstring's rule (seeded lengths 1 to --max-length). In
+    # the induction layout (preterminals alone emit words, the top symbol is a nonterminal) a
+    # one-word sentence has no tree and every longer one has one (common practice).
+    rng = random.Random(0)
+    lengths = [len([rng.randrange(r["vocab"]) for _ in range(rng.randint(1, r["max_length"]))])
+               for _ in range(r["sentences"])]
+    assert r["parsed"] == sum(n >= 2 for n in lengths) < r["sentences"]
+    assert r["parse_ratio"] == r["epoch_s"] / r["parse_s"]
+    assert r["parse_sent_per_s"] == r["sentences"] / r["parse_s"]
+    assert "parse (mbr, the trained model" in capsys.readouterr().out

@@ -522,3 +522,42 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
             assert sorted(spans) == expect_spans
     assert ("_max_rule_product_items" in {name for name, _ in calls}) == (
         path == "items" or nats_per_word == 0.01)
+
+
+@pytest.mark.parametrize("kind", ["independent", "lowrank"])
+def test_factored_mbr_equals_mbr_on_the_implied_dense_grammar(kind):
+    # Reference: decode(..., "mbr") on the Grammar of the dense rules the factors imply (the mbr
+    # decoder is checked against enumeration above): the same trees, log-likelihoods, expected
+    # numbers of correct spans and tree log-probabilities; a one-word sentence (no parse in the
+    # induction layout) and one with an unknown word get no tree from either.
+    from treewright.params import IndependentParams, LowRankParams
+    from treewright.params.tabular import rules_to_grammar, symbol_names
+    gen = torch.Generator().manual_seed(4)
+    if kind == "independent":
+        model = IndependentParams(4, 5, 5, init_scale=2.0, generator=gen, dtype=torch.float64)
+    else:
+        model = LowRankParams(4, 5, 5, 6, dim=8, blocks=1, generator=gen, dtype=torch.float64)
+    with torch.no_grad():
+        if kind == "lowrank":   # sharpen the nearly uniform initial rules
+            for p in (model.symbol_embeddings, model.rank_embeddings, model.start_embedding):
+                p.mul_(8.0)
+        rules = model.rules()
+    vocab = Vocabulary([f"w{i}" for i in range(5)], unk=None)
+    nonterminals, preterminals = symbol_names(4, 5)
+    grammar = rules_to_grammar(rules.dense(), nonterminals, preterminals, vocab)
+    draw = torch.Generator().manual_seed(5)
+    sentences = [[f"w{int(k)}" for k in torch.randint(0, 5, (n,), generator=draw)]
+                 for n in (7, 2, 12, 1, 9, 5, 10)]
+    sentences[4][3] = "zz"
+    got = decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentences,
+                                        batch_size=3)
+    want = decode(grammar, sentences, "mbr")
+    assert [g.tree is None for g in got] == [w.tree is None for w in want] == \
+        [False, False, False, True, True, False, False]
+    for g, w in zip(got, want):
+        if w.tree is None:
+            continue
+        assert g.tree.to_string() == w.tree.to_string()
+        assert g.log_likelihood == pytest.approx(w.log_likelihood, abs=1e-9)
+        assert g.score == pytest.approx(w.score, abs=1e-9)
+        assert g.tree_logprob == pytest.approx(w.tree_logprob, abs=1e-9)

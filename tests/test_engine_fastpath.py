@@ -303,3 +303,30 @@ def test_lowrank_forbidden_root_span_gives_minus_infinity_and_zero_gradients():
     assert z[0] == float("-inf") and torch.isfinite(z[1])
     for x in (u, v, w):
         assert (x.grad == 0).all()
+
+
+@pytest.mark.parametrize("nt_emit", [False, True])
+@pytest.mark.parametrize("factored", ["lowrank", "independent"])
+def test_lowrank_label_marginals_match_the_dense_span_tables(nt_emit, factored):
+    # References: engine.span_tables on the implied dense rules (its marginals are checked
+    # against enumeration in test_decode.py), and reference_inside's gradient with respect to
+    # a span potential (each span's marginal, summed over its nonterminals).
+    from treewright.engine import span_tables
+    from treewright.engine.lowrank import lowrank_label_marginals
+    root, _, terminal, lengths, nt_terminal, _ = random_problem(
+        3, 4, batch=3, n=6, nt_emit=nt_emit, seed=31)
+    u, v, w = random_lowrank(3, 4, 5 if factored == "lowrank" else 3, seed=32)
+    if factored == "independent":   # p(B | A, left) p(C | A, right): U the identity
+        u = None
+        v, w = v.log_softmax(0), w.log_softmax(0)
+        dense = v.t()[:, :, None] + w.t()[:, None, :]
+    else:
+        dense = dense_binary(u, v, w)
+    logz, marginals = lowrank_label_marginals(root, u, v, w, terminal, lengths, nt_terminal)
+    expect = span_tables(root, dense, terminal, lengths, nt_terminal, log_scores=False)
+    torch.testing.assert_close(logz, expect.logz, rtol=1e-10, atol=1e-10)
+    torch.testing.assert_close(marginals, expect.marginals, rtol=1e-9, atol=1e-12)
+    pot = torch.zeros(3, 7, 7, dtype=torch.float64, requires_grad=True)
+    reference_inside(root, dense, terminal, lengths, nt_terminal, pot).sum().backward()
+    spans = marginals[..., :3].sum(-1)
+    torch.testing.assert_close(spans[:, :, 2:], pot.grad[:, :, 2:], rtol=1e-9, atol=1e-12)

@@ -381,3 +381,44 @@ def test_a_grammar_too_large_to_write_is_refused_before_training():
     load_train_config(None, base + ["model.nonterminals=256", "model.preterminals=512"])
     with pytest.raises(InputError, match="1,207,959,552 binary rules"):
         load_train_config(None, base + ["model.nonterminals=512", "model.preterminals=1024"])
+
+
+@pytest.mark.parametrize("parameterization", ["independent", "lowrank"])
+def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
+        tmp_path, monkeypatch, capsys, parameterization):
+    # Reference: decode(..., "mbr") on the run's grammar file (the same rules as a dense
+    # Grammar; its mbr is checked against enumeration in test_decode.py): the same trees. The
+    # model path must not open the grammar file at all.
+    from treewright.cli import main
+    from treewright.decode import decode
+    from treewright.export import source as source_module
+    train_path = _demo_corpus(tmp_path / "data", "train.txt", 60, 8)
+    extra = {"model.rank": 12, "optimizer.lr": 0.01} if parameterization == "lowrank" else {}
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, None, **{"train.method": "gradient",
+                                       "model.parameterization": parameterization,
+                                       "model.nonterminals": 4, "model.preterminals": 6,
+                                       "train.epochs": 2, "optimizer.lr": 0.1,
+                                       "train.batch_size": 20, "train.dtype": "float64",
+                                       **extra}))   # (lr 0.1 diverges the low-rank model)
+    train(cfg, tmp_path / "run")
+    lines = train_path.read_text().splitlines()[:12]
+    lines[6] = "zzunknown " + lines[6]      # read as the unknown-word token, as training did
+    text = tmp_path / "text.txt"
+    text.write_text("\n".join(lines[:6] + [""] + lines[6:]) + "\n")
+    expect = decode(load_grammar(tmp_path / "run" / "grammar.pcfg"),
+                    [line.split() for line in lines], "mbr")
+
+    def refuse(path):
+        raise AssertionError(f"the grammar file was loaded: {path}")
+
+    monkeypatch.setattr(source_module, "load_grammar", refuse)
+    capsys.readouterr()
+    assert main(["parse", str(tmp_path / "run"), str(text), "--decoder", "mbr", "--scores"]) == 0
+    rows = capsys.readouterr().out.split("\n")
+    assert rows[6] == "" and len(rows) == 14 and rows[13] == ""   # the blank line stays blank
+    printed = [r.split("\t") for r in rows[:6] + rows[7:13]]
+    for fields, d in zip(printed, expect, strict=True):
+        assert fields[0] == d.tree.to_string()
+        assert float(fields[1]) == pytest.approx(d.tree_logprob, abs=1e-8)
+        assert float(fields[2]) == pytest.approx(d.posterior, abs=1e-8)

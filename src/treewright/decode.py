@@ -46,7 +46,7 @@ from treewright import engine
 from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
-from treewright.inference import encode, pad_ids, spans_to_tree
+from treewright.inference import encode, encode_ids, pad_ids, spans_to_tree
 from treewright.params.lexicalized import LexicalizedParams
 from treewright.trees import Tree, tree_from_spans
 from treewright.vocab import Vocabulary
@@ -1026,10 +1026,18 @@ class _SpanLabels:
     sentence's single node must be a nonterminal: it is the top)."""
 
     def __init__(self, grammar: Grammar, tables: engine.SpanTables):
-        nt = len(grammar.nonterminals)
-        self.symbols = grammar.symbols
-        self.span_label = tables.marginals[..., :nt].argmax(-1).tolist()  # (B, N+1, N+1)
-        self.word_label = tables.marginals[:, :, 1].argmax(-1).tolist()   # (B, N+1)
+        self.of_marginals(grammar.symbols, len(grammar.nonterminals), tables.marginals, self)
+
+    @staticmethod
+    def of_marginals(symbols: Sequence[str], nt: int, marginals: Tensor,
+                     into: "_SpanLabels | None" = None) -> "_SpanLabels":
+        """The labels of `symbols` (nonterminals first, `nt` of them) by their label marginals
+        (B, N+1, N+1, S), for rules that are not a `Grammar`."""
+        labels = into if into is not None else _SpanLabels.__new__(_SpanLabels)
+        labels.symbols = list(symbols)
+        labels.span_label = marginals[..., :nt].argmax(-1).tolist()     # (B, N+1, N+1)
+        labels.word_label = marginals[:, :, 1].argmax(-1).tolist()      # (B, N+1)
+        return labels
 
     def label(self, b: int, n: int, spans: Sequence[tuple[int, int]]
               ) -> list[tuple[int, int, str]]:
@@ -1157,6 +1165,84 @@ def decode_heads(model: LexicalizedParams, vocab: Vocabulary,
         return [headed(w, p) for w, p in zip(words, model.parse(ids, lengths))]
 
     return _by_length(sentences, batch_size, batch)   # type: ignore[arg-type,return-value]
+
+
+def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
+                    preterminals: Sequence[str], sentences: Sequence[Sequence[str]],
+                    batch_size: int = 16) -> list[Decoded]:
+    """The `mbr` decoder on factored rules (`params.IndependentRules`, `params.LowRankRules`),
+    in input order, through their own engine pass (`label_marginals`), without the (NT, S, S)
+    rule tensor that a `Grammar` holds: a model with thousands of symbols decodes at about the
+    cost of a training step. The unlabeled MBR tree of the span posteriors (`mbr_spans_batch`),
+    each span labeled by its most probable nonterminal and each word by its most probable
+    preterminal, as `mbr` labels them; `score` is the expected number of correct spans and
+    `tree_logprob` the tree's log-probability under the rules. The rules' dtype is the
+    decoding dtype. `vocab` is the rules' vocabulary and `nonterminals`, `preterminals` their
+    symbol names (`params.symbol_names`). A sentence with a word outside the vocabulary gets
+    no tree."""
+    symbols = list(nonterminals) + list(preterminals)
+    nt = len(nonterminals)
+
+    def batch(words: list[list[str]]) -> list[Decoded]:
+        out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
+        encoded = [vocab.encode(w) for w in words]
+        known = [k for k, ids in enumerate(encoded) if -1 not in ids]
+        if not known:
+            return out
+        ids, lengths = pad_ids([encoded[k] for k in known])
+        with torch.no_grad():
+            terminal = encode_ids(rules.lexical, ids, lengths).terminal
+            logz, marginals = rules.label_marginals(terminal, lengths)
+        spans_p = marginals[..., :nt].sum(-1)                            # (B, N+1, N+1)
+        n = lengths.tolist()
+        brackets = mbr_spans_batch(spans_p, n)
+        labels = _SpanLabels.of_marginals(symbols, nt, marginals)
+        gains = spans_p.double().tolist()
+        parsed = [b for b in range(len(known)) if math.isfinite(float(logz[b]))]
+        labeled = [labels.label(b, n[b], brackets[b]) for b in parsed]
+        logprobs = _factored_tree_logprobs(rules, symbols, nt, ids[parsed], labeled)
+        for b, spans, logprob in zip(parsed, labeled, logprobs):
+            gain = sum((gains[b][i][j - i] for i, j in brackets[b]), 0.0)
+            out[known[b]] = Decoded(tree_from_spans(words[known[b]], spans), float(logz[b]),
+                                    logprob, gain)
+        return out
+
+    return _by_length(sentences, batch_size, batch)
+
+
+def _factored_tree_logprobs(rules, symbols: Sequence[str], nt: int, ids: Tensor,
+                            labeled: Sequence[Sequence[tuple[int, int, str]]]) -> list[float]:
+    """log p(tree, sentence) of each labeled binary tree (spans with their labels, words
+    included) under factored rules: every node's rule (`rules.binary_logprob`, gathered for the
+    whole batch at once), every word's lexical rule and the top symbol's root score."""
+    index = {name: k for k, name in enumerate(symbols)}
+    of, parent, left, right, words, tags, top = [], [], [], [], [], [], []
+    for b, spans in enumerate(labeled):
+        label = {(i, j): index[x] for i, j, x in spans}
+        n = max(j for _, j, _ in spans)
+        top.append(label[(0, n)])
+        for (i, j), x in label.items():
+            if j - i == 1:
+                words.append((b, i))
+                tags.append(x - nt)
+                continue
+            k = next(k for k in range(j - 1, i, -1) if (i, k) in label and (k, j) in label)
+            of.append(b)
+            parent.append(x)
+            left.append(label[(i, k)])
+            right.append(label[(k, j)])
+    if not labeled:
+        return []
+    with torch.no_grad():
+        total = rules.root[torch.tensor(top)].double()
+        if of:
+            node = rules.binary_logprob(torch.tensor(parent), torch.tensor(left),
+                                        torch.tensor(right)).double()
+            total = total.index_add(0, torch.tensor(of), node)
+        b, i = torch.tensor(words).unbind(1)
+        word = rules.lexical[torch.tensor(tags), ids[b, i]].double()
+        total = total.index_add(0, b, word)
+    return total.tolist()
 
 
 def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Grammar,

@@ -22,6 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Sequence, TextIO
 
+import torch
 from torch import Tensor
 
 from treewright.corpus import run_read_options
@@ -32,7 +33,7 @@ from treewright.export.lexical import DEFAULT_PAIRS, LexicalSummary, lexical_sum
 from treewright.export.source import (open_grammar, open_restart_grammars, read_training_record,
                                      saved_restarts)
 from treewright.grammar import Grammar, load_grammar
-from treewright.params import LexicalizedParams, symbol_names
+from treewright.params import PARAMETERIZATIONS, LexicalizedParams, symbol_names
 from treewright.runfolder import RunFolder
 from treewright.safeio import load_checkpoint
 from treewright.train.config import TrainConfig
@@ -265,6 +266,57 @@ def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:
     model.load_state_dict({k[6:]: v for k, v in tensors.items() if k.startswith("model.")})
     nonterminals, preterminals = symbol_names(cfg.model.nonterminals, cfg.model.preterminals)
     return LexicalizedRun(model, vocab, nonterminals, preterminals)
+
+
+FACTORED = ("independent", "independent-neural", "lowrank")  # rules with no (NT, S, S) tensor
+
+
+@dataclass
+class FactoredRun:
+    """A training run's factored rules (`params.IndependentRules` or `params.LowRankRules`),
+    their vocabulary and symbol names, as `decode.decode_factored` takes them."""
+    rules: object
+    vocab: object          # the training `Vocabulary`
+    nonterminals: list[str]
+    preterminals: list[str]
+
+    def parse(self, sentences: Sequence[Sequence[str]], batch_size: int = 16) -> list:
+        from treewright.decode import decode_factored
+        return decode_factored(self.rules, self.vocab, self.nonterminals, self.preterminals,
+                               sentences, batch_size)
+
+
+def load_factored(run_dir: str | Path) -> FactoredRun | None:
+    """The rules of a finished training run of a factored parameterization (`FACTORED`), from
+    its checkpoint, with its vocabulary rebuilt by reading the training corpus again as the
+    saved config says: for decoding through the factored engine, without the (NT, S, S) rule
+    tensor that its grammar file loads into (1,024 nonterminals and 2,048 preterminals: 9.7
+    billion entries). None when `run_dir` is not a run folder, its run trained other rules, or
+    the run kept a restart other than the last (the checkpoint holds the last restart's model
+    only): the grammar file is what is read then."""
+    if not Path(run_dir).is_dir():
+        return None
+    folder = RunFolder(run_dir, "train")
+    if not folder.config.is_file() or not folder.checkpoint.is_file():
+        return None
+    cfg = saved_config(run_dir)
+    if cfg.model.parameterization not in FACTORED:
+        return None
+    if folder.result.exists():
+        kept = json.loads(folder.result.read_text())["best_restart"]
+        if kept != cfg.train.restarts - 1:
+            return None
+    unstaged = dataclasses.replace(cfg, constraints=dataclasses.replace(
+        cfg.constraints, brackets_from=None, brackets_epochs=None))
+    vocab = load_data(unstaged).vocab
+    tensors, _ = load_checkpoint(folder.checkpoint)
+    model = PARAMETERIZATIONS[cfg.model.parameterization].from_options(
+        cfg.model, len(vocab), None, _dtype(cfg))
+    model.load_state_dict({k[6:]: v for k, v in tensors.items() if k.startswith("model.")})
+    with torch.no_grad():
+        rules = model.rules()
+    nonterminals, preterminals = symbol_names(cfg.model.nonterminals, cfg.model.preterminals)
+    return FactoredRun(rules, vocab, nonterminals, preterminals)
 
 
 def lexical_summary_of(run_dir: str | Path, top: int = DEFAULT_PAIRS,

@@ -16,7 +16,13 @@ EXAMPLES = """examples:
 decoders (default: consensus for a run folder that saved two or more restarts, else viterbi):
   viterbi           the most probable tree
   mbr               the binary tree maximizing the summed posterior span marginals, each span
-                    labeled with its most probable symbol (the usual decoder for induced grammars)
+                    labeled with its most probable symbol (the usual decoder for induced grammars);
+                    on the run folder of factored rules (model.parameterization independent,
+                    independent-neural or lowrank; the run kept its last restart) it reads the
+                    model from the checkpoint and decodes through its own engine pass in the
+                    run's dtype, never loading grammar.pcfg into an (NT, S, S) rule tensor (the
+                    training corpus must still be where the run's config points; the memory
+                    budget does not apply)
   max-rule-product  for refined grammars (symbols NAME·k): the tree of coarse symbols maximizing
                     the product of posterior coarse-rule marginals
   consensus         GRAMMAR must be a run folder that saved two or more restarts: each restart's
@@ -90,18 +96,28 @@ def run(args) -> int:
 
     import torch
 
-    from treewright.budget import plan_budget, run_plan
+    from treewright.budget import BudgetPlan, plan_budget, run_plan
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
     from treewright.corpus import (detect_format, insert_words, iter_conllu_blocks, iter_lines,
                                    read_tagged, run_drop_tags, run_tag_mode)
     from treewright.decode import ENSEMBLE_DECODERS, consensus, decode, decode_lexicalized
     from treewright.errors import InputError
-    from treewright.export import open_grammar, open_restart_grammars, saved_restarts
+    from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
+                                   saved_restarts)
     from treewright.tracking import terminal_progress
 
     dtype = torch.float64  # decode's precision
-    source = open_grammar(args.grammar)  # text, JSON export or run folder
-    grammar = source.grammar
+    factored = None
+    if args.decoder == "mbr" and args.heads_out is None:
+        from treewright.induce import load_factored
+        factored = load_factored(args.grammar)  # None: not a run of factored rules
+    if factored is not None:
+        # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
+        source = open_run_record(args.grammar)
+        grammar, vocab = None, factored.vocab
+    else:
+        source = open_grammar(args.grammar)  # text, JSON export or run folder
+        grammar, vocab = source.grammar, source.grammar.vocab
     lexicalized = None
     # Refused before any decoding when the model has no heads.
     wants = "--heads-out" if args.heads_out is not None else \
@@ -117,7 +133,12 @@ def run(args) -> int:
         # Tree averaging of a run's restarts beat the restart kept by likelihood on the induction
         # benchmark (docs/induction_notes.md), so a run with several restarts is read that way.
         args.decoder = "consensus" if saved_restarts(source) >= 2 else "viterbi"
-    if args.decoder == "lexicalized":   # the model itself, labels from its back-off grammar
+    if factored is not None:
+        grammars = []
+
+        def work(group):
+            return factored.parse(group, args.batch_size)
+    elif args.decoder == "lexicalized":   # the model itself, labels from its back-off grammar
         grammars = [grammar]
 
         def work(group):
@@ -159,7 +180,7 @@ def run(args) -> int:
     # Tags whose words training removed (data.drop_tags) are left out of the parse, as there,
     # and put back into the tree (insert_words); a dropped tag the grammar knows (training on
     # raw text removes none) stays in.
-    kept = [[not (on_tags and t in drop and t not in grammar.vocab) for t in sentence]
+    kept = [[not (on_tags and t in drop and t not in vocab) for t in sentence]
             for sentence in tokens]
     inputs = [[t for t, k in zip(sentence, mask) if k] for sentence, mask in zip(tokens, kept)]
     todo = [i for i, sentence in enumerate(inputs) if sentence]
@@ -168,8 +189,13 @@ def run(args) -> int:
         raise InputError("--heads-out: the run removed some tags' words (data.drop_tags), so "
                          "the model gives those words no head", path=args.text,
                          line=lines[dropped][0])
-    plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
-                       args.batch_size)
+    if factored is None:
+        plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
+                           args.batch_size)
+    else:  # no rule tensor to budget for; groups of sentences for the progress bar
+        plan = BudgetPlan([list(range(k, min(k + FACTORED_GROUP, len(todo))))
+                           for k in range(0, len(todo), FACTORED_GROUP)], [],
+                          max((len(inputs[i]) for i in todo), default=0), None)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
     with terminal_progress(len(todo) - len(plan.over), "parse") as progress:
         done = run_plan(plan, [inputs[i] for i in todo], work, progress)
@@ -190,7 +216,7 @@ def run(args) -> int:
             if not inputs[i]:
                 why = f"every tag is one that training removed (data.drop_tags: {sorted(drop)})"
             elif result is not None:  # over the budget was reported already
-                unknown = [w for w in inputs[i] if grammar.vocab.lookup(w) < 0]
+                unknown = [w for w in inputs[i] if vocab.lookup(w) < 0]
                 why = f"unknown words {unknown}" if unknown else "no tree covers it"
                 if drop and not on_tags:
                     why += (f"; the grammar's training run removed the words tagged "
@@ -218,6 +244,7 @@ def run(args) -> int:
 
 
 HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
+FACTORED_GROUP = 256  # the same, for a run of factored rules
 
 
 def write_heads(args, lexicalized, fmt: str, lines, inputs) -> None:

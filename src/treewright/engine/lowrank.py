@@ -59,6 +59,30 @@ def lowrank_log_partition(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor, 
     return _LowRank.apply(root, u, v, w, terminal, nt_terminal, span_pot, lengths)
 
 
+def lowrank_label_marginals(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor,
+                            terminal: Tensor, lengths: Tensor,
+                            nt_terminal: Tensor | None = None) -> tuple[Tensor, Tensor]:
+    """log Z (B,) and every symbol's posterior marginal over every span, (B, N+1, N+1, NT + T)
+    indexed [b, start, width, symbol] (preterminals at width one), for low-rank rules (`u`
+    None: independent productions, as `engine.independent` passes them): what
+    `engine.inside.span_tables` gives a decoder for dense rules, from one inside pass and one
+    outside pass without the factor gradients. A cell's marginal is its adjoint times its
+    scaled score (Eisner 2016); spans past a sentence's end and sentences with no parse are 0.
+    """
+    root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
+    B, N, T = terminal.shape
+    NT = root.shape[-1]
+    with torch.no_grad():
+        state = _inside(root, u, v, w, terminal, nt_terminal, None, lengths)
+        marginals = terminal.new_zeros(B, N + 1, N + 1, NT + T)
+        grads = _outside(state, torch.ones_like(state["logz"]), nt_terminal is not None, False,
+                         need_factors=False, need_words=True, labels=marginals)
+        marginals[:, :N, 1, NT:] = grads[4]
+        if grads[5] is not None:
+            marginals[:, :N, 1, :NT] = grads[5]
+    return state["logz"], marginals
+
+
 class _LowRank(torch.autograd.Function):
     @staticmethod
     def forward(ctx, root, u, v, w, terminal, nt_terminal, span_pot, lengths):
@@ -170,11 +194,13 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
 
 
 def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
-             need_factors: bool = True, need_words: bool = True):
+             need_factors: bool = True, need_words: bool = True, labels: Tensor | None = None):
     """Adjoints from the widest span down; see `engine.inside._outside` for the conventions.
 
     The gradients of U, V and W are None unless `need_factors`, the preterminal gradient None
-    unless `need_words` (span posteriors alone need neither)."""
+    unless `need_words` (span posteriors alone need neither). `labels` (B, N+1, N+1, >= NT),
+    when given, receives each nonterminal's adjoint times its scaled cell over every span of
+    two or more words (its posterior marginal when grad_logz is one)."""
     U, V, W, words = st["U"], st["V"], st["W"], st["words"]
     N, B, T = words.shape
     NT, R = st["cells"].shape[-1], V.shape[1]
@@ -211,6 +237,8 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
         adj[0] += adj_top[width]
         if grad_pot is not None:
             grad_pot[:, 0:P, width] = (adj * cells).sum(-1).t()
+        if labels is not None:
+            labels[:, 0:P, width, :NT] = (adj * cells).transpose(0, 1)
         g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
         g.nan_to_num_(nan=0.0)                                        # d/d raw sum
         g_rank = g if U is None else g @ U                            # (P, B, R)

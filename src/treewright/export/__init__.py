@@ -37,14 +37,14 @@ from treewright.export.parses import (HeadRule, ParsedSentence, dependency_heads
 from treewright.export.prune import PruneReport, prune
 from treewright.export.rename import load_renaming, rename_grammar, rename_tree
 from treewright.export.source import (GrammarSource, Rule, iter_rules, load, open_grammar,
-                                      open_restart_grammars, saved_restarts)
+                                      open_restart_grammars, open_run_record, saved_restarts)
 
 __all__ = [
     "Comparison", "ExpectedCounts", "FORMAT_VERSION", "GrammarExport", "GrammarSource",
     "ParsedSentence", "PruneReport", "Rule", "SpanExample", "SymbolMatch", "SymbolSummary",
     "compare", "expected_counts", "format_listing", "grammar_json_text", "grammar_to_json", "iter_rules", "load",
     "load_grammar_export", "load_grammar_json", "load_renaming", "open_grammar",
-    "open_restart_grammars", "saved_restarts",
+    "open_restart_grammars", "open_run_record", "saved_restarts",
     "parse_corpus", "prune", "rename_grammar", "rename_tree", "save_grammar_json",
     "summarize", "symbol_examples", "to_brackets", "to_conllu",
     "HeadRule", "dependency_heads", "head_rule", "fill_heads_conllu", "heads_to_conllu",

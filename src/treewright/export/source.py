@@ -74,6 +74,15 @@ def open_grammar(path: str | Path) -> GrammarSource:
     return GrammarSource(grammar, grammar_path, run_dir, training)
 
 
+def open_run_record(path: str | Path) -> GrammarSource:
+    """A run folder's training record without its grammar (`grammar` None): for a caller that
+    decodes with the run's model and must not load the grammar file's rule tensor."""
+    grammar_path, run_dir = resolve_grammar_path(path)
+    if run_dir is None:
+        raise InputError("a run folder is needed here, not a grammar file", path=str(path))
+    return GrammarSource(None, grammar_path, run_dir, read_training_record(run_dir))
+
+
 def saved_restarts(source: GrammarSource | str | Path) -> int:
     """How many restart grammars a training run folder saved and lists in its result.json (0
     for a grammar file, a JSON export or a run that did not finish). `source` is an opened

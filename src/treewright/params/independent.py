@@ -32,6 +32,7 @@ import torch
 from torch import Tensor, nn
 
 from treewright.engine.independent import independent_dense_binary, independent_log_partition
+from treewright.engine.lowrank import lowrank_label_marginals
 from treewright.grammar import Grammar
 from treewright.params.base import RuleModel
 from treewright.params.neural import EmbeddingParams, mlp
@@ -67,6 +68,16 @@ class IndependentRules(NamedTuple):
         """(B,) log Z for terminal scores (B, N, T), through the independent engine kernel."""
         return independent_log_partition(self.root, self.left, self.right, terminal, lengths,
                                          span_pot=span_pot)
+
+    def label_marginals(self, terminal: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
+        """(B,) log Z and (B, N+1, N+1, S) every symbol's posterior marginal over every span
+        (`engine.lowrank.lowrank_label_marginals`; no (NT, S, S) tensor)."""
+        return lowrank_label_marginals(self.root, None, self.left.t(), self.right.t(), terminal,
+                                       lengths)
+
+    def binary_logprob(self, a: Tensor, b: Tensor, c: Tensor) -> Tensor:
+        """log p(a -> b c) for index tensors of one shape (children indexed over S)."""
+        return self.left[a, b] + self.right[a, c]
 
     def most_probable(self, per_symbol: int) -> tuple[RuleTensors, Tensor]:
         """Dense rules keeping only each nonterminal's `per_symbol` most probable binary rules

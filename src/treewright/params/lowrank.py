@@ -23,7 +23,7 @@ from typing import NamedTuple
 import torch
 from torch import Tensor, nn
 
-from treewright.engine.lowrank import lowrank_log_partition
+from treewright.engine.lowrank import lowrank_label_marginals, lowrank_log_partition
 from treewright.grammar import Grammar
 from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
@@ -53,6 +53,15 @@ class LowRankRules(NamedTuple):
         """(B,) log Z for terminal scores (B, N, T), through the low-rank engine kernel."""
         return lowrank_log_partition(self.root, self.u, self.v, self.w, terminal, lengths,
                                      span_pot=span_pot)
+
+    def label_marginals(self, terminal: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
+        """(B,) log Z and (B, N+1, N+1, S) every symbol's posterior marginal over every span
+        (`engine.lowrank.lowrank_label_marginals`; no (NT, S, S) tensor)."""
+        return lowrank_label_marginals(self.root, self.u, self.v, self.w, terminal, lengths)
+
+    def binary_logprob(self, a: Tensor, b: Tensor, c: Tensor) -> Tensor:
+        """log p(a -> b c) for index tensors of one shape (children indexed over S)."""
+        return torch.logsumexp(self.u[a] + self.v[b] + self.w[c], -1)
 
 
 def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
