@@ -110,7 +110,13 @@ def run(args) -> int:
     factored = None
     if args.decoder == "mbr" and args.heads_out is None:
         from treewright.induce import load_factored
-        factored = load_factored(args.grammar)  # None: not a run of factored rules
+        try:
+            factored = load_factored(args.grammar)  # None: not a run of factored rules
+        except InputError as err:
+            raise InputError(f"{err.reason} (mbr on a run of factored rules reads its model and "
+                             "its training corpus; give its grammar.pcfg instead of the folder "
+                             "to decode with the rules of that file)", path=err.path,
+                             line=err.line) from None
     if factored is not None:
         # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
         source = open_run_record(args.grammar)
