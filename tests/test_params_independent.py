@@ -422,6 +422,10 @@ def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
         assert fields[0] == d.tree.to_string()
         assert float(fields[1]) == pytest.approx(d.tree_logprob, abs=1e-8)
         assert float(fields[2]) == pytest.approx(d.posterior, abs=1e-8)
+    # Without --decoder, a run of factored rules is decoded the same way, and says so.
+    assert main(["parse", str(tmp_path / "run"), str(text), "--scores"]) == 0
+    again = capsys.readouterr()
+    assert again.out.split("\n") == rows and "mbr through the run's own model" in again.err
     # The model's vocabulary is the training corpus read again: gone, it is named, and the
     # grammar file is offered instead (which this test's monkeypatch would refuse to load).
     train_path.rename(tmp_path / "moved.txt")

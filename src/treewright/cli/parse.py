@@ -13,7 +13,8 @@ EXAMPLES = """examples:
   echo "astronomers saw stars with ears" | treewright parse src/treewright/data/examples/astronomers.pcfg - --scores
   treewright parse runs/lexicalized_demo dev.conllu --heads-out dev.heads.conllu
 
-decoders (default: consensus for a run folder that saved two or more restarts, else viterbi):
+decoders (default: consensus for a run folder that saved two or more restarts, mbr for the run
+folder of factored rules (below), else viterbi):
   viterbi           the most probable tree
   mbr               the binary tree maximizing the summed posterior span marginals, each span
                     labeled with its most probable symbol (the usual decoder for induced grammars);
@@ -108,7 +109,10 @@ def run(args) -> int:
 
     dtype = torch.float64  # decode's precision
     factored = None
-    if args.decoder == "mbr" and args.heads_out is None:
+    # A run of factored rules decodes with mbr through its own model by default (unless it
+    # saved several restarts): its grammar file may not even fit in memory as a rule tensor.
+    if args.heads_out is None and (args.decoder == "mbr" or (
+            args.decoder is None and saved_restarts(args.grammar) < 2)):
         from treewright.induce import load_factored
         try:
             factored = load_factored(args.grammar)  # None: not a run of factored rules
@@ -119,6 +123,11 @@ def run(args) -> int:
                              line=err.line) from None
     if factored is not None:
         # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
+        if args.decoder is None:
+            args.decoder = "mbr"
+            print("decoding with mbr through the run's own model (a run of factored rules; "
+                  "--decoder chooses another decoder, which reads the grammar file)",
+                  file=sys.stderr)
         source = open_run_record(args.grammar)
         grammar, vocab = None, factored.vocab
     else:
