@@ -426,9 +426,17 @@ def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
     assert main(["parse", str(tmp_path / "run"), str(text), "--scores"]) == 0
     again = capsys.readouterr()
     assert again.out.split("\n") == rows and "mbr through the run's own model" in again.err
+    # score: the same log-likelihoods as the grammar file gives (inference.score, the dense
+    # engine over the file), with the unknown word read as the unknown-word token and listed.
+    assert main(["score", str(tmp_path / "run"), str(text), "--float64"]) == 0
+    scored = [json.loads(r) for r in capsys.readouterr().out.splitlines()]
+    assert [r["line"] for r in scored[:-1]] == [k for k in range(1, 14) if k != 7]
+    for r, d in zip(scored[:-1], expect, strict=True):
+        assert r["logprob"] == pytest.approx(d.log_likelihood, abs=1e-8)
+    assert scored[6]["unknown"] == ["zzunknown"] and scored[-1]["summary"]["parsed"] == 12
     # The model's vocabulary is the training corpus read again: gone, it is named, and the
     # grammar file is offered instead (which this test's monkeypatch would refuse to load).
     train_path.rename(tmp_path / "moved.txt")
     assert main(["parse", str(tmp_path / "run"), str(text), "--decoder", "mbr"]) != 0
     err = capsys.readouterr().err
-    assert str(train_path) in err and "grammar.pcfg instead" in err
+    assert str(train_path) in err and "grammar.pcfg instead of the folder" in err

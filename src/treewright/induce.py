@@ -34,7 +34,7 @@ from treewright.export.source import (open_grammar, open_restart_grammars, read_
                                      saved_restarts)
 from treewright.grammar import Grammar, load_grammar
 from treewright.params import PARAMETERIZATIONS, LexicalizedParams, symbol_names
-from treewright.runfolder import RunFolder
+from treewright.runfolder import GRAMMAR, RunFolder
 from treewright.safeio import load_checkpoint
 from treewright.train.config import TrainConfig
 from treewright.tracking import terminal_progress
@@ -308,7 +308,13 @@ def load_factored(run_dir: str | Path) -> FactoredRun | None:
             return None
     unstaged = dataclasses.replace(cfg, constraints=dataclasses.replace(
         cfg.constraints, brackets_from=None, brackets_epochs=None))
-    vocab = load_data(unstaged).vocab
+    try:
+        vocab = load_data(unstaged).vocab
+    except InputError as err:
+        raise InputError(f"{err.reason} (a run of factored rules is read as its model, whose "
+                         "vocabulary is its training corpus read again; give the run's "
+                         f"{GRAMMAR} instead of the folder to use the rules of that file)",
+                         path=err.path, line=err.line) from None
     tensors, _ = load_checkpoint(folder.checkpoint)
     model = PARAMETERIZATIONS[cfg.model.parameterization].from_options(
         cfg.model, len(vocab), None, _dtype(cfg))

@@ -19,6 +19,7 @@ from treewright import engine
 from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar
 from treewright.trees import Tree, tree_from_spans
+from treewright.vocab import Vocabulary
 
 NEG_INF = float("-inf")
 
@@ -116,6 +117,27 @@ def score(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_size: int 
             logz = engine.log_partition(root, binary, terminal, lengths, nt_terminal)
             for k, i in enumerate(batch):
                 out[i] = SentenceScore(list(sentences[i]), float(logz[k]), enc.unknown[k])
+    return out  # type: ignore[return-value]
+
+
+def score_rules(rules, vocab: Vocabulary, sentences: Sequence[Sequence[str]],
+                batch_size: int = 64, dtype: torch.dtype | None = None) -> list[SentenceScore]:
+    """`score` for rules that are no `Grammar` (factored rules, `params.IndependentRules` or
+    `params.LowRankRules`, which carry their own engine call): log p(sentence) per sentence, in
+    input order, through `rules.log_partition`, in `dtype` (default: the rules' own). `vocab`
+    is the rules' vocabulary; a word outside it is read as its unknown-word token and listed
+    in `unknown`, or, without that token, leaves its sentence with no parse."""
+    _check_words(sentences)
+    if dtype is not None:
+        rules = type(rules)(*(x.to(dtype) for x in rules))
+    out: list[SentenceScore | None] = [None] * len(sentences)
+    with torch.no_grad():
+        for batch in length_batches([len(s) for s in sentences], batch_size):
+            ids, lengths = pad_ids([vocab.encode(sentences[i]) for i in batch])
+            logz = rules.log_partition(encode_ids(rules.lexical, ids, lengths).terminal, lengths)
+            for k, i in enumerate(batch):
+                out[i] = SentenceScore(list(sentences[i]), float(logz[k]),
+                                       [w for w in sentences[i] if w not in vocab])
     return out  # type: ignore[return-value]
 
 

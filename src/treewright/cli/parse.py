@@ -114,13 +114,7 @@ def run(args) -> int:
     if args.heads_out is None and (args.decoder == "mbr" or (
             args.decoder is None and saved_restarts(args.grammar) < 2)):
         from treewright.induce import load_factored
-        try:
-            factored = load_factored(args.grammar)  # None: not a run of factored rules
-        except InputError as err:
-            raise InputError(f"{err.reason} (mbr on a run of factored rules reads its model and "
-                             "its training corpus; give its grammar.pcfg instead of the folder "
-                             "to decode with the rules of that file)", path=err.path,
-                             line=err.line) from None
+        factored = load_factored(args.grammar)  # None: not a run of factored rules
     if factored is not None:
         # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
         if args.decoder is None:

@@ -17,7 +17,14 @@ parse. Values carry the digits their precision supports (about 7 in float32, the
 gets a line with logprob null and "over_memory_budget": true. The last line is the summary:
 total log-likelihood, per-word cross-entropy and perplexity over parsed sentences (null when none
 parsed), and the count of sentences over the budget. On a terminal a progress bar runs on standard error.
+
+The run folder of factored rules (model.parameterization independent, independent-neural or
+lowrank; the run kept its last restart) is scored with its model from the checkpoint, through its
+own engine pass, never loading grammar.pcfg into an (NT, S, S) rule tensor (its training corpus
+must still be where the run's config points; the memory budget does not apply).
 """
+
+SCORE_GROUP = 1024  # sentences between two updates of the progress bar, for a factored run
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -31,24 +38,41 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import torch
 
-    from treewright.budget import plan_budget, run_plan
+    from treewright.budget import BudgetPlan, plan_budget, run_plan
     from treewright.cli.common import (as_trained, dumps, read_sentences, shortest,
                                        warn_over_budget)
-    from treewright.export import open_grammar  # text, JSON export or run folder
-    from treewright.inference import corpus_summary, score
+    from treewright.export import open_grammar, open_run_record  # text, JSON export or run folder
+    from treewright.inference import corpus_summary, score, score_rules
     from treewright.tracking import terminal_progress
 
-    source = open_grammar(args.grammar)
-    grammar = source.grammar
-    lines = read_sentences(args.text)
+    from treewright.induce import load_factored
+
     dtype = torch.float64 if args.float64 else torch.float32
-    inputs = as_trained(source, lines)
-    plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
-                       args.batch_size)
-    warn_over_budget(plan, grammar, lines, args.text, dtype, "scored")
+    factored = load_factored(args.grammar)  # None: not a run of factored rules
+    if factored is not None:
+        # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
+        source = open_run_record(args.grammar)
+        lines = read_sentences(args.text)
+        inputs = as_trained(source, lines)
+        plan = BudgetPlan([list(range(k, min(k + SCORE_GROUP, len(inputs))))
+                           for k in range(0, len(inputs), SCORE_GROUP)], [],
+                          max(map(len, inputs), default=0), None)
+
+        def work(group):
+            return score_rules(factored.rules, factored.vocab, group, args.batch_size, dtype)
+    else:
+        source = open_grammar(args.grammar)
+        grammar = source.grammar
+        lines = read_sentences(args.text)
+        inputs = as_trained(source, lines)
+        plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
+                           args.batch_size)
+        warn_over_budget(plan, grammar, lines, args.text, dtype, "scored")
+
+        def work(group):
+            return score(grammar, group, args.batch_size, dtype)
     with terminal_progress(len(inputs) - len(plan.over), "score") as progress:
-        scores = run_plan(plan, inputs,
-                          lambda group: score(grammar, group, args.batch_size, dtype), progress)
+        scores = run_plan(plan, inputs, work, progress)
     for (line, words), s in zip(lines, scores):
         if s is None:
             print(dumps({"line": line, "tokens": words, "logprob": None, "parsed": False,
