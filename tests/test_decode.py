@@ -289,6 +289,17 @@ def spy_on_passes(monkeypatch) -> list[tuple[str, torch.Tensor]]:
     return calls
 
 
+def assert_max_rule_product_enumerated(grammar, sentences) -> None:
+    """max_rule_product on one batch of `sentences` gives the trees and scores of brute force
+    (`coarse_objective`)."""
+    tables = span_tables(grammar, sentences)
+    results = max_rule_product(grammar, tables, [len(w) for w in sentences])
+    for words, (spans, value) in zip(sentences, results, strict=True):
+        expect_value, expect_spans = coarse_objective(grammar, words)
+        assert value == pytest.approx(expect_value, abs=1e-9)
+        assert sorted(spans) == expect_spans
+
+
 def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) -> None:
     """The forced pass ran with a finite floor (the other did not: the known tree's floor is
     an item pass of its own), and the known tree's floor was sought only when asked for (and,
@@ -335,12 +346,7 @@ def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tr
     for grammar in (REFINED, SPARSE):
         floors.clear()
         calls.clear()
-        tables = span_tables(grammar, SENTENCES)
-        results = max_rule_product(grammar, tables, [len(w) for w in SENTENCES])
-        for words, (spans, value) in zip(SENTENCES, results):
-            expect_value, expect_spans = coarse_objective(grammar, words)
-            assert value == pytest.approx(expect_value, abs=1e-9)
-            assert sorted(spans) == expect_spans
+        assert_max_rule_product_enumerated(grammar, SENTENCES)
         if passes is not None:
             assert len(floors) == passes
         if at_most == 0.0:
@@ -514,12 +520,7 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
              (make_grammar(["A", "B"], ["P"], 3, seed=6, nt_emit=True),
               SENTENCES[:2] + [["w2"]])]
     for g, sentences in cases:
-        tables = span_tables(g, sentences)
-        results = max_rule_product(g, tables, [len(w) for w in sentences])
-        for words, (spans, value) in zip(sentences, results):
-            expect_value, expect_spans = coarse_objective(g, words)
-            assert value == pytest.approx(expect_value, abs=1e-9)
-            assert sorted(spans) == expect_spans
+        assert_max_rule_product_enumerated(g, sentences)
     assert ("_max_rule_product_items" in {name for name, _ in calls}) == (
         path == "items" or nats_per_word == 0.01)
 

@@ -1167,6 +1167,18 @@ def decode_heads(model: LexicalizedParams, vocab: Vocabulary,
     return _by_length(sentences, batch_size, batch)   # type: ignore[arg-type,return-value]
 
 
+def _encodable(vocab: Vocabulary, words: Sequence[Sequence[str]]
+               ) -> tuple[list[int], Tensor | None, Tensor | None]:
+    """The positions of the sentences `vocab` can encode (no word outside it, nor, without an
+    unknown-word token, unknown) and their padded ids and lengths (None when there is none)."""
+    encoded = [vocab.encode(w) for w in words]
+    known = [k for k, ids in enumerate(encoded) if -1 not in ids]
+    if not known:
+        return known, None, None
+    ids, lengths = pad_ids([encoded[k] for k in known])
+    return known, ids, lengths
+
+
 def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
                     preterminals: Sequence[str], sentences: Sequence[Sequence[str]],
                     batch_size: int = 16) -> list[Decoded]:
@@ -1185,11 +1197,9 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
 
     def batch(words: list[list[str]]) -> list[Decoded]:
         out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
-        encoded = [vocab.encode(w) for w in words]
-        known = [k for k, ids in enumerate(encoded) if -1 not in ids]
+        known, ids, lengths = _encodable(vocab, words)
         if not known:
             return out
-        ids, lengths = pad_ids([encoded[k] for k in known])
         with torch.no_grad():
             terminal = encode_ids(rules.lexical, ids, lengths).terminal
             logz, marginals = rules.label_marginals(terminal, lengths)
@@ -1263,11 +1273,9 @@ def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Gra
 
     def batch(words: list[list[str]]) -> list[Decoded]:
         out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
-        encoded = [vocab.encode(w) for w in words]
-        known = [k for k, ids in enumerate(encoded) if -1 not in ids]
+        known, ids, lengths = _encodable(vocab, words)
         if not known:
             return out
-        ids, lengths = pad_ids([encoded[k] for k in known])
         logz, spans_p = scorer.span_posteriors(ids, lengths)     # (B,), (B, N+1, N+1)
         n = lengths.tolist()
         brackets = mbr_spans_batch(spans_p, n)
