@@ -62,6 +62,12 @@ def _scalars(metrics: Mapping[str, Any], step: int) -> dict[str, int | float]:
     return result
 
 
+def perplexity(loglik_per_word: float) -> float:
+    """exp(-log-likelihood per word) (common practice), inf where that overflows a float (a
+    diverged model: below about -709 nats a word) rather than an OverflowError."""
+    return math.exp(-loglik_per_word) if -loglik_per_word < 709.0 else math.inf
+
+
 def format_number(value: int | float) -> str:
     """A compact, readable number: ints in full, floats to about four significant digits
     (3.142, 0.001235, 23456.8, 1.235e-05), and nan / inf / -inf as words."""

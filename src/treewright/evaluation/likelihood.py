@@ -7,6 +7,7 @@ from dataclasses import asdict, dataclass
 from typing import Sequence
 
 from treewright.errors import InputError
+from treewright.tracking import perplexity
 
 # Sentence log-probabilities a little above 0 are rounding in a nearly deterministic grammar.
 LOGPROB_SLACK = 1e-6
@@ -36,12 +37,6 @@ class LikelihoodScores:
             "perplexity": "exp(-total_logprob / total_words)",
         }
         return out
-
-
-def perplexity(loglik_per_word: float) -> float:
-    """exp(-log-likelihood per word) (common practice), inf where that overflows a float (a
-    diverged model: below about -709 nats a word) rather than an OverflowError."""
-    return math.exp(-loglik_per_word) if -loglik_per_word < 709.0 else math.inf
 
 
 def heldout_likelihood(logprobs: Sequence[float], word_counts: Sequence[int], *,

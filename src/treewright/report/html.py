@@ -23,9 +23,9 @@ from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
                                expand_unary, read_corpus, run_read_options, unbinarize)
 from treewright.errors import InputError
-from treewright.evaluation.likelihood import perplexity
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
+from treewright.tracking import perplexity
 from treewright.trees import Tree, tree_from_spans
 
 # Readable names of the metrics drawn (the keys that train/ and refine/ write to metrics.jsonl).

@@ -10,8 +10,8 @@ from __future__ import annotations
 from torch import Tensor
 
 from treewright.corpus import length_batches
-from treewright.evaluation.likelihood import perplexity
 from treewright.params.base import Scorer
+from treewright.tracking import perplexity
 from treewright.train.data import MemoryBudget, TrainData
 from treewright.train.estep import make_batch
 

@@ -25,10 +25,9 @@ from typing import TextIO
 import torch
 
 from treewright.config import config_to_dict
-from treewright.evaluation.likelihood import perplexity
 from treewright.runfolder import RunFolder
 from treewright.safeio import save_checkpoint
-from treewright.tracking import Progress
+from treewright.tracking import Progress, perplexity
 from treewright.train.config import TrainConfig
 from treewright.train.curriculum import Curriculum, restart_seed
 from treewright.train.data import MemoryBudget, TrainData, load_data, summary
