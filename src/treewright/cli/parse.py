@@ -76,7 +76,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
     p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
                    help="how the tree is chosen (default: consensus for a run folder that "
-                        "saved two or more restarts, else viterbi; see below)")
+                        "saved two or more restarts, mbr for a run of factored rules, else "
+                        "viterbi; see below)")
     p.add_argument("--scores", action="store_true",
                    help="append the tree's log-probability and its posterior to each line")
     p.add_argument("--objective", action="store_true",
