@@ -291,21 +291,19 @@ def load_factored(run_dir: str | Path) -> FactoredRun | None:
     its checkpoint, with its vocabulary rebuilt by reading the training corpus again as the
     saved config says: for decoding through the factored engine, without the (NT, S, S) rule
     tensor that its grammar file loads into (1,024 nonterminals and 2,048 preterminals: 9.7
-    billion entries). None when `run_dir` is not a run folder, its run trained other rules, or
-    the run kept a restart other than the last (the checkpoint holds the last restart's model
+    billion entries). None when `run_dir` is not a finished run's folder, its run trained other
+    rules, or the run kept a restart other than the last (the checkpoint holds the last restart's model
     only): the grammar file is what is read then."""
     if not Path(run_dir).is_dir():
         return None
     folder = RunFolder(run_dir, "train")
-    if not folder.config.is_file() or not folder.checkpoint.is_file():
-        return None
+    if not (folder.config.is_file() and folder.checkpoint.is_file() and folder.result.is_file()):
+        return None   # not a finished run: the grammar file's reader says what is missing
     cfg = saved_config(run_dir)
     if cfg.model.parameterization not in FACTORED:
         return None
-    if folder.result.exists():
-        kept = json.loads(folder.result.read_text())["best_restart"]
-        if kept != cfg.train.restarts - 1:
-            return None
+    if json.loads(folder.result.read_text())["best_restart"] != cfg.train.restarts - 1:
+        return None
     unstaged = dataclasses.replace(cfg, constraints=dataclasses.replace(
         cfg.constraints, brackets_from=None, brackets_epochs=None))
     try:
