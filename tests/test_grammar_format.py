@@ -82,3 +82,19 @@ def test_missing_start_and_missing_file(tmp_path):
         parse_grammar('S -> A A 1.0\nA -> "a" 1.0\n')
     with pytest.raises(InputError, match="no such grammar file"):
         load_grammar(tmp_path / "absent.pcfg")
+
+
+def test_a_grammar_too_large_for_free_memory_is_refused_naming_the_file(tmp_path, monkeypatch):
+    # The arithmetic of the (NT, S, S) float64 rule tensor: 1 nonterminal over 2 symbols takes
+    # 1 * 2 * 2 * 8 = 32 bytes, held RULE_TENSOR_COPIES times as the grammar is built.
+    from treewright import grammar as grammar_module
+    path = tmp_path / "g.pcfg"
+    path.write_text("@start S\nS -> A A 1.0\nA -> \"a\" 1.0\n")
+    assert load_grammar(path).binary.shape == (1, 2, 2)
+    need = grammar_module.RULE_TENSOR_COPIES * 1 * 2 * 2 * 8
+    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need - 1)
+    with pytest.raises(InputError) as err:
+        load_grammar(path)
+    assert err.value.path == str(path) and "(1, 2, 2) tensor" in str(err.value)
+    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need)
+    assert load_grammar(path).binary.shape == (1, 2, 2)

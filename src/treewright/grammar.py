@@ -463,7 +463,8 @@ def _build(rules, start, unk, shapes, source, renormalize, tolerance) -> Grammar
                           "to rescale them)", path=source, line=first_line[name])
 
     grammar = build_grammar(nonterminals, preterminals, vocab, start, root, binary, lexical,
-                            rescale=renormalize, tolerance=tolerance, bad_total=bad_total)
+                            rescale=renormalize, tolerance=tolerance, bad_total=bad_total,
+                            source=source)
     _check_productive(grammar, source)
     return grammar
 
@@ -472,7 +473,8 @@ def build_grammar(nonterminals: list[str], preterminals: list[str], vocab: Vocab
                   start: str, root: dict[str, float], binary: dict[tuple[str, str, str], float],
                   lexical: dict[tuple[str, str], float], *, rescale: bool = False,
                   tolerance: float = 1e-6,
-                  bad_total: Callable[[str, float], Exception] | None = None) -> Grammar:
+                  bad_total: Callable[[str, float], Exception] | None = None,
+                  source: str | None = None) -> Grammar:
     """A `Grammar` from named rules and their weights: the one builder that the text format,
     the JSON export and the relative-frequency estimate all use, so that equal rules give
     equal bits whichever way they came in.
@@ -486,11 +488,14 @@ def build_grammar(nonterminals: list[str], preterminals: list[str], vocab: Vocab
     preterminals). Each left-hand side (the root distribution; a nonterminal's binary and
     lexical rules together) must sum to one within `tolerance`; one that does not is divided
     by its total when `rescale` (counts give the relative-frequency estimate this way), and
-    otherwise, or when its total is zero, `bad_total(name, total)` is raised.
+    otherwise, or when its total is zero, `bad_total(name, total)` is raised. A grammar whose
+    (NT, S, S) rule tensor would not fit in the memory this machine has free is refused first
+    (InputError naming `source`), rather than left to the system's out-of-memory killer.
     """
     names = nonterminals + preterminals
     index = {name: i for i, name in enumerate(names)}
     nt, s, v = len(nonterminals), len(names), len(vocab)
+    _check_room(nt, s, source)
     root_t = torch.zeros(nt, dtype=torch.float64)
     binary_t = torch.zeros(nt, s, s, dtype=torch.float64)
     lexical_t = torch.zeros(s, v, dtype=torch.float64)
@@ -522,6 +527,36 @@ def build_grammar(nonterminals: list[str], preterminals: list[str], vocab: Vocab
                 binary_t[i] /= total
     return Grammar(list(nonterminals), list(preterminals), vocab, root_t.log(), binary_t.log(),
                    lexical_t.log(), start)
+
+
+RULE_TENSOR_COPIES = 3  # the (NT, S, S) float64 tensor is held about this many times as it is built
+
+
+def _available_bytes() -> int | None:
+    """The memory the system can give without swapping (Linux's MemAvailable), or None where
+    it does not say."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError):
+        return None
+    return None
+
+
+def _check_room(nt: int, s: int, source: str | None) -> None:
+    """InputError when the binary rules of `nt` nonterminals over `s` symbols need more memory,
+    as a dense float64 tensor held `RULE_TENSOR_COPIES` times, than the system has free."""
+    need = RULE_TENSOR_COPIES * nt * s * s * 8
+    free = _available_bytes()
+    if free is not None and need > free:
+        raise InputError(
+            f"the rules of {nt} nonterminals over {s} symbols load into an ({nt}, {s}, {s}) "
+            f"tensor: about {need / 2 ** 30:,.1f} GiB as it is built, and this machine has "
+            f"{free / 2 ** 30:,.1f} GiB free. For a training run of factored rules "
+            "(model.parameterization independent or lowrank), `treewright parse RUN` and "
+            "`treewright score RUN` read the run's model instead of this file", path=source)
 
 
 def _default_bad_total(name: str, total: float) -> Exception:

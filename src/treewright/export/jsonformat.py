@@ -246,7 +246,8 @@ def grammar_from_json(data: Any, source: str = "<json>") -> GrammarExport:
     # The text format's builder, so a grammar read from either format has the same bits.
     grammar = build_grammar(nonterminals, preterminals, Vocabulary(words, unk=unk, shapes=shapes),
                             start, root,
-                            binary, lexical, tolerance=SUM_TOLERANCE, bad_total=bad_total)
+                            binary, lexical, tolerance=SUM_TOLERANCE, bad_total=bad_total,
+                            source=source)
     counts = data["counts"]
     expected = {"nonterminals": nt, "preterminals": len(preterminals), "words": len(words),
                 "rules": len(data["rules"])}
