@@ -555,8 +555,9 @@ def _check_room(nt: int, s: int, source: str | None) -> None:
             f"the rules of {nt} nonterminals over {s} symbols load into an ({nt}, {s}, {s}) "
             f"tensor: about {need / 2 ** 30:,.1f} GiB as it is built, and this machine has "
             f"{free / 2 ** 30:,.1f} GiB free. For a training run of factored rules "
-            "(model.parameterization independent or lowrank), `treewright parse RUN` and "
-            "`treewright score RUN` read the run's model instead of this file", path=source)
+            "(model.parameterization independent or lowrank) that kept its last restart, "
+            "`treewright parse RUN` and `treewright score RUN` read the run's model instead of "
+            "this file", path=source)
 
 
 def _default_bad_total(name: str, total: float) -> Exception:
