@@ -434,6 +434,18 @@ def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
     for r, d in zip(scored[:-1], expect, strict=True):
         assert r["logprob"] == pytest.approx(d.log_likelihood, abs=1e-8)
     assert scored[6]["unknown"] == ["zzunknown"] and scored[-1]["summary"]["parsed"] == 12
+    # evaluate --grammar RUN --text: the held-out likelihood is the same sum over the parsed
+    # sentences (12 of them, all), from the model.
+    pred, held_out = tmp_path / "pred.trees", tmp_path / "held_out.txt"
+    pred.write_text("".join(f"{d.tree.to_string()}\n" for d in expect))
+    held_out.write_text("\n".join(lines) + "\n")
+    assert main(["evaluate", str(pred), str(pred), "--grammar", str(tmp_path / "run"),
+                 "--text", str(held_out), "--json", "-"]) == 0
+    held = json.loads(capsys.readouterr().out)["likelihood"]
+    words = sum(len(line.split()) for line in lines)
+    assert held["total_words"] == words and held["sentences"] == 12
+    assert held["logprob_per_word"] == pytest.approx(
+        sum(d.log_likelihood for d in expect) / words, rel=1e-6)
     # The model's vocabulary is the training corpus read again: gone, it is named, and the
     # grammar file is offered instead (which this test's monkeypatch would refuse to load).
     train_path.rename(tmp_path / "moved.txt")

@@ -20,7 +20,9 @@ become the gold spans). The left-branching, right-branching, random and binary u
 are always scored beside the model on the same sentences. Tags (many-to-one, V-measure) are
 scored when both sides have preterminals/tags. Inputs that do not match stop with an error that
 names the first mismatching line. With --grammar and --text, a text sentence too long for
---memory-budget is left out of the likelihood, and the table names its line.
+--memory-budget is left out of the likelihood, and the table names its line. The run folder of
+factored rules (model.parameterization independent, independent-neural or lowrank; the run kept
+its last restart) scores the text with its model, as `treewright score` does (no budget).
 
 Heads: when PRED is CoNLL-U (a .conllu/.conll file, or --pred-format conllu) its HEAD column is
 scored against the HEAD column of CoNLL-U gold: directed and undirected attachment accuracy,
@@ -98,6 +100,8 @@ def conventions_from_args(args):
 
 
 def run(args) -> int:
+    from functools import partial
+
     from treewright.cli.common import dumps
     from treewright.errors import InputError
     from treewright.report.scoring import evaluate_files, evaluate_heads_files, prediction_format
@@ -113,11 +117,18 @@ def run(args) -> int:
     if heads and args.gold_format == "brackets":
         raise InputError("predicted heads are scored against CoNLL-U gold, not bracketed trees",
                          path=args.gold)
+    scorer = None
+    if args.grammar is not None and not heads:
+        from treewright.induce import load_factored
+        from treewright.inference import score_rules
+        factored = load_factored(args.grammar)  # a run of factored rules: its model scores
+        if factored is not None:
+            scorer = partial(score_rules, factored.rules, factored.vocab)
     report = evaluate_heads_files(args.pred, args.gold, conventions_from_args(args)) if heads \
         else evaluate_files(args.pred, args.gold, conventions_from_args(args),
                             gold_format=args.gold_format, grammar_path=args.grammar,
                             text_path=args.text, tags=not args.no_tags,
-                            memory_budget_mb=args.memory_budget)
+                            memory_budget_mb=args.memory_budget, scorer=scorer)
     text = dumps(report.to_dict())
     if args.json == "-":
         print(text)

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Sequence
+from typing import Callable, Sequence
 
 from treewright.budget import DEFAULT_BUDGET_MB
 from treewright.corpus import (ReadOptions, Sentence, detect_format, iter_conllu_blocks,
@@ -144,25 +144,32 @@ def _tag_scores(pred: Sequence[Sentence], gold: Sequence[Sentence]):
 
 
 def heldout_from_files(grammar_path: str | Path, text_path: str | Path,
-                       memory_budget_mb: float | None = DEFAULT_BUDGET_MB
+                       memory_budget_mb: float | None = DEFAULT_BUDGET_MB,
+                       scorer: Callable[[list[list[str]]], list] | None = None
                        ) -> tuple[LikelihoodScores, list[int]]:
     """Per-word log-likelihood and perplexity of a raw-text file under a grammar (text, JSON
     export or run folder), and the lines of the sentences left out because each alone needs
     more than `memory_budget_mb` (see `treewright.budget`). A progress bar runs on a terminal.
     The text is read as the grammar's training run read its corpus (lowercased when it was;
-    `corpus.run_read_options`), as `treewright score` reads it."""
+    `corpus.run_read_options`), as `treewright score` reads it. `scorer`, when given, scores
+    the sentences instead of the grammar file's rules (`inference.SentenceScore` per sentence;
+    for a run folder of factored rules, its model's: the file is then not read and no budget
+    applies)."""
     from treewright.budget import score_within_budget
     from treewright.corpus import run_read_options
-    from treewright.export.source import open_grammar  # text, JSON export or run folder
+    from treewright.export.source import open_grammar, open_run_record
     from treewright.tracking import terminal_progress
 
-    source = open_grammar(grammar_path)
+    source = open_grammar(grammar_path) if scorer is None else open_run_record(grammar_path)
     config = (source.training or {}).get("config")
     options = run_read_options(config.get("data") if isinstance(config, dict) else None)
     sentences = read_all(text_path, "text", options, "text")
-    with terminal_progress(len(sentences), "held-out likelihood") as progress:
-        scores = score_within_budget(source.grammar, [s.tokens for s in sentences],
-                                     memory_budget_mb, progress=progress)
+    if scorer is not None:
+        scores = scorer([s.tokens for s in sentences])
+    else:
+        with terminal_progress(len(sentences), "held-out likelihood") as progress:
+            scores = score_within_budget(source.grammar, [s.tokens for s in sentences],
+                                         memory_budget_mb, progress=progress)
     kept = [s for s in scores if s is not None]
     over = [t.line for t, s in zip(sentences, scores) if s is None]
     return heldout_likelihood([s.logprob for s in kept], [len(s.words) for s in kept],
@@ -173,13 +180,15 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
                    conventions: BracketConventions | None = None, *, gold_format: str = "auto",
                    grammar_path: str | Path | None = None, text_path: str | Path | None = None,
                    tags: bool = True,
-                   memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> EvaluationReport:
+                   memory_budget_mb: float | None = DEFAULT_BUDGET_MB,
+                   scorer: Callable[[list[list[str]]], list] | None = None) -> EvaluationReport:
     """Score a bracketed-tree file against a gold file (bracketed trees or CoNLL-U).
 
     grammar_path and text_path, given together, add the held-out likelihood of the text.
     tags: score induced preterminals against gold tags when both sides have them.
     memory_budget_mb: text sentences that alone need more are left out of the likelihood and
     named in `likelihood_note` (see `treewright.budget`).
+    scorer: scores the text instead of the grammar file (see `heldout_from_files`).
     """
     pred = read_all(pred_path, "brackets", PRED_OPTIONS, "predicted")
     gold_corpus = read_corpus(gold_path, gold_format, GOLD_OPTIONS)
@@ -215,7 +224,8 @@ def evaluate_files(pred_path: str | Path, gold_path: str | Path,
     else:
         report.tags_note = "not requested"
     if grammar_path is not None and text_path is not None:
-        report.likelihood, over = heldout_from_files(grammar_path, text_path, memory_budget_mb)
+        report.likelihood, over = heldout_from_files(grammar_path, text_path, memory_budget_mb,
+                                                     scorer)
         if over:
             report.likelihood_note = (
                 f"{len(over)} sentences of {text_path} over the memory budget of "
