@@ -264,6 +264,40 @@ def test_a_grammar_over_the_rule_cap_is_saved_with_each_symbols_most_probable_ru
     assert f"at most {removed[worst]:.4g}, {names[worst]})" in log
 
 
+def test_a_grammar_too_large_for_a_dense_tensor_is_written_from_its_kept_rules(tmp_path,
+                                                                               monkeypatch):
+    # Reference: the same run's grammar file written through the dense Grammar (the path of
+    # the test above, checked against a plain sort of every rule): the same rules and
+    # probabilities, and a file that loads and parses. The dense limit is lowered so that a
+    # small grammar takes the path of one with 1,024 nonterminals.
+    from treewright.train import config as config_module
+    from treewright.train import finish as finish_module
+    train_path, _ = write_corpus(tmp_path / "data", train=40, dev=0)
+    overrides = {"train.method": "gradient", "model.parameterization": "independent",
+                 "train.epochs": 1, "output.max_saved_rules": 30}
+    dense_run = train(load_train_config(None, base_overrides(tmp_path, train_path, None,
+                                                             **overrides)), tmp_path / "dense")
+    monkeypatch.setattr(config_module, "INDEPENDENT_MAX_DENSE_RULES", 100)
+    monkeypatch.setattr(finish_module, "INDEPENDENT_MAX_DENSE_RULES", 100)
+    written = []
+    real = finish_module._pairs_text
+    monkeypatch.setattr(finish_module, "_pairs_text", lambda *a: written.append(1) or real(*a))
+    sparse_run = train(load_train_config(None, base_overrides(tmp_path, train_path, None,
+                                                              **overrides)), tmp_path / "sparse")
+    assert written == [1]                  # 3 x 8 x 8 = 192 rules, over the lowered limit
+    want, got = load_grammar(dense_run.grammar_path_), load_grammar(sparse_run.grammar_path_)
+    assert got.symbols == want.symbols and got.vocab.words == want.vocab.words
+    for mine, theirs in ((got.root, want.root), (got.binary, want.binary),
+                         (got.lexical, want.lexical)):
+        assert torch.equal(torch.isfinite(mine), torch.isfinite(theirs))
+        torch.testing.assert_close(mine.exp(), theirs.exp(), rtol=1e-12, atol=1e-15)
+    assert "saved each nonterminal's 10 most" in (tmp_path / "sparse" / "train.log").read_text()
+    # Without a cap a file of every rule would need the dense tensor: refused before training.
+    with pytest.raises(InputError, match="output.max_saved_rules"):
+        load_train_config(None, base_overrides(tmp_path, train_path, None, **{
+            **overrides, "output.max_saved_rules": None}))
+
+
 @pytest.mark.parametrize("words", [[0, 1, 2], [3, 0, 2, 1]])
 def test_the_neural_form_gives_normalized_factors_and_the_enumerated_log_z(words):
     # The neural form computes the same two factors from embeddings: each row a distribution,
@@ -376,11 +410,18 @@ def test_independent_is_registered_and_refuses_the_methods_it_lacks():
 
 def test_a_grammar_too_large_to_write_is_refused_before_training():
     # 256 and 512 give 256 x 768^2 = 150,994,944 rules (under the bound 2^28 = 268,435,456);
-    # 512 and 1,024 give 512 x 1,536^2 = 1,207,959,552 (over it): arithmetic by hand.
+    # 512 and 1,024 give 512 x 1,536^2 = 1,207,959,552 (over it): arithmetic by hand. Over it,
+    # a file of each nonterminal's most probable rules is written (the default cap, 5 million,
+    # or any cap up to the bound), but not one of every rule or of more than the bound.
     base = ["data.train=x.txt", "model.parameterization=independent", "train.method=gradient"]
-    load_train_config(None, base + ["model.nonterminals=256", "model.preterminals=512"])
-    with pytest.raises(InputError, match="1,207,959,552 binary rules"):
-        load_train_config(None, base + ["model.nonterminals=512", "model.preterminals=1024"])
+    load_train_config(None, base + ["model.nonterminals=256", "model.preterminals=512",
+                                    "output.max_saved_rules=null"])
+    big = base + ["model.nonterminals=512", "model.preterminals=1024"]
+    load_train_config(None, big)
+    load_train_config(None, big + ["output.max_saved_rules=268435456"])
+    for cap in ("null", "268435457"):
+        with pytest.raises(InputError, match="1,207,959,552 binary rules"):
+            load_train_config(None, big + [f"output.max_saved_rules={cap}"])
 
 
 @pytest.mark.parametrize("parameterization", ["independent", "lowrank"])

@@ -57,7 +57,7 @@ import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Iterable, Sequence
 
 import torch
 
@@ -175,33 +175,53 @@ class Grammar:
 
     def to_text(self) -> str:
         """The grammar in the text format, sealed with `@format` and a checksum line."""
-        lines = [f"@format {FORMAT_VERSION}", f"@start {self.start}"]
-        if self.vocab.unk is not None:
-            lines.append(f"@unknown {quote(self.vocab.unk)}")
-        if self.vocab.shapes is not None:
-            lines.append(f"@word-shapes {self.vocab.shapes}")
-        for name, (discount, concentration) in self.adapted.items():
-            lines.append(f"@adapted {name} discount {discount!r} concentration "
-                         f"{concentration!r}")
-        names = self.symbols
-        if not self.root_is_symbol:
-            for a in range(len(self.nonterminals)):
-                if self.root[a] > NEG_INF:
-                    lines.append(f"{self.start} -> {names[a]} {format_prob(self.root[a])}")
         binary = self.binary.double()
-        lexical = self.lexical.double()
-        for a, lhs in enumerate(names):
-            if a < len(self.nonterminals):
-                for b, c in torch.nonzero(torch.isfinite(binary[a])).tolist():
-                    lines.append(f"{lhs} -> {names[b]} {names[c]} {format_prob(binary[a, b, c])}")
-            for w in torch.nonzero(torch.isfinite(lexical[a])).flatten().tolist():
-                lines.append(f"{lhs} -> {quote(self.vocab.words[w])} {format_prob(lexical[a, w])}")
-        lines.append(CHECKSUM_PREFIX + _digest(lines))
-        return "\n".join(lines) + "\n"
+
+        def rows():
+            for a in range(len(self.nonterminals)):
+                b, c = torch.nonzero(torch.isfinite(binary[a])).unbind(1)
+                yield b.tolist(), c.tolist(), binary[a, b, c].tolist()
+
+        return rules_text(self.start, self.nonterminals, self.preterminals, self.vocab,
+                          None if self.root_is_symbol else self.root, rows(),
+                          self.lexical.double(), self.adapted)
 
     def save(self, path: str | Path) -> None:
         from treewright.safeio import atomic_write_text
         atomic_write_text(Path(path), self.to_text())
+
+
+def rules_text(start: str, nonterminals: Sequence[str], preterminals: Sequence[str],
+               vocab: Vocabulary, root: torch.Tensor | None, binary_rows: Iterable,
+               lexical: torch.Tensor, adapted: dict[str, tuple[float, float]] | None = None
+               ) -> str:
+    """The text format, sealed with `@format` and a checksum line, from rules given without an
+    (NT, S, S) tensor: `root` (NT,) log-probabilities of the rules start -> A (None when the
+    start symbol is itself a nonterminal), `binary_rows` one (left ids, right ids,
+    log-probabilities) triple of lists per nonterminal in order, its rules in row-major
+    (B, C) order, and `lexical` (S, V) log-probabilities (-inf: no rule). `Grammar.to_text`
+    writes through it, so a grammar written either way reads back the same."""
+    lines = [f"@format {FORMAT_VERSION}", f"@start {start}"]
+    if vocab.unk is not None:
+        lines.append(f"@unknown {quote(vocab.unk)}")
+    if vocab.shapes is not None:
+        lines.append(f"@word-shapes {vocab.shapes}")
+    for name, (discount, concentration) in (adapted or {}).items():
+        lines.append(f"@adapted {name} discount {discount!r} concentration {concentration!r}")
+    names = list(nonterminals) + list(preterminals)
+    if root is not None:
+        for a in range(len(nonterminals)):
+            if root[a] > NEG_INF:
+                lines.append(f"{start} -> {names[a]} {format_prob(root[a])}")
+    rows = iter(binary_rows)
+    for a, lhs in enumerate(names):
+        if a < len(nonterminals):
+            for b, c, logp in zip(*next(rows)):
+                lines.append(f"{lhs} -> {names[b]} {names[c]} {format_prob(logp)}")
+        for w in torch.nonzero(torch.isfinite(lexical[a])).flatten().tolist():
+            lines.append(f"{lhs} -> {quote(vocab.words[w])} {format_prob(lexical[a, w])}")
+    lines.append(CHECKSUM_PREFIX + _digest(lines))
+    return "\n".join(lines) + "\n"
 
 
 def format_prob(logp: torch.Tensor | float) -> str:

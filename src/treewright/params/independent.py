@@ -82,7 +82,18 @@ class IndependentRules(NamedTuple):
     def most_probable(self, per_symbol: int) -> tuple[RuleTensors, Tensor]:
         """Dense rules keeping only each nonterminal's `per_symbol` most probable binary rules
         (the rest -inf; renormalising is left to `rules_to_grammar`), and the probability mass
-        (NT,) float64 left out, found without ranking all S^2 rules of a parent.
+        (NT,) float64 left out (`most_probable_pairs`)."""
+        b, c, values, removed = self.most_probable_pairs(per_symbol)
+        nt, s = self.left.shape
+        binary = self.left.detach().new_full((nt, s, s), float("-inf"))
+        binary[torch.arange(nt)[:, None].expand_as(b), b, c] = values
+        return RuleTensors(self.root, binary, self.lexical), removed
+
+    def most_probable_pairs(self, per_symbol: int) -> tuple[Tensor, Tensor, Tensor, Tensor]:
+        """Each nonterminal's `per_symbol` most probable binary rules, found without ranking all
+        S^2 rules of a parent or forming the (NT, S, S) tensor: left and right child ids and
+        log-probabilities, (NT, k) each, k = min(per_symbol, S^2), most probable first; and the
+        probability mass (NT,) float64 they leave out.
 
         The rule at rank positions (i, j) of the sorted left and right factors is no more
         probable than the (i+1)(j+1) rules at positions (i', j') <= (i, j), so only pairs with
@@ -93,7 +104,9 @@ class IndependentRules(NamedTuple):
         pairs = [(i, j) for i in range(min(s, k)) for j in range(min(s, k // (i + 1)))]
         rank_i = torch.tensor([i for i, _ in pairs])
         rank_j = torch.tensor([j for _, j in pairs])
-        binary = left.new_full((nt, s, s), float("-inf"))
+        b_all = torch.empty(nt, k, dtype=torch.long)
+        c_all = torch.empty(nt, k, dtype=torch.long)
+        values = left.new_empty(nt, k)
         removed = torch.empty(nt, dtype=torch.float64)
         for a0 in range(0, nt, PARENT_CHUNK):
             a1 = min(nt, a0 + PARENT_CHUNK)
@@ -101,14 +114,13 @@ class IndependentRules(NamedTuple):
             sr, ir = right[a0:a1].sort(1, descending=True)
             candidates = sl[:, rank_i] + sr[:, rank_j]                 # (a, M)
             top = candidates.topk(k, 1)                                # (a, k)
-            b = il.gather(1, rank_i[top.indices])                      # left child ids (a, k)
-            c = ir.gather(1, rank_j[top.indices])
-            parents = torch.arange(a0, a1)[:, None].expand_as(b)
-            binary[parents, b, c] = top.values
+            b_all[a0:a1] = il.gather(1, rank_i[top.indices])           # left child ids (a, k)
+            c_all[a0:a1] = ir.gather(1, rank_j[top.indices])
+            values[a0:a1] = top.values
             total = left[a0:a1].double().logsumexp(1) + right[a0:a1].double().logsumexp(1)
             kept = top.values.double().logsumexp(1)
             removed[a0:a1] = (total.exp() - kept.exp()).clamp(min=0.0)
-        return RuleTensors(self.root, binary, self.lexical), removed
+        return b_all, c_all, values, removed
 
 
 class IndependentParams(RuleModel):

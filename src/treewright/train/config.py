@@ -173,9 +173,11 @@ class OptimizerConfig:
                                  range="[0, 1]")
 
 
-# The largest NT x S^2 an independent-productions run may have: its grammar files go through the
-# dense `Grammar` (binary rules as an (NT, S, S) tensor), 2 GiB per float64 copy at this size,
-# and a run that could not write its grammar would fail only after training.
+# The largest NT x S^2 an independent-productions grammar file goes through the dense `Grammar`
+# for (binary rules as an (NT, S, S) tensor, 2 GiB per float64 copy at this size). A larger
+# grammar's file is written from each nonterminal's kept rules alone (`train.finish`), so its
+# output.max_saved_rules may be at most this; a run that could not write its grammar would fail
+# only after training.
 INDEPENDENT_MAX_DENSE_RULES = 2 ** 28
 INDEPENDENT_FORMS = ("independent", "independent-neural")  # the independent productions
 
@@ -332,14 +334,16 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
         bad("model.warm_start", "a warm start sets tabular parameters; use "
                                 "model.parameterization=tabular")
     nt, t = cfg.model.nonterminals, cfg.model.preterminals
+    saved = cfg.output.max_saved_rules
     if cfg.model.parameterization in INDEPENDENT_FORMS \
-            and nt * (nt + t) ** 2 > INDEPENDENT_MAX_DENSE_RULES:
-        bad("model.nonterminals", f"an independent-productions grammar with {nt:,} nonterminals "
-                                  f"and {t:,} preterminals has {nt * (nt + t) ** 2:,} binary "
-                                  f"rules; grammar files are written through dense rule "
-                                  f"tensors, which allow at most "
-                                  f"{INDEPENDENT_MAX_DENSE_RULES:,} (the engine itself runs "
-                                  f"larger grammars: engine.independent)")
+            and nt * (nt + t) ** 2 > INDEPENDENT_MAX_DENSE_RULES \
+            and (saved is None or saved > INDEPENDENT_MAX_DENSE_RULES):
+        bad("output.max_saved_rules",
+            f"an independent-productions grammar with {nt:,} nonterminals and {t:,} "
+            f"preterminals has {nt * (nt + t) ** 2:,} binary rules; its grammar files can hold "
+            f"each nonterminal's most probable ones, at most {INDEPENDENT_MAX_DENSE_RULES:,} "
+            f"in all, not {'every one' if saved is None else f'{saved:,}'} (the checkpoint "
+            "keeps the full model)")
     if cfg.model.parameterization == "lexicalized" and cfg.train.memory_budget_mb is not None:
         bad("train.memory_budget_mb", "the memory estimate does not cover the lexicalized "
                                       "inside pass (it grows as n^4); leave the budget null "

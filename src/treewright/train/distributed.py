@@ -297,6 +297,11 @@ class Watchdog(threading.Thread):
         except (RuntimeError, dist.DistError):
             pass  # the store is gone with the launcher; nobody is left to warn
         self.stopped.set()
+        # Wait for a beat in flight: a thread still inside the store's C++ call when the
+        # interpreter shuts down aborts the process (SIGABRT, "terminate called without an
+        # active exception"), which once failed a finished two-worker run on a loaded host.
+        if threading.current_thread() is not self and self.is_alive():
+            self.join(timeout=2 * HEARTBEAT_SECONDS)
 
 
 @dataclass

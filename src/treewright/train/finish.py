@@ -11,9 +11,14 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import torch
+from torch import Tensor
+
+from treewright.grammar import rules_text
 from treewright.params.tabular import RuleTensors, keep_most_probable, rules_to_grammar
 from treewright.runfolder import RunFolder
 from treewright.safeio import atomic_write_bytes, atomic_write_text
+from treewright.train.config import INDEPENDENT_MAX_DENSE_RULES
 from treewright.train.start import Symbols
 from treewright.vocab import Vocabulary
 
@@ -26,19 +31,35 @@ class RunResult:
     restarts: list = field(default_factory=list)
 
 
+@dataclass
+class GrammarText:
+    """A grammar to save that is never formed as a `Grammar`, whose (NT, S, S) tensor would not
+    fit in memory: its text (`grammar.rules_text`)."""
+    text: str
+
+    def save(self, path: str | Path) -> None:
+        atomic_write_text(Path(path), self.text)
+
+
 def capped_grammar(rules, nonterminals: list[str], preterminals: list[str], vocab, start: str,
                    limit: int | None):
     """The rules as a `Grammar` to save, with at most `limit` binary rules (each nonterminal's
-    most probable, renormalised), and a note saying what was left out (None: nothing)."""
+    most probable, renormalised), and a note saying what was left out (None: nothing). Factored
+    rules with more than `INDEPENDENT_MAX_DENSE_RULES` rules come back as a `GrammarText`,
+    written from each nonterminal's kept rules without the dense tensor."""
     # Factored rules that name their rule count and rank their own most probable rules
     # (`IndependentRules`) are never formed whole: NT x S^2 may not fit in memory.
     factored = hasattr(rules, "most_probable")
     dense = None if factored else rules.dense()
     count = rules.binary_rules if factored else dense.binary.numel()
     note = None
+    text = None
     if limit is not None and count > limit:
         per_symbol = max(1, limit // len(nonterminals))
-        if factored:
+        if factored and count > INDEPENDENT_MAX_DENSE_RULES:
+            b, c, values, removed = rules.most_probable_pairs(per_symbol)
+            text = _pairs_text(rules, b, c, values, nonterminals, preterminals, vocab, start)
+        elif factored:
             dense, removed = rules.most_probable(per_symbol)
         else:
             binary, removed = keep_most_probable(dense.binary, per_symbol)
@@ -52,7 +73,31 @@ def capped_grammar(rules, nonterminals: list[str], preterminals: list[str], voca
                 "full model")
     elif dense is None:
         dense = rules.dense()
+    if text is not None:
+        return text, note
     return rules_to_grammar(dense, nonterminals, preterminals, vocab, start), note
+
+
+def _pairs_text(rules, b: Tensor, c: Tensor, values: Tensor, nonterminals: list[str],
+                preterminals: list[str], vocab, start: str) -> GrammarText:
+    """The grammar file of factored rules from each nonterminal's kept binary rules (child ids
+    `b`, `c` and log-probabilities `values`, (NT, k)), each distribution renormalised in float64
+    as `rules_to_grammar` renormalises it."""
+    nt, s = len(nonterminals), len(nonterminals) + len(preterminals)
+    root = rules.root.detach().double().log_softmax(0)
+    lexical = rules.lexical.detach().double().log_softmax(1)
+    lexical = torch.cat([lexical.new_full((nt, lexical.shape[1]), float("-inf")), lexical])
+    logp = values.double().log_softmax(1)
+    order = (b * s + c).argsort(1)                                       # row-major (B, C)
+    b, c, logp = b.gather(1, order), c.gather(1, order), logp.gather(1, order)
+    keep = torch.isfinite(logp)
+
+    def rows():
+        for a in range(nt):
+            yield b[a][keep[a]].tolist(), c[a][keep[a]].tolist(), logp[a][keep[a]].tolist()
+
+    return GrammarText(rules_text(start, nonterminals, preterminals, vocab, root, rows(),
+                                  lexical))
 
 
 def save_restart_grammar(folder: RunFolder, restart: int, rules, symbols: Symbols,
