@@ -98,3 +98,27 @@ def test_a_grammar_too_large_for_free_memory_is_refused_naming_the_file(tmp_path
     assert err.value.path == str(path) and "(1, 2, 2) tensor" in str(err.value)
     monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need)
     assert load_grammar(path).binary.shape == (1, 2, 2)
+
+
+def test_a_run_whose_symbol_counts_cannot_fit_is_refused_before_its_file_is_read(
+        tmp_path, monkeypatch):
+    # The run folder's config.yaml gives NT and T: NT x (NT + T)^2 float64 entries held
+    # RULE_TENSOR_COPIES times is compared with the free memory before the grammar file (here
+    # a small valid one, which would load) is parsed.
+    from treewright import grammar as grammar_module
+    from treewright.export import open_grammar
+    from treewright.export import source as source_module
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "grammar.pcfg").write_text("@start S\nS -> A A 1.0\nA -> \"a\" 1.0\n")
+    (run / "config.yaml").write_text("model:\n  nonterminals: 1024\n  preterminals: 2048\n")
+    need = grammar_module.RULE_TENSOR_COPIES * 1024 * 3072 ** 2 * 8
+    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need - 1)
+
+    def refuse(path):
+        raise AssertionError("the grammar file was read")
+
+    monkeypatch.setattr(source_module, "load_grammar", refuse)
+    with pytest.raises(InputError) as err:
+        open_grammar(run)
+    assert err.value.path == str(run / "grammar.pcfg") and "(1024, 3072, 3072)" in str(err.value)

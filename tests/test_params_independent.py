@@ -493,3 +493,15 @@ def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
     assert main(["parse", str(tmp_path / "run"), str(text), "--decoder", "mbr"]) != 0
     err = capsys.readouterr().err
     assert str(train_path) in err and "grammar.pcfg instead of the folder" in err
+
+
+def test_rule_entropies_of_independent_productions_match_their_dense_rules():
+    # Reference: the entropies computed on the (NT, S, S) tensor the factors imply (the path
+    # for dense rules); independent productions give the sum of their two factors' entropies.
+    from treewright.train.metrics import rule_entropies
+    r = _rules(nt=3, t=4, v=5, seed=2)
+    names = (["N0", "N1", "N2"], ["T0", "T1", "T2", "T3"])
+    mine, dense = rule_entropies(r, *names), rule_entropies(r.dense(), *names)
+    assert mine.keys() == dense.keys()
+    for key in mine:
+        assert mine[key] == pytest.approx(dense[key], rel=1e-12, abs=1e-12), key

@@ -515,7 +515,7 @@ def build_grammar(nonterminals: list[str], preterminals: list[str], vocab: Vocab
     names = nonterminals + preterminals
     index = {name: i for i, name in enumerate(names)}
     nt, s, v = len(nonterminals), len(names), len(vocab)
-    _check_room(nt, s, source)
+    check_room(nt, s, source)
     root_t = torch.zeros(nt, dtype=torch.float64)
     binary_t = torch.zeros(nt, s, s, dtype=torch.float64)
     lexical_t = torch.zeros(s, v, dtype=torch.float64)
@@ -565,7 +565,7 @@ def _available_bytes() -> int | None:
     return None
 
 
-def _check_room(nt: int, s: int, source: str | None) -> None:
+def check_room(nt: int, s: int, source: str | None) -> None:
     """InputError when the binary rules of `nt` nonterminals over `s` symbols need more memory,
     as a dense float64 tensor held `RULE_TENSOR_COPIES` times, than the system has free."""
     need = RULE_TENSOR_COPIES * nt * s * s * 8

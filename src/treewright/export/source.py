@@ -16,7 +16,7 @@ from typing import Any, Iterator
 import yaml
 
 from treewright.errors import InputError
-from treewright.grammar import Grammar, load_grammar
+from treewright.grammar import Grammar, check_room, load_grammar
 from treewright.runfolder import GRAMMAR, RunFolder
 
 # Run folders written before training wrote data_summary.json: the corpus lines of train.log
@@ -69,8 +69,15 @@ def open_grammar(path: str | Path) -> GrammarSource:
     if is_json_export(grammar_path):
         export = load_grammar_export(grammar_path)
         return GrammarSource(export.grammar, grammar_path, None, export.training)
-    grammar = load_grammar(grammar_path)
     training = read_training_record(run_dir) if run_dir is not None else None
+    config = (training or {}).get("config")
+    model = config.get("model") if isinstance(config, dict) else None
+    if isinstance(model, dict) and isinstance(model.get("nonterminals"), int) \
+            and isinstance(model.get("preterminals"), int):
+        # A run says its symbol counts: a file too large to load is refused before it is read.
+        nt = model["nonterminals"]
+        check_room(nt, nt + model["preterminals"], str(grammar_path))
+    grammar = load_grammar(grammar_path)
     return GrammarSource(grammar, grammar_path, run_dir, training)
 
 

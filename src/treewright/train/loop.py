@@ -167,7 +167,7 @@ class Trainer:
                        "sentences_per_second": plan_sentences(plan)
                        / max(time.monotonic() - started, 1e-9),
                        **self.dev(self.model.scorer(method.rules())),
-                       **rule_entropies(method.rules().dense(), self.symbols.nonterminals,
+                       **rule_entropies(method.rules(), self.symbols.nonterminals,
                                         self.symbols.preterminals),
                        "restart": restart, "epoch": epoch,
                        "length_cap": cap if cap is not None else -1}

@@ -21,10 +21,16 @@ def rule_entropies(rules: RuleTensors, nonterminals: Sequence[str],
                    preterminals: Sequence[str]) -> dict[str, float]:
     """Entropy (nats) of every symbol's rule distribution, with mean and max per kind:
     `entropy/root`, `entropy/binary_mean`, `entropy/binary_max`, `entropy/lexical_mean`,
-    `entropy/lexical_max`, and `entropy/binary/<symbol>`, `entropy/lexical/<symbol>`."""
+    `entropy/lexical_max`, and `entropy/binary/<symbol>`, `entropy/lexical/<symbol>`. `rules`
+    has `root`, `binary` and `lexical` log-probabilities; independent productions (`left`,
+    `right`: `params.IndependentRules`) are read from their two factors, never forming the
+    (NT, S, S) tensor: the entropy of p(B | A, left) p(C | A, right) is the sum of the two."""
     with torch.no_grad():
         root = _entropy_rows(rules.root.double()[None])[0]
-        binary = _entropy_rows(rules.binary.double().flatten(1))
+        if hasattr(rules, "left") and hasattr(rules, "right"):
+            binary = _entropy_rows(rules.left.double()) + _entropy_rows(rules.right.double())
+        else:
+            binary = _entropy_rows(rules.binary.double().flatten(1))
         lexical = _entropy_rows(rules.lexical.double())
     out = {"entropy/root": float(root),
            "entropy/binary_mean": float(binary.mean()), "entropy/binary_max": float(binary.max()),
