@@ -389,3 +389,25 @@ def test_refined_treebank_trees_are_shown_and_scored_without_the_cnf_nodes(tmp_p
     cells = page.data
     model = cells.index("model")
     assert cells[model + 1] == "100.0" and cells[model + 2] == "100.0"
+
+
+def test_a_run_whose_grammar_cannot_be_loaded_is_reported_without_it(tmp_path, monkeypatch):
+    # The run's config gives NT x (NT + T)^2 float64 entries, held RULE_TENSOR_COPIES times,
+    # more than the (patched) free memory: the grammar file, which would load, is left out
+    # with the reason, and the curves are still drawn.
+    from treewright import grammar as grammar_module
+    from treewright.report import html as html_module
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "grammar.pcfg").write_text("@start S\nS -> A A 1.0\nA -> \"a\" 1.0\n")
+    (run / "config.yaml").write_text("model:\n  nonterminals: 1024\n  preterminals: 2048\n")
+    (run / "metrics.jsonl").write_text(
+        "".join(json.dumps({"step": k, "train/loglik_per_word": -5.0 + k / 10}) + "\n"
+                for k in range(1, 4)))
+    need = grammar_module.RULE_TENSOR_COPIES * 1024 * 3072 ** 2 * 8
+    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need - 1)
+    found = html_module.gather(run)
+    assert found.grammar is None and len(found.metrics) == 3
+    assert any("not loaded" in m and "(1024, 3072, 3072)" in m for m in found.missing)
+    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need)
+    assert html_module.gather(run).grammar is not None

@@ -23,6 +23,7 @@ from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
                                expand_unary, read_corpus, run_read_options, unbinarize)
 from treewright.errors import InputError
+from treewright.grammar import check_room
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
 from treewright.tracking import perplexity
@@ -204,7 +205,22 @@ def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path
     else:
         found.missing.append(f"{METRICS} (training curves)")
     grammar_file = Path(grammar_path) if grammar_path is not None else run / GRAMMAR
-    if grammar_file.exists():
+    model = found.config.get("model") if isinstance(found.config, dict) else None
+    too_large = None
+    if grammar_path is None and isinstance(model, dict) \
+            and isinstance(model.get("nonterminals"), int) \
+            and isinstance(model.get("preterminals"), int):
+        # The run's own grammar, too large to load as a rule tensor (a factored run of
+        # thousands of symbols): the report goes on without the sections that need it.
+        try:
+            check_room(model["nonterminals"], model["nonterminals"] + model["preterminals"],
+                       str(grammar_file))
+        except InputError as err:
+            too_large = err.reason
+    if too_large is not None and grammar_file.exists():
+        found.missing.append(f"{grammar_file.name} (the trained grammar: rules, parses, heat "
+                             f"map), not loaded: {too_large}")
+    elif grammar_file.exists():
         found.grammar = load_grammar(grammar_file)
     else:
         finished = sorted(p.name for p in run.glob("restart-*.pcfg"))
