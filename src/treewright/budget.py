@@ -60,6 +60,14 @@ class BudgetPlan:
     longest: float
     budget_mb: float | None
 
+    @classmethod
+    def unbudgeted(cls, lengths: Sequence[int], group: int) -> "BudgetPlan":
+        """Every sentence, in input order, in calls of `group` (no budget: for work whose
+        memory no grammar file sizes, such as a factored run's own model)."""
+        count = len(lengths)
+        return cls([list(range(k, min(k + group, count))) for k in range(0, count, group)], [],
+                   max(lengths, default=0), None)
+
 
 def longest_within(grammar: Grammar, budget_mb: float | None,
                    dtype: torch.dtype = torch.float32) -> float:

@@ -1001,7 +1001,7 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
     its expected number of correct spans (None for a sentence with no parse)."""
     spans_p = _span_posteriors(grammar, tables)                  # (B, N+1, N+1)
     brackets = mbr_spans_batch(spans_p, lengths)
-    labels = _SpanLabels(grammar, tables)
+    labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals), tables.marginals)
     gains = spans_p.tolist()
     parsed = torch.isfinite(tables.logz).tolist()
     out: list = []
@@ -1025,19 +1025,12 @@ class _SpanLabels:
     take their most probable nonterminal, words their most probable symbol (a one-word
     sentence's single node must be a nonterminal: it is the top)."""
 
-    def __init__(self, grammar: Grammar, tables: engine.SpanTables):
-        self.of_marginals(grammar.symbols, len(grammar.nonterminals), tables.marginals, self)
-
-    @staticmethod
-    def of_marginals(symbols: Sequence[str], nt: int, marginals: Tensor,
-                     into: "_SpanLabels | None" = None) -> "_SpanLabels":
-        """The labels of `symbols` (nonterminals first, `nt` of them) by their label marginals
-        (B, N+1, N+1, S), for rules that are not a `Grammar`."""
-        labels = into if into is not None else _SpanLabels.__new__(_SpanLabels)
-        labels.symbols = list(symbols)
-        labels.span_label = marginals[..., :nt].argmax(-1).tolist()     # (B, N+1, N+1)
-        labels.word_label = marginals[:, :, 1].argmax(-1).tolist()      # (B, N+1)
-        return labels
+    def __init__(self, symbols: Sequence[str], nt: int, marginals: Tensor):
+        """`symbols` nonterminals first (`nt` of them); `marginals` (B, N+1, N+1, S) their
+        label marginals, as `engine.SpanTables` holds them."""
+        self.symbols = list(symbols)
+        self.span_label = marginals[..., :nt].argmax(-1).tolist()       # (B, N+1, N+1)
+        self.word_label = marginals[:, :, 1].argmax(-1).tolist()        # (B, N+1)
 
     def label(self, b: int, n: int, spans: Sequence[tuple[int, int]]
               ) -> list[tuple[int, int, str]]:
@@ -1101,7 +1094,8 @@ def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
             voters[b].append(trees[b])
             if labeler[b] is None:
                 if labels is None:
-                    labels = _SpanLabels(grammar, tables)
+                    labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals),
+                                         tables.marginals)
                 labeler[b] = (grammar, labels, float(tables.logz[b]))
         del tables  # freed before the next grammar's pass, not after it
     parsed_rows = [b for b in range(B) if voters[b]]
@@ -1206,7 +1200,7 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
         spans_p = marginals[..., :nt].sum(-1)                            # (B, N+1, N+1)
         n = lengths.tolist()
         brackets = mbr_spans_batch(spans_p, n)
-        labels = _SpanLabels.of_marginals(symbols, nt, marginals)
+        labels = _SpanLabels(symbols, nt, marginals)
         gains = spans_p.double().tolist()
         parsed = [b for b in range(len(known)) if math.isfinite(float(logz[b]))]
         labeled = [labels.label(b, n[b], brackets[b]) for b in parsed]
@@ -1279,8 +1273,9 @@ def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Gra
         logz, spans_p = scorer.span_posteriors(ids, lengths)     # (B,), (B, N+1, N+1)
         n = lengths.tolist()
         brackets = mbr_spans_batch(spans_p, n)
-        labels = _SpanLabels(grammar, span_tables(grammar, [words[k] for k in known],
-                                                  torch.float64, log_scores=False))
+        tables = span_tables(grammar, [words[k] for k in known], torch.float64,
+                             log_scores=False)
+        labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals), tables.marginals)
         gains = spans_p.double().tolist()
         for b, k in enumerate(known):
             if not math.isfinite(float(logz[b])):

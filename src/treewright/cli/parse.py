@@ -203,9 +203,7 @@ def run(args) -> int:
         plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                            args.batch_size)
     else:  # no rule tensor to budget for; groups of sentences for the progress bar
-        plan = BudgetPlan([list(range(k, min(k + FACTORED_GROUP, len(todo))))
-                           for k in range(0, len(todo), FACTORED_GROUP)], [],
-                          max((len(inputs[i]) for i in todo), default=0), None)
+        plan = BudgetPlan.unbudgeted([len(inputs[i]) for i in todo], FACTORED_GROUP)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
     with terminal_progress(len(todo) - len(plan.over), "parse") as progress:
         done = run_plan(plan, [inputs[i] for i in todo], work, progress)

@@ -54,9 +54,7 @@ def run(args) -> int:
         source = open_run_record(args.grammar)
         lines = read_sentences(args.text)
         inputs = as_trained(source, lines)
-        plan = BudgetPlan([list(range(k, min(k + SCORE_GROUP, len(inputs))))
-                           for k in range(0, len(inputs), SCORE_GROUP)], [],
-                          max(map(len, inputs), default=0), None)
+        plan = BudgetPlan.unbudgeted([len(w) for w in inputs], SCORE_GROUP)
 
         def work(group):
             return score_rules(factored.rules, factored.vocab, group, args.batch_size, dtype)

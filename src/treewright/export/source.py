@@ -70,15 +70,21 @@ def open_grammar(path: str | Path) -> GrammarSource:
         export = load_grammar_export(grammar_path)
         return GrammarSource(export.grammar, grammar_path, None, export.training)
     training = read_training_record(run_dir) if run_dir is not None else None
-    config = (training or {}).get("config")
+    # A run says its symbol counts: a file too large to load is refused before it is read.
+    check_run_room((training or {}).get("config"), grammar_path)
+    grammar = load_grammar(grammar_path)
+    return GrammarSource(grammar, grammar_path, run_dir, training)
+
+
+def check_run_room(config: Any, grammar_path: str | Path) -> None:
+    """InputError naming `grammar_path` when the symbol counts a training run's config gives
+    (`model.nonterminals`, `model.preterminals`) make a rule tensor too large for free memory
+    (`grammar.check_room`); nothing when the config gives no counts."""
     model = config.get("model") if isinstance(config, dict) else None
     if isinstance(model, dict) and isinstance(model.get("nonterminals"), int) \
             and isinstance(model.get("preterminals"), int):
-        # A run says its symbol counts: a file too large to load is refused before it is read.
         nt = model["nonterminals"]
         check_room(nt, nt + model["preterminals"], str(grammar_path))
-    grammar = load_grammar(grammar_path)
-    return GrammarSource(grammar, grammar_path, run_dir, training)
 
 
 def open_run_record(path: str | Path) -> GrammarSource:

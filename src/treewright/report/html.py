@@ -23,7 +23,6 @@ from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
                                expand_unary, read_corpus, run_read_options, unbinarize)
 from treewright.errors import InputError
-from treewright.grammar import check_room
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
 from treewright.tracking import perplexity
@@ -180,6 +179,7 @@ def _read_options(config: dict) -> ReadOptions:
 def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path | None = None,
            grammar_path: str | Path | None = None, gold_format: str = "auto") -> ReportInputs:
     """Read everything the report can use from a run folder and the optional files."""
+    from treewright.export.source import check_run_room
     from treewright.export.source import load as load_grammar  # text, JSON export or run folder
 
     run = Path(run_dir)
@@ -205,16 +205,12 @@ def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path
     else:
         found.missing.append(f"{METRICS} (training curves)")
     grammar_file = Path(grammar_path) if grammar_path is not None else run / GRAMMAR
-    model = found.config.get("model") if isinstance(found.config, dict) else None
     too_large = None
-    if grammar_path is None and isinstance(model, dict) \
-            and isinstance(model.get("nonterminals"), int) \
-            and isinstance(model.get("preterminals"), int):
+    if grammar_path is None:
         # The run's own grammar, too large to load as a rule tensor (a factored run of
         # thousands of symbols): the report goes on without the sections that need it.
         try:
-            check_room(model["nonterminals"], model["nonterminals"] + model["preterminals"],
-                       str(grammar_file))
+            check_run_room(found.config, grammar_file)
         except InputError as err:
             too_large = err.reason
     if too_large is not None and grammar_file.exists():
