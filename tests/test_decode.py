@@ -142,10 +142,11 @@ def test_viterbi_decoder_is_the_most_probable_tree():
         assert result.posterior == pytest.approx(best / total, abs=1e-10)
 
 
-def coarse_objective(g, words, spans=None):
-    """Brute force max-rule-product: anchored coarse-rule posteriors from the tree list, then
-    the best coarse tree over every bracketing and coarse labeling (over the bracketing whose
-    spans (i, j) of two or more words are `spans`, when given)."""
+def coarse_trees(g, words, spans=None):
+    """Brute force max-rule-product scores: anchored coarse-rule posteriors from the tree list,
+    then (log score, labeled spans sorted) of every coarse tree, over every bracketing and
+    coarse labeling (over the bracketing whose spans (i, j) of two or more words are `spans`,
+    when given); a tree with a zero factor scores -inf."""
     symbols = g.symbols
     nt = len(g.nonterminals)
     cname = [coarse_name(s) for s in symbols]
@@ -163,7 +164,6 @@ def coarse_objective(g, words, spans=None):
         top_q[cname[top]] += p
     parents = sorted({cname[a] for a in range(nt)})
     everyone = sorted(set(cname))
-    best, best_tree = -math.inf, None
     for brackets in bracketings(0, n):
         if spans is not None and sorted((i, j) for i, _, j in brackets) != sorted(spans):
             continue
@@ -176,9 +176,18 @@ def coarse_objective(g, words, spans=None):
                     q *= rule_q[(i, k, j, label[(i, j)], label[(i, k)], label[(k, j)])] / total
                 for i in range(n):
                     q *= word_q[(i, leaves[i])] / total
-                if q > best:
-                    best, best_tree = q, sorted((i, j, a) for (i, j), a in label.items())
-    return math.log(best), best_tree
+                yield (math.log(q) if q > 0 else -math.inf,
+                       sorted((i, j, a) for (i, j), a in label.items()))
+
+
+def coarse_objective(g, words, spans=None):
+    """Brute force max-rule-product: the best coarse tree's log score and labeled spans (the
+    first of equal ones, in `coarse_trees` order)."""
+    best, best_tree = -math.inf, None
+    for value, labeled in coarse_trees(g, words, spans):
+        if value > best:
+            best, best_tree = value, labeled
+    return best, best_tree
 
 
 def test_max_rule_product_matches_enumeration():
@@ -210,17 +219,35 @@ def test_max_rule_product_floor_at_the_best_score_keeps_the_best_tree(grammar, f
     # marginal of each labeled span it touches, so a floor equal to the best score leaves out
     # only spans of worse trees, and the pass still finds the enumerated best. A floor above it
     # finds no tree that reaches the floor (the wrapper then decodes again).
+    # The same with the tree bound (`_tree_bound`) in place of the marginals.
     run = getattr(decode_module, floored)
     layout = decode_module.CoarseLayout.of(grammar, torch.float64)
     for words in SENTENCES:
         expect_value, expect_spans = coarse_objective(grammar, words)
         tables = span_tables(grammar, [words])
+        coarse_log = (tables.marginals @ layout.member).log()
         at = torch.tensor([expect_value], dtype=torch.float64)
-        [(spans, value)], found = run(grammar, tables, [len(words)], layout, at)
-        assert value == pytest.approx(expect_value, abs=1e-9) and sorted(spans) == expect_spans
-        assert float(found[0]) == value
-        _, above = run(grammar, tables, [len(words)], layout, at + 0.5)
-        assert not float(above[0]) >= float(at[0]) + 0.5
+        for bound in (None, decode_module._tree_bound(coarse_log, torch.tensor([len(words)]),
+                                                      layout.num_parents)):
+            [(spans, value)], found = run(grammar, tables, [len(words)], layout, at,
+                                          coarse_log=coarse_log, bound=bound)
+            assert value == pytest.approx(expect_value, abs=1e-9)
+            assert sorted(spans) == expect_spans and float(found[0]) == value
+            _, above = run(grammar, tables, [len(words)], layout, at + 0.5,
+                           coarse_log=coarse_log, bound=bound)
+            assert not float(above[0]) >= float(at[0]) + 0.5
+
+
+def hand_worked_grammar() -> Grammar:
+    """"w0 w0" is S·0 (root 0.6) or X·0 (root 0.4) over P·0 P·0, every other choice forced."""
+    neg = -math.inf
+    binary = torch.full((2, 4, 4), neg, dtype=torch.float64)
+    binary[0, 2, 2] = binary[1, 2, 2] = 0.0
+    lexical = torch.full((4, 2), neg, dtype=torch.float64)
+    lexical[2, 0] = lexical[3, 1] = 0.0
+    return Grammar(["S·0", "X·0"], ["P·0", "P·1"], Vocabulary(["w0", "w1"], unk=None),
+                   torch.tensor([0.6, 0.4], dtype=torch.float64).log(), binary, lexical,
+                   start="TOP")
 
 
 @pytest.mark.parametrize("floored", FLOORED_PASSES)
@@ -229,21 +256,62 @@ def test_max_rule_product_floor_keeps_a_labeled_span_just_above_it(floored):
     # forced. The best tree, S over two Ps, scores 0.6 (top label) x 0.6 (its rule's posterior)
     # = 0.36, while S over the sentence has marginal 0.6: with the floor at log 0.36 that span
     # is kept, though only 0.51 nats above it. A floor stricter than the bound by that much
-    # would lose the tree.
-    neg = -math.inf
-    binary = torch.full((2, 4, 4), neg, dtype=torch.float64)
-    binary[0, 2, 2] = binary[1, 2, 2] = 0.0
-    lexical = torch.full((4, 2), neg, dtype=torch.float64)
-    lexical[2, 0] = lexical[3, 1] = 0.0
-    g = Grammar(["S·0", "X·0"], ["P·0", "P·1"], Vocabulary(["w0", "w1"], unk=None),
-                torch.tensor([0.6, 0.4], dtype=torch.float64).log(), binary, lexical,
-                start="TOP")
+    # would lose the tree; so would one stricter than the tree bound, which here is the best
+    # score itself (test_tree_bound_on_a_hand_worked_grammar).
+    g = hand_worked_grammar()
     tables = span_tables(g, [["w0", "w0"]])
     layout = decode_module.CoarseLayout.of(g, torch.float64)
+    coarse_log = (tables.marginals @ layout.member).log()
     at = torch.tensor([math.log(0.36)], dtype=torch.float64)
-    [(spans, value)], _ = getattr(decode_module, floored)(g, tables, [2], layout, at)
-    assert value == pytest.approx(math.log(0.36), abs=1e-12)
-    assert sorted(spans) == [(0, 1, "P"), (0, 2, "S"), (1, 2, "P")]
+    for bound in (None, decode_module._tree_bound(coarse_log, torch.tensor([2]),
+                                                           layout.num_parents)):
+        [(spans, value)], _ = getattr(decode_module, floored)(g, tables, [2], layout, at,
+                                                              coarse_log=coarse_log, bound=bound)
+        assert value == pytest.approx(math.log(0.36), abs=1e-12)
+        assert sorted(spans) == [(0, 1, "P"), (0, 2, "S"), (1, 2, "P")]
+
+
+@pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])
+def test_tree_bound_is_above_every_tree_that_holds_the_labeled_span(grammar):
+    # Brute force (coarse_trees): for every labeled span, the bound is at least the score of
+    # every coarse tree holding it (the argument of `_tree_bound`), and it is sharper than the
+    # span's marginal alone somewhere (what the bound is for).
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    index = {name: k for k, name in enumerate(layout.names)}
+    tables = span_tables(grammar, SENTENCES)
+    lengths = torch.tensor([len(w) for w in SENTENCES])
+    coarse_log = (tables.marginals @ layout.member).log()
+    bound = decode_module._tree_bound(coarse_log, lengths, layout.num_parents)
+    sharper = 0
+    for b, words in enumerate(SENTENCES):
+        held = defaultdict(lambda: -math.inf)       # (i, j, label) -> best score holding it
+        for value, labeled in coarse_trees(grammar, words):
+            for span in labeled:
+                held[span] = max(held[span], value)
+        for (i, j, label), value in held.items():
+            at = bound[b, i, j - i, index[label]]
+            assert float(at) >= value - 1e-12
+            sharper += float(at) < float(coarse_log[b, i, j - i, index[label]]) - 0.05
+    assert sharper > 0
+
+
+def test_tree_bound_on_a_hand_worked_grammar():
+    # Hand-worked (hand_worked_grammar): both words are P with posterior 1. The top node has
+    # u = 0.6 (S's marginal), so the bound of S over the sentence is 0.6 (its rule's
+    # posterior bound) x 0.6 (the top label's) = 0.36, exactly the best tree's score; X's is
+    # 0.4 x 0.6 = 0.24 (its best tree scores 0.4 x 0.4 = 0.16), and each word's P 0.36.
+    g = hand_worked_grammar()
+    layout = decode_module.CoarseLayout.of(g, torch.float64)
+    tables = span_tables(g, [["w0", "w0"]])
+    coarse_log = (tables.marginals @ layout.member).log()
+    bound = decode_module._tree_bound(coarse_log, torch.tensor([2]), layout.num_parents)
+    slack = decode_module.FLOOR_SLACK
+    k = {name: i for i, name in enumerate(layout.names)}
+    assert float(bound[0, 0, 2, k["S"]]) == pytest.approx(math.log(0.36) + slack, abs=1e-12)
+    assert float(bound[0, 0, 2, k["X"]]) == pytest.approx(math.log(0.24) + slack, abs=1e-12)
+    for i in (0, 1):
+        assert float(bound[0, i, 1, k["P"]]) == pytest.approx(math.log(0.36) + slack,
+                                                              abs=1e-12)
 
 
 @pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])

@@ -35,6 +35,7 @@ restarts of one training run:
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Callable, Sequence
@@ -251,6 +252,102 @@ def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Te
     return top, pair.div(kz, rounding_mode="floor"), pair.remainder(kz)
 
 
+def _tree_bound(coarse_log: Tensor, lengths: Tensor, num_parents: int) -> Tensor:
+    """(B, N+1, N+1, K) for every labeled span, an upper bound on the log max-rule-product
+    score of any tree that holds it (-inf where none can), from the coarse label log marginals
+    `coarse_log` (B, N+1, N+1, K) alone, plus `FLOOR_SLACK` for rounding.
+
+    An admissible estimate in the sense of A* parsing (Klein & Manning 2003, "A* Parsing: Fast
+    Exact Viterbi Parse Selection"), here for the max-rule-product objective. Every factor of
+    a tree's score is at most 1 and at most a marginal: a binary node's rule posterior at most
+    u(span) = max over coarse parents of mu(parent, span) (and at most mu(x, span) for its own
+    label x), a word's label posterior at most that word's best one, the top label's at most
+    u(sentence). So a tree's score is at most the product of those bounds over its nodes, and
+    the best product over trees holding a span is a max-semiring inside pass (the best
+    bracketing inside the span) times an outside pass (the best around it) over u alone: an
+    unlabeled chart, O(B N^3), small beside the inside pass that gave the marginals. With a
+    labeled span x over (i, j) of two or more words the bound is mu(x, i, j) times the best
+    inside of its two children times its outside times every word's best label posterior; for
+    a word, its own label's posterior replaces its best. A floor below the best tree's score
+    keeps every labeled span of that tree under this bound, as under mu alone, and leaves out
+    far more of a trained grammar's chart (on the EM-trained 30/60 grammar of
+    `bench_parse_speed.py`, 14 times fewer anchored rules than mu alone at the same floor).
+    """
+    B, N1, _, K = coarse_log.shape
+    N = N1 - 1
+    dtype = coarse_log.dtype
+    log_u = coarse_log[..., :num_parents].amax(-1) if num_parents else \
+        torch.full((B, N1, N1), NEG_INF, dtype=dtype)                   # (B, N+1, N+1)
+    word_best = coarse_log[:, :, 1].amax(-1)                             # (B, N+1)
+    log_u[:, :, 1] = word_best                                          # a one-word sentence
+    in_sentence = torch.arange(N1)[None, :] < lengths[:, None]
+    word_best = torch.where(in_sentence, word_best, torch.zeros((), dtype=dtype))
+    words = word_best.sum(1)                                             # (B,)
+    # Cells flattened to start * (N+1) + width, one more cell (-inf) for the splits that do not
+    # fit; `_bound_indices` lists, per width, the cells each max reads.
+    widths = _bound_indices(N)
+    cells = N1 * N1
+    flat_u = torch.cat([log_u.reshape(B, cells), log_u.new_full((B, 1), NEG_INF)], 1)
+    # inner: the best product of the bounds inside a span, its own node left out; inside =
+    # inner + log u.
+    inner = torch.full((B, cells + 1), NEG_INF, dtype=dtype)
+    inner[:, 1:cells:N1] = 0.0
+    inside = inner.clone()
+    for target, left, right in widths.inside:
+        best = (inside.index_select(1, left) + inside.index_select(1, right)).view(
+            B, len(target), -1).amax(-1)
+        inner[:, target] = best
+        inside[:, target] = best + flat_u.index_select(1, target)
+    # outside: the best product of the bounds of everything around a span, every ancestor's
+    # node and the top label included.
+    outside = torch.full((B, cells + 1), NEG_INF, dtype=dtype)
+    outside[torch.arange(B), lengths] = flat_u[torch.arange(B), lengths]  # the top: (0, n)
+    for target, parent, sibling in widths.outside:
+        best = (outside.index_select(1, parent) + flat_u.index_select(1, parent) +
+                inside.index_select(1, sibling)).view(B, len(target), -1).amax(-1)
+        outside[:, target] = torch.maximum(outside[:, target], best)
+    inner, outside = inner[:, :cells].view(B, N1, N1), outside[:, :cells].view(B, N1, N1)
+    around = outside + words[:, None, None] + FLOOR_SLACK                # (B, N+1, N+1)
+    bound = coarse_log + (inner + around)[..., None]
+    bound[:, :, 1] = coarse_log[:, :, 1] - word_best[..., None] + around[:, :, 1, None]
+    return bound
+
+
+@dataclass
+class _BoundIndices:
+    """Per span width, the flattened cells (start * (N+1) + width; (N+1)**2 for none) that
+    `_tree_bound` reads: `inside` from width 2 up, (cells of the width, left children, right
+    children), every split of each cell in turn; `outside` from width N - 1 down, (cells of the
+    width, parents, siblings), every parent of each cell in turn (the cell as the left child of
+    each wider span starting with it, then as the right child of each ending with it)."""
+    inside: list[tuple[Tensor, Tensor, Tensor]]
+    outside: list[tuple[Tensor, Tensor, Tensor]]
+
+
+@functools.lru_cache(maxsize=64)
+def _bound_indices(N: int) -> _BoundIndices:
+    N1 = N + 1
+    none = N1 * N1
+    inside, outside = [], []
+    for w in range(2, N + 1):
+        start, u = torch.arange(N - w + 1)[:, None], torch.arange(1, w)[None, :]
+        inside.append((start.flatten() * N1 + w, (start * N1 + u).flatten(),
+                       ((start + u) * N1 + w - u).flatten()))
+    for w in range(N - 1, 0, -1):
+        start, v = torch.arange(N - w + 1)[:, None], torch.arange(w + 1, N + 1)[None, :]
+        fits = start + v <= N                                            # left child
+        parent_l = torch.where(fits, start * N1 + v, none)
+        sibling_l = torch.where(fits, (start + w) * N1 + v - w, none)
+        first = start - (v - w)                                          # right child
+        fits = first >= 0
+        parent_r = torch.where(fits, first * N1 + v, none)
+        sibling_r = torch.where(fits, first * N1 + v - w, none)
+        outside.append((torch.arange(N - w + 1) * N1 + w,
+                        torch.cat([parent_l, parent_r], 1).flatten(),
+                        torch.cat([sibling_l, sibling_r], 1).flatten()))
+    return _BoundIndices(inside, outside)
+
+
 def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
                      layout: CoarseLayout | None = None, prune: bool = True
                      ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
@@ -269,8 +366,10 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     Exact pruning (`prune`). Every factor of the score is a posterior probability, and each is
     at most the marginal mu of every labeled span it involves (a rule used over a span implies
     its parent and children there). So a tree's score is at most the smallest mu among its
-    labeled spans, and a tree holding a labeled span with log mu below the score of any other
-    tree cannot be the best. The pass first leaves out every labeled span with log mu below a
+    labeled spans, and, sharper, at most the product of such bounds over its nodes: for each
+    labeled span, `_tree_bound` gives the best such product over the trees that hold it. A
+    tree holding a labeled span whose bound is below the score of any other tree cannot be the
+    best. The pass first leaves out every labeled span with a bound below a
     floor of `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the
     sentence's (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`), raised to the
     score of one known tree where that leaves many anchored rules (`_known_tree_floor`); when
@@ -282,7 +381,7 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     the pass without pruning (scores up to rounding); only the time differs (the posteriors of
     a trained grammar leave most spans out: see README, "Parsing against training speed").
     """
-    dtype = tables.inside.dtype
+    dtype = tables.marginals.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
     if not prune:
         return _chart_pass(lay)(grammar, tables, lengths, lay, None)[0]
@@ -295,29 +394,30 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
     spans = (width >= 2) & (start + width <= n[:, None, None])          # (B, N+1, N+1)
     coarse_log = (tables.marginals @ lay.member).log()                  # (B, N+1, N+1, K)
-    parent_mu = coarse_log[..., :lay.num_parents]
-    kept = ((parent_mu >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
+    bound = _tree_bound(coarse_log, n, lay.num_parents)
+    parent_bound = bound[..., :lay.num_parents]
+    kept = ((parent_bound >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
         (spans.sum((1, 2)) * lay.num_parents).clamp(min=1)
     floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
     # A known tree's score can leave far fewer anchored rules than the floor per word (about a
     # sixth on the EM-trained grammars of `bench_parse_speed.py`). It costs one small pass,
     # taken where the floor per word leaves many rules and where the item pass could then be
     # the cheaper one.
-    rules, chart = _pass_costs(_kept_labels(coarse_log, n, lay.num_parents, floor), lay)
+    rules, chart = _pass_costs(_kept_labels(bound, n, lay.num_parents, floor), lay)
     finite = torch.isfinite(floor)
     rules, chart = int(rules[finite].sum()), int(chart[finite].sum())
     if finite.any() and rules > KNOWN_TREE_FROM and \
             rules * _item_cost(lay) <= KNOWN_TREE_GAIN * chart:
         floor = torch.maximum(floor, _known_tree_floor(grammar, tables, lengths, lay, floor,
-                                                       coarse_log))
+                                                       coarse_log, bound))
     results, values, floor = _max_rule_product_floored(grammar, tables, lengths, lay, floor,
-                                                       coarse_log)
+                                                       coarse_log, bound)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
     if len(redo):
-        again, _, _ = _max_rule_product_floored(grammar, _sub_tables(tables, redo),
+        again, _, _ = _max_rule_product_floored(grammar, tables.rows(redo),
                                                 [lengths[b] for b in redo.tolist()], lay,
-                                                values[redo], coarse_log[redo])
+                                                values[redo], coarse_log[redo], bound[redo])
         for b, result in zip(redo.tolist(), again):
             results[b] = result
     return results
@@ -331,7 +431,8 @@ KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many 
 
 
 def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
-                      lay: CoarseLayout, floor: Tensor, coarse_log: Tensor) -> Tensor:
+                      lay: CoarseLayout, floor: Tensor, coarse_log: Tensor,
+                      bound: Tensor | None = None) -> Tensor:
     """(B,) a floor that no sentence's best tree falls below: the score of one tree, the MBR
     bracketing (`mbr_spans_batch` over the span posteriors) under its best labeling by each
     span's `KNOWN_TREE_LABELS` most probable coarse labels (that reach `floor`), found by the
@@ -348,7 +449,7 @@ def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequ
     rows = torch.isfinite(floor).nonzero().flatten()
     if not len(rows):
         return known
-    sub = _sub_tables(tables, rows)
+    sub = tables.rows(rows)
     sub_lengths = [lengths[b] for b in rows.tolist()]
     N1 = sub.marginals.shape[1]
     K, Kp = lay.slots.shape[0], lay.num_parents
@@ -363,7 +464,7 @@ def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequ
     top = sub_log[..., :Kp].topk(min(KNOWN_TREE_LABELS, Kp), -1).indices
     within[..., :Kp] |= torch.zeros_like(within[..., :Kp]).scatter_(-1, top, True) & span[..., None]
     _, value = _max_rule_product_items(grammar, sub, sub_lengths, lay, floor[rows], within,
-                                       sub_log)
+                                       sub_log, None if bound is None else bound[rows])
     known[rows] = value - FLOOR_SLACK
     return known
 
@@ -379,7 +480,7 @@ ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass (about 100 b
 
 def _max_rule_product_floored(grammar: Grammar, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
-                              coarse_log: Tensor
+                              coarse_log: Tensor, bound: Tensor | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor, Tensor]:
     """`_max_rule_product_refined` with the floor `floor` (B,), by whichever exact pass costs
@@ -394,10 +495,11 @@ def _max_rule_product_floored(grammar: Grammar, tables: engine.SpanTables,
     (B,) best log scores and the floors the passes held (-inf where the pass left nothing out:
     the max-semiring pass of an unrefined grammar)."""
     B = len(lengths)
-    dtype = tables.inside.dtype
+    dtype = tables.marginals.dtype
     K, G = lay.slots.shape
     n = torch.tensor(list(lengths), dtype=torch.long)
-    kept = _kept_labels(coarse_log, n, lay.num_parents, floor)
+    bound = coarse_log if bound is None else bound
+    kept = _kept_labels(bound, n, lay.num_parents, floor)
     rules, chart = _pass_costs(kept, lay)
     finite = torch.isfinite(floor)
     by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum()))
@@ -417,8 +519,8 @@ def _max_rule_product_floored(grammar: Grammar, tables: engine.SpanTables,
         rows = rows[end:]
     held = floor.clone()
     for run, rows in groups:
-        found, value = run(grammar, _sub_tables(tables, rows), [lengths[b] for b in rows.tolist()],
-                           lay, floor[rows], coarse_log=coarse_log[rows])
+        found, value = run(grammar, tables.rows(rows), [lengths[b] for b in rows.tolist()],
+                           lay, floor[rows], coarse_log=coarse_log[rows], bound=bound[rows])
         values[rows] = value
         if G == 1 and run is not _max_rule_product_items:
             held[rows] = NEG_INF
@@ -438,10 +540,10 @@ def _chart_pass(lay: CoarseLayout) -> Callable:
     if lay.slots.shape[1] > 1:
         return _max_rule_product_refined
 
-    def unrefined(grammar, tables, lengths, lay, floor, coarse_log=None):
+    def unrefined(grammar, tables, lengths, lay, floor, coarse_log=None, bound=None):
         results = _max_rule_product_unrefined(grammar, tables, lengths, lay)
         return results, torch.tensor([NEG_INF if r is None else r[1] for r in results],
-                                     dtype=tables.inside.dtype)
+                                     dtype=tables.marginals.dtype)
     return unrefined
 
 
@@ -491,7 +593,7 @@ def _work_items(parent_log_mu: Tensor, floor: Tensor | None
 
 def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor | None,
-                              coarse_log: Tensor | None = None
+                              coarse_log: Tensor | None = None, bound: Tensor | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor]:
     """`max_rule_product` on a refined grammar over the labeled spans `floor` keeps: with
@@ -499,7 +601,8 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     marginal is below its sentence's floor is left out (no tree found uses it; -inf keeps
     everything). Returns the results and the (B,) best log scores found (-inf for a sentence
     with no tree left). `coarse_log` (B, N+1, N+1, K), the log marginals of the coarse labels,
-    is made here when not given.
+    is made here when not given. `bound` (B, N+1, N+1, K), what the floor is held against:
+    `_tree_bound` of `coarse_log`, or `coarse_log` itself when not given (both exact).
 
     Batched: one width at a time, every span of every sentence and every split together. The
     best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
@@ -516,14 +619,15 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     pair. Shapes: rows = (sentence, start) pairs of one width, U = w - 1 splits, K coarse
     symbols, Kp coarse parents, G subcategory slots.
     """
-    dtype = tables.inside.dtype
+    dtype = tables.marginals.dtype
     K, G = lay.slots.shape
     Kp = lay.num_parents
-    B, N1, _, S = tables.inside.shape
+    B, N1, _, S = tables.marginals.shape
     N = N1 - 1
     nt = len(grammar.nonterminals)
     if coarse_log is None:
         coarse_log = (tables.marginals @ lay.member).log()              # (B, N+1, N+1, K)
+    bound = coarse_log if bound is None else bound
     best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
     best[:, :, 1] = coarse_log[:, :, 1]
     back = torch.zeros(B, N1, N1, max(Kp, 1), 3, dtype=torch.long)      # split, left, right
@@ -549,7 +653,7 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
         # 1 on the left, w - 1 on the right) range over all K coarse symbols.
         groups = [(0, 1, K, K)] if w == 2 else \
             [(0, 1, K, Kp)] + ([(1, U - 1, Kp, Kp)] if w > 3 else []) + [(U - 1, U, Kp, K)]
-        for rows, parents in _work_items(coarse_log[:, 0:P, w, :Kp], floor):
+        for rows, parents in _work_items(bound[:, 0:P, w, :Kp], floor):
             # rows (m,) of this width's (sentence, start) pairs; parents (m,) the one coarse
             # parent of each, or None for every parent of each row (kp of them per item).
             kp = Kp if parents is None else 1
@@ -630,10 +734,18 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
         top_value.masked_fill(~parsed, NEG_INF)
 
 
-def _sub_tables(tables: engine.SpanTables, rows: Tensor) -> engine.SpanTables:
-    """The sentences `rows` of a batch's span tables."""
-    return engine.SpanTables(logz=tables.logz[rows], inside=tables.inside[rows],
-                             outside=tables.outside[rows], marginals=tables.marginals[rows])
+def _rescaled(cells: Tensor, log_scale: Tensor, slots: Tensor, width: int
+              ) -> tuple[Tensor, Tensor]:
+    """Each row of the scaled scores `cells` (rows, C) at its subcategory `slots` (rows, G)
+    (indices C to `width` - 1: none, zero), divided by their maximum, and the log of that
+    maximum plus the row's `log_scale` (0 where every entry is zero): the scores out of the
+    chart's scale, as `_shifted` gives them from log scores."""
+    cells = torch.cat([cells, cells.new_zeros(len(cells), width - cells.shape[1])], 1)
+    picked = cells.gather(1, slots)
+    top = picked.amax(1)
+    some = top > 0
+    return picked / torch.where(some, top, 1.0)[:, None], \
+        torch.where(some, top.log() + log_scale, 0.0)
 
 
 def _kept_labels(coarse_log: Tensor, lengths: Tensor, num_parents: int, floor: Tensor
@@ -650,7 +762,8 @@ def _kept_labels(coarse_log: Tensor, lengths: Tensor, num_parents: int, floor: T
 
 def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
                             lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
-                            within: Tensor | None = None, coarse_log: Tensor | None = None
+                            within: Tensor | None = None, coarse_log: Tensor | None = None,
+                            bound: Tensor | None = None
                             ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                        Tensor]:
     """`max_rule_product` over the labeled spans a finite floor keeps, item by item, on any
@@ -673,16 +786,17 @@ def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
     split, then the first (left, right) pair, as in `_max_rule_product_refined`. Returns the
     results and the (B,) best log scores (-inf where no tree reaches the floor). `within`
     (B, N+1, N+1, K) bool, when given, keeps the labeled spans it marks only: the best tree
-    among those that use no other. `coarse_log` as in `_max_rule_product_refined`.
+    among those that use no other. `coarse_log` and `bound` as in
+    `_max_rule_product_refined`.
     """
-    dtype = tables.inside.dtype
+    dtype = tables.marginals.dtype
     K, G = lay.slots.shape
     Kp = lay.num_parents
-    B, N1, _, S = tables.inside.shape
+    B, N1, _, S = tables.marginals.shape
     n = torch.tensor(list(lengths), dtype=torch.long)
     if coarse_log is None:
         coarse_log = (tables.marginals @ lay.member).log()              # (B, N+1, N+1, K)
-    kept = _kept_labels(coarse_log, n, Kp, floor)
+    kept = _kept_labels(coarse_log if bound is None else bound, n, Kp, floor)
     if within is not None:
         kept &= within
     # Items in (sentence, start, width, symbol) order: each cell's items are contiguous and in
@@ -693,9 +807,8 @@ def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
     best = coarse_log[ib, ii, iw, ik].masked_fill(iw > 1, NEG_INF)      # words: their label
     # Each item's inside scores over its subcategory slots (index S: none), out of log space
     # per item.
-    cells = tables.inside[ib, ii, iw]                                    # (items, S)
-    cells = torch.cat([cells, cells.new_full((len(ib), 1), NEG_INF)], 1)
-    inside_hat, inside_max = _shifted(cells.gather(1, lay.slots[ik]))    # (items, G)
+    inside_hat, inside_max = _rescaled(tables.scaled_inside[ib, ii, iw],
+                                       tables.scale[ib, ii, iw], lay.slots[ik], S + 1)  # (items, G)
     # Parent items, by width; for each, its splits; for each split, every (left, right) pair
     # of items of the two child cells: the anchored rules, in (parent, split, left, right)
     # order.
@@ -716,9 +829,10 @@ def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
     # log q of every anchored rule, in chunks of MRP_CHUNK rule entries. Parent slots hold
     # nonterminals (index NT and up: none).
     pitem = parents[rule_parent]
-    cells = tables.outside[ib[parents], ii[parents], pw]                 # (parents, NT)
-    cells = torch.cat([cells, cells.new_full((len(parents), S + 1 - cells.shape[1]), NEG_INF)], 1)
-    outside_hat, outside_max = _shifted(cells.gather(1, lay.slots[ik[parents]]))  # (parents, G)
+    pb, pi = ib[parents], ii[parents]
+    outside_hat, outside_max = _rescaled(tables.scaled_outside[pb, pi, pw],
+                                         -tables.scale[pb, pi, pw], lay.slots[ik[parents]],
+                                         S + 1)                          # (parents, G)
     log_q = torch.empty(len(of_rule), dtype=dtype)
     chunk = max(1, MRP_CHUNK // G ** 3)
     for r0 in range(0, len(of_rule), chunk):
@@ -798,10 +912,11 @@ def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
     before those with a word), not by the first split.
     """
     nt = len(grammar.nonterminals)
-    B, N1, _, _ = tables.inside.shape
+    B, N1, _, _ = tables.marginals.shape
     N = N1 - 1
     log_mu = tables.marginals.log()                                      # (B, N+1, N+1, S)
-    words = tables.inside[:, :N, 1] + log_mu[:, :N, 1]                   # (B, N, S)
+    words = engine.log_unscaled(tables.scaled_inside[:, :N, 1], tables.scale[:, :N, 1, None]) \
+        + log_mu[:, :N, 1]                                               # (B, N, S)
     logz = tables.logz.masked_fill(~torch.isfinite(tables.logz), 0.0)
     root = grammar.root.to(words.dtype)[None, :] - logz[:, None]         # (B, NT)
     # A grammar whose nonterminals emit words scores them at width one too.

@@ -569,20 +569,55 @@ def prepare_inputs(root: Tensor, terminal: Tensor, lengths, nt_terminal: Tensor 
 
 @dataclass
 class SpanTables:
-    """Every symbol over every span of a batch: log inside, log outside and posterior marginals.
+    """Every symbol over every span of a batch: inside and outside scores, scaled, and
+    posterior marginals.
 
     Spans are indexed [start, width] as in `Posteriors.spans`; S = NT + T symbols in the
-    engine's layout. Cells past a sentence's end are -inf (zero marginal); so is the outside
-    score of a symbol that no tree puts over a span (every cell of a sentence with no parse).
-    `inside` and `outside` are None when they were not asked for (`span_tables(log_scores=
-    False)`: a decoder that reads the marginals alone need not pay for their logarithms).
+    engine's layout. The scores are kept as the engine's chart keeps them, each cell divided
+    by e^scale: `scaled_inside` * e^scale is the inside score and `scaled_outside` / e^scale
+    the outside score over Z, so that their product is the marginal. A decoder that reads a few
+    cells (the max-rule-product item pass) takes logarithms of those alone; `inside` and
+    `outside` give the whole log tables, made on first use. Cells past a sentence's end are
+    zero (-inf in log: zero marginal); so is the outside score of a symbol that no tree puts
+    over a span (every cell of a sentence with no parse). The scores are None when they were
+    not asked for (`span_tables(log_scores=False)`: a decoder that reads the marginals alone).
     """
     logz: Tensor       # (B,) log p(sentence); -inf when there is no parse
-    inside: Tensor | None   # (B, N+1, N+1, S) log inside scores; -inf where impossible
-                            # (preterminals at width one only)
-    outside: Tensor | None  # (B, N+1, N+1, NT) log outside scores minus log Z, so that
-                            # outside + inside = log p(symbol over span | sentence)
     marginals: Tensor  # (B, N+1, N+1, S) p(symbol spans [start, width] | sentence)
+    scaled_inside: Tensor | None = None   # (B, N+1, N+1, S) inside / e^scale (preterminals
+                                          # at width one only)
+    scaled_outside: Tensor | None = None  # (B, N+1, N+1, NT) outside e^scale / Z
+    scale: Tensor | None = None           # (B, N+1, N+1) each cell's log scale
+
+    @property
+    def inside(self) -> Tensor | None:
+        """(B, N+1, N+1, S) log inside scores; -inf where impossible."""
+        if self.scaled_inside is None:
+            return None
+        if "_log_inside" not in self.__dict__:
+            self._log_inside = log_unscaled(self.scaled_inside, self.scale[..., None])
+        return self._log_inside
+
+    @property
+    def outside(self) -> Tensor | None:
+        """(B, N+1, N+1, NT) log outside scores minus log Z, so that outside + inside = log
+        p(symbol over span | sentence); -inf where no tree puts the symbol."""
+        if self.scaled_outside is None:
+            return None
+        if "_log_outside" not in self.__dict__:
+            self._log_outside = log_unscaled(self.scaled_outside, -self.scale[..., None])
+        return self._log_outside
+
+    def rows(self, rows: Tensor) -> "SpanTables":
+        """The sentences `rows` of the batch."""
+        pick = (lambda x: None if x is None else x[rows])
+        return SpanTables(self.logz[rows], self.marginals[rows], pick(self.scaled_inside),
+                          pick(self.scaled_outside), pick(self.scale))
+
+
+def log_unscaled(scaled: Tensor, log_scale: Tensor) -> Tensor:
+    """log(scaled) + log_scale, -inf where `scaled` is zero (whatever the scale there)."""
+    return torch.where(scaled > 0, scaled.log() + log_scale, NEG_INF)
 
 
 def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
@@ -614,13 +649,13 @@ def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         marginals[..., :NT] = adj * cells
         marginals[:, :N, 1, NT:] = grad_terminal
         if not log_scores:
-            return SpanTables(logz, None, None, marginals)
-        scale = chart.scale_start.transpose(0, 1).unsqueeze(-1)          # (B, N+1, N+1, 1)
-        inside = terminal.new_full((B, N + 1, N + 1, NT + T), NEG_INF)
-        inside[..., :NT] = cells.log() + scale
-        inside[:, :N, 1, NT:] = chart.term.log().transpose(0, 1) + scale[:, :N, 1]
+            return SpanTables(logz, marginals)
+        scale = chart.scale_start.transpose(0, 1).contiguous()           # (B, N+1, N+1)
+        inside = terminal.new_zeros(B, N + 1, N + 1, NT + T)
+        inside[..., :NT] = cells
+        inside[:, :N, 1, NT:] = chart.term.transpose(0, 1)
         # Cells past a sentence's end hold the padding's scores: they are no span of it.
         ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
-        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], NEG_INF)
-        outside = torch.where(adj > 0, adj.log() - scale, torch.full_like(adj, NEG_INF))
-    return SpanTables(logz, inside, outside, marginals)
+        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], 0.0)
+        outside = adj.clamp(min=0.0)
+    return SpanTables(logz, marginals, inside, outside, scale)
