@@ -51,6 +51,10 @@ def test_a_quick_run_reports_its_figures_by_the_stated_rules(capsys):
         ratio = g["ratios"][decoder]
         assert ratio == g["rates"][decoder] / g["rates"]["train"]
         assert re.search(rf"{decoder} .* ratio to training +{ratio:.3f} \(target >= 0.5\)", out)
+        # The same rule on the process's CPU time.
+        cpu = g["cpu_ratios"][decoder]
+        assert cpu == g["cpu_seconds"]["train"] / g["cpu_seconds"][decoder]
+        assert f"in CPU time {g['cpu_seconds'][decoder]:.2f} s, ratio {cpu:.3f}" in out
 
 
 def test_a_grammar_file_and_trained_grammars_are_timed_too(tmp_path, capsys):
