@@ -454,9 +454,11 @@ def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequ
     N1 = sub.marginals.shape[1]
     K, Kp = lay.slots.shape[0], lay.num_parents
     span = torch.zeros(len(rows), N1, N1, dtype=torch.bool)
-    for b, spans in enumerate(mbr_spans_batch(_span_posteriors(grammar, sub), sub_lengths)):
-        for i, j in spans:
-            span[b, i, j - i] = True
+    at = [(b, i, j - i) for b, spans in
+          enumerate(mbr_spans_batch(_span_posteriors(grammar, sub), sub_lengths))
+          for i, j in spans]
+    if at:
+        span[tuple(torch.tensor(at).t())] = True
     sub_log = coarse_log[rows]                                           # (rows, N+1, N+1, K)
     within = torch.zeros(sub_log.shape, dtype=torch.bool)
     top = sub_log[:, :, 1].topk(min(KNOWN_TREE_LABELS, K), -1).indices
