@@ -26,6 +26,7 @@ from pathlib import Path
 import torch
 
 from treewright import decode as new_decode
+from treewright import engine
 from treewright.allocator import tune_allocator
 from treewright.export.rename import rename_tree
 from treewright.grammar import Grammar, fine_name, load_grammar, split_name
@@ -42,7 +43,26 @@ def baseline_module(ref: str) -> types.ModuleType:
     module.__file__ = f"{ref}:src/treewright/decode.py"
     sys.modules[module.__name__] = module  # dataclasses look their module up by name
     exec(compile(source, module.__file__, "exec"), module.__dict__)
+    module.engine = _EngineOfLogTables()
     return module
+
+
+class _EngineOfLogTables(types.SimpleNamespace):
+    """This tree's engine for a `decode.py` from before `engine.SpanTables` kept its scores in
+    the chart's scale: such a version builds span tables from log inside and outside tables
+    (`SpanTables(logz=, inside=, outside=, marginals=)`), rescaled here per cell."""
+
+    def __getattr__(self, name):
+        return getattr(engine, name)
+
+    @staticmethod
+    def SpanTables(logz, inside=None, outside=None, marginals=None, **scaled):
+        if inside is None:
+            return engine.SpanTables(logz, marginals, **scaled)
+        top = inside.amax(-1)
+        scale = torch.where(torch.isfinite(top), top, torch.zeros_like(top))
+        return engine.SpanTables(logz, marginals, (inside - scale[..., None]).exp(),
+                                 (outside + scale[..., None]).exp(), scale)
 
 
 def in_its_names(module, grammar: Grammar) -> tuple[Grammar, dict[str, str]]:
