@@ -593,12 +593,15 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
         path == "items" or nats_per_word == 0.01)
 
 
+@pytest.mark.parametrize("decoder", ["mbr", "max-rule-product"])
 @pytest.mark.parametrize("kind", ["independent", "lowrank"])
-def test_factored_mbr_equals_mbr_on_the_implied_dense_grammar(kind):
-    # Reference: decode(..., "mbr") on the Grammar of the dense rules the factors imply (the mbr
-    # decoder is checked against enumeration above): the same trees, log-likelihoods, expected
-    # numbers of correct spans and tree log-probabilities; a one-word sentence (no parse in the
-    # induction layout) and one with an unknown word get no tree from either.
+def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(kind, decoder):
+    # Reference: decode(..., decoder) on the Grammar of the dense rules the factors imply (both
+    # decoders are checked against enumeration above): the same trees, log-likelihoods,
+    # objectives (expected numbers of correct spans; log rule-posterior products) and tree
+    # log-probabilities; a one-word sentence (no parse in the induction layout) and one with
+    # an unknown word get no tree from either. The factored max-rule-product is the item pass
+    # alone, under a known tree's floor (`_max_rule_product_factored`).
     from treewright.params import IndependentParams, LowRankParams
     from treewright.params.tabular import rules_to_grammar, symbol_names
     gen = torch.Generator().manual_seed(4)
@@ -619,8 +622,8 @@ def test_factored_mbr_equals_mbr_on_the_implied_dense_grammar(kind):
                  for n in (7, 2, 12, 1, 9, 5, 10)]
     sentences[4][3] = "zz"
     got = decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentences,
-                                        batch_size=3)
-    want = decode(grammar, sentences, "mbr")
+                                        batch_size=3, decoder=decoder)
+    want = decode(grammar, sentences, decoder)
     assert [g.tree is None for g in got] == [w.tree is None for w in want] == \
         [False, False, False, True, True, False, False]
     for g, w in zip(got, want):
@@ -630,3 +633,31 @@ def test_factored_mbr_equals_mbr_on_the_implied_dense_grammar(kind):
         assert g.log_likelihood == pytest.approx(w.log_likelihood, abs=1e-9)
         assert g.score == pytest.approx(w.score, abs=1e-9)
         assert g.tree_logprob == pytest.approx(w.tree_logprob, abs=1e-9)
+
+
+def test_factored_max_rule_product_in_float32_finds_the_float64_trees():
+    # Reference: decode(..., "max-rule-product") in float64 on the implied dense grammar
+    # (checked against enumeration above). Runs of factored rules decode in their float32; the
+    # bound and the known tree's floor then leave room for float32 rounding (`_slack`), so
+    # every parsed sentence still gets its tree, the same one here (no near-ties), with the
+    # objective equal to float32 precision.
+    from treewright.params import IndependentParams
+    from treewright.params.tabular import rules_to_grammar, symbol_names
+    model = IndependentParams(6, 8, 6, init_scale=3.0,
+                              generator=torch.Generator().manual_seed(8), dtype=torch.float32)
+    with torch.no_grad():
+        rules = model.rules()
+    vocab = Vocabulary([f"w{i}" for i in range(6)], unk=None)
+    nonterminals, preterminals = symbol_names(6, 8)
+    dense = rules.dense()
+    grammar = rules_to_grammar(type(dense)(*(x.double() for x in dense)), nonterminals,
+                               preterminals, vocab)
+    draw = torch.Generator().manual_seed(9)
+    sentences = [[f"w{int(k)}" for k in torch.randint(0, 6, (n,), generator=draw)]
+                 for n in (14, 3, 9, 20, 6, 11)]
+    got = decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentences,
+                                        decoder="max-rule-product")
+    want = decode(grammar, sentences, "max-rule-product")
+    for g, w in zip(got, want, strict=True):
+        assert g.tree is not None and g.tree.to_string() == w.tree.to_string()
+        assert g.score == pytest.approx(w.score, rel=1e-4, abs=1e-4)

@@ -425,11 +425,11 @@ def test_a_grammar_too_large_to_write_is_refused_before_training():
 
 
 @pytest.mark.parametrize("parameterization", ["independent", "lowrank"])
-def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
+def test_parse_on_a_factored_run_reads_the_model_not_the_grammar_file(
         tmp_path, monkeypatch, capsys, parameterization):
     # Reference: decode(..., "mbr") on the run's grammar file (the same rules as a dense
-    # Grammar; its mbr is checked against enumeration in test_decode.py): the same trees. The
-    # model path must not open the grammar file at all.
+    # Grammar; its mbr is checked against enumeration in test_decode.py): the same trees; the
+    # same for max-rule-product. The model path must not open the grammar file at all.
     from treewright.cli import main
     from treewright.decode import decode
     from treewright.export import source as source_module
@@ -449,6 +449,8 @@ def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
     text.write_text("\n".join(lines[:6] + [""] + lines[6:]) + "\n")
     expect = decode(load_grammar(tmp_path / "run" / "grammar.pcfg"),
                     [line.split() for line in lines], "mbr")
+    expect_mrp = decode(load_grammar(tmp_path / "run" / "grammar.pcfg"),
+                        [line.split() for line in lines], "max-rule-product")
 
     def refuse(path):
         raise AssertionError(f"the grammar file was loaded: {path}")
@@ -463,7 +465,16 @@ def test_parse_mbr_on_a_factored_run_reads_the_model_not_the_grammar_file(
         assert fields[0] == d.tree.to_string()
         assert float(fields[1]) == pytest.approx(d.tree_logprob, abs=1e-8)
         assert float(fields[2]) == pytest.approx(d.posterior, abs=1e-8)
-    # Without --decoder, a run of factored rules is decoded the same way, and says so.
+    # max-rule-product goes through the model as well (decode(..., "max-rule-product") on the
+    # grammar file, checked against enumeration in test_decode.py, as the reference).
+    assert main(["parse", str(tmp_path / "run"), str(text), "--decoder", "max-rule-product",
+                 "--scores", "--objective"]) == 0
+    mrp = capsys.readouterr().out.split("\n")
+    for fields, d in zip([r.split("\t") for r in mrp[:6] + mrp[7:13]], expect_mrp, strict=True):
+        assert fields[0] == d.tree.to_string()
+        assert float(fields[1]) == pytest.approx(d.tree_logprob, abs=1e-8)
+        assert float(fields[3]) == pytest.approx(d.score, abs=1e-8)
+    # Without --decoder, a run of factored rules is decoded with mbr, and says so.
     assert main(["parse", str(tmp_path / "run"), str(text), "--scores"]) == 0
     again = capsys.readouterr()
     assert again.out.split("\n") == rows and "mbr through the run's own model" in again.err

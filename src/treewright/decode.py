@@ -190,13 +190,20 @@ class CoarseLayout:
     order `max_rule_product` reads them. `blocks` holds the same rules by coarse rule, each
     rule's G**3 subcategory rules contiguous: blocks[x, y, z, (a, b, c)] = p(x_a -> y_b z_c),
     (Kp, K, K, G**3), as the pruned pass (`_max_rule_product_items`) gathers them.
+
+    Factored rules (`of_rules`: independent productions, low-rank) have no rule tensor: every
+    symbol is its own coarse symbol (G = 1, `member` None for the identity), `rules` and
+    `blocks` are None (no pass over the whole chart), and `binary_logprob` gives the rules the
+    item pass reads.
     """
-    names: list[str]    # K coarse symbols
-    slots: Tensor       # (K, G) long
-    member: Tensor      # (S, K) 0/1
-    num_parents: int    # Kp
-    rules: Tensor       # (Kp, G, G*K*G*K)
-    blocks: Tensor      # (Kp, K, K, G*G*G)
+    names: list[str]            # K coarse symbols
+    slots: Tensor               # (K, G) long
+    member: Tensor | None       # (S, K) 0/1; None: the identity (every symbol its own)
+    num_parents: int            # Kp
+    rules: Tensor | None        # (Kp, G, G*K*G*K); None: factored rules
+    blocks: Tensor | None       # (Kp, K, K, G*G*G); None: factored rules
+    nt: int = 0                 # fine nonterminals
+    binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor] | None = None
 
     @classmethod
     def of(cls, grammar: Grammar, dtype: torch.dtype) -> "CoarseLayout":
@@ -219,7 +226,25 @@ class CoarseLayout:
         blocks = rules.view(kp, G, K, G, K, G).permute(0, 2, 4, 1, 3, 5)  # (x, y, z, a, b, c)
         rules = rules.view(kp, G, K, G, K, G).permute(0, 1, 5, 2, 3, 4)  # (x, a, c, y, b, z)
         return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous(),
-                   blocks.reshape(kp, K, K, G ** 3).contiguous())
+                   blocks.reshape(kp, K, K, G ** 3).contiguous(), nt)
+
+    @classmethod
+    def of_rules(cls, binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor],
+                 symbols: Sequence[str], nt: int) -> "CoarseLayout":
+        """The layout of factored rules: `binary_logprob(a, b, c)` gives log p(a -> b c) for
+        index tensors of one shape (`IndependentRules.binary_logprob`)."""
+        return cls(list(symbols), torch.arange(len(symbols))[:, None], None, nt, None, None, nt,
+                   binary_logprob)
+
+    def coarse_log(self, marginals: Tensor) -> Tensor:
+        """(B, N+1, N+1, K) the log marginals of the coarse labels."""
+        return (marginals if self.member is None else marginals @ self.member).log()
+
+    def rule_block(self, x: Tensor, y: Tensor, z: Tensor) -> Tensor:
+        """(m, G**3) p(x_a -> y_b z_c) of the coarse rules (x, y, z), (a, b, c) in order."""
+        if self.blocks is not None:
+            return self.blocks[x, y, z]
+        return self.binary_logprob(x, y, z).exp()[:, None]
 
 
 MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
@@ -255,7 +280,7 @@ def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Te
 def _tree_bound(coarse_log: Tensor, lengths: Tensor, num_parents: int) -> Tensor:
     """(B, N+1, N+1, K) for every labeled span, an upper bound on the log max-rule-product
     score of any tree that holds it (-inf where none can), from the coarse label log marginals
-    `coarse_log` (B, N+1, N+1, K) alone, plus `FLOOR_SLACK` for rounding.
+    `coarse_log` (B, N+1, N+1, K) alone, plus `_slack` for rounding.
 
     An admissible estimate in the sense of A* parsing (Klein & Manning 2003, "A* Parsing: Fast
     Exact Viterbi Parse Selection"), here for the max-rule-product objective. Every factor of
@@ -307,7 +332,7 @@ def _tree_bound(coarse_log: Tensor, lengths: Tensor, num_parents: int) -> Tensor
                 inside.index_select(1, sibling)).view(B, len(target), -1).amax(-1)
         outside[:, target] = torch.maximum(outside[:, target], best)
     inner, outside = inner[:, :cells].view(B, N1, N1), outside[:, :cells].view(B, N1, N1)
-    around = outside + words[:, None, None] + FLOOR_SLACK                # (B, N+1, N+1)
+    around = outside + words[:, None, None] + _slack(dtype)             # (B, N+1, N+1)
     bound = coarse_log + (inner + around)[..., None]
     bound[:, :, 1] = coarse_log[:, :, 1] - word_best[..., None] + around[:, :, 1, None]
     return bound
@@ -348,7 +373,7 @@ def _bound_indices(N: int) -> _BoundIndices:
     return _BoundIndices(inside, outside)
 
 
-def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
+def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
                      layout: CoarseLayout | None = None, prune: bool = True
                      ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the coarse tree maximizing the product of anchored coarse-rule posteriors
@@ -361,7 +386,8 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     preterminal (its lexical rule), and the posterior of the top label (the root rule).
     Returns the labeled spans (start, end, coarse label), words included, and the log score.
     `layout`: `CoarseLayout.of(grammar, dtype)`, made here when not given (a caller decoding
-    many batches makes it once).
+    many batches makes it once); for factored rules, `CoarseLayout.of_rules` (`grammar` None):
+    see `_max_rule_product_factored`.
 
     Exact pruning (`prune`). Every factor of the score is a posterior probability, and each is
     at most the marginal mu of every labeled span it involves (a rule used over a span implies
@@ -383,9 +409,11 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     """
     dtype = tables.marginals.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
-    if not prune:
+    if not prune and lay.rules is not None:
         return _chart_pass(lay)(grammar, tables, lengths, lay, None)[0]
     n = torch.tensor(list(lengths))
+    if lay.rules is None:
+        return _max_rule_product_factored(tables, lengths, lay)
     floor = -PRUNE_NATS_PER_WORD * n.to(dtype)
     # A sentence whose floor would keep more than half of its (span, coarse parent) pairs
     # (diffuse posteriors, as an untrained grammar's) is decoded without a floor: the first
@@ -393,7 +421,7 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     N1 = tables.marginals.shape[1]
     start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
     spans = (width >= 2) & (start + width <= n[:, None, None])          # (B, N+1, N+1)
-    coarse_log = (tables.marginals @ lay.member).log()                  # (B, N+1, N+1, K)
+    coarse_log = lay.coarse_log(tables.marginals)                  # (B, N+1, N+1, K)
     bound = _tree_bound(coarse_log, n, lay.num_parents)
     parent_bound = bound[..., :lay.num_parents]
     kept = ((parent_bound >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
@@ -423,20 +451,54 @@ def max_rule_product(grammar: Grammar, tables: engine.SpanTables, lengths: Seque
     return results
 
 
+def _max_rule_product_factored(tables: engine.SpanTables, lengths: Sequence[int],
+                               lay: CoarseLayout
+                               ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
+    """`max_rule_product` on factored rules (`CoarseLayout.of_rules`), which have no pass over
+    the whole chart: the item pass alone, every sentence's floor the score of a known tree
+    (`_known_tree_floor`, sought with no floor of its own). The best tree scores at least
+    that, so the pass finds it, exactly, with no second pass. A sentence whose known labeling
+    scores zero (a rule of probability zero) keeps every labeled span its bound allows."""
+    dtype = tables.marginals.dtype
+    n = torch.tensor(list(lengths))
+    coarse_log = lay.coarse_log(tables.marginals)
+    bound = _tree_bound(coarse_log, n, lay.num_parents)
+    lowest = torch.full((len(lengths),), torch.finfo(dtype).min, dtype=dtype)   # no floor
+    floor = _known_tree_floor(None, tables, lengths, lay, lowest, coarse_log, bound)
+    floor = torch.where(torch.isfinite(floor), floor, lowest)
+    results, values, _ = _max_rule_product_floored(None, tables, lengths, lay, floor, coarse_log,
+                                                   bound)
+    # Rounding beyond the slack could leave a parsed sentence without its tree: keep all.
+    redo = (torch.isfinite(tables.logz) & torch.isneginf(values)).nonzero().flatten()
+    if len(redo):
+        again, _, _ = _max_rule_product_floored(None, tables.rows(redo),
+                                                [lengths[b] for b in redo.tolist()], lay,
+                                                lowest[redo], coarse_log[redo], bound[redo])
+        for b, result in zip(redo.tolist(), again):
+            results[b] = result
+    return results
+
+
 FLOOR_SLACK = 1e-6  # nats below a known tree's score, for rounding (the floor stays exact)
+
+
+def _slack(dtype: torch.dtype) -> float:
+    """`FLOOR_SLACK` in float64; in a coarser dtype, room for its rounding (a score sums some
+    tens of logarithms of some nats each: 1e4 units of the last place, 1.2e-3 in float32)."""
+    return max(FLOOR_SLACK, 1e4 * torch.finfo(dtype).eps)
 KNOWN_TREE_LABELS = 3  # coarse labels tried per span of the known tree (its best ones)
 KNOWN_TREE_FROM = 20_000  # anchored rules of a batch above which a known tree's floor is sought
 KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many times the chart
                           # pass under the floor per word
 
 
-def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
+def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
                       lay: CoarseLayout, floor: Tensor, coarse_log: Tensor,
                       bound: Tensor | None = None) -> Tensor:
     """(B,) a floor that no sentence's best tree falls below: the score of one tree, the MBR
     bracketing (`mbr_spans_batch` over the span posteriors) under its best labeling by each
     span's `KNOWN_TREE_LABELS` most probable coarse labels (that reach `floor`), found by the
-    item pass on those labeled spans alone, less `FLOOR_SLACK`. -inf for a sentence without a
+    item pass on those labeled spans alone, less `_slack`. -inf for a sentence without a
     finite floor or with no such labeling. `coarse_log` (B, N+1, N+1, K): log marginals of the
     coarse labels.
 
@@ -455,7 +517,7 @@ def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequ
     K, Kp = lay.slots.shape[0], lay.num_parents
     span = torch.zeros(len(rows), N1, N1, dtype=torch.bool)
     at = [(b, i, j - i) for b, spans in
-          enumerate(mbr_spans_batch(_span_posteriors(grammar, sub), sub_lengths))
+          enumerate(mbr_spans_batch(sub.marginals[..., :lay.nt].sum(-1), sub_lengths))
           for i, j in spans]
     if at:
         span[tuple(torch.tensor(at).t())] = True
@@ -467,7 +529,7 @@ def _known_tree_floor(grammar: Grammar, tables: engine.SpanTables, lengths: Sequ
     within[..., :Kp] |= torch.zeros_like(within[..., :Kp]).scatter_(-1, top, True) & span[..., None]
     _, value = _max_rule_product_items(grammar, sub, sub_lengths, lay, floor[rows], within,
                                        sub_log, None if bound is None else bound[rows])
-    known[rows] = value - FLOOR_SLACK
+    known[rows] = value - _slack(value.dtype)
     return known
 
 
@@ -480,7 +542,7 @@ ITEM_PER_ENTRY = 20
 ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass (about 100 bytes each)
 
 
-def _max_rule_product_floored(grammar: Grammar, tables: engine.SpanTables,
+def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
                               coarse_log: Tensor, bound: Tensor | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
@@ -504,7 +566,8 @@ def _max_rule_product_floored(grammar: Grammar, tables: engine.SpanTables,
     kept = _kept_labels(bound, n, lay.num_parents, floor)
     rules, chart = _pass_costs(kept, lay)
     finite = torch.isfinite(floor)
-    by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum()))
+    by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
+                         or lay.rules is None)          # factored rules: no chart pass
     results: list = [None] * B
     values = torch.full((B,), NEG_INF, dtype=dtype)
     groups = []
@@ -628,7 +691,7 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     N = N1 - 1
     nt = len(grammar.nonterminals)
     if coarse_log is None:
-        coarse_log = (tables.marginals @ lay.member).log()              # (B, N+1, N+1, K)
+        coarse_log = lay.coarse_log(tables.marginals)              # (B, N+1, N+1, K)
     bound = coarse_log if bound is None else bound
     best = torch.full((B, N1, N1, K), NEG_INF, dtype=dtype)
     best[:, :, 1] = coarse_log[:, :, 1]
@@ -762,7 +825,7 @@ def _kept_labels(coarse_log: Tensor, lengths: Tensor, num_parents: int, floor: T
     return (coarse_log >= floor[:, None, None, None]) & inside[..., None] & allowed
 
 
-def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
+def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
                             lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
                             within: Tensor | None = None, coarse_log: Tensor | None = None,
                             bound: Tensor | None = None
@@ -797,7 +860,7 @@ def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
     B, N1, _, S = tables.marginals.shape
     n = torch.tensor(list(lengths), dtype=torch.long)
     if coarse_log is None:
-        coarse_log = (tables.marginals @ lay.member).log()              # (B, N+1, N+1, K)
+        coarse_log = lay.coarse_log(tables.marginals)              # (B, N+1, N+1, K)
     kept = _kept_labels(coarse_log if bound is None else bound, n, Kp, floor)
     if within is not None:
         kept &= within
@@ -840,7 +903,7 @@ def _max_rule_product_items(grammar: Grammar, tables: engine.SpanTables,
     for r0 in range(0, len(of_rule), chunk):
         sl = slice(r0, r0 + chunk)
         rp, rl, rr = rule_parent[sl], left[sl], right[sl]
-        block = lay.blocks[ik[pitem[sl]], ik[rl], ik[rr]].view(-1, G, G * G)   # [a, (b, c)]
+        block = lay.rule_block(ik[pitem[sl]], ik[rl], ik[rr]).view(-1, G, G * G)  # [a, (b, c)]
         over_a = torch.bmm(outside_hat[rp, None, :], block).view(-1, G, G)      # [b, c]
         over_c = torch.bmm(over_a, inside_hat[rr, :, None])                     # [b]
         total = torch.bmm(inside_hat[rl, None, :], over_c).flatten()
@@ -1290,42 +1353,63 @@ def _encodable(vocab: Vocabulary, words: Sequence[Sequence[str]]
     return known, ids, lengths
 
 
+FACTORED_DECODERS = ("mbr", "max-rule-product")  # decoders of factored rules
+
+
 def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
                     preterminals: Sequence[str], sentences: Sequence[Sequence[str]],
-                    batch_size: int = 16) -> list[Decoded]:
-    """The `mbr` decoder on factored rules (`params.IndependentRules`, `params.LowRankRules`),
-    in input order, through their own engine pass (`label_marginals`), without the (NT, S, S)
-    rule tensor that a `Grammar` holds: a model with thousands of symbols decodes at about the
-    cost of a training step. The unlabeled MBR tree of the span posteriors (`mbr_spans_batch`),
-    each span labeled by its most probable nonterminal and each word by its most probable
-    preterminal, as `mbr` labels them; `score` is the expected number of correct spans and
-    `tree_logprob` the tree's log-probability under the rules. The rules' dtype is the
-    decoding dtype. `vocab` is the rules' vocabulary and `nonterminals`, `preterminals` their
-    symbol names (`params.symbol_names`). A sentence with a word outside the vocabulary gets
-    no tree."""
+                    batch_size: int = 16, decoder: str = "mbr") -> list[Decoded]:
+    """The `mbr` or `max-rule-product` decoder on factored rules (`params.IndependentRules`,
+    `params.LowRankRules`), in input order, through their own engine pass, without the
+    (NT, S, S) rule tensor that a `Grammar` holds: a model with thousands of symbols decodes at
+    about the cost of a training step.
+
+    mbr (`label_marginals`): the unlabeled MBR tree of the span posteriors
+    (`mbr_spans_batch`), each span labeled by its most probable nonterminal and each word by
+    its most probable preterminal, as `mbr` labels them; `score` is the expected number of
+    correct spans. max-rule-product (`span_tables`): every symbol is its own coarse symbol, and
+    the tree maximizing the product of anchored rule posteriors is found by the item pass alone
+    (`_max_rule_product_factored`), each rule read from the factors (`binary_logprob`); `score`
+    is its log rule-posterior product. `tree_logprob` is the tree's log-probability under the
+    rules. The rules' dtype is the decoding dtype. `vocab` is the rules' vocabulary and
+    `nonterminals`, `preterminals` their symbol names (`params.symbol_names`). A sentence with
+    a word outside the vocabulary gets no tree."""
+    if decoder not in FACTORED_DECODERS:
+        raise ValueError(f"factored rules decode with {' or '.join(FACTORED_DECODERS)}, "
+                         f"not {decoder!r}")
     symbols = list(nonterminals) + list(preterminals)
     nt = len(nonterminals)
+    layout = CoarseLayout.of_rules(rules.binary_logprob, symbols, nt)
 
     def batch(words: list[list[str]]) -> list[Decoded]:
         out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
         known, ids, lengths = _encodable(vocab, words)
         if not known:
             return out
+        n = lengths.tolist()
         with torch.no_grad():
             terminal = encode_ids(rules.lexical, ids, lengths).terminal
-            logz, marginals = rules.label_marginals(terminal, lengths)
-        spans_p = marginals[..., :nt].sum(-1)                            # (B, N+1, N+1)
-        n = lengths.tolist()
-        brackets = mbr_spans_batch(spans_p, n)
-        labels = _SpanLabels(symbols, nt, marginals)
-        gains = spans_p.double().tolist()
+            if decoder == "mbr":
+                logz, marginals = rules.label_marginals(terminal, lengths)
+            else:
+                tables = rules.span_tables(terminal, lengths)
+                logz, found = tables.logz, max_rule_product(None, tables, n, layout)
         parsed = [b for b in range(len(known)) if math.isfinite(float(logz[b]))]
-        labeled = [labels.label(b, n[b], brackets[b]) for b in parsed]
+        if decoder == "mbr":
+            spans_p = marginals[..., :nt].sum(-1)                        # (B, N+1, N+1)
+            brackets = mbr_spans_batch(spans_p, n)
+            labels = _SpanLabels(symbols, nt, marginals)
+            gains = spans_p.double().tolist()
+            labeled = [labels.label(b, n[b], brackets[b]) for b in parsed]
+            scores = [sum((gains[b][i][j - i] for i, j in brackets[b]), 0.0) for b in parsed]
+        else:
+            parsed = [b for b in parsed if found[b] is not None]
+            labeled = [found[b][0] for b in parsed]
+            scores = [found[b][1] for b in parsed]
         logprobs = _factored_tree_logprobs(rules, symbols, nt, ids[parsed], labeled)
-        for b, spans, logprob in zip(parsed, labeled, logprobs):
-            gain = sum((gains[b][i][j - i] for i, j in brackets[b]), 0.0)
+        for b, spans, logprob, score in zip(parsed, labeled, logprobs, scores):
             out[known[b]] = Decoded(tree_from_spans(words[known[b]], spans), float(logz[b]),
-                                    logprob, gain)
+                                    logprob, score)
         return out
 
     return _by_length(sentences, batch_size, batch)

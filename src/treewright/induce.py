@@ -280,10 +280,12 @@ class FactoredRun:
     nonterminals: list[str]
     preterminals: list[str]
 
-    def parse(self, sentences: Sequence[Sequence[str]], batch_size: int = 16) -> list:
+    def parse(self, sentences: Sequence[Sequence[str]], batch_size: int = 16,
+              decoder: str = "mbr") -> list:
+        """`decode.decode_factored` with `decoder`, mbr or max-rule-product."""
         from treewright.decode import decode_factored
         return decode_factored(self.rules, self.vocab, self.nonterminals, self.preterminals,
-                               sentences, batch_size)
+                               sentences, batch_size, decoder)
 
 
 def load_factored(run_dir: str | Path) -> FactoredRun | None:

@@ -25,7 +25,8 @@ folder of factored rules (below), else viterbi):
                     training corpus must still be where the run's config points; the memory
                     budget does not apply)
   max-rule-product  for refined grammars (symbols NAME·k): the tree of coarse symbols maximizing
-                    the product of posterior coarse-rule marginals
+                    the product of posterior coarse-rule marginals; on the run folder of
+                    factored rules it too reads the model and decodes through its engine pass
   consensus         GRAMMAR must be a run folder that saved two or more restarts: each restart's
                     mbr tree votes, and the binary tree with the largest summed F1 against those
                     trees is printed (tree averaging, Shayegh et al. 2024), labeled as mbr labels
@@ -102,7 +103,8 @@ def run(args) -> int:
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
     from treewright.corpus import (detect_format, insert_words, iter_conllu_blocks, iter_lines,
                                    read_tagged, run_drop_tags, run_tag_mode)
-    from treewright.decode import ENSEMBLE_DECODERS, consensus, decode, decode_lexicalized
+    from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
+                                   decode_lexicalized)
     from treewright.errors import InputError
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
@@ -112,7 +114,7 @@ def run(args) -> int:
     factored = None
     # A run of factored rules decodes with mbr through its own model by default (unless it
     # saved several restarts): its grammar file may not even fit in memory as a rule tensor.
-    if args.heads_out is None and (args.decoder == "mbr" or (
+    if args.heads_out is None and (args.decoder in FACTORED_DECODERS or (
             args.decoder is None and saved_restarts(args.grammar) < 2)):
         from treewright.induce import load_factored
         factored = load_factored(args.grammar)  # None: not a run of factored rules
@@ -121,8 +123,8 @@ def run(args) -> int:
         if args.decoder is None:
             args.decoder = "mbr"
             print("decoding with mbr through the run's own model (a run of factored rules; "
-                  "--decoder chooses another decoder, which reads the grammar file)",
-                  file=sys.stderr)
+                  "--decoder max-rule-product also decodes through it, and the other "
+                  "decoders read the grammar file)", file=sys.stderr)
         source = open_run_record(args.grammar)
         grammar, vocab = None, factored.vocab
     else:
@@ -147,7 +149,7 @@ def run(args) -> int:
         grammars = []
 
         def work(group):
-            return factored.parse(group, args.batch_size)
+            return factored.parse(group, args.batch_size, args.decoder)
     elif args.decoder == "lexicalized":   # the model itself, labels from its back-off grammar
         grammars = [grammar]
 

@@ -27,7 +27,7 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import CHUNK_BYTES, prepare_inputs, word_scales
+from treewright.engine.inside import CHUNK_BYTES, SpanTables, prepare_inputs, word_scales
 
 NEG_INF = float("-inf")
 
@@ -69,6 +69,18 @@ def lowrank_label_marginals(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor
     outside pass without the factor gradients. A cell's marginal is its adjoint times its
     scaled score (Eisner 2016); spans past a sentence's end and sentences with no parse are 0.
     """
+    tables = lowrank_span_tables(root, u, v, w, terminal, lengths, nt_terminal, log_scores=False)
+    return tables.logz, tables.marginals
+
+
+def lowrank_span_tables(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor, terminal: Tensor,
+                        lengths: Tensor, nt_terminal: Tensor | None = None,
+                        log_scores: bool = True) -> SpanTables:
+    """`engine.inside.span_tables` for low-rank rules (arguments as in
+    `lowrank_label_marginals`): log Z, the marginals and, with `log_scores`, every symbol's
+    inside score over every span in the chart's scale (the cells this pass keeps, and the
+    words) and its outside score, read off as marginal / scaled inside (the outside score over
+    Z times e^scale, as `SpanTables` keeps it). No (NT, S, S) tensor is formed."""
     root, terminal, lengths, nt_terminal = prepare_inputs(root, terminal, lengths, nt_terminal)
     B, N, T = terminal.shape
     NT = root.shape[-1]
@@ -80,7 +92,27 @@ def lowrank_label_marginals(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor
         marginals[:, :N, 1, NT:] = grads[4]
         if grads[5] is not None:
             marginals[:, :N, 1, :NT] = grads[5]
-    return state["logz"], marginals
+        if not log_scores:
+            return SpanTables(state["logz"], marginals)
+        inside = terminal.new_zeros(B, N + 1, N + 1, NT + T)
+        scale = terminal.new_full((B, N + 1, N + 1), NEG_INF)
+        inside[:, :N, 1, NT:] = state["words"].transpose(0, 1)
+        if state["nts"] is not None:
+            inside[:, :N, 1, :NT] = state["nts"].transpose(0, 1)
+        scale[:, :N, 1] = state["word_scale"]
+        offsets = state["offsets"]
+        for width in range(2, N + 1):
+            P = N - width + 1
+            rows = slice(offsets[width], offsets[width + 1])
+            inside[:, 0:P, width, :NT] = state["cells"][rows].view(P, B, NT).transpose(0, 1)
+            scale[:, 0:P, width] = state["scale_start"][0:P, :, width].t()
+        # Cells past a sentence's end hold the padding's scores: they are no span of it.
+        ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
+        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], 0.0)
+        cells = inside[..., :NT]
+        some = cells > 0
+        outside = torch.where(some, marginals[..., :NT] / torch.where(some, cells, 1.0), 0.0)
+    return SpanTables(state["logz"], marginals, inside, outside, scale)
 
 
 class _LowRank(torch.autograd.Function):
@@ -188,6 +220,7 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     logz = torch.where(ok, total.log() + top_scale, torch.full_like(total, NEG_INF))
     return {"logz": logz, "U": U, "V": V, "W": W, "words": words, "nts": nts,
             "left_proj": left_proj, "right_proj": right_proj, "cells": cells_all,
+            "scale_start": scale_start, "word_scale": word_scale,
             "rank_sums": rank_sums_all, "offsets": offsets, "vw": vw, "weights": weights,
             "peaks": peaks,
             "pi": pi, "tops": tops, "total": total, "ok": ok, "lengths": lengths}

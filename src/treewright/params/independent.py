@@ -32,7 +32,8 @@ import torch
 from torch import Tensor, nn
 
 from treewright.engine.independent import independent_dense_binary, independent_log_partition
-from treewright.engine.lowrank import lowrank_label_marginals
+from treewright.engine.inside import SpanTables
+from treewright.engine.lowrank import lowrank_label_marginals, lowrank_span_tables
 from treewright.grammar import Grammar
 from treewright.params.base import RuleModel
 from treewright.params.neural import EmbeddingParams, mlp
@@ -74,6 +75,12 @@ class IndependentRules(NamedTuple):
         (`engine.lowrank.lowrank_label_marginals`; no (NT, S, S) tensor)."""
         return lowrank_label_marginals(self.root, None, self.left.t(), self.right.t(), terminal,
                                        lengths)
+
+    def span_tables(self, terminal: Tensor, lengths: Tensor) -> SpanTables:
+        """log Z, marginals, inside and outside scores of every symbol over every span
+        (`engine.lowrank.lowrank_span_tables`; no (NT, S, S) tensor)."""
+        return lowrank_span_tables(self.root, None, self.left.t(), self.right.t(), terminal,
+                                   lengths)
 
     def binary_logprob(self, a: Tensor, b: Tensor, c: Tensor) -> Tensor:
         """log p(a -> b c) for index tensors of one shape (children indexed over S)."""

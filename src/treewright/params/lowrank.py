@@ -23,7 +23,9 @@ from typing import NamedTuple
 import torch
 from torch import Tensor, nn
 
-from treewright.engine.lowrank import lowrank_label_marginals, lowrank_log_partition
+from treewright.engine.inside import SpanTables
+from treewright.engine.lowrank import (lowrank_label_marginals, lowrank_log_partition,
+                                      lowrank_span_tables)
 from treewright.grammar import Grammar
 from treewright.params.neural import EmbeddingParams, mlp
 from treewright.params.tabular import RuleTensors, rules_to_grammar
@@ -58,6 +60,11 @@ class LowRankRules(NamedTuple):
         """(B,) log Z and (B, N+1, N+1, S) every symbol's posterior marginal over every span
         (`engine.lowrank.lowrank_label_marginals`; no (NT, S, S) tensor)."""
         return lowrank_label_marginals(self.root, self.u, self.v, self.w, terminal, lengths)
+
+    def span_tables(self, terminal: Tensor, lengths: Tensor) -> SpanTables:
+        """log Z, marginals, inside and outside scores of every symbol over every span
+        (`engine.lowrank.lowrank_span_tables`; no (NT, S, S) tensor)."""
+        return lowrank_span_tables(self.root, self.u, self.v, self.w, terminal, lengths)
 
     def binary_logprob(self, a: Tensor, b: Tensor, c: Tensor) -> Tensor:
         """log p(a -> b c) for index tensors of one shape (children indexed over S)."""
