@@ -67,4 +67,10 @@ def test_a_quick_epoch_then_parse_decodes_every_sentence_with_a_parse(capsys):
     assert r["parsed"] == sum(n >= 2 for n in lengths) < r["sentences"]
     assert r["parse_ratio"] == r["epoch_s"] / r["parse_s"]
     assert r["parse_sent_per_s"] == r["sentences"] / r["parse_s"]
-    assert "parse (mbr, the trained model" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "parse (mbr, the trained model" in out
+    # max-rule-product on the same model: timed by the same rules, the same sentences parsed
+    # (every factor is positive, so each sentence with a parse has a tree under it too).
+    assert r["mrp_parsed"] == r["parsed"]
+    assert r["mrp_ratio"] == r["epoch_s"] / r["mrp_s"]
+    assert "parse (max-rule-product, the trained model" in out

@@ -661,3 +661,27 @@ def test_factored_max_rule_product_in_float32_finds_the_float64_trees():
     for g, w in zip(got, want, strict=True):
         assert g.tree is not None and g.tree.to_string() == w.tree.to_string()
         assert g.score == pytest.approx(w.score, rel=1e-4, abs=1e-4)
+
+
+def test_factored_max_rule_product_refuses_posteriors_too_flat_for_it(monkeypatch):
+    # Common practice (a clear refusal rather than the system's out-of-memory killer): factored
+    # rules have no pass over the whole chart, so a sentence whose posteriors leave more
+    # anchored rules than the item pass takes is refused with the count and the way out.
+    from treewright.errors import InputError
+    from treewright.params import IndependentParams
+    from treewright.params.tabular import symbol_names
+    model = IndependentParams(3, 4, 4, generator=torch.Generator().manual_seed(2),
+                              dtype=torch.float64)
+    with torch.no_grad():
+        rules = model.rules()
+    vocab = Vocabulary([f"w{i}" for i in range(4)], unk=None)
+    nonterminals, preterminals = symbol_names(3, 4)
+    sentence = [["w0", "w1", "w2", "w3", "w1"]]
+    ok = decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentence,
+                                       decoder="max-rule-product")
+    assert ok[0].tree is not None
+    monkeypatch.setattr(decode_module, "FACTORED_RULES_AT_MOST", 0)
+    with pytest.raises(InputError, match=r"sentence of 5 words leave [\d,]+ anchored rules"
+                                         r".*decode with mbr"):
+        decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentence,
+                                      decoder="max-rule-product")

@@ -47,6 +47,7 @@ from treewright import engine
 from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
+from treewright.errors import InputError
 from treewright.inference import encode, encode_ids, pad_ids, spans_to_tree
 from treewright.params.lexicalized import LexicalizedParams
 from treewright.trees import Tree, tree_from_spans
@@ -540,6 +541,7 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
 ITEM_OVERHEAD = 400
 ITEM_PER_ENTRY = 20
 ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass (about 100 bytes each)
+FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no chart pass)
 
 
 def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables,
@@ -568,6 +570,14 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     finite = torch.isfinite(floor)
     by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
                          or lay.rules is None)          # factored rules: no chart pass
+    if lay.rules is None and bool((rules > FACTORED_RULES_AT_MOST).any()):
+        b = int((rules > FACTORED_RULES_AT_MOST).nonzero()[0, 0])
+        raise InputError(
+            f"max-rule-product through factored rules: the posteriors of a sentence of "
+            f"{lengths[b]} words leave {int(rules[b]):,} anchored rules to weigh (at most "
+            f"{FACTORED_RULES_AT_MOST:,} are taken, about 100 bytes each): the rules are too "
+            f"flat for this decoder, which has no pass over the whole chart for them; decode "
+            f"with mbr")
     results: list = [None] * B
     values = torch.full((B,), NEG_INF, dtype=dtype)
     groups = []
