@@ -443,10 +443,17 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
                                                        coarse_log, bound)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
+    return _decode_again(grammar, tables, lengths, lay, results, redo, values, coarse_log, bound)
+
+
+def _decode_again(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
+                  lay: CoarseLayout, results: list, redo: Tensor, floor: Tensor,
+                  coarse_log: Tensor, bound: Tensor) -> list:
+    """`results` with the sentences `redo` decoded again under their entries of `floor`."""
     if len(redo):
         again, _, _ = _max_rule_product_floored(grammar, tables.rows(redo),
                                                 [lengths[b] for b in redo.tolist()], lay,
-                                                values[redo], coarse_log[redo], bound[redo])
+                                                floor[redo], coarse_log[redo], bound[redo])
         for b, result in zip(redo.tolist(), again):
             results[b] = result
     return results
@@ -471,13 +478,7 @@ def _max_rule_product_factored(tables: engine.SpanTables, lengths: Sequence[int]
                                                    bound)
     # Rounding beyond the slack could leave a parsed sentence without its tree: keep all.
     redo = (torch.isfinite(tables.logz) & torch.isneginf(values)).nonzero().flatten()
-    if len(redo):
-        again, _, _ = _max_rule_product_floored(None, tables.rows(redo),
-                                                [lengths[b] for b in redo.tolist()], lay,
-                                                lowest[redo], coarse_log[redo], bound[redo])
-        for b, result in zip(redo.tolist(), again):
-            results[b] = result
-    return results
+    return _decode_again(None, tables, lengths, lay, results, redo, lowest, coarse_log, bound)
 
 
 FLOOR_SLACK = 1e-6  # nats below a known tree's score, for rounding (the floor stays exact)
