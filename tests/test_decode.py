@@ -326,7 +326,8 @@ def test_known_tree_floor_is_the_best_labeling_of_the_mbr_bracketing(monkeypatch
     coarse_log = (tables.marginals @ layout.member).log()
     floor = torch.full((len(SENTENCES),), -1e6, dtype=torch.float64)
     brackets = decode_module.mbr_spans_batch(
-        decode_module._span_posteriors(grammar, tables), lengths)
+        decode_module._span_posteriors(tables.marginals, len(grammar.nonterminals)),
+        lengths)
     monkeypatch.setattr(decode_module, "KNOWN_TREE_LABELS", len(layout.names))
     every = decode_module._known_tree_floor(grammar, tables, lengths, layout, floor, coarse_log)
     monkeypatch.setattr(decode_module, "KNOWN_TREE_LABELS", 1)

@@ -203,7 +203,7 @@ class CoarseLayout:
     num_parents: int            # Kp
     rules: Tensor | None        # (Kp, G, G*K*G*K); None: factored rules
     blocks: Tensor | None       # (Kp, K, K, G*G*G); None: factored rules
-    nt: int = 0                 # fine nonterminals
+    nt: int                     # fine nonterminals
     binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor] | None = None
 
     @classmethod
@@ -388,7 +388,7 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     Returns the labeled spans (start, end, coarse label), words included, and the log score.
     `layout`: `CoarseLayout.of(grammar, dtype)`, made here when not given (a caller decoding
     many batches makes it once); for factored rules, `CoarseLayout.of_rules` (`grammar` None):
-    see `_max_rule_product_factored`.
+    see `_max_rule_product_factored`, always pruned (they have no pass over the whole chart).
 
     Exact pruning (`prune`). Every factor of the score is a posterior probability, and each is
     at most the marginal mu of every labeled span it involves (a rule used over a span implies
@@ -519,7 +519,7 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
     K, Kp = lay.slots.shape[0], lay.num_parents
     span = torch.zeros(len(rows), N1, N1, dtype=torch.bool)
     at = [(b, i, j - i) for b, spans in
-          enumerate(mbr_spans_batch(sub.marginals[..., :lay.nt].sum(-1), sub_lengths))
+          enumerate(mbr_spans_batch(_span_posteriors(sub.marginals, lay.nt), sub_lengths))
           for i, j in spans]
     if at:
         span[tuple(torch.tensor(at).t())] = True
@@ -1190,7 +1190,7 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
                  ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the MBR bracketing labeled by the most probable symbol of each span, and
     its expected number of correct spans (None for a sentence with no parse)."""
-    spans_p = _span_posteriors(grammar, tables)                  # (B, N+1, N+1)
+    spans_p = _span_posteriors(tables.marginals, len(grammar.nonterminals))  # (B, N+1, N+1)
     brackets = mbr_spans_batch(spans_p, lengths)
     labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals), tables.marginals)
     gains = spans_p.tolist()
@@ -1205,10 +1205,11 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
     return out
 
 
-def _span_posteriors(grammar: Grammar, tables: engine.SpanTables) -> Tensor:
-    """p(span [start, width] is a constituent | sentence), (B, N+1, N+1): the nonterminals'
-    label marginals summed (words' preterminals are not constituents)."""
-    return tables.marginals[..., :len(grammar.nonterminals)].sum(-1)
+def _span_posteriors(marginals: Tensor, nt: int) -> Tensor:
+    """p(span [start, width] is a constituent | sentence), (B, N+1, N+1), from the label
+    marginals (B, N+1, N+1, S): the `nt` nonterminals' summed (words' preterminals are not
+    constituents)."""
+    return marginals[..., :nt].sum(-1)
 
 
 class _SpanLabels:
@@ -1276,7 +1277,8 @@ def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
         # One grammar's tables at a time: only its MBR trees and, where it labels, its most
         # probable labels are kept.
         tables = span_tables(grammar, sentences, dtype, log_scores=False)
-        trees = mbr_spans_batch(_span_posteriors(grammar, tables), lengths)
+        trees = mbr_spans_batch(
+            _span_posteriors(tables.marginals, len(grammar.nonterminals)), lengths)
         parsed = torch.isfinite(tables.logz).tolist()
         labels = None
         for b in range(B):
@@ -1407,7 +1409,7 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
                 logz, found = tables.logz, max_rule_product(None, tables, n, layout)
         parsed = [b for b in range(len(known)) if math.isfinite(float(logz[b]))]
         if decoder == "mbr":
-            spans_p = marginals[..., :nt].sum(-1)                        # (B, N+1, N+1)
+            spans_p = _span_posteriors(marginals, nt)                    # (B, N+1, N+1)
             brackets = mbr_spans_batch(spans_p, n)
             labels = _SpanLabels(symbols, nt, marginals)
             gains = spans_p.double().tolist()

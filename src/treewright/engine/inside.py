@@ -615,6 +615,13 @@ class SpanTables:
                           pick(self.scaled_outside), pick(self.scale))
 
 
+def past_end(lengths: Tensor, N: int) -> Tensor:
+    """(B, N+1, N+1) the cells [start, width] that end past each sentence's length: they hold
+    the padding's scores and are no span of it."""
+    ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
+    return ends[None] > lengths[:, None, None]
+
+
 def log_unscaled(scaled: Tensor, log_scale: Tensor) -> Tensor:
     """log(scaled) + log_scale, -inf where `scaled` is zero (whatever the scale there)."""
     return torch.where(scaled > 0, scaled.log() + log_scale, NEG_INF)
@@ -654,8 +661,6 @@ def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         inside = terminal.new_zeros(B, N + 1, N + 1, NT + T)
         inside[..., :NT] = cells
         inside[:, :N, 1, NT:] = chart.term.transpose(0, 1)
-        # Cells past a sentence's end hold the padding's scores: they are no span of it.
-        ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
-        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], 0.0)
+        inside.masked_fill_(past_end(lengths, N)[..., None], 0.0)
         outside = adj.clamp(min=0.0)
     return SpanTables(logz, marginals, inside, outside, scale)

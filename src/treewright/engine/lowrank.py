@@ -27,7 +27,8 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import CHUNK_BYTES, SpanTables, prepare_inputs, word_scales
+from treewright.engine.inside import (CHUNK_BYTES, SpanTables, past_end, prepare_inputs,
+                                      word_scales)
 
 NEG_INF = float("-inf")
 
@@ -106,9 +107,7 @@ def lowrank_span_tables(root: Tensor, u: Tensor | None, v: Tensor, w: Tensor, te
             rows = slice(offsets[width], offsets[width + 1])
             inside[:, 0:P, width, :NT] = state["cells"][rows].view(P, B, NT).transpose(0, 1)
             scale[:, 0:P, width] = state["scale_start"][0:P, :, width].t()
-        # Cells past a sentence's end hold the padding's scores: they are no span of it.
-        ends = torch.arange(N + 1)[:, None] + torch.arange(N + 1)[None, :]  # (N+1, N+1)
-        inside.masked_fill_((ends[None] > lengths[:, None, None])[..., None], 0.0)
+        inside.masked_fill_(past_end(lengths, N)[..., None], 0.0)
         cells = inside[..., :NT]
         some = cells > 0
         outside = torch.where(some, marginals[..., :NT] / torch.where(some, cells, 1.0), 0.0)
