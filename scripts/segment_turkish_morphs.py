@@ -9,10 +9,14 @@ is split into (SpaceAfter=No between them) are its gold morphs.
 The run: the stem-and-suffixes grammar of `treewright.adaptor.grammars.morph_grammar` (Stem and
 Suffix adapted, Pitman-Yor discount 0.5 and concentration 10, even odds of another suffix and
 another character: the defaults of the word grammar, chosen before any run and not tuned),
-sampled over every distinct written word (all types, split or not, once each), one chain.
-Each occurrence of a word takes its type's segmentation. Boundary precision, recall and F1 are
-printed on the split words (the occurrences written as two or more tokens: the goal) and on
-all words, for the sampler and for the no-split and split-every-character baselines.
+sampled over every distinct written word (all types, split or not, once each), `--chains`
+chains (4, as configs/segment_morphs.yaml). The segmentation cuts the positions that more than
+half of every chain's analyses after the last `--samples` sweeps `--sample-every` apart cut
+(`treewright.adaptor.posterior`); the row below it is the chain with the highest log joint
+probability alone. Each occurrence of a word takes its type's segmentation. Boundary
+precision, recall and F1 are printed on the split words (the occurrences written as two or
+more tokens: the goal) and on all words, beside the no-split and split-every-character
+baselines.
 
     OMP_NUM_THREADS=1 PYTHONPATH=src .venv/bin/python scripts/segment_turkish_morphs.py
 """
@@ -26,8 +30,10 @@ from pathlib import Path
 
 from treewright.adaptor import AdaptorSampler
 from treewright.adaptor.grammars import morph_grammar
-from treewright.adaptor.morphs import (baseline_scores, by_type, morph_segmentations,
-                                       read_written_words)
+from treewright.adaptor.morphs import (MORPH_SYMBOLS, baseline_scores, by_type,
+                                       morph_segmentations, read_written_words)
+from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
+from treewright.adaptor.run import best_chain
 from treewright.evaluation import evaluate_segmentation
 from treewright.tracking import Progress
 
@@ -43,6 +49,9 @@ def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--sweeps", type=int, default=60)
     parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--chains", type=int, default=4)
+    parser.add_argument("--samples", type=int, default=10)
+    parser.add_argument("--sample-every", type=int, default=2)
     parser.add_argument("--conllu", type=Path, default=TREEBANK)
     args = parser.parse_args(argv)
 
@@ -53,16 +62,26 @@ def main(argv: list[str] | None = None) -> None:
           f"from {written.sentences} sentences of {args.conllu.name}")
     start = time.perf_counter()
     sampler = AdaptorSampler(morph_grammar("".join(types)), [list(t) for t in types],
-                             seed=args.seed, source=str(args.conllu))
-    with Progress(args.sweeps, "sweeps", unit="sweeps") as progress:
-        sampler.run(args.sweeps, progress=lambda done, total: progress.update(1))
+                             chains=args.chains, seed=args.seed, source=str(args.conllu))
+    tally = BoundaryTally.of(sampler)
+    recorded = set(recorded_sweeps(args.sweeps, args.samples, args.sample_every))
+    with Progress(args.sweeps * args.chains, "sweeps", unit="sweeps") as progress:
+        for done in range(1, args.sweeps + 1):
+            sampler.run(1, progress=lambda done, total: progress.update(1))
+            if done in recorded:
+                tally.record(sampler, MORPH_SYMBOLS)
     seconds = time.perf_counter() - start
-    segmented = dict(zip(types, morph_segmentations(sampler)))
-    print(f"{args.sweeps} sweeps over {len(types)} types in {seconds:.0f} s")
+    best, joints = best_chain(sampler)
+    rows = [(f"chain {best} alone", dict(zip(types, morph_segmentations(sampler, best))))]
+    if tally.samples:
+        rows.insert(0, ("pooled", dict(zip(types, tally.segmentations(sampler.words)))))
+    print(f"{args.sweeps} sweeps of {args.chains} chain(s) over {len(types)} types in "
+          f"{seconds:.0f} s; log joint {', '.join(f'{j:.1f}' for j in joints)}")
     for name, gold in (("split words", written.split), ("all words", written.morphs)):
         base = baseline_scores(gold)
         print(f"\nboundaries on {name} ({len(gold)})\n{'':<18} precision recall     F1")
-        print(_row("adaptor grammar", by_type(segmented, gold), gold))
+        for label, segmented in rows:
+            print(_row(label, by_type(segmented, gold), gold))
         for label, scores in base.items():
             b = scores.boundaries
             print(f"{label:<18} {b.precision:9.3f} {b.recall:6.3f} {b.f1:6.3f}")

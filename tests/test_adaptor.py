@@ -14,6 +14,7 @@ from scipy.stats import chisquare
 
 from _brute import all_trees
 from treewright.adaptor import AdaptorSampler, Cache, Rules
+from treewright.adaptor.posterior import BoundaryTally
 from treewright.adaptor.proposal import ProposalChart
 from treewright.adaptor.sampler import Analysis
 from treewright.errors import InputError
@@ -321,3 +322,46 @@ def test_a_damaged_checkpoint_is_refused(tmp_path):
     bad.write_text(json.dumps(good))
     with pytest.raises(InputError, match="c.json: the checkpoint's chains are malformed"):
         AdaptorSampler.load(bad)
+
+
+def _word_edges(tree, word, start=0):
+    """(edges of the top-most `word` nodes, width) of a nested-tuple tree, walked here apart
+    from treewright's own cutting."""
+    if len(tree) == 2:
+        return ({start, start + 1} if tree[0] == word else set()), 1
+    left, wl = _word_edges(tree[1], word, start)
+    right, wr = _word_edges(tree[2], word, start + wl)
+    if tree[0] == word:
+        return {start, start + wl + wr}, wl + wr
+    return left | right, wl + wr
+
+
+def test_boundary_shares_estimate_the_exact_boundary_posterior():
+    # Reference: the boundary posterior by brute force, the probability of every joint
+    # analysis (the enumeration above) summed over those that cut each position at an edge of
+    # a top-most Word. The tally's shares over 2 chains x 1,500 recorded sweeps must be near
+    # it, and its segmentation must cut where the exact probability is above one half.
+    g = parse_grammar(WORDS)
+    sentences = ["ab", "aab", "aba"]
+    word = g.symbols.index("Word")
+    exact = [np.zeros(len(s) - 1) for s in sentences]
+    for combo, p in exact_posterior(g, sentences).items():
+        for u, tree in enumerate(combo):
+            for k in _word_edges(tree, word)[0] - {0, len(sentences[u])}:
+                exact[u][k - 1] += p
+    sampler = AdaptorSampler(g, sentences, chains=2, seed=5)
+    tally = BoundaryTally.of(sampler)
+    sampler.run(50)  # burn-in
+    for _ in range(1500):
+        sampler.run(3)
+        tally.record(sampler, ["Word"])
+    assert tally.samples == 3000
+    # Each share is a mean of 3,000 correlated indicators (standard error at most 0.009 if
+    # they were independent); 0.02 allows for the correlation of sweeps 3 apart (this seed
+    # measured 0.005 at most).
+    for share, truth in zip(tally.shares(), exact):
+        assert share == pytest.approx(truth, abs=0.02)
+    flat = np.concatenate(exact)
+    assert (abs(flat - 0.5) > 0.08).all()  # no exact probability near the threshold
+    assert ((flat > 0.5) != (flat < 0.5)).all() and 0 < (flat > 0.5).sum() < len(flat)
+    assert tally.positions() == [(np.flatnonzero(e > 0.5) + 1).tolist() for e in exact]

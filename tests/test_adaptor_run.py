@@ -5,12 +5,14 @@ from __future__ import annotations
 import json
 import sys
 import time
+from collections import Counter
 from pathlib import Path
 
 import pytest
 
 from treewright.adaptor import AdaptorSampler, read_utterances
 from treewright.adaptor.config import load_segment_config
+from treewright.adaptor.grammars import unigram_word_grammar
 from treewright.adaptor.run import segment_resume, segment_words
 from treewright.adaptor.sampler import Chain
 from treewright.cli import main
@@ -75,6 +77,9 @@ def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
     ends = [json.loads((tmp_path / run / "chains.json").read_text())
             for run in ("halves", "straight")]
     assert ends[0]["chains"] == ends[1]["chains"]
+    # ... and the same boundary counts: recorded after sweeps 2, 4 (before the stop) and 6.
+    assert ends[0]["boundaries"] == ends[1]["boundaries"]
+    assert ends[0]["boundaries"]["samples"] == 3
     assert _metric_lines(tmp_path / "halves") == _metric_lines(tmp_path / "straight")
     assert [m["step"] for m in _metric_lines(tmp_path / "straight")] == list(range(7))
     # The annealing schedule (annealing's own test checks it by hand) runs on across the stop,
@@ -85,7 +90,8 @@ def test_resume_continues_bit_for_bit(tmp_path, monkeypatch):
 
 
 def test_outputs_agree_with_the_chains_and_the_gold(tmp_path):
-    config = _config(tmp_path, sweeps=4, score_every=2)
+    # samples 0: the segmentation is the chain's own last state, whose words its lexicon counts.
+    config = _config(tmp_path, sweeps=4, score_every=2, samples=0)
     result = segment_words(load_segment_config(config), tmp_path / "run")
     run = tmp_path / "run"
     corpus = read_utterances(tmp_path / "ostreli.txt")
@@ -166,7 +172,7 @@ def test_several_chains_report_the_one_with_the_highest_log_joint(tmp_path):
     # Reference: each chain's log joint recomputed from the saved chains (a fresh seating of
     # its trees, `Chain.log_joint`) and the segmentation read off that chain's own trees; the
     # outputs and the last metric line must be those of the best, whichever number it has.
-    config = _config(tmp_path, chains=3, sweeps=4)
+    config = _config(tmp_path, chains=3, sweeps=4, samples=0)
     result = segment_words(load_segment_config(config), tmp_path / "run")
     state = json.loads((tmp_path / "run/chains.json").read_text())
     sampler = AdaptorSampler.from_state(state["chains"])
@@ -185,6 +191,84 @@ def test_several_chains_report_the_one_with_the_highest_log_joint(tmp_path):
     gold = read_utterances(tmp_path / "ostreli.txt").gold
     assert last["token_f1"] == pytest.approx(evaluate_segmentation(
         sampler.segmentations("Word", best), gold).tokens.f1)
+
+
+def _cut_positions(words):
+    """The positions between characters where `words` meet (counted here, apart from
+    treewright's own cutting)."""
+    ends, k = set(), 0
+    for w in words[:-1]:
+        k += len(w)
+        ends.add(k)
+    return ends
+
+
+def test_the_segmentation_pools_every_chains_recorded_analyses(tmp_path):
+    # Reference: the same chains run by hand through the Python API (same grammar, seed and
+    # utterances), each chain's segmentation read after sweeps 2, 4 and 6, and every position
+    # cut by more than half of those 9 analyses (a majority counted here with a Counter).
+    config = _config(tmp_path, chains=3, sweeps=6, samples=3, sample_every=2)
+    result = segment_words(load_segment_config(config), tmp_path / "run")
+    corpus = read_utterances(tmp_path / "ostreli.txt")
+    chars = [c for u in corpus.characters for c in u]
+    sampler = AdaptorSampler(unigram_word_grammar(chars), corpus.characters, chains=3, seed=3)
+    votes = [Counter() for _ in corpus.characters]
+    own = []
+    for _ in range(3):
+        sampler.run(2)
+        for c in range(3):
+            own.append(sampler.segmentations("Word", c))
+            for tally, words in zip(votes, own[-1]):
+                tally.update(_cut_positions(words))
+    expected = []
+    for tally, u in zip(votes, corpus.characters):
+        cuts = sorted(k for k, n in tally.items() if n > 9 / 2)
+        edges = [0, *cuts, len(u)]
+        expected.append(" ".join("".join(u[i:j]) for i, j in zip(edges, edges[1:])))
+    written = result.segmentation.read_text(encoding="utf-8").splitlines()
+    assert written == expected
+    # It differs from every chain's last state (so the pooling is what was written), and it
+    # is scored against the gold.
+    assert all(written != [" ".join(w) for w in own[-1 - c]] for c in range(3))
+    assert result.scores == evaluate_segmentation([line.split() for line in written],
+                                                  corpus.gold)
+    state = json.loads((tmp_path / "run/chains.json").read_text())
+    assert state["boundaries"]["samples"] == 9
+    assert state["chains"] == sampler.state()
+
+
+def test_a_checkpoint_without_boundary_counts_resumes_only_before_the_first_record(
+        tmp_path, monkeypatch):
+    # A checkpoint of the first version (no boundary counts), made here by taking them out.
+    config = _config(tmp_path, sweeps=6, samples=2, sample_every=1, checkpoint_every=2)
+    straight = segment_words(load_segment_config(config), tmp_path / "straight")
+    _stopped_in_sweep(5, config, tmp_path / "halves", monkeypatch)
+    path = tmp_path / "halves/chains.json"
+    state = json.loads(path.read_text())
+    assert state["boundaries"]["samples"] == 0   # sweeps 5 and 6 record; it stopped at 4
+    del state["boundaries"]
+    state["version"] = 1
+    path.write_text(json.dumps(state))
+    segment_resume(tmp_path / "halves")
+    assert (tmp_path / "halves/segmentation.txt").read_text() == \
+        straight.segmentation.read_text()
+    # Stopped after a recorded sweep, the counts it lacks cannot be made again: refused.
+    config = _config(tmp_path, sweeps=6, samples=4, sample_every=1, checkpoint_every=2)
+    _stopped_in_sweep(5, config, tmp_path / "late", monkeypatch)
+    path = tmp_path / "late/chains.json"
+    state = json.loads(path.read_text())
+    assert state["boundaries"]["samples"] == 2   # after sweeps 3 and 4 (of 3, 4, 5, 6)
+    del state["boundaries"]
+    state["version"] = 1
+    path.write_text(json.dumps(state))
+    with pytest.raises(InputError, match="kept no boundary counts"):
+        segment_resume(tmp_path / "late")
+    # A damaged count is refused with the file named.
+    state = json.loads((tmp_path / "straight/chains.json").read_text())
+    state["boundaries"]["counts"][0][0] = 99
+    path.write_text(json.dumps(state))
+    with pytest.raises(InputError, match="late/chains.json.*utterance 1"):
+        segment_resume(tmp_path / "late")
 
 
 def test_a_resumed_run_replaces_the_tensorboard_events_logged_after_its_checkpoint(

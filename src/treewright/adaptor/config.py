@@ -52,10 +52,11 @@ class WordGrammarConfig:
 class SamplerConfig:
     sweeps: int = option(200, "Sweeps of every chain; a sweep resamples each utterance once "
                               "(one Metropolis-Hastings step).", range="[0, inf)")
-    chains: int = option(1, "Independent chains, run one after another; the outputs and "
-                         "metrics are those of the chain with the highest log joint "
-                         "probability (the model's choice, not the gold's), and every "
-                         "chain's log joint is logged.", range="[1, inf)")
+    chains: int = option(1, "Independent chains, run one after another; the metrics and "
+                         "lexicon are those of the chain with the highest log joint "
+                         "probability (the model's choice, not the gold's), every chain's "
+                         "log joint is logged, and the segmentation pools every chain's "
+                         "recorded analyses (samples).", range="[1, inf)")
     seed: int = option(0, "Seeds every chain (chain c draws from the c-th child seed).")
     start: Literal["batch", "incremental"] = option(
         "batch", "First state. batch: every utterance's tree drawn from the base grammar "
@@ -72,6 +73,13 @@ class SamplerConfig:
         False, "After every sweep, slice-sample each adapted symbol's discount and "
                "concentration from their posterior (priors Beta(1, 1) and Gamma(10, 0.1); "
                "needs both positive at the start).")
+    samples: int = option(10, "Recorded analyses per chain for the segmentation written at "
+                              "the end: every chain's state after the last sweep and after "
+                              "every sample_every-th sweep before it; a position is cut when "
+                              "more than half of all recorded analyses cut it (the boundary "
+                              "posterior, adaptor.posterior). 0: the reported chain's last "
+                              "state alone.", range="[0, inf)")
+    sample_every: int = option(2, "Sweeps between recorded analyses.", range="[1, inf)")
     score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
                                  "with gold); the log joint costs about a fifth of a sweep.",
                               range="[1, inf)")

@@ -26,7 +26,7 @@ from typing import Iterable, Sequence
 
 from treewright.adaptor.model import Tree
 from treewright.adaptor.sampler import AdaptorSampler
-from treewright.adaptor.segment import top_spans
+from treewright.adaptor.segment import boundaries, cut
 from treewright.corpus import ReadOptions, read_corpus
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
 from treewright.word_pieces import split_words
@@ -95,10 +95,7 @@ def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScor
 def morph_cuts(tree: Tree, symbols: Sequence[int], chars: Sequence[str]) -> list[str]:
     """The morphs an analysis gives: `chars` cut at every edge of a top-most node of any of
     `symbols` (Stem and Suffix in `grammars.morph_grammar`)."""
-    cuts = sorted({k for a in symbols for span in top_spans(tree, a) for k in span}
-                  - {0, len(chars)})
-    edges = [0] + cuts + [len(chars)]
-    return ["".join(chars[i:j]) for i, j in zip(edges, edges[1:])]
+    return cut(chars, boundaries(tree, symbols, len(chars)))
 
 
 def morph_segmentations(sampler: AdaptorSampler, chain: int = 0,

@@ -8,14 +8,18 @@ scored sweep: log_joint, the log probability of the reported chain's trees and s
 which is the log posterior up to a constant; accept_rate of that chain's proposals in the
 sweep; the sweep's temperature; Word's discount and concentration; cached_words; with gold,
 token_f1 and boundary_f1; and with two or more chains, chain, the reported chain's number, and
-log_joint_chain{c} for every chain c), chains.json (the checkpoint: the chains' JSON state and
-the size metrics.jsonl had then), and at the end segmentation.txt (the reported chain's words,
-one utterance per line, in file order without the blank lines) and lexicon.tsv (Word's cached
-subtrees: characters, customers, tables).
+log_joint_chain{c} for every chain c), chains.json (the checkpoint: the chains' JSON state,
+the boundary counts so far and the size metrics.jsonl had then), and at the end
+segmentation.txt (one utterance per line, in file order without the blank lines, its words
+separated by spaces) and lexicon.tsv (the reported chain's cached Word subtrees: characters,
+customers, tables).
 
 The reported chain is the one with the highest log joint probability when the numbers are
 taken (the first on ties): a chain that has settled in a better mode of the posterior, chosen
-by the model alone, never by the gold. With one chain it is chain 0.
+by the model alone, never by the gold. With one chain it is chain 0. The segmentation pools
+every chain: each chain's analyses are recorded after the last `sampler.samples` sweeps
+`sampler.sample_every` apart, and a position is cut when more than half of them cut it
+(`posterior.BoundaryTally`); with `sampler.samples: 0` it is the reported chain's last state.
 
 With grammar.unit morphs each input is one word and the grammar cuts it into a stem and
 suffixes (`grammars.morph_grammar`): the segmentation cuts at the edges of the Stem and Suffix
@@ -38,6 +42,7 @@ from treewright.adaptor.config import SegmentConfig, load_segment_config
 from treewright.adaptor.grammars import morph_grammar, unigram_word_grammar
 from treewright.adaptor.morphs import (MORPH_SYMBOLS, WrittenWords, baseline_scores, by_type,
                                        morph_segmentations, read_written_words)
+from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
 from treewright.adaptor.sampler import AdaptorSampler, annealing
 from treewright.adaptor.segment import Utterances, read_utterances
 from treewright.config import dump_config_yaml
@@ -48,7 +53,7 @@ from treewright.safeio import atomic_write_text
 from treewright.tracking import Progress
 
 RUN_CHECKPOINT_KIND = "treewright segmentation run"
-RUN_CHECKPOINT_VERSION = 1
+RUN_CHECKPOINT_VERSION = 2  # 2: with the boundary counts; 1 read while it needs none
 WORD = "Word"  # the adapted symbol whose top-most subtrees are the words
 
 
@@ -79,7 +84,8 @@ def segment_words(cfg: SegmentConfig, run_dir: str | Path, stream: TextIO | None
     sampler = AdaptorSampler(grammar, corpus.characters, chains=cfg.sampler.chains,
                              seed=cfg.sampler.seed, source=str(cfg.data.text),
                              start=cfg.sampler.start)
-    return _run(cfg, folder, corpus, written, sampler, stream, fresh=True)
+    return _run(cfg, folder, corpus, written, sampler, BoundaryTally.of(sampler), stream,
+                fresh=True)
 
 
 def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> SegmentResult:
@@ -94,7 +100,7 @@ def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> Segment
     except (UnicodeDecodeError, json.JSONDecodeError) as err:
         raise InputError(f"not a JSON checkpoint ({err})", path=where) from None
     if not isinstance(state, dict) or state.get("kind") != RUN_CHECKPOINT_KIND \
-            or state.get("version") != RUN_CHECKPOINT_VERSION:
+            or state.get("version") not in (1, RUN_CHECKPOINT_VERSION):
         raise InputError(f"not a checkpoint of a segmentation run, version "
                          f"{RUN_CHECKPOINT_VERSION}", path=where)
     sampler = AdaptorSampler.from_state(state.get("chains"), source=where)
@@ -102,11 +108,20 @@ def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> Segment
     if corpus.characters != sampler.words:
         raise InputError("the utterances differ from those the checkpoint was sampled on",
                          path=str(cfg.data.text))
+    if state["version"] == 1:  # written before runs kept boundary counts
+        tally = BoundaryTally.of(sampler)
+        if any(s <= sampler.chains[0].sweeps for s in _recorded(cfg)):
+            raise InputError("this checkpoint is from a version that kept no boundary counts, "
+                             "and sweeps it has run should have been recorded; start the run "
+                             "again", path=where)
+    else:
+        tally = BoundaryTally.from_state(state.get("boundaries"),
+                                         [len(w) for w in sampler.words], where)
     # Metric lines written after the checkpoint belong to sweeps that will run again.
     folder.truncate_metrics(int(state.get("metrics_bytes", 0)))
     folder.note(f"resuming after sweep {sampler.chains[0].sweeps} of {cfg.sampler.sweeps}",
                 stream)
-    return _run(cfg, folder, corpus, written, sampler, stream, fresh=False)
+    return _run(cfg, folder, corpus, written, sampler, tally, stream, fresh=False)
 
 
 def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
@@ -134,10 +149,16 @@ def _symbols(cfg: SegmentConfig) -> tuple[str, ...]:
     return MORPH_SYMBOLS if cfg.grammar.unit == "morphs" else (WORD,)
 
 
+def _recorded(cfg: SegmentConfig) -> list[int]:
+    """The sweeps after which every chain's analyses are recorded for the segmentation."""
+    return recorded_sweeps(cfg.sampler.sweeps, cfg.sampler.samples, cfg.sampler.sample_every)
+
+
 def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
-         written: WrittenWords | None, sampler: AdaptorSampler, stream: TextIO | None,
-         fresh: bool) -> SegmentResult:
+         written: WrittenWords | None, sampler: AdaptorSampler, tally: BoundaryTally,
+         stream: TextIO | None, fresh: bool) -> SegmentResult:
     total = cfg.sampler.sweeps
+    recorded = set(_recorded(cfg))
     done = sampler.chains[0].sweeps
     temperature = annealing(cfg.sampler.anneal_from, cfg.sampler.anneal_sweeps)
     loggers = folder.open_loggers(cfg.output.stdout_metrics, cfg.output.tensorboard,
@@ -151,12 +172,14 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
                 sampler.run(1, temperature=temperature,
                             hyperparameters=cfg.sampler.resample_hyperparameters)
                 done += 1
+                if done in recorded:
+                    tally.record(sampler, _symbols(cfg))
                 if done % cfg.sampler.score_every == 0 or done == total:
                     metrics = _metrics(cfg, corpus, sampler, before)
                     metrics["temperature"] = temperature(done - 1)
                     loggers.log(metrics, step=done)
                 if done % cfg.sampler.checkpoint_every == 0 or done == total:
-                    _checkpoint(folder, sampler)
+                    _checkpoint(folder, sampler, tally)
                 progress.update(1)
     finally:
         loggers.close()
@@ -165,7 +188,13 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
     if len(joints) > 1:
         folder.note(f"reporting chain {best} of {len(joints)}, the highest log joint "
                     f"probability ({', '.join(f'{j:.1f}' for j in joints)})", stream)
-    words = morph_segmentations(sampler, best, symbols)
+    own = morph_segmentations(sampler, best, symbols)  # the reported chain's last state
+    words = own
+    if tally.samples:
+        words = tally.segmentations(corpus.characters)
+        folder.note(f"segmentation: the positions cut by more than half of {tally.samples} "
+                    f"recorded analyses ({tally.samples // len(sampler.chains)} sweeps of "
+                    f"{len(sampler.chains)} chain(s))", stream)
     atomic_write_text(folder.segmentation, "".join(" ".join(w) + "\n" for w in words))
     if symbols == (WORD,):
         lexicon = "".join(f"{text}\t{customers}\t{tables}\n" for
@@ -179,20 +208,33 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
     if scores is not None:
         folder.note(f"after {done} sweeps: token F1 {scores.tokens.f1:.3f}, boundary F1 "
                     f"{scores.boundaries.f1:.3f}", stream)
+        if tally.samples:
+            alone = evaluate_segmentation(own, corpus.gold, str(cfg.data.text))
+            folder.note(f"(chain {best}'s last state alone: token F1 {alone.tokens.f1:.3f}, "
+                        f"boundary F1 {alone.boundaries.f1:.3f})", stream)
     if written is not None:
-        _note_split_words(folder, written, dict(zip(("".join(u) for u in corpus.characters),
-                                                    words)), stream)
+        types = ["".join(u) for u in corpus.characters]
+        _note_split_words(folder, written, dict(zip(types, words)), stream)
+        if tally.samples:
+            _note_split_words(folder, written, dict(zip(types, own)), stream,
+                              f"chain {best}'s last state alone")
     folder.note(f"wrote {folder.segmentation} and {folder.lexicon}", stream)
     return SegmentResult(folder.segmentation, folder.lexicon, done, scores)
 
 
 def _note_split_words(folder: RunFolder, written: WrittenWords,
-                      segmented: dict[str, list[str]], stream: TextIO | None) -> None:
-    """Boundary scores on every occurrence of the split written words, beside the baselines."""
+                      segmented: dict[str, list[str]], stream: TextIO | None,
+                      label: str | None = None) -> None:
+    """Boundary scores on every occurrence of the split written words, beside the baselines
+    (or, with `label`, without them, for another segmentation of the same words)."""
     gold = written.split
     if not gold:
         return
     ours = evaluate_segmentation(by_type(segmented, gold), gold).boundaries
+    if label is not None:
+        folder.note(f"({label}: boundary precision {ours.precision:.3f}, recall "
+                    f"{ours.recall:.3f}, F1 {ours.f1:.3f})", stream)
+        return
     base = {k: v.boundaries for k, v in baseline_scores(gold).items()}
     folder.note(f"on the {len(gold)} split written words: boundary precision "
                 f"{ours.precision:.3f}, recall {ours.recall:.3f}, F1 {ours.f1:.3f}; no split F1 "
@@ -236,7 +278,8 @@ def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
     return out
 
 
-def _checkpoint(folder: RunFolder, sampler: AdaptorSampler) -> None:
+def _checkpoint(folder: RunFolder, sampler: AdaptorSampler, tally: BoundaryTally) -> None:
     atomic_write_text(folder.checkpoint, json.dumps({
         "kind": RUN_CHECKPOINT_KIND, "version": RUN_CHECKPOINT_VERSION,
-        "metrics_bytes": folder.metrics_size(), "chains": sampler.state()}) + "\n")
+        "metrics_bytes": folder.metrics_size(), "chains": sampler.state(),
+        "boundaries": tally.state()}) + "\n")

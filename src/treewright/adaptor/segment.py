@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Sequence
 
 from treewright.adaptor.model import Cache, Tree, is_leaf, tree_yield
 from treewright.errors import InputError
@@ -79,11 +80,23 @@ def top_spans(tree: Tree, symbol: int) -> list[tuple[int, int]]:
     return out
 
 
+def boundaries(tree: Tree, symbols: Sequence[int], length: int) -> list[int]:
+    """The positions an analysis of `length` characters cuts at, ascending: every edge of a
+    top-most node of any of `symbols` (position k lies between characters k - 1 and k; the
+    utterance's own edges 0 and `length` are not positions)."""
+    return sorted({k for a in symbols for span in top_spans(tree, a) for k in span}
+                  - {0, length})
+
+
+def cut(chars: Sequence[str], positions: Sequence[int]) -> list[str]:
+    """`chars` cut at the ascending `positions` (each strictly inside), joined into units."""
+    edges = [0, *positions, len(chars)]
+    return ["".join(chars[i:j]) for i, j in zip(edges, edges[1:])]
+
+
 def segment(tree: Tree, symbol: int, chars: list[str]) -> list[str]:
     """The words an analysis gives: `chars` cut at every edge of a top-most `symbol` node."""
-    cuts = sorted({k for span in top_spans(tree, symbol) for k in span} - {0, len(chars)})
-    edges = [0] + cuts + [len(chars)]
-    return ["".join(chars[i:j]) for i, j in zip(edges, edges[1:])]
+    return cut(chars, boundaries(tree, (symbol,), len(chars)))
 
 
 def lexicon(cache: Cache, symbol: int, words: list[str]) -> list[tuple[str, int, int]]:
