@@ -74,3 +74,11 @@ def load_run_config(path: str | Path, overrides: Sequence[str] = (), kind: str =
         from treewright.adaptor.config import load_segment_config
         return kind, load_segment_config(path, overrides)
     raise InputError(f"a config kind is one of {', '.join(KINDS)}, not {kind!r}")
+
+
+def is_segment_run(run_dir: str | Path) -> bool:
+    """A run folder of `treewright segment`: its config.yaml is a segment config."""
+    from treewright.runfolder import RunFolder
+
+    config = RunFolder(run_dir).config
+    return config.is_file() and config_kind(config) == "segment"

@@ -25,7 +25,10 @@ formats:
             HEAD and DEPREL (root, else dep) read off the tree by the --heads rule; one
             block per non-blank line, its '# sent_id' the input line number
 
-The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg).
+The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg). A
+segmentation run folder (treewright segment) exports as text (its segmentation, one input per
+line) or json (the segmentation, and the reported chain's lexicon of cached units with their
+customers and tables; fields in export/segmentation.py).
 Pruning (--prune-threshold / --prune-top) comes first, then renaming (--rename: 'OLD NEW' per
 line, '#' comments); the pruning report goes to standard error.
 """
@@ -67,6 +70,10 @@ def run(args) -> int:
     from treewright.export.parses import head_rule, parse_corpus, to_brackets, to_conllu
     from treewright.safeio import write_output_text
 
+    from treewright.run_configs import is_segment_run
+
+    if is_segment_run(args.source):
+        return _segmentation(args)
     if args.to in ("brackets", "conllu") and args.corpus is None:
         raise InputError(f"--to {args.to} needs --corpus (the sentences to parse)")
     source = open_grammar(args.source)
@@ -117,6 +124,28 @@ def run(args) -> int:
                   "block's '# sent_id' is its input line", file=sys.stderr)
         text = to_brackets(parsed) if args.to == "brackets" else to_conllu(
             parsed, args.tag_column, rule=head_rule(args.heads, named))
+    if args.out == "-":
+        sys.stdout.write(text)
+    else:
+        write_output_text(args.out, text)
+    return 0
+
+
+def _segmentation(args) -> int:
+    """A segmentation run: its segmentation (text) or everything it found (json)."""
+    import sys
+
+    from treewright.errors import InputError
+    from treewright.export.segmentation import segmentation_json_text
+    from treewright.runfolder import RunFolder
+    from treewright.safeio import write_output_text
+
+    if args.to not in ("json", "text"):
+        raise InputError(f"--to {args.to}: a segmentation run exports as json (segmentation "
+                         "and lexicon) or text (the segmentation)", path=args.source)
+    text = segmentation_json_text(args.source)  # checks the run is finished
+    if args.to == "text":
+        text = RunFolder(args.source, "segment").segmentation.read_text(encoding="utf-8")
     if args.out == "-":
         sys.stdout.write(text)
     else:

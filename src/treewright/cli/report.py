@@ -21,6 +21,12 @@ error while the sentences are parsed. For a lexicalized run (model.parameterizat
 lexicalized) the page adds what the model learned about words: each nonterminal's back-off
 weight and the strongest head-dependent word pairs and head-symbol pairs (as `inspect` lists
 them; the model is read back from the checkpoint and the training corpus).
+
+For a segmentation run (treewright segment) the page holds the scores of its segmentation
+against the gold beside the no-split and split-every-character baselines, the log joint
+probability of every chain by sweep, the reported chain's F1, acceptance rate and cached units
+by sweep, the induced lexicon (the most used units with customers and tables) and example
+segmentations beside the gold.
 """
 
 
@@ -53,7 +59,17 @@ def run(args) -> int:
     from treewright.errors import InputError
     from treewright.induce import lexical_summary_of
     from treewright.report.html import write_report
+    from treewright.report.segmentation import write_segment_report
+    from treewright.run_configs import is_segment_run
 
+    if is_segment_run(args.run):
+        given = [f"--{name.replace('_', '-')}" for name in ("gold", "text", "grammar", "decoder")
+                 if getattr(args, name) is not None]
+        if given:
+            raise InputError(f"{', '.join(given)}: for training runs; a segmentation run is "
+                             "scored against the gold its config names", path=args.run)
+        print(write_segment_report(args.run, args.out))
+        return 0
     try:
         lexical = lexical_summary_of(args.run)
     except InputError as err:  # the page still opens, and says what is missing
