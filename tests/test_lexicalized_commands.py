@@ -120,6 +120,39 @@ def test_parse_writes_words_and_heads_from_raw_text(trained, tmp_path):
     assert all(len(r) == 10 and all(r[c] == "_" for c in (2, 3, 4, 5, 7, 8, 9)) for r in rows)
 
 
+def test_export_to_conllu_writes_the_models_own_trees_and_heads(trained, tmp_path):
+    # `export RUN --to conllu` from a lexicalized run: HEAD is the model's (reference: decode
+    # heads called directly), the tree comment its best derivation over the written words,
+    # and --heads right reads the heads off that run's grammar trees by the rule instead.
+    run, data = trained
+    lines = (data / "test.txt").read_text(encoding="utf-8").splitlines()[:5]
+    text = tmp_path / "test.txt"
+    text.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    out = tmp_path / "out.conllu"
+    assert main(["export", str(run), "--to", "conllu", "--corpus", str(text),
+                 "--out", str(out)]) == 0
+    pred = conllu.parse(out.read_text(encoding="utf-8"))
+    words = [line.split() for line in lines]
+    assert [[t["form"] for t in s] for s in pred] == words
+    heads = [[t["head"] for t in s] for s in pred]
+    assert heads == _reference_heads(run, words)
+    assert all(s.metadata["head_rule"] == "lexicalized model" for s in pred)
+    # Each word's DEPREL is root exactly where its head is 0 (one root a sentence).
+    assert all([t["deprel"] for t in s] == ["root" if h == 0 else "dep" for h in hs]
+               and hs.count(0) == 1 for s, hs in zip(pred, heads))
+    loaded = load_lexicalized(run)
+    trees = [p.tree.to_string() for p in decode_heads(
+        loaded.model, loaded.vocab, words, loaded.nonterminals, loaded.preterminals)]
+    assert [s.metadata["induced_tree"] for s in pred] == trees
+    ruled = tmp_path / "ruled.conllu"
+    assert main(["export", str(run), "--to", "conllu", "--corpus", str(text), "--heads",
+                 "right", "--out", str(ruled)]) == 0
+    rule = conllu.parse(ruled.read_text(encoding="utf-8"))
+    assert all(s.metadata["head_rule"] == "right" for s in rule)
+    # Right-headed throughout: every word but the last depends on a word to its right.
+    assert all(t["head"] > t["id"] for s in rule for t in list(s)[:-1])
+
+
 def test_heads_out_refuses_a_model_without_heads(trained, tmp_path, capsys):
     run, data = trained
     out = tmp_path / "pred.conllu"

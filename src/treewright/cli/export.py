@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import math
 
 FORMATS = ("text", "json", "listing", "brackets", "conllu")
 
@@ -23,7 +24,9 @@ formats:
   conllu    the --corpus sentences as CoNLL-U, the induced preterminal of each word in the
             --tag-column column (XPOS by default), the tree in a '# induced_tree' comment,
             HEAD and DEPREL (root, else dep) read off the tree by the --heads rule; one
-            block per non-blank line, its '# sent_id' the input line number
+            block per non-blank line, its '# sent_id' the input line number. From a
+            lexicalized run folder (with --heads auto) the tree and heads are the model's
+            own best derivation ('# head_rule = lexicalized model')
 
 The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg). A
 segmentation run folder (treewright segment) exports as text (its segmentation, one input per
@@ -113,7 +116,9 @@ def run(args) -> int:
         text = format_listing(named, summarize(named, counts, threshold, top), threshold, top,
                               note)
     else:
-        parsed = parse_corpus(grammar, every_line, mapping, normalise)
+        lexicalized = _lexicalized(args) if args.to == "conllu" else None
+        parsed = parse_corpus(grammar, every_line, mapping, normalise) if lexicalized is None \
+            else _with_model_heads(lexicalized, every_line, mapping, normalise)
         unparsed = sum(1 for p in parsed if p.tree is None and not p.blank)
         if unparsed:
             print(f"{unparsed} of {len(lines)} sentences had no parse (kept in the output)",
@@ -129,6 +134,42 @@ def run(args) -> int:
     else:
         write_output_text(args.out, text)
     return 0
+
+
+def _lexicalized(args):
+    """The lexicalized model of a run folder whose heads --to conllu writes (--heads auto, the
+    default), else None."""
+    from treewright.induce import load_lexicalized, saved_config
+    from treewright.run_configs import config_kind
+    from treewright.runfolder import RunFolder
+
+    config = RunFolder(args.source).config
+    if args.heads != "auto" or not config.is_file() or config_kind(config) != "train" or \
+            saved_config(args.source).model.parameterization != "lexicalized":
+        return None
+    return load_lexicalized(args.source)
+
+
+def _with_model_heads(lexicalized, lines, mapping, normalise):
+    """The lexicalized model's best derivation of each line: its tree and the head of every
+    word (`decode.decode_heads`), as `ParsedSentence`s with their heads."""
+    from treewright.export.parses import ParsedSentence
+    from treewright.export.rename import rename_tree
+
+    words = [[normalise(x) for x in w] if normalise else list(w) for _, w in lines if w]
+    found = iter(lexicalized.parse(words) if words else [])
+    out = []
+    for line, written in lines:
+        if not written:
+            out.append(ParsedSentence(line, [], None, math.nan))
+            continue
+        p = next(found)
+        tree = None if p.tree is None else p.tree.with_leaves(written)
+        if tree is not None and mapping:
+            tree = rename_tree(tree, mapping)
+        out.append(ParsedSentence(line, list(written), tree, p.score,
+                                  list(p.heads) if p.tree is not None else None))
+    return out
 
 
 def _segmentation(args) -> int:

@@ -14,7 +14,8 @@ CoNLL-U output: one block per sentence, the 10 columns ID FORM LEMMA UPOS XPOS F
 DEPREL DEPS MISC. Filled are ID and FORM; the tag column the user picks (XPOS by default, or
 UPOS) with the label of the tree node right above each word: the induced preterminal (for a
 grammar whose nonterminals emit words, that nonterminal); HEAD, the dependency tree read off the
-induced tree by a head rule (`HeadRule`, `dependency_heads`); DEPREL, `root` for the word whose
+induced tree by a head rule (`HeadRule`, `dependency_heads`), or for a lexicalized model the
+heads of its own best derivation (`ParsedSentence.heads`); DEPREL, `root` for the word whose
 head is 0 and `dep` (the Universal Dependencies label for an unspecified relation) for every
 other word, since the grammar's symbols carry no relation names. LEMMA, FEATS, DEPS and MISC are
 `_`. Comments per sentence: `sent_id` (the input line number), `text` (the tokens joined by
@@ -54,6 +55,7 @@ NOPARSE = "NOPARSE"
 TAG_COLUMNS = ("XPOS", "UPOS")
 HEAD_RULES = ("auto", "left", "right")
 ROOT_RELATION = "root"
+MODEL_HEADS = "lexicalized model"   # the head_rule comment of heads a lexicalized model chose
 RELATION = "dep"
 _COLUMNS = ("ID", "FORM", "LEMMA", "UPOS", "XPOS", "FEATS", "HEAD", "DEPREL", "DEPS", "MISC")
 
@@ -61,11 +63,13 @@ _COLUMNS = ("ID", "FORM", "LEMMA", "UPOS", "XPOS", "FEATS", "HEAD", "DEPREL", "D
 @dataclass
 class ParsedSentence:
     """One input line: its line number, words, tree (None: no parse, or a blank line) and
-    log-probability (nan for a blank line)."""
+    log-probability (nan for a blank line); `heads`, when a lexicalized model gave them, the
+    1-based head of every word (0: the root), which `to_conllu` writes instead of the rule's."""
     line: int
     words: list[str]
     tree: Tree | None
     logprob: float
+    heads: list[int] | None = None
 
     @property
     def blank(self) -> bool:
@@ -202,9 +206,13 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
             heads: list[int | None] = [None] * len(p.words)
         else:
             lines.append(f"# induced_tree = {p.tree.to_string()}")
-            lines.append(f"# head_rule = {rule.name}")
+            if p.heads is not None:
+                lines.append(f"# head_rule = {MODEL_HEADS}")
+                heads = list(p.heads)
+            else:
+                lines.append(f"# head_rule = {rule.name}")
+                heads = list(dependency_heads(p.tree, rule))
             tags = induced_tags(p.tree)
-            heads = list(dependency_heads(p.tree, rule))
         for k, (word, tag, head) in enumerate(zip(p.words, tags, heads), start=1):
             row = [str(k), word] + ["_"] * 8
             row[where] = tag
