@@ -117,3 +117,20 @@ def test_the_report_of_a_morph_run_scores_the_split_written_words(tmp_path):
     assert "the 3 written words the corpus writes as two or more tokens" in words
     assert "every character 0.222 1.000 0.364" in words
     assert "Stem" in words and "Suffix" in words
+
+
+def test_a_report_without_its_input_says_so_and_still_opens(word_run, tmp_path):
+    run, text = word_run
+    moved = tmp_path / "run"
+    moved.mkdir()
+    for name in ("config.yaml", "metrics.jsonl", "chains.json", "segmentation.txt",
+                 "lexicon.tsv"):
+        (moved / name).write_bytes((run / name).read_bytes())
+    config = (moved / "config.yaml").read_text(encoding="utf-8")
+    (moved / "config.yaml").write_text(config.replace(str(text), str(tmp_path / "gone.txt")),
+                                       encoding="utf-8")
+    out = tmp_path / "page.html"
+    assert main(["report", str(moved), "--out", str(out)]) == 0
+    words = _page_text(out)
+    assert "gone.txt is not there to score against" in words
+    assert "Induced lexicon" in words and out.read_text().count("<svg") == 4

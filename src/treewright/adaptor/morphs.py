@@ -57,6 +57,14 @@ class WrittenWords:
         """The distinct written words, in order of first occurrence."""
         return list(dict.fromkeys("".join(m) for m in self.morphs))
 
+    def first_morphs(self) -> dict[str, list[str]]:
+        """Each distinct written word (in order of first occurrence) with the gold morphs of
+        its first occurrence: the inputs of a morph segmentation run and their gold."""
+        first: dict[str, list[str]] = {}
+        for m in self.morphs:
+            first.setdefault("".join(m), m)
+        return first
+
 
 def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] | None]]
                        ) -> list[list[str]]:

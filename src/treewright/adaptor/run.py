@@ -129,9 +129,7 @@ def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
     """The inputs, and with data.format conllu the written words they are the types of."""
     if cfg.data.format == "conllu":
         written = read_written_words(cfg.data.text)
-        first: dict[str, list[str]] = {}
-        for m in written.morphs:
-            first.setdefault("".join(m), m)
+        first = written.first_morphs()
         corpus = Utterances([list(t) for t in first], list(first.values()), [], 0)
         folder.note(f"read {len(written.morphs)} written words ({len(written.split)} split "
                     f"into tokens), {len(first)} distinct, from {written.sentences} sentences "

@@ -101,12 +101,13 @@ def _evaluation(cfg, folder: RunFolder, written: list[list[str]] | None) -> tupl
     if written is None:
         why = _missing("No segmentation.txt: the run has not finished.")
         return _section("scores", "Scores", why), _section("examples", "Examples", why)
+    if not Path(cfg.data.text).is_file():
+        why = _missing(f"The run's input {cfg.data.text} is not there to score against.")
+        return _section("scores", "Scores", why), _section("examples", "Examples", why)
     conllu = cfg.data.format == "conllu"
     if conllu:
         words = read_written_words(cfg.data.text)
-        first: dict[str, list[str]] = {}
-        for m in words.morphs:
-            first.setdefault("".join(m), m)
+        first = words.first_morphs()
         gold, inputs = list(first.values()), list(first)
     else:
         utterances = read_utterances(cfg.data.text)
