@@ -154,13 +154,19 @@ def test_morph_cuts_union_the_edges_of_stems_and_suffixes():
     assert morph_cuts(tree, [stem], list("abcab")) == ["ab", "cab"]
 
 
-def test_segment_job_in_morph_mode_writes_types_lexicon_and_split_word_scores(tmp_path):
-    path = tmp_path / "quay.conllu"
+def quay_config(folder: Path, sweeps: int) -> Path:
+    """A morph segmentation config over TOKENIZED, written into `folder` with it."""
+    path = folder / "quay.conllu"
     path.write_text(TOKENIZED, encoding="utf-8")
-    config = tmp_path / "morphs.yaml"
+    config = folder / "morphs.yaml"
     config.write_text(f"data:\n  text: {path}\n  format: conllu\ngrammar:\n  unit: morphs\n"
-                      f"sampler:\n  sweeps: 3\noutput:\n  stdout_metrics: false\n",
+                      f"sampler:\n  sweeps: {sweeps}\noutput:\n  stdout_metrics: false\n",
                       encoding="utf-8")
+    return config
+
+
+def test_segment_job_in_morph_mode_writes_types_lexicon_and_split_word_scores(tmp_path):
+    config = quay_config(tmp_path, 3)
     out = io.StringIO()
     result = segment_words(load_segment_config(config), tmp_path / "run", stream=out)
     lines = result.segmentation.read_text(encoding="utf-8").splitlines()

@@ -14,7 +14,7 @@ from treewright.adaptor.segment import read_utterances
 from treewright.cli import main
 from treewright.evaluation import evaluate_segmentation
 
-from test_adaptor_morphs import TOKENIZED
+from test_adaptor_morphs import quay_config
 
 REPO = Path(__file__).resolve().parents[1]
 OSTRELI = REPO / "src/treewright/data/examples/ostreli.txt"
@@ -102,12 +102,7 @@ def test_the_report_scores_the_segmentation_and_shows_curves_and_lexicon(word_ru
 
 
 def test_the_report_of_a_morph_run_scores_the_split_written_words(tmp_path):
-    conllu = tmp_path / "quay.conllu"
-    conllu.write_text(TOKENIZED, encoding="utf-8")
-    config = tmp_path / "morphs.yaml"
-    config.write_text(f"data:\n  text: {conllu}\n  format: conllu\ngrammar:\n  unit: morphs\n"
-                      f"sampler:\n  sweeps: 2\noutput:\n  stdout_metrics: false\n",
-                      encoding="utf-8")
+    config = quay_config(tmp_path, 2)
     assert main(["segment", str(config), f"output.run_dir={tmp_path / 'run'}"]) == 0
     out = tmp_path / "page.html"
     assert main(["report", str(tmp_path / "run"), "--out", str(out)]) == 0
