@@ -71,6 +71,9 @@ def test_other_formats_and_unfinished_runs_are_refused(word_run, tmp_path, capsy
     assert "no segmentation.txt: not a finished segmentation run" in capsys.readouterr().err
     assert main(["report", str(run), "--gold", "x.trees"]) == 1
     assert "--gold: for training runs" in capsys.readouterr().err
+    # Commands that read a grammar say what a segmentation run is read by.
+    assert main(["inspect", str(run)]) == 1
+    assert "a segmentation run (treewright segment) has no grammar" in capsys.readouterr().err
 
 
 def test_the_report_scores_the_segmentation_and_shows_curves_and_lexicon(word_run, tmp_path):

@@ -46,6 +46,10 @@ def resolve_grammar_path(path: str | Path) -> tuple[Path, Path | None]:
     if path.is_dir():
         grammar_path = RunFolder(path).grammar
         if not grammar_path.is_file():
+            if RunFolder(path, "segment").checkpoint.is_file():
+                raise InputError("a segmentation run (treewright segment) has no grammar; "
+                                 "treewright report and treewright export --to json|text "
+                                 "read it", path=str(path))
             raise InputError(f"a run folder must hold {GRAMMAR} (the run has not finished, "
                              "or this is not a run folder)", path=str(path))
         return grammar_path, path
