@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import math
 
 FORMATS = ("text", "json", "listing", "brackets", "conllu")
 
@@ -71,9 +70,8 @@ def run(args) -> int:
     from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
                                            format_listing, summarize)
     from treewright.export.parses import head_rule, parse_corpus, to_brackets, to_conllu
-    from treewright.safeio import write_output_text
-
     from treewright.run_configs import is_segment_run
+    from treewright.safeio import write_output_text
 
     if is_segment_run(args.source):
         return _segmentation(args)
@@ -117,8 +115,10 @@ def run(args) -> int:
                               note)
     else:
         lexicalized = _lexicalized(args) if args.to == "conllu" else None
-        parsed = parse_corpus(grammar, every_line, mapping, normalise) if lexicalized is None \
-            else _with_model_heads(lexicalized, every_line, mapping, normalise)
+        decoder = None if lexicalized is None else (
+            lambda words: [(p.tree, p.score, p.heads if p.tree is not None else None)
+                           for p in lexicalized.parse(words)])
+        parsed = parse_corpus(grammar, every_line, mapping, normalise, decoder)
         unparsed = sum(1 for p in parsed if p.tree is None and not p.blank)
         if unparsed:
             print(f"{unparsed} of {len(lines)} sentences had no parse (kept in the output)",
@@ -148,28 +148,6 @@ def _lexicalized(args):
             saved_config(args.source).model.parameterization != "lexicalized":
         return None
     return load_lexicalized(args.source)
-
-
-def _with_model_heads(lexicalized, lines, mapping, normalise):
-    """The lexicalized model's best derivation of each line: its tree and the head of every
-    word (`decode.decode_heads`), as `ParsedSentence`s with their heads."""
-    from treewright.export.parses import ParsedSentence
-    from treewright.export.rename import rename_tree
-
-    words = [[normalise(x) for x in w] if normalise else list(w) for _, w in lines if w]
-    found = iter(lexicalized.parse(words) if words else [])
-    out = []
-    for line, written in lines:
-        if not written:
-            out.append(ParsedSentence(line, [], None, math.nan))
-            continue
-        p = next(found)
-        tree = None if p.tree is None else p.tree.with_leaves(written)
-        if tree is not None and mapping:
-            tree = rename_tree(tree, mapping)
-        out.append(ParsedSentence(line, list(written), tree, p.score,
-                                  list(p.heads) if p.tree is not None else None))
-    return out
 
 
 def _segmentation(args) -> int:

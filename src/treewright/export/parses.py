@@ -76,26 +76,37 @@ class ParsedSentence:
         return not self.words
 
 
-def parse_corpus(grammar: Grammar, lines: Sequence[tuple[int, list[str]]],
+def parse_corpus(grammar: Grammar | None, lines: Sequence[tuple[int, list[str]]],
                  mapping: dict[str, str] | None = None,
-                 normalise: Callable[[str], str] | None = None) -> list[ParsedSentence]:
+                 normalise: Callable[[str], str] | None = None,
+                 decoder: Callable[[list[list[str]]], list[tuple[Tree | None, float,
+                                                                  list[int] | None]]]
+                 | None = None) -> list[ParsedSentence]:
     """Viterbi trees of (line number, words) pairs, labels renamed by `mapping` if given. A
     pair with no words (a blank line) is kept, unparsed (see the module docstring).
 
     normalise: applied to each word before it is looked up in the grammar (as the training
-    corpus was normalised, e.g. lowercased); the trees keep the words as written."""
+    corpus was normalised, e.g. lowercased); the trees keep the words as written.
+    decoder: instead of the grammar's Viterbi trees, (tree, log-probability, heads) of each
+    non-blank sentence's looked-up words, in order (a lexicalized model's best derivations,
+    heads None when it has no parse)."""
     from treewright.export.rename import rename_tree
 
     lookup = [[normalise(x) for x in w] if normalise else list(w) for _, w in lines if w]
-    found = iter(viterbi_parse(grammar, lookup) if lookup else [])
-    results = [next(found) if words else (None, math.nan) for _, words in lines]
+    if decoder is None:
+        decoded = [(tree, logp, None) for tree, logp in viterbi_parse(grammar, lookup)] \
+            if lookup else []
+    else:
+        decoded = decoder(lookup) if lookup else []
+    found = iter(decoded)
+    results = [next(found) if words else (None, math.nan, None) for _, words in lines]
     out = []
-    for (line, words), (tree, logp) in zip(lines, results):
+    for (line, words), (tree, logp, heads) in zip(lines, results):
         if tree is not None and normalise:
             tree = tree.with_leaves(words)
         if tree is not None and mapping:
             tree = rename_tree(tree, mapping)
-        out.append(ParsedSentence(line, list(words), tree, logp))
+        out.append(ParsedSentence(line, list(words), tree, logp, heads))
     return out
 
 

@@ -40,6 +40,18 @@ def read_lexicon(path: str | Path) -> list[tuple[str, str, int, int]]:
     return out
 
 
+def checkpoint_progress(folder: RunFolder) -> tuple[int, int]:
+    """(sweeps done, analyses the segmentation pools) from a segment run's checkpoint."""
+    try:
+        state = json.loads(folder.checkpoint.read_text(encoding="utf-8"))
+        return state["chains"]["chains"][0]["sweeps"], state.get("boundaries", {}).get(
+            "samples", 0)
+    except (json.JSONDecodeError, UnicodeDecodeError, AttributeError, KeyError, IndexError,
+            TypeError):
+        raise InputError("not a checkpoint of a segmentation run",
+                         path=str(folder.checkpoint)) from None
+
+
 def segmentation_json_text(run_dir: str | Path) -> str:
     """The JSON export of the finished segmentation run in `run_dir`."""
     folder = RunFolder(run_dir, "segment")
@@ -47,17 +59,14 @@ def segmentation_json_text(run_dir: str | Path) -> str:
         if not path.is_file():
             raise InputError(f"no {path.name}: not a finished segmentation run",
                              path=str(folder.path))
+    sweeps, pooled = checkpoint_progress(folder)
     try:
         config = yaml.safe_load(folder.config.read_text(encoding="utf-8"))
-        state = json.loads(folder.checkpoint.read_text(encoding="utf-8"))
-        sweeps = state["chains"]["chains"][0]["sweeps"]
-        pooled = state.get("boundaries", {}).get("samples", 0)
         unit = config.get("grammar", {}).get("unit", "words")
         source = config["data"]["text"]
-    except (yaml.YAMLError, json.JSONDecodeError, UnicodeDecodeError, AttributeError,
-            KeyError, IndexError, TypeError):
-        raise InputError("the config or checkpoint of this segmentation run cannot be read",
-                         path=str(folder.path)) from None
+    except (yaml.YAMLError, UnicodeDecodeError, AttributeError, KeyError, TypeError):
+        raise InputError("the config of this segmentation run cannot be read",
+                         path=str(folder.config)) from None
     segmentation = [line.split() for line in
                     folder.segmentation.read_text(encoding="utf-8").splitlines()]
     lexicon = [{"symbol": s, "unit": t, "customers": c, "tables": k}

@@ -11,11 +11,10 @@ what is missing, and every figure is inline SVG.
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 from treewright.errors import InputError
-from treewright.export.segmentation import read_lexicon
+from treewright.export.segmentation import checkpoint_progress, read_lexicon
 from treewright.report.html import STYLE, _missing, _number, _section, read_metrics
 from treewright.report.svg import esc, line_chart
 from treewright.runfolder import RunFolder
@@ -156,14 +155,7 @@ def build_segment_report(run_dir: str | Path) -> str:
                    folder.segmentation.read_text(encoding="utf-8").splitlines()]
     pooled = "the segmentation is the reported chain's last state"
     if folder.checkpoint.is_file():
-        try:
-            state = json.loads(folder.checkpoint.read_text(encoding="utf-8"))
-            samples = state.get("boundaries", {}).get("samples", 0)
-            sweeps = state["chains"]["chains"][0]["sweeps"]
-        except (json.JSONDecodeError, UnicodeDecodeError, AttributeError, KeyError, IndexError,
-                TypeError):
-            raise InputError("not a checkpoint of a segmentation run",
-                             path=str(folder.checkpoint)) from None
+        sweeps, samples = checkpoint_progress(folder)
         if samples:
             pooled = (f"the segmentation cuts where more than half of {samples} recorded "
                       f"analyses (every chain's late sweeps) cut")
