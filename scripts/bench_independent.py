@@ -98,21 +98,16 @@ def vm_hwm_mib() -> float:
 TARGET_SENTENCES = 10_000  # the issue's epoch: 10,000 sentences of up to 30 words
 
 
-def epoch(nt: int, t: int, sentences: int, max_length: int, vocab: int, batch_size: int,
-          parse: bool = False) -> dict:
-    """One gradient-training epoch, timed as the module docstring says; its figures. With
-    `parse`, then the same sentences decoded by the trained model (`decode.decode_factored`)."""
-    rng = random.Random(0)
-    corpus = [[rng.randrange(vocab) for _ in range(rng.randint(1, max_length))]
-              for _ in range(sentences)]
+def train_epoch(model, corpus: list[list[int]], batch_size: int) -> dict:
+    """One gradient-training epoch of `model` over `corpus` (word ids), timed as the module
+    docstring says; its figures."""
     groups = length_batches([len(s) for s in corpus], batch_size)
     batches = [make_batch(g, corpus, None, torch.float32) for g in groups]
-    model = IndependentParams(nt, t, vocab, generator=torch.Generator().manual_seed(0))
     optimizer = torch.optim.Adam(model.parameters(), lr=0.01, betas=(0.75, 0.999))
-    progress(f"epoch: {sentences} sentences in {len(batches)} batches, NT={nt} T={t} V={vocab}")
+    progress(f"epoch: {len(corpus)} sentences in {len(batches)} batches")
     start, start_cpu = time.perf_counter(), time.process_time()
     loglik, words = 0.0, 0
-    with terminal_progress(sentences, "epoch") as bar:
+    with terminal_progress(len(corpus), "epoch") as bar:
         for batch in batches:
             logz, _ = model.log_partition(batch.ids, batch.lengths, batch.span_pot)   # (B,)
             parsed = torch.isfinite(logz)  # one word under preterminal-only emission: no parse
@@ -126,50 +121,92 @@ def epoch(nt: int, t: int, sentences: int, max_length: int, vocab: int, batch_si
             words += n_words
             bar.update(len(batch.lengths))
     seconds = time.perf_counter() - start
-    cpu_seconds = time.process_time() - start_cpu
-    decoding = decode_after(model, corpus, nt, t, vocab, seconds) if parse else {}
-    return {**decoding, "sentences": sentences, "words": sum(map(len, corpus)), "batches": len(batches),
-            "max_length": max_length, "vocab": vocab, "epoch_s": seconds,
-            "epoch_cpu_s": cpu_seconds,
-            "sent_per_s": sentences / seconds, "loglik_per_word": loglik / max(words, 1),
-            "peak_mib": vm_hwm_mib(),
-            "extrapolated_epoch_s": None if sentences >= TARGET_SENTENCES
-            else seconds * TARGET_SENTENCES / sentences}
+    return {"sentences": len(corpus), "words": sum(map(len, corpus)), "batches": len(batches),
+            "epoch_s": seconds, "epoch_cpu_s": time.process_time() - start_cpu,
+            "sent_per_s": len(corpus) / seconds, "loglik_per_word": loglik / max(words, 1),
+            "extrapolated_epoch_s": None if len(corpus) >= TARGET_SENTENCES
+            else seconds * TARGET_SENTENCES / len(corpus)}
+
+
+def epoch(nt: int, t: int, sentences: int, max_length: int, vocab: int, batch_size: int,
+          parse: bool = False) -> dict:
+    """One gradient-training epoch on random sentences, timed as the module docstring says; its
+    figures. With `parse`, then the same sentences decoded by the trained model
+    (`decode.decode_factored`)."""
+    from treewright.params.tabular import symbol_names
+    from treewright.vocab import Vocabulary
+    rng = random.Random(0)
+    corpus = [[rng.randrange(vocab) for _ in range(rng.randint(1, max_length))]
+              for _ in range(sentences)]
+    model = IndependentParams(nt, t, vocab, generator=torch.Generator().manual_seed(0))
+    progress(f"NT={nt} T={t} V={vocab}")
+    figures = train_epoch(model, corpus, batch_size)
+    if parse:
+        names = Vocabulary([f"w{i}" for i in range(vocab)], unk=None)
+        with torch.no_grad():
+            rules = model.rules()
+        figures.update(decode_after(rules, names, *symbol_names(nt, t),
+                                    [[f"w{i}" for i in s] for s in corpus], figures["epoch_s"]))
+    return {**figures, "max_length": max_length, "vocab": vocab, "peak_mib": vm_hwm_mib()}
+
+
+def trained_run(run_dir: str, text: str, sentences: int, max_length: int,
+                batch_size: int) -> dict:
+    """`--run`: the first `sentences` lines of `text` of at most `max_length` words, all in the
+    run's vocabulary, decoded by the run's trained model (`induce.load_factored`) with mbr and
+    max-rule-product, against a training epoch of a model of the same sizes on the same
+    sentences (a pass costs the same whatever the rules' values); the figures of both."""
+    from treewright.induce import load_factored
+    run = load_factored(run_dir)
+    if run is None:
+        raise SystemExit(f"{run_dir}: not a finished run of factored rules that kept its last "
+                         "restart")
+    text_sentences = []
+    with open(text, encoding="utf-8") as lines:
+        for line in lines:
+            words = line.split()
+            if 1 <= len(words) <= max_length and all(w in run.vocab for w in words):
+                text_sentences.append(words)
+                if len(text_sentences) == sentences:
+                    break
+    corpus = [run.vocab.encode(s) for s in text_sentences]
+    nt, t = len(run.nonterminals), len(run.preterminals)
+    model = IndependentParams(nt, t, len(run.vocab), generator=torch.Generator().manual_seed(0))
+    progress(f"{run_dir}: NT={nt} T={t} V={len(run.vocab)}")
+    figures = train_epoch(model, corpus, batch_size)
+    figures.update(decode_after(run.rules, run.vocab, run.nonterminals, run.preterminals,
+                                text_sentences, figures["epoch_s"]))
+    return {**figures, "nt": nt, "t": t, "run": str(run_dir), "text": str(text),
+            "max_length": max_length,
+            "vocab": len(run.vocab), "peak_mib": vm_hwm_mib()}
 
 
 PARSE_BATCH = 16  # `treewright parse`'s batch size
 
 
-def decode_after(model, corpus: list[list[int]], nt: int, t: int, vocab: int,
-                 epoch_s: float) -> dict:
-    """`parse` with MBR, then with max-rule-product, on the trained model
-    (`decode.decode_factored`, batches of `PARSE_BATCH` in the model's float32), each timed as
+def decode_after(rules, vocab, nonterminals: list[str], preterminals: list[str],
+                 text: list[list[str]], epoch_s: float) -> dict:
+    """`parse` with MBR, then with max-rule-product, on trained `rules`
+    (`decode.decode_factored`, batches of `PARSE_BATCH` in the rules' dtype), each timed as
     the epoch is, and its rate against the epoch's (issue 24: at least 0.5). Keys `parse_*`
     for mbr, `mrp_*` for max-rule-product (`mrp_refused`, the message, where the posteriors
     are too flat for it)."""
     from treewright.decode import decode_factored
     from treewright.errors import InputError
-    from treewright.params.tabular import symbol_names
-    from treewright.vocab import Vocabulary
 
-    names = Vocabulary([f"w{i}" for i in range(vocab)], unk=None)
-    text = [[f"w{i}" for i in s] for s in corpus]
-    nonterminals, preterminals = symbol_names(nt, t)
-    with torch.no_grad():
-        rules = model.rules()
     figures = {}
     for decoder, key in (("mbr", "parse"), ("max-rule-product", "mrp")):
-        progress(f"parse: the same {len(corpus)} sentences, {decoder}, batches of {PARSE_BATCH}")
+        progress(f"parse: the same {len(text)} sentences, {decoder}, batches of {PARSE_BATCH}")
         start, start_cpu = time.perf_counter(), time.process_time()
         try:
-            decoded = decode_factored(rules, names, nonterminals, preterminals, text,
+            decoded = decode_factored(rules, vocab, nonterminals, preterminals, text,
                                       PARSE_BATCH, decoder)
         except InputError as err:   # max-rule-product: posteriors too flat for its item pass
             figures[f"{key}_refused"] = str(err)
             continue
         seconds = time.perf_counter() - start
         figures.update({f"{key}_s": seconds, f"{key}_cpu_s": time.process_time() - start_cpu,
-                        f"{key}_sent_per_s": len(corpus) / seconds,
+                        f"{key}_sent_per_s": len(text) / seconds,
                         f"{key}_ratio": epoch_s / seconds,
                         f"{key}_parsed": sum(d.tree is not None for d in decoded)})
     figures["parsed"] = figures.pop("parse_parsed")
@@ -179,6 +216,9 @@ def decode_after(model, corpus: list[list[int]], nt: int, t: int, vocab: int,
 def print_epoch(r: dict) -> None:
     print(f"independent productions, training epoch, {r['date']}, torch {r['torch']}, "
           f"{r['threads']} threads")
+    if "run" in r:
+        print(f"decoding with the trained model of {r['run']}, on {r['text']}; the epoch trains "
+              "a fresh model of the same sizes on the same sentences")
     print(f"NT={r['nt']} T={r['t']} V={r['vocab']}: {r['sentences']} sentences of 1-"
           f"{r['max_length']} words ({r['words']} words) in {r['batches']} batches of <= "
           f"{r['batch']}: {r['epoch_s']:.1f} s ({r['sent_per_s']:.1f} sent/s; CPU time "
@@ -221,10 +261,17 @@ def main(argv: list[str] | None = None) -> dict:
     parser.add_argument("--vocab", type=int, default=5_000)
     parser.add_argument("--parse", action="store_true",
                         help="with --epoch: then decode the same sentences with mbr")
+    parser.add_argument("--run", default=None,
+                        help="with --epoch --parse: decode with this trained run's model "
+                             "(a run folder of independent productions) instead")
+    parser.add_argument("--text", default=None,
+                        help="with --run: the sentences (one a line, words split by spaces)")
     parser.add_argument("--probe", nargs="*", default=None, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.sentences < 1 or args.max_length < 1 or args.vocab < 1:
         parser.error("--sentences, --max-length and --vocab must be at least 1")
+    if (args.run is None) != (args.text is None) or (args.run and not args.epoch):
+        parser.error("--run and --text go together, with --epoch")
     if args.threads is not None:
         torch.set_num_threads(args.threads)
     if args.probe is not None:  # subprocess body: one forward+backward, then the peak
@@ -241,9 +288,14 @@ def main(argv: list[str] | None = None) -> dict:
     if args.epoch:
         result = {"date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M"),
                   "torch": torch.__version__, "threads": torch.get_num_threads(),
-                  "nt": args.nt, "t": args.t, "batch": args.batch,
-                  **epoch(args.nt, args.t, args.sentences, args.max_length, args.vocab,
-                          args.batch, args.parse)}
+                  "nt": args.nt, "t": args.t, "batch": args.batch}
+        if args.run:
+            figures = trained_run(args.run, args.text, args.sentences, args.max_length,
+                                  args.batch)
+        else:
+            figures = epoch(args.nt, args.t, args.sentences, args.max_length, args.vocab,
+                            args.batch, args.parse)
+        result.update(figures)
         print_epoch(result)
         if args.json:
             with open(args.json, "w") as out:

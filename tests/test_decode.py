@@ -594,16 +594,52 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
         path == "items" or nats_per_word == 0.01)
 
 
-@pytest.mark.parametrize("decoder", ["mbr", "max-rule-product"])
+@pytest.mark.parametrize("dense", [0.0, 0.2, 1.0])
+@pytest.mark.parametrize("depth", [1, 3, 64])
+@pytest.mark.parametrize("dtype", [torch.float64, torch.float32])
+def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense):
+    # Reference: brute force, max over every column of values[m, k] + weights[r, k] (and its
+    # first arg max). The rows mix peaked and flat ones, rows that are -inf throughout or in
+    # places, weights of probability zero, and exact ties between two columns (the first
+    # wins); `dense` 0 sends every chunk after the first through every column, 1 never.
+    monkeypatch.setattr(decode_module, "MAX_PLUS_CHUNK", 2 ** 9)
+    monkeypatch.setattr(decode_module, "MAX_PLUS_DENSE", dense)
+    gen = torch.Generator().manual_seed(11)
+    M, R, K = 40, 7, 12
+    values = torch.randn(M, K, generator=gen, dtype=torch.float64) * \
+        torch.linspace(0.1, 12.0, M, dtype=torch.float64)[:, None]
+    values[3] = -math.inf
+    values[5, ::2] = -math.inf
+    values[8, 1:] = -math.inf
+    values[10, 9] = values[10, 4] = values[10].max() + 1.0            # a tie, columns 4 and 9
+    weights = torch.log_softmax(torch.randn(R, K, generator=gen, dtype=torch.float64) * 3, -1)
+    weights[2, 4] = -math.inf
+    weights[:, 9] = weights[:, 4]
+    values, weights = values.to(dtype), weights.to(dtype)
+    want, want_at = (values[:, None, :] + weights[None]).max(-1)
+    got, got_at = decode_module._max_plus(values, decode_module._MaxPlusWeights(weights), depth)
+    assert torch.equal(got, want)
+    finite = torch.isfinite(want)
+    assert torch.equal(got_at[finite], want_at[finite])
+    assert int(got_at[10, 0]) == 4 and int(want_at[10, 0]) == 4
+
+
+@pytest.mark.parametrize("decoder,depth", [("mbr", None), ("max-rule-product", 16),
+                                           ("max-rule-product", 2)])
 @pytest.mark.parametrize("kind", ["independent", "lowrank"])
-def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(kind, decoder):
+def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch, kind, decoder,
+                                                                      depth):
     # Reference: decode(..., decoder) on the Grammar of the dense rules the factors imply (both
     # decoders are checked against enumeration above): the same trees, log-likelihoods,
     # objectives (expected numbers of correct spans; log rule-posterior products) and tree
     # log-probabilities; a one-word sentence (no parse in the induction layout) and one with
     # an unknown word get no tree from either. The factored max-rule-product is the item pass
-    # alone, under a known tree's floor (`_max_rule_product_factored`).
+    # alone, under a known tree's floor (`_max_rule_product_factored`) for low-rank rules, and
+    # the chart pass of `_max_rule_product_independent` for independent productions (with 2
+    # candidate columns its bounds leave some entries to the pass over every column).
     from treewright.params import IndependentParams, LowRankParams
+    if depth is not None:
+        monkeypatch.setattr(decode_module, "MAX_PLUS_TOP", depth)
     from treewright.params.tabular import rules_to_grammar, symbol_names
     gen = torch.Generator().manual_seed(4)
     if kind == "independent":
@@ -636,13 +672,15 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(kind, decod
         assert g.tree_logprob == pytest.approx(w.tree_logprob, abs=1e-9)
 
 
-def test_factored_max_rule_product_in_float32_finds_the_float64_trees():
+@pytest.mark.parametrize("depth", [16, 2])
+def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatch, depth):
     # Reference: decode(..., "max-rule-product") in float64 on the implied dense grammar
     # (checked against enumeration above). Runs of factored rules decode in their float32; the
     # bound and the known tree's floor then leave room for float32 rounding (`_slack`), so
     # every parsed sentence still gets its tree, the same one here (no near-ties), with the
     # objective equal to float32 precision.
     from treewright.params import IndependentParams
+    monkeypatch.setattr(decode_module, "MAX_PLUS_TOP", depth)
     from treewright.params.tabular import rules_to_grammar, symbol_names
     model = IndependentParams(6, 8, 6, init_scale=3.0,
                               generator=torch.Generator().manual_seed(8), dtype=torch.float32)
@@ -664,15 +702,16 @@ def test_factored_max_rule_product_in_float32_finds_the_float64_trees():
         assert g.score == pytest.approx(w.score, rel=1e-4, abs=1e-4)
 
 
-def test_factored_max_rule_product_refuses_posteriors_too_flat_for_it(monkeypatch):
-    # Common practice (a clear refusal rather than the system's out-of-memory killer): factored
+def test_lowrank_max_rule_product_refuses_posteriors_too_flat_for_it(monkeypatch):
+    # Common practice (a clear refusal rather than the system's out-of-memory killer): low-rank
     # rules have no pass over the whole chart, so a sentence whose posteriors leave more
     # anchored rules than the item pass takes is refused with the count and the way out.
+    # (Independent productions have one: `_max_rule_product_independent`, tested above.)
     from treewright.errors import InputError
-    from treewright.params import IndependentParams
+    from treewright.params import LowRankParams
     from treewright.params.tabular import symbol_names
-    model = IndependentParams(3, 4, 4, generator=torch.Generator().manual_seed(2),
-                              dtype=torch.float64)
+    model = LowRankParams(3, 4, 4, 5, dim=8, blocks=1, generator=torch.Generator().manual_seed(2),
+                          dtype=torch.float64)
     with torch.no_grad():
         rules = model.rules()
     vocab = Vocabulary([f"w{i}" for i in range(4)], unk=None)

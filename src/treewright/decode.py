@@ -49,6 +49,7 @@ from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
 from treewright.errors import InputError
 from treewright.inference import encode, encode_ids, pad_ids, spans_to_tree
+from treewright.params.independent import IndependentRules
 from treewright.params.lexicalized import LexicalizedParams
 from treewright.trees import Tree, tree_from_spans
 from treewright.vocab import Vocabulary
@@ -479,6 +480,193 @@ def _max_rule_product_factored(tables: engine.SpanTables, lengths: Sequence[int]
     # Rounding beyond the slack could leave a parsed sentence without its tree: keep all.
     redo = (torch.isfinite(tables.logz) & torch.isneginf(values)).nonzero().flatten()
     return _decode_again(None, tables, lengths, lay, results, redo, lowest, coarse_log, bound)
+
+
+MAX_PLUS_CHUNK = 2 ** 22  # elements of the largest temporary of `_max_plus`
+MAX_PLUS_TOP = 16         # candidate columns per value row of `_max_plus`
+MAX_PLUS_DENSE = 0.2      # share of entries left unsettled above which `_max_plus` goes dense
+
+
+class _MaxPlusWeights:
+    """The weights of `_max_plus`, (R, K) in log space, laid out for its bounds: transposed
+    (columns as rows, for gathering candidates), each row's maximum, and in probability space
+    (for the bound by mass)."""
+
+    def __init__(self, weights: Tensor):
+        self.log = weights
+        self.by_column = weights.t().contiguous()                       # (K, R)
+        self.row_max = weights.max(-1).values                           # (R,)
+        self.prob_t = weights.exp().t().contiguous()                    # (K, R)
+
+
+def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> tuple[Tensor, Tensor]:
+    """(M, R) max_k values[m, k] + weights[r, k] and its first arg max, for `values` (M, K)
+    and `weights` (R, K), weights at most 0 (log-probabilities): a matrix product in the
+    max-plus semiring, exactly, but mostly over the `d` largest columns of each value row.
+    Rows of `values` that are -inf throughout give -inf (and index 0) without being computed.
+
+    Two bounds on every other column k of an entry (m, r): values[m, k] + weights[r, k] is at
+    most the value row's (d+1)-th largest plus the weight row's largest (the threshold test of
+    Fagin, Lotem & Naor 2003, "Optimal aggregation algorithms for middleware", at depth d on
+    one side), and at most the log of the sum of exp(values[m, k] + weights[r, k]) over all
+    such k (the mass left out: one matrix product over every column, each value row shifted by
+    its maximum, with the candidates' columns set to zero; with room for the product's
+    rounding, at most (K + 2) units of the last place of the sum, and for terms that underflow,
+    each below the dtype's smallest normal number). Where the best candidate is above the lower bound, no
+    other column reaches it, and with the candidates in column order it is the maximum and its
+    first arg max; the entries where it is not are computed over every column. Temporaries in
+    chunks of at most `MAX_PLUS_CHUNK` elements."""
+    M, R = values.shape[0], weights.log.shape[0]
+    K = values.shape[1]
+    best = torch.full((M, R), NEG_INF, dtype=values.dtype)
+    arg = torch.zeros((M, R), dtype=torch.long)
+    rows = torch.isfinite(values).any(-1).nonzero().flatten()
+    d = min(d, K)
+    info = torch.finfo(values.dtype)
+    rounding, lost = (K + 2) * info.eps, K * info.tiny
+    chunk = max(1, MAX_PLUS_CHUNK // (R * max(d, K // 16)))
+    dense_chunk = max(1, MAX_PLUS_CHUNK // (R * K))
+    dense = False
+    r0 = 0
+    while r0 < len(rows):
+        if dense:        # flat rows: every column of every entry, as the last chunk needed
+            at = rows[r0:r0 + dense_chunk]
+            best[at], arg[at] = (values[at, None, :] + weights.log[None]).max(-1)
+            r0 += len(at)
+            continue
+        at = rows[r0:r0 + chunk]
+        r0 += len(at)
+        own = values[at]                                                # (c, K)
+        v_top, v_at = own.topk(min(d + 1, K), -1)
+        v_next = v_top[:, d] if d < K else torch.full_like(v_top[:, 0], NEG_INF)
+        shift = v_top[:, :1]
+        v_at, order = v_at[:, :d].sort(-1)                              # candidates by column
+        v_top = v_top[:, :d].gather(1, order)
+        cand = weights.by_column[v_at] + v_top[..., None]               # (c, d, R)
+        value, which = cand.max(1)                                      # (c, R); first max
+        best[at], arg[at] = value, v_at.gather(1, which)
+        threshold = v_next[:, None] + weights.row_max[None, :]
+        left_out = (own - shift).exp().scatter_(1, v_at, 0.0)           # (c, K)
+        rest = left_out @ weights.prob_t                                # (c, R)
+        rest = rest + rounding * rest + lost
+        room = 8 * info.eps * (shift.abs() + value.abs() + 1)     # the sums' and log's rounding
+        mass = rest.log() + shift + room
+        settled = (value > torch.minimum(threshold, mass)) | torch.isneginf(threshold)
+        rm, rr = (~settled).nonzero().unbind(1)
+        if len(rm) > MAX_PLUS_DENSE * value.numel():
+            dense = True
+            r0 -= len(at)
+            continue
+        step = max(1, MAX_PLUS_CHUNK // K)
+        for f0 in range(0, len(rm), step):
+            fm, fr = rm[f0:f0 + step], rr[f0:f0 + step]
+            best[at[fm], fr], arg[at[fm], fr] = (own[fm] + weights.log[fr]).max(-1)
+    return best, arg
+
+
+class _IndependentFactors:
+    """The factors of independent productions as `_max_plus` reads them, made once for every
+    batch: (left, right) over preterminal children (`words`) and over nonterminal ones
+    (`spans`)."""
+
+    def __init__(self, rules: IndependentRules, nt: int, dtype: torch.dtype):
+        left, right = rules.left.to(dtype), rules.right.to(dtype)
+        self.words = (_MaxPlusWeights(left[:, nt:]), _MaxPlusWeights(right[:, nt:]))
+        self.spans = (_MaxPlusWeights(left[:, :nt]), _MaxPlusWeights(right[:, :nt]))
+
+
+def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTables,
+                                  lengths: Sequence[int], symbols: Sequence[str], nt: int,
+                                  factors: _IndependentFactors | None = None
+                                  ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
+    """`max_rule_product` on independent productions (`params.IndependentRules`: p(A -> B C)
+    = p(B | A, left) p(C | A, right); Liu, Yang, Kim & Tu 2023), exactly, by a chart pass whose
+    cost does not grow with the split: O(n^2 NT S) per sentence rather than the O(n^3 NT S^2)
+    anchored rules of the item pass, and no pruning, so a model whose posteriors rule nothing
+    out (thousands of symbols) decodes as well as a trained small one.
+
+    The anchored rule posterior (Petrov & Klein 2007, section 3; every symbol its own coarse
+    symbol) factors: q(A -> B C, i, k, j) = O(A, i, j) p(B | A, left) I(B, i, k) p(C | A,
+    right) I(C, k, j) (O the outside score over Z). So the best score of a subtree with A over
+    (i, j), its own incoming factor left out, is
+
+        best(A, i, j) = O(A, i, j) max_k L(A, i, k) R(A, k, j),
+        L(A, i, k) = max_B p(B | A, left) I(B, i, k) best(B, i, k),  R likewise on the right,
+
+    with best(T, i, i+1) the word's label posterior, and the tree's score is max_A mu(A, 0, n)
+    best(A, 0, n) (the top label's posterior). L and R are max-plus products of a span's
+    vector with the factor matrices, once per span and side (`_max_plus`), not once per split.
+    Ties go to the first split, then the first child symbol, as in the item pass. Returns, per
+    sentence, the labeled spans (start, end, symbol name; words included) and the log score,
+    or None for a sentence without a parse. `factors`: `_IndependentFactors(rules, nt, dtype)`,
+    made here when not given (a caller decoding many batches makes it once)."""
+    B, N1, _, S = tables.marginals.shape
+    dtype = tables.marginals.dtype
+
+    def inside(b, i, w, x):      # log scores of the cells read, from the chart's scaled ones
+        return engine.log_unscaled(tables.scaled_inside[b, i, w, x], tables.scale[b, i, w, None])
+
+    def outside(i, w):
+        return engine.log_unscaled(tables.scaled_outside[:, i, w], -tables.scale[:, i, w, None])
+
+    N = N1 - 1
+    factors = _IndependentFactors(rules, nt, dtype) if factors is None else factors
+    # Per finished span and parent: the best left-child and right-child factor and its child.
+    shape = (B, N1, N1, nt)
+    lv, rv = torch.full(shape, NEG_INF, dtype=dtype), torch.full(shape, NEG_INF, dtype=dtype)
+    lc, rc = torch.zeros(shape, dtype=torch.long), torch.zeros(shape, dtype=torch.long)
+    split = torch.zeros(shape, dtype=torch.long)
+    best = torch.full(shape, NEG_INF, dtype=dtype)
+
+    def children(W: int, m: int, child: Tensor) -> None:
+        flat = child.reshape(B * m, -1)
+        sides = factors.words if W == 1 else factors.spans
+        for value, arg, weights in zip((lv, rv), (lc, rc), sides):
+            v, a = _max_plus(flat, weights, MAX_PLUS_TOP)
+            value[:, :m, W], arg[:, :m, W] = v.view(B, m, nt), a.view(B, m, nt)
+
+    every = slice(None)
+    if N >= 1:
+        children(1, N, inside(every, slice(0, N), 1, slice(nt, S)) +
+                 tables.marginals[:, :N, 1, nt:].log())
+    for W in range(2, N + 1):
+        m = N1 - W                                             # starts 0 .. N - W
+        start = torch.arange(m)[:, None]
+        k = torch.arange(1, W)[None, :]
+        total = lv[:, start, k] + rv[:, start + k, W - k]      # (B, m, W - 1, NT)
+        value, at = total.max(2)
+        best[:, :m, W] = outside(slice(0, m), W) + value
+        split[:, :m, W] = at + 1
+        if W < N:
+            children(W, m, inside(every, slice(0, m), W, slice(0, nt)) + best[:, :m, W])
+    n = torch.tensor(list(lengths), dtype=torch.long)
+    rows = torch.arange(B)
+    top_value, top_symbol = (tables.marginals[rows, 0, n, :nt].log() + best[rows, 0, n]).max(-1)
+    word_value, word_symbol = (2 * tables.marginals[:, 0, 1, nt:].log()).max(-1)  # one word:
+    # its label's posterior and the top label's
+    one = n == 1
+    top_value = torch.where(one, word_value, top_value)
+    top_symbol = torch.where(one, word_symbol + nt, top_symbol)
+    parsed = torch.isfinite(tables.logz) & torch.isfinite(top_value)
+    # Follow the back pointers of every sentence together, one tree level at a time.
+    nb = parsed.nonzero().flatten()
+    node = (nb, torch.zeros_like(nb), n[nb], top_symbol[nb])    # sentence, start, width, symbol
+    found = []
+    while len(node[0]):
+        found.append(torch.stack(node, 1))
+        sb, si, sw, sx = (t[node[2] > 1] for t in node)
+        k = split[sb, si, sw, sx]
+        y, z = lc[sb, si, k, sx], rc[sb, si + k, sw - k, sx]
+        y = torch.where(k == 1, y + nt, y)
+        z = torch.where(sw - k == 1, z + nt, z)
+        node = (torch.cat([sb, sb]), torch.cat([si, si + k]), torch.cat([k, sw - k]),
+                torch.cat([y, z]))
+    spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
+    if found:
+        for sb, si, sw, sx in torch.cat(found).tolist():
+            spans[sb].append((si, si + sw, symbols[sx]))
+    values = top_value.tolist()
+    return [(spans[b], values[b]) if ok else None for b, ok in enumerate(parsed.tolist())]
 
 
 FLOOR_SLACK = 1e-6  # nats below a known tree's score, for rounding (the floor stays exact)
@@ -1393,6 +1581,8 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
     symbols = list(nonterminals) + list(preterminals)
     nt = len(nonterminals)
     layout = CoarseLayout.of_rules(rules.binary_logprob, symbols, nt)
+    factors = _IndependentFactors(rules, nt, rules.left.dtype) \
+        if decoder == "max-rule-product" and isinstance(rules, IndependentRules) else None
 
     def batch(words: list[list[str]]) -> list[Decoded]:
         out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
@@ -1406,7 +1596,12 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
                 logz, marginals = rules.label_marginals(terminal, lengths)
             else:
                 tables = rules.span_tables(terminal, lengths)
-                logz, found = tables.logz, max_rule_product(None, tables, n, layout)
+                logz = tables.logz
+                if isinstance(rules, IndependentRules):
+                    found = _max_rule_product_independent(rules, tables, n, symbols, nt,
+                                                          factors)
+                else:
+                    found = max_rule_product(None, tables, n, layout)
         parsed = [b for b in range(len(known)) if math.isfinite(float(logz[b]))]
         if decoder == "mbr":
             spans_p = _span_posteriors(marginals, nt)                    # (B, N+1, N+1)
