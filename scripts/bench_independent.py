@@ -152,8 +152,8 @@ def epoch(nt: int, t: int, sentences: int, max_length: int, vocab: int, batch_si
 
 def trained_run(run_dir: str, text: str, sentences: int, max_length: int,
                 batch_size: int) -> dict:
-    """`--run`: the first `sentences` lines of `text` of at most `max_length` words, all in the
-    run's vocabulary, decoded by the run's trained model (`induce.load_factored`) with mbr and
+    """`--run`: the first `sentences` lines of `text` of at most `max_length` words that the
+    run's vocabulary reads (its own or its unknown word's id), decoded by the run's trained model (`induce.load_factored`) with mbr and
     max-rule-product, against a training epoch of a model of the same sizes on the same
     sentences (a pass costs the same whatever the rules' values); the figures of both."""
     from treewright.induce import load_factored
@@ -165,7 +165,7 @@ def trained_run(run_dir: str, text: str, sentences: int, max_length: int,
     with open(text, encoding="utf-8") as lines:
         for line in lines:
             words = line.split()
-            if 1 <= len(words) <= max_length and all(w in run.vocab for w in words):
+            if 1 <= len(words) <= max_length and min(run.vocab.encode(words)) >= 0:
                 text_sentences.append(words)
                 if len(text_sentences) == sentences:
                     break

@@ -598,10 +598,10 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
 @pytest.mark.parametrize("depth", [1, 3, 64])
 @pytest.mark.parametrize("dtype", [torch.float64, torch.float32])
 def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense):
-    # Reference: brute force, max over every column of values[m, k] + weights[r, k] (and its
-    # first arg max). The rows mix peaked and flat ones, rows that are -inf throughout or in
-    # places, weights of probability zero, and exact ties between two columns (the first
-    # wins); `dense` 0 sends every chunk after the first through every column, 1 never.
+    # Reference: brute force, max over every column of values[m, k] + weights[r, k]. The rows
+    # mix peaked and flat ones, rows that are -inf throughout or in places, weights of
+    # probability zero, and exact ties between two columns; `dense` 0 sends every chunk after
+    # the first through every column, 1 never.
     monkeypatch.setattr(decode_module, "MAX_PLUS_CHUNK", 2 ** 9)
     monkeypatch.setattr(decode_module, "MAX_PLUS_DENSE", dense)
     gen = torch.Generator().manual_seed(11)
@@ -616,12 +616,9 @@ def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense)
     weights[2, 4] = -math.inf
     weights[:, 9] = weights[:, 4]
     values, weights = values.to(dtype), weights.to(dtype)
-    want, want_at = (values[:, None, :] + weights[None]).max(-1)
-    got, got_at = decode_module._max_plus(values, decode_module._MaxPlusWeights(weights), depth)
+    want = (values[:, None, :] + weights[None]).amax(-1)
+    got = decode_module._max_plus(values, decode_module._MaxPlusWeights(weights), depth)
     assert torch.equal(got, want)
-    finite = torch.isfinite(want)
-    assert torch.equal(got_at[finite], want_at[finite])
-    assert int(got_at[10, 0]) == 4 and int(want_at[10, 0]) == 4
 
 
 @pytest.mark.parametrize("decoder,depth", [("mbr", None), ("max-rule-product", 16),

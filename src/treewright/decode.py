@@ -483,7 +483,7 @@ def _max_rule_product_factored(tables: engine.SpanTables, lengths: Sequence[int]
 
 
 MAX_PLUS_CHUNK = 2 ** 22  # elements of the largest temporary of `_max_plus`
-MAX_PLUS_TOP = 16         # candidate columns per value row of `_max_plus`
+MAX_PLUS_TOP = 24         # candidate columns per value row of `_max_plus`
 MAX_PLUS_DENSE = 0.2      # share of entries left unsettled above which `_max_plus` goes dense
 
 
@@ -499,11 +499,13 @@ class _MaxPlusWeights:
         self.prob_t = weights.exp().t().contiguous()                    # (K, R)
 
 
-def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> tuple[Tensor, Tensor]:
-    """(M, R) max_k values[m, k] + weights[r, k] and its first arg max, for `values` (M, K)
-    and `weights` (R, K), weights at most 0 (log-probabilities): a matrix product in the
-    max-plus semiring, exactly, but mostly over the `d` largest columns of each value row.
-    Rows of `values` that are -inf throughout give -inf (and index 0) without being computed.
+def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> Tensor:
+    """(M, R) max_k values[m, k] + weights[r, k], for `values` (M, K) and `weights` (R, K),
+    weights at most 0 (log-probabilities): a matrix product in the max-plus semiring, exactly,
+    but mostly over the `d` largest columns of each value row. Rows of `values` that are -inf
+    throughout give -inf without being computed. (Each entry is the float sum of one value and
+    one weight, so the column that gives it is found again by comparing sums, as
+    `_max_rule_product_independent` does for the few entries its tree uses.)
 
     Two bounds on every other column k of an entry (m, r): values[m, k] + weights[r, k] is at
     most the value row's (d+1)-th largest plus the weight row's largest (the threshold test of
@@ -512,14 +514,14 @@ def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> tuple[Tensor,
     such k (the mass left out: one matrix product over every column, each value row shifted by
     its maximum, with the candidates' columns set to zero; with room for the product's
     rounding, at most (K + 2) units of the last place of the sum, and for terms that underflow,
-    each below the dtype's smallest normal number). Where the best candidate is above the lower bound, no
-    other column reaches it, and with the candidates in column order it is the maximum and its
-    first arg max; the entries where it is not are computed over every column. Temporaries in
+    each below the dtype's smallest normal number). Where the best candidate is above the
+    lower bound, it is the maximum; the entries where it is not are computed over every column
+    (every entry of a chunk of rows, and of the rows after it, once more than `MAX_PLUS_DENSE`
+    of its entries are left: flat rows, where the candidates save nothing). Temporaries in
     chunks of at most `MAX_PLUS_CHUNK` elements."""
     M, R = values.shape[0], weights.log.shape[0]
     K = values.shape[1]
     best = torch.full((M, R), NEG_INF, dtype=values.dtype)
-    arg = torch.zeros((M, R), dtype=torch.long)
     rows = torch.isfinite(values).any(-1).nonzero().flatten()
     d = min(d, K)
     info = torch.finfo(values.dtype)
@@ -529,24 +531,24 @@ def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> tuple[Tensor,
     dense = False
     r0 = 0
     while r0 < len(rows):
-        if dense:        # flat rows: every column of every entry, as the last chunk needed
+        if dense:
             at = rows[r0:r0 + dense_chunk]
-            best[at], arg[at] = (values[at, None, :] + weights.log[None]).max(-1)
+            best[at] = (values.index_select(0, at)[:, None, :] + weights.log[None]).amax(-1)
             r0 += len(at)
             continue
         at = rows[r0:r0 + chunk]
         r0 += len(at)
-        own = values[at]                                                # (c, K)
+        own = values.index_select(0, at)                                # (c, K)
         v_top, v_at = own.topk(min(d + 1, K), -1)
         v_next = v_top[:, d] if d < K else torch.full_like(v_top[:, 0], NEG_INF)
         shift = v_top[:, :1]
-        v_at, order = v_at[:, :d].sort(-1)                              # candidates by column
-        v_top = v_top[:, :d].gather(1, order)
-        cand = weights.by_column[v_at] + v_top[..., None]               # (c, d, R)
-        value, which = cand.max(1)                                      # (c, R); first max
-        best[at], arg[at] = value, v_at.gather(1, which)
+        value = weights.by_column.index_select(0, v_at[:, 0]) + v_top[:, :1]    # (c, R)
+        for j in range(1, d):
+            value = torch.maximum(value, weights.by_column.index_select(0, v_at[:, j]) +
+                                  v_top[:, j:j + 1])
+        best[at] = value
         threshold = v_next[:, None] + weights.row_max[None, :]
-        left_out = (own - shift).exp().scatter_(1, v_at, 0.0)           # (c, K)
+        left_out = (own - shift).exp().scatter_(1, v_at[:, :d], 0.0)    # (c, K)
         rest = left_out @ weights.prob_t                                # (c, R)
         rest = rest + rounding * rest + lost
         room = 8 * info.eps * (shift.abs() + value.abs() + 1)     # the sums' and log's rounding
@@ -557,11 +559,12 @@ def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> tuple[Tensor,
             dense = True
             r0 -= len(at)
             continue
-        step = max(1, MAX_PLUS_CHUNK // K)
+        step = max(1, MAX_PLUS_CHUNK // (4 * K))
         for f0 in range(0, len(rm), step):
             fm, fr = rm[f0:f0 + step], rr[f0:f0 + step]
-            best[at[fm], fr], arg[at[fm], fr] = (own[fm] + weights.log[fr]).max(-1)
-    return best, arg
+            best[at[fm], fr] = (own.index_select(0, fm) +
+                                weights.log.index_select(0, fr)).amax(-1)
+    return best
 
 
 class _IndependentFactors:
@@ -611,62 +614,72 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
 
     N = N1 - 1
     factors = _IndependentFactors(rules, nt, dtype) if factors is None else factors
-    # Per finished span and parent: the best left-child and right-child factor and its child.
-    shape = (B, N1, N1, nt)
-    lv, rv = torch.full(shape, NEG_INF, dtype=dtype), torch.full(shape, NEG_INF, dtype=dtype)
-    lc, rc = torch.zeros(shape, dtype=torch.long), torch.zeros(shape, dtype=torch.long)
-    split = torch.zeros(shape, dtype=torch.long)
-    best = torch.full(shape, NEG_INF, dtype=dtype)
+    # By width W, (B, N+1-W, NT) over the spans' starts: the best left-child and right-child
+    # factor of each parent and its child, the best split and best score.
+    lv: dict[int, Tensor] = {}
+    rv: dict[int, Tensor] = {}
+    split: dict[int, Tensor] = {}
+    best: dict[int, Tensor] = {}
+    child_of: dict[int, Tensor] = {}    # (B, N+1-W, K): log I + log best of each child symbol
 
-    def children(W: int, m: int, child: Tensor) -> None:
+    def children(W: int, child: Tensor) -> None:
+        m = child.shape[1]
+        child_of[W] = child
         flat = child.reshape(B * m, -1)
         sides = factors.words if W == 1 else factors.spans
-        for value, arg, weights in zip((lv, rv), (lc, rc), sides):
-            v, a = _max_plus(flat, weights, MAX_PLUS_TOP)
-            value[:, :m, W], arg[:, :m, W] = v.view(B, m, nt), a.view(B, m, nt)
+        lv[W], rv[W] = (_max_plus(flat, side, MAX_PLUS_TOP).view(B, m, nt) for side in sides)
+
+    def child(W: int, b: int, i: int, x: int, side: int) -> int:
+        """The best child symbol of parent x on one side (0 left, 1 right) over the span of
+        width W at i: the first column of the sums that gave lv or rv."""
+        weights = (factors.words if W == 1 else factors.spans)[side].log[x]
+        return int((child_of[W][b, i] + weights).argmax())
 
     every = slice(None)
     if N >= 1:
-        children(1, N, inside(every, slice(0, N), 1, slice(nt, S)) +
+        children(1, inside(every, slice(0, N), 1, slice(nt, S)) +
                  tables.marginals[:, :N, 1, nt:].log())
     for W in range(2, N + 1):
         m = N1 - W                                             # starts 0 .. N - W
-        start = torch.arange(m)[:, None]
-        k = torch.arange(1, W)[None, :]
-        total = lv[:, start, k] + rv[:, start + k, W - k]      # (B, m, W - 1, NT)
-        value, at = total.max(2)
-        best[:, :m, W] = outside(slice(0, m), W) + value
-        split[:, :m, W] = at + 1
+        value = lv[1][:, :m] + rv[W - 1][:, 1:1 + m]
+        at = torch.ones(value.shape, dtype=torch.long)
+        for k in range(2, W):                                  # the first best split wins
+            here = lv[k][:, :m] + rv[W - k][:, k:k + m]
+            better = here > value
+            value = torch.maximum(value, here)
+            at.masked_fill_(better, k)
+        best[W], split[W] = outside(slice(0, m), W) + value, at
         if W < N:
-            children(W, m, inside(every, slice(0, m), W, slice(0, nt)) + best[:, :m, W])
-    n = torch.tensor(list(lengths), dtype=torch.long)
-    rows = torch.arange(B)
-    top_value, top_symbol = (tables.marginals[rows, 0, n, :nt].log() + best[rows, 0, n]).max(-1)
+            children(W, inside(every, slice(0, m), W, slice(0, nt)) + best[W])
+    n = list(lengths)
+    top = torch.stack([best[n[b]][b, 0] if n[b] >= 2 else
+                       torch.full((nt,), NEG_INF, dtype=dtype) for b in range(B)])
+    rows, width = torch.arange(B), torch.tensor(n)
+    top_value, top_symbol = (tables.marginals[rows, 0, width, :nt].log() + top).max(-1)
     word_value, word_symbol = (2 * tables.marginals[:, 0, 1, nt:].log()).max(-1)  # one word:
     # its label's posterior and the top label's
-    one = n == 1
+    one = width == 1
     top_value = torch.where(one, word_value, top_value)
     top_symbol = torch.where(one, word_symbol + nt, top_symbol)
-    parsed = torch.isfinite(tables.logz) & torch.isfinite(top_value)
-    # Follow the back pointers of every sentence together, one tree level at a time.
-    nb = parsed.nonzero().flatten()
-    node = (nb, torch.zeros_like(nb), n[nb], top_symbol[nb])    # sentence, start, width, symbol
-    found = []
-    while len(node[0]):
-        found.append(torch.stack(node, 1))
-        sb, si, sw, sx = (t[node[2] > 1] for t in node)
-        k = split[sb, si, sw, sx]
-        y, z = lc[sb, si, k, sx], rc[sb, si + k, sw - k, sx]
-        y = torch.where(k == 1, y + nt, y)
-        z = torch.where(sw - k == 1, z + nt, z)
-        node = (torch.cat([sb, sb]), torch.cat([si, si + k]), torch.cat([k, sw - k]),
-                torch.cat([y, z]))
-    spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
-    if found:
-        for sb, si, sw, sx in torch.cat(found).tolist():
-            spans[sb].append((si, si + sw, symbols[sx]))
-    values = top_value.tolist()
-    return [(spans[b], values[b]) if ok else None for b, ok in enumerate(parsed.tolist())]
+    parsed = (torch.isfinite(tables.logz) & torch.isfinite(top_value)).tolist()
+    values, symbol = top_value.tolist(), top_symbol.tolist()
+    out: list = []
+    for b in range(B):
+        if not parsed[b]:
+            out.append(None)
+            continue
+        spans, stack = [], [(0, n[b], symbol[b])]
+        while stack:
+            i, j, x = stack.pop()
+            spans.append((i, j, symbols[x]))
+            if j - i == 1:
+                continue
+            k = i + int(split[j - i][b, i, x])
+            y, z = child(k - i, b, i, x, 0), child(j - k, b, k, x, 1)
+            stack.append((k, j, z if j - k > 1 else nt + z))
+            stack.append((i, k, y if k - i > 1 else nt + y))
+        out.append((spans, values[b]))
+    return out
 
 
 FLOOR_SLACK = 1e-6  # nats below a known tree's score, for rounding (the floor stays exact)
