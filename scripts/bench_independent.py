@@ -33,6 +33,15 @@ linearly to 10,000 sentences of the same length distribution, and printed as an 
 `--epoch --parse` then decodes the same sentences with the trained model, as `parse --decoder
 mbr` and `--decoder max-rule-product` decode a factored run (`decode.decode_factored`, batches
 of 16, float32), and prints each one's rate against the epoch's.
+
+    .venv/bin/python scripts/bench_independent.py --threads 1 --epoch --parse \
+        --run RUN --text FILE --sentences 500
+
+`--run` decodes with a finished training run's model instead (a run folder of independent
+productions, `induce.load_factored`), on the first `--sentences` lines of FILE of at most
+`--max-length` words, against an epoch of a fresh model of the run's sizes on the same
+sentences: one epoch of random words leaves posteriors flatter than a trained model's, which
+costs max-rule-product more (its bounds settle less; see `decode._max_plus`).
 """
 
 from __future__ import annotations
@@ -153,9 +162,10 @@ def epoch(nt: int, t: int, sentences: int, max_length: int, vocab: int, batch_si
 def trained_run(run_dir: str, text: str, sentences: int, max_length: int,
                 batch_size: int) -> dict:
     """`--run`: the first `sentences` lines of `text` of at most `max_length` words that the
-    run's vocabulary reads (its own or its unknown word's id), decoded by the run's trained model (`induce.load_factored`) with mbr and
-    max-rule-product, against a training epoch of a model of the same sizes on the same
-    sentences (a pass costs the same whatever the rules' values); the figures of both."""
+    run's vocabulary reads (its own or its unknown word's id), decoded by the run's trained
+    model (`induce.load_factored`) with mbr and max-rule-product, against a training epoch of
+    a model of the same sizes on the same sentences (a pass costs the same whatever the rules'
+    values); the figures of both."""
     from treewright.induce import load_factored
     run = load_factored(run_dir)
     if run is None:

@@ -74,3 +74,32 @@ def test_a_quick_epoch_then_parse_decodes_every_sentence_with_a_parse(capsys):
     assert r["mrp_parsed"] == r["parsed"]
     assert r["mrp_ratio"] == r["epoch_s"] / r["mrp_s"]
     assert "parse (max-rule-product, the trained model" in out
+
+
+def test_a_trained_run_is_decoded_beside_an_epoch_of_its_sizes(tmp_path, capsys):
+    # `--run RUN --text FILE`: the run's own model decodes the first --sentences lines of FILE
+    # of at most --max-length words (a run trained here: 6/10 symbols, one epoch, on demo text),
+    # beside a training epoch of a model of the run's sizes on the same sentences.
+    from test_train_fixtures import base_overrides, write_corpus
+    from treewright.decode import decode
+    from treewright.grammar import load_grammar
+    from treewright.train import load_train_config, train
+    train_path, _ = write_corpus(tmp_path / "data", train=40, dev=0)
+    cfg = load_train_config(None, base_overrides(
+        tmp_path, train_path, None, **{"train.method": "gradient",
+                                       "model.parameterization": "independent",
+                                       "model.nonterminals": 6, "model.preterminals": 10,
+                                       "train.epochs": 1, "train.batch_size": 20}))
+    train(cfg, tmp_path / "run")
+    r = bench.main(["--epoch", "--parse", "--run", str(tmp_path / "run"), "--text",
+                    str(train_path), "--sentences", "25", "--max-length", "8", "--threads", "1"])
+    lines = [x.split() for x in train_path.read_text().splitlines()]
+    chosen = [w for w in lines if 1 <= len(w) <= 8][:25]
+    assert (r["sentences"], r["words"], r["nt"], r["t"]) == \
+        (len(chosen), sum(map(len, chosen)), 6, 10)
+    # Reference: max-rule-product on the run's grammar file (the dense rules the factors
+    # imply; checked against enumeration in test_decode.py) parses the same sentences.
+    want = decode(load_grammar(tmp_path / "run" / "grammar.pcfg"), chosen, "max-rule-product")
+    assert r["mrp_parsed"] == r["parsed"] == sum(d.tree is not None for d in want)
+    assert r["mrp_ratio"] == r["epoch_s"] / r["mrp_s"]
+    assert "decoding with the trained model of" in capsys.readouterr().out

@@ -603,6 +603,7 @@ def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense)
     # probability zero, and exact ties between two columns; `dense` 0 sends every chunk after
     # the first through every column, 1 never.
     monkeypatch.setattr(decode_module, "MAX_PLUS_CHUNK", 2 ** 9)
+    monkeypatch.setattr(decode_module, "MAX_PLUS_BROADCAST", 2 ** 8)
     monkeypatch.setattr(decode_module, "MAX_PLUS_DENSE", dense)
     gen = torch.Generator().manual_seed(11)
     M, R, K = 40, 7, 12

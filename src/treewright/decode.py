@@ -16,9 +16,11 @@ own outside pass, batched; `mbr` asks for the marginals alone); both decoders th
 width at a time over every span of every sentence of a batch (max-rule-product on an unrefined
 grammar is the engine's max-semiring pass), or, for max-rule-product where a trained grammar's
 posteriors rule out most labeled spans, over the labeled spans they leave (exactly: see
-`max_rule_product`). Each decoded tree's probability, summed over the
-refinements of its labels, is one inside pass over the nodes of all trees of a batch
-(`TreeScorer`).
+`max_rule_product`). On independent productions (`params.IndependentRules`) the anchored rule
+posterior factors into a left and a right part, and max-rule-product is a chart pass of
+max-plus products per span (`_max_rule_product_independent`). Each decoded tree's
+probability, summed over the refinements of its labels, is one inside pass over the nodes of
+all trees of a batch (`TreeScorer`).
 
 A lexicalized model (`params.lexicalized`, Yang, Zhao & Tu 2021) is no `Grammar`: `decode_heads`
 reads the model itself and gives each sentence its best derivation as a tree and the head of
@@ -483,6 +485,8 @@ def _max_rule_product_factored(tables: engine.SpanTables, lengths: Sequence[int]
 
 
 MAX_PLUS_CHUNK = 2 ** 22  # elements of the largest temporary of `_max_plus`
+MAX_PLUS_BROADCAST = 2 ** 21  # ... of a broadcast over every column (8 MB in float32: faster
+                              # than 16 MB on the 2-core machine, at 3.5 billion sums a second)
 MAX_PLUS_TOP = 24         # candidate columns per value row of `_max_plus`
 MAX_PLUS_DENSE = 0.2      # share of entries left unsettled above which `_max_plus` goes dense
 
@@ -527,7 +531,7 @@ def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> Tensor:
     info = torch.finfo(values.dtype)
     rounding, lost = (K + 2) * info.eps, K * info.tiny
     chunk = max(1, MAX_PLUS_CHUNK // (R * max(d, K // 16)))
-    dense_chunk = max(1, MAX_PLUS_CHUNK // (R * K))
+    dense_chunk = max(1, MAX_PLUS_BROADCAST // (R * K))
     dense = False
     r0 = 0
     while r0 < len(rows):
@@ -1582,12 +1586,13 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
     (`mbr_spans_batch`), each span labeled by its most probable nonterminal and each word by
     its most probable preterminal, as `mbr` labels them; `score` is the expected number of
     correct spans. max-rule-product (`span_tables`): every symbol is its own coarse symbol, and
-    the tree maximizing the product of anchored rule posteriors is found by the item pass alone
-    (`_max_rule_product_factored`), each rule read from the factors (`binary_logprob`); `score`
-    is its log rule-posterior product. `tree_logprob` is the tree's log-probability under the
-    rules. The rules' dtype is the decoding dtype. `vocab` is the rules' vocabulary and
-    `nonterminals`, `preterminals` their symbol names (`params.symbol_names`). A sentence with
-    a word outside the vocabulary gets no tree."""
+    the tree maximizing the product of anchored rule posteriors is found, for independent
+    productions, by a chart pass over the factors (`_max_rule_product_independent`), and for
+    low-rank rules by the item pass alone (`_max_rule_product_factored`), each rule read from
+    the factors (`binary_logprob`); `score` is its log rule-posterior product. `tree_logprob`
+    is the tree's log-probability under the rules. The rules' dtype is the decoding dtype.
+    `vocab` is the rules' vocabulary and `nonterminals`, `preterminals` their symbol names
+    (`params.symbol_names`). A sentence with a word outside the vocabulary gets no tree."""
     if decoder not in FACTORED_DECODERS:
         raise ValueError(f"factored rules decode with {' or '.join(FACTORED_DECODERS)}, "
                          f"not {decoder!r}")
