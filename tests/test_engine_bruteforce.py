@@ -94,6 +94,24 @@ def test_viterbi_in_small_chunks_over_a_batch_matches_enumeration(monkeypatch, n
         assert sorted(spans) == sorted(best_spans)
 
 
+def test_viterbi_breaks_exact_ties_as_its_docstring_says():
+    # Every rule and word score 0 (log 1): every tree of the sentence scores exactly 0, so the
+    # tree is decided by the tie rules alone. Reference: worked by hand from `viterbi`'s
+    # docstring (first block: two constituents, a word on the right, on the left, two words;
+    # then the first split; then the lowest-numbered children; the first top symbol).
+    nt, t, n = 2, 2, 5
+    s = nt + t
+    root, binary = torch.zeros(nt, dtype=torch.float64), torch.zeros(nt, s, s, dtype=torch.float64)
+    terminal = torch.zeros(1, n, t, dtype=torch.float64)
+    (score, spans), = engine.viterbi(root, binary, terminal, torch.tensor([n]))
+    assert score == 0.0
+    # (0, 5): two constituents split at 2 (the first split with both children of 2+ words);
+    # (0, 2) and (2, 4): two words; (2, 5): a constituent and a word on the right (three words
+    # cannot split into two constituents of 2+ words). Symbols: N0 = 0, P0 = 2.
+    assert sorted(spans) == [(0, 1, 2), (0, 2, 0), (0, 5, 0), (1, 2, 2), (2, 3, 2), (2, 4, 0),
+                             (2, 5, 0), (3, 4, 2), (4, 5, 2)]
+
+
 def test_zero_probability_rule_rules_out_every_tree_that_uses_it():
     # Fact of the trade (common practice): a zero-probability rule removes exactly the trees
     # that use it; brute force over the remaining trees gives the new log Z.

@@ -16,29 +16,27 @@ import torch
 from torch import Tensor
 
 NEG_INF = float("-inf")
-WORD = -1  # a back pointer's child that is a word, its preterminal not yet chosen
 
 
 CHUNK = 2 ** 21  # elements of the largest temporary of a max over children
 
 
-def _best_children(scores: Tensor, rules: Tensor) -> tuple[Tensor, Tensor]:
-    """max over (y, z) of rules[x, y, z] + scores[..., y, z], first (y, z) in row-major order
-    on ties.
+def _best_children(scores: Tensor, rules: Tensor) -> Tensor:
+    """max over (y, z) of rules[x, y, z] + scores[..., y, z].
 
-    scores: (B, P, Y, Z), rules: (NT, Y, Z) -> values (B, P, NT), flat argmax (B, P, NT).
-    Rows (B * P) are taken in chunks so that the sum (rows, NT, Y * Z) stays small.
+    scores: (B, P, Y, Z), rules: (NT, Y, Z) -> values (B, P, NT). Rows (B * P) are taken in
+    chunks so that the sum (rows, NT, Y * Z) stays small. The maxima alone: `amax` ran many
+    times faster than `max` with its indices here, and the children that won are found again
+    for the nodes of the best trees only (`_backtrace`, the same float sums).
     """
     Bt, P, X, Y = scores.shape
     rows = scores.reshape(Bt * P, 1, X * Y)
     flat_rules = rules.reshape(1, -1, X * Y)
     values = scores.new_empty(Bt * P, rules.shape[0])
-    where = torch.empty(Bt * P, rules.shape[0], dtype=torch.long)
     step = max(1, CHUNK // max(1, rules.numel()))
     for r0 in range(0, Bt * P, step):
-        torch.max(rows[r0:r0 + step] + flat_rules, -1, out=(values[r0:r0 + step],
-                                                           where[r0:r0 + step]))
-    return values.view(Bt, P, -1), where.view(Bt, P, -1)
+        torch.amax(rows[r0:r0 + step] + flat_rules, -1, out=values[r0:r0 + step])
+    return values.view(Bt, P, -1)
 
 
 def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
@@ -70,13 +68,13 @@ def _word_preterminal(word: Tensor, rules: Tensor) -> int:
     return int((word + rules).argmax())
 
 
-def _best_beside_word(cell: Tensor, word_best: Tensor) -> tuple[Tensor, Tensor]:
+def _best_beside_word(cell: Tensor, word_best: Tensor) -> Tensor:
     """max over the constituent's symbol c of cell[..., c] + word_best[..., x, c].
 
-    cell (B, P, C), word_best (B, P, NT, C) -> values (B, P, NT) and the best c, the first on
-    ties.
+    cell (B, P, C), word_best (B, P, NT, C) -> values (B, P, NT) (the best c is found again
+    for the nodes of the best trees: `_backtrace`).
     """
-    return (cell[:, :, None, :] + word_best).max(-1)
+    return (cell[:, :, None, :] + word_best).amax(-1)
 
 
 def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
@@ -116,47 +114,38 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         # cells[w]: (B, N - w + 1, NT) best log score of each nonterminal over each span.
         cells = {1: nt_terminal if nt_terminal is not None
                  else terminal.new_full((B, N, NT), NEG_INF)}
-        # back[w]: (split u, left child, right child), each (B, P, NT) int64; WORD for a word
-        # child, whose preterminal `_backtrace` finds
-        back: dict[int, tuple[Tensor, Tensor, Tensor]] = {}
+        # back[w]: (the block that won, (B, P, NT) int64, and the blocks' names in order); the
+        # split and children within it are found again for the nodes of the best trees.
+        back: dict[int, tuple[Tensor, list[str]]] = {}
         for w in range(2, N + 1):
             P = N - w + 1
-            options = []   # (values, split, left child, right child), each (B, P, NT)
+            options, kinds = [], []   # each (B, P, NT)
             lo, hi = min_w, w - min_w
             if hi >= lo:
                 pairs = torch.stack([cells[u][:, 0:P, :, None] + cells[w - u][:, u:u + P, None, :]
                                      for u in range(lo, hi + 1)], 2)   # (B, P, K, NT, NT)
-                pair_best, pair_split = pairs.max(2)                    # (B, P, NT, NT)
-                values, flat = _best_children(pair_best, r_nn)
-                left, right = flat // NT, flat % NT
-                split = torch.gather(pair_split.reshape(B, P, NT * NT), 2, flat) + lo
-                options.append((values, split, left, right))
+                options.append(_best_children(pairs.amax(2), r_nn))
+                kinds.append(_PAIR)
             # Blocks with a preterminal child exist only when there are preterminals: a general
             # CNF grammar may have none (T = 0), and a max over an empty block is an error.
             if w - 1 >= min_w and T:
-                values, left = _best_beside_word(cells[w - 1][:, 0:P],
-                                                 right_best[:, w - 1:N, :, :NT])
-                word = torch.full_like(left, WORD)
-                options.append((values, torch.full_like(left, w - 1), left, word))
-                values, right = _best_beside_word(cells[w - 1][:, 1:1 + P], left_best[:, 0:P])
-                options.append((values, torch.ones_like(right), word, right))
+                options.append(_best_beside_word(cells[w - 1][:, 0:P],
+                                                 right_best[:, w - 1:N, :, :NT]))
+                kinds.append(_WORD_RIGHT)
+                options.append(_best_beside_word(cells[w - 1][:, 1:1 + P], left_best[:, 0:P]))
+                kinds.append(_WORD_LEFT)
             if w == 2 and T:
-                values, y = _best_beside_word(term[:, 0:P], right_best[:, 1:1 + P, :, NT:])
-                options.append((values, torch.ones_like(y), y + NT, torch.full_like(y, WORD)))
+                options.append(_best_beside_word(term[:, 0:P], right_best[:, 1:1 + P, :, NT:]))
+                kinds.append(_TWO_WORDS)
             if not options:  # no block fits this width (no rules can build such a span)
-                none = terminal.new_full((B, P, NT), NEG_INF)
-                zero = torch.zeros(B, P, NT, dtype=torch.long)
-                options.append((none, zero, zero, zero))
-            values = torch.stack([o[0] for o in options])               # (K, B, P, NT)
-            best, which = values.max(0)
-            pick = which.unsqueeze(0)
-            split, left, right = (torch.stack([o[k] for o in options]).gather(0, pick)[0]
-                                  for k in (1, 2, 3))
+                options.append(terminal.new_full((B, P, NT), NEG_INF))
+                kinds.append(_NONE)
+            best, which = torch.stack(options).max(0)                   # first block on ties
             if span_pot is not None:
                 best = best + (span_pot[:, 0:P, w] if span_pot.dim() == 4
                                else span_pot[:, 0:P, w, None])
             cells[w] = best
-            back[w] = (split, left, right)
+            back[w] = (which, kinds)
 
     out: list[tuple[float, list[tuple[int, int, int]]] | None] = []
     for b in range(B):
@@ -173,29 +162,55 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         if not torch.isfinite(score):
             out.append(None)
             continue
-        out.append((float(score), _backtrace(back, b, n, int(sym), binary, terminal[b])))
+        out.append((float(score), _backtrace(back, cells, b, n, int(sym), binary, terminal[b],
+                                             right_best if T else None,
+                                             left_best if T else None, min_w)))
     return out
 
 
-def _backtrace(back, b: int, n: int, top: int, binary: Tensor, term: Tensor
+_PAIR, _WORD_RIGHT, _WORD_LEFT, _TWO_WORDS, _NONE = \
+    "two constituents", "a word on the right", "a word on the left", "two words", "none"
+
+
+def _backtrace(back, cells, b: int, n: int, top: int, binary: Tensor, term: Tensor,
+               right_best: Tensor | None, left_best: Tensor | None, min_w: int
                ) -> list[tuple[int, int, int]]:
-    """Sentence b's best tree from the back pointers, a WORD child resolved to the preterminal
-    that won its max (`_word_preterminal`); term (N, T) its word scores."""
+    """Sentence b's best tree: at each node, the block that won (`back`), then its split and
+    children found again from the same float sums the pass took the maxima of (first on ties,
+    as `max` and `argmax` take them: the first split of each child pair, then the first pair in
+    row-major order; the constituent's first symbol beside a word), a word child resolved to the
+    preterminal that won its max (`_word_preterminal`); term (N, T) its word scores."""
     NT = binary.shape[0]
     spans = []
     stack = [(0, n, top)]
     while stack:
         i, j, sym = stack.pop()
         spans.append((i, j, sym))
-        if j - i == 1:
+        w = j - i
+        if w == 1:
             continue
-        split, left, right = back[j - i]
-        u = int(split[b, i, sym])
-        y, z = int(left[b, i, sym]), int(right[b, i, sym])
-        if z == WORD:
+        which, kinds = back[w]
+        kind = kinds[int(which[b, i, sym])]
+        if kind == _PAIR:
+            lo = min_w
+            pairs = torch.stack([cells[u][b, i, :, None] + cells[w - u][b, i + u, None, :]
+                                 for u in range(lo, w - min_w + 1)])   # (K, NT, NT)
+            pair_best, pair_split = pairs.max(0)
+            flat = int((pair_best.reshape(-1) + binary[sym, :NT, :NT].reshape(-1)).argmax())
+            y, z = flat // NT, flat % NT
+            u = int(pair_split.reshape(-1)[flat]) + lo
+        elif kind == _WORD_RIGHT:
+            u = w - 1
+            y = int((cells[w - 1][b, i] + right_best[b, j - 1, sym, :NT]).argmax())
             z = NT + _word_preterminal(term[j - 1], binary[sym, y, NT:])
-        if y == WORD:
+        elif kind == _WORD_LEFT:
+            u = 1
+            z = int((cells[w - 1][b, i + 1] + left_best[b, i, sym]).argmax())
             y = NT + _word_preterminal(term[i], binary[sym, NT:, z])
+        else:                               # two words (a span with no block has no tree)
+            u = 1
+            y = NT + int((term[i] + right_best[b, i + 1, sym, NT:]).argmax())
+            z = NT + _word_preterminal(term[j - 1], binary[sym, y, NT:])
         stack.append((i + u, j, z))
         stack.append((i, i + u, y))
     return spans
