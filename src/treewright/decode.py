@@ -589,8 +589,8 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
     """`max_rule_product` on independent productions (`params.IndependentRules`: p(A -> B C)
     = p(B | A, left) p(C | A, right); Liu, Yang, Kim & Tu 2023), exactly, by a chart pass whose
     cost does not grow with the split: O(n^2 NT S) per sentence rather than the O(n^3 NT S^2)
-    anchored rules of the item pass, and no pruning, so a model whose posteriors rule nothing
-    out (thousands of symbols) decodes as well as a trained small one.
+    anchored rules of the item pass, with no labeled span left out, so a model whose posteriors
+    rule nothing out (thousands of symbols) decodes as well as a trained small one.
 
     The anchored rule posterior (Petrov & Klein 2007, section 3; every symbol its own coarse
     symbol) factors: q(A -> B C, i, k, j) = O(A, i, j) p(B | A, left) I(B, i, k) p(C | A,
