@@ -199,21 +199,15 @@ def decode_after(rules, vocab, nonterminals: list[str], preterminals: list[str],
     """`parse` with MBR, then with max-rule-product, on trained `rules`
     (`decode.decode_factored`, batches of `PARSE_BATCH` in the rules' dtype), each timed as
     the epoch is, and its rate against the epoch's (issue 24: at least 0.5). Keys `parse_*`
-    for mbr, `mrp_*` for max-rule-product (`mrp_refused`, the message, where the posteriors
-    are too flat for it)."""
+    for mbr, `mrp_*` for max-rule-product."""
     from treewright.decode import decode_factored
-    from treewright.errors import InputError
 
     figures = {}
     for decoder, key in (("mbr", "parse"), ("max-rule-product", "mrp")):
         progress(f"parse: the same {len(text)} sentences, {decoder}, batches of {PARSE_BATCH}")
         start, start_cpu = time.perf_counter(), time.process_time()
-        try:
-            decoded = decode_factored(rules, vocab, nonterminals, preterminals, text,
-                                      PARSE_BATCH, decoder)
-        except InputError as err:   # max-rule-product: posteriors too flat for its item pass
-            figures[f"{key}_refused"] = str(err)
-            continue
+        decoded = decode_factored(rules, vocab, nonterminals, preterminals, text,
+                                  PARSE_BATCH, decoder)
         seconds = time.perf_counter() - start
         figures.update({f"{key}_s": seconds, f"{key}_cpu_s": time.process_time() - start_cpu,
                         f"{key}_sent_per_s": len(text) / seconds,
@@ -249,8 +243,6 @@ def print_epoch(r: dict) -> None:
               f"{r['mrp_s']:.1f} s ({r['mrp_sent_per_s']:.1f} sent/s; CPU time "
               f"{r['mrp_cpu_s']:.1f} s; {r['mrp_parsed']} parsed), {r['mrp_ratio']:.2f} times "
               f"the epoch's rate (target >= 0.5)")
-    elif "mrp_refused" in r:
-        print(f"parse (max-rule-product): refused: {r['mrp_refused']}")
 
 
 def main(argv: list[str] | None = None) -> dict:
