@@ -610,8 +610,8 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
     B, N1, _, S = tables.marginals.shape
     dtype = tables.marginals.dtype
 
-    def inside(b, i, w, x):      # log scores of the cells read, from the chart's scaled ones
-        return engine.log_unscaled(tables.scaled_inside[b, i, w, x], tables.scale[b, i, w, None])
+    def inside(i, w, x):         # log scores of the cells read, from the chart's scaled ones
+        return engine.log_unscaled(tables.scaled_inside[:, i, w, x], tables.scale[:, i, w, None])
 
     def outside(i, w):
         return engine.log_unscaled(tables.scaled_outside[:, i, w], -tables.scale[:, i, w, None])
@@ -619,7 +619,8 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
     N = N1 - 1
     factors = _IndependentFactors(rules, nt, dtype) if factors is None else factors
     # By width W, (B, N+1-W, NT) over the spans' starts: the best left-child and right-child
-    # factor of each parent and its child, the best split and best score.
+    # factor of each parent (its child is found again for the best trees: `child`), the best
+    # split and the best score.
     lv: dict[int, Tensor] = {}
     rv: dict[int, Tensor] = {}
     split: dict[int, Tensor] = {}
@@ -639,9 +640,8 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
         weights = (factors.words if W == 1 else factors.spans)[side].log[x]
         return int((child_of[W][b, i] + weights).argmax())
 
-    every = slice(None)
     if N >= 1:
-        children(1, inside(every, slice(0, N), 1, slice(nt, S)) +
+        children(1, inside(slice(0, N), 1, slice(nt, S)) +
                  tables.marginals[:, :N, 1, nt:].log())
     for W in range(2, N + 1):
         m = N1 - W                                             # starts 0 .. N - W
@@ -654,7 +654,7 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
             at.masked_fill_(better, k)
         best[W], split[W] = outside(slice(0, m), W) + value, at
         if W < N:
-            children(W, inside(every, slice(0, m), W, slice(0, nt)) + best[W])
+            children(W, inside(slice(0, m), W, slice(0, nt)) + best[W])
     n = list(lengths)
     top = torch.stack([best[n[b]][b, 0] if n[b] >= 2 else
                        torch.full((nt,), NEG_INF, dtype=dtype) for b in range(B)])
@@ -1615,7 +1615,7 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
             else:
                 tables = rules.span_tables(terminal, lengths)
                 logz = tables.logz
-                if isinstance(rules, IndependentRules):
+                if factors is not None:      # independent productions
                     found = _max_rule_product_independent(rules, tables, n, symbols, nt,
                                                           factors)
                 else:

@@ -192,13 +192,12 @@ def _backtrace(back, cells, b: int, n: int, top: int, binary: Tensor, term: Tens
         which, kinds = back[w]
         kind = kinds[int(which[b, i, sym])]
         if kind == _PAIR:
-            lo = min_w
             pairs = torch.stack([cells[u][b, i, :, None] + cells[w - u][b, i + u, None, :]
-                                 for u in range(lo, w - min_w + 1)])   # (K, NT, NT)
+                                 for u in range(min_w, w - min_w + 1)])   # (K, NT, NT)
             pair_best, pair_split = pairs.max(0)
             flat = int((pair_best.reshape(-1) + binary[sym, :NT, :NT].reshape(-1)).argmax())
             y, z = flat // NT, flat % NT
-            u = int(pair_split.reshape(-1)[flat]) + lo
+            u = int(pair_split.reshape(-1)[flat]) + min_w
         elif kind == _WORD_RIGHT:
             u = w - 1
             y = int((cells[w - 1][b, i] + right_best[b, j - 1, sym, :NT]).argmax())
