@@ -18,6 +18,7 @@ import torch
 
 from treewright import decode as decode_module
 from treewright import inference
+from treewright.engine import maxplus
 from treewright.decode import (TreeScorer, coarse_name, decode, max_rule_product, mbr_decode,
                                mbr_spans, span_tables, tree_logprob_summed)
 from _grammars import random_grammar
@@ -594,34 +595,6 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
         path == "items" or nats_per_word == 0.01)
 
 
-@pytest.mark.parametrize("dense", [0.0, 0.2, 1.0])
-@pytest.mark.parametrize("depth", [1, 3, 64])
-@pytest.mark.parametrize("dtype", [torch.float64, torch.float32])
-def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense):
-    # Reference: brute force, max over every column of values[m, k] + weights[r, k]. The rows
-    # mix peaked and flat ones, rows that are -inf throughout or in places, weights of
-    # probability zero, and exact ties between two columns; `dense` 0 sends every chunk after
-    # the first through every column, 1 never.
-    monkeypatch.setattr(decode_module, "MAX_PLUS_CHUNK", 2 ** 9)
-    monkeypatch.setattr(decode_module, "MAX_PLUS_BROADCAST", 2 ** 8)
-    monkeypatch.setattr(decode_module, "MAX_PLUS_DENSE", dense)
-    gen = torch.Generator().manual_seed(11)
-    M, R, K = 40, 7, 12
-    values = torch.randn(M, K, generator=gen, dtype=torch.float64) * \
-        torch.linspace(0.1, 12.0, M, dtype=torch.float64)[:, None]
-    values[3] = -math.inf
-    values[5, ::2] = -math.inf
-    values[8, 1:] = -math.inf
-    values[10, 9] = values[10, 4] = values[10].max() + 1.0            # a tie, columns 4 and 9
-    weights = torch.log_softmax(torch.randn(R, K, generator=gen, dtype=torch.float64) * 3, -1)
-    weights[2, 4] = -math.inf
-    weights[:, 9] = weights[:, 4]
-    values, weights = values.to(dtype), weights.to(dtype)
-    want = (values[:, None, :] + weights[None]).amax(-1)
-    got = decode_module._max_plus(values, decode_module._MaxPlusWeights(weights), depth)
-    assert torch.equal(got, want)
-
-
 @pytest.mark.parametrize("decoder,depth", [("mbr", None), ("max-rule-product", 16),
                                            ("max-rule-product", 2)])
 @pytest.mark.parametrize("kind", ["independent", "lowrank"])
@@ -637,7 +610,8 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch
     # candidate columns its bounds leave some entries to the pass over every column).
     from treewright.params import IndependentParams, LowRankParams
     if depth is not None:
-        monkeypatch.setattr(decode_module, "MAX_PLUS_TOP", depth)
+        monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
+        monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
     gen = torch.Generator().manual_seed(4)
     if kind == "independent":
@@ -678,7 +652,8 @@ def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatc
     # every parsed sentence still gets its tree, the same one here (no near-ties), with the
     # objective equal to float32 precision.
     from treewright.params import IndependentParams
-    monkeypatch.setattr(decode_module, "MAX_PLUS_TOP", depth)
+    monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
+    monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
     model = IndependentParams(6, 8, 6, init_scale=3.0,
                               generator=torch.Generator().manual_seed(8), dtype=torch.float32)

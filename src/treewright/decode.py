@@ -49,6 +49,7 @@ from treewright import engine
 from treewright.corpus.batching import length_batches
 from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
+from treewright.engine.maxplus import MaxPlusWeights, max_plus
 from treewright.errors import InputError
 from treewright.inference import encode, encode_ids, pad_ids, spans_to_tree
 from treewright.params.independent import IndependentRules
@@ -484,102 +485,15 @@ def _max_rule_product_factored(tables: engine.SpanTables, lengths: Sequence[int]
     return _decode_again(None, tables, lengths, lay, results, redo, lowest, coarse_log, bound)
 
 
-MAX_PLUS_CHUNK = 2 ** 22  # elements of the largest temporary of `_max_plus`
-MAX_PLUS_BROADCAST = 2 ** 21  # ... of a broadcast over every column (8 MB in float32: faster
-                              # than 16 MB on the 2-core machine, at 3.5 billion sums a second)
-MAX_PLUS_TOP = 24         # candidate columns per value row of `_max_plus`
-MAX_PLUS_DENSE = 0.2      # share of entries left unsettled above which `_max_plus` goes dense
-
-
-class _MaxPlusWeights:
-    """The weights of `_max_plus`, (R, K) in log space, laid out for its bounds: transposed
-    (columns as rows, for gathering candidates), each row's maximum, and in probability space
-    (for the bound by mass)."""
-
-    def __init__(self, weights: Tensor):
-        self.log = weights
-        self.by_column = weights.t().contiguous()                       # (K, R)
-        self.row_max = weights.max(-1).values                           # (R,)
-        self.prob_t = weights.exp().t().contiguous()                    # (K, R)
-
-
-def _max_plus(values: Tensor, weights: _MaxPlusWeights, d: int) -> Tensor:
-    """(M, R) max_k values[m, k] + weights[r, k], for `values` (M, K) and `weights` (R, K),
-    weights at most 0 (log-probabilities): a matrix product in the max-plus semiring, exactly,
-    but mostly over the `d` largest columns of each value row. Rows of `values` that are -inf
-    throughout give -inf without being computed. (Each entry is the float sum of one value and
-    one weight, so the column that gives it is found again by comparing sums, as
-    `_max_rule_product_independent` does for the few entries its tree uses.)
-
-    Two bounds on every other column k of an entry (m, r): values[m, k] + weights[r, k] is at
-    most the value row's (d+1)-th largest plus the weight row's largest (the threshold test of
-    Fagin, Lotem & Naor 2003, "Optimal aggregation algorithms for middleware", at depth d on
-    one side), and at most the log of the sum of exp(values[m, k] + weights[r, k]) over all
-    such k (the mass left out: one matrix product over every column, each value row shifted by
-    its maximum, with the candidates' columns set to zero; with room for the product's
-    rounding, at most (K + 2) units of the last place of the sum, and for terms that underflow,
-    each below the dtype's smallest normal number). Where the best candidate is above the
-    lower bound, it is the maximum; the entries where it is not are computed over every column
-    (every entry of a chunk of rows, and of the rows after it, once more than `MAX_PLUS_DENSE`
-    of its entries are left: flat rows, where the candidates save nothing). Temporaries in
-    chunks of at most `MAX_PLUS_CHUNK` elements."""
-    M, R = values.shape[0], weights.log.shape[0]
-    K = values.shape[1]
-    best = torch.full((M, R), NEG_INF, dtype=values.dtype)
-    rows = torch.isfinite(values).any(-1).nonzero().flatten()
-    d = min(d, K)
-    info = torch.finfo(values.dtype)
-    rounding, lost = (K + 2) * info.eps, K * info.tiny
-    chunk = max(1, MAX_PLUS_CHUNK // (R * max(d, K // 16)))
-    dense_chunk = max(1, MAX_PLUS_BROADCAST // (R * K))
-    dense = False
-    r0 = 0
-    while r0 < len(rows):
-        if dense:
-            at = rows[r0:r0 + dense_chunk]
-            best[at] = (values.index_select(0, at)[:, None, :] + weights.log[None]).amax(-1)
-            r0 += len(at)
-            continue
-        at = rows[r0:r0 + chunk]
-        r0 += len(at)
-        own = values.index_select(0, at)                                # (c, K)
-        v_top, v_at = own.topk(min(d + 1, K), -1)
-        v_next = v_top[:, d] if d < K else torch.full_like(v_top[:, 0], NEG_INF)
-        shift = v_top[:, :1]
-        value = weights.by_column.index_select(0, v_at[:, 0]) + v_top[:, :1]    # (c, R)
-        for j in range(1, d):
-            value = torch.maximum(value, weights.by_column.index_select(0, v_at[:, j]) +
-                                  v_top[:, j:j + 1])
-        best[at] = value
-        threshold = v_next[:, None] + weights.row_max[None, :]
-        left_out = (own - shift).exp().scatter_(1, v_at[:, :d], 0.0)    # (c, K)
-        rest = left_out @ weights.prob_t                                # (c, R)
-        rest = rest + rounding * rest + lost
-        room = 8 * info.eps * (shift.abs() + value.abs() + 1)     # the sums' and log's rounding
-        mass = rest.log() + shift + room
-        settled = (value > torch.minimum(threshold, mass)) | torch.isneginf(threshold)
-        rm, rr = (~settled).nonzero().unbind(1)
-        if len(rm) > MAX_PLUS_DENSE * value.numel():
-            dense = True
-            r0 -= len(at)
-            continue
-        step = max(1, MAX_PLUS_CHUNK // (4 * K))
-        for f0 in range(0, len(rm), step):
-            fm, fr = rm[f0:f0 + step], rr[f0:f0 + step]
-            best[at[fm], fr] = (own.index_select(0, fm) +
-                                weights.log.index_select(0, fr)).amax(-1)
-    return best
-
-
 class _IndependentFactors:
-    """The factors of independent productions as `_max_plus` reads them, made once for every
-    batch: (left, right) over preterminal children (`words`) and over nonterminal ones
-    (`spans`)."""
+    """The factors of independent productions as `engine.maxplus.max_plus` reads them, made
+    once for every batch: (left, right) over preterminal children (`words`) and over
+    nonterminal ones (`spans`)."""
 
     def __init__(self, rules: IndependentRules, nt: int, dtype: torch.dtype):
         left, right = rules.left.to(dtype), rules.right.to(dtype)
-        self.words = (_MaxPlusWeights(left[:, nt:]), _MaxPlusWeights(right[:, nt:]))
-        self.spans = (_MaxPlusWeights(left[:, :nt]), _MaxPlusWeights(right[:, :nt]))
+        self.words = (MaxPlusWeights(left[:, nt:]), MaxPlusWeights(right[:, nt:]))
+        self.spans = (MaxPlusWeights(left[:, :nt]), MaxPlusWeights(right[:, :nt]))
 
 
 def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTables,
@@ -602,7 +516,8 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
 
     with best(T, i, i+1) the word's label posterior, and the tree's score is max_A mu(A, 0, n)
     best(A, 0, n) (the top label's posterior). L and R are max-plus products of a span's
-    vector with the factor matrices, once per span and side (`_max_plus`), not once per split.
+    vector with the factor matrices, once per span and side (`engine.maxplus.max_plus`), not
+    once per split.
     Ties go to the first split, then the first child symbol, as in the item pass. Returns, per
     sentence, the labeled spans (start, end, symbol name; words included) and the log score,
     or None for a sentence without a parse. `factors`: `_IndependentFactors(rules, nt, dtype)`,
@@ -632,7 +547,7 @@ def _max_rule_product_independent(rules: IndependentRules, tables: engine.SpanTa
         child_of[W] = child
         flat = child.reshape(B * m, -1)
         sides = factors.words if W == 1 else factors.spans
-        lv[W], rv[W] = (_max_plus(flat, side, MAX_PLUS_TOP).view(B, m, nt) for side in sides)
+        lv[W], rv[W] = (max_plus(flat, side).view(B, m, nt) for side in sides)
 
     def child(W: int, b: int, i: int, x: int, side: int) -> int:
         """The best child symbol of parent x on one side (0 left, 1 right) over the span of

@@ -15,28 +15,21 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
+from treewright.engine.maxplus import MaxPlusWeights, max_plus
+
 NEG_INF = float("-inf")
 
 
-CHUNK = 2 ** 21  # elements of the largest temporary of a max over children
-
-
-def _best_children(scores: Tensor, rules: Tensor) -> Tensor:
+def _best_children(scores: Tensor, rules: MaxPlusWeights) -> Tensor:
     """max over (y, z) of rules[x, y, z] + scores[..., y, z].
 
-    scores: (B, P, Y, Z), rules: (NT, Y, Z) -> values (B, P, NT). Rows (B * P) are taken in
-    chunks so that the sum (rows, NT, Y * Z) stays small. The maxima alone: `amax` ran many
-    times faster than `max` with its indices here, and the children that won are found again
-    for the nodes of the best trees only (`_backtrace`, the same float sums).
+    scores: (B, P, Y, Z), rules: the (NT, Y * Z) rules as `max_plus` weights -> values
+    (B, P, NT): a max-plus product of each span's pair scores with the rules, mostly over the
+    span's best pairs (`engine.maxplus`). The maxima alone: the children that won are found
+    again for the nodes of the best trees only (`_backtrace`, the same float sums).
     """
     Bt, P, X, Y = scores.shape
-    rows = scores.reshape(Bt * P, 1, X * Y)
-    flat_rules = rules.reshape(1, -1, X * Y)
-    values = scores.new_empty(Bt * P, rules.shape[0])
-    step = max(1, CHUNK // max(1, rules.numel()))
-    for r0 in range(0, Bt * P, step):
-        torch.amax(rows[r0:r0 + step] + flat_rules, -1, out=values[r0:r0 + step])
-    return values.view(Bt, P, -1)
+    return max_plus(scores.reshape(Bt * P, X * Y), rules).view(Bt, P, -1)
 
 
 def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
@@ -45,21 +38,13 @@ def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
     term: (B, N, T) word scores, rules: (NT, Y, T) -> (B, N, NT, Y). A block with a word child
     scores the same word at every span that ends (or starts) there, so the max over its
     preterminal is taken once per position rather than once per span: the per-span work of the
-    block drops from NT * Y * T to NT * Y. The max runs as T elementwise maxima over (rows,
-    NT * Y), several times faster than a reduction over a short last axis; which preterminal
-    won is found again for the few words of the best trees (`_word_preterminal`).
+    block drops from NT * Y * T to NT * Y. The max is a max-plus product of the word scores
+    with the rules, mostly over each word's best preterminals (`engine.maxplus`); which
+    preterminal won is found again for the few words of the best trees (`_word_preterminal`).
     """
     Bt, N, T = term.shape
-    flat = rules.permute(2, 0, 1).reshape(T, -1)                        # (T, NT * Y)
-    rows = term.reshape(Bt * N, T)
-    out = term.new_empty(Bt * N, flat.shape[1])
-    step = max(1, CHUNK // 16 // max(1, flat.shape[1]))   # rows whose maxima stay in cache
-    for r0 in range(0, Bt * N, step):
-        part, word = out[r0:r0 + step], rows[r0:r0 + step]
-        torch.add(word[:, 0, None], flat[0], out=part)
-        for z in range(1, T):
-            torch.maximum(part, word[:, z, None] + flat[z], out=part)
-    return out.view(Bt, N, *rules.shape[:2])
+    weights = MaxPlusWeights(rules.reshape(-1, T))                      # (NT * Y, T)
+    return max_plus(term.reshape(Bt * N, T), weights).view(Bt, N, *rules.shape[:2])
 
 
 def _word_preterminal(word: Tensor, rules: Tensor) -> int:
@@ -102,7 +87,7 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         root = root.expand(B, -1)
     lengths = torch.as_tensor(lengths, dtype=torch.long)
     with torch.no_grad():
-        r_nn = binary[:, :NT, :NT]
+        r_nn = MaxPlusWeights(binary[:, :NT, :NT].reshape(NT, NT * NT))
         min_w = 1 if nt_terminal is not None else 2
         term = terminal                                            # (B, N, T)
         if T:

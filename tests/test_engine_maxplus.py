@@ -1,0 +1,45 @@
+"""`engine.maxplus.max_plus` against the maximum over every column, computed by brute force."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+import torch
+
+from treewright.engine import maxplus
+
+
+@pytest.mark.parametrize("shape", [(40, 7, 12), (40, 30, 6)])
+@pytest.mark.parametrize("dense", [0.0, 0.2, 1.0])
+@pytest.mark.parametrize("depth", [1, 3, 64])
+@pytest.mark.parametrize("dtype", [torch.float64, torch.float32])
+def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense, shape):
+    # Reference: brute force, max over every column of values[m, k] + weights[r, k]. The rows
+    # mix peaked and flat ones, rows that are -inf throughout or in places, weights of
+    # probability zero, and exact ties between two columns; `dense` 0 sends every chunk after
+    # the first through every column, 1 never. Shapes: weights with fewer rows than columns
+    # (the dense mode broadcasts) and with more (it loops over the columns).
+    shipped = maxplus.BOUNDED_FROM
+    monkeypatch.setattr(maxplus, "CHUNK", 2 ** 9)
+    monkeypatch.setattr(maxplus, "BROADCAST", 2 ** 8)
+    monkeypatch.setattr(maxplus, "DENSE_SHARE", dense)
+    monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)     # the bounds even for this small product
+    gen = torch.Generator().manual_seed(11)
+    M, R, K = shape
+    values = torch.randn(M, K, generator=gen, dtype=torch.float64) * \
+        torch.linspace(0.1, 12.0, M, dtype=torch.float64)[:, None]
+    values[3] = -math.inf
+    values[5, ::2] = -math.inf
+    values[8, 1:] = -math.inf
+    values[10, K - 3] = values[10, 4] = values[10].max() + 1.0        # a tie between columns
+    weights = torch.log_softmax(torch.randn(R, K, generator=gen, dtype=torch.float64) * 3, -1)
+    weights[2, 4] = -math.inf
+    weights[:, K - 3] = weights[:, 4]
+    values, weights = values.to(dtype), weights.to(dtype)
+    want = (values[:, None, :] + weights[None]).amax(-1)
+    got = maxplus.max_plus(values, maxplus.MaxPlusWeights(weights), depth)
+    assert torch.equal(got, want)
+    assert maxplus._by_columns(maxplus.MaxPlusWeights(weights)) == (R > K)
+    monkeypatch.setattr(maxplus, "BOUNDED_FROM", shipped)   # as shipped: every column at once
+    assert torch.equal(maxplus.max_plus(values, maxplus.MaxPlusWeights(weights), depth), want)
