@@ -597,7 +597,7 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
 
 @pytest.mark.parametrize("decoder,depth", [("mbr", None), ("max-rule-product", 16),
                                            ("max-rule-product", 2)])
-@pytest.mark.parametrize("kind", ["independent", "lowrank"])
+@pytest.mark.parametrize("kind", ["independent", "lowrank", "lowrank, items"])
 def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch, kind, decoder,
                                                                       depth):
     # Reference: decode(..., decoder) on the Grammar of the dense rules the factors imply (both
@@ -607,8 +607,12 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch
     # an unknown word get no tree from either. The factored max-rule-product is the item pass
     # alone, under a known tree's floor (`_max_rule_product_factored`) for low-rank rules, and
     # the chart pass of `_max_rule_product_independent` for independent productions (with 2
-    # candidate columns its bounds leave some entries to the pass over every column).
+    # candidate columns its bounds leave some entries to the pass over every column). Low-rank
+    # rules decode on their dense grammar when it is small, else ("lowrank, items") by the item
+    # pass alone.
     from treewright.params import IndependentParams, LowRankParams
+    if kind == "lowrank, items":
+        monkeypatch.setattr(decode_module, "LOWRANK_DENSE_AT_MOST", 0)
     if depth is not None:
         monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
         monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
@@ -619,7 +623,7 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch
     else:
         model = LowRankParams(4, 5, 5, 6, dim=8, blocks=1, generator=gen, dtype=torch.float64)
     with torch.no_grad():
-        if kind == "lowrank":   # sharpen the nearly uniform initial rules
+        if kind != "independent":   # sharpen the nearly uniform initial rules
             for p in (model.symbol_embeddings, model.rank_embeddings, model.start_embedding):
                 p.mul_(8.0)
         rules = model.rules()
@@ -644,19 +648,27 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch
         assert g.tree_logprob == pytest.approx(w.tree_logprob, abs=1e-9)
 
 
-@pytest.mark.parametrize("depth", [16, 2])
-def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatch, depth):
+@pytest.mark.parametrize("kind,depth", [("independent", 16), ("independent", 2),
+                                        ("lowrank", 2)])
+def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatch, kind, depth):
     # Reference: decode(..., "max-rule-product") in float64 on the implied dense grammar
     # (checked against enumeration above). Runs of factored rules decode in their float32; the
     # bound and the known tree's floor then leave room for float32 rounding (`_slack`), so
     # every parsed sentence still gets its tree, the same one here (no near-ties), with the
-    # objective equal to float32 precision.
-    from treewright.params import IndependentParams
+    # objective equal to float32 precision. Low-rank rules this small decode on their dense
+    # grammar, in float32.
+    from treewright.params import IndependentParams, LowRankParams
     monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
-    model = IndependentParams(6, 8, 6, init_scale=3.0,
-                              generator=torch.Generator().manual_seed(8), dtype=torch.float32)
+    gen = torch.Generator().manual_seed(8)
+    if kind == "independent":
+        model = IndependentParams(6, 8, 6, init_scale=3.0, generator=gen, dtype=torch.float32)
+    else:
+        model = LowRankParams(6, 8, 6, 10, dim=8, blocks=1, generator=gen, dtype=torch.float32)
+        with torch.no_grad():   # sharpen the nearly uniform initial rules
+            for p in (model.symbol_embeddings, model.rank_embeddings, model.start_embedding):
+                p.mul_(8.0)
     with torch.no_grad():
         rules = model.rules()
     vocab = Vocabulary([f"w{i}" for i in range(6)], unk=None)
@@ -677,9 +689,11 @@ def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatc
 
 def test_lowrank_max_rule_product_refuses_posteriors_too_flat_for_it(monkeypatch):
     # Common practice (a clear refusal rather than the system's out-of-memory killer): low-rank
-    # rules have no pass over the whole chart, so a sentence whose posteriors leave more
-    # anchored rules than the item pass takes is refused with the count and the way out.
-    # (Independent productions have one: `_max_rule_product_independent`, tested above.)
+    # rules too large for their dense tensor have no pass over the whole chart, so a sentence
+    # whose posteriors leave more anchored rules than the item pass takes is refused with the
+    # count and the way out. (Independent productions have one:
+    # `_max_rule_product_independent`; small low-rank rules decode on their dense grammar, which
+    # has one: both tested above.)
     from treewright.errors import InputError
     from treewright.params import LowRankParams
     from treewright.params.tabular import symbol_names
@@ -694,6 +708,10 @@ def test_lowrank_max_rule_product_refuses_posteriors_too_flat_for_it(monkeypatch
                                        decoder="max-rule-product")
     assert ok[0].tree is not None
     monkeypatch.setattr(decode_module, "FACTORED_RULES_AT_MOST", 0)
+    dense = decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentence,
+                                          decoder="max-rule-product")      # the dense grammar
+    assert dense[0].tree.to_string() == ok[0].tree.to_string()
+    monkeypatch.setattr(decode_module, "LOWRANK_DENSE_AT_MOST", 0)
     with pytest.raises(InputError, match=r"sentence of 5 words leave [\d,]+ anchored rules"
                                          r".*decode with mbr"):
         decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentence,

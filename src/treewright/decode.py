@@ -54,6 +54,7 @@ from treewright.errors import InputError
 from treewright.inference import encode, encode_ids, pad_ids, spans_to_tree
 from treewright.params.independent import IndependentRules
 from treewright.params.lexicalized import LexicalizedParams
+from treewright.params.tabular import rules_to_grammar
 from treewright.trees import Tree, tree_from_spans
 from treewright.vocab import Vocabulary
 
@@ -1487,6 +1488,8 @@ def _encodable(vocab: Vocabulary, words: Sequence[Sequence[str]]
 
 
 FACTORED_DECODERS = ("mbr", "max-rule-product")  # decoders of factored rules
+LOWRANK_DENSE_AT_MOST = 2 ** 25  # entries of low-rank rules' (NT, S, S) tensor up to which
+                                 # max-rule-product decodes with it (about 1 GB as it is laid out)
 
 
 def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
@@ -1502,9 +1505,14 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
     its most probable preterminal, as `mbr` labels them; `score` is the expected number of
     correct spans. max-rule-product (`span_tables`): every symbol is its own coarse symbol, and
     the tree maximizing the product of anchored rule posteriors is found, for independent
-    productions, by a chart pass over the factors (`_max_rule_product_independent`), and for
-    low-rank rules by the item pass alone (`_max_rule_product_factored`), each rule read from
-    the factors (`binary_logprob`); `score` is its log rule-posterior product. `tree_logprob`
+    productions, by a chart pass over the factors (`_max_rule_product_independent`); for
+    low-rank rules whose (NT, S, S) tensor has at most `LOWRANK_DENSE_AT_MOST` entries, by
+    `max_rule_product` on the grammar of that tensor (the span tables still from the factors),
+    which falls back on a pass over the whole chart where the posteriors leave too many
+    anchored rules; for larger low-rank rules, by the item pass alone
+    (`_max_rule_product_factored`), each rule read from the factors (`binary_logprob`),
+    which refuses a sentence whose posteriors leave too many. `score` is the tree's log
+    rule-posterior product. `tree_logprob`
     is the tree's log-probability under the rules. The rules' dtype is the decoding dtype.
     `vocab` is the rules' vocabulary and `nonterminals`, `preterminals` their symbol names
     (`params.symbol_names`). A sentence with a word outside the vocabulary gets no tree."""
@@ -1516,6 +1524,11 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
     layout = CoarseLayout.of_rules(rules.binary_logprob, symbols, nt)
     factors = _IndependentFactors(rules, nt, rules.left.dtype) \
         if decoder == "max-rule-product" and isinstance(rules, IndependentRules) else None
+    dense = None     # low-rank rules small enough for their (NT, S, S) tensor: (grammar, layout)
+    if decoder == "max-rule-product" and factors is None and \
+            nt * len(symbols) ** 2 <= LOWRANK_DENSE_AT_MOST:
+        grammar = rules_to_grammar(rules.dense(), nonterminals, preterminals, vocab)
+        dense = grammar, CoarseLayout.of(grammar, rules.u.dtype)
 
     def batch(words: list[list[str]]) -> list[Decoded]:
         out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
@@ -1533,6 +1546,8 @@ def decode_factored(rules, vocab: Vocabulary, nonterminals: Sequence[str],
                 if factors is not None:      # independent productions
                     found = _max_rule_product_independent(rules, tables, n, symbols, nt,
                                                           factors)
+                elif dense is not None:      # low-rank rules whose dense tensor fits
+                    found = max_rule_product(dense[0], tables, n, dense[1])
                 else:
                     found = max_rule_product(None, tables, n, layout)
         parsed = [b for b in range(len(known)) if math.isfinite(float(logz[b]))]
