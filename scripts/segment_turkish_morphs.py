@@ -28,7 +28,7 @@ import sysconfig
 import time
 from pathlib import Path
 
-from treewright.adaptor import AdaptorSampler
+from treewright.adaptor import AdaptorSampler, characters
 from treewright.adaptor.grammars import morph_grammar
 from treewright.adaptor.morphs import (MORPH_SYMBOLS, baseline_scores, by_type,
                                        morph_segmentations, read_written_words)
@@ -61,7 +61,8 @@ def main(argv: list[str] | None = None) -> None:
           f"{sum(len(m) - 1 for m in written.split)} gold boundaries), {len(types)} types, "
           f"from {written.sentences} sentences of {args.conllu.name}")
     start = time.perf_counter()
-    sampler = AdaptorSampler(morph_grammar("".join(types)), [list(t) for t in types],
+    chars = [characters(t) for t in types]      # a letter and its combining marks: one
+    sampler = AdaptorSampler(morph_grammar([c for t in chars for c in t]), chars,
                              chains=args.chains, seed=args.seed, source=str(args.conllu))
     tally = BoundaryTally.of(sampler)
     recorded = set(recorded_sweeps(args.sweeps, args.samples, args.sample_every))

@@ -64,6 +64,37 @@ def test_utterances_are_read_as_characters_and_gold_words():
     assert characters("ka lu") == ["k", "a", "l", "u"]
 
 
+def test_a_character_is_a_grapheme_cluster_not_a_code_point():
+    # Fact of the trade (Unicode Standard Annex #29, extended grapheme clusters): a letter with
+    # a combining mark, a Devanagari consonant with its dependent vowel sign (U+0940, U+093F),
+    # a Hangul syllable written as conjoining jamo each read as one character, and U+200D
+    # stays with what precedes it (rule GB9) but joins two letters into one character only
+    # between pictographs (GB11); written by hand from the standard's rules, not from our code.
+    assert characters("te\u0301ka") == ["t", "e\u0301", "k", "a"]
+    assert characters("\u0928\u0940\u0932\u093e \u0915\u093f") == \
+        ["\u0928\u0940", "\u0932\u093e", "\u0915\u093f"]
+    assert characters("\u1112\u1161\u11ab\u1100\u1161") == \
+        ["\u1112\u1161\u11ab", "\u1100\u1161"]
+    assert characters("a\u200db c") == ["a\u200d", "b", "c"]
+    assert characters("\U0001F33F\u200d\U0001F33F") == ["\U0001F33F\u200d\U0001F33F"]
+
+
+def test_utterance_files_lose_their_byte_order_mark_and_name_a_bad_line(tmp_path):
+    # Common practice: a UTF-8 byte-order mark is not text, and CRLF line ends are line ends;
+    # bytes that are not UTF-8 are refused with the file and line they are on.
+    from treewright.adaptor import read_utterances
+    path = tmp_path / "lines.txt"
+    path.write_bytes("\ufeffkelu mar\r\n\r\nso\u0301navi\r\n".encode("utf-8"))
+    read = read_utterances(path)
+    assert read.characters == [list("kelumar"), ["s", "o\u0301", "n", "a", "v", "i"]]
+    assert read.gold == [["kelu", "mar"], ["so\u0301navi"]]
+    assert (read.lines, read.blank) == ([1, 3], 1)
+    path.write_bytes(b"kelu\nma\xe9r\n")
+    with pytest.raises(InputError, match="not UTF-8") as err:
+        read_utterances(path)
+    assert err.value.line == 2 and str(path) in str(err.value)
+
+
 def test_segment_cuts_at_the_top_most_nodes_of_the_symbol():
     g = parse_grammar(WORDS)
     ids = {n: i for i, n in enumerate(g.symbols)}

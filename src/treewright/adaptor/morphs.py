@@ -26,7 +26,7 @@ from typing import Iterable, Sequence
 
 from treewright.adaptor.model import Tree
 from treewright.adaptor.sampler import AdaptorSampler
-from treewright.adaptor.segment import boundaries, cut
+from treewright.adaptor.segment import boundaries, characters, cut
 from treewright.corpus import ReadOptions, read_corpus
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
 from treewright.word_pieces import split_words
@@ -95,7 +95,7 @@ def read_written_words(path: str | Path) -> WrittenWords:
 def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScores]:
     """Scores of the no-split and split-every-character baselines against `gold` morphs."""
     whole = [["".join(m)] for m in gold]
-    chars = [list("".join(m)) for m in gold]
+    chars = [characters("".join(m)) for m in gold]
     return {"no split": evaluate_segmentation(whole, gold),
             "every character": evaluate_segmentation(chars, gold)}
 

@@ -44,7 +44,7 @@ from treewright.adaptor.morphs import (MORPH_SYMBOLS, WrittenWords, baseline_sco
                                        morph_segmentations, read_written_words)
 from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
 from treewright.adaptor.sampler import AdaptorSampler, annealing
-from treewright.adaptor.segment import Utterances, read_utterances
+from treewright.adaptor.segment import Utterances, characters, read_utterances
 from treewright.config import dump_config_yaml
 from treewright.errors import InputError
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
@@ -130,7 +130,7 @@ def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
     if cfg.data.format == "conllu":
         written = read_written_words(cfg.data.text)
         first = written.first_morphs()
-        corpus = Utterances([list(t) for t in first], list(first.values()), [], 0)
+        corpus = Utterances([characters(t) for t in first], list(first.values()), [], 0)
         folder.note(f"read {len(written.morphs)} written words ({len(written.split)} split "
                     f"into tokens), {len(first)} distinct, from {written.sentences} sentences "
                     f"of {cfg.data.text} ({written.skipped} sentences skipped: nothing but "

@@ -14,8 +14,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Sequence
 
+import regex
+
 from treewright.adaptor.model import Cache, Tree, is_leaf, tree_yield
-from treewright.errors import InputError
+from treewright.corpus.lines import iter_lines
 
 
 @dataclass(frozen=True)
@@ -34,21 +36,23 @@ class Utterances:
     blank: int
 
 
+_CLUSTER = regex.compile(r"\X")  # an extended grapheme cluster (Unicode Standard Annex #29)
+
+
 def characters(text: str) -> list[str]:
-    """The characters of a line with its white space taken out: `"ka lu"` -> k, a, l, u."""
-    return [c for c in text if not c.isspace()]
+    """The characters of a line with its white space taken out: `"ka lu"` -> k, a, l, u.
+
+    A character is what a reader of the script takes as one (an extended grapheme cluster of
+    Unicode Standard Annex #29), not a code point: a letter with its combining marks, or a
+    consonant with its dependent vowel sign, is one character, so no segmentation cuts
+    between them."""
+    return [c for c in _CLUSTER.findall(text) if not c.isspace()]
 
 
 def read_utterances(path: str | Path) -> Utterances:
-    """Every non-blank line of a UTF-8 file, as characters and as gold words."""
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("no such text file", path=str(path)) from None
-    except UnicodeDecodeError as err:
-        raise InputError(f"not UTF-8 text (byte {err.start})", path=str(path)) from None
-    return parse_utterances(text.splitlines())
+    """Every non-blank line of a UTF-8 file (a byte-order mark at its start is not text), as
+    characters and as gold words. InputError names the line of bytes that are not UTF-8."""
+    return parse_utterances([text for _, text in iter_lines(path)])
 
 
 def parse_utterances(lines: list[str]) -> Utterances:
