@@ -137,6 +137,11 @@ class RunFolder:
         if self.checkpoint.exists():
             raise InputError(f"the run folder already holds a {self._what}; continue it with "
                              "--resume or choose another output.run_dir", path=str(self.path))
+        for kind, name in CHECKPOINTS.items():   # another command's run: its files stay its own
+            if kind != self.kind and (self.path / name).exists():
+                raise InputError(f"the run folder holds a {kind} run ({name}), whose config and "
+                                 f"metrics a {self.kind} run would overwrite; choose another "
+                                 "output.run_dir", path=str(self.path))
         if config_text is not None:
             atomic_write_text(self.config, config_text)
 
