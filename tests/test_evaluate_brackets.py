@@ -349,3 +349,17 @@ def test_evaluation_imports_no_torch_and_no_reference_libraries():
             "print(sorted(m for m in ('torch', 'sklearn', 'nltk', 'treewright.cli') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_words_that_differ_only_in_unicode_normalization_are_explained():
+    # Fact of the trade (Unicode normalization, UAX #15): U+00E9 and U+0065 U+0301 are the same
+    # letter, composed and decomposed; the refusal says so and names both code point spellings.
+    gold = Bracketing(("t\u00e9ka", "mor"), frozenset({(0, 2, None)}))
+    pred = Bracketing(("te\u0301ka", "mor"), frozenset({(0, 2, None)}))
+    with pytest.raises(InputError, match="two Unicode normalization forms: U[+]0074 U[+]0065 "
+                                         "U[+]0301 U[+]006B U[+]0061 against U[+]0074 U[+]00E9"):
+        evaluate_brackets([pred], [gold])
+    other = Bracketing(("toka", "mor"), frozenset({(0, 2, None)}))
+    with pytest.raises(InputError) as err:
+        evaluate_brackets([other], [gold])
+    assert "normalization" not in str(err.value)

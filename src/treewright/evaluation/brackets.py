@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import random
 import statistics
+import unicodedata
 from dataclasses import asdict, dataclass, fields
 from typing import Sequence, Union
 
@@ -328,7 +329,7 @@ def _check_inputs(pred: list[Bracketing] | None, gold: list[Bracketing],
             p = pred[index]
             sides.append(("predicted", p, path))
             if p.words != g.words:
-                raise InputError(f"sentence {index + 1}: {_word_difference(p.words, g.words)}{against}",
+                raise InputError(f"sentence {index + 1}: {word_difference(p.words, g.words)}{against}",
                                  path=path, line=index + 1)
         for side, b, where in sides:
             n = len(b.words)
@@ -341,11 +342,25 @@ def _check_inputs(pred: list[Bracketing] | None, gold: list[Bracketing],
                                  path=where, line=index + 1)
 
 
-def _word_difference(pred: tuple[str, ...], gold: tuple[str, ...]) -> str:
+def word_difference(pred: Sequence[str], gold: Sequence[str]) -> str:
+    """Where two sentences' words first differ, for an error message."""
     for position, (p, g) in enumerate(zip(pred, gold)):
         if p != g:
-            return f"predicted word {position + 1} is {p!r}, gold has {g!r}"
+            return f"predicted word {position + 1} is {p!r}, gold has {g!r}" + \
+                normalization_hint(p, g)
     return f"predicted sentence has {len(pred)} words, gold has {len(gold)}"
+
+
+def normalization_hint(pred: str, gold: str) -> str:
+    """For two words that differ only in their Unicode normalization (a composed letter against
+    a letter and a combining mark, which look alike), what to do; else ""."""
+    if unicodedata.normalize("NFC", pred) != unicodedata.normalize("NFC", gold):
+        return ""
+
+    def points(word: str) -> str:
+        return " ".join(f"U+{ord(c):04X}" for c in word)
+    return (f" (the same word in two Unicode normalization forms: {points(pred)} against "
+            f"{points(gold)}; write both files in one form, for example NFC)")
 
 
 def _punctuation_positions(gold: Bracketing, conv: BracketConventions) -> list[int]:

@@ -23,7 +23,7 @@ from dataclasses import asdict, dataclass
 from typing import Sequence
 
 from treewright.errors import InputError
-from treewright.evaluation.brackets import BracketConventions
+from treewright.evaluation.brackets import BracketConventions, word_difference
 
 MODEL = "model"
 BASELINES = ("left_chain", "right_chain")
@@ -246,9 +246,9 @@ def _check_inputs(pred: Sequence[Dependencies | Sequence[int] | None],
         kept_words = tuple(g.words[k - 1] for k in kept)
         if isinstance(p, Dependencies):
             if p.words != g.words and p.words != kept_words:
-                what = _word_difference(p.words, g.words)
+                what = word_difference(p.words, g.words)
                 if len(kept) != n:
-                    what += f"; without punctuation, {_word_difference(p.words, kept_words)}"
+                    what += f"; without punctuation, {word_difference(p.words, kept_words)}"
                 raise InputError(f"sentence {index + 1}: {what}{against}", path=path,
                                  line=where(p, index))
             heads = p.heads
@@ -282,11 +282,6 @@ def _check_heads(heads: Sequence[int], n: int, what: str, path: str | None, line
             raise InputError(f"{what} word {word} is its own head", path=path, line=line)
 
 
-def _word_difference(pred: tuple[str, ...], gold: tuple[str, ...]) -> str:
-    for position, (p, g) in enumerate(zip(pred, gold)):
-        if p != g:
-            return f"predicted word {position + 1} is {p!r}, gold has {g!r}"
-    return f"predicted sentence has {len(pred)} words, gold has {len(gold)}"
 
 
 def _describe(conv: BracketConventions) -> dict[str, object]:

@@ -23,6 +23,7 @@ from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracke
                                    Dependencies, DependencyEvaluation, evaluate_attachment,
                                    LikelihoodScores, TagScores, evaluate_brackets, evaluate_tags,
                                    heldout_likelihood, preterminal_labels, words_over_tags)
+from treewright.evaluation.brackets import normalization_hint
 from treewright.trees import Tree, escape_token
 
 # The label `treewright parse` writes over a sentence it could not parse.
@@ -111,7 +112,8 @@ def check_aligned(pred: Sequence[Sentence], gold: Sequence[Sentence], pred_path:
             position = next((k for k, (a, b) in enumerate(zip(pw, gw)) if a != b),
                             min(len(pw), len(gw)))
             what = (f"word {position + 1} is {pw[position]!r}, gold has "
-                    f"{gw[position]!r}") if position < min(len(pw), len(gw)) \
+                    f"{gw[position]!r}{normalization_hint(pw[position], gw[position])}") \
+                if position < min(len(pw), len(gw)) \
                 else f"{len(pw)} words, gold has {len(gw)}"
             raise InputError(f"predicted sentence differs from gold ({what}; gold: {gold_path}, "
                              f"line {g.line})", path=pred_path, line=p.line)
