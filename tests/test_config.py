@@ -395,3 +395,12 @@ def test_describe_config_lists_every_option_with_type_default_and_doc():
     assert "data.dev (path or null, default null)" in lines
     index = lines.index("train.lr (float, default 0.01, range (0, inf))")
     assert lines[index + 1].strip() == "Step size of the optimizer."
+
+
+def test_an_exponent_for_an_integer_option_is_answered_with_the_integer():
+    # Hand-worked: 1e3 is 1000. Unquoted, it reads as a float (YAML 1.2), which an integer option
+    # does not take; the message gives the integer to write. Quoted, it is text.
+    with pytest.raises(ConfigError, match="an integer is written without an exponent: 1000"):
+        load_config(RunSchema, None, ["seed=1e3"])
+    with pytest.raises(ConfigError, match="write numbers without quotes"):
+        load_config(RunSchema, None, ["seed='12'"])

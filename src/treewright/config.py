@@ -451,7 +451,7 @@ class _Builder:
         elif tp is int:
             if isinstance(value, bool) or not isinstance(value, int):
                 return self.problem(key, f"expected an integer, got {_describe(value)}"
-                                         + _quoted_hint(value))
+                                         + _quoted_hint(value, key in self.collected.plain_strings))
         elif tp is float:
             if (isinstance(value, str) and key in self.collected.plain_strings
                     and _YAML12_FLOAT.fullmatch(value)):
@@ -548,12 +548,17 @@ def _choice_hint(value: Any, allowed: Sequence[Any]) -> str:
     return f"; did you mean {close[0]!r}?" if close else ""
 
 
-def _quoted_hint(value: Any) -> str:
+def _quoted_hint(value: Any, plain: bool = False) -> str:
+    """What to write instead of a string that reads as a number; `plain`: it was unquoted (an
+    integer option given an exponent, `1e3`, as the float reading takes it)."""
     if isinstance(value, str):
         try:
-            float(value)
+            number = float(value)
         except ValueError:
             return ""
+        if plain:
+            return (f"; an integer is written without an exponent: "
+                    f"{int(number) if number.is_integer() else number}")
         return "; write numbers without quotes"
     return ""
 
