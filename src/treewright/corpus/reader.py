@@ -14,6 +14,7 @@ from __future__ import annotations
 import os
 import re
 from collections import Counter
+from dataclasses import replace
 from typing import Iterator
 
 from treewright.errors import InputError
@@ -283,26 +284,51 @@ def read_corpus(path: str | os.PathLike, fmt: str = "auto",
                   set_aside=stream.set_aside)
 
 
+def read_records(path: str | os.PathLike, fmt: str = "auto",
+                 options: ReadOptions | None = None) -> list[Sentence]:
+    """One sentence per record of a file, for parsing or scoring it: each tree of a bracketed
+    file, each sentence block of CoNLL-U, each non-blank line of raw text (a blank line holds
+    no sentence; the commands that keep one output line per input line read raw text
+    themselves).
+
+    Bracketed and CoNLL-U files are read as evaluation reads gold (empty elements removed,
+    non-projective sentences lifted), so that trees over `words` line up with that gold.
+    `options` (default: words as written) says how words become `tokens`, as when training
+    read its corpus (`run_read_options`); its `nonprojective` is always "lift". A record that
+    gives no sentence (a malformed one, or one with nothing left after the removals, or too
+    long for `options.max_length`) raises InputError naming its file and line: a sentence
+    dropped here would shift every later output line against the input.
+    """
+    options = replace(options if options is not None else ReadOptions(), nonprojective="lift")
+    stream = CorpusStream(path, fmt, options)
+    sentences = list(stream)
+    blank = stream.fmt == "text"  # an empty raw-text line is no record
+    problems = [r for r in stream.report.skipped if not (blank and r.reason == "empty")]
+    if problems:
+        first = problems[0]
+        detail = f": {first.message}" if first.message else ""
+        what = "parsed from its tags" if options.tag_mode else "read"
+        raise InputError(f"this sentence cannot be {what} ({first.reason}{detail})",
+                         path=first.source, line=first.line, column=first.column)
+    if not sentences:
+        raise InputError(f"no sentences ({stream.report.sentences_read} records read, all "
+                         "blank)", path=stream.path)
+    return sentences
+
+
 def read_tagged(path: str | os.PathLike, fmt: str = "auto") -> list[Sentence] | None:
     """Every sentence of a tagged corpus, for parsing with a grammar trained on tags.
 
     A bracketed or CoNLL-U file gives each sentence's `words` and its tags as `tokens` (the
-    preterminal labels, or UPOS), read as evaluation reads gold trees (empty elements removed,
-    non-projective sentences lifted), so that trees over `words` line up with that gold. None
-    for raw text, whose tokens are the tags themselves with no words beside them. A record that
-    gives no sentence raises InputError naming its line: parses must keep one per record.
+    preterminal labels, or UPOS), read by `read_records`. None for raw text, whose tokens are
+    the tags themselves with no words beside them. A record that gives no sentence raises
+    InputError naming its line: parses must keep one per record.
     """
     if fmt == "auto":
         fmt = detect_format(path)
     if fmt == "text":
         return None
-    corpus = read_corpus(path, fmt, ReadOptions(tag_mode=True, nonprojective="lift"))
-    if corpus.report.skipped:
-        first = corpus.report.skipped[0]
-        detail = f": {first.message}" if first.message else ""
-        raise InputError(f"this sentence cannot be parsed from its tags ({first.reason}{detail})",
-                         path=first.source, line=first.line, column=first.column)
-    return corpus.sentences
+    return read_records(path, fmt, ReadOptions(tag_mode=True))
 
 
 def write_skip_log(report: ReadReport, path: str | os.PathLike) -> int:
