@@ -38,16 +38,38 @@ def _is_unknown(token: str, vocabulary: Vocabulary) -> bool:
     return index is None or index == vocabulary.unk_id
 
 
+# The ID column of a CoNLL-U word line: a word (7), a multiword token's range (3-4) or an empty
+# node (5.1), as the CoNLL-U format defines it.
+_CONLLU_ID = re.compile(r"[0-9]+(-[0-9]+|\.[0-9]+)?")
+_CONLLU_COLUMNS = 10
+
+
+def is_conllu_word_line(text: str) -> bool:
+    """True if `text` has the shape of a CoNLL-U word line: ten tab-separated columns, the
+    first a token id (`1`, `3-4`, `5.1`). A raw-text line with tabs in it rarely has both."""
+    fields = text.split("\t")
+    return len(fields) == _CONLLU_COLUMNS and _CONLLU_ID.fullmatch(fields[0]) is not None
+
+
 def detect_format(path: str | os.PathLike) -> str:
-    """'conllu' for a .conllu/.conll file, 'brackets' if the first non-space character is '(',
-    else 'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
+    """The format of a corpus file, by name and then by content: 'conllu' for a .conllu/.conll
+    file, or one whose first line that is neither blank nor a `#` comment is a CoNLL-U word
+    line (`is_conllu_word_line`); 'brackets' if the first non-space character is '('; else
+    'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
     name = check_readable(path)
     if name.lower().endswith(_CONLLU_EXTENSIONS):
         return "conllu"
+    comments = False
     for _, text in iter_lines(name):
         stripped = text.lstrip()
-        if stripped:
-            return "brackets" if stripped.startswith("(") else "text"
+        if not stripped:
+            continue
+        if text.startswith("#"):  # a CoNLL-U comment, or raw text that starts with '#'
+            comments = True
+            continue
+        if is_conllu_word_line(text):
+            return "conllu"
+        return "brackets" if stripped.startswith("(") and not comments else "text"
     return "text"
 
 

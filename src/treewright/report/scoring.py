@@ -255,8 +255,10 @@ class AttachmentReport:
 
 
 def prediction_format(path: str | Path) -> str:
-    """"conllu" for a .conllu/.conll file or one whose first non-blank line is a comment (`#`)
-    or holds a tab (CoNLL-U columns), else "brackets" (a bracketed tree per line)."""
+    """"conllu" for what `corpus.detect_format` calls CoNLL-U (by name or by its word lines),
+    or a file whose first non-blank line is a comment (`#`) or holds a tab, else "brackets" (a
+    bracketed tree per line). Predictions are one of the two, so a CoNLL-U file with a broken
+    first word line is read as CoNLL-U too, and its error names what is wrong with the line."""
     if detect_format(path) == "conllu":
         return "conllu"
     for _, text in iter_lines(path):
