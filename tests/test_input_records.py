@@ -240,3 +240,17 @@ def test_a_grammar_trained_on_tags_scores_the_tags_of_a_bracketed_file(tmp_path)
     # Hand-worked: NOUN VERB NOUN has one tree, of probability one.
     assert [(r["line"], r["tokens"], r["logprob"]) for r in rows] == \
         [(1, ["NOUN", "VERB", "NOUN"], 0.0)]
+
+
+def test_report_text_reads_one_sentence_per_tree(tmp_path):
+    from treewright.report.html import gather
+
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "grammar.pcfg").write_text(TEXTBOOK.read_text(encoding="utf-8"), encoding="utf-8")
+    found = gather(run, text=write(tmp_path, "s.trees", TREES))
+    # The trees' words, empty element out (worked by hand above), one sentence per tree.
+    assert [(s.line, s.words) for s in found.text] == [(1, SENTENCE[:3]), (2, SENTENCE)]
+    found = gather(run, text=write(tmp_path, "s.txt", "saw stars\n\nstars saw\n"))
+    assert [(s.line, s.words) for s in found.text] == [(1, ["saw", "stars"]),
+                                                        (3, ["stars", "saw"])]
