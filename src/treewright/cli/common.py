@@ -28,18 +28,22 @@ def config_and_folder(args, load):
     return cfg, cfg.output.run_dir or Path("runs") / Path(args.config).stem
 
 
-def read_sentences(path: str) -> list[tuple[int, list[str]]]:
-    """(line number, tokens) of every non-blank line of a raw-text file ('-' reads stdin).
+def read_sentences(path: str, tags: bool = False) -> list[tuple[int, list[str]]]:
+    """(line number, tokens) of every sentence of `path` ('-' reads stdin), as `read_lines`
+    reads them, blank lines of raw text left out."""
+    return [(k, words) for k, words in read_lines(path, tags) if words]
+
+
+def read_lines(path: str, tags: bool = False) -> list[tuple[int, list[str]]]:
+    """(line number, tokens) of every record of `path`, so that output can keep one line per
+    record: every line of raw text ('-' reads stdin as raw text), blank lines included with no
+    tokens; each tree of a bracketed file and each sentence block of a CoNLL-U file (format
+    by `corpus.detect_format`), numbered by its first line, with its words as evaluation reads
+    gold (`corpus.read_records`), or with `tags` its tags (preterminals, UPOS).
 
     Lines are numbered as the corpus readers number them (\n, \r\n and a lone \r end a line),
-    so a message about line k means the same line everywhere."""
-    return [(k, words) for k, words in read_lines(path) if words]
-
-
-def read_lines(path: str) -> list[tuple[int, list[str]]]:
-    """(line number, tokens) of every line of a raw-text file ('-' reads stdin), blank lines
-    included with no tokens, so that output can keep one line per input line. Raises
-    InputError when no line holds a word (numbering as in `read_sentences`)."""
+    so a message about line k means the same line everywhere. Raises InputError when no line
+    holds a word, or naming the file and line of a record that gives no sentence."""
     if path == "-":
         name = "<stdin>"
         text = sys.stdin.read().lstrip("\ufeff").replace("\r\n", "\n").replace("\r", "\n")
@@ -47,13 +51,24 @@ def read_lines(path: str) -> list[tuple[int, list[str]]]:
         if text.endswith("\n"):
             numbered.pop()  # the empty "line" after a final newline is not a line of the input
     else:
-        from treewright.corpus import iter_lines
+        from treewright.corpus import ReadOptions, detect_format, iter_lines, read_records
         name = path
+        if detect_format(path) != "text":
+            return [(s.line, s.tokens) for s in read_records(path, options=ReadOptions(
+                tag_mode=tags))]
         numbered = list(iter_lines(path))
     out = [(k, line.split()) for k, line in numbered]
     if not any(words for _, words in out):
         raise InputError("no sentences (the input is empty or blank)", path=name)
     return out
+
+
+def trained_on_tags(source) -> bool:
+    """True when the grammar's training run read tags (`data.tag_mode`); source: an
+    `export.GrammarSource`."""
+    from treewright.corpus import run_tag_mode
+    config = (source.training or {}).get("config")
+    return run_tag_mode(config.get("data") if isinstance(config, dict) else None)
 
 
 def training_normaliser(source):

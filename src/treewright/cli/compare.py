@@ -19,16 +19,18 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar_a", help="grammar file (text or JSON export) or run folder")
     p.add_argument("grammar_b", help="grammar file (text or JSON export) or run folder")
     p.add_argument("--on", required=True, metavar="TEXT",
-                   help="raw text, one sentence per line ('-': stdin)")
+                   help="raw text, one sentence per line ('-': stdin); or bracketed trees or "
+                        "CoNLL-U, one sentence per tree or block")
     p.add_argument("--json", action="store_true", help="print the comparison as one JSON object")
 
 
 def run(args) -> int:
-    from treewright.cli.common import as_trained, dumps, read_sentences
+    from treewright.cli.common import as_trained, dumps, read_sentences, trained_on_tags
     from treewright.export import compare, open_grammar
 
     source_a, source_b = open_grammar(args.grammar_a), open_grammar(args.grammar_b)
-    lines = read_sentences(args.on)
+    # A bracketed or CoNLL-U file gives its tags when both grammars were trained on tags.
+    lines = read_sentences(args.on, trained_on_tags(source_a) and trained_on_tags(source_b))
     # Each grammar reads the text as its own training run did (a run folder or JSON export
     # records whether its words were lowercased); lowercasing keeps the tokens one for one.
     result = compare(source_a.grammar, source_b.grammar, as_trained(source_a, lines),

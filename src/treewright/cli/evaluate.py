@@ -19,7 +19,9 @@ count as trees without brackets). GOLD holds bracketed trees or CoNLL-U (depende
 become the gold spans). The left-branching, right-branching, random and binary upper-bound trees
 are always scored beside the model on the same sentences. Tags (many-to-one, V-measure) are
 scored when both sides have preterminals/tags. Inputs that do not match stop with an error that
-names the first mismatching line. With --grammar and --text, a text sentence too long for
+names the first mismatching line. --text is read as `treewright score` reads it (raw text: one
+sentence per non-blank line; bracketed trees or CoNLL-U: each record's words). With --grammar
+and --text, a text sentence too long for
 --memory-budget is left out of the likelihood, and the table names its line. The run folder of
 factored rules (model.parameterization independent, independent-neural or lowrank; the run kept
 its last restart) scores the text with its model, as `treewright score` does (no budget).
@@ -48,7 +50,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="also write every score and convention as JSON ('-': stdout, no table)")
     p.add_argument("--grammar", help="grammar (text file, JSON export or run folder), for the held-out "
                         "likelihood of --text")
-    p.add_argument("--text", help="raw text, one sentence per line, scored under --grammar")
+    p.add_argument("--text", help="held-out sentences scored under --grammar: raw text, one "
+                                  "per line (blank lines hold none), or bracketed trees or "
+                                  "CoNLL-U, one per tree or block")
     p.add_argument("--no-tags", action="store_true", help="skip the tag evaluation")
     add_budget_argument(p)
     conv = p.add_argument_group("bracket conventions (defaults: the usual unsupervised setup)")

@@ -51,8 +51,11 @@ decoder's own objective (log p(tree), expected correct spans, log rule-posterior
 consensus the mean F1 against the restarts' mbr trees); these are nan for a sentence over the
 memory budget (not computed).
 
-TEXT may be CoNLL-U (a .conllu/.conll file): its syntactic words are the sentences, one output
-line per sentence block (a grammar trained on tags reads its UPOS instead, as above).
+TEXT may be bracketed trees or CoNLL-U (format by extension and content, as training detects
+it): each tree's words (empty elements removed, as `evaluate` reads gold) or each sentence
+block's syntactic words are a sentence, one output line per tree or block, and a record that
+gives no sentence stops with its file and line (a grammar trained on tags reads the tags
+instead, as above).
 
 Heads: with --heads-out PATH, GRAMMAR must be the run folder of a lexicalized model
 (model.parameterization: lexicalized, train.restarts 1; its training corpus must still be where
@@ -74,7 +77,8 @@ DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus", "lexicalized
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
-    p.add_argument("text", help="raw text, one sentence per line ('-': stdin)")
+    p.add_argument("text", help="raw text, one sentence per line ('-': stdin); or bracketed "
+                                "trees or CoNLL-U, one sentence per tree or block")
     p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
                    help="how the tree is chosen (default: consensus for a run folder that "
                         "saved two or more restarts, mbr for a run of factored rules, else "
@@ -101,8 +105,8 @@ def run(args) -> int:
 
     from treewright.budget import BudgetPlan, plan_budget, run_plan
     from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
-    from treewright.corpus import (detect_format, insert_words, iter_conllu_blocks, iter_lines,
-                                   read_tagged, run_drop_tags, run_tag_mode)
+    from treewright.corpus import (detect_format, insert_words, read_tagged, run_drop_tags,
+                                   run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
                                    decode_lexicalized)
     from treewright.errors import InputError
@@ -173,15 +177,7 @@ def run(args) -> int:
     drop = run_drop_tags(data)
     fmt = "text" if args.text == "-" else detect_format(args.text)
     tagged = read_tagged(args.text, fmt) if on_tags and fmt != "text" else None
-    if tagged is None and fmt == "conllu":  # words of a CoNLL-U file, one sentence per block
-        blocks = []
-        for block in iter_conllu_blocks(iter_lines(args.text), args.text):
-            if isinstance(block, InputError):
-                raise block
-            blocks.append((block.line, list(block.words)))
-        every_line = lines = blocks
-        tokens = as_trained(source, lines)
-    elif tagged is None:
+    if tagged is None:  # raw text lines, or the words of each tree or CoNLL-U block
         every_line = read_lines(args.text)
         lines = [(k, words) for k, words in every_line if words]
         # Tags (raw text read as tags) are never lowercased, as training read them.

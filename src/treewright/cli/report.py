@@ -36,7 +36,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("run", help="run folder (config.yaml, metrics.jsonl, grammar.pcfg)")
     p.add_argument("--gold", help="gold trees (bracketed or CoNLL-U) to parse and score")
     p.add_argument("--gold-format", choices=("auto", "brackets", "conllu"), default="auto")
-    p.add_argument("--text", help="raw sentences for examples and the heat map (without --gold)")
+    p.add_argument("--text", help="sentences for examples and the heat map (without --gold): "
+                                  "raw text, or bracketed trees or CoNLL-U read for their words")
     p.add_argument("--grammar", help="grammar: text file, JSON export or run folder (default: RUN/grammar.pcfg)")
     # The lexicalized decoder is parse's only: the report decodes with grammars.
     p.add_argument("--decoder", choices=[d for d in DECODER_NAMES if d != "lexicalized"],

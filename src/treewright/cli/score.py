@@ -10,6 +10,10 @@ EXAMPLES = """examples:
   treewright score src/treewright/data/examples/astronomers.pcfg sentences.txt
   echo "astronomers saw stars with ears" | treewright score src/treewright/data/examples/astronomers.pcfg -
 
+TEXT is raw text, one sentence per line; a bracketed-tree or CoNLL-U file (see `parse`) gives one
+sentence per tree or sentence block, its words read as `evaluate` reads gold (empty elements
+removed; a grammar trained on tags reads its tags), "line" being the record's first line.
+
 Each sentence (non-blank line) gives one JSON line: {"line", "tokens", "logprob", "parsed",
 "unknown"}; logprob is the natural log of the sum over all trees, null when the sentence has no
 parse. Values carry the digits their precision supports (about 7 in float32, the default;
@@ -29,7 +33,8 @@ SCORE_GROUP = 1024  # sentences between two updates of the progress bar, for a f
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
-    p.add_argument("text", help="raw text, one sentence per line, whitespace tokens ('-': stdin)")
+    p.add_argument("text", help="raw text, one sentence per line, whitespace tokens ('-': "
+                                "stdin); or bracketed trees or CoNLL-U, one sentence per record")
     p.add_argument("--batch-size", type=int, default=64)
     p.add_argument("--float64", action="store_true", help="compute in double precision")
     add_budget_argument(p)
@@ -40,7 +45,7 @@ def run(args) -> int:
 
     from treewright.budget import BudgetPlan, plan_budget, run_plan
     from treewright.cli.common import (as_trained, dumps, read_sentences, shortest,
-                                       warn_over_budget)
+                                       trained_on_tags, warn_over_budget)
     from treewright.export import open_grammar, open_run_record  # text, JSON export or run folder
     from treewright.inference import corpus_summary, score, score_rules
     from treewright.tracking import terminal_progress
@@ -52,7 +57,7 @@ def run(args) -> int:
     if factored is not None:
         # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
         source = open_run_record(args.grammar)
-        lines = read_sentences(args.text)
+        lines = read_sentences(args.text, trained_on_tags(source))
         inputs = as_trained(source, lines)
         plan = BudgetPlan.unbudgeted([len(w) for w in inputs], SCORE_GROUP)
 
@@ -61,7 +66,7 @@ def run(args) -> int:
     else:
         source = open_grammar(args.grammar)
         grammar = source.grammar
-        lines = read_sentences(args.text)
+        lines = read_sentences(args.text, trained_on_tags(source))
         inputs = as_trained(source, lines)
         plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
                            args.batch_size)

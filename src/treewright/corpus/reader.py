@@ -14,6 +14,7 @@ from __future__ import annotations
 import os
 import re
 from collections import Counter
+from dataclasses import replace
 from typing import Iterator
 
 from treewright.errors import InputError
@@ -37,16 +38,38 @@ def _is_unknown(token: str, vocabulary: Vocabulary) -> bool:
     return index is None or index == vocabulary.unk_id
 
 
+# The ID column of a CoNLL-U word line: a word (7), a multiword token's range (3-4) or an empty
+# node (5.1), as the CoNLL-U format defines it.
+_CONLLU_ID = re.compile(r"[0-9]+(-[0-9]+|\.[0-9]+)?")
+_CONLLU_COLUMNS = 10
+
+
+def is_conllu_word_line(text: str) -> bool:
+    """True if `text` has the shape of a CoNLL-U word line: ten tab-separated columns, the
+    first a token id (`1`, `3-4`, `5.1`). A raw-text line with tabs in it rarely has both."""
+    fields = text.split("\t")
+    return len(fields) == _CONLLU_COLUMNS and _CONLLU_ID.fullmatch(fields[0]) is not None
+
+
 def detect_format(path: str | os.PathLike) -> str:
-    """'conllu' for a .conllu/.conll file, 'brackets' if the first non-space character is '(',
-    else 'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
+    """The format of a corpus file, by name and then by content: 'conllu' for a .conllu/.conll
+    file, or one whose first line that is neither blank nor a `#` comment is a CoNLL-U word
+    line (`is_conllu_word_line`); 'brackets' if the first non-space character is '('; else
+    'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
     name = check_readable(path)
     if name.lower().endswith(_CONLLU_EXTENSIONS):
         return "conllu"
+    comments = False
     for _, text in iter_lines(name):
         stripped = text.lstrip()
-        if stripped:
-            return "brackets" if stripped.startswith("(") else "text"
+        if not stripped:
+            continue
+        if text.startswith("#"):  # a CoNLL-U comment, or raw text that starts with '#'
+            comments = True
+            continue
+        if is_conllu_word_line(text):
+            return "conllu"
+        return "brackets" if stripped.startswith("(") and not comments else "text"
     return "text"
 
 
@@ -283,26 +306,51 @@ def read_corpus(path: str | os.PathLike, fmt: str = "auto",
                   set_aside=stream.set_aside)
 
 
+def read_records(path: str | os.PathLike, fmt: str = "auto",
+                 options: ReadOptions | None = None) -> list[Sentence]:
+    """One sentence per record of a file, for parsing or scoring it: each tree of a bracketed
+    file, each sentence block of CoNLL-U, each non-blank line of raw text (a blank line holds
+    no sentence; the commands that keep one output line per input line read raw text
+    themselves).
+
+    Bracketed and CoNLL-U files are read as evaluation reads gold (empty elements removed,
+    non-projective sentences lifted), so that trees over `words` line up with that gold.
+    `options` (default: words as written) says how words become `tokens`, as when training
+    read its corpus (`run_read_options`); its `nonprojective` is always "lift". A record that
+    gives no sentence (a malformed one, or one with nothing left after the removals, or too
+    long for `options.max_length`) raises InputError naming its file and line: a sentence
+    dropped here would shift every later output line against the input.
+    """
+    options = replace(options if options is not None else ReadOptions(), nonprojective="lift")
+    stream = CorpusStream(path, fmt, options)
+    sentences = list(stream)
+    blank = stream.fmt == "text"  # an empty raw-text line is no record
+    problems = [r for r in stream.report.skipped if not (blank and r.reason == "empty")]
+    if problems:
+        first = problems[0]
+        detail = f": {first.message}" if first.message else ""
+        what = "parsed from its tags" if options.tag_mode else "read"
+        raise InputError(f"this sentence cannot be {what} ({first.reason}{detail})",
+                         path=first.source, line=first.line, column=first.column)
+    if not sentences:
+        raise InputError(f"no sentences ({stream.report.sentences_read} records read, all "
+                         "blank)", path=stream.path)
+    return sentences
+
+
 def read_tagged(path: str | os.PathLike, fmt: str = "auto") -> list[Sentence] | None:
     """Every sentence of a tagged corpus, for parsing with a grammar trained on tags.
 
     A bracketed or CoNLL-U file gives each sentence's `words` and its tags as `tokens` (the
-    preterminal labels, or UPOS), read as evaluation reads gold trees (empty elements removed,
-    non-projective sentences lifted), so that trees over `words` line up with that gold. None
-    for raw text, whose tokens are the tags themselves with no words beside them. A record that
-    gives no sentence raises InputError naming its line: parses must keep one per record.
+    preterminal labels, or UPOS), read by `read_records`. None for raw text, whose tokens are
+    the tags themselves with no words beside them. A record that gives no sentence raises
+    InputError naming its line: parses must keep one per record.
     """
     if fmt == "auto":
         fmt = detect_format(path)
     if fmt == "text":
         return None
-    corpus = read_corpus(path, fmt, ReadOptions(tag_mode=True, nonprojective="lift"))
-    if corpus.report.skipped:
-        first = corpus.report.skipped[0]
-        detail = f": {first.message}" if first.message else ""
-        raise InputError(f"this sentence cannot be parsed from its tags ({first.reason}{detail})",
-                         path=first.source, line=first.line, column=first.column)
-    return corpus.sentences
+    return read_records(path, fmt, ReadOptions(tag_mode=True))
 
 
 def write_skip_log(report: ReadReport, path: str | os.PathLike) -> int:

@@ -21,7 +21,8 @@ import yaml
 
 from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
-                               expand_unary, read_corpus, run_read_options, unbinarize)
+                               expand_unary, read_corpus, read_records, run_read_options,
+                               unbinarize)
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
@@ -238,7 +239,8 @@ def gather(run_dir: str | Path, gold: str | Path | None = None, text: str | Path
             raise InputError("gold file has no trees (give bracketed trees or CoNLL-U)",
                              path=str(gold))
     if text is not None:
-        found.text = read_corpus(text, "text", options).sentences
+        # One sentence per non-blank line, tree or CoNLL-U block, as `score` and `parse` read.
+        found.text = read_records(text, options=options)
     if found.gold is None:
         found.missing.append("gold trees (--gold): F1 by length, label recall, gold trees")
     return found

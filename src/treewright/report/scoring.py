@@ -17,7 +17,7 @@ from typing import Callable, Sequence
 
 from treewright.budget import DEFAULT_BUDGET_MB
 from treewright.corpus import (ReadOptions, Sentence, detect_format, iter_conllu_blocks,
-                               iter_lines, read_corpus)
+                               iter_lines, read_corpus, read_records)
 from treewright.errors import InputError
 from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracketing,
                                    Dependencies, DependencyEvaluation, evaluate_attachment,
@@ -149,14 +149,16 @@ def heldout_from_files(grammar_path: str | Path, text_path: str | Path,
                        memory_budget_mb: float | None = DEFAULT_BUDGET_MB,
                        scorer: Callable[[list[list[str]]], list] | None = None
                        ) -> tuple[LikelihoodScores, list[int]]:
-    """Per-word log-likelihood and perplexity of a raw-text file under a grammar (text, JSON
+    """Per-word log-likelihood and perplexity of a text file under a grammar (text, JSON
     export or run folder), and the lines of the sentences left out because each alone needs
     more than `memory_budget_mb` (see `treewright.budget`). A progress bar runs on a terminal.
     The text is read as the grammar's training run read its corpus (lowercased when it was;
-    `corpus.run_read_options`), as `treewright score` reads it. `scorer`, when given, scores
-    the sentences instead of the grammar file's rules (`inference.SentenceScore` per sentence;
-    for a run folder of factored rules, its model's: the file is then not read and no budget
-    applies)."""
+    `corpus.run_read_options`), as `treewright score` reads it: one sentence per non-blank
+    line of raw text, per tree of a bracketed file, per block of CoNLL-U (`corpus.read_records`;
+    blank lines hold no sentence, a record that gives none stops with its line). `scorer`,
+    when given, scores the sentences instead of the grammar file's rules
+    (`inference.SentenceScore` per sentence; for a run folder of factored rules, its model's:
+    the file is then not read and no budget applies)."""
     from treewright.budget import score_within_budget
     from treewright.corpus import run_read_options
     from treewright.export.source import open_grammar, open_run_record
@@ -165,7 +167,7 @@ def heldout_from_files(grammar_path: str | Path, text_path: str | Path,
     source = open_grammar(grammar_path) if scorer is None else open_run_record(grammar_path)
     config = (source.training or {}).get("config")
     options = run_read_options(config.get("data") if isinstance(config, dict) else None)
-    sentences = read_all(text_path, "text", options, "text")
+    sentences = read_records(text_path, options=options)
     if scorer is not None:
         scores = scorer([s.tokens for s in sentences])
     else:
@@ -255,8 +257,10 @@ class AttachmentReport:
 
 
 def prediction_format(path: str | Path) -> str:
-    """"conllu" for a .conllu/.conll file or one whose first non-blank line is a comment (`#`)
-    or holds a tab (CoNLL-U columns), else "brackets" (a bracketed tree per line)."""
+    """"conllu" for what `corpus.detect_format` calls CoNLL-U (by name or by its word lines),
+    or a file whose first non-blank line is a comment (`#`) or holds a tab, else "brackets" (a
+    bracketed tree per line). Predictions are one of the two, so a CoNLL-U file with a broken
+    first word line is read as CoNLL-U too, and its error names what is wrong with the line."""
     if detect_format(path) == "conllu":
         return "conllu"
     for _, text in iter_lines(path):
