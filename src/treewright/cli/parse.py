@@ -213,6 +213,10 @@ def run(args) -> int:
     for i, result in zip(todo, done):
         results[i] = result
     by_line = {line: i for i, (line, _) in enumerate(lines)}
+    # In the induction layout (no nonterminal emits a word; factored rules always) every tree
+    # covers two or more words. A lexicalized model's root may be a preterminal.
+    one_word_impossible = args.decoder != "lexicalized" and \
+        not any(g.nonterminals_emit for g in grammars)
     unparsed = 0
     for line, _ in every_line:
         if line not in by_line:
@@ -225,6 +229,9 @@ def run(args) -> int:
             why = None
             if not inputs[i]:
                 why = f"every tag is one that training removed (data.drop_tags: {sorted(drop)})"
+            elif result is not None and len(inputs[i]) == 1 and one_word_impossible:
+                why = ("one word: the grammar has no rule for a one-word tree (its root "
+                       "rewrites to a nonterminal, and every nonterminal to two children)")
             elif result is not None:  # over the budget was reported already
                 unknown = [w for w in inputs[i] if vocab.lookup(w) < 0]
                 why = f"unknown words {unknown}" if unknown else "no tree covers it"
