@@ -104,7 +104,7 @@ def run(args) -> int:
     from treewright.corpus import (detect_format, insert_words, iter_conllu_blocks, iter_lines,
                                    read_tagged, run_drop_tags, run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
-                                   decode_lexicalized)
+                                   decode_lexicalized, treebank_tree)
     from treewright.errors import InputError
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
@@ -244,9 +244,12 @@ def run(args) -> int:
                       file=sys.stderr)
             fields = ["(NOPARSE " + " ".join(words) + ")"]
         elif all(kept[i]):
-            fields = [result.tree.with_leaves(words).to_string()]  # the words as written
+            # The words as written, in the treebank's form (a refined treebank grammar's
+            # binarization and joined unary chains undone, as refinement scores its trees).
+            fields = [treebank_tree(result.tree).with_leaves(words).to_string()]
         else:
-            fields = [insert_words(result.tree, words, kept[i], tokens[i]).to_string()]
+            fields = [insert_words(treebank_tree(result.tree), words, kept[i],
+                                   tokens[i]).to_string()]
         if args.scores:
             fields += ["nan", "nan"] if result is None else \
                 [repr(result.tree_logprob), repr(result.posterior)]

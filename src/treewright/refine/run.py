@@ -24,8 +24,8 @@ from typing import Callable, Sequence, TextIO
 import torch
 
 from treewright.config import dump_config_yaml
-from treewright.corpus import (ReadOptions, binarize, collapse_unary, expand_unary, read_corpus,
-                               split_indices, unbinarize)
+from treewright.corpus import (ReadOptions, binarize, collapse_unary, read_corpus, split_indices,
+                               treebank_form)
 from treewright.errors import InputError
 from treewright.grammar import parse_grammar
 from treewright.refine.config import RefineConfig, load_refine_config
@@ -85,8 +85,9 @@ def estimate_coarse(trees: Sequence[Tree], start: str = "ROOT") -> LatentGrammar
 
 
 def from_coarse_trees(tree: Tree) -> Tree:
-    """Undo the CNF transforms of `cnf_tree` (labels already coarse)."""
-    return unbinarize(expand_unary(tree))
+    """Undo the CNF transforms of `cnf_tree` (labels already coarse): `corpus.treebank_form`,
+    which `parse`, `export` and `report` apply to the trees they write too."""
+    return treebank_form(tree)
 
 
 # ---- one cycle --------------------------------------------------------------------------------
