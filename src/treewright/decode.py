@@ -47,6 +47,7 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.corpus.batching import length_batches
+from treewright.corpus.transforms import treebank_form
 from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
 from treewright.engine.maxplus import MaxPlusWeights, max_plus
@@ -62,6 +63,13 @@ NEG_INF = float("-inf")
 DECODERS = ("viterbi", "mbr", "max-rule-product")
 ENSEMBLE_DECODERS = ("consensus",)  # decoders of several grammars (`consensus`)
 MODEL_DECODERS = ("lexicalized",)   # decoders of a lexicalized model (`decode_lexicalized`)
+
+
+def treebank_tree(tree: Tree) -> Tree:
+    """A decoded tree as the commands write it: a refined treebank grammar's tree with its
+    labels projected to the coarse symbols and its CNF transforms undone, as refinement's
+    held-out labeled F1 reads it (`corpus.treebank_form`); any other tree unchanged."""
+    return treebank_form(tree, coarse_name)
 
 
 def mbr_spans(span_marginals: Tensor, length: int) -> list[tuple[int, int]]:

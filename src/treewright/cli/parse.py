@@ -108,7 +108,7 @@ def run(args) -> int:
     from treewright.corpus import (detect_format, insert_words, read_tagged, run_drop_tags,
                                    run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
-                                   decode_lexicalized)
+                                   decode_lexicalized, treebank_tree)
     from treewright.errors import InputError
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
@@ -209,6 +209,10 @@ def run(args) -> int:
     for i, result in zip(todo, done):
         results[i] = result
     by_line = {line: i for i, (line, _) in enumerate(lines)}
+    # In the induction layout (no nonterminal emits a word; factored rules always) every tree
+    # covers two or more words. A lexicalized model's root may be a preterminal.
+    one_word_impossible = args.decoder != "lexicalized" and \
+        not any(g.nonterminals_emit for g in grammars)
     unparsed = 0
     for line, _ in every_line:
         if line not in by_line:
@@ -221,6 +225,9 @@ def run(args) -> int:
             why = None
             if not inputs[i]:
                 why = f"every tag is one that training removed (data.drop_tags: {sorted(drop)})"
+            elif result is not None and len(inputs[i]) == 1 and one_word_impossible:
+                why = ("one word: the grammar has no rule for a one-word tree (its root "
+                       "rewrites to a nonterminal, and every nonterminal to two children)")
             elif result is not None:  # over the budget was reported already
                 unknown = [w for w in inputs[i] if vocab.lookup(w) < 0]
                 why = f"unknown words {unknown}" if unknown else "no tree covers it"
@@ -233,9 +240,12 @@ def run(args) -> int:
                       file=sys.stderr)
             fields = ["(NOPARSE " + " ".join(words) + ")"]
         elif all(kept[i]):
-            fields = [result.tree.with_leaves(words).to_string()]  # the words as written
+            # The words as written, in the treebank's form (a refined treebank grammar's
+            # binarization and joined unary chains undone, as refinement scores its trees).
+            fields = [treebank_tree(result.tree).with_leaves(words).to_string()]
         else:
-            fields = [insert_words(result.tree, words, kept[i], tokens[i]).to_string()]
+            fields = [insert_words(treebank_tree(result.tree), words, kept[i],
+                                   tokens[i]).to_string()]
         if args.scores:
             fields += ["nan", "nan"] if result is None else \
                 [repr(result.tree_logprob), repr(result.posterior)]

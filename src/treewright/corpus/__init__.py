@@ -16,7 +16,7 @@ from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, read
                                       read_records, read_tagged, write_skip_log)
 from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binarize,
                                           collapse_unary, expand_unary, insert_words,
-                                          unbinarize)
+                                          treebank_form, unbinarize)
 from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, Corpus, ReadOptions,
                                      ReadReport, Sentence, SkippedRecord, lowercase,
                                      run_case_rules, run_drop_tags, run_read_options,
@@ -32,5 +32,5 @@ __all__ = [
     "lift_to_projective", "lowercase", "nonprojective_arcs", "parse_brackets", "preterminal_tags",
     "read_corpus", "read_records", "read_tagged", "run_case_rules", "run_drop_tags",
     "run_read_options", "run_tag_mode", "split_indices", "strip_label", "subtree_spans",
-    "trees_equal", "unbinarize", "write_skip_log",
+    "treebank_form", "trees_equal", "unbinarize", "write_skip_log",
 ]

@@ -170,8 +170,10 @@ class CorpusStream:
             self._skip("empty", line)
             return None
         if n < self.options.min_length:
-            self._skip("too_short", line, message=f"{n} tokens < min_length "
-                       f"{self.options.min_length}")
+            why = self.options.min_length_reason
+            self._skip("too_short", line, message=f"{n} token{'s' * (n != 1)}, "
+                       f"fewer than {self.options.min_length}: {why}" if why else
+                       f"{n} tokens < min_length {self.options.min_length}")
             return None
         if self.options.max_length is not None and n > self.options.max_length:
             self._skip("too_long", line, message=f"{n} tokens > max_length "
@@ -288,10 +290,7 @@ def read_corpus(path: str | os.PathLike, fmt: str = "auto",
     sentences = list(stream)
     report = stream.report
     if not sentences:
-        detail = ", ".join(f"{count} {reason}" for reason, count
-                           in sorted(report.skipped_by_reason.items())) or "none"
-        raise InputError(f"no usable sentence ({report.sentences_read} read; skipped: "
-                         f"{detail})", path=stream.path)
+        raise InputError(no_usable_sentence(report), path=stream.path)
     vocabulary = stream.options.vocabulary
     if vocabulary is None:
         counts: Counter = Counter()
@@ -336,6 +335,16 @@ def read_records(path: str | os.PathLike, fmt: str = "auto",
         raise InputError(f"no sentences ({stream.report.sentences_read} records read, all "
                          "blank)", path=stream.path)
     return sentences
+
+
+def no_usable_sentence(report: ReadReport) -> str:
+    """The message for a corpus of which no sentence is used: the counts by reason, and the
+    first skipped record with its message, which says why (it names its line)."""
+    detail = ", ".join(f"{count} {reason}" for reason, count
+                       in sorted(report.skipped_by_reason.items())) or "none"
+    first = f"; first: line {report.skipped[0].line}: {report.skipped[0].message}" \
+        if report.skipped and report.skipped[0].message else ""
+    return f"no usable sentence ({report.sentences_read} read; skipped: {detail}{first})"
 
 
 def read_tagged(path: str | os.PathLike, fmt: str = "auto") -> list[Sentence] | None:

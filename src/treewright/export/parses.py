@@ -47,6 +47,7 @@ from typing import Callable, Mapping, Sequence
 
 import torch
 
+from treewright.decode import treebank_tree
 from treewright.grammar import Grammar
 from treewright.inference import viterbi_parse
 from treewright.trees import Tree
@@ -114,7 +115,7 @@ def to_brackets(parsed: Sequence[ParsedSentence]) -> str:
     """One bracketed tree per line, in input order; an empty line for a blank input line."""
     lines = []
     for p in parsed:
-        lines.append("" if p.blank else p.tree.to_string() if p.tree is not None
+        lines.append("" if p.blank else treebank_tree(p.tree).to_string() if p.tree is not None
                      else Tree(NOPARSE, list(p.words)).to_string())
     return "\n".join(lines) + "\n"
 
@@ -216,14 +217,17 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
             tags = ["_"] * len(p.words)
             heads: list[int | None] = [None] * len(p.words)
         else:
-            lines.append(f"# induced_tree = {p.tree.to_string()}")
+            # Written in the treebank's form (`decode.treebank_tree`), as `to_brackets` writes
+            # it; the heads come from the grammar's own tree, whose symbols the rule names.
+            shown = treebank_tree(p.tree)
+            lines.append(f"# induced_tree = {shown.to_string()}")
             if p.heads is not None:
                 lines.append(f"# head_rule = {MODEL_HEADS}")
                 heads = list(p.heads)
             else:
                 lines.append(f"# head_rule = {rule.name}")
                 heads = list(dependency_heads(p.tree, rule))
-            tags = induced_tags(p.tree)
+            tags = induced_tags(shown)
         for k, (word, tag, head) in enumerate(zip(p.words, tags, heads), start=1):
             row = [str(k), word] + ["_"] * 8
             row[where] = tag

@@ -67,6 +67,11 @@ class RulesScorer:
 class RuleModel(nn.Module):
     """Base of every parameterization (see the module docstring)."""
 
+    # Whether the model gives a one-word sentence any tree. The induction layout does not: the
+    # root rewrites to a nonterminal, and every nonterminal to two children, so each tree
+    # covers two or more words. Training sets one-word sentences aside when this is False.
+    parses_one_word: bool = False
+
     def rules(self) -> Any:
         raise NotImplementedError
 

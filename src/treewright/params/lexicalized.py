@@ -54,6 +54,8 @@ class LexicalizedParams(EmbeddingParams):
     dim, blocks: embedding/hidden size and residual blocks of the networks.
     """
 
+    parses_one_word = True   # its root may be a preterminal (see the module docstring)
+
     def __init__(self, nonterminals: int, preterminals: int, vocab_size: int, classes: int,
                  dim: int = 64, blocks: int = 1, generator: torch.Generator | None = None,
                  dtype: torch.dtype = torch.float32):

@@ -24,8 +24,8 @@ from typing import Callable, Sequence, TextIO
 import torch
 
 from treewright.config import dump_config_yaml
-from treewright.corpus import (ReadOptions, binarize, collapse_unary, expand_unary, read_corpus,
-                               split_indices, unbinarize)
+from treewright.corpus import (ReadOptions, binarize, collapse_unary, read_corpus, split_indices,
+                               treebank_form)
 from treewright.errors import InputError
 from treewright.grammar import parse_grammar
 from treewright.refine.config import RefineConfig, load_refine_config
@@ -39,6 +39,7 @@ from treewright.runfolder import RunFolder
 from treewright.safeio import atomic_write_text, load_checkpoint, save_checkpoint
 from treewright.tracking import Progress
 from treewright.trees import Tree
+from treewright.vocab import Vocabulary
 
 
 # A coarse parser: (latent grammar, sentences, decoder name) -> per sentence its best tree
@@ -84,8 +85,9 @@ def estimate_coarse(trees: Sequence[Tree], start: str = "ROOT") -> LatentGrammar
 
 
 def from_coarse_trees(tree: Tree) -> Tree:
-    """Undo the CNF transforms of `cnf_tree` (labels already coarse)."""
-    return unbinarize(expand_unary(tree))
+    """Undo the CNF transforms of `cnf_tree` (labels already coarse): `corpus.treebank_form`,
+    which `parse`, `export` and `report` apply to the trees they write too."""
+    return treebank_form(tree)
 
 
 # ---- one cycle --------------------------------------------------------------------------------
@@ -222,20 +224,44 @@ class _Log:
         self.folder.note(text, self.stream)
 
 
-def _read(path: Path, fmt: str, max_length: int | None) -> tuple[list, str]:
-    corpus = read_corpus(path, fmt, ReadOptions(max_length=max_length))
+def _read(path: Path, fmt: str, max_length: int | None,
+          vocabulary: Vocabulary | None = None) -> tuple[list, str]:
+    """The sentences of a corpus and its read report on one line. With `vocabulary` (a
+    grammar's, for the text start) the report's vocabulary and unknown-token rate are that
+    vocabulary's: the words refinement will read as the unknown word."""
+    corpus = read_corpus(path, fmt, ReadOptions(max_length=max_length, vocabulary=vocabulary))
     return corpus.sentences, corpus.report.format().replace("\n", "; ")
 
 
-def _held_out(cfg: RefineConfig, sentences: list) -> tuple[list, list, str]:
+def _held_out(cfg: RefineConfig, sentences: list,
+              vocabulary: Vocabulary | None = None) -> tuple[list, list, str]:
     d = cfg.data
     if d.dev is not None:
-        dev, report = _read(d.dev, d.format, d.max_length)
+        dev, report = _read(d.dev, d.format, d.max_length, vocabulary)
         return sentences, dev, f"held-out corpus: {report}"
     parts = split_indices(len(sentences), dev=d.heldout_fraction, test=0.0, seed=cfg.refine.seed)
     return ([sentences[i] for i in parts.train], [sentences[i] for i in parts.dev],
             f"held out {len(parts.dev)} of {len(sentences)} training sentences "
             f"(fraction {d.heldout_fraction}, seed {cfg.refine.seed})")
+
+
+# More than this share of a text's tokens missing from the grammar's vocabulary draws a warning.
+UNKNOWN_WARNING = 0.5
+
+
+def _warn_unknown(log: _Log, name: str, source, sentences, vocab: Vocabulary,
+                  grammar: Path) -> None:
+    """Warn in the log when most tokens of `sentences` are words the grammar lacks."""
+    tokens = [t for s in sentences for t in s.tokens]
+    # As the read report counts them: a literal unknown word in the text is unknown too.
+    missing = sum(t not in vocab or t == vocab.unk for t in tokens)
+    if tokens and missing / len(tokens) > UNKNOWN_WARNING:
+        fate = f"read as its unknown word {vocab.unk}, so refinement cannot tell them apart" \
+            if vocab.unk is not None else \
+            "and it has no unknown word, so their sentences have no parse"
+        log.note(f"warning: {missing} of the {len(tokens)} {name} tokens of {source} "
+                 f"({100 * missing / len(tokens):.2f}%) are not words of the grammar "
+                 f"{grammar}, {fate} (is this the text the grammar was trained on?)")
 
 
 def _subcategory_counts(lg: LatentGrammar) -> dict[str, int]:
@@ -460,11 +486,16 @@ def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
     except FileNotFoundError:
         raise InputError("no such grammar file", path=str(path)) from None
     lg = latent_from_grammar(parse_grammar(text, source=str(path)))
-    sentences, report = _read(d.train, d.format, d.max_length)
-    log.note(f"training corpus: {report}")
-    train, dev, note = _held_out(cfg, sentences)
-    log.note(note)
     vocab = lg.vocab
+    # Read against the grammar's vocabulary: the unknown-token rate is then the share of
+    # tokens the grammar lacks (read as its unknown word), not 0 against the text's own words.
+    sentences, report = _read(d.train, d.format, d.max_length, vocab)
+    log.note(f"training corpus (vocabulary and unknown tokens: the grammar's): {report}")
+    _warn_unknown(log, "training", d.train, sentences, vocab, path)
+    train, dev, note = _held_out(cfg, sentences, vocab)
+    log.note(note)
+    if d.dev is not None:
+        _warn_unknown(log, "held-out", d.dev, dev, vocab, path)
 
     def as_words(part) -> tuple[list[list[str]], list[list[int]]]:
         words = [[w if w in vocab else (vocab.unk or w) for w in s.tokens] for s in part]

@@ -21,8 +21,7 @@ import yaml
 
 from treewright.budget import DEFAULT_BUDGET_MB, longest_within
 from treewright.corpus import (BIN_MARK, PARENT_SEP, UNARY_SEP, ReadOptions, Sentence,
-                               expand_unary, read_corpus, read_records, run_read_options,
-                               unbinarize)
+                               read_corpus, read_records, run_read_options)
 from treewright.errors import InputError
 from treewright.report.svg import bar_chart, esc, line_chart, span_heatmap, tree_svg
 from treewright.runfolder import CONFIG, GRAMMAR, METRICS, RunFolder
@@ -251,18 +250,6 @@ def _with_words(tree: Tree, words: Sequence[str]) -> Tree:
     return tree_from_spans(list(words), tree.labeled_spans())
 
 
-def treebank_form(tree: Tree) -> Tree:
-    """A decoded tree in the form of the treebank a refined grammar was read from: the binarized
-    and unary-collapsed nodes of its CNF transform undone (`corpus.transforms`), so that drawn
-    trees and bracket scores show the treebank's brackets, not the transform's. Trees of induced
-    grammars carry no transform mark and come back unchanged."""
-    marked = any(mark in node.label for node in tree.subtrees()
-                 for mark in (BIN_MARK, UNARY_SEP, PARENT_SEP))
-    if not marked or tree.label.startswith(BIN_MARK):
-        return tree
-    return unbinarize(expand_unary(tree))
-
-
 def _flat(words: Sequence[str]) -> Tree:
     return Tree("NOPARSE", list(words))
 
@@ -280,7 +267,7 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
     """The sentences' trees by `decoder`; `grammar` is a list of grammars for a decoder of
     several (`decode.ENSEMBLE_DECODERS`)."""
     from treewright.budget import consensus_within_budget, decode_within_budget
-    from treewright.decode import ENSEMBLE_DECODERS
+    from treewright.decode import ENSEMBLE_DECODERS, treebank_tree
     from treewright.tracking import terminal_progress
 
     tokens = [s.tokens for s in sentences]
@@ -297,7 +284,8 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
             unparsed += 1
             trees.append(_flat(s.words))
         else:
-            trees.append(treebank_form(_with_words(r.tree, s.words)))
+            # The treebank's brackets, not the CNF transform's (as `parse` writes them).
+            trees.append(treebank_tree(_with_words(r.tree, s.words)))
     over = [s for s, r in zip(sentences, results) if r is None]
     return Parsed(list(sentences), trees, unparsed, over)
 

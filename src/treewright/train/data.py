@@ -52,13 +52,34 @@ def tree_brackets(tree: Tree) -> list[tuple[int, int]]:
 BracketSource = Callable[[list[list[str]]], tuple[list[list[tuple[int, int]]], str]]
 
 
+# Why the grammars training builds cannot use a one-word sentence (`RuleModel.parses_one_word`).
+ONE_WORD_REASON = ("the model has no rule for a one-word tree (its root rewrites to a "
+                   "nonterminal, and every nonterminal to two children)")
+
+
+def shortest_trainable(cfg: TrainConfig) -> int:
+    """The fewest words a training sentence needs for the model of `cfg` to give it a tree: 1
+    for a parameterization whose root may cover one word, else 2 (a warm start is always
+    tabular, in the induction layout)."""
+    model = PARAMETERIZATIONS[cfg.model.parameterization]
+    return 1 if model.parses_one_word and cfg.model.warm_start is None else 2
+
+
 def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> TrainData:
     """Read the corpora of `cfg.data` (InputError on bad files), encode them with the training
     vocabulary, and collect the partial brackets when `constraints.train_brackets` asks, or
-    from `bracket_source` when `constraints.brackets_from` names a grammar."""
+    from `bracket_source` when `constraints.brackets_from` names a grammar. Training sentences
+    the model can give no tree for their length (one word, `shortest_trainable`) are set
+    aside and counted as too_short, with a note; a corpus left with none raises InputError."""
     d = cfg.data
     drop = frozenset(t.strip() for t in (d.drop_tags or "").split(",") if t.strip())
+    shortest = shortest_trainable(cfg)
+    if d.max_length is not None and d.max_length < shortest:
+        raise InputError(f"data.max_length {d.max_length} leaves only sentences of one word, "
+                         f"and {ONE_WORD_REASON}", path=str(d.train))
     options = ReadOptions(lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
+                          min_length=shortest,
+                          min_length_reason="" if shortest == 1 else ONE_WORD_REASON,
                           max_length=d.max_length, min_count=d.min_count,
                           max_vocab=d.max_vocab, punct_labels=drop)
     if d.stream_chunk is not None:
@@ -66,6 +87,10 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
     else:
         train = read_corpus(d.train, d.format, options)
     notes = ["training corpus: " + train.report.format().replace("\n", "; ")]
+    one_word = train.report.skipped_by_reason.get("too_short", 0)
+    if one_word:
+        notes.append(f"{one_word} one-word training sentences set aside (counted as too_short "
+                     f"above): {ONE_WORD_REASON}")
     vocab = train.vocabulary
     brackets = None
     if cfg.constraints.train_brackets:

@@ -55,6 +55,7 @@ import torch
 import torch.distributed as dist
 
 from treewright.corpus import CorpusStream, ReadOptions, cubic_cost, length_batches
+from treewright.corpus.reader import no_usable_sentence
 from treewright.errors import InputError
 from treewright.train.estep import ExpectedCounts
 from treewright.vocab import Vocabulary
@@ -416,8 +417,7 @@ class StreamedCorpus(SequenceABC):
             self.histograms.append(Counter(len(sentence) for sentence in chunk))
         self.report = self.stream.report
         if not self.histograms:
-            raise InputError(f"no usable sentence ({self.report.sentences_read} read)",
-                             path=self.stream.path)
+            raise InputError(no_usable_sentence(self.report), path=self.stream.path)
         self.vocabulary = options.vocabulary or Vocabulary.from_counts(
             counts, min_count=options.min_count, max_size=options.max_vocab)
         index, unk_id = self.vocabulary.index, self.vocabulary.unk_id

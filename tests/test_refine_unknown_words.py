@@ -1,0 +1,57 @@
+"""Refinement from raw text reads the text against the grammar's vocabulary: its read summary
+gives the share of tokens the grammar lacks (read as the grammar's unknown word), and warns when
+that is most of them.
+
+The grammar and the text are invented here (words of the invented language Velmor)."""
+
+from __future__ import annotations
+
+import json
+
+from treewright.refine import load_refine_config, refine
+
+GRAMMAR = """@start ROOT
+@unknown "<unk>"
+ROOT -> S 1.0
+S -> A B 1.0
+A -> "ta" 0.5
+A -> "<unk>" 0.5
+B -> "ferro" 0.5
+B -> "<unk>" 0.5
+"""
+
+
+def _run(tmp_path, lines: list[str], name: str):
+    grammar = tmp_path / "g.pcfg"
+    grammar.write_text(GRAMMAR, encoding="utf-8")
+    text = tmp_path / f"{name}.txt"
+    text.write_text("".join(line + "\n" for line in lines), encoding="utf-8")
+    cfg = load_refine_config(None, [
+        "data.start=text", f"data.train={text}", f"data.grammar={grammar}",
+        "data.heldout_fraction=0.25", "refine.cycles=1", "refine.em_iterations=1",
+        "refine.smoothed_iterations=1", "output.tensorboard=false",
+        "output.stdout_metrics=false", f"output.run_dir={tmp_path / name}"])
+    refine(cfg, tmp_path / name)
+    return text, (tmp_path / name / "refine.log").read_text(encoding="utf-8")
+
+
+def test_the_unknown_rate_is_against_the_grammar_and_most_unknown_warns(tmp_path):
+    # Hand-counted: 8 tokens, of which "lanu", "vesk", "lanu", "orun", "dast", "vesk" are not
+    # words of GRAMMAR (6 of 8 = 75.00%); its vocabulary is ta, ferro, <unk> (3 types).
+    lines = ["ta lanu", "vesk ferro", "lanu orun", "dast vesk"]
+    text, log = _run(tmp_path, lines, "most")
+    assert "used 4 sentences, 8 tokens" in log
+    assert "vocabulary 3 types; unknown-token rate 75.00%" in log
+    assert f"warning: 6 of the 8 training tokens of {text} (75.00%) are not words" in log
+    # Every sentence still parses: the unknown words are read as <unk>, not dropped.
+    metrics = [json.loads(x) for x in (tmp_path / "most" / "metrics.jsonl").read_text()
+               .splitlines()]
+    assert all(m["train/unparsed"] == 0 for m in metrics)
+
+
+def test_a_text_mostly_in_the_grammar_gets_no_warning(tmp_path):
+    # Hand-counted: 8 tokens, only "vesk" unknown: 1 of 8 = 12.50%.
+    lines = ["ta ferro", "ta ferro", "vesk ferro", "ta ferro"]
+    _, log = _run(tmp_path, lines, "few")
+    assert "unknown-token rate 12.50%" in log
+    assert "warning" not in log
