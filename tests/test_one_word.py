@@ -117,3 +117,18 @@ def test_parse_says_a_one_word_line_has_no_tree_in_the_induction_layout(tmp_path
     out, err = capsys.readouterr()
     assert out.splitlines()[0] == "(S ka)"
     assert "one word" not in err
+
+
+def test_parse_names_the_words_read_as_the_unknown_token_when_no_tree_covers_them(tmp_path,
+                                                                                  capsys):
+    # Worked by hand: only B emits the unknown token and nothing reaches B from the root, so
+    # "ka zu" ("zu" read as <unk>) has no tree, and the reason names "zu"; "ka lu" parses.
+    grammar = tmp_path / "unk.pcfg"
+    grammar.write_text('@start ROOT\n@unknown "<unk>"\nROOT -> S 1.0\nS -> A A 1.0\n'
+                       'A -> "ka" 0.5\nA -> "lu" 0.5\nB -> "<unk>" 1.0\n', encoding="utf-8")
+    text = _write(tmp_path / "in.txt", ["ka zu", "ka lu"])
+    assert main(["parse", str(grammar), str(text)]) == 0
+    out, err = capsys.readouterr()
+    assert out.splitlines() == ["(NOPARSE ka zu)", "(S (A ka) (A lu))"]
+    assert f"{text}, line 1: no parse (no tree covers it; words read as the grammar's <unk>: " \
+        "['zu'])" in err

@@ -231,6 +231,10 @@ def run(args) -> int:
             elif result is not None:  # over the budget was reported already
                 unknown = [w for w in inputs[i] if vocab.lookup(w) < 0]
                 why = f"unknown words {unknown}" if unknown else "no tree covers it"
+                as_unk = [w for w in inputs[i] if vocab.unk is not None and w != vocab.unk
+                          and vocab.lookup(w) == vocab.unk_id]
+                if as_unk and not unknown:    # the grammar may give its unknown token no tree
+                    why += f"; words read as the grammar's {vocab.unk}: {as_unk}"
                 if drop and not on_tags:
                     why += (f"; the grammar's training run removed the words tagged "
                             f"{', '.join(sorted(drop))} (data.drop_tags), and raw text has "
