@@ -254,3 +254,25 @@ def test_report_text_reads_one_sentence_per_tree(tmp_path):
     found = gather(run, text=write(tmp_path, "s.txt", "saw stars\n\nstars saw\n"))
     assert [(s.line, s.words) for s in found.text] == [(1, ["saw", "stars"]),
                                                         (3, ["stars", "saw"])]
+
+
+def test_a_word_with_a_space_stays_one_leaf_and_is_scored_against_its_conllu_gold(tmp_path):
+    # The CoNLL-U format allows a space inside FORM (common practice: words such as numbers
+    # written with a space). A bracketed tree writes it with `_` so that it stays one leaf, and
+    # evaluation compares words in that form, so a tree over the CoNLL-U words scores against
+    # that gold. Hand-worked: "vesh" heads "lurri", so the gold's one span below the whole
+    # sentence is (2, 4), which the tree has too.
+    from treewright.trees import tree_from_spans
+    words = ["ko", "tul ma", "lurri", "vesh"]
+    tree = tree_from_spans(words, [(0, 4, "S"), (2, 4, "B")] +
+                           [(i, i + 1, "A") for i in range(4)])
+    assert tree.to_string() == "(S (A ko) (A tul_ma) (B (A lurri) (A vesh)))"
+    pred = write(tmp_path, "pred.trees", tree.to_string() + "\n")
+    gold = write(tmp_path, "gold.conllu", "\n".join([
+        conllu_line("1", "ko", "2"), conllu_line("2", "tul ma", "0"),
+        conllu_line("3", "lurri", "4"), conllu_line("4", "vesh", "2"), ""]) + "\n")
+    report = tmp_path / "scores.json"
+    code, out, err = cli("evaluate", pred, gold, "--json", report)
+    assert code == 0, err
+    model = json.loads(report.read_text(encoding="utf-8"))["brackets"]["systems"]["model"]
+    assert (model["matched"], model["predicted"], model["gold"]) == (1, 1, 1)

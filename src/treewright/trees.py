@@ -6,6 +6,8 @@ Spans are half-open word intervals `(i, j)`, 0-based, as in the inside chart.
 
 from __future__ import annotations
 
+import re
+
 from dataclasses import dataclass, field
 from typing import Iterator, Union
 
@@ -129,11 +131,16 @@ _CLOSE = object()  # marks the end of a node in the iterative writer
 _ESCAPES = {"(": "-LRB-", ")": "-RRB-"}
 
 
+_SPACES = re.compile(r"\s+")
+
+
 def escape_token(token: str) -> str:
-    """Brackets inside words or labels are written as the trade's -LRB-/-RRB- (common practice)."""
+    """Brackets inside words or labels are written as the trade's -LRB-/-RRB- (common practice),
+    and white space inside one (a CoNLL-U word may hold a space) as `_`, so that the token stays
+    one leaf of a bracketed tree; evaluation compares words in this form."""
     for raw, esc in _ESCAPES.items():
         token = token.replace(raw, esc)
-    return token
+    return _SPACES.sub("_", token)
 
 
 def tree_from_spans(words: list[str], spans: list[tuple[int, int, str]]) -> Tree:
