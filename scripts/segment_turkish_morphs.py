@@ -53,9 +53,11 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--samples", type=int, default=10)
     parser.add_argument("--sample-every", type=int, default=2)
     parser.add_argument("--conllu", type=Path, default=TREEBANK)
+    parser.add_argument("--case-rules", choices=("default", "turkic"), default="default",
+                        help="how words and gold morphs are lowercased (corpus.lowercase)")
     args = parser.parse_args(argv)
 
-    written = read_written_words(args.conllu)
+    written = read_written_words(args.conllu, args.case_rules)
     types = written.types()
     print(f"{len(written.morphs)} written words ({len(written.split)} split, "
           f"{sum(len(m) - 1 for m in written.split)} gold boundaries), {len(types)} types, "

@@ -243,3 +243,13 @@ def test_morph_mode_on_lines_takes_one_word_per_line_with_spaces_as_gold(tmp_pat
     assert ["".join(line.split()) for line in lines] == ["velo", "marratund", "sel"]
     # Two gold boundaries (after "ve" and after "marra"), counted by hand.
     assert result.scores.boundaries.gold == 2
+
+
+def test_turkic_case_rules_lower_both_capital_is_to_their_own_small_letters():
+    # Fact of the trade (Unicode SpecialCasing.txt, Turkish and Azerbaijani): I lowers to
+    # dotless i (U+0131) and dotted capital I (U+0130) to i; the language-independent mapping
+    # gives i and i + combining dot above (U+0307). Invented words; gold morphs lowered alike.
+    sentences = [(["Irmak", "\u0130lu", "da"], [False, False, True]), (["Ivet"], None)]
+    assert orthographic_words(sentences, "turkic") == \
+        [["\u0131rmak"], ["ilu", "da"], ["\u0131vet"]]
+    assert orthographic_words(sentences) == [["irmak"], ["i\u0307lu", "da"], ["ivet"]]

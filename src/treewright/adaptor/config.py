@@ -27,6 +27,10 @@ class SegmentDataConfig:
                  "(needs grammar.unit morphs).")
     gold: bool = option(True, "The spaces of each line are its gold segmentation: boundary "
                               "and token F1 are logged. false: the spaces are only taken out.")
+    case_rules: Literal["default", "turkic"] = option(
+        "default", "How format conllu lowercases words and their gold morphs: default, "
+                   "Unicode's language-independent mapping; turkic, the Turkish and "
+                   "Azerbaijani rules (I to dotless i, dotted capital I to i).")
 
 
 @dataclass

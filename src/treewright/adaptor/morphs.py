@@ -4,9 +4,10 @@ gold boundaries where the syntactic tokens of one written word meet.
 A tokenizer may write one orthographic word as several syntactic tokens: a multiword-token
 range, or `SpaceAfter=No` between them (the Turkish web treebank writes `kullanmaya` as
 `kullan` + `maya`). The reader marks these as `Sentence.joined`; the orthographic word is the
-run of tokens joined to the one before, and its gold morphs are those tokens. Words are
-lowercased with `str.lower` as written (no language-specific case rules), so gold and input
-hold the same characters.
+run of tokens joined to the one before, and its gold morphs are those tokens. Words and gold
+morphs alike are lowercased by `corpus.lowercase` under the case rules given (Unicode's
+language-independent mapping by default; "turkic" for Turkish and Azerbaijani, where I and
+dotted capital I lower to dotless and dotted i), so gold and input hold the same characters.
 
 Punctuation tokens (UPOS PUNCT) are taken out before the words are formed: a comma written
 against a word is not one of its morphs, and the reader then leaves the tokens around it
@@ -27,7 +28,7 @@ from typing import Iterable, Sequence
 from treewright.adaptor.model import Tree
 from treewright.adaptor.sampler import AdaptorSampler
 from treewright.adaptor.segment import boundaries, characters, cut
-from treewright.corpus import ReadOptions, read_corpus
+from treewright.corpus import ReadOptions, lowercase, read_corpus
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
 from treewright.word_pieces import split_words
 
@@ -66,29 +67,31 @@ class WrittenWords:
         return first
 
 
-def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] | None]]
-                       ) -> list[list[str]]:
-    """The orthographic words of (tokens, joined) sentences, each as its lowercased tokens.
-    A sentence whose joins the source does not give (joined None) has one word per token."""
+def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] | None]],
+                       case_rules: str = "default") -> list[list[str]]:
+    """The orthographic words of (tokens, joined) sentences, each as its tokens lowercased
+    under `case_rules` (`corpus.lowercase`). A sentence whose joins the source does not give
+    (joined None) has one word per token."""
     out: list[list[str]] = []
     for tokens, joined in sentences:
         if joined is None:
-            out.extend([t.lower()] for t in tokens)
+            out.extend([lowercase(t, case_rules)] for t in tokens)
             continue
         groups = dict(split_words(joined))  # start -> end of each word of two or more tokens
         k = 0
         while k < len(tokens):
             end = groups.get(k, k + 1)
-            out.append([t.lower() for t in tokens[k:end]])
+            out.append([lowercase(t, case_rules) for t in tokens[k:end]])
             k = end
     return out
 
 
-def read_written_words(path: str | Path) -> WrittenWords:
+def read_written_words(path: str | Path, case_rules: str = "default") -> WrittenWords:
     """The orthographic words of a CoNLL-U file, punctuation taken out (non-projective
-    sentences are kept: their arcs are lifted, which leaves the words as they are)."""
+    sentences are kept: their arcs are lifted, which leaves the words as they are), lowercased
+    under `case_rules`."""
     corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift", punct_labels=PUNCT))
-    words = orthographic_words((s.words, s.joined) for s in corpus.sentences)
+    words = orthographic_words(((s.words, s.joined) for s in corpus.sentences), case_rules)
     return WrittenWords(words, len(corpus.sentences), corpus.report.sentences_skipped)
 
 

@@ -128,7 +128,7 @@ def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
           ) -> tuple[Utterances, WrittenWords | None]:
     """The inputs, and with data.format conllu the written words they are the types of."""
     if cfg.data.format == "conllu":
-        written = read_written_words(cfg.data.text)
+        written = read_written_words(cfg.data.text, cfg.data.case_rules)
         first = written.first_morphs()
         corpus = Utterances([characters(t) for t in first], list(first.values()), [], 0)
         folder.note(f"read {len(written.morphs)} written words ({len(written.split)} split "

@@ -105,7 +105,7 @@ def _evaluation(cfg, folder: RunFolder, written: list[list[str]] | None) -> tupl
         return _section("scores", "Scores", why), _section("examples", "Examples", why)
     conllu = cfg.data.format == "conllu"
     if conllu:
-        words = read_written_words(cfg.data.text)
+        words = read_written_words(cfg.data.text, cfg.data.case_rules)
         first = words.first_morphs()
         gold, inputs = list(first.values()), list(first)
     else:
