@@ -11,22 +11,20 @@ contract (README, common practice for parser output).
 
 from __future__ import annotations
 
-import io
 import json
 import math
 import shutil
 from collections import defaultdict
-from contextlib import redirect_stderr, redirect_stdout
 from functools import lru_cache
 
 import pytest
 import torch
 
 from _brute import all_trees
+from _cli import cli
 from _grammars import random_grammar
 from test_train_fixtures import velmor
 from treewright.budget import consensus_within_budget
-from treewright.cli import main
 from treewright.corpus import parse_brackets
 from treewright.decode import consensus, decode
 from treewright.errors import InputError
@@ -191,13 +189,6 @@ def test_the_budget_leaves_out_what_no_grammar_can_fit():
 
 
 # ---- the command line, on a run folder's restarts ---------------------------------------------
-
-
-def cli(*argv) -> tuple[int, str, str]:
-    out, err = io.StringIO(), io.StringIO()
-    with redirect_stdout(out), redirect_stderr(err):
-        code = main([str(a) for a in argv])
-    return code, out.getvalue(), err.getvalue()
 
 
 def test_parse_with_consensus_prints_one_tree_per_line(two_restart_run, tmp_path):

@@ -595,6 +595,23 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
         path == "items" or nats_per_word == 0.01)
 
 
+def _factored_rules(kind: str, nt: int, t: int, v: int, rank: int, init_scale: float, seed: int,
+                    dtype: torch.dtype):
+    """Random factored rules: independent productions (`init_scale`), or low-rank rules of
+    `rank` with their nearly uniform initial rules sharpened (embeddings times 8)."""
+    from treewright.params import IndependentParams, LowRankParams
+    gen = torch.Generator().manual_seed(seed)
+    if kind == "independent":
+        model = IndependentParams(nt, t, v, init_scale=init_scale, generator=gen, dtype=dtype)
+    else:
+        model = LowRankParams(nt, t, v, rank, dim=8, blocks=1, generator=gen, dtype=dtype)
+    with torch.no_grad():
+        if kind != "independent":
+            for p in (model.symbol_embeddings, model.rank_embeddings, model.start_embedding):
+                p.mul_(8.0)
+        return model.rules()
+
+
 @pytest.mark.parametrize("decoder,depth", [("mbr", None), ("max-rule-product", 16),
                                            ("max-rule-product", 2)])
 @pytest.mark.parametrize("kind", ["independent", "lowrank", "lowrank, items"])
@@ -610,23 +627,13 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch
     # candidate columns its bounds leave some entries to the pass over every column). Low-rank
     # rules decode on their dense grammar when it is small, else ("lowrank, items") by the item
     # pass alone.
-    from treewright.params import IndependentParams, LowRankParams
     if kind == "lowrank, items":
         monkeypatch.setattr(decode_module, "LOWRANK_DENSE_AT_MOST", 0)
     if depth is not None:
         monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
         monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
-    gen = torch.Generator().manual_seed(4)
-    if kind == "independent":
-        model = IndependentParams(4, 5, 5, init_scale=2.0, generator=gen, dtype=torch.float64)
-    else:
-        model = LowRankParams(4, 5, 5, 6, dim=8, blocks=1, generator=gen, dtype=torch.float64)
-    with torch.no_grad():
-        if kind != "independent":   # sharpen the nearly uniform initial rules
-            for p in (model.symbol_embeddings, model.rank_embeddings, model.start_embedding):
-                p.mul_(8.0)
-        rules = model.rules()
+    rules = _factored_rules(kind, 4, 5, 5, 6, 2.0, seed=4, dtype=torch.float64)
     vocab = Vocabulary([f"w{i}" for i in range(5)], unk=None)
     nonterminals, preterminals = symbol_names(4, 5)
     grammar = rules_to_grammar(rules.dense(), nonterminals, preterminals, vocab)
@@ -657,20 +664,10 @@ def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatc
     # every parsed sentence still gets its tree, the same one here (no near-ties), with the
     # objective equal to float32 precision. Low-rank rules this small decode on their dense
     # grammar, in float32.
-    from treewright.params import IndependentParams, LowRankParams
     monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
-    gen = torch.Generator().manual_seed(8)
-    if kind == "independent":
-        model = IndependentParams(6, 8, 6, init_scale=3.0, generator=gen, dtype=torch.float32)
-    else:
-        model = LowRankParams(6, 8, 6, 10, dim=8, blocks=1, generator=gen, dtype=torch.float32)
-        with torch.no_grad():   # sharpen the nearly uniform initial rules
-            for p in (model.symbol_embeddings, model.rank_embeddings, model.start_embedding):
-                p.mul_(8.0)
-    with torch.no_grad():
-        rules = model.rules()
+    rules = _factored_rules(kind, 6, 8, 6, 10, 3.0, seed=8, dtype=torch.float32)
     vocab = Vocabulary([f"w{i}" for i in range(6)], unk=None)
     nonterminals, preterminals = symbol_names(6, 8)
     dense = rules.dense()

@@ -12,15 +12,13 @@ comments), common practice. The words and trees below are invented.
 
 from __future__ import annotations
 
-import io
 import json
 import math
-from contextlib import redirect_stderr, redirect_stdout
 from pathlib import Path
 
 import pytest
 
-from treewright.cli import main
+from _cli import cli
 from treewright.corpus import detect_format, parse_brackets, read_corpus, read_records
 from treewright.errors import InputError
 
@@ -62,13 +60,6 @@ CONLLU = "\n".join([
     conllu_line("3", "stars"),
     "",
 ]) + "\n"
-
-
-def cli(*argv) -> tuple[int, str, str]:
-    out, err = io.StringIO(), io.StringIO()
-    with redirect_stdout(out), redirect_stderr(err):
-        code = main([str(a) for a in argv])
-    return code, out.getvalue(), err.getvalue()
 
 
 def write(tmp_path: Path, name: str, text: str) -> Path:

@@ -10,27 +10,18 @@ parses, 0.0009072 + 0.0006804); hand-written tag grammars worked by hand below; 
 
 from __future__ import annotations
 
-import io
 import json
 import math
-from contextlib import redirect_stderr, redirect_stdout
 from pathlib import Path
 
 import pytest
 
-from treewright.cli import main
+from _cli import cli
 from treewright.corpus import insert_words, parse_brackets
 from treewright.evaluation import Bracketing
 
 TEXTBOOK = (Path(__file__).resolve().parents[1] / "src" / "treewright" / "data" / "examples"
             / "astronomers.pcfg")
-
-
-def cli(*argv) -> tuple[int, str, str]:
-    out, err = io.StringIO(), io.StringIO()
-    with redirect_stdout(out), redirect_stderr(err):
-        code = main([str(a) for a in argv])
-    return code, out.getvalue(), err.getvalue()
 
 
 def run_folder(path: Path, grammar_text: str, data: str) -> Path:
