@@ -45,6 +45,14 @@ def test_treebank_form_undoes_the_cnf_transform_and_projects_subcategories():
     # A tree with no transform mark (an induced grammar's) is left exactly as it is.
     induced = parse_brackets("(N0·1 (T3 kip) (T1 sul))")
     assert treebank_form(induced, coarse_name) is induced
+    # ... unless its grammar is a treebank's: a tree of such a grammar that happens to use no
+    # marked symbol is projected like every other tree of it, and an induced grammar's tree
+    # is left alone even if a label looks marked. Worked by hand.
+    plain = parse_brackets("(S·1 (NP·0 (D·1 mo) (N·0 lanu)) (VP·1 (V·0 orun) (N·1 kip)))")
+    assert treebank_form(plain, coarse_name).to_string() == plain.to_string()
+    assert treebank_form(plain, coarse_name, treebank=True).to_string() == \
+        "(S (NP (D mo) (N lanu)) (VP (V orun) (N kip)))"
+    assert treebank_form(fine, coarse_name, treebank=False) is fine
 
 
 @pytest.fixture(scope="module")
@@ -105,3 +113,18 @@ def test_export_writes_the_treebank_form(refined, tmp_path):
     # The tag column holds the treebank's tags (N, VI), not the joined chains NP¦N, VP¦VI.
     tags = [row.split("\t")[4] for row in lines if row and not row.startswith("#")]
     assert tags[:3] == ["N", "VI", "P"]
+
+
+def test_sample_writes_the_treebank_form(refined, capsys):
+    # Every tree the grammar generates is one of the treebank's shapes over its words: S over
+    # NP VP P (common to all three training trees), with the original labels and no marks.
+    run, _, _ = refined
+    assert main(["sample", str(run), "-n", "20", "--seed", "3"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert len(lines) == 20
+    for line in lines:
+        words, tree = line.split("\t")
+        assert "¤" not in tree and "¦" not in tree and "·" not in tree
+        top = parse_brackets(tree)
+        assert [c.label for c in top.children] == ["NP", "VP", "P"]
+        assert " ".join(top.leaves()) == words

@@ -47,7 +47,7 @@ from torch import Tensor
 
 from treewright import engine
 from treewright.corpus.batching import length_batches
-from treewright.corpus.transforms import treebank_form
+from treewright.corpus.transforms import has_transform_marks, treebank_form
 from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
 from treewright.engine.maxplus import MaxPlusWeights, max_plus
@@ -65,11 +65,19 @@ ENSEMBLE_DECODERS = ("consensus",)  # decoders of several grammars (`consensus`)
 MODEL_DECODERS = ("lexicalized",)   # decoders of a lexicalized model (`decode_lexicalized`)
 
 
-def treebank_tree(tree: Tree) -> Tree:
+def treebank_tree(tree: Tree, treebank: bool | None = None) -> Tree:
     """A decoded tree as the commands write it: a refined treebank grammar's tree with its
     labels projected to the coarse symbols and its CNF transforms undone, as refinement's
-    held-out labeled F1 reads it (`corpus.treebank_form`); any other tree unchanged."""
-    return treebank_form(tree, coarse_name)
+    held-out labeled F1 reads it (`corpus.treebank_form`); any other tree unchanged.
+    `treebank`: whether the grammar is a treebank's (`is_treebank_grammar`), so that all its
+    trees are written alike; None decides from the tree's labels."""
+    return treebank_form(tree, coarse_name, treebank)
+
+
+def is_treebank_grammar(grammars: Sequence[Grammar]) -> bool:
+    """True if any of `grammars` was estimated from a treebank's binarized trees (its symbols
+    carry the transforms' marks): its trees are written in the treebank's form."""
+    return any(has_transform_marks(g.symbols) for g in grammars)
 
 
 def mbr_spans(span_marginals: Tensor, length: int) -> list[tuple[int, int]]:

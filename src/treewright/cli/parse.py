@@ -108,7 +108,8 @@ def run(args) -> int:
     from treewright.corpus import (detect_format, insert_words, read_tagged, run_drop_tags,
                                    run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
-                                   decode_lexicalized, treebank_tree)
+                                   decode_lexicalized, is_treebank_grammar,
+                                   treebank_tree)
     from treewright.errors import InputError
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
@@ -213,6 +214,7 @@ def run(args) -> int:
     # covers two or more words. A lexicalized model's root may be a preterminal.
     one_word_impossible = args.decoder != "lexicalized" and \
         not any(g.nonterminals_emit for g in grammars)
+    treebank = is_treebank_grammar(grammars)   # every tree of a treebank grammar written alike
     unparsed = 0
     for line, _ in every_line:
         if line not in by_line:
@@ -246,9 +248,9 @@ def run(args) -> int:
         elif all(kept[i]):
             # The words as written, in the treebank's form (a refined treebank grammar's
             # binarization and joined unary chains undone, as refinement scores its trees).
-            fields = [treebank_tree(result.tree).with_leaves(words).to_string()]
+            fields = [treebank_tree(result.tree, treebank).with_leaves(words).to_string()]
         else:
-            fields = [insert_words(treebank_tree(result.tree), words, kept[i],
+            fields = [insert_words(treebank_tree(result.tree, treebank), words, kept[i],
                                    tokens[i]).to_string()]
         if args.scores:
             fields += ["nan", "nan"] if result is None else \

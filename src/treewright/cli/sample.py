@@ -20,11 +20,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
+    from treewright.decode import is_treebank_grammar, treebank_tree
     from treewright.export import load as load_grammar  # text, JSON export or run folder
     from treewright.inference import generate
 
     grammar = load_grammar(args.grammar)
+    treebank = is_treebank_grammar([grammar])  # a treebank grammar's trees in its form, as parse
     for tree in generate(grammar, args.n, args.seed, args.max_words):
         print(" ".join(tree.leaves()) if args.words_only else
-              " ".join(tree.leaves()) + "\t" + tree.to_string())
+              " ".join(tree.leaves()) + "\t" + treebank_tree(tree, treebank).to_string())
     return 0

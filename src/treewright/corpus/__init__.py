@@ -15,7 +15,8 @@ from treewright.corpus.lines import iter_lines
 from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, read_corpus,
                                       read_records, read_tagged, write_skip_log)
 from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binarize,
-                                          collapse_unary, expand_unary, insert_words,
+                                          collapse_unary, expand_unary, has_transform_marks,
+                                          insert_words,
                                           treebank_form, unbinarize)
 from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, Corpus, ReadOptions,
                                      ReadReport, Sentence, SkippedRecord, lowercase,
@@ -27,7 +28,7 @@ __all__ = [
     "BIN_MARK", "BracketRecord", "CASE_RULES", "Corpus", "CorpusStream", "DependencySentence",
     "FORMATS", "PARENT_SEP", "PTB_PUNCT_LABELS", "REASONS", "ReadOptions", "ReadReport",
     "Sentence", "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
-    "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary",
+    "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary", "has_transform_marks",
     "insert_words", "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "length_batches",
     "lift_to_projective", "lowercase", "nonprojective_arcs", "parse_brackets", "preterminal_tags",
     "read_corpus", "read_records", "read_tagged", "run_case_rules", "run_drop_tags",

@@ -18,7 +18,7 @@ All transforms are iterative, so trees thousands of levels deep are fine.
 
 from __future__ import annotations
 
-from typing import Callable, Literal
+from typing import Callable, Iterable, Literal
 
 from treewright.trees import Child, Tree
 from treewright.corpus.walk import rebuild
@@ -138,17 +138,25 @@ def expand_unary(tree: Tree) -> Tree:
     return rebuild(tree, visit)[0]  # type: ignore[return-value]
 
 
-def treebank_form(tree: Tree, relabel: Callable[[str], str] | None = None) -> Tree:
-    """A decoded tree in the form of the treebank its grammar was read from: for a tree that
-    carries a transform mark (a grammar estimated from `binarize`d and `collapse_unary`d trees),
-    every label mapped by `relabel` (a refined grammar's subcategory `NAME·k` -> `NAME`, so
-    that a joined chain's subcategory does not stick to its last label), then the chains split
-    (`expand_unary`) and the binarization nodes spliced out (`unbinarize`). Trees without a
-    mark (an induced grammar's) come back as they are, and so does a tree whose root is a
-    binarization node, which has no treebank form."""
-    marked = any(mark in node.label for node in tree.subtrees()
-                 for mark in (BIN_MARK, UNARY_SEP, PARENT_SEP))
-    if not marked or tree.label.startswith(BIN_MARK):
+def has_transform_marks(labels: Iterable[str]) -> bool:
+    """True if any of `labels` (a grammar's symbols, or a tree's labels) carries a mark of
+    `binarize`, `collapse_unary` or parent annotation: a grammar estimated from a treebank."""
+    return any(mark in label for label in labels for mark in (BIN_MARK, UNARY_SEP, PARENT_SEP))
+
+
+def treebank_form(tree: Tree, relabel: Callable[[str], str] | None = None,
+                  treebank: bool | None = None) -> Tree:
+    """A decoded tree in the form of the treebank its grammar was read from: every label mapped
+    by `relabel` (a refined grammar's subcategory `NAME·k` -> `NAME`, so that a joined chain's
+    subcategory does not stick to its last label), then the chains split (`expand_unary`) and
+    the binarization nodes spliced out (`unbinarize`). `treebank` says whether the grammar was
+    estimated from `binarize`d and `collapse_unary`d trees (`has_transform_marks` of its
+    symbols), so that every tree of one grammar is written alike; None decides from the tree's
+    own labels. Other trees (an induced grammar's) come back as they are, and so does a tree
+    whose root is a binarization node, which has no treebank form."""
+    if treebank is None:
+        treebank = has_transform_marks(node.label for node in tree.subtrees())
+    if not treebank or tree.label.startswith(BIN_MARK):
         return tree
     if relabel is not None:
         def rename(node: Tree, kids: list[Child]) -> list[Child]:

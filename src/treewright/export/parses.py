@@ -47,7 +47,7 @@ from typing import Callable, Mapping, Sequence
 
 import torch
 
-from treewright.decode import treebank_tree
+from treewright.decode import is_treebank_grammar, treebank_tree
 from treewright.grammar import Grammar
 from treewright.inference import viterbi_parse
 from treewright.trees import Tree
@@ -65,12 +65,15 @@ _COLUMNS = ("ID", "FORM", "LEMMA", "UPOS", "XPOS", "FEATS", "HEAD", "DEPREL", "D
 class ParsedSentence:
     """One input line: its line number, words, tree (None: no parse, or a blank line) and
     log-probability (nan for a blank line); `heads`, when a lexicalized model gave them, the
-    1-based head of every word (0: the root), which `to_conllu` writes instead of the rule's."""
+    1-based head of every word (0: the root), which `to_conllu` writes instead of the rule's;
+    `treebank`, whether the tree's grammar is a treebank's (`decode.is_treebank_grammar`),
+    whose trees are written in the treebank's form."""
     line: int
     words: list[str]
     tree: Tree | None
     logprob: float
     heads: list[int] | None = None
+    treebank: bool = False
 
     @property
     def blank(self) -> bool:
@@ -101,13 +104,14 @@ def parse_corpus(grammar: Grammar | None, lines: Sequence[tuple[int, list[str]]]
         decoded = decoder(lookup) if lookup else []
     found = iter(decoded)
     results = [next(found) if words else (None, math.nan, None) for _, words in lines]
+    treebank = grammar is not None and is_treebank_grammar([grammar])
     out = []
     for (line, words), (tree, logp, heads) in zip(lines, results):
         if tree is not None and normalise:
             tree = tree.with_leaves(words)
         if tree is not None and mapping:
             tree = rename_tree(tree, mapping)
-        out.append(ParsedSentence(line, list(words), tree, logp, heads))
+        out.append(ParsedSentence(line, list(words), tree, logp, heads, treebank))
     return out
 
 
@@ -115,7 +119,8 @@ def to_brackets(parsed: Sequence[ParsedSentence]) -> str:
     """One bracketed tree per line, in input order; an empty line for a blank input line."""
     lines = []
     for p in parsed:
-        lines.append("" if p.blank else treebank_tree(p.tree).to_string() if p.tree is not None
+        lines.append("" if p.blank else treebank_tree(p.tree, p.treebank).to_string()
+                     if p.tree is not None
                      else Tree(NOPARSE, list(p.words)).to_string())
     return "\n".join(lines) + "\n"
 
@@ -219,7 +224,7 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
         else:
             # Written in the treebank's form (`decode.treebank_tree`), as `to_brackets` writes
             # it; the heads come from the grammar's own tree, whose symbols the rule names.
-            shown = treebank_tree(p.tree)
+            shown = treebank_tree(p.tree, p.treebank)
             lines.append(f"# induced_tree = {shown.to_string()}")
             if p.heads is not None:
                 lines.append(f"# head_rule = {MODEL_HEADS}")

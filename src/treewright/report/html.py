@@ -267,7 +267,7 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
     """The sentences' trees by `decoder`; `grammar` is a list of grammars for a decoder of
     several (`decode.ENSEMBLE_DECODERS`)."""
     from treewright.budget import consensus_within_budget, decode_within_budget
-    from treewright.decode import ENSEMBLE_DECODERS, treebank_tree
+    from treewright.decode import ENSEMBLE_DECODERS, is_treebank_grammar, treebank_tree
     from treewright.tracking import terminal_progress
 
     tokens = [s.tokens for s in sentences]
@@ -278,6 +278,7 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
         else:
             results = decode_within_budget(grammar, tokens, decoder, memory_budget_mb,
                                            progress=progress)
+    treebank = is_treebank_grammar(grammar if decoder in ENSEMBLE_DECODERS else [grammar])
     trees, unparsed = [], 0
     for s, r in zip(sentences, results):
         if r is None or r.tree is None:
@@ -285,7 +286,7 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
             trees.append(_flat(s.words))
         else:
             # The treebank's brackets, not the CNF transform's (as `parse` writes them).
-            trees.append(treebank_tree(_with_words(r.tree, s.words)))
+            trees.append(treebank_tree(_with_words(r.tree, s.words), treebank))
     over = [s for s, r in zip(sentences, results) if r is None]
     return Parsed(list(sentences), trees, unparsed, over)
 
