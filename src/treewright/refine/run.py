@@ -440,7 +440,9 @@ def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, s
     if ts_dev.dropped:
         log.note(f"held-out: {len(ts_dev.dropped)} of {len(dev_mapped)} trees use a coarse rule "
                  f"unseen in training and are left out of the held-out likelihood, e.g. "
-                 f"tree {ts_dev.dropped[0][0] + 1}: {ts_dev.dropped[0][1]}")
+                 f"tree {ts_dev.dropped[0][0] + 1}: {ts_dev.dropped[0][1]}"
+                 + ("; none is left, so the held-out likelihood is not computed (nan in "
+                    "metrics.jsonl)" if not ts_dev.num_trees else ""))
     f1_count = min(len(dev_trees), cfg.output.f1_max_sentences or len(dev_trees))
     f1_words = [t.leaves() for t in dev_mapped[:f1_count]]
     f1_gold = [from_coarse_trees(t) for t in dev_mapped[:f1_count]]
