@@ -404,3 +404,11 @@ def test_an_exponent_for_an_integer_option_is_answered_with_the_integer():
         load_config(RunSchema, None, ["seed=1e3"])
     with pytest.raises(ConfigError, match="write numbers without quotes"):
         load_config(RunSchema, None, ["seed='12'"])
+    # Hand-worked: 1e-2 is 0.01, no integer; 1e30 is exactly 10**30 (not the float's
+    # 1000000000000000019884624838656).
+    with pytest.raises(ConfigError, match="1e-2 is 0.01, not an integer"):
+        load_config(RunSchema, None, ["seed=1e-2"])
+    with pytest.raises(ConfigError, match=f"without an exponent: {10 ** 30}[^0-9]"):
+        load_config(RunSchema, None, ["seed=1e30"])
+    with pytest.raises(ConfigError, match="expected an integer"):
+        load_config(RunSchema, None, ["seed=inf"])

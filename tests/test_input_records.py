@@ -145,7 +145,8 @@ def test_a_record_that_gives_no_sentence_is_named_by_file_and_line(tmp_path):
 
 def test_conllu_is_detected_by_content_whatever_the_name(tmp_path):
     # The CoNLL-U definition of a word line (common practice): ten tab-separated columns, the
-    # first an id (7, a range 3-4, or an empty node's 5.1), after optional '#' comments.
+    # first an id (7, a range 3-4, or an empty node's 5.1), HEAD a number or _, after optional
+    # '#' comments; a sentence's first line has id 1, 1-N or 0.N.
     assert detect_format(write(tmp_path, "a.txt", CONLLU)) == "conllu"
     assert detect_format(write(tmp_path, "b.data", CONLLU.split("\n", 2)[2])) == "conllu"
     mwt_first = conllu_line("1-2", "withears") + "\n" + conllu_line("1", "with") + "\n"
@@ -159,6 +160,12 @@ def test_conllu_is_detected_by_content_whatever_the_name(tmp_path):
     assert detect_format(write(tmp_path, "f.txt", words + "\n")) == "text"
     assert detect_format(write(tmp_path, "g.txt", "# kelvo\nsaw stars\n")) == "text"
     assert detect_format(write(tmp_path, "h.txt", "1\tsaw\n")) == "text"
+    # ... and ten tab-separated tokens starting with a number that cannot start a sentence
+    # (a sentence's first id is 1, 1-N or 0.N), or whose seventh (HEAD) is a word.
+    numbered = "\t".join(["3"] + ["kelvo"] * 9)
+    assert detect_format(write(tmp_path, "i.txt", numbered + "\nsaw stars\n")) == "text"
+    headless = "\t".join(["1"] + ["kelvo"] * 9)
+    assert detect_format(write(tmp_path, "j.txt", "# k\n" + headless + "\n")) == "text"
     # Training reads it as CoNLL-U too: its syntactic words, not its lines.
     corpus = read_corpus(tmp_path / "a.txt")
     assert corpus.report.fmt == "conllu"

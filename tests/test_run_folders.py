@@ -10,9 +10,12 @@ from treewright.runfolder import RunFolder
 
 @pytest.mark.parametrize("kind,other,file", [("train", "segment", "chains.json"),
                                              ("segment", "train", "checkpoint.ckpt"),
-                                             ("refine", "train", "checkpoint.ckpt")])
+                                             ("refine", "train", "checkpoint.ckpt"),
+                                             ("train", "segment", "segment.log"),
+                                             ("refine", "train", "train.log")])
 def test_a_fresh_run_refuses_a_folder_of_another_commands_run(tmp_path, kind, other, file):
-    # Common practice ("nothing lost"): a run folder that holds another command's run keeps its
+    # Common practice ("nothing lost"): a run folder that holds another command's run (its
+    # checkpoint, or its log alone: a run stopped before its first checkpoint) keeps its
     # config.yaml, log and metrics; the refusal names the folder and what it holds, and writes
     # nothing.
     (tmp_path / file).write_text("{}")

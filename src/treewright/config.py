@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import decimal
 import difflib
 import math
 import os
@@ -553,12 +554,16 @@ def _quoted_hint(value: Any, plain: bool = False) -> str:
     integer option given an exponent, `1e3`, as the float reading takes it)."""
     if isinstance(value, str):
         try:
-            number = float(value)
+            float(value)
         except ValueError:
             return ""
         if plain:
-            return (f"; an integer is written without an exponent: "
-                    f"{int(number) if number.is_integer() else number}")
+            exact = decimal.Decimal(value)   # exactly: 1e30 as a float is not 10**30
+            if not exact.is_finite():
+                return ""
+            if exact == exact.to_integral_value():
+                return f"; an integer is written without an exponent: {int(exact)}"
+            return f"; {value} is {exact.normalize():f}, not an integer"
         return "; write numbers without quotes"
     return ""
 

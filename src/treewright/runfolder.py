@@ -137,8 +137,10 @@ class RunFolder:
         if self.checkpoint.exists():
             raise InputError(f"the run folder already holds a {self._what}; continue it with "
                              "--resume or choose another output.run_dir", path=str(self.path))
-        for kind, name in CHECKPOINTS.items():   # another command's run: its files stay its own
-            if kind != self.kind and (self.path / name).exists():
+        for kind in LOGS:   # another command's run, finished or not: its files stay its own
+            name = next((n for n in (CHECKPOINTS[kind], LOGS[kind])
+                         if (self.path / n).exists()), None)
+            if kind != self.kind and name is not None:
                 raise InputError(f"the run folder holds a {kind} run ({name}), whose config and "
                                  f"metrics a {self.kind} run would overwrite; choose another "
                                  "output.run_dir", path=str(self.path))

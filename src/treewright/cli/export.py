@@ -40,8 +40,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("source", help="grammar file (text or JSON export) or training run folder")
     p.add_argument("--to", required=True, choices=FORMATS, help="output format")
     p.add_argument("--out", required=True, help="output file ('-': standard output)")
-    p.add_argument("--corpus", help="raw text, one sentence per line: the sentences to parse "
-                                    "(brackets, conllu) or to count usage on (listing)")
+    p.add_argument("--corpus", help="the sentences to parse (brackets, conllu) or to count usage "
+                                    "on (listing): raw text, one sentence per line, or the "
+                                    "words of each tree or CoNLL-U block")
     p.add_argument("--rename", metavar="FILE", help="symbol renaming file ('OLD NEW' per line)")
     p.add_argument("--threshold", type=float, default=None,
                    help="listing: show rules with at least this probability (default 0.01)")

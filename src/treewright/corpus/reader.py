@@ -51,11 +51,28 @@ def is_conllu_word_line(text: str) -> bool:
     return len(fields) == _CONLLU_COLUMNS and _CONLLU_ID.fullmatch(fields[0]) is not None
 
 
+# The first line of a CoNLL-U sentence: its first word (1), a multiword token from it (1-2),
+# or an empty node before it (0.1); its HEAD column a number or _.
+_FIRST_ID = re.compile(r"1|1-[0-9]+|0\.[0-9]+")
+_HEAD = re.compile(r"[0-9]+|_")
+
+
+def starts_conllu_sentence(text: str) -> bool:
+    """True if `text` can be the first line of a CoNLL-U sentence: a word line
+    (`is_conllu_word_line`) whose id is a sentence's first (`1`, `1-2`, `0.1`) and whose HEAD
+    is a number or `_`. A raw-text line of ten tab-separated tokens starting with a number
+    seldom passes all three."""
+    if not is_conllu_word_line(text):
+        return False
+    fields = text.split("\t")
+    return _FIRST_ID.fullmatch(fields[0]) is not None and _HEAD.fullmatch(fields[6]) is not None
+
+
 def detect_format(path: str | os.PathLike) -> str:
     """The format of a corpus file, by name and then by content: 'conllu' for a .conllu/.conll
-    file, or one whose first line that is neither blank nor a `#` comment is a CoNLL-U word
-    line (`is_conllu_word_line`); 'brackets' if the first non-space character is '('; else
-    'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
+    file, or one whose first line that is neither blank nor a `#` comment can start a CoNLL-U
+    sentence (`starts_conllu_sentence`); 'brackets' if the first non-space character is '(';
+    else 'text'. Raises InputError for a missing, empty or non-UTF-8 file."""
     name = check_readable(path)
     if name.lower().endswith(_CONLLU_EXTENSIONS):
         return "conllu"
@@ -67,7 +84,7 @@ def detect_format(path: str | os.PathLike) -> str:
         if text.startswith("#"):  # a CoNLL-U comment, or raw text that starts with '#'
             comments = True
             continue
-        if is_conllu_word_line(text):
+        if starts_conllu_sentence(text):
             return "conllu"
         return "brackets" if stripped.startswith("(") and not comments else "text"
     return "text"
