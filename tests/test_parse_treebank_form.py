@@ -12,10 +12,10 @@ import json
 
 import pytest
 
+from _treebank import refine_on_trees
 from treewright.cli import main
 from treewright.corpus import parse_brackets as parse_all, treebank_form
 from treewright.grammar import coarse_name
-from treewright.refine import load_refine_config, refine
 from treewright.refine.run import cnf_tree
 
 def parse_brackets(text: str):
@@ -58,18 +58,10 @@ def test_treebank_form_undoes_the_cnf_transform_and_projects_subcategories():
 @pytest.fixture(scope="module")
 def refined(tmp_path_factory):
     folder = tmp_path_factory.mktemp("treebank")
-    train, dev = folder / "train.trees", folder / "dev.trees"
-    train.write_text("".join(t + "\n" for t in TRAIN * 4), encoding="utf-8")
-    dev.write_text("".join(t + "\n" for t in HELD_OUT), encoding="utf-8")
     text = folder / "dev.txt"
     text.write_text("".join(" ".join(parse_brackets(t).leaves()) + "\n" for t in HELD_OUT),
                     encoding="utf-8")
-    run = folder / "run"
-    cfg = load_refine_config(None, [
-        "data.start=treebank", f"data.train={train}", f"data.dev={dev}", "data.rare_count=0",
-        "refine.cycles=1", "refine.em_iterations=2", "refine.smoothed_iterations=1",
-        "output.tensorboard=false", "output.stdout_metrics=false", f"output.run_dir={run}"])
-    refine(cfg, run)
+    run, _, dev = refine_on_trees(folder, TRAIN * 4, HELD_OUT)
     return run, dev, text
 
 
