@@ -1,5 +1,5 @@
-"""One-word sentences: the grammars training induces give them no tree, so training sets them
-aside with the reason (and stops on a corpus of nothing else), and `parse` says why it has no
+"""One-word sentences: the grammars training induces give them no tree, so training counts
+them with the reason (and stops on a corpus of nothing else), and `parse` says why it has no
 tree for one.
 
 The data are lines of the invented Velmor language (`test_train_fixtures`)."""
@@ -35,32 +35,33 @@ def test_a_corpus_of_one_word_sentences_stops_with_the_reason(tmp_path, method):
     with pytest.raises(InputError) as info:
         train(cfg, tmp_path / "run")
     message = str(info.value)
-    # Hand-counted: three lines read, all three one word, the first on line 1.
+    # Hand-counted: three lines read, all three one word.
     assert message.startswith(str(corpus))
-    assert "no usable sentence (3 read; skipped: 3 too_short; first: line 1: 1 token" in message
+    assert "every training sentence used (3) has one word" in message
     assert "no rule for a one-word tree" in message
     assert not (tmp_path / "run" / "grammar.pcfg").exists()   # nothing trained on nothing
 
 
-def test_one_word_sentences_are_set_aside_and_counted(tmp_path):
+def test_one_word_sentences_are_counted_with_the_reason(tmp_path):
     lines = [ONE_WORD[0], SENTENCES[0], ONE_WORD[1], SENTENCES[1], ONE_WORD[2]]
     corpus = _write(tmp_path / "mixed.txt", lines)
     cfg = load_train_config(None, base_overrides(tmp_path, corpus, None,
                                                  **{"train.epochs": 2}))
     data = load_data(cfg)
     report = " ".join(data.notes)
-    # Hand-counted from `lines`: 5 read, the 2 sentences of 7 tokens used, 3 set aside.
-    assert "read 5 sentences" in report and "used 2 sentences, 7 tokens" in report
-    assert "skipped 3: too_short 3" in report
-    assert "3 one-word training sentences set aside" in report
+    # Hand-counted from `lines`: 5 read and used (10 tokens), 3 of them one word. They are kept
+    # (their words stay in the vocabulary, the batches are those of earlier versions), and the
+    # note says they add nothing.
+    assert "read 5 sentences" in report and "used 5 sentences, 10 tokens" in report
+    assert "3 of the 5 training sentences used have one word and add nothing" in report
     assert "no rule for a one-word tree" in report
-    assert len(data.train_ids) == 2
+    assert len(data.train_ids) == 5
     trainer = train(cfg, tmp_path / "run")
     log = (trainer.run_dir / "train.log").read_text(encoding="utf-8")
-    assert "3 one-word training sentences set aside" in log
+    assert "3 of the 5 training sentences used have one word" in log
     first = json.loads((trainer.run_dir / "metrics.jsonl").read_text().splitlines()[0])
-    # Both used sentences are parsed (none is one word), so the epoch's figures are real.
-    assert first["train/sentences"] == 2 and first["train/unparsed"] == 0
+    # The epoch's parsed sentences are the two longer ones; the three one-word ones unparsed.
+    assert first["train/sentences"] == 2 and first["train/unparsed"] == 3
 
 
 def _one_word_logz(name: str) -> float:

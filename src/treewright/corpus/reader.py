@@ -187,10 +187,8 @@ class CorpusStream:
             self._skip("empty", line)
             return None
         if n < self.options.min_length:
-            why = self.options.min_length_reason
-            self._skip("too_short", line, message=f"{n} token{'s' * (n != 1)}, "
-                       f"fewer than {self.options.min_length}: {why}" if why else
-                       f"{n} tokens < min_length {self.options.min_length}")
+            self._skip("too_short", line, message=f"{n} tokens < min_length "
+                       f"{self.options.min_length}")
             return None
         if self.options.max_length is not None and n > self.options.max_length:
             self._skip("too_long", line, message=f"{n} tokens > max_length "

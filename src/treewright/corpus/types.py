@@ -64,9 +64,6 @@ class ReadOptions:
     # skipped as "too_short"; longer ones are set aside as "too_long" (kept in Corpus.set_aside).
     min_length: int = 1
     max_length: int | None = None
-    # Why sentences shorter than `min_length` cannot be used, when a model rather than the user
-    # sets it (training a grammar that has no tree for one word); it goes into their records.
-    min_length_reason: str = ""
 
     # Vocabulary built from the used sentences: words seen at least `min_count` times, at most
     # `max_vocab` types including the unknown token. A given `vocabulary` (e.g. the training

@@ -7,6 +7,7 @@ import dataclasses
 import functools
 import math
 import tempfile
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Sequence
@@ -69,8 +70,10 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
     """Read the corpora of `cfg.data` (InputError on bad files), encode them with the training
     vocabulary, and collect the partial brackets when `constraints.train_brackets` asks, or
     from `bracket_source` when `constraints.brackets_from` names a grammar. Training sentences
-    the model can give no tree for their length (one word, `shortest_trainable`) are set
-    aside and counted as too_short, with a note; a corpus left with none raises InputError."""
+    the model can give no tree for their length (one word, `shortest_trainable`) are counted in
+    a note: they are read and kept as before (their words stay in the vocabulary, and the
+    batches and earlier runs' figures are unchanged), but they add nothing to training; a
+    corpus of nothing else raises InputError."""
     d = cfg.data
     drop = frozenset(t.strip() for t in (d.drop_tags or "").split(",") if t.strip())
     shortest = shortest_trainable(cfg)
@@ -78,8 +81,6 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
         raise InputError(f"data.max_length {d.max_length} leaves only sentences of one word, "
                          f"and {ONE_WORD_REASON}", path=str(d.train))
     options = ReadOptions(lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
-                          min_length=shortest,
-                          min_length_reason="" if shortest == 1 else ONE_WORD_REASON,
                           max_length=d.max_length, min_count=d.min_count,
                           max_vocab=d.max_vocab, punct_labels=drop)
     if d.stream_chunk is not None:
@@ -87,10 +88,17 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
     else:
         train = read_corpus(d.train, d.format, options)
     notes = ["training corpus: " + train.report.format().replace("\n", "; ")]
-    one_word = train.report.skipped_by_reason.get("too_short", 0)
-    if one_word:
-        notes.append(f"{one_word} one-word training sentences set aside (counted as too_short "
-                     f"above): {ONE_WORD_REASON}")
+    if shortest > 1:
+        lengths = Counter(len(s.tokens) for s in train.sentences) \
+            if d.stream_chunk is None else sum(train.histograms, Counter())
+        one_word, used = lengths.get(1, 0), sum(lengths.values())
+        if one_word == used:
+            raise InputError(f"every training sentence used ({used}) has one word, and "
+                             f"{ONE_WORD_REASON}: there is nothing to train on",
+                             path=str(d.train))
+        if one_word:
+            notes.append(f"{one_word} of the {used} training sentences used have one word and "
+                         f"add nothing to training: {ONE_WORD_REASON}")
     vocab = train.vocabulary
     brackets = None
     if cfg.constraints.train_brackets:
