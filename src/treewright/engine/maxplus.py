@@ -12,6 +12,8 @@ over every column.
 
 from __future__ import annotations
 
+import functools
+
 import torch
 from torch import Tensor
 
@@ -28,14 +30,21 @@ BOUNDED_FROM = 2 ** 23  # sums over every column (M * K * R) below which `max_pl
 
 class MaxPlusWeights:
     """The weights of `max_plus`, (R, K) in log space (each at most 0: log-probabilities),
-    laid out for its bounds: transposed (columns as rows, for gathering candidates), each row's
-    maximum, and in probability space (for the bound by mass)."""
+    laid out for its bounds: transposed (columns as rows, for gathering candidates and for the
+    loop over columns), and, made when the bounds first need them, each row's maximum and the
+    weights in probability space (for the bound by mass)."""
 
     def __init__(self, weights: Tensor):
         self.log = weights
         self.by_column = weights.t().contiguous()                       # (K, R)
-        self.row_max = weights.max(-1).values                           # (R,)
-        self.prob_t = weights.exp().t().contiguous()                    # (K, R)
+
+    @functools.cached_property
+    def row_max(self) -> Tensor:                                        # (R,)
+        return self.log.max(-1).values
+
+    @functools.cached_property
+    def prob_t(self) -> Tensor:                                         # (K, R)
+        return self.log.exp().t().contiguous()
 
 
 def _by_columns(weights: MaxPlusWeights) -> bool:
