@@ -38,34 +38,21 @@ def _is_unknown(token: str, vocabulary: Vocabulary) -> bool:
     return index is None or index == vocabulary.unk_id
 
 
-# The ID column of a CoNLL-U word line: a word (7), a multiword token's range (3-4) or an empty
-# node (5.1), as the CoNLL-U format defines it.
-_CONLLU_ID = re.compile(r"[0-9]+(-[0-9]+|\.[0-9]+)?")
+# The first line of a CoNLL-U sentence (the format's definition): ten tab-separated columns, the
+# ID its first word (1), a multiword token from it (1-2) or an empty node before it (0.1), HEAD
+# (the seventh) a number or _.
 _CONLLU_COLUMNS = 10
-
-
-def is_conllu_word_line(text: str) -> bool:
-    """True if `text` has the shape of a CoNLL-U word line: ten tab-separated columns, the
-    first a token id (`1`, `3-4`, `5.1`). A raw-text line with tabs in it rarely has both."""
-    fields = text.split("\t")
-    return len(fields) == _CONLLU_COLUMNS and _CONLLU_ID.fullmatch(fields[0]) is not None
-
-
-# The first line of a CoNLL-U sentence: its first word (1), a multiword token from it (1-2),
-# or an empty node before it (0.1); its HEAD column a number or _.
 _FIRST_ID = re.compile(r"1|1-[0-9]+|0\.[0-9]+")
 _HEAD = re.compile(r"[0-9]+|_")
 
 
 def starts_conllu_sentence(text: str) -> bool:
-    """True if `text` can be the first line of a CoNLL-U sentence: a word line
-    (`is_conllu_word_line`) whose id is a sentence's first (`1`, `1-2`, `0.1`) and whose HEAD
-    is a number or `_`. A raw-text line of ten tab-separated tokens starting with a number
-    seldom passes all three."""
-    if not is_conllu_word_line(text):
-        return False
+    """True if `text` can be the first line of a CoNLL-U sentence: ten tab-separated columns,
+    the first a sentence's first id (`1`, `1-2`, `0.1`), HEAD a number or `_`. A raw-text line
+    of ten tab-separated tokens seldom has all three."""
     fields = text.split("\t")
-    return _FIRST_ID.fullmatch(fields[0]) is not None and _HEAD.fullmatch(fields[6]) is not None
+    return (len(fields) == _CONLLU_COLUMNS and _FIRST_ID.fullmatch(fields[0]) is not None
+            and _HEAD.fullmatch(fields[6]) is not None)
 
 
 def detect_format(path: str | os.PathLike) -> str:
