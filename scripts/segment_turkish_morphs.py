@@ -53,15 +53,21 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--samples", type=int, default=10)
     parser.add_argument("--sample-every", type=int, default=2)
     parser.add_argument("--conllu", type=Path, default=TREEBANK)
+    parser.add_argument("--also", type=Path, action="append", default=[],
+                        help="another CoNLL-U file whose written words the sampler reads too "
+                             "(raw words only); its split words are scored on their own")
     parser.add_argument("--case-rules", choices=("default", "turkic"), default="default",
                         help="how words and gold morphs are lowercased (corpus.lowercase)")
     args = parser.parse_args(argv)
 
-    written = read_written_words(args.conllu, args.case_rules)
-    types = written.types()
-    print(f"{len(written.morphs)} written words ({len(written.split)} split, "
-          f"{sum(len(m) - 1 for m in written.split)} gold boundaries), {len(types)} types, "
-          f"from {written.sentences} sentences of {args.conllu.name}")
+    sections = {path: read_written_words(path, args.case_rules)
+                for path in [args.conllu, *args.also]}
+    for path, written in sections.items():
+        print(f"{len(written.morphs)} written words ({len(written.split)} split, "
+              f"{sum(len(m) - 1 for m in written.split)} gold boundaries), "
+              f"{len(written.types())} types, from {written.sentences} sentences of {path.name}")
+    types = list(dict.fromkeys(t for w in sections.values() for t in w.types()))
+    print(f"{len(types)} distinct written words in all")
     start = time.perf_counter()
     chars = [characters(t) for t in types]      # a letter and its combining marks: one
     sampler = AdaptorSampler(morph_grammar([c for t in chars for c in t]), chars,
@@ -80,7 +86,9 @@ def main(argv: list[str] | None = None) -> None:
         rows.insert(0, ("pooled", dict(zip(types, tally.segmentations(sampler.words)))))
     print(f"{args.sweeps} sweeps of {args.chains} chain(s) over {len(types)} types in "
           f"{seconds:.0f} s; log joint {', '.join(f'{j:.1f}' for j in joints)}")
-    for name, gold in (("split words", written.split), ("all words", written.morphs)):
+    scored = [(f"{name} of {path.name}", gold) for path, written in sections.items()
+              for name, gold in (("split words", written.split), ("all words", written.morphs))]
+    for name, gold in scored:
         base = baseline_scores(gold)
         print(f"\nboundaries on {name} ({len(gold)})\n{'':<18} precision recall     F1")
         for label, segmented in rows:

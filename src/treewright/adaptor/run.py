@@ -46,6 +46,7 @@ from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
 from treewright.adaptor.sampler import AdaptorSampler, annealing
 from treewright.adaptor.segment import Utterances, characters, read_utterances
 from treewright.config import dump_config_yaml
+from treewright.corpus import normalization_note, normalization_variants
 from treewright.errors import InputError
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
 from treewright.runfolder import RunFolder
@@ -126,7 +127,18 @@ def segment_resume(run_dir: str | Path, stream: TextIO | None = None) -> Segment
 
 def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
           ) -> tuple[Utterances, WrittenWords | None]:
-    """The inputs, and with data.format conllu the written words they are the types of."""
+    """The inputs, and with data.format conllu the written words they are the types of; a
+    note when one character is written in two Unicode normalization forms."""
+    corpus, written = _read_inputs(cfg, folder, stream)
+    note = normalization_note(normalization_variants(c for u in corpus.characters for c in u),
+                              "characters")
+    if note is not None:
+        folder.note(note, stream)
+    return corpus, written
+
+
+def _read_inputs(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
+                 ) -> tuple[Utterances, WrittenWords | None]:
     if cfg.data.format == "conllu":
         written = read_written_words(cfg.data.text, cfg.data.case_rules)
         first = written.first_morphs()

@@ -20,6 +20,7 @@ from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binar
                                           treebank_form, unbinarize)
 from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, Corpus, ReadOptions,
                                      ReadReport, Sentence, SkippedRecord, lowercase,
+                                     normalization_note, normalization_variants,
                                      run_case_rules, run_drop_tags, run_read_options,
                                      run_tag_mode)
 from treewright.corpus.walk import depth, trees_equal
@@ -30,7 +31,8 @@ __all__ = [
     "Sentence", "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
     "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary", "has_transform_marks",
     "insert_words", "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "length_batches",
-    "lift_to_projective", "lowercase", "nonprojective_arcs", "parse_brackets", "preterminal_tags",
+    "lift_to_projective", "lowercase", "nonprojective_arcs", "normalization_note",
+    "normalization_variants", "parse_brackets", "preterminal_tags",
     "read_corpus", "read_records", "read_tagged", "run_case_rules", "run_drop_tags",
     "run_read_options", "run_tag_mode", "split_indices", "strip_label", "subtree_spans",
     "treebank_form", "trees_equal", "unbinarize", "write_skip_log",

@@ -6,8 +6,9 @@ report into the same `ReadReport`, so the layers above never branch on the file 
 
 from __future__ import annotations
 
+import unicodedata
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Iterable, Literal
 
 from treewright.trees import Tree
 from treewright.vocab import Vocabulary
@@ -25,6 +26,29 @@ def lowercase(word: str, rules: str = "default") -> str:
     if rules == "turkic":
         word = word.replace("I", "\u0131").replace("\u0130", "i")
     return word.lower()
+
+
+def normalization_variants(words: Iterable[str]) -> list[list[str]]:
+    """The words of `words` that are one word written in two or more Unicode normalization
+    forms (a composed letter, or the letter and a combining mark), grouped, each group in the
+    order first seen; groups in the order their first word was seen. Readers keep words as
+    written, so each form is a word of its own to a grammar or a sampler."""
+    forms: dict[str, list[str]] = {}
+    for word in dict.fromkeys(words):
+        forms.setdefault(unicodedata.normalize("NFC", word), []).append(word)
+    return [group for group in forms.values() if len(group) > 1]
+
+
+def normalization_note(variants: list[list[str]], what: str) -> str | None:
+    """A line for a run's log about `normalization_variants` of its `what` (a plural, e.g.
+    "training words"), naming the code points of the first group; None when there are none."""
+    if not variants:
+        return None
+    first = variants[0]
+    shown = " and ".join(f"{w!r} ({' '.join(f'U+{ord(c):04X}' for c in w)})" for w in first)
+    return (f"{len(variants)} {what} are each written in two or more Unicode normalization "
+            f"forms, and each form is read as a word of its own (for example {shown}); to read "
+            f"them as one, write the text in one form, for example NFC")
 
 
 def run_case_rules(data) -> str | None:

@@ -15,7 +15,8 @@ from typing import Callable, Sequence
 import torch
 from torch import Tensor
 
-from treewright.corpus import ReadOptions, read_corpus
+from treewright.corpus import (ReadOptions, normalization_note, normalization_variants,
+                               read_corpus)
 from treewright.corpus.lines import iter_lines
 from treewright.engine.memory import inside_outside_bytes
 from treewright.errors import InputError
@@ -100,6 +101,11 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
             notes.append(f"{one_word} of the {used} training sentences used have one word and "
                          f"add nothing to training: {ONE_WORD_REASON}")
     vocab = train.vocabulary
+    tokens = vocab.words if d.stream_chunk is not None else \
+        (t for s in train.sentences for t in s.tokens)
+    note = normalization_note(normalization_variants(tokens), "training words")
+    if note is not None:
+        notes.append(note)
     brackets = None
     if cfg.constraints.train_brackets:
         if any(s.tree is None for s in train.sentences):
