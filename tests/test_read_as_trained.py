@@ -105,6 +105,34 @@ def test_drop_tags_are_left_out_of_the_parse_and_put_back(tmp_path):
     assert "line 2: no parse (every tag is one that training removed" in err
 
 
+def test_score_and_evaluate_leave_out_the_dropped_tags_alike(tmp_path):
+    run = run_folder(tmp_path / "run", TAGS, "  tag_mode: true\n  drop_tags: PUNCT\n")
+    gold = tmp_path / "gold.conllu"
+    # Two sentences whose tags, without PUNCT, are the grammar's only string NOUN VERB NOUN.
+    rows = [("Orvek", "NOUN", 2), ("selim", "VERB", 0), (",", "PUNCT", 2), ("tasko", "NOUN", 2),
+            (".", "PUNCT", 2)]
+    block = "".join(f"{i}\t{w}\t_\t{t}\t_\t_\t{h}\t_\t_\t_\n"
+                    for i, (w, t, h) in enumerate(rows, start=1))
+    gold.write_text(block + "\n" + block + "\n", encoding="utf-8")
+    code, out, err = cli("score", run, gold, "--float64")
+    assert code == 0, err
+    lines = [json.loads(line) for line in out.splitlines()]
+    # Hand-worked: NOUN VERB NOUN has probability one; the records start on lines 1 and 7.
+    assert [(x["line"], x["tokens"], x["logprob"]) for x in lines[:2]] == \
+        [(1, ["NOUN", "VERB", "NOUN"], 0.0), (7, ["NOUN", "VERB", "NOUN"], 0.0)]
+    assert lines[2]["summary"]["log_likelihood"] == 0.0
+    # evaluate --text reads the file the same way: the same held-out likelihood.
+    trees = tmp_path / "pred.trees"
+    trees.write_text("(S (N Orvek) (VP (V selim) (P ,) (N tasko)) (P .))\n" * 2,
+                     encoding="utf-8")
+    scores = tmp_path / "e.json"
+    code, _, err = cli("evaluate", trees, gold, "--grammar", run, "--text", gold,
+                       "--json", scores)
+    assert code == 0, err
+    likelihood = json.loads(scores.read_text())["likelihood"]
+    assert (likelihood["total_logprob"], likelihood["total_words"]) == (0.0, 6)
+
+
 def test_a_word_run_with_drop_tags_says_why_raw_text_fails(tmp_path):
     words = TAGS.replace('"NOUN"', '"tasko"').replace('"VERB"', '"selim"')
     run = run_folder(tmp_path / "run", words, "  drop_tags: PUNCT\n")

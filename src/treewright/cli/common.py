@@ -99,6 +99,23 @@ def as_trained(source, lines: list[tuple[int, list[str]]]) -> list[list[str]]:
     return [[normalise(w) for w in words] for _, words in lines]
 
 
+def read_as_run_read(path: str, source) -> tuple[list[tuple[int, list[str]]],
+                                                 list[list[str]]]:
+    """The sentences of `path` as (line number, words) and the tokens the grammar of `source`
+    (an `export.GrammarSource`) reads for them. Raw text and stdin are read by `read_sentences`
+    and normalised by `as_trained`; a bracketed or CoNLL-U file is read as the grammar's
+    training run read its corpus (`corpus.run_read_options`: lowercasing, tags in tag mode,
+    and the words of `data.drop_tags` left out), as `evaluate --text` reads it."""
+    from treewright.corpus import detect_format, read_records, run_read_options
+    if path != "-" and detect_format(path) != "text":
+        config = (source.training or {}).get("config")
+        options = run_read_options(config.get("data") if isinstance(config, dict) else None)
+        records = read_records(path, options=options)
+        return [(s.line, list(s.words)) for s in records], [list(s.tokens) for s in records]
+    lines = read_sentences(path, trained_on_tags(source))
+    return lines, as_trained(source, lines)
+
+
 def dumps(obj) -> str:
     """JSON with -inf/nan written as null (strict JSON has no infinities)."""
     def clean(x):

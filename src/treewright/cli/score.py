@@ -12,7 +12,10 @@ EXAMPLES = """examples:
 
 TEXT is raw text, one sentence per line; a bracketed-tree or CoNLL-U file (see `parse`) gives one
 sentence per tree or sentence block, its words read as `evaluate` reads gold (empty elements
-removed; a grammar trained on tags reads its tags), "line" being the record's first line.
+removed; a grammar trained on tags reads its tags), "line" being the record's first line. Given
+a run folder or JSON export, such a file is read as `evaluate --text` reads it: as the run read
+its training corpus, so the words of the tags it removed (data.drop_tags) are left out, and a
+record with nothing left stops with its line.
 
 Each sentence (non-blank line) gives one JSON line: {"line", "tokens", "logprob", "parsed",
 "unknown"}; logprob is the natural log of the sum over all trees, null when the sentence has no
@@ -44,8 +47,7 @@ def run(args) -> int:
     import torch
 
     from treewright.budget import BudgetPlan, plan_budget, run_plan
-    from treewright.cli.common import (as_trained, dumps, read_sentences, shortest,
-                                       trained_on_tags, warn_over_budget)
+    from treewright.cli.common import dumps, read_as_run_read, shortest, warn_over_budget
     from treewright.export import open_grammar, open_run_record  # text, JSON export or run folder
     from treewright.inference import corpus_summary, score, score_rules
     from treewright.tracking import terminal_progress
@@ -57,8 +59,7 @@ def run(args) -> int:
     if factored is not None:
         # Its own engine pass: the grammar file would load into the (NT, S, S) rule tensor.
         source = open_run_record(args.grammar)
-        lines = read_sentences(args.text, trained_on_tags(source))
-        inputs = as_trained(source, lines)
+        lines, inputs = read_as_run_read(args.text, source)
         plan = BudgetPlan.unbudgeted([len(w) for w in inputs], SCORE_GROUP)
 
         def work(group):
@@ -66,8 +67,7 @@ def run(args) -> int:
     else:
         source = open_grammar(args.grammar)
         grammar = source.grammar
-        lines = read_sentences(args.text, trained_on_tags(source))
-        inputs = as_trained(source, lines)
+        lines, inputs = read_as_run_read(args.text, source)
         plan = plan_budget(grammar, [len(w) for w in inputs], args.memory_budget, dtype,
                            args.batch_size)
         warn_over_budget(plan, grammar, lines, args.text, dtype, "scored")
