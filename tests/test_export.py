@@ -285,6 +285,13 @@ def test_blank_input_lines_keep_their_place(velmar, tmp_path):
     code, _, err = run_cli("export", velmar, "--to", "brackets", "--corpus", corpus,
                            "--out", out)
     assert code == 0 and "1 of 4 sentences had no parse" in err
+    # The line is named with its reason, as parse names it (one word: velmar's root rewrites
+    # to nonterminals, each to two children).
+    reason = f"{corpus}, line 5: no parse (one word: the grammar has no rule for a one-word tree"
+    assert reason in err
+    _, _, parse_err = run_cli("parse", velmar, corpus)
+    assert [x for x in parse_err.splitlines() if ": no parse (" in x] == \
+        [x for x in err.splitlines() if ": no parse (" in x]
     lines = out.read_text(encoding="utf-8").split("\n")
     # Reference: the input has 6 lines, so the output has 6 lines (plus the final newline).
     assert len(lines) == len(raw) + 1 and lines[-1] == ""

@@ -116,6 +116,23 @@ def read_as_run_read(path: str, source) -> tuple[list[tuple[int, list[str]]],
     return lines, as_trained(source, lines)
 
 
+def no_parse_reason(words: list[str], vocab, one_word_impossible: bool) -> str:
+    """Why a sentence of `words` (as the grammar looks them up) has no tree under a grammar
+    of vocabulary `vocab`: one word where `one_word_impossible` (no nonterminal emits a word),
+    words the grammar does not have, words it reads as its unknown token (it may give that
+    token no tree), or none of these."""
+    if len(words) == 1 and one_word_impossible:
+        return ("one word: the grammar has no rule for a one-word tree (its root rewrites to a "
+                "nonterminal, and every nonterminal to two children)")
+    unknown = [w for w in words if vocab.lookup(w) < 0]
+    why = f"unknown words {unknown}" if unknown else "no tree covers it"
+    as_unk = [w for w in words if vocab.unk is not None and w != vocab.unk
+              and vocab.lookup(w) == vocab.unk_id]
+    if as_unk and not unknown:
+        why += f"; words read as the grammar's {vocab.unk}: {as_unk}"
+    return why
+
+
 def dumps(obj) -> str:
     """JSON with -inf/nan written as null (strict JSON has no infinities)."""
     def clean(x):

@@ -64,7 +64,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import read_lines, read_sentences, training_normaliser
+    from treewright.cli.common import (input_name, no_parse_reason, read_lines, read_sentences,
+                                       training_normaliser)
     from treewright.errors import InputError
     from treewright.export import load_renaming, open_grammar, prune, rename_grammar
     from treewright.export.jsonformat import grammar_json_text
@@ -120,10 +121,17 @@ def run(args) -> int:
             lambda words: [(p.tree, p.score, p.heads if p.tree is not None else None)
                            for p in lexicalized.parse(words)])
         parsed = parse_corpus(grammar, every_line, mapping, normalise, decoder)
-        unparsed = sum(1 for p in parsed if p.tree is None and not p.blank)
-        if unparsed:
-            print(f"{unparsed} of {len(lines)} sentences had no parse (kept in the output)",
+        unparsed = [p for p in parsed if p.tree is None and not p.blank]
+        vocab = grammar.vocab if lexicalized is None else lexicalized.vocab
+        for p in unparsed:
+            looked_up = [normalise(w) for w in p.words] if normalise else p.words
+            why = no_parse_reason(looked_up, vocab, lexicalized is None and
+                                  not grammar.nonterminals_emit)
+            print(f"{input_name(args.corpus)}, line {p.line}: no parse ({why})",
                   file=sys.stderr)
+        if unparsed:
+            print(f"{len(unparsed)} of {len(lines)} sentences had no parse (kept in the "
+                  "output)", file=sys.stderr)
         blanks = len(parsed) - len(lines)
         if blanks and args.to == "conllu":
             print(f"{blanks} blank lines have no CoNLL-U block (a sentence needs a word); each "

@@ -104,7 +104,8 @@ def run(args) -> int:
     import torch
 
     from treewright.budget import BudgetPlan, plan_budget, run_plan
-    from treewright.cli.common import as_trained, input_name, read_lines, warn_over_budget
+    from treewright.cli.common import (as_trained, input_name, no_parse_reason, read_lines,
+                                       warn_over_budget)
     from treewright.corpus import (detect_format, insert_words, read_tagged, run_drop_tags,
                                    run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
@@ -227,17 +228,9 @@ def run(args) -> int:
             why = None
             if not inputs[i]:
                 why = f"every tag is one that training removed (data.drop_tags: {sorted(drop)})"
-            elif result is not None and len(inputs[i]) == 1 and one_word_impossible:
-                why = ("one word: the grammar has no rule for a one-word tree (its root "
-                       "rewrites to a nonterminal, and every nonterminal to two children)")
             elif result is not None:  # over the budget was reported already
-                unknown = [w for w in inputs[i] if vocab.lookup(w) < 0]
-                why = f"unknown words {unknown}" if unknown else "no tree covers it"
-                as_unk = [w for w in inputs[i] if vocab.unk is not None and w != vocab.unk
-                          and vocab.lookup(w) == vocab.unk_id]
-                if as_unk and not unknown:    # the grammar may give its unknown token no tree
-                    why += f"; words read as the grammar's {vocab.unk}: {as_unk}"
-                if drop and not on_tags:
+                why = no_parse_reason(inputs[i], vocab, one_word_impossible)
+                if drop and not on_tags and not why.startswith("one word"):
                     why += (f"; the grammar's training run removed the words tagged "
                             f"{', '.join(sorted(drop))} (data.drop_tags), and raw text has "
                             "no tags to find them by: remove such words from the text")
