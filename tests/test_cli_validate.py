@@ -56,3 +56,15 @@ def test_refine_problems_are_reported_with_their_keys(tmp_path, capsys):
     assert main(["validate", str(path)]) == 1
     # Hand-checked: the text start refines a given grammar (RefineDataConfig.grammar).
     assert "data.grammar" in capsys.readouterr().err
+
+
+def test_paths_that_name_nothing_are_noted_and_do_not_fail(tmp_path, capsys):
+    # Reference: the file system itself (one path exists, the other was never made).
+    present = tmp_path / "train.txt"
+    present.write_text("ta ferro kip\n", encoding="utf-8")
+    missing = tmp_path / "dev.txt"
+    config = CONFIGS[0].parent / "em_demo.yaml"
+    assert main(["validate", str(config), f"data.train={present}", f"data.dev={missing}"]) == 0
+    err = capsys.readouterr().err
+    assert f"note: data.dev: {missing} does not exist (yet)" in err
+    assert "data.train" not in err and "output.run_dir" not in err   # the run makes its folder
