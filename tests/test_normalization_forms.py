@@ -38,13 +38,15 @@ def test_variants_group_canonically_equivalent_words_only():
     words = ["ta", COMPOSED, "kip", DECOMPOSED, ANGSTROM, "fi", A_RING, LIGATURE, COMPOSED]
     assert normalization_variants(words) == [[COMPOSED, DECOMPOSED], [ANGSTROM, A_RING]]
     assert normalization_variants(["ta", "kip", "fi", LIGATURE]) == []
-    note = normalization_note(normalization_variants(words), "training words")
+    note = normalization_note(normalization_variants(words), "training word")
     assert note.startswith("2 training words are each written in two or more Unicode "
                            "normalization forms")
+    assert normalization_note([[COMPOSED, DECOMPOSED]], "character").startswith(
+        "1 character is written in two or more")
     # The first group, with each form's code points.
     assert "'ferr\u00e9' (U+0066 U+0065 U+0072 U+0072 U+00E9)" in note
     assert "(U+0066 U+0065 U+0072 U+0072 U+0065 U+0301)" in note
-    assert normalization_note([], "training words") is None
+    assert normalization_note([], "training word") is None
 
 
 @pytest.mark.parametrize("stream", [False, True])
@@ -56,7 +58,7 @@ def test_training_notes_a_word_read_in_two_forms(tmp_path, stream):
     cfg = load_train_config(None, base_overrides(tmp_path, corpus, None, **extra))
     data = load_data(cfg)
     notes = [n for n in data.notes if "normalization forms" in n]
-    assert len(notes) == 1 and notes[0].startswith("1 training words are each written")
+    assert len(notes) == 1 and notes[0].startswith("1 training word is written")
     # Nothing is changed: both forms are words of the vocabulary, as written.
     assert COMPOSED in data.vocab and DECOMPOSED in data.vocab
     plain = tmp_path / "plain.txt"
@@ -75,7 +77,7 @@ def test_segment_notes_a_character_read_in_two_forms(tmp_path):
     segment_words(load_segment_config(config), tmp_path / "run")
     log = (tmp_path / "run" / "segment.log").read_text(encoding="utf-8")
     # The characters (grapheme clusters) é and e + U+0301 are one letter in two forms.
-    assert "1 characters are each written in two or more Unicode normalization forms" in log
+    assert "1 character is written in two or more Unicode normalization forms" in log
     assert "'\u00e9' (U+00E9) and 'e\u0301' (U+0065 U+0301)" in log
     segmentation = (tmp_path / "run" / "segmentation.txt").read_text(encoding="utf-8")
     assert DECOMPOSED in segmentation.replace(" ", "")    # written back as read

@@ -131,7 +131,7 @@ def _read(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
     note when one character is written in two Unicode normalization forms."""
     corpus, written = _read_inputs(cfg, folder, stream)
     note = normalization_note(normalization_variants(c for u in corpus.characters for c in u),
-                              "characters")
+                              "character")
     if note is not None:
         folder.note(note, stream)
     return corpus, written

@@ -39,16 +39,18 @@ def normalization_variants(words: Iterable[str]) -> list[list[str]]:
     return [group for group in forms.values() if len(group) > 1]
 
 
-def normalization_note(variants: list[list[str]], what: str) -> str | None:
-    """A line for a run's log about `normalization_variants` of its `what` (a plural, e.g.
-    "training words"), naming the code points of the first group; None when there are none."""
+def normalization_note(variants: list[list[str]], noun: str) -> str | None:
+    """A line for a run's log about `normalization_variants` of its words or characters
+    (`noun` in the singular, e.g. "training word"), naming the code points of the first group;
+    None when there are none."""
     if not variants:
         return None
     first = variants[0]
     shown = " and ".join(f"{w!r} ({' '.join(f'U+{ord(c):04X}' for c in w)})" for w in first)
-    return (f"{len(variants)} {what} are each written in two or more Unicode normalization "
-            f"forms, and each form is read as a word of its own (for example {shown}); to read "
-            f"them as one, write the text in one form, for example NFC")
+    counted = f"1 {noun} is" if len(variants) == 1 else f"{len(variants)} {noun}s are each"
+    return (f"{counted} written in two or more Unicode normalization forms, and each form is "
+            f"read as one of its own (for example {shown}); to read them as one, write the "
+            f"text in one form, for example NFC")
 
 
 def run_case_rules(data) -> str | None:

@@ -103,7 +103,7 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
     vocab = train.vocabulary
     tokens = vocab.words if d.stream_chunk is not None else \
         (t for s in train.sentences for t in s.tokens)
-    note = normalization_note(normalization_variants(tokens), "training words")
+    note = normalization_note(normalization_variants(tokens), "training word")
     if note is not None:
         notes.append(note)
     brackets = None
