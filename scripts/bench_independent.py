@@ -41,7 +41,7 @@ of 16, float32), and prints each one's rate against the epoch's.
 productions, `induce.load_factored`), on the first `--sentences` lines of FILE of at most
 `--max-length` words, against an epoch of a fresh model of the run's sizes on the same
 sentences: one epoch of random words leaves posteriors flatter than a trained model's, which
-costs max-rule-product more (its bounds settle less; see `decode._max_plus`).
+costs max-rule-product more (its bounds settle less; see `engine.maxplus.max_plus`).
 """
 
 from __future__ import annotations
@@ -262,7 +262,8 @@ def main(argv: list[str] | None = None) -> dict:
     parser.add_argument("--max-length", type=int, default=30)
     parser.add_argument("--vocab", type=int, default=5_000)
     parser.add_argument("--parse", action="store_true",
-                        help="with --epoch: then decode the same sentences with mbr")
+                        help="with --epoch: then decode the same sentences with mbr and "
+                             "with max-rule-product")
     parser.add_argument("--run", default=None,
                         help="with --epoch --parse: decode with this trained run's model "
                              "(a run folder of independent productions) instead")

@@ -31,7 +31,8 @@ Grammar text format (ours; see the README):
                              one line per adapted symbol, anywhere in the file). A PCFG reader
                              ignores it: the rules alone are the base grammar.
 
-Probabilities are printed with 17 significant digits, so load, save, load is exact in float64.
+Probabilities are printed as the shortest decimal that reads back as the same float64 (repr),
+so load, save, load is exact in float64.
 
 Subcategories: a refined grammar names subcategory k of a symbol `NAME` as `NAME·k`
 (`SUBCATEGORY_MARK`, U+00B7 middle dot, then the number). The mark is ours: no treebank tag set

@@ -15,7 +15,8 @@ from treewright.threads import threads_wanted, use_threads
 COMMANDS = {
     "demo": ("treewright.cli.demo", "the whole job on the embedded demo corpus"),
     "train": ("treewright.cli.train", "induce a grammar as a config says, into a run folder"),
-    "validate": ("treewright.cli.validate", "check a training config and do nothing else"),
+    "validate": ("treewright.cli.validate",
+                 "check a training, refine or segment config and do nothing else"),
     "refine": ("treewright.cli.refine",
                "split-merge refinement of a grammar's symbols into subcategories"),
     "segment": ("treewright.cli.segment",
@@ -29,7 +30,8 @@ COMMANDS = {
     "compare": ("treewright.cli.compare", "two grammars' likelihood, brackets and symbol matching"),
     "evaluate": ("treewright.cli.evaluate",
                  "bracket F1 of predicted trees against gold, beside the baselines"),
-    "report": ("treewright.cli.report", "one self-contained HTML page about a training run"),
+    "report": ("treewright.cli.report",
+               "one self-contained HTML page about a train, refine or segment run"),
 }
 
 

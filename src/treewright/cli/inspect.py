@@ -25,7 +25,8 @@ its training corpus, which must still be where its config points).
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar file (text or JSON export) or training run folder")
-    p.add_argument("--corpus", help="raw text, one sentence per line, for usage and examples")
+    p.add_argument("--corpus", help="the sentences for usage and examples: raw text, one per "
+                                    "line, or the words of each tree or CoNLL-U block")
     p.add_argument("--symbol", help="show this symbol in full (a name after --rename)")
     p.add_argument("--threshold", type=float, default=None,
                    help="show rules with at least this probability (default 0.01)")

@@ -1,4 +1,4 @@
-"""treewright report: one self-contained HTML page about a training run."""
+"""treewright report: one self-contained HTML page about a train, refine or segment run."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ from treewright.cli.common import add_budget_argument
 
 EXAMPLES = """examples:
   treewright report runs/em_demo
-  treewright report runs/em_demo --gold data/demo/dev.trees --out em_demo.html
-  treewright report runs/em_demo --text data/demo/test.txt --heatmap-sentence 3
+  treewright report runs/em_demo --gold src/treewright/data/demo/dev.trees --out em_demo.html
+  treewright report runs/em_demo --text src/treewright/data/demo/test.txt --heatmap-sentence 3
 
 The page (default RUN/report.html) holds the likelihood, perplexity and dev F1 curves, F1 by
 sentence length beside the baselines, label recall, each symbol's most probable rules and words,
