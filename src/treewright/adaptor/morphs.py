@@ -13,6 +13,12 @@ Punctuation tokens (UPOS PUNCT) are taken out before the words are formed: a com
 against a word is not one of its morphs, and the reader then leaves the tokens around it
 unjoined (`corpus.reader._joined_without`).
 
+A multiword token whose words run together do not spell it (a contraction: the treebank writes
+`au` as `à` + `le`, or restores a letter the spelling leaves out) has no gold boundaries in
+the written word, and its tokens run together are a word nobody wrote. Such words are set
+aside, counted, with an example (`WrittenWords.contracted`): they are neither segmented nor
+scored.
+
 Baselines (common practice for boundary scores): no split predicts no boundary (precision,
 recall and F1 all 0 by the convention of `evaluation.segmentation`), and a split at every
 character predicts every position (recall 1, precision the share of positions that are gold
@@ -21,7 +27,7 @@ boundaries).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterable, Sequence
 
@@ -43,11 +49,14 @@ class WrittenWords:
     morphs     per word, its syntactic tokens lowercased (the gold morphs; one for an unsplit word)
     sentences  the sentences used
     skipped    sentences the reader skipped (too short: left empty once punctuation is out)
+    contracted the occurrences set aside, each as (written form, its tokens), lowercased: words
+               with a multiword token whose tokens do not spell it (see the module docstring)
     """
 
     morphs: list[list[str]]
     sentences: int
     skipped: int
+    contracted: list[tuple[str, list[str]]] = field(default_factory=list)
 
     @property
     def split(self) -> list[list[str]]:
@@ -67,21 +76,40 @@ class WrittenWords:
         return first
 
 
-def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] | None]],
-                       case_rules: str = "default") -> list[list[str]]:
-    """The orthographic words of (tokens, joined) sentences, each as its tokens lowercased
-    under `case_rules` (`corpus.lowercase`). A sentence whose joins the source does not give
-    (joined None) has one word per token."""
-    out: list[list[str]] = []
-    for tokens, joined in sentences:
-        if joined is None:
-            out.extend([lowercase(t, case_rules)] for t in tokens)
-            continue
-        groups = dict(split_words(joined))  # start -> end of each word of two or more tokens
+def orthographic_words(sentences: Iterable[tuple], case_rules: str = "default"
+                       ) -> list[list[str]]:
+    """The orthographic words of (tokens, joined) or (tokens, joined, contracted) sentences,
+    each as its tokens lowercased under `case_rules` (`corpus.lowercase`). A sentence whose
+    joins the source does not give (joined None) has one word per token. Words with a
+    contracted multiword token (`Sentence.contracted`) are left out: `written_words` gives
+    them."""
+    return [m for m, written in written_words(sentences, case_rules) if written is None]
+
+
+def written_words(sentences: Iterable[tuple], case_rules: str = "default"
+                  ) -> list[tuple[list[str], str | None]]:
+    """Each orthographic word of `sentences` (as `orthographic_words` takes them) as its
+    lowercased tokens, with None, or, when the word holds a multiword token that its tokens
+    do not spell, the word as written (lowercased): the contracted token's form in place of
+    its tokens."""
+    out: list[tuple[list[str], str | None]] = []
+    for tokens, joined, *rest in sentences:
+        contracted = rest[0] if rest and rest[0] is not None else [None] * len(tokens)
+        groups = dict(split_words(joined)) if joined is not None else {}
         k = 0
         while k < len(tokens):
             end = groups.get(k, k + 1)
-            out.append([lowercase(t, case_rules) for t in tokens[k:end]])
+            morphs = [lowercase(t, case_rules) for t in tokens[k:end]]
+            written = None
+            if any(c is not None for c in contracted[k:end]):
+                pieces = [c if c is not None else t for t, c in
+                          zip(tokens[k:end], contracted[k:end])]
+                # one form per multiword token: drop a repeat of the form just taken
+                spelled = [p for i, p in enumerate(pieces)
+                           if i == 0 or contracted[k + i] is None
+                           or contracted[k + i] != contracted[k + i - 1]]
+                written = lowercase("".join(spelled), case_rules)
+            out.append((morphs, written))
             k = end
     return out
 
@@ -89,10 +117,14 @@ def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] |
 def read_written_words(path: str | Path, case_rules: str = "default") -> WrittenWords:
     """The orthographic words of a CoNLL-U file, punctuation taken out (non-projective
     sentences are kept: their arcs are lifted, which leaves the words as they are), lowercased
-    under `case_rules`."""
+    under `case_rules`; words with a contracted multiword token set aside
+    (`WrittenWords.contracted`)."""
     corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift", punct_labels=PUNCT))
-    words = orthographic_words(((s.words, s.joined) for s in corpus.sentences), case_rules)
-    return WrittenWords(words, len(corpus.sentences), corpus.report.sentences_skipped)
+    words = written_words(((s.words, s.joined, s.contracted) for s in corpus.sentences),
+                          case_rules)
+    return WrittenWords([m for m, w in words if w is None], len(corpus.sentences),
+                        corpus.report.sentences_skipped,
+                        [(w, m) for m, w in words if w is not None])
 
 
 def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScores]:

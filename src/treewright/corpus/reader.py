@@ -158,7 +158,8 @@ class CorpusStream:
 
     def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
                 heads: list[int] | None = None, sent_id: str | None = None,
-                joined: list[bool] | None = None) -> Sentence | None:
+                joined: list[bool] | None = None,
+                contracted: list[str | None] | None = None) -> Sentence | None:
         """Apply tag mode and the length limits; count the sentence if it goes unused."""
         if self.options.tag_mode:
             if tags is None:
@@ -168,7 +169,8 @@ class CorpusStream:
         else:
             tokens = [self._normalise(w) for w in words]
         sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
-                            line=line, heads=heads, sent_id=sent_id, joined=joined)
+                            line=line, heads=heads, sent_id=sent_id, joined=joined,
+                            contracted=contracted)
         n = len(tokens)
         if n == 0:
             self._skip("empty", line)
@@ -215,14 +217,15 @@ class CorpusStream:
                 self._bad(block)
                 yield None
                 continue
-            joined = block.joined
+            joined, contracted = block.joined, block.contracted
             if block.heads is None:
                 # Only tokenized: words (and joins) without a tree.
                 keep = [t not in options.punct_labels for t in block.upos]
                 yield self._finish([w for w, k in zip(block.words, keep) if k],
                                    [t for t, k in zip(block.upos, keep) if k], None,
                                    block.line, sent_id=block.sent_id,
-                                   joined=_joined_without(joined, keep))
+                                   joined=_joined_without(joined, keep),
+                                   contracted=_kept(contracted, keep))
                 continue
             heads = block.heads
             if nonprojective_arcs(heads):
@@ -247,9 +250,16 @@ class CorpusStream:
                 keep = [t not in options.punct_labels for t in upos]
                 kept_heads = _heads_without(block.heads, [not k for k in keep])
                 words, upos = tree.leaves(), preterminal_tags(tree)
-                joined = _joined_without(joined, keep) if sum(keep) == len(words) else None
+                aligned = sum(keep) == len(words)
+                joined = _joined_without(joined, keep) if aligned else None
+                contracted = _kept(contracted, keep) if aligned else None
             yield self._finish(words, upos, tree, block.line, heads=kept_heads,
-                               sent_id=block.sent_id, joined=joined)
+                               sent_id=block.sent_id, joined=joined, contracted=contracted)
+
+
+def _kept(values: list | None, keep: list[bool]) -> list | None:
+    """The entries of the kept words (None stays None)."""
+    return None if values is None else [v for v, k in zip(values, keep) if k]
 
 
 def _joined_without(joined: list[bool] | None, keep: list[bool]) -> list[bool] | None:
