@@ -36,7 +36,7 @@ from treewright.adaptor.sampler import AdaptorSampler
 from treewright.adaptor.segment import boundaries, characters, cut
 from treewright.corpus import ReadOptions, lowercase, read_corpus
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
-from treewright.word_pieces import split_words
+from treewright.word_pieces import written_forms
 
 PUNCT = frozenset({"PUNCT"})
 MORPH_SYMBOLS = ("Stem", "Suffix")  # the adapted symbols of `grammars.morph_grammar`
@@ -90,27 +90,15 @@ def written_words(sentences: Iterable[tuple], case_rules: str = "default"
                   ) -> list[tuple[list[str], str | None]]:
     """Each orthographic word of `sentences` (as `orthographic_words` takes them) as its
     lowercased tokens, with None, or, when the word holds a multiword token that its tokens
-    do not spell, the word as written (lowercased): the contracted token's form in place of
-    its tokens."""
+    do not spell, the word as written (lowercased; `word_pieces.written_forms`)."""
     out: list[tuple[list[str], str | None]] = []
     for tokens, joined, *rest in sentences:
-        contracted = rest[0] if rest and rest[0] is not None else [None] * len(tokens)
-        groups = dict(split_words(joined)) if joined is not None else {}
-        k = 0
-        while k < len(tokens):
-            end = groups.get(k, k + 1)
+        contracted = rest[0] if rest else None
+        for k, end, form in written_forms(tokens, joined, contracted):
             morphs = [lowercase(t, case_rules) for t in tokens[k:end]]
-            written = None
-            if any(c is not None for c in contracted[k:end]):
-                pieces = [c if c is not None else t for t, c in
-                          zip(tokens[k:end], contracted[k:end])]
-                # one form per multiword token: drop a repeat of the form just taken
-                spelled = [p for i, p in enumerate(pieces)
-                           if i == 0 or contracted[k + i] is None
-                           or contracted[k + i] != contracted[k + i - 1]]
-                written = lowercase("".join(spelled), case_rules)
-            out.append((morphs, written))
-            k = end
+            unspelled = contracted is not None and any(c is not None
+                                                       for c in contracted[k:end])
+            out.append((morphs, lowercase(form, case_rules) if unspelled else None))
     return out
 
 
