@@ -29,6 +29,9 @@ class DependencySentence:
     contracted: per word, the written form of the multiword token it lies in when that token's
         words run together do not spell it (a contraction: `au` over `à` and `le`), else None;
         None when no multiword token of the sentence is contracted.
+    in_token: per word, True when it lies in one multiword token with the word before it (so
+        that the two stay one written word when a word between them, such as a quote inside
+        `ב"פולחן`, is removed).
     """
     words: list[str]
     upos: list[str]
@@ -37,6 +40,7 @@ class DependencySentence:
     sent_id: str | None = None
     joined: list[bool] | None = None
     contracted: list[str | None] | None = None
+    in_token: list[bool] | None = None
 
 
 def _children(heads: list[int]) -> list[list[int]]:
@@ -187,6 +191,7 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     range_glue = False          # that token had SpaceAfter=No
     range_form = ""             # that token's written form
     contracted: list[str | None] = []
+    in_token: list[bool] = []
     word_lines: list[int] = []
     for number, text in block:
         if text.startswith("#"):
@@ -219,6 +224,7 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
                               path, number, 1)
         inside = word_range[0] < ident <= word_range[1]
         joined.append(glue_next or inside)
+        in_token.append(inside)
         glue_next = range_glue if ident == word_range[1] else (
             no_space and not word_range[0] <= ident < word_range[1])
         words.append(token["form"])
@@ -234,7 +240,7 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     missing = [i for i, h in enumerate(heads) if not isinstance(h, int)]
     if len(missing) == len(heads):
         return DependencySentence(words, upos, None, first, sent_id, joined,
-                                  contracted_or_none)
+                                  contracted_or_none, in_token)
     if missing:
         return InputError(f"word {missing[0] + 1} has no head (`_`), but other words have one; "
                           "give every word a head, or none for text that is only tokenized",
@@ -242,7 +248,8 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     problem = check_tree(heads)
     if problem is not None:
         return InputError(f"not a dependency tree: {problem}", path, first, 1)
-    return DependencySentence(words, upos, heads, first, sent_id, joined, contracted_or_none)
+    return DependencySentence(words, upos, heads, first, sent_id, joined, contracted_or_none,
+                              in_token)
 
 
 def _mark_contraction(contracted: list[str | None], words: list[str], count: int) -> None:
