@@ -253,3 +253,52 @@ def test_turkic_case_rules_lower_both_capital_is_to_their_own_small_letters():
     assert orthographic_words(sentences, "turkic") == \
         [["\u0131rmak"], ["ilu", "da"], ["\u0131vet"]]
     assert orthographic_words(sentences) == [["irmak"], ["i\u0307lu", "da"], ["ivet"]]
+
+
+# Invented text with contractions. Worked out by hand from the CoNLL-U rule that a multiword
+# token's FORM is the word as written and its words are the syntactic words: "dulo" is
+# written for de + ulo (the "e" dropped), so its tokens run together ("deulo") do not spell
+# it; "Karrin" over kar + rin is spelled by them (case aside); "zomi" joins the contraction
+# "zo" (za + o) to "mi" by SpaceAfter=No, so the written word holds a contraction too.
+CONTRACTED = """\
+# sent_id = mill-1
+1-2\tdulo\t_\t_\t_\t_\t_\t_\t_\t_
+1\tde\t_\tADP\t_\t_\t_\t_\t_\t_
+2\tulo\t_\tNOUN\t_\t_\t_\t_\t_\t_
+3-4\tKarrin\t_\t_\t_\t_\t_\t_\t_\t_
+3\tkar\t_\tNOUN\t_\t_\t_\t_\t_\t_
+4\trin\t_\tDET\t_\t_\t_\t_\t_\t_
+5-6\tzo\t_\t_\t_\t_\t_\t_\t_\tSpaceAfter=No
+5\tza\t_\tADP\t_\t_\t_\t_\t_\t_
+6\to\t_\tDET\t_\t_\t_\t_\t_\t_
+7\tmi\t_\tNOUN\t_\t_\t_\t_\t_\t_
+8\tsel\t_\tVERB\t_\t_\t_\t_\t_\t_
+
+"""
+
+
+def test_contracted_multiword_tokens_are_set_aside_not_run_together(tmp_path):
+    path = tmp_path / "mill.conllu"
+    path.write_text(CONTRACTED, encoding="utf-8")
+    words = read_written_words(path)
+    # By hand (the comment above): "deulo" and "zaomi" were never written.
+    assert words.morphs == [["kar", "rin"], ["sel"]]
+    assert words.types() == ["karrin", "sel"]
+    assert words.contracted == [("dulo", ["de", "ulo"]), ("zomi", ["za", "o", "mi"])]
+
+
+def test_a_segment_run_says_which_contractions_it_set_aside(tmp_path):
+    path = tmp_path / "mill.conllu"
+    path.write_text(CONTRACTED, encoding="utf-8")
+    config = tmp_path / "morphs.yaml"
+    config.write_text(f"data:\n  text: {path}\n  format: conllu\ngrammar:\n  unit: morphs\n"
+                      f"sampler:\n  sweeps: 2\noutput:\n  stdout_metrics: false\n",
+                      encoding="utf-8")
+    result = segment_words(load_segment_config(config), tmp_path / "run")
+    lines = result.segmentation.read_text(encoding="utf-8").splitlines()
+    assert ["".join(line.split()) for line in lines] == ["karrin", "sel"]
+    log = (tmp_path / "run" / "segment.log").read_text(encoding="utf-8")
+    assert "set aside 2 written words (2 distinct) that are contractions" in log
+    assert "'dulo' as de + ulo" in log
+    # One gold boundary (after "kar"), counted by hand.
+    assert result.scores.boundaries.gold == 1

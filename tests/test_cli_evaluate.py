@@ -156,3 +156,34 @@ def test_parse_command_offers_exactly_the_library_decoders():
     from treewright.decode import DECODERS, ENSEMBLE_DECODERS, MODEL_DECODERS
     assert tuple(DECODER_NAMES) == tuple(DECODERS) + tuple(ENSEMBLE_DECODERS) + \
         tuple(MODEL_DECODERS)
+
+
+# Invented sentence (Velmor words) in CoNLL-U: "dulo" is the contraction of de + ulo (a
+# multiword token whose words do not spell it) and "velo" is written for ve + lo; by the
+# CoNLL-U rule, gold brackets are over the syntactic words de ulo ve lo sen.
+SPLIT_GOLD = """\
+# sent_id = mill-1
+1-2\tdulo\t_\t_\t_\t_\t_\t_\t_\t_
+1\tde\t_\tADP\t_\t_\t2\tcase\t_\t_
+2\tulo\t_\tNOUN\t_\t_\t5\tobl\t_\t_
+3-4\tvelo\t_\t_\t_\t_\t_\t_\t_\t_
+3\tve\t_\tADP\t_\t_\t4\tcase\t_\t_
+4\tlo\t_\tNOUN\t_\t_\t5\tobl\t_\t_
+5\tsen\t_\tVERB\t_\t_\t0\troot\t_\t_
+
+"""
+
+
+@pytest.mark.parametrize("pred_text, form, pieces", [
+    ("(S (X dulo) (S (X velo) (X sen)))", "dulo", "de + ulo"),
+    ("(S (X de) (S (X ulo) (S (X velo) (X sen))))", "velo", "ve + lo")])
+def test_a_word_as_written_against_the_gold_words_says_so(tmp_path, pred_text, form, pieces):
+    # A prediction over the text as written cannot be scored against syntactic words: the
+    # error names the written word and the gold's words for it (read off SPLIT_GOLD by hand).
+    gold = write(tmp_path / "gold.conllu", SPLIT_GOLD)
+    pred = write(tmp_path / "pred.trees", pred_text + "\n")
+    with pytest.raises(InputError) as err:
+        run(evaluate_cmd, [pred, gold])
+    assert f"the gold writes {form!r} as the 2 words {pieces} and is scored on those" \
+        in str(err.value)
+    assert err.value.line == 1

@@ -55,3 +55,32 @@ def test_a_text_mostly_in_the_grammar_gets_no_warning(tmp_path):
     _, log = _run(tmp_path, lines, "few")
     assert "unknown-token rate 12.50%" in log
     assert "warning" not in log
+
+
+def test_the_treebank_start_counts_held_out_words_against_training(tmp_path):
+    # Invented trees (Velmor words). Hand-counted with the shape rules of wordshapes.signature
+    # (a word longer than 3 letters gets its two-letter ending as a cue; "zo" and "mo" get
+    # none) and the defaults rare_count 1 and signature_min_count 3: training words ta (2) and
+    # ferro (4) are the grammar's own; molek, varek, dunek (once each) make the class "…ek"
+    # (3 rare tokens); zo (once) has no cue and is <unk>. Training: 6 + 3 + 1 of 10 tokens.
+    # Held-out: ta, ferro, ferro own; kelek (unseen) and molek (once) "…ek"; mo (unseen) <unk>;
+    # kelek and mo are not training words at all: 2 of 6 tokens, 33.33%.
+    train = tmp_path / "train.trees"
+    train.write_text("(S (N ta) (V ferro))\n(S (N ta) (V ferro))\n(S (N molek) (V ferro))\n"
+                     "(S (N varek) (V ferro))\n(S (N dunek) (V zo))\n", encoding="utf-8")
+    dev = tmp_path / "dev.trees"
+    dev.write_text("(S (N ta) (V ferro))\n(S (N kelek) (V mo))\n(S (N molek) (V ferro))\n",
+                   encoding="utf-8")
+    cfg = load_refine_config(None, [
+        "data.start=treebank", f"data.train={train}", f"data.dev={dev}", "refine.cycles=1",
+        "refine.em_iterations=1", "refine.smoothed_iterations=1", "output.tensorboard=false",
+        "output.stdout_metrics=false", f"output.run_dir={tmp_path / 'tb'}"])
+    refine(cfg, tmp_path / "tb")
+    log = (tmp_path / "tb" / "refine.log").read_text(encoding="utf-8")
+    held = next(line for line in log.splitlines() if "held-out corpus" in line)
+    assert "(vocabulary and unknown tokens: the training corpus's)" in held
+    assert "used 3 sentences, 6 tokens" in held and "unknown-token rate 33.33%" in held
+    assert ("training tokens read by the grammar: 6 of 10 as words of its own, 3 (30.00%) "
+            "as their shape class and 1 (10.00%) as <unk>") in log
+    assert ("held-out tokens read by the grammar: 3 of 6 as words of its own, 2 (33.33%) "
+            "as their shape class and 1 (16.67%) as <unk>") in log

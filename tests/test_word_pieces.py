@@ -69,6 +69,34 @@ def test_a_removed_punctuation_mark_breaks_the_join(tmp_path):
     assert s.joined == [False, False, False, True, False, False, True, False, False]
 
 
+# Invented: the multiword token `de"ulo` is one written word over de, a quote and ulo (the
+# way a treebank writes a prefix on a quoted name); `sen` stands alone. By the CoNLL-U rule
+# that a multiword token is one orthographic token, taking the quote out leaves de + ulo one
+# written word, while the comma glued by SpaceAfter=No (above) still breaks its join.
+QUOTED = """\
+# sent_id = harbour-2
+1-3\tde"ulo\t_\t_\t_\t_\t_\t_\t_\t_
+1\tde\t_\tADP\t_\t_\t3\tcase\t_\t_
+2\t"\t_\tPUNCT\t_\t_\t3\tpunct\t_\t_
+3\tulo\t_\tPROPN\t_\t_\t4\tobl\t_\t_
+4\tsen\t_\tVERB\t_\t_\t0\troot\t_\t_
+
+"""
+
+
+@pytest.mark.parametrize("heads", [True, False])
+def test_a_removed_word_inside_a_multiword_token_keeps_the_join(tmp_path, heads):
+    text = QUOTED if heads else "\n".join(
+        "\t".join(f[:6] + ["_", "_"] + f[8:]) if len(f := line.split("\t")) == 10 else line
+        for line in QUOTED.split("\n"))
+    corpus = read_corpus(write(tmp_path, text), "conllu",
+                         ReadOptions(punct_labels=frozenset({"PUNCT"})))
+    (s,) = corpus.sentences
+    assert (s.tree is not None) == heads
+    assert s.words == ["de", "ulo", "sen"]
+    assert s.joined == [False, True, False]
+
+
 def test_a_sentence_with_some_heads_missing_names_the_word_line(tmp_path):
     text = TOKENIZED.replace("1\tOrrin\t_\tPROPN\t_\t_\t_", "1\tOrrin\t_\tPROPN\t_\t_\t2")
     path = write(tmp_path, text)

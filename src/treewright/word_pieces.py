@@ -60,6 +60,24 @@ def split_words(joined: Sequence[bool]) -> list[tuple[int, int]]:
     return out
 
 
+def written_forms(words: Sequence[str], joined: Sequence[bool] | None,
+                  contracted: Sequence[str | None] | None = None) -> list[tuple[int, int, str]]:
+    """Each written word of a sentence as (start, end, form) over word indices: its words run
+    together, except that the words of a contracted multiword token (`Sentence.contracted`,
+    which its words do not spell) give that token's written form once. Without `joined`,
+    every word is written alone."""
+    groups = dict(split_words(joined)) if joined is not None else {}
+    marks = contracted if contracted is not None else [None] * len(words)
+    out, k = [], 0
+    while k < len(words):
+        end = groups.get(k, k + 1)
+        pieces = [marks[i] if marks[i] is not None else words[i] for i in range(k, end)
+                  if marks[i] is None or i == k or marks[i] != marks[i - 1]]
+        out.append((k, end, "".join(pieces)))
+        k = end
+    return out
+
+
 def host_side(sentences: Sequence[tuple[Sequence[str], Sequence[bool] | None]]) -> HostSide:
     """The end of a split written word that holds its host, read from the corpus.
 

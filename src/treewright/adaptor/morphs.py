@@ -11,7 +11,13 @@ dotted capital I lower to dotless and dotted i), so gold and input hold the same
 
 Punctuation tokens (UPOS PUNCT) are taken out before the words are formed: a comma written
 against a word is not one of its morphs, and the reader then leaves the tokens around it
-unjoined (`corpus.reader._joined_without`).
+unjoined (`corpus.reader._joined_without`), unless they share one multiword token.
+
+A multiword token whose words run together do not spell it (a contraction: the treebank writes
+`au` as `à` + `le`, or restores a letter the spelling leaves out) has no gold boundaries in
+the written word, and its tokens run together are a word nobody wrote. Such words are set
+aside, counted, with an example (`WrittenWords.contracted`): they are neither segmented nor
+scored.
 
 Baselines (common practice for boundary scores): no split predicts no boundary (precision,
 recall and F1 all 0 by the convention of `evaluation.segmentation`), and a split at every
@@ -21,7 +27,7 @@ boundaries).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterable, Sequence
 
@@ -30,7 +36,7 @@ from treewright.adaptor.sampler import AdaptorSampler
 from treewright.adaptor.segment import boundaries, characters, cut
 from treewright.corpus import ReadOptions, lowercase, read_corpus
 from treewright.evaluation.segmentation import SegmentationScores, evaluate_segmentation
-from treewright.word_pieces import split_words
+from treewright.word_pieces import written_forms
 
 PUNCT = frozenset({"PUNCT"})
 MORPH_SYMBOLS = ("Stem", "Suffix")  # the adapted symbols of `grammars.morph_grammar`
@@ -43,11 +49,14 @@ class WrittenWords:
     morphs     per word, its syntactic tokens lowercased (the gold morphs; one for an unsplit word)
     sentences  the sentences used
     skipped    sentences the reader skipped (too short: left empty once punctuation is out)
+    contracted the occurrences set aside, each as (written form, its tokens), lowercased: words
+               with a multiword token whose tokens do not spell it (see the module docstring)
     """
 
     morphs: list[list[str]]
     sentences: int
     skipped: int
+    contracted: list[tuple[str, list[str]]] = field(default_factory=list)
 
     @property
     def split(self) -> list[list[str]]:
@@ -67,32 +76,43 @@ class WrittenWords:
         return first
 
 
-def orthographic_words(sentences: Iterable[tuple[Sequence[str], Sequence[bool] | None]],
-                       case_rules: str = "default") -> list[list[str]]:
-    """The orthographic words of (tokens, joined) sentences, each as its tokens lowercased
-    under `case_rules` (`corpus.lowercase`). A sentence whose joins the source does not give
-    (joined None) has one word per token."""
-    out: list[list[str]] = []
-    for tokens, joined in sentences:
-        if joined is None:
-            out.extend([lowercase(t, case_rules)] for t in tokens)
-            continue
-        groups = dict(split_words(joined))  # start -> end of each word of two or more tokens
-        k = 0
-        while k < len(tokens):
-            end = groups.get(k, k + 1)
-            out.append([lowercase(t, case_rules) for t in tokens[k:end]])
-            k = end
+def orthographic_words(sentences: Iterable[tuple], case_rules: str = "default"
+                       ) -> list[list[str]]:
+    """The orthographic words of (tokens, joined) or (tokens, joined, contracted) sentences,
+    each as its tokens lowercased under `case_rules` (`corpus.lowercase`). A sentence whose
+    joins the source does not give (joined None) has one word per token. Words with a
+    contracted multiword token (`Sentence.contracted`) are left out: `written_words` gives
+    them."""
+    return [m for m, written in written_words(sentences, case_rules) if written is None]
+
+
+def written_words(sentences: Iterable[tuple], case_rules: str = "default"
+                  ) -> list[tuple[list[str], str | None]]:
+    """Each orthographic word of `sentences` (as `orthographic_words` takes them) as its
+    lowercased tokens, with None, or, when the word holds a multiword token that its tokens
+    do not spell, the word as written (lowercased; `word_pieces.written_forms`)."""
+    out: list[tuple[list[str], str | None]] = []
+    for tokens, joined, *rest in sentences:
+        contracted = rest[0] if rest else None
+        for k, end, form in written_forms(tokens, joined, contracted):
+            morphs = [lowercase(t, case_rules) for t in tokens[k:end]]
+            unspelled = contracted is not None and any(c is not None
+                                                       for c in contracted[k:end])
+            out.append((morphs, lowercase(form, case_rules) if unspelled else None))
     return out
 
 
 def read_written_words(path: str | Path, case_rules: str = "default") -> WrittenWords:
     """The orthographic words of a CoNLL-U file, punctuation taken out (non-projective
     sentences are kept: their arcs are lifted, which leaves the words as they are), lowercased
-    under `case_rules`."""
+    under `case_rules`; words with a contracted multiword token set aside
+    (`WrittenWords.contracted`)."""
     corpus = read_corpus(path, "conllu", ReadOptions(nonprojective="lift", punct_labels=PUNCT))
-    words = orthographic_words(((s.words, s.joined) for s in corpus.sentences), case_rules)
-    return WrittenWords(words, len(corpus.sentences), corpus.report.sentences_skipped)
+    words = written_words(((s.words, s.joined, s.contracted) for s in corpus.sentences),
+                          case_rules)
+    return WrittenWords([m for m, w in words if w is None], len(corpus.sentences),
+                        corpus.report.sentences_skipped,
+                        [(w, m) for m, w in words if w is not None])
 
 
 def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScores]:

@@ -147,6 +147,13 @@ def _read_inputs(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
                     f"into tokens), {len(first)} distinct, from {written.sentences} sentences "
                     f"of {cfg.data.text} ({written.skipped} sentences skipped: nothing but "
                     f"punctuation)", stream)
+        if written.contracted:
+            form, tokens = written.contracted[0]
+            folder.note(f"set aside {len(written.contracted)} written words "
+                        f"({len({f for f, _ in written.contracted})} distinct) that are "
+                        f"contractions: their tokens do not spell them (e.g. {form!r} as "
+                        f"{' + '.join(tokens)}), so they have no morph boundaries in the text "
+                        f"and are neither segmented nor scored", stream)
         return corpus, written
     corpus = read_utterances(cfg.data.text)
     folder.note(f"read {len(corpus.characters)} utterances from {cfg.data.text} "

@@ -26,6 +26,12 @@ class DependencySentence:
     joined: per word, True when it is written joined to the word before it, in one orthographic
         word: both lie in one multiword token (a range line such as `3-4`), or the token before
         it has `SpaceAfter=No` in MISC (the CoNLL-U conventions for the text as written).
+    contracted: per word, the written form of the multiword token it lies in when that token's
+        words run together do not spell it (a contraction: `au` over `à` and `le`), else None;
+        None when no multiword token of the sentence is contracted.
+    in_token: per word, True when it lies in one multiword token with the word before it (so
+        that the two stay one written word when a word between them, such as a quote inside
+        `ב"פולחן`, is removed).
     """
     words: list[str]
     upos: list[str]
@@ -33,6 +39,8 @@ class DependencySentence:
     line: int
     sent_id: str | None = None
     joined: list[bool] | None = None
+    contracted: list[str | None] | None = None
+    in_token: list[bool] | None = None
 
 
 def _children(heads: list[int]) -> list[list[int]]:
@@ -181,6 +189,9 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     glue_next = False           # the token before the next word had SpaceAfter=No
     word_range = (0, 0)         # (first, last) word ids of the multiword token being read
     range_glue = False          # that token had SpaceAfter=No
+    range_form = ""             # that token's written form
+    contracted: list[str | None] = []
+    in_token: list[bool] = []
     word_lines: list[int] = []
     for number, text in block:
         if text.startswith("#"):
@@ -204,6 +215,7 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
             # space after the whole token, that is after its last word.
             word_range = (int(ident[0]), int(ident[2]))
             range_glue = no_space
+            range_form = token["form"]
             continue
         if not isinstance(ident, int):
             continue  # an empty node: not a syntactic word
@@ -212,17 +224,23 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
                               path, number, 1)
         inside = word_range[0] < ident <= word_range[1]
         joined.append(glue_next or inside)
+        in_token.append(inside)
         glue_next = range_glue if ident == word_range[1] else (
             no_space and not word_range[0] <= ident < word_range[1])
         words.append(token["form"])
         upos.append(token["upos"] or "_")
         heads.append(token["head"])
         word_lines.append(number)
+        contracted.append(range_form if word_range[0] <= ident <= word_range[1] else None)
+        if ident == word_range[1] and 1 <= word_range[0] <= word_range[1]:
+            _mark_contraction(contracted, words, word_range[1] - word_range[0] + 1)
     if not words:
         return InputError("a CoNLL-U block with comments but no words", path, first, 1)
+    contracted_or_none = contracted if any(c is not None for c in contracted) else None
     missing = [i for i, h in enumerate(heads) if not isinstance(h, int)]
     if len(missing) == len(heads):
-        return DependencySentence(words, upos, None, first, sent_id, joined)
+        return DependencySentence(words, upos, None, first, sent_id, joined,
+                                  contracted_or_none, in_token)
     if missing:
         return InputError(f"word {missing[0] + 1} has no head (`_`), but other words have one; "
                           "give every word a head, or none for text that is only tokenized",
@@ -230,4 +248,15 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
     problem = check_tree(heads)
     if problem is not None:
         return InputError(f"not a dependency tree: {problem}", path, first, 1)
-    return DependencySentence(words, upos, heads, first, sent_id, joined)
+    return DependencySentence(words, upos, heads, first, sent_id, joined, contracted_or_none,
+                              in_token)
+
+
+def _mark_contraction(contracted: list[str | None], words: list[str], count: int) -> None:
+    """Keep the written form on the last `count` words (one multiword token, just read) only
+    when their forms run together do not spell it, as written or lowercased (`Velo` over `ve`
+    and `lo` is spelled by them); else set them to None."""
+    form = contracted[-1] or ""
+    spelled = "".join(words[-count:])
+    if spelled == form or spelled.lower() == form.lower():
+        contracted[-count:] = [None] * count

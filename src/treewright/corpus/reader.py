@@ -158,7 +158,8 @@ class CorpusStream:
 
     def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
                 heads: list[int] | None = None, sent_id: str | None = None,
-                joined: list[bool] | None = None) -> Sentence | None:
+                joined: list[bool] | None = None,
+                contracted: list[str | None] | None = None) -> Sentence | None:
         """Apply tag mode and the length limits; count the sentence if it goes unused."""
         if self.options.tag_mode:
             if tags is None:
@@ -168,7 +169,8 @@ class CorpusStream:
         else:
             tokens = [self._normalise(w) for w in words]
         sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
-                            line=line, heads=heads, sent_id=sent_id, joined=joined)
+                            line=line, heads=heads, sent_id=sent_id, joined=joined,
+                            contracted=contracted)
         n = len(tokens)
         if n == 0:
             self._skip("empty", line)
@@ -215,14 +217,15 @@ class CorpusStream:
                 self._bad(block)
                 yield None
                 continue
-            joined = block.joined
+            joined, contracted = block.joined, block.contracted
             if block.heads is None:
                 # Only tokenized: words (and joins) without a tree.
                 keep = [t not in options.punct_labels for t in block.upos]
                 yield self._finish([w for w, k in zip(block.words, keep) if k],
                                    [t for t, k in zip(block.upos, keep) if k], None,
                                    block.line, sent_id=block.sent_id,
-                                   joined=_joined_without(joined, keep))
+                                   joined=_joined_without(joined, keep, block.in_token),
+                                   contracted=_kept(contracted, keep))
                 continue
             heads = block.heads
             if nonprojective_arcs(heads):
@@ -247,18 +250,36 @@ class CorpusStream:
                 keep = [t not in options.punct_labels for t in upos]
                 kept_heads = _heads_without(block.heads, [not k for k in keep])
                 words, upos = tree.leaves(), preterminal_tags(tree)
-                joined = _joined_without(joined, keep) if sum(keep) == len(words) else None
+                aligned = sum(keep) == len(words)
+                joined = _joined_without(joined, keep, block.in_token) if aligned else None
+                contracted = _kept(contracted, keep) if aligned else None
             yield self._finish(words, upos, tree, block.line, heads=kept_heads,
-                               sent_id=block.sent_id, joined=joined)
+                               sent_id=block.sent_id, joined=joined, contracted=contracted)
 
 
-def _joined_without(joined: list[bool] | None, keep: list[bool]) -> list[bool] | None:
+def _kept(values: list | None, keep: list[bool]) -> list | None:
+    """The entries of the kept words (None stays None)."""
+    return None if values is None else [v for v, k in zip(values, keep) if k]
+
+
+def _joined_without(joined: list[bool] | None, keep: list[bool],
+                    in_token: list[bool] | None = None) -> list[bool] | None:
     """`joined` (per word, written joined to the word before) for the kept words only: a word
     stays joined only when the word before it was kept too, since a removed word between them
-    (punctuation, say) is not part of the orthographic word the constraint is about."""
+    (punctuation, say) is not part of the orthographic word the constraint is about, unless
+    every word from the kept one before it lies in one multiword token with it (`in_token`):
+    a quote removed from `ב"פולחן` (ב + " + פולחן) leaves ב written joined to פולחן."""
     if joined is None:
         return None
-    return [j and i > 0 and keep[i - 1] for i, (j, k) in enumerate(zip(joined, keep)) if k]
+    out: list[bool] = []
+    before = -1  # the last kept word
+    for i, (j, k) in enumerate(zip(joined, keep)):
+        if not k:
+            continue
+        one_token = in_token is not None and before >= 0 and all(in_token[before + 1:i + 1])
+        out.append(j and before >= 0 and (before == i - 1 or one_token))
+        before = i
+    return out
 
 
 def _heads_without(heads: list[int], drop: list[bool]) -> list[int] | None:

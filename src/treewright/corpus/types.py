@@ -168,7 +168,9 @@ class Sentence:
     it (CoNLL-U `# sent_id`), None where the format has none. `joined` marks, per word, the
     words written joined to the word before them in one orthographic word (CoNLL-U multiword
     tokens and `SpaceAfter=No`; see `treewright.word_pieces`); None where the format does not
-    say.
+    say. `contracted` gives, per word, the written form of the CoNLL-U multiword token it lies
+    in when the token's words run together do not spell it (`au` over `à` and `le`), else None;
+    None when the sentence has no such token.
     """
     words: list[str]
     tokens: list[str]
@@ -179,6 +181,7 @@ class Sentence:
     heads: list[int] | None = None
     sent_id: str | None = None
     joined: list[bool] | None = None
+    contracted: list[str | None] | None = None
 
     def __len__(self) -> int:
         return len(self.tokens)

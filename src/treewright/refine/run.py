@@ -17,6 +17,7 @@ from __future__ import annotations
 import functools
 import json
 import time
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Sequence, TextIO
@@ -225,24 +226,41 @@ class _Log:
 
 
 def _read(path: Path, fmt: str, max_length: int | None,
-          vocabulary: Vocabulary | None = None) -> tuple[list, str]:
-    """The sentences of a corpus and its read report on one line. With `vocabulary` (a
-    grammar's, for the text start) the report's vocabulary and unknown-token rate are that
-    vocabulary's: the words refinement will read as the unknown word."""
+          vocabulary: Vocabulary | None = None) -> tuple[list, str, Vocabulary]:
+    """The sentences of a corpus, its read report on one line and the vocabulary the report
+    counts against. With `vocabulary` (a grammar's, for the text start; the training corpus's,
+    for the held-out corpus of the treebank start) the report's vocabulary and unknown-token
+    rate are that vocabulary's, not the file's own words (against which nothing is unknown)."""
     corpus = read_corpus(path, fmt, ReadOptions(max_length=max_length, vocabulary=vocabulary))
-    return corpus.sentences, corpus.report.format().replace("\n", "; ")
+    return corpus.sentences, corpus.report.format().replace("\n", "; "), corpus.vocabulary
 
 
-def _held_out(cfg: RefineConfig, sentences: list,
-              vocabulary: Vocabulary | None = None) -> tuple[list, list, str]:
+def _held_out(cfg: RefineConfig, sentences: list, vocabulary: Vocabulary | None = None,
+              whose: str = "the grammar's") -> tuple[list, list, str]:
     d = cfg.data
     if d.dev is not None:
-        dev, report = _read(d.dev, d.format, d.max_length, vocabulary)
-        return sentences, dev, f"held-out corpus: {report}"
+        dev, report, _ = _read(d.dev, d.format, d.max_length, vocabulary)
+        return sentences, dev, f"held-out corpus (vocabulary and unknown tokens: {whose}): " \
+            f"{report}"
     parts = split_indices(len(sentences), dev=d.heldout_fraction, test=0.0, seed=cfg.refine.seed)
     return ([sentences[i] for i in parts.train], [sentences[i] for i in parts.dev],
             f"held out {len(parts.dev)} of {len(sentences)} training sentences "
             f"(fraction {d.heldout_fraction}, seed {cfg.refine.seed})")
+
+
+def _reading_note(name: str, trees: Sequence[Tree], classes: WordClasses,
+                  rare_count: int) -> str:
+    """How the grammar of the treebank start reads the words of `trees`: as words of its
+    own, as shape classes, or as the unknown word (training words seen at most `rare_count`
+    times, and held-out words unseen in training, are not words of its own)."""
+    tokens = [w for t in trees for w in t.leaves()]
+    read = Counter("word" if m == w else "unknown" if m == UNKNOWN else "class"
+                   for w, m in ((w, classes(w)) for w in tokens))
+    total = max(len(tokens), 1)
+    return (f"{name} tokens read by the grammar: {read['word']} of {len(tokens)} as words of its "
+            f"own, {read['class']} ({read['class'] / total:.2%}) as their shape class and "
+            f"{read['unknown']} ({read['unknown'] / total:.2%}) as {UNKNOWN} (words seen in "
+            f"training at most data.rare_count = {rare_count} times are not its own)")
 
 
 # More than this share of a text's tokens missing from the grammar's vocabulary draws a warning.
@@ -402,12 +420,12 @@ def _write_summary(lg, usage, folder: RunFolder, stem: str, top: int) -> None:
 def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state,
                      heldout_parser: HeldoutParser) -> RefineResult:
     d, form = cfg.data, cfg.tree_form
-    sentences, report = _read(d.train, d.format, d.max_length)
+    sentences, report, vocab = _read(d.train, d.format, d.max_length)
     log.note(f"training corpus: {report}")
     if any(s.tree is None for s in sentences):
         raise InputError("the treebank start needs trees (bracketed trees or CoNLL-U)",
                          path=str(d.train))
-    train, dev, note = _held_out(cfg, sentences)
+    train, dev, note = _held_out(cfg, sentences, vocab, "the training corpus's")
     log.note(note)
 
     def usable(part: list, name: str) -> list[Tree]:
@@ -435,6 +453,8 @@ def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, s
     log.note(f"coarse grammar: {len(lg.symbols)} symbols, {len(lg.rules)} binary and "
              f"{len(lg.words)} word rules; {len(classes.known)} known words, "
              f"{len(classes.signatures)} shape classes")
+    for name, trees in (("training", train_trees), ("held-out", dev_trees)):
+        log.note(_reading_note(name, trees, classes, d.rare_count))
     ts_train = tree_set(lg, train_mapped)
     ts_dev = tree_set(lg, dev_mapped)
     if ts_dev.dropped:
@@ -491,7 +511,7 @@ def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
     vocab = lg.vocab
     # Read against the grammar's vocabulary: the unknown-token rate is then the share of
     # tokens the grammar lacks (read as its unknown word), not 0 against the text's own words.
-    sentences, report = _read(d.train, d.format, d.max_length, vocab)
+    sentences, report, _ = _read(d.train, d.format, d.max_length, vocab)
     log.note(f"training corpus (vocabulary and unknown tokens: the grammar's): {report}")
     _warn_unknown(log, "training", d.train, sentences, vocab, path)
     train, dev, note = _held_out(cfg, sentences, vocab)

@@ -25,6 +25,7 @@ from treewright.evaluation import (BracketConventions, BracketEvaluation, Bracke
                                    heldout_likelihood, preterminal_labels, words_over_tags)
 from treewright.evaluation.brackets import normalization_hint
 from treewright.trees import Tree, escape_token
+from treewright.word_pieces import written_forms
 
 # The label `treewright parse` writes over a sentence it could not parse.
 NOPARSE = "NOPARSE"
@@ -112,7 +113,8 @@ def check_aligned(pred: Sequence[Sentence], gold: Sequence[Sentence], pred_path:
             position = next((k for k, (a, b) in enumerate(zip(pw, gw)) if a != b),
                             min(len(pw), len(gw)))
             what = (f"word {position + 1} is {pw[position]!r}, gold has "
-                    f"{gw[position]!r}{normalization_hint(pw[position], gw[position])}") \
+                    f"{gw[position]!r}{normalization_hint(pw[position], gw[position])}"
+                    f"{written_word_hint(pw[position], g, position)}") \
                 if position < min(len(pw), len(gw)) \
                 else f"{len(pw)} words, gold has {len(gw)}"
             raise InputError(f"predicted sentence differs from gold ({what}; gold: {gold_path}, "
@@ -124,6 +126,21 @@ def check_aligned(pred: Sequence[Sentence], gold: Sequence[Sentence], pred_path:
         raise InputError(f"{len(pred)} predicted sentences but {len(gold)} gold ones; the first "
                          f"{role} sentence without a partner starts here", path=path,
                          line=extra.line)
+
+
+def written_word_hint(pred_word: str, gold: Sentence, position: int) -> str:
+    """When `pred_word` is the gold's written word that starts at word `position` and that the
+    gold splits into several words (a CoNLL-U multiword token, or words joined by
+    `SpaceAfter=No`), a note saying so and what to do; else ""."""
+    if gold.joined is None:
+        return ""
+    for start, end, form in written_forms(gold.words, gold.joined, gold.contracted):
+        if start == position and end - start >= 2 and escape_token(form) == pred_word:
+            return (f" (the gold writes {form!r} as the {end - start} words "
+                    f"{' + '.join(gold.words[start:end])} and is scored on those: parse the gold "
+                    f"file itself, 'treewright parse GRAMMAR {gold.source}', which reads its "
+                    f"words, or text tokenized as the gold is)")
+    return ""
 
 
 def _tag_scores(pred: Sequence[Sentence], gold: Sequence[Sentence]):

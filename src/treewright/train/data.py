@@ -128,6 +128,9 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
             lowercase=d.lowercase, case_rules=d.case_rules, tag_mode=d.tag_mode,
             max_length=d.max_length, vocabulary=vocab, punct_labels=drop))
         notes.append("dev corpus: " + dev.report.format().replace("\n", "; "))
+        note = _dev_unknown_warning(dev.report.unk_rate, train.report.unk_rate, d.dev)
+        if note is not None:
+            notes.append(note)
         dev_ids = [dev.encode(s) for s in dev.sentences]
         dev_words = [list(s.words) for s in dev.sentences]
         if all(s.tree is not None for s in dev.sentences):
@@ -140,6 +143,23 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
         head_list = head_list_weights(cfg, vocab, notes)
     return TrainData(vocab, train_ids, brackets, dev_ids, dev_words, dev_trees, notes, pieces,
                      head_list)
+
+
+# More than this share of the dev tokens read as the unknown word draws a warning.
+DEV_UNKNOWN_WARNING = 0.5
+
+
+def _dev_unknown_warning(dev_rate: float | None, train_rate: float | None,
+                         path) -> str | None:
+    """A warning when most dev tokens are not training words: the dev likelihood then scores
+    the unknown word more than the text, and can beat the training figures."""
+    if dev_rate is None or dev_rate <= DEV_UNKNOWN_WARNING:
+        return None
+    against = f" (training: {train_rate:.2%})" if train_rate is not None else ""
+    return (f"warning: {dev_rate:.2%} of the dev tokens of {path} are read as the unknown word"
+            f"{against}, so the dev likelihood and perplexity mostly score that one word and "
+            f"can look better than training's; is the dev file tokenized as the training text "
+            f"is? (a CoNLL-U file gives its syntactic words, raw text the words as written)")
 
 
 def read_head_list(path: str | Path, lowercase: bool) -> list[tuple[str, float | None]]:
