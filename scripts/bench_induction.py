@@ -686,7 +686,7 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
     p.add_argument("--lexicalized-epochs", type=int, default=None, help="epochs of the "
                    "lexicalized row (default: --epochs)")
     p.add_argument("--symbols", default=None, help="NONTERMINALS,PRETERMINALS (default: "
-                   "10,20 on demo, 30,60 on turkish)")
+                   "30,60 on turkish, 10,20 on every other --data)")
     p.add_argument("--independent-symbols", default="256,512", help="NONTERMINALS,PRETERMINALS "
                    "of the independent row, which exists for many symbols (default 256,512: "
                    "1024,2048 trains too, in about 4 times the time, and scored lower on "

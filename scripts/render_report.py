@@ -1,7 +1,7 @@
 """Render a treewright HTML report in a headless browser and save a screenshot.
 
     python scripts/render_report.py runs/em_demo/report.html --out report.png
-    python scripts/render_report.py runs/em_demo --gold data/demo/dev.trees --out report.png
+    python scripts/render_report.py runs/em_demo --gold src/treewright/data/demo/dev.trees --out report.png
 
 Given a run folder, the report is built first (into RUN/report.html). The browser is Chromium,
 started with networking features off, so the screenshot also shows that the page needs nothing
