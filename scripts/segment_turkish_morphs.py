@@ -9,6 +9,8 @@ is split into (SpaceAfter=No between them) are its gold morphs.
 The run: the stem-and-suffixes grammar of `treewright.adaptor.grammars.morph_grammar` (Stem and
 Suffix adapted, Pitman-Yor discount 0.5 and concentration 10, even odds of another suffix and
 another character: the defaults of the word grammar, chosen before any run and not tuned),
+with its SubMorph level (a stem or suffix built of cached pieces, even odds; `--plain` leaves
+it out, as `grammar.submorphs: false` does),
 sampled over every distinct written word (all types, split or not, once each), `--chains`
 chains (4, as configs/segment_morphs.yaml). The segmentation cuts the positions that more than
 half of every chain's analyses after the last `--samples` sweeps `--sample-every` apart cut
@@ -53,6 +55,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--samples", type=int, default=10)
     parser.add_argument("--sample-every", type=int, default=2)
     parser.add_argument("--conllu", type=Path, default=TREEBANK)
+    parser.add_argument("--plain", action="store_true",
+                        help="the grammar without its SubMorph level (grammar.submorphs=false)")
     parser.add_argument("--also", type=Path, action="append", default=[],
                         help="another CoNLL-U file whose written words the sampler reads too "
                              "(raw words only); its split words are scored on their own")
@@ -70,7 +74,8 @@ def main(argv: list[str] | None = None) -> None:
     print(f"{len(types)} distinct written words in all")
     start = time.perf_counter()
     chars = [characters(t) for t in types]      # a letter and its combining marks: one
-    sampler = AdaptorSampler(morph_grammar([c for t in chars for c in t]), chars,
+    grammar = morph_grammar([c for t in chars for c in t], submorphs=not args.plain)
+    sampler = AdaptorSampler(grammar, chars,
                              chains=args.chains, seed=args.seed, source=str(args.conllu))
     tally = BoundaryTally.of(sampler)
     recorded = set(recorded_sweeps(args.sweeps, args.samples, args.sample_every))

@@ -146,6 +146,33 @@ def test_morph_grammar_base_probabilities_by_hand_and_by_enumeration():
     assert set(grammar.adapted) == {"Stem", "Suffix"}
 
 
+def test_submorph_grammar_base_probabilities_by_hand_and_by_enumeration():
+    # Worked by hand for "ab" over {a, b}, every odd 0.5 and each character 1/2, with the
+    # SubMorph level (a stem or suffix spelled out with probability 1/2, built of submorphs
+    # with 1/2). A stem "ab" spelled out: 1/2 * (0.5 * 1/2) * (0.5 * 1/2) = 1/32; built of two
+    # one-character submorphs: 1/2 * 0.5 * (0.5 * 1/2)^2 = 1/64. A one-character stem or
+    # suffix: 1/2 * 0.5 * 1/2 = 1/8. So ROOT -> Stem: 0.5 * (1/32 + 1/64) = 3/128, and ROOT ->
+    # Word -> Stem Suffix: 0.5 * 0.5 * 1/8 * 1/8 = 1/256; three trees, 7/256 in all, which the
+    # brute-force enumeration of every tree (tests/_brute.py) must find.
+    grammar = morph_grammar("ab", submorphs=True)
+    trees = list(all_trees(grammar, ["a", "b"]))
+    assert len(trees) == 3
+    assert sum(math.exp(lp) for lp, _, _ in trees) == pytest.approx(7 / 256)
+    assert set(grammar.adapted) == {"Stem", "Suffix", "SubMorph"}
+    # Without the level the grammar is the plain one, rule for rule.
+    assert morph_grammar("abc", submorphs=False).to_text() == morph_grammar("abc").to_text()
+
+
+def test_submorph_edges_are_not_cuts():
+    grammar = morph_grammar("abc", submorphs=True)
+    names = grammar.symbols
+    stem, suffix, sub, word = (names.index(s) for s in ("Stem", "Suffix", "SubMorph", "Word"))
+    a, b, c = (grammar.vocab.encode([x])[0] for x in "abc")
+    # "abc" as Stem(SubMorph(a) SubMorph(b)) Suffix(c): one cut, after 2 (by hand).
+    tree = (word, (stem, (sub, a), (sub, b)), (suffix, c))
+    assert morph_cuts(tree, [stem, suffix], list("abc")) == ["ab", "c"]
+
+
 def test_morph_cuts_union_the_edges_of_stems_and_suffixes():
     grammar = morph_grammar("abc")
     names = grammar.symbols
@@ -181,12 +208,13 @@ def test_segment_job_in_morph_mode_writes_types_lexicon_and_split_word_scores(tm
         ["orrin", "velo", "marratund", "kal", "bri", "eskomanu", "sel"]
     lexicon = [line.split("\t") for line in
                result.lexicon.read_text(encoding="utf-8").splitlines()]
-    assert {row[0] for row in lexicon} <= {"Stem", "Suffix"}
+    assert {row[0] for row in lexicon} <= {"Stem", "Suffix", "SubMorph"}
     # Every word has exactly one stem: the Stem customers add up to the 7 words.
     assert sum(int(row[2]) for row in lexicon if row[0] == "Stem") == 7
     metrics = [json.loads(line) for line in
                (tmp_path / "run" / "metrics.jsonl").read_text(encoding="utf-8").splitlines()]
-    assert {"cached_Stem", "cached_Suffix", "discount_Suffix", "boundary_f1"} <= set(metrics[-1])
+    assert {"cached_Stem", "cached_Suffix", "cached_SubMorph", "discount_Suffix",
+            "boundary_f1"} <= set(metrics[-1])
     assert "on the 3 split written words: boundary precision" in out.getvalue()
     assert "every character: precision 0.222" in out.getvalue()  # 4/18, worked out above
 
@@ -229,6 +257,46 @@ def test_morph_mode_resumes_bit_for_bit(tmp_path, monkeypatch):
             (tmp_path / "straight" / name).read_text(), name
     ends = [json.loads((tmp_path / run / "chains.json").read_text())["chains"]
             for run in ("halves", "straight")]
+    assert ends[0] == ends[1]
+
+
+def test_a_plain_run_has_no_submorphs_and_an_older_plain_run_resumes(tmp_path, monkeypatch):
+    # Reference: the uninterrupted plain run. A run folder written before grammar.submorphs
+    # existed has no such key in its config.yaml (so it reads as the default, true), while its
+    # checkpoint holds the plain grammar; the resume must sample and report that grammar.
+    config = quay_config(tmp_path, 4)
+    text = config.read_text(encoding="utf-8")
+    config.write_text(text.replace("  unit: morphs\n", "  unit: morphs\n  submorphs: false\n")
+                      .replace("  sweeps: 4\n", "  sweeps: 4\n  checkpoint_every: 2\n"),
+                      encoding="utf-8")
+    straight = segment_words(load_segment_config(config), tmp_path / "straight")
+    lexicon = straight.lexicon.read_text(encoding="utf-8")
+    assert "SubMorph" not in lexicon and lexicon.startswith("Stem\t")
+    metrics = (tmp_path / "straight" / "metrics.jsonl").read_text(encoding="utf-8")
+    assert "cached_Stem" in metrics and "cached_SubMorph" not in metrics
+    calls = {"n": 0}
+    sweep = Chain.sweep
+
+    def stopping(chain, temperature):
+        calls["n"] += 1
+        if calls["n"] == 3:
+            raise KeyboardInterrupt
+        sweep(chain, temperature)
+
+    monkeypatch.setattr(Chain, "sweep", stopping)
+    with pytest.raises(KeyboardInterrupt):
+        segment_words(load_segment_config(config), tmp_path / "old")
+    monkeypatch.setattr(Chain, "sweep", sweep)
+    saved = tmp_path / "old" / "config.yaml"
+    lines = saved.read_text(encoding="utf-8").splitlines(keepends=True)
+    assert sum("submorphs: false" in line for line in lines) == 1
+    saved.write_text("".join(x for x in lines if "submorphs" not in x), encoding="utf-8")
+    segment_resume(tmp_path / "old")
+    for name in ("segmentation.txt", "lexicon.tsv"):
+        assert (tmp_path / "old" / name).read_text() == \
+            (tmp_path / "straight" / name).read_text(), name
+    ends = [json.loads((tmp_path / run / "chains.json").read_text())["chains"]
+            for run in ("old", "straight")]
     assert ends[0] == ends[1]
 
 

@@ -50,6 +50,11 @@ class WordGrammarConfig:
     more_suffixes: float = option(0.5, "Unit morphs: probability that a suffix follows the "
                                        "stem, and that another follows a suffix.",
                                   range="(0, 1)")
+    submorphs: bool = option(True, "Unit morphs: a stem or suffix may also be built of two or "
+                                   "more adapted SubMorph pieces (even odds against spelling "
+                                   "it out), so a rare stem can reuse recurring pieces and "
+                                   "stay whole; SubMorph edges are not cuts "
+                                   "(adaptor.grammars.morph_grammar; docs/adaptor_notes.md).")
 
 
 @dataclass

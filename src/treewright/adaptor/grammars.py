@@ -20,6 +20,8 @@ from typing import Iterable
 
 from treewright.grammar import Grammar, parse_grammar, quote
 
+SUBMORPH_BUILT = 0.5  # p(a stem or suffix is built of submorphs), with morph_grammar(submorphs)
+
 
 def unigram_word_grammar(alphabet: Iterable[str], discount: float = 0.5,
                          concentration: float = 10.0, more_words: float = 0.5,
@@ -48,7 +50,8 @@ def unigram_word_grammar(alphabet: Iterable[str], discount: float = 0.5,
 
 
 def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration: float = 10.0,
-                  more_suffixes: float = 0.5, more_characters: float = 0.5) -> Grammar:
+                  more_suffixes: float = 0.5, more_characters: float = 0.5,
+                  submorphs: bool = False) -> Grammar:
     """A word as a stem and suffixes (one input sentence is one written word), in Chomsky
     normal form, with Stem and Suffix adapted (each its own Pitman-Yor cache, both with
     `discount` and `concentration`), so recurring stems and recurring suffixes are each reused
@@ -66,6 +69,22 @@ def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration:
     more_suffixes    p(a suffix follows the stem), and p(another follows a suffix): the base
                      number of suffixes is geometric
     more_characters  p(another character follows) in stems and suffixes alike
+    submorphs        also let a stem or suffix be built from two or more cached pieces (a
+                     SubMorph level under both, after the submorph grammars of Sirts &
+                     Goldwater 2013, "Minimally-Supervised Morphological Segmentation using
+                     Adaptor Grammars", TACL 1), with even odds against spelling it out:
+
+        Stem -> c | Char Chars                  (adapted) spelled out, as above, or
+        Stem -> SubMorph SubMorph | SubMorph SubMorphs    built of submorphs
+        Suffix -> the same                      (adapted)
+        SubMorphs -> SubMorph SubMorph | SubMorph SubMorphs
+        SubMorph -> c | Char Chars              (adapted)
+
+                     A rare stem can then reuse recurring pieces and stay one stem, where the
+                     plain grammar makes it cheaper to cut it into a cached stem and
+                     "suffixes". SubMorph edges are not cuts: the units are still the
+                     top-most Stem and Suffix subtrees. (A one-piece stem is spelled out
+                     directly, since the grammar format has no unary rules below the start.)
     """
     chars = sorted(set(alphabet))
     if not chars:
@@ -73,15 +92,25 @@ def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration:
     one = 1.0 / len(chars)
     stop, go = 1.0 - more_suffixes, more_suffixes
     end, grow = 1.0 - more_characters, more_characters
-    lines = ["@start ROOT",
-             f"@adapted Stem discount {discount!r} concentration {concentration!r}",
-             f"@adapted Suffix discount {discount!r} concentration {concentration!r}",
-             f"ROOT -> Stem {stop!r}", f"ROOT -> Word {go!r}",
-             f"Word -> Stem Suffix {stop!r}", f"Word -> Stem Suffixes {go!r}",
-             f"Suffixes -> Suffix Suffix {stop!r}", f"Suffixes -> Suffix Suffixes {go!r}",
-             f"Stem -> Char Chars {grow!r}", f"Suffix -> Char Chars {grow!r}",
-             f"Chars -> Char Chars {grow!r}"]
+    units = ("Stem", "Suffix", "SubMorph") if submorphs else ("Stem", "Suffix")
+    spelled = 1.0 - SUBMORPH_BUILT if submorphs else 1.0  # p(a stem is spelled out)
+    lines = ["@start ROOT"]
+    lines += [f"@adapted {a} discount {discount!r} concentration {concentration!r}"
+              for a in units]
+    lines += [f"ROOT -> Stem {stop!r}", f"ROOT -> Word {go!r}",
+              f"Word -> Stem Suffix {stop!r}", f"Word -> Stem Suffixes {go!r}",
+              f"Suffixes -> Suffix Suffix {stop!r}", f"Suffixes -> Suffix Suffixes {go!r}",
+              f"Stem -> Char Chars {spelled * grow!r}", f"Suffix -> Char Chars {spelled * grow!r}"]
+    if submorphs:
+        built = SUBMORPH_BUILT
+        lines += [f"{a} -> SubMorph {rest} {built * odds!r}" for a in ("Stem", "Suffix")
+                  for rest, odds in (("SubMorph", stop), ("SubMorphs", go))]
+        lines += [f"SubMorphs -> SubMorph SubMorph {stop!r}",
+                  f"SubMorphs -> SubMorph SubMorphs {go!r}", f"SubMorph -> Char Chars {grow!r}"]
+    lines.append(f"Chars -> Char Chars {grow!r}")
     for c in chars:
-        lines += [f"Stem -> {quote(c)} {end * one!r}", f"Suffix -> {quote(c)} {end * one!r}",
-                  f"Chars -> {quote(c)} {end * one!r}", f"Char -> {quote(c)} {one!r}"]
+        lines += [f"{a} -> {quote(c)} {spelled * end * one!r}" for a in ("Stem", "Suffix")]
+        if submorphs:
+            lines.append(f"SubMorph -> {quote(c)} {end * one!r}")
+        lines += [f"Chars -> {quote(c)} {end * one!r}", f"Char -> {quote(c)} {one!r}"]
     return parse_grammar("\n".join(lines) + "\n", source="<morph grammar>", renormalize=True)

@@ -39,7 +39,8 @@ from treewright.evaluation.segmentation import SegmentationScores, evaluate_segm
 from treewright.word_pieces import written_forms
 
 PUNCT = frozenset({"PUNCT"})
-MORPH_SYMBOLS = ("Stem", "Suffix")  # the adapted symbols of `grammars.morph_grammar`
+MORPH_SYMBOLS = ("Stem", "Suffix")  # the units of `grammars.morph_grammar` (adapted)
+SUBMORPH = "SubMorph"  # the pieces they may be built of, with `morph_grammar(submorphs=True)`
 
 
 @dataclass(frozen=True)

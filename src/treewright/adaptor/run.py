@@ -25,10 +25,13 @@ With grammar.unit morphs each input is one word and the grammar cuts it into a s
 suffixes (`grammars.morph_grammar`): the segmentation cuts at the edges of the Stem and Suffix
 subtrees, metrics.jsonl has cached_Stem, cached_Suffix and each one's discount_ and
 concentration_ in place of Word's, and lexicon.tsv starts each line with the symbol (Stem or
-Suffix). With data.format conllu the inputs are the distinct written words of a CoNLL-U file
-(`morphs.read_written_words`), one line each in segmentation.txt in order of first occurrence;
-a word's gold is the tokens of its first occurrence, and the final note scores every
-occurrence of the split written words (the goal of issue 23) beside the two baselines.
+Suffix). With grammar.submorphs (the default) a stem or suffix may be built of cached SubMorph
+pieces, whose cache is reported beside them (cached_SubMorph, lexicon lines starting SubMorph);
+their edges are not cuts. With data.format conllu the inputs are the distinct written words of
+a CoNLL-U file (`morphs.read_written_words`), one line each in segmentation.txt in order of
+first occurrence; a word's gold is the tokens of its first occurrence, and the final note
+scores every occurrence of the split written words (the goal of issue 23) beside the two
+baselines.
 """
 
 from __future__ import annotations
@@ -40,8 +43,8 @@ from typing import TextIO
 
 from treewright.adaptor.config import SegmentConfig, load_segment_config
 from treewright.adaptor.grammars import morph_grammar, unigram_word_grammar
-from treewright.adaptor.morphs import (MORPH_SYMBOLS, WrittenWords, baseline_scores, by_type,
-                                       morph_segmentations, read_written_words)
+from treewright.adaptor.morphs import (MORPH_SYMBOLS, SUBMORPH, WrittenWords, baseline_scores,
+                                       by_type, morph_segmentations, read_written_words)
 from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
 from treewright.adaptor.sampler import AdaptorSampler, annealing
 from treewright.adaptor.segment import Utterances, characters, read_utterances
@@ -78,7 +81,7 @@ def segment_words(cfg: SegmentConfig, run_dir: str | Path, stream: TextIO | None
         raise InputError("no utterances (the file is empty or blank)", path=str(cfg.data.text))
     g = cfg.grammar
     grammar = morph_grammar(chars, g.discount, g.concentration, g.more_suffixes,
-                            g.more_characters) if g.unit == "morphs" else \
+                            g.more_characters, g.submorphs) if g.unit == "morphs" else \
         unigram_word_grammar(chars, g.discount, g.concentration, g.more_words,
                              g.more_characters)
     folder.note(f"initializing {cfg.sampler.chains} chain(s)", stream)
@@ -166,6 +169,15 @@ def _symbols(cfg: SegmentConfig) -> tuple[str, ...]:
     return MORPH_SYMBOLS if cfg.grammar.unit == "morphs" else (WORD,)
 
 
+def _adapted(cfg: SegmentConfig, sampler: AdaptorSampler) -> tuple[str, ...]:
+    """The adapted symbols whose caches the metrics and lexicon report: the units', then
+    SubMorph when the sampler's grammar has it (read from the sampler, so that a run resumed
+    from a checkpoint of a grammar without it reports what it samples)."""
+    has = sampler.rules.names
+    return _symbols(cfg) + tuple(a for a in (SUBMORPH,) if cfg.grammar.unit == "morphs"
+                                 and a in has)
+
+
 def _recorded(cfg: SegmentConfig) -> list[int]:
     """The sweeps after which every chain's analyses are recorded for the segmentation."""
     return recorded_sweeps(cfg.sampler.sweeps, cfg.sampler.samples, cfg.sampler.sample_every)
@@ -217,7 +229,8 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
         lexicon = "".join(f"{text}\t{customers}\t{tables}\n" for
                           text, customers, tables in sampler.lexicon(WORD, best))
     else:
-        lexicon = "".join(f"{a}\t{text}\t{customers}\t{tables}\n" for a in symbols
+        lexicon = "".join(f"{a}\t{text}\t{customers}\t{tables}\n"
+                          for a in _adapted(cfg, sampler)
                           for text, customers, tables in sampler.lexicon(a, best))
     atomic_write_text(folder.lexicon, lexicon)
     scores = evaluate_segmentation(words, corpus.gold, str(cfg.data.text)) \
@@ -278,7 +291,7 @@ def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
         out["chain"] = best
         out.update((f"log_joint_chain{c}", j) for c, j in enumerate(joints))
     symbols = _symbols(cfg)
-    for name in symbols:
+    for name in _adapted(cfg, sampler):
         a = sampler.rules.names.index(name)
         suffix = "" if symbols == (WORD,) else f"_{name}"
         out["cached_words" if not suffix else f"cached{suffix}"] = len(chain.cache.labels[a])
