@@ -14,12 +14,12 @@ from pathlib import Path
 import pytest
 
 from _brute import all_trees
+from test_adaptor_run import _stopped_in_sweep
 from treewright.adaptor.config import load_segment_config
 from treewright.adaptor.grammars import morph_grammar
 from treewright.adaptor.morphs import (baseline_scores, morph_cuts, orthographic_words,
                                        read_written_words)
 from treewright.adaptor.run import segment_resume, segment_words
-from treewright.adaptor.sampler import Chain
 from treewright.config import ConfigError
 
 TREEBANK = Path(sysconfig.get_paths()["purelib"]) / "data"
@@ -238,19 +238,7 @@ def test_morph_mode_resumes_bit_for_bit(tmp_path, monkeypatch):
                       f"resample_hyperparameters: true\noutput:\n  stdout_metrics: false\n",
                       encoding="utf-8")
     segment_words(load_segment_config(config), tmp_path / "straight")
-    calls = {"n": 0}
-    sweep = Chain.sweep
-
-    def stopping(chain, temperature):
-        calls["n"] += 1
-        if calls["n"] == 4:
-            raise KeyboardInterrupt
-        sweep(chain, temperature)
-
-    monkeypatch.setattr(Chain, "sweep", stopping)
-    with pytest.raises(KeyboardInterrupt):
-        segment_words(load_segment_config(config), tmp_path / "halves")
-    monkeypatch.setattr(Chain, "sweep", sweep)
+    _stopped_in_sweep(4, config, tmp_path / "halves", monkeypatch)
     segment_resume(tmp_path / "halves")
     for name in ("segmentation.txt", "lexicon.tsv"):
         assert (tmp_path / "halves" / name).read_text() == \
@@ -274,19 +262,7 @@ def test_a_plain_run_has_no_submorphs_and_an_older_plain_run_resumes(tmp_path, m
     assert "SubMorph" not in lexicon and lexicon.startswith("Stem\t")
     metrics = (tmp_path / "straight" / "metrics.jsonl").read_text(encoding="utf-8")
     assert "cached_Stem" in metrics and "cached_SubMorph" not in metrics
-    calls = {"n": 0}
-    sweep = Chain.sweep
-
-    def stopping(chain, temperature):
-        calls["n"] += 1
-        if calls["n"] == 3:
-            raise KeyboardInterrupt
-        sweep(chain, temperature)
-
-    monkeypatch.setattr(Chain, "sweep", stopping)
-    with pytest.raises(KeyboardInterrupt):
-        segment_words(load_segment_config(config), tmp_path / "old")
-    monkeypatch.setattr(Chain, "sweep", sweep)
+    _stopped_in_sweep(3, config, tmp_path / "old", monkeypatch)
     saved = tmp_path / "old" / "config.yaml"
     lines = saved.read_text(encoding="utf-8").splitlines(keepends=True)
     assert sum("submorphs: false" in line for line in lines) == 1
