@@ -263,6 +263,71 @@ def test_conllu_output_parses_with_the_conllu_package(velmar, tmp_path):
     assert upos[0][0]["upos"] in grammar.preterminals
 
 
+VELMAR_CONLLU = """\
+# sent_id = harbour-1
+# text = ka tavo rasku lo seru
+# note = a comment of the user's own
+1	ka	ka	DET	D1	Def=Yes	2	det	2:det	_
+2	tavo	tavo	NOUN	N1	_	3	nsubj	3:nsubj	_
+3	rasku	rasku	VERB	V1	Tense=Past	0	root	0:root	_
+4-5	loseru	_	_	_	_	_	_	_	SpaceAfter=No
+4	lo	lo	DET	D1	_	5	det	5:det	_
+5	seru	seru	NOUN	N1	_	3	obj	3:obj	_
+5.1	seru	seru	NOUN	N1	_	_	_	3:conj	_
+
+# sent_id = harbour-2
+# text = ka ul
+1	ka	ka	DET	D1	_	0	root	0:root	_
+2	ul	ul	ADP	P1	_	1	case	1:case	_
+
+"""
+
+
+def test_conllu_corpus_exports_back_line_for_line(velmar, tmp_path):
+    # A CoNLL-U corpus keeps every line but the induced columns: its comments, the
+    # multiword-token line, the empty node, and LEMMA, UPOS, FEATS, DEPS and MISC of every
+    # word. Reference for the filled columns: the same sentences exported from raw text (the
+    # path checked against the conllu package and head percolation above); for the rest, the
+    # input file itself. The second sentence has no parse ("ka ul" is no NP).
+    corpus = tmp_path / "harbour.conllu"
+    corpus.write_text(VELMAR_CONLLU, encoding="utf-8")
+    raw = write_lines(tmp_path / "harbour.txt", [["ka", "tavo", "rasku", "lo", "seru"],
+                                                 ["ka", "ul"]])
+    out, plain = tmp_path / "out.conllu", tmp_path / "plain.conllu"
+    code, _, err = run_cli("export", velmar, "--to", "conllu", "--corpus", corpus, "--out", out)
+    assert code == 0 and "line 12: no parse" in err
+    assert run_cli("export", velmar, "--to", "conllu", "--corpus", raw, "--out", plain)[0] == 0
+    ours, reference = conllu.parse(out.read_text()), conllu.parse(plain.read_text())
+    given = conllu.parse(VELMAR_CONLLU)
+    for sent, ref, gold in zip(ours, reference, given):
+        words = [t for t in sent if isinstance(t["id"], int)]
+        assert [(t["xpos"], t["head"], t["deprel"]) for t in words] == \
+            [(t["xpos"], t["head"], t["deprel"]) for t in ref]
+        gold_words = [t for t in gold if isinstance(t["id"], int)]
+        for column in ("form", "lemma", "upos", "feats", "deps", "misc"):
+            assert [t[column] for t in words] == [t[column] for t in gold_words]
+        assert [t for t in sent if not isinstance(t["id"], int)] == \
+            [t for t in gold if not isinstance(t["id"], int)]
+        assert sent.metadata["sent_id"] == gold.metadata["sent_id"]
+        assert sent.metadata["text"] == gold.metadata["text"]
+        for key in ("induced_tree", "head_rule", "parse"):
+            assert sent.metadata.get(key) == ref.metadata.get(key)
+    assert ours[0].metadata["note"] == "a comment of the user's own"
+    assert ours[1].metadata["parse"] == "none" and ours[0].metadata["head_rule"] == "auto"
+    # Line for line: every line that is not a word line is the input's, in place.
+    written, read = out.read_text().splitlines(), VELMAR_CONLLU.splitlines()
+    extra = [line for line in written if line.startswith(("# induced_tree", "# head_rule",
+                                                           "# parse"))]
+    kept = [line for line in written if line not in extra]
+    assert len(kept) == len(read) and len(extra) == 3
+    assert [a for a, b in zip(kept, read) if not b.split("\t")[0].isdigit()] == \
+        [b for b in read if not b.split("\t")[0].isdigit()]
+    # Exporting the export again replaces its comments rather than repeating them.
+    again = tmp_path / "again.conllu"
+    assert run_cli("export", velmar, "--to", "conllu", "--corpus", out, "--out", again)[0] == 0
+    assert again.read_text() == out.read_text()
+
+
 def test_bracketed_output_keeps_every_sentence(velmar):
     grammar = load_grammar(velmar)
     sentences = sample_sentences(grammar, num=5) + [["peln"]]

@@ -23,7 +23,9 @@ formats:
   conllu    the --corpus sentences as CoNLL-U, the induced preterminal of each word in the
             --tag-column column (XPOS by default), the tree in a '# induced_tree' comment,
             HEAD and DEPREL (root, else dep) read off the tree by the --heads rule; one
-            block per non-blank line, its '# sent_id' the input line number. From a
+            block per non-blank line, its '# sent_id' the input line number. A CoNLL-U
+            --corpus is written back line for line with those columns and comments filled
+            in (its sent_id, text, multiword-token lines and other columns kept). From a
             lexicalized run folder (with --heads auto) the tree and heads are the model's
             own best derivation ('# head_rule = lexicalized model')
 
@@ -71,7 +73,9 @@ def run(args) -> int:
     from treewright.export.jsonformat import grammar_json_text
     from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
                                            format_listing, summarize)
-    from treewright.export.parses import head_rule, parse_corpus, to_brackets, to_conllu
+    from treewright.corpus import detect_format
+    from treewright.export.parses import (fill_parsed_conllu, head_rule, parse_corpus,
+                                          to_brackets, to_conllu)
     from treewright.run_configs import is_segment_run
     from treewright.safeio import write_output_text
 
@@ -136,8 +140,14 @@ def run(args) -> int:
         if blanks and args.to == "conllu":
             print(f"{blanks} blank lines have no CoNLL-U block (a sentence needs a word); each "
                   "block's '# sent_id' is its input line", file=sys.stderr)
-        text = to_brackets(parsed) if args.to == "brackets" else to_conllu(
-            parsed, args.tag_column, rule=head_rule(args.heads, named))
+        if args.to == "brackets":
+            text = to_brackets(parsed)
+        elif detect_format(args.corpus) == "conllu":
+            # The input's own lines, with the induced columns and comments filled in.
+            text = fill_parsed_conllu(args.corpus, parsed, args.tag_column,
+                                      rule=head_rule(args.heads, named))
+        else:
+            text = to_conllu(parsed, args.tag_column, rule=head_rule(args.heads, named))
     if args.out == "-":
         sys.stdout.write(text)
     else:

@@ -32,8 +32,9 @@ from treewright.export.jsonformat import (FORMAT_VERSION, GrammarExport, grammar
 from treewright.export.listing import (ExpectedCounts, SpanExample, SymbolSummary,
                                        expected_counts, format_listing, summarize,
                                        symbol_examples)
-from treewright.export.parses import (HeadRule, ParsedSentence, dependency_heads, head_rule,
-                                      parse_corpus, to_brackets, to_conllu)
+from treewright.export.parses import (HeadRule, ParsedSentence, dependency_heads,
+                                      fill_parsed_conllu, head_rule, parse_corpus, to_brackets,
+                                      to_conllu)
 from treewright.export.prune import PruneReport, prune
 from treewright.export.rename import load_renaming, rename_grammar, rename_tree
 from treewright.export.source import (GrammarSource, Rule, iter_rules, load, open_grammar,
@@ -46,6 +47,6 @@ __all__ = [
     "load_grammar_export", "load_grammar_json", "load_renaming", "open_grammar",
     "open_restart_grammars", "open_run_record", "saved_restarts",
     "parse_corpus", "prune", "rename_grammar", "rename_tree", "save_grammar_json",
-    "summarize", "symbol_examples", "to_brackets", "to_conllu",
+    "summarize", "symbol_examples", "to_brackets", "to_conllu", "fill_parsed_conllu",
     "HeadRule", "dependency_heads", "head_rule", "fill_heads_conllu", "heads_to_conllu",
 ]

@@ -8,7 +8,9 @@ written `_` (unknown: the heads come without relation names).
   tokenized). Every line is written back as it was read (comments, multiword-token lines, empty
   nodes, blank lines, and on each word line every column but HEAD and DEPREL), so nothing of the
   user's file is lost; only HEAD and DEPREL of the syntactic words change. DEPS, the enhanced
-  graph, is the input's and is kept as it is.
+  graph, is the input's and is kept as it is. `export --to conllu` of a CoNLL-U corpus uses it
+  too, with a tag column, relation names and comments of its own
+  (`export.parses.fill_parsed_conllu`).
 - `heads_to_conllu(sentences, heads)`: the input was words; ID, FORM and HEAD are filled, every
   other column is `_`, with `# sent_id` (when given) and `# text` comments.
 
@@ -29,10 +31,21 @@ HEAD, DEPREL = 6, 7            # 0-based columns of a CoNLL-U word line
 UNKNOWN = "_"
 
 
-def fill_heads_conllu(path: str | os.PathLike, heads: Sequence[Sequence[int] | None]) -> str:
+def fill_heads_conllu(path: str | os.PathLike, heads: Sequence[Sequence[int] | None], *,
+                      relations: tuple[str, str] | None = None,
+                      tags: Sequence[Sequence[str] | None] | None = None, tag_column: int = 4,
+                      comments: Sequence[Sequence[str]] | None = None) -> str:
     """The CoNLL-U file at `path` with HEAD set from `heads` (one entry per sentence block, in
     order; None: no parse, HEAD `_`) and DEPREL `_` on every syntactic word; every other line
-    and column as read (see the module docstring). Ends with a blank line."""
+    and column as read (see the module docstring). Ends with a blank line.
+
+    relations: (root, other), DEPREL of the word whose head is 0 and of every other word of a
+        sentence with heads, instead of `_`.
+    tags: per sentence, a tag per syntactic word (None: `_` for each), written into the 0-based
+        column `tag_column` (UPOS 3, XPOS 4).
+    comments: per sentence, comment lines ("# key = value") written after the block's own
+        comments; an own comment with one of their keys is left out (so exporting an export
+        again replaces its comments rather than repeating them)."""
     name = os.fspath(path)
     starts = []
     for block in iter_conllu_blocks(iter_lines(name), name):
@@ -46,25 +59,48 @@ def fill_heads_conllu(path: str | os.PathLike, heads: Sequence[Sequence[int] | N
                          f"file; sentence {first + 1} has no partner", path=name, line=line)
     for index, ((line, n), h) in enumerate(zip(starts, heads)):
         _check(h, n, index, name, line)
+        mine = None if tags is None else tags[index]
+        if mine is not None and len(mine) != n:
+            raise InputError(f"sentence {index + 1}: {len(mine)} tags for {n} words",
+                             path=name, line=line)
     out: list[str] = []
     sentence, word = -1, 0
     in_block = False
+    pending: list[str] = []      # this block's extra comments, written before its first word
+
+    def replaced(comment: str) -> bool:
+        key = comment[1:].partition("=")[0].strip()
+        return any(key == c[1:].partition("=")[0].strip() for c in pending)
+
     for _, text in iter_lines(name):
         if not text.strip():
             in_block = False
+            out.extend(pending)  # (a block has a word, so this is empty; kept for safety)
+            pending = []
             out.append(text)
             continue
         if not in_block:
             in_block, sentence, word = True, sentence + 1, 0
+            pending = list(comments[sentence]) if comments is not None else []
+        if text.startswith("#"):
+            if not replaced(text):
+                out.append(text)
+            continue
+        out.extend(pending)
+        pending = []
         fields = text.split("\t")
-        if text.startswith("#") or not fields[0].isdigit():
-            out.append(text)  # a comment, a multiword-token range or an empty node: as read
+        if not fields[0].isdigit():
+            out.append(text)  # a multiword-token range or an empty node: as read
             continue
         mine = heads[sentence]
         fields[HEAD] = UNKNOWN if mine is None else str(mine[word])
-        fields[DEPREL] = UNKNOWN
+        fields[DEPREL] = UNKNOWN if mine is None or relations is None else \
+            relations[0] if mine[word] == 0 else relations[1]
+        if tags is not None:
+            fields[tag_column] = UNKNOWN if tags[sentence] is None else tags[sentence][word]
         word += 1
         out.append("\t".join(fields))
+    out.extend(pending)
     if out and out[-1].strip():
         out.append("")  # CoNLL-U ends every sentence with a blank line, the last one included
     return "\n".join(out) + "\n"

@@ -19,7 +19,10 @@ heads of its own best derivation (`ParsedSentence.heads`); DEPREL, `root` for th
 head is 0 and `dep` (the Universal Dependencies label for an unspecified relation) for every
 other word, since the grammar's symbols carry no relation names. LEMMA, FEATS, DEPS and MISC are
 `_`. Comments per sentence: `sent_id` (the input line number), `text` (the tokens joined by
-spaces), `induced_tree` (the bracketed tree) or `parse = none`, and `head_rule`.
+spaces), `induced_tree` (the bracketed tree) or `parse = none`, and `head_rule`. A CoNLL-U
+corpus is written back line for line instead (`fill_parsed_conllu`): its own comments,
+multiword-token lines, empty nodes and other columns stay, and only the tag column, HEAD and
+DEPREL of its words and the comments above change.
 
 Heads from a constituency tree by head percolation (Collins 1999, "Head-Driven Statistical
 Models for Natural Language Parsing", PhD thesis, University of Pennsylvania): each phrase has
@@ -209,30 +212,13 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
     """The CoNLL-U text (see the module docstring). tag_column: "XPOS" (default) or "UPOS".
     rule: the head rule, from `head_rule` (the default choice, "auto", needs the grammar whose
     symbols label the trees)."""
-    if tag_column not in TAG_COLUMNS:
-        raise ValueError(f"tag_column must be one of {TAG_COLUMNS}, not {tag_column!r}")
-    where = _COLUMNS.index(tag_column)
+    where = _tag_index(tag_column)
     blocks = []
     for p in parsed:
         if p.blank:
             continue  # no CoNLL-U sentence has no words; sent_id keeps the lines apart
-        lines = [f"# sent_id = {p.line}", f"# text = {' '.join(p.words)}"]
-        if p.tree is None:
-            lines.append("# parse = none")
-            tags = ["_"] * len(p.words)
-            heads: list[int | None] = [None] * len(p.words)
-        else:
-            # Written in the treebank's form (`decode.treebank_tree`), as `to_brackets` writes
-            # it; the heads come from the grammar's own tree, whose symbols the rule names.
-            shown = treebank_tree(p.tree, p.treebank)
-            lines.append(f"# induced_tree = {shown.to_string()}")
-            if p.heads is not None:
-                lines.append(f"# head_rule = {MODEL_HEADS}")
-                heads = list(p.heads)
-            else:
-                lines.append(f"# head_rule = {rule.name}")
-                heads = list(dependency_heads(p.tree, rule))
-            tags = induced_tags(shown)
+        comments, tags, heads = _induced(p, rule)
+        lines = [f"# sent_id = {p.line}", f"# text = {' '.join(p.words)}", *comments]
         for k, (word, tag, head) in enumerate(zip(p.words, tags, heads), start=1):
             row = [str(k), word] + ["_"] * 8
             row[where] = tag
@@ -243,3 +229,47 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
         blocks.append("\n".join(lines) + "\n")
     # CoNLL-U ends every sentence with a blank line, the last one included.
     return "\n".join(blocks) + "\n"
+
+
+def fill_parsed_conllu(path: str, parsed: Sequence[ParsedSentence], tag_column: str = "XPOS",
+                       *, rule: HeadRule) -> str:
+    """The CoNLL-U file at `path`, whose sentence blocks `parsed` are (one each, in order,
+    as `cli.common.read_lines` reads them), with the columns and comments `to_conllu` writes
+    filled in: the induced preterminal in `tag_column`, HEAD, DEPREL (`root`, `dep`), and the
+    `induced_tree` (or `parse = none`) and `head_rule` comments after the block's own. Every
+    other line and column stays as read (`sent_id`, `text`, multiword-token lines, empty nodes,
+    LEMMA, the other tag column, FEATS, DEPS, MISC), so nothing of the input is lost
+    (`export.heads.fill_heads_conllu`)."""
+    from treewright.export.heads import fill_heads_conllu
+
+    where = _tag_index(tag_column)
+    induced = [_induced(p, rule) for p in parsed if not p.blank]
+    heads = [None if any(h is None for h in mine) else list(mine) for _, _, mine in induced]
+    return fill_heads_conllu(path, heads, relations=(ROOT_RELATION, RELATION),
+                             tags=[tags for _, tags, _ in induced], tag_column=where,
+                             comments=[comments for comments, _, _ in induced])
+
+
+def _tag_index(tag_column: str) -> int:
+    if tag_column not in TAG_COLUMNS:
+        raise ValueError(f"tag_column must be one of {TAG_COLUMNS}, not {tag_column!r}")
+    return _COLUMNS.index(tag_column)
+
+
+def _induced(p: ParsedSentence, rule: HeadRule
+             ) -> tuple[list[str], list[str], list[int | None]]:
+    """(comments, tags, heads) of one parsed sentence: `induced_tree` and `head_rule`, or
+    `parse = none` with `_` tags and no heads."""
+    if p.tree is None:
+        return ["# parse = none"], ["_"] * len(p.words), [None] * len(p.words)
+    # Written in the treebank's form (`decode.treebank_tree`), as `to_brackets` writes it; the
+    # heads come from the grammar's own tree, whose symbols the rule names.
+    shown = treebank_tree(p.tree, p.treebank)
+    comments = [f"# induced_tree = {shown.to_string()}"]
+    if p.heads is not None:
+        comments.append(f"# head_rule = {MODEL_HEADS}")
+        heads: list[int | None] = list(p.heads)
+    else:
+        comments.append(f"# head_rule = {rule.name}")
+        heads = list(dependency_heads(p.tree, rule))
+    return comments, induced_tags(shown), heads
