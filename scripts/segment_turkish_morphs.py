@@ -44,7 +44,7 @@ TREEBANK = Path(sysconfig.get_paths()["purelib"]) / "data" / "web.conllu"
 
 def _row(name: str, words: list[list[str]], gold: list[list[str]]) -> str:
     b = evaluate_segmentation(words, gold).boundaries
-    return f"{name:<18} {b.precision:9.3f} {b.recall:6.3f} {b.f1:6.3f}"
+    return f"{name:<22} {b.precision:9.3f} {b.recall:6.3f} {b.f1:6.3f}"
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -88,19 +88,25 @@ def main(argv: list[str] | None = None) -> None:
     best, joints = best_chain(sampler)
     rows = [(f"chain {best} alone", dict(zip(types, morph_segmentations(sampler, best))))]
     if tally.samples:
-        rows.insert(0, ("pooled", dict(zip(types, tally.segmentations(sampler.words)))))
+        least = tally.threshold("expected-f1")
+        print(f"expected-f1 cuts at {least} of {tally.samples} analyses "
+              f"(expected boundary F1 {tally.expected_f1(least):.3f}; majority: "
+              f"{tally.threshold()}, {tally.expected_f1(tally.threshold()):.3f})")
+        rows[:0] = [(f"pooled, {rule}", dict(zip(types, tally.segmentations(sampler.words,
+                                                                            rule))))
+                    for rule in ("majority", "expected-f1")]
     print(f"{args.sweeps} sweeps of {args.chains} chain(s) over {len(types)} types in "
           f"{seconds:.0f} s; log joint {', '.join(f'{j:.1f}' for j in joints)}")
     scored = [(f"{name} of {path.name}", gold) for path, written in sections.items()
               for name, gold in (("split words", written.split), ("all words", written.morphs))]
     for name, gold in scored:
         base = baseline_scores(gold)
-        print(f"\nboundaries on {name} ({len(gold)})\n{'':<18} precision recall     F1")
+        print(f"\nboundaries on {name} ({len(gold)})\n{'':<22} precision recall     F1")
         for label, segmented in rows:
             print(_row(label, by_type(segmented, gold), gold))
         for label, scores in base.items():
             b = scores.boundaries
-            print(f"{label:<18} {b.precision:9.3f} {b.recall:6.3f} {b.f1:6.3f}")
+            print(f"{label:<22} {b.precision:9.3f} {b.recall:6.3f} {b.f1:6.3f}")
 
 
 if __name__ == "__main__":

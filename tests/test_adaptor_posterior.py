@@ -4,6 +4,9 @@ tests/test_adaptor_run.py."""
 
 from __future__ import annotations
 
+import itertools
+
+import numpy as np
 import pytest
 
 from treewright.adaptor import AdaptorSampler, parse_utterances
@@ -32,6 +35,70 @@ def test_a_position_is_cut_when_more_than_half_cut_it():
 def test_nothing_recorded_is_an_error_not_an_empty_segmentation():
     with pytest.raises(ValueError, match="no analyses"):
         BoundaryTally([3]).positions()
+    with pytest.raises(ValueError, match="no analyses"):
+        BoundaryTally([3]).positions("expected-f1")
+    with pytest.raises(ValueError, match="unknown cut rule 'most'"):
+        _tally().positions("most")
+
+
+def _approximate_expected_f1(shares, chosen):
+    # Jansche (2005): the expected overlap over the expected sizes, written out here.
+    return 2 * sum(shares[i] for i in chosen) / (len(chosen) + sum(shares))
+
+
+def test_expected_f1_by_hand():
+    # Shares 0.75, 0.5, 0 and 1 (sum 2.25). Counts >= 1 or >= 2 cut the same three positions:
+    # 2 * 2.25 / (3 + 2.25) = 6/7; >= 3 cuts two: 3.5 / 4.25; >= 4 one: 2 / 3.25. The tie of
+    # thresholds 1 and 2 goes to the higher one.
+    tally = _tally()
+    assert [tally.expected_f1(t) for t in (1, 2, 3, 4)] == pytest.approx(
+        [6 / 7, 6 / 7, 3.5 / 4.25, 2 / 3.25], abs=1e-15)
+    assert tally.threshold("expected-f1") == 2 and tally.threshold() == 3
+    assert tally.positions("expected-f1") == [[1, 2], [1]]
+    assert tally.segmentations([list("kelu"), list("ma")], "expected-f1") == [
+        ["k", "e", "lu"], ["m", "a"]]
+
+
+def test_no_boundary_anywhere_expects_nothing_and_cuts_nothing():
+    tally = BoundaryTally([3, 2])
+    tally.samples = 5
+    assert tally.expected_f1(1) == 0.0
+    assert tally.positions("expected-f1") == [[], []]
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_expected_f1_cuts_the_best_subset_of_all(seed):
+    # Reference: brute-force enumeration of every subset of the 10 positions, each scored by
+    # the approximate expected F1 written out above; the rule's cut must score the maximum.
+    rng = np.random.default_rng(seed)
+    tally = BoundaryTally([5, 4, 4])
+    tally.samples = 7
+    for c in tally.counts:
+        c[:] = rng.integers(0, 8, size=len(c))
+    shares = np.concatenate(tally.shares()).tolist()
+    best = max(_approximate_expected_f1(shares, chosen)
+               for k in range(len(shares) + 1)
+               for chosen in itertools.combinations(range(len(shares)), k))
+    cut = [offset + p - 1 for offset, ps in zip((0, 4, 7), tally.positions("expected-f1"))
+           for p in ps]
+    assert _approximate_expected_f1(shares, cut) == pytest.approx(best, abs=1e-12)
+    assert tally.expected_f1(tally.threshold("expected-f1")) == pytest.approx(best, abs=1e-12)
+
+
+def test_the_threshold_is_half_the_f1_it_expects():
+    # Lipton, Elkan & Naryanaswamy (2014): with calibrated probabilities, the F1-optimal rule
+    # cuts every position whose probability is above half the optimal F1, and none below.
+    rng = np.random.default_rng(11)
+    tally = BoundaryTally([30] * 200)
+    tally.samples = 40
+    for c in tally.counts:
+        c[:] = rng.binomial(40, rng.beta(0.3, 1.5, size=len(c)))
+    least = tally.threshold("expected-f1")
+    half = tally.expected_f1(least) / 2
+    shares = np.concatenate(tally.shares())
+    assert (shares[shares >= least / 40] >= half).all()
+    assert (shares[shares < least / 40] <= half).all()
+    assert 0.05 < half < 0.5 and least < tally.threshold()
 
 
 def test_the_state_round_trips_and_damage_is_refused():

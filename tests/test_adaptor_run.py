@@ -203,11 +203,14 @@ def _cut_positions(words):
     return ends
 
 
-def test_the_segmentation_pools_every_chains_recorded_analyses(tmp_path):
+@pytest.mark.parametrize("rule", ["majority", "expected-f1"])
+def test_the_segmentation_pools_every_chains_recorded_analyses(tmp_path, rule):
     # Reference: the same chains run by hand through the Python API (same grammar, seed and
     # utterances), each chain's segmentation read after sweeps 2, 4 and 6, and every position
-    # cut by more than half of those 9 analyses (a majority counted here with a Counter).
-    config = _config(tmp_path, chains=3, sweeps=6, samples=3, sample_every=2)
+    # cut by more than half of those 9 analyses (a majority counted here with a Counter), or
+    # by at least the count, of 1 to 9, whose cuts score the highest expected boundary F1,
+    # 2 * (their summed shares) / (their number + every share's sum) (Jansche 2005).
+    config = _config(tmp_path, chains=3, sweeps=6, samples=3, sample_every=2, cut_rule=rule)
     result = segment_words(load_segment_config(config), tmp_path / "run")
     corpus = read_utterances(tmp_path / "ostreli.txt")
     chars = [c for u in corpus.characters for c in u]
@@ -220,9 +223,19 @@ def test_the_segmentation_pools_every_chains_recorded_analyses(tmp_path):
             own.append(sampler.segmentations("Word", c))
             for tally, words in zip(votes, own[-1]):
                 tally.update(_cut_positions(words))
+    least = 5
+    if rule == "expected-f1":
+        counts = [n for tally in votes for n in tally.values()]
+
+        def expected_f1(t):
+            kept = [n / 9 for n in counts if n >= t]
+            return 2 * sum(kept) / (len(kept) + sum(counts) / 9)
+
+        least = max(range(1, 10), key=lambda t: (expected_f1(t), t))
+        assert least < 5   # here the two rules differ
     expected = []
     for tally, u in zip(votes, corpus.characters):
-        cuts = sorted(k for k, n in tally.items() if n > 9 / 2)
+        cuts = sorted(k for k, n in tally.items() if n >= least)
         edges = [0, *cuts, len(u)]
         expected.append(" ".join("".join(u[i:j]) for i, j in zip(edges, edges[1:])))
     written = result.segmentation.read_text(encoding="utf-8").splitlines()

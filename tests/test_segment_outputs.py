@@ -93,7 +93,7 @@ def test_the_report_scores_the_segmentation_and_shows_curves_and_lexicon(word_ru
     assert f"this segmentation {row}" in words
     assert re.search(r"no split [0-9.]+ [0-9.]+ [0-9.]+ 0\.000 0\.000 0\.000", words)
     assert re.search(r"every character [0-9.]+ [0-9.]+ [0-9.]+ [0-9.]+ 1\.000", words)
-    assert "more than half of 4 recorded analyses" in words
+    assert "pools 4 recorded analyses (every chain's late sweeps) by the cut rule" in words
     # The lexicon's most used unit with its counts, and the first utterance beside its gold.
     unit, customers, tables = (run / "lexicon.tsv").read_text().splitlines()[0].split("\t")
     assert f"{unit} {customers} {tables}" in words

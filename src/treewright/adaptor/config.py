@@ -84,11 +84,16 @@ class SamplerConfig:
                "needs both positive at the start).")
     samples: int = option(10, "Recorded analyses per chain for the segmentation written at "
                               "the end: every chain's state after the last sweep and after "
-                              "every sample_every-th sweep before it; a position is cut when "
-                              "more than half of all recorded analyses cut it (the boundary "
-                              "posterior, adaptor.posterior). 0: the reported chain's last "
-                              "state alone.", range="[0, inf)")
+                              "every sample_every-th sweep before it, pooled as cut_rule "
+                              "says (the boundary posterior, adaptor.posterior). 0: the "
+                              "reported chain's last state alone.", range="[0, inf)")
     sample_every: int = option(2, "Sweeps between recorded analyses.", range="[1, inf)")
+    cut_rule: Literal["majority", "expected-f1"] = option(
+        "majority", "How the recorded analyses decide the segmentation. majority: cut a "
+                    "position when more than half of them cut it (fewest expected wrong "
+                    "positions). expected-f1: cut the positions whose count reaches the "
+                    "threshold with the highest expected boundary F1 under them (the model's "
+                    "posterior alone, never the gold; adaptor.posterior).")
     score_every: int = option(1, "Sweeps between metric lines (log joint probability, and F1 "
                                  "with gold); the log joint costs about a fifth of a sweep.",
                               range="[1, inf)")

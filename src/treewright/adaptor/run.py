@@ -18,8 +18,10 @@ The reported chain is the one with the highest log joint probability when the nu
 taken (the first on ties): a chain that has settled in a better mode of the posterior, chosen
 by the model alone, never by the gold. With one chain it is chain 0. The segmentation pools
 every chain: each chain's analyses are recorded after the last `sampler.samples` sweeps
-`sampler.sample_every` apart, and a position is cut when more than half of them cut it
-(`posterior.BoundaryTally`); with `sampler.samples: 0` it is the reported chain's last state.
+`sampler.sample_every` apart, and a position is cut when more than half of them cut it, or
+with `sampler.cut_rule: expected-f1` when as many cut it as the threshold with the highest
+expected boundary F1 asks (`posterior.BoundaryTally`); with `sampler.samples: 0` it is the
+reported chain's last state.
 
 With grammar.unit morphs each input is one word and the grammar cuts it into a stem and
 suffixes (`grammars.morph_grammar`): the segmentation cuts at the edges of the Stem and Suffix
@@ -220,10 +222,13 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
     own = morph_segmentations(sampler, best, symbols)  # the reported chain's last state
     words = own
     if tally.samples:
-        words = tally.segmentations(corpus.characters)
-        folder.note(f"segmentation: the positions cut by more than half of {tally.samples} "
+        rule = cfg.sampler.cut_rule
+        words = tally.segmentations(corpus.characters, rule)
+        least = tally.threshold(rule)
+        folder.note(f"segmentation: the positions cut by at least {least} of {tally.samples} "
                     f"recorded analyses ({tally.samples // len(sampler.chains)} sweeps of "
-                    f"{len(sampler.chains)} chain(s))", stream)
+                    f"{len(sampler.chains)} chain(s); cut rule {rule}; expected boundary F1 "
+                    f"{tally.expected_f1(least):.3f} under them)", stream)
     atomic_write_text(folder.segmentation, "".join(" ".join(w) + "\n" for w in words))
     if symbols == (WORD,):
         lexicon = "".join(f"{text}\t{customers}\t{tables}\n" for

@@ -157,8 +157,8 @@ def build_segment_report(run_dir: str | Path) -> str:
     if folder.checkpoint.is_file():
         sweeps, samples = checkpoint_progress(folder)
         if samples:
-            pooled = (f"the segmentation cuts where more than half of {samples} recorded "
-                      f"analyses (every chain's late sweeps) cut")
+            pooled = (f"the segmentation pools {samples} recorded analyses (every chain's "
+                      f"late sweeps) by the cut rule {cfg.sampler.cut_rule}")
         notes.insert(0, f"{sweeps} of {cfg.sampler.sweeps} sweeps done")
     scores, examples = _evaluation(cfg, folder, written)
     unit = "morphs of words" if cfg.grammar.unit == "morphs" else "words of utterances"
