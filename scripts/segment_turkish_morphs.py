@@ -10,7 +10,7 @@ The run: the stem-and-suffixes grammar of `treewright.adaptor.grammars.morph_gra
 Suffix adapted, Pitman-Yor discount 0.5 and concentration 10, even odds of another suffix and
 another character: the defaults of the word grammar, chosen before any run and not tuned),
 with its SubMorph level (a stem or suffix built of cached pieces, even odds; `--plain` leaves
-it out, as `grammar.submorphs: false` does),
+it out, as `grammar.submorphs: false` does; no prefixes, as the config, unless `--prefixes`),
 sampled over every distinct written word (all types, split or not, once each), `--chains`
 chains (4, as configs/segment_morphs.yaml). The segmentation cuts the positions that more than
 half of every chain's analyses after the last `--samples` sweeps `--sample-every` apart cut
@@ -32,8 +32,8 @@ from pathlib import Path
 
 from treewright.adaptor import AdaptorSampler, characters
 from treewright.adaptor.grammars import morph_grammar
-from treewright.adaptor.morphs import (MORPH_SYMBOLS, baseline_scores, by_type,
-                                       morph_segmentations, read_written_words)
+from treewright.adaptor.morphs import (baseline_scores, by_type, morph_segmentations,
+                                       morph_units, read_written_words)
 from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
 from treewright.adaptor.run import best_chain
 from treewright.evaluation import evaluate_segmentation
@@ -57,6 +57,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--conllu", type=Path, default=TREEBANK)
     parser.add_argument("--plain", action="store_true",
                         help="the grammar without its SubMorph level (grammar.submorphs=false)")
+    parser.add_argument("--prefixes", action="store_true",
+                        help="prefixes before the stem too (grammar.prefixes=true)")
     parser.add_argument("--also", type=Path, action="append", default=[],
                         help="another CoNLL-U file whose written words the sampler reads too "
                              "(raw words only); its split words are scored on their own")
@@ -74,7 +76,8 @@ def main(argv: list[str] | None = None) -> None:
     print(f"{len(types)} distinct written words in all")
     start = time.perf_counter()
     chars = [characters(t) for t in types]      # a letter and its combining marks: one
-    grammar = morph_grammar([c for t in chars for c in t], submorphs=not args.plain)
+    grammar = morph_grammar([c for t in chars for c in t], submorphs=not args.plain,
+                            prefixes=args.prefixes)
     sampler = AdaptorSampler(grammar, chars,
                              chains=args.chains, seed=args.seed, source=str(args.conllu))
     tally = BoundaryTally.of(sampler)
@@ -83,7 +86,7 @@ def main(argv: list[str] | None = None) -> None:
         for done in range(1, args.sweeps + 1):
             sampler.run(1, progress=lambda done, total: progress.update(1))
             if done in recorded:
-                tally.record(sampler, MORPH_SYMBOLS)
+                tally.record(sampler, morph_units(sampler.rules.names))
     seconds = time.perf_counter() - start
     best, joints = best_chain(sampler)
     rows = [(f"chain {best} alone", dict(zip(types, morph_segmentations(sampler, best))))]

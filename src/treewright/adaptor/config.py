@@ -37,7 +37,7 @@ class SegmentDataConfig:
 class WordGrammarConfig:
     unit: Literal["words", "morphs"] = option(
         "words", "words: the unigram word grammar over utterances. morphs: each input is one "
-                 "word, cut into a Stem and Suffixes, both adapted with discount and "
+                 "word, cut into Prefixes, a Stem and Suffixes, all adapted with discount and "
                  "concentration below (adaptor.grammars.morph_grammar).")
     discount: float = option(0.5, "Pitman-Yor discount a of the adapted Word.", range="[0, 1)")
     concentration: float = option(10.0, "Pitman-Yor concentration b of Word (b > -a).",
@@ -55,6 +55,14 @@ class WordGrammarConfig:
                                    "it out), so a rare stem can reuse recurring pieces and "
                                    "stay whole; SubMorph edges are not cuts "
                                    "(adaptor.grammars.morph_grammar; docs/adaptor_notes.md).")
+    prefixes: bool = option(True, "Unit morphs: adapted Prefixes may also precede the stem, "
+                                  "so that a language that affixes at the front of the word "
+                                  "is cut there too; false for a language known to have "
+                                  "suffixes only (adaptor.grammars.morph_grammar; "
+                                  "docs/adaptor_notes.md).")
+    more_prefixes: float = option(0.5, "Unit morphs with prefixes: probability that a prefix "
+                                       "precedes the stem, and that another precedes a "
+                                       "prefix.", range="(0, 1)")
 
 
 @dataclass

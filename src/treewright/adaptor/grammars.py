@@ -51,12 +51,14 @@ def unigram_word_grammar(alphabet: Iterable[str], discount: float = 0.5,
 
 def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration: float = 10.0,
                   more_suffixes: float = 0.5, more_characters: float = 0.5,
-                  submorphs: bool = False) -> Grammar:
-    """A word as a stem and suffixes (one input sentence is one written word), in Chomsky
-    normal form, with Stem and Suffix adapted (each its own Pitman-Yor cache, both with
-    `discount` and `concentration`), so recurring stems and recurring suffixes are each reused
-    whole. The shape is that of Johnson, Griffiths & Goldwater 2007 (section 5, the morphology
-    grammar Word -> Stem Suffix), with any number of suffixes:
+                  submorphs: bool = False, prefixes: bool = False,
+                  more_prefixes: float = 0.5) -> Grammar:
+    """A word as a stem and suffixes, and with `prefixes` prefixes before the stem (one input
+    sentence is one written word), in Chomsky normal form, with Stem and Suffix adapted (each
+    its own Pitman-Yor cache, both with `discount` and `concentration`), so recurring stems and
+    recurring suffixes are each reused whole. The shape is that of Johnson, Griffiths &
+    Goldwater 2007 (section 5, the morphology grammar Word -> Stem Suffix), with any number of
+    suffixes:
 
         ROOT -> Stem | Word             a bare stem, or a stem with suffixes
         Word -> Stem Suffix | Stem Suffixes
@@ -85,6 +87,17 @@ def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration:
                      "suffixes". SubMorph edges are not cuts: the units are still the
                      top-most Stem and Suffix subtrees. (A one-piece stem is spelled out
                      directly, since the grammar format has no unary rules below the start.)
+    prefixes         also let prefixes precede the stem, an adapted Prefix spelled out (or
+                     built of submorphs) as a Suffix is, so that languages that inflect or
+                     derive at the front of the word are segmented there too:
+
+        ROOT -> Stem | Word | Prefixed
+        Prefixed -> P Stem | P Word             P: Prefix, or Prefixes
+        Prefixes -> Prefix Prefix | Prefix Prefixes
+        Prefix -> c | Char Chars                (adapted; or of submorphs, as Suffix)
+
+    more_prefixes    with prefixes: p(a prefix precedes the stem), and p(another precedes a
+                     prefix); the base number of prefixes is geometric, as of suffixes
     """
     chars = sorted(set(alphabet))
     if not chars:
@@ -92,24 +105,34 @@ def morph_grammar(alphabet: Iterable[str], discount: float = 0.5, concentration:
     one = 1.0 / len(chars)
     stop, go = 1.0 - more_suffixes, more_suffixes
     end, grow = 1.0 - more_characters, more_characters
-    units = ("Stem", "Suffix", "SubMorph") if submorphs else ("Stem", "Suffix")
+    morphs = ("Prefix", "Stem", "Suffix") if prefixes else ("Stem", "Suffix")
+    units = morphs + ("SubMorph",) if submorphs else morphs
     spelled = 1.0 - SUBMORPH_BUILT if submorphs else 1.0  # p(a stem is spelled out)
     lines = ["@start ROOT"]
     lines += [f"@adapted {a} discount {discount!r} concentration {concentration!r}"
               for a in units]
-    lines += [f"ROOT -> Stem {stop!r}", f"ROOT -> Word {go!r}",
-              f"Word -> Stem Suffix {stop!r}", f"Word -> Stem Suffixes {go!r}",
-              f"Suffixes -> Suffix Suffix {stop!r}", f"Suffixes -> Suffix Suffixes {go!r}",
-              f"Stem -> Char Chars {spelled * grow!r}", f"Suffix -> Char Chars {spelled * grow!r}"]
+    bare = 1.0 - more_prefixes if prefixes else 1.0   # p(no prefix)
+    lines += [f"ROOT -> Stem {bare * stop!r}", f"ROOT -> Word {bare * go!r}"]
+    if prefixes:
+        first, more = 1.0 - more_prefixes, more_prefixes
+        lines.append(f"ROOT -> Prefixed {more_prefixes!r}")
+        lines += [f"Prefixed -> {front} {rest} {odds * after!r}"
+                  for front, odds in (("Prefix", first), ("Prefixes", more))
+                  for rest, after in (("Stem", stop), ("Word", go))]
+        lines += [f"Prefixes -> Prefix Prefix {first!r}",
+                  f"Prefixes -> Prefix Prefixes {more!r}"]
+    lines += [f"Word -> Stem Suffix {stop!r}", f"Word -> Stem Suffixes {go!r}",
+              f"Suffixes -> Suffix Suffix {stop!r}", f"Suffixes -> Suffix Suffixes {go!r}"]
+    lines += [f"{a} -> Char Chars {spelled * grow!r}" for a in morphs]
     if submorphs:
         built = SUBMORPH_BUILT
-        lines += [f"{a} -> SubMorph {rest} {built * odds!r}" for a in ("Stem", "Suffix")
+        lines += [f"{a} -> SubMorph {rest} {built * odds!r}" for a in morphs
                   for rest, odds in (("SubMorph", stop), ("SubMorphs", go))]
         lines += [f"SubMorphs -> SubMorph SubMorph {stop!r}",
                   f"SubMorphs -> SubMorph SubMorphs {go!r}", f"SubMorph -> Char Chars {grow!r}"]
     lines.append(f"Chars -> Char Chars {grow!r}")
     for c in chars:
-        lines += [f"{a} -> {quote(c)} {spelled * end * one!r}" for a in ("Stem", "Suffix")]
+        lines += [f"{a} -> {quote(c)} {spelled * end * one!r}" for a in morphs]
         if submorphs:
             lines.append(f"SubMorph -> {quote(c)} {end * one!r}")
         lines += [f"Chars -> {quote(c)} {end * one!r}", f"Char -> {quote(c)} {one!r}"]

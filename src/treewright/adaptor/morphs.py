@@ -40,7 +40,14 @@ from treewright.word_pieces import written_forms
 
 PUNCT = frozenset({"PUNCT"})
 MORPH_SYMBOLS = ("Stem", "Suffix")  # the units of `grammars.morph_grammar` (adapted)
+PREFIX = "Prefix"  # a unit too, with `morph_grammar(prefixes=True)`
 SUBMORPH = "SubMorph"  # the pieces they may be built of, with `morph_grammar(submorphs=True)`
+
+
+def morph_units(names: Sequence[str]) -> tuple[str, ...]:
+    """The unit symbols of a morph grammar whose symbols are `names`: Prefix when it has one,
+    Stem and Suffix (its segmentation cuts at their edges)."""
+    return tuple(a for a in (PREFIX,) if a in names) + MORPH_SYMBOLS
 
 
 @dataclass(frozen=True)
@@ -126,13 +133,16 @@ def baseline_scores(gold: Sequence[Sequence[str]]) -> dict[str, SegmentationScor
 
 def morph_cuts(tree: Tree, symbols: Sequence[int], chars: Sequence[str]) -> list[str]:
     """The morphs an analysis gives: `chars` cut at every edge of a top-most node of any of
-    `symbols` (Stem and Suffix in `grammars.morph_grammar`)."""
+    `symbols` (Prefix, Stem and Suffix in `grammars.morph_grammar`)."""
     return cut(chars, boundaries(tree, symbols, len(chars)))
 
 
 def morph_segmentations(sampler: AdaptorSampler, chain: int = 0,
-                        symbols: Sequence[str] = MORPH_SYMBOLS) -> list[list[str]]:
-    """Each written word of `sampler` cut into morphs by chain `chain`'s analysis."""
+                        symbols: Sequence[str] | None = None) -> list[list[str]]:
+    """Each written word of `sampler` cut into morphs by chain `chain`'s analysis, at the edges
+    of `symbols` (default: the grammar's `morph_units`)."""
+    if symbols is None:
+        symbols = morph_units(sampler.rules.names)
     ids = [sampler.rules.names.index(s) for s in symbols]
     return [morph_cuts(t, ids, w) for t, w in zip(sampler.trees(chain), sampler.words)]
 

@@ -56,7 +56,7 @@ class BoundaryTally:
 
     def record(self, sampler: AdaptorSampler, symbols: Sequence[str]) -> None:
         """Add the current analysis of every chain of `sampler` (one sample each), cut at the
-        edges of the top-most subtrees of `symbols` (Word; Stem and Suffix for morphs)."""
+        edges of the top-most subtrees of `symbols` (Word; Prefix, Stem and Suffix for morphs)."""
         if [max(len(w) - 1, 0) for w in sampler.words] != [len(c) for c in self.counts]:
             raise ValueError("the sampler's utterances are not those of this tally")
         ids = []

@@ -23,11 +23,12 @@ with `sampler.cut_rule: expected-f1` when as many cut it as the threshold with t
 expected boundary F1 asks (`posterior.BoundaryTally`); with `sampler.samples: 0` it is the
 reported chain's last state.
 
-With grammar.unit morphs each input is one word and the grammar cuts it into a stem and
-suffixes (`grammars.morph_grammar`): the segmentation cuts at the edges of the Stem and Suffix
-subtrees, metrics.jsonl has cached_Stem, cached_Suffix and each one's discount_ and
-concentration_ in place of Word's, and lexicon.tsv starts each line with the symbol (Stem or
-Suffix). With grammar.submorphs (the default) a stem or suffix may be built of cached SubMorph
+With grammar.unit morphs each input is one word and the grammar cuts it into prefixes (with
+grammar.prefixes, the default), a stem and suffixes (`grammars.morph_grammar`): the
+segmentation cuts at the edges of the Prefix, Stem and Suffix subtrees, metrics.jsonl has
+cached_Prefix, cached_Stem, cached_Suffix and each one's discount_ and concentration_ in place
+of Word's, and lexicon.tsv starts each line with the symbol (Prefix, Stem or Suffix). With
+grammar.submorphs (the default) a prefix, stem or suffix may be built of cached SubMorph
 pieces, whose cache is reported beside them (cached_SubMorph, lexicon lines starting SubMorph);
 their edges are not cuts. With data.format conllu the inputs are the distinct written words of
 a CoNLL-U file (`morphs.read_written_words`), one line each in segmentation.txt in order of
@@ -45,8 +46,8 @@ from typing import TextIO
 
 from treewright.adaptor.config import SegmentConfig, load_segment_config
 from treewright.adaptor.grammars import morph_grammar, unigram_word_grammar
-from treewright.adaptor.morphs import (MORPH_SYMBOLS, SUBMORPH, WrittenWords, baseline_scores,
-                                       by_type, morph_segmentations, read_written_words)
+from treewright.adaptor.morphs import (SUBMORPH, WrittenWords, baseline_scores, by_type,
+                                       morph_segmentations, morph_units, read_written_words)
 from treewright.adaptor.posterior import BoundaryTally, recorded_sweeps
 from treewright.adaptor.sampler import AdaptorSampler, annealing
 from treewright.adaptor.segment import Utterances, characters, read_utterances
@@ -83,7 +84,8 @@ def segment_words(cfg: SegmentConfig, run_dir: str | Path, stream: TextIO | None
         raise InputError("no utterances (the file is empty or blank)", path=str(cfg.data.text))
     g = cfg.grammar
     grammar = morph_grammar(chars, g.discount, g.concentration, g.more_suffixes,
-                            g.more_characters, g.submorphs) if g.unit == "morphs" else \
+                            g.more_characters, g.submorphs, g.prefixes,
+                            g.more_prefixes) if g.unit == "morphs" else \
         unigram_word_grammar(chars, g.discount, g.concentration, g.more_words,
                              g.more_characters)
     folder.note(f"initializing {cfg.sampler.chains} chain(s)", stream)
@@ -166,9 +168,10 @@ def _read_inputs(cfg: SegmentConfig, folder: RunFolder, stream: TextIO | None
     return corpus, None
 
 
-def _symbols(cfg: SegmentConfig) -> tuple[str, ...]:
-    """The adapted symbols whose top-most subtrees are the units the run cuts into."""
-    return MORPH_SYMBOLS if cfg.grammar.unit == "morphs" else (WORD,)
+def _symbols(cfg: SegmentConfig, sampler: AdaptorSampler) -> tuple[str, ...]:
+    """The adapted symbols whose top-most subtrees are the units the run cuts into (read from
+    the sampler's grammar, so that a run resumed from a checkpoint cuts what it samples)."""
+    return morph_units(sampler.rules.names) if cfg.grammar.unit == "morphs" else (WORD,)
 
 
 def _adapted(cfg: SegmentConfig, sampler: AdaptorSampler) -> tuple[str, ...]:
@@ -176,8 +179,8 @@ def _adapted(cfg: SegmentConfig, sampler: AdaptorSampler) -> tuple[str, ...]:
     SubMorph when the sampler's grammar has it (read from the sampler, so that a run resumed
     from a checkpoint of a grammar without it reports what it samples)."""
     has = sampler.rules.names
-    return _symbols(cfg) + tuple(a for a in (SUBMORPH,) if cfg.grammar.unit == "morphs"
-                                 and a in has)
+    return _symbols(cfg, sampler) + tuple(a for a in (SUBMORPH,)
+                                          if cfg.grammar.unit == "morphs" and a in has)
 
 
 def _recorded(cfg: SegmentConfig) -> list[int]:
@@ -204,7 +207,7 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
                             hyperparameters=cfg.sampler.resample_hyperparameters)
                 done += 1
                 if done in recorded:
-                    tally.record(sampler, _symbols(cfg))
+                    tally.record(sampler, _symbols(cfg, sampler))
                 if done % cfg.sampler.score_every == 0 or done == total:
                     metrics = _metrics(cfg, corpus, sampler, before)
                     metrics["temperature"] = temperature(done - 1)
@@ -214,7 +217,7 @@ def _run(cfg: SegmentConfig, folder: RunFolder, corpus: Utterances,
                 progress.update(1)
     finally:
         loggers.close()
-    symbols = _symbols(cfg)
+    symbols = _symbols(cfg, sampler)
     best, joints = best_chain(sampler)
     if len(joints) > 1:
         folder.note(f"reporting chain {best} of {len(joints)}, the highest log joint "
@@ -295,7 +298,7 @@ def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
     if len(joints) > 1:
         out["chain"] = best
         out.update((f"log_joint_chain{c}", j) for c, j in enumerate(joints))
-    symbols = _symbols(cfg)
+    symbols = _symbols(cfg, sampler)
     for name in _adapted(cfg, sampler):
         a = sampler.rules.names.index(name)
         suffix = "" if symbols == (WORD,) else f"_{name}"
@@ -306,7 +309,7 @@ def _metrics(cfg: SegmentConfig, corpus: Utterances, sampler: AdaptorSampler,
         proposed = chain.proposed - before[best][0]
         out["accept_rate"] = (chain.accepted - before[best][1]) / proposed if proposed else 0.0
     if cfg.data.gold:
-        scores = evaluate_segmentation(morph_segmentations(sampler, best, _symbols(cfg)),
+        scores = evaluate_segmentation(morph_segmentations(sampler, best, symbols),
                                        corpus.gold, str(cfg.data.text))
         out["token_f1"] = scores.tokens.f1
         out["boundary_f1"] = scores.boundaries.f1

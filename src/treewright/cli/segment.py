@@ -11,7 +11,8 @@ EXAMPLES = """examples:
   treewright segment --resume runs/seg500
   treewright segment configs/segment_morphs.yaml
 
-With grammar.unit morphs each line is one word, cut into a stem and suffixes; with
+With grammar.unit morphs each line is one word, cut into prefixes, a stem and suffixes
+(grammar.prefixes=false: a stem and suffixes only); with
 data.format conllu the words are the distinct written words of a CoNLL-U file, and the tokens
 each is written as are its gold morphs.
 
