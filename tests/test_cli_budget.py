@@ -134,6 +134,29 @@ def test_parse_from_stdin_keeps_blank_lines(tmp_path, capsys, monkeypatch):
     assert capsys.readouterr().out == f"\n{BEST_TREE}\n\n"
 
 
+def test_stdin_refuses_conllu_and_warns_of_trees(capsys, monkeypatch):
+    # Standard input is raw text. A CoNLL-U block there would become sentences of ids and
+    # columns, so it is refused, naming the first word line (line 2, after the comment).
+    words = SENTENCE.split()
+    block = "# sent_id = 1\n" + "".join(f"{k}\t{w}\t_\t_\t_\t_\t_\t_\t_\t_\n"
+                                      for k, w in enumerate(words, start=1))
+    monkeypatch.setattr("sys.stdin", io.StringIO(block))
+    assert main(["parse", str(TEXTBOOK), "-"]) != 0
+    err = capsys.readouterr().err
+    assert "<stdin>, line 2" in err and "give the CoNLL-U file's path" in err
+    # A bracketed tree is still read as raw text (a sentence may start with a parenthesis),
+    # with a warning that names its line; its brackets are words the grammar does not have.
+    monkeypatch.setattr("sys.stdin", io.StringIO(f"\n{BEST_TREE}\n"))
+    assert main(["parse", str(TEXTBOOK), "-"]) == 0
+    captured = capsys.readouterr()
+    assert "<stdin>, line 2: this looks like a bracketed tree" in captured.err
+    assert captured.out.splitlines()[1].startswith("(NOPARSE")
+    # Raw text that only starts with a parenthesis is read without a word.
+    monkeypatch.setattr("sys.stdin", io.StringIO(f"( {SENTENCE}\n"))
+    main(["parse", str(TEXTBOOK), "-"])
+    assert "looks like" not in capsys.readouterr().err
+
+
 def test_evaluate_and_report_leave_out_and_name_the_long_sentence(grammar, tmp_path, capsys):
     (tmp_path / "text.txt").write_text(f"{SENTENCE}\n{LONG}\n")
     (tmp_path / "t.trees").write_text(BEST_TREE + "\n")

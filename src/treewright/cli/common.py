@@ -36,10 +36,11 @@ def read_sentences(path: str, tags: bool = False) -> list[tuple[int, list[str]]]
 
 def read_lines(path: str, tags: bool = False) -> list[tuple[int, list[str]]]:
     """(line number, tokens) of every record of `path`, so that output can keep one line per
-    record: every line of raw text ('-' reads stdin as raw text), blank lines included with no
-    tokens; each tree of a bracketed file and each sentence block of a CoNLL-U file (format
-    by `corpus.detect_format`), numbered by its first line, with its words as evaluation reads
-    gold (`corpus.read_records`), or with `tags` its tags (preterminals, UPOS).
+    record: every line of raw text ('-' reads stdin as raw text, and refuses CoNLL-U there),
+    blank lines included with no tokens; each tree of a bracketed file and each sentence block
+    of a CoNLL-U file (format by `corpus.detect_format`), numbered by its first line, with its
+    words as evaluation reads gold (`corpus.read_records`), or with `tags` its tags
+    (preterminals, UPOS).
 
     Lines are numbered as the corpus readers number them (\n, \r\n and a lone \r end a line),
     so a message about line k means the same line everywhere. Raises InputError when no line
@@ -50,6 +51,7 @@ def read_lines(path: str, tags: bool = False) -> list[tuple[int, list[str]]]:
         numbered = list(enumerate(text.split("\n"), start=1))
         if text.endswith("\n"):
             numbered.pop()  # the empty "line" after a final newline is not a line of the input
+        _check_raw_stdin(numbered)
     else:
         from treewright.corpus import ReadOptions, detect_format, iter_lines, read_records
         name = path
@@ -61,6 +63,28 @@ def read_lines(path: str, tags: bool = False) -> list[tuple[int, list[str]]]:
     if not any(words for _, words in out):
         raise InputError("no sentences (the input is empty or blank)", path=name)
     return out
+
+
+def _check_raw_stdin(numbered: list[tuple[int, str]]) -> None:
+    """Standard input is read as raw text. Refuse CoNLL-U there (its word lines would become
+    sentences of ids and columns), naming the line, and warn when the first line looks like a
+    bracketed tree (a raw sentence may start with a parenthesis)."""
+    from treewright.corpus.reader import starts_conllu_sentence
+    first = next(((k, line) for k, line in numbered
+                  if line.strip() and not line.startswith("#")), None)
+    if first is None:
+        return
+    k, line = first
+    if starts_conllu_sentence(line):
+        raise InputError("this looks like a CoNLL-U word line; standard input is read as raw "
+                         "text (one sentence per line), so give the CoNLL-U file's path "
+                         "instead", path="<stdin>", line=k)
+    stripped = line.strip()
+    if stripped.startswith("(") and stripped.endswith(")") and \
+            stripped.count("(") == stripped.count(")") >= 2:
+        print(f"<stdin>, line {k}: this looks like a bracketed tree; standard input is read "
+              "as raw text (one sentence per line, brackets as words), so give the file's "
+              "path to read its trees", file=sys.stderr)
 
 
 def trained_on_tags(source) -> bool:

@@ -77,8 +77,9 @@ DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus", "lexicalized
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
-    p.add_argument("text", help="raw text, one sentence per line ('-': stdin); or bracketed "
-                                "trees or CoNLL-U, one sentence per tree or block")
+    p.add_argument("text", help="raw text, one sentence per line ('-': stdin, raw text only); "
+                                "or a file of bracketed trees or CoNLL-U, one sentence per tree "
+                                "or block")
     p.add_argument("--decoder", choices=DECODER_NAMES, default=None,
                    help="how the tree is chosen (default: consensus for a run folder that "
                         "saved two or more restarts, mbr for a run of factored rules, else "

@@ -37,7 +37,8 @@ SCORE_GROUP = 1024  # sentences between two updates of the progress bar, for a f
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("grammar", help="grammar: a grammar text file, a JSON export or a run folder")
     p.add_argument("text", help="raw text, one sentence per line, whitespace tokens ('-': "
-                                "stdin); or bracketed trees or CoNLL-U, one sentence per record")
+                                "stdin, raw text only); or a file of bracketed trees or "
+                                "CoNLL-U, one sentence per record")
     p.add_argument("--batch-size", type=int, default=64)
     p.add_argument("--float64", action="store_true", help="compute in double precision")
     add_budget_argument(p)
