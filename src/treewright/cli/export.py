@@ -68,12 +68,12 @@ def run(args) -> int:
 
     from treewright.cli.common import (input_name, no_parse_reason, read_lines, read_sentences,
                                        training_normaliser)
+    from treewright.corpus import detect_format
     from treewright.errors import InputError
     from treewright.export import load_renaming, open_grammar, prune, rename_grammar
     from treewright.export.jsonformat import grammar_json_text
     from treewright.export.listing import (DEFAULT_THRESHOLD, DEFAULT_TOP, expected_counts,
                                            format_listing, summarize)
-    from treewright.corpus import detect_format
     from treewright.export.parses import (fill_parsed_conllu, head_rule, parse_corpus,
                                           to_brackets, to_conllu)
     from treewright.run_configs import is_segment_run
