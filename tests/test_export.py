@@ -326,6 +326,15 @@ def test_conllu_corpus_exports_back_line_for_line(velmar, tmp_path):
     again = tmp_path / "again.conllu"
     assert run_cli("export", velmar, "--to", "conllu", "--corpus", out, "--out", again)[0] == 0
     assert again.read_text() == out.read_text()
+    # A comment of an earlier export that no longer holds goes too: a sentence marked
+    # "parse = none" that parses now carries its tree and no such mark.
+    stale = tmp_path / "stale.conllu"
+    stale.write_text(VELMAR_CONLLU.replace("# note =", "# parse = none\n# note =", 1),
+                     encoding="utf-8")
+    fresh = tmp_path / "fresh.conllu"
+    assert run_cli("export", velmar, "--to", "conllu", "--corpus", stale, "--out", fresh)[0] == 0
+    first = conllu.parse(fresh.read_text())[0].metadata
+    assert "parse" not in first and first["induced_tree"] == ours[0].metadata["induced_tree"]
 
 
 def test_bracketed_output_keeps_every_sentence(velmar):

@@ -33,19 +33,21 @@ UNKNOWN = "_"
 
 def fill_heads_conllu(path: str | os.PathLike, heads: Sequence[Sequence[int] | None], *,
                       relations: tuple[str, str] | None = None,
-                      tags: Sequence[Sequence[str] | None] | None = None, tag_column: int = 4,
-                      comments: Sequence[Sequence[str]] | None = None) -> str:
+                      tags: Sequence[Sequence[str]] | None = None, tag_column: int = 4,
+                      comments: Sequence[Sequence[str]] | None = None,
+                      replaces: Sequence[str] = ()) -> str:
     """The CoNLL-U file at `path` with HEAD set from `heads` (one entry per sentence block, in
     order; None: no parse, HEAD `_`) and DEPREL `_` on every syntactic word; every other line
     and column as read (see the module docstring). Ends with a blank line.
 
     relations: (root, other), DEPREL of the word whose head is 0 and of every other word of a
         sentence with heads, instead of `_`.
-    tags: per sentence, a tag per syntactic word (None: `_` for each), written into the 0-based
-        column `tag_column` (UPOS 3, XPOS 4).
+    tags: per sentence, a tag per syntactic word, written into the 0-based column
+        `tag_column` (UPOS 3, XPOS 4).
     comments: per sentence, comment lines ("# key = value") written after the block's own
-        comments; an own comment with one of their keys is left out (so exporting an export
-        again replaces its comments rather than repeating them)."""
+        comments; an own comment with one of their keys, or with a key in `replaces`, is left
+        out (so exporting an export again replaces its comments rather than repeating or
+        contradicting them)."""
     name = os.fspath(path)
     starts = []
     for block in iter_conllu_blocks(iter_lines(name), name):
@@ -59,24 +61,23 @@ def fill_heads_conllu(path: str | os.PathLike, heads: Sequence[Sequence[int] | N
                          f"file; sentence {first + 1} has no partner", path=name, line=line)
     for index, ((line, n), h) in enumerate(zip(starts, heads)):
         _check(h, n, index, name, line)
-        mine = None if tags is None else tags[index]
-        if mine is not None and len(mine) != n:
-            raise InputError(f"sentence {index + 1}: {len(mine)} tags for {n} words",
+        if tags is not None and len(tags[index]) != n:
+            raise InputError(f"sentence {index + 1}: {len(tags[index])} tags for {n} words",
                              path=name, line=line)
     out: list[str] = []
     sentence, word = -1, 0
     in_block = False
     pending: list[str] = []      # this block's extra comments, written before its first word
 
+    def key(comment: str) -> str:
+        return comment[1:].partition("=")[0].strip()
+
     def replaced(comment: str) -> bool:
-        key = comment[1:].partition("=")[0].strip()
-        return any(key == c[1:].partition("=")[0].strip() for c in pending)
+        return key(comment) in replaces or any(key(comment) == key(c) for c in pending)
 
     for _, text in iter_lines(name):
         if not text.strip():
             in_block = False
-            out.extend(pending)  # (a block has a word, so this is empty; kept for safety)
-            pending = []
             out.append(text)
             continue
         if not in_block:
@@ -97,10 +98,9 @@ def fill_heads_conllu(path: str | os.PathLike, heads: Sequence[Sequence[int] | N
         fields[DEPREL] = UNKNOWN if mine is None or relations is None else \
             relations[0] if mine[word] == 0 else relations[1]
         if tags is not None:
-            fields[tag_column] = UNKNOWN if tags[sentence] is None else tags[sentence][word]
+            fields[tag_column] = tags[sentence][word]
         word += 1
         out.append("\t".join(fields))
-    out.extend(pending)
     if out and out[-1].strip():
         out.append("")  # CoNLL-U ends every sentence with a blank line, the last one included
     return "\n".join(out) + "\n"

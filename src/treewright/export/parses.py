@@ -247,7 +247,8 @@ def fill_parsed_conllu(path: str, parsed: Sequence[ParsedSentence], tag_column: 
     heads = [None if any(h is None for h in mine) else list(mine) for _, _, mine in induced]
     return fill_heads_conllu(path, heads, relations=(ROOT_RELATION, RELATION),
                              tags=[tags for _, tags, _ in induced], tag_column=where,
-                             comments=[comments for comments, _, _ in induced])
+                             comments=[comments for comments, _, _ in induced],
+                             replaces=("induced_tree", "head_rule", "parse"))
 
 
 def _tag_index(tag_column: str) -> int:
