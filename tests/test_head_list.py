@@ -61,6 +61,20 @@ def test_ud_function_names_the_function_tags_and_batches_carry_their_faded_bias(
                "take in training: -1.5 for 3" in note for note in data.notes)
 
 
+def test_batches_carry_the_faded_arc_length_weight(tmp_path):
+    # bias.arc_length fades with bias.anneal_epochs as the other biases do (linear from full
+    # strength to 0 at epoch 3, recomputed by hand), and a batch without it carries 0.
+    cfg = _config(tmp_path, "bias.arc_length=-1.2", "bias.anneal_epochs=3")
+    data = load_data(cfg)
+    curriculum = Curriculum(cfg, MemoryBudget(cfg, torch.float64), shuffle=False)
+    for epoch, want in ((0, -1.2), (1, -0.8), (2, -0.4), (3, 0.0), (5, 0.0)):
+        batch = curriculum.batch(data, [0, 1], epoch, torch.float64)
+        assert batch.arc_length == pytest.approx(want, abs=1e-15)
+        assert batch.head_bias is None
+    plain = Curriculum(_config(tmp_path), MemoryBudget(cfg, torch.float64), shuffle=False)
+    assert plain.batch(data, [0, 1], 0, torch.float64).arc_length == 0.0
+
+
 def test_ud_function_also_names_the_older_universal_tags(tmp_path):
     # A treebank tagged with the 12 tags of Petrov, Das & McDonald 2012 (as the Turkish
     # treebank of the benchmark is): CONJ and PRT are its conjunctions and particles.

@@ -392,6 +392,18 @@ def test_head_word_bias_weighs_the_dependents_of_listed_words(tmp_path):
             "unused; the log-weight of each dependent they take in training: -2 for 4") in log
 
 
+def test_arc_length_bias_weighs_long_dependencies_in_training(tmp_path):
+    # bias.arc_length adds its log-weight for every word between a dependent and its head, so
+    # with a negative weight the first update's objective, log sum_d p(d) exp(bias(d)), falls
+    # below the plain log sum_d p(d) (same start, same batch; strictly, as a sentence of three
+    # or more words has derivations with a dependency over a word). The weight's effect on
+    # log Z itself is checked against enumeration in tests/test_params_lexicalized.py.
+    headed.write_order("head-final", tmp_path, 60, 12, 8, 0)
+    steps = {name: [x["step/loglik_per_word"] for x in _step_metrics(tmp_path, name, extra)]
+             for name, extra in (("plain", []), ("local", ["bias.arc_length=-1"]))}
+    assert steps["local"][0] < steps["plain"][0] - 1e-6
+
+
 def test_head_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
     text = tmp_path / "t.txt"
     text.write_text("ka vo\nsi ka vo\n", encoding="utf-8")
@@ -402,6 +414,8 @@ def test_head_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
     cases = [
         (["model.parameterization=tabular", "train.method=em", "bias.head_weight=-1",
           f"bias.head_list={words}"], "bias.head_list: the head-word bias acts on heads"),
+        (["model.parameterization=tabular", "train.method=em", "bias.arc_length=-1"],
+         "bias.arc_length: the arc-length bias acts on dependencies"),
         (["bias.head_weight=-1"], "bias.head_weight weighs the words of bias.head_list"),
         (["bias.head_weight=-1", "bias.head_list=ud-function"], "data.tag_mode=true"),
         (["bias.head_list=ud-function", "data.tag_mode=true"],

@@ -4,6 +4,7 @@ end to end through `treewright train` on the demo text."""
 
 from __future__ import annotations
 
+import functools
 import itertools
 import json
 import math
@@ -238,6 +239,43 @@ def test_trains_through_the_command_on_the_demo_text(tmp_path):
         assert math.isclose(parse.score, brute["best_score"], abs_tol=1e-9)
         assert parse.heads == brute["best_heads"]
         assert is_projective_tree(parse.heads)
+
+
+def test_arc_length_bias_weighs_every_dependency_by_the_words_it_spans():
+    # Reference: every lexicalized tree enumerated (tests/_brute.py), each weighted by the
+    # model's rules and, for every dependency (a binary node: its head word h takes the
+    # dependent word dh), by the weight times the number of words strictly between h and dh,
+    # the locality bias of Smith & Eisner 2006 (bias.arc_length). Also under deterministic
+    # annealing, where a derivation (its tree and the latent class at each node) weighs
+    # p(d)^beta, the bias included.
+    from _brute import lexicalized_trees
+    model = _model()
+    ids = torch.tensor([[0, 3, 1, 4], [2, 2, 0, 0], [1, 0, 4, 0]])
+    lengths = torch.tensor([4, 2, 3])
+    weight = -0.9
+    for beta in (1.0, 0.5):
+        with torch.no_grad():
+            logz, _ = model.log_partition(ids, lengths, arc_length=weight, beta=beta)
+            plain, _ = model.log_partition(ids, lengths, beta=beta)
+            f = model.factors(ids, lengths)
+        for b, n in enumerate(lengths.tolist()):
+            node = functools.lru_cache(maxsize=None)(
+                lambda h, a, side, hsym, dsym, dh: float(torch.logsumexp(beta * (
+                    f.head[b, h, a] + f.head_child[:, side, hsym] + f.dep_child[:, dsym]
+                    + f.dep_word[b, dh]), 0)))
+            terms = []
+            for a, h, nodes, _ in lexicalized_trees(n, model.nonterminals, model.preterminals):
+                logp = beta * float(f.root[b, h, a])
+                for i, j, a_, h_, side, hsym, dsym, dh in nodes:
+                    logp += node(h_, a_, side, hsym, dsym, dh)
+                    logp += beta * weight * (abs(h_ - dh) - 1)
+                terms.append(logp)
+            want = float(torch.logsumexp(torch.tensor(terms, dtype=torch.float64), 0)) / beta
+            assert math.isclose(float(logz[b]), want, rel_tol=0, abs_tol=1e-9)
+            if n > 2:   # two words are always neighbours: the bias is a no-op there alone
+                assert abs(float(logz[b]) - float(plain[b])) > 1e-3
+            else:
+                assert math.isclose(float(logz[b]), float(plain[b]), rel_tol=0, abs_tol=1e-12)
 
 
 def test_decode_heads_reports_a_sentence_it_cannot_parse():

@@ -139,11 +139,21 @@ def _windows(x: Tensor, width: int) -> Tensor:
     return x.unfold(1, width, 1).permute(0, 1, x.dim(), *range(2, 2 + rest))
 
 
+def _offsets(width: int, weight: float, like: Tensor, from_right: bool) -> Tensor:
+    """(1, 1, width, 1): `weight` times the number of words between each position of a span
+    of `width` and the span's right edge (`from_right`) or left edge, the position excluded."""
+    count = torch.arange(width, dtype=like.dtype, device=like.device)
+    if from_right:
+        count = width - 1 - count
+    return (weight * count)[None, None, :, None]
+
+
 def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, semiring: str,
-            pots: dict[int, Tensor] | None = None, head_pot: Tensor | None = None) -> Tensor:
+            pots: dict[int, Tensor] | None = None, head_pot: Tensor | None = None,
+            arc_length: float = 0.0) -> Tensor:
     """(B,) log Z (or the best derivation's log score) of the batch; `pots[w]`, shaped like the
     width-w chart (B, P, w, K), is added to its cells (for marginals and Viterbi by gradient);
-    `head_pot` as `lexicalized_log_partition` takes it."""
+    `head_pot` and `arc_length` as `lexicalized_log_partition` takes them."""
     B, N, NT, R = f.head.shape
     S = f.root.shape[-1]
     T = S - NT
@@ -152,6 +162,13 @@ def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, sem
     left_role: dict[int, Tensor] = {}   # w -> (B, P, w, R)  L: the span as a left head child
     right_role: dict[int, Tensor] = {}  # w -> (B, P, w, R)  Rt: as a right head child
     dependent: dict[int, Tensor] = {}   # w -> (B, P, R)     D: as a dependent, head summed out
+    # With an arc-length weight the dependent role differs by side: the words between a
+    # dependent and its head split at the boundary of the two children, (words from the
+    # dependent to its own span's edge) + (words from the head to the head child's edge), so
+    # each child carries its own part and the pass stays O(n^4 R).
+    dependent_left: dict[int, Tensor] = dependent   # as the left child of a head-right rule
+    if arc_length != 0.0:
+        dependent_left = {}
     for w in range(1, N + 1):
         P = N - w + 1
         if w == 1:
@@ -161,7 +178,10 @@ def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, sem
             candidates = []
             for u in range(1, w):   # left child [i, i+u), right child [i+u, i+w)
                 head_left = left_role[u][:, 0:P] + dependent[w - u][:, u:u + P, None, :]
-                head_right = right_role[w - u][:, u:u + P] + dependent[u][:, 0:P, None, :]
+                head_right = right_role[w - u][:, u:u + P] + dependent_left[u][:, 0:P, None, :]
+                if arc_length != 0.0:   # words from the head to its child's inner edge
+                    head_left = head_left + _offsets(u, arc_length, head_left, True)
+                    head_right = head_right + _offsets(w - u, arc_length, head_right, False)
                 candidates.append(torch.cat([head_left, head_right], 2))  # (B, P, w, R)
             z = _reduce(torch.stack(candidates, 2), 2, semiring)          # (B, P, w, R)
             cells = _contract(z, _windows(f.head, w), semiring)           # (B, P, w, NT)
@@ -177,7 +197,14 @@ def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, sem
             left_role[w] = _contract(cells, f.head_child[:, 0, symbols], semiring)
             right_role[w] = _contract(cells, f.head_child[:, 1, symbols], semiring)
             as_dependent = _contract(cells, f.dep_child[:, symbols], semiring)   # (B, P, w, R)
-            dependent[w] = _reduce(as_dependent + _windows(f.dep_word, w), 2, semiring)
+            as_dependent = as_dependent + _windows(f.dep_word, w)
+            if arc_length == 0.0:
+                dependent[w] = _reduce(as_dependent, 2, semiring)
+            else:   # words from the dependent to its span's inner edge, on either side
+                dependent[w] = _reduce(as_dependent + _offsets(w, arc_length, cells, False),
+                                       2, semiring)
+                dependent_left[w] = _reduce(as_dependent + _offsets(w, arc_length, cells, True),
+                                            2, semiring)
     scores = []
     for b, n in enumerate(lengths.tolist()):
         if n == 1:
@@ -190,17 +217,23 @@ def _inside(f: LexicalizedFactors, lengths: Tensor, span_pot: Tensor | None, sem
 
 def lexicalized_log_partition(factors: LexicalizedFactors, lengths: Tensor,
                               span_pot: Tensor | None = None,
-                              head_pot: Tensor | None = None) -> Tensor:
+                              head_pot: Tensor | None = None,
+                              arc_length: float = 0.0) -> Tensor:
     """(B,) log Z of each sentence, differentiable with respect to every factor.
 
     lengths (B,) sentence lengths (<= N); span_pot (B, N+1, N+1) [b, start, width], optional
     log-potentials added to every constituent of width >= 2 (as in `engine.inside`); head_pot
     (B, N+1, N+1, N) [b, start, width, head - start], optional log-potentials added to every
     constituent of width >= 2 headed by that word (-inf forbids the pair: a sum over the
-    derivations whose constituents and heads are allowed, e.g. only those of known heads). A
-    sentence with no parse gets -inf and zero gradients.
+    derivations whose constituents and heads are allowed, e.g. only those of known heads).
+    arc_length, a log-weight added for every word that lies between a dependent and its head,
+    summed over the derivation's arcs (negative: short dependencies weigh more, the locality
+    bias of Smith & Eisner 2006, "Annealing Structural Bias in Multilingual Weighted Grammar
+    Induction"); adjacent words cost nothing. A sentence with no parse gets -inf and zero
+    gradients.
     """
-    return _inside(factors, torch.as_tensor(lengths), span_pot, "log", head_pot=head_pot)
+    return _inside(factors, torch.as_tensor(lengths), span_pot, "log", head_pot=head_pot,
+                   arc_length=arc_length)
 
 
 def _cell_potentials(factors: LexicalizedFactors) -> dict[int, Tensor]:

@@ -161,18 +161,22 @@ class LexicalizedParams(EmbeddingParams):
 
     def log_partition(self, ids: Tensor, lengths: Tensor, span_pot: Tensor | None = None,
                       generator: torch.Generator | None = None, beta: float = 1.0,
-                      head_bias: Tensor | None = None) -> tuple[Tensor, None]:
+                      head_bias: Tensor | None = None,
+                      arc_length: float = 0.0) -> tuple[Tensor, None]:
         """(B,) log p(x_b) under the lexicalized model, with gradient; no KL term. With
         beta < 1, (1/beta) log sum_d p(d)^beta instead, whose gradient is the expected gradient
         of log p(d) under the annealed posterior (`LexicalizedFactors.tempered`). `head_bias`
         (B, N) adds, for every binary node, the log-weight of its head word's position: a
         binary node is where its head word takes one dependent, so a derivation gains the
-        bias of each word times the number of its dependents (`bias.head_list`)."""
+        bias of each word times the number of its dependents (`bias.head_list`).
+        `arc_length` adds its log-weight for every word between a dependent and its head
+        (`bias.arc_length`; `engine.lexicalized.lexicalized_log_partition`)."""
         factors = self.factors(ids, lengths)
         if head_bias is not None:
             factors = factors._replace(head=factors.head + head_bias[:, :, None, None])
         factors = factors.tempered(beta)
-        return lexicalized_log_partition(factors, lengths, span_pot=span_pot) / beta, None
+        return lexicalized_log_partition(factors, lengths, span_pot=span_pot,
+                                         arc_length=arc_length * beta) / beta, None
 
     def scorer(self, rules=None) -> "LexicalizedScorer":
         """Dev scores of the lexicalized model (`rules`, the back-off grammar, unused)."""

@@ -252,6 +252,12 @@ class BiasConfig:
               "fades the edge bias. null: no list.")
     head_weight: float = option(
         0.0, "The log-weight of the words of bias.head_list that give none of their own.")
+    arc_length: float = option(
+        0.0, "Lexicalized: log-weight added during training for every word that lies between "
+             "a dependent and its head, summed over a tree's dependencies (the locality bias of "
+             "Smith & Eisner 2006). Negative favours short dependencies, on either side alike; "
+             "neighbouring words cost nothing. bias.anneal_epochs fades it out as it fades the "
+             "edge bias. 0 is no bias.")
     anneal_epochs: int = option(
         0, "Scale the bias linearly from full strength at epoch 0 down to zero at this epoch, "
            "so that the end of training is unbiased; 0 keeps it for the whole run.",
@@ -356,6 +362,9 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if b.head_list is not None and cfg.model.parameterization != "lexicalized":
         bad("bias.head_list", "the head-word bias acts on heads, which only "
                               "model.parameterization=lexicalized has")
+    if b.arc_length != 0 and cfg.model.parameterization != "lexicalized":
+        bad("bias.arc_length", "the arc-length bias acts on dependencies, which only "
+                               "model.parameterization=lexicalized has")
     if b.head_weight != 0 and b.head_list is None:
         bad("bias.head_weight", "bias.head_weight weighs the words of bias.head_list: a file "
                                 "of words, or 'ud-function' for the function tags of "

@@ -82,7 +82,7 @@ class Curriculum:
               dtype: torch.dtype) -> Batch:
         """The engine batch of training sentences `indices` at `epoch`: partial brackets, the
         word-piece constraint and the edge bias as span potentials, the head-word bias as head
-        potentials."""
+        potentials, the arc-length bias as its weight."""
         pieces = data.pieces if self.pieces_on(epoch) else None
         brackets = data.brackets if self.brackets_on(epoch) else None
         batch = make_batch(indices, data.train_ids, brackets, dtype, pieces)
@@ -98,4 +98,6 @@ class Curriculum:
             weights = data.head_list[batch.ids.clamp(min=0)].masked_fill(
                 (batch.ids < 0) | past, 0.0)
             batch.head_bias = (weights * scale).to(dtype)
+        if scale > 0 and b.arc_length != 0:
+            batch.arc_length = scale * b.arc_length
         return batch

@@ -41,6 +41,8 @@ class Batch:
     span_pot: Tensor | None     # (B, N+1, N+1) 0 or -inf per span [start, width]; None: free
     head_bias: Tensor | None = None   # (B, N) lexicalized: log-weight of each dependent the
                                       # word at each position takes (bias.head_list)
+    arc_length: float = 0.0           # lexicalized: log-weight of each word between a
+                                      # dependent and its head (bias.arc_length)
 
     @property
     def words(self) -> int:

@@ -55,6 +55,8 @@ class Gradient(UpdateMethod):
             extra = {} if beta == 1.0 else {"beta": beta}    # lexicalized only (config check)
             if batch.head_bias is not None:                    # lexicalized only, too
                 extra["head_bias"] = batch.head_bias
+            if batch.arc_length != 0.0:                        # lexicalized only, too
+                extra["arc_length"] = batch.arc_length
             logz, kl = self.model.log_partition(batch.ids, batch.lengths, batch.span_pot,
                                                 gen, **extra)                 # (B,), (B,)
         else:
