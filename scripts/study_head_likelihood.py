@@ -19,7 +19,8 @@ batches:
 
 Training maximizes the likelihood summed over what each condition allows, by gradient steps
 (Adam, batches of 16 sentences of similar length, linear warm-up over 20 updates and a cosine
-decay, as `configs/induce_lexicalized.yaml` trains). Then, on the test sentences, each model is
+decay, as `configs/induce_lexicalized.yaml` trains, but without its `bias.arc_length`: the
+question is what the likelihood alone prefers). Then, on the test sentences, each model is
 scored with nothing fixed: log p(sentence) per word (the model's own likelihood, heads and
 trees summed out) and the directed and undirected attachment of its best derivation's heads
 (`evaluation.evaluate_attachment`, punctuation out as `treewright evaluate` takes it out). If
