@@ -52,9 +52,9 @@ brackets as the others are, by MBR over its own span posteriors (heads summed ou
 own log p(sentence) for perplexity. Where the gold has heads (turkish: the CoNLL-U HEAD column;
 head-final, head-initial: the true heads of `scripts/make_headed_language.py`, from the head mark
 of every phrase rule) its best derivation's heads (`decode.decode_heads`) are also scored by
-directed and undirected attachment (`evaluation.evaluate_attachment`, punctuation taken out as
-for brackets) beside the left and right chains, in a second table per eval set. The lexicalized
-model trains one restart (`--restarts` is for the other rows), for `--lexicalized-epochs`.
+directed, undirected and NED attachment (`evaluation.evaluate_attachment`, punctuation taken
+out as for brackets) beside the left and right chains, in a second table per eval set. The
+lexicalized model trains one restart (`--restarts` is for the other rows), for `--lexicalized-epochs`.
 Its config is staged (configs/induce_lexicalized.yaml): it takes the trees of the em row of the
 same seed (the consensus of its restarts) as partial brackets (`constraints.brackets_from`), so
 asking for the lexicalized row runs the em row first and reports it too, unless an `--override
@@ -430,7 +430,7 @@ def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16) -> dict:
     """The lexicalized model's scores on one set: brackets by MBR over its own span posteriors
     (heads summed out) and perplexity from its own log p(sentence), as `score_spans` scores the
     other rows; with gold heads, `attachment` (model and both chains: directed, undirected,
-    words) from the heads of its best derivations, and `attachment_counts`."""
+    NED, words) from the heads of its best derivations, and `attachment_counts`."""
     from treewright.decode import decode_heads
     from treewright.params import symbol_names
     model, vocab = trainer.model, trainer.data.vocab
@@ -601,7 +601,7 @@ def summarise(runs: list[dict], evals: list[EvalSet]) -> dict:
                 "train_seconds": mean_sd([r["train_seconds"] for r in mine]),
                 "seeds": [r["seed"] for r in mine]}
             if all("attachment" in x for x in s):   # only rows with heads get these keys
-                for kind in ("directed", "undirected"):
+                for kind in ("directed", "undirected", "ned"):
                     out[name][ev.name][kind] = mean_sd([x["attachment"]["model"][kind]
                                                         for x in s])
     return out
@@ -652,13 +652,14 @@ def attachment_table(summary: dict, runs: list[dict], ev_name: str) -> str | Non
     chains = next(r["scores"][ev_name]["attachment"] for r in runs
                   if "attachment" in r["scores"][ev_name])
     words = chains["model"]["words"]
-    lines = [f"| system (attachment on {words} words) | directed | undirected |",
-             "|---|---|---|"]
-    lines += [f"| {method} | {_cell(e['directed'])} | {_cell(e['undirected'])} |"
-              for method, e in rows]
+    lines = [f"| system (attachment on {words} words) | directed | undirected | NED |",
+             "|---|---|---|---|"]
+    lines += [f"| {method} | {_cell(e['directed'])} | {_cell(e['undirected'])} | "
+              f"{_cell(e['ned'])} |" for method, e in rows]
     for key, title in (("left_chain", "left chain"), ("right_chain", "right chain")):
         c = chains[key]
-        lines.append(f"| {title} | {100 * c['directed']:.1f} | {100 * c['undirected']:.1f} |")
+        lines.append(f"| {title} | {100 * c['directed']:.1f} | {100 * c['undirected']:.1f} | "
+                     f"{100 * c['ned']:.1f} |")
     return "\n".join(lines)
 
 

@@ -381,9 +381,12 @@ def test_smoke_run_of_the_lexicalized_row_scores_attachment(tmp_path):
     assert lex["attachment"] == want
     row = result["summary"]["lexicalized"][name]
     assert row["directed"][0] == want["model"]["directed"]
+    assert row["ned"][0] == want["model"]["ned"]
     table = result["attachment_tables"][name]
     assert f"| lexicalized | {100 * want['model']['directed']:.1f} |" in table
-    assert f"| right chain | {100 * want['right_chain']['directed']:.1f} |" in table
+    r = want["right_chain"]
+    assert (f"| right chain | {100 * r['directed']:.1f} | {100 * r['undirected']:.1f} | "
+            f"{100 * r['ned']:.1f} |") in table
     assert set(result["attachment_tables"]) == {name}
 
 

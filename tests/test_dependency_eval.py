@@ -2,7 +2,9 @@
 
 References: small cases worked by hand in the comments; the chain baselines on the Turkish Web
 Treebank `web` section (PyPI turkish-treebanks, Apache-2.0; read here with the `conllu` package
-directly) against a plain count written in this file over the gold arcs as undirected edge sets;
+directly) against a plain count written in this file over the gold arcs as undirected edge sets
+(and, for NED, over each word's gold parent and grandparent, as Schwartz, Abend, Reichart &
+Rappoport 2011 define it; the definition from memory);
 scikit-learn's `accuracy_score` over the flattened head lists for directed accuracy. Toy words
 are Kethravi (the invented demo language).
 """
@@ -43,8 +45,10 @@ def test_hand_worked_model_and_chains():
     #   of 2 is 5, not 4); w5 2 vs 0 wrong, undirected right (gold head of 2 is 5).
     # Model S2: w1 3 = 3 right (a gold head that is punctuation is scored as it stands),
     #   w2 4 = 4, w4 0 = 0: 3 right.
-    # Directed 3/7, undirected 5/7.
+    # Directed 3/7, undirected 5/7. NED adds no word here: S1 w1's gold grandparent is 5
+    #   (head 0 predicted), w4's is the root (head 2 predicted). 5/7.
     assert (model.directed_correct, model.undirected_correct, model.words) == (3, 5, 7)
+    assert (model.ned_correct, model.ned) == (5, pytest.approx(5 / 7))
     assert model.directed == pytest.approx(3 / 7) and model.undirected == pytest.approx(5 / 7)
     # Left chain S1 over 1, 2, 4, 5: heads 0, 1, 2, 4. Directed none; undirected w2 (gold head
     #   of 1 is 2) and w5 (gold head of 4 is 5). S2 over 1, 2, 4: heads 0, 1, 2; undirected w4
@@ -53,6 +57,12 @@ def test_hand_worked_model_and_chains():
     # Right chain S1: heads 2, 4, 5, 0: w1, w4, w5 right, w2 wrong both (gold head of 4 is 5).
     #   S2: heads 2, 4, 0: w1 wrong both (gold head of 2 is 4), w2 and w4 right. 5/7 and 5/7.
     assert (right.directed_correct, right.undirected_correct) == (5, 5)
+    # NED of the chains. Left S1: only the undirected w2 and w5 (w1's head 0 is neither its
+    #   gold parent 2 nor its grandparent 5; w4's head 2 is neither 5 nor 0). Left S2: w4
+    #   undirected, and w1, whose head is the root and whose gold parent 4 is the root word:
+    #   its grandparent. 4/7. Right S1: w2's head 4 is neither 5 nor 0, so the directed 3;
+    #   right S2: w1's head 2 is neither 4 nor 0, so the directed 2. 5/7.
+    assert (left.ned_correct, right.ned_correct) == (4, 5)
     c = result.counts
     assert (c["read"], c["evaluated"], c["words_scored"], c["punctuation_words_not_scored"],
             c["gold_heads_past_punctuation"]) == (2, 2, 7, 3, 1)
@@ -179,12 +189,14 @@ def web():
 def direct_chain_counts(sentences, direction):
     """The chain baseline counted plainly: over the non-PUNCT word ids, each attached to its
     neighbour (previous for "left", next for "right"), the end one to 0; a word is right when
-    (word, head) is a gold arc, and right undirected when {word, head} is a gold arc's pair of
-    ends (the root arc as {word, 0})."""
-    directed = undirected = words = 0
+    (word, head) is a gold arc, right undirected when {word, head} is a gold arc's pair of
+    ends (the root arc as {word, 0}), and right by NED when head is the word's gold parent or
+    grandparent (the root as node 0) or a word whose gold parent it is."""
+    directed = undirected = ned = words = 0
     for s in sentences:
         arcs = {(k, h) for k, h in enumerate(s.heads, start=1)}
         edges = {frozenset(a) for a in arcs}
+        parent = dict(arcs)
         kept = [k for k, tag in enumerate(s.tags, start=1) if tag != "PUNCT"]
         if direction == "right":
             kept = kept[::-1]
@@ -193,7 +205,8 @@ def direct_chain_counts(sentences, direction):
             words += 1
             directed += (word, head) in arcs
             undirected += frozenset((word, head)) in edges
-    return directed, undirected, words
+            ned += head in (parent[word], parent.get(parent[word])) or parent.get(head) == word
+    return directed, undirected, ned, words
 
 
 def test_chains_on_turkish_match_a_direct_count(web):
@@ -206,7 +219,7 @@ def test_chains_on_turkish_match_a_direct_count(web):
     result = evaluate_attachment(None, web, conv)
     for name, direction in (("left_chain", "left"), ("right_chain", "right")):
         s = result.systems[name]
-        assert (s.directed_correct, s.undirected_correct, s.words) == \
+        assert (s.directed_correct, s.undirected_correct, s.ned_correct, s.words) == \
             direct_chain_counts(web, direction)
     # Turkish is head-final, so the right chain is the stronger baseline (from memory: the
     # usual picture for head-final languages); a sanity check, not the reference.
@@ -240,3 +253,28 @@ def test_directed_accuracy_matches_scikit_learn(web):
     # Against the gold itself, every word is right (the definition of accuracy).
     gold_self = evaluate_attachment([s.heads for s in sentences], sentences, conv)
     assert gold_self.systems["model"].directed == 1.0 == gold_self.systems["model"].undirected
+    assert gold_self.systems["model"].ned == 1.0
+
+
+def test_ned_forgives_a_change_of_head_convention():
+    # The case NED was made for (Schwartz, Abend, Reichart & Rappoport 2011, from memory): a
+    # function word and the content word of its phrase trade places as head. Kethravi
+    # "pirnak ma tullik" (a harbour at, arrived): gold with content heads, pirnak -> tullik,
+    # ma -> pirnak, tullik the root; predicted with the postposition as head, pirnak -> ma,
+    # ma -> tullik. w1: reversed arc (gold head of ma is pirnak): undirected and NED. w2: its
+    # predicted head tullik is its gold grandparent (ma -> pirnak -> tullik): NED only. w3: the
+    # root, right. Directed 1/3, undirected 2/3, NED 3/3.
+    gold = [Dependencies(("pirnak", "ma", "tullik"), (3, 1, 0), ("N", "POST", "VI"))]
+    model = evaluate_attachment([[2, 3, 0]], gold).systems["model"]
+    assert (model.directed_correct, model.undirected_correct, model.ned_correct) == (1, 2, 3)
+    # The same at the root: gold ko -> brosk (root), predicted brosk -> ko (root). w1's
+    # predicted head, the root, is its gold grandparent; w2's arc is w1's gold arc reversed.
+    # Directed 0/2, undirected 1/2, NED 2/2.
+    gold = [Dependencies(("ko", "brosk"), (2, 0), ("DET", "N"))]
+    model = evaluate_attachment([[0, 1]], gold).systems["model"]
+    assert (model.directed_correct, model.undirected_correct, model.ned_correct) == (0, 1, 2)
+    # A wrong head that is none of the three: w1 -> w3 where w1's gold parent is w2 and w2's
+    # gold parent is the root (gold 2, 0, 2; predicted 3, 0, 2).
+    gold = [Dependencies(("ko", "brosk", "ma"), (2, 0, 2), ("DET", "N", "POST"))]
+    model = evaluate_attachment([[3, 0, 2]], gold).systems["model"]
+    assert (model.directed_correct, model.undirected_correct, model.ned_correct) == (2, 2, 2)

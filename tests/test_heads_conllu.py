@@ -199,8 +199,8 @@ def test_left_chain_written_and_scored_on_turkish(tmp_path, capsys):
     assert run([pred, gold, "--punctuation-tags", "PUNCT", "--json", "-"]) == 0
     model = json.loads(capsys.readouterr().out)["attachment"]["systems"]["model"]
     # The plain count of tests/test_dependency_eval.py over the same sentences.
-    assert (model["directed_correct"], model["undirected_correct"], model["words"]) == \
-        direct_chain_counts(sentences, "left")
+    assert (model["directed_correct"], model["undirected_correct"], model["ned_correct"],
+            model["words"]) == direct_chain_counts(sentences, "left")
     # Every column but HEAD and DEPREL came through (the conllu package reads both files).
     for b, a in zip(conllu.parse(gold.read_text(encoding="utf-8")),
                     conllu.parse(pred.read_text(encoding="utf-8"))):

@@ -27,7 +27,8 @@ factored rules (model.parameterization independent, independent-neural or lowran
 its last restart) scores the text with its model, as `treewright score` does (no budget).
 
 Heads: when PRED is CoNLL-U (a .conllu/.conll file, or --pred-format conllu) its HEAD column is
-scored against the HEAD column of CoNLL-U gold: directed and undirected attachment accuracy,
+scored against the HEAD column of CoNLL-U gold: directed, undirected and NED (neutral edge
+direction: the gold head, a word the word heads, or its gold grandparent) attachment accuracy,
 beside the left chain (each word's head is the word before it, the first word is the root) and
 the right chain (the word after it; the last word is the root), on the same words. Punctuation
 follows the bracket options (--keep-punctuation, --punctuation-tags, --punctuation-tokens): it

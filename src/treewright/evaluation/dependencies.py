@@ -1,5 +1,6 @@
-"""Attachment scoring: directed and undirected accuracy of predicted heads against gold heads,
-beside the left-chain and right-chain baselines, on the same sentences and words.
+"""Attachment scoring: directed, undirected and neutral-edge-direction accuracy of predicted heads
+against gold heads, beside the left-chain and right-chain baselines, on the same sentences and
+words.
 
 Heads are given per word as in the CoNLL-U HEAD column: word k's head is a 1-based word index,
 0 for the root. `evaluate_attachment(pred, gold)` decides once per gold sentence which words are
@@ -12,7 +13,13 @@ Directed accuracy counts a word when its predicted head is its gold head. Undire
 counts it when its predicted arc joins the same two words as some gold arc, in either direction
 (Klein and Manning 2004, "Corpus-Based Induction of Syntactic Structure: Models of Dependency
 and Constituency", report both); an arc to the root joins the word to 0, so it matches only a
-gold arc to the root. Both are pooled over words: correct words / scored words.
+gold arc to the root. NED, neutral edge direction (Schwartz, Abend, Reichart & Rappoport 2011,
+"Neutralizing Linguistically Problematic Annotations in Unsupervised Dependency Parsing
+Evaluation"), counts a word y whose predicted head is x when x is y's gold head, when y is x's
+gold head (the arc reversed), or when x is y's gold grandparent, with the root as node 0 (x = 0
+and y's gold head a root word counts). It forgives what a change of annotation convention moves,
+such as which of a function word and its content word heads their phrase, which the text alone
+may not decide. Every score is pooled over words: correct words / scored words.
 
 Scores are fractions in [0, 1] in `to_dict()` and percentages in `format_table()`.
 """
@@ -44,9 +51,9 @@ class Dependencies:
 
 @dataclass(frozen=True)
 class AttachmentScores:
-    """Directed and undirected attachment accuracy of one system over the scored words.
+    """Directed, undirected and NED attachment accuracy of one system over the scored words.
 
-    directed, undirected: correct / words, None when no word was scored.
+    directed, undirected, ned: correct / words, None when no word was scored.
     """
 
     directed: float | None
@@ -54,6 +61,8 @@ class AttachmentScores:
     directed_correct: int
     undirected_correct: int
     words: int
+    ned: float | None
+    ned_correct: int
 
 
 @dataclass
@@ -82,10 +91,11 @@ class DependencyEvaluation:
         width = max(len(SYSTEM_TITLES[n]) for n in self.systems) + 2
         lines = [f"Attachment on {c['words_scored']} words of {c['evaluated']} of {c['read']} "
                  "sentences (scores in %)", "",
-                 "system".ljust(width) + "directed".rjust(11) + "undirected".rjust(11)]
+                 "system".ljust(width) + "directed".rjust(11) + "undirected".rjust(11)
+                 + "NED".rjust(11)]
         for name, s in self.systems.items():
             lines.append(SYSTEM_TITLES[name].ljust(width) + _pct(s.directed).rjust(11)
-                         + _pct(s.undirected).rjust(11))
+                         + _pct(s.undirected).rjust(11) + _pct(s.ned).rjust(11))
         lines += ["", "Counts"] + [f"  {k}: {v}" for k, v in self.counts.items()]
         lines += ["", "Conventions"] + [f"  {k}: {v}" for k, v in self.conventions.items()]
         return "\n".join(lines)
@@ -129,6 +139,7 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
     systems = [MODEL, *BASELINES] if pred_heads is not None else list(BASELINES)
     directed = dict.fromkeys(systems, 0)
     undirected = dict.fromkeys(systems, 0)
+    ned = dict.fromkeys(systems, 0)
     for index, (g, marks) in enumerate(zip(gold, punctuation)):
         scored = [k for k, p in enumerate(marks, start=1) if not p]
         counts["punctuation_words_not_scored"] += len(g.words) - len(scored)
@@ -158,13 +169,18 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
                 directed[name] += head == truth[k - 1]
                 # The arc {k, head} read without direction: k's own gold arc, or the gold arc
                 # of `head` coming back to k (never for the root, which has no gold arc).
-                undirected[name] += head == truth[k - 1] or (
-                    head is not None and head != 0 and truth[head - 1] == k)
+                reversed_ = head is not None and head != 0 and truth[head - 1] == k
+                undirected[name] += head == truth[k - 1] or reversed_
+                # NED adds the gold grandparent (the root, 0, when k's gold head is a root).
+                parent = truth[k - 1]
+                ned[name] += head == parent or reversed_ or (
+                    head is not None and bool(parent) and head == truth[parent - 1])
     words = counts["words_scored"]
     return DependencyEvaluation(
         {name: AttachmentScores(directed[name] / words if words else None,
                                 undirected[name] / words if words else None,
-                                directed[name], undirected[name], words)
+                                directed[name], undirected[name], words,
+                                ned[name] / words if words else None, ned[name])
          for name in systems},
         counts, _describe(conv))
 
@@ -291,6 +307,9 @@ def _describe(conv: BracketConventions) -> dict[str, object]:
         "undirected": ("a scored word counts when its predicted arc joins the same two words as a "
                        "gold arc in either direction; an arc to the root matches only a gold arc "
                        "to the root"),
+        "ned": ("neutral edge direction (Schwartz, Abend, Reichart & Rappoport 2011): a scored "
+                "word counts when its predicted head is its gold head, a word whose gold head "
+                "it is, or its gold grandparent (the root when its gold head is a root word)"),
         "accuracy": "pooled over words: correct scored words / scored words",
         "punctuation": ("taken out of both trees before scoring, as for brackets: punctuation "
                         "words are not scored, and heads keep their indices over the whole "
