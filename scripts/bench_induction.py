@@ -54,8 +54,8 @@ head-final, head-initial: the true heads of `scripts/make_headed_language.py`, f
 of every phrase rule) its best derivation's heads (`decode.decode_heads`) are also scored by
 directed, undirected and NED attachment (`evaluation.evaluate_attachment`, punctuation taken
 out as for brackets) beside the left and right chains, in a second table per eval set. The
-lexicalized model trains one restart (`--restarts` is for the other rows), for `--lexicalized-epochs`.
-Its config is staged (configs/induce_lexicalized.yaml): it takes the trees of the em row of the
+lexicalized model trains one restart (`--restarts` is for the other rows), for
+`--lexicalized-epochs`. Its config is staged (configs/induce_lexicalized.yaml): it takes the trees of the em row of the
 same seed (the consensus of its restarts) as partial brackets (`constraints.brackets_from`), so
 asking for the lexicalized row runs the em row first and reports it too, unless an `--override
 constraints.brackets_from=RUN` names the run to read. The other rows and the
