@@ -48,18 +48,18 @@ spans that are left- or right-branching spans (span starts at 0 / ends at n): wh
 induced trees lean. Baselines (left, right, random, binary upper bound) on the same sentences.
 
 Heads. The lexicalized row (the neural bilexicalized PCFG, Yang, Zhao & Tu 2021) is scored on
-brackets as the others are, by MBR over its own span posteriors (heads summed out), with its
-own log p(sentence) for perplexity. Where the gold has heads (turkish: the CoNLL-U HEAD column;
-head-final, head-initial: the true heads of `scripts/make_headed_language.py`, from the head mark
-of every phrase rule) its best derivation's heads (`decode.decode_heads`) are also scored by
-directed, undirected and NED attachment (`evaluation.evaluate_attachment`, punctuation taken
+brackets as the others are, by MBR over its own span posteriors (heads summed out), with its own
+log p(sentence) for perplexity. Where the gold has heads (turkish: the CoNLL-U HEAD column;
+head-final, head-initial: the true heads of `scripts/make_headed_language.py`, from the head
+mark of every phrase rule) its best derivation's heads (`decode.decode_heads`) are also scored
+by directed, undirected and NED attachment (`evaluation.evaluate_attachment`, punctuation taken
 out as for brackets) beside the left and right chains, in a second table per eval set. The
 lexicalized model trains one restart (`--restarts` is for the other rows), for
-`--lexicalized-epochs`. Its config is staged (configs/induce_lexicalized.yaml): it takes the trees of the em row of the
-same seed (the consensus of its restarts) as partial brackets (`constraints.brackets_from`), so
-asking for the lexicalized row runs the em row first and reports it too, unless an `--override
-constraints.brackets_from=RUN` names the run to read. The other rows and the
-bracket tables are as without it.
+`--lexicalized-epochs`. Its config is staged (configs/induce_lexicalized.yaml): it takes the
+trees of the em row of the same seed (the consensus of its restarts) as partial brackets
+(`constraints.brackets_from`), so asking for the lexicalized row runs the em row first and
+reports it too, unless an `--override constraints.brackets_from=RUN` names the run to read. The
+other rows and the bracket tables are as without it.
 
 Prints a Markdown table and writes everything to <out>/results.json. Asserts nothing.
 """
