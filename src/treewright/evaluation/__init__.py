@@ -4,7 +4,7 @@ Works on `treewright.trees.Tree` objects and plain span sets (`Bracketing`); it 
 knows nothing of training. Modules:
 - `spans`: `Bracketing`, and the reference trees (left/right-branching, random, binary upper bound).
 - `brackets`: `evaluate_brackets`, unlabeled/labeled F1 beside the baselines, all conventions stated.
-- `dependencies`: `evaluate_attachment`, directed/undirected attachment accuracy of predicted
+- `dependencies`: `evaluate_attachment`, directed/undirected/NED attachment accuracy of predicted
   heads beside the left-chain and right-chain baselines, all conventions stated.
 - `tags`: `evaluate_tags`, many-to-one accuracy and V-measure of induced preterminals.
 - `likelihood`: `heldout_likelihood`, log-likelihood per word and perplexity.
