@@ -128,8 +128,8 @@ def evaluate_attachment(pred: Sequence[Dependencies | Sequence[int] | None] | No
     outside its sentence or is the word itself. Predicted heads need not form a tree.
     """
     conv = conventions or BracketConventions()
-    punctuation = [_punctuation(g, conv) if conv.remove_punctuation else [False] * len(g.words)
-                   for g in gold]
+    punctuation = [punctuation_marks(g, conv) if conv.remove_punctuation
+                   else [False] * len(g.words) for g in gold]
     pred_heads = None if pred is None else _check_inputs(pred, gold, punctuation, pred_path,
                                                          gold_path)
     counts = {"read": len(gold), "empty_after_punctuation": 0, "longer_than_max_length": 0,
@@ -223,7 +223,7 @@ def right_chain(scored: Sequence[int], n: int) -> list[int]:
     return heads
 
 
-def _punctuation(gold: Dependencies, conv: BracketConventions) -> list[bool]:
+def punctuation_marks(gold: Dependencies, conv: BracketConventions) -> list[bool]:
     """Per word, whether it is punctuation: by the gold tags when there are any, else by the
     tokens (as `evaluate_brackets` decides)."""
     if gold.tags is not None:
