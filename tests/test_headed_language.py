@@ -147,7 +147,8 @@ def test_readme_chain_rows_reproduce():
     readme = (REPO / "README.md").read_text(encoding="utf-8")
     for order in ("head-final", "head-initial"):
         row = re.search(rf"\| {order}, 500 test sentences \(default flags\) \| ([\d,]+) \| "
-                        r"([\d.]+) / ([\d.]+) \| ([\d.]+) / ([\d.]+) \|", readme)
+                        r"([\d.]+) / ([\d.]+) / ([\d.]+) \| ([\d.]+) / ([\d.]+) / ([\d.]+) \|",
+                        readme)
         assert row, f"README has no chain row for {order}"
         _, _, test = headed.draw(order, 5000, 500, 15, seed=0)
         table = headed.head_children(order)
@@ -158,8 +159,8 @@ def test_readme_chain_rows_reproduce():
         left, right = systems["left_chain"], systems["right_chain"]
         assert int(row[1].replace(",", "")) == left.words
         assert [float(x) for x in row.groups()[1:]] == [
-            round(100 * v, 1) for v in (left.directed, left.undirected, right.directed,
-                                        right.undirected)]
+            round(100 * v, 1) for v in (left.directed, left.undirected, left.ned,
+                                        right.directed, right.undirected, right.ned)]
 
 
 def test_lexical_selection_keeps_trees_and_heads_and_has_its_strength(tmp_path):
