@@ -152,7 +152,7 @@ def main(argv: list[str] | None = None) -> dict:
     words = sum(len(g) for _, g in scored)
     out: dict = {"eval": ev.name, "words": words, "runs": {}}
     for name, left in (("left-branching", True), ("right-branching", False)):
-        bound = sum(best_heads_within(branching(len(g), left), g) for _, g in scored)
+        bound = sum(best_heads_within(branching(len(g), left), g) for _, g in scored if g)
         out[name] = bound / words
         print(f"{ev.name}, {words} words: best heads within {name} trees "
               f"{100 * bound / words:.1f}")
@@ -162,7 +162,7 @@ def main(argv: list[str] | None = None) -> dict:
                                        conventions).systems["model"].directed
         bound = 0
         for parse, tokens, (kept, g) in zip(parses, ev.tokens, scored):
-            if parse.tree is None:
+            if parse.tree is None or not g:   # unparsed, or nothing left to score
                 continue
             # The eval set's tokens are the whole sentence (invented languages) or its words
             # left without punctuation (Turkish, as its models were trained).

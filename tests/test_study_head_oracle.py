@@ -132,3 +132,13 @@ def test_restrict_drops_leaves_and_collapses_their_nodes():
     # Without word 2 alone: ((0 1) 3) renumbered.
     assert study.restrict(((0, 1), (2, 3)), {0: 0, 1: 1, 3: 2}) == ((0, 1), 2)
     assert study.restrict((0, 1), {}) is None
+
+
+def test_a_sentence_of_punctuation_alone_has_no_scored_word():
+    from treewright.evaluation import BracketConventions, Dependencies
+    kept, gold = study.scored_gold(Dependencies((".",), (0,), ("PUNCT",)), BracketConventions())
+    assert (kept, gold) == ([], [])
+    # ko brosk . : the "." is not scored; brosk is the root, ko depends on it.
+    kept, gold = study.scored_gold(Dependencies(("ko", "brosk", "."), (2, 0, 2),
+                                                ("DET", "N", "PUNCT")), BracketConventions())
+    assert (kept, gold) == ([0, 1], [2, 0])
