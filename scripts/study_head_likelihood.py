@@ -22,7 +22,7 @@ Training maximizes the likelihood summed over what each condition allows, by gra
 decay, as `configs/induce_lexicalized.yaml` trains, but without its `bias.arc_length`: the
 question is what the likelihood alone prefers). Then, on the test sentences, each model is
 scored with nothing fixed: log p(sentence) per word (the model's own likelihood, heads and
-trees summed out) and the directed and undirected attachment of its best derivation's heads
+trees summed out) and the directed, undirected and NED attachment of its best derivation's heads
 (`evaluation.evaluate_attachment`, punctuation out as `treewright evaluate` takes it out). If
 `free` both scores the higher likelihood and gets the heads wrong, the model prefers other
 heads: the search is not to blame. The converse does not follow: when the gold-trained model
@@ -172,7 +172,8 @@ def score(model: LexicalizedParams, ids: list[list[int]], gold: list[Dependencie
     systems = attachment.to_dict()["systems"]
     return {"log_likelihood_per_word": free / words,
             "gold_heads_log_likelihood_per_word": fixed / words,
-            "attachment": {name: {"directed": s["directed"], "undirected": s["undirected"]}
+            "attachment": {name: {"directed": s["directed"], "undirected": s["undirected"],
+                                  "ned": s["ned"]}
                            for name, s in systems.items()},
             "words_scored": attachment.counts["words_scored"]}
 

@@ -87,6 +87,13 @@ def test_a_tiny_run_reports_both_conditions(tmp_path):
         # Right chain: each word to the word after it, the last to the root: every word of
         # both sentences but "si" (whose head is vo, two words on): 4 of 5.
         assert math.isclose(chains["right_chain"]["directed"], 4 / 5)
+        # NED (hand-worked). Right chain: si -> ka is neither si's gold head vo, its gold
+        # grandparent (the root) nor a reversed arc (ka's gold head is vo): 4 of 5 again. Left
+        # chain: ka -> root (sentence 1) and si -> root (sentence 2) are their gold
+        # grandparents, vo -> ka (both sentences) is ka's gold arc reversed; ka -> si is none
+        # of the three: 4 of 5.
+        assert math.isclose(chains["right_chain"]["ned"], 4 / 5)
+        assert math.isclose(chains["left_chain"]["ned"], 4 / 5)
     # With --tags the model reads the UPOS column: two tags and the unknown word.
     tagged = study.main([str(path), str(path), "--epochs", "1", "--classes", "2",
                          "--nonterminals", "2", "--preterminals", "2", "--dim", "8", "--tags"])
