@@ -27,6 +27,7 @@ from treewright.corpus import parse_brackets
 from treewright.decode import decode_heads
 from treewright.evaluation import BracketConventions
 from treewright.evaluation.dependencies import Dependencies, evaluate_attachment
+from treewright.head_conventions import PUNCTUATION, content_heads
 from treewright.induce import load_lexicalized
 
 REPO = Path(__file__).resolve().parents[1]
@@ -242,6 +243,62 @@ def test_inspect_and_report_of_other_grammars_have_no_head_words(tmp_path, capsy
     assert "head-dependent" not in capsys.readouterr().out
     assert main(["inspect", str(grammar), "--pairs", "0"]) == 1
     assert "--pairs wants a positive count" in capsys.readouterr().err
+
+
+def test_function_words_write_the_heads_in_the_content_head_convention(trained, tmp_path,
+                                                                         capsys):
+    run, data = trained
+    gold_path = data / "test.conllu"
+    gold = conllu.parse(gold_path.read_text(encoding="utf-8"))
+    # The language's function words, from its true tags (every tag but the content tags and
+    # the final mark's), written as a user would list them.
+    function = sorted({t["form"] for s in gold for t in s
+                       if t["upos"] not in headed.CONTENT_TAGS and t["upos"] != "PUNCT"})
+    assert len(function) >= 5
+    listed = tmp_path / "function.txt"
+    listed.write_text("# the language's function words\n" + "\n".join(function) + "\n",
+                      encoding="utf-8")
+    out = tmp_path / "content.conllu"
+    assert main(["parse", str(run), str(gold_path), "--heads-out", str(out),
+                 "--function-words", str(listed)]) == 0
+    err = capsys.readouterr().err
+    words = [[t["form"] for t in s] for s in gold]
+    used = {w for sentence in words for w in sentence if w in function}
+    assert f"content heads: {len(used)} of the listed function words occur in" in err
+    heads = [[t["head"] for t in s] for s in conllu.parse(out.read_text(encoding="utf-8"))]
+    # Reference: decode_heads called directly, its parses converted by head_conventions.
+    loaded = load_lexicalized(run)
+    parses = decode_heads(loaded.model, loaded.vocab, words, loaded.nonterminals,
+                          loaded.preterminals)
+    marks = set(function) | {"."}
+    want = [content_heads(p.tree, p.heads, [w in marks or w in PUNCTUATION for w in sentence])
+            for p, sentence in zip(parses, words)]
+    assert heads == want
+    assert heads != [p.heads for p in parses]     # the tiny model heads some phrases by them
+    # The convention itself: no listed word (nor punctuation) heads an unlisted word.
+    for sentence, h in zip(words, heads):
+        for k, head in enumerate(h):
+            if head and sentence[head - 1] in marks:
+                assert sentence[k] in marks
+
+
+def test_function_words_are_refused_where_they_cannot_apply(trained, tmp_path, capsys):
+    run, data = trained
+    out = tmp_path / "content.conllu"
+    assert main(["parse", str(run), str(data / "test.txt"), "--function-words",
+                 "ud-function"]) == 1
+    assert "give --heads-out PATH too" in capsys.readouterr().err
+    assert main(["parse", str(run), str(data / "test.txt"), "--heads-out", str(out),
+                 "--function-words", "ud-function"]) == 1
+    err = capsys.readouterr().err
+    assert "names Universal Dependencies tags, but the run was trained on words" in err
+    weighted = tmp_path / "weighted.txt"
+    weighted.write_text("ko -2\n", encoding="utf-8")
+    assert main(["parse", str(run), str(data / "test.txt"), "--heads-out", str(out),
+                 "--function-words", str(weighted)]) == 1
+    err = capsys.readouterr().err
+    assert f"{weighted}, line 1" in err and "one function word per line" in err
+    assert not out.exists()
 
 
 def test_heads_out_refuses_words_the_run_removed(trained, tmp_path, capsys):

@@ -66,6 +66,15 @@ written with every other column `_`. A sentence without a parse keeps HEAD `_`. 
 with `treewright evaluate PATH GOLD.conllu`. The trees printed are those of the decoder, as
 without the option: the other decoders read the run's grammar.pcfg, the model's symbol-only
 back-off grammar; --decoder lexicalized reads the model itself.
+
+Function words: the model heads a phrase by whichever word best predicts its use, often the
+function word that closes or opens it (an adposition, a determiner); Universal Dependencies
+heads it by its content word. With --function-words SOURCE the heads are written in that
+convention (head_conventions.content_heads): up the model's derivation, where a listed word
+heads a phrase whose other part a content word heads, the content word heads it instead, and
+the listed word depends on it. SOURCE is a file of the language's function words, one per line
+(# comments; lowercased if the run's training text was), or 'ud-function', the function-word
+tags of Universal Dependencies, for a run trained on tags. Punctuation always counts as listed.
 """
 
 
@@ -96,6 +105,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--heads-out", metavar="PATH",
                    help="a lexicalized run folder only: also write CoNLL-U with the induced "
                         "head of every word to PATH (see below)")
+    p.add_argument("--function-words", metavar="SOURCE",
+                   help="with --heads-out: write the heads in the content-head convention of "
+                        "Universal Dependencies, every listed function word a dependent of the "
+                        "content word of its phrase; SOURCE is a file of one word per line, or "
+                        "'ud-function' for a run trained on tags (see below)")
     add_budget_argument(p)
 
 
@@ -117,6 +131,9 @@ def run(args) -> int:
                                    saved_restarts)
     from treewright.tracking import terminal_progress
 
+    if args.function_words is not None and args.heads_out is None:
+        raise InputError("--function-words changes the heads that --heads-out writes; give "
+                         "--heads-out PATH too")
     dtype = torch.float64  # decode's precision
     factored = None
     # A run of factored rules decodes with mbr through its own model by default (unless it
@@ -200,6 +217,9 @@ def run(args) -> int:
         raise InputError("--heads-out: the run removed some tags' words (data.drop_tags), so "
                          "the model gives those words no head", path=args.text,
                          line=lines[dropped][0])
+    function_words = None
+    if args.function_words is not None:   # read before decoding, so its errors come first
+        function_words = run_function_words(args.function_words, on_tags, data)
     if factored is None:
         plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                            args.batch_size)
@@ -255,7 +275,7 @@ def run(args) -> int:
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
     if args.heads_out is not None:
-        write_heads(args, lexicalized, fmt, lines, inputs)
+        write_heads(args, lexicalized, fmt, lines, inputs, function_words)
     return 0
 
 
@@ -263,9 +283,28 @@ HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
 FACTORED_GROUP = 256  # the same, for a run of factored rules
 
 
-def write_heads(args, lexicalized, fmt: str, lines, inputs) -> None:
-    """--heads-out: the lexicalized model's heads of every sentence as CoNLL-U (see EXAMPLES)."""
+def run_function_words(source: str, on_tags: bool, data) -> frozenset[str]:
+    """--function-words: the listed words, lowercased as the run's training text was (tags never
+    are); InputError for 'ud-function' on a run trained on words."""
+    from treewright.errors import InputError
+    from treewright.head_conventions import UD_FUNCTION, read_function_words
+    if source == UD_FUNCTION and not on_tags:
+        raise InputError(f"--function-words {UD_FUNCTION} names Universal Dependencies tags, "
+                         "but the run was trained on words: list the language's function "
+                         "words in a file, one per line")
+    lowercase = bool(isinstance(data, dict) and data.get("lowercase")) and not on_tags
+    return read_function_words(source, lowercase)
+
+
+def write_heads(args, lexicalized, fmt: str, lines, inputs,
+                function_words: frozenset[str] | None = None) -> None:
+    """--heads-out: the lexicalized model's heads of every sentence as CoNLL-U (see EXAMPLES),
+    in the content-head convention when `function_words` is given (--function-words)."""
+    import sys
+
+    from treewright.cli.common import input_name
     from treewright.export.heads import fill_heads_conllu, heads_to_conllu
+    from treewright.head_conventions import PUNCTUATION, content_parse_heads
     from treewright.safeio import write_output_text
     from treewright.tracking import terminal_progress
 
@@ -273,9 +312,18 @@ def write_heads(args, lexicalized, fmt: str, lines, inputs) -> None:
     with terminal_progress(len(inputs), "heads") as progress:
         for start in range(0, len(inputs), HEADS_CHUNK):
             group = inputs[start:start + HEADS_CHUNK]
-            # [] from decode_heads: no parse, written as HEAD `_`
-            heads += [p.heads or None for p in lexicalized.parse(group, args.batch_size)]
+            parses = lexicalized.parse(group, args.batch_size)
+            if function_words is not None:
+                heads += content_parse_heads(group, parses, function_words)
+            else:   # [] from decode_heads: no parse, written as HEAD `_`
+                heads += [p.heads or None for p in parses]
             progress.update(len(group))
+    if function_words is not None:
+        used = {w for sentence in inputs for w in sentence
+                if w in function_words and w not in PUNCTUATION}
+        print(f"content heads: {len(used)} of the listed function words occur in "
+              f"{input_name(args.text)}" + ("" if used else ", so only punctuation moved"),
+              file=sys.stderr)
     if fmt == "conllu":
         text = fill_heads_conllu(args.text, heads)
     else:

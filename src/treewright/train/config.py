@@ -13,6 +13,8 @@ from typing import Literal, Sequence
 
 from treewright.config import (ConfigError, ConfigProblem, config_from_dict, load_config,
                                option)
+from treewright.head_conventions import UD_FUNCTION  # bias.head_list's name for UD's function tags
+
 
 @dataclass
 class DataConfig:
@@ -183,15 +185,6 @@ INDEPENDENT_FORMS = ("independent", "independent-neural")  # the independent pro
 
 # How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
 TAG_MODE_PIECE_EPOCHS = 3
-
-# `bias.head_list: ud-function`: the Universal Dependencies tags of function words, the words that
-# attach to the content word of their phrase (de Marneffe et al. 2021, "Universal Dependencies",
-# Computational Linguistics 47(2); the relations aux, cop, case, mark, det, cc and punct), and
-# the names the older universal tagset gives the same classes (Petrov, Das & McDonald 2012, "A
-# Universal Part-of-Speech Tagset": CONJ, PRT and "." for conjunctions, particles and
-# punctuation), which some treebanks still use.
-UD_FUNCTION = "ud-function"
-UD_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT", "CONJ", "PRT", ".")
 
 
 @dataclass

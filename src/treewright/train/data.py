@@ -20,9 +20,10 @@ from treewright.corpus import (ReadOptions, normalization_note, normalization_va
 from treewright.corpus.lines import iter_lines
 from treewright.engine.memory import inside_outside_bytes
 from treewright.errors import InputError
+from treewright.head_conventions import UD_FUNCTION, UD_FUNCTION_TAGS
 from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
-from treewright.train.config import UD_FUNCTION, UD_FUNCTION_TAGS, TrainConfig
+from treewright.train.config import TrainConfig
 from treewright.train.distributed import StreamedCorpus
 from treewright.word_pieces import barred_positions, host_side
 
