@@ -59,7 +59,11 @@ lexicalized model trains one restart (`--restarts` is for the other rows), for
 trees of the em row of the same seed (the consensus of its restarts) as partial brackets
 (`constraints.brackets_from`), so asking for the lexicalized row runs the em row first and
 reports it too, unless an `--override constraints.brackets_from=RUN` names the run to read. The
-other rows and the bracket tables are as without it.
+other rows and the bracket tables are as without it. With `--function-words SOURCE` each
+lexicalized row is followed by a row "content heads": the same heads with the listed function
+words made dependents of the content words of their phrases (`head_conventions.content_heads`,
+as `treewright parse --function-words` writes them). SOURCE `known` takes the list from the
+data's annotation, never read in training (`function_word_set`).
 
 Prints a Markdown table and writes everything to <out>/results.json. Asserts nothing.
 """
@@ -75,6 +79,7 @@ import statistics
 import sys
 import sysconfig
 import time
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -87,6 +92,7 @@ from treewright.decode import consensus, mbr_spans
 from treewright.evaluation import BracketConventions, Bracketing, evaluate_brackets
 from treewright.evaluation.dependencies import Dependencies, evaluate_attachment
 from treewright.grammar import load_grammar
+from treewright.head_conventions import PUNCTUATION
 from treewright.inference import encode
 from treewright.runfolder import RunFolder
 from treewright.train import load_train_config, train
@@ -318,6 +324,39 @@ def true_dependencies(order: str, trees: list) -> list[Dependencies]:
     return out
 
 
+def function_word_set(source: str | None, name: str, mode: str, data: BenchData
+                      ) -> frozenset[str] | None:
+    """The function words of --function-words (None: not given), punctuation included
+    (`head_conventions.read_function_words`). 'known' takes them from the data's own
+    annotation, which training never reads: on the invented languages the words of the
+    generating grammar's function tags (every tag but `make_headed_language.CONTENT_TAGS`); on
+    Turkish tokens the training words whose gold UPOS is most often one of Universal
+    Dependencies' function tags; on tags, those tags. SystemExit for a source that cannot
+    apply."""
+    from treewright.head_conventions import UD_FUNCTION, UD_FUNCTION_TAGS, read_function_words
+    if source is None:
+        return None
+    if name == "demo":
+        raise SystemExit("--function-words: the demo test set has no heads to score")
+    if source == "known":
+        if name in ORDERS:
+            from make_demo_data import lexicon_entries
+            from make_headed_language import CONTENT_TAGS   # it imports this script
+            return frozenset(form for tag, entries in lexicon_entries().items()
+                             if tag not in CONTENT_TAGS for form, _, _ in entries) | PUNCTUATION
+        if mode == "tags":
+            return frozenset(UD_FUNCTION_TAGS) | PUNCTUATION
+        tags: dict[str, Counter] = {}
+        for sentence in data.train_written or []:
+            for word, tag in zip(sentence.words, sentence.tags):
+                tags.setdefault(word, Counter())[tag] += 1
+        return frozenset(word for word, seen in tags.items()
+                         if seen.most_common(1)[0][0] in UD_FUNCTION_TAGS) | PUNCTUATION
+    if source == UD_FUNCTION and mode != "tags":
+        raise SystemExit(f"--function-words {UD_FUNCTION} names tags: use it with --mode tags")
+    return read_function_words(source)
+
+
 def write_text(path: Path, sentences: list[list[str]]) -> Path:
     path.write_text("".join(" ".join(s) + "\n" for s in sentences), encoding="utf-8")
     return path
@@ -426,12 +465,17 @@ def model_mbr_and_likelihood(trainer, sentences: list[list[str]], batch_size: in
     return spans, logprobs
 
 
-def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16) -> dict:
+def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16,
+                      function_words: frozenset[str] | None = None) -> dict:
     """The lexicalized model's scores on one set: brackets by MBR over its own span posteriors
     (heads summed out) and perplexity from its own log p(sentence), as `score_spans` scores the
     other rows; with gold heads, `attachment` (model and both chains: directed, undirected,
-    NED, words) from the heads of its best derivations, and `attachment_counts`."""
+    NED, words) from the heads of its best derivations, and `attachment_counts`; with
+    `function_words` too, `attachment_content`: the model's scores with those heads in the
+    content-head convention (`head_conventions.content_heads`, as `parse --function-words`
+    writes them)."""
     from treewright.decode import decode_heads
+    from treewright.head_conventions import content_parse_heads
     from treewright.params import symbol_names
     model, vocab = trainer.model, trainer.data.vocab
     scorer = model.scorer()
@@ -455,6 +499,10 @@ def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16) -> dict:
                                          BracketConventions())
         scores["attachment"] = attachment.to_dict()["systems"]
         scores["attachment_counts"] = attachment.counts
+        if function_words is not None:
+            content = evaluate_attachment(content_parse_heads(ev.tokens, parses, function_words),
+                                          ev.dependencies, BracketConventions())
+            scores["attachment_content"] = content.to_dict()["systems"]["model"]
     return scores
 
 
@@ -552,16 +600,19 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     return {"method": method, "seed": seed, "train_seconds": seconds,
             "best_restart": trainer.best_restart_, "overrides": overrides,
             "restarts": restarts, "consensus": agreed,
-            "scores": {ev.name: score_method(method, trainer, ev) for ev in args.evals}}
+            "scores": {ev.name: score_method(method, trainer, ev, args.function_words)
+                       for ev in args.evals}}
 
 
-def score_method(method: str, trainer, ev: EvalSet) -> dict:
+def score_method(method: str, trainer, ev: EvalSet,
+                 function_words: frozenset[str] | None = None) -> dict:
     """One trained run's scores on one set: from its grammar file, or from the trainer's model
-    for the rows in MODEL_ROWS."""
+    for the rows in MODEL_ROWS (the lexicalized one also in the content-head convention of
+    `function_words`, when given)."""
     if method == "compound":
         return score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
     if method == "lexicalized":
-        return score_lexicalized(trainer, ev)
+        return score_lexicalized(trainer, ev, function_words=function_words)
     if method == "independent":
         return score_spans(*model_mbr_and_likelihood(trainer, ev.tokens), ev)
     return score_grammar(trainer.grammar_path_, ev)
@@ -604,6 +655,10 @@ def summarise(runs: list[dict], evals: list[EvalSet]) -> dict:
                 for kind in ("directed", "undirected", "ned"):
                     out[name][ev.name][kind] = mean_sd([x["attachment"]["model"][kind]
                                                         for x in s])
+            if all("attachment_content" in x for x in s):   # --function-words
+                for kind in ("directed", "undirected", "ned"):
+                    out[name][ev.name][f"content_{kind}"] = mean_sd(
+                        [x["attachment_content"][kind] for x in s])
     return out
 
 
@@ -642,9 +697,13 @@ def markdown_table(summary: dict, baselines: dict, ceiling: dict, gold_leans: di
     return "\n".join(rows)
 
 
+CONTENT_ROW = "content heads"   # the attachment row of --function-words
+
+
 def attachment_table(summary: dict, runs: list[dict], ev_name: str) -> str | None:
-    """A Markdown table of attachment accuracy on one eval set: the rows with heads, then the
-    left and right chains (the same gold words for every run); None when no row has heads."""
+    """A Markdown table of attachment accuracy on one eval set: the rows with heads (each
+    followed by its content-head row under --function-words), then the left and right chains
+    (the same gold words for every run); None when no row has heads."""
     rows = [(method, per[ev_name]) for method, per in summary.items()
             if "directed" in per[ev_name]]
     if not rows:
@@ -654,8 +713,12 @@ def attachment_table(summary: dict, runs: list[dict], ev_name: str) -> str | Non
     words = chains["model"]["words"]
     lines = [f"| system (attachment on {words} words) | directed | undirected | NED |",
              "|---|---|---|---|"]
-    lines += [f"| {method} | {_cell(e['directed'])} | {_cell(e['undirected'])} | "
-              f"{_cell(e['ned'])} |" for method, e in rows]
+    for method, e in rows:
+        lines.append(f"| {method} | {_cell(e['directed'])} | {_cell(e['undirected'])} | "
+                     f"{_cell(e['ned'])} |")
+        if "content_directed" in e:   # --function-words
+            lines.append(f"| {method}, {CONTENT_ROW} | {_cell(e['content_directed'])} | "
+                         f"{_cell(e['content_undirected'])} | {_cell(e['content_ned'])} |")
     for key, title in (("left_chain", "left chain"), ("right_chain", "right chain")):
         c = chains[key]
         lines.append(f"| {title} | {100 * c['directed']:.1f} | {100 * c['undirected']:.1f} | "
@@ -703,6 +766,11 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
                    "token, so unseen words parse")
     p.add_argument("--max-vocab", type=int, default=None)
     p.add_argument("--dev-fraction", type=float, default=0.1)
+    p.add_argument("--function-words", metavar="SOURCE", default=None,
+                   help="also score the lexicalized rows' heads in the content-head convention "
+                        "(a row 'content heads'; head_conventions.content_heads): 'known' for "
+                        "the data's own function words (see function_word_set), 'ud-function' "
+                        "on tags, or a file of one word per line")
     p.add_argument("--override", action="append", default=[],
                    help="extra dotted config override for every run (repeatable)")
     p.add_argument("--out", type=Path, default=Path("runs/bench_induction"))
@@ -751,6 +819,13 @@ def main(argv: list[str] | None = None) -> dict:
     else:
         data = demo_data(args.eval_max_length, args.sentences)
     args.evals = data.evals
+    args.function_words_source = args.function_words
+    args.function_words = function_word_set(args.function_words, args.data, args.mode, data)
+    if args.function_words is not None:
+        listed = sorted(args.function_words - PUNCTUATION)
+        print(f"function words ({args.function_words_source}): {len(listed)}, punctuation "
+              f"besides: {' '.join(listed[:40])}{' ...' if len(listed) > 40 else ''}",
+              flush=True)
     if data.train_written is not None:
         # Turkish: the trainer reads the written words (or their tags, in tag mode) and where
         # the tokenizer split a written word (constraints.word_pieces).
@@ -775,6 +850,8 @@ def main(argv: list[str] | None = None) -> dict:
                                for r in result["restarts"] for ev in data.evals[-1:])
                 brief += f" (restarts: {per}; kept {result['best_restart']})"
             attached = [f"{name} directed {100 * s['attachment']['model']['directed']:.1f}"
+                        + (f" ({CONTENT_ROW} {100 * s['attachment_content']['directed']:.1f})"
+                           if "attachment_content" in s else "")
                         for name, s in result["scores"].items() if "attachment" in s]
             if attached:
                 brief += "; " + ", ".join(attached)
@@ -809,6 +886,9 @@ def main(argv: list[str] | None = None) -> dict:
               "gold_lean": gold_leans, "tables": tables}
     if heads:   # only when a row has heads: the other rows' results are as before
         result["attachment_tables"] = heads
+    if args.function_words is not None:
+        result["function_words"] = {"source": args.function_words_source,
+                                    "words": sorted(args.function_words - PUNCTUATION)}
     (args.out / "results.json").write_text(json.dumps(result, indent=2) + "\n",
                                            encoding="utf-8")
     print(f"\nwrote {args.out / 'results.json'}")

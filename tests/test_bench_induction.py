@@ -350,9 +350,12 @@ def test_smoke_run_of_the_lexicalized_row_scores_attachment(tmp_path):
     # table line as the bracket path computes them without heads (no attachment keys added);
     # for the lexicalized row, the model read back from its run folder, its heads written into
     # the CoNLL-U of scripts/make_headed_language.py (the true heads, drawn with the same seed)
-    # and scored from those files as `treewright evaluate` scores them.
+    # and scored from those files as `treewright evaluate` scores them; under
+    # --function-words known the same heads converted by head_conventions (its own tests check
+    # the conversion), with the function words read from the true CoNLL-U's tags.
     import importlib
     from treewright.export.heads import fill_heads_conllu
+    from treewright.head_conventions import PUNCTUATION, content_parse_heads
     from treewright.induce import load_lexicalized
     from treewright.report.scoring import evaluate_heads_files
     sys.path.insert(0, str(REPO / "scripts"))
@@ -360,7 +363,8 @@ def test_smoke_run_of_the_lexicalized_row_scores_attachment(tmp_path):
     result = bench.main(["--data", "head-final", "--train-sentences", "60", "--test-sentences",
                          "12", "--epochs", "1", "--symbols", "4,6", "--seeds", "0",
                          "--methods", "em,lexicalized", "--override", "model.head_classes=4",
-                         "--override", "model.embedding_dim=16", "--out", str(tmp_path)])
+                         "--override", "model.embedding_dim=16", "--function-words", "known",
+                         "--out", str(tmp_path)])
     name = "head-final-test"
     em, lex = (r["scores"][name] for r in result["runs"])
     # The lexicalized row is staged on the em row of its seed: that run's trees are its brackets.
@@ -388,6 +392,23 @@ def test_smoke_run_of_the_lexicalized_row_scores_attachment(tmp_path):
     assert (f"| right chain | {100 * r['directed']:.1f} | {100 * r['undirected']:.1f} | "
             f"{100 * r['ned']:.1f} |") in table
     assert set(result["attachment_tables"]) == {name}
+
+    # The content-head row. The function words of the test sentences, by their true tags, are
+    # among those the benchmark lists, and no word of a content tag is listed.
+    sentences = conllu.parse(gold.read_text(encoding="utf-8"))
+    tagged = {(t["form"], t["upos"]) for s in sentences for t in s}
+    listed = set(result["function_words"]["words"])
+    assert result["function_words"]["source"] == "known"
+    assert {w for w, tag in tagged if tag not in headed.CONTENT_TAGS + ("PUNCT",)} <= listed
+    assert not {w for w, tag in tagged if tag in headed.CONTENT_TAGS} & listed
+    converted = content_parse_heads(words, loaded.parse(words), frozenset(listed) | PUNCTUATION)
+    pred.write_text(fill_heads_conllu(gold, converted), encoding="utf-8")
+    want = evaluate_heads_files(pred, gold).attachment.to_dict()["systems"]["model"]
+    assert lex["attachment_content"] == want
+    assert row["content_directed"][0] == want["directed"]
+    assert (f"| lexicalized, content heads | {100 * want['directed']:.1f} | "
+            f"{100 * want['undirected']:.1f} | {100 * want['ned']:.1f} |") in table
+    assert "content_directed" not in result["summary"]["em"][name]
 
 
 def result_evals(tmp_path):
