@@ -18,6 +18,9 @@ import torch
 from treewright.evaluation import Bracketing, left_branching, right_branching
 
 REPO = Path(__file__).resolve().parents[1]
+# The script imports its sibling scripts (make_headed_language, make_demo_data) as it does when
+# run: from its own folder on the path.
+sys.path.insert(0, str(REPO / "scripts"))
 _spec = importlib.util.spec_from_file_location("bench_induction",
                                                REPO / "scripts" / "bench_induction.py")
 bench = importlib.util.module_from_spec(_spec)
