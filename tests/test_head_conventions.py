@@ -187,8 +187,6 @@ def test_function_word_files_and_the_universal_tags(tmp_path):
     listed.write_text("# postpositions\nUnder\n\nfrom\n  # indented comment\n",
                       encoding="utf-8")
     assert read_function_words(listed) == frozenset({"Under", "from"}) | PUNCTUATION
-    assert read_function_words(listed, lowercase=True) == frozenset({"under", "from"}) | \
-        PUNCTUATION
     # Punctuation always counts: it attaches to its clause's head in Universal Dependencies
     # (common practice).
     assert {".", ",", "!", "PUNCT"} <= PUNCTUATION
@@ -209,3 +207,43 @@ def test_function_word_files_and_the_universal_tags(tmp_path):
         read_function_words(empty)
     with pytest.raises(InputError):
         read_function_words(tmp_path / "missing.txt")
+
+
+def test_commands_read_the_list_as_the_training_run_read_its_words(tmp_path):
+    # `parse` and `export` compare the list with the words as the model reads them: lowercased
+    # by the run's own case rules. Reference: Unicode SpecialCasing.txt's Turkish rules (dotted
+    # and dotless i; from memory) against its language-independent mapping.
+    from types import SimpleNamespace
+
+    from treewright.cli.common import function_words_as_trained
+    listed = tmp_path / "function.txt"
+    listed.write_text("İÇİN\nILE\nve\n", encoding="utf-8")
+
+    def run(data):
+        return SimpleNamespace(training={"config": {"data": data}})
+
+    turkic = function_words_as_trained(str(listed), run({"lowercase": True,
+                                                         "case_rules": "turkic"}), False)
+    assert {"için", "ıle", "ve"} <= turkic and "ile" not in turkic
+    plain = function_words_as_trained(str(listed), run({"lowercase": True}), False)
+    assert {"i\u0307çi\u0307n", "ile", "ve"} <= plain
+    kept = function_words_as_trained(str(listed), run({"lowercase": False}), False)
+    assert {"İÇİN", "ILE", "ve"} <= kept
+    # Tags are never lowercased, and the UD tags need a run on tags.
+    assert function_words_as_trained(UD_FUNCTION, run({"lowercase": True, "tag_mode": True}),
+                                     True) == frozenset(UD_FUNCTION_TAGS) | PUNCTUATION
+    with pytest.raises(InputError, match="trained on words"):
+        function_words_as_trained(UD_FUNCTION, run({}), False)
+
+
+def test_export_refuses_function_words_without_heads(tmp_path, capsys):
+    from treewright.cli import main
+    listed = tmp_path / "function.txt"
+    listed.write_text("ko\n", encoding="utf-8")
+    grammar = REPO / "src" / "treewright" / "data" / "examples" / "astronomers.pcfg"
+    text = tmp_path / "text.txt"
+    text.write_text("astronomers saw stars\n", encoding="utf-8")
+    assert main(["export", str(grammar), "--to", "brackets", "--corpus", str(text),
+                 "--out", str(tmp_path / "out.txt"), "--function-words", str(listed)]) == 1
+    assert "--function-words changes the heads of --to conllu" in capsys.readouterr().err
+    assert not (tmp_path / "out.txt").exists()

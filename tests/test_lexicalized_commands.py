@@ -245,41 +245,80 @@ def test_inspect_and_report_of_other_grammars_have_no_head_words(tmp_path, capsy
     assert "--pairs wants a positive count" in capsys.readouterr().err
 
 
+def _function_list(data: Path, folder: Path) -> tuple[Path, list[str]]:
+    """A file of the language's function words, from its true tags in the gold test file (every
+    tag but the content tags and the final mark's), written as a user would list them."""
+    gold = conllu.parse((data / "test.conllu").read_text(encoding="utf-8"))
+    function = sorted({t["form"] for s in gold for t in s
+                       if t["upos"] not in headed.CONTENT_TAGS and t["upos"] != "PUNCT"})
+    assert len(function) >= 5
+    listed = folder / "function.txt"
+    listed.write_text("# the language's function words\n" + "\n".join(function) + "\n",
+                      encoding="utf-8")
+    return listed, function
+
+
+def _content_reference(run: Path, words: list[list[str]], function: list[str]):
+    """(heads of decode_heads, the same converted by head_conventions.content_heads), the
+    function words those listed and punctuation."""
+    loaded = load_lexicalized(run)
+    parses = decode_heads(loaded.model, loaded.vocab, words, loaded.nonterminals,
+                          loaded.preterminals)
+    marks = set(function) | PUNCTUATION
+    return [p.heads for p in parses], [
+        content_heads(p.tree, p.heads, [w in marks for w in sentence])
+        for p, sentence in zip(parses, words)]
+
+
 def test_function_words_write_the_heads_in_the_content_head_convention(trained, tmp_path,
                                                                          capsys):
     run, data = trained
     gold_path = data / "test.conllu"
-    gold = conllu.parse(gold_path.read_text(encoding="utf-8"))
-    # The language's function words, from its true tags (every tag but the content tags and
-    # the final mark's), written as a user would list them.
-    function = sorted({t["form"] for s in gold for t in s
-                       if t["upos"] not in headed.CONTENT_TAGS and t["upos"] != "PUNCT"})
-    assert len(function) >= 5
-    listed = tmp_path / "function.txt"
-    listed.write_text("# the language's function words\n" + "\n".join(function) + "\n",
-                      encoding="utf-8")
+    listed, function = _function_list(data, tmp_path)
     out = tmp_path / "content.conllu"
     assert main(["parse", str(run), str(gold_path), "--heads-out", str(out),
                  "--function-words", str(listed)]) == 0
     err = capsys.readouterr().err
-    words = [[t["form"] for t in s] for s in gold]
+    words = [[t["form"] for t in s] for s in conllu.parse(gold_path.read_text(encoding="utf-8"))]
     used = {w for sentence in words for w in sentence if w in function}
     assert f"content heads: {len(used)} of the listed function words occur in" in err
     heads = [[t["head"] for t in s] for s in conllu.parse(out.read_text(encoding="utf-8"))]
-    # Reference: decode_heads called directly, its parses converted by head_conventions.
-    loaded = load_lexicalized(run)
-    parses = decode_heads(loaded.model, loaded.vocab, words, loaded.nonterminals,
-                          loaded.preterminals)
-    marks = set(function) | {"."}
-    want = [content_heads(p.tree, p.heads, [w in marks or w in PUNCTUATION for w in sentence])
-            for p, sentence in zip(parses, words)]
+    given, want = _content_reference(run, words, function)
     assert heads == want
-    assert heads != [p.heads for p in parses]     # the tiny model heads some phrases by them
+    assert heads != given     # the tiny model heads some phrases by function words
     # The convention itself: no listed word (nor punctuation) heads an unlisted word.
+    marks = set(function) | PUNCTUATION
     for sentence, h in zip(words, heads):
         for k, head in enumerate(h):
             if head and sentence[head - 1] in marks:
                 assert sentence[k] in marks
+
+    # export --to conllu writes the same heads, and says so in its head_rule comment.
+    exported = tmp_path / "exported.conllu"
+    assert main(["export", str(run), "--to", "conllu", "--corpus", str(gold_path), "--out",
+                 str(exported), "--function-words", str(listed)]) == 0
+    blocks = conllu.parse(exported.read_text(encoding="utf-8"))
+    assert [[t["head"] for t in s] for s in blocks] == want
+    assert all(s.metadata["head_rule"] == "lexicalized model, function words as dependents"
+               for s in blocks)
+    # Heads read off the back-off grammar's trees by a rule are converted the same way
+    # (reference: the rule's heads of the written trees, converted by content_heads).
+    ruled, plain = tmp_path / "ruled.conllu", tmp_path / "plain.conllu"
+    for path, extra in ((ruled, ["--function-words", str(listed)]), (plain, [])):
+        assert main(["export", str(run), "--to", "conllu", "--corpus", str(gold_path),
+                     "--heads", "right", "--out", str(path), *extra]) == 0
+    ruled_blocks = conllu.parse(ruled.read_text(encoding="utf-8"))
+    plain_blocks = conllu.parse(plain.read_text(encoding="utf-8"))
+    assert all(s.metadata["head_rule"] == "right, function words as dependents"
+               for s in ruled_blocks)
+    moved = 0
+    for r, q in zip(ruled_blocks, plain_blocks):
+        tree = parse_brackets(q.metadata["induced_tree"])[0]
+        sentence = [t["form"] for t in q]
+        expect = content_heads(tree, [t["head"] for t in q], [w in marks for w in sentence])
+        assert [t["head"] for t in r] == expect
+        moved += expect != [t["head"] for t in q]
+    assert moved > 0
 
 
 def test_function_words_are_refused_where_they_cannot_apply(trained, tmp_path, capsys):
@@ -291,7 +330,7 @@ def test_function_words_are_refused_where_they_cannot_apply(trained, tmp_path, c
     assert main(["parse", str(run), str(data / "test.txt"), "--heads-out", str(out),
                  "--function-words", "ud-function"]) == 1
     err = capsys.readouterr().err
-    assert "names Universal Dependencies tags, but the run was trained on words" in err
+    assert "names Universal Dependencies tags, but the grammar was trained on words" in err
     weighted = tmp_path / "weighted.txt"
     weighted.write_text("ko -2\n", encoding="utf-8")
     assert main(["parse", str(run), str(data / "test.txt"), "--heads-out", str(out),

@@ -38,11 +38,11 @@ UD_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT", "CON
 PUNCTUATION = DEFAULT_PUNCTUATION_TOKENS | DEFAULT_PUNCTUATION_TAGS
 
 
-def read_function_words(source: str | Path, lowercase: bool = False) -> frozenset[str]:
+def read_function_words(source: str | Path) -> frozenset[str]:
     """The function words `source` names, with punctuation (`PUNCTUATION`) added: `ud-function`
-    for `UD_FUNCTION_TAGS`, else a file of one word per line (blank lines and lines starting with
-    # skipped; lowercased when the model's training text was). InputError naming the line for a
-    line of two or more fields, and for a file that lists no word."""
+    for `UD_FUNCTION_TAGS`, else a file of one word per line as written (blank lines and lines
+    starting with # skipped). InputError naming the line for a line of two or more fields, and
+    for a file that lists no word."""
     if str(source) == UD_FUNCTION:
         return frozenset(UD_FUNCTION_TAGS) | PUNCTUATION
     words = set()
@@ -53,7 +53,7 @@ def read_function_words(source: str | Path, lowercase: bool = False) -> frozense
         if len(fields) > 1:
             raise InputError(f"one function word per line, found {len(fields)} fields: "
                              f"{line.strip()!r}", path=str(source), line=number)
-        words.add(fields[0].lower() if lowercase else fields[0])
+        words.add(fields[0])
     if not words:
         raise InputError("lists no words (every line is blank or a comment)", path=str(source))
     return frozenset(words) | PUNCTUATION

@@ -123,6 +123,27 @@ def as_trained(source, lines: list[tuple[int, list[str]]]) -> list[list[str]]:
     return [[normalise(w) for w in words] for _, words in lines]
 
 
+def function_words_as_trained(spec: str, source, on_tags: bool) -> frozenset[str]:
+    """--function-words of `parse` and `export`: the words `spec` lists
+    (`head_conventions.read_function_words`: a file, or `ud-function` for the Universal
+    Dependencies function tags), normalised as the grammar's training run normalised its words
+    (lowercased by its case rules; tags never are), punctuation included. source: an
+    `export.GrammarSource`; on_tags: the grammar reads tags. InputError for `ud-function` on a
+    grammar trained on words."""
+    from treewright.corpus import lowercase, run_read_options
+    from treewright.head_conventions import UD_FUNCTION, read_function_words
+    if spec == UD_FUNCTION and not on_tags:
+        raise InputError(f"--function-words {UD_FUNCTION} names Universal Dependencies tags, "
+                         "but the grammar was trained on words: list the language's function "
+                         "words in a file, one per line")
+    words = read_function_words(spec)
+    config = (source.training or {}).get("config")
+    options = run_read_options(config.get("data") if isinstance(config, dict) else None)
+    if on_tags or options.tag_mode or not options.lowercase:
+        return words
+    return frozenset(lowercase(w, options.case_rules) for w in words)
+
+
 def read_as_run_read(path: str, source) -> tuple[list[tuple[int, list[str]]],
                                                  list[list[str]]]:
     """The sentences of `path` as (line number, words) and the tokens the grammar of `source`

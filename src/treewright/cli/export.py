@@ -27,7 +27,10 @@ formats:
             --corpus is written back line for line with those columns and comments filled
             in (its sent_id, text, multiword-token lines and other columns kept). From a
             lexicalized run folder (with --heads auto) the tree and heads are the model's
-            own best derivation ('# head_rule = lexicalized model')
+            own best derivation ('# head_rule = lexicalized model'). With
+            --function-words SOURCE the heads are written in the content-head convention
+            of Universal Dependencies, as `treewright parse --function-words` writes them
+            (see its help; the head_rule comment adds ', function words as dependents')
 
 The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg). A
 segmentation run folder (treewright segment) exports as text (its segmentation, one input per
@@ -55,6 +58,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--heads", choices=("auto", "left", "right"), default="auto",
                    help="conllu: which child of each phrase holds its head word; auto (default) "
                         "takes, per symbol, the side whose child the grammar predicts better")
+    p.add_argument("--function-words", metavar="SOURCE",
+                   help="conllu: the listed function words depend on the content words of their "
+                        "phrases (a file of one word per line, or 'ud-function' for a grammar "
+                        "trained on tags)")
     p.add_argument("--prune-threshold", type=float, default=None,
                    help="drop rules below this probability and renormalise")
     p.add_argument("--prune-top", type=int, default=None,
@@ -66,7 +73,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     import sys
 
-    from treewright.cli.common import (input_name, no_parse_reason, read_lines, read_sentences,
+    from treewright.cli.common import (function_words_as_trained, input_name, no_parse_reason,
+                                       read_lines, read_sentences, trained_on_tags,
                                        training_normaliser)
     from treewright.corpus import detect_format
     from treewright.errors import InputError
@@ -83,11 +91,20 @@ def run(args) -> int:
         return _segmentation(args)
     if args.to in ("brackets", "conllu") and args.corpus is None:
         raise InputError(f"--to {args.to} needs --corpus (the sentences to parse)")
+    if args.function_words is not None and args.to != "conllu":
+        raise InputError("--function-words changes the heads of --to conllu; no other format "
+                         "writes heads")
     source = open_grammar(args.source)
     grammar = source.grammar
+    function_words = None
+    if args.function_words is not None:   # read before parsing, so its errors come first
+        function_words = function_words_as_trained(args.function_words, source,
+                                                   trained_on_tags(source))
     uses_text = args.corpus or ((args.prune_threshold is not None or args.prune_top is not None)
                                 and (args.train or args.heldout))
     normalise = training_normaliser(source) if uses_text else None
+    function = None if function_words is None else (   # a function word, once normalised?
+        lambda word: (normalise(word) if normalise else word) in function_words)
 
     def sentences(path):
         return [[normalise(x) for x in w] if normalise else w for _, w in read_sentences(path)]
@@ -145,9 +162,10 @@ def run(args) -> int:
         elif detect_format(args.corpus) == "conllu":
             # The input's own lines, with the induced columns and comments filled in.
             text = fill_parsed_conllu(args.corpus, parsed, args.tag_column,
-                                      rule=head_rule(args.heads, named))
+                                      rule=head_rule(args.heads, named), function=function)
         else:
-            text = to_conllu(parsed, args.tag_column, rule=head_rule(args.heads, named))
+            text = to_conllu(parsed, args.tag_column, rule=head_rule(args.heads, named),
+                             function=function)
     if args.out == "-":
         sys.stdout.write(text)
     else:

@@ -73,7 +73,7 @@ heads it by its content word. With --function-words SOURCE the heads are written
 convention (head_conventions.content_heads): up the model's derivation, where a listed word
 heads a phrase whose other part a content word heads, the content word heads it instead, and
 the listed word depends on it. SOURCE is a file of the language's function words, one per line
-(# comments; lowercased if the run's training text was), or 'ud-function', the function-word
+(# comments; lowercased as the run's training text was), or 'ud-function', the function-word
 tags of Universal Dependencies, for a run trained on tags. Punctuation always counts as listed.
 """
 
@@ -119,8 +119,8 @@ def run(args) -> int:
     import torch
 
     from treewright.budget import BudgetPlan, plan_budget, run_plan
-    from treewright.cli.common import (as_trained, input_name, no_parse_reason, read_lines,
-                                       warn_over_budget)
+    from treewright.cli.common import (as_trained, function_words_as_trained, input_name,
+                                       no_parse_reason, read_lines, warn_over_budget)
     from treewright.corpus import (detect_format, insert_words, read_tagged, run_drop_tags,
                                    run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
@@ -219,7 +219,7 @@ def run(args) -> int:
                          line=lines[dropped][0])
     function_words = None
     if args.function_words is not None:   # read before decoding, so its errors come first
-        function_words = run_function_words(args.function_words, on_tags, data)
+        function_words = function_words_as_trained(args.function_words, source, on_tags)
     if factored is None:
         plan = plan_budget(grammars, [len(inputs[i]) for i in todo], args.memory_budget, dtype,
                            args.batch_size)
@@ -281,19 +281,6 @@ def run(args) -> int:
 
 HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
 FACTORED_GROUP = 256  # the same, for a run of factored rules
-
-
-def run_function_words(source: str, on_tags: bool, data) -> frozenset[str]:
-    """--function-words: the listed words, lowercased as the run's training text was (tags never
-    are); InputError for 'ud-function' on a run trained on words."""
-    from treewright.errors import InputError
-    from treewright.head_conventions import UD_FUNCTION, read_function_words
-    if source == UD_FUNCTION and not on_tags:
-        raise InputError(f"--function-words {UD_FUNCTION} names Universal Dependencies tags, "
-                         "but the run was trained on words: list the language's function "
-                         "words in a file, one per line")
-    lowercase = bool(isinstance(data, dict) and data.get("lowercase")) and not on_tags
-    return read_function_words(source, lowercase)
 
 
 def write_heads(args, lexicalized, fmt: str, lines, inputs,

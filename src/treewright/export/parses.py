@@ -40,6 +40,10 @@ side per symbol:
 
 Converting the heads back to brackets gives the spans of each word's maximal projection (the
 highest node it heads), which are constituents of the induced tree.
+
+Given a function-word test (`function`), either kind of heads is then moved to the
+content-head convention of Universal Dependencies (`head_conventions.content_heads`, over the
+same tree), and the `head_rule` comment says so (`CONTENT_NOTE`).
 """
 
 from __future__ import annotations
@@ -52,6 +56,7 @@ import torch
 
 from treewright.decode import is_treebank_grammar, treebank_tree
 from treewright.grammar import Grammar
+from treewright.head_conventions import content_heads
 from treewright.inference import viterbi_parse
 from treewright.trees import Tree
 
@@ -60,6 +65,7 @@ TAG_COLUMNS = ("XPOS", "UPOS")
 HEAD_RULES = ("auto", "left", "right")
 ROOT_RELATION = "root"
 MODEL_HEADS = "lexicalized model"   # the head_rule comment of heads a lexicalized model chose
+CONTENT_NOTE = ", function words as dependents"   # added to it by a function-word test
 RELATION = "dep"
 _COLUMNS = ("ID", "FORM", "LEMMA", "UPOS", "XPOS", "FEATS", "HEAD", "DEPREL", "DEPS", "MISC")
 
@@ -208,16 +214,17 @@ def dependency_heads(tree: Tree, rule: HeadRule) -> list[int]:
 
 
 def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
-              rule: HeadRule) -> str:
+              rule: HeadRule, function: Callable[[str], bool] | None = None) -> str:
     """The CoNLL-U text (see the module docstring). tag_column: "XPOS" (default) or "UPOS".
     rule: the head rule, from `head_rule` (the default choice, "auto", needs the grammar whose
-    symbols label the trees)."""
+    symbols label the trees). function: whether a word is a function word, to write the heads
+    in the content-head convention (None: as the rule or the model gives them)."""
     where = _tag_index(tag_column)
     blocks = []
     for p in parsed:
         if p.blank:
             continue  # no CoNLL-U sentence has no words; sent_id keeps the lines apart
-        comments, tags, heads = _induced(p, rule)
+        comments, tags, heads = _induced(p, rule, function)
         lines = [f"# sent_id = {p.line}", f"# text = {' '.join(p.words)}", *comments]
         for k, (word, tag, head) in enumerate(zip(p.words, tags, heads), start=1):
             row = [str(k), word] + ["_"] * 8
@@ -232,18 +239,18 @@ def to_conllu(parsed: Sequence[ParsedSentence], tag_column: str = "XPOS", *,
 
 
 def fill_parsed_conllu(path: str, parsed: Sequence[ParsedSentence], tag_column: str = "XPOS",
-                       *, rule: HeadRule) -> str:
+                       *, rule: HeadRule, function: Callable[[str], bool] | None = None) -> str:
     """The CoNLL-U file at `path`, whose sentence blocks `parsed` are (one each, in order,
     as `cli.common.read_lines` reads them), with the columns and comments `to_conllu` writes
     filled in: the induced preterminal in `tag_column`, HEAD, DEPREL (`root`, `dep`), and the
     `induced_tree` (or `parse = none`) and `head_rule` comments after the block's own. Every
     other line and column stays as read (`sent_id`, `text`, multiword-token lines, empty nodes,
     LEMMA, the other tag column, FEATS, DEPS, MISC), so nothing of the input is lost
-    (`export.heads.fill_heads_conllu`)."""
+    (`export.heads.fill_heads_conllu`). function: as for `to_conllu`."""
     from treewright.export.heads import fill_heads_conllu
 
     where = _tag_index(tag_column)
-    induced = [_induced(p, rule) for p in parsed if not p.blank]
+    induced = [_induced(p, rule, function) for p in parsed if not p.blank]
     heads = [None if any(h is None for h in mine) else list(mine) for _, _, mine in induced]
     return fill_heads_conllu(path, heads, relations=(ROOT_RELATION, RELATION),
                              tags=[tags for _, tags, _ in induced], tag_column=where,
@@ -257,20 +264,21 @@ def _tag_index(tag_column: str) -> int:
     return _COLUMNS.index(tag_column)
 
 
-def _induced(p: ParsedSentence, rule: HeadRule
+def _induced(p: ParsedSentence, rule: HeadRule, function: Callable[[str], bool] | None = None
              ) -> tuple[list[str], list[str], list[int | None]]:
     """(comments, tags, heads) of one parsed sentence: `induced_tree` and `head_rule`, or
-    `parse = none` with `_` tags and no heads."""
+    `parse = none` with `_` tags and no heads; with `function`, the heads in the content-head
+    convention."""
     if p.tree is None:
         return ["# parse = none"], ["_"] * len(p.words), [None] * len(p.words)
     # Written in the treebank's form (`decode.treebank_tree`), as `to_brackets` writes it; the
     # heads come from the grammar's own tree, whose symbols the rule names.
     shown = treebank_tree(p.tree, p.treebank)
     comments = [f"# induced_tree = {shown.to_string()}"]
-    if p.heads is not None:
-        comments.append(f"# head_rule = {MODEL_HEADS}")
-        heads: list[int | None] = list(p.heads)
-    else:
-        comments.append(f"# head_rule = {rule.name}")
-        heads = list(dependency_heads(p.tree, rule))
-    return comments, induced_tags(shown), heads
+    name, given = (MODEL_HEADS, list(p.heads)) if p.heads is not None else \
+        (rule.name, dependency_heads(p.tree, rule))
+    if function is not None:
+        given = content_heads(p.tree, given, [function(w) for w in p.words])
+        name += CONTENT_NOTE
+    comments.append(f"# head_rule = {name}")
+    return comments, induced_tags(shown), list(given)
