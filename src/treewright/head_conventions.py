@@ -12,10 +12,10 @@ listed word heads a phrase whose other part is headed by a content word, gives t
 that content word instead, as conversions between the two conventions do (common practice in
 treebank conversion).
 
-`read_function_words` reads the list: a word file, or `ud-function` for the function-word tags of
-Universal Dependencies (a model trained on tags). Punctuation, as `evaluate` recognizes it by
-default, always counts as a function word: it attaches to its clause's head in Universal
-Dependencies and never heads.
+`read_function_words` reads the list: a word file, or `ud-function` for the function-word tags
+of Universal Dependencies (`corpus.UD_FUNCTION_TAGS`; a model trained on tags). Punctuation, as
+`evaluate` recognizes it by default, always counts as a function word: it attaches to its
+clause's head in Universal Dependencies and never heads.
 """
 
 from __future__ import annotations
@@ -23,18 +23,12 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Iterable, Sequence
 
-from treewright.corpus import iter_lines
+from treewright.corpus import UD_FUNCTION, UD_FUNCTION_TAGS, iter_lines
 from treewright.errors import InputError
 from treewright.evaluation.brackets import DEFAULT_PUNCTUATION_TAGS, DEFAULT_PUNCTUATION_TOKENS
 from treewright.trees import Tree
 
-# The Universal Dependencies tags of function words, the words that attach to the content word
-# of their phrase (de Marneffe et al. 2021; the relations aux, cop, case, mark, det, cc and
-# punct), and the names the older universal tagset gives the same classes (Petrov, Das &
-# McDonald 2012, "A Universal Part-of-Speech Tagset": CONJ, PRT and "." for conjunctions,
-# particles and punctuation), which some treebanks still use.
-UD_FUNCTION = "ud-function"
-UD_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT", "CONJ", "PRT", ".")
+# Words and tags that always count as function words: punctuation as `evaluate` knows it.
 PUNCTUATION = DEFAULT_PUNCTUATION_TOKENS | DEFAULT_PUNCTUATION_TAGS
 
 

@@ -18,7 +18,8 @@ from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binar
                                           collapse_unary, expand_unary, has_transform_marks,
                                           insert_words,
                                           treebank_form, unbinarize)
-from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, Corpus, ReadOptions,
+from treewright.corpus.types import (CASE_RULES, PTB_PUNCT_LABELS, REASONS, UD_FUNCTION,
+                                     UD_FUNCTION_TAGS, Corpus, ReadOptions,
                                      ReadReport, Sentence, SkippedRecord, lowercase,
                                      normalization_note, normalization_variants,
                                      run_case_rules, run_drop_tags, run_read_options,
@@ -28,6 +29,7 @@ from treewright.corpus.walk import depth, trees_equal
 __all__ = [
     "BIN_MARK", "BracketRecord", "CASE_RULES", "Corpus", "CorpusStream", "DependencySentence",
     "FORMATS", "PARENT_SEP", "PTB_PUNCT_LABELS", "REASONS", "ReadOptions", "ReadReport",
+    "UD_FUNCTION", "UD_FUNCTION_TAGS",
     "Sentence", "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
     "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary", "has_transform_marks",
     "insert_words", "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "length_batches",

@@ -70,6 +70,15 @@ def run_tag_mode(data) -> bool:
 # list in unsupervised-parsing evaluation). Pass it as `ReadOptions.punct_labels` to drop them.
 PTB_PUNCT_LABELS = frozenset({",", ".", ":", "``", "''", "-LRB-", "-RRB-", "#", "$"})
 
+# The Universal Dependencies tags of function words, the words that attach to the content word
+# of their phrase (de Marneffe et al. 2021, "Universal Dependencies", Computational Linguistics
+# 47(2); the relations aux, cop, case, mark, det, cc and punct), and the names the older
+# universal tagset gives the same classes (Petrov, Das & McDonald 2012, "A Universal
+# Part-of-Speech Tagset": CONJ, PRT and "." for conjunctions, particles and punctuation), which
+# some treebanks still use. UD_FUNCTION names them in `bias.head_list` and `--function-words`.
+UD_FUNCTION = "ud-function"
+UD_FUNCTION_TAGS = ("ADP", "AUX", "CCONJ", "DET", "PART", "SCONJ", "PUNCT", "CONJ", "PRT", ".")
+
 
 @dataclass
 class ReadOptions:

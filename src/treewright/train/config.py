@@ -13,7 +13,7 @@ from typing import Literal, Sequence
 
 from treewright.config import (ConfigError, ConfigProblem, config_from_dict, load_config,
                                option)
-from treewright.head_conventions import UD_FUNCTION  # bias.head_list's name for UD's function tags
+from treewright.corpus import UD_FUNCTION   # bias.head_list's name for UD's function tags
 
 
 @dataclass

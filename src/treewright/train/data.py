@@ -15,12 +15,11 @@ from typing import Callable, Sequence
 import torch
 from torch import Tensor
 
-from treewright.corpus import (ReadOptions, normalization_note, normalization_variants,
-                               read_corpus)
+from treewright.corpus import (UD_FUNCTION, UD_FUNCTION_TAGS, ReadOptions, normalization_note,
+                               normalization_variants, read_corpus)
 from treewright.corpus.lines import iter_lines
 from treewright.engine.memory import inside_outside_bytes
 from treewright.errors import InputError
-from treewright.head_conventions import UD_FUNCTION, UD_FUNCTION_TAGS
 from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
 from treewright.train.config import TrainConfig
