@@ -17,7 +17,7 @@ References:
 
 from __future__ import annotations
 
-import importlib.util
+import importlib
 import random
 import sys
 from pathlib import Path
@@ -32,11 +32,7 @@ from treewright.trees import Tree
 
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO / "scripts"))
-_spec = importlib.util.spec_from_file_location("make_headed_language",
-                                               REPO / "scripts" / "make_headed_language.py")
-headed = importlib.util.module_from_spec(_spec)
-sys.modules.setdefault("make_headed_language", headed)
-_spec.loader.exec_module(headed)
+headed = importlib.import_module("make_headed_language")
 
 
 def _tags(tree: Tree) -> list[str]:

@@ -23,7 +23,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Iterable, Sequence
 
-from treewright.corpus import UD_FUNCTION, UD_FUNCTION_TAGS, iter_lines
+from treewright.corpus import UD_FUNCTION, UD_FUNCTION_TAGS, iter_word_list
 from treewright.errors import InputError
 from treewright.evaluation.brackets import DEFAULT_PUNCTUATION_TAGS, DEFAULT_PUNCTUATION_TOKENS
 from treewright.trees import Tree
@@ -40,10 +40,7 @@ def read_function_words(source: str | Path) -> frozenset[str]:
     if str(source) == UD_FUNCTION:
         return frozenset(UD_FUNCTION_TAGS) | PUNCTUATION
     words = set()
-    for number, line in iter_lines(source):
-        fields = line.split()
-        if not fields or fields[0].startswith("#"):
-            continue
+    for number, fields, line in iter_word_list(source):
         if len(fields) > 1:
             raise InputError(f"one function word per line, found {len(fields)} fields: "
                              f"{line.strip()!r}", path=str(source), line=number)

@@ -11,7 +11,7 @@ from treewright.corpus.brackets import (BracketRecord, clean_tree, iter_bracket_
 from treewright.corpus.dependencies import (DependencySentence, check_tree, dependency_to_tree,
                                             iter_conllu_blocks, lift_to_projective,
                                             nonprojective_arcs, subtree_spans)
-from treewright.corpus.lines import iter_lines
+from treewright.corpus.lines import iter_lines, iter_word_list
 from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, read_corpus,
                                       read_records, read_tagged, write_skip_log)
 from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binarize,
@@ -32,7 +32,8 @@ __all__ = [
     "UD_FUNCTION", "UD_FUNCTION_TAGS",
     "Sentence", "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
     "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary", "has_transform_marks",
-    "insert_words", "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "length_batches",
+    "insert_words", "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "iter_word_list",
+    "length_batches",
     "lift_to_projective", "lowercase", "nonprojective_arcs", "normalization_note",
     "normalization_variants", "parse_brackets", "preterminal_tags",
     "read_corpus", "read_records", "read_tagged", "run_case_rules", "run_drop_tags",

@@ -56,3 +56,13 @@ def iter_lines(path: str | os.PathLike) -> Iterator[tuple[int, str]]:
             for piece in text.split("\r"):
                 number += 1
                 yield number, piece
+
+
+def iter_word_list(path: str | os.PathLike) -> Iterator[tuple[int, list[str], str]]:
+    """(1-based line number, whitespace-separated fields, the line) for every line of a word
+    list (`bias.head_list`, `--function-words`) that is neither blank nor a comment (its first
+    field starts with #). Raises as `iter_lines`."""
+    for number, line in iter_lines(path):
+        fields = line.split()
+        if fields and not fields[0].startswith("#"):
+            yield number, fields, line

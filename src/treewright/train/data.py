@@ -17,7 +17,7 @@ from torch import Tensor
 
 from treewright.corpus import (UD_FUNCTION, UD_FUNCTION_TAGS, ReadOptions, normalization_note,
                                normalization_variants, read_corpus)
-from treewright.corpus.lines import iter_lines
+from treewright.corpus.lines import iter_word_list
 from treewright.engine.memory import inside_outside_bytes
 from treewright.errors import InputError
 from treewright.params import PARAMETERIZATIONS
@@ -168,10 +168,7 @@ def read_head_list(path: str | Path, lowercase: bool) -> list[tuple[str, float |
     lowercased with the training text. InputError (naming the line) for a line of three or more
     fields or a weight that is not a finite number, and for a file with no word."""
     entries: list[tuple[str, float | None]] = []
-    for number, line in iter_lines(path):
-        fields = line.split()
-        if not fields or fields[0].startswith("#"):
-            continue
+    for number, fields, line in iter_word_list(path):
         if len(fields) > 2:
             raise InputError(f"a word and at most one weight per line, found {len(fields)} "
                              f"fields: {line.strip()!r}", path=str(path), line=number)
