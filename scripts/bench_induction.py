@@ -823,8 +823,8 @@ def main(argv: list[str] | None = None) -> dict:
     args.function_words = function_word_set(args.function_words, args.data, args.mode, data)
     if args.function_words is not None:
         listed = sorted(args.function_words - PUNCTUATION)
-        print(f"function words ({args.function_words_source}): {len(listed)}, punctuation "
-              f"besides: {' '.join(listed[:40])}{' ...' if len(listed) > 40 else ''}",
+        print(f"function words ({args.function_words_source}): {len(listed)} besides "
+              f"punctuation: {' '.join(listed[:40])}{' ...' if len(listed) > 40 else ''}",
               flush=True)
     if data.train_written is not None:
         # Turkish: the trainer reads the written words (or their tags, in tag mode) and where
