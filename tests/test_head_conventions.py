@@ -5,8 +5,9 @@ References:
 - recovery on the invented languages of scripts/make_headed_language.py (a known generating
   grammar gives the truth): their true heads follow Universal Dependencies (content words head,
   function words and the final mark depend on them), and the same drawn trees headed the other
-  way, each function word heading the phrase it closes or opens (the convention of older
-  dependency treebanks), must convert back to exactly the true heads;
+  way, each function word heading the phrase it closes or opens (as some treebanks head
+  them: the benchmark's Turkish treebank heads its postpositional phrases so), must convert
+  back to exactly the true heads;
 - hand-worked cases of the Universal Dependencies guidelines' treatment of function words
   (de Marneffe et al. 2021; from memory): an adposition attaches to its noun, a multiword
   function expression stays one unit under the content word, punctuation attaches to the
