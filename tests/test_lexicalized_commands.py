@@ -6,7 +6,9 @@ One tiny run is trained once for the module (60 sentences of the invented head-f
 of scripts/make_headed_language.py, three epochs, small sizes); its gold test file carries the
 language's true heads. References: `decode.decode_heads` called directly (the heads), the
 `conllu` package reading the written file (the columns kept), `evaluate_attachment` called
-directly (the scores), and dense score tables formed by explicit loops (the listed pairs).
+directly (the scores), and dense score tables formed by explicit loops (the listed pairs). For
+`--function-words`, the model's heads converted by `head_conventions.content_heads` (checked by
+recovery of the invented languages' true heads in tests/test_head_conventions.py).
 """
 
 from __future__ import annotations
