@@ -95,13 +95,14 @@ def trained_on_tags(source) -> bool:
     return run_tag_mode(config.get("data") if isinstance(config, dict) else None)
 
 
-def training_normaliser(source):
+def training_normaliser(source, note: bool = True):
     """How the grammar's training run normalised its words, as a function, or None.
 
     source: an `export.GrammarSource`. A run folder or JSON export records its training config;
     with `data.lowercase` the words were lowercased (by `data.case_rules`), and a note goes to
-    standard error. A tag-mode run never lowercased its tokens (tags are case-significant), and
-    a bare grammar file records nothing: for both the tokens are taken as written (None).
+    standard error (unless `note` is false). A tag-mode run never lowercased its tokens (tags
+    are case-significant), and a bare grammar file records nothing: for both the tokens are
+    taken as written (None).
     """
     from treewright.corpus import lowercase, run_read_options
     config = (source.training or {}).get("config")
@@ -109,8 +110,9 @@ def training_normaliser(source):
     if options.tag_mode or not options.lowercase:
         return None
     rules = options.case_rules
-    print("lowercasing the input words, as the grammar's training run did (data.lowercase, "
-          f"{rules} case rules)", file=sys.stderr)
+    if note:
+        print("lowercasing the input words, as the grammar's training run did (data.lowercase, "
+              f"{rules} case rules)", file=sys.stderr)
     return lambda word: lowercase(word, rules)
 
 
@@ -130,18 +132,14 @@ def function_words_as_trained(spec: str, source, on_tags: bool) -> frozenset[str
     (lowercased by its case rules; tags never are), punctuation included. source: an
     `export.GrammarSource`; on_tags: the grammar reads tags. InputError for `ud-function` on a
     grammar trained on words."""
-    from treewright.corpus import lowercase, run_read_options
     from treewright.head_conventions import UD_FUNCTION, read_function_words
     if spec == UD_FUNCTION and not on_tags:
         raise InputError(f"--function-words {UD_FUNCTION} names Universal Dependencies tags, "
                          "but the grammar was trained on words: list the language's function "
                          "words in a file, one per line")
     words = read_function_words(spec)
-    config = (source.training or {}).get("config")
-    options = run_read_options(config.get("data") if isinstance(config, dict) else None)
-    if on_tags or options.tag_mode or not options.lowercase:
-        return words
-    return frozenset(lowercase(w, options.case_rules) for w in words)
+    normalise = None if on_tags else training_normaliser(source, note=False)
+    return words if normalise is None else frozenset(map(normalise, words))
 
 
 def read_as_run_read(path: str, source) -> tuple[list[tuple[int, list[str]]],
