@@ -174,6 +174,11 @@ BAD_CONLLU = [
     ("\n\n1\tOsk\tosk\tNOUN\t_\t_\t2\tnsubj\t_\t_\n2\ttame\ttame\tADJ\t_\t_\t1\tamod\t_\t_\n",
      3, "cycle"),
     ("1\tOsk\tosk\tNOUN\t_\t_\tq\troot\t_\t_\n", 1, "cannot read"),
+    # A head out of range or a word its own head is named at that word's line.
+    ("1\tOsk\tosk\tNOUN\t_\t_\t0\troot\t_\t_\n2\ttame\ttame\tADJ\t_\t_\t7\tamod\t_\t_\n", 2,
+     "word 2 has head 7, outside 0..2"),
+    ("1\tOsk\tosk\tNOUN\t_\t_\t0\troot\t_\t_\n2\ttame\ttame\tADJ\t_\t_\t2\tamod\t_\t_\n", 2,
+     "word 2 is its own head"),
 ]
 
 

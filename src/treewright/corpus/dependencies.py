@@ -53,12 +53,20 @@ def _children(heads: list[int]) -> list[list[int]]:
 
 def check_tree(heads: list[int]) -> str | None:
     """None if `heads` is a tree rooted at 0, else a sentence saying what is wrong."""
+    found = tree_problem(heads)
+    return None if found is None else found[1]
+
+
+def tree_problem(heads: list[int]) -> tuple[int, str] | None:
+    """None if `heads` is a tree rooted at 0, else the word (1-based) to point at and a sentence
+    saying what is wrong: the word whose head is out of range or itself, or the first word of a
+    cycle."""
     n = len(heads)
     for dep, head in enumerate(heads, start=1):
         if not 0 <= head <= n:
-            return f"word {dep} has head {head}, outside 0..{n}"
+            return dep, f"word {dep} has head {head}, outside 0..{n}"
         if head == dep:
-            return f"word {dep} is its own head"
+            return dep, f"word {dep} is its own head"
     # Every word must reach the root; follow heads with a visited mark (no recursion).
     state = [0] * (n + 1)  # 0 unseen, 1 on the current path, 2 reaches the root
     state[0] = 2
@@ -70,7 +78,8 @@ def check_tree(heads: list[int]) -> str | None:
             path.append(node)
             node = heads[node - 1]
         if state[node] == 1:
-            return f"the heads of words {sorted(path[path.index(node):])} form a cycle"
+            cycle = sorted(path[path.index(node):])
+            return cycle[0], f"the heads of words {cycle} form a cycle"
         for p in path:
             state[p] = 2
     return None
@@ -245,9 +254,10 @@ def _parse_block(block: list[tuple[int, str]], path: str) -> DependencySentence 
         return InputError(f"word {missing[0] + 1} has no head (`_`), but other words have one; "
                           "give every word a head, or none for text that is only tokenized",
                           path, word_lines[missing[0]], 1)
-    problem = check_tree(heads)
-    if problem is not None:
-        return InputError(f"not a dependency tree: {problem}", path, first, 1)
+    problem = tree_problem(heads)
+    if problem is not None:   # named at the line of the word it concerns
+        word, what = problem
+        return InputError(f"not a dependency tree: {what}", path, word_lines[word - 1], 1)
     return DependencySentence(words, upos, heads, first, sent_id, joined, contracted_or_none,
                               in_token)
 
