@@ -119,8 +119,12 @@ def restart_record(restart: int, path: Path, dev: dict, objective: float | None
     record = {"restart": restart, "grammar": path.name,
               "dev_loglik_per_word": dev.get("dev/loglik_per_word"),
               "final_objective_per_word": objective}
-    return record, (f"restart {restart} finished: dev log-likelihood per word "
-                    f"{dev.get('dev/loglik_per_word')}, training objective per word {objective}")
+    held = dev.get("dev/loglik_per_word")
+    dev_note = "no dev log-likelihood" if held is None else \
+        f"dev log-likelihood per word {held:.4f}"
+    trained = "none" if objective is None else f"{objective:.4f}"
+    return record, (f"restart {restart} finished: {dev_note}, training objective per word "
+                    f"{trained}")
 
 
 def finish_run(folder: RunFolder, finished: list[dict], by_dev: bool,
