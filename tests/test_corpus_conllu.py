@@ -179,6 +179,9 @@ BAD_CONLLU = [
      "word 2 has head 7, outside 0..2"),
     ("1\tOsk\tosk\tNOUN\t_\t_\t0\troot\t_\t_\n2\ttame\ttame\tADJ\t_\t_\t2\tamod\t_\t_\n", 2,
      "word 2 is its own head"),
+    # A cycle is named at its first word (here the second of the sentence).
+    ("1\tOsk\tosk\tNOUN\t_\t_\t0\troot\t_\t_\n2\ttame\ttame\tADJ\t_\t_\t3\tamod\t_\t_\n"
+     "3\tvel\tvel\tADJ\t_\t_\t2\tamod\t_\t_\n", 2, "words [2, 3] form a cycle"),
 ]
 
 
