@@ -207,11 +207,15 @@ def _config(tmp_path, train, mode, fmt="conllu"):
 
 
 def test_training_data_carries_the_constraint_only_where_the_text_marks_splits(tmp_path):
+    from treewright.train.data import summary
     path = write(tmp_path, TOKENIZED * 3)
     data = load_data(_config(tmp_path, path, "host-last"))
     assert data.pieces == ("last", [[3, 6, 8, 9]] * 3)
     assert any("host comes last, as configured" in n for n in data.notes)
+    # The run folder's data summary records the side as data, beside the note.
+    assert summary(data)["word_pieces_host"] == "last"
     assert load_data(_config(tmp_path, path, "none")).pieces is None
+    assert summary(load_data(_config(tmp_path, path, "none")))["word_pieces_host"] is None
     # auto on three sentences: too few split words to read a side from, so nothing is barred.
     auto = load_data(_config(tmp_path, path, "auto"))
     assert auto.pieces is None and any("fewer than 20 split words" in n for n in auto.notes)

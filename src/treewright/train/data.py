@@ -249,7 +249,10 @@ def summary(data: TrainData) -> dict:
             "train_sentences": len(train),
             "train_words": None if isinstance(train, StreamedCorpus) else sum(map(len, train)),
             "dev_sentences": len(data.dev_ids), "dev_words": sum(map(len, data.dev_ids)),
-            "dev_trees": data.dev_trees is not None}
+            "dev_trees": data.dev_trees is not None,
+            # "first" or "last": the end of a split written word that holds its host, as the
+            # word-piece constraint found or was told it; None: no constraint
+            "word_pieces_host": None if data.pieces is None else data.pieces[0]}
 
 
 class MemoryBudget:
