@@ -27,6 +27,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Sequence
 
+import torch
+from torch import Tensor
+
 HOST_SIDES = ("first", "last")
 MIN_SPLIT_WORDS = 20    # fewer split written words than this say nothing about the host side
 MIN_RATIO = 1.25        # one end's free share must be this many times the other's
@@ -124,3 +127,20 @@ def barred_positions(joined: Sequence[bool] | None) -> list[int]:
     two or more words may start at k; with the host last, none may end just before k (its
     exclusive end is k). Either way the piece is not cut from its host."""
     return [] if joined is None else [k for k, j in enumerate(joined) if j and k > 0]
+
+
+def piece_mask(side: str, barred: Sequence[Sequence[int]], n: int, dtype: torch.dtype) -> Tensor:
+    """(B, n+1, n+1) [start, width] log-potentials: -inf on every span of width >= 2 that starts
+    at a barred position (side "first": the host is the first piece of a written word) or ends
+    just before one (side "last"), 0 elsewhere: the constraint as training and decoding apply
+    it. `barred`: per sentence, `barred_positions` of its joins."""
+    pot = torch.zeros(len(barred), n + 1, n + 1, dtype=dtype)
+    widths = torch.arange(n + 1)
+    for b, positions in enumerate(barred):
+        for k in positions:
+            if side == "first":
+                pot[b, k, 2:] = float("-inf")
+            else:
+                w = widths[2:k + 1]                          # spans (k - w, k) of width >= 2
+                pot[b, k - w, w] = float("-inf")
+    return pot

@@ -628,10 +628,13 @@ def log_unscaled(scaled: Tensor, log_scale: Tensor) -> Tensor:
 
 
 def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
-                nt_terminal: Tensor | None = None, log_scores: bool = True) -> SpanTables:
+                nt_terminal: Tensor | None = None, log_scores: bool = True,
+                span_pot: Tensor | None = None) -> SpanTables:
     """Label marginals, inside and outside scores of every span, batched (arguments as in
     `log_partition`; one grammar for the batch). With `log_scores` False only the marginals
-    and log Z are made (inside and outside None).
+    and log Z are made (inside and outside None). With `span_pot` every score is that of the
+    potential-weighted trees, as `log_partition` sums them: -inf on a span leaves out every
+    tree that holds it (its marginal is 0, and log Z sums the trees that remain).
 
     One inside pass and the outside pass of `_LogPartition` (asked for the adjoint chart and
     the word gradient only): a cell's adjoint `adj` is d log Z / d scaled_inside, so
@@ -644,7 +647,7 @@ def span_tables(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
     B, N, T = terminal.shape
     NT = binary.shape[0]
     with torch.no_grad():
-        chart, saved, rules = _fill(binary, terminal, nt_terminal, None, keep=True)
+        chart, saved, rules = _fill(binary, terminal, nt_terminal, span_pot, keep=True)
         logz, top, top_scale, pi, total = _root_scores(chart, root, lengths)
         adjoints: dict = {}
         grad_terminal = _outside(binary, lengths, chart, saved, rules, top, top_scale, pi,

@@ -20,6 +20,7 @@ from treewright.params.compound import (compound_log_partition, compound_span_po
 from treewright.params.independent import IndependentRules
 from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
+from treewright.word_pieces import piece_mask
 
 # Re-exported: the engine-facing helpers moved to the parameterizations (params.base,
 # params.compound); tests and benchmarks import them from here.
@@ -68,22 +69,6 @@ def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
         pot = piece_mask(pieces[0], [pieces[1][i] for i in indices], n, dtype)
         span_pot = pot if span_pot is None else span_pot + pot
     return Batch(list(indices), ids, lengths, span_pot)
-
-
-def piece_mask(side: str, barred: Sequence[Sequence[int]], n: int, dtype: torch.dtype) -> Tensor:
-    """(B, n+1, n+1) [start, width] log-potentials: -inf on every span of width >= 2 that starts
-    at a barred position (side "first": the host is the first piece of a written word) or ends
-    just before one (side "last"), 0 elsewhere. See `treewright.word_pieces`."""
-    pot = torch.zeros(len(barred), n + 1, n + 1, dtype=dtype)
-    widths = torch.arange(n + 1)
-    for b, positions in enumerate(barred):
-        for k in positions:
-            if side == "first":
-                pot[b, k, 2:] = NEG_INF
-            else:
-                w = widths[2:k + 1]                          # spans (k - w, k) of width >= 2
-                pot[b, k - w, w] = NEG_INF
-    return pot
 
 
 def edge_bias(lengths: Tensor, n: int, right_edge: float, left_edge: float,
