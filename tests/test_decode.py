@@ -19,8 +19,8 @@ import torch
 from treewright import decode as decode_module
 from treewright import inference
 from treewright.engine import maxplus
-from treewright.decode import (TreeScorer, coarse_name, decode, max_rule_product, mbr_decode,
-                               mbr_spans, span_tables, tree_logprob_summed)
+from treewright.decode import (TreeScorer, coarse_name, consensus, decode, max_rule_product,
+                               mbr_decode, mbr_spans, span_tables, tree_logprob_summed)
 from _grammars import random_grammar
 from treewright.grammar import Grammar
 from treewright.trees import Tree, tree_from_spans
@@ -46,8 +46,9 @@ def bracketings(i: int, j: int) -> tuple:
     return tuple(out)
 
 
-def all_trees(g: Grammar, words):
-    """(probability, binary nodes [(i, k, j, A, B, C)], word labels, top) of every fine tree."""
+def all_trees(g: Grammar, words, keep=None):
+    """(probability, binary nodes [(i, k, j, A, B, C)], word labels, top) of every fine tree
+    (whose bracketing `keep` accepts, when given)."""
     symbols = g.symbols
     nt = len(g.nonterminals)
     ids = g.vocab.encode(words)
@@ -55,6 +56,8 @@ def all_trees(g: Grammar, words):
     emitters = [x for x in range(len(symbols)) if bool(torch.isfinite(g.lexical[x]).any())]
     leaf_choices = [x for x in emitters if x < nt] if n == 1 else emitters
     for brackets in bracketings(0, n):
+        if keep is not None and not keep(brackets):
+            continue
         for internal in itertools.product(range(nt), repeat=len(brackets)):
             for leaves in itertools.product(leaf_choices, repeat=n):
                 label = {(i, i + 1): leaves[i] for i in range(n)}
@@ -143,11 +146,12 @@ def test_viterbi_decoder_is_the_most_probable_tree():
         assert result.posterior == pytest.approx(best / total, abs=1e-10)
 
 
-def coarse_trees(g, words, spans=None):
+def coarse_trees(g, words, spans=None, keep=None):
     """Brute force max-rule-product scores: anchored coarse-rule posteriors from the tree list,
     then (log score, labeled spans sorted) of every coarse tree, over every bracketing and
     coarse labeling (over the bracketing whose spans (i, j) of two or more words are `spans`,
-    when given); a tree with a zero factor scores -inf."""
+    when given; over the trees and bracketings `keep` accepts, when given); a tree with a zero
+    factor scores -inf."""
     symbols = g.symbols
     nt = len(g.nonterminals)
     cname = [coarse_name(s) for s in symbols]
@@ -156,7 +160,7 @@ def coarse_trees(g, words, spans=None):
     word_q = defaultdict(float)   # (i, x) coarse
     top_q = defaultdict(float)
     total = 0.0
-    for p, nodes, leaves, top in all_trees(g, words):
+    for p, nodes, leaves, top in all_trees(g, words, keep):
         total += p
         for i, k, j, a, b, c in nodes:
             rule_q[(i, k, j, cname[a], cname[b], cname[c])] += p
@@ -167,6 +171,8 @@ def coarse_trees(g, words, spans=None):
     everyone = sorted(set(cname))
     for brackets in bracketings(0, n):
         if spans is not None and sorted((i, j) for i, _, j in brackets) != sorted(spans):
+            continue
+        if keep is not None and not keep(brackets):
             continue
         for internal in itertools.product(parents, repeat=len(brackets)):
             for leaves in itertools.product(everyone, repeat=n):
@@ -181,11 +187,11 @@ def coarse_trees(g, words, spans=None):
                        sorted((i, j, a) for (i, j), a in label.items()))
 
 
-def coarse_objective(g, words, spans=None):
+def coarse_objective(g, words, spans=None, keep=None):
     """Brute force max-rule-product: the best coarse tree's log score and labeled spans (the
     first of equal ones, in `coarse_trees` order)."""
     best, best_tree = -math.inf, None
-    for value, labeled in coarse_trees(g, words, spans):
+    for value, labeled in coarse_trees(g, words, spans, keep):
         if value > best:
             best, best_tree = value, labeled
     return best, best_tree
@@ -713,3 +719,93 @@ def test_lowrank_max_rule_product_refuses_posteriors_too_flat_for_it(monkeypatch
                                          r".*decode with mbr"):
         decode_module.decode_factored(rules, vocab, nonterminals, preterminals, sentence,
                                       decoder="max-rule-product")
+
+
+# ---- decoding under the word-piece constraint (treewright.word_pieces) -----------------------
+
+PIECE_WORDS = ["w2", "w0", "w1", "w0", "w2"]
+PIECE_BARRED = [1, 3, 4]        # written words (0, 2) and (2, 5): barred_positions of the joins
+
+
+def allowed_by(side: str, barred):
+    """The bracketings the constraint allows: no span of two or more words starts at a barred
+    position (host first) or ends just before one (host last)."""
+    def keep(brackets) -> bool:
+        return not any((i if side == "first" else j) in barred for i, _, j in brackets)
+    return keep
+
+
+def spans_of(tree) -> set:
+    return {(i, j) for i, j, _ in tree.labeled_spans() if j - i >= 2}
+
+
+@pytest.mark.parametrize("side", ["first", "last"])
+def test_viterbi_and_mbr_under_the_word_piece_constraint_match_enumeration(side):
+    # Brute force over the trees the constraint allows (the constraint as tests/
+    # test_word_pieces.py checks that training sums it): their most probable tree, their
+    # summed probability, and the allowed bracketing with the most expected correct spans.
+    from treewright.word_pieces import barred_positions
+    assert barred_positions([False, True, False, True, True]) == PIECE_BARRED
+    g = make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5)
+    words, n = PIECE_WORDS, len(PIECE_WORDS)
+    keep = allowed_by(side, PIECE_BARRED)
+    assert 0 < sum(map(keep, bracketings(0, n))) < len(bracketings(0, n))
+    allowed = list(all_trees(g, words, keep))
+    total = sum(p for p, *_ in allowed)
+    pieces = (side, [PIECE_BARRED])
+    best = decode(g, [words], "viterbi", pieces=pieces)[0]
+    assert best.tree_logprob == pytest.approx(math.log(max(p for p, *_ in allowed)), abs=1e-10)
+    assert best.log_likelihood == pytest.approx(math.log(total), abs=1e-10)
+    span_p = defaultdict(float)
+    for p, nodes, _, _ in allowed:
+        for i, _, j, *_ in nodes:
+            span_p[(i, j)] += p / total
+    expect = max(sum(span_p[(i, j)] for i, _, j in b) for b in bracketings(0, n) if keep(b))
+    result = decode(g, [words], "mbr", pieces=pieces)[0]
+    assert result.score == pytest.approx(expect, abs=1e-10)
+    assert result.log_likelihood == pytest.approx(math.log(total), abs=1e-10)
+    for tree in (best.tree, result.tree):
+        assert keep([(i, None, j) for i, j in spans_of(tree)])
+    # The unconstrained decoders pick a barred tree here, so the constraint did something.
+    free = decode(g, [words], "mbr")[0]
+    assert not keep([(i, None, j) for i, j in spans_of(free.tree)])
+
+
+@pytest.mark.parametrize("side", ["first", "last"])
+@pytest.mark.parametrize("refined", [True, False], ids=["refined", "unrefined"])
+def test_max_rule_product_under_the_word_piece_constraint_matches_enumeration(side, refined):
+    # Brute force (`coarse_objective`) with the rule posteriors and the candidate trees both
+    # taken over the allowed trees alone, on a refined grammar and on an unrefined one (whose
+    # pass is the max-semiring one). Written word (1, 3): position 2 barred, which bars the
+    # tree max-rule-product takes on the refined grammar without the constraint.
+    grammar = REFINED if refined else make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5)
+    words, barred = PIECE_WORDS[:4], [2]
+    keep = allowed_by(side, barred)
+    if refined:
+        free = decode(grammar, [words], "max-rule-product")[0]
+        assert not keep([(i, None, j) for i, j in spans_of(free.tree)])
+    expect_value, expect_spans = coarse_objective(grammar, words, keep=keep)
+    result = decode(grammar, [words], "max-rule-product", pieces=(side, [barred]))[0]
+    assert result.score == pytest.approx(expect_value, abs=1e-9)
+    assert sorted(result.tree.labeled_spans()) == expect_spans
+
+
+@pytest.mark.parametrize("side", ["first", "last"])
+def test_consensus_under_the_word_piece_constraint_averages_allowed_trees(side):
+    # Each grammar's constrained mbr tree votes; the average is the allowed bracketing with
+    # the most votes (brute force over bracketings), and a sentence without a barred
+    # position decodes as without the constraint.
+    grammars = [make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=s) for s in (5, 6)]
+    words, n = PIECE_WORDS, len(PIECE_WORDS)
+    keep = allowed_by(side, PIECE_BARRED)
+    voters = [spans_of(decode(g, [words], "mbr", pieces=(side, [PIECE_BARRED]))[0].tree)
+              for g in grammars]
+    most = max(sum(sum((i, j) in v for v in voters) for i, _, j in b)
+               for b in bracketings(0, n) if keep(b))
+    (result,) = consensus(grammars, [words], pieces=(side, [PIECE_BARRED]))
+    kept = spans_of(result.tree)
+    assert keep([(i, None, j) for i, j in kept])
+    assert sum(sum(s in v for v in voters) for s in kept) == most
+    plain, free = (consensus(grammars, [["w1", "w0", "w2"]], pieces=p)[0] for p in
+                   ((side, [[]]), None))
+    assert plain.tree.to_string() == free.tree.to_string()

@@ -58,6 +58,7 @@ from treewright.params.lexicalized import LexicalizedParams
 from treewright.params.tabular import rules_to_grammar
 from treewright.trees import Tree, tree_from_spans
 from treewright.vocab import Vocabulary
+from treewright.word_pieces import piece_mask
 
 NEG_INF = float("-inf")
 DECODERS = ("viterbi", "mbr", "max-rule-product")
@@ -139,16 +140,18 @@ def tree_average(trees: Sequence[Sequence[tuple[int, int]]], length: int
 
 
 def tree_average_batch(trees: Sequence[Sequence[Sequence[tuple[int, int]]]],
-                       lengths: Sequence[int]) -> list[list[tuple[int, int]]]:
+                       lengths: Sequence[int], pot: Tensor | None = None
+                       ) -> list[list[tuple[int, int]]]:
     """`tree_average` for a batch: `trees[b]` holds sentence b's input trees (any number, at
-    least one for a sentence of two words or more), one CKY (`mbr_spans_batch`) for all."""
+    least one for a sentence of two words or more), one CKY (`mbr_spans_batch`) for all;
+    with `pot` (B, >= N+1, >= N+1), never a span where it is -inf (`_barred_out`)."""
     N = max(lengths, default=0)
     votes = torch.zeros(len(lengths), N + 1, N + 1, dtype=torch.float64)  # (B, N+1, N+1)
     for b, sentence_trees in enumerate(trees):
         for tree in sentence_trees:
             for i, j in tree:
                 votes[b, i, j - i] += 1
-    return mbr_spans_batch(votes, lengths)
+    return mbr_spans_batch(_barred_out(votes, pot), lengths)
 
 
 @dataclass
@@ -172,14 +175,14 @@ class Decoded:
 
 
 def span_tables(grammar: Grammar, sentences: Sequence[Sequence[str]],
-                dtype: torch.dtype = torch.float64, log_scores: bool = True
-                ) -> engine.SpanTables:
+                dtype: torch.dtype = torch.float64, log_scores: bool = True,
+                span_pot: Tensor | None = None) -> engine.SpanTables:
     """The engine's batched label marginals, log inside and log outside (over Z) tables of
     every symbol over every span of the sentences (see `engine.SpanTables`; the last two only
-    with `log_scores`)."""
+    with `log_scores`), over the trees `span_pot` (B, N+1, N+1) allows when given."""
     enc = encode(grammar, sentences, dtype)
     return engine.span_tables(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
-                              enc.lengths, enc.nt_terminal, log_scores)
+                              enc.lengths, enc.nt_terminal, log_scores, span_pot)
 
 
 def coarse_groups(symbols: Sequence[str]) -> tuple[list[str], Tensor]:
@@ -1267,22 +1270,43 @@ class TreeScorer:
 
 
 def _by_length(sentences: Sequence[Sequence[str]], batch_size: int,
-               decode_batch: Callable[[list[list[str]]], list[Decoded]]) -> list[Decoded]:
+               decode_batch: Callable[..., list[Decoded]],
+               pieces: tuple[str, Sequence[Sequence[int]]] | None = None) -> list[Decoded]:
     """`decode_batch` over batches of sentences of similar length; one result per sentence, in
-    input order. ValueError for an empty sentence."""
+    input order. ValueError for an empty sentence. With `pieces` (see `decode`),
+    `decode_batch(words, pot)` also takes the batch's word-piece potentials (None where the
+    batch has no barred position)."""
     for k, s in enumerate(sentences):
         if len(s) == 0:
             raise ValueError(f"sentence {k + 1} is empty")
+    if pieces is not None and len(pieces[1]) != len(sentences):
+        raise ValueError(f"{len(pieces[1])} lists of barred positions for {len(sentences)} "
+                         "sentences")
     out: list[Decoded | None] = [None] * len(sentences)
     for batch in length_batches([len(s) for s in sentences], batch_size):
-        for k, result in enumerate(decode_batch([list(sentences[i]) for i in batch])):
+        words = [list(sentences[i]) for i in batch]
+        if pieces is None:
+            results = decode_batch(words)
+        else:
+            barred = [pieces[1][i] for i in batch]
+            pot = piece_mask(pieces[0], barred, max(map(len, words)), torch.float64) \
+                if any(barred) else None
+            results = decode_batch(words, pot)
+        for k, result in enumerate(results):
             out[batch[k]] = result
     return out  # type: ignore[return-value]
 
 
 def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = "mbr",
-           batch_size: int = 16, dtype: torch.dtype = torch.float64) -> list[Decoded]:
-    """One tree per sentence, in input order, by the named decoder (see `DECODERS`)."""
+           batch_size: int = 16, dtype: torch.dtype = torch.float64,
+           pieces: tuple[str, Sequence[Sequence[int]]] | None = None) -> list[Decoded]:
+    """One tree per sentence, in input order, by the named decoder (see `DECODERS`).
+
+    `pieces`: decode under the word-piece constraint that training applies (`treewright.
+    word_pieces`): (host side "first" or "last", per sentence its `barred_positions`). Every
+    decoder then weighs only the trees that keep each bound piece with its host, so none of
+    them returns a tree that cuts one off; `log_likelihood` is then the log-probability summed
+    over those trees, and `tree_logprob` the tree's own as ever."""
     if decoder in ENSEMBLE_DECODERS:
         raise ValueError(f"the {decoder} decoder reads several grammars: call "
                          "treewright.decode.consensus(grammars, sentences)")
@@ -1292,24 +1316,29 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
     scorer = TreeScorer(grammar) if decoder != "viterbi" else None
     layout = CoarseLayout.of(grammar, dtype) if decoder == "max-rule-product" else None
     return _by_length(sentences, batch_size,
-                      lambda words: _decode_batch(grammar, words, decoder, dtype, scorer, layout))
+                      lambda words, pot=None: _decode_batch(grammar, words, decoder, dtype,
+                                                            scorer, layout, pot), pieces)
 
 
-def _decode_batch(grammar, sentences, decoder, dtype, scorer, layout) -> list[Decoded]:
+def _decode_batch(grammar, sentences, decoder, dtype, scorer, layout,
+                  pot: Tensor | None = None) -> list[Decoded]:
+    pot = None if pot is None else pot.to(dtype)
     if decoder == "viterbi":
         enc = encode(grammar, sentences, dtype)
         results = engine.viterbi(grammar.root.to(dtype), grammar.binary.to(dtype), enc.terminal,
-                                 enc.lengths, enc.nt_terminal)
+                                 enc.lengths, enc.nt_terminal, pot)
         logz = engine.log_partition(grammar.root.to(dtype), grammar.binary.to(dtype),
-                                    enc.terminal, enc.lengths, enc.nt_terminal)
+                                    enc.terminal, enc.lengths, enc.nt_terminal, pot)
         return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if res is None else
                 Decoded(spans_to_tree(grammar, words, res[1]), float(z), res[0], res[0])
                 for words, res, z in zip(sentences, results, logz)]
-    # mbr reads the marginals alone; max-rule-product also the inside and outside scores.
-    tables = span_tables(grammar, sentences, dtype, log_scores=decoder != "mbr")
+    # mbr reads the marginals alone; max-rule-product also the inside and outside scores. A
+    # span the potentials bar has marginal 0, so max-rule-product, which weighs labeled spans
+    # by their marginals, never takes one.
+    tables = span_tables(grammar, sentences, dtype, log_scores=decoder != "mbr", span_pot=pot)
     lengths = [len(words) for words in sentences]
     if decoder == "mbr":
-        results = _mbr_labeled(grammar, tables, lengths)
+        results = _mbr_labeled(grammar, tables, lengths, pot)
     else:
         results = max_rule_product(grammar, tables, lengths, layout)
     trees = [None if result is None else tree_from_spans(words, result[0])
@@ -1323,12 +1352,14 @@ def _decode_batch(grammar, sentences, decoder, dtype, scorer, layout) -> list[De
             for b, (tree, result) in enumerate(zip(trees, results))]
 
 
-def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int]
+def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[int],
+                 pot: Tensor | None = None
                  ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the MBR bracketing labeled by the most probable symbol of each span, and
-    its expected number of correct spans (None for a sentence with no parse)."""
+    its expected number of correct spans (None for a sentence with no parse); with `pot`, among
+    the bracketings whose spans it does not bar (`_barred_out`)."""
     spans_p = _span_posteriors(tables.marginals, len(grammar.nonterminals))  # (B, N+1, N+1)
-    brackets = mbr_spans_batch(spans_p, lengths)
+    brackets = mbr_spans_batch(_barred_out(spans_p, pot), lengths)
     labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals), tables.marginals)
     gains = spans_p.tolist()
     parsed = torch.isfinite(tables.logz).tolist()
@@ -1340,6 +1371,17 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
         gain = sum((gains[b][i][j - i] for i, j in spans), 0.0)
         out.append((labels.label(b, n, spans), gain))
     return out
+
+
+def _barred_out(gains: Tensor, pot: Tensor | None) -> Tensor:
+    """Span gains (B, N+1, N+1) for `mbr_spans_batch` with -inf where the potentials `pot` are
+    -inf: a barred span has marginal 0 under them, as may an allowed one, and a tie between the
+    two must not go to the barred one. Every span the word-piece constraint allows holds a
+    binary tree it allows (the left-branching one with the host first, the right-branching
+    one with the host last), so the search never runs out of allowed trees."""
+    if pot is None:
+        return gains
+    return gains.masked_fill(torch.isneginf(pot[:, :gains.shape[1], :gains.shape[2]]), NEG_INF)
 
 
 def _span_posteriors(marginals: Tensor, nt: int) -> Tensor:
@@ -1371,7 +1413,8 @@ class _SpanLabels:
 
 
 def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
-              batch_size: int = 16, dtype: torch.dtype = torch.float64) -> list[Decoded]:
+              batch_size: int = 16, dtype: torch.dtype = torch.float64,
+              pieces: tuple[str, Sequence[Sequence[int]]] | None = None) -> list[Decoded]:
     """One tree per sentence from several grammars (two or more; e.g. the restarts of one run),
     in input order, by tree averaging (Shayegh, Cao, Zhu, Cheung & Mou 2024, "Ensemble
     Distillation for Unsupervised Constituency Parsing").
@@ -1391,7 +1434,8 @@ def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
     the tree against the voting grammars' MBR trees (spans of width >= 2, the whole sentence
     included; 1 for a one-word sentence). Batches of `batch_size` sentences of similar length
     run one grammar at a time, so a batch needs the memory of one grammar's pass (see
-    `budget.plan_budget`).
+    `budget.plan_budget`). `pieces` as for `decode`: every grammar's MBR tree, and the average,
+    keep each bound piece with its host.
     """
     if len(grammars) < 2:
         raise ValueError(f"the consensus decoder needs two or more grammars, got {len(grammars)}")
@@ -1402,10 +1446,12 @@ def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
                          "grammar the same words")
     scorers: dict[int, TreeScorer] = {}  # per labelling grammar, by id, made when first needed
     return _by_length(sentences, batch_size,
-                      lambda words: _consensus_batch(grammars, words, dtype, scorers))
+                      lambda words, pot=None: _consensus_batch(grammars, words, dtype, scorers,
+                                                               pot), pieces)
 
 
-def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
+def _consensus_batch(grammars, sentences, dtype, scorers, pot=None) -> list[Decoded]:
+    pot = None if pot is None else pot.to(dtype)
     lengths = [len(words) for words in sentences]
     B = len(sentences)
     voters: list[list[list[tuple[int, int]]]] = [[] for _ in range(B)]  # MBR trees per sentence
@@ -1413,9 +1459,9 @@ def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
     for grammar in grammars:
         # One grammar's tables at a time: only its MBR trees and, where it labels, its most
         # probable labels are kept.
-        tables = span_tables(grammar, sentences, dtype, log_scores=False)
-        trees = mbr_spans_batch(
-            _span_posteriors(tables.marginals, len(grammar.nonterminals)), lengths)
+        tables = span_tables(grammar, sentences, dtype, log_scores=False, span_pot=pot)
+        trees = mbr_spans_batch(_barred_out(
+            _span_posteriors(tables.marginals, len(grammar.nonterminals)), pot), lengths)
         parsed = torch.isfinite(tables.logz).tolist()
         labels = None
         for b in range(B):
@@ -1430,7 +1476,8 @@ def _consensus_batch(grammars, sentences, dtype, scorers) -> list[Decoded]:
         del tables  # freed before the next grammar's pass, not after it
     parsed_rows = [b for b in range(B) if voters[b]]
     averaged = tree_average_batch([voters[b] for b in parsed_rows],
-                                  [lengths[b] for b in parsed_rows])
+                                  [lengths[b] for b in parsed_rows],
+                                  None if pot is None else pot[parsed_rows])
     out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF) for _ in range(B)]
     for b, spans in zip(parsed_rows, averaged):
         grammar, labels, logz = labeler[b]
