@@ -773,11 +773,19 @@ def test_viterbi_and_mbr_under_the_word_piece_constraint_match_enumeration(side)
 
 @pytest.mark.parametrize("side", ["first", "last"])
 @pytest.mark.parametrize("refined", [True, False], ids=["refined", "unrefined"])
-def test_max_rule_product_under_the_word_piece_constraint_matches_enumeration(side, refined):
+@pytest.mark.parametrize("path", [None, "items", "chart"])
+def test_max_rule_product_under_the_word_piece_constraint_matches_enumeration(
+        monkeypatch, side, refined, path):
     # Brute force (`coarse_objective`) with the rule posteriors and the candidate trees both
     # taken over the allowed trees alone, on a refined grammar and on an unrefined one (whose
-    # pass is the max-semiring one). Written word (1, 3): position 2 barred, which bars the
-    # tree max-rule-product takes on the refined grammar without the constraint.
+    # chart pass is the max-semiring one), by the pass the cost count picks or with the floor
+    # forced on and each floored pass forced (as in the pruning test above). Written word
+    # (1, 3): position 2 barred, which bars the tree max-rule-product takes on the refined
+    # grammar without the constraint.
+    if path is not None:
+        monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
+        monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+        monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1)
     grammar = REFINED if refined else make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5)
     words, barred = PIECE_WORDS[:4], [2]
     keep = allowed_by(side, barred)
