@@ -20,7 +20,7 @@ from treewright.inference import encode
 from treewright.train import load_train_config
 from treewright.train.data import load_data
 from treewright.train.estep import piece_mask
-from treewright.word_pieces import barred_positions, host_side, split_words
+from treewright.word_pieces import barred_positions, host_side, piece_joins, split_words
 
 TREEBANK = Path(sysconfig.get_paths()["purelib"]) / "data"
 
@@ -147,6 +147,37 @@ def test_host_side_of_turkish_is_first_and_of_its_mirror_last(web):
     back = host_side(mirrored)
     assert back.side == "last" and back.split_words == found.split_words
     assert (back.first_free, back.last_free) == (found.last_free, found.first_free)
+
+
+def test_punctuation_at_the_edge_of_a_written_word_is_no_piece_of_it():
+    # Hand-made (an invented language): `"tund` `esk,` with the quote and the comma written
+    # against the words, and `kal'bri` with an apostrophe inside one written word. Only the
+    # pieces of words stay joined; by tags where given ("_" falls back to the characters),
+    # so a percent sign tagged SYM stays a piece of its number.
+    words = ['"', "tund", "esk", ",", "kal", "'", "bri", "%", "30"]
+    joined = [False, True, True, True, False, True, True, False, True]
+    assert piece_joins(words, joined) == \
+        [False, False, True, False, False, True, True, False, False]
+    tags = ["PUNCT", "NOUN", "NOUN", "PUNCT", "VERB", "_", "VERB", "SYM", "NUM"]
+    assert piece_joins(words, joined, tags) == \
+        [False, False, True, False, False, True, True, False, True]
+    assert piece_joins(["...", "!"], [False, True]) == [False, False]    # punctuation alone
+    assert piece_joins(words, None) is None
+
+
+@pytest.mark.parametrize("section", ["web", "wiki"])
+def test_turkish_with_its_punctuation_kept_still_has_the_host_first(section):
+    # Read as a user reads it by default (punctuation kept), a comma or full stop written
+    # against a word had counted as a last piece: web found no side and wiki the last end.
+    # With edge punctuation left out, both find the stem first (Turkish is suffixing: common
+    # practice), as with the punctuation removed.
+    corpus = read_corpus(TREEBANK / f"{section}.conllu", "conllu",
+                         ReadOptions(nonprojective="lift"))
+    raw = [([w.lower() for w in s.words], s.joined) for s in corpus.sentences]
+    assert host_side(raw).side != "first"
+    found = host_side([(w, piece_joins(s.words, s.joined, s.tags))
+                       for (w, _), s in zip(raw, corpus.sentences)])
+    assert found.side == "first" and found.split_words > 4000
 
 
 def test_text_without_spaces_or_with_few_splits_gets_no_side():

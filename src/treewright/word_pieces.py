@@ -24,6 +24,7 @@ scripts that write none) tells nothing this way, and the constraint is left off.
 
 from __future__ import annotations
 
+import unicodedata
 from dataclasses import dataclass
 from typing import Sequence
 
@@ -81,10 +82,51 @@ def written_forms(words: Sequence[str], joined: Sequence[bool] | None,
     return out
 
 
+PUNCTUATION_TAGS = frozenset({"PUNCT", "."})  # Universal Dependencies' and the older universal
+                                             # tagset's tag for punctuation
+
+
+def is_punctuation(word: str, tag: str | None = None) -> bool:
+    """Punctuation by its tag where the source gives one (`PUNCTUATION_TAGS`), else a word
+    written with punctuation characters alone (Unicode categories P*)."""
+    if tag is not None and tag != "_":
+        return tag in PUNCTUATION_TAGS
+    return bool(word) and all(unicodedata.category(c).startswith("P") for c in word)
+
+
+def piece_joins(words: Sequence[str], joined: Sequence[bool] | None,
+                tags: Sequence[str] | None = None) -> list[bool] | None:
+    """`joined` without the joins of punctuation at either edge of a written word: a comma, a
+    full stop or a quote written against a word (CoNLL-U `SpaceAfter=No` before it, or after
+    an opening one) is no piece of that word, so the constraint neither counts it nor keeps
+    it with the word. Punctuation inside a written word, with pieces on both sides (an
+    apostrophe before a suffix, a quote inside a multiword token), stays joined. `tags`, when
+    the source gives them, decide what is punctuation (`is_punctuation`)."""
+    if joined is None:
+        return None
+    out = list(joined)
+
+    def punct(k: int) -> bool:
+        return is_punctuation(words[k], None if tags is None else tags[k])
+
+    for start, end in split_words(joined):
+        lo, hi = start, end
+        while lo < hi and punct(lo):
+            lo += 1
+        while hi > lo and punct(hi - 1):
+            hi -= 1
+        for k in range(start + 1, end):
+            if k <= lo or k >= hi:      # the join of word k to k - 1 touches edge punctuation
+                out[k] = False
+    return out
+
+
 def host_side(sentences: Sequence[tuple[Sequence[str], Sequence[bool] | None]]) -> HostSide:
     """The end of a split written word that holds its host, read from the corpus.
 
-    sentences: (tokens, joined) per sentence; joined None where the source does not say.
+    sentences: (tokens, joined) per sentence; joined None where the source does not say (give
+    `piece_joins` of a sentence's joins, so that punctuation written against a word is no
+    piece of it).
     """
     alone: set[str] = set()
     firsts: list[str] = []
@@ -123,9 +165,10 @@ def host_side(sentences: Sequence[tuple[Sequence[str], Sequence[bool] | None]]) 
 
 
 def barred_positions(joined: Sequence[bool] | None) -> list[int]:
-    """Word positions k written joined to word k - 1. With the host first, no constituent of
-    two or more words may start at k; with the host last, none may end just before k (its
-    exclusive end is k). Either way the piece is not cut from its host."""
+    """Word positions k written joined to word k - 1 (give it `piece_joins` of the sentence's
+    joins, as training does). With the host first, no constituent of two or more words may
+    start at k; with the host last, none may end just before k (its exclusive end is k). Either
+    way the piece is not cut from its host."""
     return [] if joined is None else [k for k, j in enumerate(joined) if j and k > 0]
 
 

@@ -24,7 +24,7 @@ from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
 from treewright.train.config import TrainConfig
 from treewright.train.distributed import StreamedCorpus
-from treewright.word_pieces import barred_positions, host_side
+from treewright.word_pieces import barred_positions, host_side, piece_joins
 
 
 @dataclass
@@ -227,11 +227,14 @@ def _word_pieces(cfg: TrainConfig, sentences, notes: list[str]
     """The word-piece constraint of `constraints.word_pieces` for the training sentences: the
     host side and, per sentence, the barred positions; None when unconstrained. Notes why."""
     mode = cfg.constraints.word_pieces
-    if mode == "none" or not any(s.joined and any(s.joined) for s in sentences):
+    # Punctuation written against a word is no piece of it (`word_pieces.piece_joins`).
+    joined = [piece_joins(s.words, s.joined, s.tags) for s in sentences]
+    if mode == "none" or not any(j and any(j) for j in joined):
         return None
     if mode == "auto":
         # Written forms, case folded, so a capitalised first word still counts as standing alone.
-        found = host_side([([w.lower() for w in s.words], s.joined) for s in sentences])
+        found = host_side([([w.lower() for w in s.words], joins)
+                           for s, joins in zip(sentences, joined)])
         notes.append(found.describe())
         side = found.side
     else:
@@ -239,7 +242,7 @@ def _word_pieces(cfg: TrainConfig, sentences, notes: list[str]
         notes.append(f"word pieces: the host comes {side}, as configured")
     if side is None:
         return None
-    return side, [barred_positions(s.joined) for s in sentences]
+    return side, [barred_positions(joins) for joins in joined]
 
 
 def summary(data: TrainData) -> dict:
