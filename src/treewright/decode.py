@@ -1303,10 +1303,11 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
     """One tree per sentence, in input order, by the named decoder (see `DECODERS`).
 
     `pieces`: decode under the word-piece constraint that training applies (`treewright.
-    word_pieces`): (host side "first" or "last", per sentence its `barred_positions`). Every
-    decoder then weighs only the trees that keep each bound piece with its host, so none of
-    them returns a tree that cuts one off; `log_likelihood` is then the log-probability summed
-    over those trees, and `tree_logprob` the tree's own as ever."""
+    word_pieces`): (host side "first" or "last", per sentence the `barred_positions` of its
+    `piece_joins`, as training makes them). Every decoder then weighs only the trees that keep
+    each bound piece with its host, so none of them returns a tree that cuts one off;
+    `log_likelihood` is then the log-probability summed over those trees, and `tree_logprob`
+    the tree's own as ever."""
     if decoder in ENSEMBLE_DECODERS:
         raise ValueError(f"the {decoder} decoder reads several grammars: call "
                          "treewright.decode.consensus(grammars, sentences)")
