@@ -88,15 +88,17 @@ import torch
 from treewright.allocator import tune_allocator
 from treewright import engine
 from treewright.corpus import ReadOptions, length_batches, read_corpus, split_indices
-from treewright.decode import consensus, mbr_spans
+from treewright.decode import barred_out, consensus, mbr_spans
 from treewright.evaluation import BracketConventions, Bracketing, evaluate_brackets
 from treewright.evaluation.dependencies import Dependencies, evaluate_attachment
+from treewright.export import open_run_record
 from treewright.grammar import load_grammar
 from treewright.head_conventions import PUNCTUATION
 from treewright.inference import encode
 from treewright.runfolder import RunFolder
 from treewright.train import load_train_config, train
 from treewright.train.estep import compound_span_posteriors, make_batch
+from treewright.word_pieces import barred_positions, held_at_end, piece_joins, piece_mask
 
 REPO = Path(__file__).resolve().parents[1]
 CONFIGS = REPO / "configs"
@@ -125,11 +127,16 @@ class EvalSet:
     dependencies: per sentence, the gold heads over its whole sentence, punctuation included
         with its tags (`evaluate_attachment` takes the punctuation out again), or None when the
         gold has no heads.
+    barred: per sentence, the positions of `tokens` written joined to the token before
+        (`word_pieces.barred_positions` of `piece_joins`, as training reads them), or None when
+        the text marks no joins; a run that held the word-piece constraint to its end is decoded
+        under it (`decode_pieces`).
     """
     name: str
     tokens: list[list[str]]
     gold: list[Bracketing]
     dependencies: list[Dependencies] | None = None
+    barred: list[list[int]] | None = None
 
 
 @dataclass
@@ -225,20 +232,23 @@ def turkish_data(mode: str, dev_fraction: float, eval_max_length: int | None,
     `eval_max_length` tokens (None: all); the training length cap is applied by the trainer."""
     web_tokens, web_gold, web_counts, web_written = read_treebank(treebank_path("web"), mode,
                                                                   sentences)
-    wiki_tokens, wiki_gold, wiki_counts, _ = read_treebank(treebank_path("wiki"), mode,
-                                                           sentences)
+    wiki_tokens, wiki_gold, wiki_counts, wiki_written = read_treebank(treebank_path("wiki"),
+                                                                      mode, sentences)
     web_heads = treebank_dependencies(treebank_path("web"), sentences)
     wiki_heads = treebank_dependencies(treebank_path("wiki"), sentences)
     split = split_indices(len(web_tokens), dev=dev_fraction, test=0.0, seed=0)
     train_tokens = [web_tokens[i] for i in split.train]
 
-    def capped(name, idx, tokens, gold, heads):
+    def capped(name, idx, tokens, gold, heads, written):
         keep = [i for i in idx if eval_max_length is None or len(tokens[i]) <= eval_max_length]
         return EvalSet(name, [tokens[i] for i in keep], [gold[i] for i in keep],
-                       [heads[i] for i in keep])
+                       [heads[i] for i in keep],
+                       [barred_positions(piece_joins(written[i].words, written[i].joined,
+                                                     written[i].tags)) for i in keep])
 
-    dev = capped("web-dev", split.dev, web_tokens, web_gold, web_heads)
-    wiki = capped("wiki", range(len(wiki_tokens)), wiki_tokens, wiki_gold, wiki_heads)
+    dev = capped("web-dev", split.dev, web_tokens, web_gold, web_heads, web_written)
+    wiki = capped("wiki", range(len(wiki_tokens)), wiki_tokens, wiki_gold, wiki_heads,
+                  wiki_written)
     counts = {"web": web_counts, "wiki": wiki_counts, "web_train": len(split.train),
               "web_dev": len(split.dev), "web_dev_scored": len(dev.tokens),
               "wiki_scored": len(wiki.tokens), "eval_max_length": eval_max_length}
@@ -399,25 +409,39 @@ def lean(pred: list[Bracketing], gold: list[Bracketing]) -> dict[str, float | No
             "right_share": right / total if total else None}
 
 
-def mbr_and_likelihood(grammar, sentences: list[list[str]], batch_size: int = 32
+def mbr_and_likelihood(grammar, sentences: list[list[str]], batch_size: int = 32,
+                       pieces: tuple[str, list[list[int]]] | None = None
                        ) -> tuple[list[list[tuple[int, int]] | None], list[float]]:
     """Unlabeled MBR spans and log p(sentence) from one posterior pass per batch.
 
-    The same trees as `decode(grammar, sentences, "mbr")` (span posteriors, `mbr_spans`) without
-    the per-sentence label tables the benchmark does not need. Spans are None for a sentence
-    the grammar cannot parse; log-probabilities are natural logs, -inf then.
+    The same trees as `decode(grammar, sentences, "mbr", pieces=pieces)` (span posteriors,
+    `mbr_spans`) without the per-sentence label tables the benchmark does not need. Spans are
+    None for a sentence the grammar cannot parse; log-probabilities are natural logs, -inf
+    then. With `pieces` (host side, barred positions per sentence) the trees are those of the
+    word-piece constraint, and log p(sentence) is still summed over every tree (one more
+    inside pass for a batch with a barred position), so perplexity is the model's own. A
+    sentence the constraint leaves no tree (a sparse grammar's) is decoded without it, as
+    `treewright parse` decodes it.
     """
     spans: list = [None] * len(sentences)
     logprobs = [float("-inf")] * len(sentences)
     for batch in length_batches([len(s) for s in sentences], max_sentences=batch_size):
         enc = encode(grammar, [sentences[i] for i in batch], torch.float64)
-        post = engine.posteriors(grammar.root.double(), grammar.binary.double(), enc.terminal,
-                                 enc.lengths, enc.nt_terminal)
+        rules = (grammar.root.double(), grammar.binary.double(), enc.terminal, enc.lengths,
+                 enc.nt_terminal)
+        barred = None if pieces is None else [pieces[1][i] for i in batch]
+        pot = piece_mask(pieces[0], barred, int(enc.lengths.max()), torch.float64) \
+            if barred is not None and any(barred) else None
+        post = engine.posteriors(*rules, span_pot=pot)
+        logz = post.logz if pot is None else engine.log_partition(*rules)
+        gains = barred_out(post.spans, pot)
+        lost = torch.isfinite(logz) & ~torch.isfinite(post.logz)
+        if bool(lost.any()):
+            gains[lost] = engine.posteriors(*rules).spans[lost]
         for k, i in enumerate(batch):
-            logz = float(post.logz[k])
-            if math.isfinite(logz):
-                logprobs[i] = logz
-                spans[i] = mbr_spans(post.spans[k], len(sentences[i]))
+            if math.isfinite(float(logz[k])):
+                logprobs[i] = float(logz[k])
+                spans[i] = mbr_spans(gains[k], len(sentences[i]))
     return spans, logprobs
 
 
@@ -512,20 +536,31 @@ def load_scored_grammar(grammar_path: Path):
     return load_grammar(grammar_path, tolerance=1e-4)
 
 
-def score_grammar(grammar_path: Path, ev: EvalSet) -> dict:
-    """MBR trees, bracket scores (model and baselines), lean and perplexity on one set."""
+def decode_pieces(side: str | None, ev: EvalSet) -> tuple[str, list[list[int]]] | None:
+    """The word-piece constraint to decode `ev` under: the host side of a run that held it at
+    its last epoch (`word_pieces.held_at_end`, as `treewright parse` decides for a CoNLL-U
+    file), with the set's barred positions; None when either is missing."""
+    return None if side is None or ev.barred is None else (side, ev.barred)
+
+
+def score_grammar(grammar_path: Path, ev: EvalSet, side: str | None = None) -> dict:
+    """MBR trees, bracket scores (model and baselines), lean and perplexity on one set; the
+    trees under the word-piece constraint with `side` (see `decode_pieces`)."""
     grammar = load_scored_grammar(grammar_path)
     with torch.no_grad():
-        spans, logprobs = mbr_and_likelihood(grammar, ev.tokens)
+        spans, logprobs = mbr_and_likelihood(grammar, ev.tokens,
+                                             pieces=decode_pieces(side, ev))
     return score_spans(spans, logprobs, ev)
 
 
-def score_consensus(grammars: list, ev: EvalSet, batch_size: int = 32) -> dict:
+def score_consensus(grammars: list, ev: EvalSet, batch_size: int = 32,
+                    side: str | None = None) -> dict:
     """The consensus decoder's trees over `grammars` (the kept restart first) scored as
-    `score_grammar` scores one grammar's; perplexity None (the trees have no likelihood of their
-    own) and `unparsed` the sentences no grammar parses."""
+    `score_grammar` scores one grammar's, under the word-piece constraint with `side` (as
+    there); perplexity None (the trees have no likelihood of their own) and `unparsed` the
+    sentences no grammar parses."""
     with torch.no_grad():
-        decoded = consensus(grammars, ev.tokens, batch_size)
+        decoded = consensus(grammars, ev.tokens, batch_size, pieces=decode_pieces(side, ev))
     spans = [None if d.tree is None else
              [(i, j) for i, j, _ in d.tree.labeled_spans() if j - i >= 2] for d in decoded]
     scores = score_spans(spans, [d.log_likelihood for d in decoded], ev)
@@ -583,12 +618,16 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     with open(run_dir.parent / f"{run_dir.name}.log", "w", encoding="utf-8") as log:
         trainer = train(cfg, run_dir, stream=log, config_source=f"bench_induction {method}")
     seconds = time.monotonic() - started
+    # The grammar-file rows are decoded as `treewright parse RUN` decodes a CoNLL-U file: under
+    # the word-piece constraint when the run held it to its last epoch. The model rows read
+    # the model itself, whose decoders do not apply it.
+    side = None if method in MODEL_ROWS else held_at_end(open_run_record(run_dir).training)
     restarts = []
     if method not in MODEL_ROWS:
         # Every restart's own grammar scored as the kept one is: for offline restart choice.
         for r in trainer.results_:
             path = RunFolder(run_dir).restart_grammar(r["restart"])
-            restarts.append({**r, "scores": {ev.name: score_grammar(path, ev)
+            restarts.append({**r, "scores": {ev.name: score_grammar(path, ev, side)
                                              for ev in args.evals}})
     agreed = None
     if len(restarts) >= 2:
@@ -596,26 +635,26 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
         order = sorted((r["restart"] for r in restarts),
                        key=lambda r: (r != trainer.best_restart_, r))
         grammars = [load_scored_grammar(RunFolder(run_dir).restart_grammar(r)) for r in order]
-        agreed = {ev.name: score_consensus(grammars, ev) for ev in args.evals}
+        agreed = {ev.name: score_consensus(grammars, ev, side=side) for ev in args.evals}
     return {"method": method, "seed": seed, "train_seconds": seconds,
             "best_restart": trainer.best_restart_, "overrides": overrides,
-            "restarts": restarts, "consensus": agreed,
-            "scores": {ev.name: score_method(method, trainer, ev, args.function_words)
+            "decoded_word_pieces": side, "restarts": restarts, "consensus": agreed,
+            "scores": {ev.name: score_method(method, trainer, ev, args.function_words, side)
                        for ev in args.evals}}
 
 
 def score_method(method: str, trainer, ev: EvalSet,
-                 function_words: frozenset[str] | None = None) -> dict:
-    """One trained run's scores on one set: from its grammar file, or from the trainer's model
-    for the rows in MODEL_ROWS (the lexicalized one also in the content-head convention of
-    `function_words`, when given)."""
+                 function_words: frozenset[str] | None = None, side: str | None = None) -> dict:
+    """One trained run's scores on one set: from its grammar file (under the word-piece
+    constraint with `side`), or from the trainer's model for the rows in MODEL_ROWS (the
+    lexicalized one also in the content-head convention of `function_words`, when given)."""
     if method == "compound":
         return score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
     if method == "lexicalized":
         return score_lexicalized(trainer, ev, function_words=function_words)
     if method == "independent":
         return score_spans(*model_mbr_and_likelihood(trainer, ev.tokens), ev)
-    return score_grammar(trainer.grammar_path_, ev)
+    return score_grammar(trainer.grammar_path_, ev, side)
 
 
 def mean_sd(values: list[float | None]) -> tuple[float | None, float | None]:

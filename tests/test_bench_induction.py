@@ -274,6 +274,51 @@ def test_fast_scoring_matches_library_decode():
     assert spans[-1] is None
 
 
+@pytest.mark.parametrize("side", ["first", "last"])
+@pytest.mark.parametrize("dense", [True, False], ids=["dense", "sparse"])
+def test_fast_scoring_under_the_word_piece_constraint_matches_library_decode(side, dense):
+    # Reference: the library's mbr decoder under the same constraint (checked against
+    # enumeration in test_decode.py) for the trees, and the unconstrained inside scores for
+    # log p(sentence): the benchmark's perplexity stays the model's own. On a grammar with
+    # every rule (as induction's are) the constraint always leaves trees; the demo's sparse
+    # generating grammar it leaves some sentences none, and those are decoded without it, as
+    # `parse` does.
+    import random
+
+    from _grammars import random_grammar
+    from treewright.corpus import read_corpus
+    from treewright.decode import decode
+    from treewright.demo import demo_data_dir
+    from treewright.grammar import load_grammar
+    from treewright.inference import score
+    if dense:
+        grammar = random_grammar(4, 5, 6, seed=3)
+        draw = random.Random(3)
+        sentences = [[f"w{draw.randrange(6)}" for _ in range(draw.randint(2, 9))]
+                     for _ in range(14)]
+    else:
+        grammar = load_grammar(demo_data_dir() / "grammar.pcfg")
+        sentences = [list(s.tokens) for s in
+                     read_corpus(demo_data_dir() / "test.trees", "brackets").sentences[:12]]
+    barred = [[k for k in range(1, len(s)) if (k + b) % 3 == 0] for b, s in enumerate(sentences)]
+    barred[4] = []                                        # a batch may mix barred and free
+    spans, logprobs = bench.mbr_and_likelihood(grammar, sentences, batch_size=5,
+                                               pieces=(side, barred))
+    decoded = decode(grammar, sentences, "mbr", pieces=(side, barred))
+    free = bench.mbr_and_likelihood(grammar, sentences, batch_size=5)[0]
+    changed = lost = 0
+    for words, got, lp, d, ref, was in zip(sentences, spans, logprobs, decoded,
+                                           score(grammar, sentences, dtype=torch.float64), free):
+        if d.tree is None:
+            lost += 1
+            d = decode(grammar, [words], "mbr")[0]
+        want = {(i, j) for i, j in Bracketing.from_tree(d.tree).unlabeled() if j - i >= 2}
+        assert set(got) == want and len(got) == len(words) - 1
+        assert lp == pytest.approx(ref.logprob, abs=1e-9)
+        changed += set(was) != want
+    assert (changed >= 3 and lost == 0) if dense else lost >= 1
+
+
 def test_mirrored_grammar_gives_reversed_sentences_the_same_probability():
     # Reference: tests/_brute.py enumerates every tree of each sentence under both grammars.
     from _brute import all_trees, summary
@@ -439,3 +484,88 @@ def test_turkish_eval_sets_carry_the_treebank_heads_of_their_sentences():
                        and list(dep.tags) == [t["upos"] for t in r] for r in refs)
             assert tokens == [bench.clean_token(w.lower()) for w, t in zip(dep.words, dep.tags)
                               if t != "PUNCT"]
+
+
+def _joins_read_by_conllu(tokenlist) -> list[bool]:
+    """Per word, whether it is written joined to the word before (the `conllu` library's read,
+    the reference): the token before it (the multiword token that ends at the word before, or
+    that word itself) has SpaceAfter=No, or both lie in one multiword token."""
+    ranges = [t["id"] for t in tokenlist if isinstance(t["id"], tuple) and t["id"][1] == "-"]
+    glued = {t["id"][2] if isinstance(t["id"], tuple) else t["id"]
+             for t in tokenlist if (t["misc"] or {}).get("SpaceAfter") == "No"
+             and (isinstance(t["id"], int) or t["id"][1] == "-")}
+    inside = {k for lo, _, hi in ranges for k in range(lo + 1, hi + 1)}
+    owned = {k for lo, _, hi in ranges for k in range(lo, hi + 1)}
+    words = [t["id"] for t in tokenlist if isinstance(t["id"], int)]
+    # SpaceAfter on a word inside a multiword token is ignored (the token's line says it).
+    return [k > 1 and (k in inside or (k - 1 in glued and (k - 1 not in owned
+                                                            or k - 1 in {hi for *_, hi in ranges}))
+                       ) for k in words]
+
+
+@needs_treebank
+def test_turkish_eval_sets_bar_the_pieces_of_their_written_words():
+    # Reference: the `conllu` library's read of the same files. A scored sentence's barred
+    # positions are the kept (non-PUNCT) words written joined to the kept word just before them;
+    # a removed word between two pieces breaks the join, as the benchmark's training text does.
+    data = bench.turkish_data("tokens", 0.1, 12, sentences=150)
+    by_text = {}
+    for section in ("web", "wiki"):
+        with open(bench.treebank_path(section), encoding="utf-8") as handle:
+            for _, s in zip(range(150), conllu.parse_incr(handle)):
+                words = [t for t in s if isinstance(t["id"], int)]
+                joins = _joins_read_by_conllu(s)
+                kept = [k for k, t in enumerate(words) if t["upos"] != "PUNCT"]
+                barred = [n for n, k in enumerate(kept)
+                          if n > 0 and joins[k] and kept[n - 1] == k - 1]
+                by_text.setdefault(tuple(t["form"] for t in words), []).append(barred)
+    some = 0
+    for ev in data.evals:
+        assert ev.barred is not None and len(ev.barred) == len(ev.tokens)
+        for barred, dep in zip(ev.barred, ev.dependencies):
+            assert barred in by_text[dep.words]
+            some += bool(barred)
+    assert some >= 20
+
+
+@needs_treebank
+def test_turkish_run_is_decoded_under_the_constraint_it_trained_with(tmp_path):
+    # A tiny Turkish run (one epoch, two restarts) trains under the word-piece constraint, host
+    # first, as the README says, and to its end, so its trees are decoded under it. Reference:
+    # the library's decoders with the same barred positions (checked against enumeration in
+    # test_decode.py), scored by `evaluate_brackets`; perplexity from the unconstrained
+    # inside scores (`inference.score`).
+    from treewright.decode import consensus, decode
+    from treewright.evaluation import BracketConventions, evaluate_brackets
+    from treewright.grammar import load_grammar
+    from treewright.inference import score
+    result = bench.main(["--data", "turkish", "--methods", "em", "--epochs", "1", "--symbols",
+                         "4,6", "--restarts", "2", "--seeds", "0", "--max-length", "10",
+                         "--eval-max-length", "10", "--out", str(tmp_path)])
+    run = result["runs"][0]
+    assert run["decoded_word_pieces"] == "first"
+    data = bench.turkish_data("tokens", 0.1, 10)
+    ev = data.evals[-1]
+    assert sum(map(bool, ev.barred)) >= 50
+
+    def scored(trees):
+        pred = [Bracketing.from_spans(t, [] if d.tree is None else
+                                      [(i, j) for i, j in Bracketing.from_tree(d.tree).unlabeled()
+                                       if j - i >= 2])
+                for d, t in zip(trees, ev.tokens)]
+        return evaluate_brackets(pred, ev.gold, BracketConventions()).to_dict()["systems"]["model"]
+
+    folder = tmp_path / "em-seed0"
+    grammars = [load_grammar(folder / f"restart-{r}.pcfg", tolerance=1e-4) for r in (0, 1)]
+    kept = run["best_restart"]
+    pieces = ("first", ev.barred)
+    got = run["scores"]["wiki"]
+    assert got["model"] == scored(decode(grammars[kept], ev.tokens, "mbr", pieces=pieces))
+    words = sum(map(len, ev.tokens))
+    logz = sum(s.logprob for s in score(grammars[kept], ev.tokens, dtype=torch.float64))
+    assert got["perplexity"] == pytest.approx(math.exp(-logz / words), rel=1e-9)
+    ordered = [grammars[kept], grammars[1 - kept]]
+    assert run["consensus"]["wiki"]["model"] == scored(consensus(ordered, ev.tokens,
+                                                                 pieces=pieces))
+    # Without the constraint the trees differ: it did something.
+    assert got["model"] != scored(decode(grammars[kept], ev.tokens, "mbr"))

@@ -478,6 +478,9 @@ def test_parse_on_a_factored_run_reads_the_model_not_the_grammar_file(
     assert main(["parse", str(tmp_path / "run"), str(text), "--scores"]) == 0
     again = capsys.readouterr()
     assert again.out.split("\n") == rows and "mbr through the run's own model" in again.err
+    # The model's own pass does not apply the word-piece constraint: asking for it is refused.
+    assert main(["parse", str(tmp_path / "run"), str(text), "--word-pieces", "host-first"]) != 0
+    assert "the mbr decoder reads the model itself" in capsys.readouterr().err
     # score: the same log-likelihoods as the grammar file gives (inference.score, the dense
     # engine over the file), with the unknown word read as the unknown-word token and listed.
     assert main(["score", str(tmp_path / "run"), str(text), "--float64"]) == 0

@@ -144,14 +144,14 @@ def tree_average_batch(trees: Sequence[Sequence[Sequence[tuple[int, int]]]],
                        ) -> list[list[tuple[int, int]]]:
     """`tree_average` for a batch: `trees[b]` holds sentence b's input trees (any number, at
     least one for a sentence of two words or more), one CKY (`mbr_spans_batch`) for all;
-    with `pot` (B, >= N+1, >= N+1), never a span where it is -inf (`_barred_out`)."""
+    with `pot` (B, >= N+1, >= N+1), never a span where it is -inf (`barred_out`)."""
     N = max(lengths, default=0)
     votes = torch.zeros(len(lengths), N + 1, N + 1, dtype=torch.float64)  # (B, N+1, N+1)
     for b, sentence_trees in enumerate(trees):
         for tree in sentence_trees:
             for i, j in tree:
                 votes[b, i, j - i] += 1
-    return mbr_spans_batch(_barred_out(votes, pot), lengths)
+    return mbr_spans_batch(barred_out(votes, pot), lengths)
 
 
 @dataclass
@@ -1358,9 +1358,9 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
                  ) -> list[tuple[list[tuple[int, int, str]], float] | None]:
     """Per sentence, the MBR bracketing labeled by the most probable symbol of each span, and
     its expected number of correct spans (None for a sentence with no parse); with `pot`, among
-    the bracketings whose spans it does not bar (`_barred_out`)."""
+    the bracketings whose spans it does not bar (`barred_out`)."""
     spans_p = _span_posteriors(tables.marginals, len(grammar.nonterminals))  # (B, N+1, N+1)
-    brackets = mbr_spans_batch(_barred_out(spans_p, pot), lengths)
+    brackets = mbr_spans_batch(barred_out(spans_p, pot), lengths)
     labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals), tables.marginals)
     gains = spans_p.tolist()
     parsed = torch.isfinite(tables.logz).tolist()
@@ -1374,7 +1374,7 @@ def _mbr_labeled(grammar: Grammar, tables: engine.SpanTables, lengths: Sequence[
     return out
 
 
-def _barred_out(gains: Tensor, pot: Tensor | None) -> Tensor:
+def barred_out(gains: Tensor, pot: Tensor | None) -> Tensor:
     """Span gains (B, N+1, N+1) for `mbr_spans_batch` with -inf where the potentials `pot` are
     -inf: a barred span has marginal 0 under them, as may an allowed one, and a tie between the
     two must not go to the barred one. Every span the word-piece constraint allows holds a
@@ -1461,7 +1461,7 @@ def _consensus_batch(grammars, sentences, dtype, scorers, pot=None) -> list[Deco
         # One grammar's tables at a time: only its MBR trees and, where it labels, its most
         # probable labels are kept.
         tables = span_tables(grammar, sentences, dtype, log_scores=False, span_pot=pot)
-        trees = mbr_spans_batch(_barred_out(
+        trees = mbr_spans_batch(barred_out(
             _span_posteriors(tables.marginals, len(grammar.nonterminals)), pot), lengths)
         parsed = torch.isfinite(tables.logz).tolist()
         labels = None

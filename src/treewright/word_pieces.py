@@ -35,6 +35,8 @@ HOST_SIDES = ("first", "last")
 MIN_SPLIT_WORDS = 20    # fewer split written words than this say nothing about the host side
 MIN_RATIO = 1.25        # one end's free share must be this many times the other's
 MAX_JOINED_SHARE = 0.5  # above this share of word boundaries without a space, spaces mean nothing
+# How long `constraints.word_pieces_epochs: null` keeps the constraint when training reads tags.
+TAG_MODE_PIECE_EPOCHS = 3
 
 
 @dataclass(frozen=True)
@@ -187,3 +189,35 @@ def piece_mask(side: str, barred: Sequence[Sequence[int]], n: int, dtype: torch.
                 w = widths[2:k + 1]                          # spans (k - w, k) of width >= 2
                 pot[b, k - w, w] = float("-inf")
     return pot
+
+
+def held_at_end(training: dict | None) -> str | None:
+    """The host side ("first" or "last") of the word-piece constraint that a training run
+    still applied at its last epoch, or None: the run found no side, turned the constraint off,
+    released it before its configured last epoch (`constraints.word_pieces_epochs`, which on
+    tags defaults to `TAG_MODE_PIECE_EPOCHS`), or left no record of it. A run that stopped early
+    by its tolerance counts as released when its configured epochs pass that limit.
+
+    training: a run's record as `export.GrammarSource.training` gives it ("config": its
+    config.yaml as data, "data_summary": its data_summary.json, whose `word_pieces_host` says
+    the side), or None for a bare grammar file."""
+    if not isinstance(training, dict):
+        return None
+    summary, config = training.get("data_summary"), training.get("config")
+    if not isinstance(summary, dict) or not isinstance(config, dict):
+        return None
+    side = summary.get("word_pieces_host")
+    if side not in HOST_SIDES:
+        return None
+
+    def section(name):
+        value = config.get(name)
+        return value if isinstance(value, dict) else {}
+
+    limit = section("constraints").get("word_pieces_epochs")
+    if limit is None and section("data").get("tag_mode"):
+        limit = TAG_MODE_PIECE_EPOCHS
+    if limit is None:
+        return side
+    epochs = section("train").get("epochs")
+    return side if isinstance(epochs, int) and epochs <= limit else None

@@ -11,7 +11,7 @@ dotted capital I lower to dotless and dotted i), so gold and input hold the same
 
 Punctuation tokens (UPOS PUNCT) are taken out before the words are formed: a comma written
 against a word is not one of its morphs, and the reader then leaves the tokens around it
-unjoined (`corpus.reader._joined_without`), unless they share one multiword token.
+unjoined (`corpus.reader.joined_without`), unless they share one multiword token.
 
 A multiword token whose words run together do not spell it (a contraction: the treebank writes
 `au` as `à` + `le`, or restores a letter the spelling leaves out) has no gold boundaries in

@@ -57,6 +57,19 @@ block's syntactic words are a sentence, one output line per tree or block, and a
 gives no sentence stops with its file and line (a grammar trained on tags reads the tags
 instead, as above).
 
+Split written words: a tokenizer may split one written word into pieces (Turkish `kullanmaya`
+into `kullan` + `maya`); CoNLL-U marks them (multiword tokens, SpaceAfter=No). Training on such
+text keeps every bound piece with its host: no constituent takes the piece without the host
+(constraints.word_pieces, treewright.word_pieces). With --word-pieces auto (the default), a
+CoNLL-U TEXT parsed with a run folder or JSON export whose training still held that
+constraint at its last epoch (on words by default; on tags only the first epochs) is decoded
+under it too, and a note on standard error says so: viterbi, mbr, max-rule-product and
+consensus then weigh only the trees that keep each piece with its host, and with --scores the
+posterior is p(tree | sentence) among those trees. host-first and host-last apply it to any
+grammar; none turns it off. Punctuation written against a word is no piece of it, as in
+training. Raw text marks no split words, and the decoders of a model's own pass (factored
+rules, lexicalized) do not apply it.
+
 Heads: with --heads-out PATH, GRAMMAR must be the run folder of a lexicalized model
 (model.parameterization: lexicalized, train.restarts 1; its training corpus must still be where
 its config points). The model's best derivation of each sentence gives the head of every word,
@@ -77,6 +90,9 @@ the listed word depends on it. SOURCE is a file of the language's function words
 tags of Universal Dependencies, for a run trained on tags. Punctuation always counts as listed.
 """
 
+
+# constraints.word_pieces' values, for the same constraint at decoding (see EXAMPLES).
+PIECE_CHOICES = ("auto", "host-first", "host-last", "none")
 
 # The names of treewright.decode.DECODERS (one grammar), ENSEMBLE_DECODERS (a run's restart
 # grammars) and MODEL_DECODERS (a lexicalized model), written out so that `--help` need not
@@ -110,6 +126,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                         "Universal Dependencies, every listed function word a dependent of the "
                         "content word of its phrase; SOURCE is a file of one word per line, or "
                         "'ud-function' for a run trained on tags (see below)")
+    p.add_argument("--word-pieces", choices=PIECE_CHOICES, default="auto",
+                   help="written words that the tokenizer split into pieces (CoNLL-U TEXT): "
+                        "auto keeps every bound piece with its host as the run's training did "
+                        "at its end, host-first and host-last say which end holds the host, "
+                        "none decodes without the constraint (see below)")
     add_budget_argument(p)
 
 
@@ -121,8 +142,8 @@ def run(args) -> int:
     from treewright.budget import BudgetPlan, plan_budget, run_plan
     from treewright.cli.common import (as_trained, function_words_as_trained, input_name,
                                        no_parse_reason, read_lines, warn_over_budget)
-    from treewright.corpus import (detect_format, insert_words, read_tagged, run_drop_tags,
-                                   run_tag_mode)
+    from treewright.corpus import (ReadOptions, detect_format, insert_words, joined_without,
+                                   read_records, run_drop_tags, run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
                                    decode_lexicalized, is_treebank_grammar,
                                    treebank_tree)
@@ -130,6 +151,7 @@ def run(args) -> int:
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
     from treewright.tracking import terminal_progress
+    from treewright.word_pieces import barred_positions, piece_joins
 
     if args.function_words is not None and args.heads_out is None:
         raise InputError("--function-words changes the heads that --heads-out writes; give "
@@ -172,39 +194,42 @@ def run(args) -> int:
     if factored is not None:
         grammars = []
 
-        def work(group):
+        def work(group, pieces):
             return factored.parse(group, args.batch_size, args.decoder)
     elif args.decoder == "lexicalized":   # the model itself, labels from its back-off grammar
         grammars = [grammar]
 
-        def work(group):
+        def work(group, pieces):
             return decode_lexicalized(lexicalized.model, lexicalized.vocab, grammar, group,
                                       args.batch_size)
     elif args.decoder in ENSEMBLE_DECODERS:  # the run's restarts, the kept one first
         grammars = [s.grammar for s in open_restart_grammars(
             args.grammar, f"the {args.decoder} decoder")]
 
-        def work(group):
-            return consensus(grammars, group, args.batch_size, dtype)
+        def work(group, pieces):
+            return consensus(grammars, group, args.batch_size, dtype, pieces)
     else:
         grammars = [grammar]
 
-        def work(group):
-            return decode(grammar, group, args.decoder, args.batch_size, dtype)
+        def work(group, pieces):
+            return decode(grammar, group, args.decoder, args.batch_size, dtype, pieces)
     config = (source.training or {}).get("config")
     data = config.get("data") if isinstance(config, dict) else None
     on_tags = args.tags or run_tag_mode(data)
     drop = run_drop_tags(data)
     fmt = "text" if args.text == "-" else detect_format(args.text)
-    tagged = read_tagged(args.text, fmt) if on_tags and fmt != "text" else None
-    if tagged is None:  # raw text lines, or the words of each tree or CoNLL-U block
-        every_line = read_lines(args.text)
+    # Each tree or CoNLL-U block, as evaluation reads gold (read_lines reads them so too).
+    records = None if fmt == "text" else read_records(args.text, fmt,
+                                                      ReadOptions(tag_mode=on_tags))
+    if records is None or not on_tags:  # raw text lines, or the words of each record
+        every_line = read_lines(args.text) if records is None else \
+            [(s.line, s.tokens) for s in records]
         lines = [(k, words) for k, words in every_line if words]
         # Tags (raw text read as tags) are never lowercased, as training read them.
         tokens = [words for _, words in lines] if on_tags else as_trained(source, lines)
     else:  # tags go into the grammar, the words come out; one output line per sentence
-        every_line = lines = [(s.line, s.words) for s in tagged]
-        tokens = [s.tokens for s in tagged]
+        every_line = lines = [(s.line, s.words) for s in records]
+        tokens = [s.tokens for s in records]
     # Tags whose words training removed (data.drop_tags) are left out of the parse, as there,
     # and put back into the tree (insert_words); a dropped tag the grammar knows (training on
     # raw text removes none) stays in.
@@ -226,8 +251,39 @@ def run(args) -> int:
     else:  # no rule tensor to budget for; groups of sentences for the progress bar
         plan = BudgetPlan.unbudgeted([len(inputs[i]) for i in todo], FACTORED_GROUP)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
+    side = piece_side(args, source, records,
+                      factored is not None or args.decoder == "lexicalized")
+    barred = None if side is None else \
+        [barred_positions(joined_without(piece_joins(s.words, s.joined, s.tags), keep))
+         for s, keep in zip(records, kept)]
+    if barred is not None and any(barred):
+        print(f"decoding under the word-piece constraint (the host comes {side}; split "
+              f"written words in {sum(map(bool, barred))} of {len(barred)} sentences)"
+              + ("; --word-pieces none decodes without it" if args.word_pieces == "auto"
+                 else ""), file=sys.stderr)
+    else:
+        barred = None
+
+    freed = []  # sentences the constraint left no tree, decoded without it
+
+    def planned(positions):  # the sentences of one group of the plan, under their constraint
+        group = [inputs[todo[p]] for p in positions]
+        if barred is None:
+            return work(group, None)
+        results = list(work(group, (side, [barred[todo[p]] for p in positions])))
+        lost = [k for k, r in enumerate(results) if r.tree is None and barred[todo[positions[k]]]]
+        if lost:   # a grammar without every rule may have no tree that keeps the pieces
+            for k, again in zip(lost, work([group[k] for k in lost], None)):
+                results[k] = again
+                freed.append(todo[positions[k]])
+        return results
+
     with terminal_progress(len(todo) - len(plan.over), "parse") as progress:
-        done = run_plan(plan, [inputs[i] for i in todo], work, progress)
+        done = run_plan(plan, range(len(todo)), planned, progress)
+    for i in sorted(freed):
+        print(f"{input_name(args.text)}, line {lines[i][0]}: no tree keeps every piece of its "
+              "split written words with the host; decoded without the word-piece constraint",
+              file=sys.stderr)
     results = [None] * len(lines)
     for i, result in zip(todo, done):
         results[i] = result
@@ -277,6 +333,41 @@ def run(args) -> int:
     if args.heads_out is not None:
         write_heads(args, lexicalized, fmt, lines, inputs, function_words)
     return 0
+
+
+def piece_side(args, source, records, own_model: bool) -> str | None:
+    """The host side ("first", "last") under which --word-pieces has `parse` decode, or None.
+    auto: the side the run's training still held at its end (`word_pieces.held_at_end`);
+    host-first, host-last: that side. None for --word-pieces none, for raw text (it marks no
+    split words; a note says so when a side was asked for) and for a decoder of a model's own
+    pass (a note, or InputError when a side was asked for)."""
+    import sys
+
+    from treewright.errors import InputError
+    from treewright.word_pieces import held_at_end
+
+    if args.word_pieces == "none":
+        return None
+    asked = args.word_pieces != "auto"
+    side = args.word_pieces.removeprefix("host-") if asked else held_at_end(source.training)
+    if side is None:
+        return None
+    if own_model:
+        why = (f"the {args.decoder} decoder reads the model itself and does not apply the "
+               "word-piece constraint")
+        if asked:
+            raise InputError(f"--word-pieces {args.word_pieces}: {why}; use --decoder viterbi, "
+                             "mbr, max-rule-product or consensus")
+        print(f"note: the run trained under the word-piece constraint, but {why}",
+              file=sys.stderr)
+        return None
+    if records is None:
+        if asked:
+            print(f"note: --word-pieces {args.word_pieces} has nothing to act on: raw text "
+                  "does not mark the written words a tokenizer split (CoNLL-U does)",
+                  file=sys.stderr)
+        return None
+    return side
 
 
 HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar

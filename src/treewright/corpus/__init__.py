@@ -12,8 +12,8 @@ from treewright.corpus.dependencies import (DependencySentence, check_tree, depe
                                             iter_conllu_blocks, lift_to_projective,
                                             nonprojective_arcs, subtree_spans)
 from treewright.corpus.lines import iter_lines, iter_word_list
-from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, read_corpus,
-                                      read_records, read_tagged, write_skip_log)
+from treewright.corpus.reader import (FORMATS, CorpusStream, detect_format, joined_without,
+                                      read_corpus, read_records, read_tagged, write_skip_log)
 from treewright.corpus.transforms import (BIN_MARK, PARENT_SEP, UNARY_SEP, binarize,
                                           collapse_unary, expand_unary, has_transform_marks,
                                           insert_words,
@@ -33,6 +33,7 @@ __all__ = [
     "Sentence", "SkippedRecord", "Split", "UNARY_SEP", "binarize", "check_tree", "clean_tree",
     "collapse_unary", "cubic_cost", "dependency_to_tree", "depth", "detect_format", "expand_unary", "has_transform_marks",
     "insert_words", "iter_bracket_records", "iter_conllu_blocks", "iter_lines", "iter_word_list",
+    "joined_without",
     "length_batches",
     "lift_to_projective", "lowercase", "nonprojective_arcs", "normalization_note",
     "normalization_variants", "parse_brackets", "preterminal_tags",

@@ -224,7 +224,7 @@ class CorpusStream:
                 yield self._finish([w for w, k in zip(block.words, keep) if k],
                                    [t for t, k in zip(block.upos, keep) if k], None,
                                    block.line, sent_id=block.sent_id,
-                                   joined=_joined_without(joined, keep, block.in_token),
+                                   joined=joined_without(joined, keep, block.in_token),
                                    contracted=_kept(contracted, keep))
                 continue
             heads = block.heads
@@ -251,7 +251,7 @@ class CorpusStream:
                 kept_heads = _heads_without(block.heads, [not k for k in keep])
                 words, upos = tree.leaves(), preterminal_tags(tree)
                 aligned = sum(keep) == len(words)
-                joined = _joined_without(joined, keep, block.in_token) if aligned else None
+                joined = joined_without(joined, keep, block.in_token) if aligned else None
                 contracted = _kept(contracted, keep) if aligned else None
             yield self._finish(words, upos, tree, block.line, heads=kept_heads,
                                sent_id=block.sent_id, joined=joined, contracted=contracted)
@@ -262,7 +262,7 @@ def _kept(values: list | None, keep: list[bool]) -> list | None:
     return None if values is None else [v for v, k in zip(values, keep) if k]
 
 
-def _joined_without(joined: list[bool] | None, keep: list[bool],
+def joined_without(joined: list[bool] | None, keep: list[bool],
                     in_token: list[bool] | None = None) -> list[bool] | None:
     """`joined` (per word, written joined to the word before) for the kept words only: a word
     stays joined only when the word before it was kept too, since a removed word between them

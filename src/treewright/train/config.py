@@ -14,6 +14,7 @@ from typing import Literal, Sequence
 from treewright.config import (ConfigError, ConfigProblem, config_from_dict, load_config,
                                option)
 from treewright.corpus import UD_FUNCTION   # bias.head_list's name for UD's function tags
+from treewright.word_pieces import TAG_MODE_PIECE_EPOCHS
 
 
 @dataclass
@@ -182,9 +183,6 @@ class OptimizerConfig:
 # only after training.
 INDEPENDENT_MAX_DENSE_RULES = 2 ** 28
 INDEPENDENT_FORMS = ("independent", "independent-neural")  # the independent productions
-
-# How long `constraints.word_pieces_epochs: null` keeps the word-piece constraint on tags.
-TAG_MODE_PIECE_EPOCHS = 3
 
 
 @dataclass

@@ -8,10 +8,11 @@ from __future__ import annotations
 import torch
 
 from treewright.corpus import length_batches
-from treewright.train.config import TAG_MODE_PIECE_EPOCHS, TrainConfig
+from treewright.train.config import TrainConfig
 from treewright.train.data import MemoryBudget, TrainData
 from treewright.train.distributed import StreamedCorpus
 from treewright.train.estep import Batch, edge_bias, make_batch
+from treewright.word_pieces import TAG_MODE_PIECE_EPOCHS
 
 
 def restart_seed(seed: int, restart: int) -> int:
