@@ -223,11 +223,24 @@ def test_tags_whose_words_training_removed_break_the_join_across_them(tmp_path):
                     "3\t,\t_\tPUNCT\t_\t_\t_\t_\t_\tSpaceAfter=No\n"
                     "4\tc\t_\tX1\t_\t_\t_\t_\t_\tSpaceAfter=No\n"
                     "5\td\t_\tX0\t_\t_\t_\t_\t_\t_\n"
+                    "6\te\t_\tX2\t_\t_\t_\t_\t_\t_\n\n"
+                    # The same written word as one multiword token `b"c` (and `d` written
+                    # against it): the removed quote inside the token does not part b from c,
+                    # so positions 2 and 3 are barred.
+                    "1\ta\t_\tX2\t_\t_\t_\t_\t_\t_\n"
+                    "2-4\tb\"c\t_\t_\t_\t_\t_\t_\t_\tSpaceAfter=No\n"
+                    "2\tb\t_\tX0\t_\t_\t_\t_\t_\t_\n"
+                    "3\t\"\t_\tPUNCT\t_\t_\t_\t_\t_\t_\n"
+                    "4\tc\t_\tX1\t_\t_\t_\t_\t_\t_\n"
+                    "5\td\t_\tX0\t_\t_\t_\t_\t_\t_\n"
                     "6\te\t_\tX2\t_\t_\t_\t_\t_\t_\n\n", encoding="utf-8")
     code, out, err = cli("parse", run, text, "--decoder", "viterbi")
     assert code == 0, err
-    assert "split written words in 1 of 1 sentences" in err
+    assert "split written words in 2 of 2 sentences" in err
     assert unlabeled_without(out.splitlines()[0], 2) == want
+    in_token = {(i, j) for i, j, _ in best_allowed(g, tags, allowed("first", [2, 3]))[0]
+                if j - i >= 2}
+    assert unlabeled_without(out.splitlines()[1], 2) == in_token
 
 
 @pytest.mark.parametrize("summary, config, expect", [

@@ -95,6 +95,14 @@ def test_a_removed_word_inside_a_multiword_token_keeps_the_join(tmp_path, heads)
     assert (s.tree is not None) == heads
     assert s.words == ["de", "ulo", "sen"]
     assert s.joined == [False, True, False]
+    assert s.in_token == [False, True, False]   # de and ulo, with the quote gone between them
+    # Read whole, the sentence says the same through `in_token` to a caller that removes the
+    # quote itself (as `parse` removes a run's dropped tags): corpus.joined_without.
+    from treewright.corpus import joined_without
+    (whole,) = read_corpus(write(tmp_path, text, "whole.conllu"), "conllu").sentences
+    assert whole.in_token == [False, True, True, False]
+    assert joined_without(whole.joined, [True, False, True, True], whole.in_token) == s.joined
+    assert joined_without(whole.joined, [True, False, True, True]) == [False, False, False]
 
 
 def test_a_sentence_with_some_heads_missing_names_the_word_line(tmp_path):

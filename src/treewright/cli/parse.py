@@ -254,8 +254,8 @@ def run(args) -> int:
     side = piece_side(args, source, records,
                       factored is not None or args.decoder == "lexicalized")
     barred = None if side is None else \
-        [barred_positions(joined_without(piece_joins(s.words, s.joined, s.tags), keep))
-         for s, keep in zip(records, kept)]
+        [barred_positions(joined_without(piece_joins(s.words, s.joined, s.tags), keep,
+                                         s.in_token)) for s, keep in zip(records, kept)]
     if barred is not None and any(barred):
         print(f"decoding under the word-piece constraint (the host comes {side}; split "
               f"written words in {sum(map(bool, barred))} of {len(barred)} sentences)"

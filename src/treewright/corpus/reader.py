@@ -159,7 +159,8 @@ class CorpusStream:
     def _finish(self, words: list[str], tags: list[str] | None, tree: Tree | None, line: int,
                 heads: list[int] | None = None, sent_id: str | None = None,
                 joined: list[bool] | None = None,
-                contracted: list[str | None] | None = None) -> Sentence | None:
+                contracted: list[str | None] | None = None,
+                in_token: list[bool] | None = None) -> Sentence | None:
         """Apply tag mode and the length limits; count the sentence if it goes unused."""
         if self.options.tag_mode:
             if tags is None:
@@ -170,7 +171,7 @@ class CorpusStream:
             tokens = [self._normalise(w) for w in words]
         sentence = Sentence(words=words, tokens=tokens, tree=tree, tags=tags, source=self.path,
                             line=line, heads=heads, sent_id=sent_id, joined=joined,
-                            contracted=contracted)
+                            contracted=contracted, in_token=in_token)
         n = len(tokens)
         if n == 0:
             self._skip("empty", line)
@@ -225,7 +226,8 @@ class CorpusStream:
                                    [t for t, k in zip(block.upos, keep) if k], None,
                                    block.line, sent_id=block.sent_id,
                                    joined=joined_without(joined, keep, block.in_token),
-                                   contracted=_kept(contracted, keep))
+                                   contracted=_kept(contracted, keep),
+                                   in_token=in_token_without(block.in_token, keep))
                 continue
             heads = block.heads
             if nonprojective_arcs(heads):
@@ -239,6 +241,7 @@ class CorpusStream:
             tree = dependency_to_tree(block.words, block.upos, heads, options.dependency_labels,
                                       options.fixed_label)
             words, upos, kept_heads = block.words, block.upos, block.heads
+            in_token = block.in_token
             if options.punct_labels and any(t in options.punct_labels for t in upos):
                 # Removed from the constituency tree, as for bracketed trees; the dependency
                 # heads survive only when no removed word has a dependent.
@@ -253,8 +256,10 @@ class CorpusStream:
                 aligned = sum(keep) == len(words)
                 joined = joined_without(joined, keep, block.in_token) if aligned else None
                 contracted = _kept(contracted, keep) if aligned else None
+                in_token = in_token_without(in_token, keep) if aligned else None
             yield self._finish(words, upos, tree, block.line, heads=kept_heads,
-                               sent_id=block.sent_id, joined=joined, contracted=contracted)
+                               sent_id=block.sent_id, joined=joined, contracted=contracted,
+                               in_token=in_token)
 
 
 def _kept(values: list | None, keep: list[bool]) -> list | None:
@@ -279,6 +284,21 @@ def joined_without(joined: list[bool] | None, keep: list[bool],
         one_token = in_token is not None and before >= 0 and all(in_token[before + 1:i + 1])
         out.append(j and before >= 0 and (before == i - 1 or one_token))
         before = i
+    return out
+
+
+def in_token_without(in_token: list[bool] | None, keep: list[bool]) -> list[bool] | None:
+    """`in_token` (per word, in one multiword token with the word before) for the kept words
+    only: a kept word is in one token with the kept word before it when every word from that
+    one to it lies in one multiword token (None stays None)."""
+    if in_token is None:
+        return None
+    out: list[bool] = []
+    before = -1
+    for i, k in enumerate(keep):
+        if k:
+            out.append(before >= 0 and all(in_token[before + 1:i + 1]))
+            before = i
     return out
 
 

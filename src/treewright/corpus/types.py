@@ -179,7 +179,9 @@ class Sentence:
     tokens and `SpaceAfter=No`; see `treewright.word_pieces`); None where the format does not
     say. `contracted` gives, per word, the written form of the CoNLL-U multiword token it lies
     in when the token's words run together do not spell it (`au` over `à` and `le`), else None;
-    None when the sentence has no such token.
+    None when the sentence has no such token. `in_token` marks, per word, the words that lie in
+    one CoNLL-U multiword token with the word before them (so that a word removed between them
+    does not part them: `corpus.joined_without`); None where the format has no such tokens.
     """
     words: list[str]
     tokens: list[str]
@@ -191,6 +193,7 @@ class Sentence:
     sent_id: str | None = None
     joined: list[bool] | None = None
     contracted: list[str | None] | None = None
+    in_token: list[bool] | None = None
 
     def __len__(self) -> int:
         return len(self.tokens)
