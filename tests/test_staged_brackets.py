@@ -11,6 +11,8 @@ corpus with constraints.train_brackets) that must give the same grammar.
 
 from __future__ import annotations
 
+import math
+
 import pytest
 import torch
 
@@ -185,3 +187,132 @@ def test_sentences_over_the_memory_budget_are_not_decoded_since_they_do_not_trai
     over = len(SENTENCES) - len(planned)
     assert any(f"{over} sentences over the memory budget's length (4 words)" in n
                for n in data.notes)
+
+
+# ---- partial brackets beside the word-piece constraint ---------------------------------------
+
+# Written words (by hand): `w1w0` over words 1-2 and `w2w0w1` over words 3-5, so positions 2,
+# 4 and 5 are written joined to the word before.
+PIECED = """\
+1\tw2\t_\tX\t_\t_\t_\t_\t_\t_
+2\tw1\t_\tX\t_\t_\t_\t_\t_\tSpaceAfter=No
+3\tw0\t_\tX\t_\t_\t_\t_\t_\t_
+4\tw2\t_\tX\t_\t_\t_\t_\t_\tSpaceAfter=No
+5\tw0\t_\tX\t_\t_\t_\t_\t_\tSpaceAfter=No
+6\tw1\t_\tX\t_\t_\t_\t_\t_\t_
+
+"""
+PIECED_WORDS = ["w2", "w1", "w0", "w2", "w0", "w1"]
+PIECED_BARRED = [2, 4, 5]
+
+
+def _bracketings(i: int, j: int) -> list[set]:
+    """Every binary bracketing of words i..j-1, as its spans of width >= 2."""
+    if j - i == 1:
+        return [set()]
+    return [{(i, j)} | left | right for k in range(i + 1, j)
+            for left in _bracketings(i, k) for right in _bracketings(k, j)]
+
+
+def _allowed(brackets, side, barred):
+    """A tree's spans (i, j) of width >= 2 satisfy the brackets (none crosses one: Pereira &
+    Schabes 1992) and the constraint (none starts at a barred position with the host first,
+    ends just before one with the host last), by their definitions."""
+    def keep(spans) -> bool:
+        for i, j in spans:
+            if (i if side == "first" else j) in barred:
+                return False
+            if any(i < a < j < b or a < i < b < j for a, b in brackets):
+                return False
+        return True
+    return keep
+
+
+@pytest.mark.parametrize("side", ["first", "last"])
+def test_a_bracket_that_cuts_a_piece_is_left_out_while_the_constraint_applies(side):
+    # Reference: brute force (test_train_fixtures.brute_force) over the trees the kept
+    # brackets and the constraint allow. With every bracket kept no tree would be left (the
+    # brute force says so too), and the sentence would drop out of training unseen.
+    from test_train_fixtures import brute_force
+    from treewright.engine import log_partition
+    from treewright.params.tabular import tabular_from_grammar
+    from treewright.word_pieces import cuts_piece
+    g = random_grammar(2, 2, 3, seed=4)
+    ids = [[int(w[1:]) for w in PIECED_WORDS]]
+    # The brackets of one binary tree each (without the whole sentence).
+    brackets = [[(0, 2), (2, 6), (3, 6), (4, 6)] if side == "first" else
+                [(0, 2), (0, 4), (2, 4), (4, 6)]]
+    cut = [b for b in brackets[0] if cuts_piece(side, set(PIECED_BARRED), *b)]
+    assert 0 < len(cut) < len(brackets[0])
+    with torch.no_grad():
+        rules = tabular_from_grammar(g, g.vocab, dtype=torch.float64).rules()
+    every = _allowed(brackets[0], side, PIECED_BARRED)
+    assert not any(every(spans) for spans in _bracketings(0, len(PIECED_WORDS)))
+    batch = make_batch([0], ids, brackets, torch.float64, (side, [PIECED_BARRED]))
+    kept = [b for b in brackets[0] if b not in cut]
+    want = brute_force(rules, ids[0], _allowed(kept, side, PIECED_BARRED))[0]
+    terminal = rules.lexical[:, batch.ids[0]].T[None]
+    got = log_partition(rules.root, rules.binary, terminal, batch.lengths,
+                        span_pot=batch.span_pot)
+    assert math.isfinite(want) and float(got[0]) == pytest.approx(want, abs=1e-10)
+    # Without the constraint (an epoch after constraints.word_pieces_epochs) every bracket
+    # applies again.
+    free = make_batch([0], ids, brackets, torch.float64)
+    got = log_partition(rules.root, rules.binary, terminal, free.lengths, span_pot=free.span_pot)
+    assert float(got[0]) == pytest.approx(brute_force(rules, ids[0], _allowed(
+        brackets[0], side, []))[0], abs=1e-10)
+
+
+def test_gold_brackets_that_cut_a_piece_are_counted_in_the_log(tmp_path):
+    # Gold trees (constraints.train_brackets) of the pieced sentence: the dependency tree below
+    # makes [4, 6) a constituent (counted by hand: word 5 heads word 6), which starts at the
+    # barred position 4 with the host first.
+    heads = [0, 1, 2, 2, 4, 5]
+    rows = [line.split("\t") for line in PIECED.strip().split("\n")]
+    text = "".join("\t".join(r[:6] + [str(h), "dep" if h else "root"] + r[8:]) + "\n"
+                   for r, h in zip(rows, heads)) + "\n"
+    path = tmp_path / "gold.conllu"
+    path.write_text(text * 3, encoding="utf-8")
+    cfg = _config(tmp_path, path, "data.format=conllu", "constraints.train_brackets=true",
+                  "constraints.word_pieces=host-first")
+    data = load_data(cfg)
+    from treewright.word_pieces import cuts_piece
+    cut = sum(cuts_piece("first", {2, 4, 5}, i, j) for spans in data.brackets for i, j in spans)
+    assert cut >= 3
+    assert any(f"partial brackets: {cut} of {sum(map(len, data.brackets))} (in 3 sentences) "
+               "cut a bound piece" in n for n in data.notes)
+
+
+def test_brackets_from_a_run_that_held_the_constraint_are_decoded_under_it(tmp_path):
+    # Reference: the mbr decoder under the constraint (checked against enumeration in
+    # tests/test_decode.py), as `parse` decodes the source run's CoNLL-U: a source run folder
+    # whose config and data_summary.json say it held the constraint, host first, to its end.
+    import json
+
+    import yaml
+    from treewright.decode import decode
+    source = tmp_path / "source"
+    source.mkdir()
+    g = random_grammar(3, 3, 3, seed=8)
+    g.save(source / "grammar.pcfg")
+    g = load_grammar(source / "grammar.pcfg")
+    (source / "config.yaml").write_text(yaml.safe_dump({
+        "data": {"format": "conllu"}, "constraints": {"word_pieces_epochs": None},
+        "train": {"epochs": 5}}))
+    (source / "data_summary.json").write_text(json.dumps({"word_pieces_host": "first"}))
+    path = tmp_path / "train.conllu"
+    path.write_text(PIECED * 2, encoding="utf-8")
+    cfg = _config(tmp_path, path, "data.format=conllu", f"constraints.brackets_from={source}",
+                  "constraints.word_pieces=host-first")
+    data = load_data(cfg, grammar_brackets(cfg))
+    (want,) = decode(g, [PIECED_WORDS], "mbr", pieces=("first", [PIECED_BARRED]))
+    (free,) = decode(g, [PIECED_WORDS], "mbr")
+    n = len(PIECED_WORDS)
+
+    def brackets(tree):
+        return sorted((i, j) for i, j, _ in tree.labeled_spans() if j - i >= 2 and (i, j) != (0, n))
+    assert brackets(want.tree) != brackets(free.tree)
+    assert data.brackets == [brackets(want.tree)] * 2
+    assert any("under the word-piece constraint it held, host first" in note
+               for note in data.notes)
+    assert not any("cut a bound piece" in note for note in data.notes)

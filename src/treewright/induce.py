@@ -44,6 +44,7 @@ from treewright.train.dev import DevLikelihood
 from treewright.train.distributed import LocalWorld
 from treewright.train.loop import RunResult, Trainer, _dtype, saved_config
 from treewright.trees import Tree
+from treewright.word_pieces import held_at_end
 
 BASELINES = ("left_branching", "right_branching", "random_binary")
 
@@ -129,22 +130,38 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
     # decoded either (a long one could take more memory than the budget allows).
     longest = MemoryBudget(cfg, _dtype(cfg)).max_length
 
-    def brackets_of(sentences: list[list[str]]) -> tuple[list[list[tuple[int, int]]], str]:
+    # Decoded as `parse` decodes: under the word-piece constraint where the source's training
+    # held it to its end, so that its trees keep the pieces this run's constraint keeps.
+    side = held_at_end(source.training)
+
+    def brackets_of(sentences: list[list[str]], barred: list[list[int]] | None = None
+                    ) -> tuple[list[list[tuple[int, int]]], str]:
         todo = [i for i, s in enumerate(sentences) if len(s) <= longest]
         trees: list[Tree | None] = [None] * len(sentences)
+        pieced = side is not None and barred is not None and any(barred)
+
+        def parse(group, pieces):
+            return consensus(grammars, group, pieces=pieces) if len(grammars) >= 2 \
+                else decode(grammars[0], group, "mbr", pieces=pieces)
+
         with terminal_progress(len(todo), "brackets") as progress:
             for start in range(0, len(todo), BRACKET_CHUNK):
                 part = todo[start:start + BRACKET_CHUNK]
                 group = [sentences[i] for i in part]
-                parsed = consensus(grammars, group) if len(grammars) >= 2 else \
-                    decode(grammars[0], group, "mbr")
+                pieces = (side, [barred[i] for i in part]) if pieced else None
+                parsed = parse(group, pieces)
+                if pieces is not None:   # a grammar without every rule may leave no such tree
+                    lost = [k for k, d in enumerate(parsed) if d.tree is None and pieces[1][k]]
+                    for k, d in zip(lost, parse([group[k] for k in lost], None) if lost else []):
+                        parsed[k] = d
                 for i, d in zip(part, parsed):
                     trees[i] = d.tree
                 progress.update(len(group))
         brackets = [[] if t is None else tree_brackets(t) for t in trees]
         unparsed = len(todo) - sum(trees[i] is not None for i in todo)
-        note = (f"partial brackets from {source.grammar_path} ({decoder}): "
-                f"{sum(map(len, brackets))} over {len(brackets)} sentences")
+        note = (f"partial brackets from {source.grammar_path} ({decoder}"
+                + (f", under the word-piece constraint it held, host {side}" if pieced else "")
+                + f"): {sum(map(len, brackets))} over {len(brackets)} sentences")
         if unparsed:
             note += f"; {unparsed} sentences without a parse train unconstrained"
         if len(todo) < len(sentences):

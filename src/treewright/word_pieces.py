@@ -174,6 +174,12 @@ def barred_positions(joined: Sequence[bool] | None) -> list[int]:
     return [] if joined is None else [k for k, j in enumerate(joined) if j and k > 0]
 
 
+def cuts_piece(side: str, barred: Sequence[int] | set[int], start: int, end: int) -> bool:
+    """Whether the span [start, end) is one the constraint forbids: two or more words that
+    start at a barred position (side "first") or end just before one (side "last")."""
+    return end - start >= 2 and (start if side == "first" else end) in barred
+
+
 def piece_mask(side: str, barred: Sequence[Sequence[int]], n: int, dtype: torch.dtype) -> Tensor:
     """(B, n+1, n+1) [start, width] log-potentials: -inf on every span of width >= 2 that starts
     at a barred position (side "first": the host is the first piece of a written word) or ends

@@ -24,7 +24,7 @@ from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
 from treewright.train.config import TrainConfig
 from treewright.train.distributed import StreamedCorpus
-from treewright.word_pieces import barred_positions, host_side, piece_joins
+from treewright.word_pieces import barred_positions, cuts_piece, host_side, piece_joins
 
 
 @dataclass
@@ -49,9 +49,12 @@ def tree_brackets(tree: Tree) -> list[tuple[int, int]]:
 
 
 # Trees of training sentences from a grammar, for `constraints.brackets_from`: given the tokens
-# of every training sentence, their partial brackets (as `tree_brackets` gives them) and a note
-# for the log. Decoding lives above `train/`, so the caller hands this in (`induce.trainer`).
-BracketSource = Callable[[list[list[str]]], tuple[list[list[tuple[int, int]]], str]]
+# of every training sentence and, per sentence, the positions written joined to the word
+# before (`word_pieces.barred_positions`; None when the corpus is streamed), their partial
+# brackets (as `tree_brackets` gives them) and a note for the log. Decoding lives above
+# `train/`, so the caller hands this in (`induce.trainer`).
+BracketSource = Callable[[list[list[str]], list[list[int]] | None],
+                         tuple[list[list[tuple[int, int]]], str]]
 
 
 # Why the grammars training builds cannot use a one-word sentence (`RuleModel.parses_one_word`).
@@ -118,7 +121,9 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
         if bracket_source is None:
             raise ValueError("constraints.brackets_from needs a bracket source from the caller "
                              "(treewright.induce.trainer decodes the grammar it names)")
-        brackets, note = bracket_source([list(s.tokens) for s in train.sentences])
+        barred = [barred_positions(piece_joins(s.words, s.joined, s.tags))
+                  for s in train.sentences]
+        brackets, note = bracket_source([list(s.tokens) for s in train.sentences], barred)
         notes.append(note)
     dev_ids: list[list[int]] = []
     dev_words: list[list[str]] = []
@@ -138,6 +143,10 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
     train_ids = train if d.stream_chunk is not None else \
         [train.encode(s) for s in train.sentences]
     pieces = None if d.stream_chunk is not None else _word_pieces(cfg, train.sentences, notes)
+    if brackets is not None and pieces is not None:
+        note = _brackets_cutting_pieces(brackets, pieces)
+        if note is not None:
+            notes.append(note)
     head_list = None
     if cfg.bias.head_list is not None:
         head_list = head_list_weights(cfg, vocab, notes)
@@ -243,6 +252,21 @@ def _word_pieces(cfg: TrainConfig, sentences, notes: list[str]
     if side is None:
         return None
     return side, [barred_positions(joins) for joins in joined]
+
+
+def _brackets_cutting_pieces(brackets: list[list[tuple[int, int]]],
+                             pieces: tuple[str, list[list[int]]]) -> str | None:
+    """A note on the partial brackets that cut a bound piece from its host, which `make_batch`
+    leaves out while the word-piece constraint applies; None when there are none."""
+    side, barred = pieces
+    cut = [sum(cuts_piece(side, set(positions), i, j) for i, j in spans)
+           for spans, positions in zip(brackets, barred)]
+    if not any(cut):
+        return None
+    return (f"partial brackets: {sum(cut)} of {sum(map(len, brackets))} (in "
+            f"{sum(map(bool, cut))} sentences) cut a bound piece from its host; while the "
+            "word-piece constraint applies they are left out, so that those sentences keep "
+            "their trees")
 
 
 def summary(data: TrainData) -> dict:

@@ -20,7 +20,7 @@ from treewright.params.compound import (compound_log_partition, compound_span_po
 from treewright.params.independent import IndependentRules
 from treewright.params.lowrank import LowRankRules
 from treewright.params.tabular import RuleTensors
-from treewright.word_pieces import piece_mask
+from treewright.word_pieces import cuts_piece, piece_mask
 
 # Re-exported: the engine-facing helpers moved to the parameterizations (params.base,
 # params.compound); tests and benchmarks import them from here.
@@ -56,14 +56,24 @@ def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
     """A `Batch` of the given sentences; `brackets` (per sentence, spans (i, j)) forbid every span
     that crosses one of them (Pereira & Schabes 1992); `pieces` (host side, per sentence the
     positions of `word_pieces.barred_positions`) forbid every span that cuts a bound piece from
-    its host."""
+    its host.
+
+    Where the two disagree, the constraint wins: a bracket that cuts a bound piece from its host
+    (`word_pieces.cuts_piece`) is left out, since in a binary tree a bracket no span crosses is
+    a span of the tree, and the two together would leave the sentence no tree at all. What
+    remains always holds a tree: inside every kept bracket (and the whole sentence), join its
+    parts from the left with the host first (every span starts where the bracket does, never
+    at a barred position), from the right with the host last."""
     ids, lengths = pad_ids([sentence_ids[i] for i in indices])             # (B, N), (B,)
     n = ids.shape[1]
     span_pot = None
     if brackets is not None and any(brackets[i] for i in indices):
         span_pot = torch.zeros(len(indices), n + 1, n + 1, dtype=dtype)
         for b, i in enumerate(indices):
+            barred = set() if pieces is None else set(pieces[1][i])
             for start, end in brackets[i]:
+                if pieces is not None and cuts_piece(pieces[0], barred, start, end):
+                    continue
                 span_pot[b] = span_pot[b].masked_fill(crossing_mask(start, end, n), NEG_INF)
     if pieces is not None and any(pieces[1][i] for i in indices):
         pot = piece_mask(pieces[0], [pieces[1][i] for i in indices], n, dtype)
