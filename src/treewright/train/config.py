@@ -190,15 +190,19 @@ class ConstraintsConfig:
     train_brackets: bool = option(
         False, "Use the brackets of the training trees as partial constraints: no tree may "
                "cross them (Pereira & Schabes 1992). Needs a bracketed or CoNLL-U corpus; a "
-               "flat node leaves its inside unconstrained.")
+               "flat node leaves its inside unconstrained. A bracket that cuts a bound piece "
+               "from its host (constraints.word_pieces) is left out while that constraint "
+               "applies, and the log counts them.")
     brackets_from: Path | None = option(
         None, "A run folder or grammar file trained on the same corpus with the same data "
               "options (for example a run of configs/induce.yaml): its trees of the training "
               "sentences become partial brackets, as constraints.train_brackets makes of gold "
               "trees (Pereira & Schabes 1992). The trees are the consensus of the run's "
-              "restarts when it saved two or more, else the mbr trees. Staged induction: the "
-              "first model finds the constituents; this one learns what they leave open, "
-              "such as the head of each constituent in a lexicalized model.")
+              "restarts when it saved two or more, else the mbr trees, decoded under the "
+              "word-piece constraint when that run held it to its end (a bracket that still "
+              "cuts a bound piece is left out while this run applies the constraint). Staged "
+              "induction: the first model finds the constituents; this one learns what they "
+              "leave open, such as the head of each constituent in a lexicalized model.")
     brackets_epochs: int | None = option(
         None, "Apply the brackets (constraints.train_brackets or constraints.brackets_from) "
               "for this many epochs of each restart, then train without them. null: the "
