@@ -309,3 +309,34 @@ def test_a_sentence_the_constraint_leaves_no_tree_is_decoded_without_it(tmp_path
         assert out.splitlines() == ["(S (X (P a) (P a)) (P a))"] * 2
         assert f"{text}, line 1: no tree keeps every piece" in err
         assert "line 5" not in err and "no parse" not in err
+
+
+def test_report_decodes_the_gold_as_parse_does(grammar_file, tmp_path):
+    # The report of a run that held the constraint to its end parses its gold CoNLL-U under
+    # it, as `parse` does: the same trees as brute force over the allowed trees (viterbi), a
+    # note on the page, and none for a run that released it.
+    from treewright.corpus import read_corpus
+    from treewright.report import html
+    path, conllu = grammar_file
+    g = load_grammar(path)
+    heads = "\n".join(
+        "\t".join(f[:6] + [str(int(f[0]) - 1), "dep" if f[0] != "1" else "root"] + f[8:])
+        if len(f := line.split("\t")) == 10 and "-" not in f[0] else line
+        for line in CONLLU.split("\n"))
+    gold = tmp_path / "gold.conllu"
+    gold.write_text(heads, encoding="utf-8")
+    sentences = read_corpus(gold, "conllu").sentences
+    assert [s.words for s in sentences] == SENTENCES
+    parsed = html.parse_sentences(g, sentences, "viterbi", None, "first")
+    assert parsed.pieced and not parsed.freed
+    for words, barred, tree in zip(SENTENCES, BARRED, parsed.trees, strict=True):
+        assert sorted(tree.labeled_spans()) == labeled(best_allowed(g, words,
+                                                                    allowed("first", barred))[0])
+    held = write_run(tmp_path / "held", path, {"data": {}, "constraints": {},
+                                                "train": {"epochs": 5}}, "first")
+    page = html.build_report(held, gold, decoder="viterbi")
+    assert "decoded under the word-piece constraint the run held to its end" in page
+    released = write_run(tmp_path / "released", path, {"data": {}, "constraints": {
+        "word_pieces_epochs": 2}, "train": {"epochs": 5}}, "first")
+    page = html.build_report(released, gold, decoder="viterbi")
+    assert "word-piece constraint" not in page

@@ -120,7 +120,8 @@ def run_plan(plan: BudgetPlan, sentences: Sequence[Sequence[str]],
              work: Callable[[list[Sequence[str]]], Sequence[R]],
              progress=None) -> list[R | None]:
     """`work(group of sentences)` per group of `plan`, results back in input order; None for
-    the sentences over the budget. `progress` (optional, a `tracking.Progress`) is advanced by
+    the sentences over the budget. `sentences` may hold whatever `work` reads of each (its
+    words, or its index into the caller's lists). `progress` (optional, a `tracking.Progress`) is advanced by
     each group's size."""
     out: list[R | None] = [None] * len(sentences)
     for group in plan.groups:
@@ -145,22 +146,42 @@ def score_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
 def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
                          decoder: str = "mbr", budget_mb: float | None = DEFAULT_BUDGET_MB,
                          batch_size: int = 16, dtype: torch.dtype = torch.float64,
-                         progress=None):
-    """`decode.decode` of every sentence that fits `budget_mb`, None for the others."""
+                         progress=None, pieces=None, freed: list[int] | None = None):
+    """`decode.decode` of every sentence that fits `budget_mb`, None for the others; with
+    `pieces` (host side, barred positions per sentence) under the word-piece constraint, a
+    sentence it leaves no tree decoded without it and its index added to `freed`
+    (`decode.under_pieces`)."""
     from treewright.decode import decode
 
-    plan = plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype, batch_size)
-    return run_plan(plan, sentences,
-                    lambda group: decode(grammar, group, decoder, batch_size, dtype), progress)
+    return _planned(plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype,
+                                batch_size), sentences,
+                    lambda group, p: decode(grammar, group, decoder, batch_size, dtype, p),
+                    progress, pieces, freed)
 
 
 def consensus_within_budget(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
                             budget_mb: float | None = DEFAULT_BUDGET_MB, batch_size: int = 16,
-                            dtype: torch.dtype = torch.float64, progress=None):
+                            dtype: torch.dtype = torch.float64, progress=None, pieces=None,
+                            freed: list[int] | None = None):
     """`decode.consensus` of every sentence that fits `budget_mb` under each of `grammars`,
-    None for the others."""
+    None for the others; `pieces` and `freed` as for `decode_within_budget`."""
     from treewright.decode import consensus
 
-    plan = plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype, batch_size)
-    return run_plan(plan, sentences,
-                    lambda group: consensus(grammars, group, batch_size, dtype), progress)
+    return _planned(plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype,
+                                batch_size), sentences,
+                    lambda group, p: consensus(grammars, group, batch_size, dtype, p),
+                    progress, pieces, freed)
+
+
+def _planned(plan: BudgetPlan, sentences, run, progress, pieces, freed):
+    """`run_plan` of `run(group, pieces of the group)` through `decode.under_pieces`."""
+    from treewright.decode import under_pieces
+
+    def work(positions):
+        results, lost = under_pieces(run, [sentences[k] for k in positions], None if pieces is None
+                                     else (pieces[0], [pieces[1][k] for k in positions]))
+        if freed is not None:
+            freed.extend(positions[k] for k in lost)
+        return results
+
+    return run_plan(plan, range(len(sentences)), work, progress)

@@ -1501,6 +1501,27 @@ def _consensus_batch(grammars, sentences, dtype, scorers, pot=None) -> list[Deco
     return out
 
 
+Pieces = tuple[str, Sequence[Sequence[int]]]   # host side, barred positions per sentence
+
+
+def under_pieces(run: Callable[[list[Sequence[str]], Pieces | None], Sequence[Decoded]],
+                 sentences: Sequence[Sequence[str]], pieces: Pieces | None
+                 ) -> tuple[list[Decoded], list[int]]:
+    """`run(sentences, pieces)` (`decode` or `consensus` with their other arguments bound),
+    and again without the constraint for the sentences it left no tree although they have a
+    barred position: a grammar without every rule may have no tree that keeps each piece with
+    its host (an induced one, with every rule, always has). Returns the results, in input
+    order, and the indices of the sentences decoded without it, which the caller names."""
+    results = list(run(list(sentences), pieces))
+    if pieces is None:
+        return results, []
+    lost = [k for k, r in enumerate(results) if r.tree is None and pieces[1][k]]
+    if lost:
+        for k, again in zip(lost, run([sentences[k] for k in lost], None)):
+            results[k] = again
+    return results, lost
+
+
 def mbr_decode(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_size: int = 16,
                dtype: torch.dtype = torch.float64) -> list[Tree | None]:
     """MBR trees (see the module docstring), None for sentences the grammar cannot parse."""

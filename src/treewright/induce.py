@@ -26,7 +26,8 @@ import torch
 from torch import Tensor
 
 from treewright.corpus import run_read_options
-from treewright.decode import HeadedParse, consensus, decode, decode_heads, mbr_spans
+from treewright.decode import (HeadedParse, consensus, decode, decode_heads, mbr_spans,
+                               under_pieces)
 from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.export.lexical import DEFAULT_PAIRS, LexicalSummary, lexical_summary
@@ -148,12 +149,8 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
             for start in range(0, len(todo), BRACKET_CHUNK):
                 part = todo[start:start + BRACKET_CHUNK]
                 group = [sentences[i] for i in part]
-                pieces = (side, [barred[i] for i in part]) if pieced else None
-                parsed = parse(group, pieces)
-                if pieces is not None:   # a grammar without every rule may leave no such tree
-                    lost = [k for k, d in enumerate(parsed) if d.tree is None and pieces[1][k]]
-                    for k, d in zip(lost, parse([group[k] for k in lost], None) if lost else []):
-                        parsed[k] = d
+                parsed, _ = under_pieces(parse, group, (side, [barred[i] for i in part])
+                                         if pieced else None)
                 for i, d in zip(part, parsed):
                     trees[i] = d.tree
                 progress.update(len(group))

@@ -146,7 +146,7 @@ def run(args) -> int:
                                    read_records, run_drop_tags, run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
                                    decode_lexicalized, is_treebank_grammar,
-                                   treebank_tree)
+                                   treebank_tree, under_pieces)
     from treewright.errors import InputError
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
@@ -267,15 +267,10 @@ def run(args) -> int:
     freed = []  # sentences the constraint left no tree, decoded without it
 
     def planned(positions):  # the sentences of one group of the plan, under their constraint
-        group = [inputs[todo[p]] for p in positions]
-        if barred is None:
-            return work(group, None)
-        results = list(work(group, (side, [barred[todo[p]] for p in positions])))
-        lost = [k for k, r in enumerate(results) if r.tree is None and barred[todo[positions[k]]]]
-        if lost:   # a grammar without every rule may have no tree that keeps the pieces
-            for k, again in zip(lost, work([group[k] for k in lost], None)):
-                results[k] = again
-                freed.append(todo[positions[k]])
+        results, lost = under_pieces(
+            work, [inputs[todo[p]] for p in positions],
+            None if barred is None else (side, [barred[todo[p]] for p in positions]))
+        freed.extend(todo[positions[k]] for k in lost)
         return results
 
     with terminal_progress(len(todo) - len(plan.over), "parse") as progress:

@@ -260,24 +260,36 @@ class Parsed:
     trees: list[Tree]        # one per sentence; NOPARSE for sentences without a parse
     unparsed: int
     over_budget: list[Sentence] = field(default_factory=list)  # not parsed: over the budget
+    pieced: bool = False      # decoded under the word-piece constraint
+    freed: list[Sentence] = field(default_factory=list)  # left no tree by it: decoded without
 
 
 def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
-                    memory_budget_mb: float | None = DEFAULT_BUDGET_MB) -> Parsed:
+                    memory_budget_mb: float | None = DEFAULT_BUDGET_MB,
+                    piece_side: str | None = None) -> Parsed:
     """The sentences' trees by `decoder`; `grammar` is a list of grammars for a decoder of
-    several (`decode.ENSEMBLE_DECODERS`)."""
+    several (`decode.ENSEMBLE_DECODERS`). With `piece_side` ("first" or "last"), under the
+    word-piece constraint, as `parse` decodes a CoNLL-U file for a run that held it to its
+    end (the sentences' joins as the run's reader read them, `word_pieces.piece_joins`);
+    `Parsed.freed` lists the sentences it left no tree, decoded without it."""
     from treewright.budget import consensus_within_budget, decode_within_budget
     from treewright.decode import ENSEMBLE_DECODERS, is_treebank_grammar, treebank_tree
     from treewright.tracking import terminal_progress
+    from treewright.word_pieces import barred_positions, piece_joins
 
     tokens = [s.tokens for s in sentences]
+    pieces = None
+    if piece_side is not None:
+        barred = [barred_positions(piece_joins(s.words, s.joined, s.tags)) for s in sentences]
+        pieces = (piece_side, barred) if any(barred) else None
+    freed: list[int] = []
     with terminal_progress(len(sentences), "report: parsing") as progress:
         if decoder in ENSEMBLE_DECODERS:
             results = consensus_within_budget(grammar, tokens, memory_budget_mb,
-                                              progress=progress)
+                                              progress=progress, pieces=pieces, freed=freed)
         else:
             results = decode_within_budget(grammar, tokens, decoder, memory_budget_mb,
-                                           progress=progress)
+                                           progress=progress, pieces=pieces, freed=freed)
     treebank = is_treebank_grammar(grammar if decoder in ENSEMBLE_DECODERS else [grammar])
     trees, unparsed = [], 0
     for s, r in zip(sentences, results):
@@ -288,7 +300,8 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
             # The treebank's brackets, not the CNF transform's (as `parse` writes them).
             trees.append(treebank_tree(_with_words(r.tree, s.words), treebank))
     over = [s for s, r in zip(sentences, results) if r is None]
-    return Parsed(list(sentences), trees, unparsed, over)
+    return Parsed(list(sentences), trees, unparsed, over, pieces is not None,
+                  [sentences[k] for k in sorted(freed)])
 
 
 def _section(ident: str, title: str, body: str) -> str:
@@ -671,7 +684,9 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         symbols; a str says why it is missing; None (another model): no such section.
     """
     from treewright.decode import ENSEMBLE_DECODERS
-    from treewright.export.source import open_restart_grammars, saved_restarts
+    from treewright.export.source import (open_restart_grammars, read_training_record,
+                                          saved_restarts)
+    from treewright.word_pieces import held_at_end
 
     found = gather(run_dir, gold, text, grammar_path, gold_format)
     grammar_folder = grammar_path if grammar_path is not None else run_dir
@@ -693,7 +708,18 @@ def build_report(run_dir: str | Path, gold: str | Path | None = None,
         if len(chosen) < len(pool):
             found.notes.append(f"parsed the first {len(chosen)} of {len(pool)} sentences "
                                "(max_sentences)")
-        parsed = parse_sentences(decoding, chosen, decoder, memory_budget_mb)
+        side = held_at_end(read_training_record(Path(grammar_folder))) \
+            if Path(grammar_folder).is_dir() else None
+        parsed = parse_sentences(decoding, chosen, decoder, memory_budget_mb, side)
+        if parsed.pieced:
+            found.notes.append(
+                f"decoded under the word-piece constraint the run held to its end (the host "
+                f"comes {side}), as treewright parse decodes CoNLL-U")
+        if parsed.freed:
+            found.notes.append(
+                f"{len(parsed.freed)} sentences had no tree that keeps every piece of their "
+                f"split written words with the host and were decoded without the constraint "
+                f"(first: {parsed.freed[0].source}, line {parsed.freed[0].line})")
         if parsed.over_budget:
             found.notes.append(
                 f"{len(parsed.over_budget)} sentences over the memory budget of "
