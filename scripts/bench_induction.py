@@ -490,27 +490,38 @@ def model_mbr_and_likelihood(trainer, sentences: list[list[str]], batch_size: in
 
 
 def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16,
-                      function_words: frozenset[str] | None = None) -> dict:
+                      function_words: frozenset[str] | None = None,
+                      side: str | None = None) -> dict:
     """The lexicalized model's scores on one set: brackets by MBR over its own span posteriors
     (heads summed out) and perplexity from its own log p(sentence), as `score_spans` scores the
     other rows; with gold heads, `attachment` (model and both chains: directed, undirected,
     NED, words) from the heads of its best derivations, and `attachment_counts`; with
     `function_words` too, `attachment_content`: the model's scores with those heads in the
     content-head convention (`head_conventions.content_heads`, as `parse --function-words`
-    writes them)."""
-    from treewright.decode import decode_heads
+    writes them). With `side` (see `decode_pieces`) the trees and heads are those of the
+    word-piece constraint, as `treewright parse` decodes them; perplexity stays the model's own,
+    summed over every tree."""
+    from treewright.decode import decode_heads, under_pieces
     from treewright.head_conventions import content_parse_heads
     from treewright.params import symbol_names
     model, vocab = trainer.model, trainer.data.vocab
     scorer = model.scorer()
+    pieces = decode_pieces(side, ev)
     spans: list = [None] * len(ev.tokens)
     logprobs = [float("-inf")] * len(ev.tokens)
     encoded = [vocab.encode(s) for s in ev.tokens]
     known = [i for i, ids in enumerate(encoded) if -1 not in ids]
     for part in length_batches([len(ev.tokens[i]) for i in known], max_sentences=batch_size):
         group = [known[k] for k in part]
-        batch = make_batch(group, encoded, None, trainer.dtype)
+        batch = make_batch(group, encoded, None, trainer.dtype, pieces)
         logz, marginals = scorer.span_posteriors(batch.ids, batch.lengths)
+        if batch.span_pot is not None:   # the trees under the constraint, log p over all
+            held, marginals = scorer.span_posteriors(batch.ids, batch.lengths, batch.span_pot)
+            lost = torch.isfinite(logz) & ~torch.isfinite(held)
+            gains = barred_out(marginals, batch.span_pot)
+            if bool(lost.any()):
+                gains[lost] = scorer.span_posteriors(batch.ids, batch.lengths)[1][lost]
+            marginals = gains
         for k, i in enumerate(group):
             if math.isfinite(float(logz[k])):
                 logprobs[i] = float(logz[k])
@@ -518,7 +529,9 @@ def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16,
     scores = score_spans(spans, logprobs, ev)
     if ev.dependencies is not None:
         names = symbol_names(model.nonterminals, model.preterminals)
-        parses = decode_heads(model, vocab, ev.tokens, *names, batch_size=batch_size)
+        parses, _ = under_pieces(
+            lambda words, p: decode_heads(model, vocab, words, *names, batch_size=batch_size,
+                                          pieces=p), ev.tokens, pieces)
         attachment = evaluate_attachment([p.heads or None for p in parses], ev.dependencies,
                                          BracketConventions())
         scores["attachment"] = attachment.to_dict()["systems"]
@@ -618,10 +631,11 @@ def run_one(method: str, seed: int, data_files: dict[str, Path], args, run_dir: 
     with open(run_dir.parent / f"{run_dir.name}.log", "w", encoding="utf-8") as log:
         trainer = train(cfg, run_dir, stream=log, config_source=f"bench_induction {method}")
     seconds = time.monotonic() - started
-    # The grammar-file rows are decoded as `treewright parse RUN` decodes a CoNLL-U file: under
-    # the word-piece constraint when the run held it to its last epoch. The model rows read
-    # the model itself, whose decoders do not apply it.
-    side = None if method in MODEL_ROWS else held_at_end(open_run_record(run_dir).training)
+    # The grammar-file rows and the lexicalized one are decoded as `treewright parse RUN`
+    # decodes a CoNLL-U file: under the word-piece constraint when the run held it to its last
+    # epoch. The compound and independent rows read models whose decoders do not apply it.
+    side = None if method in ("compound", "independent") else \
+        held_at_end(open_run_record(run_dir).training)
     restarts = []
     if method not in MODEL_ROWS:
         # Every restart's own grammar scored as the kept one is: for offline restart choice.
@@ -651,7 +665,7 @@ def score_method(method: str, trainer, ev: EvalSet,
     if method == "compound":
         return score_spans(*compound_mbr_and_likelihood(trainer, ev.tokens), ev)
     if method == "lexicalized":
-        return score_lexicalized(trainer, ev, function_words=function_words)
+        return score_lexicalized(trainer, ev, function_words=function_words, side=side)
     if method == "independent":
         return score_spans(*model_mbr_and_likelihood(trainer, ev.tokens), ev)
     return score_grammar(trainer.grammar_path_, ev, side)

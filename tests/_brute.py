@@ -107,12 +107,13 @@ def lexicalized_trees(n: int, nt: int, t: int):
     return trees(0, n)
 
 
-def lexicalized_summary(factors, b: int, n: int):
+def lexicalized_summary(factors, b: int, n: int, allowed=None):
     """log Z, the best derivation and the expected count of every factor entry for sentence b
     (length n) of a `LexicalizedFactors` batch, from the full enumeration of
-    `lexicalized_trees`. A rule's probability is its definition, the sum over the latent class
-    of the product of the four factors; the best derivation also picks the class at each node
-    (max over classes, node by node, is the max over every assignment of classes)."""
+    `lexicalized_trees` (those whose set of spans (i, j) of width >= 2 `allowed` accepts, when
+    given). A rule's probability is its definition, the sum over the latent class of the
+    product of the four factors; the best derivation also picks the class at each node (max
+    over classes, node by node, is the max over every assignment of classes)."""
     B, N, nt, r_count = factors.head.shape
     s = factors.root.shape[-1]
     root = factors.root[b].double().tolist()
@@ -134,6 +135,8 @@ def lexicalized_summary(factors, b: int, n: int):
 
     scored = []
     for a, h, nodes, leaves in lexicalized_trees(n, nt, s - nt):
+        if allowed is not None and not allowed({(i, j) for i, j, *_ in nodes}):
+            continue
         base = root[h][a] + sum(terminal[i][k - nt] for i, k in leaves)
         scored.append((base + sum(node_terms(x)[0] for x in nodes),
                        base + sum(node_terms(x)[1] for x in nodes), a, h, nodes, leaves))

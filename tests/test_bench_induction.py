@@ -569,3 +569,46 @@ def test_turkish_run_is_decoded_under_the_constraint_it_trained_with(tmp_path):
                                                                  pieces=pieces))
     # Without the constraint the trees differ: it did something.
     assert got["model"] != scored(decode(grammars[kept], ev.tokens, "mbr"))
+
+
+@needs_treebank
+def test_turkish_lexicalized_row_is_decoded_under_the_constraint(tmp_path):
+    # The staged lexicalized row on Turkish tokens trains under the word-piece constraint to
+    # its end, so its trees and heads are decoded under it, as `parse` decodes them.
+    # References: the library's `decode_lexicalized` and `decode_heads` under the same barred
+    # positions (checked against enumeration in test_lexicalized_commands.py and
+    # test_lexicalized.py), scored by `evaluate_brackets` and `evaluate_attachment`.
+    from treewright.decode import decode_heads, decode_lexicalized
+    from treewright.evaluation import BracketConventions, evaluate_brackets
+    from treewright.evaluation.dependencies import evaluate_attachment
+    from treewright.grammar import load_grammar
+    from treewright.induce import load_lexicalized
+    result = bench.main(["--data", "turkish", "--methods", "lexicalized", "--epochs", "1",
+                         "--lexicalized-epochs", "1", "--symbols", "4,6", "--restarts", "2",
+                         "--seeds", "0", "--max-length", "10", "--eval-max-length", "10",
+                         "--override", "model.head_classes=4", "--override",
+                         "model.embedding_dim=16", "--out", str(tmp_path)])
+    em, lex = result["runs"]
+    assert (em["decoded_word_pieces"], lex["decoded_word_pieces"]) == ("first", "first")
+    ev = bench.turkish_data("tokens", 0.1, 10).evals[-1]
+    pieces = ("first", ev.barred)
+    run = tmp_path / "lexicalized-seed0"
+    loaded = load_lexicalized(run)
+    grammar = load_grammar(run / "grammar.pcfg", tolerance=1e-4)
+    trees = decode_lexicalized(loaded.model, loaded.vocab, grammar, ev.tokens, pieces=pieces)
+    pred = [Bracketing.from_spans(t, [] if d.tree is None else
+                                  [(i, j) for i, j in Bracketing.from_tree(d.tree).unlabeled()
+                                   if j - i >= 2]) for d, t in zip(trees, ev.tokens)]
+    got = lex["scores"]["wiki"]
+    want = evaluate_brackets(pred, ev.gold, BracketConventions()).to_dict()["systems"]["model"]
+    assert got["model"]["sentence_f1"] == pytest.approx(want["sentence_f1"], abs=1e-12)
+    heads = decode_heads(loaded.model, loaded.vocab, ev.tokens, loaded.nonterminals,
+                         loaded.preterminals, pieces=pieces)
+    attachment = evaluate_attachment([p.heads or None for p in heads], ev.dependencies,
+                                     BracketConventions()).to_dict()["systems"]["model"]
+    assert got["attachment"]["model"]["directed"] == attachment["directed"]
+    # Perplexity sums every tree, as without the constraint.
+    free = decode_lexicalized(loaded.model, loaded.vocab, grammar, ev.tokens)
+    words = sum(len(t) for t, d in zip(ev.tokens, free) if d.tree is not None)
+    logz = sum(d.log_likelihood for d in free if d.tree is not None)
+    assert got["perplexity"] == pytest.approx(math.exp(-logz / words), rel=1e-6)

@@ -124,6 +124,30 @@ def test_viterbi_matches_the_best_enumerated_derivation(lengths, nt, t, r, seed)
         assert is_projective_tree(parse.heads)
 
 
+@pytest.mark.parametrize("side", ["first", "last"])
+def test_viterbi_and_log_z_under_the_word_piece_constraint_match_enumeration(side):
+    # Reference: the enumeration over the trees the constraint allows, by its definition (no
+    # span of two or more words starts at a barred position with the host first, or ends just
+    # before one with the host last), and the best derivation among them.
+    from treewright.word_pieces import piece_mask
+    lengths, barred = [5, 4, 5], [[1, 3], [2], []]
+    factors = random_factors(lengths, 2, 2, 3, 12)
+    pot = piece_mask(side, barred, max(lengths), torch.float64)
+    parses = lexicalized_viterbi(factors, torch.tensor(lengths), pot)
+    logz = lexicalized_log_partition(factors, torch.tensor(lengths), span_pot=pot)
+    changed = 0
+    for b, n in enumerate(lengths):
+        def allowed(spans, b=b):
+            return not any((i if side == "first" else j) in barred[b] for i, j in spans)
+        brute = lexicalized_summary(factors, b, n, allowed)
+        assert math.isclose(float(logz[b]), brute["logz"], rel_tol=0, abs_tol=1e-9)
+        assert math.isclose(parses[b].score, brute["best_score"], rel_tol=0, abs_tol=1e-9)
+        assert parses[b].spans == brute["best_spans"]
+        assert parses[b].heads == brute["best_heads"]
+        changed += parses[b].spans != lexicalized_summary(factors, b, n)["best_spans"]
+    assert changed >= 1      # the constraint moved a best derivation
+
+
 def test_heads_from_every_enumerated_tree_are_projective():
     # A fact of the trade (common practice): the heads of a lexicalized binary tree form a
     # projective dependency tree. Checked on every tree over five words.

@@ -526,3 +526,53 @@ def test_head_word_bias_is_refused_where_it_cannot_work(tmp_path, capsys):
     for extra, message in cases:
         assert main(base + extra) != 0
         assert message in capsys.readouterr().err
+
+
+def test_the_lexicalized_decoder_and_heads_keep_split_words_whole(trained, tmp_path, capsys):
+    # The test file with every second and third word written as one (SpaceAfter=No on the
+    # second), decoded with --word-pieces host-first. References: every binary tree that keeps
+    # each third word with its host (no span of two or more words starts there), the best by
+    # the model's span posteriors under the constraint (`span_posteriors` with the potentials;
+    # the lexicalized engine under them is checked against enumeration in
+    # test_lexicalized.py), and `decode_heads` under the same constraint for the heads.
+    from treewright.word_pieces import piece_mask
+    run, data = trained
+    lines = (data / "test.conllu").read_text(encoding="utf-8").split("\n")
+    joined = []
+    for line in lines:
+        fields = line.split("\t")
+        if len(fields) == 10 and fields[0] == "2":
+            fields[9] = "SpaceAfter=No"
+        joined.append("\t".join(fields))
+    text = tmp_path / "joined.conllu"
+    text.write_text("\n".join(joined), encoding="utf-8")
+    out = tmp_path / "heads.conllu"
+    assert main(["parse", str(run), str(text), "--decoder", "lexicalized", "--word-pieces",
+                 "host-first", "--heads-out", str(out)]) == 0
+    captured = capsys.readouterr()
+    assert "the host comes first; split written words in 12 of 12 sentences" in captured.err
+    sentences = [[t["form"] for t in s] for s in conllu.parse(text.read_text(encoding="utf-8"))]
+    loaded = load_lexicalized(run)
+    scorer = loaded.model.scorer()
+    moved = 0
+    for tree_text, words in zip(captured.out.splitlines(), sentences, strict=True):
+        n = len(words)
+        ids = torch.tensor([loaded.vocab.encode(words)])
+        pot = piece_mask("first", [[2]], n, torch.float64)
+        _, spans = scorer.span_posteriors(ids, torch.tensor([n]), pot)
+
+        def gain(tree, spans=spans):
+            return sum(float(spans[0, i, j - i]) for i, j in tree)
+
+        allowed = [t for t in _binary_bracketings(0, n) if all(i != 2 for i, _ in t)]
+        got = {(i, j) for i, j, _ in parse_brackets(tree_text)[0].labeled_spans() if j - i >= 2}
+        assert got == max(allowed, key=gain)
+        _, free = scorer.span_posteriors(ids, torch.tensor([n]))
+        moved += got != max(_binary_bracketings(0, n),
+                            key=lambda t: sum(float(free[0, i, j - i]) for i, j in t))
+    assert moved >= 1
+    heads = [[t["head"] for t in s] for s in conllu.parse(out.read_text(encoding="utf-8"))]
+    want = decode_heads(loaded.model, loaded.vocab, sentences, loaded.nonterminals,
+                        loaded.preterminals, pieces=("first", [[2]] * len(sentences)))
+    assert heads == [p.heads for p in want]
+    assert heads != _reference_heads(run, sentences)      # the constraint moved some head

@@ -64,6 +64,9 @@ NEG_INF = float("-inf")
 DECODERS = ("viterbi", "mbr", "max-rule-product")
 ENSEMBLE_DECODERS = ("consensus",)  # decoders of several grammars (`consensus`)
 MODEL_DECODERS = ("lexicalized",)   # decoders of a lexicalized model (`decode_lexicalized`)
+# The word-piece constraint at decoding: host side ("first" or "last") and, per sentence, the
+# `word_pieces.barred_positions` of its `piece_joins`.
+Pieces = tuple[str, Sequence[Sequence[int]]]
 
 
 def treebank_tree(tree: Tree, treebank: bool | None = None) -> Tree:
@@ -1501,9 +1504,6 @@ def _consensus_batch(grammars, sentences, dtype, scorers, pot=None) -> list[Deco
     return out
 
 
-Pieces = tuple[str, Sequence[Sequence[int]]]   # host side, barred positions per sentence
-
-
 def under_pieces(run: Callable[[list[Sequence[str]], Pieces | None], Sequence[Decoded]],
                  sentences: Sequence[Sequence[str]], pieces: Pieces | None
                  ) -> tuple[list[Decoded], list[int]]:
@@ -1540,11 +1540,13 @@ class HeadedParse:
 
 def decode_heads(model: LexicalizedParams, vocab: Vocabulary,
                  sentences: Sequence[Sequence[str]], nonterminals: Sequence[str],
-                 preterminals: Sequence[str], batch_size: int = 16) -> list[HeadedParse]:
+                 preterminals: Sequence[str], batch_size: int = 16,
+                 pieces: Pieces | None = None) -> list[HeadedParse]:
     """The best derivation of each sentence under a lexicalized model, in input order: a
     labeled tree and the dependency head of every word (`engine.lexicalized.
     lexicalized_viterbi`). `vocab` is the model's training vocabulary and `nonterminals`,
-    `preterminals` its symbol names (`params.symbol_names`)."""
+    `preterminals` its symbol names (`params.symbol_names`). `pieces` as for `decode`: the best
+    derivation among those that keep each bound piece with its host."""
     names = list(nonterminals) + list(preterminals)
 
     def headed(words: list[str], parse: LexicalizedParse) -> HeadedParse:
@@ -1553,11 +1555,12 @@ def decode_heads(model: LexicalizedParams, vocab: Vocabulary,
         tree = tree_from_spans(words, [(i, j, names[k]) for i, j, k, _ in parse.spans])
         return HeadedParse(tree, parse.heads, parse.score)
 
-    def batch(words: list[list[str]]) -> list[HeadedParse]:
+    def batch(words: list[list[str]], pot: Tensor | None = None) -> list[HeadedParse]:
         ids, lengths = pad_ids([vocab.encode(w) for w in words])
-        return [headed(w, p) for w, p in zip(words, model.parse(ids, lengths))]
+        return [headed(w, p) for w, p in zip(words, model.parse(ids, lengths, pot))]
 
-    return _by_length(sentences, batch_size, batch)   # type: ignore[arg-type,return-value]
+    return _by_length(sentences, batch_size, batch,  # type: ignore[arg-type,return-value]
+                      pieces)
 
 
 def _encodable(vocab: Vocabulary, words: Sequence[Sequence[str]]
@@ -1692,8 +1695,8 @@ def _factored_tree_logprobs(rules, symbols: Sequence[str], nt: int, ids: Tensor,
 
 
 def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Grammar,
-                       sentences: Sequence[Sequence[str]], batch_size: int = 16
-                       ) -> list[Decoded]:
+                       sentences: Sequence[Sequence[str]], batch_size: int = 16,
+                       pieces: Pieces | None = None) -> list[Decoded]:
     """One tree per sentence from a lexicalized model's own span posteriors (head words summed
     out, `LexicalizedScorer.span_posteriors`), in input order: the unlabeled MBR tree
     (`mbr_spans_batch`), the trees the induction benchmark scores for a lexicalized model.
@@ -1704,19 +1707,24 @@ def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Gra
     `log_likelihood` is the model's log p(sentence) and `score` the expected number of
     correct spans; `tree_logprob` is nan, as the model gives a tree's probability only with
     its head words (summing them out per tree is not done here). A sentence with a word
-    outside the vocabulary gets no tree."""
+    outside the vocabulary gets no tree. `pieces` as for `decode`: the posteriors, the tree and
+    its labels are those of the trees that keep each bound piece with its host, and
+    `log_likelihood` sums those trees alone."""
     scorer = model.scorer()
 
-    def batch(words: list[list[str]]) -> list[Decoded]:
+    def batch(words: list[list[str]], pot: Tensor | None = None) -> list[Decoded]:
         out = [Decoded(None, NEG_INF, NEG_INF, NEG_INF)] * len(words)
         known, ids, lengths = _encodable(vocab, words)
         if not known:
             return out
-        logz, spans_p = scorer.span_posteriors(ids, lengths)     # (B,), (B, N+1, N+1)
+        if pot is not None:   # the known sentences' rows, as wide as their longest
+            width = ids.shape[1] + 1
+            pot = pot[known][:, :width, :width]
+        logz, spans_p = scorer.span_posteriors(ids, lengths, pot)   # (B,), (B, N+1, N+1)
         n = lengths.tolist()
-        brackets = mbr_spans_batch(spans_p, n)
+        brackets = mbr_spans_batch(barred_out(spans_p, pot), n)
         tables = span_tables(grammar, [words[k] for k in known], torch.float64,
-                             log_scores=False)
+                             log_scores=False, span_pot=pot)
         labels = _SpanLabels(grammar.symbols, len(grammar.nonterminals), tables.marginals)
         gains = spans_p.double().tolist()
         for b, k in enumerate(known):
@@ -1727,4 +1735,4 @@ def decode_lexicalized(model: LexicalizedParams, vocab: Vocabulary, grammar: Gra
             out[k] = Decoded(tree, float(logz[b]), math.nan, gain)
         return out
 
-    return _by_length(sentences, batch_size, batch)
+    return _by_length(sentences, batch_size, batch, pieces)

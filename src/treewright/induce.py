@@ -241,13 +241,13 @@ class LexicalizedRun:
     nonterminals: list[str]
     preterminals: list[str]
 
-    def parse(self, sentences: Sequence[Sequence[str]], batch_size: int = 16
-              ) -> list[HeadedParse]:
-        """Trees with the head of every word (`decode.decode_heads`). The words are read as
-        the model's training vocabulary has them: apply the training corpus's reading options
-        (lowercasing, case rules) first."""
+    def parse(self, sentences: Sequence[Sequence[str]], batch_size: int = 16,
+              pieces=None) -> list[HeadedParse]:
+        """Trees with the head of every word (`decode.decode_heads`, under the word-piece
+        constraint with `pieces`). The words are read as the model's training vocabulary has
+        them: apply the training corpus's reading options (lowercasing, case rules) first."""
         return decode_heads(self.model, self.vocab, sentences, self.nonterminals,
-                            self.preterminals, batch_size)
+                            self.preterminals, batch_size, pieces)
 
 
 def load_lexicalized(run_dir: str | Path) -> LexicalizedRun:

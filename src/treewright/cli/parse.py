@@ -63,12 +63,12 @@ text keeps every bound piece with its host: no constituent takes the piece witho
 (constraints.word_pieces, treewright.word_pieces). With --word-pieces auto (the default), a
 CoNLL-U TEXT parsed with a run folder or JSON export whose training still held that
 constraint at its last epoch (on words by default; on tags only the first epochs) is decoded
-under it too, and a note on standard error says so: viterbi, mbr, max-rule-product and
-consensus then weigh only the trees that keep each piece with its host, and with --scores the
-posterior is p(tree | sentence) among those trees. host-first and host-last apply it to any
-grammar; none turns it off. Punctuation written against a word is no piece of it, as in
-training. Raw text marks no split words, and the decoders of a model's own pass (factored
-rules, lexicalized) do not apply it.
+under it too, and a note on standard error says so: viterbi, mbr, max-rule-product,
+consensus and lexicalized (and the heads of --heads-out) then weigh only the trees that keep
+each piece with its host, and with --scores the posterior is p(tree | sentence) among those
+trees. host-first and host-last apply it to any grammar; none turns it off. Punctuation
+written against a word is no piece of it, as in training. Raw text marks no split words, and
+the decoders of a run of factored rules, which read its model, do not apply it.
 
 Heads: with --heads-out PATH, GRAMMAR must be the run folder of a lexicalized model
 (model.parameterization: lexicalized, train.restarts 1; its training corpus must still be where
@@ -201,7 +201,7 @@ def run(args) -> int:
 
         def work(group, pieces):
             return decode_lexicalized(lexicalized.model, lexicalized.vocab, grammar, group,
-                                      args.batch_size)
+                                      args.batch_size, pieces)
     elif args.decoder in ENSEMBLE_DECODERS:  # the run's restarts, the kept one first
         grammars = [s.grammar for s in open_restart_grammars(
             args.grammar, f"the {args.decoder} decoder")]
@@ -251,8 +251,7 @@ def run(args) -> int:
     else:  # no rule tensor to budget for; groups of sentences for the progress bar
         plan = BudgetPlan.unbudgeted([len(inputs[i]) for i in todo], FACTORED_GROUP)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
-    side = piece_side(args, source, records,
-                      factored is not None or args.decoder == "lexicalized")
+    side = piece_side(args, source, records, factored is not None)
     barred = None if side is None else \
         [barred_positions(joined_without(piece_joins(s.words, s.joined, s.tags), keep,
                                          s.in_token)) for s, keep in zip(records, kept)]
@@ -326,7 +325,8 @@ def run(args) -> int:
     if unparsed:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
     if args.heads_out is not None:
-        write_heads(args, lexicalized, fmt, lines, inputs, function_words)
+        write_heads(args, lexicalized, fmt, lines, inputs, function_words,
+                    None if barred is None else (side, barred))
     return 0
 
 
@@ -334,8 +334,8 @@ def piece_side(args, source, records, own_model: bool) -> str | None:
     """The host side ("first", "last") under which --word-pieces has `parse` decode, or None.
     auto: the side the run's training still held at its end (`word_pieces.held_at_end`);
     host-first, host-last: that side. None for --word-pieces none, for raw text (it marks no
-    split words; a note says so when a side was asked for) and for a decoder of a model's own
-    pass (a note, or InputError when a side was asked for)."""
+    split words; a note says so when a side was asked for) and for the decoders of a run of
+    factored rules, which read its model (a note, or InputError when a side was asked for)."""
     import sys
 
     from treewright.errors import InputError
@@ -370,12 +370,15 @@ FACTORED_GROUP = 256  # the same, for a run of factored rules
 
 
 def write_heads(args, lexicalized, fmt: str, lines, inputs,
-                function_words: frozenset[str] | None = None) -> None:
+                function_words: frozenset[str] | None = None, pieces=None) -> None:
     """--heads-out: the lexicalized model's heads of every sentence as CoNLL-U (see EXAMPLES),
-    in the content-head convention when `function_words` is given (--function-words)."""
+    in the content-head convention when `function_words` is given (--function-words), and
+    under the word-piece constraint with `pieces` (host side, barred positions per line of
+    `lines`), as the trees are decoded."""
     import sys
 
     from treewright.cli.common import input_name
+    from treewright.decode import under_pieces
     from treewright.export.heads import fill_heads_conllu, heads_to_conllu
     from treewright.head_conventions import PUNCTUATION, content_parse_heads
     from treewright.safeio import write_output_text
@@ -385,7 +388,9 @@ def write_heads(args, lexicalized, fmt: str, lines, inputs,
     with terminal_progress(len(inputs), "heads") as progress:
         for start in range(0, len(inputs), HEADS_CHUNK):
             group = inputs[start:start + HEADS_CHUNK]
-            parses = lexicalized.parse(group, args.batch_size)
+            parses, _ = under_pieces(lambda words, p: lexicalized.parse(words, args.batch_size, p),
+                                     group, None if pieces is None else
+                                     (pieces[0], pieces[1][start:start + HEADS_CHUNK]))
             if function_words is not None:
                 heads += content_parse_heads(group, parses, function_words)
             else:   # [] from decode_heads: no parse, written as HEAD `_`

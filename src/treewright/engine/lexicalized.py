@@ -243,15 +243,15 @@ def _cell_potentials(factors: LexicalizedFactors) -> dict[int, Tensor]:
             for w in range(1, N + 1)}
 
 
-def _marked_cells(factors: LexicalizedFactors, lengths: Tensor, semiring: str
-                  ) -> tuple[Tensor, dict[int, Tensor]]:
+def _marked_cells(factors: LexicalizedFactors, lengths: Tensor, semiring: str,
+                  span_pot: Tensor | None = None) -> tuple[Tensor, dict[int, Tensor]]:
     """Scores (B,) and, per width, the gradient of the scores with respect to a zero potential
     on every cell (B, P, w, K): posterior marginals in the log semiring, the best derivation's
-    cells (1) in the max semiring."""
+    cells (1) in the max semiring; `span_pot` as in `lexicalized_log_partition`."""
     detached = LexicalizedFactors(*(None if x is None else x.detach() for x in factors))
     pots = _cell_potentials(factors)
     with torch.enable_grad():
-        scores = _inside(detached, lengths, None, semiring, pots)
+        scores = _inside(detached, lengths, span_pot, semiring, pots)
         ok = torch.isfinite(scores)
         widths = sorted(pots)
         grads = torch.autograd.grad(torch.where(ok, scores, torch.zeros_like(scores)).sum(),
@@ -287,11 +287,16 @@ def heads_from_spans(spans: list[tuple[int, int, int, int]], n: int) -> list[int
     return heads
 
 
-def lexicalized_viterbi(factors: LexicalizedFactors, lengths: Tensor) -> list[LexicalizedParse]:
-    """The best derivation of each sentence (max semiring, read off by gradient: Eisner 2016)."""
+def lexicalized_viterbi(factors: LexicalizedFactors, lengths: Tensor,
+                        span_pot: Tensor | None = None) -> list[LexicalizedParse]:
+    """The best derivation of each sentence (max semiring, read off by gradient: Eisner 2016),
+    among the trees `span_pot` allows (as in `lexicalized_log_partition`; its score is the
+    derivation's log-probability plus the potentials of its spans)."""
     lengths = torch.as_tensor(lengths)
     NT = factors.head.shape[2]
-    scores, marks = _marked_cells(factors, lengths, "max")
+    if span_pot is not None:
+        span_pot = span_pot.to(factors.root.dtype)
+    scores, marks = _marked_cells(factors, lengths, "max", span_pot)
     parses = []
     for b, n in enumerate(lengths.tolist()):
         spans = []

@@ -182,12 +182,14 @@ class LexicalizedParams(EmbeddingParams):
         """Dev scores of the lexicalized model (`rules`, the back-off grammar, unused)."""
         return LexicalizedScorer(self)
 
-    def parse(self, ids: Tensor, lengths: Tensor) -> list[LexicalizedParse]:
+    def parse(self, ids: Tensor, lengths: Tensor, span_pot: Tensor | None = None
+              ) -> list[LexicalizedParse]:
         """The best derivation of each sentence: constituents with their head words, and the
-        head of every word (engine.lexicalized.lexicalized_viterbi)."""
+        head of every word (engine.lexicalized.lexicalized_viterbi), among the trees the
+        span potentials (B, N+1, N+1), when given, allow."""
         with torch.no_grad():
             factors = self.factors(ids, lengths)
-        return lexicalized_viterbi(factors, lengths)
+        return lexicalized_viterbi(factors, lengths, span_pot)
 
     # The back-off grammar as an ordinary PCFG.
 
@@ -271,15 +273,19 @@ class LexicalizedScorer:
         with torch.no_grad():
             return lexicalized_log_partition(self.model.factors(ids, lengths), lengths)
 
-    def span_posteriors(self, ids: Tensor, lengths: Tensor) -> tuple[Tensor, Tensor]:
+    def span_posteriors(self, ids: Tensor, lengths: Tensor, span_pot: Tensor | None = None
+                        ) -> tuple[Tensor, Tensor]:
         """(B,) log p(x_b) and (B, N+1, N+1) span marginals, as the gradient of log Z with
-        respect to a zero span potential (Eisner 2016)."""
+        respect to a zero span potential (Eisner 2016); with `span_pot` (B, N+1, N+1), both
+        over the trees it allows (log Z then sums those alone)."""
         with torch.no_grad():
             factors = self.model.factors(ids, lengths)
         B, N = ids.shape
         pot = factors.root.new_zeros(B, N + 1, N + 1, requires_grad=True)
         with torch.enable_grad():
-            logz = lexicalized_log_partition(factors, lengths, span_pot=pot)
+            logz = lexicalized_log_partition(
+                factors, lengths,
+                span_pot=pot if span_pot is None else pot + span_pot.to(pot.dtype))
             ok = torch.isfinite(logz)
             (spans,) = torch.autograd.grad(torch.where(ok, logz, torch.zeros_like(logz)).sum(),
                                            pot)
