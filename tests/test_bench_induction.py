@@ -465,17 +465,24 @@ def result_evals(tmp_path):
     return bench.generated_data("head-final", tmp_path / "again", 60, 12, 15, seed=0).evals[0]
 
 
+def _read_by_conllu(sentences: int, value) -> dict:
+    """The first `sentences` sentences of both treebank sections as the `conllu` library reads
+    them (the reference), by their words' forms: a list of `value(tokenlist)` per form."""
+    by_text: dict = {}
+    for section in ("web", "wiki"):
+        with open(bench.treebank_path(section), encoding="utf-8") as handle:
+            for _, s in zip(range(sentences), conllu.parse_incr(handle)):
+                words = [t for t in s if isinstance(t["id"], int)]
+                by_text.setdefault(tuple(t["form"] for t in words), []).append(value(s))
+    return by_text
+
+
 @needs_treebank
 def test_turkish_eval_sets_carry_the_treebank_heads_of_their_sentences():
     # Reference: the conllu library's parse of the same files; each scored sentence's gold heads
     # are its HEAD column as written, and its tokens are its non-PUNCT words in order.
     data = bench.turkish_data("tokens", 0.1, 12, sentences=150)
-    by_text = {}
-    for section in ("web", "wiki"):
-        with open(bench.treebank_path(section), encoding="utf-8") as handle:
-            for _, s in zip(range(150), conllu.parse_incr(handle)):
-                words = [t for t in s if isinstance(t["id"], int)]
-                by_text.setdefault(tuple(t["form"] for t in words), []).append(words)
+    by_text = _read_by_conllu(150, lambda s: [t for t in s if isinstance(t["id"], int)])
     for ev in data.evals:
         assert ev.dependencies is not None and len(ev.dependencies) == len(ev.tokens) >= 5
         for tokens, dep in zip(ev.tokens, ev.dependencies):
@@ -509,16 +516,14 @@ def test_turkish_eval_sets_bar_the_pieces_of_their_written_words():
     # positions are the kept (non-PUNCT) words written joined to the kept word just before them;
     # a removed word between two pieces breaks the join, as the benchmark's training text does.
     data = bench.turkish_data("tokens", 0.1, 12, sentences=150)
-    by_text = {}
-    for section in ("web", "wiki"):
-        with open(bench.treebank_path(section), encoding="utf-8") as handle:
-            for _, s in zip(range(150), conllu.parse_incr(handle)):
-                words = [t for t in s if isinstance(t["id"], int)]
-                joins = _joins_read_by_conllu(s)
-                kept = [k for k, t in enumerate(words) if t["upos"] != "PUNCT"]
-                barred = [n for n, k in enumerate(kept)
-                          if n > 0 and joins[k] and kept[n - 1] == k - 1]
-                by_text.setdefault(tuple(t["form"] for t in words), []).append(barred)
+
+    def barred(tokenlist):
+        joins = _joins_read_by_conllu(tokenlist)
+        words = [w for w in tokenlist if isinstance(w["id"], int)]
+        kept = [k for k, w in enumerate(words) if w["upos"] != "PUNCT"]
+        return [n for n, k in enumerate(kept) if n > 0 and joins[k] and kept[n - 1] == k - 1]
+
+    by_text = _read_by_conllu(150, barred)
     some = 0
     for ev in data.evals:
         assert ev.barred is not None and len(ev.barred) == len(ev.tokens)
