@@ -340,3 +340,17 @@ def test_report_decodes_the_gold_as_parse_does(grammar_file, tmp_path):
         "word_pieces_epochs": 2}, "train": {"epochs": 5}}, "first")
     page = html.build_report(released, gold, decoder="viterbi")
     assert "word-piece constraint" not in page
+
+
+def test_raw_text_marks_no_split_words(grammar_file, tmp_path):
+    # Raw text has no joins: asked for, the constraint has nothing to act on, and says so;
+    # the trees are the unconstrained ones (brute force).
+    path, _ = grammar_file
+    g = load_grammar(path)
+    text = tmp_path / "raw.txt"
+    text.write_text("\n".join(" ".join(s) for s in SENTENCES) + "\n", encoding="utf-8")
+    code, out, err = cli("parse", path, text, "--decoder", "viterbi", "--word-pieces",
+                         "host-first")
+    assert code == 0 and "has nothing to act on: raw text" in err
+    for words, (spans, _) in zip(SENTENCES, printed(out), strict=True):
+        assert spans == labeled(best_allowed(g, words, lambda spans: True)[0])

@@ -347,20 +347,20 @@ def piece_side(args, source, records, own_model: bool) -> str | None:
     side = args.word_pieces.removeprefix("host-") if asked else held_at_end(source.training)
     if side is None:
         return None
-    if own_model:
-        why = (f"the {args.decoder} decoder reads the model itself and does not apply the "
-               "word-piece constraint")
-        if asked:
-            raise InputError(f"--word-pieces {args.word_pieces}: {why}; use --decoder viterbi, "
-                             "mbr, max-rule-product or consensus")
-        print(f"note: the run trained under the word-piece constraint, but {why}",
-              file=sys.stderr)
-        return None
-    if records is None:
+    why = (f"the {args.decoder} decoder reads the model itself and does not apply the "
+           "word-piece constraint")
+    if own_model and asked:
+        raise InputError(f"--word-pieces {args.word_pieces}: {why}; use --decoder viterbi, "
+                         "mbr, max-rule-product or consensus")
+    if records is None:   # raw text: nothing to act on
         if asked:
             print(f"note: --word-pieces {args.word_pieces} has nothing to act on: raw text "
                   "does not mark the written words a tokenizer split (CoNLL-U does)",
                   file=sys.stderr)
+        return None
+    if own_model:
+        print(f"note: the run trained under the word-piece constraint, but {why}",
+              file=sys.stderr)
         return None
     return side
 
