@@ -121,8 +121,8 @@ def run_plan(plan: BudgetPlan, sentences: Sequence[Sequence[str]],
              progress=None) -> list[R | None]:
     """`work(group of sentences)` per group of `plan`, results back in input order; None for
     the sentences over the budget. `sentences` may hold whatever `work` reads of each (its
-    words, or its index into the caller's lists). `progress` (optional, a `tracking.Progress`) is advanced by
-    each group's size."""
+    words, or its index into the caller's lists). `progress` (optional, a
+    `tracking.Progress`) is advanced by each group's size."""
     out: list[R | None] = [None] * len(sentences)
     for group in plan.groups:
         for i, result in zip(group, work([sentences[i] for i in group])):
@@ -178,8 +178,9 @@ def _planned(plan: BudgetPlan, sentences, run, progress, pieces, freed):
     from treewright.decode import under_pieces
 
     def work(positions):
-        results, lost = under_pieces(run, [sentences[k] for k in positions], None if pieces is None
-                                     else (pieces[0], [pieces[1][k] for k in positions]))
+        results, lost = under_pieces(run, [sentences[k] for k in positions],
+                                     None if pieces is None else
+                                     (pieces[0], [pieces[1][k] for k in positions]))
         if freed is not None:
             freed.extend(positions[k] for k in lost)
         return results
