@@ -576,3 +576,9 @@ def test_the_lexicalized_decoder_and_heads_keep_split_words_whole(trained, tmp_p
                         loaded.preterminals, pieces=("first", [[2]] * len(sentences)))
     assert heads == [p.heads for p in want]
     assert heads != _reference_heads(run, sentences)      # the constraint moved some head
+    # export --to conllu writes the same heads (its trees are the same derivations).
+    exported = tmp_path / "exported.conllu"
+    assert main(["export", str(run), "--to", "conllu", "--corpus", str(text), "--out",
+                 str(exported), "--word-pieces", "host-first"]) == 0
+    assert [[t["head"] for t in s]
+            for s in conllu.parse(exported.read_text(encoding="utf-8"))] == heads

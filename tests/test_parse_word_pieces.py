@@ -354,3 +354,23 @@ def test_raw_text_marks_no_split_words(grammar_file, tmp_path):
     assert code == 0 and "has nothing to act on: raw text" in err
     for words, (spans, _) in zip(SENTENCES, printed(out), strict=True):
         assert spans == labeled(best_allowed(g, words, lambda spans: True)[0])
+
+
+def test_export_writes_the_trees_parse_decodes_under_the_constraint(grammar_file, tmp_path):
+    # `export --to brackets --corpus` of a run that held the constraint: the Viterbi trees
+    # among the allowed ones (brute force), as `parse --decoder viterbi` prints them; with
+    # --word-pieces none, the unconstrained ones.
+    path, conllu = grammar_file
+    g = load_grammar(path)
+    held = write_run(tmp_path / "held", path, {"data": {}, "constraints": {},
+                                                "train": {"epochs": 5}}, "first")
+    for option, side in (("auto", "first"), ("none", None)):
+        out = tmp_path / f"{option}.trees"
+        code, _, err = cli("export", held, "--to", "brackets", "--corpus", conllu, "--out", out,
+                           "--word-pieces", option)
+        assert code == 0, err
+        assert ("decoding under the word-piece constraint" in err) == (side is not None)
+        for words, barred, (spans, _) in zip(SENTENCES, BARRED, printed(out.read_text()),
+                                             strict=True):
+            keep = allowed(side, barred) if side else (lambda spans: True)
+            assert spans == labeled(best_allowed(g, words, keep)[0])

@@ -230,3 +230,41 @@ def shortest(value: float, dtype) -> float:
     if dtype != torch.float32 or not math.isfinite(value):
         return value
     return float(str(numpy.float32(value)))
+
+
+# constraints.word_pieces' values, for the same constraint at decoding (`parse --word-pieces`).
+PIECE_CHOICES = ("auto", "host-first", "host-last", "none")
+
+
+def piece_side(word_pieces: str, decoder: str, source, records, own_model: bool
+               ) -> str | None:
+    """The host side ("first", "last") under which --word-pieces (`word_pieces`, one of
+    `PIECE_CHOICES`) has `parse` or `export` decode with `decoder`, or None.
+    auto: the side the run's training still held at its end (`word_pieces.held_at_end`);
+    host-first, host-last: that side. None for --word-pieces none, for raw text (it marks no
+    split words; a note says so when a side was asked for) and for the decoders of a run of
+    factored rules, which read its model (a note, or InputError when a side was asked for)."""
+    from treewright.word_pieces import held_at_end
+
+    if word_pieces == "none":
+        return None
+    asked = word_pieces != "auto"
+    side = word_pieces.removeprefix("host-") if asked else held_at_end(source.training)
+    if side is None:
+        return None
+    why = (f"the {decoder} decoder reads the model itself and does not apply the "
+           "word-piece constraint")
+    if own_model and asked:
+        raise InputError(f"--word-pieces {word_pieces}: {why}; use --decoder viterbi, "
+                         "mbr, max-rule-product or consensus")
+    if records is None:   # raw text: nothing to act on
+        if asked:
+            print(f"note: --word-pieces {word_pieces} has nothing to act on: raw text "
+                  "does not mark the written words a tokenizer split (CoNLL-U does)",
+                  file=sys.stderr)
+        return None
+    if own_model:
+        print(f"note: the run trained under the word-piece constraint, but {why}",
+              file=sys.stderr)
+        return None
+    return side

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from treewright.cli.common import PIECE_CHOICES
+
 FORMATS = ("text", "json", "listing", "brackets", "conllu")
 
 EXAMPLES = """examples:
@@ -31,6 +33,11 @@ formats:
             --function-words SOURCE the heads are written in the content-head convention
             of Universal Dependencies, as `treewright parse --function-words` writes them
             (see its help; the head_rule comment adds ', function words as dependents')
+
+A CoNLL-U --corpus is decoded under the word-piece constraint as `treewright parse` decodes it
+(--word-pieces, the same choices; see its help): when the run held the constraint to its last
+epoch, or as asked, the trees and heads keep every bound piece of a split written word with
+its host.
 
 The source is a grammar file (text or JSON) or a training run folder (its grammar.pcfg). A
 segmentation run folder (treewright segment) exports as text (its segmentation, one input per
@@ -62,6 +69,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="conllu: the listed function words depend on the content words of their "
                         "phrases (a file of one word per line, or 'ud-function' for a grammar "
                         "trained on tags)")
+    p.add_argument("--word-pieces", choices=PIECE_CHOICES, default="auto",
+                   help="brackets, conllu: decode a CoNLL-U --corpus under the word-piece "
+                        "constraint, as `treewright parse --word-pieces` (auto: as the run's "
+                        "training held it at its end)")
     p.add_argument("--prune-threshold", type=float, default=None,
                    help="drop rules below this probability and renormalise")
     p.add_argument("--prune-top", type=int, default=None,
@@ -77,6 +88,7 @@ def run(args) -> int:
                                        read_lines, read_sentences, trained_on_tags,
                                        training_normaliser)
     from treewright.corpus import detect_format
+    from treewright.decode import decode, under_pieces
     from treewright.errors import InputError
     from treewright.export import load_renaming, open_grammar, prune, rename_grammar
     from treewright.export.jsonformat import grammar_json_text
@@ -138,9 +150,17 @@ def run(args) -> int:
                               note)
     else:
         lexicalized = _lexicalized(args) if args.to == "conllu" else None
-        decoder = None if lexicalized is None else (
-            lambda words: [(p.tree, p.score, p.heads if p.tree is not None else None)
-                           for p in lexicalized.parse(words)])
+        pieces = _corpus_pieces(args, source, lexicalized is not None)
+
+        def best(words: list[list[str]]) -> list:   # the parses under the constraint
+            if lexicalized is None:
+                parses, _ = under_pieces(lambda w, p: decode(grammar, w, "viterbi", pieces=p),
+                                         words, pieces)
+                return [(d.tree, d.tree_logprob, None) for d in parses]
+            parses, _ = under_pieces(lambda w, p: lexicalized.parse(w, pieces=p), words, pieces)
+            return [(p.tree, p.score, p.heads if p.tree is not None else None) for p in parses]
+
+        decoder = best if lexicalized is not None or pieces is not None else None
         parsed = parse_corpus(grammar, every_line, mapping, normalise, decoder)
         unparsed = [p for p in parsed if p.tree is None and not p.blank]
         vocab = grammar.vocab if lexicalized is None else lexicalized.vocab
@@ -171,6 +191,30 @@ def run(args) -> int:
     else:
         write_output_text(args.out, text)
     return 0
+
+
+def _corpus_pieces(args, source, lexicalized: bool):
+    """(host side, barred positions per sentence) of a CoNLL-U --corpus under --word-pieces
+    (`cli.common.piece_side`), as training read its joins (`word_pieces.piece_joins`), or None;
+    a note on standard error when it applies."""
+    import sys
+
+    from treewright.cli.common import piece_side
+    from treewright.corpus import detect_format, read_records
+    from treewright.word_pieces import barred_positions, piece_joins
+
+    records = None if args.corpus == "-" or detect_format(args.corpus) == "text" else \
+        read_records(args.corpus)
+    side = piece_side(args.word_pieces, "lexicalized" if lexicalized else "viterbi", source,
+                      records, False)
+    if side is None:
+        return None
+    barred = [barred_positions(piece_joins(s.words, s.joined, s.tags)) for s in records]
+    if not any(barred):
+        return None
+    print(f"decoding under the word-piece constraint (the host comes {side}; split written "
+          f"words in {sum(map(bool, barred))} of {len(barred)} sentences)", file=sys.stderr)
+    return side, barred
 
 
 def _lexicalized(args):

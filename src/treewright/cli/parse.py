@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from treewright.cli.common import add_budget_argument
+from treewright.cli.common import PIECE_CHOICES, add_budget_argument
 
 EXAMPLES = """examples:
   treewright parse src/treewright/data/examples/astronomers.pcfg sentences.txt
@@ -91,9 +91,6 @@ tags of Universal Dependencies, for a run trained on tags. Punctuation always co
 """
 
 
-# constraints.word_pieces' values, for the same constraint at decoding (see EXAMPLES).
-PIECE_CHOICES = ("auto", "host-first", "host-last", "none")
-
 # The names of treewright.decode.DECODERS (one grammar), ENSEMBLE_DECODERS (a run's restart
 # grammars) and MODEL_DECODERS (a lexicalized model), written out so that `--help` need not
 # import torch (tests/test_cli_evaluate.py checks that they agree).
@@ -141,7 +138,8 @@ def run(args) -> int:
 
     from treewright.budget import BudgetPlan, plan_budget, run_plan
     from treewright.cli.common import (as_trained, function_words_as_trained, input_name,
-                                       no_parse_reason, read_lines, warn_over_budget)
+                                       no_parse_reason, piece_side, read_lines,
+                                       warn_over_budget)
     from treewright.corpus import (ReadOptions, detect_format, insert_words, joined_without,
                                    read_records, run_drop_tags, run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
@@ -251,7 +249,7 @@ def run(args) -> int:
     else:  # no rule tensor to budget for; groups of sentences for the progress bar
         plan = BudgetPlan.unbudgeted([len(inputs[i]) for i in todo], FACTORED_GROUP)
     warn_over_budget(plan, grammar, [lines[i] for i in todo], args.text, dtype, "parsed")
-    side = piece_side(args, source, records, factored is not None)
+    side = piece_side(args.word_pieces, args.decoder, source, records, factored is not None)
     barred = None if side is None else \
         [barred_positions(joined_without(piece_joins(s.words, s.joined, s.tags), keep,
                                          s.in_token)) for s, keep in zip(records, kept)]
@@ -328,41 +326,6 @@ def run(args) -> int:
         write_heads(args, lexicalized, fmt, lines, inputs, function_words,
                     None if barred is None else (side, barred))
     return 0
-
-
-def piece_side(args, source, records, own_model: bool) -> str | None:
-    """The host side ("first", "last") under which --word-pieces has `parse` decode, or None.
-    auto: the side the run's training still held at its end (`word_pieces.held_at_end`);
-    host-first, host-last: that side. None for --word-pieces none, for raw text (it marks no
-    split words; a note says so when a side was asked for) and for the decoders of a run of
-    factored rules, which read its model (a note, or InputError when a side was asked for)."""
-    import sys
-
-    from treewright.errors import InputError
-    from treewright.word_pieces import held_at_end
-
-    if args.word_pieces == "none":
-        return None
-    asked = args.word_pieces != "auto"
-    side = args.word_pieces.removeprefix("host-") if asked else held_at_end(source.training)
-    if side is None:
-        return None
-    why = (f"the {args.decoder} decoder reads the model itself and does not apply the "
-           "word-piece constraint")
-    if own_model and asked:
-        raise InputError(f"--word-pieces {args.word_pieces}: {why}; use --decoder viterbi, "
-                         "mbr, max-rule-product or consensus")
-    if records is None:   # raw text: nothing to act on
-        if asked:
-            print(f"note: --word-pieces {args.word_pieces} has nothing to act on: raw text "
-                  "does not mark the written words a tokenizer split (CoNLL-U does)",
-                  file=sys.stderr)
-        return None
-    if own_model:
-        print(f"note: the run trained under the word-piece constraint, but {why}",
-              file=sys.stderr)
-        return None
-    return side
 
 
 HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
