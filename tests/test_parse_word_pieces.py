@@ -354,6 +354,17 @@ def test_raw_text_marks_no_split_words(grammar_file, tmp_path):
     assert code == 0 and "has nothing to act on: raw text" in err
     for words, (spans, _) in zip(SENTENCES, printed(out), strict=True):
         assert spans == labeled(best_allowed(g, words, lambda spans: True)[0])
+    # Nor do bracketed trees, and a CoNLL-U file may mark none.
+    trees = tmp_path / "text.trees"
+    trees.write_text(out, encoding="utf-8")
+    plain = tmp_path / "plain.conllu"
+    plain.write_text("\n".join(line for line in CONLLU.replace("SpaceAfter=No", "_")
+                               .split("\n") if not line.startswith("2-3")), encoding="utf-8")
+    for source in (trees, plain):
+        for command in (["parse", path, source], ["export", path, "--to", "brackets",
+                                                  "--corpus", source, "--out", tmp_path / "o"]):
+            code, _, err = cli(*command, "--word-pieces", "host-first")
+            assert code == 0 and f"{source} marks no split written words" in err, err
 
 
 def test_export_writes_the_trees_parse_decodes_under_the_constraint(grammar_file, tmp_path):

@@ -211,6 +211,9 @@ def _corpus_pieces(args, source, lexicalized: bool):
         return None
     barred = [barred_positions(piece_joins(s.words, s.joined, s.tags)) for s in records]
     if not any(barred):
+        if args.word_pieces != "auto":
+            print(f"note: --word-pieces {args.word_pieces} has nothing to act on: "
+                  f"{args.corpus} marks no split written words", file=sys.stderr)
         return None
     print(f"decoding under the word-piece constraint (the host comes {side}; split written "
           f"words in {sum(map(bool, barred))} of {len(barred)} sentences)", file=sys.stderr)

@@ -259,6 +259,9 @@ def run(args) -> int:
               + ("; --word-pieces none decodes without it" if args.word_pieces == "auto"
                  else ""), file=sys.stderr)
     else:
+        if barred is not None and args.word_pieces != "auto":
+            print(f"note: --word-pieces {args.word_pieces} has nothing to act on: "
+                  f"{input_name(args.text)} marks no split written words", file=sys.stderr)
         barred = None
 
     freed = []  # sentences the constraint left no tree, decoded without it
