@@ -516,12 +516,10 @@ def score_lexicalized(trainer, ev: EvalSet, batch_size: int = 16,
         batch = make_batch(group, encoded, None, trainer.dtype, pieces)
         logz, marginals = scorer.span_posteriors(batch.ids, batch.lengths)
         if batch.span_pot is not None:   # the trees under the constraint, log p over all
-            held, marginals = scorer.span_posteriors(batch.ids, batch.lengths, batch.span_pot)
+            held, constrained = scorer.span_posteriors(batch.ids, batch.lengths, batch.span_pot)
             lost = torch.isfinite(logz) & ~torch.isfinite(held)
-            gains = barred_out(marginals, batch.span_pot)
-            if bool(lost.any()):
-                gains[lost] = scorer.span_posteriors(batch.ids, batch.lengths)[1][lost]
-            marginals = gains
+            marginals = torch.where(lost[:, None, None], marginals,
+                                    barred_out(constrained, batch.span_pot))
         for k, i in enumerate(group):
             if math.isfinite(float(logz[k])):
                 logprobs[i] = float(logz[k])

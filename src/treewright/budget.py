@@ -153,7 +153,7 @@ def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
     (`decode.under_pieces`)."""
     from treewright.decode import decode
 
-    return _planned(plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype,
+    return run_plan_under_pieces(plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype,
                                 batch_size), sentences,
                     lambda group, p: decode(grammar, group, decoder, batch_size, dtype, p),
                     progress, pieces, freed)
@@ -167,14 +167,17 @@ def consensus_within_budget(grammars: Sequence[Grammar], sentences: Sequence[Seq
     None for the others; `pieces` and `freed` as for `decode_within_budget`."""
     from treewright.decode import consensus
 
-    return _planned(plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype,
+    return run_plan_under_pieces(plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype,
                                 batch_size), sentences,
                     lambda group, p: consensus(grammars, group, batch_size, dtype, p),
                     progress, pieces, freed)
 
 
-def _planned(plan: BudgetPlan, sentences, run, progress, pieces, freed):
-    """`run_plan` of `run(group, pieces of the group)` through `decode.under_pieces`."""
+def run_plan_under_pieces(plan: BudgetPlan, sentences, run, progress=None, pieces=None,
+                          freed: list[int] | None = None):
+    """`run_plan` of `run(group, pieces of the group)` through `decode.under_pieces`: with
+    `pieces` (host side, barred positions per sentence) under the word-piece constraint, the
+    indices of the sentences it left no tree, decoded without it, added to `freed`."""
     from treewright.decode import under_pieces
 
     def work(positions):

@@ -136,7 +136,7 @@ def run(args) -> int:
 
     import torch
 
-    from treewright.budget import BudgetPlan, plan_budget, run_plan
+    from treewright.budget import BudgetPlan, plan_budget, run_plan_under_pieces
     from treewright.cli.common import (as_trained, function_words_as_trained, input_name,
                                        no_parse_reason, piece_side, read_lines,
                                        warn_over_budget)
@@ -144,7 +144,7 @@ def run(args) -> int:
                                    read_records, run_drop_tags, run_tag_mode)
     from treewright.decode import (ENSEMBLE_DECODERS, FACTORED_DECODERS, consensus, decode,
                                    decode_lexicalized, is_treebank_grammar,
-                                   treebank_tree, under_pieces)
+                                   treebank_tree)
     from treewright.errors import InputError
     from treewright.export import (open_grammar, open_restart_grammars, open_run_record,
                                    saved_restarts)
@@ -264,18 +264,12 @@ def run(args) -> int:
                   f"{input_name(args.text)} marks no split written words", file=sys.stderr)
         barred = None
 
-    freed = []  # sentences the constraint left no tree, decoded without it
-
-    def planned(positions):  # the sentences of one group of the plan, under their constraint
-        results, lost = under_pieces(
-            work, [inputs[todo[p]] for p in positions],
-            None if barred is None else (side, [barred[todo[p]] for p in positions]))
-        freed.extend(todo[positions[k]] for k in lost)
-        return results
-
+    freed: list[int] = []  # positions in `todo` the constraint left no tree: decoded without
     with terminal_progress(len(todo) - len(plan.over), "parse") as progress:
-        done = run_plan(plan, range(len(todo)), planned, progress)
-    for i in sorted(freed):
+        done = run_plan_under_pieces(
+            plan, [inputs[i] for i in todo], work, progress,
+            None if barred is None else (side, [barred[i] for i in todo]), freed)
+    for i in sorted(todo[k] for k in freed):
         print(f"{input_name(args.text)}, line {lines[i][0]}: no tree keeps every piece of its "
               "split written words with the host; decoded without the word-piece constraint",
               file=sys.stderr)
