@@ -21,8 +21,8 @@ Sentences: the first `--sentences` lines of the demo training set (or `--text`) 
 
 Each tool runs as its user runs it: training with `train.batch_size` (32) in the trainer's
 float32 (`estep.batch_counts` per batch, then the maximum-likelihood update), the decoders
-through `decode.decode` with `parse`'s batch size (16) in `parse`'s float64. One process, one
-torch thread (`--threads`). The three measurements alternate (training, mbr, mrp, repeated
+through `decode.decode` with `parse`'s batch size through a rule tensor (32) in `parse`'s
+float64. One process, one torch thread (`--threads`). The three measurements alternate (training, mbr, mrp, repeated
 `--repeats` times) so that the machine's drift hits all alike, and the best of the repeats is
 kept, in wall time and, for a shared host, in the process's CPU time (ratios in both). Prints
 measured figures only; asserts nothing. `main` returns the figures.
@@ -40,6 +40,7 @@ import torch
 
 from treewright import decode
 from treewright.allocator import tune_allocator
+from treewright.cli.parse import TABULAR_BATCH
 from treewright.corpus import length_batches
 from treewright.grammar import Grammar, fine_name, load_grammar
 from treewright.params import TabularParams
@@ -107,7 +108,8 @@ def main(argv: list[str] | None = None) -> dict:
     p.add_argument("--repeats", type=int, default=3)
     p.add_argument("--threads", type=int, default=1, help="torch threads")
     p.add_argument("--train-batch-size", type=int, default=32)
-    p.add_argument("--parse-batch-size", type=int, default=16)
+    p.add_argument("--parse-batch-size", type=int, default=TABULAR_BATCH,
+                   help="sentences per decoding call (default: parse's)")
     p.add_argument("--unrefined", action="store_true",
                    help="symbols named S0, P0, ... (each its own coarse symbol)")
     p.add_argument("--em-epochs", type=int, default=0,

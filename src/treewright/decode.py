@@ -265,8 +265,20 @@ class CoarseLayout:
                    binary_logprob)
 
     def coarse_log(self, marginals: Tensor) -> Tensor:
-        """(B, N+1, N+1, K) the log marginals of the coarse labels."""
-        return (marginals if self.member is None else marginals @ self.member).log()
+        """(B, N+1, N+1, K) the log marginals of the coarse labels.
+
+        A preterminal spans one word, so over two or more words only the nonterminals' columns
+        and the Kp coarse parents (every nonterminal's coarse symbol is one of them) are
+        read: the other labels there are -inf without a logarithm each (most of the table)."""
+        B, N1, _, _ = marginals.shape
+        K, kp, nt = self.slots.shape[0], self.num_parents, self.nt
+        out = marginals.new_full((B, N1, N1, K), NEG_INF)
+        one, wide = marginals[:, :, 1], marginals[:, :, 2:, :nt]
+        if self.member is not None:
+            one, wide = one @ self.member, wide @ self.member[:nt, :kp]
+        out[:, :, 1] = one.log()
+        out[:, :, 2:, :kp] = wide.log()
+        return out
 
     def rule_block(self, x: Tensor, y: Tensor, z: Tensor) -> Tensor:
         """(m, G**3) p(x_a -> y_b z_c) of the coarse rules (x, y, z), (a, b, c) in order."""

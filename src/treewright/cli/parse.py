@@ -95,6 +95,14 @@ tags of Universal Dependencies, for a run trained on tags. Punctuation always co
 # grammars) and MODEL_DECODERS (a lexicalized model), written out so that `--help` need not
 # import torch (tests/test_cli_evaluate.py checks that they agree).
 DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus", "lexicalized")
+# Sentences decoded together by default. Through a rule tensor, 32 ran mbr and
+# max-rule-product 5-20% faster than 16 (`scripts/bench_parse_speed.py`), with the memory
+# budget as the bound; factored rules (no budget plan: 1,024 nonterminals and more) and the
+# lexicalized model keep 16.
+TABULAR_BATCH = 32
+MODEL_BATCH = 16
+HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
+FACTORED_GROUP = 256  # the same, for a run of factored rules
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -110,7 +118,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="append the tree's log-probability and its posterior to each line")
     p.add_argument("--objective", action="store_true",
                    help="append the decoder's objective value to each line")
-    p.add_argument("--batch-size", type=int, default=16)
+    p.add_argument("--batch-size", type=int, default=None,
+                   help="sentences decoded together (default: %d through a grammar's rule "
+                        "tensor, %d through factored rules or the lexicalized model; "
+                        "--memory-budget splits them further)" % (TABULAR_BATCH, MODEL_BATCH))
     p.add_argument("--tags", action="store_true",
                    help="the grammar reads tags: TEXT may be bracketed trees or CoNLL-U, whose "
                         "tags are parsed and whose words are printed (automatic for a run or "
@@ -151,6 +162,8 @@ def run(args) -> int:
     from treewright.tracking import terminal_progress
     from treewright.word_pieces import barred_positions, piece_joins
 
+    if args.batch_size is not None and args.batch_size < 1:
+        raise InputError(f"--batch-size must be at least 1, not {args.batch_size}")
     if args.function_words is not None and args.heads_out is None:
         raise InputError("--function-words changes the heads that --heads-out writes; give "
                          "--heads-out PATH too")
@@ -189,6 +202,10 @@ def run(args) -> int:
         # Tree averaging of a run's restarts beat the restart kept by likelihood on the induction
         # benchmark (docs/induction_notes.md), so a run with several restarts is read that way.
         args.decoder = "consensus" if saved_restarts(source) >= 2 else "viterbi"
+    heads_batch = args.batch_size or MODEL_BATCH
+    if args.batch_size is None:
+        args.batch_size = MODEL_BATCH if factored is not None or \
+            args.decoder == "lexicalized" else TABULAR_BATCH
     if factored is not None:
         grammars = []
 
@@ -321,16 +338,13 @@ def run(args) -> int:
         print(f"{unparsed} of {len(lines)} sentences had no parse", file=sys.stderr)
     if args.heads_out is not None:
         write_heads(args, lexicalized, fmt, lines, inputs, function_words,
-                    None if barred is None else (side, barred))
+                    None if barred is None else (side, barred), heads_batch)
     return 0
 
 
-HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
-FACTORED_GROUP = 256  # the same, for a run of factored rules
-
-
 def write_heads(args, lexicalized, fmt: str, lines, inputs,
-                function_words: frozenset[str] | None = None, pieces=None) -> None:
+                function_words: frozenset[str] | None = None, pieces=None,
+                batch_size: int = MODEL_BATCH) -> None:
     """--heads-out: the lexicalized model's heads of every sentence as CoNLL-U (see EXAMPLES),
     in the content-head convention when `function_words` is given (--function-words), and
     under the word-piece constraint with `pieces` (host side, barred positions per line of
@@ -348,7 +362,7 @@ def write_heads(args, lexicalized, fmt: str, lines, inputs,
     with terminal_progress(len(inputs), "heads") as progress:
         for start in range(0, len(inputs), HEADS_CHUNK):
             group = inputs[start:start + HEADS_CHUNK]
-            parses, _ = under_pieces(lambda words, p: lexicalized.parse(words, args.batch_size, p),
+            parses, _ = under_pieces(lambda words, p: lexicalized.parse(words, batch_size, p),
                                      group, None if pieces is None else
                                      (pieces[0], pieces[1][start:start + HEADS_CHUNK]))
             if function_words is not None:
