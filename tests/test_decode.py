@@ -503,6 +503,19 @@ def test_summed_tree_probability_over_refinements():
         assert tree_logprob_summed(REFINED, tree) == pytest.approx(math.log(total), abs=1e-10)
 
 
+@pytest.mark.parametrize("decoder", ["mbr", "max-rule-product"])
+def test_decoding_without_tree_logprobs_leaves_only_them_out(decoder):
+    # The trees, objectives and log-likelihoods are the full decode's (checked against
+    # enumeration above); only the trees' own log-probabilities are left out, and a posterior
+    # asked of such a result is refused rather than made up.
+    full = decode(REFINED, SENTENCES, decoder)
+    lean = decode(REFINED, SENTENCES, decoder, tree_logprobs=False)
+    for a, b in zip(full, lean):
+        assert b.tree == a.tree and b.score == a.score and b.log_likelihood == a.log_likelihood
+        assert a.tree_logprob > -math.inf and b.tree_logprob is None
+        with pytest.raises(ValueError, match="tree_logprobs=True"):
+            b.posterior
+
 def test_unparseable_sentence_is_reported_not_dropped():
     g = make_grammar(["A"], ["P"], 2, seed=0)
     g.lexical[1, 1] = -math.inf  # the only preterminal can no longer emit w1

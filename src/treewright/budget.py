@@ -146,16 +146,18 @@ def score_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
 def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
                          decoder: str = "mbr", budget_mb: float | None = DEFAULT_BUDGET_MB,
                          batch_size: int = 16, dtype: torch.dtype = torch.float64,
-                         progress=None, pieces=None, freed: list[int] | None = None):
+                         progress=None, pieces=None, freed: list[int] | None = None,
+                         tree_logprobs: bool = True):
     """`decode.decode` of every sentence that fits `budget_mb`, None for the others; with
     `pieces` (host side, barred positions per sentence) under the word-piece constraint, a
     sentence it leaves no tree decoded without it and its index added to `freed`
-    (`decode.under_pieces`)."""
+    (`decode.under_pieces`). `tree_logprobs` as for `decode.decode`."""
     from treewright.decode import decode
 
     return run_plan_under_pieces(plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype,
                                 batch_size), sentences,
-                    lambda group, p: decode(grammar, group, decoder, batch_size, dtype, p),
+                    lambda group, p: decode(grammar, group, decoder, batch_size, dtype, p,
+                                            tree_logprobs=tree_logprobs),
                     progress, pieces, freed)
 
 

@@ -163,8 +163,9 @@ class Decoded:
     cannot parse the sentence."""
     tree: Tree | None
     log_likelihood: float   # log p(sentence), summed over all trees; -inf when no parse
-    tree_logprob: float     # log p(tree, sentence), summed over every refinement of the tree's
-                            # labels (coarse trees); -inf if the grammar cannot build the tree
+    tree_logprob: float | None  # log p(tree, sentence), summed over every refinement of the
+                                # tree's labels (coarse trees); -inf if the grammar cannot build
+                                # the tree; None when not asked for (`decode(tree_logprobs=...)`)
     score: float            # the decoder's objective: log p(tree) for viterbi, expected number
                             # of correct spans for mbr, log product of rule posteriors for mrp,
                             # mean F1 against the grammars' MBR trees for consensus
@@ -172,6 +173,9 @@ class Decoded:
     @property
     def posterior(self) -> float:
         """p(tree | sentence); 0 when there is no parse."""
+        if self.tree_logprob is None:
+            raise ValueError("the tree's log-probability was not computed: decode with "
+                             "tree_logprobs=True")
         if self.log_likelihood == NEG_INF or self.tree_logprob == NEG_INF:
             return 0.0
         return math.exp(self.tree_logprob - self.log_likelihood)
@@ -471,15 +475,19 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     # sixth on the EM-trained grammars of `bench_parse_speed.py`). It costs one small pass,
     # taken where the floor per word leaves many rules and where the item pass could then be
     # the cheaper one.
-    rules, chart = _pass_costs(_kept_labels(bound, n, lay.num_parents, floor), lay)
+    kept_labels = _kept_labels(bound, n, lay.num_parents, floor)
+    costs = _pass_costs(kept_labels, lay)
     finite = torch.isfinite(floor)
-    rules, chart = int(rules[finite].sum()), int(chart[finite].sum())
+    rules, chart = int(costs[0][finite].sum()), int(costs[1][finite].sum())
+    known = None   # the kept labels and costs under the floor per word, unless it is raised
     if finite.any() and rules > KNOWN_TREE_FROM and \
             rules * _item_cost(lay) <= KNOWN_TREE_GAIN * chart:
         floor = torch.maximum(floor, _known_tree_floor(grammar, tables, lengths, lay, floor,
                                                        coarse_log, bound))
+    else:
+        known = (kept_labels, *costs)
     results, values, floor = _max_rule_product_floored(grammar, tables, lengths, lay, floor,
-                                                       coarse_log, bound)
+                                                       coarse_log, bound, known)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
     return _decode_again(grammar, tables, lengths, lay, results, redo, values, coarse_log, bound)
@@ -670,22 +678,20 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
         return known
     sub = tables.rows(rows)
     sub_lengths = [lengths[b] for b in rows.tolist()]
-    N1 = sub.marginals.shape[1]
     K, Kp = lay.slots.shape[0], lay.num_parents
-    span = torch.zeros(len(rows), N1, N1, dtype=torch.bool)
     at = [(b, i, j - i) for b, spans in
           enumerate(mbr_spans_batch(_span_posteriors(sub.marginals, lay.nt), sub_lengths))
           for i, j in spans]
-    if at:
-        span[tuple(torch.tensor(at).t())] = True
-    sub_log = coarse_log[rows]                                           # (rows, N+1, N+1, K)
+    sub_log = _rows(coarse_log, rows)                                    # (rows, N+1, N+1, K)
     within = torch.zeros(sub_log.shape, dtype=torch.bool)
     top = sub_log[:, :, 1].topk(min(KNOWN_TREE_LABELS, K), -1).indices
     within[:, :, 1].scatter_(-1, top, True)
-    top = sub_log[..., :Kp].topk(min(KNOWN_TREE_LABELS, Kp), -1).indices
-    within[..., :Kp] |= torch.zeros_like(within[..., :Kp]).scatter_(-1, top, True) & span[..., None]
+    if at:  # the best coarse parents of the bracketing's spans alone (a top-k per cell is slow)
+        sb, si, sw = torch.tensor(at).t()
+        top = sub_log[sb, si, sw, :Kp].topk(min(KNOWN_TREE_LABELS, Kp), -1).indices
+        within[sb[:, None], si[:, None], sw[:, None], top] = True
     _, value = _max_rule_product_items(grammar, sub, sub_lengths, lay, floor[rows], within,
-                                       sub_log, None if bound is None else bound[rows])
+                                       sub_log, _rows(bound, rows))
     known[rows] = value - _slack(value.dtype)
     return known
 
@@ -702,7 +708,8 @@ FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no char
 
 def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
-                              coarse_log: Tensor, bound: Tensor | None = None
+                              coarse_log: Tensor, bound: Tensor | None = None,
+                              known: tuple[Tensor, Tensor, Tensor] | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor, Tensor]:
     """`_max_rule_product_refined` with the floor `floor` (B,), by whichever exact pass costs
@@ -713,7 +720,8 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     runs span width by span width over every sentence it is given, so a part of a batch costs
     it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
     item pass takes its sentences in groups of at most `ITEMS_AT_ONCE` anchored rules (a
-    sentence with more goes alone). Returns the results, the
+    sentence with more goes alone). `known`: the `_kept_labels` under this floor and their
+    `_pass_costs`, when the caller has them. Returns the results, the
     (B,) best log scores and the floors the passes held (-inf where the pass left nothing out:
     the max-semiring pass of an unrefined grammar)."""
     B = len(lengths)
@@ -721,8 +729,11 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     K, G = lay.slots.shape
     n = torch.tensor(list(lengths), dtype=torch.long)
     bound = coarse_log if bound is None else bound
-    kept = _kept_labels(bound, n, lay.num_parents, floor)
-    rules, chart = _pass_costs(kept, lay)
+    if known is None:
+        kept = _kept_labels(bound, n, lay.num_parents, floor)
+        rules, chart = _pass_costs(kept, lay)
+    else:
+        kept, rules, chart = known
     finite = torch.isfinite(floor)
     by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
                          or lay.rules is None)          # factored rules: no chart pass
@@ -741,23 +752,33 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     if len(rows):
         groups.append((_chart_pass(lay), rows))
     rows = by_items.nonzero().flatten().tolist()
+    counts = rules.tolist()
     while rows:
-        total, end = int(rules[rows[0]]), 1
-        while end < len(rows) and total + int(rules[rows[end]]) <= ITEMS_AT_ONCE:
-            total += int(rules[rows[end]])
+        total, end = counts[rows[0]], 1
+        while end < len(rows) and total + counts[rows[end]] <= ITEMS_AT_ONCE:
+            total += counts[rows[end]]
             end += 1
         groups.append((_max_rule_product_items, torch.tensor(rows[:end])))
         rows = rows[end:]
     held = floor.clone()
     for run, rows in groups:
+        extra = {"kept": _rows(kept, rows)} if run is _max_rule_product_items else {}
         found, value = run(grammar, tables.rows(rows), [lengths[b] for b in rows.tolist()],
-                           lay, floor[rows], coarse_log=coarse_log[rows], bound=bound[rows])
+                           lay, floor[rows], coarse_log=_rows(coarse_log, rows),
+                           bound=_rows(bound, rows),
+                           **extra)
         values[rows] = value
         if G == 1 and run is not _max_rule_product_items:
             held[rows] = NEG_INF
         for b, result in zip(rows.tolist(), found):
             results[b] = result
     return results, values, held
+
+
+def _rows(x: Tensor | None, rows: Tensor) -> Tensor | None:
+    """x[rows], or x itself when `rows` is every row in order (no copy of a chart-sized
+    table)."""
+    return x if x is None or engine.every_row(rows, x.shape[0]) else x[rows]
 
 
 def _item_cost(lay: CoarseLayout) -> int:
@@ -994,7 +1015,7 @@ def _kept_labels(coarse_log: Tensor, lengths: Tensor, num_parents: int, floor: T
 def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
                             lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
                             within: Tensor | None = None, coarse_log: Tensor | None = None,
-                            bound: Tensor | None = None
+                            bound: Tensor | None = None, kept: Tensor | None = None
                             ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                        Tensor]:
     """`max_rule_product` over the labeled spans a finite floor keeps, item by item, on any
@@ -1018,7 +1039,8 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     results and the (B,) best log scores (-inf where no tree reaches the floor). `within`
     (B, N+1, N+1, K) bool, when given, keeps the labeled spans it marks only: the best tree
     among those that use no other. `coarse_log` and `bound` as in
-    `_max_rule_product_refined`.
+    `_max_rule_product_refined`; `kept`, when given, is `_kept_labels` of them (made here
+    otherwise).
     """
     dtype = tables.marginals.dtype
     K, G = lay.slots.shape
@@ -1027,9 +1049,10 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     n = torch.tensor(list(lengths), dtype=torch.long)
     if coarse_log is None:
         coarse_log = lay.coarse_log(tables.marginals)              # (B, N+1, N+1, K)
-    kept = _kept_labels(coarse_log if bound is None else bound, n, Kp, floor)
+    if kept is None:
+        kept = _kept_labels(coarse_log if bound is None else bound, n, Kp, floor)
     if within is not None:
-        kept &= within
+        kept = kept & within
     # Items in (sentence, start, width, symbol) order: each cell's items are contiguous and in
     # symbol order.
     cell_count = kept.sum(-1)                                            # (B, N+1, N+1)
@@ -1314,8 +1337,13 @@ def _by_length(sentences: Sequence[Sequence[str]], batch_size: int,
 
 def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = "mbr",
            batch_size: int = 16, dtype: torch.dtype = torch.float64,
-           pieces: tuple[str, Sequence[Sequence[int]]] | None = None) -> list[Decoded]:
+           pieces: tuple[str, Sequence[Sequence[int]]] | None = None,
+           tree_logprobs: bool = True) -> list[Decoded]:
     """One tree per sentence, in input order, by the named decoder (see `DECODERS`).
+
+    `tree_logprobs` False leaves `Decoded.tree_logprob` None for mbr and max-rule-product,
+    saving the pass that sums each tree over its labels' refinements (a tenth of
+    max-rule-product's time on a refined grammar); viterbi has it for free.
 
     `pieces`: decode under the word-piece constraint that training applies (`treewright.
     word_pieces`): (host side "first" or "last", per sentence the `barred_positions` of its
@@ -1329,7 +1357,7 @@ def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = 
     if decoder not in DECODERS:
         raise ValueError(f"unknown decoder {decoder!r}; choose one of {', '.join(DECODERS)}")
     # Made once for every batch: the tree scorer and max-rule-product's coarse layout.
-    scorer = TreeScorer(grammar) if decoder != "viterbi" else None
+    scorer = TreeScorer(grammar) if decoder != "viterbi" and tree_logprobs else None
     layout = CoarseLayout.of(grammar, dtype) if decoder == "max-rule-product" else None
     return _by_length(sentences, batch_size,
                       lambda words, pot=None: _decode_batch(grammar, words, decoder, dtype,
@@ -1360,7 +1388,8 @@ def _decode_batch(grammar, sentences, decoder, dtype, scorer, layout,
     trees = [None if result is None else tree_from_spans(words, result[0])
              for words, result in zip(sentences, results)]
     parsed = [b for b, result in enumerate(results) if result is not None]
-    logprobs = iter(scorer.logprobs_of_spans([sentences[b] for b in parsed],
+    logprobs = iter([None] * len(parsed) if scorer is None else
+                    scorer.logprobs_of_spans([sentences[b] for b in parsed],
                                              [results[b][0] for b in parsed]))
     logz = tables.logz.tolist()
     return [Decoded(None, NEG_INF, NEG_INF, NEG_INF) if tree is None else
@@ -1537,7 +1566,8 @@ def under_pieces(run: Callable[[list[Sequence[str]], Pieces | None], Sequence[De
 def mbr_decode(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_size: int = 16,
                dtype: torch.dtype = torch.float64) -> list[Tree | None]:
     """MBR trees (see the module docstring), None for sentences the grammar cannot parse."""
-    return [d.tree for d in decode(grammar, sentences, "mbr", batch_size, dtype)]
+    return [d.tree for d in decode(grammar, sentences, "mbr", batch_size, dtype,
+                                   tree_logprobs=False)]
 
 
 @dataclass

@@ -149,7 +149,7 @@ def run_demo(out_dir: str | Path = "runs/demo", budget: str = "full",
 
     stages.begin("Parsing the test set (minimum Bayes risk over span posteriors)")
     test = corpora["test"].sentences
-    decoded = decode(grammar, [s.tokens for s in test], decoder="mbr")
+    decoded = decode(grammar, [s.tokens for s in test], decoder="mbr", tree_logprobs=False)
     pred_path = out / "test.pred.trees"
     atomic_write_text(pred_path, "".join(
         (d.tree.to_string() if d.tree is not None else "(NOPARSE " + " ".join(s.words) + ")")

@@ -143,7 +143,7 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
 
         def parse(group, pieces):
             return consensus(grammars, group, pieces=pieces) if len(grammars) >= 2 \
-                else decode(grammars[0], group, "mbr", pieces=pieces)
+                else decode(grammars[0], group, "mbr", pieces=pieces, tree_logprobs=False)
 
         with terminal_progress(len(todo), "brackets") as progress:
             for start in range(0, len(todo), BRACKET_CHUNK):

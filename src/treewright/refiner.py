@@ -30,7 +30,7 @@ def coarse_trees(lg: LatentGrammar, words: Sequence[Sequence[str]],
     name), its labels projected to the coarse symbols; None where a sentence has no parse."""
     fine = lg.to_grammar(torch.float64)
     return [None if r.tree is None else project_labels(r.tree)
-            for r in decode(fine, words, decoder)]
+            for r in decode(fine, words, decoder, tree_logprobs=False)]
 
 
 def refine(cfg: RefineConfig, run_dir: str | Path, stream: TextIO | None = None,

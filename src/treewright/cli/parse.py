@@ -227,7 +227,8 @@ def run(args) -> int:
         grammars = [grammar]
 
         def work(group, pieces):
-            return decode(grammar, group, args.decoder, args.batch_size, dtype, pieces)
+            return decode(grammar, group, args.decoder, args.batch_size, dtype, pieces,
+                          tree_logprobs=args.scores)
     config = (source.training or {}).get("config")
     data = config.get("data") if isinstance(config, dict) else None
     on_tags = args.tags or run_tag_mode(data)

@@ -11,13 +11,13 @@ from dataclasses import dataclass
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import (Chart, SpanTables, inside_chart, log_partition,
-                                      log_unscaled, span_tables)
+from treewright.engine.inside import (Chart, SpanTables, every_row, inside_chart,
+                                      log_partition, log_unscaled, span_tables)
 from treewright.engine.sample import sample_trees
 from treewright.engine.viterbi import viterbi
 
-__all__ = ["Chart", "Posteriors", "SpanTables", "inside_chart", "log_partition", "log_unscaled",
-           "posteriors", "sample_trees", "span_tables", "viterbi"]
+__all__ = ["Chart", "Posteriors", "SpanTables", "every_row", "inside_chart", "log_partition",
+           "log_unscaled", "posteriors", "sample_trees", "span_tables", "viterbi"]
 
 
 @dataclass

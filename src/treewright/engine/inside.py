@@ -609,10 +609,18 @@ class SpanTables:
         return self._log_outside
 
     def rows(self, rows: Tensor) -> "SpanTables":
-        """The sentences `rows` of the batch."""
+        """The sentences `rows` of the batch (these tables themselves when `rows` is every
+        sentence in order: no copy)."""
+        if every_row(rows, len(self.logz)):
+            return self
         pick = (lambda x: None if x is None else x[rows])
         return SpanTables(self.logz[rows], self.marginals[rows], pick(self.scaled_inside),
                           pick(self.scaled_outside), pick(self.scale))
+
+
+def every_row(rows: Tensor, count: int) -> bool:
+    """Whether the index tensor `rows` is 0, 1, ..., count - 1."""
+    return len(rows) == count and bool((rows == torch.arange(count)).all())
 
 
 def past_end(lengths: Tensor, N: int) -> Tensor:

@@ -289,7 +289,8 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
                                               progress=progress, pieces=pieces, freed=freed)
         else:
             results = decode_within_budget(grammar, tokens, decoder, memory_budget_mb,
-                                           progress=progress, pieces=pieces, freed=freed)
+                                           progress=progress, pieces=pieces, freed=freed,
+                                           tree_logprobs=False)
     treebank = is_treebank_grammar(grammar if decoder in ENSEMBLE_DECODERS else [grammar])
     trees, unparsed = [], 0
     for s, r in zip(sentences, results):
