@@ -986,14 +986,16 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
         top_value.masked_fill(~parsed, NEG_INF)
 
 
-def _rescaled(cells: Tensor, log_scale: Tensor, slots: Tensor, width: int
-              ) -> tuple[Tensor, Tensor]:
-    """Each row of the scaled scores `cells` (rows, C) at its subcategory `slots` (rows, G)
-    (indices C to `width` - 1: none, zero), divided by their maximum, and the log of that
-    maximum plus the row's `log_scale` (0 where every entry is zero): the scores out of the
-    chart's scale, as `_shifted` gives them from log scores."""
-    cells = torch.cat([cells, cells.new_zeros(len(cells), width - cells.shape[1])], 1)
-    picked = cells.gather(1, slots)
+def _rescaled(table: Tensor, b: Tensor, i: Tensor, w: Tensor, log_scale: Tensor,
+              slots: Tensor) -> tuple[Tensor, Tensor]:
+    """The scaled scores of the cells (b, i, w) of `table` (B, N+1, N+1, C) at each cell's
+    subcategory `slots` (rows, G) (C and up: none, zero), divided by their maximum, and the
+    log of that maximum plus the cell's `log_scale` (0 where every entry is zero): the scores
+    out of the chart's scale, as `_shifted` gives them from log scores. Only the G entries of
+    each cell are read."""
+    C = table.shape[-1]
+    picked = table[b[:, None], i[:, None], w[:, None], slots.clamp(max=C - 1)]  # (rows, G)
+    picked = picked.masked_fill(slots >= C, 0.0)
     top = picked.amax(1)
     some = top > 0
     return picked / torch.where(some, top, 1.0)[:, None], \
@@ -1061,8 +1063,8 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     best = coarse_log[ib, ii, iw, ik].masked_fill(iw > 1, NEG_INF)      # words: their label
     # Each item's inside scores over its subcategory slots (index S: none), out of log space
     # per item.
-    inside_hat, inside_max = _rescaled(tables.scaled_inside[ib, ii, iw],
-                                       tables.scale[ib, ii, iw], lay.slots[ik], S + 1)  # (items, G)
+    inside_hat, inside_max = _rescaled(tables.scaled_inside, ib, ii, iw,
+                                       tables.scale[ib, ii, iw], lay.slots[ik])  # (items, G)
     # Parent items, by width; for each, its splits; for each split, every (left, right) pair
     # of items of the two child cells: the anchored rules, in (parent, split, left, right)
     # order.
@@ -1084,9 +1086,9 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     # nonterminals (index NT and up: none).
     pitem = parents[rule_parent]
     pb, pi = ib[parents], ii[parents]
-    outside_hat, outside_max = _rescaled(tables.scaled_outside[pb, pi, pw],
-                                         -tables.scale[pb, pi, pw], lay.slots[ik[parents]],
-                                         S + 1)                          # (parents, G)
+    outside_hat, outside_max = _rescaled(tables.scaled_outside, pb, pi, pw,
+                                         -tables.scale[pb, pi, pw],
+                                         lay.slots[ik[parents]])         # (parents, G)
     log_q = torch.empty(len(of_rule), dtype=dtype)
     chunk = max(1, MRP_CHUNK // G ** 3)
     for r0 in range(0, len(of_rule), chunk):
@@ -1138,11 +1140,16 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
         rule = back[item]
         item = torch.cat([left[rule], right[rule]])
     spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
-    names = lay.names
     if found:
         item = torch.cat(found)
-        for sb, si, sw, sx in torch.stack([ib[item], ii[item], iw[item], ik[item]], 1).tolist():
-            spans[sb].append((si, si + sw, names[sx]))
+        item = item[ib[item].argsort(stable=True)]   # by sentence, each in the order found
+        names = lay.names
+        listed = list(zip(ii[item].tolist(), (ii[item] + iw[item]).tolist(),
+                          [names[x] for x in ik[item].tolist()]))
+        at = 0
+        for sb, count in enumerate(torch.bincount(ib[item], minlength=B).tolist()):
+            spans[sb] = listed[at:at + count]
+            at += count
     values = top_value.tolist()
     return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())], \
         top_value.masked_fill(~parsed, NEG_INF)
