@@ -41,7 +41,6 @@ import torch
 
 from treewright import decode
 from treewright.allocator import tune_allocator
-from treewright.cli.parse import TABULAR_BATCH
 from treewright.corpus import length_batches
 from treewright.grammar import Grammar, fine_name, load_grammar
 from treewright.params import TabularParams
@@ -109,7 +108,7 @@ def main(argv: list[str] | None = None) -> dict:
     p.add_argument("--repeats", type=int, default=3)
     p.add_argument("--threads", type=int, default=1, help="torch threads")
     p.add_argument("--train-batch-size", type=int, default=32)
-    p.add_argument("--parse-batch-size", type=int, default=TABULAR_BATCH,
+    p.add_argument("--parse-batch-size", type=int, default=decode.DECODE_BATCH,
                    help="sentences per decoding call (default: parse's)")
     p.add_argument("--unrefined", action="store_true",
                    help="symbols named S0, P0, ... (each its own coarse symbol)")

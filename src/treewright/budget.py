@@ -19,7 +19,7 @@ from typing import Callable, Sequence, TypeVar
 
 import torch
 
-from treewright.corpus.batching import length_batches
+from treewright.corpus.batching import DECODE_BATCH, length_batches
 from treewright.engine.memory import inside_outside_bytes
 from treewright.grammar import Grammar
 
@@ -145,7 +145,7 @@ def score_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
 
 def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
                          decoder: str = "mbr", budget_mb: float | None = DEFAULT_BUDGET_MB,
-                         batch_size: int = 16, dtype: torch.dtype = torch.float64,
+                         batch_size: int = DECODE_BATCH, dtype: torch.dtype = torch.float64,
                          progress=None, pieces=None, freed: list[int] | None = None,
                          tree_logprobs: bool = True):
     """`decode.decode` of every sentence that fits `budget_mb`, None for the others; with
@@ -162,7 +162,8 @@ def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
 
 
 def consensus_within_budget(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
-                            budget_mb: float | None = DEFAULT_BUDGET_MB, batch_size: int = 16,
+                            budget_mb: float | None = DEFAULT_BUDGET_MB,
+                            batch_size: int = DECODE_BATCH,
                             dtype: torch.dtype = torch.float64, progress=None, pieces=None,
                             freed: list[int] | None = None):
     """`decode.consensus` of every sentence that fits `budget_mb` under each of `grammars`,

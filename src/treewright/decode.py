@@ -46,7 +46,7 @@ import torch
 from torch import Tensor
 
 from treewright import engine
-from treewright.corpus.batching import length_batches
+from treewright.corpus.batching import DECODE_BATCH, length_batches
 from treewright.corpus.transforms import has_transform_marks, treebank_form
 from treewright.grammar import Grammar, coarse_name
 from treewright.engine.lexicalized import LexicalizedParse
@@ -1343,7 +1343,7 @@ def _by_length(sentences: Sequence[Sequence[str]], batch_size: int,
 
 
 def decode(grammar: Grammar, sentences: Sequence[Sequence[str]], decoder: str = "mbr",
-           batch_size: int = 16, dtype: torch.dtype = torch.float64,
+           batch_size: int = DECODE_BATCH, dtype: torch.dtype = torch.float64,
            pieces: tuple[str, Sequence[Sequence[int]]] | None = None,
            tree_logprobs: bool = True) -> list[Decoded]:
     """One tree per sentence, in input order, by the named decoder (see `DECODERS`).
@@ -1465,7 +1465,7 @@ class _SpanLabels:
 
 
 def consensus(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
-              batch_size: int = 16, dtype: torch.dtype = torch.float64,
+              batch_size: int = DECODE_BATCH, dtype: torch.dtype = torch.float64,
               pieces: tuple[str, Sequence[Sequence[int]]] | None = None) -> list[Decoded]:
     """One tree per sentence from several grammars (two or more; e.g. the restarts of one run),
     in input order, by tree averaging (Shayegh, Cao, Zhu, Cheung & Mou 2024, "Ensemble
@@ -1570,7 +1570,8 @@ def under_pieces(run: Callable[[list[Sequence[str]], Pieces | None], Sequence[De
     return results, lost
 
 
-def mbr_decode(grammar: Grammar, sentences: Sequence[Sequence[str]], batch_size: int = 16,
+def mbr_decode(grammar: Grammar, sentences: Sequence[Sequence[str]],
+               batch_size: int = DECODE_BATCH,
                dtype: torch.dtype = torch.float64) -> list[Tree | None]:
     """MBR trees (see the module docstring), None for sentences the grammar cannot parse."""
     return [d.tree for d in decode(grammar, sentences, "mbr", batch_size, dtype,

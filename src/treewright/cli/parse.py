@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from treewright.cli.common import PIECE_CHOICES, add_budget_argument
+from treewright.corpus.batching import DECODE_BATCH
 
 EXAMPLES = """examples:
   treewright parse src/treewright/data/examples/astronomers.pcfg sentences.txt
@@ -95,11 +96,9 @@ tags of Universal Dependencies, for a run trained on tags. Punctuation always co
 # grammars) and MODEL_DECODERS (a lexicalized model), written out so that `--help` need not
 # import torch (tests/test_cli_evaluate.py checks that they agree).
 DECODER_NAMES = ("viterbi", "mbr", "max-rule-product", "consensus", "lexicalized")
-# Sentences decoded together by default. Through a rule tensor, 32 ran mbr and
-# max-rule-product 5-20% faster than 16 (`scripts/bench_parse_speed.py`), with the memory
-# budget as the bound; factored rules (no budget plan: 1,024 nonterminals and more) and the
-# lexicalized model keep 16.
-TABULAR_BATCH = 32
+# Sentences decoded together by default: `DECODE_BATCH` through a rule tensor (with the
+# memory budget as the bound); factored rules (no budget plan: 1,024 nonterminals and more)
+# and the lexicalized model keep 16.
 MODEL_BATCH = 16
 HEADS_CHUNK = 256  # sentences decoded between two updates of the progress bar
 FACTORED_GROUP = 256  # the same, for a run of factored rules
@@ -121,7 +120,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--batch-size", type=int, default=None,
                    help="sentences decoded together (default: %d through a grammar's rule "
                         "tensor, %d through factored rules or the lexicalized model; "
-                        "--memory-budget splits them further)" % (TABULAR_BATCH, MODEL_BATCH))
+                        "--memory-budget splits them further)" % (DECODE_BATCH, MODEL_BATCH))
     p.add_argument("--tags", action="store_true",
                    help="the grammar reads tags: TEXT may be bracketed trees or CoNLL-U, whose "
                         "tags are parsed and whose words are printed (automatic for a run or "
@@ -205,7 +204,7 @@ def run(args) -> int:
     heads_batch = args.batch_size or MODEL_BATCH
     if args.batch_size is None:
         args.batch_size = MODEL_BATCH if factored is not None or \
-            args.decoder == "lexicalized" else TABULAR_BATCH
+            args.decoder == "lexicalized" else DECODE_BATCH
     if factored is not None:
         grammars = []
 

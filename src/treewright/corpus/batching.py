@@ -9,6 +9,13 @@ import random
 from dataclasses import dataclass
 from typing import Callable, Sequence
 
+# Sentences per call of the decoders over a rule tensor (`decode.decode`, `decode.consensus`,
+# and so `parse`, `report` and `export`): 32 ran mbr and max-rule-product 5-20% faster than 16
+# (`scripts/bench_parse_speed.py`, per-batch work dominating at demo sizes), 64 no faster. The
+# memory budget (`treewright.budget`) splits a call further. Factored rules and the
+# lexicalized model decode 16 at a time.
+DECODE_BATCH = 32
+
 
 @dataclass
 class Split:
