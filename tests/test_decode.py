@@ -488,6 +488,43 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
             assert sorted(a[0]) == sorted(b[0]) and a[1] == pytest.approx(b[1], abs=1e-12)
 
 
+@pytest.mark.parametrize("rows_per_call", [1, 3, 16])
+def test_refined_chart_pass_in_calls_of_a_few_sentences_each_cut_to_its_longest(
+        monkeypatch, rows_per_call):
+    # Reference: the whole batch in one unpruned chart pass (checked against enumeration
+    # above). With no floor (the guard for diffuse posteriors) the floored pass sorts the
+    # sentences of two or more words by length and runs the chart pass on a few at a time,
+    # each call's tables cut to its longest sentence: the same trees and scores, and the cut
+    # really happens.
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 0.0)
+    monkeypatch.setattr(decode_module, "REFINED_CHART_ROWS", rows_per_call)
+    real = decode_module._max_rule_product_refined
+    widths = []
+
+    def spy(grammar, tables, lengths, *args, **kwargs):
+        widths.append((max(lengths), tables.marginals.shape[1]))
+        return real(grammar, tables, lengths, *args, **kwargs)
+
+    g = random_grammar(6, 6, 4, seed=5, names=([f"S{i // 2}·{i % 2}" for i in range(6)],
+                                               [f"P{i // 2}·{i % 2}" for i in range(6)]))
+    gen = torch.Generator().manual_seed(2)
+    sentences = [[f"w{int(k)}" for k in torch.randint(0, 4, (n,), generator=gen)]
+                 for n in (9, 2, 6, 1, 8, 4, 7, 3)]
+    tables = span_tables(g, sentences)
+    lengths = [len(w) for w in sentences]
+    full = max_rule_product(g, tables, lengths, prune=False)
+    monkeypatch.setattr(decode_module, "_max_rule_product_refined", spy)
+    cut = max_rule_product(g, tables, lengths)
+    # A one-word sentence has no span to leave out, so it keeps a floor and the item pass.
+    assert len(widths) == -(-sum(n >= 2 for n in lengths) // rows_per_call)
+    assert all(cells == longest + 1 for longest, cells in widths)
+    assert [a is None for a in cut] == [b is None for b in full]
+    assert sum(a is not None for a in cut) >= 6
+    for a, b in zip(cut, full, strict=True):
+        if a is not None:
+            assert sorted(a[0]) == sorted(b[0]) and a[1] == pytest.approx(b[1], abs=1e-12)
+
+
 def test_summed_tree_probability_over_refinements():
     # Brute force: sum p(fine tree) over the fine trees whose coarse image is the decoded tree.
     cname = [coarse_name(s) for s in REFINED.symbols]

@@ -617,6 +617,18 @@ class SpanTables:
         return SpanTables(self.logz[rows], self.marginals[rows], pick(self.scaled_inside),
                           pick(self.scaled_outside), pick(self.scale))
 
+    def trimmed(self, cut: int | None) -> "SpanTables":
+        """The cells of starts and widths below `cut` (views; these tables when `cut` is None
+        or leaves every cell): the whole chart of sentences of at most `cut` - 1 words."""
+        if cut is None or cut >= self.marginals.shape[1]:
+            return self
+        return SpanTables(self.logz, _cells(self.marginals, cut), _cells(self.scaled_inside, cut),
+                          _cells(self.scaled_outside, cut), _cells(self.scale, cut))
+
+
+def _cells(x: Tensor | None, cut: int) -> Tensor | None:
+    return None if x is None else x[:, :cut, :cut]
+
 
 def every_row(rows: Tensor, count: int) -> bool:
     """Whether the index tensor `rows` is 0, 1, ..., count - 1."""
