@@ -23,7 +23,8 @@ Each tool runs as its user runs it: training with `train.batch_size` (32) in the
 float32 (`estep.batch_counts` per batch, then the maximum-likelihood update), the decoders
 through `decode.decode` with `parse`'s batch size through a rule tensor (32) in `parse`'s
 float64, without the trees' own log-probabilities (`parse` computes them only for `--scores`;
-on a refined grammar they cost max-rule-product about a tenth more). One process, one torch thread (`--threads`). The three measurements alternate (training, mbr, mrp, repeated
+on a refined grammar they cost max-rule-product about a tenth more). One process, one torch
+thread (`--threads`). The three measurements alternate (training, mbr, mrp, repeated
 `--repeats` times) so that the machine's drift hits all alike, and the best of the repeats is
 kept, in wall time and, for a shared host, in the process's CPU time (ratios in both). Prints
 measured figures only; asserts nothing. `main` returns the figures.

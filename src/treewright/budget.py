@@ -154,11 +154,11 @@ def decode_within_budget(grammar: Grammar, sentences: Sequence[Sequence[str]],
     (`decode.under_pieces`). `tree_logprobs` as for `decode.decode`."""
     from treewright.decode import decode
 
-    return run_plan_under_pieces(plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype,
-                                batch_size), sentences,
-                    lambda group, p: decode(grammar, group, decoder, batch_size, dtype, p,
-                                            tree_logprobs=tree_logprobs),
-                    progress, pieces, freed)
+    plan = plan_budget(grammar, [len(s) for s in sentences], budget_mb, dtype, batch_size)
+    return run_plan_under_pieces(
+        plan, sentences, lambda group, p: decode(grammar, group, decoder, batch_size, dtype, p,
+                                                 tree_logprobs=tree_logprobs),
+        progress, pieces, freed)
 
 
 def consensus_within_budget(grammars: Sequence[Grammar], sentences: Sequence[Sequence[str]],
@@ -170,10 +170,10 @@ def consensus_within_budget(grammars: Sequence[Grammar], sentences: Sequence[Seq
     None for the others; `pieces` and `freed` as for `decode_within_budget`."""
     from treewright.decode import consensus
 
-    return run_plan_under_pieces(plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype,
-                                batch_size), sentences,
-                    lambda group, p: consensus(grammars, group, batch_size, dtype, p),
-                    progress, pieces, freed)
+    plan = plan_budget(grammars, [len(s) for s in sentences], budget_mb, dtype, batch_size)
+    return run_plan_under_pieces(
+        plan, sentences, lambda group, p: consensus(grammars, group, batch_size, dtype, p),
+        progress, pieces, freed)
 
 
 def run_plan_under_pieces(plan: BudgetPlan, sentences, run, progress=None, pieces=None,

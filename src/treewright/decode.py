@@ -702,7 +702,7 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
 # anchored rule took 190-300 ns (G <= 2) and 1.2 us (G = 4), a chart multiply-add 0.3-0.7 ns.
 ITEM_OVERHEAD = 400
 ITEM_PER_ENTRY = 20
-REFINED_CHART_ROWS = 16  # sentences per call of the refined chart pass (at 32 it ran 5-10%
+REFINED_CHART_ROWS = 16  # sentences per call of the refined chart pass (at 32 it ran 5-25%
                          # slower on the random benchmark grammars, whose posteriors keep all)
 ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass (about 100 bytes each)
 FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no chart pass)

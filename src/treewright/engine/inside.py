@@ -65,7 +65,8 @@ class Chart:
 
     def log_inside(self, start: int, width: int, b: int) -> Tensor:
         """(NT,) log inside scores of the nonterminals over one span (for samplers/tests)."""
-        return self.by_start[start, b, width, :self.num_nt].log() + self.scale_start[start, b, width]
+        return self.by_start[start, b, width, :self.num_nt].log() + \
+            self.scale_start[start, b, width]
 
     def log_term(self, pos: int, b: int) -> Tensor:
         """(T,) log scores of the preterminals over the word at `pos`."""
@@ -495,8 +496,8 @@ def _split_adjoints(g: Tensor, nn: Tensor, right: Tensor, left: Tensor, weight: 
     g (M, Q) is the adjoint of the product of the split sums with the rules; right and left
     (M, K, Q) the children and weight (M, K, 1) the split weights, as in `_split_products`. Adds
     the rules' gradient to grad_nn (unless it is None) and the children's adjoints to adj_left
-    and adj_right (views into the adjoint chart). Each chunk's weighted children and split sums are recomputed, and
-    its adjoints added, while they are in cache.
+    and adj_right (views into the adjoint chart). Each chunk's weighted children and split sums
+    are recomputed, and its adjoints added, while they are in cache.
     """
     M, K, Q = right.shape
     chunk = _chunk_rows(Q, nn)
