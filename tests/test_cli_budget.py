@@ -128,6 +128,27 @@ def test_parse_keeps_one_output_line_per_input_line(grammar, tmp_path, capsys):
     assert f"{text}, line 5: no parse" in captured.err
 
 
+@pytest.mark.parametrize("decoder", ["viterbi", "mbr", "max-rule-product"])
+def test_parse_gives_the_same_lines_whatever_the_batch_size(tmp_path, capsys, decoder):
+    # The default batch (32 through a rule tensor) against one sentence a call, with and
+    # without --scores (which alone computes the trees' log-probabilities): the same lines.
+    text = tmp_path / "in.txt"
+    text.write_text("\n".join([SENTENCE, "astronomers saw ears", "stars saw astronomers with "
+                               "stars", SENTENCE]) + "\n")
+    outputs = []
+    for batch in ([], ["--batch-size", "1"]):
+        for scores in ([], ["--scores"]):
+            assert main(["parse", str(TEXTBOOK), str(text), "--decoder", decoder,
+                         *batch, *scores]) == 0
+            outputs.append(capsys.readouterr().out.splitlines())
+    assert outputs[0] == outputs[2] and outputs[1] == outputs[3]
+    assert [line.split("\t")[0] for line in outputs[1]] == outputs[0]
+    if decoder == "viterbi":   # the worked example's most probable tree
+        assert outputs[0][0] == BEST_TREE and outputs[0][3] == BEST_TREE
+    assert main(["parse", str(TEXTBOOK), str(text), "--batch-size", "0"]) == 1
+    assert "--batch-size must be at least 1, not 0" in capsys.readouterr().err
+
+
 def test_parse_from_stdin_keeps_blank_lines(tmp_path, capsys, monkeypatch):
     monkeypatch.setattr("sys.stdin", io.StringIO(f"\n{SENTENCE}\n \n"))
     assert main(["parse", str(TEXTBOOK), "-"]) == 0

@@ -553,6 +553,7 @@ def test_decoding_without_tree_logprobs_leaves_only_them_out(decoder):
         with pytest.raises(ValueError, match="tree_logprobs=True"):
             b.posterior
 
+
 def test_unparseable_sentence_is_reported_not_dropped():
     g = make_grammar(["A"], ["P"], 2, seed=0)
     g.lexical[1, 1] = -math.inf  # the only preterminal can no longer emit w1
