@@ -98,7 +98,7 @@ from treewright.inference import encode
 from treewright.runfolder import RunFolder
 from treewright.train import load_train_config, train
 from treewright.train.estep import compound_span_posteriors, make_batch
-from treewright.word_pieces import barred_positions, held_at_end, piece_joins, piece_mask
+from treewright.word_pieces import held_at_end, piece_mask, sentence_barred
 
 REPO = Path(__file__).resolve().parents[1]
 CONFIGS = REPO / "configs"
@@ -243,8 +243,7 @@ def turkish_data(mode: str, dev_fraction: float, eval_max_length: int | None,
         keep = [i for i in idx if eval_max_length is None or len(tokens[i]) <= eval_max_length]
         return EvalSet(name, [tokens[i] for i in keep], [gold[i] for i in keep],
                        [heads[i] for i in keep],
-                       [barred_positions(piece_joins(written[i].words, written[i].joined,
-                                                     written[i].tags)) for i in keep])
+                       [sentence_barred(written[i]) for i in keep])
 
     dev = capped("web-dev", split.dev, web_tokens, web_gold, web_heads, web_written)
     wiki = capped("wiki", range(len(wiki_tokens)), wiki_tokens, wiki_gold, wiki_heads,

@@ -174,6 +174,12 @@ def barred_positions(joined: Sequence[bool] | None) -> list[int]:
     return [] if joined is None else [k for k, j in enumerate(joined) if j and k > 0]
 
 
+def sentence_barred(sentence) -> list[int]:
+    """`barred_positions` of a read sentence's `piece_joins` (its words, joins and tags: a
+    `corpus.Sentence`), as training makes them."""
+    return barred_positions(piece_joins(sentence.words, sentence.joined, sentence.tags))
+
+
 def cuts_piece(side: str, barred: Sequence[int] | set[int], start: int, end: int) -> bool:
     """Whether the span [start, end) is one the constraint forbids: two or more words that
     start at a barred position (side "first") or end just before one (side "last")."""

@@ -201,7 +201,7 @@ def _corpus_pieces(args, source, lexicalized: bool):
 
     from treewright.cli.common import piece_side
     from treewright.corpus import detect_format, read_records
-    from treewright.word_pieces import barred_positions, piece_joins
+    from treewright.word_pieces import sentence_barred
 
     records = None if args.corpus == "-" or detect_format(args.corpus) == "text" else \
         read_records(args.corpus)
@@ -209,7 +209,7 @@ def _corpus_pieces(args, source, lexicalized: bool):
                       records, False)
     if side is None:
         return None
-    barred = [barred_positions(piece_joins(s.words, s.joined, s.tags)) for s in records]
+    barred = [sentence_barred(s) for s in records]
     if not any(barred):
         if args.word_pieces != "auto":
             print(f"note: --word-pieces {args.word_pieces} has nothing to act on: "

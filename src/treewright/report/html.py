@@ -275,12 +275,12 @@ def parse_sentences(grammar, sentences: Sequence[Sentence], decoder: str,
     from treewright.budget import consensus_within_budget, decode_within_budget
     from treewright.decode import ENSEMBLE_DECODERS, is_treebank_grammar, treebank_tree
     from treewright.tracking import terminal_progress
-    from treewright.word_pieces import barred_positions, piece_joins
+    from treewright.word_pieces import sentence_barred
 
     tokens = [s.tokens for s in sentences]
     pieces = None
     if piece_side is not None:
-        barred = [barred_positions(piece_joins(s.words, s.joined, s.tags)) for s in sentences]
+        barred = [sentence_barred(s) for s in sentences]
         pieces = (piece_side, barred) if any(barred) else None
     freed: list[int] = []
     with terminal_progress(len(sentences), "report: parsing") as progress:

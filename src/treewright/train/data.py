@@ -24,7 +24,8 @@ from treewright.params import PARAMETERIZATIONS
 from treewright.trees import Tree
 from treewright.train.config import TrainConfig
 from treewright.train.distributed import StreamedCorpus
-from treewright.word_pieces import barred_positions, cuts_piece, host_side, piece_joins
+from treewright.word_pieces import (barred_positions, cuts_piece, host_side, piece_joins,
+                                     sentence_barred)
 
 
 @dataclass
@@ -121,8 +122,7 @@ def load_data(cfg: TrainConfig, bracket_source: BracketSource | None = None) -> 
         if bracket_source is None:
             raise ValueError("constraints.brackets_from needs a bracket source from the caller "
                              "(treewright.induce.trainer decodes the grammar it names)")
-        barred = [barred_positions(piece_joins(s.words, s.joined, s.tags))
-                  for s in train.sentences]
+        barred = [sentence_barred(s) for s in train.sentences]
         brackets, note = bracket_source([list(s.tokens) for s in train.sentences], barred)
         notes.append(note)
     dev_ids: list[list[int]] = []
