@@ -11,6 +11,7 @@ corpus with constraints.train_brackets) that must give the same grammar.
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import pytest
@@ -21,7 +22,7 @@ from test_consensus import SENTENCES, brute
 from test_train_fixtures import base_overrides
 from treewright.cli import main
 from treewright.config import ConfigError
-from treewright.decode import consensus, decode
+from treewright.decode import agreed_spans, consensus, decode
 from treewright.errors import InputError
 from treewright.export import open_restart_grammars
 from treewright.grammar import load_grammar
@@ -88,6 +89,83 @@ def test_brackets_from_a_run_with_restarts_are_the_consensus_of_its_restarts(sta
         disagreed += mbr[0][k].tree.to_string() != mbr[1][k].tree.to_string()
     assert disagreed >= 1                     # so the consensus is not one restart's trees
     assert any("consensus of its restarts" in n for n in data.notes)
+
+
+def _binary_trees(i: int, j: int) -> list[frozenset[tuple[int, int]]]:
+    """Every binary tree over words [i, j), as its spans of width >= 2 (the whole included)."""
+    if j - i == 1:
+        return [frozenset()]
+    return [left | right | {(i, j)} for k in range(i + 1, j)
+            for left in _binary_trees(i, k) for right in _binary_trees(k, j)]
+
+
+def test_agreed_spans_by_hand():
+    # Three trees of four words: ((0 1) 2) 3, (0 1) (2 3), 0 ((1 2) 3).
+    trees = [[(0, 2), (0, 3), (0, 4)], [(0, 2), (2, 4), (0, 4)], [(1, 3), (1, 4), (0, 4)]]
+    assert agreed_spans(trees, 2 / 3) == [(0, 2), (0, 4)]
+    assert agreed_spans(trees, 0.6) == [(0, 2), (0, 4)]
+    assert agreed_spans(trees, 1.0) == [(0, 4)]
+    assert agreed_spans(trees[:1], 1.0) == sorted(trees[0])
+    for bad in (0.5, 0.2, 1.01):
+        with pytest.raises(ValueError):
+            agreed_spans(trees, bad)
+
+
+def test_spans_most_trees_share_never_cross():
+    # Reference: brute-force enumeration of every binary tree of five words (14) and every
+    # triple of them; above one half of the trees, two kept spans share a tree, so they are
+    # nested or apart (a fact the option's promise rests on). At one half they can cross.
+    trees = _binary_trees(0, 5)
+    assert len(trees) == 14                   # the Catalan number C4
+
+    def crossing(spans):
+        return any(a < c < b < d for a, b in spans for c, d in spans)
+
+    for triple in itertools.product(trees, repeat=3):
+        assert not crossing(agreed_spans([sorted(t) for t in triple], 0.6))
+    assert any(crossing(sorted(a | b)) for a in trees for b in trees)
+
+
+def test_brackets_from_with_agreement_keeps_what_the_restarts_share(staged_source, tmp_path):
+    # Reference: each restart grammar's own mbr trees (the mbr decoder, checked against
+    # brute-force enumeration in tests/test_decode.py). With two restarts any agreement above
+    # one half asks for both, so the brackets are the spans their trees share.
+    run, train_path = staged_source
+    grammars = [s.grammar for s in open_restart_grammars(run)]
+    sentences = [line.lower().split() for line in train_path.read_text().splitlines()]
+    mbr = [decode(g, sentences, "mbr") for g in grammars]
+    fewer = 0
+    for agreement in ("0.6", "1"):
+        cfg = _config(tmp_path, train_path, f"constraints.brackets_from={run}",
+                      "data.lowercase=true", f"constraints.brackets_agreement={agreement}")
+        data = load_data(cfg, grammar_brackets(cfg))
+        for k, (words, got) in enumerate(zip(sentences, data.brackets)):
+            n = len(words)
+            shared = set.intersection(*[
+                {(i, j) for i, j, _ in d[k].tree.labeled_spans() if j - i >= 2 and j - i < n}
+                for d in mbr])
+            assert got == sorted(shared)
+            fewer += len(got) < max(n - 2, 0)
+        assert any("of its 2 restarts' mbr trees" in n for n in data.notes)
+    assert fewer >= 2   # the restarts disagree somewhere, so fewer than a whole tree's brackets
+
+
+def test_brackets_agreement_needs_a_source_with_restarts(tmp_path):
+    path = tmp_path / "g.pcfg"
+    random_grammar(2, 2, 3, seed=21).save(path)
+    train_path = _text(tmp_path, SENTENCES)
+    with pytest.raises(ConfigError) as err:
+        _config(tmp_path, train_path, "constraints.brackets_agreement=0.75")
+    assert "constraints.brackets_agreement" in str(err.value)
+    with pytest.raises(ConfigError) as err:
+        _config(tmp_path, train_path, f"constraints.brackets_from={path}",
+                "constraints.brackets_agreement=0.5")
+    assert "constraints.brackets_agreement" in str(err.value)
+    cfg = _config(tmp_path, train_path, f"constraints.brackets_from={path}",
+                  "constraints.brackets_agreement=0.75")
+    with pytest.raises(InputError) as err:
+        grammar_brackets(cfg)
+    assert "constraints.brackets_agreement" in str(err.value) and "g.pcfg" in str(err.value)
 
 
 def test_a_source_trained_on_other_data_options_is_refused_by_name(staged_source, tmp_path):

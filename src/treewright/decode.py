@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import functools
 import math
+from collections import Counter
 from dataclasses import dataclass
 from typing import Callable, Sequence
 
@@ -140,6 +141,23 @@ def tree_average(trees: Sequence[Sequence[tuple[int, int]]], length: int
     (`mbr_spans`). Each tree votes once, unlike averaging span posteriors, where one confident
     grammar can outvote the others. Returns spans as `mbr_spans` does."""
     return tree_average_batch([trees], [length])[0]
+
+
+def agreed_spans(trees: Sequence[Sequence[tuple[int, int]]], agreement: float
+                 ) -> list[tuple[int, int]]:
+    """The spans that at least `agreement` (above 1/2, at most 1) of `trees` (each the spans of
+    one binary tree over the same words, e.g. several restarts' MBR trees) contain, sorted.
+    Above one half, two kept spans share a tree, so they never cross: the result is the
+    bracketing of some binary tree, usually not a whole one. ValueError for an agreement
+    outside (1/2, 1] or no trees."""
+    if not 0.5 < agreement <= 1:
+        raise ValueError(f"agreement must be above 1/2 and at most 1, got {agreement}")
+    if not trees:
+        raise ValueError("no trees to agree")
+    votes = Counter(span for tree in trees for span in set(tree))
+    # A count must reach the fraction of the trees; the tolerance keeps 2/3 of 3 at 2.
+    need = agreement * len(trees) - 1e-9
+    return sorted(span for span, count in votes.items() if count >= need)
 
 
 def tree_average_batch(trees: Sequence[Sequence[Sequence[tuple[int, int]]]],

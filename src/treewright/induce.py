@@ -26,8 +26,8 @@ import torch
 from torch import Tensor
 
 from treewright.corpus import run_read_options
-from treewright.decode import (HeadedParse, consensus, decode, decode_heads, mbr_spans,
-                               under_pieces)
+from treewright.decode import (HeadedParse, agreed_spans, consensus, decode, decode_heads,
+                               mbr_spans, under_pieces)
 from treewright.errors import InputError
 from treewright.evaluation import evaluate_brackets, spans_to_tree
 from treewright.export.lexical import DEFAULT_PAIRS, LexicalSummary, lexical_summary
@@ -96,8 +96,10 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
     """The bracket source of `constraints.brackets_from` (None when it is unset): the trees of
     the training sentences under the run or grammar it names, by the decoder `parse` would use
     for brackets (the consensus of the restarts of a run that saved two or more, else mbr),
-    each reduced to its partial brackets (`tree_brackets`). A sentence without a parse gets
-    none and trains unconstrained; one longer than the memory budget allows (which does not
+    each reduced to its partial brackets (`tree_brackets`). With
+    `constraints.brackets_agreement`, each restart's mbr tree instead, and the brackets that
+    fraction of them share (`decode.agreed_spans`; InputError for a source with fewer than two
+    restarts). A sentence without a parse gets none and trains unconstrained; one longer than the memory budget allows (which does not
     train) is not decoded; the note says how many of each.
 
     The words must reach the source grammar as its own training read them, so a source that
@@ -124,9 +126,17 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
                     f"{getattr(ours, field)!r}; train both with the same data options",
                     path=str(source.grammar_path))
     restarts = saved_restarts(source)
+    agreement = cfg.constraints.brackets_agreement
+    if agreement is not None and restarts < 2:
+        raise InputError("constraints.brackets_agreement: the bracket source saved "
+                         f"{restarts} restart{'s' if restarts != 1 else ''}; agreement needs "
+                         "two or more (train it with train.restarts >= 2, or leave "
+                         "constraints.brackets_agreement null)", path=str(path))
     grammars = [source.grammar] if restarts < 2 else [
         s.grammar for s in open_restart_grammars(path, "constraints.brackets_from")]
-    decoder = "the consensus of its restarts" if restarts >= 2 else "mbr"
+    decoder = "mbr" if restarts < 2 else "the consensus of its restarts" if agreement is None \
+        else f"the brackets shared by at least {agreement:.0%} of its {restarts} restarts' mbr " \
+        "trees"
     # Sentences the trainer sets aside for its memory budget never train, so they are not
     # decoded either (a long one could take more memory than the budget allows).
     longest = MemoryBudget(cfg, _dtype(cfg)).max_length
@@ -145,16 +155,28 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
             return consensus(grammars, group, pieces=pieces) if len(grammars) >= 2 \
                 else decode(grammars[0], group, "mbr", pieces=pieces, tree_logprobs=False)
 
-        with terminal_progress(len(todo), "brackets") as progress:
+        def voter(grammar):
+            return lambda group, pieces: decode(grammar, group, "mbr", pieces=pieces,
+                                                tree_logprobs=False)
+
+        # With an agreement, each restart's mbr trees vote (those of a restart that parses the
+        # sentence), and a sentence keeps the brackets enough of them share.
+        votes: list[list[list[tuple[int, int]]]] = [[] for _ in sentences]
+        with terminal_progress(len(todo) * (1 if agreement is None else len(grammars)),
+                               "brackets") as progress:
             for start in range(0, len(todo), BRACKET_CHUNK):
                 part = todo[start:start + BRACKET_CHUNK]
                 group = [sentences[i] for i in part]
-                parsed, _ = under_pieces(parse, group, (side, [barred[i] for i in part])
-                                         if pieced else None)
-                for i, d in zip(part, parsed):
-                    trees[i] = d.tree
-                progress.update(len(group))
-        brackets = [[] if t is None else tree_brackets(t) for t in trees]
+                group_pieces = (side, [barred[i] for i in part]) if pieced else None
+                for run in [parse] if agreement is None else [voter(g) for g in grammars]:
+                    parsed, _ = under_pieces(run, group, group_pieces)
+                    for i, d in zip(part, parsed):
+                        if d.tree is not None:
+                            trees[i] = d.tree
+                            votes[i].append(tree_brackets(d.tree))
+                    progress.update(len(group))
+        brackets = [[] if t is None else tree_brackets(t) if agreement is None
+                    else agreed_spans(votes[k], agreement) for k, t in enumerate(trees)]
         unparsed = len(todo) - sum(trees[i] is not None for i in todo)
         note = (f"partial brackets from {source.grammar_path} ({decoder}"
                 + (f", under the word-piece constraint it held, host {side}" if pieced else "")

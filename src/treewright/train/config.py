@@ -203,6 +203,12 @@ class ConstraintsConfig:
               "cuts a bound piece is left out while this run applies the constraint). Staged "
               "induction: the first model finds the constituents; this one learns what they "
               "leave open, such as the head of each constituent in a lexicalized model.")
+    brackets_agreement: float | None = option(
+        None, "With constraints.brackets_from naming a run that saved two or more restarts: "
+              "keep only the brackets that at least this fraction of the restarts' mbr trees "
+              "share (above 1/2, so that no two cross), instead of every bracket of their "
+              "consensus tree; where the restarts disagree, this run chooses the tree. null: "
+              "the consensus tree's brackets.", range="(0.5, 1]")
     brackets_epochs: int | None = option(
         None, "Apply the brackets (constraints.train_brackets or constraints.brackets_from) "
               "for this many epochs of each restart, then train without them. null: the "
@@ -400,6 +406,10 @@ def check_combinations(cfg: TrainConfig, source: str | None = None) -> None:
     if cfg.data.stream_chunk is not None and c.brackets_from is not None:
         bad("constraints.brackets_from", "partial brackets need the whole corpus in memory; "
                                          "leave data.stream_chunk null")
+    if c.brackets_agreement is not None and c.brackets_from is None:
+        bad("constraints.brackets_agreement", "there is no bracket source to agree: set "
+                                              "constraints.brackets_from to a run with "
+                                              "restarts")
     if c.brackets_epochs is not None and not c.train_brackets and c.brackets_from is None:
         bad("constraints.brackets_epochs", "there are no brackets to apply: set "
                                            "constraints.train_brackets or "
