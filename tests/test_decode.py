@@ -689,6 +689,7 @@ def test_factored_decoders_equal_theirs_on_the_implied_dense_grammar(monkeypatch
     if depth is not None:
         monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
         monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
+        monkeypatch.setattr(maxplus, "CANDIDATE_SHARE", 1.0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
     rules = _factored_rules(kind, 4, 5, 5, 6, 2.0, seed=4, dtype=torch.float64)
     vocab = Vocabulary([f"w{i}" for i in range(5)], unk=None)
@@ -723,6 +724,7 @@ def test_factored_max_rule_product_in_float32_finds_the_float64_trees(monkeypatc
     # grammar, in float32.
     monkeypatch.setattr(maxplus, "TOP_COLUMNS", depth)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
+    monkeypatch.setattr(maxplus, "CANDIDATE_SHARE", 1.0)
     from treewright.params.tabular import rules_to_grammar, symbol_names
     rules = _factored_rules(kind, 6, 8, 6, 10, 3.0, seed=8, dtype=torch.float32)
     vocab = Vocabulary([f"w{i}" for i in range(6)], unk=None)

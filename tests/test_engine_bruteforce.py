@@ -84,6 +84,7 @@ def test_viterbi_in_small_chunks_over_a_batch_matches_enumeration(monkeypatch, n
     monkeypatch.setattr(maxplus, "TOP_COLUMNS", top)
     monkeypatch.setattr(maxplus, "DENSE_SHARE", dense)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
+    monkeypatch.setattr(maxplus, "CANDIDATE_SHARE", 1.0)
     grammar = random_grammar(2, 3, 4, seed=7, nt_emit=nt_emit)
     lengths = (4, 2, 3, 1) if nt_emit else (4, 2, 5, 3)  # one word: a tree only if NTs emit
     sentences = [_sentence(grammar, n, seed=20 + n) for n in lengths]

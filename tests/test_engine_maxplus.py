@@ -25,6 +25,8 @@ def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense,
     monkeypatch.setattr(maxplus, "BROADCAST", 2 ** 8)
     monkeypatch.setattr(maxplus, "DENSE_SHARE", dense)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)     # the bounds even for this small product
+    monkeypatch.setattr(maxplus, "CANDIDATE_SHARE", 1.0)  # ... and for candidates of any share
+    monkeypatch.setattr(maxplus, "PROBE_ROWS", 3)          # a first chunk smaller than the rest
     gen = torch.Generator().manual_seed(11)
     M, R, K = shape
     values = torch.randn(M, K, generator=gen, dtype=torch.float64) * \
