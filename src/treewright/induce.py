@@ -99,8 +99,9 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
     each reduced to its partial brackets (`tree_brackets`). With
     `constraints.brackets_agreement`, each restart's mbr tree instead, and the brackets that
     fraction of them share (`decode.agreed_spans`; InputError for a source with fewer than two
-    restarts). A sentence without a parse gets none and trains unconstrained; one longer than the memory budget allows (which does not
-    train) is not decoded; the note says how many of each.
+    restarts). A sentence without a parse gets none and trains unconstrained; one longer than
+    the memory budget allows (which does not train) is not decoded; the note says how many of
+    each.
 
     The words must reach the source grammar as its own training read them, so a source that
     records its training config (a run folder or JSON export) must have read the corpus with

@@ -40,17 +40,11 @@ def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
     preterminal is taken once per position rather than once per span: the per-span work of the
     block drops from NT * Y * T to NT * Y. The max is a max-plus product of the word scores
     with the rules, mostly over each word's best preterminals (`engine.maxplus`); which
-    preterminal won is found again for the few words of the best trees (`_word_preterminal`).
+    preterminal won is found again for the few words of the best trees (`_backtrace`).
     """
     Bt, N, T = term.shape
     weights = MaxPlusWeights(rules.reshape(-1, T))                      # (NT * Y, T)
     return max_plus(term.reshape(Bt * N, T), weights).view(Bt, N, *rules.shape[:2])
-
-
-def _word_preterminal(word: Tensor, rules: Tensor) -> int:
-    """The first preterminal z maximizing rules[z] + word[z] (the sum `_best_of_word` takes
-    the max of), both (T,)."""
-    return int((word + rules).argmax())
 
 
 def _best_beside_word(cell: Tensor, word_best: Tensor) -> Tensor:
@@ -133,6 +127,7 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             back[w] = (which, kinds)
 
     out: list[tuple[float, list[tuple[int, int, int]]] | None] = []
+    found: dict[int, tuple[float, int, int]] = {}   # sentence -> (score, length, top symbol)
     for b in range(B):
         n = int(lengths[b])
         if n == 1:
@@ -147,9 +142,13 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         if not torch.isfinite(score):
             out.append(None)
             continue
-        out.append((float(score), _backtrace(back, cells, b, n, int(sym), binary, terminal[b],
-                                             right_best if T else None,
-                                             left_best if T else None, min_w)))
+        found[b] = (float(score), n, int(sym))
+        out.append(None)
+    trees = _backtrace(back, cells, {b: (n, sym) for b, (_, n, sym) in found.items()},
+                       binary, terminal, right_best if T else None, left_best if T else None,
+                       min_w)
+    for b, (score, _, _) in found.items():
+        out[b] = (score, trees[b])
     return out
 
 
@@ -157,44 +156,67 @@ _PAIR, _WORD_RIGHT, _WORD_LEFT, _TWO_WORDS, _NONE = \
     "two constituents", "a word on the right", "a word on the left", "two words", "none"
 
 
-def _backtrace(back, cells, b: int, n: int, top: int, binary: Tensor, term: Tensor,
-               right_best: Tensor | None, left_best: Tensor | None, min_w: int
-               ) -> list[tuple[int, int, int]]:
-    """Sentence b's best tree: at each node, the block that won (`back`), then its split and
-    children found again from the same float sums the pass took the maxima of (first on ties,
-    as `max` and `argmax` take them: the first split of each child pair, then the first pair in
-    row-major order; the constituent's first symbol beside a word), a word child resolved to the
-    preterminal that won its max (`_word_preterminal`); term (N, T) its word scores."""
+def _backtrace(back, cells, tops: dict[int, tuple[int, int]], binary: Tensor,
+               terminal: Tensor, right_best: Tensor | None, left_best: Tensor | None,
+               min_w: int) -> dict[int, list[tuple[int, int, int]]]:
+    """The best trees of the sentences `tops` (sentence b -> (length, top symbol)): at each
+    node, the block that won (`back`), then its split and children found again from the same
+    float sums the pass took the maxima of (first on ties, as `max` and `argmax` take them:
+    the first split of each child pair, then the first pair in row-major order; the
+    constituent's first symbol beside a word), a word child resolved to the first preterminal
+    that won its max. A node's children are narrower than it, so the nodes of one width, of
+    every tree, are resolved at once, from the widest down, each block kind in one step.
+    terminal (B, N, T) the word scores. Returns each sentence's spans (start, end, symbol) in
+    pre-order."""
     NT = binary.shape[0]
-    spans = []
-    stack = [(0, n, top)]
-    while stack:
-        i, j, sym = stack.pop()
-        spans.append((i, j, sym))
-        w = j - i
-        if w == 1:
+    # Every node found and not yet resolved, (sentence, start, width, symbol) rows.
+    pool = [torch.tensor([[b, 0, n, sym] for b, (n, sym) in tops.items()],
+                         dtype=torch.long).view(-1, 4)]
+    nodes = []
+    for w in range(max((n for n, _ in tops.values()), default=0), 1, -1):
+        every = torch.cat(pool)
+        here = every[:, 2] == w
+        pool = [every[~here]]
+        b, i, _, sym = every[here].unbind(1)
+        if not len(b):
             continue
+        nodes.append(every[here])
         which, kinds = back[w]
-        kind = kinds[int(which[b, i, sym])]
-        if kind == _PAIR:
-            pairs = torch.stack([cells[u][b, i, :, None] + cells[w - u][b, i + u, None, :]
-                                 for u in range(min_w, w - min_w + 1)])   # (K, NT, NT)
-            pair_best, pair_split = pairs.max(0)
-            flat = int((pair_best.reshape(-1) + binary[sym, :NT, :NT].reshape(-1)).argmax())
-            y, z = flat // NT, flat % NT
-            u = int(pair_split.reshape(-1)[flat]) + min_w
-        elif kind == _WORD_RIGHT:
-            u = w - 1
-            y = int((cells[w - 1][b, i] + right_best[b, j - 1, sym, :NT]).argmax())
-            z = NT + _word_preterminal(term[j - 1], binary[sym, y, NT:])
-        elif kind == _WORD_LEFT:
-            u = 1
-            z = int((cells[w - 1][b, i + 1] + left_best[b, i, sym]).argmax())
-            y = NT + _word_preterminal(term[i], binary[sym, NT:, z])
-        else:                               # two words (a span with no block has no tree)
-            u = 1
-            y = NT + int((term[i] + right_best[b, i + 1, sym, NT:]).argmax())
-            z = NT + _word_preterminal(term[j - 1], binary[sym, y, NT:])
-        stack.append((i + u, j, z))
-        stack.append((i, i + u, y))
-    return spans
+        kind = which[b, i, sym]
+        for k, name in enumerate(kinds):
+            at = (kind == k).nonzero().flatten()
+            if not len(at):
+                continue
+            kb, ki, ks = b[at], i[at], sym[at]
+            if name == _PAIR:
+                us = torch.arange(min_w, w - min_w + 1)
+                left = torch.stack([cells[u][kb, ki] for u in us.tolist()], 1)   # (m, K, NT)
+                right = torch.stack([cells[w - u][kb, ki + u] for u in us.tolist()], 1)
+                pair_best, pair_split = (left[..., :, None] + right[..., None, :]).max(1)
+                flat = (pair_best.flatten(1) + binary[ks, :NT, :NT].flatten(1)).argmax(1)
+                y, z = flat // NT, flat % NT
+                u = us[pair_split.flatten(1).gather(1, flat[:, None]).squeeze(1)]
+            elif name == _WORD_RIGHT:
+                u = torch.full_like(kb, w - 1)
+                y = (cells[w - 1][kb, ki] + right_best[kb, ki + w - 1, ks, :NT]).argmax(1)
+                z = NT + (terminal[kb, ki + w - 1] + binary[ks, y, NT:]).argmax(1)
+            elif name == _WORD_LEFT:
+                u = torch.ones_like(kb)
+                z = (cells[w - 1][kb, ki + 1] + left_best[kb, ki, ks]).argmax(1)
+                y = NT + (terminal[kb, ki] + binary[ks, NT:, z]).argmax(1)
+            else:                           # two words (a span with no block has no tree)
+                u = torch.ones_like(kb)
+                y = NT + (terminal[kb, ki] + right_best[kb, ki + 1, ks, NT:]).argmax(1)
+                z = NT + (terminal[kb, ki + 1] + binary[ks, y, NT:]).argmax(1)
+            pool.append(torch.stack([kb, ki, u, y], 1))
+            pool.append(torch.stack([kb, ki + u, w - u, z], 1))
+    nodes.extend(pool)                      # what is left spans one word each
+    out: dict[int, list[tuple[int, int, int]]] = {b: [] for b in tops}
+    every = torch.cat(nodes)
+    if len(every):
+        # Pre-order: by sentence, then start, then the wider span first.
+        sb, si, sw = every[:, 0], every[:, 1], every[:, 2]
+        m = int(sw.max()) + 1
+        for b, i, w, x in every[torch.argsort((sb * m + si) * m + (m - 1 - sw))].tolist():
+            out[b].append((i, i + w, x))
+    return out
