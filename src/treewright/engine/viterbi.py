@@ -101,9 +101,13 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             options, kinds = [], []   # each (B, P, NT)
             lo, hi = min_w, w - min_w
             if hi >= lo:
-                pairs = torch.stack([cells[u][:, 0:P, :, None] + cells[w - u][:, u:u + P, None, :]
-                                     for u in range(lo, hi + 1)], 2)   # (B, P, K, NT, NT)
-                options.append(_best_children(pairs.amax(2), r_nn))
+                # The best split of each child pair, kept as a running maximum (B, P, NT, NT)
+                # rather than every split's sums at once.
+                pairs = cells[lo][:, 0:P, :, None] + cells[w - lo][:, lo:lo + P, None, :]
+                for u in range(lo + 1, hi + 1):
+                    torch.maximum(pairs, cells[u][:, 0:P, :, None] +
+                                  cells[w - u][:, u:u + P, None, :], out=pairs)
+                options.append(_best_children(pairs, r_nn))
                 kinds.append(_PAIR)
             # Blocks with a preterminal child exist only when there are preterminals: a general
             # CNF grammar may have none (T = 0), and a max over an empty block is an error.
