@@ -149,7 +149,6 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
     def brackets_of(sentences: list[list[str]], barred: list[list[int]] | None = None
                     ) -> tuple[list[list[tuple[int, int]]], str]:
         todo = [i for i, s in enumerate(sentences) if len(s) <= longest]
-        trees: list[Tree | None] = [None] * len(sentences)
         pieced = side is not None and barred is not None and any(barred)
 
         def parse(group, pieces):
@@ -160,8 +159,8 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
             return lambda group, pieces: decode(grammar, group, "mbr", pieces=pieces,
                                                 tree_logprobs=False)
 
-        # With an agreement, each restart's mbr trees vote (those of a restart that parses the
-        # sentence), and a sentence keeps the brackets enough of them share.
+        # The brackets of each sentence's tree: the consensus (or the one grammar's mbr tree),
+        # or with an agreement each restart's mbr tree that parses it, which then vote.
         votes: list[list[list[tuple[int, int]]]] = [[] for _ in sentences]
         with terminal_progress(len(todo) * (1 if agreement is None else len(grammars)),
                                "brackets") as progress:
@@ -173,12 +172,11 @@ def grammar_brackets(cfg: TrainConfig) -> BracketSource | None:
                     parsed, _ = under_pieces(run, group, group_pieces)
                     for i, d in zip(part, parsed):
                         if d.tree is not None:
-                            trees[i] = d.tree
                             votes[i].append(tree_brackets(d.tree))
                     progress.update(len(group))
-        brackets = [[] if t is None else tree_brackets(t) if agreement is None
-                    else agreed_spans(votes[k], agreement) for k, t in enumerate(trees)]
-        unparsed = len(todo) - sum(trees[i] is not None for i in todo)
+        brackets = [[] if not v else v[0] if agreement is None else agreed_spans(v, agreement)
+                    for v in votes]
+        unparsed = sum(not votes[i] for i in todo)
         note = (f"partial brackets from {source.grammar_path} ({decoder}"
                 + (f", under the word-piece constraint it held, host {side}" if pieced else "")
                 + f"): {sum(map(len, brackets))} over {len(brackets)} sentences")
