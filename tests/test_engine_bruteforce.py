@@ -80,7 +80,6 @@ def test_viterbi_in_small_chunks_over_a_batch_matches_enumeration(monkeypatch, n
     # chunk after the first goes through every column. Reference: brute-force enumeration of
     # every tree of each sentence.
     monkeypatch.setattr(maxplus, "CHUNK", 1)
-    monkeypatch.setattr(maxplus, "BROADCAST", 1)
     monkeypatch.setattr(maxplus, "TOP_COLUMNS", top)
     monkeypatch.setattr(maxplus, "DENSE_SHARE", dense)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)

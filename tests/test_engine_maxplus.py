@@ -19,10 +19,9 @@ def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense,
     # mix peaked and flat ones, rows that are -inf throughout or in places, weights of
     # probability zero, and exact ties between two columns; `dense` 0 sends every chunk after
     # the first through every column, 1 never. Shapes: weights with fewer rows than columns
-    # (the dense mode broadcasts) and with more (it loops over the columns).
+    # and with more.
     shipped = maxplus.BOUNDED_FROM
     monkeypatch.setattr(maxplus, "CHUNK", 2 ** 9)
-    monkeypatch.setattr(maxplus, "BROADCAST", 2 ** 8)
     monkeypatch.setattr(maxplus, "DENSE_SHARE", dense)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)     # the bounds even for this small product
     monkeypatch.setattr(maxplus, "CANDIDATE_SHARE", 1.0)  # ... and for candidates of any share
@@ -42,6 +41,5 @@ def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense,
     want = (values[:, None, :] + weights[None]).amax(-1)
     got = maxplus.max_plus(values, maxplus.MaxPlusWeights(weights), depth)
     assert torch.equal(got, want)
-    assert maxplus._by_columns(maxplus.MaxPlusWeights(weights)) == (R > K)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", shipped)   # as shipped: every column at once
     assert torch.equal(maxplus.max_plus(values, maxplus.MaxPlusWeights(weights), depth), want)

@@ -14,14 +14,13 @@ from __future__ import annotations
 
 import functools
 
+import numpy as np
 import torch
 from torch import Tensor
 
 NEG_INF = float("-inf")
 
 CHUNK = 2 ** 22        # elements of the largest temporary of `max_plus`
-BROADCAST = 2 ** 21    # ... of a broadcast over every column (8 MB in float32: faster than 16 MB
-                       # on the 2-core machine, at 3.5 billion sums a second)
 TOP_COLUMNS = 24       # candidate columns per value row
 DENSE_SHARE = 0.2      # share of entries left unsettled above which `max_plus` goes dense
 BOUNDED_FROM = 2 ** 23  # sums over every column (M * K * R) below which `max_plus` takes them
@@ -50,24 +49,55 @@ class MaxPlusWeights:
         return self.log.exp().t().contiguous()
 
 
-def _by_columns(weights: MaxPlusWeights) -> bool:
-    """Whether `_every_column` loops over the columns (R > K) rather than broadcasting."""
-    K, R = weights.by_column.shape
-    return R > K
+@functools.cache
+def _column_kernel():
+    """The compiled loop of `_every_column` (numba, compiled on first use, per dtype)."""
+    import numba
+
+    @numba.njit(nogil=True)
+    def every_column(values, rows, by_column, out):                    # pragma: no cover
+        # Four value rows at a time share each weight column's load; their maxima stay in
+        # `acc` (4, R). A column that is -inf in all four changes no maximum and is skipped.
+        K, R = by_column.shape
+        n = len(rows)
+        acc = np.empty((4, R), dtype=out.dtype)
+        for g in range(0, n, 4):
+            m0, m1, m2, m3 = rows[g], rows[min(g + 1, n - 1)], rows[min(g + 2, n - 1)], \
+                rows[min(g + 3, n - 1)]        # past the last row, the last again
+            acc[:] = -np.inf
+            for k in range(K):
+                a0, a1, a2, a3 = values[m0, k], values[m1, k], values[m2, k], values[m3, k]
+                if a0 == -np.inf and a1 == -np.inf and a2 == -np.inf and a3 == -np.inf:
+                    continue
+                w = by_column[k]
+                for r in range(R):
+                    x = w[r]
+                    s = a0 + x
+                    if s > acc[0, r]:
+                        acc[0, r] = s
+                    s = a1 + x
+                    if s > acc[1, r]:
+                        acc[1, r] = s
+                    s = a2 + x
+                    if s > acc[2, r]:
+                        acc[2, r] = s
+                    s = a3 + x
+                    if s > acc[3, r]:
+                        acc[3, r] = s
+            for j in range(min(4, n - g)):
+                out[rows[g + j]] = acc[j]
+    return every_column
 
 
-def _every_column(own: Tensor, weights: MaxPlusWeights) -> Tensor:
-    """(c, R) max over every column k of own[m, k] + weights[r, k]: a broadcast reduced over
-    k when rows of weights are long, else K elementwise maxima over (c, R), which ran several
-    times faster than a reduction over a short last axis (the word blocks of `engine.viterbi`:
-    K = T preterminals, R = NT * S)."""
-    K = weights.by_column.shape[0]
-    if not _by_columns(weights):
-        return (own[:, None, :] + weights.log[None]).amax(-1)
-    out = torch.add(weights.by_column[0], own[:, :1])
-    for k in range(1, K):
-        torch.maximum(out, weights.by_column[k] + own[:, k:k + 1], out=out)
-    return out
+def _every_column(values: Tensor, rows: Tensor, weights: MaxPlusWeights, out: Tensor) -> None:
+    """out[m, r] = max over every column k of values[m, k] + weights[r, k], for each m in
+    `rows`: K elementwise maxima over each row of `out`, in a compiled loop (numba) that keeps
+    the rows' maxima in cache. The float sums are those of the broadcast
+    (values[m, k] + weights[r, k], the same order), so the maxima are bitwise the same."""
+    if not values.is_contiguous():
+        values = values.contiguous()
+    _column_kernel()(values.detach().numpy(), rows.numpy(), weights.by_column.numpy(),
+                     out.numpy())
 
 
 def max_plus(values: Tensor, weights: MaxPlusWeights, depth: int | None = None) -> Tensor:
@@ -96,23 +126,21 @@ def max_plus(values: Tensor, weights: MaxPlusWeights, depth: int | None = None) 
     chunks of at most `CHUNK` elements."""
     M, R = values.shape[0], weights.log.shape[0]
     K = values.shape[1]
+    if values.dtype != weights.log.dtype:
+        raise ValueError(f"max_plus: values are {values.dtype} and weights "
+                         f"{weights.log.dtype}; give both in one dtype")
     best = torch.full((M, R), NEG_INF, dtype=values.dtype)
     rows = torch.isfinite(values).any(-1).nonzero().flatten()
     d = min(TOP_COLUMNS if depth is None else depth, K)
     info = torch.finfo(values.dtype)
     rounding, lost = (K + 2) * info.eps, K * info.tiny
     chunk = max(1, CHUNK // (R * max(d, K // 16)))
-    # Rows per dense chunk: the broadcast's (c, R, K) temporary, or the loop's (c, R) maxima,
-    # which should stay in cache across the K passes.
-    dense_chunk = max(1, BROADCAST // (R * (16 if _by_columns(weights) else K)))
     dense = len(rows) * K * R < BOUNDED_FROM or d > CANDIDATE_SHARE * K
     r0 = 0
     while r0 < len(rows):
         if dense:
-            at = rows[r0:r0 + dense_chunk]
-            best[at] = _every_column(values.index_select(0, at), weights)
-            r0 += len(at)
-            continue
+            _every_column(values, rows[r0:], weights, best)
+            break
         at = rows[r0:r0 + (min(chunk, PROBE_ROWS) if r0 == 0 else chunk)]
         r0 += len(at)
         own = values.index_select(0, at)                                # (c, K)
