@@ -348,6 +348,31 @@ def test_known_tree_floor_is_the_best_labeling_of_the_mbr_bracketing(monkeypatch
         assert float(one[b]) <= float(every[b]) + 1e-12 and math.isfinite(float(one[b]))
 
 
+def test_unrefined_chart_cost_counts_the_viterbi_pass_enumerated():
+    # Reference: the max-semiring pass's work counted span by span and split by split, as
+    # engine.viterbi does it: per span of two or more words NT**3 rule maxima over the child
+    # pairs, per split NT**2 pair sums; per word the two blocks with a word child, NT * S * T
+    # each. An unrefined grammar's chart pass takes no floor, so its cost is the whole chart's.
+    nt, t = 4, 5
+    grammar = random_grammar(nt, t, 3, seed=3)
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    assert layout.slots.shape[1] == 1
+    lengths = torch.tensor([1, 2, 5, 9])
+    want = []
+    for n in lengths.tolist():
+        count = 2 * nt * (nt + t) * t * n
+        for i, j in itertools.combinations(range(n + 1), 2):
+            if j - i >= 2:
+                count += nt ** 3 + (j - i - 1) * nt ** 2
+        want.append(decode_module.VITERBI_UNIT * count)
+    got = decode_module._viterbi_cost(lengths, layout)
+    assert got.tolist() == [round(x) for x in want]
+    start, width = torch.arange(10)[:, None], torch.arange(10)[None, :]
+    kept = ((width >= 1) & (start + width <= lengths[:, None, None]))[..., None].expand(
+        -1, -1, -1, nt + t)                                  # every labeled span kept
+    assert torch.equal(decode_module._pass_costs(kept, layout, lengths)[1], got)
+
+
 # ITEM_OVERHEAD values that force each floored pass wherever a floor is set (the chart pass
 # leaves to the item pass only a batch with no anchored rule at all).
 PATHS = {"items": -10 ** 9, "chart": 10 ** 12}

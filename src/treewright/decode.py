@@ -494,7 +494,7 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     # taken where the floor per word leaves many rules and where the item pass could then be
     # the cheaper one.
     kept_labels = _kept_labels(bound, n, lay.num_parents, floor)
-    costs = _pass_costs(kept_labels, lay)
+    costs = _pass_costs(kept_labels, lay, n)
     finite = torch.isfinite(floor)
     rules, chart = int(costs[0][finite].sum()), int(costs[1][finite].sum())
     known = None   # the kept labels and costs under the floor per word, unless it is raised
@@ -751,7 +751,7 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     bound = coarse_log if bound is None else bound
     if known is None:
         kept = _kept_labels(bound, n, lay.num_parents, floor)
-        rules, chart = _pass_costs(kept, lay)
+        rules, chart = _pass_costs(kept, lay, n)
     else:
         kept, rules, chart = known
     finite = torch.isfinite(floor)
@@ -833,11 +833,13 @@ def _splits(widths: Tensor) -> tuple[Tensor, Tensor]:
     return of, torch.arange(len(of)) - (count.cumsum(0) - count)[of] + 1
 
 
-def _pass_costs(kept: Tensor, lay: CoarseLayout) -> tuple[Tensor, Tensor]:
+def _pass_costs(kept: Tensor, lay: CoarseLayout, lengths: Tensor) -> tuple[Tensor, Tensor]:
     """Per sentence, the number of anchored coarse rules among the kept labeled spans `kept`
     (B, N+1, N+1, K) (the item pass's work: parent, split, left and right child all kept) and
-    the chart pass's multiply-adds over the kept (span, coarse parent) pairs (its folding of
-    the outside, G**3 K**2, and its sums over subcategories, K**2 G (G + 1) a split)."""
+    the chart pass's cost in multiply-adds of the refined chart pass: over the kept (span,
+    coarse parent) pairs, its folding of the outside, G**3 K**2, and its sums over
+    subcategories, K**2 G (G + 1) a split; on an unrefined grammar (G = 1), which takes no
+    floor, the max-semiring pass over the whole chart (`_viterbi_cost`)."""
     K, G = lay.slots.shape
     B = kept.shape[0]
     cell_count = kept.sum(-1)                                            # (B, N+1, N+1)
@@ -848,9 +850,30 @@ def _pass_costs(kept: Tensor, lay: CoarseLayout) -> tuple[Tensor, Tensor]:
     b, i, w = cb[of], ci[of], cw[of]
     pairs = cell_count[b, i, u] * cell_count[b, i + u, w - u] * parent_count[b, i, w]
     rules = torch.zeros(B, dtype=torch.long).index_add(0, b, pairs)
+    if G == 1:
+        return rules, _viterbi_cost(lengths, lay)
     per_pair = G ** 3 * K ** 2 + (cw - 1) * K ** 2 * G * (G + 1)
     chart = torch.zeros(B, dtype=torch.long).index_add(0, cb, parent_count[cb, ci, cw] * per_pair)
     return rules, chart
+
+
+# The max-semiring pass's cost per max-add (`_viterbi_cost`), in multiply-adds of the refined
+# chart pass. Measured on the 2-core development machine (one thread, float64, 2026-12-05):
+# 0.2-0.4 ns a max-add on unrefined grammars of 20/30 to 60/120 symbols, against 0.3-0.7 ns for
+# the refined pass's multiply-adds (`ITEM_OVERHEAD`).
+VITERBI_UNIT = 0.5
+
+
+def _viterbi_cost(lengths: Tensor, lay: CoarseLayout) -> Tensor:
+    """(B,) the cost of `engine.viterbi` over whole sentences of these lengths, in multiply-adds
+    of the refined chart pass (`VITERBI_UNIT` each): per span of width w, the best split of
+    each pair of nonterminal children, (w - 1) NT**2, and the rules over those pairs, NT**3;
+    per word, the blocks with a word child, 2 NT S T (S = NT + T symbols). Summed over the
+    spans: NT**3 n(n-1)/2 + NT**2 (n**3 - n)/6."""
+    nt, s = lay.num_parents, lay.slots.shape[0]
+    n = lengths.to(torch.float64)
+    count = nt ** 3 * n * (n - 1) / 2 + nt ** 2 * (n ** 3 - n) / 6 + 2 * nt * s * (s - nt) * n
+    return (VITERBI_UNIT * count).round().to(torch.long)
 
 
 def _work_items(parent_log_mu: Tensor, floor: Tensor | None
