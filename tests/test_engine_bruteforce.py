@@ -12,7 +12,6 @@ from scipy.stats import chisquare
 from _brute import summary
 from _grammars import random_grammar
 from treewright import engine
-from treewright.engine import maxplus
 from treewright.inference import encode, tree_logprob, spans_to_tree
 from treewright.engine.reference import reference_inside
 
@@ -69,21 +68,13 @@ def test_batched_sentences_of_different_lengths_match_one_at_a_time():
         assert float(batch[k]) == pytest.approx(summary(grammar, words)["logz"], rel=1e-10)
 
 
-@pytest.mark.parametrize("top,dense", [(1, 1.0), (1, 0.0), (64, 1.0)])
 @pytest.mark.parametrize("nt_emit", [False, True])
-def test_viterbi_in_small_chunks_over_a_batch_matches_enumeration(monkeypatch, nt_emit, top,
-                                                                   dense):
+def test_viterbi_over_a_batch_matches_enumeration(nt_emit):
     # The max over a word's preterminal is taken once per position and the winning preterminal
-    # is found again for the best tree's words; a chunk of one element makes every max run
-    # row by row. The maxima are max-plus products (`engine.maxplus`): with one candidate
-    # column its bounds leave entries to the pass over every column, and with `dense` 0 every
-    # chunk after the first goes through every column. Reference: brute-force enumeration of
-    # every tree of each sentence.
-    monkeypatch.setattr(maxplus, "CHUNK", 1)
-    monkeypatch.setattr(maxplus, "TOP_COLUMNS", top)
-    monkeypatch.setattr(maxplus, "DENSE_SHARE", dense)
-    monkeypatch.setattr(maxplus, "BOUNDED_FROM", 0)
-    monkeypatch.setattr(maxplus, "CANDIDATE_SHARE", 1.0)
+    # is found again for the best tree's words; the maxima are max-plus products over every
+    # column (`engine.maxplus.max_plus_dense`, checked against the broadcast in
+    # tests/test_engine_maxplus.py), sentences of several lengths in one batch. Reference:
+    # brute-force enumeration of every tree of each sentence.
     grammar = random_grammar(2, 3, 4, seed=7, nt_emit=nt_emit)
     lengths = (4, 2, 3, 1) if nt_emit else (4, 2, 5, 3)  # one word: a tree only if NTs emit
     sentences = [_sentence(grammar, n, seed=20 + n) for n in lengths]

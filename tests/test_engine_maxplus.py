@@ -43,3 +43,13 @@ def test_max_plus_equals_every_column_compared(monkeypatch, dtype, depth, dense,
     assert torch.equal(got, want)
     monkeypatch.setattr(maxplus, "BOUNDED_FROM", shipped)   # as shipped: every column at once
     assert torch.equal(maxplus.max_plus(values, maxplus.MaxPlusWeights(weights), depth), want)
+    assert torch.equal(maxplus.max_plus_dense(values, maxplus.MaxPlusWeights(weights)), want)
+
+
+def test_max_plus_refuses_mixed_dtypes():
+    # The compiled loop adds values and weights in one dtype; a float32 row beside float64
+    # weights would be added in float64 by torch's promotion, so it is refused by name.
+    weights = maxplus.MaxPlusWeights(torch.zeros(3, 4, dtype=torch.float64))
+    for product in (maxplus.max_plus, maxplus.max_plus_dense):
+        with pytest.raises(ValueError, match="float32 and weights torch.float64"):
+            product(torch.zeros(2, 4, dtype=torch.float32), weights)

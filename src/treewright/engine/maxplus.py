@@ -7,7 +7,8 @@ maxima per entry. When each value row is peaked, as the posteriors and word scor
 grammar are, a few of its columns decide every entry: `max_plus` takes each entry over the
 largest `TOP_COLUMNS` columns of its row and proves the result exact with two bounds on the
 others, one of them a matrix product (BLAS speed); only the entries the bounds leave are taken
-over every column.
+over every column. The pass over every column is a loop compiled by numba
+(`max_plus_dense`, which the Viterbi pass calls directly: there the bounds saved nothing).
 """
 
 from __future__ import annotations
@@ -100,6 +101,23 @@ def _every_column(values: Tensor, rows: Tensor, weights: MaxPlusWeights, out: Te
                      out.numpy())
 
 
+def _same_dtype(values: Tensor, weights: MaxPlusWeights) -> None:
+    if values.dtype != weights.log.dtype:
+        raise ValueError(f"max_plus: values are {values.dtype} and weights "
+                         f"{weights.log.dtype}; give both in one dtype")
+
+
+def max_plus_dense(values: Tensor, weights: MaxPlusWeights) -> Tensor:
+    """`max_plus` over every column of every row (rows -inf throughout give -inf), with no
+    bounds: the compiled loop alone. On tabular grammars' Viterbi passes (20/30 to 100/200
+    symbols, random and EM-trained) it was as fast as the bounds or faster (2026-12-05: 1.04
+    against 1.85 s at 60/120, 3.45 against 3.63 s at 100/200), the same bits either way."""
+    _same_dtype(values, weights)
+    best = torch.full((values.shape[0], weights.log.shape[0]), NEG_INF, dtype=values.dtype)
+    _every_column(values, torch.isfinite(values).any(-1).nonzero().flatten(), weights, best)
+    return best
+
+
 def max_plus(values: Tensor, weights: MaxPlusWeights, depth: int | None = None) -> Tensor:
     """(M, R) max_k values[m, k] + weights[r, k], for `values` (M, K) and `weights` (R, K),
     weights at most 0 (log-probabilities): a matrix product in the max-plus semiring, exactly,
@@ -126,9 +144,7 @@ def max_plus(values: Tensor, weights: MaxPlusWeights, depth: int | None = None) 
     chunks of at most `CHUNK` elements."""
     M, R = values.shape[0], weights.log.shape[0]
     K = values.shape[1]
-    if values.dtype != weights.log.dtype:
-        raise ValueError(f"max_plus: values are {values.dtype} and weights "
-                         f"{weights.log.dtype}; give both in one dtype")
+    _same_dtype(values, weights)
     best = torch.full((M, R), NEG_INF, dtype=values.dtype)
     rows = torch.isfinite(values).any(-1).nonzero().flatten()
     d = min(TOP_COLUMNS if depth is None else depth, K)

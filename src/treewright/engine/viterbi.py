@@ -15,7 +15,7 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
-from treewright.engine.maxplus import MaxPlusWeights, max_plus
+from treewright.engine.maxplus import MaxPlusWeights, max_plus_dense
 
 NEG_INF = float("-inf")
 
@@ -24,12 +24,12 @@ def _best_children(scores: Tensor, rules: MaxPlusWeights) -> Tensor:
     """max over (y, z) of rules[x, y, z] + scores[..., y, z].
 
     scores: (B, P, Y, Z), rules: the (NT, Y * Z) rules as `max_plus` weights -> values
-    (B, P, NT): a max-plus product of each span's pair scores with the rules, mostly over the
-    span's best pairs (`engine.maxplus`). The maxima alone: the children that won are found
+    (B, P, NT): a max-plus product of each span's pair scores with the rules, over every pair
+    (`engine.maxplus.max_plus_dense`). The maxima alone: the children that won are found
     again for the nodes of the best trees only (`_backtrace`, the same float sums).
     """
     Bt, P, X, Y = scores.shape
-    return max_plus(scores.reshape(Bt * P, X * Y), rules).view(Bt, P, -1)
+    return max_plus_dense(scores.reshape(Bt * P, X * Y), rules).view(Bt, P, -1)
 
 
 def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
@@ -39,12 +39,12 @@ def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
     scores the same word at every span that ends (or starts) there, so the max over its
     preterminal is taken once per position rather than once per span: the per-span work of the
     block drops from NT * Y * T to NT * Y. The max is a max-plus product of the word scores
-    with the rules, mostly over each word's best preterminals (`engine.maxplus`); which
+    with the rules (`engine.maxplus.max_plus_dense`); which
     preterminal won is found again for the few words of the best trees (`_backtrace`).
     """
     Bt, N, T = term.shape
     weights = MaxPlusWeights(rules.reshape(-1, T))                      # (NT * Y, T)
-    return max_plus(term.reshape(Bt * N, T), weights).view(Bt, N, *rules.shape[:2])
+    return max_plus_dense(term.reshape(Bt * N, T), weights).view(Bt, N, *rules.shape[:2])
 
 
 def _best_beside_word(cell: Tensor, word_best: Tensor) -> Tensor:
