@@ -1,9 +1,12 @@
-"""The inside pass in the max semiring (Viterbi), with back-pointers.
+"""The inside pass in the max semiring (Viterbi), and the best trees.
 
 Same chart and child blocks as `engine.inside` (nonterminal pairs, a preterminal on the right,
-on the left, both), but in log space with max in place of sum, so each block keeps its best split
-and children. Decoding does not need the matrix-product speed of the sum semiring; it needs the
-exact best tree.
+on the left, both), but in log space with max in place of sum. The forward keeps each cell's
+best score and which block gave it; the split and children that won are found again, from the
+same float sums, for the nodes of the best trees only (`_backtrace`). Decoding does not need
+the matrix-product speed of the sum semiring; it needs the exact best tree. A max has no BLAS
+kernel, so the forward is a loop compiled by numba (`_width_kernel`) and the word blocks'
+maxima are max-plus products (`engine.maxplus`).
 
 Shapes: B sentences, N longest length, P = N - w + 1 spans of width w, NT nonterminals,
 T preterminals. Child indices follow the engine's layout: c < NT nonterminal, else preterminal
@@ -12,24 +15,15 @@ c - NT.
 
 from __future__ import annotations
 
+import functools
+
+import numpy as np
 import torch
 from torch import Tensor
 
 from treewright.engine.maxplus import MaxPlusWeights, max_plus_dense
 
 NEG_INF = float("-inf")
-
-
-def _best_children(scores: Tensor, rules: MaxPlusWeights) -> Tensor:
-    """max over (y, z) of rules[x, y, z] + scores[..., y, z].
-
-    scores: (B, P, Y, Z), rules: the (NT, Y * Z) rules as `max_plus` weights -> values
-    (B, P, NT): a max-plus product of each span's pair scores with the rules, over every pair
-    (`engine.maxplus.max_plus_dense`). The maxima alone: the children that won are found
-    again for the nodes of the best trees only (`_backtrace`, the same float sums).
-    """
-    Bt, P, X, Y = scores.shape
-    return max_plus_dense(scores.reshape(Bt * P, X * Y), rules).view(Bt, P, -1)
 
 
 def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
@@ -45,15 +39,6 @@ def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
     Bt, N, T = term.shape
     weights = MaxPlusWeights(rules.reshape(-1, T))                      # (NT * Y, T)
     return max_plus_dense(term.reshape(Bt * N, T), weights).view(Bt, N, *rules.shape[:2])
-
-
-def _best_beside_word(cell: Tensor, word_best: Tensor) -> Tensor:
-    """max over the constituent's symbol c of cell[..., c] + word_best[..., x, c].
-
-    cell (B, P, C), word_best (B, P, NT, C) -> values (B, P, NT) (the best c is found again
-    for the nodes of the best trees: `_backtrace`).
-    """
-    return (cell[:, :, None, :] + word_best).amax(-1)
 
 
 def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
@@ -81,54 +66,33 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         root = root.expand(B, -1)
     lengths = torch.as_tensor(lengths, dtype=torch.long)
     with torch.no_grad():
-        r_nn = MaxPlusWeights(binary[:, :NT, :NT].reshape(NT, NT * NT))
+        # The pair rules by column, (NT * NT, NT): rules_t[y * NT + z, x] = rule x -> y z.
+        rules_t = binary[:, :NT, :NT].reshape(NT, NT * NT).t().contiguous()
         min_w = 1 if nt_terminal is not None else 2
         term = terminal                                            # (B, N, T)
+        right_best = left_best = None
         if T:
             # right_best[b, p, x, y]: the best of x -> y z over the preterminal z of word p
             # (y any symbol: a nonterminal, or a preterminal for the two-word block);
             # left_best[b, p, x, z]: the best of x -> y z over the preterminal y of word p.
             right_best = _best_of_word(term, binary[:, :, NT:])
             left_best = _best_of_word(term, binary[:, NT:, :NT].transpose(1, 2))
-        # cells[w]: (B, N - w + 1, NT) best log score of each nonterminal over each span.
-        cells = {1: nt_terminal if nt_terminal is not None
-                 else terminal.new_full((B, N, NT), NEG_INF)}
-        # back[w]: (the block that won, (B, P, NT) int64, and the blocks' names in order); the
-        # split and children within it are found again for the nodes of the best trees.
-        back: dict[int, tuple[Tensor, list[str]]] = {}
-        for w in range(2, N + 1):
-            P = N - w + 1
-            options, kinds = [], []   # each (B, P, NT)
-            lo, hi = min_w, w - min_w
-            if hi >= lo:
-                # The best split of each child pair, kept as a running maximum (B, P, NT, NT)
-                # rather than every split's sums at once.
-                pairs = cells[lo][:, 0:P, :, None] + cells[w - lo][:, lo:lo + P, None, :]
-                for u in range(lo + 1, hi + 1):
-                    torch.maximum(pairs, cells[u][:, 0:P, :, None] +
-                                  cells[w - u][:, u:u + P, None, :], out=pairs)
-                options.append(_best_children(pairs, r_nn))
-                kinds.append(_PAIR)
-            # Blocks with a preterminal child exist only when there are preterminals: a general
-            # CNF grammar may have none (T = 0), and a max over an empty block is an error.
-            if w - 1 >= min_w and T:
-                options.append(_best_beside_word(cells[w - 1][:, 0:P],
-                                                 right_best[:, w - 1:N, :, :NT]))
-                kinds.append(_WORD_RIGHT)
-                options.append(_best_beside_word(cells[w - 1][:, 1:1 + P], left_best[:, 0:P]))
-                kinds.append(_WORD_LEFT)
-            if w == 2 and T:
-                options.append(_best_beside_word(term[:, 0:P], right_best[:, 1:1 + P, :, NT:]))
-                kinds.append(_TWO_WORDS)
-            if not options:  # no block fits this width (no rules can build such a span)
-                options.append(terminal.new_full((B, P, NT), NEG_INF))
-                kinds.append(_NONE)
-            best, which = torch.stack(options).max(0)                   # first block on ties
-            if span_pot is not None:
-                best = best + (span_pot[:, 0:P, w] if span_pot.dim() == 4
-                               else span_pot[:, 0:P, w, None])
-            cells[w] = best
-            back[w] = (which, kinds)
+        # chart[w]: (B, N, NT) best log score of each nonterminal over each span of width w
+        # (the first N - w + 1 starts used); cells[w], its used part.
+        chart = terminal.new_full((N + 1, B, N, NT), NEG_INF)
+        if nt_terminal is not None:
+            chart[1] = nt_terminal
+        # back[w]: (the block that won, (B, P, NT), and the blocks' names in order); the split
+        # and children within it are found again for the nodes of the best trees.
+        won = torch.zeros((N + 1, B, N, NT), dtype=torch.int8)
+        kinds = {w: _kinds(w, min_w, T) for w in range(2, N + 1)}
+        if N >= 2:
+            _width_kernel()(chart.numpy(), won.numpy(), *_kernel_words(right_best, left_best,
+                                                                       term, NT, T),
+                            rules_t.numpy(), *_kernel_potential(span_pot, terminal.dtype),
+                            min_w)
+        cells = {w: chart[w, :, :N - w + 1] for w in range(1, N + 1)}
+        back = {w: (won[w, :, :N - w + 1], kinds[w]) for w in range(2, N + 1)}
 
     out: list[tuple[float, list[tuple[int, int, int]]] | None] = []
     found: dict[int, tuple[float, int, int]] = {}   # sentence -> (score, length, top symbol)
@@ -158,6 +122,130 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
 
 _PAIR, _WORD_RIGHT, _WORD_LEFT, _TWO_WORDS, _NONE = \
     "two constituents", "a word on the right", "a word on the left", "two words", "none"
+
+
+def _kinds(w: int, min_w: int, T: int) -> list[str]:
+    """The blocks that can build a span of width w, in the order ties go to the first: two
+    constituents (both at least `min_w` wide), a word on the right, on the left (a
+    constituent beside a word, when there are preterminals), two words (width 2); none when
+    no block fits (no rules can build such a span)."""
+    kinds = [_PAIR] if w - min_w >= min_w else []
+    if w - 1 >= min_w and T:
+        kinds += [_WORD_RIGHT, _WORD_LEFT]
+    if w == 2 and T:
+        kinds.append(_TWO_WORDS)
+    return kinds or [_NONE]
+
+
+def _kernel_words(right_best: Tensor | None, left_best: Tensor | None, term: Tensor, NT: int,
+                  T: int) -> tuple:
+    """The word blocks' inputs of `_width_kernel` as arrays: right_best (B, N, NT, S),
+    left_best (B, N, NT, NT), the word scores (B, N, T); empty arrays without preterminals."""
+    if not T:
+        B, N = term.shape[:2]
+        empty = term.new_full((B, N, NT, NT), NEG_INF)
+        return empty.numpy(), empty.numpy(), term.contiguous().numpy()
+    return (right_best.contiguous().numpy(), left_best.contiguous().numpy(),
+            term.contiguous().numpy())
+
+
+def _kernel_potential(span_pot: Tensor | None, dtype: torch.dtype) -> tuple:
+    """`span_pot` as `_width_kernel` reads it: (B, N+1, N+1, C) in the chart's dtype, with
+    C = NT (per nonterminal) or 1 (one per span), and whether there is one at all."""
+    if span_pot is None:
+        return torch.zeros((1, 1, 1, 1), dtype=dtype).numpy(), False
+    pot = span_pot if span_pot.dim() == 4 else span_pot[..., None]
+    return pot.to(dtype).contiguous().numpy(), True
+
+
+@functools.cache
+def _width_kernel():
+    """The forward of `viterbi`, every width of every sentence, in a loop compiled by numba
+    (compiled on first use, per dtype). For each span (b, start p) of width w it fills
+    chart[w, b, p, x], the best score of nonterminal x over the span, and won[w, b, p, x],
+    the index of the block that gave it among `_kinds(w)` (the first on ties), from the
+    same float sums as a pass of torch operations would take:
+
+    - two constituents: pairs[y, z] = max over splits u of chart[u, b, p, y] +
+      chart[w - u, b, p + u, z], then max over (y, z) of pairs[y, z] + rule[x, y, z];
+    - a word on the right: max over y of chart[w - 1, b, p, y] + right[b, p + w - 1, x, y];
+    - a word on the left: max over z of chart[w - 1, b, p + 1, z] + left[b, p, x, z];
+    - two words: max over y of term[b, p, y] + right[b, p + 1, x, NT + y];
+
+    then the span's potential is added. rules_t is the pair rules by column, (NT * NT, NT)."""
+    import numba
+
+    @numba.njit(nogil=True)
+    def widths(chart, won, right, left, term, rules_t, pot, has_pot, min_w):  # pragma: no cover
+        N1, B, N, NT = chart.shape
+        T = term.shape[2]
+        pairs = np.empty(NT * NT, dtype=chart.dtype)
+        best = np.empty(NT, dtype=chart.dtype)
+        for w in range(2, N1):
+            lo, hi = min_w, w - min_w
+            for b in range(B):
+                for p in range(N - w + 1):
+                    kind = 0
+                    have = False
+                    if hi >= lo:
+                        for y in range(NT):
+                            a = chart[lo, b, p, y]
+                            for z in range(NT):
+                                pairs[y * NT + z] = a + chart[w - lo, b, p + lo, z]
+                        for u in range(lo + 1, hi + 1):
+                            for y in range(NT):
+                                a = chart[u, b, p, y]
+                                if a == -np.inf:
+                                    continue
+                                for z in range(NT):
+                                    s = a + chart[w - u, b, p + u, z]
+                                    if s > pairs[y * NT + z]:
+                                        pairs[y * NT + z] = s
+                        best[:] = -np.inf
+                        for k in range(NT * NT):
+                            a = pairs[k]
+                            if a == -np.inf:
+                                continue
+                            for x in range(NT):
+                                s = a + rules_t[k, x]
+                                if s > best[x]:
+                                    best[x] = s
+                        for x in range(NT):
+                            chart[w, b, p, x] = best[x]
+                            won[w, b, p, x] = 0
+                        have = True
+                        kind = 1
+                    if w - 1 >= min_w and T:
+                        for side in range(2):
+                            for x in range(NT):
+                                v = -np.inf
+                                for c in range(NT):
+                                    if side == 0:
+                                        s = chart[w - 1, b, p, c] + right[b, p + w - 1, x, c]
+                                    else:
+                                        s = chart[w - 1, b, p + 1, c] + left[b, p, x, c]
+                                    if s > v:
+                                        v = s
+                                if not have or v > chart[w, b, p, x]:
+                                    chart[w, b, p, x] = v
+                                    won[w, b, p, x] = kind
+                            have = True
+                            kind += 1
+                    if w == 2 and T:
+                        for x in range(NT):
+                            v = -np.inf
+                            for c in range(T):
+                                s = term[b, p, c] + right[b, p + 1, x, NT + c]
+                                if s > v:
+                                    v = s
+                            if not have or v > chart[w, b, p, x]:
+                                chart[w, b, p, x] = v
+                                won[w, b, p, x] = kind
+                        have = True
+                    if has_pot:
+                        for x in range(NT):
+                            chart[w, b, p, x] += pot[b, p, w, x if pot.shape[3] > 1 else 0]
+    return widths
 
 
 def _backtrace(back, cells, tops: dict[int, tuple[int, int]], binary: Tensor,
