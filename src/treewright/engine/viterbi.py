@@ -179,19 +179,23 @@ def _width_kernel():
     def widths(chart, won, right, left, term, rules_t, pot, has_pot, min_w):  # pragma: no cover
         N1, B, N, NT = chart.shape
         T = term.shape[2]
-        pairs = np.empty(NT * NT, dtype=chart.dtype)
-        best = np.empty(NT, dtype=chart.dtype)
+        K = NT * NT
+        pairs = np.empty((4, K), dtype=chart.dtype)
+        acc = np.empty((4, NT), dtype=chart.dtype)
         for w in range(2, N1):
             lo, hi = min_w, w - min_w
+            P = N - w + 1
             for b in range(B):
-                for p in range(N - w + 1):
-                    kind = 0
-                    have = False
-                    if hi >= lo:
+                # Two constituents, four spans at a time sharing each rule column's load.
+                for p0 in range(0, P if hi >= lo else 0, 4):
+                    count = min(4, P - p0)
+                    pairs[:] = -np.inf
+                    for j in range(count):
+                        p = p0 + j
                         for y in range(NT):
                             a = chart[lo, b, p, y]
                             for z in range(NT):
-                                pairs[y * NT + z] = a + chart[w - lo, b, p + lo, z]
+                                pairs[j, y * NT + z] = a + chart[w - lo, b, p + lo, z]
                         for u in range(lo + 1, hi + 1):
                             for y in range(NT):
                                 a = chart[u, b, p, y]
@@ -199,22 +203,35 @@ def _width_kernel():
                                     continue
                                 for z in range(NT):
                                     s = a + chart[w - u, b, p + u, z]
-                                    if s > pairs[y * NT + z]:
-                                        pairs[y * NT + z] = s
-                        best[:] = -np.inf
-                        for k in range(NT * NT):
-                            a = pairs[k]
-                            if a == -np.inf:
-                                continue
-                            for x in range(NT):
-                                s = a + rules_t[k, x]
-                                if s > best[x]:
-                                    best[x] = s
+                                    if s > pairs[j, y * NT + z]:
+                                        pairs[j, y * NT + z] = s
+                    acc[:] = -np.inf
+                    for k in range(K):
+                        a0, a1, a2, a3 = pairs[0, k], pairs[1, k], pairs[2, k], pairs[3, k]
+                        if a0 == -np.inf and a1 == -np.inf and a2 == -np.inf and \
+                                a3 == -np.inf:
+                            continue
                         for x in range(NT):
-                            chart[w, b, p, x] = best[x]
-                            won[w, b, p, x] = 0
-                        have = True
-                        kind = 1
+                            r = rules_t[k, x]
+                            s = a0 + r
+                            if s > acc[0, x]:
+                                acc[0, x] = s
+                            s = a1 + r
+                            if s > acc[1, x]:
+                                acc[1, x] = s
+                            s = a2 + r
+                            if s > acc[2, x]:
+                                acc[2, x] = s
+                            s = a3 + r
+                            if s > acc[3, x]:
+                                acc[3, x] = s
+                    for j in range(count):
+                        for x in range(NT):
+                            chart[w, b, p0 + j, x] = acc[j, x]
+                            won[w, b, p0 + j, x] = 0
+                for p in range(P):
+                    have = hi >= lo
+                    kind = 1 if have else 0
                     if w - 1 >= min_w and T:
                         for side in range(2):
                             for x in range(NT):
