@@ -82,8 +82,8 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         chart = terminal.new_full((N + 1, B, N, NT), NEG_INF)
         if nt_terminal is not None:
             chart[1] = nt_terminal
-        # back[w]: (the block that won, (B, P, NT), and the blocks' names in order); the split
-        # and children within it are found again for the nodes of the best trees.
+        # won[w]: the block that won each cell, an index into kinds[w] (the blocks' names in
+        # order); its split and children are found again for the nodes of the best trees.
         won = torch.zeros((N + 1, B, N, NT), dtype=torch.int8)
         kinds = {w: _kinds(w, min_w, T) for w in range(2, N + 1)}
         if N >= 2:
@@ -92,7 +92,6 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
                             rules_t.numpy(), *_kernel_potential(span_pot, terminal.dtype),
                             min_w)
         cells = {w: chart[w, :, :N - w + 1] for w in range(1, N + 1)}
-        back = {w: (won[w, :, :N - w + 1], kinds[w]) for w in range(2, N + 1)}
 
     out: list[tuple[float, list[tuple[int, int, int]]] | None] = []
     found: dict[int, tuple[float, int, int]] = {}   # sentence -> (score, length, top symbol)
@@ -112,9 +111,8 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             continue
         found[b] = (float(score), n, int(sym))
         out.append(None)
-    trees = _backtrace(back, cells, {b: (n, sym) for b, (_, n, sym) in found.items()},
-                       binary, terminal, right_best if T else None, left_best if T else None,
-                       min_w)
+    trees = _backtrace(chart, won, kinds, {b: (n, sym) for b, (_, n, sym) in found.items()},
+                       binary, term, right_best, left_best, min_w)
     for b, (score, _, _) in found.items():
         out[b] = (score, trees[b])
     return out
@@ -265,67 +263,117 @@ def _width_kernel():
     return widths
 
 
-def _backtrace(back, cells, tops: dict[int, tuple[int, int]], binary: Tensor,
-               terminal: Tensor, right_best: Tensor | None, left_best: Tensor | None,
+_BLOCK_CODES = {_PAIR: 0, _WORD_RIGHT: 1, _WORD_LEFT: 2, _TWO_WORDS: 3, _NONE: 4}
+
+
+def _backtrace(chart: Tensor, won: Tensor, kinds: dict[int, list[str]],
+               tops: dict[int, tuple[int, int]], binary: Tensor, terminal: Tensor,
+               right_best: Tensor | None, left_best: Tensor | None,
                min_w: int) -> dict[int, list[tuple[int, int, int]]]:
     """The best trees of the sentences `tops` (sentence b -> (length, top symbol)): at each
-    node, the block that won (`back`), then its split and children found again from the same
-    float sums the pass took the maxima of (first on ties, as `max` and `argmax` take them:
-    the first split of each child pair, then the first pair in row-major order; the
-    constituent's first symbol beside a word), a word child resolved to the first preterminal
-    that won its max. A node's children are narrower than it, so the nodes of one width, of
-    every tree, are resolved at once, from the widest down, each block kind in one step.
-    terminal (B, N, T) the word scores. Returns each sentence's spans (start, end, symbol) in
-    pre-order."""
+    node, the block that won (`won`, an index into `kinds` of the node's width), then its split
+    and children found again from the same float sums the forward took the maxima of (first on
+    ties, as `max` and `argmax` take them: the first split of each child pair, then the first
+    pair in row-major order; the constituent's first symbol beside a word), a word child
+    resolved to the first preterminal that won its max (`_tree_kernel`). terminal (B, N, T)
+    the word scores. Returns each sentence's spans (start, end, symbol) in pre-order."""
     NT = binary.shape[0]
-    # Every node found and not yet resolved, (sentence, start, width, symbol) rows.
-    pool = [torch.tensor([[b, 0, n, sym] for b, (n, sym) in tops.items()],
-                         dtype=torch.long).view(-1, 4)]
-    nodes = []
-    for w in range(max((n for n, _ in tops.values()), default=0), 1, -1):
-        every = torch.cat(pool)
-        here = every[:, 2] == w
-        pool = [every[~here]]
-        b, i, _, sym = every[here].unbind(1)
-        if not len(b):
-            continue
-        nodes.append(every[here])
-        which, kinds = back[w]
-        kind = which[b, i, sym]
-        for k, name in enumerate(kinds):
-            at = (kind == k).nonzero().flatten()
-            if not len(at):
-                continue
-            kb, ki, ks = b[at], i[at], sym[at]
-            if name == _PAIR:
-                us = torch.arange(min_w, w - min_w + 1)
-                left = torch.stack([cells[u][kb, ki] for u in us.tolist()], 1)   # (m, K, NT)
-                right = torch.stack([cells[w - u][kb, ki + u] for u in us.tolist()], 1)
-                pair_best, pair_split = (left[..., :, None] + right[..., None, :]).max(1)
-                flat = (pair_best.flatten(1) + binary[ks, :NT, :NT].flatten(1)).argmax(1)
-                y, z = flat // NT, flat % NT
-                u = us[pair_split.flatten(1).gather(1, flat[:, None]).squeeze(1)]
-            elif name == _WORD_RIGHT:
-                u = torch.full_like(kb, w - 1)
-                y = (cells[w - 1][kb, ki] + right_best[kb, ki + w - 1, ks, :NT]).argmax(1)
-                z = NT + (terminal[kb, ki + w - 1] + binary[ks, y, NT:]).argmax(1)
-            elif name == _WORD_LEFT:
-                u = torch.ones_like(kb)
-                z = (cells[w - 1][kb, ki + 1] + left_best[kb, ki, ks]).argmax(1)
-                y = NT + (terminal[kb, ki] + binary[ks, NT:, z]).argmax(1)
-            else:                           # two words (a span with no block has no tree)
-                u = torch.ones_like(kb)
-                y = NT + (terminal[kb, ki] + right_best[kb, ki + 1, ks, NT:]).argmax(1)
-                z = NT + (terminal[kb, ki + 1] + binary[ks, y, NT:]).argmax(1)
-            pool.append(torch.stack([kb, ki, u, y], 1))
-            pool.append(torch.stack([kb, ki + u, w - u, z], 1))
-    nodes.extend(pool)                      # what is left spans one word each
-    out: dict[int, list[tuple[int, int, int]]] = {b: [] for b in tops}
-    every = torch.cat(nodes)
-    if len(every):
-        # Pre-order: by sentence, then start, then the wider span first.
-        sb, si, sw = every[:, 0], every[:, 1], every[:, 2]
-        m = int(sw.max()) + 1
-        for b, i, w, x in every[torch.argsort((sb * m + si) * m + (m - 1 - sw))].tolist():
-            out[b].append((i, i + w, x))
+    B, N, T = terminal.shape
+    if not tops:
+        return {}
+    codes = np.full((N + 1, 4), _BLOCK_CODES[_NONE], dtype=np.int8)
+    for w, names in kinds.items():
+        codes[w, :len(names)] = [_BLOCK_CODES[name] for name in names]
+    roots = np.array([[b, n, sym] for b, (n, sym) in tops.items()], dtype=np.int64)
+    nodes = np.zeros((int((2 * roots[:, 1] - 1).sum()), 3), dtype=np.int64)
+    _tree_kernel()(chart.numpy(), won.numpy(), codes, roots, binary.contiguous().numpy(),
+                   *_kernel_words(right_best, left_best, terminal, NT, T), min_w, nodes)
+    out, at = {}, 0
+    for b, n, _ in roots.tolist():
+        out[b] = [(i, i + w, x) for i, w, x in nodes[at:at + 2 * n - 1].tolist()]
+        at += 2 * n - 1
     return out
+
+
+@functools.cache
+def _tree_kernel():
+    """The loop of `_backtrace`, compiled by numba: each sentence's tree depth first, the left
+    child before the right, so that its nodes come out in pre-order, (start, width, symbol)
+    rows of `nodes`, 2n - 1 per sentence of n words, sentence after sentence."""
+    import numba
+
+    @numba.njit(nogil=True)
+    def trees(chart, won, codes, roots, binary, right, left, term, min_w, nodes):
+        # pragma: no cover
+        NT = chart.shape[3]
+        T = term.shape[2]
+        stack = np.empty((2 * chart.shape[0], 3), dtype=np.int64)
+        at = 0
+        for r in range(roots.shape[0]):
+            b = roots[r, 0]
+            stack[0, 0], stack[0, 1], stack[0, 2] = 0, roots[r, 1], roots[r, 2]
+            depth = 1
+            while depth:
+                depth -= 1
+                i, w, x = stack[depth, 0], stack[depth, 1], stack[depth, 2]
+                nodes[at, 0], nodes[at, 1], nodes[at, 2] = i, w, x
+                at += 1
+                if w == 1:
+                    continue
+                code = codes[w, won[w, b, i, x]]
+                if code == 0:                          # two constituents
+                    best, u, y, z = -np.inf, -1, -1, -1
+                    for yy in range(NT):
+                        for zz in range(NT):
+                            pair, split = -np.inf, -1
+                            for uu in range(min_w, w - min_w + 1):
+                                s = chart[uu, b, i, yy] + chart[w - uu, b, i + uu, zz]
+                                if split < 0 or s > pair:
+                                    pair, split = s, uu
+                            s = pair + binary[x, yy, zz]
+                            if u < 0 or s > best:
+                                best, u, y, z = s, split, yy, zz
+                elif code == 1:                        # a word on the right
+                    u = w - 1
+                    y, best = -1, -np.inf
+                    for c in range(NT):
+                        s = chart[w - 1, b, i, c] + right[b, i + w - 1, x, c]
+                        if y < 0 or s > best:
+                            y, best = c, s
+                    z, best = -1, -np.inf
+                    for t in range(T):
+                        s = term[b, i + w - 1, t] + binary[x, y, NT + t]
+                        if z < 0 or s > best:
+                            z, best = t, s
+                    z += NT
+                elif code == 2:                        # a word on the left
+                    u = 1
+                    z, best = -1, -np.inf
+                    for c in range(NT):
+                        s = chart[w - 1, b, i + 1, c] + left[b, i, x, c]
+                        if z < 0 or s > best:
+                            z, best = c, s
+                    y, best = -1, -np.inf
+                    for t in range(T):
+                        s = term[b, i, t] + binary[x, NT + t, z]
+                        if y < 0 or s > best:
+                            y, best = t, s
+                    y += NT
+                else:                                  # two words
+                    u = 1
+                    y, best = -1, -np.inf
+                    for c in range(T):
+                        s = term[b, i, c] + right[b, i + 1, x, NT + c]
+                        if y < 0 or s > best:
+                            y, best = c, s
+                    y += NT
+                    z, best = -1, -np.inf
+                    for t in range(T):
+                        s = term[b, i + 1, t] + binary[x, y, NT + t]
+                        if z < 0 or s > best:
+                            z, best = t, s
+                    z += NT
+                stack[depth, 0], stack[depth, 1], stack[depth, 2] = i + u, w - u, z
+                stack[depth + 1, 0], stack[depth + 1, 1], stack[depth + 1, 2] = i, u, y
+                depth += 2
+    return trees
