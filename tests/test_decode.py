@@ -661,7 +661,8 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
     # grammars (the item pass with one subcategory a symbol, or the max-semiring pass, which
     # leaves nothing out; at 0.01 nats a word the floor is above every best tree, and the
     # max-semiring pass decodes each sentence again), with preterminals and with nonterminals
-    # that emit words.
+    # that emit words. These grammars' chart passes are cheap: the pruning is forced on.
+    monkeypatch.setattr(decode_module, "UNREFINED_PRUNE_FROM", 0)
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
@@ -675,6 +676,20 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
         assert_max_rule_product_enumerated(g, sentences)
     assert ("_max_rule_product_items" in {name for name, _ in calls}) == (
         path == "items" or nats_per_word == 0.01)
+
+
+def test_max_rule_product_on_a_small_unrefined_grammar_takes_the_chart_pass(monkeypatch):
+    # Brute force (coarse_objective): an unrefined grammar whose whole chart pass costs less
+    # than UNREFINED_PRUNE_FROM a sentence goes to the max-semiring pass without seeking a
+    # floor, a known tree or the item pass, and gives the best trees.
+    calls = spy_on_passes(monkeypatch)
+    grammar = random_grammar(3, 3, 3, seed=11, sparsity=0.35)
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    lengths = torch.tensor([len(w) for w in SENTENCES])
+    assert float(decode_module._viterbi_cost(lengths, layout).max()) < \
+        decode_module.UNREFINED_PRUNE_FROM
+    assert_max_rule_product_enumerated(grammar, SENTENCES)
+    assert calls == []
 
 
 def _factored_rules(kind: str, nt: int, t: int, v: int, rank: int, init_scale: float, seed: int,
