@@ -1235,15 +1235,17 @@ def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
     nt = len(grammar.nonterminals)
     B, N1, _, _ = tables.marginals.shape
     N = N1 - 1
-    log_mu = tables.marginals.log()                                      # (B, N+1, N+1, S)
+    # The logarithms read: the nonterminals' over every span, every symbol's over each word
+    # (the preterminals' columns over wider spans, most of the table, are never read).
+    span_log_mu = tables.marginals[..., :nt].log()                       # (B, N+1, N+1, NT)
     words = engine.log_unscaled(tables.scaled_inside[:, :N, 1], tables.scale[:, :N, 1, None]) \
-        + log_mu[:, :N, 1]                                               # (B, N, S)
+        + tables.marginals[:, :N, 1].log()                               # (B, N, S)
     logz = tables.logz.masked_fill(~torch.isfinite(tables.logz), 0.0)
     root = grammar.root.to(words.dtype)[None, :] - logz[:, None]         # (B, NT)
     # A grammar whose nonterminals emit words scores them at width one too.
     nt_words = words[..., :nt] if grammar.nonterminals_emit else None
     results = engine.viterbi(root, grammar.binary.to(words.dtype), words[..., nt:],
-                             torch.tensor(list(lengths)), nt_words, log_mu[..., :nt])
+                             torch.tensor(list(lengths)), nt_words, span_log_mu)
     names = [lay.names[k] for k in lay.member.argmax(1).tolist()]        # per fine symbol
     parsed = torch.isfinite(tables.logz).tolist()
     return [None if res is None or not ok else
