@@ -19,6 +19,8 @@ import numpy as np
 import torch
 from torch import Tensor
 
+from treewright.engine.compiled import jit
+
 NEG_INF = float("-inf")
 
 CHUNK = 2 ** 22        # elements of the largest temporary of `max_plus`
@@ -53,9 +55,7 @@ class MaxPlusWeights:
 @functools.cache
 def _column_kernel():
     """The compiled loop of `_every_column` (numba, compiled on first use, per dtype)."""
-    import numba
-
-    @numba.njit(nogil=True)
+    @jit
     def every_column(values, rows, by_column, out):                    # pragma: no cover
         # Four value rows at a time share each weight column's load; their maxima stay in
         # `acc` (4, R). A column that is -inf in all four changes no maximum and is skipped.

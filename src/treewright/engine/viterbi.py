@@ -21,6 +21,8 @@ import numpy as np
 import torch
 from torch import Tensor
 
+from treewright.engine.compiled import jit
+
 from treewright.engine.maxplus import MaxPlusWeights, max_plus_dense
 
 NEG_INF = float("-inf")
@@ -171,9 +173,7 @@ def _width_kernel():
     - two words: max over y of term[b, p, y] + right[b, p + 1, x, NT + y];
 
     then the span's potential is added. rules_t is the pair rules by column, (NT * NT, NT)."""
-    import numba
-
-    @numba.njit(nogil=True)
+    @jit
     def widths(chart, won, right, left, term, rules_t, pot, has_pot, min_w):  # pragma: no cover
         N1, B, N, NT = chart.shape
         T = term.shape[2]
@@ -300,9 +300,7 @@ def _tree_kernel():
     """The loop of `_backtrace`, compiled by numba: each sentence's tree depth first, the left
     child before the right, so that its nodes come out in pre-order, (start, width, symbol)
     rows of `nodes`, 2n - 1 per sentence of n words, sentence after sentence."""
-    import numba
-
-    @numba.njit(nogil=True)
+    @jit
     def trees(chart, won, codes, roots, binary, right, left, term, min_w, nodes):
         # pragma: no cover
         NT = chart.shape[3]
