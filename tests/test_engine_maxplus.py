@@ -53,3 +53,30 @@ def test_max_plus_refuses_mixed_dtypes():
     for product in (maxplus.max_plus, maxplus.max_plus_dense):
         with pytest.raises(ValueError, match="float32 and weights torch.float64"):
             product(torch.zeros(2, 4, dtype=torch.float32), weights)
+
+
+def test_compiled_loops_run_where_no_cache_folder_can_be_written(monkeypatch):
+    # numba refuses cache=True where neither the module's folder nor its per-user folder can
+    # be written ("cannot cache function ...: no locator available"); `jit` then compiles
+    # without a cache. Reference: the sum of 0.5, 1.5 and 2.5 (4.5).
+    import numba
+    import numpy as np
+
+    from treewright.engine.compiled import jit
+
+    real = numba.njit
+
+    def refusing(*args, **options):
+        if options.get("cache"):
+            raise RuntimeError("cannot cache function 'total': no locator available")
+        return real(*args, **options)
+
+    monkeypatch.setattr(numba, "njit", refusing)
+
+    def total(values):
+        out = 0.0
+        for v in values:
+            out += v
+        return out
+
+    assert jit(total)(np.array([0.5, 1.5, 2.5])) == 4.5
