@@ -95,10 +95,8 @@ def _every_column(values: Tensor, rows: Tensor, weights: MaxPlusWeights, out: Te
     `rows`: K elementwise maxima over each row of `out`, in a compiled loop (numba) that keeps
     the rows' maxima in cache. The float sums are those of the broadcast
     (values[m, k] + weights[r, k], the same order), so the maxima are bitwise the same."""
-    if not values.is_contiguous():
-        values = values.contiguous()
-    _column_kernel()(values.detach().numpy(), rows.numpy(), weights.by_column.numpy(),
-                     out.numpy())
+    _column_kernel()(values.detach().contiguous().numpy(), rows.numpy(),
+                     weights.by_column.detach().numpy(), out.numpy())
 
 
 def _same_dtype(values: Tensor, weights: MaxPlusWeights) -> None:

@@ -91,7 +91,7 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         if N >= 2:
             _width_kernel()(chart.numpy(), won.numpy(), *_kernel_words(right_best, left_best,
                                                                        term, NT, T),
-                            rules_t.numpy(), *_kernel_potential(span_pot, terminal.dtype),
+                            _array(rules_t), *_kernel_potential(span_pot, terminal.dtype),
                             min_w)
         cells = {w: chart[w, :, :N - w + 1] for w in range(1, N + 1)}
 
@@ -144,9 +144,14 @@ def _kernel_words(right_best: Tensor | None, left_best: Tensor | None, term: Ten
     if not T:
         B, N = term.shape[:2]
         empty = term.new_full((B, N, NT, NT), NEG_INF)
-        return empty.numpy(), empty.numpy(), term.contiguous().numpy()
-    return (right_best.contiguous().numpy(), left_best.contiguous().numpy(),
-            term.contiguous().numpy())
+        return empty.numpy(), empty.numpy(), _array(term)
+    return _array(right_best), _array(left_best), _array(term)
+
+
+def _array(x: Tensor) -> np.ndarray:
+    """A tensor's numbers as a C-ordered numpy array for the compiled loops (a view when
+    they are laid out so already), whether or not it takes part in a gradient."""
+    return x.detach().contiguous().numpy()
 
 
 def _kernel_potential(span_pot: Tensor | None, dtype: torch.dtype) -> tuple:
@@ -155,7 +160,7 @@ def _kernel_potential(span_pot: Tensor | None, dtype: torch.dtype) -> tuple:
     if span_pot is None:
         return torch.zeros((1, 1, 1, 1), dtype=dtype).numpy(), False
     pot = span_pot if span_pot.dim() == 4 else span_pot[..., None]
-    return pot.to(dtype).contiguous().numpy(), True
+    return _array(pot.to(dtype)), True
 
 
 @functools.cache
@@ -286,7 +291,7 @@ def _backtrace(chart: Tensor, won: Tensor, kinds: dict[int, list[str]],
         codes[w, :len(names)] = [_BLOCK_CODES[name] for name in names]
     roots = np.array([[b, n, sym] for b, (n, sym) in tops.items()], dtype=np.int64)
     nodes = np.zeros((int((2 * roots[:, 1] - 1).sum()), 3), dtype=np.int64)
-    _tree_kernel()(chart.numpy(), won.numpy(), codes, roots, binary.contiguous().numpy(),
+    _tree_kernel()(chart.numpy(), won.numpy(), codes, roots, _array(binary),
                    *_kernel_words(right_best, left_best, terminal, NT, T), min_w, nodes)
     out, at = {}, 0
     for b, n, _ in roots.tolist():
