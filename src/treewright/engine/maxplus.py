@@ -59,6 +59,8 @@ def _column_kernel():
     def every_column(values, rows, by_column, out):                    # pragma: no cover
         # Four value rows at a time share each weight column's load; their maxima stay in
         # `acc` (4, R). A column that is -inf in all four changes no maximum and is skipped.
+        # The four updates are written out: as a loop over the four rows the same kernel ran
+        # 5 to 8 times slower at R = 20 (2026-12-05).
         K, R = by_column.shape
         n = len(rows)
         acc = np.empty((4, R), dtype=out.dtype)

@@ -189,7 +189,8 @@ def _width_kernel():
             lo, hi = min_w, w - min_w
             P = N - w + 1
             for b in range(B):
-                # Two constituents, four spans at a time sharing each rule column's load.
+                # Two constituents, four spans at a time sharing each rule column's load (the
+                # four updates written out, as in `maxplus._column_kernel`).
                 for p0 in range(0, P if hi >= lo else 0, 4):
                     count = min(4, P - p0)
                     pairs[:] = -np.inf
