@@ -870,8 +870,10 @@ def _pass_costs(kept: Tensor, lay: CoarseLayout, lengths: Tensor) -> tuple[Tenso
 
 # The max-semiring pass's cost per max-add (`_viterbi_cost`), in multiply-adds of the refined
 # chart pass. Measured on the 2-core development machine (one thread, float64, 2026-12-05):
-# 0.2-0.4 ns a max-add on unrefined grammars of 20/30 to 60/120 symbols, against 0.3-0.7 ns for
-# the refined pass's multiply-adds (`ITEM_OVERHEAD`).
+# 0.2-0.4 ns a max-add on unrefined grammars of 20/30 to 60/120 symbols with the compiled
+# max-plus loop, about 0.2 ns since the whole forward is compiled, against 0.3-0.7 ns for the
+# refined pass's multiply-adds (`ITEM_OVERHEAD`). Kept at 0.5: at 60/120 the pruning it
+# chooses still won (`UNREFINED_PRUNE_FROM`).
 VITERBI_UNIT = 0.5
 
 
