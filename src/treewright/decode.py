@@ -477,15 +477,13 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     """
     dtype = tables.marginals.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
-    if not prune and lay.rules is not None:
-        return _chart_pass(lay)(grammar, tables, lengths, lay, None)[0]
     n = torch.tensor(list(lengths))
     if lay.rules is None:
         return _max_rule_product_factored(tables, lengths, lay)
-    if lay.slots.shape[1] == 1 and \
+    # Without pruning, or on an unrefined grammar whose whole chart pass costs less than
+    # finding what to leave out would (the bounds, the kept labels, a known tree): the chart.
+    if not prune or lay.slots.shape[1] == 1 and \
             float(_viterbi_cost(n, lay).double().mean()) < UNREFINED_PRUNE_FROM:
-        # An unrefined grammar whose whole chart pass costs less than finding what to leave
-        # out would (the bounds, the kept labels, a known tree).
         return _chart_pass(lay)(grammar, tables, lengths, lay, None)[0]
     floor = -PRUNE_NATS_PER_WORD * n.to(dtype)
     # A sentence whose floor would keep more than half of its (span, coarse parent) pairs

@@ -22,7 +22,6 @@ import torch
 from torch import Tensor
 
 from treewright.engine.compiled import jit
-
 from treewright.engine.maxplus import MaxPlusWeights, max_plus_dense
 
 NEG_INF = float("-inf")
@@ -80,61 +79,37 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
             right_best = _best_of_word(term, binary[:, :, NT:])
             left_best = _best_of_word(term, binary[:, NT:, :NT].transpose(1, 2))
         # chart[w]: (B, N, NT) best log score of each nonterminal over each span of width w
-        # (the first N - w + 1 starts used); cells[w], its used part.
+        # (the first N - w + 1 starts used).
         chart = terminal.new_full((N + 1, B, N, NT), NEG_INF)
         if nt_terminal is not None:
             chart[1] = nt_terminal
-        # won[w]: the block that won each cell, an index into kinds[w] (the blocks' names in
-        # order); its split and children are found again for the nodes of the best trees.
+        # won[w]: the block that won each cell (`_width_kernel`); its split and children are
+        # found again for the nodes of the best trees.
         won = torch.zeros((N + 1, B, N, NT), dtype=torch.int8)
-        kinds = {w: _kinds(w, min_w, T) for w in range(2, N + 1)}
         if N >= 2:
             _width_kernel()(chart.numpy(), won.numpy(), *_kernel_words(right_best, left_best,
                                                                        term, NT, T),
                             _array(rules_t), *_kernel_potential(span_pot, terminal.dtype),
                             min_w)
-        cells = {w: chart[w, :, :N - w + 1] for w in range(1, N + 1)}
 
     out: list[tuple[float, list[tuple[int, int, int]]] | None] = []
     found: dict[int, tuple[float, int, int]] = {}   # sentence -> (score, length, top symbol)
     for b in range(B):
         n = int(lengths[b])
-        if n == 1:
-            tops = cells[1][b, 0] if nt_terminal is not None else None
-            if tops is None:
-                out.append(None)
-                continue
-        else:
-            tops = cells[n][b, 0]
-        total = root[b] + tops
+        # A one-word sentence has a tree only where nonterminals emit words (else chart[1] is
+        # -inf throughout).
+        total = root[b] + chart[n, b, 0]
         score, sym = total.max(0)
         if not torch.isfinite(score):
             out.append(None)
             continue
         found[b] = (float(score), n, int(sym))
         out.append(None)
-    trees = _backtrace(chart, won, kinds, {b: (n, sym) for b, (_, n, sym) in found.items()},
+    trees = _backtrace(chart, won, {b: (n, sym) for b, (_, n, sym) in found.items()},
                        binary, term, right_best, left_best, min_w)
     for b, (score, _, _) in found.items():
         out[b] = (score, trees[b])
     return out
-
-
-_PAIR, _WORD_RIGHT, _WORD_LEFT, _TWO_WORDS, _NONE = \
-    "two constituents", "a word on the right", "a word on the left", "two words", "none"
-
-
-def _kinds(w: int, min_w: int, T: int) -> list[str]:
-    """The blocks that can build a span of width w, in the order ties go to the first: two
-    constituents (both at least `min_w` wide), a word on the right, on the left (a
-    constituent beside a word, when there are preterminals), two words (width 2); none when
-    no block fits (no rules can build such a span)."""
-    kinds = [_PAIR] if w - min_w >= min_w else []
-    if w - 1 >= min_w and T:
-        kinds += [_WORD_RIGHT, _WORD_LEFT]
-    if w == 2 and T:
-        kinds.append(_TWO_WORDS)
-    return kinds or [_NONE]
 
 
 def _kernel_words(right_best: Tensor | None, left_best: Tensor | None, term: Tensor, NT: int,
@@ -168,14 +143,15 @@ def _width_kernel():
     """The forward of `viterbi`, every width of every sentence, in a loop compiled by numba
     (compiled on first use, per dtype). For each span (b, start p) of width w it fills
     chart[w, b, p, x], the best score of nonterminal x over the span, and won[w, b, p, x],
-    the index of the block that gave it among `_kinds(w)` (the first on ties), from the
-    same float sums as a pass of torch operations would take:
+    the block that gave it (the first of these on ties; a span no block can build stays -inf),
+    from the same float sums as a pass of torch operations would take:
 
-    - two constituents: pairs[y, z] = max over splits u of chart[u, b, p, y] +
-      chart[w - u, b, p + u, z], then max over (y, z) of pairs[y, z] + rule[x, y, z];
-    - a word on the right: max over y of chart[w - 1, b, p, y] + right[b, p + w - 1, x, y];
-    - a word on the left: max over z of chart[w - 1, b, p + 1, z] + left[b, p, x, z];
-    - two words: max over y of term[b, p, y] + right[b, p + 1, x, NT + y];
+    - 0, two constituents (each at least `min_w` wide): pairs[y, z] = max over splits u of
+      chart[u, b, p, y] + chart[w - u, b, p + u, z], then max over (y, z) of pairs[y, z] +
+      rule[x, y, z];
+    - 1, a word on the right: max over y of chart[w - 1, b, p, y] + right[b, p + w - 1, x, y];
+    - 2, a word on the left: max over z of chart[w - 1, b, p + 1, z] + left[b, p, x, z];
+    - 3, two words: max over y of term[b, p, y] + right[b, p + 1, x, NT + y];
 
     then the span's potential is added. rules_t is the pair rules by column, (NT * NT, NT)."""
     @jit
@@ -235,7 +211,6 @@ def _width_kernel():
                             won[w, b, p0 + j, x] = 0
                 for p in range(P):
                     have = hi >= lo
-                    kind = 1 if have else 0
                     if w - 1 >= min_w and T:
                         for side in range(2):
                             for x in range(NT):
@@ -249,9 +224,8 @@ def _width_kernel():
                                         v = s
                                 if not have or v > chart[w, b, p, x]:
                                     chart[w, b, p, x] = v
-                                    won[w, b, p, x] = kind
+                                    won[w, b, p, x] = 1 + side
                             have = True
-                            kind += 1
                     if w == 2 and T:
                         for x in range(NT):
                             v = -np.inf
@@ -261,7 +235,7 @@ def _width_kernel():
                                     v = s
                             if not have or v > chart[w, b, p, x]:
                                 chart[w, b, p, x] = v
-                                won[w, b, p, x] = kind
+                                won[w, b, p, x] = 3
                         have = True
                     if has_pot:
                         for x in range(NT):
@@ -269,15 +243,11 @@ def _width_kernel():
     return widths
 
 
-_BLOCK_CODES = {_PAIR: 0, _WORD_RIGHT: 1, _WORD_LEFT: 2, _TWO_WORDS: 3, _NONE: 4}
-
-
-def _backtrace(chart: Tensor, won: Tensor, kinds: dict[int, list[str]],
-               tops: dict[int, tuple[int, int]], binary: Tensor, terminal: Tensor,
-               right_best: Tensor | None, left_best: Tensor | None,
+def _backtrace(chart: Tensor, won: Tensor, tops: dict[int, tuple[int, int]], binary: Tensor,
+               terminal: Tensor, right_best: Tensor | None, left_best: Tensor | None,
                min_w: int) -> dict[int, list[tuple[int, int, int]]]:
     """The best trees of the sentences `tops` (sentence b -> (length, top symbol)): at each
-    node, the block that won (`won`, an index into `kinds` of the node's width), then its split
+    node, the block that won (`won`, numbered as `_width_kernel` numbers them), then its split
     and children found again from the same float sums the forward took the maxima of (first on
     ties, as `max` and `argmax` take them: the first split of each child pair, then the first
     pair in row-major order; the constituent's first symbol beside a word), a word child
@@ -287,12 +257,9 @@ def _backtrace(chart: Tensor, won: Tensor, kinds: dict[int, list[str]],
     B, N, T = terminal.shape
     if not tops:
         return {}
-    codes = np.full((N + 1, 4), _BLOCK_CODES[_NONE], dtype=np.int8)
-    for w, names in kinds.items():
-        codes[w, :len(names)] = [_BLOCK_CODES[name] for name in names]
     roots = np.array([[b, n, sym] for b, (n, sym) in tops.items()], dtype=np.int64)
     nodes = np.zeros((int((2 * roots[:, 1] - 1).sum()), 3), dtype=np.int64)
-    _tree_kernel()(chart.numpy(), won.numpy(), codes, roots, _array(binary),
+    _tree_kernel()(chart.numpy(), won.numpy(), roots, _array(binary),
                    *_kernel_words(right_best, left_best, terminal, NT, T), min_w, nodes)
     out, at = {}, 0
     for b, n, _ in roots.tolist():
@@ -307,7 +274,7 @@ def _tree_kernel():
     child before the right, so that its nodes come out in pre-order, (start, width, symbol)
     rows of `nodes`, 2n - 1 per sentence of n words, sentence after sentence."""
     @jit
-    def trees(chart, won, codes, roots, binary, right, left, term, min_w, nodes):
+    def trees(chart, won, roots, binary, right, left, term, min_w, nodes):
         # pragma: no cover
         NT = chart.shape[3]
         T = term.shape[2]
@@ -324,7 +291,7 @@ def _tree_kernel():
                 at += 1
                 if w == 1:
                     continue
-                code = codes[w, won[w, b, i, x]]
+                code = won[w, b, i, x]
                 if code == 0:                          # two constituents
                     best, u, y, z = -np.inf, -1, -1, -1
                     for yy in range(NT):
