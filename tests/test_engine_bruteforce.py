@@ -91,6 +91,42 @@ def test_viterbi_over_a_batch_matches_enumeration(nt_emit):
         assert sorted(spans) == sorted(best_spans)
 
 
+@pytest.mark.parametrize("per_symbol", [False, True])
+def test_viterbi_with_span_probabilities_matches_enumeration(per_symbol):
+    # `span_prob`: probabilities whose logarithms the pass adds to each nonterminal over each
+    # span of two or more words (max-rule-product's label marginals), some of them zero (the
+    # span or label is ruled out). Reference: brute-force enumeration of every tree, each scored
+    # with those logarithms added; and the same pass given the logarithms as `span_pot`.
+    grammar = random_grammar(3, 2, 4, seed=11)
+    nt = len(grammar.nonterminals)
+    sentences = [_sentence(grammar, n, seed=40 + n) for n in (5, 3, 4)]
+    enc = encode(grammar, sentences, torch.float64)
+    gen = torch.Generator().manual_seed(5)
+    shape = (3, 6, 6, nt + 2) if per_symbol else (3, 6, 6)
+    prob = torch.rand(shape, generator=gen, dtype=torch.float64)
+    prob = prob.masked_fill(torch.rand(shape, generator=gen) < 0.15, 0.0)
+    args = (grammar.root, grammar.binary, enc.terminal, enc.lengths)
+    results = engine.viterbi(*args, span_prob=prob)
+    assert results == engine.viterbi(*args, span_pot=prob.log())
+    for b, (words, result) in enumerate(zip(sentences, results)):
+        best, best_spans = -math.inf, None
+        for lp, spans, _ in summary(grammar, words)["trees"]:
+            for i, j, x in spans:
+                if j - i >= 2:
+                    p = prob[b, i, j - i, x] if per_symbol else prob[b, i, j - i]
+                    lp += math.log(p) if p > 0 else -math.inf
+            if lp > best:
+                best, best_spans = lp, spans
+        if best == -math.inf:
+            assert result is None
+            continue
+        score, spans = result
+        assert score == pytest.approx(best, rel=1e-10)
+        assert sorted(spans) == sorted(best_spans)
+    with pytest.raises(ValueError, match="span_pot or span_prob"):
+        engine.viterbi(*args, span_pot=prob.log(), span_prob=prob)
+
+
 def test_viterbi_breaks_exact_ties_as_its_docstring_says():
     # Every rule and word score 0 (log 1): every tree of the sentence scores exactly 0, so the
     # tree is decided by the tie rules alone. Reference: worked by hand from `viterbi`'s

@@ -1235,9 +1235,8 @@ def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
     nt = len(grammar.nonterminals)
     B, N1, _, _ = tables.marginals.shape
     N = N1 - 1
-    # The logarithms read: the nonterminals' over every span, every symbol's over each word
-    # (the preterminals' columns over wider spans, most of the table, are never read).
-    span_log_mu = tables.marginals[..., :nt].log()                       # (B, N+1, N+1, NT)
+    # The logarithms read: every symbol's over each word here, the nonterminals' over the
+    # sentences' wider spans in the pass (`span_prob`: most of the table is never read).
     words = engine.log_unscaled(tables.scaled_inside[:, :N, 1], tables.scale[:, :N, 1, None]) \
         + tables.marginals[:, :N, 1].log()                               # (B, N, S)
     logz = tables.logz.masked_fill(~torch.isfinite(tables.logz), 0.0)
@@ -1245,7 +1244,8 @@ def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,
     # A grammar whose nonterminals emit words scores them at width one too.
     nt_words = words[..., :nt] if grammar.nonterminals_emit else None
     results = engine.viterbi(root, grammar.binary.to(words.dtype), words[..., nt:],
-                             torch.tensor(list(lengths)), nt_words, span_log_mu)
+                             torch.tensor(list(lengths)), nt_words,
+                             span_prob=tables.marginals)
     names = [lay.names[k] for k in lay.member.argmax(1).tolist()]        # per fine symbol
     parsed = torch.isfinite(tables.logz).tolist()
     return [None if res is None or not ok else

@@ -16,6 +16,7 @@ c - NT.
 from __future__ import annotations
 
 import functools
+import math
 
 import numpy as np
 import torch
@@ -43,11 +44,14 @@ def _best_of_word(term: Tensor, rules: Tensor) -> Tensor:
 
 
 def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
-            nt_terminal: Tensor | None = None, span_pot: Tensor | None = None
+            nt_terminal: Tensor | None = None, span_pot: Tensor | None = None,
+            span_prob: Tensor | None = None
             ) -> list[tuple[float, list[tuple[int, int, int]]] | None]:
     """The most probable tree of each sentence (arguments as in `engine.inside.log_partition`;
-    here `span_pot` may also be given per nonterminal, (B, N+1, N+1, NT), a log potential added
-    to each nonterminal's score over each span of width >= 2).
+    here `span_pot` may also be given per nonterminal, (B, N+1, N+1, C), a log potential added
+    to each nonterminal's score over each span of width >= 2, nonterminal x reading column x
+    (C >= NT: columns past NT are not read); or `span_prob`, of the same shapes, probabilities
+    whose logarithms are added, taken for the cells within the sentences alone).
 
     Returns per sentence (log-probability, spans) with spans (start, end, symbol) in pre-order,
     one-word spans included, or None when the sentence has no parse.
@@ -89,22 +93,18 @@ def viterbi(root: Tensor, binary: Tensor, terminal: Tensor, lengths: Tensor,
         if N >= 2:
             _width_kernel()(chart.numpy(), won.numpy(), *_kernel_words(right_best, left_best,
                                                                        term, NT, T),
-                            _array(rules_t), *_kernel_potential(span_pot, terminal.dtype),
-                            min_w)
+                            _array(rules_t),
+                            *_kernel_potential(span_pot, span_prob, terminal.dtype), min_w)
 
-    out: list[tuple[float, list[tuple[int, int, int]]] | None] = []
+    # A one-word sentence has a tree only where nonterminals emit words (else chart[1] is -inf
+    # throughout).
+    totals = root + chart[lengths, torch.arange(B), 0]                   # (B, NT)
+    scores, syms = totals.max(1)
     found: dict[int, tuple[float, int, int]] = {}   # sentence -> (score, length, top symbol)
-    for b in range(B):
-        n = int(lengths[b])
-        # A one-word sentence has a tree only where nonterminals emit words (else chart[1] is
-        # -inf throughout).
-        total = root[b] + chart[n, b, 0]
-        score, sym = total.max(0)
-        if not torch.isfinite(score):
-            out.append(None)
-            continue
-        found[b] = (float(score), n, int(sym))
-        out.append(None)
+    for b, (score, n, sym) in enumerate(zip(scores.tolist(), lengths.tolist(), syms.tolist())):
+        if math.isfinite(score):
+            found[b] = (score, n, sym)
+    out: list[tuple[float, list[tuple[int, int, int]]] | None] = [None] * B
     trees = _backtrace(chart, won, {b: (n, sym) for b, (_, n, sym) in found.items()},
                        binary, term, right_best, left_best, min_w)
     for b, (score, _, _) in found.items():
@@ -129,13 +129,19 @@ def _array(x: Tensor) -> np.ndarray:
     return x.detach().contiguous().numpy()
 
 
-def _kernel_potential(span_pot: Tensor | None, dtype: torch.dtype) -> tuple:
-    """`span_pot` as `_width_kernel` reads it: (B, N+1, N+1, C) in the chart's dtype, with
-    C = NT (per nonterminal) or 1 (one per span), and whether there is one at all."""
-    if span_pot is None:
-        return torch.zeros((1, 1, 1, 1), dtype=dtype).numpy(), False
-    pot = span_pot if span_pot.dim() == 4 else span_pot[..., None]
-    return _array(pot.to(dtype)), True
+def _kernel_potential(span_pot: Tensor | None, span_prob: Tensor | None,
+                      dtype: torch.dtype) -> tuple:
+    """The potential as `_width_kernel` reads it: (B, N+1, N+1, C) in the chart's dtype, with
+    C = 1 (one per span) or per symbol (C >= NT: the first NT columns are read), and its kind:
+    0 none, 1 `span_pot` (log), 2 `span_prob` (probabilities, whose logarithms the kernel
+    takes)."""
+    if span_pot is not None and span_prob is not None:
+        raise ValueError("viterbi takes span_pot or span_prob, not both")
+    given = span_pot if span_prob is None else span_prob
+    if given is None:
+        return torch.zeros((1, 1, 1, 1), dtype=dtype).numpy(), 0
+    pot = given if given.dim() == 4 else given[..., None]
+    return _array(pot.to(dtype)), 1 if span_prob is None else 2
 
 
 @functools.cache
@@ -153,9 +159,10 @@ def _width_kernel():
     - 2, a word on the left: max over z of chart[w - 1, b, p + 1, z] + left[b, p, x, z];
     - 3, two words: max over y of term[b, p, y] + right[b, p + 1, x, NT + y];
 
-    then the span's potential is added. rules_t is the pair rules by column, (NT * NT, NT)."""
+    then the span's potential is added (pot_kind 1; 2: its logarithm). rules_t is the pair rules
+    by column, (NT * NT, NT)."""
     @jit
-    def widths(chart, won, right, left, term, rules_t, pot, has_pot, min_w):  # pragma: no cover
+    def widths(chart, won, right, left, term, rules_t, pot, pot_kind, min_w):  # pragma: no cover
         N1, B, N, NT = chart.shape
         T = term.shape[2]
         K = NT * NT
@@ -237,9 +244,13 @@ def _width_kernel():
                                 chart[w, b, p, x] = v
                                 won[w, b, p, x] = 3
                         have = True
-                    if has_pot:
+                    if pot_kind == 1:
                         for x in range(NT):
                             chart[w, b, p, x] += pot[b, p, w, x if pot.shape[3] > 1 else 0]
+                    elif pot_kind == 2:
+                        for x in range(NT):
+                            chart[w, b, p, x] += np.log(pot[b, p, w,
+                                                            x if pot.shape[3] > 1 else 0])
     return widths
 
 
