@@ -50,6 +50,7 @@ from treewright import engine
 from treewright.corpus.batching import DECODE_BATCH, length_batches
 from treewright.corpus.transforms import has_transform_marks, treebank_form
 from treewright.grammar import Grammar, coarse_name
+from treewright.engine import anchored
 from treewright.engine.lexicalized import LexicalizedParse
 from treewright.engine.maxplus import MaxPlusWeights, max_plus
 from treewright.errors import InputError
@@ -239,7 +240,7 @@ class CoarseLayout:
     no nonterminal: rules[x, a, (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K), in the
     order `max_rule_product` reads them. `blocks` holds the same rules by coarse rule, each
     rule's G**3 subcategory rules contiguous: blocks[x, y, z, (a, b, c)] = p(x_a -> y_b z_c),
-    (Kp, K, K, G**3), as the pruned pass (`_max_rule_product_items`) gathers them.
+    (Kp, K, K, G**3), as the pruned pass (`_max_rule_product_items`) reads them.
 
     Factored rules (`of_rules`: independent productions, low-rank) have no rule tensor: every
     symbol is its own coarse symbol (G = 1, `member` None for the identity), `rules` and
@@ -301,12 +302,6 @@ class CoarseLayout:
         out[:, :, 1] = one.log()
         out[:, :, 2:, :kp] = wide.log()
         return out
-
-    def rule_block(self, x: Tensor, y: Tensor, z: Tensor) -> Tensor:
-        """(m, G**3) p(x_a -> y_b z_c) of the coarse rules (x, y, z), (a, b, c) in order."""
-        if self.blocks is not None:
-            return self.blocks[x, y, z]
-        return self.binary_logprob(x, y, z).exp()[:, None]
 
 
 MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
@@ -725,13 +720,18 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
 
 # The item pass's cost per anchored rule, in units of the chart pass's multiply-adds:
 # ITEM_OVERHEAD + ITEM_PER_ENTRY * G**3. Measured on the 2-core development machine (one thread,
-# float64, EM-trained and refined grammars of 20/30 to 30/60 symbols and G = 1, 2, 4): an
-# anchored rule took 190-300 ns (G <= 2) and 1.2 us (G = 4), a chart multiply-add 0.3-0.7 ns.
-ITEM_OVERHEAD = 400
-ITEM_PER_ENTRY = 20
+# float64, 2026-12-05, since the pass is a compiled loop: `engine.anchored`), on a refined
+# Turkish grammar (G = 4, 20 coarse parents), the refined demo grammar (G = 4), EM-trained
+# random grammars of 20/30 (G = 2) and 30/60 symbols (G = 1) and the Turkish token grammar
+# (G = 1): an anchored rule took 31-70 ns on batches of over 100,000 (plus about 3 ms a call),
+# a chart multiply-add 0.3-1.3 ns (a max-add of the unrefined pass 0.5-0.8 ns a
+# `VITERBI_UNIT`): 45-230 units a rule, nearer 50 where G is small.
+ITEM_OVERHEAD = 50
+ITEM_PER_ENTRY = 1
 REFINED_CHART_ROWS = 16  # sentences per call of the refined chart pass (at 32 it ran 5-25%
                          # slower on the random benchmark grammars, whose posteriors keep all)
-ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass (about 100 bytes each)
+ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass on factored rules, which
+                         # lists them (about 100 bytes each); rule blocks need no list
 FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no chart pass)
 
 
@@ -748,11 +748,11 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     otherwise, and for the sentences without a floor. One choice for the batch: the chart pass
     runs span width by span width over every sentence it is given, so a part of a batch costs
     it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
-    item pass takes its sentences in groups of at most `ITEMS_AT_ONCE` anchored rules (a
-    sentence with more goes alone). `known`: the `_kept_labels` under this floor and their
-    `_pass_costs`, when the caller has them. Returns the results, the
-    (B,) best log scores and the floors the passes held (-inf where the pass left nothing out:
-    the max-semiring pass of an unrefined grammar)."""
+    item pass takes its sentences together, on factored rules in groups of at most
+    `ITEMS_AT_ONCE` anchored rules (a sentence with more goes alone). `known`: the
+    `_kept_labels` under this floor and their `_pass_costs`, when the caller has them. Returns
+    the results, the (B,) best log scores and the floors the passes held (-inf where the pass
+    left nothing out: the max-semiring pass of an unrefined grammar)."""
     B = len(lengths)
     dtype = tables.marginals.dtype
     K, G = lay.slots.shape
@@ -786,9 +786,10 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
         groups += [(chart_pass, rows[r0:r0 + step]) for r0 in range(0, len(rows), step)]
     rows = by_items.nonzero().flatten().tolist()
     counts = rules.tolist()
+    at_once = ITEMS_AT_ONCE if lay.blocks is None else math.inf
     while rows:
         total, end = counts[rows[0]], 1
-        while end < len(rows) and total + counts[rows[end]] <= ITEMS_AT_ONCE:
+        while end < len(rows) and total + counts[rows[end]] <= at_once:
             total += counts[rows[end]]
             end += 1
         groups.append((_max_rule_product_items, torch.tensor(rows[:end])))
@@ -1091,16 +1092,16 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     therefore scores below it, and leaving every such span out loses no tree that reaches the
     floor. What is left of a trained grammar's chart is a few labels per span (items).
 
-    The anchored coarse rules among the items (parent item, split, left item, right item) are
-    listed up front, and each one's log q(x -> y z, i, k, j) = log sum_{a,b,c} O(x_a) p(x_a ->
-    y_b z_c) I(y_b) I(z_c) (Petrov & Klein 2007, section 3; O is the outside score over Z) is
-    computed for all of them at once: it does not depend on the best subtrees. Only the
-    maximization runs one width at a time: best(item) = max over its anchored rules of
-    log q + best(left) + best(right), a gather and a scatter per width. Ties go to the first
-    split, then the first (left, right) pair, as in `_max_rule_product_refined`. Returns the
-    results and the (B,) best log scores (-inf where no tree reaches the floor). `within`
-    (B, N+1, N+1, K) bool, when given, keeps the labeled spans it marks only: the best tree
-    among those that use no other. `coarse_log` and `bound` as in
+    Over the anchored coarse rules among the items (parent item, split, left item, right item),
+    with log q(x -> y z, i, k, j) = log sum_{a,b,c} O(x_a) p(x_a -> y_b z_c) I(y_b) I(z_c)
+    (Petrov & Klein 2007, section 3; O is the outside score over Z), best(item) = max over its
+    anchored rules of log q + best(left) + best(right), narrow items first: one compiled loop
+    over the rules that reads the rule blocks in place (`engine.anchored.best_derivations`;
+    factored rules, which have no blocks, list their rules and compute log q first). Ties go
+    to the first split, then the first (left, right) pair, as in `_max_rule_product_refined`.
+    Returns the results and the (B,) best log scores (-inf where no tree reaches the floor).
+    `within` (B, N+1, N+1, K) bool, when given, keeps the labeled spans it marks only: the best
+    tree among those that use no other. `coarse_log` and `bound` as in
     `_max_rule_product_refined`; `kept`, when given, is `_kept_labels` of them (made here
     otherwise).
     """
@@ -1125,62 +1126,24 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     # per item.
     inside_hat, inside_max = _rescaled(tables.scaled_inside, ib, ii, iw,
                                        tables.scale[ib, ii, iw], lay.slots[ik])  # (items, G)
-    # Parent items, by width; for each, its splits; for each split, every (left, right) pair
-    # of items of the two child cells: the anchored rules, in (parent, split, left, right)
-    # order.
+    # Parent items, by width (a parent's children are narrower: their best is final when it is
+    # read).
     parents = (iw > 1).nonzero().flatten()
     parents = parents[iw[parents].argsort(stable=True)]
     pw = iw[parents]
-    of_split, u = _splits(pw)
-    sb, si, sw = ib[parents][of_split], ii[parents][of_split], pw[of_split]
-    left_first, left_n = cell_first[sb, si, u], cell_count[sb, si, u]
-    right_first, right_n = cell_first[sb, si + u, sw - u], cell_count[sb, si + u, sw - u]
-    pairs = left_n * right_n
-    of_rule = torch.repeat_interleave(torch.arange(len(pairs)), pairs)
-    t = torch.arange(len(of_rule)) - (pairs.cumsum(0) - pairs)[of_rule]
-    rn = right_n[of_rule]
-    left = left_first[of_rule] + t.div(rn, rounding_mode="floor")
-    right = right_first[of_rule] + t.remainder(rn)
-    rule_parent = of_split[of_rule]                                      # index into `parents`
-    # log q of every anchored rule, in chunks of MRP_CHUNK rule entries. Parent slots hold
-    # nonterminals (index NT and up: none).
-    pitem = parents[rule_parent]
     pb, pi = ib[parents], ii[parents]
     outside_hat, outside_max = _rescaled(tables.scaled_outside, pb, pi, pw,
                                          -tables.scale[pb, pi, pw],
                                          lay.slots[ik[parents]])         # (parents, G)
-    log_q = torch.empty(len(of_rule), dtype=dtype)
-    chunk = max(1, MRP_CHUNK // G ** 3)
-    for r0 in range(0, len(of_rule), chunk):
-        sl = slice(r0, r0 + chunk)
-        rp, rl, rr = rule_parent[sl], left[sl], right[sl]
-        block = lay.rule_block(ik[pitem[sl]], ik[rl], ik[rr]).view(-1, G, G * G)  # [a, (b, c)]
-        over_a = torch.bmm(outside_hat[rp, None, :], block).view(-1, G, G)      # [b, c]
-        over_c = torch.bmm(over_a, inside_hat[rr, :, None])                     # [b]
-        total = torch.bmm(inside_hat[rl, None, :], over_c).flatten()
-        log_q[sl] = total.log() + outside_max[rp] + inside_max[rl] + inside_max[rr]
-    # The maximization, one width at a time. Items are renumbered words first, then parents
-    # by width, so that each width's rules (in parent order) write to one stretch of `best`.
-    words = (iw == 1).nonzero().flatten()
-    W, R = len(words), len(of_rule)
-    order = torch.cat([words, parents])
-    at = torch.empty_like(order)
-    at[order] = torch.arange(len(order))
-    ib, ii, iw, ik = ib[order], ii[order], iw[order], ik[order]
-    best = best[order]
-    left, right, rule_at = at[left], at[right], rule_parent + W
-    back = torch.full((len(order),), R, dtype=torch.long)
-    number = torch.arange(R)
-    bounds = torch.searchsorted(pw[rule_parent], torch.arange(2, int(n.max()) + 2)).tolist()
-    for r0, r1 in zip(bounds[:-1], bounds[1:]):
-        if r1 == r0:
-            continue
-        target = rule_at[r0:r1]
-        score = log_q[r0:r1] + best.index_select(0, left[r0:r1]) + \
-            best.index_select(0, right[r0:r1])
-        best.scatter_reduce_(0, target, score, "amax")
-        winner = torch.where(score == best.index_select(0, target), number[r0:r1], R)
-        back.scatter_reduce_(0, target, winner, "amin")       # the first best rule
+    # Factored rules have no rule blocks: the posteriors of their anchored rules are computed
+    # here, in the order the compiled pass takes them (`_factored_log_q`).
+    log_q = None if lay.blocks is not None else \
+        _factored_log_q(lay, ik, parents, cell_first, cell_count, ib, ii, pw, inside_hat,
+                        inside_max, outside_hat, outside_max)
+    back = anchored.best_derivations(lay.blocks, outside_hat, outside_max, inside_hat,
+                                     inside_max, coarse_log[ib, ii, iw, ik], ib, ii, iw, ik,
+                                     cell_first, cell_count, parents, best, log_q,
+                                     _slack(dtype))                      # (items, 2)
     # The top label: its posterior closes the score; first best symbol of the whole span.
     root = (ii == 0) & (iw == n[ib])
     root_items = root.nonzero().flatten()
@@ -1197,8 +1160,7 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     while len(item):
         found.append(item)
         item = item[iw[item] > 1]
-        rule = back[item]
-        item = torch.cat([left[rule], right[rule]])
+        item = torch.cat([back[item, 0], back[item, 1]])
     spans: list[list[tuple[int, int, str]]] = [[] for _ in range(B)]
     if found:
         item = torch.cat(found)
@@ -1213,6 +1175,35 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     values = top_value.tolist()
     return [(spans[k], values[k]) if ok else None for k, ok in enumerate(parsed.tolist())], \
         top_value.masked_fill(~parsed, NEG_INF)
+
+
+def _factored_log_q(lay: CoarseLayout, ik: Tensor, parents: Tensor, cell_first: Tensor,
+                    cell_count: Tensor, ib: Tensor, ii: Tensor, pw: Tensor, inside_hat: Tensor,
+                    inside_max: Tensor, outside_hat: Tensor, outside_max: Tensor) -> Tensor:
+    """For `_max_rule_product_items` on factored rules (no rule blocks; every symbol its own
+    coarse symbol, G = 1): log q of every anchored rule among the items, in the order
+    `anchored.best_derivations` takes them (parent item as `parents` orders them, split, left
+    item, right item), in chunks of `MRP_CHUNK`."""
+    of_split, u = _splits(pw)
+    sb, si, sw = ib[parents][of_split], ii[parents][of_split], pw[of_split]
+    left_first, left_n = cell_first[sb, si, u], cell_count[sb, si, u]
+    right_first, right_n = cell_first[sb, si + u, sw - u], cell_count[sb, si + u, sw - u]
+    pairs = left_n * right_n
+    of_rule = torch.repeat_interleave(torch.arange(len(pairs)), pairs)
+    t = torch.arange(len(of_rule)) - (pairs.cumsum(0) - pairs)[of_rule]
+    rn = right_n[of_rule]
+    left = left_first[of_rule] + t.div(rn, rounding_mode="floor")
+    right = right_first[of_rule] + t.remainder(rn)
+    rule_parent = of_split[of_rule]                                      # index into `parents`
+    pitem = parents[rule_parent]
+    log_q = torch.empty(len(of_rule), dtype=inside_hat.dtype)
+    for r0 in range(0, len(of_rule), MRP_CHUNK):
+        sl = slice(r0, r0 + MRP_CHUNK)
+        rp, rl, rr = rule_parent[sl], left[sl], right[sl]
+        rule = lay.binary_logprob(ik[pitem[sl]], ik[rl], ik[rr]).exp()
+        total = inside_hat[rl, 0] * (outside_hat[rp, 0] * rule * inside_hat[rr, 0])
+        log_q[sl] = total.log() + outside_max[rp] + inside_max[rl] + inside_max[rr]
+    return log_q
 
 
 def _max_rule_product_unrefined(grammar: Grammar, tables: engine.SpanTables,

@@ -1,0 +1,165 @@
+"""The compiled best-derivation loop of max-rule-product's item pass (`engine.anchored`), against
+a plain Python walk over every anchored rule (brute force over the rules the docstring
+defines). That this recursion is max-rule-product's objective is checked against enumeration
+of every tree in tests/test_decode.py."""
+
+import math
+import random
+
+import pytest
+import torch
+
+from treewright.engine import anchored
+
+
+def random_items(seed: int, K: int = 4, G: int = 3, B: int = 2, N: int = 5):
+    """Random items over B sentences of N words: every cell of width one holds 1-2 labels, wider
+    cells 0-3 coarse parents (symbols below Kp = K - 1), laid out as the decoder lists them;
+    random nonnegative scores with some zero slots, rule blocks with some zero entries."""
+    rng = random.Random(seed)
+    Kp = K - 1
+    cells = {}
+    for b in range(B):
+        for w in range(1, N + 1):
+            for i in range(N - w + 1):
+                pool = range(K) if w == 1 else range(Kp)
+                count = rng.randint(1, 2) if w == 1 else rng.randint(0, 3)
+                cells[b, i, w] = sorted(rng.sample(list(pool), min(count, len(pool))))
+    ib, ii, iw, ik = [], [], [], []
+    cell_first = torch.zeros((B, N + 1, N + 1), dtype=torch.long)
+    cell_count = torch.zeros((B, N + 1, N + 1), dtype=torch.long)
+    for (b, i, w), labels in sorted(cells.items()):
+        cell_first[b, i, w], cell_count[b, i, w] = len(ib), len(labels)
+        for x in labels:
+            ib.append(b), ii.append(i), iw.append(w), ik.append(x)
+    items = len(ib)
+    gen = torch.Generator().manual_seed(seed)
+
+    def scores(rows):
+        x = torch.rand((rows, G), generator=gen, dtype=torch.float64)
+        return x.masked_fill(torch.rand((rows, G), generator=gen) < 0.3, 0.0)
+
+    ib, ii, iw, ik = (torch.tensor(v, dtype=torch.long) for v in (ib, ii, iw, ik))
+    parents = (iw > 1).nonzero().flatten()
+    parents = parents[iw[parents].argsort(stable=True)]
+    blocks = torch.rand((Kp, K, K, G ** 3), generator=gen, dtype=torch.float64)
+    blocks = blocks.masked_fill(torch.rand(blocks.shape, generator=gen) < 0.2, 0.0)
+    best = torch.where(iw == 1, -torch.rand(items, generator=gen, dtype=torch.float64) * 3,
+                       -math.inf)
+    return dict(blocks=blocks, parent=scores(len(parents)),
+                parent_max=torch.randn(len(parents), generator=gen, dtype=torch.float64),
+                inside=scores(items),
+                inside_max=torch.randn(items, generator=gen, dtype=torch.float64),
+                ib=ib, ii=ii, iw=iw, ik=ik, cell_first=cell_first, cell_count=cell_count,
+                parents=parents, best=best)
+
+
+def rules_of(d):
+    """Every anchored rule in the loop's order: (parent row, left item, right item)."""
+    out = []
+    for p, item in enumerate(d["parents"].tolist()):
+        b, i, w = int(d["ib"][item]), int(d["ii"][item]), int(d["iw"][item])
+        for u in range(1, w):
+            f, c = int(d["cell_first"][b, i, u]), int(d["cell_count"][b, i, u])
+            rf, rc = int(d["cell_first"][b, i + u, w - u]), int(d["cell_count"][b, i + u, w - u])
+            out += [(p, lft, rgt) for lft in range(f, f + c) for rgt in range(rf, rf + rc)]
+    return out
+
+
+def log_q_of(d, p, lft, rgt) -> float:
+    """log q of one anchored rule, every term of the triple sum taken."""
+    G = d["parent"].shape[1]
+    x = int(d["ik"][d["parents"][p]])
+    block = d["blocks"][x, d["ik"][lft], d["ik"][rgt]].view(G, G, G)
+    total = sum(float(d["parent"][p, a] * block[a, b, c] * d["inside"][lft, b] *
+                      d["inside"][rgt, c])
+                for a in range(G) for b in range(G) for c in range(G))
+    return (math.log(total) if total > 0 else -math.inf) + float(d["parent_max"][p]) + \
+        float(d["inside_max"][lft]) + float(d["inside_max"][rgt])
+
+
+def reference(d):
+    """The recursion over every rule, narrow parents first: each parent's best is the first
+    rule with the largest log q + best(left) + best(right)."""
+    best = d["best"].tolist()
+    back = {}
+    rules = rules_of(d)
+    for p, item in enumerate(d["parents"].tolist()):
+        top, arg = -math.inf, None
+        for _, lft, rgt in (r for r in rules if r[0] == p):
+            score = log_q_of(d, p, lft, rgt) + best[lft] + best[rgt]
+            if arg is None or score > top:
+                top, arg = score, (lft, rgt)
+        best[item] = top
+        back[item] = arg if arg is not None else (-1, -1)
+    return best, back
+
+
+def run(d, log_mu, log_q=None, blocks=True):
+    best = d["best"].clone()
+    back = anchored.best_derivations(d["blocks"] if blocks else None, d["parent"],
+                                     d["parent_max"], d["inside"], d["inside_max"], log_mu,
+                                     d["ib"], d["ii"], d["iw"], d["ik"], d["cell_first"],
+                                     d["cell_count"], d["parents"], best, log_q)
+    return best, back
+
+
+def check(d, best, back):
+    expect_best, expect_back = reference(d)
+    items = d["parents"].tolist()
+    assert best[items].tolist() == pytest.approx([expect_best[k] for k in items], abs=1e-12)
+    assert [tuple(back[k].tolist()) for k in items] == [expect_back[k] for k in items]
+    words = (d["iw"] == 1).nonzero().flatten()
+    assert torch.equal(best[words], d["best"][words])           # words are left as given
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_best_derivations_equal_every_rule_walked(seed):
+    d = random_items(seed)
+    assert len(rules_of(d)) > 20
+    no_bound = torch.full((len(d["ib"]),), math.inf, dtype=torch.float64)
+    check(d, *run(d, no_bound))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_the_bound_leaves_out_only_rules_that_cannot_win(seed):
+    # With each item's log_mu at the largest log q of any rule it takes part in (a valid upper
+    # bound, as a label marginal is for real posteriors), the bound leaves rules out, yet every
+    # best and back pointer is the same.
+    d = random_items(seed)
+    log_mu = torch.full((len(d["ib"]),), -math.inf, dtype=torch.float64)
+    for p, lft, rgt in rules_of(d):
+        q = log_q_of(d, p, lft, rgt) + 1e-9
+        for item in (int(d["parents"][p]), lft, rgt):
+            log_mu[item] = max(float(log_mu[item]), q)
+    check(d, *run(d, log_mu))
+
+
+def test_factored_rules_read_each_rule_s_log_q_in_order():
+    # Without rule blocks, the loop reads log q per anchored rule in its own order: given the
+    # reference's log q, it finds the same bests as with the blocks.
+    d = random_items(3)
+    log_q = torch.tensor([log_q_of(d, *r) for r in rules_of(d)], dtype=torch.float64)
+    no_bound = torch.full((len(d["ib"]),), math.inf, dtype=torch.float64)
+    check(d, *run(d, no_bound, log_q=log_q, blocks=False))
+
+
+def test_ties_go_to_the_first_rule():
+    # Every rule block equal and every score equal: each parent's rules tie, and the first
+    # (narrowest left child, then first left and right item) wins.
+    d = random_items(1)
+    d["blocks"].fill_(0.5)
+    d["parent"].fill_(1.0)
+    d["inside"].fill_(1.0)
+    d["parent_max"].zero_()
+    d["inside_max"].zero_()
+    d["best"] = torch.where(d["iw"] == 1, 0.0, -math.inf).to(torch.float64)
+    no_bound = torch.full((len(d["ib"]),), math.inf, dtype=torch.float64)
+    best, back = run(d, no_bound)
+    check(d, best, back)
+
+
+def test_without_blocks_or_log_q_it_refuses():
+    d = random_items(0)
+    with pytest.raises(ValueError, match="rule blocks or every rule's log q"):
+        run(d, d["best"], log_q=None, blocks=False)
