@@ -83,12 +83,17 @@ def test_viterbi_over_a_batch_matches_enumeration(nt_emit):
                              enc.nt_terminal)
     for words, result in zip(sentences, results):
         best_lp, best_spans, _ = summary(grammar, words)["best"]
-        if best_lp == -math.inf:
-            assert result is None
-            continue
-        score, spans = result
-        assert score == pytest.approx(best_lp, rel=1e-10)
-        assert sorted(spans) == sorted(best_spans)
+        assert_best_tree(result, best_lp, best_spans)
+
+
+def assert_best_tree(result, best_lp: float, best_spans) -> None:
+    """A Viterbi result is the enumerated best tree, or None where no tree scores above -inf."""
+    if best_lp == -math.inf:
+        assert result is None
+        return
+    score, spans = result
+    assert score == pytest.approx(best_lp, rel=1e-10)
+    assert sorted(spans) == sorted(best_spans)
 
 
 @pytest.mark.parametrize("per_symbol", [False, True])
@@ -117,12 +122,7 @@ def test_viterbi_with_span_probabilities_matches_enumeration(per_symbol):
                     lp += math.log(p) if p > 0 else -math.inf
             if lp > best:
                 best, best_spans = lp, spans
-        if best == -math.inf:
-            assert result is None
-            continue
-        score, spans = result
-        assert score == pytest.approx(best, rel=1e-10)
-        assert sorted(spans) == sorted(best_spans)
+        assert_best_tree(result, best, best_spans)
     with pytest.raises(ValueError, match="span_pot or span_prob"):
         engine.viterbi(*args, span_pot=prob.log(), span_prob=prob)
 
