@@ -1,4 +1,5 @@
-"""Loops compiled to machine code (numba), for the max-semiring work that has no BLAS kernel.
+"""Loops compiled to machine code (numba), for the max-semiring work that has no BLAS kernel
+and for max-rule-product's walk over anchored rules (`engine.anchored`), one tiny sum each.
 
 `jit` compiles a function of numpy arrays on its first call, once per argument types. The
 machine code is cached on disk beside the module (or, where that folder cannot be written, in
