@@ -1121,7 +1121,8 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     cell_count = kept.sum(-1)                                            # (B, N+1, N+1)
     cell_first = cell_count.flatten().cumsum(0).view(B, N1, N1) - cell_count
     ib, ii, iw, ik = kept.nonzero().unbind(1)
-    best = coarse_log[ib, ii, iw, ik].masked_fill(iw > 1, NEG_INF)      # words: their label
+    label_log = coarse_log[ib, ii, iw, ik]                              # each item's log mu
+    best = label_log.masked_fill(iw > 1, NEG_INF)                        # words: their label
     # Each item's inside scores over its subcategory slots (index S: none), out of log space
     # per item.
     inside_hat, inside_max = _rescaled(tables.scaled_inside, ib, ii, iw,
@@ -1141,7 +1142,7 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
         _factored_log_q(lay, ik, parents, cell_first, cell_count, ib, ii, pw, inside_hat,
                         inside_max, outside_hat, outside_max)
     back = anchored.best_derivations(lay.blocks, outside_hat, outside_max, inside_hat,
-                                     inside_max, coarse_log[ib, ii, iw, ik], ib, ii, iw, ik,
+                                     inside_max, label_log, ib, ii, iw, ik,
                                      cell_first, cell_count, parents, best, log_q,
                                      _slack(dtype))                      # (items, 2)
     # The top label: its posterior closes the score; first best symbol of the whole span.
