@@ -22,6 +22,7 @@ from treewright.engine import maxplus
 from treewright.decode import (TreeScorer, coarse_name, consensus, decode, max_rule_product,
                                mbr_decode, mbr_spans, span_tables, tree_logprob_summed)
 from _grammars import random_grammar
+from treewright.errors import InputError
 from treewright.grammar import Grammar
 from treewright.trees import Tree, tree_from_spans
 from treewright.vocab import Vocabulary
@@ -636,6 +637,18 @@ def test_tree_scorer_on_one_symbol_labels_sums_the_rules():
         assert len(got) == len(expect) > 40
         for value, reference in zip(got, expect):
             assert value == pytest.approx(reference, abs=1e-10)
+
+
+def test_max_rule_product_refuses_a_rule_layout_over_its_memory_cap(monkeypatch):
+    # The layout of REFINED: 2 coarse parents (S, X), 4 coarse symbols, G = 2 subcategories:
+    # 2 * 2 * 2 * (4 * 2)**2 = 512 float64 entries, 4,096 bytes (counted by hand).
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 4096)
+    decode_module.CoarseLayout.of(REFINED, torch.float64)                # at the cap: made
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 4095)
+    with pytest.raises(InputError, match=r"2 coarse nonterminals, 4 coarse symbols, up to 2 "
+                                         r"subcategories each.*decode with viterbi or mbr"):
+        decode(REFINED, [["w0", "w1"]], "max-rule-product")
+    assert decode(REFINED, [["w0", "w1"]], "mbr")[0].tree is not None
 
 
 def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():

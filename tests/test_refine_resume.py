@@ -134,3 +134,19 @@ def test_the_caller_chooses_the_held_out_parser(corpora, tmp_path):
     for m in result.metrics:
         assert (m["heldout/labeled_precision"], m["heldout/labeled_recall"],
                 m["heldout/labeled_f1"]) == (0.0, 0.0, 0.0)
+
+
+def test_a_grammar_too_large_for_the_f1_decoder_ends_its_run_without_that_f1(
+        corpora, tmp_path, monkeypatch):
+    # max-rule-product refuses a rule layout over decode.MRP_LAYOUT_AT_MOST (here any): the
+    # run still ends, with its grammar and every other metric, and its log says why the cycles
+    # have no held-out F1.
+    import treewright.decode as decode_module
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
+    run = tmp_path / "run"
+    result = refine(_config(corpora, "treebank", run), run)
+    assert [m["cycle"] for m in result.metrics] == [0, 1, 2, 3]
+    assert all("heldout/labeled_f1" not in m and "heldout/loglik" in m for m in result.metrics)
+    assert (run / "grammar.pcfg").exists()
+    log = (run / "refine.log").read_text(encoding="utf-8")
+    assert log.count("held-out labeled F1 not measured: max-rule-product on this grammar") == 4

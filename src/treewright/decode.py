@@ -268,6 +268,14 @@ class CoarseLayout:
             slots[k, :len(fine)] = fine
         coarse_of = member.argmax(1)
         kp = int(coarse_of[:nt].max()) + 1 if nt else 0
+        size = 2 * kp * G * (K * G) ** 2 * torch.finfo(dtype).bits // 8   # rules and blocks
+        if size > MRP_LAYOUT_AT_MOST:
+            raise InputError(
+                f"max-rule-product on this grammar would hold its rules by coarse rule in "
+                f"{size / 2 ** 30:.1f} GiB ({kp} coarse nonterminals, {K} coarse symbols, up "
+                f"to {G} subcategories each: {G}**3 rules per coarse rule), over the "
+                f"{MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode with viterbi or mbr, "
+                f"or refine with fewer split-merge cycles")
         prob = torch.zeros(nt + 1, S + 1, S + 1, dtype=dtype)            # index NT, S: zero
         prob[:nt, :S, :S] = grammar.binary.to(dtype).exp()
         parent = slots[:kp].masked_fill(slots[:kp] >= nt, nt)            # (Kp, G)
@@ -305,6 +313,9 @@ class CoarseLayout:
 
 
 MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
+MRP_LAYOUT_AT_MOST = 2 ** 33  # bytes of max-rule-product's two rule layouts (`CoarseLayout`),
+                              # Kp K**2 G**3 entries each: 1.8 GiB each in float64 at 24
+                              # coarse parents, 50 coarse symbols and G = 16 (four cycles)
 PRUNE_NATS_PER_WORD = 1.5  # max-rule-product's first floor: log mu >= -1.5 nats per word
 PRUNE_AT_MOST = 0.5        # ... used only when it leaves out at least half the pairs
 UNREFINED_PRUNE_FROM = 3_000_000  # an unrefined grammar's chart pass per sentence (mean over
