@@ -645,10 +645,15 @@ def test_max_rule_product_refuses_a_rule_layout_over_its_memory_cap(monkeypatch)
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 4096)
     decode_module.CoarseLayout.of(REFINED, torch.float64)                # at the cap: made
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 4095)
-    with pytest.raises(InputError, match=r"2 coarse nonterminals, 4 coarse symbols, up to 2 "
-                                         r"subcategories each.*decode with viterbi or mbr"):
+    with pytest.raises(InputError, match=r"2 coarse nonterminals, 4 coarse symbols, at most 2 "
+                                         r"subcategories a symbol.*decode with viterbi or mbr"):
         decode(REFINED, [["w0", "w1"]], "max-rule-product")
     assert decode(REFINED, [["w0", "w1"]], "mbr")[0].tree is not None
+    # An unrefined grammar (G = 1) is not told to refine with fewer cycles.
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
+    with pytest.raises(InputError, match=r"at most 1 subcategories a symbol.*viterbi or mbr$"):
+        decode_module.CoarseLayout.of(make_grammar(["S", "X"], ["P", "Q"], 3, seed=1),
+                                      torch.float64)
 
 
 def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():

@@ -272,10 +272,10 @@ class CoarseLayout:
         if size > MRP_LAYOUT_AT_MOST:
             raise InputError(
                 f"max-rule-product on this grammar would hold its rules by coarse rule in "
-                f"{size / 2 ** 30:.1f} GiB ({kp} coarse nonterminals, {K} coarse symbols, up "
-                f"to {G} subcategories each: {G}**3 rules per coarse rule), over the "
-                f"{MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode with viterbi or mbr, "
-                f"or refine with fewer split-merge cycles")
+                f"{size / 2 ** 30:.1f} GiB ({kp} coarse nonterminals, {K} coarse symbols, at "
+                f"most {G} subcategories a symbol: {G}**3 rules per coarse rule), over the "
+                f"{MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode with viterbi or mbr"
+                + (", or refine with fewer split-merge cycles" if G > 1 else ""))
         prob = torch.zeros(nt + 1, S + 1, S + 1, dtype=dtype)            # index NT, S: zero
         prob[:nt, :S, :S] = grammar.binary.to(dtype).exp()
         parent = slots[:kp].masked_fill(slots[:kp] >= nt, nt)            # (Kp, G)
