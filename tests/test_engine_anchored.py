@@ -25,21 +25,20 @@ def random_items(seed: int, K: int = 4, G: int = 3, B: int = 2, N: int = 5):
                 pool = range(K) if w == 1 else range(Kp)
                 count = rng.randint(1, 2) if w == 1 else rng.randint(0, 3)
                 cells[b, i, w] = sorted(rng.sample(list(pool), min(count, len(pool))))
-    ib, ii, iw, ik = [], [], [], []
+    rows = []                                    # (sentence, start, width, symbol)
     cell_first = torch.zeros((B, N + 1, N + 1), dtype=torch.long)
     cell_count = torch.zeros((B, N + 1, N + 1), dtype=torch.long)
     for (b, i, w), labels in sorted(cells.items()):
-        cell_first[b, i, w], cell_count[b, i, w] = len(ib), len(labels)
-        for x in labels:
-            ib.append(b), ii.append(i), iw.append(w), ik.append(x)
-    items = len(ib)
+        cell_first[b, i, w], cell_count[b, i, w] = len(rows), len(labels)
+        rows += [(b, i, w, x) for x in labels]
+    items = len(rows)
     gen = torch.Generator().manual_seed(seed)
 
     def scores(rows):
         x = torch.rand((rows, G), generator=gen, dtype=torch.float64)
         return x.masked_fill(torch.rand((rows, G), generator=gen) < 0.3, 0.0)
 
-    ib, ii, iw, ik = (torch.tensor(v, dtype=torch.long) for v in (ib, ii, iw, ik))
+    ib, ii, iw, ik = torch.tensor(rows, dtype=torch.long).t()
     parents = (iw > 1).nonzero().flatten()
     parents = parents[iw[parents].argsort(stable=True)]
     blocks = torch.rand((Kp, K, K, G ** 3), generator=gen, dtype=torch.float64)
