@@ -24,18 +24,60 @@ Shapes: B sentences, N longest length, NT nonterminals, T preterminals, R rank, 
 
 from __future__ import annotations
 
+import functools
+
 import torch
 from torch import Tensor
 
-from treewright.engine.inside import (CHUNK_BYTES, SpanTables, past_end, prepare_inputs,
-                                      word_scales)
+from treewright.engine.compiled import jit
+from treewright.engine.inside import SpanTables, past_end, prepare_inputs, word_scales
 
 NEG_INF = float("-inf")
 
 
-def _span_chunk(floats_per_span: int) -> int:
-    """Spans per chunk so that a chunk's (spans, B, K, R) temporary fits in a core's L2."""
-    return max(1, CHUNK_BYTES // (4 * floats_per_span))
+@functools.cache
+def _kernels():
+    """The split sums of one width and their adjoints, compiled loops (numba, on first use,
+    per dtype). Each (span, sentence) row walks its K = width - 1 splits and adds, over the
+    rank, the split's weight times the left child's left-role projection times the right
+    child's right-role projection: no (spans, B, K, R) product is made and read again, as a
+    product of whole tensors needs. The projection charts are indexed as `_inside` lays them
+    out: left role [start, b, width], right role [end, b, N - width]."""
+    @jit
+    def split_sums(left_proj, right_proj, weight, out, width):  # pragma: no cover
+        P, B, K = weight.shape
+        R, N = left_proj.shape[3], left_proj.shape[0] - 1
+        for p in range(P):
+            for b in range(B):
+                o = out[p, b]
+                for r in range(R):
+                    o[r] = 0.0
+                for k in range(K):
+                    wk = weight[p, b, k]
+                    lp = left_proj[p, b, 1 + k]
+                    rp = right_proj[width + p, b, N - width + 1 + k]
+                    for r in range(R):
+                        o[r] += wk * lp[r] * rp[r]
+
+    @jit
+    def split_adjoints(left_proj, right_proj, weight, g_rank, adj_left, adj_right, width):
+        # pragma: no cover
+        P, B, K = weight.shape
+        R, N = left_proj.shape[3], left_proj.shape[0] - 1
+        for p in range(P):
+            for b in range(B):
+                g = g_rank[p, b]
+                for k in range(K):
+                    wk = weight[p, b, k]
+                    lp, al = left_proj[p, b, 1 + k], adj_left[p, b, 1 + k]
+                    end, at = width + p, N - width + 1 + k
+                    rp, ar = right_proj[end, b, at], adj_right[end, b, at]
+                    for r in range(R):
+                        t = wk * g[r]
+                        al[r] += t * rp[r]
+                        ar[r] += t * lp[r]
+
+    return split_sums, split_adjoints
 
 
 def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
@@ -182,19 +224,12 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
         P = N - width + 1
         pair = scale_start[0:P, :, 1:width] + scale_end[width:N + 1, :, N - width + 1:N]
         top = pair.amax(-1).nan_to_num_(neginf=0.0)                   # (P, B)
-        weight = (pair - top.unsqueeze(-1)).exp_()                    # (P, B, K)
-        K = width - 1
+        weight = (pair - top.unsqueeze(-1)).exp_()                    # (P, B, width - 1)
         rows = slice(offsets[width], offsets[width + 1])
         # Without U the sums are written straight into the cells and scaled there.
         rank_sums = (cells_all if U is None else rank_sums_all)[rows].view(P, B, R)
-        step = _span_chunk(B * K * R)
-        for p0 in range(0, P, step):  # chunks of spans, so that each product stays in cache
-            p1 = min(P, p0 + step)
-            pairs = (left_proj[p0:p1, :, 1:width]
-                     * right_proj[width + p0:width + p1, :, N - width + 1:N])
-            M = (p1 - p0) * B
-            torch.bmm(weight[p0:p1].reshape(M, 1, K), pairs.view(M, K, R),
-                      out=rank_sums[p0:p1].view(M, 1, R))
+        _kernels()[0](left_proj.numpy(), right_proj.numpy(), weight.numpy(), rank_sums.numpy(),
+                      width)
         total = rank_sums if U is None else rank_sums @ U.t()         # (P, B, NT)
         peak = total.amax(-1)
         cells = torch.div(total, peak.unsqueeze(-1), out=cells_all[rows].view(P, B, NT))
@@ -274,14 +309,8 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
         g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
         g.nan_to_num_(nan=0.0)                                        # d/d raw sum
         g_rank = g if U is None else g @ U                            # (P, B, R)
-        step = _span_chunk(B * (width - 1) * R)
-        for p0 in range(0, P, step):
-            p1 = min(P, p0 + step)
-            # One temporary serves both children: weight x rank adjoint, (p1-p0, B, K, R).
-            g_split = g_rank[p0:p1].unsqueeze(2) * weight[p0:p1].unsqueeze(-1)
-            ends = slice(width + p0, width + p1)
-            adj_left[p0:p1, :, 1:width].addcmul_(g_split, right_proj[ends, :, N - width + 1:N])
-            adj_right[ends, :, N - width + 1:N].addcmul_(g_split, left_proj[p0:p1, :, 1:width])
+        _kernels()[1](left_proj.numpy(), right_proj.numpy(), weight.numpy(),
+                      g_rank.contiguous().numpy(), adj_left.numpy(), adj_right.numpy(), width)
     if offsets[-1] and need_factors:
         grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
         grad_V[:NT] += grad_vw[:, :R]
