@@ -13,11 +13,12 @@ nonterminal scores are U times the rank vector summed over its splits. Cost per 
 O(n^3 R + n^2 R (NT + S)) instead of O(n^3 S^2 + n^2 S^2 NT).
 
 The cells use the scaled probabilities of `engine.inside` (each cell divided by its maximum,
-the log of which is kept as a scale that the gradient treats as a constant). The charts hold
-the rank projections of the cells, not the cells: the left-role projections indexed by start
-and the right-role projections by end, so that all left children of one width, and all right
-children, are one strided slice each. The backward is written by hand: autograd over per-width
-slices spends its time zero-filling and stacking, not multiplying.
+the log of which is kept as a scale that the gradient treats as a constant). The chart holds
+the rank projections of the cells, not the cells: both roles of a cell in one row, the rows of
+one width together, so that a width's projections are one matrix product written in place.
+The split sums, where each span reads its children's rows, are a compiled loop (`_kernels`).
+The backward is written by hand: autograd over per-width slices spends its time zero-filling
+and stacking, not multiplying.
 
 Shapes: B sentences, N longest length, NT nonterminals, T preterminals, R rank, P = N - w + 1.
 """
@@ -41,12 +42,13 @@ def _kernels():
     per dtype). Each (span, sentence) row walks its K = width - 1 splits and adds, over the
     rank, the split's weight times the left child's left-role projection times the right
     child's right-role projection: no (spans, B, K, R) product is made and read again, as a
-    product of whole tensors needs. The projection charts are indexed as `_inside` lays them
-    out: left role [start, b, width], right role [end, b, N - width]."""
+    product of whole tensors needs. `proj` (rows, 2R) holds both roles of every cell as
+    `_inside` lays it out: cell (start i, width w) of sentence b at row rows[w] + i B + b, its
+    left role in the first R columns and its right role in the last R."""
     @jit
-    def split_sums(left_proj, right_proj, weight, out, width):  # pragma: no cover
+    def split_sums(proj, rows, weight, out, width):  # pragma: no cover
         P, B, K = weight.shape
-        R, N = left_proj.shape[3], left_proj.shape[0] - 1
+        R = proj.shape[1] // 2
         for p in range(P):
             for b in range(B):
                 o = out[p, b]
@@ -54,28 +56,28 @@ def _kernels():
                     o[r] = 0.0
                 for k in range(K):
                     wk = weight[p, b, k]
-                    lp = left_proj[p, b, 1 + k]
-                    rp = right_proj[width + p, b, N - width + 1 + k]
+                    left = proj[rows[1 + k] + p * B + b]
+                    right = proj[rows[width - 1 - k] + (p + 1 + k) * B + b]
                     for r in range(R):
-                        o[r] += wk * lp[r] * rp[r]
+                        o[r] += wk * left[r] * right[R + r]
 
     @jit
-    def split_adjoints(left_proj, right_proj, weight, g_rank, adj_left, adj_right, width):
-        # pragma: no cover
+    def split_adjoints(proj, rows, weight, g_rank, adj, width):  # pragma: no cover
         P, B, K = weight.shape
-        R, N = left_proj.shape[3], left_proj.shape[0] - 1
+        R = proj.shape[1] // 2
         for p in range(P):
             for b in range(B):
                 g = g_rank[p, b]
                 for k in range(K):
                     wk = weight[p, b, k]
-                    lp, al = left_proj[p, b, 1 + k], adj_left[p, b, 1 + k]
-                    end, at = width + p, N - width + 1 + k
-                    rp, ar = right_proj[end, b, at], adj_right[end, b, at]
+                    at_left = rows[1 + k] + p * B + b
+                    at_right = rows[width - 1 - k] + (p + 1 + k) * B + b
+                    left, a_left = proj[at_left], adj[at_left]
+                    right, a_right = proj[at_right], adj[at_right]
                     for r in range(R):
                         t = wk * g[r]
-                        al[r] += t * rp[r]
-                        ar[r] += t * lp[r]
+                        a_left[r] += t * right[R + r]
+                        a_right[R + r] += t * left[r]
 
     return split_sums, split_adjoints
 
@@ -188,32 +190,32 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     nts = None if nt_terminal is None else \
         (nt_terminal - shift).exp().transpose(0, 1).contiguous()      # (N, B, NT)
 
-    # Rank projections: left role by start, [i, b, width] = V^T cell (i, i+width); right role
-    # by end, [j, b, N-width] = W^T cell (j-width, j).
-    # Only written cells are ever read, so the projections need no zero fill.
-    left_proj = terminal.new_empty(N + 1, B, N + 1, R)
-    right_proj = terminal.new_empty(N + 1, B, N + 1, R)
-    scale_start = terminal.new_full((N + 1, B, N + 1), NEG_INF)
-    scale_end = terminal.new_full((N + 1, B, N + 1), NEG_INF)
-    one_l = words @ V[NT:]                                            # (N, B, R)
-    one_r = words @ W[NT:]
-    if nts is not None:
-        one_l += nts @ V[:NT]
-        one_r += nts @ W[:NT]
-    left_proj[0:N, :, 1] = one_l
-    right_proj[1:N + 1, :, N - 1] = one_r
-    scale_start[0:N, :, 1] = word_scale.t()
-    scale_end[1:N + 1, :, N - 1] = word_scale.t()
-
     # Every width's cells and rank sums in one buffer each, rows [offset[w], offset[w+1]) for
-    # width w, so that the backward takes the factor gradients in one product per factor.
+    # width w >= 2, (start, sentence) within a width, so that the backward takes the factor
+    # gradients in one product per factor.
     offsets = [0, 0, 0]
     for width in range(2, N + 1):
         offsets.append(offsets[-1] + (N - width + 1) * B)
     cells_all = terminal.new_empty(offsets[-1], NT)
     # Without U the rank sums are the raw cells, needed only until they are scaled.
     rank_sums_all = None if U is None else terminal.new_empty(offsets[-1], R)
+    # Rank projections of every cell, both roles in one row: V^T cell, then W^T cell. Rows as
+    # the cells', after N B rows for the words: cell (i, width) of sentence b at row
+    # proj_rows[width] + i B + b. Each width's products write their rows in place, and the
+    # backward's adjoints of them are rows of the cells' layout too.
+    # Only written cells are ever read, so the projections need no zero fill.
+    proj_rows = torch.tensor([0, 0] + [N * B + o for o in offsets[2:]])
+    proj_all = terminal.new_empty(N * B + offsets[-1], 2 * R)
+    scale_start = terminal.new_full((N + 1, B, N + 1), NEG_INF)
+    scale_end = terminal.new_full((N + 1, B, N + 1), NEG_INF)
     vw = torch.cat([V[:NT], W[:NT]], 1)            # (NT, 2R): both roles in one product
+    vw_words = torch.cat([V[NT:], W[NT:]], 1)      # (T, 2R)
+    one = proj_all[:N * B]
+    torch.mm(words.view(N * B, T), vw_words, out=one)
+    if nts is not None:
+        one.addmm_(nts.view(N * B, NT), vw)
+    scale_start[0:N, :, 1] = word_scale.t()
+    scale_end[1:N + 1, :, N - 1] = word_scale.t()
     weights, peaks = [None, None], [None, None]
     top_cells = terminal.new_zeros(N + 1, B, NT)   # cell (0, width), for the root
     top_scales = terminal.new_full((N + 1, B), NEG_INF)
@@ -228,7 +230,7 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
         rows = slice(offsets[width], offsets[width + 1])
         # Without U the sums are written straight into the cells and scaled there.
         rank_sums = (cells_all if U is None else rank_sums_all)[rows].view(P, B, R)
-        _kernels()[0](left_proj.numpy(), right_proj.numpy(), weight.numpy(), rank_sums.numpy(),
+        _kernels()[0](proj_all.numpy(), proj_rows.numpy(), weight.numpy(), rank_sums.numpy(),
                       width)
         total = rank_sums if U is None else rank_sums @ U.t()         # (P, B, NT)
         peak = total.amax(-1)
@@ -237,9 +239,8 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
         scale = top + peak.log()                                      # log 0 = -inf: dead
         if span_pot is not None:
             scale = scale + span_pot[:, 0:P, width].t()
-        proj = cells @ vw                                             # (P, B, 2R)
-        left_proj[0:P, :, width] = proj[..., :R]
-        right_proj[width:N + 1, :, N - width] = proj[..., R:]
+        torch.mm(cells.view(P * B, NT), vw, out=proj_all[N * B + offsets[width]:
+                                                         N * B + offsets[width + 1]])
         scale_start[0:P, :, width] = scale
         scale_end[width:N + 1, :, N - width] = scale
         top_cells[width] = cells[0]
@@ -253,7 +254,7 @@ def _inside(root, u, v, w, terminal, nt_terminal, span_pot, lengths) -> dict:
     ok = (total > 0) & torch.isfinite(top_scale)
     logz = torch.where(ok, total.log() + top_scale, torch.full_like(total, NEG_INF))
     return {"logz": logz, "U": U, "V": V, "W": W, "words": words, "nts": nts,
-            "left_proj": left_proj, "right_proj": right_proj, "cells": cells_all,
+            "proj": proj_all, "proj_rows": proj_rows, "vw_words": vw_words, "cells": cells_all,
             "scale_start": scale_start, "word_scale": word_scale,
             "rank_sums": rank_sums_all, "offsets": offsets, "vw": vw, "weights": weights,
             "peaks": peaks,
@@ -277,30 +278,23 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
     grad_root = pi * st["tops"] * g_root[:, None]
     adj_top = words.new_zeros(N + 1, B, NT)                           # adjoint of cell (0, w)
     adj_top[lengths, torch.arange(B)] = pi * g_root[:, None]
-    # Only the cells of the chart's triangle are ever read or written, so only they are zeroed.
-    adj_left = torch.empty_like(st["left_proj"])
-    adj_right = torch.empty_like(st["right_proj"])
-    for width in range(1, N + 1):
-        adj_left[0:N + 1 - width, :, width].zero_()
-        adj_right[width:N + 1, :, N - width].zero_()
+    # The adjoints of the projections, in their layout (`_inside`): the words' N B rows, then
+    # the rows of the cells' buffers, so that the factor gradients are one product each.
+    proj, proj_rows = st["proj"], st["proj_rows"]
+    adj_proj = torch.zeros_like(proj)
     grad_V, grad_W = torch.zeros_like(V), torch.zeros_like(W)
     grad_U = None if U is None else torch.zeros_like(U)
     grad_pot = words.new_zeros(B, N + 1, N + 1) if has_pot else None
-    left_proj, right_proj = st["left_proj"], st["right_proj"]
     offsets, vw = st["offsets"], st["vw"]
-    # Per-width adjoints of the projections (left role, right role) and of the raw sums, in
-    # the row layout of the forward's buffers; the factor gradients are one product each.
-    adj_proj_all = words.new_empty(offsets[-1], 2 * R)
+    adj_proj_all = adj_proj[N * B:]                                   # rows of the cells
+    # Per-width adjoints of the raw sums, in the row layout of the forward's buffers.
     g_all = words.new_empty(offsets[-1], NT)
     for width in range(N, 1, -1):
         P = N - width + 1
         rows = slice(offsets[width], offsets[width + 1])
         cells = st["cells"][rows].view(P, B, NT)
         weight, peak = st["weights"][width], st["peaks"][width]
-        a_lr = adj_proj_all[rows].view(P, B, 2 * R)
-        a_lr[..., :R] = adj_left[0:P, :, width]
-        a_lr[..., R:] = adj_right[width:N + 1, :, N - width]
-        adj = a_lr @ vw.t()                                           # (P, B, NT)
+        adj = adj_proj_all[rows].view(P, B, 2 * R) @ vw.t()           # (P, B, NT)
         adj[0] += adj_top[width]
         if grad_pot is not None:
             grad_pot[:, 0:P, width] = (adj * cells).sum(-1).t()
@@ -309,8 +303,8 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
         g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
         g.nan_to_num_(nan=0.0)                                        # d/d raw sum
         g_rank = g if U is None else g @ U                            # (P, B, R)
-        _kernels()[1](left_proj.numpy(), right_proj.numpy(), weight.numpy(),
-                      g_rank.contiguous().numpy(), adj_left.numpy(), adj_right.numpy(), width)
+        _kernels()[1](proj.numpy(), proj_rows.numpy(), weight.numpy(),
+                      g_rank.contiguous().numpy(), adj_proj.numpy(), width)
     if offsets[-1] and need_factors:
         grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
         grad_V[:NT] += grad_vw[:, :R]
@@ -318,24 +312,25 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
         if U is not None:
             grad_U += g_all.t() @ st["rank_sums"]
     # Width one.
-    a_l = adj_left[0:N, :, 1].reshape(N * B, R)
-    a_r = adj_right[1:N + 1, :, N - 1].reshape(N * B, R)
+    a_one = adj_proj[:N * B]                                          # (N B, 2R)
     flat = words.view(N * B, T)
     if need_factors:
-        grad_V[NT:] += flat.t() @ a_l
-        grad_W[NT:] += flat.t() @ a_r
+        grad_vw = flat.t() @ a_one
+        grad_V[NT:] += grad_vw[:, :R]
+        grad_W[NT:] += grad_vw[:, R:]
     grad_terminal = None
     if need_words:
-        adj_words = (a_l @ V[NT:].t() + a_r @ W[NT:].t()).view(N, B, T)
+        adj_words = (a_one @ st["vw_words"].t()).view(N, B, T)
         grad_terminal = (adj_words * words).transpose(0, 1)
     grad_nt_terminal = None
     if nt_emits:
         nts = st["nts"]
         flat = nts.view(N * B, NT)
         if need_factors:
-            grad_V[:NT] += flat.t() @ a_l
-            grad_W[:NT] += flat.t() @ a_r
-        adj_nts = (a_l @ V[:NT].t() + a_r @ W[:NT].t()).view(N, B, NT)
+            grad_vw = flat.t() @ a_one
+            grad_V[:NT] += grad_vw[:, :R]
+            grad_W[:NT] += grad_vw[:, R:]
+        adj_nts = (a_one @ vw.t()).view(N, B, NT)
         adj_nts[0] += adj_top[1]
         grad_nt_terminal = (adj_nts * nts).transpose(0, 1)
     if not need_factors:
