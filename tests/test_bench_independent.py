@@ -21,16 +21,13 @@ _spec.loader.exec_module(bench)
 @pytest.mark.parametrize("nt, t, n, batch", [(6, 10, 7, 3), (5, 3, 4, 2), (8, 16, 12, 2)])
 def test_the_floor_counts_every_matrix_product_of_a_forward_backward(nt, t, n, batch):
     # Reference: torch's own flop counter over one forward+backward. Its matrix products (mm)
-    # are the floor; its batched products (bmm) are the split sums, which the floor leaves out:
-    # 2 (w - 1) NT flops per span of width w and sentence (counted here in a plain loop).
+    # are the floor, and they are all it counts: the split sums, which the floor leaves out,
+    # run in a compiled loop (engine.lowrank), outside torch's operators.
     problem = bench.random_problem(nt, t, n, batch)
     with FlopCounterMode(display=False) as counter:
         bench.forward_backward(problem)
     counts = {str(k): v for k, v in counter.get_flop_counts()["Global"].items()}
-    assert counts["aten.mm"] == bench.independent_work(nt, t, n) * batch
-    split_sums = sum((n - w + 1) * 2 * (w - 1) * nt for w in range(2, n + 1)) * batch
-    assert counts["aten.bmm"] == split_sums
-    assert set(counts) == {"aten.mm", "aten.bmm"}
+    assert counts == {"aten.mm": bench.independent_work(nt, t, n) * batch}
 
 
 def test_a_quick_run_reports_its_figures_by_the_stated_rules(capsys):
