@@ -158,6 +158,25 @@ def test_ties_go_to_the_first_rule():
     check(d, best, back)
 
 
+def test_ties_go_to_the_first_rule_under_the_bound_too():
+    # As above, with each label's log_mu at the rules' common log q (a valid bound): rules of
+    # lower children's bests are left out by it, and of the tied ones visited best-first the
+    # first in (split, left item, right item) order still wins.
+    d = random_items(2)
+    d["blocks"].fill_(0.5)
+    d["parent"].fill_(1.0)
+    d["inside"].fill_(1.0)
+    d["parent_max"].zero_()
+    d["inside_max"].zero_()
+    gen = torch.Generator().manual_seed(2)
+    # Words' bests from two values, so that many rules tie and some are bounded out.
+    d["best"] = torch.where(d["iw"] == 1, -torch.randint(0, 2, (len(d["iw"]),), generator=gen)
+                            .to(torch.float64), -math.inf)
+    log_mu = torch.full((len(d["ib"]),), max(log_q_of(d, *r) for r in rules_of(d)) + 1e-9,
+                        dtype=torch.float64)
+    check(d, *run(d, log_mu))
+
+
 def test_without_blocks_or_log_q_it_refuses():
     d = random_items(0)
     with pytest.raises(ValueError, match="rule blocks or every rule's log q"):

@@ -42,20 +42,24 @@ def best_derivations(blocks: Tensor | None, parent: Tensor, parent_max: Tensor,
     belongs to item parents[p]); inside (items, G) and inside_max (items,) every item's inside
     scores, the same way; log_mu (items,) each item's log label marginal.
 
-    A parent's anchored rules are taken split by split (left child's width 1 first), then left
-    item, then right item; its best is the first rule with the largest
+    A parent's anchored rules are ordered split by split (left child's width 1 first), then by
+    left item, then right item; its best is the first rule in that order with the largest
     log q + best(left) + best(right), where log q = log(sum over a, b, c of
     parent[p, a] blocks[x, y, z, (a, b, c)] inside[l, b] inside[r, c]) + parent_max[p] +
     inside_max[l] + inside_max[r], the sums over a, then c, then b, each in order. blocks
     (Kp, K, K, G**3) are the rules by coarse rule (`decode.CoarseLayout.blocks`); without them
     (factored rules), `log_q` gives every anchored rule's log q in that order.
 
-    Two things are left out without changing any result. A zero score (an unused slot: a
-    symbol with fewer than G subcategories) is skipped with its terms, which add nothing to any
-    sum, so most of a rule block is never read where few symbols are split. And a rule posterior
-    is at most the marginal of each of its three labels, so a rule whose
-    min(log_mu) + best(left) + best(right) is at least `slack` (room for rounding) below the
-    parent's best so far cannot pass it: its q is not computed.
+    Some work is left out without changing any result. A zero score (an unused slot: a symbol
+    with fewer than G subcategories) is skipped with its terms, which add nothing to any sum, so
+    most of a rule block is never read where few symbols are split. A rule posterior is at most
+    the marginal of each of its three labels and every best is at most 0, so a rule whose
+    min(log_mu) + best(left) + best(right) is below the parent's best so far by at least
+    `slack` (room for rounding) cannot pass it or tie it: its q is not computed. Within a split
+    the loop visits each child cell's items by their best, highest first, so that the rules
+    likely to win come first and, once a left item's (or a right item's) bound falls that far
+    below, so do those of every item after it in its cell, which are all left at once. Ties are
+    still settled by the order above.
     """
     if blocks is None and log_q is None:
         raise ValueError("best_derivations needs the rule blocks or every rule's log q")
@@ -84,28 +88,53 @@ def _kernel():
         G = inside.shape[1]
         GG = G * G
         by_rule = log_q.shape[0] > 0
-        r = 0
+        B, N1 = cell_first.shape[0], cell_first.shape[1]
+        # Each cell's items by best score, highest first (symbol order among equals), made for
+        # a width once all its parents are done: a child's best is final when it is read.
+        order = np.arange(best.shape[0])
+        ordered = 0                                   # widths 1..ordered are in order
+        base = 0                      # the next split's first rule in `log_q`'s order
         for p in range(parents.shape[0]):
             item = parents[p]
             b, i, w, x = ib[item], ii[item], iw[item], ik[item]
-            top, left_best, right_best = -np.inf, -1, -1
+            while ordered < w - 1:
+                ordered += 1
+                for bb in range(B):
+                    for s in range(N1):
+                        first, count = cell_first[bb, s, ordered], cell_count[bb, s, ordered]
+                        if count > 1:
+                            by_best = np.argsort(-best[first:first + count], kind="mergesort")
+                            for t in range(count):
+                                order[first + t] = first + by_best[t]
+            top, left_best, right_best, split_best = -np.inf, -1, -1, 0
             mu_x = log_mu[item]
             for u in range(1, w):
-                l0, l1 = cell_first[b, i, u], cell_first[b, i, u] + cell_count[b, i, u]
-                r0 = cell_first[b, i + u, w - u]
-                r1 = r0 + cell_count[b, i + u, w - u]
-                for lft in range(l0, l1):
-                    for rgt in range(r0, r1):
-                        # q is at most each of its three labels' marginals: a rule that
-                        # cannot pass the best so far is left (bitwise the same result).
-                        if left_best >= 0 and min(mu_x, log_mu[lft], log_mu[rgt]) + \
-                                best[lft] + best[rgt] + slack <= top:
-                            if by_rule:
-                                r += 1
+                l0, nl = cell_first[b, i, u], cell_count[b, i, u]
+                r0, nr = cell_first[b, i + u, w - u], cell_count[b, i + u, w - u]
+                if nl == 0 or nr == 0:
+                    continue
+                right_top = best[order[r0]]
+                for t in range(nl):
+                    lft = order[l0 + t]
+                    best_l = best[lft]
+                    # A rule's q is at most each of its three labels' marginals and every
+                    # best is at most 0, so no rule of this left item or of a later one (lower
+                    # best) can pass the best so far: they are left (bitwise the same result).
+                    cap = mu_x + best_l + right_top
+                    if cap < top and cap + slack <= top:
+                        break
+                    cap_l = min(mu_x, log_mu[lft]) + best_l
+                    for c in range(nr):
+                        rgt = order[r0 + c]
+                        best_r = best[rgt]
+                        bound = cap_l + best_r
+                        if bound < top and bound + slack <= top:
+                            break                     # nor can a later right item
+                        bound = min(bound, log_mu[rgt] + best_l + best_r)
+                        if bound < top and bound + slack <= top:
                             continue
                         if by_rule:
-                            lq = log_q[r]
-                            r += 1
+                            lq = log_q[base + (lft - l0) * nr + (rgt - r0)]
                         else:
                             block = blocks[x, ik[lft], ik[rgt]]
                             total = 0.0
@@ -114,22 +143,27 @@ def _kernel():
                                 if in_b == 0.0:
                                     continue
                                 s = 0.0
-                                for c in range(G):
-                                    in_c = inside[rgt, c]
+                                for c3 in range(G):
+                                    in_c = inside[rgt, c3]
                                     if in_c == 0.0:
                                         continue
                                     over_a = 0.0
                                     for a in range(G):
                                         o = parent[p, a]
                                         if o != 0.0:
-                                            over_a += o * block[a * GG + bb * G + c]
+                                            over_a += o * block[a * GG + bb * G + c3]
                                     s += over_a * in_c
                                 total += in_b * s
                             lq = np.log(total) + parent_max[p] + inside_max[lft] + \
                                 inside_max[rgt]
-                        score = lq + best[lft] + best[rgt]
-                        if left_best < 0 or score > top:
-                            top, left_best, right_best = score, lft, rgt
+                        score = lq + best_l + best_r
+                        # Ties go to the first rule in (split, left item, right item) order,
+                        # whatever order the rules are visited in.
+                        if left_best < 0 or score > top or score == top and (
+                                u < split_best or u == split_best and (
+                                    lft < left_best or lft == left_best and rgt < right_best)):
+                            top, left_best, right_best, split_best = score, lft, rgt, u
+                base += nl * nr
             best[item] = top
             back[item, 0], back[item, 1] = left_best, right_best
     return derive
