@@ -238,20 +238,21 @@ class CoarseLayout:
     subcategories (groups appear in symbol order, nonterminals first). `rules` holds every
     fine binary rule in that layout, with zeros in unused slots and for subcategories that are
     no nonterminal: rules[x, a, (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K), in the
-    order `max_rule_product` reads them. `blocks` holds the same rules by coarse rule, each
-    rule's G**3 subcategory rules contiguous: blocks[x, y, z, (a, b, c)] = p(x_a -> y_b z_c),
-    (Kp, K, K, G**3), as the pruned pass (`_max_rule_product_items`) reads them.
+    order the chart pass (`_max_rule_product_refined`) reads them, made from `blocks` when it
+    first asks. `blocks` holds the same rules by coarse rule, each rule's G**3 subcategory
+    rules contiguous: blocks[x, y, z, (a, b, c)] = p(x_a -> y_b z_c), (Kp, K, K, G**3), as the
+    pruned pass (`_max_rule_product_items`) reads them. A trained grammar's posteriors mostly
+    take the pruned pass alone, so the other layout is often never made.
 
     Factored rules (`of_rules`: independent productions, low-rank) have no rule tensor: every
     symbol is its own coarse symbol (G = 1, `member` None for the identity), `rules` and
-    `blocks` are None (no pass over the whole chart), and `binary_logprob` gives the rules the
-    item pass reads.
+    `blocks` are None (no pass over the whole chart: `factored`), and `binary_logprob` gives
+    the rules the item pass reads.
     """
     names: list[str]            # K coarse symbols
     slots: Tensor               # (K, G) long
     member: Tensor | None       # (S, K) 0/1; None: the identity (every symbol its own)
     num_parents: int            # Kp
-    rules: Tensor | None        # (Kp, G, G*K*G*K); None: factored rules
     blocks: Tensor | None       # (Kp, K, K, G*G*G); None: factored rules
     nt: int                     # fine nonterminals
     binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor] | None = None
@@ -276,24 +277,40 @@ class CoarseLayout:
                 f"most {G} subcategories a symbol: {G}**3 rules per coarse rule), over the "
                 f"{MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode with viterbi or mbr"
                 + (", or refine with fewer split-merge cycles" if G > 1 else ""))
-        prob = torch.zeros(nt + 1, S + 1, S + 1, dtype=dtype)            # index NT, S: zero
-        prob[:nt, :S, :S] = grammar.binary.to(dtype).exp()
-        parent = slots[:kp].masked_fill(slots[:kp] >= nt, nt)            # (Kp, G)
-        child = slots.flatten()                                          # (K*G,)
-        rules = prob[parent[:, :, None, None], child[None, None, :, None],
-                     child[None, None, None, :]]                         # (Kp, G, K*G, K*G)
-        blocks = rules.view(kp, G, K, G, K, G).permute(0, 2, 4, 1, 3, 5)  # (x, y, z, a, b, c)
-        rules = rules.view(kp, G, K, G, K, G).permute(0, 1, 5, 2, 3, 4)  # (x, a, c, y, b, z)
-        return cls(names, slots, member.to(dtype), kp, rules.reshape(kp, G, -1).contiguous(),
-                   blocks.reshape(kp, K, K, G ** 3).contiguous(), nt)
+        # Each fine rule written to its place, (x, y, z, a, b, c): most of the layout is the
+        # zeros of unused slots, so scattering the rules is cheaper than gathering every entry.
+        slot_of = torch.zeros(S, dtype=torch.long)                       # fine -> its slot
+        used = slots < S
+        slot_of[slots[used]] = torch.arange(G).expand(K, G)[used]
+        coarse_of, slot_of = coarse_of.view(-1, 1, 1), slot_of.view(-1, 1, 1)
+        where = ((coarse_of[:nt] * K + coarse_of.view(1, S, 1)) * K + coarse_of.view(1, 1, S)) \
+            * G ** 3 + (slot_of[:nt] * G + slot_of.view(1, S, 1)) * G + slot_of.view(1, 1, S)
+        blocks = torch.zeros(kp * K * K * G ** 3, dtype=dtype)
+        blocks[where.flatten()] = grammar.binary.to(dtype).exp().flatten()
+        return cls(names, slots, member.to(dtype), kp, blocks.view(kp, K, K, G ** 3), nt)
 
     @classmethod
     def of_rules(cls, binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor],
                  symbols: Sequence[str], nt: int) -> "CoarseLayout":
         """The layout of factored rules: `binary_logprob(a, b, c)` gives log p(a -> b c) for
         index tensors of one shape (`IndependentRules.binary_logprob`)."""
-        return cls(list(symbols), torch.arange(len(symbols))[:, None], None, nt, None, None, nt,
+        return cls(list(symbols), torch.arange(len(symbols))[:, None], None, nt, None, nt,
                    binary_logprob)
+
+    @property
+    def factored(self) -> bool:
+        """Factored rules: no rule tensor, so no pass over the whole chart."""
+        return self.blocks is None
+
+    @functools.cached_property
+    def rules(self) -> Tensor | None:
+        """(Kp, G, G*K*G*K) the rules in the chart pass's order (see the class); None for
+        factored rules."""
+        if self.blocks is None:
+            return None
+        kp, K, G = self.num_parents, self.slots.shape[0], self.slots.shape[1]
+        return self.blocks.view(kp, K, K, G, G, G).permute(0, 3, 5, 1, 4, 2) \
+            .reshape(kp, G, -1).contiguous()                             # (x, a, c, y, b, z)
 
     def coarse_log(self, marginals: Tensor) -> Tensor:
         """(B, N+1, N+1, K) the log marginals of the coarse labels.
@@ -484,7 +501,7 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     dtype = tables.marginals.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
     n = torch.tensor(list(lengths))
-    if lay.rules is None:
+    if lay.factored:
         return _max_rule_product_factored(tables, lengths, lay)
     # Without pruning, or on an unrefined grammar whose whole chart pass costs less than
     # finding what to leave out would (the bounds, the kept labels, a known tree): the chart.
@@ -776,8 +793,8 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
         kept, rules, chart = known
     finite = torch.isfinite(floor)
     by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
-                         or lay.rules is None)          # factored rules: no chart pass
-    if lay.rules is None and bool((rules > FACTORED_RULES_AT_MOST).any()):
+                         or lay.factored)               # factored rules: no chart pass
+    if lay.factored and bool((rules > FACTORED_RULES_AT_MOST).any()):
         b = int((rules > FACTORED_RULES_AT_MOST).nonzero()[0, 0])
         raise InputError(
             f"max-rule-product through factored rules: the posteriors of a sentence of "
