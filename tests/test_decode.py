@@ -381,11 +381,12 @@ PATHS = {"items": -10 ** 9, "chart": 10 ** 12}
 
 def spy_on_passes(monkeypatch) -> list[tuple[str, torch.Tensor]]:
     """Record (pass, floor) for every call of the two floored passes and of the known tree's
-    floor."""
+    floor, the last as "_known_tree_floor(rows)" when sought for given sentences (those the
+    first floor left without a tree, or those of diffuse posteriors)."""
     calls = []
     for name in FLOORED_PASSES + ["_known_tree_floor"]:
         def spy(*args, real=getattr(decode_module, name), name=name, **kwargs):
-            calls.append((name, args[4]))
+            calls.append((name + ("(rows)" if kwargs.get("rows") is not None else ""), args[4]))
             return real(*args, **kwargs)
         monkeypatch.setattr(decode_module, name, spy)
     return calls
@@ -404,9 +405,11 @@ def assert_max_rule_product_enumerated(grammar, sentences) -> None:
 
 def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) -> None:
     """The forced pass ran with a finite floor (the other did not: the known tree's floor is
-    an item pass of its own), and the known tree's floor was sought only when asked for (and,
-    on the item path, was). With nothing kept no sentence has an anchored rule, and the item
-    pass, which then costs nothing, takes them whatever ITEM_OVERHEAD is."""
+    an item pass of its own), and the known tree's floor was sought for the whole batch only
+    when asked for (and, on the item path, was). With nothing kept no sentence has an
+    anchored rule, and the item pass, which then costs nothing, takes them whatever
+    ITEM_OVERHEAD is; the first floor then leaves every sentence without a tree, and a known
+    tree's floor is sought for them, which the second pass takes rather than no floor."""
     known = [floor for name, floor in calls if name == "_known_tree_floor"]
     floored = {name for name, floor in calls if torch.isfinite(floor).any()
                and name != "_known_tree_floor"}
@@ -418,6 +421,8 @@ def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) 
     assert bool(known) <= known_tree
     if known_tree and path == "items":
         assert known
+    if nothing_kept:
+        assert "_known_tree_floor(rows)" in [name for name, _ in calls]
 
 
 @pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
@@ -426,7 +431,7 @@ def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) 
     (0.01, 1.0, 2),   # a floor above every best tree: each sentence decoded again
     (1.5, 1.0, None),  # the shipped floor, forced on
     (50.0, 1.0, 1),   # a floor that leaves nothing out (a known tree's floor: above it)
-    (1.5, 0.0, 1),    # no floor at all (the guard for diffuse posteriors)
+    (1.5, 0.0, 1),    # no floor per word (the guard for diffuse posteriors): a known tree's
 ])
 def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tree,
                                                      nats_per_word, at_most, passes):
@@ -452,8 +457,14 @@ def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tr
         if passes is not None:
             assert len(floors) == passes
         if at_most == 0.0:
-            assert torch.isneginf(floors[0]).all()
-            assert [name for name, _ in calls] == ["_max_rule_product_refined"]
+            # Every sentence counts as diffuse: its floor is a known tree's score (finite:
+            # every sentence here has a parse), sought first, and the forced pass runs once.
+            assert torch.isfinite(floors[0]).all()
+            names = [name for name, _ in calls]
+            assert names[0] == "_known_tree_floor(rows)"
+            assert names[-1] == {"items": "_max_rule_product_items",
+                                 "chart": "_max_rule_product_refined"}[path]
+            assert names.count("_max_rule_product_refined") == (path == "chart")
         else:
             check_paths(calls, path, known_tree, nothing_kept=nats_per_word == 0.01)
 

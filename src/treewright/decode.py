@@ -488,11 +488,12 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     tree holding a labeled span whose bound is below the score of any other tree cannot be the
     best. The pass first leaves out every labeled span with a bound below a
     floor of `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the
-    sentence's (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`), raised to the
-    score of one known tree where that leaves many anchored rules (`_known_tree_floor`); when
-    the best tree it finds scores at or above the floor, that bound makes it the best of all
-    trees. Otherwise the sentence is decoded again with its own found score as the floor (or
-    nothing left out, when nothing was found), which is exact by the same bound. What is kept
+    sentence's (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`; otherwise,
+    for diffuse posteriors, the score of one known tree, `_known_tree_floor`), raised to a
+    known tree's score where that leaves many anchored rules; when the best tree it finds
+    scores at or above the floor, that bound makes it the best of all trees. Otherwise the
+    sentence is decoded again with its own found score as the floor (or a known tree's, when
+    nothing was found), which is exact by the same bound. What is kept
     is decoded by the cheaper of two passes (`_max_rule_product_floored`): over the labeled
     spans kept (`_max_rule_product_items`) or over the chart. The trees and scores are those of
     the pass without pruning (scores up to rounding); only the time differs (the posteriors of
@@ -510,8 +511,9 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
         return _chart_pass(lay)(grammar, tables, lengths, lay, None)[0]
     floor = -PRUNE_NATS_PER_WORD * n.to(dtype)
     # A sentence whose floor would keep more than half of its (span, coarse parent) pairs
-    # (diffuse posteriors, as an untrained grammar's) is decoded without a floor: the first
-    # pass would save little and might have to run again.
+    # (diffuse posteriors, as an untrained grammar's) does not take it: the first pass would
+    # save little and might have to run again. It takes one known tree's score instead (below),
+    # which needs no second pass.
     N1 = tables.marginals.shape[1]
     start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
     spans = (width >= 2) & (start + width <= n[:, None, None])          # (B, N+1, N+1)
@@ -520,6 +522,7 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     parent_bound = bound[..., :lay.num_parents]
     kept = ((parent_bound >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
         (spans.sum((1, 2)) * lay.num_parents).clamp(min=1)
+    diffuse = (kept > PRUNE_AT_MOST) & torch.isfinite(tables.logz)
     floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
     # A known tree's score can leave far fewer anchored rules than the floor per word (about a
     # sixth on the EM-trained grammars of `bench_parse_speed.py`). It costs one small pass,
@@ -536,10 +539,26 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
                                                        coarse_log, bound))
     else:
         known = (kept_labels, *costs)
+    if diffuse.any():
+        # Without a floor these would take the chart pass, which on a trained grammar's few
+        # diffuse sentences costs far more than the item pass under a known tree's score
+        # (about a second a sentence of 15-20 words with G = 4); on an untrained grammar the
+        # choice between the passes (`_max_rule_product_floored`) still takes the chart.
+        rows = diffuse.nonzero().flatten()
+        floor[rows] = _known_tree_floor(grammar, tables, lengths, lay, floor, coarse_log, bound,
+                                        rows=rows)[rows]
+        known = None
     results, values, floor = _max_rule_product_floored(grammar, tables, lengths, lay, floor,
                                                        coarse_log, bound, known)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
+    # Where the floor left no tree at all, the second pass would have no floor and take the
+    # chart pass (about a second a sentence of 15-20 words on a refined grammar with G = 4);
+    # one known tree's score gives it one, exact as above.
+    lost = redo[torch.isneginf(values[redo])]
+    if len(lost):
+        values[lost] = _known_tree_floor(grammar, tables, lengths, lay, floor.new_full(
+            floor.shape, NEG_INF), coarse_log, bound, rows=lost)[lost]
     return _decode_again(grammar, tables, lengths, lay, results, redo, values, coarse_log, bound)
 
 
@@ -709,13 +728,13 @@ KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many 
 
 def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
                       lay: CoarseLayout, floor: Tensor, coarse_log: Tensor,
-                      bound: Tensor | None = None) -> Tensor:
+                      bound: Tensor | None = None, rows: Tensor | None = None) -> Tensor:
     """(B,) a floor that no sentence's best tree falls below: the score of one tree, the MBR
     bracketing (`mbr_spans_batch` over the span posteriors) under its best labeling by each
     span's `KNOWN_TREE_LABELS` most probable coarse labels (that reach `floor`), found by the
-    item pass on those labeled spans alone, less `_slack`. -inf for a sentence without a
-    finite floor or with no such labeling. `coarse_log` (B, N+1, N+1, K): log marginals of the
-    coarse labels.
+    item pass on those labeled spans alone, less `_slack`. Made for the sentences `rows`, or
+    when not given for those with a finite floor; -inf for the others and for a sentence with
+    no such labeling. `coarse_log` (B, N+1, N+1, K): log marginals of the coarse labels.
 
     The best tree scores at least as high as any one tree, so this floor, unlike the per-word
     one, needs no second pass; when the bracketing is close to the best tree it leaves out far
@@ -723,7 +742,8 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
     fewer anchored rules than the per-word floor)."""
     B = len(lengths)
     known = torch.full((B,), NEG_INF, dtype=floor.dtype)
-    rows = torch.isfinite(floor).nonzero().flatten()
+    if rows is None:
+        rows = torch.isfinite(floor).nonzero().flatten()
     if not len(rows):
         return known
     sub = tables.rows(rows)
