@@ -489,11 +489,12 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     best. The pass first leaves out every labeled span with a bound below a
     floor of `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the
     sentence's (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`; otherwise,
-    for diffuse posteriors, the score of one known tree, `_known_tree_floor`), raised to a
+    for diffuse posteriors, on a refined grammar the score of one known tree,
+    `_known_tree_floor`, and on an unrefined one none: its chart pass is fast), raised to a
     known tree's score where that leaves many anchored rules; when the best tree it finds
     scores at or above the floor, that bound makes it the best of all trees. Otherwise the
-    sentence is decoded again with its own found score as the floor (or a known tree's, when
-    nothing was found), which is exact by the same bound. What is kept
+    sentence is decoded again with its own found score as the floor (or, on a refined
+    grammar, a known tree's when nothing was found), which is exact by the same bound. What is kept
     is decoded by the cheaper of two passes (`_max_rule_product_floored`): over the labeled
     spans kept (`_max_rule_product_items`) or over the chart. The trees and scores are those of
     the pass without pruning (scores up to rounding); only the time differs (the posteriors of
@@ -522,7 +523,8 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     parent_bound = bound[..., :lay.num_parents]
     kept = ((parent_bound >= floor[:, None, None, None]) & spans[..., None]).sum((1, 2, 3)) / \
         (spans.sum((1, 2)) * lay.num_parents).clamp(min=1)
-    diffuse = (kept > PRUNE_AT_MOST) & torch.isfinite(tables.logz)
+    refined = lay.slots.shape[1] > 1    # (an unrefined grammar's chart pass is the fast one)
+    diffuse = (kept > PRUNE_AT_MOST) & torch.isfinite(tables.logz) & refined
     floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
     # A known tree's score can leave far fewer anchored rules than the floor per word (about a
     # sixth on the EM-trained grammars of `bench_parse_speed.py`). It costs one small pass,
@@ -555,7 +557,7 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     # Where the floor left no tree at all, the second pass would have no floor and take the
     # chart pass (about a second a sentence of 15-20 words on a refined grammar with G = 4);
     # one known tree's score gives it one, exact as above.
-    lost = redo[torch.isneginf(values[redo])]
+    lost = redo[torch.isneginf(values[redo])] if lay.slots.shape[1] > 1 else redo[:0]
     if len(lost):
         values[lost] = _known_tree_floor(grammar, tables, lengths, lay, floor.new_full(
             floor.shape, NEG_INF), coarse_log, bound, rows=lost)[lost]
