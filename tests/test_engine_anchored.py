@@ -143,15 +143,22 @@ def test_factored_rules_read_each_rule_s_log_q_in_order():
     check(d, *run(d, no_bound, log_q=log_q, blocks=False))
 
 
-def test_ties_go_to_the_first_rule():
-    # Every rule block equal and every score equal: each parent's rules tie, and the first
-    # (narrowest left child, then first left and right item) wins.
-    d = random_items(1)
+def tied_items(seed: int):
+    """`random_items` with every rule block and every score equal: every rule's log q is the
+    same."""
+    d = random_items(seed)
     d["blocks"].fill_(0.5)
     d["parent"].fill_(1.0)
     d["inside"].fill_(1.0)
     d["parent_max"].zero_()
     d["inside_max"].zero_()
+    return d
+
+
+def test_ties_go_to_the_first_rule():
+    # Every score equal too: each parent's rules tie, and the first (narrowest left child,
+    # then first left and right item) wins.
+    d = tied_items(1)
     d["best"] = torch.where(d["iw"] == 1, 0.0, -math.inf).to(torch.float64)
     no_bound = torch.full((len(d["ib"]),), math.inf, dtype=torch.float64)
     best, back = run(d, no_bound)
@@ -162,12 +169,7 @@ def test_ties_go_to_the_first_rule_under_the_bound_too():
     # As above, with each label's log_mu at the rules' common log q (a valid bound): rules of
     # lower children's bests are left out by it, and of the tied ones visited best-first the
     # first in (split, left item, right item) order still wins.
-    d = random_items(2)
-    d["blocks"].fill_(0.5)
-    d["parent"].fill_(1.0)
-    d["inside"].fill_(1.0)
-    d["parent_max"].zero_()
-    d["inside_max"].zero_()
+    d = tied_items(2)
     gen = torch.Generator().manual_seed(2)
     # Words' bests from two values, so that many rules tie and some are bounded out.
     d["best"] = torch.where(d["iw"] == 1, -torch.randint(0, 2, (len(d["iw"]),), generator=gen)
