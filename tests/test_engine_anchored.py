@@ -1,7 +1,7 @@
-"""The compiled best-derivation loop of max-rule-product's item pass (`engine.anchored`), against
-a plain Python walk over every anchored rule (brute force over the rules the docstring
-defines). That this recursion is max-rule-product's objective is checked against enumeration
-of every tree in tests/test_decode.py."""
+"""The compiled loops of max-rule-product (`engine.anchored`: the item pass, and the chart pass
+width by width), against a plain Python walk over every anchored rule (brute force over the
+rules the docstrings define). That these recursions are max-rule-product's objective is checked
+against enumeration of every tree in tests/test_decode.py."""
 
 import math
 import random
@@ -183,3 +183,65 @@ def test_without_blocks_or_log_q_it_refuses():
     d = random_items(0)
     with pytest.raises(ValueError, match="rule blocks or every rule's log q"):
         run(d, d["best"], log_q=None, blocks=False)
+
+
+def splits_reference(rules, parent, child, scale, w, Kp):
+    """`anchored.best_splits` by a plain walk: per (span row, parent), every split and every
+    (y, z) the edges allow, each sum over a, b and c taken term by term."""
+    B, N1, _, G, K = child.shape
+    P = N1 - w
+    rules = rules.view(Kp, G, G, K, G, K)                              # [x, a, c, y, b, z]
+    out = {}
+    for r in range(B * P):
+        sb, si = divmod(r, P)
+        for x in range(Kp):
+            best = None
+            for u in range(1, w):
+                ky = K if u == 1 else Kp
+                kz = K if u == w - 1 else Kp
+                top = None
+                for y in range(ky):
+                    for z in range(kz):
+                        s = sum(float(parent[r, x, a] * rules[x, a, c, y, b, z] *
+                                      child[sb, si, u, b, y] * child[sb, si + u, w - u, c, z])
+                                for a in range(G) for b in range(G) for c in range(G))
+                        if top is None or s > top[0] + 1e-12:
+                            top = (s, y, z)
+                score = (math.log(top[0]) if top[0] > 0 else -math.inf) + \
+                    float(scale[sb, si, u] + scale[sb, si + u, w - u])
+                if best is None or score > best[0] + 1e-12:
+                    best = (score, u, top[1], top[2])
+            out[r, x] = best
+    return out
+
+
+@pytest.mark.parametrize("tied", [False, True])
+@pytest.mark.parametrize("w", [2, 3, 4])
+def test_best_splits_equal_a_plain_walk(w, tied):
+    # Reference: every split and child pair of every (span, parent) walked in Python. Tied:
+    # every rule, outside score and child score equal, so that every split and pair tie and
+    # the first split, then the first (y, z), must win.
+    Kp, K, G, B, N = 2, 3, 2, 2, 4
+    gen = torch.Generator().manual_seed(w)
+    rules = torch.rand((Kp, G, G * K * G * K), generator=gen, dtype=torch.float64)
+    child = torch.rand((B, N + 1, N + 1, G, K), generator=gen, dtype=torch.float64)
+    scale = torch.randn((B, N + 1, N + 1), generator=gen, dtype=torch.float64)
+    P = N + 1 - w
+    parent = torch.rand((B * P, Kp, G), generator=gen, dtype=torch.float64)
+    if tied:
+        for x in (rules, child, parent):
+            x.fill_(0.5)
+        scale.zero_()
+    value = torch.full((B * P, Kp), math.nan, dtype=torch.float64)
+    arg = torch.full((B * P, Kp, 3), -1, dtype=torch.long)
+    anchored.best_splits(rules, parent, child, scale, torch.arange(B * P), None, w, Kp, value,
+                         arg)
+    for (r, x), (score, u, y, z) in splits_reference(rules, parent, child, scale, w,
+                                                     Kp).items():
+        assert float(value[r, x]) == pytest.approx(score, abs=1e-12)
+        assert arg[r, x].tolist() == [u, y, z]
+    # One parent per row asked for: the others are left as they were.
+    value.fill_(math.nan)
+    anchored.best_splits(rules, parent, child, scale, torch.arange(B * P),
+                         torch.ones(B * P, dtype=torch.long), w, Kp, value, arg)
+    assert torch.isnan(value[:, 0]).all() and not torch.isnan(value[:, 1]).any()

@@ -329,7 +329,7 @@ class CoarseLayout:
         return out
 
 
-MRP_CHUNK = 2 ** 20  # elements of the largest temporary per chunk of parent spans
+MRP_CHUNK = 2 ** 20  # anchored rules per chunk of factored rules' log q (`_factored_log_q`)
 MRP_LAYOUT_AT_MOST = 2 ** 33  # bytes of max-rule-product's two rule layouts (`CoarseLayout`),
                               # Kp K**2 G**3 entries each: 1.8 GiB each in float64 at 24
                               # coarse parents, 50 coarse symbols and G = 16 (four cycles)
@@ -341,31 +341,6 @@ UNREFINED_PRUNE_FROM = 3_000_000  # an unrefined grammar's chart pass per senten
                                   # sentences, pruned against whole: 20/30 grammars (0.7 M a
                                   # sentence) 0.15-0.18 s against 0.12-0.15, at most even; 60/120
                                   # (14 M) 0.71 against 1.15
-
-
-def _best_pairs(folded: Tensor, left: Tensor, right: Tensor) -> tuple[Tensor, Tensor, Tensor]:
-    """Per row, split and coarse parent x, the largest sum over subcategories
-    s(x, y, z) = sum_{b,c} folded[x, c, y, b, z] left[b, y] right[c, z] and its (y, z), y first.
-
-    folded (r, 1, Kp, G, Ky, G, Kz) the rules with the parent's outside folded in, [c, y, b, z];
-    left (r, U, G, Ky) and right (r, U, G, Kz) the child cells of U splits. The sum over c,
-    (r, U, x, y, b, z), then over b, (r, U, x, y, z), are G products and adds of whole tensors
-    each over a contiguous last axis (products with inner dimension G run slower as matrix
-    products). Returns (r, U, Kp) maxima, y and z.
-    """
-    r, U, G, ky = left.shape
-    kz = right.shape[-1]
-    kp = folded.shape[2]
-    rt = right[:, :, None, None, None]                                   # (r, U, 1, 1, 1, G, Kz)
-    over_c = folded[:, :, :, 0] * rt[..., 0, :]
-    for c in range(1, G):
-        over_c.addcmul_(folded[:, :, :, c], rt[..., c, :])
-    lt = left[:, :, None, :, :, None]                                    # (r, U, 1, G, Ky, 1)
-    sums = over_c[..., 0, :] * lt[..., 0, :, :]
-    for b in range(1, G):
-        sums.addcmul_(over_c[..., b, :], lt[..., b, :, :])
-    top, pair = sums.view(r, U, kp, ky * kz).max(-1)
-    return top, pair.div(kz, rounding_mode="floor"), pair.remainder(kz)
 
 
 def _tree_bound(coarse_log: Tensor, lengths: Tensor, num_parents: int) -> Tensor:
@@ -967,20 +942,20 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     is made here when not given. `bound` (B, N+1, N+1, K), what the floor is held against:
     `_tree_bound` of `coarse_log`, or `coarse_log` itself when not given (both exact).
 
-    Batched: one width at a time, every span of every sentence and every split together. The
-    best score of a child cell for coarse symbol y multiplies each of its subcategories' inside
-    scores, so that a parent's best over (split, y, z) is a max over the sums
+    One width at a time, every span of every sentence together. The best score of a child cell
+    for coarse symbol y multiplies each of its subcategories' inside scores, so that a parent's
+    best over (split, y, z) is a max over the sums
     s(x, y, z) = sum_{a,b,c} O(x_a) p(x_a -> y_b z_c) L(y_b) R(z_c) with L = I e^best of the
     left child, R of the right one. These are taken out of log space per cell (divided by the
-    cell's largest; the parent's outside per coarse parent), the sums over subcategories are
-    products over the slots (a with the parent's outside once per span, then c, then b:
-    `_best_pairs`) and the maxima over (y, z) are taken on the sums; only the maxima, one per
-    split and parent, go back to log space, with each cell's log maximum. A child of width two
-    or more can only be a coarse parent, so only the word children at a span's edges range
-    over every coarse symbol. On an unrefined grammar (G = 1) this is a max-semiring pass
+    cell's largest; the parent's outside per coarse parent), and a compiled loop per width
+    (`engine.anchored.best_splits`) folds the parent's outside into its rules once per span and
+    takes the sums and their maxima over (y, z) split by split; only the maxima, one per split
+    and parent, go back to log space, with each cell's log maximum. A child of width two or
+    more can only be a coarse parent, so only the word children at a span's edges range over
+    every coarse symbol. On an unrefined grammar (G = 1) this is a max-semiring pass
     (`_max_rule_product_unrefined`). Ties go to the first split, then the first (left, right)
-    pair. Shapes: rows = (sentence, start) pairs of one width, U = w - 1 splits, K coarse
-    symbols, Kp coarse parents, G subcategory slots.
+    pair. Shapes: rows = (sentence, start) pairs of one width, K coarse symbols, Kp coarse
+    parents, G subcategory slots.
     """
     dtype = tables.marginals.dtype
     K, G = lay.slots.shape
@@ -1004,69 +979,17 @@ def _max_rule_product_refined(grammar: Grammar, tables: engine.SpanTables,
     child_scale = torch.zeros(B, N1, N1, dtype=dtype)
     child[:, :, 1], child_scale[:, :, 1] = _shifted(inside[:, :, 1] + best[:, :, 1, None], 2)
     for w in range(2, N + 1):
-        P, U = N - w + 1, w - 1
-        us = torch.arange(1, w)
+        P = N - w + 1
         rows_all = B * P
         parent, m_par = _shifted(outside[:, 0:P, w])                    # (B, P, Kp, G), (B, P, Kp)
         parent = parent.view(rows_all, Kp, G)
         value = torch.full((rows_all, Kp), NEG_INF, dtype=dtype)
         arg = torch.zeros(rows_all, Kp, 3, dtype=torch.long)
-        # A child of width two or more is a nonterminal: only the Kp parent symbols can be
-        # there (the others' entries are zero), so only the word children at the edges (split
-        # 1 on the left, w - 1 on the right) range over all K coarse symbols.
-        groups = [(0, 1, K, K)] if w == 2 else \
-            [(0, 1, K, Kp)] + ([(1, U - 1, Kp, Kp)] if w > 3 else []) + [(U - 1, U, Kp, K)]
         for rows, parents in _work_items(bound[:, 0:P, w, :Kp], floor):
             # rows (m,) of this width's (sentence, start) pairs; parents (m,) the one coarse
-            # parent of each, or None for every parent of each row (kp of them per item).
-            kp = Kp if parents is None else 1
-            # Items per chunk: the largest temporary of an item is the folded rules or a
-            # group's sums over c, (U', kp, Ky, G, Kz).
-            per_item = max([kp * G * G * K * K] + [(u1 - u0) * kp * ky * G * kz
-                                                    for u0, u1, ky, kz in groups])
-            chunk = max(1, MRP_CHUNK // per_item)
-            for r0 in range(0, len(rows), chunk):
-                at = rows[r0:r0 + chunk]
-                r = len(at)
-                rb, ri = at.div(P, rounding_mode="floor")[:, None], at.remainder(P)[:, None]
-                left = child[rb, ri, us[None, :]]                        # (r, U, G, K)
-                right = child[rb, ri + us[None, :], (w - us)[None, :]]
-                shift = child_scale[rb, ri, us[None, :]] + \
-                    child_scale[rb, ri + us[None, :], (w - us)[None, :]]  # (r, U)
-                # The parent's outside folded into the rules once per span and parent,
-                # (r, kp, [c, y, b, z]).
-                if parents is None:
-                    par = parent[at]                                     # (r, Kp, G)
-                    folded = par[:, :, 0, None] * lay.rules[:, 0]
-                    for a in range(1, G):
-                        folded.addcmul_(par[:, :, a, None], lay.rules[:, a])
-                else:
-                    xs = parents[r0:r0 + chunk]
-                    par = parent[at, xs]                                 # (r, G)
-                    folded = torch.empty(r, lay.rules.shape[-1], dtype=dtype)
-                    # Items come grouped by parent (`_work_items`): one product per parent.
-                    run_x, run_n = xs.unique_consecutive(return_counts=True)
-                    end = 0
-                    for x, count in zip(run_x.tolist(), run_n.tolist()):
-                        torch.mm(par[end:end + count], lay.rules[x], out=folded[end:end + count])
-                        end += count
-                folded = folded.view(r, 1, kp, G, K, G, K)
-                tops, ys, zs = [], [], []
-                for u0, u1, ky, kz in groups:
-                    top, y, z = _best_pairs(folded[..., :ky, :, :kz], left[:, u0:u1, :, :ky],
-                                            right[:, u0:u1, :, :kz])
-                    tops.append(top)
-                    ys.append(y)
-                    zs.append(z)
-                top, y, z = torch.cat(tops, 1), torch.cat(ys, 1), torch.cat(zs, 1)  # (r, U, kp)
-                scores = top.log() + shift[:, :, None]
-                top_split, u = scores.max(1)                             # the first best split
-                pointers = torch.stack([u + 1, y.gather(1, u[:, None]).squeeze(1),
-                                        z.gather(1, u[:, None]).squeeze(1)], -1)
-                if parents is None:
-                    value[at], arg[at] = top_split, pointers
-                else:
-                    value[at, xs], arg[at, xs] = top_split[:, 0], pointers[:, 0]
+            # parent of each, or None for every parent of each row.
+            anchored.best_splits(lay.rules, parent, child, child_scale, rows, parents, w,
+                                 Kp, value, arg)
         best[:, 0:P, w, :Kp] = value.view(B, P, Kp) + m_par
         back[:, 0:P, w, :Kp] = arg.view(B, P, Kp, 3)
         child[:, 0:P, w], child_scale[:, 0:P, w] = _shifted(

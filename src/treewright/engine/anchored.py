@@ -1,5 +1,6 @@
-"""The best derivation over anchored coarse rules, for max-rule-product decoding, in a
-compiled loop.
+"""The best derivation over anchored coarse rules, for max-rule-product decoding, in compiled
+loops: over the labeled spans a decoder keeps (`best_derivations`), and over a whole chart
+width (`best_splits`).
 
 Max-rule-product decoding of a refined grammar (Petrov & Klein 2007, "Improved Inference for
 Unlexicalized Parsing", section 3) weighs anchored coarse rules: parent x over a span, a split
@@ -167,3 +168,97 @@ def _kernel():
             best[item] = top
             back[item, 0], back[item, 1] = left_best, right_best
     return derive
+
+
+def best_splits(rules: Tensor, parent: Tensor, child: Tensor, child_scale: Tensor, rows: Tensor,
+                parents: Tensor | None, width: int, num_parents: int, value: Tensor,
+                arg: Tensor) -> None:
+    """One width of max-rule-product's chart pass over a refined grammar
+    (`decode._max_rule_product_refined`): for each (span, coarse parent x) asked for, the best
+    split u and children (y, z) by s(x, y, z) = sum over a, b, c of
+    parent[r, x, a] p(x_a -> y_b z_c) L[b, y] R[c, z], L and R the child cells (u on the left,
+    width - u on the right), and its log score log s + the two cells' log scales.
+
+    rules (Kp, G, G*K*G*K): p(x_a -> y_b z_c) at [x, a, (c, y, b, z)] (`decode.CoarseLayout.
+    rules`). parent (rows, Kp, G): the spans' outside scores, scaled. child (B, N+1, N+1, G, K)
+    and child_scale (B, N+1, N+1): each cell's scores by subcategory slot and coarse symbol,
+    scaled, and the log scale. Spans are rows r = sentence * P + start, P = N + 1 - width.
+    rows (m,) and parents (m,): the (span, parent) pairs to do, or every parent of each row when
+    parents is None. value (rows, Kp) and arg (rows, Kp, 3) (split, y, z) are written for them.
+    A child of two or more words is a coarse parent (symbols below Kp), so only a word child at
+    a span's edge ranges over all K symbols. Ties go to the first split, then the first (y, z),
+    y first.
+
+    The parent's outside is folded into its rules once per span (the sums over a), then each
+    split's sums over c and b run over the children's symbols z in the innermost loop.
+    """
+    xs = torch.full((len(rows),), -1, dtype=torch.long) if parents is None else parents
+    P = child.shape[1] - width
+    _width_kernel()(rules.numpy(), parent.contiguous().numpy(), child.numpy(),
+                    child_scale.numpy(), rows.contiguous().numpy(), xs.contiguous().numpy(), P,
+                    width, num_parents, value.numpy(), arg.numpy())
+
+
+@functools.cache
+def _width_kernel():
+    """The compiled loop of `best_splits` (numba, compiled on first use, per dtype)."""
+    @jit
+    def splits(rules, parent, child, child_scale, rows, xs, P, w, Kp, value, arg):
+        # pragma: no cover
+        G, K = child.shape[3], child.shape[4]
+        folded = np.empty(G * K * G * K, dtype=child.dtype)
+        acc = np.empty(K, dtype=child.dtype)
+        for item in range(rows.shape[0]):
+            r = rows[item]
+            sb, si = r // P, r % P
+            x0, x1 = (0, Kp) if xs[item] < 0 else (xs[item], xs[item] + 1)
+            for x in range(x0, x1):
+                # The outside folded in, [c, y, b, z]: two word children (y and z both past
+                # Kp) only where the span is two words.
+                first = True
+                for a in range(G):
+                    o = parent[r, x, a]
+                    if o == 0.0:
+                        continue
+                    ra = rules[x, a]
+                    for c in range(G):
+                        for y in range(K):
+                            kz = K if y < Kp or w == 2 else Kp
+                            for b in range(G):
+                                at = ((c * K + y) * G + b) * K
+                                if first:
+                                    for z in range(kz):
+                                        folded[at + z] = o * ra[at + z]
+                                else:
+                                    for z in range(kz):
+                                        folded[at + z] += o * ra[at + z]
+                    first = False
+                if first:                               # no outside score: every sum is 0
+                    folded[:] = 0.0
+                best, bu, by, bz = -np.inf, 0, 0, 0
+                for u in range(1, w):
+                    ky = K if u == 1 else Kp
+                    kz = K if u == w - 1 else Kp
+                    left, right = child[sb, si, u], child[sb, si + u, w - u]   # (G, K)
+                    top, ty, tz = -1.0, 0, 0
+                    for y in range(ky):
+                        acc[:kz] = 0.0
+                        for b in range(G):
+                            lb = left[b, y]
+                            if lb == 0.0:
+                                continue
+                            for c in range(G):
+                                at = ((c * K + y) * G + b) * K
+                                rc = right[c]
+                                for z in range(kz):
+                                    acc[z] += lb * folded[at + z] * rc[z]
+                        for z in range(kz):
+                            if acc[z] > top:
+                                top, ty, tz = acc[z], y, z
+                    score = np.log(top) + child_scale[sb, si, u] + \
+                        child_scale[sb, si + u, w - u]
+                    if u == 1 or score > best:
+                        best, bu, by, bz = score, u, ty, tz
+                value[r, x] = best
+                arg[r, x, 0], arg[r, x, 1], arg[r, x, 2] = bu, by, bz
+    return splits
