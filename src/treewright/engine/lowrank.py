@@ -46,6 +46,12 @@ def _kernels():
     `_inside` lays it out: cell (start i, width w) of sentence b at row rows[w] + i B + b, its
     left role in the first R columns and its right role in the last R."""
     @jit
+    def children(rows, width, B, p, b, k):  # pragma: no cover
+        """The rows of split k's children of span p of sentence b: the left child (p, k + 1)
+        and the right child (p + k + 1, width - k - 1)."""
+        return rows[1 + k] + p * B + b, rows[width - 1 - k] + (p + 1 + k) * B + b
+
+    @jit
     def split_sums(proj, rows, weight, out, width):  # pragma: no cover
         P, B, K = weight.shape
         R = proj.shape[1] // 2
@@ -56,8 +62,8 @@ def _kernels():
                     o[r] = 0.0
                 for k in range(K):
                     wk = weight[p, b, k]
-                    left = proj[rows[1 + k] + p * B + b]
-                    right = proj[rows[width - 1 - k] + (p + 1 + k) * B + b]
+                    at_left, at_right = children(rows, width, B, p, b, k)
+                    left, right = proj[at_left], proj[at_right]
                     for r in range(R):
                         o[r] += wk * left[r] * right[R + r]
 
@@ -70,8 +76,7 @@ def _kernels():
                 g = g_rank[p, b]
                 for k in range(K):
                     wk = weight[p, b, k]
-                    at_left = rows[1 + k] + p * B + b
-                    at_right = rows[width - 1 - k] + (p + 1 + k) * B + b
+                    at_left, at_right = children(rows, width, B, p, b, k)
                     left, a_left = proj[at_left], adj[at_left]
                     right, a_right = proj[at_right], adj[at_right]
                     for r in range(R):
