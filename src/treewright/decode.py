@@ -532,7 +532,7 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     # Where the floor left no tree at all, the second pass would have no floor and take the
     # chart pass (about a second a sentence of 15-20 words on a refined grammar with G = 4);
     # one known tree's score gives it one, exact as above.
-    lost = redo[torch.isneginf(values[redo])] if lay.slots.shape[1] > 1 else redo[:0]
+    lost = redo[torch.isneginf(values[redo])] if refined else redo[:0]
     if len(lost):
         values[lost] = _known_tree_floor(grammar, tables, lengths, lay, floor.new_full(
             floor.shape, NEG_INF), coarse_log, bound, rows=lost)[lost]
