@@ -304,10 +304,12 @@ def test_tree_bound_is_above_every_tree_that_holds_the_labeled_span(grammar):
 
 
 def test_tree_bound_on_a_hand_worked_grammar():
-    # Hand-worked (hand_worked_grammar): both words are P with posterior 1. The top node has
-    # u = 0.6 (S's marginal), so the bound of S over the sentence is 0.6 (its rule's
-    # posterior bound) x 0.6 (the top label's) = 0.36, exactly the best tree's score; X's is
-    # 0.4 x 0.6 = 0.24 (its best tree scores 0.4 x 0.4 = 0.16), and each word's P 0.36.
+    # Hand-worked (hand_worked_grammar): both words are P with posterior 1, S over the sentence
+    # has marginal 0.6 and X 0.4. S's bound is 0.6 (its rule's posterior, at most the least of
+    # S's 0.6 and the two Ps' 1) x 0.6 (the top label's) = 0.36, exactly the best tree's
+    # score; X's 0.4 x 0.4 = 0.16, exactly its only tree's (a bound that charged the rule the
+    # top span's best label, 0.6, gave 0.24); each word's P 1 (its label) x 0.6 (the rule
+    # above it, at most the top span's best label) x 0.6 (the top label) = 0.36.
     g = hand_worked_grammar()
     layout = decode_module.CoarseLayout.of(g, torch.float64)
     tables = span_tables(g, [["w0", "w0"]])
@@ -316,10 +318,49 @@ def test_tree_bound_on_a_hand_worked_grammar():
     slack = decode_module.FLOOR_SLACK
     k = {name: i for i, name in enumerate(layout.names)}
     assert float(bound[0, 0, 2, k["S"]]) == pytest.approx(math.log(0.36) + slack, abs=1e-12)
-    assert float(bound[0, 0, 2, k["X"]]) == pytest.approx(math.log(0.24) + slack, abs=1e-12)
+    assert float(bound[0, 0, 2, k["X"]]) == pytest.approx(math.log(0.16) + slack, abs=1e-12)
     for i in (0, 1):
         assert float(bound[0, i, 1, k["P"]]) == pytest.approx(math.log(0.36) + slack,
                                                               abs=1e-12)
+
+
+@pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])
+def test_tree_bound_is_its_definition_over_every_bracketing(grammar):
+    # Brute force over every binary bracketing (bracketings) of the bound's definition, not of
+    # its dynamic program: for a labeled span x over (i, j), the best over the bracketings that
+    # hold (i, j) of the product of each binary node's least span bound (x's own mu at (i, j),
+    # the best label's mu u elsewhere), every word's best label posterior (x's mu at a word
+    # x labels) and the top label's bound (x's mu when (i, j) is the sentence).
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    sentences = SENTENCES + [["w0", "w2", "w1", "w0", "w2"]]
+    tables = span_tables(grammar, sentences)
+    lengths = torch.tensor([len(w) for w in sentences])
+    coarse_log = (tables.marginals @ layout.member).log()
+    bound = decode_module._tree_bound(coarse_log, lengths, layout.num_parents)
+    kp, slack = layout.num_parents, decode_module.FLOOR_SLACK
+    for b, words in enumerate(sentences):
+        n = len(words)
+        log = coarse_log[b].tolist()
+        u = {(i, j): max(log[i][j - i][:kp] if j - i > 1 else log[i][1])
+             for i in range(n) for j in range(i + 1, n + 1)}
+        for i in range(n):
+            for j in range(i + 1, n + 1):
+                for x in range(kp if j - i > 1 else len(layout.names)):
+                    mu = log[i][j - i][x]
+                    if mu == -math.inf:
+                        assert float(bound[b, i, j - i, x]) == -math.inf
+                        continue
+                    at = dict(u)
+                    at[i, j] = mu
+                    best = -math.inf
+                    for nodes in bracketings(0, n):
+                        if j - i > 1 and not any(a == i and c == j for a, _, c in nodes):
+                            continue
+                        value = at[0, n] + sum(at[k, k + 1] for k in range(n))
+                        value += sum(min(at[a, c], at[a, m], at[m, c]) for a, m, c in nodes)
+                        best = max(best, value)
+                    assert float(bound[b, i, j - i, x]) == pytest.approx(best + slack,
+                                                                         abs=1e-12)
 
 
 @pytest.mark.parametrize("grammar", [REFINED, SPARSE], ids=["dense", "sparse"])
@@ -403,14 +444,13 @@ def assert_max_rule_product_enumerated(grammar, sentences) -> None:
         assert sorted(spans) == expect_spans
 
 
-def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) -> None:
+def check_paths(calls, path: str, nothing_kept: bool = False) -> None:
     """The forced pass ran with a finite floor (the other did not: the known tree's floor is
-    an item pass of its own), and the known tree's floor was sought for the whole batch only
-    when asked for (and, on the item path, was). With nothing kept no sentence has an
-    anchored rule, and the item pass, which then costs nothing, takes them whatever
-    ITEM_OVERHEAD is; the first floor then leaves every sentence without a tree, and a known
-    tree's floor is sought for them, which the second pass takes rather than no floor."""
-    known = [floor for name, floor in calls if name == "_known_tree_floor"]
+    an item pass of its own), and no known tree's floor was sought for the whole batch (only
+    for given sentences). With nothing kept no sentence has an anchored rule, and the item
+    pass, which then costs nothing, takes them whatever ITEM_OVERHEAD is; the first floor
+    then leaves every sentence without a tree, and a known tree's floor is sought for them,
+    which the second pass takes rather than no floor."""
     floored = {name for name, floor in calls if torch.isfinite(floor).any()
                and name != "_known_tree_floor"}
     if path == "items":
@@ -418,14 +458,11 @@ def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) 
         assert "_max_rule_product_items" in floored
     elif not nothing_kept:
         assert "_max_rule_product_refined" in floored
-    assert bool(known) <= known_tree
-    if known_tree and path == "items":
-        assert known
+    assert "_known_tree_floor" not in [name for name, _ in calls]
     if nothing_kept:
         assert "_known_tree_floor(rows)" in [name for name, _ in calls]
 
 
-@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word, at_most, passes", [
     (0.01, 1.0, 2),   # a floor above every best tree: each sentence decoded again
@@ -433,14 +470,13 @@ def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) 
     (50.0, 1.0, 1),   # a floor that leaves nothing out (a known tree's floor: above it)
     (1.5, 0.0, 1),    # no floor per word (the guard for diffuse posteriors): a known tree's
 ])
-def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tree,
-                                                     nats_per_word, at_most, passes):
+def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, nats_per_word,
+                                                     at_most, passes):
     # Brute force (coarse_objective) for every path of the exact pruning, on one batch, with
-    # each of the two floored passes, and with the floor raised to a known tree's score or not.
+    # each of the two floored passes.
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", at_most)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
-    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 12)
     real = decode_module._max_rule_product_floored
     floors = []
 
@@ -466,14 +502,12 @@ def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tr
                                  "chart": "_max_rule_product_refined"}[path]
             assert names.count("_max_rule_product_refined") == (path == "chart")
         else:
-            check_paths(calls, path, known_tree, nothing_kept=nats_per_word == 0.01)
+            check_paths(calls, path, nothing_kept=nats_per_word == 0.01)
 
 
-@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word", [2.0, 5.0])
 def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkeypatch, path,
-                                                                          known_tree,
                                                                           nats_per_word):
     # Reference: the pass without pruning (checked against enumeration above), on sentences too
     # long to enumerate, one of them with no parse and one of a single word: the same trees
@@ -483,7 +517,6 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
-    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 12)
     real_items, real_kept = decode_module._work_items, decode_module._kept_labels
     left_out = []
 
@@ -516,7 +549,7 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     lengths = [len(w) for w in sentences]
     pruned = max_rule_product(g, tables, lengths)
     assert sum(left_out) > 0          # the floor left labeled spans out
-    check_paths(calls, path, known_tree)
+    check_paths(calls, path)
     full = max_rule_product(g, tables, lengths, prune=False)
     assert pruned[4] is None and [a is None for a in pruned] == [b is None for b in full]
     assert sum(a is not None for a in pruned) == 6     # the 1-word sentence has no parse either
@@ -681,11 +714,10 @@ def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():
             assert sorted(result.tree.labeled_spans()) == expect_spans
 
 
-@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word", [0.01, 1.5])
 def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
-        monkeypatch, known_tree, path, nats_per_word):
+        monkeypatch, path, nats_per_word):
     # Brute force (coarse_objective): the exact pruning with the floor forced on, on unrefined
     # grammars (the item pass with one subcategory a symbol, or the max-semiring pass, which
     # leaves nothing out; at 0.01 nats a word the floor is above every best tree, and the
@@ -695,16 +727,29 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
-    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 12)
-    calls = spy_on_passes(monkeypatch)
+    # The anchored rules of each floored item pass (the known tree's floor has its own): on
+    # the chart path it runs only where the floor left none, and then costs nothing (as
+    # check_paths says).
+    weighed = []
+    real_items = decode_module._max_rule_product_items
+
+    def items(grammar, tables, lengths, lay, *args, **kwargs):
+        if "kept" in kwargs:
+            rules = decode_module._pass_costs(kwargs["kept"], lay, torch.tensor(lengths))[0]
+            weighed.append(int(rules.sum()))
+        return real_items(grammar, tables, lengths, lay, *args, **kwargs)
+
+    monkeypatch.setattr(decode_module, "_max_rule_product_items", items)
     cases = [(make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5), SENTENCES),
              (random_grammar(3, 3, 3, seed=11, sparsity=0.35), SENTENCES),
              (make_grammar(["A", "B"], ["P"], 3, seed=6, nt_emit=True),
               SENTENCES[:2] + [["w2"]])]
     for g, sentences in cases:
         assert_max_rule_product_enumerated(g, sentences)
-    assert ("_max_rule_product_items" in {name for name, _ in calls}) == (
-        path == "items" or nats_per_word == 0.01)
+    if path == "items":     # at 0.01 nats a word the floor keeps no rule: called, for none
+        assert any(weighed) if nats_per_word == 1.5 else weighed
+    else:
+        assert not any(weighed)
 
 
 def test_max_rule_product_on_a_small_unrefined_grammar_takes_the_chart_pass(monkeypatch):
@@ -907,7 +952,6 @@ def test_max_rule_product_under_the_word_piece_constraint_matches_enumeration(
     if path is not None:
         monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
         monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
-        monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1)
     grammar = REFINED if refined else make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5)
     words, barred = PIECE_WORDS[:4], [2]
     keep = allowed_by(side, barred)

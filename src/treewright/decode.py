@@ -346,97 +346,24 @@ UNREFINED_PRUNE_FROM = 3_000_000  # an unrefined grammar's chart pass per senten
 def _tree_bound(coarse_log: Tensor, lengths: Tensor, num_parents: int) -> Tensor:
     """(B, N+1, N+1, K) for every labeled span, an upper bound on the log max-rule-product
     score of any tree that holds it (-inf where none can), from the coarse label log marginals
-    `coarse_log` (B, N+1, N+1, K) alone, plus `_slack` for rounding.
+    `coarse_log` (B, N+1, N+1, K) alone, plus `_slack` for rounding (`engine.anchored.
+    tree_bounds`).
 
-    An admissible estimate in the sense of A* parsing (Klein & Manning 2003, "A* Parsing: Fast
-    Exact Viterbi Parse Selection"), here for the max-rule-product objective. Every factor of
-    a tree's score is at most 1 and at most a marginal: a binary node's rule posterior at most
-    u(span) = max over coarse parents of mu(parent, span) (and at most mu(x, span) for its own
-    label x), a word's label posterior at most that word's best one, the top label's at most
-    u(sentence). So a tree's score is at most the product of those bounds over its nodes, and
-    the best product over trees holding a span is a max-semiring inside pass (the best
-    bracketing inside the span) times an outside pass (the best around it) over u alone: an
-    unlabeled chart, O(B N^3), small beside the inside pass that gave the marginals. With a
-    labeled span x over (i, j) of two or more words the bound is mu(x, i, j) times the best
-    inside of its two children times its outside times every word's best label posterior; for
-    a word, its own label's posterior replaces its best. A floor below the best tree's score
-    keeps every labeled span of that tree under this bound, as under mu alone, and leaves out
-    far more of a trained grammar's chart (on the EM-trained 30/60 grammar of
-    `bench_parse_speed.py`, 14 times fewer anchored rules than mu alone at the same floor).
+    Every factor of a tree's score is a posterior: a binary node's rule posterior is at most
+    the label marginal mu of each of its three labeled spans, a word's label posterior and the
+    top label's are marginals themselves. So a tree's score is at most the product, over its
+    binary nodes, of the least of their spans' bounds (the labeled span's own mu; for the
+    others the best label's), times every word's and the top label's: the best such product
+    over the trees holding a labeled span is a max-semiring inside and outside pass over those
+    bounds, an admissible estimate in the sense of A* parsing (Klein & Manning 2003). A floor
+    below the best tree's score keeps every labeled span of that tree, as under mu alone, and
+    leaves out far more of a trained grammar's chart: on a refined grammar trained on Turkish
+    text (G = 4, 200 sentences of up to 20 words), at a floor equal to each sentence's best
+    score, 18 times fewer anchored rules than the bound that charged each binary node its
+    parent span's bound alone (and that one 14 times fewer than mu alone on the EM-trained
+    30/60 grammar of `bench_parse_speed.py`).
     """
-    B, N1, _, K = coarse_log.shape
-    N = N1 - 1
-    dtype = coarse_log.dtype
-    log_u = coarse_log[..., :num_parents].amax(-1) if num_parents else \
-        torch.full((B, N1, N1), NEG_INF, dtype=dtype)                   # (B, N+1, N+1)
-    word_best = coarse_log[:, :, 1].amax(-1)                             # (B, N+1)
-    log_u[:, :, 1] = word_best                                          # a one-word sentence
-    in_sentence = torch.arange(N1)[None, :] < lengths[:, None]
-    word_best = torch.where(in_sentence, word_best, torch.zeros((), dtype=dtype))
-    words = word_best.sum(1)                                             # (B,)
-    # Cells flattened to start * (N+1) + width, one more cell (-inf) for the splits that do not
-    # fit; `_bound_indices` lists, per width, the cells each max reads.
-    widths = _bound_indices(N)
-    cells = N1 * N1
-    flat_u = torch.cat([log_u.reshape(B, cells), log_u.new_full((B, 1), NEG_INF)], 1)
-    # inner: the best product of the bounds inside a span, its own node left out; inside =
-    # inner + log u.
-    inner = torch.full((B, cells + 1), NEG_INF, dtype=dtype)
-    inner[:, 1:cells:N1] = 0.0
-    inside = inner.clone()
-    for target, left, right in widths.inside:
-        best = (inside.index_select(1, left) + inside.index_select(1, right)).view(
-            B, len(target), -1).amax(-1)
-        inner[:, target] = best
-        inside[:, target] = best + flat_u.index_select(1, target)
-    # outside: the best product of the bounds of everything around a span, every ancestor's
-    # node and the top label included.
-    outside = torch.full((B, cells + 1), NEG_INF, dtype=dtype)
-    outside[torch.arange(B), lengths] = flat_u[torch.arange(B), lengths]  # the top: (0, n)
-    for target, parent, sibling in widths.outside:
-        best = (outside.index_select(1, parent) + flat_u.index_select(1, parent) +
-                inside.index_select(1, sibling)).view(B, len(target), -1).amax(-1)
-        outside[:, target] = torch.maximum(outside[:, target], best)
-    inner, outside = inner[:, :cells].view(B, N1, N1), outside[:, :cells].view(B, N1, N1)
-    around = outside + words[:, None, None] + _slack(dtype)             # (B, N+1, N+1)
-    bound = coarse_log + (inner + around)[..., None]
-    bound[:, :, 1] = coarse_log[:, :, 1] - word_best[..., None] + around[:, :, 1, None]
-    return bound
-
-
-@dataclass
-class _BoundIndices:
-    """Per span width, the flattened cells (start * (N+1) + width; (N+1)**2 for none) that
-    `_tree_bound` reads: `inside` from width 2 up, (cells of the width, left children, right
-    children), every split of each cell in turn; `outside` from width N - 1 down, (cells of the
-    width, parents, siblings), every parent of each cell in turn (the cell as the left child of
-    each wider span starting with it, then as the right child of each ending with it)."""
-    inside: list[tuple[Tensor, Tensor, Tensor]]
-    outside: list[tuple[Tensor, Tensor, Tensor]]
-
-
-@functools.lru_cache(maxsize=64)
-def _bound_indices(N: int) -> _BoundIndices:
-    N1 = N + 1
-    none = N1 * N1
-    inside, outside = [], []
-    for w in range(2, N + 1):
-        start, u = torch.arange(N - w + 1)[:, None], torch.arange(1, w)[None, :]
-        inside.append((start.flatten() * N1 + w, (start * N1 + u).flatten(),
-                       ((start + u) * N1 + w - u).flatten()))
-    for w in range(N - 1, 0, -1):
-        start, v = torch.arange(N - w + 1)[:, None], torch.arange(w + 1, N + 1)[None, :]
-        fits = start + v <= N                                            # left child
-        parent_l = torch.where(fits, start * N1 + v, none)
-        sibling_l = torch.where(fits, (start + w) * N1 + v - w, none)
-        first = start - (v - w)                                          # right child
-        fits = first >= 0
-        parent_r = torch.where(fits, first * N1 + v, none)
-        sibling_r = torch.where(fits, first * N1 + v - w, none)
-        outside.append((torch.arange(N - w + 1) * N1 + w,
-                        torch.cat([parent_l, parent_r], 1).flatten(),
-                        torch.cat([sibling_l, sibling_r], 1).flatten()))
-    return _BoundIndices(inside, outside)
+    return anchored.tree_bounds(coarse_log, lengths, num_parents, _slack(coarse_log.dtype))
 
 
 def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
@@ -461,19 +388,18 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     labeled spans, and, sharper, at most the product of such bounds over its nodes: for each
     labeled span, `_tree_bound` gives the best such product over the trees that hold it. A
     tree holding a labeled span whose bound is below the score of any other tree cannot be the
-    best. The pass first leaves out every labeled span with a bound below a
-    floor of `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the
-    sentence's (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`; otherwise,
-    for diffuse posteriors, on a refined grammar the score of one known tree,
-    `_known_tree_floor`, and on an unrefined one none: its chart pass is fast), raised to a
-    known tree's score where that leaves many anchored rules; when the best tree it finds
-    scores at or above the floor, that bound makes it the best of all trees. Otherwise the
-    sentence is decoded again with its own found score as the floor (or, on a refined
-    grammar, a known tree's when nothing was found), which is exact by the same bound. What is kept
-    is decoded by the cheaper of two passes (`_max_rule_product_floored`): over the labeled
-    spans kept (`_max_rule_product_items`) or over the chart. The trees and scores are those of
-    the pass without pruning (scores up to rounding); only the time differs (the posteriors of
-    a trained grammar leave most spans out: see README, "Parsing against training speed").
+    best. The pass first leaves out every labeled span with a bound below a floor of
+    `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the sentence's
+    (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`; otherwise, for diffuse
+    posteriors, on a refined grammar the score of one known tree, `_known_tree_floor`, and on
+    an unrefined one none: its chart pass is fast); when the best tree it finds scores at or
+    above the floor, that bound makes it the best of all trees. Otherwise the sentence is
+    decoded again with its own found score as the floor (or, on a refined grammar, a known
+    tree's when nothing was found), which is exact by the same bound. What is kept is decoded
+    by the cheaper of two passes (`_max_rule_product_floored`): over the labeled spans kept
+    (`_max_rule_product_items`) or over the chart. The trees and scores are those of the pass
+    without pruning (scores up to rounding); only the time differs (the posteriors of a
+    trained grammar leave most spans out: see README, "Parsing against training speed").
     """
     dtype = tables.marginals.dtype
     lay = CoarseLayout.of(grammar, dtype) if layout is None else layout
@@ -501,21 +427,12 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     refined = lay.slots.shape[1] > 1    # (an unrefined grammar's chart pass is the fast one)
     diffuse = (kept > PRUNE_AT_MOST) & torch.isfinite(tables.logz) & refined
     floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
-    # A known tree's score can leave far fewer anchored rules than the floor per word (about a
-    # sixth on the EM-trained grammars of `bench_parse_speed.py`). It costs one small pass,
-    # taken where the floor per word leaves many rules and where the item pass could then be
-    # the cheaper one.
-    kept_labels = _kept_labels(bound, n, lay.num_parents, floor)
-    costs = _pass_costs(kept_labels, lay, n)
-    finite = torch.isfinite(floor)
-    rules, chart = int(costs[0][finite].sum()), int(costs[1][finite].sum())
-    known = None   # the kept labels and costs under the floor per word, unless it is raised
-    if finite.any() and rules > KNOWN_TREE_FROM and \
-            rules * _item_cost(lay) <= KNOWN_TREE_GAIN * chart:
-        floor = torch.maximum(floor, _known_tree_floor(grammar, tables, lengths, lay, floor,
-                                                       coarse_log, bound))
-    else:
-        known = (kept_labels, *costs)
+    # A known tree's score often leaves fewer anchored rules than the floor per word (3 to 12
+    # times fewer on the refined Turkish grammar of README's "Parsing against training
+    # speed"), but under the tree bound the item pass over those rules costs less than
+    # finding the tree: in every batch measured (up to 8.3 million rules, sentences of up to
+    # 43 words) the floor per word alone was 3-8 ms a batch faster. So the known tree is
+    # sought only where the floor per word cannot be used (below) or found nothing.
     if diffuse.any():
         # Without a floor these would take the chart pass, which on a trained grammar's few
         # diffuse sentences costs far more than the item pass under a known tree's score
@@ -524,9 +441,8 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
         rows = diffuse.nonzero().flatten()
         floor[rows] = _known_tree_floor(grammar, tables, lengths, lay, floor, coarse_log, bound,
                                         rows=rows)[rows]
-        known = None
     results, values, floor = _max_rule_product_floored(grammar, tables, lengths, lay, floor,
-                                                       coarse_log, bound, known)
+                                                       coarse_log, bound)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
     # Where the floor left no tree at all, the second pass would have no floor and take the
@@ -698,9 +614,6 @@ def _slack(dtype: torch.dtype) -> float:
     tens of logarithms of some nats each: 1e4 units of the last place, 1.2e-3 in float32)."""
     return max(FLOOR_SLACK, 1e4 * torch.finfo(dtype).eps)
 KNOWN_TREE_LABELS = 3  # coarse labels tried per span of the known tree (its best ones)
-KNOWN_TREE_FROM = 20_000  # anchored rules of a batch above which a known tree's floor is sought
-KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many times the chart
-                          # pass under the floor per word
 
 
 def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
@@ -762,8 +675,7 @@ FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no char
 
 def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
-                              coarse_log: Tensor, bound: Tensor | None = None,
-                              known: tuple[Tensor, Tensor, Tensor] | None = None
+                              coarse_log: Tensor, bound: Tensor | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor, Tensor]:
     """`_max_rule_product_refined` with the floor `floor` (B,), by whichever exact pass costs
@@ -774,8 +686,7 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     runs span width by span width over every sentence it is given, so a part of a batch costs
     it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
     item pass takes its sentences together, on factored rules in groups of at most
-    `ITEMS_AT_ONCE` anchored rules (a sentence with more goes alone). `known`: the
-    `_kept_labels` under this floor and their `_pass_costs`, when the caller has them. Returns
+    `ITEMS_AT_ONCE` anchored rules (a sentence with more goes alone). Returns
     the results, the (B,) best log scores and the floors the passes held (-inf where the pass
     left nothing out: the max-semiring pass of an unrefined grammar)."""
     B = len(lengths)
@@ -783,11 +694,8 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     K, G = lay.slots.shape
     n = torch.tensor(list(lengths), dtype=torch.long)
     bound = coarse_log if bound is None else bound
-    if known is None:
-        kept = _kept_labels(bound, n, lay.num_parents, floor)
-        rules, chart = _pass_costs(kept, lay, n)
-    else:
-        kept, rules, chart = known
+    kept = _kept_labels(bound, n, lay.num_parents, floor)
+    rules, chart = _pass_costs(kept, lay, n)
     finite = torch.isfinite(floor)
     by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
                          or lay.factored)               # factored rules: no chart pass

@@ -1,6 +1,6 @@
 """The best derivation over anchored coarse rules, for max-rule-product decoding, in compiled
-loops: over the labeled spans a decoder keeps (`best_derivations`), and over a whole chart
-width (`best_splits`).
+loops: over the labeled spans a decoder keeps (`best_derivations`), over a whole chart width
+(`best_splits`), and the bounds that choose which labeled spans to keep (`tree_bounds`).
 
 Max-rule-product decoding of a refined grammar (Petrov & Klein 2007, "Improved Inference for
 Unlexicalized Parsing", section 3) weighs anchored coarse rules: parent x over a span, a split
@@ -262,3 +262,158 @@ def _width_kernel():
                 value[r, x] = best
                 arg[r, x, 0], arg[r, x, 1], arg[r, x, 2] = bu, by, bz
     return splits
+
+
+def tree_bounds(coarse_log: Tensor, lengths: Tensor, num_parents: int, slack: float) -> Tensor:
+    """(B, N+1, N+1, K) for every labeled span (start, width, coarse symbol), an upper bound on
+    the log max-rule-product score of any tree that holds it, plus `slack`; -inf where no tree
+    can. `coarse_log` (B, N+1, N+1, K): the coarse labels' log marginals mu (a word's labels
+    at width one; over two or more words only the first `num_parents` symbols, the coarse
+    parents, can be labels).
+
+    A tree's score multiplies its binary nodes' anchored rule posteriors q, each word's label
+    posterior and the top label's posterior. Each is a posterior probability, so q(x -> y z) is
+    at most each of mu(x) over the parent's span, mu(y) and mu(z) over the children's (a rule
+    used there implies all three labeled spans). So a binary node is bounded by the least of
+    its three spans' bounds: the labeled span's own mu, u = the largest mu over the span's
+    labels for the others. The best product of those bounds over the trees holding a labeled
+    span is an unlabeled max-semiring pass, inside and outside (an admissible estimate in the
+    sense of A* parsing: Klein & Manning 2003, "A* Parsing: Fast Exact Viterbi Parse
+    Selection"), in which the labeled span's mu enters two factors: its own node's and its
+    parent's (or the top label's). One loop per sentence: O(n^3) for the unlabeled pass and
+    O(K n^3) for the labels, each label's two factors maximized over its splits and its
+    parents."""
+    B, N1, _, K = coarse_log.shape
+    out = torch.empty_like(coarse_log)
+    _bound_kernel()(coarse_log.contiguous().numpy(), lengths.to(torch.long).numpy(),
+                    num_parents, slack, out.numpy())
+    return out
+
+
+@functools.cache
+def _bound_kernel():
+    """The compiled loop of `tree_bounds` (numba, compiled on first use, per dtype)."""
+    @jit
+    def _range(fac, rest, a, b):  # pragma: no cover
+        """Over entries a..b-1: the least and largest bound, the best rest, and the best bound
+        plus rest (all -inf when there are none)."""
+        lo, hi, r, c = np.inf, -np.inf, -np.inf, -np.inf
+        for s in range(a, b):
+            lo, hi = min(lo, fac[s]), max(hi, fac[s])
+            r, c = max(r, rest[s]), max(c, fac[s] + rest[s])
+        if a == b:
+            lo = -np.inf
+        return lo, hi, r, c
+
+    @jit
+    def bounds(cl, lengths, Kp, slack, out):  # pragma: no cover
+        B, N1, _, K = cl.shape
+        neg = -np.inf
+        out[:] = neg
+        u = np.empty((N1, N1), dtype=cl.dtype)      # the best label's mu, [start, width]
+        ins = np.empty((N1, N1), dtype=cl.dtype)    # best product inside a span, its node in
+        outs = np.empty((N1, N1), dtype=cl.dtype)   # ... around it, its parent's node in
+        fac = np.empty(2 * N1, dtype=cl.dtype)      # a cell's per-split (or per-parent) bound
+        rest = np.empty(2 * N1, dtype=cl.dtype)     # ... and what the rest adds to it
+        for sb in range(B):
+            n = lengths[sb]
+            if n == 0:
+                continue
+            u[:] = neg
+            ins[:] = neg
+            outs[:] = neg
+            words = 0.0
+            for i in range(n):
+                best = neg
+                for x in range(K):
+                    best = max(best, cl[sb, i, 1, x])
+                u[i, 1] = best
+                ins[i, 1] = 0.0
+                words += best
+            for w in range(2, n + 1):
+                for i in range(n - w + 1):
+                    best = neg
+                    for x in range(Kp):
+                        best = max(best, cl[sb, i, w, x])
+                    u[i, w] = best
+            if words == neg:
+                continue
+            for w in range(2, n + 1):
+                for i in range(n - w + 1):
+                    best = neg
+                    for k in range(1, w):
+                        v = min(u[i, w], u[i, k], u[i + k, w - k]) + ins[i, k] + \
+                            ins[i + k, w - k]
+                        best = max(best, v)
+                    ins[i, w] = best
+            outs[0, n] = u[0, n]                    # the top label's posterior
+            for w in range(n - 1, 0, -1):
+                for i in range(n - w + 1):
+                    best = neg
+                    for W in range(w + 1, n + 1):
+                        if i + W <= n:              # left child of (i, W)
+                            v = outs[i, W] + min(u[i, W], u[i, w], u[i + w, W - w]) + \
+                                ins[i + w, W - w]
+                            best = max(best, v)
+                        p = i - (W - w)
+                        if p >= 0:                  # right child of (p, W)
+                            v = outs[p, W] + min(u[p, W], u[p, W - w], u[i, w]) + \
+                                ins[p, W - w]
+                            best = max(best, v)
+                    outs[i, w] = best
+            for w in range(1, n + 1):
+                for i in range(n - w + 1):
+                    # Own node: per split, the children's bound and their insides.
+                    ns = 0
+                    for k in range(1, w):
+                        fac[ns] = min(u[i, k], u[i + k, w - k])
+                        rest[ns] = ins[i, k] + ins[i + k, w - k]
+                        ns += 1
+                    # Parent's node: per parent, its and the sibling's bound, and the rest.
+                    no = ns
+                    for W in range(w + 1, n + 1):
+                        if i + W <= n:
+                            fac[no] = min(u[i, W], u[i + w, W - w])
+                            rest[no] = outs[i, W] + ins[i + w, W - w]
+                            no += 1
+                        p = i - (W - w)
+                        if p >= 0:
+                            fac[no] = min(u[p, W], u[p, W - w])
+                            rest[no] = outs[p, W] + ins[p, W - w]
+                            no += 1
+                    # A label whose mu is at most every split's (parent's) bound adds it to
+                    # the best rest; one at least as high as all of them adds nothing of its
+                    # own. Only the labels between (few, on a trained grammar) walk the list.
+                    lo_own, hi_own, r_own, c_own = _range(fac, rest, 0, ns)
+                    lo_up, hi_up, r_up, c_up = _range(fac, rest, ns, no)
+                    top = i == 0 and w == n
+                    kx = K if w == 1 else Kp
+                    base = words + slack
+                    if w == 1:
+                        base -= u[i, 1]
+                    for x in range(kx):
+                        m = cl[sb, i, w, x]
+                        if m == neg:
+                            continue
+                        if w == 1:
+                            own = m                     # a word's own label posterior
+                        elif m <= lo_own:
+                            own = m + r_own
+                        elif m >= hi_own:
+                            own = c_own
+                        else:
+                            own = neg
+                            for s in range(ns):
+                                own = max(own, min(m, fac[s]) + rest[s])
+                        if m <= lo_up:
+                            above = m + r_up
+                        elif m >= hi_up:
+                            above = c_up
+                        else:
+                            above = neg
+                            for s in range(ns, no):
+                                above = max(above, min(m, fac[s]) + rest[s])
+                        if top:                         # the top label's posterior
+                            above = max(above, m)
+                        out[sb, i, w, x] = own + above + base
+    return bounds
