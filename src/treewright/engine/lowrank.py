@@ -38,19 +38,14 @@ NEG_INF = float("-inf")
 
 @functools.cache
 def _kernels():
-    """The split sums of one width and their adjoints, compiled loops (numba, on first use,
-    per dtype). Each (span, sentence) row walks its K = width - 1 splits and adds, over the
-    rank, the split's weight times the left child's left-role projection times the right
-    child's right-role projection: no (spans, B, K, R) product is made and read again, as a
-    product of whole tensors needs. `proj` (rows, 2R) holds both roles of every cell as
+    """The split sums of one width, and the adjoints of a width's cells gathered from their
+    parents, compiled loops (numba, on first use, per dtype). For the sums each (span,
+    sentence) row walks its K = width - 1 splits and adds, over the rank, the split's weight
+    times the left child's left-role projection times the right child's right-role
+    projection: no (spans, B, K, R) product is made and read again, as a product of whole
+    tensors needs. `proj` (rows, 2R) holds both roles of every cell as
     `_inside` lays it out: cell (start i, width w) of sentence b at row rows[w] + i B + b, its
     left role in the first R columns and its right role in the last R."""
-    @jit
-    def children(rows, width, B, p, b, k):  # pragma: no cover
-        """The rows of split k's children of span p of sentence b: the left child (p, k + 1)
-        and the right child (p + k + 1, width - k - 1)."""
-        return rows[1 + k] + p * B + b, rows[width - 1 - k] + (p + 1 + k) * B + b
-
     @jit
     def split_sums(proj, rows, weight, out, width):  # pragma: no cover
         P, B, K = weight.shape
@@ -62,29 +57,51 @@ def _kernels():
                     o[r] = 0.0
                 for k in range(K):
                     wk = weight[p, b, k]
-                    at_left, at_right = children(rows, width, B, p, b, k)
+                    # The children: left (p, k + 1), right (p + k + 1, width - k - 1).
+                    at_left = rows[1 + k] + p * B + b
+                    at_right = rows[width - 1 - k] + (p + 1 + k) * B + b
                     left, right = proj[at_left], proj[at_right]
                     for r in range(R):
                         o[r] += wk * left[r] * right[R + r]
 
     @jit
-    def split_adjoints(proj, rows, weight, g_rank, adj, width):  # pragma: no cover
-        P, B, K = weight.shape
+    def child_adjoints(proj, rows, weight, wrows, g_rank, grows, adj, N, B, width):
+        # pragma: no cover
+        """The adjoints of both roles of every cell of `width` (all N - width + 1 starts, all
+        B sentences), each row written once: the sum over the cell's parents (every wider
+        span that has it as a child, whose rank adjoints `g_rank` are final) of the split's
+        weight times the parent's rank adjoint times the sibling's projection in the other
+        role. `weight` holds every width's split weights flat, width W's (start p, sentence
+        b, split k) at wrows[W] + (p B + b) (W - 1) + k; `g_rank` the parents' rank adjoints
+        in the cells' row order, width W's at grows[W] + p B + b."""
         R = proj.shape[1] // 2
-        for p in range(P):
+        for i in range(N - width + 1):
             for b in range(B):
-                g = g_rank[p, b]
-                for k in range(K):
-                    wk = weight[p, b, k]
-                    at_left, at_right = children(rows, width, B, p, b, k)
-                    left, a_left = proj[at_left], adj[at_left]
-                    right, a_right = proj[at_right], adj[at_right]
+                out = adj[rows[width] + i * B + b]
+                for r in range(2 * R):
+                    out[r] = 0.0
+                # The left child of (i, W), split width - 1; its sibling (i + width, W - width).
+                for W in range(width + 1, N - i + 1):
+                    wk = weight[wrows[W] + (i * B + b) * (W - 1) + width - 1]
+                    if wk == 0.0:
+                        continue
+                    g = g_rank[grows[W] + i * B + b]
+                    sib = proj[rows[W - width] + (i + width) * B + b]
                     for r in range(R):
-                        t = wk * g[r]
-                        a_left[r] += t * right[R + r]
-                        a_right[R + r] += t * left[r]
+                        out[r] += wk * g[r] * sib[R + r]
+                # The right child of (p, W), p = i - (W - width), split W - width - 1; its
+                # sibling (p, W - width).
+                for W in range(width + 1, width + i + 1):
+                    p = i - (W - width)
+                    wk = weight[wrows[W] + (p * B + b) * (W - 1) + W - width - 1]
+                    if wk == 0.0:
+                        continue
+                    g = g_rank[grows[W] + p * B + b]
+                    sib = proj[rows[W - width] + p * B + b]
+                    for r in range(R):
+                        out[R + r] += wk * g[r] * sib[r]
 
-    return split_sums, split_adjoints
+    return split_sums, child_adjoints
 
 
 def dense_binary(u: Tensor, v: Tensor, w: Tensor) -> Tensor:
@@ -285,20 +302,31 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
     adj_top[lengths, torch.arange(B)] = pi * g_root[:, None]
     # The adjoints of the projections, in their layout (`_inside`): the words' N B rows, then
     # the rows of the cells' buffers, so that the factor gradients are one product each.
+    # Each width's rows are gathered from their parents (`_kernels`) before the width is
+    # read, so every row is written once and the buffer needs no zero fill.
     proj, proj_rows = st["proj"], st["proj_rows"]
-    adj_proj = torch.zeros_like(proj)
+    adj_proj = torch.empty_like(proj)
     grad_V, grad_W = torch.zeros_like(V), torch.zeros_like(W)
     grad_U = None if U is None else torch.zeros_like(U)
     grad_pot = words.new_zeros(B, N + 1, N + 1) if has_pot else None
     offsets, vw = st["offsets"], st["vw"]
     adj_proj_all = adj_proj[N * B:]                                   # rows of the cells
-    # Per-width adjoints of the raw sums, in the row layout of the forward's buffers.
+    # Per-width adjoints of the raw sums, in the row layout of the forward's buffers, and
+    # (with U) of the rank sums; every width's split weights in one flat buffer.
     g_all = words.new_empty(offsets[-1], NT)
+    g_rank_all = g_all if U is None else words.new_empty(offsets[-1], R)
+    weight_flat = torch.cat([words.new_zeros(0)] + [x.flatten() for x in st["weights"][2:]])
+    sizes = torch.tensor([0, 0, 0] + [x.numel() for x in st["weights"][2:]], dtype=torch.long)
+    gather = functools.partial(_kernels()[1], proj.numpy(), proj_rows.numpy(),
+                               weight_flat.numpy(), sizes.cumsum(0)[:-1].numpy(),
+                               g_rank_all.numpy(), torch.tensor(offsets).numpy(),
+                               adj_proj.numpy(), N, B)
     for width in range(N, 1, -1):
         P = N - width + 1
         rows = slice(offsets[width], offsets[width + 1])
         cells = st["cells"][rows].view(P, B, NT)
-        weight, peak = st["weights"][width], st["peaks"][width]
+        peak = st["peaks"][width]
+        gather(width)
         adj = adj_proj_all[rows].view(P, B, 2 * R) @ vw.t()           # (P, B, NT)
         adj[0] += adj_top[width]
         if grad_pot is not None:
@@ -307,9 +335,9 @@ def _outside(st: dict, grad_logz: Tensor, nt_emits: bool, has_pot: bool,
             labels[:, 0:P, width, :NT] = (adj * cells).transpose(0, 1)
         g = torch.div(adj, peak.unsqueeze(-1), out=g_all[rows].view(P, B, NT))
         g.nan_to_num_(nan=0.0)                                        # d/d raw sum
-        g_rank = g if U is None else g @ U                            # (P, B, R)
-        _kernels()[1](proj.numpy(), proj_rows.numpy(), weight.numpy(),
-                      g_rank.contiguous().numpy(), adj_proj.numpy(), width)
+        if U is not None:
+            torch.mm(g.view(P * B, NT), U, out=g_rank_all[rows])      # (P B, R)
+    gather(1)                                                         # the words' rows
     if offsets[-1] and need_factors:
         grad_vw = st["cells"].t() @ adj_proj_all                      # (NT, 2R)
         grad_V[:NT] += grad_vw[:, :R]
