@@ -306,6 +306,19 @@ def _bound_kernel():
         return lo, hi, r, c
 
     @jit
+    def _best(m, fac, rest, a, b, lo, hi, r, c):  # pragma: no cover
+        """The largest min(m, fac) + rest over entries a..b-1, given their `_range`: m + the
+        best rest when m is at most every bound, the best bound plus rest when at least."""
+        if m <= lo:
+            return m + r
+        if m >= hi:
+            return c
+        best = -np.inf
+        for s in range(a, b):
+            best = max(best, min(m, fac[s]) + rest[s])
+        return best
+
+    @jit
     def bounds(cl, lengths, Kp, slack, out):  # pragma: no cover
         B, N1, _, K = cl.shape
         neg = -np.inf
@@ -383,7 +396,8 @@ def _bound_kernel():
                             no += 1
                     # A label whose mu is at most every split's (parent's) bound adds it to
                     # the best rest; one at least as high as all of them adds nothing of its
-                    # own. Only the labels between (few, on a trained grammar) walk the list.
+                    # own. Only the labels between (few, on a trained grammar) walk the list
+                    # (`_best`).
                     lo_own, hi_own, r_own, c_own = _range(fac, rest, 0, ns)
                     lo_up, hi_up, r_up, c_up = _range(fac, rest, ns, no)
                     top = i == 0 and w == n
@@ -395,24 +409,9 @@ def _bound_kernel():
                         m = cl[sb, i, w, x]
                         if m == neg:
                             continue
-                        if w == 1:
-                            own = m                     # a word's own label posterior
-                        elif m <= lo_own:
-                            own = m + r_own
-                        elif m >= hi_own:
-                            own = c_own
-                        else:
-                            own = neg
-                            for s in range(ns):
-                                own = max(own, min(m, fac[s]) + rest[s])
-                        if m <= lo_up:
-                            above = m + r_up
-                        elif m >= hi_up:
-                            above = c_up
-                        else:
-                            above = neg
-                            for s in range(ns, no):
-                                above = max(above, min(m, fac[s]) + rest[s])
+                        own = m if w == 1 else \
+                            _best(m, fac, rest, 0, ns, lo_own, hi_own, r_own, c_own)
+                        above = _best(m, fac, rest, ns, no, lo_up, hi_up, r_up, c_up)
                         if top:                         # the top label's posterior
                             above = max(above, m)
                         out[sb, i, w, x] = own + above + base
