@@ -283,7 +283,6 @@ def tree_bounds(coarse_log: Tensor, lengths: Tensor, num_parents: int, slack: fl
     parent's (or the top label's). One loop per sentence: O(n^3) for the unlabeled pass and
     O(K n^3) for the labels, each label's two factors maximized over its splits and its
     parents."""
-    B, N1, _, K = coarse_log.shape
     out = torch.empty_like(coarse_log)
     _bound_kernel()(coarse_log.contiguous().numpy(), lengths.to(torch.long).numpy(),
                     num_parents, slack, out.numpy())

@@ -65,9 +65,8 @@ def _kernels():
                         o[r] += wk * left[r] * right[R + r]
 
     @jit
-    def child_adjoints(proj, rows, weight, wrows, g_rank, grows, adj, N, B, width):
-        # pragma: no cover
-        """The adjoints of both roles of every cell of `width` (all N - width + 1 starts, all
+    def child_adjoints(proj, rows, weight, wrows, g_rank, grows, adj, N, B, w):  # pragma: no cover
+        """The adjoints of both roles of every cell of width w (all N - w + 1 starts, all
         B sentences), each row written once: the sum over the cell's parents (every wider
         span that has it as a child, whose rank adjoints `g_rank` are final) of the split's
         weight times the parent's rank adjoint times the sibling's projection in the other
@@ -75,29 +74,29 @@ def _kernels():
         b, split k) at wrows[W] + (p B + b) (W - 1) + k; `g_rank` the parents' rank adjoints
         in the cells' row order, width W's at grows[W] + p B + b."""
         R = proj.shape[1] // 2
-        for i in range(N - width + 1):
+        for i in range(N - w + 1):
             for b in range(B):
-                out = adj[rows[width] + i * B + b]
+                out = adj[rows[w] + i * B + b]
                 for r in range(2 * R):
                     out[r] = 0.0
-                # The left child of (i, W), split width - 1; its sibling (i + width, W - width).
-                for W in range(width + 1, N - i + 1):
-                    wk = weight[wrows[W] + (i * B + b) * (W - 1) + width - 1]
+                # The left child of (i, W), split w - 1; its sibling (i + w, W - w).
+                for W in range(w + 1, N - i + 1):
+                    wk = weight[wrows[W] + (i * B + b) * (W - 1) + w - 1]
                     if wk == 0.0:
                         continue
                     g = g_rank[grows[W] + i * B + b]
-                    sib = proj[rows[W - width] + (i + width) * B + b]
+                    sib = proj[rows[W - w] + (i + w) * B + b]
                     for r in range(R):
                         out[r] += wk * g[r] * sib[R + r]
-                # The right child of (p, W), p = i - (W - width), split W - width - 1; its
-                # sibling (p, W - width).
-                for W in range(width + 1, width + i + 1):
-                    p = i - (W - width)
-                    wk = weight[wrows[W] + (p * B + b) * (W - 1) + W - width - 1]
+                # The right child of (p, W), p = i - (W - w), split W - w - 1; its sibling
+                # (p, W - w).
+                for W in range(w + 1, w + i + 1):
+                    p = i - (W - w)
+                    wk = weight[wrows[W] + (p * B + b) * (W - 1) + W - w - 1]
                     if wk == 0.0:
                         continue
                     g = g_rank[grows[W] + p * B + b]
-                    sib = proj[rows[W - width] + p * B + b]
+                    sib = proj[rows[W - w] + p * B + b]
                     for r in range(R):
                         out[R + r] += wk * g[r] * sib[r]
 
