@@ -444,13 +444,14 @@ def assert_max_rule_product_enumerated(grammar, sentences) -> None:
         assert sorted(spans) == expect_spans
 
 
-def check_paths(calls, path: str, nothing_kept: bool = False) -> None:
+def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) -> None:
     """The forced pass ran with a finite floor (the other did not: the known tree's floor is
-    an item pass of its own), and no known tree's floor was sought for the whole batch (only
-    for given sentences). With nothing kept no sentence has an anchored rule, and the item
-    pass, which then costs nothing, takes them whatever ITEM_OVERHEAD is; the first floor
-    then leaves every sentence without a tree, and a known tree's floor is sought for them,
-    which the second pass takes rather than no floor."""
+    an item pass of its own), and the known tree's floor was sought for the whole batch only
+    when asked for (and, on the item path, was). With nothing kept no sentence has an
+    anchored rule, and the item pass, which then costs nothing, takes them whatever
+    ITEM_OVERHEAD is; the first floor then leaves every sentence without a tree, and a known
+    tree's floor is sought for them, which the second pass takes rather than no floor."""
+    known = [floor for name, floor in calls if name == "_known_tree_floor"]
     floored = {name for name, floor in calls if torch.isfinite(floor).any()
                and name != "_known_tree_floor"}
     if path == "items":
@@ -458,11 +459,14 @@ def check_paths(calls, path: str, nothing_kept: bool = False) -> None:
         assert "_max_rule_product_items" in floored
     elif not nothing_kept:
         assert "_max_rule_product_refined" in floored
-    assert "_known_tree_floor" not in [name for name, _ in calls]
+    assert bool(known) <= known_tree
+    if known_tree and path == "items":
+        assert known
     if nothing_kept:
         assert "_known_tree_floor(rows)" in [name for name, _ in calls]
 
 
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word, at_most, passes", [
     (0.01, 1.0, 2),   # a floor above every best tree: each sentence decoded again
@@ -470,13 +474,14 @@ def check_paths(calls, path: str, nothing_kept: bool = False) -> None:
     (50.0, 1.0, 1),   # a floor that leaves nothing out (a known tree's floor: above it)
     (1.5, 0.0, 1),    # no floor per word (the guard for diffuse posteriors): a known tree's
 ])
-def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, nats_per_word,
-                                                     at_most, passes):
+def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tree,
+                                                     nats_per_word, at_most, passes):
     # Brute force (coarse_objective) for every path of the exact pruning, on one batch, with
-    # each of the two floored passes.
+    # each of the two floored passes, and with the floor raised to a known tree's score or not.
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", at_most)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 18)
     real = decode_module._max_rule_product_floored
     floors = []
 
@@ -502,12 +507,14 @@ def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, nats_per
                                  "chart": "_max_rule_product_refined"}[path]
             assert names.count("_max_rule_product_refined") == (path == "chart")
         else:
-            check_paths(calls, path, nothing_kept=nats_per_word == 0.01)
+            check_paths(calls, path, known_tree, nothing_kept=nats_per_word == 0.01)
 
 
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word", [2.0, 5.0])
 def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkeypatch, path,
+                                                                          known_tree,
                                                                           nats_per_word):
     # Reference: the pass without pruning (checked against enumeration above), on sentences too
     # long to enumerate, one of them with no parse and one of a single word: the same trees
@@ -517,6 +524,7 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 18)
     real_items, real_kept = decode_module._work_items, decode_module._kept_labels
     left_out = []
 
@@ -549,7 +557,7 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     lengths = [len(w) for w in sentences]
     pruned = max_rule_product(g, tables, lengths)
     assert sum(left_out) > 0          # the floor left labeled spans out
-    check_paths(calls, path)
+    check_paths(calls, path, known_tree)
     full = max_rule_product(g, tables, lengths, prune=False)
     assert pruned[4] is None and [a is None for a in pruned] == [b is None for b in full]
     assert sum(a is not None for a in pruned) == 6     # the 1-word sentence has no parse either
@@ -714,10 +722,11 @@ def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():
             assert sorted(result.tree.labeled_spans()) == expect_spans
 
 
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word", [0.01, 1.5])
 def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
-        monkeypatch, path, nats_per_word):
+        monkeypatch, known_tree, path, nats_per_word):
     # Brute force (coarse_objective): the exact pruning with the floor forced on, on unrefined
     # grammars (the item pass with one subcategory a symbol, or the max-semiring pass, which
     # leaves nothing out; at 0.01 nats a word the floor is above every best tree, and the
@@ -727,6 +736,7 @@ def test_pruned_max_rule_product_on_an_unrefined_grammar_matches_enumeration(
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
     monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
     monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 18)
     # The anchored rules of each floored item pass (the known tree's floor has its own): on
     # the chart path it runs only where the floor left none, and then costs nothing (as
     # check_paths says).
@@ -952,6 +962,7 @@ def test_max_rule_product_under_the_word_piece_constraint_matches_enumeration(
     if path is not None:
         monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
         monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+        monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1)
     grammar = REFINED if refined else make_grammar(["A", "B", "C"], ["P", "R"], 3, seed=5)
     words, barred = PIECE_WORDS[:4], [2]
     keep = allowed_by(side, barred)

@@ -392,8 +392,9 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     `PRUNE_NATS_PER_WORD` nats per word (when that leaves out at least half of the sentence's
     (span of two or more words, coarse parent) pairs: `PRUNE_AT_MOST`; otherwise, for diffuse
     posteriors, on a refined grammar the score of one known tree, `_known_tree_floor`, and on
-    an unrefined one none: its chart pass is fast); when the best tree it finds scores at or
-    above the floor, that bound makes it the best of all trees. Otherwise the sentence is
+    an unrefined one none: its chart pass is fast), raised to a known tree's score where the
+    item pass under it would be large; when the best tree it finds scores at or above the
+    floor, that bound makes it the best of all trees. Otherwise the sentence is
     decoded again with its own found score as the floor (or, on a refined grammar, a known
     tree's when nothing was found), which is exact by the same bound. What is kept is decoded
     by the cheaper of two passes (`_max_rule_product_floored`): over the labeled spans kept
@@ -428,11 +429,21 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     diffuse = (kept > PRUNE_AT_MOST) & torch.isfinite(tables.logz) & refined
     floor = floor.masked_fill(kept > PRUNE_AT_MOST, NEG_INF)
     # A known tree's score often leaves fewer anchored rules than the floor per word (3 to 12
-    # times fewer on the refined Turkish grammar of README's "Parsing against training
-    # speed"), but under the tree bound the item pass over those rules costs less than
-    # finding the tree: in every batch measured (up to 8.3 million rules, sentences of up to
-    # 43 words) the floor per word alone was 3-8 ms a batch faster. So the known tree is
-    # sought only where the floor per word cannot be used (below) or found nothing.
+    # times fewer on the refined Turkish grammars of README's "Parsing against training
+    # speed"), but under the tree bound the item pass over them is cheap, and finding the
+    # tree costs more than it saves unless that pass is large (`KNOWN_TREE_FROM`). It is
+    # sought only where the item pass could then be the cheaper one.
+    kept_labels = _kept_labels(bound, n, lay.num_parents, floor)
+    costs = _pass_costs(kept_labels, lay, n)
+    finite = torch.isfinite(floor)
+    rules = int(costs[0][finite].sum())
+    known = None   # the kept labels and costs under the floor per word, unless it is raised
+    if finite.any() and rules * lay.slots.shape[1] ** 3 > KNOWN_TREE_FROM and \
+            rules * _item_cost(lay) <= KNOWN_TREE_GAIN * int(costs[1][finite].sum()):
+        floor = torch.maximum(floor, _known_tree_floor(grammar, tables, lengths, lay, floor,
+                                                       coarse_log, bound))
+    else:
+        known = (kept_labels, *costs)
     if diffuse.any():
         # Without a floor these would take the chart pass, which on a trained grammar's few
         # diffuse sentences costs far more than the item pass under a known tree's score
@@ -441,8 +452,9 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
         rows = diffuse.nonzero().flatten()
         floor[rows] = _known_tree_floor(grammar, tables, lengths, lay, floor, coarse_log, bound,
                                         rows=rows)[rows]
+        known = None
     results, values, floor = _max_rule_product_floored(grammar, tables, lengths, lay, floor,
-                                                       coarse_log, bound)
+                                                       coarse_log, bound, known)
     parsed = torch.isfinite(tables.logz)
     redo = (parsed & ~(values >= floor)).nonzero().flatten()
     # Where the floor left no tree at all, the second pass would have no floor and take the
@@ -614,6 +626,15 @@ def _slack(dtype: torch.dtype) -> float:
     tens of logarithms of some nats each: 1e4 units of the last place, 1.2e-3 in float32)."""
     return max(FLOOR_SLACK, 1e4 * torch.finfo(dtype).eps)
 KNOWN_TREE_LABELS = 3  # coarse labels tried per span of the known tree (its best ones)
+KNOWN_TREE_FROM = 1_000_000_000  # rule-block entries (anchored rules x G**3, over a batch)
+                          # the item pass would read under the floor per word, above which a
+                          # known tree's floor is sought. Measured 2026-12-05 (one thread,
+                          # refined Turkish grammars, batches of 32): the floor per word alone
+                          # was faster on every batch up to 0.53e9 at G = 4 (sentences of up to
+                          # 43 words) and 0.16e9 at G = 8; the known tree was 17-18% faster at
+                          # 2.4e9 and 4.1e9 (G = 8, 28-43 words). Set between the two.
+KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many times the chart
+                          # pass under the floor per word
 
 
 def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, lengths: Sequence[int],
@@ -675,7 +696,8 @@ FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no char
 
 def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables,
                               lengths: Sequence[int], lay: CoarseLayout, floor: Tensor,
-                              coarse_log: Tensor, bound: Tensor | None = None
+                              coarse_log: Tensor, bound: Tensor | None = None,
+                              known: tuple[Tensor, Tensor, Tensor] | None = None
                               ) -> tuple[list[tuple[list[tuple[int, int, str]], float] | None],
                                          Tensor, Tensor]:
     """`_max_rule_product_refined` with the floor `floor` (B,), by whichever exact pass costs
@@ -686,7 +708,8 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     runs span width by span width over every sentence it is given, so a part of a batch costs
     it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
     item pass takes its sentences together, on factored rules in groups of at most
-    `ITEMS_AT_ONCE` anchored rules (a sentence with more goes alone). Returns
+    `ITEMS_AT_ONCE` anchored rules (a sentence with more goes alone). `known`: the
+    `_kept_labels` under this floor and their `_pass_costs`, when the caller has them. Returns
     the results, the (B,) best log scores and the floors the passes held (-inf where the pass
     left nothing out: the max-semiring pass of an unrefined grammar)."""
     B = len(lengths)
@@ -694,8 +717,11 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     K, G = lay.slots.shape
     n = torch.tensor(list(lengths), dtype=torch.long)
     bound = coarse_log if bound is None else bound
-    kept = _kept_labels(bound, n, lay.num_parents, floor)
-    rules, chart = _pass_costs(kept, lay, n)
+    if known is None:
+        kept = _kept_labels(bound, n, lay.num_parents, floor)
+        rules, chart = _pass_costs(kept, lay, n)
+    else:
+        kept, rules, chart = known
     finite = torch.isfinite(floor)
     by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
                          or lay.factored)               # factored rules: no chart pass
