@@ -75,6 +75,8 @@ def all_trees(g: Grammar, words, keep=None):
 
 
 REFINED = make_grammar(["S·0", "S·1", "X·0"], ["P·0", "P·1", "Q·0"], 3, seed=7)
+# Coarse S with a preterminal subcategory beside its two nonterminal ones: it parents no rule.
+MIXED = make_grammar(["S·0", "S·1", "X·0"], ["S·2", "P·0", "P·1"], 3, seed=7)
 SENTENCES = [["w0", "w1"], ["w2", "w0", "w1"], ["w1", "w2", "w0", "w1"]]
 
 
@@ -390,6 +392,45 @@ def test_known_tree_floor_is_the_best_labeling_of_the_mbr_bracketing(monkeypatch
         assert float(one[b]) <= float(every[b]) + 1e-12 and math.isfinite(float(one[b]))
 
 
+# REFINED and MIXED, with each coarse symbol's (subcategories, nonterminal subcategories) read
+# off the names by hand.
+SUBCATEGORY_CASES = [
+    (REFINED, {"S": (2, 2), "X": (1, 1), "P": (2, 0), "Q": (1, 0)}),
+    (MIXED, {"S": (3, 2), "X": (1, 1), "P": (2, 0)}),
+]
+
+
+@pytest.mark.parametrize("grammar, subs", SUBCATEGORY_CASES, ids=["refined", "mixed"])
+def test_item_pass_work_counts_every_anchored_rule_enumerated(grammar, subs):
+    # Reference: the anchored rules among random kept labeled spans listed one by one, each
+    # with the subcategory triples its sum reads (a rule's parent reads its nonterminal
+    # subcategories, each child all of its own).
+    layout = decode_module.CoarseLayout.of(grammar, torch.float64)
+    all_subs = [subs[name][0] for name in layout.names]
+    nt_subs = [subs[name][1] for name in layout.names]
+    B, N, K = 3, 6, len(layout.names)
+    lengths = torch.tensor([6, 4, 5])
+    gen = torch.Generator().manual_seed(4)
+    start, width = torch.arange(N + 1)[:, None], torch.arange(N + 1)[None, :]
+    inside = (width >= 1) & (start + width <= lengths[:, None, None])
+    kept = (torch.rand((B, N + 1, N + 1, K), generator=gen) < 0.6) & inside[..., None]
+    kept &= (width[..., None] == 1) | (torch.arange(K) < layout.num_parents)
+    rules, entries, _ = decode_module._pass_costs(kept, layout, lengths)
+    for b in range(B):
+        want_rules = want_entries = 0
+        for i, w in itertools.product(range(N + 1), range(2, N + 1)):
+            for x, u in itertools.product(range(layout.num_parents), range(1, w)):
+                if i + w > N or not kept[b, i, w, x]:
+                    continue
+                for y, z in itertools.product(range(K), range(K)):
+                    if kept[b, i, u, y] and kept[b, i + u, w - u, z]:
+                        want_rules += 1
+                        want_entries += nt_subs[x] * all_subs[y] * all_subs[z]
+        assert (int(rules[b]), int(entries[b])) == (want_rules, want_entries)
+    G = layout.slots.shape[1]
+    assert int(entries.sum()) < int(rules.sum()) * G ** 3     # fewer than G**3 a rule
+
+
 def test_unrefined_chart_cost_counts_the_viterbi_pass_enumerated():
     # Reference: the max-semiring pass's work counted span by span and split by split, as
     # engine.viterbi does it: per span of two or more words NT**3 rule maxima over the child
@@ -412,7 +453,7 @@ def test_unrefined_chart_cost_counts_the_viterbi_pass_enumerated():
     start, width = torch.arange(10)[:, None], torch.arange(10)[None, :]
     kept = ((width >= 1) & (start + width <= lengths[:, None, None]))[..., None].expand(
         -1, -1, -1, nt + t)                                  # every labeled span kept
-    assert torch.equal(decode_module._pass_costs(kept, layout, lengths)[1], got)
+    assert torch.equal(decode_module._pass_costs(kept, layout, lengths)[2], got)
 
 
 # ITEM_OVERHEAD values that force each floored pass wherever a floor is set (the chart pass
@@ -464,6 +505,21 @@ def check_paths(calls, path: str, known_tree: bool, nothing_kept: bool = False) 
         assert known
     if nothing_kept:
         assert "_known_tree_floor(rows)" in [name for name, _ in calls]
+
+
+@pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
+@pytest.mark.parametrize("path", PATHS)
+def test_max_rule_product_with_a_preterminal_subcategory_matches_enumeration(
+        monkeypatch, path, known_tree):
+    # Brute force (coarse_objective) on MIXED, whose coarse S is a parent and a word's label:
+    # the passes must sum a parent's nonterminal subcategories only, each child's all.
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", 1.0)
+    monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    monkeypatch.setattr(decode_module, "KNOWN_TREE_FROM", -1 if known_tree else 10 ** 18)
+    calls = spy_on_passes(monkeypatch)
+    assert_max_rule_product_enumerated(MIXED, SENTENCES)
+    passes = {"items": "_max_rule_product_items", "chart": "_max_rule_product_refined"}
+    assert passes[path] in [name for name, _ in calls]
 
 
 @pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
@@ -692,11 +748,12 @@ def test_tree_scorer_on_one_symbol_labels_sums_the_rules():
 
 
 def test_max_rule_product_refuses_a_rule_layout_over_its_memory_cap(monkeypatch):
-    # The layout of REFINED: 2 coarse parents (S, X), 4 coarse symbols, G = 2 subcategories:
-    # 2 * 2 * 2 * (4 * 2)**2 = 512 float64 entries, 4,096 bytes (counted by hand).
-    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 4096)
-    decode_module.CoarseLayout.of(REFINED, torch.float64)                # at the cap: made
-    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 4095)
+    # The chart pass's layout of REFINED: 2 coarse parents (S, X), 4 coarse symbols, G = 2
+    # subcategories: 2 * 2 * (4 * 2)**2 = 256 float64 entries, 2,048 bytes (counted by hand).
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 2048)
+    layout = decode_module.CoarseLayout.of(REFINED, torch.float64)       # at the cap: made
+    assert layout.rules.numel() * 8 == 2048
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 2047)
     with pytest.raises(InputError, match=r"2 coarse nonterminals, 4 coarse symbols, at most 2 "
                                          r"subcategories a symbol.*decode with viterbi or mbr"):
         decode(REFINED, [["w0", "w1"]], "max-rule-product")

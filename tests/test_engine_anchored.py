@@ -12,10 +12,14 @@ import torch
 from treewright.engine import anchored
 
 
-def random_items(seed: int, K: int = 4, G: int = 3, B: int = 2, N: int = 5):
+def random_items(seed: int, K: int = 4, G: int = 3, B: int = 2, N: int = 5,
+                 uneven: bool = True):
     """Random items over B sentences of N words: every cell of width one holds 1-2 labels, wider
     cells 0-3 coarse parents (symbols below Kp = K - 1), laid out as the decoder lists them;
-    random nonnegative scores with some zero slots, rule blocks with some zero entries."""
+    random nonnegative scores with some zero slots, fine rules with some zero entries. With
+    `uneven`, coarse symbols have 1 to G subcategories (scores 0 in unused slots, as the
+    decoder gives them), and a coarse parent may have a preterminal subcategory, which parents
+    no rule (its outside score is left nonzero: the loop must not read it)."""
     rng = random.Random(seed)
     Kp = K - 1
     cells = {}
@@ -33,24 +37,58 @@ def random_items(seed: int, K: int = 4, G: int = 3, B: int = 2, N: int = 5):
         rows += [(b, i, w, x) for x in labels]
     items = len(rows)
     gen = torch.Generator().manual_seed(seed)
+    # Subcategories: (nonterminal ones, preterminal ones) per coarse symbol; fine nonterminals
+    # are numbered first, as in a grammar.
+    kinds = [(rng.randint(1, G), 0) if k < Kp else (0, rng.randint(1, G)) for k in range(K)]
+    if uneven:
+        nts = rng.randint(1, G - 1)
+        kinds[0] = (nts, G - nts)                        # a parent with a preterminal slot
+    else:
+        kinds = [(G, 0)] * Kp + [(0, G)]
+    nt = sum(a for a, _ in kinds)
+    S = nt + sum(t for _, t in kinds)
+    slots = torch.full((K, G), S, dtype=torch.long)
+    next_nt, next_pt = 0, nt
+    for k, (a, t) in enumerate(kinds):
+        slots[k, :a] = torch.arange(next_nt, next_nt + a)
+        slots[k, a:a + t] = torch.arange(next_pt, next_pt + t)
+        next_nt, next_pt = next_nt + a, next_pt + t
+    used = torch.tensor([a + t for a, t in kinds])
 
-    def scores(rows):
-        x = torch.rand((rows, G), generator=gen, dtype=torch.float64)
-        return x.masked_fill(torch.rand((rows, G), generator=gen) < 0.3, 0.0)
+    def scores(symbols):
+        x = torch.rand((len(symbols), G), generator=gen, dtype=torch.float64)
+        x = x.masked_fill(torch.rand((len(symbols), G), generator=gen) < 0.3, 0.0)
+        return x.masked_fill(torch.arange(G) >= used[symbols][:, None], 0.0)
 
     ib, ii, iw, ik = torch.tensor(rows, dtype=torch.long).t()
     parents = (iw > 1).nonzero().flatten()
     parents = parents[iw[parents].argsort(stable=True)]
-    blocks = torch.rand((Kp, K, K, G ** 3), generator=gen, dtype=torch.float64)
-    blocks = blocks.masked_fill(torch.rand(blocks.shape, generator=gen) < 0.2, 0.0)
+    binary = torch.rand((nt, S, S), generator=gen, dtype=torch.float64)
+    binary = binary.masked_fill(torch.rand(binary.shape, generator=gen) < 0.2, 0.0)
     best = torch.where(iw == 1, -torch.rand(items, generator=gen, dtype=torch.float64) * 3,
                        -math.inf)
-    return dict(blocks=blocks, parent=scores(len(parents)),
+    return dict(binary=binary, slots=slots, parent=scores(ik[parents]),
                 parent_max=torch.randn(len(parents), generator=gen, dtype=torch.float64),
-                inside=scores(items),
+                inside=scores(ik),
                 inside_max=torch.randn(items, generator=gen, dtype=torch.float64),
                 ib=ib, ii=ii, iw=iw, ik=ik, cell_first=cell_first, cell_count=cell_count,
                 parents=parents, best=best)
+
+
+def block_of(d, x, y, z):
+    """The (G, G, G) rules of coarse rule x -> y z by subcategory slot, 0 where a slot is
+    unused or is no nonterminal of the parent (the rules by coarse rule, as the docstring
+    defines them)."""
+    G = d["slots"].shape[1]
+    nt, S = d["binary"].shape[:2]
+    block = torch.zeros((G, G, G), dtype=torch.float64)
+    for a in range(G):
+        for b in range(G):
+            for c in range(G):
+                fa, fb, fc = (int(d["slots"][k, g]) for k, g in ((x, a), (y, b), (z, c)))
+                if fa < nt and fb < S and fc < S:
+                    block[a, b, c] = d["binary"][fa, fb, fc]
+    return block
 
 
 def rules_of(d):
@@ -69,7 +107,7 @@ def log_q_of(d, p, lft, rgt) -> float:
     """log q of one anchored rule, every term of the triple sum taken."""
     G = d["parent"].shape[1]
     x = int(d["ik"][d["parents"][p]])
-    block = d["blocks"][x, d["ik"][lft], d["ik"][rgt]].view(G, G, G)
+    block = block_of(d, x, int(d["ik"][lft]), int(d["ik"][rgt]))
     total = sum(float(d["parent"][p, a] * block[a, b, c] * d["inside"][lft, b] *
                       d["inside"][rgt, c])
                 for a in range(G) for b in range(G) for c in range(G))
@@ -96,7 +134,7 @@ def reference(d):
 
 def run(d, log_mu, log_q=None, blocks=True):
     best = d["best"].clone()
-    back = anchored.best_derivations(d["blocks"] if blocks else None, d["parent"],
+    back = anchored.best_derivations(d["binary"] if blocks else None, d["slots"], d["parent"],
                                      d["parent_max"], d["inside"], d["inside_max"], log_mu,
                                      d["ib"], d["ii"], d["iw"], d["ik"], d["cell_first"],
                                      d["cell_count"], d["parents"], best, log_q)
@@ -135,8 +173,8 @@ def test_the_bound_leaves_out_only_rules_that_cannot_win(seed):
 
 
 def test_factored_rules_read_each_rule_s_log_q_in_order():
-    # Without rule blocks, the loop reads log q per anchored rule in its own order: given the
-    # reference's log q, it finds the same bests as with the blocks.
+    # Without the rules, the loop reads log q per anchored rule in its own order: given the
+    # reference's log q, it finds the same bests as with the rules.
     d = random_items(3)
     log_q = torch.tensor([log_q_of(d, *r) for r in rules_of(d)], dtype=torch.float64)
     no_bound = torch.full((len(d["ib"]),), math.inf, dtype=torch.float64)
@@ -144,10 +182,10 @@ def test_factored_rules_read_each_rule_s_log_q_in_order():
 
 
 def tied_items(seed: int):
-    """`random_items` with every rule block and every score equal: every rule's log q is the
-    same."""
-    d = random_items(seed)
-    d["blocks"].fill_(0.5)
+    """`random_items` with every subcategory slot used, every fine rule and every score equal:
+    every rule's log q is the same."""
+    d = random_items(seed, uneven=False)
+    d["binary"].fill_(0.5)
     d["parent"].fill_(1.0)
     d["inside"].fill_(1.0)
     d["parent_max"].zero_()
@@ -179,9 +217,9 @@ def test_ties_go_to_the_first_rule_under_the_bound_too():
     check(d, *run(d, log_mu))
 
 
-def test_without_blocks_or_log_q_it_refuses():
+def test_without_rules_or_log_q_it_refuses():
     d = random_items(0)
-    with pytest.raises(ValueError, match="rule blocks or every rule's log q"):
+    with pytest.raises(ValueError, match="rules and their slots or every rule's log q"):
         run(d, d["best"], log_q=None, blocks=False)
 
 

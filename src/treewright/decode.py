@@ -233,27 +233,27 @@ def _shifted(log_x: Tensor, dims: int = 1) -> tuple[Tensor, Tensor]:
 class CoarseLayout:
     """A grammar's symbols laid out by coarse symbol, for `max_rule_product`.
 
-    `slots` (K, G) holds the fine indices of each coarse symbol's G subcategory slots, S (one
-    past the last symbol) in unused slots; the first Kp coarse symbols have nonterminal
-    subcategories (groups appear in symbol order, nonterminals first). `rules` holds every
-    fine binary rule in that layout, with zeros in unused slots and for subcategories that are
-    no nonterminal: rules[x, a, (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K), in the
-    order the chart pass (`_max_rule_product_refined`) reads them, made from `blocks` when it
-    first asks. `blocks` holds the same rules by coarse rule, each rule's G**3 subcategory
-    rules contiguous: blocks[x, y, z, (a, b, c)] = p(x_a -> y_b z_c), (Kp, K, K, G**3), as the
-    pruned pass (`_max_rule_product_items`) reads them. A trained grammar's posteriors mostly
-    take the pruned pass alone, so the other layout is often never made.
+    `slots` (K, G) holds the fine indices of each coarse symbol's G subcategory slots, in
+    increasing order (nonterminals first), S (one past the last symbol) in unused slots; the
+    first Kp coarse symbols have nonterminal subcategories (groups appear in symbol order,
+    nonterminals first). `binary` (NT, S, S) holds the fine binary rules' probabilities, as
+    the pruned pass (`_max_rule_product_items`) reads them through `slots`. `rules` holds
+    them in the chart pass's layout (`_max_rule_product_refined`), made when it first asks:
+    with zeros in unused slots and for subcategories that are no nonterminal, rules[x, a,
+    (c, y, b, z)] = p(x_a -> y_b z_c), (Kp, G, G*K*G*K). A trained grammar's posteriors
+    mostly take the pruned pass alone, so that layout, mostly the zeros of unused slots
+    where few symbols are split, is often never made.
 
     Factored rules (`of_rules`: independent productions, low-rank) have no rule tensor: every
-    symbol is its own coarse symbol (G = 1, `member` None for the identity), `rules` and
-    `blocks` are None (no pass over the whole chart: `factored`), and `binary_logprob` gives
+    symbol is its own coarse symbol (G = 1, `member` None for the identity), `binary` and
+    `rules` are None (no pass over the whole chart: `factored`), and `binary_logprob` gives
     the rules the item pass reads.
     """
     names: list[str]            # K coarse symbols
     slots: Tensor               # (K, G) long
     member: Tensor | None       # (S, K) 0/1; None: the identity (every symbol its own)
     num_parents: int            # Kp
-    blocks: Tensor | None       # (Kp, K, K, G*G*G); None: factored rules
+    binary: Tensor | None       # (NT, S, S) probabilities; None: factored rules
     nt: int                     # fine nonterminals
     binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor] | None = None
 
@@ -269,7 +269,7 @@ class CoarseLayout:
             slots[k, :len(fine)] = fine
         coarse_of = member.argmax(1)
         kp = int(coarse_of[:nt].max()) + 1 if nt else 0
-        size = 2 * kp * G * (K * G) ** 2 * torch.finfo(dtype).bits // 8   # rules and blocks
+        size = kp * G * (K * G) ** 2 * torch.finfo(dtype).bits // 8      # `rules`
         if size > MRP_LAYOUT_AT_MOST:
             raise InputError(
                 f"max-rule-product on this grammar would hold its rules by coarse rule in "
@@ -277,17 +277,7 @@ class CoarseLayout:
                 f"most {G} subcategories a symbol: {G}**3 rules per coarse rule), over the "
                 f"{MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode with viterbi or mbr"
                 + (", or refine with fewer split-merge cycles" if G > 1 else ""))
-        # Each fine rule written to its place, (x, y, z, a, b, c): most of the layout is the
-        # zeros of unused slots, so scattering the rules is cheaper than gathering every entry.
-        slot_of = torch.zeros(S, dtype=torch.long)                       # fine -> its slot
-        used = slots < S
-        slot_of[slots[used]] = torch.arange(G).expand(K, G)[used]
-        coarse_of, slot_of = coarse_of.view(-1, 1, 1), slot_of.view(-1, 1, 1)
-        where = ((coarse_of[:nt] * K + coarse_of.view(1, S, 1)) * K + coarse_of.view(1, 1, S)) \
-            * G ** 3 + (slot_of[:nt] * G + slot_of.view(1, S, 1)) * G + slot_of.view(1, 1, S)
-        blocks = torch.zeros(kp * K * K * G ** 3, dtype=dtype)
-        blocks[where.flatten()] = grammar.binary.to(dtype).exp().flatten()
-        return cls(names, slots, member.to(dtype), kp, blocks.view(kp, K, K, G ** 3), nt)
+        return cls(names, slots, member.to(dtype), kp, grammar.binary.to(dtype).exp(), nt)
 
     @classmethod
     def of_rules(cls, binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor],
@@ -300,17 +290,36 @@ class CoarseLayout:
     @property
     def factored(self) -> bool:
         """Factored rules: no rule tensor, so no pass over the whole chart."""
-        return self.blocks is None
+        return self.binary is None
+
+    @functools.cached_property
+    def counts(self) -> tuple[Tensor, Tensor]:
+        """(K,) each coarse symbol's number of subcategories and (K,) of nonterminal ones."""
+        S = self.slots.shape[0] if self.member is None else self.member.shape[0]
+        return (self.slots < S).sum(1), (self.slots < self.nt).sum(1)
 
     @functools.cached_property
     def rules(self) -> Tensor | None:
         """(Kp, G, G*K*G*K) the rules in the chart pass's order (see the class); None for
         factored rules."""
-        if self.blocks is None:
+        if self.binary is None:
             return None
-        kp, K, G = self.num_parents, self.slots.shape[0], self.slots.shape[1]
-        return self.blocks.view(kp, K, K, G, G, G).permute(0, 3, 5, 1, 4, 2) \
-            .reshape(kp, G, -1).contiguous()                             # (x, a, c, y, b, z)
+        kp, (K, G), nt = self.num_parents, self.slots.shape, self.nt
+        S = self.binary.shape[1]
+        # Each fine rule written to its place, (x, a, c, y, b, z): most of the layout is the
+        # zeros of unused slots, so scattering the rules is cheaper than gathering every entry.
+        slot_of = torch.zeros(S, dtype=torch.long)                       # fine -> its slot
+        used = self.slots < S
+        slot_of[self.slots[used]] = torch.arange(G).expand(K, G)[used]
+        coarse_of = torch.zeros(S, dtype=torch.long)                     # fine -> coarse
+        coarse_of[self.slots[used]] = torch.arange(K)[:, None].expand(K, G)[used]
+        x, a = coarse_of[:nt].view(-1, 1, 1), slot_of[:nt].view(-1, 1, 1)
+        y, b = coarse_of.view(1, S, 1), slot_of.view(1, S, 1)
+        z, c = coarse_of.view(1, 1, S), slot_of.view(1, 1, S)
+        where = ((((x * G + a) * G + c) * K + y) * G + b) * K + z
+        rules = self.binary.new_zeros(kp * G * G * K * G * K)
+        rules[where.flatten()] = self.binary.flatten()
+        return rules.view(kp, G, -1)
 
     def coarse_log(self, marginals: Tensor) -> Tensor:
         """(B, N+1, N+1, K) the log marginals of the coarse labels.
@@ -330,9 +339,9 @@ class CoarseLayout:
 
 
 MRP_CHUNK = 2 ** 20  # anchored rules per chunk of factored rules' log q (`_factored_log_q`)
-MRP_LAYOUT_AT_MOST = 2 ** 33  # bytes of max-rule-product's two rule layouts (`CoarseLayout`),
-                              # Kp K**2 G**3 entries each: 1.8 GiB each in float64 at 24
-                              # coarse parents, 50 coarse symbols and G = 16 (four cycles)
+MRP_LAYOUT_AT_MOST = 2 ** 33  # bytes of max-rule-product's rules laid out for its chart pass
+                              # (`CoarseLayout.rules`), Kp K**2 G**3 entries: 1.8 GiB in
+                              # float64 at 24 coarse parents, 50 coarse symbols and G = 16
 PRUNE_NATS_PER_WORD = 1.5  # max-rule-product's first floor: log mu >= -1.5 nats per word
 PRUNE_AT_MOST = 0.5        # ... used only when it leaves out at least half the pairs
 UNREFINED_PRUNE_FROM = 3_000_000  # an unrefined grammar's chart pass per sentence (mean over
@@ -436,10 +445,10 @@ def max_rule_product(grammar: Grammar | None, tables: engine.SpanTables, lengths
     kept_labels = _kept_labels(bound, n, lay.num_parents, floor)
     costs = _pass_costs(kept_labels, lay, n)
     finite = torch.isfinite(floor)
-    rules = int(costs[0][finite].sum())
+    rules, entries, chart = (int(c[finite].sum()) for c in costs)
     known = None   # the kept labels and costs under the floor per word, unless it is raised
-    if finite.any() and rules * lay.slots.shape[1] ** 3 > KNOWN_TREE_FROM and \
-            rules * _item_cost(lay) <= KNOWN_TREE_GAIN * int(costs[1][finite].sum()):
+    if finite.any() and entries > KNOWN_TREE_FROM and \
+            _item_work(rules, entries) <= KNOWN_TREE_GAIN * chart:
         floor = torch.maximum(floor, _known_tree_floor(grammar, tables, lengths, lay, floor,
                                                        coarse_log, bound))
     else:
@@ -626,13 +635,18 @@ def _slack(dtype: torch.dtype) -> float:
     tens of logarithms of some nats each: 1e4 units of the last place, 1.2e-3 in float32)."""
     return max(FLOOR_SLACK, 1e4 * torch.finfo(dtype).eps)
 KNOWN_TREE_LABELS = 3  # coarse labels tried per span of the known tree (its best ones)
-KNOWN_TREE_FROM = 1_000_000_000  # rule-block entries (anchored rules x G**3, over a batch)
-                          # the item pass would read under the floor per word, above which a
-                          # known tree's floor is sought. Measured 2026-12-05 (one thread,
-                          # refined Turkish grammars, batches of 32): the floor per word alone
-                          # was faster on every batch up to 0.53e9 at G = 4 (sentences of up to
-                          # 43 words) and 0.16e9 at G = 8; the known tree was 17-18% faster at
-                          # 2.4e9 and 4.1e9 (G = 8, 28-43 words). Set between the two.
+KNOWN_TREE_FROM = 1_000_000_000  # rule entries (subcategory triples of the anchored rules, over
+                          # a batch: `_pass_costs`) the item pass would read under the floor
+                          # per word, above which a known tree's floor is sought. Measured
+                          # 2026-12-05 (one thread, refined Turkish grammars, batches of 32),
+                          # when the pass read G**3 entries a rule: the floor per word alone was
+                          # faster on every batch up to 0.53e9 such entries at G = 4 (sentences
+                          # of up to 43 words) and 0.16e9 at G = 8; the known tree was 17-18%
+                          # faster at 2.4e9 and 4.1e9 (G = 8, 28-43 words). Since the pass reads
+                          # only each symbol's own subcategories, the two G = 8 batches read
+                          # 0.016e9 and 0.026e9 entries (3.2 a rule), and the known tree no
+                          # longer pays there (the 64 sentences: sought always 0.286 and 0.344
+                          # s, two runs; never 0.281 and 0.303).
 KNOWN_TREE_GAIN = 3       # ... when the item pass would cost at most this many times the chart
                           # pass under the floor per word
 
@@ -679,8 +693,9 @@ def _known_tree_floor(grammar: Grammar | None, tables: engine.SpanTables, length
     return known
 
 
-# The item pass's cost per anchored rule, in units of the chart pass's multiply-adds:
-# ITEM_OVERHEAD + ITEM_PER_ENTRY * G**3. Measured on the 2-core development machine (one thread,
+# The item pass's cost, in units of the chart pass's multiply-adds: ITEM_OVERHEAD an anchored
+# rule and ITEM_PER_ENTRY a subcategory triple it reads (`_item_work`; G**3 of them a rule where
+# every symbol has G subcategories). Measured on the 2-core development machine (one thread,
 # float64, 2026-12-05, since the pass is a compiled loop: `engine.anchored`), on a refined
 # Turkish grammar (G = 4, 20 coarse parents), the refined demo grammar (G = 4), EM-trained
 # random grammars of 20/30 (G = 2) and 30/60 symbols (G = 1) and the Turkish token grammar
@@ -692,7 +707,7 @@ ITEM_PER_ENTRY = 1
 REFINED_CHART_ROWS = 16  # sentences per call of the refined chart pass (at 32 it ran 5-25%
                          # slower on the random benchmark grammars, whose posteriors keep all)
 ITEMS_AT_ONCE = 2 ** 20  # anchored rules per call of the item pass on factored rules, which
-                         # lists them (about 100 bytes each); rule blocks need no list
+                         # lists them (about 100 bytes each); a rule tensor needs no list
 FACTORED_RULES_AT_MOST = 2 ** 24  # of one sentence, for factored rules (no chart pass)
 
 
@@ -704,9 +719,9 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
                                          Tensor, Tensor]:
     """`_max_rule_product_refined` with the floor `floor` (B,), by whichever exact pass costs
     less: the item pass (`_max_rule_product_items`) for the sentences with a finite floor when
-    their anchored rules, at `ITEM_OVERHEAD` + `ITEM_PER_ENTRY` G**3 each, come to no more than
-    the chart pass's work over their kept (span, coarse parent) pairs; the chart pass
-    otherwise, and for the sentences without a floor. One choice for the batch: the chart pass
+    its work over their anchored rules (`_item_work`) comes to no more than the chart pass's
+    work over their kept (span, coarse parent) pairs; the chart pass otherwise, and for the
+    sentences without a floor. One choice for the batch: the chart pass
     runs span width by span width over every sentence it is given, so a part of a batch costs
     it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
     item pass takes its sentences together, on factored rules in groups of at most
@@ -721,11 +736,12 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     bound = coarse_log if bound is None else bound
     if known is None:
         kept = _kept_labels(bound, n, lay.num_parents, floor)
-        rules, chart = _pass_costs(kept, lay, n)
+        rules, entries, chart = _pass_costs(kept, lay, n)
     else:
-        kept, rules, chart = known
+        kept, rules, entries, chart = known
     finite = torch.isfinite(floor)
-    by_items = finite & (int(rules[finite].sum()) * _item_cost(lay) <= int(chart[finite].sum())
+    by_items = finite & (_item_work(int(rules[finite].sum()), int(entries[finite].sum()))
+                         <= int(chart[finite].sum())
                          or lay.factored)               # factored rules: no chart pass
     if lay.factored and bool((rules > FACTORED_RULES_AT_MOST).any()):
         b = int((rules > FACTORED_RULES_AT_MOST).nonzero()[0, 0])
@@ -747,7 +763,7 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
         groups += [(chart_pass, rows[r0:r0 + step]) for r0 in range(0, len(rows), step)]
     rows = by_items.nonzero().flatten().tolist()
     counts = rules.tolist()
-    at_once = ITEMS_AT_ONCE if lay.blocks is None else math.inf
+    at_once = ITEMS_AT_ONCE if lay.factored else math.inf
     while rows:
         total, end = counts[rows[0]], 1
         while end < len(rows) and total + counts[rows[end]] <= at_once:
@@ -778,9 +794,10 @@ def _rows(x: Tensor | None, rows: Tensor) -> Tensor | None:
     return x if x is None or engine.every_row(rows, x.shape[0]) else x[rows]
 
 
-def _item_cost(lay: CoarseLayout) -> int:
-    """The item pass's cost per anchored rule, in the chart pass's multiply-adds."""
-    return ITEM_OVERHEAD + ITEM_PER_ENTRY * lay.slots.shape[1] ** 3
+def _item_work(rules: int, entries: int) -> int:
+    """The item pass's cost over `rules` anchored rules that read `entries` subcategory
+    triples (`_pass_costs`), in the chart pass's multiply-adds."""
+    return ITEM_OVERHEAD * rules + ITEM_PER_ENTRY * entries
 
 
 def _chart_pass(lay: CoarseLayout) -> Callable:
@@ -804,28 +821,37 @@ def _splits(widths: Tensor) -> tuple[Tensor, Tensor]:
     return of, torch.arange(len(of)) - (count.cumsum(0) - count)[of] + 1
 
 
-def _pass_costs(kept: Tensor, lay: CoarseLayout, lengths: Tensor) -> tuple[Tensor, Tensor]:
+def _pass_costs(kept: Tensor, lay: CoarseLayout, lengths: Tensor
+                ) -> tuple[Tensor, Tensor, Tensor]:
     """Per sentence, the number of anchored coarse rules among the kept labeled spans `kept`
-    (B, N+1, N+1, K) (the item pass's work: parent, split, left and right child all kept) and
-    the chart pass's cost in multiply-adds of the refined chart pass: over the kept (span,
+    (B, N+1, N+1, K) (the item pass's work: parent, split, left and right child all kept), the
+    subcategory triples the item pass reads over them (per rule, the parent's nonterminal
+    subcategories times each child's subcategories: `CoarseLayout.counts`), and the chart
+    pass's cost in multiply-adds of the refined chart pass: over the kept (span,
     coarse parent) pairs, its folding of the outside, G**3 K**2, and its sums over
     subcategories, K**2 G (G + 1) a split; on an unrefined grammar (G = 1), which takes no
     floor, the max-semiring pass over the whole chart (`_viterbi_cost`)."""
     K, G = lay.slots.shape
     B = kept.shape[0]
+    kp = lay.num_parents
     cell_count = kept.sum(-1)                                            # (B, N+1, N+1)
-    parent_count = kept[..., :lay.num_parents].sum(-1)
+    parent_count = kept[..., :kp].sum(-1)
     parent_count[:, :, :2] = 0
+    counts, parent_counts = lay.counts
+    cell_subs = (kept * counts).sum(-1)        # the kept labels' subcategories, per cell
+    parent_subs = (kept[..., :kp] * parent_counts[:kp]).sum(-1)
     cb, ci, cw = parent_count.nonzero().unbind(1)
     of, u = _splits(cw)
     b, i, w = cb[of], ci[of], cw[of]
     pairs = cell_count[b, i, u] * cell_count[b, i + u, w - u] * parent_count[b, i, w]
     rules = torch.zeros(B, dtype=torch.long).index_add(0, b, pairs)
+    triples = cell_subs[b, i, u] * cell_subs[b, i + u, w - u] * parent_subs[b, i, w]
+    entries = torch.zeros(B, dtype=torch.long).index_add(0, b, triples)
     if G == 1:
-        return rules, _viterbi_cost(lengths, lay)
+        return rules, entries, _viterbi_cost(lengths, lay)
     per_pair = G ** 3 * K ** 2 + (cw - 1) * K ** 2 * G * (G + 1)
     chart = torch.zeros(B, dtype=torch.long).index_add(0, cb, parent_count[cb, ci, cw] * per_pair)
-    return rules, chart
+    return rules, entries, chart
 
 
 # The max-semiring pass's cost per max-add (`_viterbi_cost`), in multiply-adds of the refined
@@ -1005,8 +1031,8 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     with log q(x -> y z, i, k, j) = log sum_{a,b,c} O(x_a) p(x_a -> y_b z_c) I(y_b) I(z_c)
     (Petrov & Klein 2007, section 3; O is the outside score over Z), best(item) = max over its
     anchored rules of log q + best(left) + best(right), narrow items first: one compiled loop
-    over the rules that reads the rule blocks in place (`engine.anchored.best_derivations`;
-    factored rules, which have no blocks, list their rules and compute log q first). Ties go
+    over the rules that reads the fine rules in place (`engine.anchored.best_derivations`;
+    factored rules, which have no rule tensor, list their rules and compute log q first). Ties go
     to the first split, then the first (left, right) pair, as in `_max_rule_product_refined`.
     Returns the results and the (B,) best log scores (-inf where no tree reaches the floor).
     `within` (B, N+1, N+1, K) bool, when given, keeps the labeled spans it marks only: the best
@@ -1045,13 +1071,13 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
     outside_hat, outside_max = _rescaled(tables.scaled_outside, pb, pi, pw,
                                          -tables.scale[pb, pi, pw],
                                          lay.slots[ik[parents]])         # (parents, G)
-    # Factored rules have no rule blocks: the posteriors of their anchored rules are computed
+    # Factored rules have no rule tensor: the posteriors of their anchored rules are computed
     # here, in the order the compiled pass takes them (`_factored_log_q`).
-    log_q = None if lay.blocks is not None else \
+    log_q = None if not lay.factored else \
         _factored_log_q(lay, ik, parents, cell_first, cell_count, ib, ii, pw, inside_hat,
                         inside_max, outside_hat, outside_max)
-    back = anchored.best_derivations(lay.blocks, outside_hat, outside_max, inside_hat,
-                                     inside_max, label_log, ib, ii, iw, ik,
+    back = anchored.best_derivations(lay.binary, lay.slots, outside_hat, outside_max,
+                                     inside_hat, inside_max, label_log, ib, ii, iw, ik,
                                      cell_first, cell_count, parents, best, log_q,
                                      _slack(dtype))                      # (items, 2)
     # The top label: its posterior closes the score; first best symbol of the whole span.
@@ -1090,7 +1116,7 @@ def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,
 def _factored_log_q(lay: CoarseLayout, ik: Tensor, parents: Tensor, cell_first: Tensor,
                     cell_count: Tensor, ib: Tensor, ii: Tensor, pw: Tensor, inside_hat: Tensor,
                     inside_max: Tensor, outside_hat: Tensor, outside_max: Tensor) -> Tensor:
-    """For `_max_rule_product_items` on factored rules (no rule blocks; every symbol its own
+    """For `_max_rule_product_items` on factored rules (no rule tensor; every symbol its own
     coarse symbol, G = 1): log q of every anchored rule among the items, in the order
     `anchored.best_derivations` takes them (parent item as `parents` orders them, split, left
     item, right item), in chunks of `MRP_CHUNK`."""

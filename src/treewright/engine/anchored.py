@@ -12,7 +12,7 @@ from narrow items to wide ones: best(parent) = max over its anchored rules of
 log q + best(left) + best(right). There can be millions of anchored rules in a batch. As tensor
 operations each one needed its index triple listed and its G**3 rule block gathered into new
 arrays (about a microsecond a rule at G = 4 subcategory slots); this loop takes them one by one,
-reads the rule blocks in place and keeps only each item's best.
+reads the fine rules in place and keeps only each item's best.
 """
 
 from __future__ import annotations
@@ -26,11 +26,11 @@ from torch import Tensor
 from treewright.engine.compiled import jit
 
 
-def best_derivations(blocks: Tensor | None, parent: Tensor, parent_max: Tensor,
-                     inside: Tensor, inside_max: Tensor, log_mu: Tensor, ib: Tensor,
-                     ii: Tensor, iw: Tensor, ik: Tensor, cell_first: Tensor, cell_count: Tensor,
-                     parents: Tensor, best: Tensor, log_q: Tensor | None = None,
-                     slack: float = 1e-6) -> Tensor:
+def best_derivations(binary: Tensor | None, slots: Tensor | None, parent: Tensor,
+                     parent_max: Tensor, inside: Tensor, inside_max: Tensor, log_mu: Tensor,
+                     ib: Tensor, ii: Tensor, iw: Tensor, ik: Tensor, cell_first: Tensor,
+                     cell_count: Tensor, parents: Tensor, best: Tensor,
+                     log_q: Tensor | None = None, slack: float = 1e-6) -> Tensor:
     """Fills `best` (items,) for the parent items and returns each item's best rule's
     children, (items, 2) long: left and right item (-1 for a word, or a parent with no rule).
 
@@ -46,14 +46,17 @@ def best_derivations(blocks: Tensor | None, parent: Tensor, parent_max: Tensor,
     A parent's anchored rules are ordered split by split (left child's width 1 first), then by
     left item, then right item; its best is the first rule in that order with the largest
     log q + best(left) + best(right), where log q = log(sum over a, b, c of
-    parent[p, a] blocks[x, y, z, (a, b, c)] inside[l, b] inside[r, c]) + parent_max[p] +
-    inside_max[l] + inside_max[r], the sums over a, then c, then b, each in order. blocks
-    (Kp, K, K, G**3) are the rules by coarse rule (`decode.CoarseLayout.blocks`); without them
-    (factored rules), `log_q` gives every anchored rule's log q in that order.
+    parent[p, a] binary[s(x, a), s(y, b), s(z, c)] inside[l, b] inside[r, c]) + parent_max[p]
+    + inside_max[l] + inside_max[r], the sums over a, then c, then b, each in order, s(k, g) =
+    slots[k, g] the fine symbol in slot g of coarse symbol k. binary (NT, S, S) are the fine
+    rules' probabilities (`decode.CoarseLayout.binary`) and slots (K, G) the subcategory slots
+    (`decode.CoarseLayout.slots`: each coarse symbol's fine symbols in increasing order, then
+    S); without them (factored rules), `log_q` gives every anchored rule's log q in that order.
 
-    Some work is left out without changing any result. A zero score (an unused slot: a symbol
-    with fewer than G subcategories) is skipped with its terms, which add nothing to any sum, so
-    most of a rule block is never read where few symbols are split. A rule posterior is at most
+    Some work is left out without changing any result. Only a coarse symbol's own
+    subcategories are visited (a parent's nonterminal ones: the fine rules have nonterminal
+    parents), and a zero score among them is skipped with its terms, which add nothing to any
+    sum. A rule posterior is at most
     the marginal of each of its three labels and every best is at most 0, so a rule whose
     min(log_mu) + best(left) + best(right) is below the parent's best so far by at least
     `slack` (room for rounding) cannot pass it or tie it: its q is not computed. Within a split
@@ -62,19 +65,24 @@ def best_derivations(blocks: Tensor | None, parent: Tensor, parent_max: Tensor,
     below, so do those of every item after it in its cell, which are all left at once. Ties are
     still settled by the order above.
     """
-    if blocks is None and log_q is None:
-        raise ValueError("best_derivations needs the rule blocks or every rule's log q")
+    if (binary is None or slots is None) and log_q is None:
+        raise ValueError("best_derivations needs the rules and their slots or every rule's "
+                         "log q")
     dtype = inside.dtype
-    if blocks is None:
-        blocks = torch.zeros((1, 1, 1, 1), dtype=dtype)
+    if binary is None or slots is None:
+        binary, slots = torch.zeros((1, 1, 1), dtype=dtype), torch.zeros((1, 1), dtype=torch.long)
     if log_q is None:
         log_q = torch.zeros(0, dtype=dtype)
     if not best.is_contiguous():
         raise ValueError("best must be contiguous: it is written in place")
+    # Per coarse symbol, its number of subcategories, and of nonterminal ones (they come first).
+    nt, S = binary.shape[0], binary.shape[1]
+    counts = (slots < S).sum(1)
+    parent_counts = (slots < nt).sum(1)
     back = np.full((len(best), 2), -1, dtype=np.int64)
-    arrays = [x.contiguous().numpy() for x in (blocks, parent, parent_max, inside, inside_max,
-                                               log_mu, ib, ii, iw, ik, cell_first, cell_count,
-                                               parents)]
+    arrays = [x.contiguous().numpy() for x in (binary, slots, counts, parent_counts, parent,
+                                               parent_max, inside, inside_max, log_mu, ib, ii,
+                                               iw, ik, cell_first, cell_count, parents)]
     _kernel()(*arrays, log_q.contiguous().numpy(), float(slack), best.numpy(), back)
     return torch.from_numpy(back)
 
@@ -83,11 +91,10 @@ def best_derivations(blocks: Tensor | None, parent: Tensor, parent_max: Tensor,
 def _kernel():
     """The compiled loop of `best_derivations` (numba, compiled on first use, per dtype)."""
     @jit
-    def derive(blocks, parent, parent_max, inside, inside_max, log_mu, ib, ii, iw, ik,
-               cell_first, cell_count, parents, log_q, slack, best, back):
+    def derive(binary, slots, counts, parent_counts, parent, parent_max, inside, inside_max,
+               log_mu, ib, ii, iw, ik, cell_first, cell_count, parents, log_q, slack, best,
+               back):
         # pragma: no cover
-        G = inside.shape[1]
-        GG = G * G
         by_rule = log_q.shape[0] > 0
         B, N1 = cell_first.shape[0], cell_first.shape[1]
         # Each cell's items by best score, highest first (symbol order among equals), made for
@@ -137,22 +144,24 @@ def _kernel():
                         if by_rule:
                             lq = log_q[base + (lft - l0) * nr + (rgt - r0)]
                         else:
-                            block = blocks[x, ik[lft], ik[rgt]]
+                            y, z = ik[lft], ik[rgt]
                             total = 0.0
-                            for bb in range(G):
+                            for bb in range(counts[y]):
                                 in_b = inside[lft, bb]
                                 if in_b == 0.0:
                                     continue
+                                fb = slots[y, bb]
                                 s = 0.0
-                                for c3 in range(G):
+                                for c3 in range(counts[z]):
                                     in_c = inside[rgt, c3]
                                     if in_c == 0.0:
                                         continue
+                                    fc = slots[z, c3]
                                     over_a = 0.0
-                                    for a in range(G):
+                                    for a in range(parent_counts[x]):
                                         o = parent[p, a]
                                         if o != 0.0:
-                                            over_a += o * block[a * GG + bb * G + c3]
+                                            over_a += o * binary[slots[x, a], fb, fc]
                                     s += over_a * in_c
                                 total += in_b * s
                             lq = np.log(total) + parent_max[p] + inside_max[lft] + \
