@@ -8,6 +8,10 @@ from __future__ import annotations
 
 import json
 
+import pytest
+
+from treewright.decode import decode
+from treewright.grammar import load_grammar
 from treewright.refine import load_refine_config, refine
 
 GRAMMAR = """@start ROOT
@@ -84,3 +88,33 @@ def test_the_treebank_start_counts_held_out_words_against_training(tmp_path):
             "as their shape class and 1 (10.00%) as <unk>") in log
     assert ("held-out tokens read by the grammar: 3 of 6 as words of its own, 2 (33.33%) "
             "as their shape class and 1 (16.67%) as <unk>") in log
+
+
+def test_held_out_words_no_training_sentence_holds_are_read_as_unknown(tmp_path):
+    # Invented Velmor text. "ferro" is a word of GRAMMAR, but only the held-out sentence holds
+    # it: refinement gives it no probability, the saved grammar drops it, and new text reads it
+    # as <unk>. The held-out likelihood reads it so too (hand-counted: 1 of the 2 held-out
+    # tokens, 1 type), so the sentence parses, and its log-likelihood is the one the saved
+    # grammar gives the same text (`decode`'s log_likelihood, from the grammar file alone).
+    grammar = tmp_path / "g.pcfg"
+    grammar.write_text(GRAMMAR, encoding="utf-8")
+    train, dev = tmp_path / "train.txt", tmp_path / "dev.txt"
+    train.write_text("ta lanu\nta vesk\ndast orun\nta orun\n", encoding="utf-8")
+    dev.write_text("ta ferro\n", encoding="utf-8")
+    cfg = load_refine_config(None, [
+        "data.start=text", f"data.train={train}", f"data.dev={dev}", f"data.grammar={grammar}",
+        "refine.cycles=1", "refine.em_iterations=2", "refine.smoothed_iterations=1",
+        "output.tensorboard=false", "output.stdout_metrics=false",
+        f"output.run_dir={tmp_path / 'run'}"])
+    refine(cfg, tmp_path / "run")
+    log = (tmp_path / "run" / "refine.log").read_text(encoding="utf-8")
+    assert ("held-out: 1 of 2 tokens (1 types) are words of the grammar that no training "
+            "sentence holds; refinement gives them no probability, so they are read as <unk>"
+            ) in log
+    metrics = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text()
+               .splitlines()]
+    assert [m["heldout/unparsed"] for m in metrics] == [0, 0]
+    refined = load_grammar(tmp_path / "run" / "grammar.pcfg")
+    assert "ferro" not in refined.vocab
+    (decoded,) = decode(refined, [["ta", "ferro"]], "viterbi")
+    assert metrics[-1]["heldout/loglik"] == pytest.approx(decoded.log_likelihood, abs=1e-9)

@@ -282,6 +282,35 @@ def _warn_unknown(log: _Log, name: str, source, sentences, vocab: Vocabulary,
                  f"{grammar}, {fate} (is this the text the grammar was trained on?)")
 
 
+def _unseen_as_unknown(log: _Log, words: list[list[str]], train_words: list[list[str]],
+                       vocab: Vocabulary) -> list[list[int]]:
+    """The vocabulary ids of the text start's held-out sentences `words`, with each grammar word
+    that no training sentence holds read as the grammar's unknown word, and a note in the log.
+
+    Refinement re-estimates the lexicon from the training sentences alone, so such a word (the
+    grammar had it from text that included the held-out part) ends with no probability, and the
+    saved grammar no longer lists it: new text reads it as the unknown word. Held out as it
+    was, its sentence would have no parse and drop out of the held-out likelihood."""
+    seen = {w for sentence in train_words for w in sentence}
+    unseen = Counter(w for s in words for w in s
+                     if w in vocab and w not in seen and w != vocab.unk)
+    if not unseen:
+        return [vocab.encode(s) for s in words]
+    tokens = sum(unseen.values())
+    total = sum(map(len, words))
+    if vocab.unk is None:
+        lost = sum(any(w in unseen for w in s) for s in words)
+        log.note(f"held-out: {tokens} of {total} tokens ({len(unseen)} types) are words of the "
+                 f"grammar that no training sentence holds; refinement gives them no "
+                 f"probability and the grammar has no unknown word, so the {lost} held-out "
+                 f"sentences that hold them have no parse")
+        return [vocab.encode(s) for s in words]
+    log.note(f"held-out: {tokens} of {total} tokens ({len(unseen)} types) are words of the "
+             f"grammar that no training sentence holds; refinement gives them no probability, "
+             f"so they are read as {vocab.unk}, as the refined grammar reads new words")
+    return [vocab.encode([vocab.unk if w in unseen else w for w in s]) for s in words]
+
+
 def _subcategory_counts(lg: LatentGrammar) -> dict[str, int]:
     return {f"subcategories/{s}": int(n) for s, n in zip(lg.symbols, lg.splits.tolist())}
 
@@ -529,7 +558,7 @@ def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
         return words, [vocab.encode(w) for w in words]
 
     train_words, train_ids = as_words(train)
-    dev_words, dev_ids = as_words(dev)
+    dev_ids = _unseen_as_unknown(log, as_words(dev)[0], train_words, vocab)
     n_train_words = sum(map(len, train_ids))
     settings = _settings(cfg)
     generator = torch.Generator().manual_seed(cfg.refine.seed)
