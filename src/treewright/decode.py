@@ -721,9 +721,9 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     less: the item pass (`_max_rule_product_items`) for the sentences with a finite floor when
     its work over their anchored rules (`_item_work`) comes to no more than the chart pass's
     work over their kept (span, coarse parent) pairs; the chart pass otherwise, and for the
-    sentences without a floor. One choice for the batch: the chart pass
-    runs span width by span width over every sentence it is given, so a part of a batch costs
-    it nearly as much as the whole. Both give the same trees and scores (up to rounding). The
+    sentences without a floor. One choice for the batch: the chart pass runs span width by
+    span width over every sentence it is given, so a part of a batch costs it nearly as much
+    as the whole. Both give the same trees and scores (up to rounding). The
     item pass takes its sentences together, on factored rules in groups of at most
     `ITEMS_AT_ONCE` anchored rules (a sentence with more goes alone). `known`: the
     `_kept_labels` under this floor and their `_pass_costs`, when the caller has them. Returns
