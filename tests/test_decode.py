@@ -594,7 +594,8 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     def spy_kept(coarse_log, lengths, num_parents, floor):
         kept = real_kept(coarse_log, lengths, num_parents, floor)
         if path == "items":
-            every = real_kept(coarse_log, lengths, num_parents, torch.full_like(floor, -math.inf))
+            every = real_kept(coarse_log.clamp(min=-1e300), lengths, num_parents,
+                              torch.full_like(floor, -math.inf))      # every label, -inf too
             left_out.append(int(every.sum() - kept.sum()))
         return kept
 
@@ -617,6 +618,36 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     full = max_rule_product(g, tables, lengths, prune=False)
     assert pruned[4] is None and [a is None for a in pruned] == [b is None for b in full]
     assert sum(a is not None for a in pruned) == 6     # the 1-word sentence has no parse either
+    for a, b in zip(pruned, full):
+        if a is not None:
+            assert sorted(a[0]) == sorted(b[0]) and a[1] == pytest.approx(b[1], abs=1e-12)
+
+
+@pytest.mark.parametrize("nats_per_word, at_most", [(2.0, 1.0), (5.0, 1.0), (1.5, 0.0)])
+def test_over_the_cap_longer_sentences_equal_the_full_pass(monkeypatch, nats_per_word, at_most):
+    # Reference: the pass without pruning (checked against enumeration above), made while the
+    # chart layout is allowed; then, with no chart layout allowed, the pruned decoder on the
+    # same sentences (one with no parse, one of a single word) under a floor that most best
+    # trees fall below, one that none do, and every sentence taken as diffuse.
+    g = random_grammar(6, 6, 5, seed=3, sparsity=0.5,
+                       names=([f"S{i // 2}·{i % 2}" for i in range(6)],
+                              [f"P{i // 2}·{i % 2}" for i in range(6)]))
+    g.lexical[6:, 4] = -math.inf            # no preterminal emits w4: no parse
+    gen = torch.Generator().manual_seed(1)
+    sentences = [[f"w{int(k)}" for k in torch.randint(0, 4, (n,), generator=gen)]
+                 for n in (12, 9, 1, 7, 11, 3, 10, 8)]
+    sentences[4][5] = "w4"
+    tables = span_tables(g, sentences)
+    lengths = [len(w) for w in sentences]
+    full = max_rule_product(g, tables, lengths, prune=False)
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
+    monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", at_most)
+    calls = spy_on_passes(monkeypatch)
+    pruned = max_rule_product(g, tables, lengths)
+    assert "_max_rule_product_refined" not in [name for name, _ in calls]
+    assert [a is None for a in pruned] == [b is None for b in full]
+    assert sum(a is not None for a in pruned) == 6
     for a, b in zip(pruned, full):
         if a is not None:
             assert sorted(a[0]) == sorted(b[0]) and a[1] == pytest.approx(b[1], abs=1e-12)
@@ -747,22 +778,43 @@ def test_tree_scorer_on_one_symbol_labels_sums_the_rules():
             assert value == pytest.approx(reference, abs=1e-10)
 
 
-def test_max_rule_product_refuses_a_rule_layout_over_its_memory_cap(monkeypatch):
+def test_a_chart_layout_over_its_memory_cap_is_never_made(monkeypatch):
     # The chart pass's layout of REFINED: 2 coarse parents (S, X), 4 coarse symbols, G = 2
     # subcategories: 2 * 2 * (4 * 2)**2 = 256 float64 entries, 2,048 bytes (counted by hand).
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 2048)
     layout = decode_module.CoarseLayout.of(REFINED, torch.float64)       # at the cap: made
     assert layout.rules.numel() * 8 == 2048
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 2047)
+    layout = decode_module.CoarseLayout.of(REFINED, torch.float64)
     with pytest.raises(InputError, match=r"2 coarse nonterminals, 4 coarse symbols, at most 2 "
-                                         r"subcategories a symbol.*decode with viterbi or mbr"):
-        decode(REFINED, [["w0", "w1"]], "max-rule-product")
-    assert decode(REFINED, [["w0", "w1"]], "mbr")[0].tree is not None
-    # An unrefined grammar (G = 1) is not told to refine with fewer cycles.
+                                         r"subcategories a symbol.*decode it pruned"):
+        layout.rules
+    tables = span_tables(REFINED, [["w0", "w1"]])
+    with pytest.raises(InputError, match=r"over the 0 GiB it takes"):
+        max_rule_product(REFINED, tables, [2], layout, prune=False)
+    # An unrefined grammar's chart pass reads the grammar itself: no cap applies.
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
-    with pytest.raises(InputError, match=r"at most 1 subcategories a symbol.*viterbi or mbr$"):
-        decode_module.CoarseLayout.of(make_grammar(["S", "X"], ["P", "Q"], 3, seed=1),
-                                      torch.float64)
+    assert decode_module.CoarseLayout.of(make_grammar(["S", "X"], ["P", "Q"], 3, seed=1),
+                                         torch.float64).chart_fits
+
+
+@pytest.mark.parametrize("path", PATHS)
+@pytest.mark.parametrize("nats_per_word, at_most", [(0.01, 1.0), (1.5, 1.0), (1.5, 0.0)])
+def test_over_the_cap_every_sentence_takes_the_item_pass_exactly(monkeypatch, path,
+                                                                  nats_per_word, at_most):
+    # Brute force (coarse_objective) with no chart layout allowed: whatever the cost count
+    # would choose (the item pass, or the chart pass forced by a huge ITEM_OVERHEAD), a floor
+    # above every best tree (each sentence decoded again), the shipped floor, and every
+    # sentence taken as diffuse (a known tree's floor), the chart pass never runs.
+    monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
+    monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
+    monkeypatch.setattr(decode_module, "PRUNE_AT_MOST", at_most)
+    monkeypatch.setattr(decode_module, "ITEM_OVERHEAD", PATHS[path])
+    calls = spy_on_passes(monkeypatch)
+    for grammar in (REFINED, SPARSE, MIXED):
+        assert_max_rule_product_enumerated(grammar, SENTENCES)
+    names = [name for name, _ in calls]
+    assert "_max_rule_product_items" in names and "_max_rule_product_refined" not in names
 
 
 def test_max_rule_product_on_an_unrefined_grammar_matches_enumeration():

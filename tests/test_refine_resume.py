@@ -136,17 +136,31 @@ def test_the_caller_chooses_the_held_out_parser(corpora, tmp_path):
                 m["heldout/labeled_f1"]) == (0.0, 0.0, 0.0)
 
 
-def test_a_grammar_too_large_for_the_f1_decoder_ends_its_run_without_that_f1(
+def test_a_grammar_whose_chart_layout_is_over_the_cap_still_gets_its_f1(
         corpora, tmp_path, monkeypatch):
-    # max-rule-product refuses a rule layout over decode.MRP_LAYOUT_AT_MOST (here any): the
-    # run still ends, with its grammar and every other metric, and its log says why the cycles
-    # have no held-out F1.
+    # max-rule-product never makes its chart pass's layout over decode.MRP_LAYOUT_AT_MOST
+    # (here any): every held-out sentence takes the pruned pass, which is exact, so each
+    # cycle's held-out F1 is that of the same run under the default cap.
     import treewright.decode as decode_module
+    free = refine(_config(corpora, "treebank", tmp_path / "free"), tmp_path / "free")
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
+    capped = refine(_config(corpora, "treebank", tmp_path / "capped"), tmp_path / "capped")
+    f1 = [[m["heldout/labeled_f1"] for m in r.metrics] for r in (free, capped)]
+    assert f1[0] == f1[1] and len(f1[0]) == 4 and max(f1[0]) > 0
+
+
+def test_a_held_out_parser_that_refuses_the_grammar_ends_its_run_without_that_f1(
+        corpora, tmp_path):
+    # A decoder that cannot take the grammar raises InputError: the run still ends, with its
+    # grammar and every other metric, and its log says why the cycles have no held-out F1.
+    def refuse(lg, words):
+        raise InputError("this decoder cannot take the grammar")
+
     run = tmp_path / "run"
-    result = refine(_config(corpora, "treebank", run), run)
+    result = refine(_config(corpora, "treebank", run), run, heldout_parser=refuse)
     assert [m["cycle"] for m in result.metrics] == [0, 1, 2, 3]
     assert all("heldout/labeled_f1" not in m and "heldout/loglik" in m for m in result.metrics)
     assert (run / "grammar.pcfg").exists()
     log = (run / "refine.log").read_text(encoding="utf-8")
-    assert log.count("held-out labeled F1 not measured: max-rule-product on this grammar") == 4
+    assert log.count("held-out labeled F1 not measured: this decoder cannot take the "
+                     "grammar") == 4

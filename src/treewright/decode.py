@@ -248,6 +248,9 @@ class CoarseLayout:
     symbol is its own coarse symbol (G = 1, `member` None for the identity), `binary` and
     `rules` are None (no pass over the whole chart: `factored`), and `binary_logprob` gives
     the rules the item pass reads.
+
+    `chart_bytes` is the size `rules` would take. Over `MRP_LAYOUT_AT_MOST` it is never made:
+    every sentence then takes the pruned pass, under a floor or none (`chart_fits`).
     """
     names: list[str]            # K coarse symbols
     slots: Tensor               # (K, G) long
@@ -256,6 +259,7 @@ class CoarseLayout:
     binary: Tensor | None       # (NT, S, S) probabilities; None: factored rules
     nt: int                     # fine nonterminals
     binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor] | None = None
+    chart_bytes: int = 0        # of `rules`
 
     @classmethod
     def of(cls, grammar: Grammar, dtype: torch.dtype) -> "CoarseLayout":
@@ -270,14 +274,8 @@ class CoarseLayout:
         coarse_of = member.argmax(1)
         kp = int(coarse_of[:nt].max()) + 1 if nt else 0
         size = kp * G * (K * G) ** 2 * torch.finfo(dtype).bits // 8      # `rules`
-        if size > MRP_LAYOUT_AT_MOST:
-            raise InputError(
-                f"max-rule-product on this grammar would hold its rules by coarse rule in "
-                f"{size / 2 ** 30:.1f} GiB ({kp} coarse nonterminals, {K} coarse symbols, at "
-                f"most {G} subcategories a symbol: {G}**3 rules per coarse rule), over the "
-                f"{MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode with viterbi or mbr"
-                + (", or refine with fewer split-merge cycles" if G > 1 else ""))
-        return cls(names, slots, member.to(dtype), kp, grammar.binary.to(dtype).exp(), nt)
+        return cls(names, slots, member.to(dtype), kp, grammar.binary.to(dtype).exp(), nt,
+                   chart_bytes=size)
 
     @classmethod
     def of_rules(cls, binary_logprob: Callable[[Tensor, Tensor, Tensor], Tensor],
@@ -292,6 +290,12 @@ class CoarseLayout:
         """Factored rules: no rule tensor, so no pass over the whole chart."""
         return self.binary is None
 
+    @property
+    def chart_fits(self) -> bool:
+        """Whether the chart pass's layout (`rules`) may be made: within `MRP_LAYOUT_AT_MOST`
+        (an unrefined grammar's chart pass reads the grammar itself: always)."""
+        return self.slots.shape[1] == 1 or self.chart_bytes <= MRP_LAYOUT_AT_MOST
+
     @functools.cached_property
     def counts(self) -> tuple[Tensor, Tensor]:
         """(K,) each coarse symbol's number of subcategories and (K,) of nonterminal ones."""
@@ -305,6 +309,13 @@ class CoarseLayout:
         if self.binary is None:
             return None
         kp, (K, G), nt = self.num_parents, self.slots.shape, self.nt
+        if not self.chart_fits:
+            raise InputError(
+                f"max-rule-product's pass over the whole chart would hold this grammar's rules "
+                f"by coarse rule in {self.chart_bytes / 2 ** 30:.1f} GiB ({kp} coarse "
+                f"nonterminals, {K} coarse symbols, at most {G} subcategories a symbol), over "
+                f"the {MRP_LAYOUT_AT_MOST / 2 ** 30:.0f} GiB it takes; decode it pruned "
+                f"(`prune=True`, the default), which never makes that layout")
         S = self.binary.shape[1]
         # Each fine rule written to its place, (x, a, c, y, b, z): most of the layout is the
         # zeros of unused slots, so scattering the rules is cheaper than gathering every entry.
@@ -341,7 +352,8 @@ class CoarseLayout:
 MRP_CHUNK = 2 ** 20  # anchored rules per chunk of factored rules' log q (`_factored_log_q`)
 MRP_LAYOUT_AT_MOST = 2 ** 33  # bytes of max-rule-product's rules laid out for its chart pass
                               # (`CoarseLayout.rules`), Kp K**2 G**3 entries: 1.8 GiB in
-                              # float64 at 24 coarse parents, 50 coarse symbols and G = 16
+                              # float64 at 24 coarse parents, 50 coarse symbols and G = 16;
+                              # over it, the pruned pass decodes every sentence
 PRUNE_NATS_PER_WORD = 1.5  # max-rule-product's first floor: log mu >= -1.5 nats per word
 PRUNE_AT_MOST = 0.5        # ... used only when it leaves out at least half the pairs
 UNREFINED_PRUNE_FROM = 3_000_000  # an unrefined grammar's chart pass per sentence (mean over
@@ -743,6 +755,8 @@ def _max_rule_product_floored(grammar: Grammar | None, tables: engine.SpanTables
     by_items = finite & (_item_work(int(rules[finite].sum()), int(entries[finite].sum()))
                          <= int(chart[finite].sum())
                          or lay.factored)               # factored rules: no chart pass
+    if not lay.chart_fits:      # no chart layout: every sentence by items, under its floor or
+        by_items[:] = True      # none (exact either way; with none it keeps every label)
     if lay.factored and bool((rules > FACTORED_RULES_AT_MOST).any()):
         b = int((rules > FACTORED_RULES_AT_MOST).nonzero()[0, 0])
         raise InputError(
@@ -1001,13 +1015,15 @@ def _rescaled(table: Tensor, b: Tensor, i: Tensor, w: Tensor, log_scale: Tensor,
 def _kept_labels(coarse_log: Tensor, lengths: Tensor, num_parents: int, floor: Tensor
                  ) -> Tensor:
     """(B, N+1, N+1, K) the labeled spans that reach their sentence's floor: any coarse symbol
-    over a word, a coarse parent over a span of two or more words, within the sentence."""
+    over a word, a coarse parent over a span of two or more words, within the sentence. Under a
+    floor of -inf, the labels that some tree of nonzero score can hold (a finite bound)."""
     B, N1, _, K = coarse_log.shape
     start, width = torch.arange(N1)[:, None], torch.arange(N1)[None, :]
     inside = (width >= 1) & (start + width <= lengths[:, None, None])    # (B, N+1, N+1)
     symbol = torch.arange(K)
     allowed = (width[..., None] == 1) | (symbol < num_parents)          # (1, N+1, K)
-    return (coarse_log >= floor[:, None, None, None]) & inside[..., None] & allowed
+    return (coarse_log >= floor[:, None, None, None]) & torch.isfinite(coarse_log) & \
+        inside[..., None] & allowed
 
 
 def _max_rule_product_items(grammar: Grammar | None, tables: engine.SpanTables,

@@ -514,7 +514,7 @@ def _refine_treebank(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, s
         if cfg.output.parse_f1 and f1_words:
             try:
                 predicted = heldout_parser(lg, f1_words)
-            except InputError as err:  # a decoder that cannot take this grammar (its size)
+            except InputError as err:  # a decoder that cannot take this grammar
                 log.note(f"cycle {cycle}: held-out labeled F1 not measured: {err}")
             else:
                 scores = labeled_f1(predicted, f1_gold)
