@@ -92,11 +92,11 @@ def test_a_grammar_too_large_for_free_memory_is_refused_naming_the_file(tmp_path
     path.write_text("@start S\nS -> A A 1.0\nA -> \"a\" 1.0\n")
     assert load_grammar(path).binary.shape == (1, 2, 2)
     need = grammar_module.RULE_TENSOR_COPIES * 1 * 2 * 2 * 8
-    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need - 1)
+    monkeypatch.setattr(grammar_module, "available_bytes", lambda: need - 1)
     with pytest.raises(InputError) as err:
         load_grammar(path)
     assert err.value.path == str(path) and "(1, 2, 2) tensor" in str(err.value)
-    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need)
+    monkeypatch.setattr(grammar_module, "available_bytes", lambda: need)
     assert load_grammar(path).binary.shape == (1, 2, 2)
 
 
@@ -113,7 +113,7 @@ def test_a_run_whose_symbol_counts_cannot_fit_is_refused_before_its_file_is_read
     (run / "grammar.pcfg").write_text("@start S\nS -> A A 1.0\nA -> \"a\" 1.0\n")
     (run / "config.yaml").write_text("model:\n  nonterminals: 1024\n  preterminals: 2048\n")
     need = grammar_module.RULE_TENSOR_COPIES * 1024 * 3072 ** 2 * 8
-    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need - 1)
+    monkeypatch.setattr(grammar_module, "available_bytes", lambda: need - 1)
 
     def refuse(path):
         raise AssertionError("the grammar file was read")

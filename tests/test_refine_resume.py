@@ -164,3 +164,25 @@ def test_a_held_out_parser_that_refuses_the_grammar_ends_its_run_without_that_f1
     log = (run / "refine.log").read_text(encoding="utf-8")
     assert log.count("held-out labeled F1 not measured: this decoder cannot take the "
                      "grammar") == 4
+
+
+def test_a_cycle_that_would_not_fit_in_memory_stops_the_run_with_its_grammar_saved(
+        corpora, tmp_path, monkeypatch):
+    # The system's free memory as refine reads it: ample before cycle 1, none before cycle 2.
+    # The run stops before cycle 2 with a clear error, and the refined grammar it leaves is
+    # cycle 1's, byte for byte, with cycles 0 and 1 reported.
+    free = iter([2 ** 60, 0])
+    monkeypatch.setattr(refine_run, "available_bytes", lambda: next(free))
+    run = tmp_path / "run"
+    with pytest.raises(InputError, match=r"cycle 2 of 3 would hold its [\d,]+ coarse rules over "
+                                         r"4\*\*3 subcategory slots each.*The refined grammar "
+                                         r"is that of cycle 1"):
+        refine(_config(corpora, "treebank", run), run)
+    assert (run / "grammar.pcfg").read_bytes() == (run / "cycle-1.pcfg").read_bytes()
+    assert [m["cycle"] for m in _metrics(run)] == [0, 1]
+    assert "stopped: cycle 2 of 3 would hold" in (run / "refine.log").read_text(encoding="utf-8")
+    # Where the system does not say how much is free, nothing is checked.
+    monkeypatch.setattr(refine_run, "available_bytes", lambda: None)
+    other = tmp_path / "other"
+    assert [m["cycle"] for m in refine(_config(corpora, "treebank", other), other).metrics] \
+        == [0, 1, 2, 3]

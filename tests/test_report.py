@@ -405,9 +405,9 @@ def test_a_run_whose_grammar_cannot_be_loaded_is_reported_without_it(tmp_path, m
         "".join(json.dumps({"step": k, "train/loglik_per_word": -5.0 + k / 10}) + "\n"
                 for k in range(1, 4)))
     need = grammar_module.RULE_TENSOR_COPIES * 1024 * 3072 ** 2 * 8
-    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need - 1)
+    monkeypatch.setattr(grammar_module, "available_bytes", lambda: need - 1)
     found = html_module.gather(run)
     assert found.grammar is None and len(found.metrics) == 3
     assert any("not loaded" in m and "(1024, 3072, 3072)" in m for m in found.missing)
-    monkeypatch.setattr(grammar_module, "_available_bytes", lambda: need)
+    monkeypatch.setattr(grammar_module, "available_bytes", lambda: need)
     assert html_module.gather(run).grammar is not None

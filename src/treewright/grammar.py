@@ -553,7 +553,7 @@ def build_grammar(nonterminals: list[str], preterminals: list[str], vocab: Vocab
 RULE_TENSOR_COPIES = 3  # the (NT, S, S) float64 tensor is held about this many times as it is built
 
 
-def _available_bytes() -> int | None:
+def available_bytes() -> int | None:
     """The memory the system can give without swapping (Linux's MemAvailable), or None where
     it does not say."""
     try:
@@ -570,7 +570,7 @@ def check_room(nt: int, s: int, source: str | None) -> None:
     """InputError when the binary rules of `nt` nonterminals over `s` symbols need more memory,
     as a dense float64 tensor held `RULE_TENSOR_COPIES` times, than the system has free."""
     need = RULE_TENSOR_COPIES * nt * s * s * 8
-    free = _available_bytes()
+    free = available_bytes()
     if free is not None and need > free:
         raise InputError(
             f"the rules of {nt} nonterminals over {s} symbols load into an ({nt}, {s}, {s}) "
