@@ -566,6 +566,21 @@ def test_pruned_max_rule_product_matches_enumeration(monkeypatch, path, known_tr
             check_paths(calls, path, known_tree, nothing_kept=nats_per_word == 0.01)
 
 
+def longer_sentences():
+    """A refined random grammar with sparse rules, and the span tables of 8 sentences of 1 to 12
+    words, too long to enumerate: one of them has no parse (no preterminal emits w4), and the
+    single word has none either (this grammar's words are all preterminals')."""
+    g = random_grammar(6, 6, 5, seed=3, sparsity=0.5,
+                       names=([f"S{i // 2}·{i % 2}" for i in range(6)],
+                              [f"P{i // 2}·{i % 2}" for i in range(6)]))
+    g.lexical[6:, 4] = -math.inf
+    gen = torch.Generator().manual_seed(1)
+    sentences = [[f"w{int(k)}" for k in torch.randint(0, 4, (n,), generator=gen)]
+                 for n in (12, 9, 1, 7, 11, 3, 10, 8)]
+    sentences[4][5] = "w4"
+    return g, span_tables(g, sentences), [len(w) for w in sentences]
+
+
 @pytest.mark.parametrize("known_tree", [False, True], ids=["per-word", "known-tree"])
 @pytest.mark.parametrize("path", PATHS)
 @pytest.mark.parametrize("nats_per_word", [2.0, 5.0])
@@ -602,16 +617,7 @@ def test_pruned_max_rule_product_equals_the_full_pass_on_longer_sentences(monkey
     monkeypatch.setattr(decode_module, "_work_items", spy_items)
     monkeypatch.setattr(decode_module, "_kept_labels", spy_kept)
     calls = spy_on_passes(monkeypatch)
-    g = random_grammar(6, 6, 5, seed=3, sparsity=0.5,
-                       names=([f"S{i // 2}·{i % 2}" for i in range(6)],
-                              [f"P{i // 2}·{i % 2}" for i in range(6)]))
-    g.lexical[6:, 4] = -math.inf            # no preterminal emits w4: no parse
-    gen = torch.Generator().manual_seed(1)
-    sentences = [[f"w{int(k)}" for k in torch.randint(0, 4, (n,), generator=gen)]
-                 for n in (12, 9, 1, 7, 11, 3, 10, 8)]
-    sentences[4][5] = "w4"
-    tables = span_tables(g, sentences)
-    lengths = [len(w) for w in sentences]
+    g, tables, lengths = longer_sentences()
     pruned = max_rule_product(g, tables, lengths)
     assert sum(left_out) > 0          # the floor left labeled spans out
     check_paths(calls, path, known_tree)
@@ -629,16 +635,7 @@ def test_over_the_cap_longer_sentences_equal_the_full_pass(monkeypatch, nats_per
     # chart layout is allowed; then, with no chart layout allowed, the pruned decoder on the
     # same sentences (one with no parse, one of a single word) under a floor that most best
     # trees fall below, one that none do, and every sentence taken as diffuse.
-    g = random_grammar(6, 6, 5, seed=3, sparsity=0.5,
-                       names=([f"S{i // 2}·{i % 2}" for i in range(6)],
-                              [f"P{i // 2}·{i % 2}" for i in range(6)]))
-    g.lexical[6:, 4] = -math.inf            # no preterminal emits w4: no parse
-    gen = torch.Generator().manual_seed(1)
-    sentences = [[f"w{int(k)}" for k in torch.randint(0, 4, (n,), generator=gen)]
-                 for n in (12, 9, 1, 7, 11, 3, 10, 8)]
-    sentences[4][5] = "w4"
-    tables = span_tables(g, sentences)
-    lengths = [len(w) for w in sentences]
+    g, tables, lengths = longer_sentences()
     full = max_rule_product(g, tables, lengths, prune=False)
     monkeypatch.setattr(decode_module, "MRP_LAYOUT_AT_MOST", 0)
     monkeypatch.setattr(decode_module, "PRUNE_NATS_PER_WORD", nats_per_word)
