@@ -300,7 +300,7 @@ class CoarseLayout:
     def counts(self) -> tuple[Tensor, Tensor]:
         """(K,) each coarse symbol's number of subcategories and (K,) of nonterminal ones."""
         S = self.slots.shape[0] if self.member is None else self.member.shape[0]
-        return (self.slots < S).sum(1), (self.slots < self.nt).sum(1)
+        return anchored.subcategory_counts(self.slots, self.nt, S)
 
     @functools.cached_property
     def rules(self) -> Tensor | None:

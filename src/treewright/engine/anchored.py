@@ -75,16 +75,20 @@ def best_derivations(binary: Tensor | None, slots: Tensor | None, parent: Tensor
         log_q = torch.zeros(0, dtype=dtype)
     if not best.is_contiguous():
         raise ValueError("best must be contiguous: it is written in place")
-    # Per coarse symbol, its number of subcategories, and of nonterminal ones (they come first).
-    nt, S = binary.shape[0], binary.shape[1]
-    counts = (slots < S).sum(1)
-    parent_counts = (slots < nt).sum(1)
+    counts, parent_counts = subcategory_counts(slots, binary.shape[0], binary.shape[1])
     back = np.full((len(best), 2), -1, dtype=np.int64)
     arrays = [x.contiguous().numpy() for x in (binary, slots, counts, parent_counts, parent,
                                                parent_max, inside, inside_max, log_mu, ib, ii,
                                                iw, ik, cell_first, cell_count, parents)]
     _kernel()(*arrays, log_q.contiguous().numpy(), float(slack), best.numpy(), back)
     return torch.from_numpy(back)
+
+
+def subcategory_counts(slots: Tensor, nt: int, symbols: int) -> tuple[Tensor, Tensor]:
+    """(K,) each coarse symbol's number of subcategories and (K,) of nonterminal ones, from its
+    subcategory slots (K, G): fine indices in increasing order (the `nt` nonterminals first),
+    then `symbols` (one past the last) in unused slots."""
+    return (slots < symbols).sum(1), (slots < nt).sum(1)
 
 
 @functools.cache
