@@ -59,6 +59,7 @@ def test_a_text_mostly_in_the_grammar_gets_no_warning(tmp_path):
     _, log = _run(tmp_path, lines, "few")
     assert "unknown-token rate 12.50%" in log
     assert "warning" not in log
+    assert "text beyond the training sentences" not in log
 
 
 def test_the_treebank_start_counts_held_out_words_against_training(tmp_path):
@@ -111,6 +112,10 @@ def test_held_out_words_no_training_sentence_holds_are_read_as_unknown(tmp_path)
     assert ("held-out: 1 of 2 tokens (1 types) are words of the grammar that no training "
             "sentence holds; refinement gives them no probability, so they are read as <unk>"
             ) in log
+    # The grammar knew a word that only held-out text holds, so it most likely saw that text.
+    assert "held-out: the grammar learned those words from text beyond the training" in log
+    # ... so the verdict at the end leaves its cycle 0 out.
+    assert "; the last is the best of the cycles from 1 on" in log
     metrics = [json.loads(x) for x in (tmp_path / "run" / "metrics.jsonl").read_text()
                .splitlines()]
     assert [m["heldout/unparsed"] for m in metrics] == [0, 0]

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import functools
 import json
+import math
 import time
 from collections import Counter
 from dataclasses import dataclass, field
@@ -283,32 +284,42 @@ def _warn_unknown(log: _Log, name: str, source, sentences, vocab: Vocabulary,
 
 
 def _unseen_as_unknown(log: _Log, words: list[list[str]], train_words: list[list[str]],
-                       vocab: Vocabulary) -> list[list[int]]:
+                       vocab: Vocabulary) -> tuple[list[list[int]], bool]:
     """The vocabulary ids of the text start's held-out sentences `words`, with each grammar word
-    that no training sentence holds read as the grammar's unknown word, and a note in the log.
+    that no training sentence holds read as the grammar's unknown word, and notes in the log;
+    and whether there was such a word (then the starting grammar most likely saw `words`).
 
     Refinement re-estimates the lexicon from the training sentences alone, so such a word (the
     grammar had it from text that included the held-out part) ends with no probability, and the
     saved grammar no longer lists it: new text reads it as the unknown word. Held out as it
-    was, its sentence would have no parse and drop out of the held-out likelihood."""
+    was, its sentence would have no parse and drop out of the held-out likelihood. Such words
+    also say that the starting grammar most likely saw the held-out sentences, which the log
+    says too: its held-out figures then flatter it."""
     seen = {w for sentence in train_words for w in sentence}
     unseen = Counter(w for s in words for w in s
                      if w in vocab and w not in seen and w != vocab.unk)
     if not unseen:
-        return [vocab.encode(s) for s in words]
+        return [vocab.encode(s) for s in words], False
     tokens = sum(unseen.values())
     total = sum(map(len, words))
+    found = (f"held-out: {tokens} of {total} tokens ({len(unseen)} types) are words of the "
+             f"grammar that no training sentence holds; refinement gives them no probability")
     if vocab.unk is None:
         lost = sum(any(w in unseen for w in s) for s in words)
-        log.note(f"held-out: {tokens} of {total} tokens ({len(unseen)} types) are words of the "
-                 f"grammar that no training sentence holds; refinement gives them no "
-                 f"probability and the grammar has no unknown word, so the {lost} held-out "
+        log.note(f"{found} and the grammar has no unknown word, so the {lost} held-out "
                  f"sentences that hold them have no parse")
-        return [vocab.encode(s) for s in words]
-    log.note(f"held-out: {tokens} of {total} tokens ({len(unseen)} types) are words of the "
-             f"grammar that no training sentence holds; refinement gives them no probability, "
-             f"so they are read as {vocab.unk}, as the refined grammar reads new words")
-    return [vocab.encode([vocab.unk if w in unseen else w for w in s]) for s in words]
+        ids = [vocab.encode(s) for s in words]
+    else:
+        log.note(f"{found}, so they are read as {vocab.unk}, as the refined grammar reads new "
+                 f"words")
+        ids = [vocab.encode([vocab.unk if w in unseen else w for w in s]) for s in words]
+    log.note("held-out: the grammar learned those words from text beyond the training "
+             "sentences, most likely these held-out ones. If so, the held-out figures of cycle 0 "
+             "(the starting grammar) are not held-out figures, and the cycles after it, which "
+             "learn from the training sentences alone, compare worse with them than they would "
+             "on new text. Held-out text that the starting grammar did not see (data.dev) "
+             "compares them fairly; the verdict at the end compares the cycles after it only")
+    return ids, True
 
 
 def _subcategory_counts(lg: LatentGrammar) -> dict[str, int]:
@@ -400,12 +411,13 @@ def _restore(lg: LatentGrammar, generator: torch.Generator, state, folder: RunFo
 
 def _run_cycles(cfg: RefineConfig, lg: LatentGrammar, cycle_step, report_cycle,
                 folder: RunFolder, log: _Log, result: RefineResult, generator: torch.Generator,
-                state) -> RefineResult:
+                state, compare_from: int = 0) -> RefineResult:
     """Report the unrefined grammar, then run and report each split-merge cycle, with a
     checkpoint after each report; both starting points share this, and differ only in
     `cycle_step` (one cycle on trees or on text, counting its EM iterations on the progress
     line it is given). With `state` (a loaded checkpoint) it goes on after the checkpoint's
-    cycle instead."""
+    cycle instead. The log's last word on the held-out figures compares cycles from
+    `compare_from` on (`_heldout_course`)."""
     if state is None:
         report_cycle(0, lg, 0.0)
         _checkpoint(folder, lg, generator, 0, result)
@@ -425,8 +437,38 @@ def _run_cycles(cfg: RefineConfig, lg: LatentGrammar, cycle_step, report_cycle,
         _checkpoint(folder, lg, generator, cycle, result)
     result.grammar = lg
     _save(lg, folder.grammar)
+    log.note(_heldout_course(result.metrics, folder, compare_from))
     log.note(f"refined grammar: {result.grammar_path}")
     return result
+
+
+def _heldout_course(metrics: Sequence[dict], folder: RunFolder, compare_from: int = 0
+                    ) -> str | None:
+    """The held-out log-likelihood per word of every cycle so far on one line, and when the
+    last cycle's is not the best of the cycles from `compare_from` on, which cycle's grammar
+    file had the best: a refined grammar can fit its training sentences better with every cycle
+    and new text worse (EM with no prior goes on fitting the training sentences' sparse
+    counts). None when no cycle has a finite figure."""
+    # A resumed run's metrics come back from the checkpoint, where nan is the string "nan".
+    figures = [(int(m["cycle"]), float(m.get("heldout/loglik_per_word", "nan")))
+               for m in metrics]
+    scored = [(c, ll) for c, ll in figures if math.isfinite(ll)]
+    if not scored:
+        return None
+    course = ", ".join(f"{c} {ll:.3f}" for c, ll in scored)
+    text = f"held-out log-likelihood per word by cycle: {course}"
+    compared = [(c, ll) for c, ll in scored if c >= compare_from]
+    if not compared:
+        return text
+    best, best_ll = max(compared, key=lambda c: (c[1], -c[0]))   # the earliest of equal ones
+    among = "" if compare_from == 0 else f" of the cycles from {compare_from} on"
+    if compared[-1][1] >= best_ll:
+        return f"{text}; the last is the best{among}"
+    path = folder.coarse if best == 0 else folder.cycle_grammar(best)
+    return (f"{text}. The refined grammar fits the held-out sentences worse than cycle "
+            f"{best}'s did, by {best_ll - compared[-1][1]:.3f} nats a word: it has fitted its "
+            f"training sentences past what carries over to new text. By this measure {path} "
+            f"is the better grammar for new text")
 
 
 # A cycle holds its coarse rules' blocks, split to twice the width, about this many times at
@@ -590,7 +632,7 @@ def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
         return words, [vocab.encode(w) for w in words]
 
     train_words, train_ids = as_words(train)
-    dev_ids = _unseen_as_unknown(log, as_words(dev)[0], train_words, vocab)
+    dev_ids, start_saw_dev = _unseen_as_unknown(log, as_words(dev)[0], train_words, vocab)
     n_train_words = sum(map(len, train_ids))
     settings = _settings(cfg)
     generator = torch.Generator().manual_seed(cfg.refine.seed)
@@ -617,4 +659,5 @@ def _refine_text(cfg: RefineConfig, folder: RunFolder, log: _Log, loggers, state
     return _run_cycles(cfg, lg, lambda g, progress: text_cycle(
                            g, train_ids, train_words, settings, generator,
                            cfg.refine.batch_size, progress, parser=parser),
-                       report_cycle, folder, log, result, generator, state)
+                       report_cycle, folder, log, result, generator, state,
+                       compare_from=1 if start_saw_dev else 0)
