@@ -1,5 +1,7 @@
-"""Refinement's held-out set when no held-out tree can be scored: said in the log, not only as
-nan in the metrics."""
+"""Refinement's held-out set in the log: when no held-out tree can be scored (said, not only
+as nan in the metrics), and the held-out figure of every cycle at the end of a run, with the
+best cycle's file named when the last is worse (figures made by hand, or read back from the
+run's own metrics.jsonl)."""
 
 from __future__ import annotations
 
