@@ -114,3 +114,37 @@ def test_map_em_never_lowers_the_log_posterior(tmp_path):
     for before, after in zip(objective, objective[1:]):
         assert after >= before - 1e-10, objective
     assert objective[-1] > objective[0]
+
+
+def test_a_run_that_hits_the_epoch_limit_says_it_did_not_converge(tmp_path):
+    # EM's objective is the training log-likelihood per word (for batch EM, of the grammar
+    # before each epoch's update); the note gives the last epoch's gain over the one before,
+    # read back here from metrics.jsonl. 5 epochs of a fresh random grammar do not converge.
+    train_path, _ = write_corpus(tmp_path / "data", train=60, dev=0)
+    cfg = load_train_config(None, base_overrides(tmp_path, train_path, None, **{
+        "train.restarts": 2, "train.tolerance": 1e-5}))
+    train(cfg, tmp_path / "run")
+    log = (tmp_path / "run" / "train.log").read_text(encoding="utf-8")
+    rows = [json.loads(line) for line in (tmp_path / "run" / "metrics.jsonl").read_text()
+            .splitlines()]
+    for restart in (0, 1):
+        series = [r["train/loglik_per_word"] for r in rows
+                  if r.get("restart") == restart and "train/loglik_per_word" in r]
+        assert len(series) == 5
+        assert (f"restart {restart}: stopped at the epoch limit (train.epochs = 5) before "
+                f"converging: its last epoch still improved the objective per word by "
+                f"{series[-1] - series[-2]:.2g} (train.tolerance = 1e-05)") in log
+
+
+def test_a_converged_run_and_a_method_that_never_converges_say_nothing_of_the_limit(tmp_path):
+    # Nor does a run told never to stop early (tolerance 0, the library's default).
+    train_path, _ = write_corpus(tmp_path / "data", train=60, dev=0)
+    for name, extra in (("em", {"train.tolerance": 10.0}), ("never", {"train.tolerance": 0}),
+                        ("gradient", {"train.method": "gradient", "train.tolerance": 1e-5})):
+        folder = tmp_path / name
+        cfg = load_train_config(None, base_overrides(folder, train_path, None, **extra))
+        train(cfg, folder / "run")
+        log = (folder / "run" / "train.log").read_text(encoding="utf-8")
+        assert "epoch limit" not in log
+        # A tolerance of 10 nats a word is met at the first comparable epoch (epoch 1).
+        assert ("restart 0: converged after epoch 1" in log) == (name == "em")

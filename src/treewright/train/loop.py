@@ -136,6 +136,7 @@ class Trainer:
             start = self.dev(self.model.scorer(method.rules()))
             self.loggers.log({"restart": restart, **{k.replace("dev/", "init/dev_"): v
                                                      for k, v in start.items()}}, position.step)
+        limit = None  # (epoch, gain) when an epoch's comparable gain is known, else None
         while position.epoch < cfg.train.epochs:
             epoch = self.epoch_ = position.epoch
             plan = plans[epoch]
@@ -173,8 +174,11 @@ class Trainer:
                        "length_cap": cap if cap is not None else -1}
             self.loggers.log(metrics, position.step)
             self.headline.log({k: metrics[k] for k in HEADLINE if k in metrics}, position.step)
+            previous = position.previous_objective
             done = converged(self.curriculum, method, cfg.train.tolerance, epoch, metrics,
                              position)
+            limit = (epoch, position.previous_objective - previous) \
+                if previous is not None and comparable(self.curriculum, method, epoch) else None
             position.next_epoch(cfg.train.epochs if done else epoch + 1)
             self.checkpoint(position)
             if done:
@@ -182,6 +186,12 @@ class Trainer:
                            f"word improved by less than {cfg.train.tolerance})")
             if self._stop_now(max_steps) and position.epoch < cfg.train.epochs:
                 return False
+        if limit is not None and method.converges and cfg.train.tolerance > 0 \
+                and limit[1] >= cfg.train.tolerance:
+            self._note(f"restart {restart}: stopped at the epoch limit (train.epochs = "
+                       f"{cfg.train.epochs}) before converging: its last epoch still improved "
+                       f"the objective per word by {limit[1]:.2g} (train.tolerance = "
+                       f"{cfg.train.tolerance:g})")
         return True
 
     def _mid_epoch(self, position: Position, max_steps: int | None) -> bool:
@@ -256,17 +266,21 @@ def converged(curriculum: Curriculum, method: UpdateMethod, tolerance: float, ep
     records the objective for the next epoch."""
     objective = metrics.get("train/elbo_per_word", metrics.get(
         "train/log_posterior_per_word", metrics["train/loglik_per_word"]))
-    # Only objectives of the same kind over the same sentences compare: VB's first epoch
-    # reports a log-likelihood (no ELBO yet), and a curriculum step changes the data, so
-    # neither counts as "improved by less than the tolerance".
-    comparable = (epoch >= method.first_comparable_epoch
-                  and curriculum.same_data(epoch, epoch - 1)
-                  and curriculum.same_data(epoch + 1, epoch))
-    done = (method.converges and tolerance > 0 and comparable
+    done = (method.converges and tolerance > 0 and comparable(curriculum, method, epoch)
             and position.previous_objective is not None
             and objective - position.previous_objective < tolerance)
     position.previous_objective = objective
     return done
+
+
+def comparable(curriculum: Curriculum, method: UpdateMethod, epoch: int) -> bool:
+    """Whether epoch `epoch`'s objective compares with the epoch before's. Only objectives of
+    the same kind over the same sentences do: VB's first epoch reports a log-likelihood (no
+    ELBO yet), and a curriculum step changes the data, so neither counts as "improved by less
+    than the tolerance"."""
+    return (epoch >= method.first_comparable_epoch
+            and curriculum.same_data(epoch, epoch - 1)
+            and curriculum.same_data(epoch + 1, epoch))
 
 
 def step_line(update: Update) -> dict:
