@@ -20,7 +20,8 @@ Sentences: the first `--sentences` lines of the demo training set (or `--text`) 
 `--max-length` words.
 
 Each tool runs as its user runs it: training with `train.batch_size` (32) in the trainer's
-float32 (`estep.batch_counts` per batch, then the maximum-likelihood update), the decoders
+float32 (`estep.batch_counts` per batch, subnormal floats flushed as training flushes them,
+then the maximum-likelihood update), the decoders
 through `decode.decode` with `parse`'s batch size through a rule tensor (32) in `parse`'s
 float64, without the trees' own log-probabilities (`parse` computes them only for `--scores`;
 on a refined grammar they cost max-rule-product about a tenth more). One process, one torch
@@ -120,9 +121,9 @@ def main(argv: list[str] | None = None) -> dict:
     p.add_argument("--text", type=Path, default=DEMO / "train.txt",
                    help="the sentences (one per line, words separated by spaces)")
     p.add_argument("--flush-subnormals", action="store_true",
-                   help="time the EM epoch with subnormal floats flushed to zero (training does "
-                        "not flush; on hosts where subnormals are slow this shows the ratio a "
-                        "host without that penalty would give; see DEVELOPERS.md)")
+                   help="kept for the commands of earlier measurements: training's float32 "
+                        "E-step now flushes subnormal floats itself (estep.batch_counts), so "
+                        "every EM epoch here is timed flushed, with or without it")
     p.add_argument("--quick", action="store_true",
                    help="a smoke run: 12 sentences of at most 8 words, grammars 4/6, one repeat")
     args = p.parse_args(argv)
@@ -152,7 +153,6 @@ def main(argv: list[str] | None = None) -> dict:
           f"at most {args.max_length} words ({words} words); "
           f"training batch {args.train_batch_size} float32, parsing batch "
           f"{args.parse_batch_size} float64; best of {args.repeats} alternated repeats; "
-          + ("EM epoch with subnormals flushed; " if args.flush_subnormals else "")
           + (f"grammar {args.grammar}" if args.grammar is not None else
              "symbols " + ("unrefined (S0, P0, ...)" if args.unrefined else
                            "named S0·0, S0·1, ...")
@@ -180,9 +180,7 @@ def main(argv: list[str] | None = None) -> dict:
             for tool in ("train",) + DECODERS:
                 began, began_cpu = time.perf_counter(), time.process_time()
                 if tool == "train":
-                    torch.set_flush_denormal(args.flush_subnormals)
                     em_epoch(model, batches)
-                    torch.set_flush_denormal(False)
                 else:
                     decode.decode(grammar, sentences, tool, args.parse_batch_size, torch.float64,
                                   tree_logprobs=False)

@@ -6,8 +6,10 @@ lexical rules, and lexical expected counts are the terminal marginals scattered 
 
 from __future__ import annotations
 
+import contextlib
+import dataclasses
 from dataclasses import dataclass
-from typing import Sequence
+from typing import Iterator, Sequence
 
 import torch
 from torch import Tensor
@@ -48,6 +50,20 @@ class Batch:
     @property
     def words(self) -> int:
         return int(self.lengths.sum())
+
+    def subset(self, keep: Tensor) -> "Batch":
+        """The sentences of this batch where `keep` (B,) is True, in order."""
+        rows = keep.nonzero().flatten()
+        pick = (lambda t: None if t is None else t[rows])
+        return Batch([self.indices[i] for i in rows.tolist()], self.ids[rows],
+                     self.lengths[rows], pick(self.span_pot), pick(self.head_bias),
+                     self.arc_length)
+
+    def with_dtype(self, dtype: torch.dtype) -> "Batch":
+        """This batch with its potentials in `dtype`."""
+        cast = (lambda t: None if t is None else t.to(dtype))
+        return dataclasses.replace(self, span_pot=cast(self.span_pot),
+                                   head_bias=cast(self.head_bias))
 
 
 def make_batch(indices: Sequence[int], sentence_ids: Sequence[Sequence[int]],
@@ -149,6 +165,13 @@ def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
     span_pot: (B, N+1, N+1) [start, width] span log-potentials, or None.
     The lexical counts have the shape of `lexical`.
     """
+    return _expected_counts(root, binary, lexical, ids, lengths, span_pot, nonterminals_emit)[0]
+
+
+def _expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
+                     lengths: Tensor, span_pot: Tensor | None = None,
+                     nonterminals_emit: bool = False) -> tuple[ExpectedCounts, Tensor]:
+    """`expected_counts`, and the batch's log Z (B,)."""
     nt = binary.shape[0]
     every_symbol = lexical.shape[0] == binary.shape[1]
     enc = encode_ids(lexical, ids, lengths, num_nt=nt if every_symbol else 0,
@@ -168,15 +191,62 @@ def expected_counts(root: Tensor, binary: Tensor, lexical: Tensor, ids: Tensor,
         counts[:nt].index_add_(1, words, post.nt_terminal[mask].T.to(counts.dtype))
     return ExpectedCounts(post.root.sum(0), post.binary, counts,
                           float(logz[parsed].sum()), int(lengths[parsed].sum()),
-                          int(parsed.sum()), int((~parsed).sum()))
+                          int(parsed.sum()), int((~parsed).sum())), logz
 
 
 def batch_counts(rules: RuleTensors | IndependentRules, batch: Batch) -> ExpectedCounts:
-    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights)."""
-    if isinstance(rules, IndependentRules):
-        return independent_counts(rules, batch)
-    return expected_counts(rules.root, rules.binary, rules.lexical, batch.ids, batch.lengths,
-                           batch.span_pot)
+    """Expected counts of one batch under `rules` (log-probabilities, or VB log-weights): the
+    E-step of training.
+
+    In float32 the pass runs with subnormal numbers (below 1.2e-38) flushed to zero. As EM
+    sharpens a grammar, rules and chart cells fall into that range, and some processors take
+    a slow path on every operation that meets one: on an Intel Xeon with AVX-512 an E-step of a
+    trained 30/60 grammar took 8 times as long unflushed (README, "Subnormal numbers and the
+    training rate"). A cell is scaled by its largest entry, so what flushing drops is mostly far
+    below float32's rounding of the sums it would join; where much of a sentence's mass runs
+    through such values it loses that part (DEVELOPERS.md). A sentence that flushing leaves
+    with no tree at all is counted again in float64, where those values are normal numbers
+    (unflushed float32 would count it, but its counts of the subnormal rules come out wrong).
+    The dev likelihood, the decoders and float64 runs never flush."""
+    count = _independent_counts if isinstance(rules, IndependentRules) else _tabular_counts
+    if rules.root.dtype != torch.float32:
+        return count(rules, batch)[0]
+    with flushed_subnormals():
+        counts, logz = count(rules, batch)
+    lost = ~torch.isfinite(logz)
+    if not bool(lost.any()):
+        return counts
+    again = _as_dtype(count(type(rules)(*(t.double() for t in rules)),
+                            batch.subset(lost).with_dtype(torch.float64))[0], torch.float32)
+    return dataclasses.replace(add_counts(counts, again), unparsed=again.unparsed)
+
+
+def _as_dtype(counts: ExpectedCounts, dtype: torch.dtype) -> ExpectedCounts:
+    return dataclasses.replace(counts, root=counts.root.to(dtype),
+                               binary=counts.binary.to(dtype), lexical=counts.lexical.to(dtype))
+
+
+def _tabular_counts(rules: RuleTensors, batch: Batch) -> tuple[ExpectedCounts, Tensor]:
+    return _expected_counts(rules.root, rules.binary, rules.lexical, batch.ids, batch.lengths,
+                            batch.span_pot)
+
+
+def _flushing() -> bool:
+    """Whether this thread flushes subnormal float32 numbers to zero now (torch has no
+    getter: 1e-39 is subnormal in float32, so it reads back as 0 only when flushed)."""
+    return float(torch.tensor([1e-39], dtype=torch.float32).mul_(1.0)) == 0.0
+
+
+@contextlib.contextmanager
+def flushed_subnormals() -> Iterator[None]:
+    """Subnormal floats flushed to zero on this thread inside the block (where the processor
+    can: `torch.set_flush_denormal`), and the previous mode restored after it."""
+    before = _flushing()
+    torch.set_flush_denormal(True)
+    try:
+        yield
+    finally:
+        torch.set_flush_denormal(before)
 
 
 def independent_counts(rules: IndependentRules, batch: Batch) -> ExpectedCounts:
@@ -186,6 +256,12 @@ def independent_counts(rules: IndependentRules, batch: Batch) -> ExpectedCounts:
     Just Backprop"), through `engine.independent`, without forming the (NT, S, S) rules. The
     left factor's count of (A, B) is the expected number of rules A -> B C over every C, and
     likewise on the right."""
+    return _independent_counts(rules, batch)[0]
+
+
+def _independent_counts(rules: IndependentRules, batch: Batch
+                        ) -> tuple[ExpectedCounts, Tensor]:
+    """`independent_counts`, and the batch's log Z (B,)."""
     leaves = [x.detach().requires_grad_() for x in (rules.root, rules.left, rules.right,
                                                      rules.lexical)]
     with torch.enable_grad():
@@ -199,9 +275,10 @@ def independent_counts(rules: IndependentRules, batch: Batch) -> ExpectedCounts:
             if bool(parsed.any()) else [None] * 4
     root, left, right, lexical = (torch.zeros_like(x) if g is None else g.detach()
                                   for g, x in zip(grads, leaves))
+    logz = logz.detach()
     return ExpectedCounts(root, torch.stack([left, right], 1), lexical,
-                          float(logz.detach()[parsed].sum()), int(batch.lengths[parsed].sum()),
-                          int(parsed.sum()), int((~parsed).sum()))
+                          float(logz[parsed].sum()), int(batch.lengths[parsed].sum()),
+                          int(parsed.sum()), int((~parsed).sum())), logz
 
 
 def add_counts(total: ExpectedCounts, part: ExpectedCounts) -> ExpectedCounts:
