@@ -136,7 +136,7 @@ class Trainer:
             start = self.dev(self.model.scorer(method.rules()))
             self.loggers.log({"restart": restart, **{k.replace("dev/", "init/dev_"): v
                                                      for k, v in start.items()}}, position.step)
-        limit = None  # (epoch, gain) when an epoch's comparable gain is known, else None
+        gain = None  # the last epoch's gain in the objective, when comparable with the one before
         while position.epoch < cfg.train.epochs:
             epoch = self.epoch_ = position.epoch
             plan = plans[epoch]
@@ -177,7 +177,7 @@ class Trainer:
             previous = position.previous_objective
             done = converged(self.curriculum, method, cfg.train.tolerance, epoch, metrics,
                              position)
-            limit = (epoch, position.previous_objective - previous) \
+            gain = position.previous_objective - previous \
                 if previous is not None and comparable(self.curriculum, method, epoch) else None
             position.next_epoch(cfg.train.epochs if done else epoch + 1)
             self.checkpoint(position)
@@ -186,11 +186,11 @@ class Trainer:
                            f"word improved by less than {cfg.train.tolerance})")
             if self._stop_now(max_steps) and position.epoch < cfg.train.epochs:
                 return False
-        if limit is not None and method.converges and cfg.train.tolerance > 0 \
-                and limit[1] >= cfg.train.tolerance:
+        if gain is not None and method.converges and cfg.train.tolerance > 0 \
+                and gain >= cfg.train.tolerance:
             self._note(f"restart {restart}: stopped at the epoch limit (train.epochs = "
                        f"{cfg.train.epochs}) before converging: its last epoch still improved "
-                       f"the objective per word by {limit[1]:.2g} (train.tolerance = "
+                       f"the objective per word by {gain:.2g} (train.tolerance = "
                        f"{cfg.train.tolerance:g})")
         return True
 
